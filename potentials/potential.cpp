@@ -1,0 +1,342 @@
+#include "potentials/potential.hpp"
+
+#include <muParser.h>
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+
+#include "solver/errors.hpp"
+
+namespace trapwork {
+
+namespace {
+
+struct ShapeInfo {
+  Shape shape;
+  std::string_view name;
+  std::vector<std::string> parameters;
+};
+
+const std::vector<ShapeInfo>& shape_table() {
+  static const std::vector<ShapeInfo> table = {
+      {Shape::harmonic, "harmonic", {"frequency", "centre"}},
+      {Shape::polynomial, "polynomial",
+       {"frequency", "centre", "cubic", "quartic", "quintic", "sextic", "septic", "octic"}},
+      {Shape::gaussian, "gaussian", {"depth", "waist", "centre"}},
+      {Shape::double_well, "double_well", {"barrier", "separation", "tilt", "centre"}},
+      {Shape::morse, "morse", {"depth", "range", "centre"}},
+      {Shape::poschl_teller, "poschl_teller", {"depth", "width", "centre"}},
+      {Shape::square_well, "square_well", {"depth", "half_width", "softness", "centre"}},
+      {Shape::table, "table", {"centre", "scale"}},
+      {Shape::formula, "formula", {"centre", "scale", "length_factor", "time_factor"}},
+  };
+  return table;
+}
+
+double default_value(std::string_view p) {
+  return (p == "scale" || p == "length_factor" || p == "time_factor") ? 1.0 : 0.0;
+}
+
+// Parameters that must be strictly positive for the shape to make sense.
+bool must_be_positive(Shape s, std::string_view p) {
+  if (p == "waist" || p == "separation" || p == "range" || p == "width" || p == "half_width") return true;
+  if (p == "frequency") return s == Shape::harmonic;
+  if (p == "length_factor" || p == "time_factor") return true;
+  return false;
+}
+
+// Monotone cubic Hermite interpolation (Fritsch & Carlson, SIAM J. Numer. Anal. 17, 238
+// (1980), from memory): slopes by the weighted harmonic mean of neighbouring secants, zero at
+// local extrema, so the interpolant never overshoots the data.
+double interpolate_monotone(const PotentialTable& t, double x) {
+  const auto& xs = t.x;
+  const auto& vs = t.v;
+  const std::size_t n = xs.size();
+  if (x <= xs.front()) return vs.front();
+  if (x >= xs.back()) return vs.back();
+  const std::size_t k = std::upper_bound(xs.begin(), xs.end(), x) - xs.begin() - 1;
+  auto secant = [&](std::size_t i) { return (vs[i + 1] - vs[i]) / (xs[i + 1] - xs[i]); };
+  auto slope = [&](std::size_t i) {
+    if (i == 0) return secant(0);
+    if (i == n - 1) return secant(n - 2);
+    const double d0 = secant(i - 1), d1 = secant(i);
+    if (d0 * d1 <= 0) return 0.0;
+    const double h0 = xs[i] - xs[i - 1], h1 = xs[i + 1] - xs[i];
+    const double w1 = 2 * h1 + h0, w2 = h1 + 2 * h0;
+    return (w1 + w2) / (w1 / d0 + w2 / d1);
+  };
+  const double h = xs[k + 1] - xs[k], s = (x - xs[k]) / h;
+  const double h00 = (1 + 2 * s) * (1 - s) * (1 - s), h10 = s * (1 - s) * (1 - s);
+  const double h01 = s * s * (3 - 2 * s), h11 = s * s * (s - 1);
+  return h00 * vs[k] + h10 * h * slope(k) + h01 * vs[k + 1] + h11 * h * slope(k + 1);
+}
+
+std::string number_text(double v) {
+  char buf[64];
+  std::snprintf(buf, sizeof buf, "%.9g", v);
+  return buf;
+}
+
+}  // namespace
+
+std::string_view shape_name(Shape s) {
+  for (const auto& i : shape_table())
+    if (i.shape == s) return i.name;
+  return "?";
+}
+
+std::optional<Shape> shape_from_name(std::string_view name) {
+  for (const auto& i : shape_table())
+    if (i.name == name) return i.shape;
+  return std::nullopt;
+}
+
+const std::vector<std::string>& shape_parameters(Shape s) {
+  for (const auto& i : shape_table())
+    if (i.shape == s) return i.parameters;
+  throw ContractViolation("unknown shape");
+}
+
+// The muParser expression of a formula term, with storage for its variables. muParser binds
+// variables by address, so a copy re-creates the parser around its own storage.
+struct Term::Formula {
+  std::string expression;
+  std::vector<std::string> user_names;
+  mutable double x = 0, t = 0;
+  mutable std::vector<double> user_values;
+  mu::Parser parser;
+
+  Formula(std::string expr, std::vector<std::string> names, std::vector<double> values)
+      : expression(std::move(expr)), user_names(std::move(names)), user_values(std::move(values)) {
+    parser.DefineVar("x", &x);
+    parser.DefineVar("t", &t);
+    for (std::size_t i = 0; i < user_names.size(); ++i) parser.DefineVar(user_names[i], &user_values[i]);
+    parser.SetExpr(expression);
+  }
+  double operator()(double xv, double tv) const {
+    x = xv;
+    t = tv;
+    return parser.Eval();
+  }
+};
+
+Term::Term(std::string name, Shape shape, const std::vector<std::pair<std::string, double>>& parameters)
+    : name_(std::move(name)), shape_(shape) {
+  for (const auto& p : shape_parameters(shape)) parameters_.emplace_back(p, default_value(p));
+  for (const auto& [key, value] : parameters) set_parameter(key, value);
+  if (shape == Shape::harmonic && parameter("frequency") <= 0)
+    throw InputError(name_ + ".frequency", number_text(parameter("frequency")), "a harmonic term needs frequency > 0");
+}
+
+Term Term::tabulated(std::string name, PotentialTable table,
+                     const std::vector<std::pair<std::string, double>>& parameters) {
+  if (table.x.size() < 2 || table.x.size() != table.v.size())
+    throw InputError(name + ".file", std::to_string(table.x.size()) + " rows", "at least 2 rows of (x, V)");
+  for (std::size_t i = 0; i < table.x.size(); ++i) {
+    if (!std::isfinite(table.x[i]) || !std::isfinite(table.v[i]))
+      throw InputError(name + ".file", "row " + std::to_string(i + 1) + " not finite", "finite x and V");
+    if (i > 0 && !(table.x[i] > table.x[i - 1]))
+      throw InputError(name + ".file", "row " + std::to_string(i + 1) + ": x = " + number_text(table.x[i]),
+                       "x strictly increasing");
+  }
+  Term term(std::move(name), Shape::table, parameters);
+  term.table_ = std::make_shared<const PotentialTable>(std::move(table));
+  return term;
+}
+
+Term Term::formula(std::string name, std::string expression,
+                   const std::vector<std::pair<std::string, double>>& parameters) {
+  std::vector<std::pair<std::string, double>> fixed;
+  std::vector<std::string> user_names;
+  std::vector<double> user_values;
+  const auto& fixed_names = shape_parameters(Shape::formula);
+  for (const auto& [k, v] : parameters) {
+    if (std::find(fixed_names.begin(), fixed_names.end(), k) != fixed_names.end()) {
+      fixed.emplace_back(k, v);
+    } else {
+      if (k == "x" || k == "t") throw InputError(name + "." + k, k, "a parameter name other than x and t");
+      user_names.push_back(k);
+      user_values.push_back(v);
+    }
+  }
+  Term term(name, Shape::formula, fixed);
+  for (std::size_t i = 0; i < user_names.size(); ++i) term.parameters_.emplace_back(user_names[i], user_values[i]);
+  try {
+    term.formula_ = std::make_unique<Formula>(expression, user_names, user_values);
+    (*term.formula_)(0.0, 0.0);  // compiles the expression: unknown names and syntax errors show here
+  } catch (const mu::Parser::exception_type& e) {
+    throw InputError(name + ".expression", expression, "a formula of x, t and the named parameters: " + e.GetMsg());
+  }
+  return term;
+}
+
+Term::Term(const Term& o)
+    : name_(o.name_), shape_(o.shape_), parameters_(o.parameters_), table_(o.table_) {
+  if (o.formula_)
+    formula_ = std::make_unique<Formula>(o.formula_->expression, o.formula_->user_names, o.formula_->user_values);
+}
+Term& Term::operator=(const Term& o) {
+  if (this != &o) *this = Term(o);
+  return *this;
+}
+Term::Term(Term&&) noexcept = default;
+Term& Term::operator=(Term&&) noexcept = default;
+Term::~Term() = default;
+
+bool Term::has_parameter(std::string_view p) const {
+  return std::any_of(parameters_.begin(), parameters_.end(), [&](const auto& kv) { return kv.first == p; });
+}
+
+double Term::parameter(std::string_view p) const {
+  for (const auto& [k, v] : parameters_)
+    if (k == p) return v;
+  std::string known;
+  for (const auto& [k, v] : parameters_) known += (known.empty() ? "" : ", ") + k;
+  throw InputError(name_ + "." + std::string(p), std::string(p),
+                   "a parameter of the " + std::string(shape_name(shape_)) + " shape: " + known);
+}
+
+void Term::set_parameter(std::string_view p, double value) {
+  const std::string key = name_ + "." + std::string(p);
+  if (!std::isfinite(value)) throw InputError(key, number_text(value), "a finite number");
+  if (must_be_positive(shape_, p) && !(value > 0)) throw InputError(key, number_text(value), "a value > 0");
+  for (std::size_t i = 0; i < parameters_.size(); ++i) {
+    if (parameters_[i].first != p) continue;
+    parameters_[i].second = value;
+    if (formula_) {
+      const auto& names = formula_->user_names;
+      const auto it = std::find(names.begin(), names.end(), p);
+      if (it != names.end()) formula_->user_values[it - names.begin()] = value;
+    }
+    return;
+  }
+  (void)parameter(p);  // throws the "unknown parameter" error with the list of known ones
+}
+
+double Term::value(double x, double t) const {
+  const auto& p = parameters_;  // fixed order: see shape_table()
+  switch (shape_) {
+    case Shape::harmonic: {
+      const double y = x - p[1].second, w = p[0].second;
+      return 0.5 * w * w * y * y;
+    }
+    case Shape::polynomial: {
+      const double y = x - p[1].second, w = p[0].second;
+      double sum = 0;  // Horner from the octic down to the cubic term
+      for (int k = 7; k >= 2; --k) sum = (sum + p[k].second) * y;
+      return 0.5 * w * w * y * y + sum * y * y;
+    }
+    case Shape::gaussian: {
+      const double y = x - p[2].second, w = p[1].second;
+      return -p[0].second * std::exp(-2 * y * y / (w * w));
+    }
+    case Shape::double_well: {
+      const double a = 0.5 * p[1].second, y = (x - p[3].second) / a;
+      const double q = y * y - 1;
+      return p[0].second * q * q + p[2].second * y;
+    }
+    case Shape::morse: {
+      const double e = 1 - std::exp(-(x - p[2].second) / p[1].second);
+      return p[0].second * e * e;
+    }
+    case Shape::poschl_teller: {
+      const double c = std::cosh((x - p[2].second) / p[1].second);
+      return -p[0].second / (c * c);
+    }
+    case Shape::square_well: {
+      const double y = x - p[3].second, a = p[1].second, s = p[2].second;
+      if (s <= 0) return std::abs(y) < a ? -p[0].second : (std::abs(y) == a ? -0.5 * p[0].second : 0.0);
+      return -0.5 * p[0].second * (std::tanh((y + a) / s) - std::tanh((y - a) / s));
+    }
+    case Shape::table:
+      return p[1].second * interpolate_monotone(*table_, x - p[0].second);
+    case Shape::formula:
+      return p[1].second * (*formula_)((x - p[0].second) * p[2].second, t * p[3].second);
+  }
+  return 0;
+}
+
+std::optional<std::pair<double, double>> Term::harmonic_part() const {
+  if (shape_ != Shape::harmonic && shape_ != Shape::polynomial) return std::nullopt;
+  if (parameter("frequency") == 0) return std::nullopt;
+  return std::make_pair(parameter("frequency"), parameter("centre"));
+}
+
+Potential::Potential(std::vector<Term> terms) {
+  for (auto& t : terms) add(std::move(t));
+}
+
+void Potential::add(Term t) {
+  for (const auto& existing : terms_)
+    if (existing.name() == t.name())
+      throw InputError(t.name() + ".name", t.name(), "a term name not used before");
+  terms_.push_back(std::move(t));
+}
+
+double Potential::operator()(double x, double t) const {
+  double v = 0;
+  for (const auto& term : terms_) v += term.value(x, t);
+  return v;
+}
+
+void Potential::evaluate(const double* x, double* v, std::size_t n, double t) const {
+  for (std::size_t j = 0; j < n; ++j) v[j] = (*this)(x[j], t);
+}
+
+std::vector<double> Potential::evaluate(const std::vector<double>& x, double t) const {
+  std::vector<double> v(x.size());
+  evaluate(x.data(), v.data(), x.size(), t);
+  return v;
+}
+
+std::pair<std::size_t, std::string_view> Potential::locate(std::string_view address) const {
+  const auto dot = address.find('.');
+  std::string known;
+  for (std::size_t i = 0; i < terms_.size(); ++i) {
+    if (dot != std::string_view::npos && terms_[i].name() == address.substr(0, dot))
+      return {i, address.substr(dot + 1)};
+    known += (known.empty() ? "" : ", ") + terms_[i].name();
+  }
+  throw InputError(std::string(address), std::string(address), "term.parameter with a term among: " + known);
+}
+
+double Potential::parameter(std::string_view address) const {
+  const auto [i, p] = locate(address);
+  return terms_[i].parameter(p);
+}
+
+void Potential::set_parameter(std::string_view address, double value) {
+  const auto [i, p] = locate(address);
+  terms_[i].set_parameter(p, value);
+}
+
+Potential Potential::with(std::string_view address, double value) const {
+  Potential copy = *this;
+  copy.set_parameter(address, value);
+  return copy;
+}
+
+std::vector<std::string> Potential::parameter_addresses() const {
+  std::vector<std::string> out;
+  for (const auto& t : terms_)
+    for (const auto& [k, v] : t.parameters()) out.push_back(t.name() + "." + k);
+  return out;
+}
+
+std::optional<std::pair<double, double>> Potential::harmonic_part() const {
+  double w2 = 0, centre = 0;
+  bool any = false;
+  for (const auto& t : terms_) {
+    const auto h = t.harmonic_part();
+    if (!h) continue;
+    if (any && h->second != centre) return std::nullopt;
+    w2 += h->first * h->first;
+    centre = h->second;
+    any = true;
+  }
+  if (!any) return std::nullopt;
+  return std::make_pair(std::sqrt(w2), centre);
+}
+
+}  // namespace trapwork

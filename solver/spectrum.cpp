@@ -1,0 +1,542 @@
+#include "solver/spectrum.hpp"
+
+#include <Eigen/SparseCholesky>
+#include <Spectra/SymEigsShiftSolver.h>
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+#include <tuple>
+
+#include "solver/errors.hpp"
+#include "solver/hamiltonian.hpp"
+#include "solver/units.hpp"
+
+namespace trapwork {
+
+namespace {
+
+constexpr double inf = std::numeric_limits<double>::infinity();
+
+std::string fmt(double v) {
+  char b[48];
+  std::snprintf(b, sizeof b, "%.6g", v);
+  return b;
+}
+
+// (H - sigma)^{-1} by a sparse LDL^T factorisation, made once per shift (H - sigma is positive
+// definite for a shift below the spectrum). Models Spectra's shift-solve operator concept.
+class ShiftInvert {
+ public:
+  using Scalar = double;
+  explicit ShiftInvert(const Eigen::SparseMatrix<double>& h) : h_(h) {}
+  Eigen::Index rows() const { return h_.rows(); }
+  Eigen::Index cols() const { return h_.cols(); }
+  void set_shift(double sigma) {
+    Eigen::SparseMatrix<double> identity(h_.rows(), h_.cols());
+    identity.setIdentity();
+    if (!analysed_) solver_.analyzePattern(h_);  // the pattern is the same for every shift
+    analysed_ = true;
+    solver_.factorize(h_ - sigma * identity);
+    if (solver_.info() != Eigen::Success)
+      throw PhysicsError("shift-invert: factorisation of H - sigma failed (sigma = " + fmt(sigma) + ")");
+  }
+  void perform_op(const double* in, double* out) const {
+    Eigen::Map<const Eigen::VectorXd> x(in, h_.rows());
+    Eigen::Map<Eigen::VectorXd> y(out, h_.rows());
+    y = solver_.solve(x);
+  }
+  Eigen::MatrixXd solve(const Eigen::MatrixXd& b) const { return solver_.solve(b); }
+
+ private:
+  const Eigen::SparseMatrix<double>& h_;
+  bool analysed_ = false;
+  Eigen::SimplicialLDLT<Eigen::SparseMatrix<double>> solver_;  // also used at indefinite shifts (no zero pivots met in practice)
+};
+
+// Sign convention (see the header): the outermost right lobe positive on an open grid, the first
+// lobe at the left wall positive in a box.
+void fix_signs(const Grid& grid, Eigen::MatrixXd& states) {
+  for (Eigen::Index k = 0; k < states.cols(); ++k) {
+    auto col = states.col(k);
+    const double threshold = 1e-3 * col.cwiseAbs().maxCoeff();
+    double sign = 1;
+    if (grid.boundary() == Boundary::periodic) {
+      for (Eigen::Index j = col.size() - 1; j >= 0; --j)
+        if (std::abs(col(j)) > threshold) { sign = col(j) > 0 ? 1 : -1; break; }
+    } else {
+      for (Eigen::Index j = 0; j < col.size(); ++j)
+        if (std::abs(col(j)) > threshold) { sign = col(j) > 0 ? 1 : -1; break; }
+    }
+    col *= sign;
+  }
+}
+
+// Rayleigh-Ritz with the grid's pseudo-spectral H in the span of `basis` (orthonormalised
+// here); returns the lowest `keep` Ritz pairs, their images H psi and residuals.
+struct Ritz {
+  Eigen::VectorXd values;
+  Eigen::MatrixXd vectors, images;
+};
+Ritz rayleigh_ritz(const Grid& grid, const std::vector<double>& v, const Eigen::MatrixXd& basis, int keep) {
+  Eigen::HouseholderQR<Eigen::MatrixXd> qr(basis);
+  const Eigen::MatrixXd q = qr.householderQ() * Eigen::MatrixXd::Identity(basis.rows(), basis.cols());
+  KineticOperator kinetic(grid, int(q.cols()));
+  Eigen::MatrixXd hq;
+  apply_hamiltonian(kinetic, v, q, hq);
+  Eigen::MatrixXd small = q.transpose() * hq;
+  small = 0.5 * (small + small.transpose()).eval();
+  Eigen::SelfAdjointEigenSolver<Eigen::MatrixXd> eig(small);
+  const Eigen::MatrixXd y = eig.eigenvectors().leftCols(keep);
+  return {eig.eigenvalues().head(keep), q * y, hq * y};
+}
+
+Eigen::VectorXd residual_norms(const Eigen::MatrixXd& states, const Eigen::MatrixXd& images,
+                               const Eigen::VectorXd& energies) {
+  Eigen::VectorXd r(states.cols());
+  for (Eigen::Index k = 0; k < states.cols(); ++k)
+    r(k) = (images.col(k) - energies(k) * states.col(k)).norm() / states.col(k).norm();
+  return r;
+}
+
+// The potential sampled over a search window, for minima, turning points and WKB integrals.
+struct Scan {
+  std::vector<double> x, v;
+  double step = 0;
+};
+Scan scan_potential(const Potential& potential, double lo, double hi, double t, std::size_t n = 200001) {
+  Scan s;
+  s.step = (hi - lo) / double(n - 1);
+  s.x.resize(n);
+  for (std::size_t i = 0; i < n; ++i) s.x[i] = lo + double(i) * s.step;
+  s.v = potential.evaluate(s.x, t);
+  for (std::size_t i = 0; i < n; ++i)
+    if (!std::isfinite(s.v[i]))
+      throw PhysicsError("the potential is not finite at x = " + fmt(s.x[i]) + " (value " + fmt(s.v[i]) +
+                         "): check formulas for division by zero or overflow");
+  return s;
+}
+
+double wkb_action(const Scan& s, double energy) {
+  double sum = 0;
+  for (double v : s.v)
+    if (v < energy) sum += std::sqrt(2 * (energy - v));
+  return sum * s.step;
+}
+
+std::pair<double, double> search_window(const SpectrumRequest& r) {
+  if (r.box) return *r.box;
+  return {r.search_centre - r.search_half_width, r.search_centre + r.search_half_width};
+}
+
+// Momentum margin beyond p0 such that the WKB decay integral in momentum space,
+// int_{p0}^{p0+d} sqrt(p^2 - p0^2) dp / force, reaches `decay` (exact for an oscillator, where
+// force = p0/x0 = omega).
+double momentum_margin(double p0, double force, double decay) {
+  auto integral = [&](double d) {
+    const double p = p0 + d, s = std::sqrt(std::max(0.0, p * p - p0 * p0));
+    return 0.5 * (p * s - p0 * p0 * std::log((p + s) / p0)) / force;
+  };
+  double lo = 0, hi = std::max(1.0, p0);
+  while (integral(hi) < decay) hi *= 2;
+  for (int i = 0; i < 100; ++i) {
+    const double mid = 0.5 * (lo + hi);
+    (integral(mid) < decay ? lo : hi) = mid;
+  }
+  return hi;
+}
+
+Grid with_points(const Grid& shape, double left, double right, double spacing) {
+  if (shape.boundary() == Boundary::hard_wall) {
+    const auto n = fast_fft_size(std::size_t(std::ceil((right - left) / spacing))) - 1;
+    return Grid::box(left, right, n);
+  }
+  return Grid::periodic(left, right, fast_fft_size(std::size_t(std::ceil((right - left) / spacing))));
+}
+
+}  // namespace
+
+std::vector<int> degenerate_groups(const Eigen::VectorXd& energies, double tolerance) {
+  std::vector<int> g(std::size_t(energies.size()), 0);
+  for (Eigen::Index k = 1; k < energies.size(); ++k)
+    g[k] = g[k - 1] + (energies(k) - energies(k - 1) > tolerance ? 1 : 0);
+  return g;
+}
+
+Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const SpectrumOptions& options) {
+  const int n = int(grid.size()), k = options.levels;
+  TRAPWORK_EXPECT(int(v.size()) == n, "solve_spectrum: potential samples do not match the grid");
+  if (k < 1 || k > n / 2)
+    throw PhysicsError("asked for " + std::to_string(k) + " levels on a grid of " + std::to_string(n) +
+                       " points: at most half the points can be resolved levels; use more points");
+  EigenMethod method = options.method;
+  if (method == EigenMethod::automatic)
+    method = std::size_t(n) <= options.dense_limit ? EigenMethod::dense : EigenMethod::lanczos;
+  if (method == EigenMethod::hermite)
+    throw ContractViolation("solve_spectrum: the Hermite basis is handled by compute_spectrum");
+
+  Spectrum s{grid, {}, {}, {}, {}, 0, {}, 0};
+  const std::string basis = grid.boundary() == Boundary::periodic ? "Fourier" : "sine";
+  Eigen::MatrixXd images;
+  if (method == EigenMethod::dense) {
+    Eigen::SelfAdjointEigenSolver<Eigen::MatrixXd> eig(dense_hamiltonian(grid, v));
+    if (eig.info() != Eigen::Success) throw PhysicsError("dense eigensolver did not converge");
+    s.energies = eig.eigenvalues().head(k);
+    s.states = eig.eigenvectors().leftCols(k);
+    s.method = "dense " + basis + " grid";
+    KineticOperator kinetic(grid, k);
+    apply_hamiltonian(kinetic, v, s.states, images);
+  } else {
+    const Eigen::SparseMatrix<double> h = finite_difference_hamiltonian(grid, v, options.fd_order);
+    const int extra = std::max(4, k / 4);
+    const int nev = std::min(k + extra, n - 2);
+    const int ncv = std::min(n - 1, std::max(2 * nev + 1, nev + 20));
+    const double sigma = *std::min_element(v.begin(), v.end()) - 1.0;
+    ShiftInvert op(h);
+    Spectra::SymEigsShiftSolver<ShiftInvert> eigs(op, nev, ncv, sigma);
+    eigs.init();
+    eigs.compute(Spectra::SortRule::LargestMagn, 1000, 1e-12, Spectra::SortRule::SmallestAlge);
+    if (eigs.info() != Spectra::CompInfo::Successful)
+      throw PhysicsError("shift-invert Lanczos did not converge for " + std::to_string(nev) +
+                         " levels; try fewer levels or method = \"dense\"");
+    s.iterations = int(eigs.num_iterations());
+    Eigen::VectorXd values = eigs.eigenvalues();
+    Eigen::MatrixXd vectors = eigs.eigenvectors();
+    s.method = "shift-invert Lanczos, finite differences of order " + std::to_string(options.fd_order);
+    if (method == EigenMethod::finite_difference) {
+      s.energies = values.head(k);
+      s.states = vectors.leftCols(k);
+      images = h * s.states;
+    } else {
+      // Refine against the pseudo-spectral H: Rayleigh-Ritz in the span of the current vectors
+      // and their corrections (H_fd - theta_i)^{-1} r_i, a Davidson step whose preconditioner is
+      // the finite-difference H at the Ritz value (Davidson, J. Comput. Phys. 17, 87 (1975);
+      // Olsen, Jorgensen & Simons, Chem. Phys. Lett. 169, 463 (1990); from memory). To first
+      // order in H - H_fd this is the perturbative correction, so each sweep gains that order.
+      Ritz ritz = rayleigh_ritz(grid, v, vectors, nev);
+      int sweep = 0;
+      for (; sweep < options.refinement_sweeps; ++sweep) {
+        const Eigen::VectorXd r = residual_norms(ritz.vectors, ritz.images, ritz.values);
+        std::vector<int> open;
+        for (int i = 0; i < nev; ++i)
+          if (r(i) >= 0.1 * options.residual_tolerance) open.push_back(i);
+        if (r.head(k).maxCoeff() < options.residual_tolerance || open.empty()) break;
+        Eigen::MatrixXd basis_vectors(n, nev + Eigen::Index(open.size()));
+        basis_vectors.leftCols(nev) = ritz.vectors;
+        for (std::size_t c = 0; c < open.size(); ++c) {
+          const int i = open[c];
+          ShiftInvert near(h);
+          near.set_shift(ritz.values(i));
+          basis_vectors.col(nev + Eigen::Index(c)) =
+              near.solve(ritz.images.col(i) - ritz.values(i) * ritz.vectors.col(i));
+        }
+        ritz = rayleigh_ritz(grid, v, basis_vectors, nev);
+      }
+      s.iterations += sweep;
+      s.energies = ritz.values.head(k);
+      s.states = ritz.vectors.leftCols(k);
+      images = ritz.images.leftCols(k);
+      s.method += " + " + basis + " Rayleigh-Ritz (" + std::to_string(sweep) + " sweeps)";
+    }
+  }
+  const Eigen::VectorXd r = residual_norms(s.states, images, s.energies);
+  s.residuals.assign(r.data(), r.data() + r.size());
+  s.converged = int(std::count_if(s.residuals.begin(), s.residuals.end(),
+                                  [&](double x) { return x < options.residual_tolerance; }));
+  s.states /= std::sqrt(grid.spacing());  // columns had unit Euclidean norm
+  fix_signs(grid, s.states);
+  s.group = degenerate_groups(s.energies, options.degeneracy_tolerance);
+  return s;
+}
+
+namespace {
+HarmonicApproximation harmonic_from_scan(const Potential& potential, const Scan& s, double t) {
+  const std::size_t i = std::min_element(s.v.begin(), s.v.end()) - s.v.begin();
+  HarmonicApproximation h{s.x[i], s.v[i], 0};
+  // Parabolic refinement of the minimum from the three samples around it.
+  if (i > 0 && i + 1 < s.x.size()) {
+    const double a = s.v[i - 1], b = s.v[i], c = s.v[i + 1], den = a - 2 * b + c;
+    if (den > 0) h.x_min = s.x[i] + 0.5 * s.step * (a - c) / den;
+    const double step = 0.1 * s.step;
+    const double vm = potential(h.x_min, t), vl = potential(h.x_min - step, t), vr = potential(h.x_min + step, t);
+    h.v_min = std::min(vm, b);
+    const double curvature = (vl - 2 * vm + vr) / (step * step);
+    // Flatter than quadratic (a pure quartic) gives a curvature at the level of rounding.
+    if (curvature > 1e-6) h.omega = std::sqrt(curvature);
+  }
+  return h;
+}
+}  // namespace
+
+HarmonicApproximation harmonic_approximation(const Potential& potential, double lo, double hi, double t) {
+  return harmonic_from_scan(potential, scan_potential(potential, lo, hi, t), t);
+}
+
+double wkb_level_energy(const Potential& potential, int level, double lo, double hi, double t) {
+  const Scan s = scan_potential(potential, lo, hi, t);
+  const double v_min = *std::min_element(s.v.begin(), s.v.end());
+  const double threshold = std::min(s.v.front(), s.v.back());
+  const double target = si::pi * (level + 0.5);
+  if (wkb_action(s, threshold) < target) return threshold;
+  double a = v_min, b = threshold;
+  for (int i = 0; i < 200 && b - a > 1e-12 * (1 + std::abs(b)); ++i) {
+    const double mid = 0.5 * (a + b);
+    (wkb_action(s, mid) < target ? a : b) = mid;
+  }
+  return b;
+}
+
+Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRequest& request, double t) {
+  const auto [lo, hi] = search_window(request);
+  const Scan s = scan_potential(potential, lo, hi, t);
+  const double v_min = *std::min_element(s.v.begin(), s.v.end());
+  if (!(energy_max > v_min))
+    throw PhysicsError("no states below E = " + fmt(energy_max) + ": the potential's minimum in the search window is " +
+                       fmt(v_min));
+  const std::size_t n = s.x.size();
+  std::size_t a = 0, b = n - 1;
+  while (a < n && s.v[a] >= energy_max) ++a;
+  while (b > a && s.v[b] >= energy_max) --b;
+  // Beyond each turning point, continue until the WKB decay integral reaches `decay`; where
+  // the potential stays below energy_max up to the window's edge (finite depth), stop where
+  // it has settled to its asymptote and add the width of the well again.
+  auto extend = [&](std::size_t from, int dir) -> double {
+    double action = 0;
+    for (std::size_t i = from; i < n; i += std::size_t(dir)) {
+      if (s.v[i] > energy_max) action += std::sqrt(2 * (s.v[i] - energy_max)) * s.step;
+      if (action >= request.decay) return s.x[i];
+      if ((dir < 0 && i == 0) || (dir > 0 && i == n - 1)) break;
+    }
+    return dir < 0 ? s.x.front() : s.x.back();
+  };
+  double left = extend(a, -1), right = extend(b, +1);
+  const bool open_left = a == 0 || left == s.x.front(), open_right = b == n - 1 || right == s.x.back();
+  // The well proper: between the turning points on confining sides; on open (finite-depth)
+  // sides, out to where V has settled to its asymptote within 1e-6 of the well's depth.
+  std::size_t ia = a, ib = b;
+  const double depth = std::min(s.v.front(), s.v.back()) - v_min;
+  if (open_left) for (ia = 0; ia < n && std::abs(s.v[ia] - s.v.front()) < 1e-6 * depth;) ++ia;
+  if (open_right) for (ib = n - 1; ib > ia && std::abs(s.v[ib] - s.v.back()) < 1e-6 * depth;) --ib;
+  const double width = std::max(s.x[ib] - s.x[ia], 4 * s.step);
+  if (!request.box && open_left) left = std::max(s.x.front(), s.x[ia] - width);
+  if (!request.box && open_right) right = std::min(s.x.back(), s.x[ib] + width);
+  if (request.box) std::tie(left, right) = *request.box;
+  // Spacing: the largest momentum p0 = sqrt(2 (E_max - V_min)) plus the WKB margin of its
+  // momentum-space tail, with the force scale p0 / (half-width of the allowed region).
+  const double p0 = std::sqrt(2 * (energy_max - v_min));
+  const double half_width = 0.5 * width;
+  const double k_needed = p0 + momentum_margin(p0, p0 / half_width, request.decay);
+  const double spacing = si::pi / k_needed;
+  Grid shape = request.box ? Grid::box(left, right, 4) : Grid::periodic(left, right, 4);
+  return with_points(shape, left, right, spacing);
+}
+
+std::vector<Level> analyse_levels(const Spectrum& s, const HarmonicApproximation& harmonic, double threshold) {
+  const Grid& g = s.grid;
+  const auto x = g.points();
+  const Eigen::Map<const Eigen::VectorXd> xv(x.data(), Eigen::Index(x.size()));
+  const Eigen::Index n = Eigen::Index(x.size()), edge = std::min<Eigen::Index>(4, n);
+  std::vector<Level> levels(std::size_t(s.energies.size()));
+  for (Eigen::Index k = 0; k < s.energies.size(); ++k) {
+    Level& l = levels[k];
+    const Eigen::VectorXd density = s.states.col(k).array().square();
+    l.energy = s.energies(k);
+    l.spacing = k + 1 < s.energies.size() ? s.energies(k + 1) - s.energies(k) : std::nan("");
+    l.mean_x = density.dot(xv) * g.spacing();
+    l.mean_x2 = density.dot(xv.cwiseProduct(xv)) * g.spacing();
+    l.harmonic_shift = harmonic.omega > 0 ? l.energy - (harmonic.v_min + harmonic.omega * (double(k) + 0.5)) : std::nan("");
+    l.group = s.group[k];
+    l.residual = s.residuals[k];
+    if (g.boundary() == Boundary::periodic)
+      l.edge_amplitude = std::max(density.head(edge).maxCoeff(), density.tail(edge).maxCoeff()) / density.maxCoeff();
+    l.bound = l.energy < threshold && l.edge_amplitude < 1e-6;
+  }
+  return levels;
+}
+
+namespace {
+
+// Polynomial coefficients c_0..c_8 of V about `centre`, when every term is harmonic or
+// polynomial (binomial re-expansion of each term about the common centre).
+std::optional<std::vector<double>> polynomial_coefficients(const Potential& potential, double centre) {
+  std::vector<double> c(9, 0.0);
+  static const char* names[] = {"cubic", "quartic", "quintic", "sextic", "septic", "octic"};
+  for (const auto& term : potential.terms()) {
+    if (term.shape() != Shape::harmonic && term.shape() != Shape::polynomial) return std::nullopt;
+    std::vector<double> own(9, 0.0);
+    const double w = term.parameter("frequency");
+    own[2] = 0.5 * w * w;
+    if (term.shape() == Shape::polynomial)
+      for (int j = 3; j <= 8; ++j) own[j] = term.parameter(names[j - 3]);
+    // (y + d)^j with y = x - centre, d = centre - c_term.
+    const double d = centre - term.parameter("centre");
+    for (int j = 0; j <= 8; ++j) {
+      double binom = 1;
+      for (int i = 0; i <= j; ++i) {
+        c[i] += own[j] * binom * std::pow(d, j - i);
+        binom = binom * double(j - i) / double(i + 1);
+      }
+    }
+  }
+  return c;
+}
+
+Spectrum hermite_spectrum(const Potential& potential, const HarmonicApproximation& harmonic, const Grid& grid,
+                          const std::vector<double>& v, const SpectrumOptions& options) {
+  const auto coefficients = polynomial_coefficients(potential, harmonic.x_min);
+  if (!coefficients)
+    throw PhysicsError("method = \"hermite\" needs a potential made only of harmonic and polynomial terms");
+  if ((*coefficients)[8] < 0 || ((*coefficients)[8] == 0 && (*coefficients)[7] == 0 && (*coefficients)[6] < 0))
+    throw PhysicsError("method = \"hermite\": the polynomial does not confine (negative leading coefficient)");
+  HermiteBasis basis{harmonic.omega > 0 ? harmonic.omega : 1.0, harmonic.x_min, std::max(4 * options.levels + 60, 120)};
+  Eigen::SelfAdjointEigenSolver<Eigen::MatrixXd> eig(hermite_hamiltonian(basis, *coefficients));
+  Spectrum s{grid, {}, {}, {}, {}, 0, {}, 0};
+  const int k = options.levels;
+  s.energies = eig.eigenvalues().head(k);
+  const Eigen::MatrixXd functions = hermite_functions(basis, grid.points(), basis.size);
+  s.states = functions * eig.eigenvectors().leftCols(k);
+  for (int j = 0; j < k; ++j) s.states.col(j) /= s.states.col(j).norm();
+  KineticOperator kinetic(grid, k);
+  Eigen::MatrixXd images;
+  apply_hamiltonian(kinetic, v, s.states, images);
+  const Eigen::VectorXd r = residual_norms(s.states, images, s.energies);
+  s.residuals.assign(r.data(), r.data() + r.size());
+  s.converged = int(std::count_if(s.residuals.begin(), s.residuals.end(),
+                                  [&](double x) { return x < options.residual_tolerance; }));
+  s.states /= std::sqrt(grid.spacing());
+  fix_signs(grid, s.states);
+  s.group = degenerate_groups(s.energies, options.degeneracy_tolerance);
+  s.method = "Hermite basis of " + std::to_string(basis.size) + " functions (states sampled on the grid)";
+  return s;
+}
+
+Spectrum solve_on(const Potential& potential, const HarmonicApproximation& harmonic, const Grid& grid,
+                  const SpectrumOptions& options, double t, double cutoff) {
+  std::vector<double> v = potential.evaluate(grid.points(), t);
+  for (std::size_t j = 0; j < v.size(); ++j)
+    if (!std::isfinite(v[j])) throw PhysicsError("the potential is not finite at x = " + fmt(grid.x(j)));
+  cap_potential(v, harmonic.v_min, cutoff);
+  if (options.method == EigenMethod::hermite) return hermite_spectrum(potential, harmonic, grid, v, options);
+  return solve_spectrum(grid, v, options);
+}
+
+}  // namespace
+
+SpectrumResult compute_spectrum(const Potential& potential, const SpectrumRequest& request, double t) {
+  SpectrumResult result;
+  const auto [lo, hi] = search_window(request);
+  const Scan s = scan_potential(potential, lo, hi, t);
+  result.harmonic = harmonic_from_scan(potential, s, t);
+  const double edge_min = std::min(s.v.front(), s.v.back());
+  const int k = request.options.levels;
+  // A level is bound below the lower asymptote; for a box or a confining trap there is none.
+  const double top_estimate = wkb_level_energy(potential, k - 1, lo, hi, t);
+  result.finite_depth = !request.box && top_estimate >= edge_min;
+  result.threshold = result.finite_depth ? edge_min : inf;
+  double cutoff = result.harmonic.v_min + 1.25 * (top_estimate - result.harmonic.v_min) + 1e-12;
+  if (request.box) {  // box levels are at least the free-particle ones
+    const double l = request.box->second - request.box->first;
+    cutoff = std::max(cutoff, result.harmonic.v_min + 1.25 * std::pow((k + 1) * si::pi / l, 2) / 2);
+  }
+
+  auto fixed_grid = [&]() -> std::optional<Grid> {
+    if (!request.points && !request.extent) return std::nullopt;
+    const double left = request.box ? request.box->first : request.extent ? request.extent->first : 0;
+    const double right = request.box ? request.box->second : request.extent ? request.extent->second : 0;
+    if (!request.box && !request.extent) return std::nullopt;
+    const Grid chosen = choose_grid(potential, cutoff, request, t);
+    const std::size_t points = request.points ? *request.points : chosen.size();
+    return request.box ? Grid::box(left, right, points) : Grid::periodic(left, right, points);
+  };
+  std::optional<Grid> grid = fixed_grid();
+  const bool automatic = !grid.has_value();
+  if (automatic && request.points) {  // points fixed, extent automatic
+    const Grid chosen = choose_grid(potential, cutoff, request, t);
+    grid = Grid::periodic(chosen.left(), chosen.right(), *request.points);
+  }
+  if (!grid) grid = choose_grid(potential, cutoff, request, t);
+
+  // Automatic grids are adapted: a higher cutoff when the top level lies above the one the
+  // grid was made for, a wider grid while a bound state reaches its edge, a finer one while
+  // the energies still change on a finer, wider grid.
+  int widened = 0, refined = 0, raised = 0;
+  for (;;) {
+    result.spectrum = solve_on(potential, result.harmonic, *grid, request.options, t, cutoff);
+    result.energy_cutoff = cutoff;
+    result.levels = analyse_levels(result.spectrum, result.harmonic, result.threshold);
+    const Grid& g = result.spectrum.grid;
+    const double top = result.spectrum.energies(k - 1);
+    if (automatic && !result.finite_depth && top > cutoff && raised < 3) {
+      ++raised;
+      cutoff = result.harmonic.v_min + 1.25 * (top - result.harmonic.v_min);  // the WKB guess was low
+      grid = choose_grid(potential, cutoff, request, t);
+      continue;
+    }
+    const bool touching = std::any_of(result.levels.begin(), result.levels.end(), [&](const Level& l) {
+      return l.energy < result.threshold && l.edge_amplitude > request.edge_tolerance;
+    });
+    if (automatic && !request.box && touching && widened < 3) {
+      ++widened;
+      // Widen the sides that are open (finite depth), or both for a confining trap.
+      const bool left_open = s.v.front() <= result.threshold, right_open = s.v.back() <= result.threshold;
+      const bool both = !left_open && !right_open;
+      const double left = (left_open || both) ? g.left() - g.length() : g.left();
+      const double right = (right_open || both) ? g.right() + g.length() : g.right();
+      grid = with_points(g, std::max(left, lo), std::min(right, hi), g.spacing());
+      continue;
+    }
+    result.convergence = GridConvergence{};
+    if (!request.convergence_check) break;
+    const double centre = 0.5 * (g.left() + g.right()), half = 0.5 * g.length();
+    const Grid finer = request.box ? with_points(g, g.left(), g.right(), 0.8 * g.spacing())
+                                   : with_points(g, centre - 1.2 * half, centre + 1.2 * half, 0.8 * g.spacing());
+    const Spectrum fine = solve_on(potential, result.harmonic, finer, request.options, t, cutoff);
+    result.convergence.done = true;
+    result.convergence.finer = finer;
+    for (int j = 0; j < k; ++j) {
+      const double d = std::abs(fine.energies(j) - result.spectrum.energies(j));
+      result.convergence.energy_change.push_back(d);
+      if (result.levels[j].energy < result.threshold) result.convergence.max_energy_change = std::max(result.convergence.max_energy_change, d);
+    }
+    if (automatic && result.convergence.max_energy_change > request.energy_tolerance && refined < 4) {
+      ++refined;
+      grid = with_points(g, g.left(), g.right(), 0.7 * g.spacing());
+      continue;
+    }
+    break;
+  }
+  result.adaptations = {raised, widened, refined};
+
+  // Warnings, each with its diagnostic value and what to change.
+  int unbound = 0;
+  double worst_edge = 0, worst_residual = 0;
+  for (const auto& l : result.levels) {
+    if (!l.bound) ++unbound;
+    if (l.energy < result.threshold) worst_edge = std::max(worst_edge, l.edge_amplitude);
+    worst_residual = std::max(worst_residual, l.residual);
+  }
+  if (unbound > 0)
+    result.warnings.push_back(std::to_string(unbound) + " of " + std::to_string(k) +
+                              " levels lie above the potential's threshold " + fmt(result.threshold) +
+                              " and are not bound: they are discretised continuum states whose energies depend on the grid extent");
+  if (worst_edge > request.edge_tolerance)
+    result.warnings.push_back("a bound state reaches the grid edge (relative density " + fmt(worst_edge) +
+                              " on the outermost grid points): widen the grid ([grid] left/right)");
+  if (worst_residual > request.options.residual_tolerance && request.options.method != EigenMethod::hermite)
+    result.warnings.push_back("largest eigenpair residual " + fmt(worst_residual) + " exceeds the tolerance " +
+                              fmt(request.options.residual_tolerance) + ": use more points or method = \"dense\"");
+  const double scale = std::max(1.0, std::abs(result.spectrum.energies(k - 1) - result.harmonic.v_min));
+  if (result.convergence.done && result.convergence.max_energy_change > request.energy_tolerance * scale)
+    result.warnings.push_back("energies change by up to " + fmt(result.convergence.max_energy_change) +
+                              " on a finer, wider grid: the spectrum is not converged; use more points");
+  return result;
+}
+
+}  // namespace trapwork
+
+namespace trapwork {
+void cap_potential(std::vector<double>& v, double v_min, double cutoff) {
+  const double cap = v_min + 1e4 * std::max(cutoff - v_min, 1e-300);
+  for (double& x : v) x = std::min(x, cap);
+}
+}  // namespace trapwork

@@ -1,0 +1,134 @@
+#pragma once
+// Lowest eigenpairs of H = p^2/2 + V(x) on a grid, with the accuracy they carry.
+//
+// Methods:
+//   dense    - Eigen's SelfAdjointEigenSolver on the pseudo-spectral (Fourier or sine) matrix;
+//              for n up to `dense_limit`.
+//   lanczos  - Spectra's shift-invert Lanczos (SymEigsShiftSolver, shift below min V) on the
+//              sparse finite-difference Hamiltonian of order `fd_order`, then Rayleigh-Ritz
+//              refinement against the grid's own pseudo-spectral Hamiltonian (applied by FFT),
+//              in the span of the Lanczos vectors and their residuals, until the residuals
+//              ||H psi - E psi|| fall below `residual_tolerance` (so that the states are the
+//              propagator's eigenstates, not the finite-difference ones).
+//   hermite  - dense diagonalisation in a Hermite-function basis (polynomial potentials only).
+// Sign convention: real states; on an open grid the outermost right lobe is positive (as
+// phi_n ~ +x^n for an oscillator); in a hard-walled box the first lobe at the left wall is
+// positive (as sin(n pi x/L)).
+#include <Eigen/Dense>
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "potentials/potential.hpp"
+#include "solver/grid.hpp"
+
+namespace trapwork {
+
+enum class EigenMethod { automatic, dense, lanczos, finite_difference, hermite };
+
+struct SpectrumOptions {
+  int levels = 10;                  // K, the number of lowest eigenpairs wanted
+  EigenMethod method = EigenMethod::automatic;
+  int fd_order = 8;                 // 2, 4, 6, 8: stencil for lanczos / finite_difference
+  std::size_t dense_limit = 1024;   // automatic: dense up to this many points
+  double residual_tolerance = 1e-9; // on ||H psi - E psi|| (energy units), lanczos refinement
+  int refinement_sweeps = 8;        // at most this many Rayleigh-Ritz sweeps
+  double degeneracy_tolerance = 1e-9;  // levels closer than this (energy units) form a group
+};
+
+// Eigenpairs on one grid. Energies ascend; states are columns normalised on the grid.
+struct Spectrum {
+  Grid grid = Grid::periodic(0, 1, 4);
+  Eigen::VectorXd energies;
+  Eigen::MatrixXd states;           // n x K
+  std::vector<double> residuals;    // ||H psi - E psi|| with the grid's pseudo-spectral H
+  std::vector<int> group;           // degenerate-group index of each level (0, 1, 2, ...)
+  int converged = 0;                // levels whose residual is below tolerance
+  std::string method;               // "dense Fourier", "Lanczos FD-8 + Fourier Rayleigh-Ritz"...
+  int iterations = 0;               // Lanczos restarts or refinement sweeps used
+};
+
+// Lowest eigenpairs of the potential samples v on the grid. Throws PhysicsError if more levels
+// are asked for than the grid holds.
+Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const SpectrumOptions& options);
+
+// Groups levels whose neighbouring spacing is below tol (relative to 1 energy unit).
+std::vector<int> degenerate_groups(const Eigen::VectorXd& energies, double tolerance);
+
+// The harmonic approximation at the global minimum of V in [lo, hi]: V ~ v_min + omega^2 (x -
+// x_min)^2 / 2. omega = 0 where V is flatter than quadratic (pure quartic).
+struct HarmonicApproximation {
+  double x_min = 0, v_min = 0, omega = 0;
+};
+HarmonicApproximation harmonic_approximation(const Potential& potential, double lo, double hi, double t = 0);
+
+// Per-level properties for the tables.
+struct Level {
+  double energy = 0;
+  double spacing = 0;          // E_{n+1} - E_n (NaN for the last level)
+  double mean_x = 0;           // <x>
+  double mean_x2 = 0;          // <x^2>
+  double harmonic_shift = 0;   // E_n - (v_min + omega (n + 1/2)); NaN where omega = 0
+  bool bound = true;           // E_n below the lower asymptote, and edge density below 1e-6
+  int group = 0;
+  double residual = 0;
+  double edge_amplitude = 0;   // max |psi|^2 on the outer 4 points of an open grid, relative to max |psi|^2
+};
+
+// What the spectrum request and the automatic grid choice need.
+struct SpectrumRequest {
+  SpectrumOptions options;
+  std::optional<std::pair<double, double>> box;       // hard walls (left, right)
+  std::optional<std::pair<double, double>> extent;    // fixed open grid [lo, hi]
+  std::optional<std::size_t> points;                  // fixed number of points
+  double search_half_width = 500;  // open grids: where to look for the minimum and turning points
+  double search_centre = 0;
+  double decay = 20;               // WKB decay exponent required beyond the turning points
+  bool convergence_check = true;   // repeat on a finer, wider grid and compare
+  double energy_tolerance = 1e-9;  // automatic grids are refined until bound energies change less
+  double edge_tolerance = 1e-8;    // ... and widened while a bound state's edge density exceeds this
+};
+
+struct GridConvergence {
+  bool done = false;
+  Grid finer = Grid::periodic(0, 1, 4);
+  double max_energy_change = 0;            // max_n |E_n(finer) - E_n|
+  std::vector<double> energy_change;       // per level
+};
+
+struct SpectrumResult {
+  Spectrum spectrum;
+  std::vector<Level> levels;
+  HarmonicApproximation harmonic;
+  double threshold = 0;             // lower asymptote of V (+inf for confining potentials)
+  bool finite_depth = false;
+  double energy_cutoff = 0;         // energy range the grid was chosen for
+  GridConvergence convergence;
+  std::vector<std::string> warnings;  // with the diagnostic value and what to change
+  struct {
+    int raised = 0, widened = 0, refined = 0;  // automatic grid adaptations made
+  } adaptations;
+};
+
+// Potential values far above the energy range are capped at v_min + 1e4 (cutoff - v_min): the
+// states have decayed there long before, and huge diagonal entries (an exponential wall)
+// would otherwise cost the dense eigensolver its accuracy (rounding ~ 1e-16 max |V|).
+void cap_potential(std::vector<double>& v, double v_min, double cutoff);
+
+// Automatic grid for states up to energy_max: extent from the classical turning points plus
+// a WKB decay length (integral of sqrt(2 (V - E)) dx = decay beyond each), spacing from the
+// largest momentum sqrt(2 (energy_max - v_min)) plus a margin; n rounded to a fast FFT size.
+// Throws PhysicsError if V is nowhere below energy_max in the search window.
+Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRequest& request, double t = 0);
+
+// WKB estimate of the energy of level K (sum p dx = pi (K + 1/2)), capped at the threshold.
+double wkb_level_energy(const Potential& potential, int level, double lo, double hi, double t = 0);
+
+// Full pipeline: grid (automatic or fixed), eigenpairs, level table, convergence estimate,
+// warnings (unbound states asked for, states touching the grid edge, unconverged residuals).
+SpectrumResult compute_spectrum(const Potential& potential, const SpectrumRequest& request, double t = 0);
+
+std::vector<Level> analyse_levels(const Spectrum& spectrum, const HarmonicApproximation& harmonic,
+                                  double threshold);
+
+}  // namespace trapwork

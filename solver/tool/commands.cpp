@@ -1,0 +1,62 @@
+// The subcommands of the `trapwork` tool (see commands.hpp).
+#include "solver/tool/commands.hpp"
+
+#include <iostream>
+#include <memory>
+
+#include "solver/errors.hpp"
+#include "solver/tool/output.hpp"
+
+namespace trapwork {
+
+int run_command_line(CLI::App& app, int argc, char** argv) {
+  try {
+    app.parse(argc, argv);  // runs the chosen command's callback
+    return 0;
+  } catch (const CLI::ParseError& e) {
+    const int code = app.exit(e);  // prints help, or the command-line error
+    return code == 0 ? 0 : 2;
+  } catch (const InputError& e) {
+    std::cerr << "trapwork: error: " << e.what() << '\n';
+    return 2;
+  } catch (const PhysicsError& e) {
+    std::cerr << "trapwork: error: " << e.what() << '\n';
+    return 2;
+  } catch (const std::exception& e) {
+    std::cerr << "trapwork: error: " << e.what() << '\n';
+    return 1;
+  }
+}
+
+Scenario load_scenario(const std::string& name) {
+  if (name.empty() || name == "default") return read_scenario_text(default_scenario_text(), "default");
+  return read_scenario(name);
+}
+
+void add_spectrum_command(CLI::App& app) {
+  auto command = std::make_shared<SpectrumCommand>();
+  CLI::App* sub = app.add_subcommand(
+      "spectrum", "Lowest energy levels and eigenstates of a scenario's potential; writes spectrum.csv, "
+                  "states.csv and summary.json");
+  sub->add_option("scenario", command->scenario,
+                  "scenario file (TOML); \"default\" or nothing: the built-in 40 u ion scenario");
+  sub->add_option("-o,--output", command->output, "output folder (overrides [output] folder)");
+  sub->add_option("--levels", command->levels, "number of levels (overrides [spectrum] levels)")
+      ->check(CLI::Range(1, 100000));
+  sub->add_flag("--quiet", command->quiet, "print nothing but errors");
+  sub->callback([command] { run_spectrum(*command, std::cout); });
+}
+
+void run_spectrum(const SpectrumCommand& command, std::ostream& out) {
+  Scenario scenario = load_scenario(command.scenario);
+  if (!command.output.empty()) scenario.output_folder = command.output;
+  if (command.levels) scenario.spectrum.options.levels = *command.levels;
+  const SpectrumResult result = compute_spectrum(scenario.potential, scenario.spectrum);
+  const auto files = write_spectrum_outputs(scenario.output_folder, scenario, result);
+  if (command.quiet) return;
+  print_spectrum_report(out, scenario, result);
+  out << '\n';
+  for (const auto& f : files) out << "wrote " << f.string() << '\n';
+}
+
+}  // namespace trapwork

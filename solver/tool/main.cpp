@@ -1,0 +1,11 @@
+// trapwork: one quantum particle in a one-dimensional trap. Each subcommand registers itself
+// (solver/tool/commands.hpp); main only builds the app and runs it.
+#include "solver/tool/commands.hpp"
+
+int main(int argc, char** argv) {
+  CLI::App app{"trapwork: one quantum particle in a one-dimensional trap (ions, atoms in tweezers, boxes)",
+               "trapwork"};
+  app.require_subcommand(1);
+  trapwork::add_spectrum_command(app);
+  return trapwork::run_command_line(app, argc, argv);
+}

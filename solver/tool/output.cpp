@@ -1,0 +1,335 @@
+// Output files and printed reports of the command-line tool (see output.hpp).
+#include "solver/tool/output.hpp"
+
+#include <unistd.h>
+
+#include <charconv>
+#include <cmath>
+#include <cstdio>
+#include <fstream>
+#include <limits>
+#include <stdexcept>
+
+namespace trapwork {
+
+namespace fs = std::filesystem;
+
+void write_file_atomically(const fs::path& path, const std::function<void(std::ostream&)>& write) {
+  fs::path temporary = path;
+  temporary += ".tmp-" + std::to_string(::getpid());
+  try {
+    {
+      std::ofstream out(temporary, std::ios::binary | std::ios::trunc);
+      if (!out) throw std::runtime_error("cannot create '" + temporary.string() + "'");
+      write(out);
+      out.close();
+      if (out.fail()) throw std::runtime_error("cannot write '" + temporary.string() + "' (disk full?)");
+    }
+    fs::rename(temporary, path);
+  } catch (...) {
+    std::error_code ignored;
+    fs::remove(temporary, ignored);
+    throw;
+  }
+}
+
+std::string number_text(double v) {
+  if (std::isnan(v)) return "nan";
+  if (std::isinf(v)) return v > 0 ? "inf" : "-inf";
+  char buffer[32];
+  const auto r = std::to_chars(buffer, buffer + sizeof buffer, v);  // shortest round trip
+  return std::string(buffer, r.ptr);
+}
+
+void write_csv(std::ostream& out, const CsvTable& table) {
+  const std::size_t rows = table.columns.empty() ? 0 : table.columns.front().values.size();
+  for (std::size_t c = 0; c < table.columns.size(); ++c) {
+    if (table.columns[c].values.size() != rows)
+      throw std::logic_error("write_csv: column '" + table.columns[c].name + "' has a different length");
+    out << (c ? "," : "") << table.columns[c].name;
+  }
+  out << '\n';
+  for (const auto& comment : table.comments) out << "# " << comment << '\n';
+  for (std::size_t r = 0; r < rows; ++r) {
+    for (std::size_t c = 0; c < table.columns.size(); ++c)
+      out << (c ? "," : "") << number_text(table.columns[c].values[r]);
+    out << '\n';
+  }
+}
+
+std::string column_unit(const std::string& unit) {
+  std::string name;
+  for (char c : unit) {
+    const bool keep = std::isalnum(static_cast<unsigned char>(c));
+    if (keep) name += c;
+    else if (!name.empty() && name.back() != '_') name += '_';
+  }
+  while (!name.empty() && name.back() == '_') name.pop_back();
+  return name;
+}
+
+namespace {
+
+double nan() { return std::numeric_limits<double>::quiet_NaN(); }
+
+struct Display {
+  double energy_per;  // internal energy of one display unit
+  double um;          // internal length of one micrometre
+  std::string e;      // display energy unit
+  std::string e_col;  // "_h_kHz"
+  double energy(double internal) const { return internal / energy_per; }
+  double length(double internal) const { return internal / um; }
+};
+
+Display display(const Scenario& s) {
+  return {s.energy.internal_per_unit, internal_per_um(s), s.energy.name, "_" + column_unit(s.energy.name)};
+}
+
+std::string short_number(double v, int digits = 6) {
+  if (!std::isfinite(v)) return std::isnan(v) ? "-" : (v > 0 ? "inf" : "-inf");
+  char buffer[48];
+  std::snprintf(buffer, sizeof buffer, "%.*g", digits, v);
+  return buffer;
+}
+
+std::string si_unit(const Dimension& d) {
+  if (d == Dimension::none()) return "";
+  if (d == Dimension::frequency()) return "Hz";
+  if (d == Dimension::length()) return "m";
+  if (d == Dimension::energy()) return "J";
+  if (d == Dimension::mass()) return "kg";
+  if (d == Dimension::time()) return "s";
+  for (int n = 3; n <= 8; ++n)
+    if (d == Dimension::energy_per_length(n)) return "J/m^" + std::to_string(n);
+  return d.describe();
+}
+
+double rms_width(const Level& l) { return std::sqrt(std::max(0.0, l.mean_x2 - l.mean_x * l.mean_x)); }
+
+double convergence_of(const SpectrumResult& r, std::size_t n) {
+  const auto& c = r.convergence;
+  return c.done && n < c.energy_change.size() ? c.energy_change[n] : nan();
+}
+
+nlohmann::json grid_json(const Grid& g, const Display& d) {
+  return {{"boundary", g.boundary() == Boundary::periodic ? "periodic" : "hard_wall"},
+          {"points", g.size()},
+          {"left", d.length(g.left())},
+          {"right", d.length(g.right())},
+          {"spacing", d.length(g.spacing())}};
+}
+
+std::string grid_text(const Grid& g, const Display& d) {
+  return std::string(g.boundary() == Boundary::periodic ? "periodic (Fourier)" : "hard walls (sine basis)") +
+         ", " + std::to_string(g.size()) + " points on [" + short_number(d.length(g.left())) + ", " +
+         short_number(d.length(g.right())) + "] um, spacing " + short_number(d.length(g.spacing()) * 1e3) + " nm";
+}
+
+}  // namespace
+
+CsvTable spectrum_table(const Scenario& scenario, const SpectrumResult& result) {
+  const Display d = display(scenario);
+  CsvTable t;
+  auto& c = t.columns;
+  c = {{"level", {}}, {"energy" + d.e_col, {}}, {"energy_internal", {}}, {"spacing" + d.e_col, {}},
+       {"mean_x_um", {}}, {"rms_width_um", {}}, {"harmonic_shift" + d.e_col, {}}, {"bound", {}},
+       {"group", {}}, {"residual" + d.e_col, {}}, {"edge_amplitude", {}}, {"convergence" + d.e_col, {}}};
+  for (std::size_t n = 0; n < result.levels.size(); ++n) {
+    const Level& l = result.levels[n];
+    const double row[] = {double(n), d.energy(l.energy), l.energy, d.energy(l.spacing),
+                          d.length(l.mean_x), d.length(rms_width(l)), d.energy(l.harmonic_shift),
+                          l.bound ? 1.0 : 0.0, double(l.group), d.energy(l.residual), l.edge_amplitude,
+                          d.energy(convergence_of(result, n))};
+    for (std::size_t k = 0; k < c.size(); ++k) c[k].values.push_back(row[k]);
+  }
+  t.comments = {
+      "trapwork spectrum: " + (scenario.title.empty() ? scenario.file : scenario.title),
+      "scenario: " + scenario.file,
+      "energies in " + d.e + " (one " + d.e + " = " + number_text(d.energy_per) +
+          " internal units); energy_internal in hbar^2/(m L0^2) with L0 = " +
+          number_text(scenario.units.length_m) + " m; lengths in um",
+      "spacing: E(n+1) - E(n), nan for the last level; harmonic_shift: E(n) - (V_min + hbar omega_h (n + 1/2)) "
+      "with the harmonic approximation at the minimum (nan where it has no curvature)",
+      "rms_width: sqrt(<x^2> - <x>^2); bound: 1 below the potential's lower asymptote; group: index of the "
+      "group of levels closer than the degeneracy tolerance",
+      "residual: ||H psi - E psi||; edge_amplitude: max |psi|^2 in the outer 2% of an open grid relative to "
+      "max |psi|^2; convergence: |E(n) on a finer, wider grid - E(n)| (nan without the check)",
+  };
+  return t;
+}
+
+CsvTable states_table(const Scenario& scenario, const SpectrumResult& result) {
+  const Display d = display(scenario);
+  const Spectrum& s = result.spectrum;
+  CsvTable t;
+  CsvColumn x{"x_um", {}};
+  for (double xi : s.grid.points()) x.values.push_back(d.length(xi));
+  t.columns.push_back(std::move(x));
+  // sum_j psi_j^2 dx = 1 is unit-free, so psi in 1/sqrt(um) is psi_internal * sqrt(um / L0).
+  const double to_um = std::sqrt(d.um);
+  for (Eigen::Index k = 0; k < s.states.cols(); ++k) {
+    CsvColumn psi{"psi_" + std::to_string(k), {}};
+    for (Eigen::Index j = 0; j < s.states.rows(); ++j) psi.values.push_back(s.states(j, k) * to_um);
+    t.columns.push_back(std::move(psi));
+  }
+  t.comments = {
+      "trapwork spectrum: eigenstates of " + (scenario.title.empty() ? scenario.file : scenario.title),
+      "x in um; psi_n in 1/sqrt(um), real, normalised on the grid: sum_j psi_n(x_j)^2 dx = 1 with dx = " +
+          number_text(d.length(s.grid.spacing())) + " um",
+      std::string("grid: ") + grid_text(s.grid, d) +
+          (s.grid.boundary() == Boundary::hard_wall ? " (interior points; psi = 0 at the walls)" : ""),
+  };
+  return t;
+}
+
+nlohmann::json spectrum_summary(const Scenario& scenario, const SpectrumResult& result) {
+  using nlohmann::json;
+  const Display d = display(scenario);
+  const UnitSystem& u = scenario.units;
+  const Spectrum& s = result.spectrum;
+  json terms = json::array();
+  for (const auto& term : scenario.terms) {
+    json parameters = json::object();
+    for (const auto& p : term.parameters)
+      parameters[p.name] = {{"given", p.given},
+                            {"si", u.to_si(p.internal, p.dimension)},
+                            {"si_unit", si_unit(p.dimension)},
+                            {"internal", p.internal}};
+    json settings = json::object();
+    for (const auto& [k, v] : term.settings) settings[k] = v;
+    terms.push_back({{"name", term.name}, {"shape", term.shape}, {"parameters", parameters}, {"settings", settings}});
+  }
+  json levels = json::array();
+  for (std::size_t n = 0; n < result.levels.size(); ++n) {
+    const Level& l = result.levels[n];
+    levels.push_back({{"level", n}, {"energy", d.energy(l.energy)}, {"energy_internal", l.energy},
+                      {"spacing", d.energy(l.spacing)}, {"mean_x", d.length(l.mean_x)},
+                      {"rms_width", d.length(rms_width(l))}, {"harmonic_shift", d.energy(l.harmonic_shift)},
+                      {"bound", l.bound}, {"group", l.group}, {"residual", d.energy(l.residual)},
+                      {"edge_amplitude", l.edge_amplitude}, {"convergence", d.energy(convergence_of(result, n))}});
+  }
+  const auto& c = result.convergence;
+  const auto& h = result.harmonic;
+  json box = nullptr;
+  if (scenario.spectrum.box)
+    box = {{"left", d.length(scenario.spectrum.box->first)}, {"right", d.length(scenario.spectrum.box->second)}};
+  return {
+      {"command", "trapwork spectrum"},
+      {"scenario", {{"file", scenario.file}, {"title", scenario.title}, {"description", scenario.description}}},
+      {"units",
+       {{"energy", d.e},
+        {"energy_J", d.energy_per * u.energy_J()},
+        {"length", "um"},
+        {"frequency", "Hz (ordinary frequency f; omega = 2 pi f)"},
+        {"wavefunction", "1/sqrt(um)"},
+        {"internal",
+         {{"mass_kg", u.mass_kg},
+          {"length_m", u.length_m},
+          {"energy_J", u.energy_J()},
+          {"time_s", u.time_s()},
+          {"reference_frequency_Hz", scenario.reference_frequency_Hz ? json(*scenario.reference_frequency_Hz) : json(nullptr)},
+          {"omega_ref", scenario.omega_ref}}}}},
+      {"potential", terms},
+      {"box", box},
+      {"grid", grid_json(s.grid, d)},
+      {"method", s.method},
+      {"iterations", s.iterations},
+      {"levels_requested", scenario.spectrum.options.levels},
+      {"converged", s.converged},
+      {"residual_tolerance", d.energy(scenario.spectrum.options.residual_tolerance)},
+      {"degeneracy_tolerance", d.energy(scenario.spectrum.options.degeneracy_tolerance)},
+      {"convergence",
+       {{"done", c.done},
+        {"finer_grid", c.done ? grid_json(c.finer, d) : json(nullptr)},
+        {"max_energy_change", c.done ? json(d.energy(c.max_energy_change)) : json(nullptr)}}},
+      {"threshold", d.energy(result.threshold)},  // null (JSON has no infinity) for a confining potential
+      {"finite_depth", result.finite_depth},
+      {"energy_cutoff", d.energy(result.energy_cutoff)},
+      {"harmonic_approximation",
+       {{"x_min", d.length(h.x_min)},
+        {"v_min", d.energy(h.v_min)},
+        {"frequency_Hz", u.to_si(h.omega, Dimension::frequency())},
+        {"omega_internal", h.omega}}},
+      {"warnings", result.warnings},
+      {"levels", levels},
+  };
+}
+
+std::vector<fs::path> write_spectrum_outputs(const fs::path& folder, const Scenario& scenario,
+                                             const SpectrumResult& result) {
+  fs::create_directories(folder);
+  const std::vector<fs::path> files = {folder / "spectrum.csv", folder / "states.csv", folder / "summary.json"};
+  // Everything is assembled before the first file is opened.
+  const CsvTable spectrum = spectrum_table(scenario, result);
+  const CsvTable states = states_table(scenario, result);
+  const std::string summary = spectrum_summary(scenario, result).dump(2) + "\n";
+  write_file_atomically(files[0], [&](std::ostream& out) { write_csv(out, spectrum); });
+  write_file_atomically(files[1], [&](std::ostream& out) { write_csv(out, states); });
+  write_file_atomically(files[2], [&](std::ostream& out) { out << summary; });
+  return files;
+}
+
+void print_spectrum_report(std::ostream& out, const Scenario& scenario, const SpectrumResult& result) {
+  const Display d = display(scenario);
+  const Spectrum& s = result.spectrum;
+  const UnitSystem& u = scenario.units;
+  auto row = [&](const std::string& label, const std::string& text) {
+    char buffer[16];
+    std::snprintf(buffer, sizeof buffer, "  %-12s", label.c_str());
+    out << buffer << text << '\n';
+  };
+  out << "trapwork spectrum: " << (scenario.title.empty() ? scenario.file : scenario.title) << '\n';
+  row("scenario", scenario.file);
+  row("particle", "mass " + short_number(u.mass_kg / si::atomic_mass) + " u (" + short_number(u.mass_kg) + " kg)");
+  row("units", "L0 = " + short_number(u.length_m * 1e9) + " nm, E0 = h*" +
+                   short_number(u.energy_J() / si::planck_h / 1e3) + " kHz, T0 = " +
+                   short_number(u.time_s() * 1e6) + " us; energies shown in " + d.e);
+  for (const auto& term : scenario.terms) {
+    std::string text = term.name + ": " + term.shape;
+    for (const auto& p : term.parameters) text += ", " + p.name + " = " + p.given;
+    for (const auto& [k, v] : term.settings) text += ", " + k + " = " + v;
+    row("potential", text);
+  }
+  if (scenario.spectrum.box)
+    row("box", "hard walls at " + short_number(d.length(scenario.spectrum.box->first)) + " um and " +
+                   short_number(d.length(scenario.spectrum.box->second)) + " um");
+  row("grid", grid_text(s.grid, d));
+  row("method", s.method + ", " + std::to_string(s.iterations) + " iterations, " + std::to_string(s.converged) +
+                    " of " + std::to_string(s.energies.size()) + " levels converged (residual below " +
+                    short_number(d.energy(scenario.spectrum.options.residual_tolerance), 3) + " " + d.e + ")");
+  const auto& c = result.convergence;
+  row("convergence", c.done ? "finer grid of " + std::to_string(c.finer.size()) + " points: max |dE| = " +
+                                  short_number(d.energy(c.max_energy_change), 3) + " " + d.e
+                            : std::string("not checked"));
+  const auto& h = result.harmonic;
+  row("harmonic", h.omega > 0 ? "f = " + short_number(u.to_si(h.omega, Dimension::frequency())) +
+                                    " Hz about the minimum at x = " + short_number(d.length(h.x_min)) +
+                                    " um, V_min = " + short_number(d.energy(h.v_min)) + " " + d.e
+                              : std::string("no curvature at the minimum"));
+  row("threshold", result.finite_depth ? short_number(d.energy(result.threshold)) + " " + d.e +
+                                             " (levels above it are not bound)"
+                                       : std::string("none (confining)"));
+  out << '\n';
+  char line[256];
+  const std::string e = "[" + d.e + "]";
+  std::snprintf(line, sizeof line, "%4s %18s %16s %14s %14s %11s %11s %5s %9s\n", "n", ("E " + e).c_str(),
+                "E - E0", "spacing", "shift vs harm.", "<x> [um]", "width [um]", "bound", "residual");
+  out << line;
+  const double e0 = result.levels.empty() ? 0 : result.levels.front().energy;
+  for (std::size_t n = 0; n < result.levels.size(); ++n) {
+    const Level& l = result.levels[n];
+    std::snprintf(line, sizeof line, "%4zu %18s %16s %14s %14s %11s %11s %5s %9s%s\n", n,
+                  short_number(d.energy(l.energy), 12).c_str(), short_number(d.energy(l.energy - e0), 10).c_str(),
+                  short_number(d.energy(l.spacing), 8).c_str(), short_number(d.energy(l.harmonic_shift), 6).c_str(),
+                  short_number(d.length(l.mean_x), 4).c_str(), short_number(d.length(rms_width(l)), 4).c_str(),
+                  l.bound ? "yes" : "no", short_number(d.energy(l.residual), 2).c_str(),
+                  (n > 0 && result.levels[n - 1].group == l.group) ? "  (degenerate with n-1)" : "");
+    out << line;
+  }
+  if (!result.warnings.empty()) {
+    out << "\nwarnings (values in internal units, E0 and L0 above):\n";
+    for (const auto& w : result.warnings) out << "  - " << w << '\n';
+  }
+}
+
+}  // namespace trapwork

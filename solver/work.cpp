@@ -1,0 +1,473 @@
+#include "solver/work.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <map>
+#include <numbers>
+#include <sstream>
+
+#include "solver/errors.hpp"
+#include "solver/harmonic_reference.hpp"
+
+namespace trapwork {
+
+namespace {
+std::string fmt(double v) {
+  std::ostringstream s;
+  s.precision(3);
+  s << v;
+  return s.str();
+}
+int group_of(const std::vector<int>& groups, int level) { return groups.empty() ? level : groups[std::size_t(level)]; }
+
+// Mean energy of each level's group over the levels given.
+Eigen::VectorXd group_mean_energy(const Eigen::VectorXd& e, const std::vector<int>& groups) {
+  if (groups.empty()) return e;
+  TRAPWORK_EXPECT(groups.size() >= std::size_t(e.size()), "degenerate groups shorter than the energies");
+  std::map<int, std::pair<double, int>> sum;
+  for (Eigen::Index i = 0; i < e.size(); ++i) {
+    auto& s = sum[groups[std::size_t(i)]];
+    s.first += e[i];
+    s.second += 1;
+  }
+  Eigen::VectorXd out(e.size());
+  for (Eigen::Index i = 0; i < e.size(); ++i) {
+    const auto& s = sum[groups[std::size_t(i)]];
+    out[i] = s.first / s.second;
+  }
+  return out;
+}
+
+double shifted_partition(const Eigen::VectorXd& e, double beta) {
+  double z = 0;
+  for (Eigen::Index i = e.size() - 1; i >= 0; --i) z += std::exp(-beta * (e[i] - e[0]));
+  return z;
+}
+}  // namespace
+
+Eigen::VectorXd TransitionMatrix::unresolved() const {
+  return Eigen::VectorXd::Ones(probability.rows()) - probability.rowwise().sum();
+}
+
+TransitionMatrix transition_matrix(const Eigen::MatrixXcd& amplitudes) {
+  return {amplitudes.cwiseAbs2().transpose()};
+}
+
+TransitionMatrix adiabatic_transition_matrix(int initial_levels, int final_levels) {
+  return {Eigen::MatrixXd::Identity(initial_levels, final_levels)};
+}
+
+WorkDistribution work_distribution(const WorkInput& in, double merge_tolerance) {
+  const Eigen::MatrixXd& p = in.transitions.probability;
+  const int rows = int(p.rows()), cols = int(p.cols());
+  TRAPWORK_EXPECT(in.initial_weights.size() == std::size_t(rows), "work_distribution: one weight per initial level");
+  TRAPWORK_EXPECT(in.initial_energies.size() >= rows && in.final_energies.size() == cols,
+                  "work_distribution: energies do not match the transition matrix");
+  const Eigen::VectorXd ea = group_mean_energy(in.initial_energies, in.initial_groups);
+  const Eigen::VectorXd eb = group_mean_energy(in.final_energies, in.final_groups);
+
+  WorkDistribution d;
+  d.merge_tolerance = merge_tolerance;
+  // lines per (initial group, final group): the eigenspace probabilities
+  std::map<std::pair<int, int>, WorkLine> pairs;
+  for (int m = 0; m < rows; ++m) {
+    const double w = in.initial_weights[std::size_t(m)];
+    d.unresolved_weight += w * (1.0 - p.row(m).sum());
+    if (w == 0) continue;
+    for (int n = 0; n < cols; ++n) {
+      auto [it, fresh] = pairs.try_emplace({group_of(in.initial_groups, m), group_of(in.final_groups, n)});
+      if (fresh) it->second = WorkLine{eb[n] - ea[m], 0.0, m, n};
+      it->second.probability += w * p(m, n);
+    }
+  }
+  std::vector<WorkLine> raw;
+  raw.reserve(pairs.size());
+  for (auto& [key, line] : pairs) raw.push_back(line);
+  std::stable_sort(raw.begin(), raw.end(), [](const WorkLine& a, const WorkLine& b) { return a.work < b.work; });
+  for (const auto& line : raw) {
+    if (!d.lines.empty() && std::abs(line.work - d.lines.back().work) <= merge_tolerance)
+      d.lines.back().probability += line.probability;
+    else
+      d.lines.push_back(line);
+  }
+  // moments about the mean, of the resolved lines renormalised
+  for (const auto& l : d.lines) d.resolved_weight += l.probability;
+  if (d.resolved_weight > 0) {
+    for (const auto& l : d.lines) d.mean += l.probability * l.work;
+    d.mean /= d.resolved_weight;
+    double m2 = 0, m3 = 0;
+    for (const auto& l : d.lines) {
+      const double x = l.work - d.mean;
+      m2 += l.probability * x * x;
+      m3 += l.probability * x * x * x;
+    }
+    d.variance = m2 / d.resolved_weight;
+    d.skewness = d.variance > 0 ? (m3 / d.resolved_weight) / std::pow(d.variance, 1.5) : 0.0;
+  }
+  if (in.beta) {
+    const double beta = *in.beta;
+    const double e0a = in.initial_energies[0], e0b = in.final_energies[0];
+    double average = 0;  // shifted: times exp(-beta (E0B - E0A)) below
+    for (int m = 0; m < rows; ++m) {
+      const double w = in.initial_weights[std::size_t(m)];
+      if (w <= 0) continue;
+      const double a = std::exp(std::log(w) + beta * (in.initial_energies[m] - e0a));
+      for (int n = 0; n < cols; ++n) average += a * p(m, n) * std::exp(-beta * (in.final_energies[n] - e0b));
+    }
+    const double ratio = shifted_partition(in.final_energies, beta) / shifted_partition(in.initial_energies, beta);
+    d.beta = beta;
+    d.jarzynski_residual = average / ratio - 1;
+    d.jarzynski_average = average * std::exp(-beta * (e0b - e0a));
+    d.partition_ratio = ratio * std::exp(-beta * (e0b - e0a));
+    d.free_energy_change = (e0b - e0a) - std::log(ratio) / beta;
+    d.dissipated_work = d.mean - d.free_energy_change;
+  }
+  return d;
+}
+
+WorkHistogram histogram(const WorkDistribution& d, double bin_width) {
+  if (!(bin_width > 0)) throw InputError("bin_width", fmt(bin_width), "a bin width > 0");
+  WorkHistogram h;
+  h.width = bin_width;
+  if (d.lines.empty()) return h;
+  h.start = std::floor(d.lines.front().work / bin_width) * bin_width;
+  const double span = d.lines.back().work - h.start;
+  h.probability.assign(std::size_t(std::floor(span / bin_width)) + 1, 0.0);
+  for (const auto& l : d.lines) {
+    const auto k = std::min(h.probability.size() - 1, std::size_t(std::floor((l.work - h.start) / bin_width)));
+    h.probability[k] += l.probability;
+  }
+  return h;
+}
+
+std::vector<double> broadened_density(const WorkDistribution& d, double sigma, const std::vector<double>& w) {
+  if (!(sigma > 0)) throw InputError("resolution", fmt(sigma), "an energy resolution sigma > 0");
+  std::vector<double> rho(w.size(), 0.0);
+  const double norm = 1 / (sigma * std::sqrt(2 * std::numbers::pi));
+  for (std::size_t i = 0; i < w.size(); ++i)
+    for (const auto& l : d.lines) {
+      const double z = (w[i] - l.work) / sigma;
+      rho[i] += l.probability * norm * std::exp(-0.5 * z * z);
+    }
+  return rho;
+}
+
+std::vector<std::complex<double>> characteristic_function(const WorkDistribution& d, const std::vector<double>& u) {
+  std::vector<std::complex<double>> g(u.size());
+  for (std::size_t i = 0; i < u.size(); ++i)
+    for (const auto& l : d.lines) g[i] += l.probability * std::polar(1.0, u[i] * l.work);
+  return g;
+}
+
+CrooksCheck crooks_check(const WorkInput& forward, const WorkInput& reverse, double merge_tolerance,
+                         double min_probability) {
+  TRAPWORK_EXPECT(forward.beta && reverse.beta && std::abs(*forward.beta - *reverse.beta) <= 1e-14 * *forward.beta,
+                  "crooks_check: both runs must start thermal at the same beta");
+  const Eigen::MatrixXd& f = forward.transitions.probability;  // A -> B
+  const Eigen::MatrixXd& r = reverse.transitions.probability;  // B -> A
+  const int na = int(std::min(f.rows(), r.cols())), nb = int(std::min(f.cols(), r.rows()));
+  CrooksCheck c;
+  // groups fully inside the common block
+  auto block_groups = [](const std::vector<int>& groups, int size, int available) {
+    std::map<int, std::vector<int>> members;
+    for (int i = 0; i < available; ++i) members[group_of(groups, i)].push_back(i);
+    std::vector<std::vector<int>> out;
+    for (auto& [g, list] : members)
+      if (list.back() < size) out.push_back(list);
+    return out;
+  };
+  const auto ga = block_groups(forward.initial_groups, na, int(forward.initial_energies.size()));
+  const auto gb = block_groups(forward.final_groups, nb, int(forward.final_energies.size()));
+  for (const auto& g : ga)
+    for (const auto& h : gb) {
+      double sf = 0, sr = 0;
+      for (int m : g)
+        for (int n : h) {
+          sf += f(m, n);
+          sr += r(n, m);
+        }
+      c.max_line_difference = std::max(c.max_line_difference, std::abs(sf - sr));
+      ++c.lines_compared;
+    }
+  // ratio check on the work values made of pairs kept in both runs
+  WorkInput fb = forward, rb = reverse;
+  fb.transitions.probability = f.topLeftCorner(na, nb);
+  fb.initial_weights.resize(std::size_t(na));
+  fb.final_energies = forward.final_energies.head(nb);
+  rb.transitions.probability = r.topLeftCorner(nb, na);
+  rb.initial_weights.resize(std::size_t(nb));
+  rb.final_energies = reverse.final_energies.head(na);
+  if (!fb.final_groups.empty()) fb.final_groups.resize(std::size_t(nb));
+  if (!rb.final_groups.empty()) rb.final_groups.resize(std::size_t(na));
+  const WorkDistribution df = work_distribution(fb, merge_tolerance);
+  const WorkDistribution dr = work_distribution(rb, merge_tolerance);
+  const double beta = *forward.beta;
+  const double delta_f = work_distribution(forward, merge_tolerance).free_energy_change;
+  for (const auto& l : df.lines) {
+    if (l.probability < min_probability) continue;
+    auto it = std::lower_bound(dr.lines.begin(), dr.lines.end(), -l.work - merge_tolerance,
+                               [](const WorkLine& a, double w) { return a.work < w; });
+    if (it == dr.lines.end() || std::abs(it->work + l.work) > merge_tolerance || it->probability < min_probability)
+      continue;
+    const double predicted = it->probability * std::exp(beta * (l.work - delta_f));
+    c.max_ratio_error = std::max(c.max_ratio_error, std::abs(l.probability / predicted - 1));
+    ++c.ratios_compared;
+  }
+  return c;
+}
+
+// ---- run_work --------------------------------------------------------------------------------
+
+namespace {
+
+std::vector<double> samples(const Potential& v, const std::vector<double>& x, double shift = 0, double t = 0) {
+  std::vector<double> xs(x);
+  for (double& xi : xs) xi += shift;
+  return v.evaluate(xs, t);
+}
+
+Spectrum spectrum_on(const Grid& grid, std::vector<double> v, const SpectrumOptions& options, double cutoff) {
+  const double v_min = *std::min_element(v.begin(), v.end());
+  cap_potential(v, v_min, cutoff);
+  return solve_spectrum(grid, v, options);
+}
+
+Grid shifted(const Grid& g, double d) {
+  if (d == 0) return g;
+  return Grid::periodic(g.left() + d, g.right() + d, g.size());
+}
+
+// One direction of the protocol: propagate the kept initial states, project on the final ones.
+struct Run {
+  Eigen::MatrixXcd amplitudes;  // A(n, m)
+  double norm_drift = 0, edge_amplitude = 0, max_phase = 0;
+};
+
+Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spectrum& final,
+                  const std::vector<double>& v_initial, int kept, int steps, const WorkRequest& request,
+                  const OdeTolerances& ode, const std::function<void(double)>& progress) {
+  const double tau = path.protocol().duration();
+  Eigen::MatrixXcd psi = initial.states.leftCols(kept).cast<std::complex<double>>();
+  Run run;
+  if (tau > 0) {
+    path.from_lab(psi, 0);
+    auto observer = [&](const Eigen::MatrixXcd&, double t) {
+      if (progress) progress(t / tau);
+    };
+    if (request.integrator == Integrator::eigenbasis) {
+      EigenbasisPropagator prop(path, initial, v_initial, ode);
+      auto c = prop.coefficients(psi);
+      propagate(prop, c, 0.0, tau, steps, observer);
+      psi = prop.grid_states(c);
+    } else {
+      SplitOperatorPropagator prop(path, kept,
+                                   request.integrator == Integrator::strang ? SplitOrder::strang : SplitOrder::fourth,
+                                   request.threads);
+      propagate(prop, psi, 0.0, tau, steps, [&](const Eigen::MatrixXcd& s, double t) {
+        run.max_phase = std::max(run.max_phase, prop.max_phase());
+        observer(s, t);
+      });
+    }
+    path.to_lab(psi, tau);
+  }
+  const double dx = path.grid().spacing();
+  const Eigen::Index n = psi.rows(), edge = std::max<Eigen::Index>(1, n / 50);
+  for (Eigen::Index c = 0; c < psi.cols(); ++c) {
+    run.norm_drift = std::max(run.norm_drift, std::abs(psi.col(c).squaredNorm() * dx - 1));
+    const Eigen::VectorXd density = psi.col(c).cwiseAbs2();
+    const double top = density.maxCoeff();
+    const double outer = std::max(density.head(edge).maxCoeff(), density.tail(edge).maxCoeff());
+    if (top > 0) run.edge_amplitude = std::max(run.edge_amplitude, outer / top);
+  }
+  run.amplitudes = project(final, psi);
+  return run;
+}
+
+std::optional<HarmonicComparison> harmonic_comparison(const Potential& base, const Protocol& protocol,
+                                                      const WorkInput& forward) {
+  if (base.terms().size() != 1 || base.terms().front().shape() != Shape::harmonic) return std::nullopt;
+  const Term& term = base.terms().front();
+  const double tau = protocol.duration();
+  const int rows = forward.transitions.initial_levels(), cols = forward.transitions.final_levels();
+  HarmonicComparison h;
+  double mean = 0;
+  if (protocol.translation(base)) {
+    const Schedule& centre = protocol.schedules().front();
+    const double omega = term.parameter("frequency");
+    const auto alpha = translation_alpha(omega, [&](double t) { return centre.evaluate(t, tau).value; }, tau);
+    h.model = "displaced oscillator (Cahill & Glauber 1969)";
+    h.parameter = std::norm(alpha);
+    h.reference = {displaced_transition_matrix(rows, cols, h.parameter)};
+    mean = omega * h.parameter;
+  } else if (protocol.schedules().size() == 1 && protocol.schedules().front().address() == term.name() + ".frequency") {
+    const Schedule& s = protocol.schedules().front();
+    const double w0 = s.initial_value(tau), w1 = s.final_value(tau);
+    h.model = "parametric oscillator (Husimi 1953)";
+    h.parameter = tau > 0 ? parametric_q([&](double t) { double w = s.evaluate(t, tau).value; return w * w; }, tau)
+                          : sudden_q(w0, w1);
+    h.reference = {husimi_transition_matrix(rows, cols, h.parameter)};
+    for (int m = 0; m < rows; ++m) mean += forward.initial_weights[std::size_t(m)] * (w1 * h.parameter - w0) * (m + 0.5);
+  } else {
+    return std::nullopt;
+  }
+  h.mean_work = mean;
+  h.max_line_difference = (h.reference.probability - forward.transitions.probability).cwiseAbs().maxCoeff();
+  return h;
+}
+
+}  // namespace
+
+WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkRequest& request) {
+  protocol.check(base);
+  const double tau = protocol.duration();
+  const auto translation = protocol.translation(base);
+  const bool co_moving = request.co_moving.value_or(translation.has_value() && tau > 0);
+  if (co_moving && !translation)
+    throw PhysicsError("co-moving frame asked for, but the protocol is not a rigid translation of every term");
+  if (co_moving && request.spectrum.box)
+    throw PhysicsError("co-moving frame asked for on a hard-walled box: the walls do not move with the trap");
+  const double displacement = co_moving ? protocol.displacement(*translation, tau).value : 0.0;
+  const Potential va = protocol.initial(base), vb = protocol.final(base);
+  auto progress = [&](double from, double to) {
+    return std::function<void(double)>([&, from, to](double f) {
+      if (request.progress) request.progress(from + (to - from) * f);
+    });
+  };
+
+  WorkResult result;
+  result.co_moving = co_moving;
+  const SpectrumOptions base_options = request.spectrum.options;
+  const bool fixed_grid = request.spectrum.extent || request.spectrum.box;
+  int levels = std::max(base_options.levels, std::min(request.max_initial_levels, 20) + request.final_margin);
+  Spectrum sa, sb;  // forward grid: H_A and H_B (in the frame)
+  InitialWeights wa;
+  Grid grid = Grid::periodic(0, 1, 4);
+  double cutoff = 0;
+  for (int attempt = 0;; ++attempt) {
+    SpectrumRequest sr = request.spectrum;
+    sr.options.levels = levels;
+    const SpectrumResult ra = compute_spectrum(va, sr);
+    const SpectrumResult rb = compute_spectrum(vb, sr);
+    cutoff = std::max(ra.energy_cutoff, rb.energy_cutoff);
+    result.diagnostics.grid_convergence =
+        std::max(ra.convergence.max_energy_change, rb.convergence.max_energy_change);
+    // common grid: the union of extents at the finer spacing (and the path in the lab frame)
+    double left = ra.spectrum.grid.left(), right = ra.spectrum.grid.right();
+    double dx = std::min(ra.spectrum.grid.spacing(), rb.spectrum.grid.spacing());
+    if (!co_moving) {
+      left = std::min(left, rb.spectrum.grid.left());
+      right = std::max(right, rb.spectrum.grid.right());
+      if (!fixed_grid && tau > 0)
+        for (int i = 1; i < 16; ++i) {
+          const Grid g = choose_grid(protocol.at(base, tau * i / 16), cutoff, sr, tau * i / 16);
+          left = std::min(left, g.left());
+          right = std::max(right, g.right());
+          dx = std::min(dx, g.spacing());
+        }
+    }
+    if (request.spectrum.box)
+      grid = ra.spectrum.grid;
+    else if (fixed_grid && request.spectrum.points)
+      grid = Grid::periodic(left, right, *request.spectrum.points);
+    else
+      grid = Grid::periodic(left, right, fast_fft_size(std::size_t(std::ceil((right - left) / dx))));
+    const auto x = grid.points();
+    sr.options.levels = levels;
+    sa = spectrum_on(grid, samples(va, x), sr.options, cutoff);
+    sb = spectrum_on(grid, samples(vb, x, displacement), sr.options, cutoff);
+    wa = initial_weights(request.initial, sa.energies, request.thermal_tolerance, request.max_initial_levels);
+    const bool enough = wa.choice.reached && wa.choice.kept + request.final_margin <= levels;
+    if (enough || attempt >= 3 || levels >= request.max_initial_levels + request.final_margin) break;
+    levels = std::min(2 * levels, request.max_initial_levels + request.final_margin);
+  }
+  result.grid = grid;
+  const int kept_a = int(wa.weights.size());
+  if (wa.gibbs && !wa.choice.reached)
+    result.diagnostics.warnings.push_back("left-out thermal weight " + fmt(wa.choice.left_out) + " with " +
+                                          std::to_string(kept_a) + " levels is above the tolerance " +
+                                          fmt(request.thermal_tolerance) + ": raise max_initial_levels");
+
+  // time steps
+  const auto v_a = samples(va, grid.points());
+  const double v_min = *std::min_element(v_a.begin(), v_a.end());
+  const double range = std::max(sa.energies(sa.energies.size() - 1), sb.energies(sb.energies.size() - 1)) -
+                       std::min(v_min, std::min(sa.energies(0), sb.energies(0)));
+  const double phase_per_step = request.integrator == Integrator::strang ? 0.01 : request.integrator == Integrator::fourth_order ? 0.05 : 1.0;
+  const int steps = request.steps > 0 ? request.steps : std::max(16, int(std::ceil(tau * range / phase_per_step)));
+  result.steps = tau > 0 ? steps : 0;
+  result.method = tau == 0 ? "sudden (U = 1)"
+                  : request.integrator == Integrator::strang       ? "split-operator Strang"
+                  : request.integrator == Integrator::fourth_order ? "split-operator Yoshida triple jump (order 4)"
+                                                                   : "eigenbasis ODE (Dormand-Prince 5(4))";
+  if (co_moving) result.method += ", co-moving frame";
+
+  const auto forward_path = co_moving ? PotentialPath::co_moving(grid, base, protocol) : PotentialPath::lab(grid, base, protocol);
+  const bool reverse = request.reverse_run && wa.gibbs;
+  const double share = reverse ? 0.4 : 0.6;
+  Run fwd = propagate_run(forward_path, sa, sb, v_a, kept_a, steps, request, request.ode, progress(0, share));
+
+  result.initial_spectrum = sa;
+  result.final_spectrum = sb;
+  result.forward = WorkInput{transition_matrix(fwd.amplitudes), sa.energies, sb.energies, wa.weights, sa.group, sb.group,
+                             wa.gibbs ? std::optional<double>(wa.beta) : std::nullopt};
+  result.distribution = work_distribution(result.forward, request.merge_tolerance);
+  Diagnostics& diag = result.diagnostics;
+  diag.norm_drift = fwd.norm_drift;
+  diag.edge_amplitude = fwd.edge_amplitude;
+  diag.max_phase_per_step = fwd.max_phase;
+  diag.unresolved_weight = result.distribution.unresolved_weight;
+  diag.jarzynski_residual = result.distribution.jarzynski_residual;
+
+  if (request.time_step_check && tau > 0) {
+    OdeTolerances tighter{request.ode.absolute / 100, request.ode.relative / 100};
+    Run half = propagate_run(forward_path, sa, sb, v_a, kept_a, 2 * steps, request, tighter, progress(share, 2 * share));
+    diag.time_step_error =
+        (transition_matrix(half.amplitudes).probability - result.forward.transitions.probability).cwiseAbs().maxCoeff();
+  }
+
+  if (reverse) {
+    const Protocol back = protocol.reversed();
+    const Grid grid_r = shifted(grid, displacement);
+    const auto x = grid_r.points();
+    SpectrumOptions options = base_options;
+    options.levels = levels;
+    const Spectrum rb = co_moving ? spectrum_on(grid_r, samples(vb, x), options, cutoff) : sb;
+    const Spectrum ra = co_moving ? spectrum_on(grid_r, samples(va, x, -displacement), options, cutoff) : sa;
+    const InitialWeights wb = initial_weights(InitialState::thermal(wa.beta), rb.energies, request.thermal_tolerance,
+                                              request.max_initial_levels);
+    const int kept_b = int(wb.weights.size());
+    const auto path = co_moving ? PotentialPath::co_moving(grid_r, base, back) : PotentialPath::lab(grid_r, base, back);
+    const double from = request.time_step_check ? 3 * share : share;
+    Run rev = propagate_run(path, rb, ra, samples(vb, x), kept_b, steps, request, request.ode, progress(from, 1));
+    result.reverse = WorkInput{transition_matrix(rev.amplitudes), rb.energies, ra.energies, wb.weights, rb.group, ra.group,
+                               wa.beta};
+    result.reverse_distribution = work_distribution(*result.reverse, request.merge_tolerance);
+    result.crooks = crooks_check(result.forward, *result.reverse, request.merge_tolerance);
+    diag.crooks_line_difference = result.crooks->max_line_difference;
+    diag.crooks_ratio_error = result.crooks->max_ratio_error;
+    diag.truncation = truncation_residual_bound(wa.choice.left_out, kept_a, result.reverse->transitions.probability,
+                                                wb.weights, wb.choice.left_out);
+    diag.norm_drift = std::max(diag.norm_drift, rev.norm_drift);
+    if (std::abs(diag.jarzynski_residual) > diag.truncation.bound + 1e-9)
+      diag.warnings.push_back("Jarzynski residual " + fmt(diag.jarzynski_residual) + " exceeds the truncation bound " +
+                              fmt(diag.truncation.bound) + " (eps_K + p_R(>=K)): raise max_initial_levels or the grid");
+  } else if (!wa.gibbs) {
+    diag.warnings.push_back("initial state is not a Gibbs state of H_A: Jarzynski and Crooks do not apply");
+  }
+  result.harmonic = harmonic_comparison(base, protocol, result.forward);
+
+  if (diag.unresolved_weight > request.unresolved_tolerance)
+    diag.warnings.push_back("unresolved final weight " + fmt(diag.unresolved_weight) + " above " +
+                            fmt(request.unresolved_tolerance) + ": raise final_margin (final levels " +
+                            std::to_string(levels) + ")");
+  if (diag.edge_amplitude > 1e-8)
+    diag.warnings.push_back("final states reach the grid edge (relative density " + fmt(diag.edge_amplitude) +
+                            " in the outer 2%): widen the grid" + (co_moving ? "" : " or use the co-moving frame"));
+  if (diag.time_step_error > 1e-6)
+    diag.warnings.push_back("line probabilities change by " + fmt(diag.time_step_error) +
+                            " at half the time step: raise steps (now " + std::to_string(steps) + ")");
+  if (request.progress) request.progress(1.0);
+  return result;
+}
+
+}  // namespace trapwork

@@ -1,0 +1,190 @@
+#pragma once
+// Work statistics in the two-point energy-measurement (TPM) scheme:
+//   P(W) = sum_{m,n} p_m P(m -> n) delta(W - (E_n^B - E_m^A)),  P(m -> n) = |<n_B|U(tau)|m_A>|^2
+// (Talkner, Lutz & Hanggi, PRE 75, 050102(R) (2007), title from memory). Internal units
+// (hbar = m = 1, solver/units.hpp): energies, work and beta (1/energy) in internal units.
+//
+// Fluctuation relations checked here (exact identities in the TPM scheme for a unitary U and a
+// Gibbs initial state; Tasaki, arXiv:cond-mat/0009244 (2000), from memory; Kurchan,
+// arXiv:cond-mat/0007360 (2000), from memory):
+//   Jarzynski   <exp(-beta W)> = Z_B / Z_A = exp(-beta Delta F)
+//   Tasaki-Crooks  P_F(W) / P_R(-W) = exp(beta (W - Delta F)), line by line
+//                  P_F(m -> n) = P_R(n -> m) for Hamiltonians real in x (microreversibility).
+// Neither checks accuracy (both hold for any unitary evolution; with a symmetric splitting
+// Crooks holds line by line at any time step): the work lines are checked separately.
+#include <Eigen/Dense>
+#include <complex>
+#include <functional>
+#include <limits>
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "potentials/protocol.hpp"
+#include "solver/propagator.hpp"
+#include "solver/spectrum.hpp"
+#include "solver/thermal.hpp"
+
+namespace trapwork {
+
+// P(m, n) = P(m -> n): row m = initial level of the run's first Hamiltonian (H_A forward,
+// H_B reverse), column n = final level of its second. Rows: the initial levels kept;
+// columns: the final levels computed. 1 - (row sum) is the unresolved weight of that row.
+struct TransitionMatrix {
+  Eigen::MatrixXd probability;
+  int initial_levels() const { return int(probability.rows()); }
+  int final_levels() const { return int(probability.cols()); }
+  Eigen::VectorXd unresolved() const;  // 1 - sum_n P(m -> n) per row
+};
+
+// From amplitudes A(n, m) = <n_final|U|m_initial> (as from project()): P(m, n) = |A(n, m)|^2.
+TransitionMatrix transition_matrix(const Eigen::MatrixXcd& amplitudes);
+// Adiabatic limit (no level crossings): P(m -> n) = delta_mn, so W = E_m^B - E_m^A.
+TransitionMatrix adiabatic_transition_matrix(int initial_levels, int final_levels);
+
+struct WorkLine {
+  double work = 0;         // E_n^B - E_m^A (group mean energies)
+  double probability = 0;  // sum over merged (m, n) of p_m P(m -> n)
+  int initial = 0;         // lowest initial level m of the first merged pair
+  int final = 0;           // lowest final level n of the first merged pair
+};
+
+// What a distribution is built from.
+struct WorkInput {
+  TransitionMatrix transitions;
+  Eigen::VectorXd initial_energies;  // E_m^A, at least transitions.initial_levels() of them
+  Eigen::VectorXd final_energies;    // E_n^B, exactly transitions.final_levels()
+  std::vector<double> initial_weights;  // p_m of the kept levels (sum 1)
+  std::vector<int> initial_groups;      // degenerate group of each initial level (empty: none)
+  std::vector<int> final_groups;        // degenerate group of each final level (empty: none)
+  std::optional<double> beta;           // Gibbs initial state: enables the Jarzynski quantities
+};
+
+// The distribution with its moments and fluctuation-relation quantities. Lines are sorted by
+// work; lines whose work differs by less than merge_tolerance (energy units) from the first
+// line of a run are merged (harmonic traps have equal spacings). Degenerate groups are
+// measured as one eigenspace: probabilities summed over the group, energy the group mean.
+struct WorkDistribution {
+  std::vector<WorkLine> lines;
+  double merge_tolerance = 0;
+  double mean = 0, variance = 0, skewness = 0;  // of the resolved lines, renormalised by their total
+  double resolved_weight = 0;                  // sum of line probabilities
+  double unresolved_weight = 0;                // sum_m p_m (1 - sum_n P(m -> n))
+  // Gibbs initial state only (NaN otherwise):
+  double beta = std::numeric_limits<double>::quiet_NaN();
+  double jarzynski_average = std::numeric_limits<double>::quiet_NaN();  // <exp(-beta W)>
+  double partition_ratio = std::numeric_limits<double>::quiet_NaN();    // Z_B / Z_A over the given levels
+  double free_energy_change = std::numeric_limits<double>::quiet_NaN(); // Delta F = -ln(Z_B/Z_A)/beta
+  double dissipated_work = std::numeric_limits<double>::quiet_NaN();    // <W> - Delta F
+  double jarzynski_residual = std::numeric_limits<double>::quiet_NaN(); // <exp(-beta W)> / (Z_B/Z_A) - 1
+};
+
+// <exp(-beta W)> = (1/Z_A^K) sum_n exp(-beta E_n^B) sum_m P(m -> n) for Gibbs weights p_m over
+// the K kept levels, evaluated with energies shifted by E_0^A and E_0^B (no overflow) as
+// sum_{m,n} exp(ln p_m + beta (E_m - E_0^A)) P(m,n) exp(-beta (E_n - E_0^B)), times
+// exp(-beta (E_0^B - E_0^A)). Z_B / Z_A uses all the energies given.
+WorkDistribution work_distribution(const WorkInput& input, double merge_tolerance = 1e-9);
+
+// Histogram with bins [start + k width, start + (k+1) width), start = floor(W_min/width) width.
+struct WorkHistogram {
+  double start = 0, width = 0;
+  std::vector<double> probability;
+};
+WorkHistogram histogram(const WorkDistribution& d, double bin_width);
+// Density sum_l p_l N(W - W_l; sigma) at the points w: the distribution seen through a
+// Gaussian energy-measurement resolution sigma > 0 (energy units).
+std::vector<double> broadened_density(const WorkDistribution& d, double sigma, const std::vector<double>& w);
+// Characteristic function G(u) = <exp(i u W)> = sum_l p_l exp(i u W_l) (u in 1/energy).
+std::vector<std::complex<double>> characteristic_function(const WorkDistribution& d, const std::vector<double>& u);
+
+// Tasaki-Crooks checks from the forward matrix (A -> B) and reverse matrix (B -> A):
+//   max_line_difference  max over group pairs of |P_F(g -> h) - P_R(h -> g)|, where P(g -> h) is
+//                        the block sum over the degenerate groups divided by the size of the
+//                        initial group (basis-independent); over levels kept in both runs
+//   max_ratio_error      max over work values W (pairs kept in both runs, both probabilities
+//                        above min_probability) of |P_F(W) / (P_R(-W) exp(beta (W - dF))) - 1|.
+//                        With weights normalised over K kept levels this is exact up to
+//                        eps_A + eps_B (the left-out thermal weights).
+struct CrooksCheck {
+  double max_line_difference = 0;
+  double max_ratio_error = 0;
+  int lines_compared = 0;
+  int ratios_compared = 0;
+};
+CrooksCheck crooks_check(const WorkInput& forward, const WorkInput& reverse, double merge_tolerance = 1e-9,
+                         double min_probability = 1e-10);
+
+// Every result carries these (NaN where not computed).
+struct Diagnostics {
+  double norm_drift = 0;          // max_m | ||psi_m(tau)||^2 - 1 |
+  double unresolved_weight = 0;   // weighted probability not captured by the final levels kept
+  double edge_amplitude = 0;      // max |psi|^2 in the outer 2% of the grid / max |psi|^2 (final states)
+  double time_step_error = std::numeric_limits<double>::quiet_NaN();  // max |dP(m->n)| vs half step
+  double max_phase_per_step = 0;  // radians, largest kinetic or potential phase in one step
+  double grid_convergence = std::numeric_limits<double>::quiet_NaN(); // max |dE| of kept levels, finer grid
+  double jarzynski_residual = std::numeric_limits<double>::quiet_NaN();
+  TruncationResidual truncation;  // eps_K, p_R(>=K) and their sum
+  double crooks_line_difference = std::numeric_limits<double>::quiet_NaN();
+  double crooks_ratio_error = std::numeric_limits<double>::quiet_NaN();
+  std::vector<std::string> warnings;  // each with the diagnostic value and what to change
+};
+
+// ---- the driver ----------------------------------------------------------------------------
+
+enum class Integrator { strang, fourth_order, eigenbasis };
+
+struct WorkRequest {
+  InitialState initial = InitialState::thermal(1);
+  double thermal_tolerance = 1e-10;  // eps_K: left-out thermal weight of the initial levels
+  int max_initial_levels = 80;
+  int final_margin = 20;             // final levels computed = kept initial levels + margin
+  SpectrumRequest spectrum;          // grid choice (extent/points fixed or automatic), eigensolver
+  Integrator integrator = Integrator::fourth_order;
+  int steps = 0;                     // 0: automatic, dt (E_range) <= 0.05 (order 4), 0.01 (Strang)
+  std::optional<bool> co_moving;     // automatic: used whenever the protocol is a rigid translation
+  bool reverse_run = true;           // needed for Crooks and p_R(>=K)
+  bool time_step_check = true;       // same run at half the step
+  bool grid_check = true;            // spectrum of H_A on a finer, wider grid
+  double merge_tolerance = 1e-9;
+  double unresolved_tolerance = 1e-8;  // warn above this
+  OdeTolerances ode;                 // eigenbasis integrator
+  int threads = 1;                   // FFTW threads
+  std::function<void(double fraction)> progress;  // optional, called with 0..1
+};
+
+// Harmonic reference prediction when the potential is one harmonic term and the protocol a
+// translation (displaced oscillator) or a frequency change (Husimi).
+struct HarmonicComparison {
+  std::string model;               // "displaced oscillator" or "parametric oscillator (Husimi)"
+  double parameter = 0;            // |alpha|^2 or Q*
+  TransitionMatrix reference;
+  double max_line_difference = 0;  // max |P(m->n) - P_ref(m->n)| over the kept lines
+  double mean_work = 0;            // analytic <W> for the same initial weights
+};
+
+struct WorkResult {
+  Grid grid = Grid::periodic(0, 1, 4);  // the forward propagation grid
+  bool co_moving = false;
+  int steps = 0;
+  std::string method;
+  Spectrum initial_spectrum, final_spectrum;  // H_A, H_B (forward run's grid/frame)
+  WorkInput forward;
+  std::optional<WorkInput> reverse;
+  WorkDistribution distribution;
+  std::optional<WorkDistribution> reverse_distribution;
+  std::optional<CrooksCheck> crooks;
+  std::optional<HarmonicComparison> harmonic;
+  Diagnostics diagnostics;
+};
+
+// The whole TPM calculation: grid (automatic or fixed; the lab-frame grid covers the initial,
+// final and intermediate potentials, the co-moving one only the initial), spectra of H_A and
+// H_B on it, initial levels by the thermal tolerance, one batched propagation of all kept
+// initial states, projection on the final eigenstates, reverse run (reversed protocol from
+// H_B's thermal levels), distributions, Crooks, the time-step error (half step), norm drift,
+// edge amplitude, the truncation terms of the Jarzynski residual and harmonic references.
+// tau = 0 is the sudden limit (U = 1). Throws PhysicsError when the spectra cannot hold the
+// levels needed; InputError for protocol addresses the potential does not have.
+WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkRequest& request);
+
+}  // namespace trapwork
