@@ -21,7 +21,7 @@ Grid::Grid(Boundary b, double left, double right, std::size_t n)
     dx_ = (right - left) / double(n);
     const double dk = 2 * pi / (double(n) * dx_);
     for (std::size_t j = 0; j < n; ++j) {
-      const double m = j < n / 2 ? double(j) : double(j) - double(n);
+      const double m = 2 * j < n ? double(j) : double(j) - double(n);  // even n: Nyquist negative
       kinetic_[j] = 0.5 * (m * dk) * (m * dk);
     }
   } else {

@@ -427,6 +427,11 @@ SpectrumResult compute_spectrum(const Potential& potential, const SpectrumReques
   const auto [lo, hi] = search_window(request);
   const Scan s = scan_potential(potential, lo, hi, t);
   result.harmonic = harmonic_from_scan(potential, s, t);
+  const std::size_t lowest = std::min_element(s.v.begin(), s.v.end()) - s.v.begin();
+  if (!request.box && (lowest == 0 || lowest + 1 == s.v.size()))
+    throw PhysicsError("the potential does not confine: its lowest value in the search window [" + fmt(lo) + ", " +
+                       fmt(hi) + "] is at the window's edge (V = " + fmt(s.v[lowest]) +
+                       "); check signs and coefficients, or set the search window ([grid] search_half_width)");
   const double edge_min = std::min(s.v.front(), s.v.back());
   const int k = request.options.levels;
   // A level is bound below the lower asymptote; for a box or a confining trap there is none.

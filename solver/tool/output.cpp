@@ -82,7 +82,9 @@ struct Display {
 };
 
 Display display(const Scenario& s) {
-  return {s.energy.internal_per_unit, internal_per_um(s), s.energy.name, "_" + column_unit(s.energy.name)};
+  Display d{s.energy.internal_per_unit, internal_per_um(s), s.energy.name, "_"};
+  d.e_col += column_unit(s.energy.name);
+  return d;
 }
 
 std::string short_number(double v, int digits = 6) {
@@ -111,7 +113,7 @@ double convergence_of(const SpectrumResult& r, std::size_t n) {
   return c.done && n < c.energy_change.size() ? c.energy_change[n] : nan();
 }
 
-nlohmann::json grid_json(const Grid& g, const Display& d) {
+nlohmann::ordered_json grid_json(const Grid& g, const Display& d) {
   return {{"boundary", g.boundary() == Boundary::periodic ? "periodic" : "hard_wall"},
           {"points", g.size()},
           {"left", d.length(g.left())},
@@ -182,8 +184,8 @@ CsvTable states_table(const Scenario& scenario, const SpectrumResult& result) {
   return t;
 }
 
-nlohmann::json spectrum_summary(const Scenario& scenario, const SpectrumResult& result) {
-  using nlohmann::json;
+nlohmann::ordered_json spectrum_summary(const Scenario& scenario, const SpectrumResult& result) {
+  using json = nlohmann::ordered_json;
   const Display d = display(scenario);
   const UnitSystem& u = scenario.units;
   const Spectrum& s = result.spectrum;

@@ -46,7 +46,7 @@ std::string column_unit(const std::string& unit);
 // lengths in um, wavefunctions in 1/sqrt(um)).
 CsvTable spectrum_table(const Scenario& scenario, const SpectrumResult& result);
 CsvTable states_table(const Scenario& scenario, const SpectrumResult& result);
-nlohmann::json spectrum_summary(const Scenario& scenario, const SpectrumResult& result);
+nlohmann::ordered_json spectrum_summary(const Scenario& scenario, const SpectrumResult& result);
 
 // Writes spectrum.csv, states.csv and summary.json into `folder` (created if missing) and
 // returns their paths.

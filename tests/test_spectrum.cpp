@@ -1,0 +1,130 @@
+// Unit tests of solver/spectrum: eigensolvers agree, conventions hold, levels are classified.
+#include <catch2/catch.hpp>
+
+#include <cmath>
+
+#include "solver/errors.hpp"
+#include "solver/spectrum.hpp"
+
+using namespace trapwork;
+using Catch::Matchers::Contains;
+
+namespace {
+Potential oscillator(double w, double quartic = 0) {
+  return Potential({Term("trap", Shape::polynomial, {{"frequency", w}, {"quartic", quartic}})});
+}
+}  // namespace
+
+TEST_CASE("dense and Lanczos solvers agree on the same Fourier grid", "[spectrum]") {
+  const Grid g = Grid::periodic(-9, 9, 256);
+  const auto v = oscillator(1.0, 0.02).evaluate(g.points());
+  SpectrumOptions o;
+  o.levels = 12;
+  o.method = EigenMethod::dense;
+  const Spectrum dense = solve_spectrum(g, v, o);
+  o.method = EigenMethod::lanczos;
+  const Spectrum lanczos = solve_spectrum(g, v, o);
+  CHECK(lanczos.converged == 12);
+  for (int k = 0; k < 12; ++k) {
+    // Both are eigenpairs of the same matrix: energies to the residual squared, states to
+    // residual / gap (gap ~ 1 here), so 1e-9 for both is an honest bound.
+    CHECK(std::abs(dense.energies(k) - lanczos.energies(k)) < 1e-10);
+    CHECK((dense.states.col(k) - lanczos.states.col(k)).cwiseAbs().maxCoeff() < 1e-7);
+    CHECK(lanczos.residuals[k] < o.residual_tolerance);
+  }
+  // The raw finite-difference spectrum differs at the stencil's order, much more than that.
+  o.method = EigenMethod::finite_difference;
+  const Spectrum fd = solve_spectrum(g, v, o);
+  CHECK(std::abs(fd.energies(11) - dense.energies(11)) > 1e-9);
+}
+
+TEST_CASE("states are normalised on the grid with a fixed sign", "[spectrum]") {
+  const Grid g = Grid::periodic(-8, 8, 128);
+  SpectrumOptions o;
+  o.levels = 5;
+  const Spectrum s = solve_spectrum(g, oscillator(1.0).evaluate(g.points()), o);
+  for (int k = 0; k < 5; ++k) {
+    CHECK(s.states.col(k).squaredNorm() * g.spacing() == Approx(1.0).epsilon(1e-12));
+    // phi_n ~ +x^n: positive at x = 3 (beyond the last node for n < 5).
+    CHECK(s.states(Eigen::Index((3.0 + 8) / g.spacing()), k) > 0);
+  }
+  const Grid b = Grid::box(0, 1, 63);
+  const Spectrum box = solve_spectrum(b, std::vector<double>(63, 0.0), o);
+  for (int k = 0; k < 5; ++k) CHECK(box.states(0, k) > 0);  // sin(n pi x), first lobe positive
+}
+
+TEST_CASE("tunnelling doublets of a double well are grouped", "[spectrum]") {
+  const Potential v({Term("dw", Shape::double_well, {{"barrier", 40.0}, {"separation", 4.0}})});
+  SpectrumRequest r;
+  r.options.levels = 4;
+  r.options.degeneracy_tolerance = 1e-3;
+  r.search_half_width = 20;
+  const SpectrumResult res = compute_spectrum(v, r);
+  const auto& e = res.spectrum.energies;
+  INFO("levels " << e.transpose());
+  REQUIRE(e(3) - e(2) < 1e-3);  // a deep barrier: splittings far below the spacing
+  CHECK(res.spectrum.group == std::vector<int>{0, 0, 1, 1});
+  r.options.degeneracy_tolerance = 1e-12;
+  CHECK(compute_spectrum(v, r).spectrum.group == std::vector<int>{0, 1, 2, 3});
+}
+
+TEST_CASE("the automatic grid converges an oscillator to rounding", "[spectrum]") {
+  SpectrumRequest r;
+  r.options.levels = 20;
+  const SpectrumResult res = compute_spectrum(oscillator(1.0), r);
+  for (int k = 0; k < 20; ++k) CHECK(res.spectrum.energies(k) == Approx(k + 0.5).epsilon(1e-11));
+  CHECK(res.convergence.done);
+  CHECK(res.convergence.max_energy_change < 1e-9);
+  CHECK(res.harmonic.omega == Approx(1.0).epsilon(1e-6));
+  CHECK(std::abs(res.levels[3].harmonic_shift) < 1e-9);
+  CHECK(std::isinf(res.threshold));
+  CHECK(res.warnings.empty());
+  for (const auto& l : res.levels) CHECK(l.bound);
+}
+
+TEST_CASE("level properties: spacing and moments", "[spectrum]") {
+  SpectrumRequest r;
+  r.options.levels = 4;
+  const Potential shifted({Term("trap", Shape::harmonic, {{"frequency", 2.0}, {"centre", 1.5}})});
+  const SpectrumResult res = compute_spectrum(shifted, r);
+  for (int k = 0; k < 4; ++k) {
+    CHECK(res.levels[k].mean_x == Approx(1.5).epsilon(1e-10));
+    // <(x - c)^2> = (n + 1/2) / omega
+    CHECK(res.levels[k].mean_x2 - 1.5 * 1.5 == Approx((k + 0.5) / 2.0).epsilon(1e-9));
+  }
+  CHECK(res.levels[0].spacing == Approx(2.0).epsilon(1e-10));
+  CHECK(std::isnan(res.levels[3].spacing));
+}
+
+TEST_CASE("finite wells: bound states are told from the continuum", "[spectrum]") {
+  const Potential tweezer({Term("tw", Shape::gaussian, {{"depth", 6.0}, {"waist", 2.0}})});
+  SpectrumRequest r;
+  r.options.levels = 8;
+  r.search_half_width = 60;
+  const SpectrumResult res = compute_spectrum(tweezer, r);
+  CHECK(res.finite_depth);
+  CHECK(res.threshold == Approx(0.0).margin(1e-12));
+  int bound = 0;
+  for (const auto& l : res.levels) bound += l.bound;
+  CHECK(bound < 8);
+  CHECK(bound >= 3);
+  for (const auto& l : res.levels) CHECK(l.bound == (l.energy < 0 && l.edge_amplitude < 1e-6));
+  REQUIRE_FALSE(res.warnings.empty());
+  CHECK_THAT(res.warnings.front(), Contains("not bound"));
+}
+
+TEST_CASE("bad requests fail with a reason", "[spectrum]") {
+  const Grid g = Grid::periodic(-5, 5, 16);
+  SpectrumOptions o;
+  o.levels = 9;
+  CHECK_THROWS_WITH(solve_spectrum(g, std::vector<double>(16, 0.0), o), Contains("use more points"));
+  const Potential broken({Term::formula("f", "1/x", {})});
+  SpectrumRequest r;
+  r.search_half_width = 5;
+  CHECK_THROWS_WITH(compute_spectrum(broken, r), Contains("not finite"));
+  const Potential hill({Term::formula("f", "-x^2", {})});
+  CHECK_THROWS_AS(compute_spectrum(hill, r), PhysicsError);
+  r.options.method = EigenMethod::hermite;
+  const Potential tweezer({Term("tw", Shape::gaussian, {{"depth", 6.0}, {"waist", 2.0}})});
+  CHECK_THROWS_WITH(compute_spectrum(tweezer, r), Contains("polynomial"));
+}
