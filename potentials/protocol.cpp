@@ -117,7 +117,9 @@ ScheduleValue Schedule::evaluate_forward(double t, double tau, bool at_end) cons
     case ScheduleForm::linear:
     case ScheduleForm::smooth_step:
     case ScheduleForm::smoother_step: {
-      const double u = at_end ? 1.0 : (tau > 0 ? std::clamp(t / tau, 0.0, 1.0) : 0.0);
+      // no clamping to [0, 1]: the triple-jump composition evaluates V slightly outside
+      // [0, tau], where it needs the smooth continuation to stay fourth order
+      const double u = at_end ? 1.0 : (tau > 0 ? t / tau : 0.0);
       double s = u, ds = 1, d2s = 0;  // s(u) and its u-derivatives
       if (form_ == ScheduleForm::smooth_step) {
         s = u * u * (3 - 2 * u);

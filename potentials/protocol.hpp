@@ -16,6 +16,9 @@
 //                  by 5-point central differences, error O(h^4) with h = 1e-3 max(tau, 1)
 //                  (common practice), about 1e-10 relative for smooth f
 // Each schedule gives value, first and second time derivative (needed by the co-moving frame).
+// Slightly outside [0, tau] every form continues its own formula (ramps their polynomial,
+// tables their end segments), because the fourth-order composition of Strang steps evaluates
+// V at times up to 0.35 dt beyond the ends and needs a smooth V(t) there.
 // The reversed protocol is lambda_R(t) = lambda(tau - t) (derivative sign flipped).
 #include <memory>
 #include <optional>

@@ -1,0 +1,171 @@
+// Propagators: the concept, the observer contract, unitarity, time-reversal symmetry,
+// convergence order, and agreement between the two models and the two frames.
+#include <catch2/catch.hpp>
+
+#include <cmath>
+#include <vector>
+
+#include "solver/propagator.hpp"
+
+using namespace trapwork;
+
+namespace {
+Potential harmonic_trap(double omega = 1) {
+  return Potential({Term("trap", Shape::harmonic, {{"frequency", omega}, {"centre", 0.0}})});
+}
+// Ground and first excited oscillator states (omega = 1), centred at c
+Eigen::MatrixXcd oscillator_states(const Grid& g, double c = 0) {
+  Eigen::MatrixXcd s(g.size(), 2);
+  for (std::size_t j = 0; j < g.size(); ++j) {
+    const double y = g.x(j) - c, gauss = std::pow(M_PI, -0.25) * std::exp(-y * y / 2);
+    s(Eigen::Index(j), 0) = gauss;
+    s(Eigen::Index(j), 1) = std::sqrt(2.0) * y * gauss;
+  }
+  return s;
+}
+double max_norm_error(const Eigen::MatrixXcd& s, double dx) {
+  double e = 0;
+  for (Eigen::Index c = 0; c < s.cols(); ++c) e = std::max(e, std::abs(s.col(c).squaredNorm() * dx - 1));
+  return e;
+}
+struct NotAPropagator {  // lacks order(): must not model the concept
+  using State = Eigen::MatrixXcd;
+  void step(State&, double, double) {}
+};
+const Grid grid = Grid::periodic(-10, 10, 128);
+const Protocol ramp(1, {Schedule::linear("trap.frequency", 1, 1.5)});
+}  // namespace
+
+static_assert(Propagator<SplitOperatorPropagator>);
+static_assert(Propagator<EigenbasisPropagator>);
+static_assert(!Propagator<NotAPropagator>);
+
+TEST_CASE("propagate calls the observer at t_begin + i dt and can be stopped", "[propagator]") {
+  SplitOperatorPropagator prop(PotentialPath::lab(grid, harmonic_trap(), ramp), 2, SplitOrder::strang);
+  auto psi = oscillator_states(grid);
+  std::vector<double> times;
+  const int steps = propagate(prop, psi, 0.2, 0.9, 7, [&](const Eigen::MatrixXcd&, double t) { times.push_back(t); });
+  CHECK(steps == 7);
+  REQUIRE(times.size() == 8);
+  for (int i = 0; i < 7; ++i) CHECK(times[std::size_t(i)] == 0.2 + i * ((0.9 - 0.2) / 7));
+  CHECK(times.back() == 0.9);
+  int calls = 0;
+  const int taken = propagate(prop, psi, 0.0, 1.0, 10, [&](const Eigen::MatrixXcd&, double) { return ++calls < 3; });
+  CHECK(calls == 3);   // at t = 0, 0.1, 0.2; the third returns false
+  CHECK(taken == 2);
+  CHECK_THROWS_AS(propagate(prop, psi, 0.0, 1.0, 0), ContractViolation);
+}
+
+TEST_CASE("split-operator steps keep the norm and are time-reversal symmetric", "[propagator]") {
+  for (auto order : {SplitOrder::strang, SplitOrder::fourth}) {
+    SplitOperatorPropagator prop(PotentialPath::lab(grid, harmonic_trap(), ramp), 2, order);
+    const auto start = oscillator_states(grid);
+    auto psi = start;
+    double worst = 0;
+    propagate(prop, psi, 0.0, 1.0, 200, [&](const Eigen::MatrixXcd& s, double) {
+      worst = std::max(worst, max_norm_error(s, grid.spacing()));
+    });
+    // unitary steps: rounding only, ~1e-16 per FFT pass times 200 steps x 3 substeps x 4 passes
+    CHECK(worst < 1e-12);
+    // S(t + dt, -dt) S(t, dt) = 1: back to the start, up to the same rounding
+    propagate(prop, psi, 1.0, 0.0, 200);
+    CHECK((psi - start).cwiseAbs().maxCoeff() < 1e-12);
+    CHECK(prop.max_phase() > 0);
+  }
+}
+
+TEST_CASE("convergence order 2 (Strang) and 4 (triple jump) from three step sizes", "[propagator]") {
+  // observed order p = log2(|u_N - u_2N| / |u_2N - u_4N|): self-convergence, no reference needed
+  for (auto [order, n0, expect] : {std::tuple{SplitOrder::strang, 40, 2.0}, std::tuple{SplitOrder::fourth, 10, 4.0}}) {
+    std::vector<Eigen::MatrixXcd> result;
+    for (int n : {n0, 2 * n0, 4 * n0}) {
+      SplitOperatorPropagator prop(PotentialPath::lab(grid, harmonic_trap(), ramp), 2, order);
+      auto psi = oscillator_states(grid);
+      propagate(prop, psi, 0.0, 1.0, n);
+      result.push_back(psi);
+    }
+    const double e1 = (result[0] - result[1]).cwiseAbs().maxCoeff(), e2 = (result[1] - result[2]).cwiseAbs().maxCoeff();
+    const double p = std::log2(e1 / e2);
+    INFO("order " << int(order) << ": differences " << e1 << ", " << e2 << ", observed p = " << p);
+    CHECK(std::abs(p - expect) < 0.25);  // asymptotic-regime allowance for the leading-term estimate
+    CHECK(e2 < 1e-4);
+  }
+}
+
+TEST_CASE("eigenbasis ODE and split-operator agree on a frequency ramp", "[propagator]") {
+  const auto base = harmonic_trap();
+  SpectrumOptions options;
+  options.levels = 30;
+  options.method = EigenMethod::dense;
+  const auto va = base.evaluate(grid.points());
+  const Spectrum sa = solve_spectrum(grid, va, options);
+  const Spectrum sb = solve_spectrum(grid, ramp.final(base).evaluate(grid.points()), options);
+  const auto path = PotentialPath::lab(grid, base, ramp);
+  Eigen::MatrixXcd psi = sa.states.leftCols(3).cast<std::complex<double>>();
+
+  SplitOperatorPropagator split(path, 3, SplitOrder::fourth);
+  auto a = psi;
+  propagate(split, a, 0.0, 1.0, 400);
+  EigenbasisPropagator ode(path, sa, va, {1e-12, 1e-12});
+  auto c = ode.coefficients(psi);
+  propagate(ode, c, 0.0, 1.0, 10);
+  const Eigen::MatrixXd pa = project(sb, a).cwiseAbs2(), pb = project(sb, ode.grid_states(c)).cwiseAbs2();
+  // CF4 at dt = 1/400 (error ~1e-10 by the order test) vs ODE tolerance 1e-12; basis of 30
+  // levels leaves ~e^{-30} of the low states out
+  CHECK((pa - pb).cwiseAbs().maxCoeff() < 1e-8);
+  CHECK(ode.evaluations() > 0);
+  // the two are not trivially equal: the ramp does excite level 2 from level 0
+  CHECK(pa(2, 0) > 1e-4);
+}
+
+TEST_CASE("co-moving frame reproduces the lab frame, including the Galilean phases", "[propagator]") {
+  const auto base = harmonic_trap();
+  const Grid lab = Grid::periodic(-10, 12, 160);
+  const Grid frame = Grid::periodic(-10, 12, 160);
+  SpectrumOptions options;
+  options.levels = 12;
+  options.method = EigenMethod::dense;
+  // constant speed: the trap still moves at both ends (phase factors needed); smooth step: not
+  for (auto schedule : {Schedule::linear("trap.centre", 0, 1.5), Schedule::smooth_step("trap.centre", 0, 1.5)}) {
+    const Protocol move(2, {schedule});
+    const Potential vb = move.final(base);
+    const Spectrum sa = solve_spectrum(lab, base.evaluate(lab.points()), options);
+    const Spectrum sb_lab = solve_spectrum(lab, vb.evaluate(lab.points()), options);
+    auto shifted = frame.points();
+    for (double& y : shifted) y += 1.5;  // frame grid at tau sits at x = y + d(tau)
+    const Spectrum sb_frame = solve_spectrum(frame, vb.evaluate(shifted), options);
+
+    Eigen::MatrixXcd a = sa.states.leftCols(4).cast<std::complex<double>>(), b = a;
+    SplitOperatorPropagator in_lab(PotentialPath::lab(lab, base, move), 4);
+    propagate(in_lab, a, 0.0, 2.0, 400);
+    const auto path = PotentialPath::co_moving(frame, base, move);
+    SplitOperatorPropagator in_frame(path, 4);
+    path.from_lab(b, 0);
+    propagate(in_frame, b, 0.0, 2.0, 400);
+    path.to_lab(b, 2.0);
+    const Eigen::MatrixXcd amp_lab = project(sb_lab, a), amp_frame = project(sb_frame, b);
+    // both CF4 at dt = 1/200 (time-step error ~1e-10); same grid spacing and eigen-solver
+    CHECK((amp_lab - amp_frame).cwiseAbs().maxCoeff() < 1e-8);
+    // the phase factors matter: without them the constant-speed amplitudes differ
+    if (schedule.form() == ScheduleForm::linear) {
+      Eigen::MatrixXcd c = sa.states.leftCols(4).cast<std::complex<double>>();
+      SplitOperatorPropagator plain(path, 4);
+      propagate(plain, c, 0.0, 2.0, 400);
+      CHECK((project(sb_frame, c).cwiseAbs2() - amp_lab.cwiseAbs2()).cwiseAbs().maxCoeff() > 1e-3);
+    }
+  }
+  CHECK_THROWS_AS(PotentialPath::co_moving(frame, base, ramp), PhysicsError);
+}
+
+TEST_CASE("sudden amplitudes are the eigenstate overlaps", "[propagator]") {
+  SpectrumOptions options;
+  options.levels = 6;
+  options.method = EigenMethod::dense;
+  const Spectrum sa = solve_spectrum(grid, harmonic_trap(1).evaluate(grid.points()), options);
+  const Spectrum sb = solve_spectrum(grid, harmonic_trap(2).evaluate(grid.points()), options);
+  const Eigen::MatrixXcd a = sudden_amplitudes(sa, sb);
+  // <0_B|0_A>^2 = 2 sqrt(w0 w1)/(w0 + w1) = 2 sqrt 2 / 3 (Gaussian overlap, common practice);
+  // the grid [-10, 10] at 128 points resolves both ground states to rounding
+  CHECK(std::norm(a(0, 0)) == Approx(2 * std::sqrt(2.0) / 3).epsilon(1e-12));
+  CHECK(std::abs(a(1, 0)) < 1e-12);  // parity
+}
