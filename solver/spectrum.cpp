@@ -72,23 +72,53 @@ void fix_signs(const Grid& grid, Eigen::MatrixXd& states) {
   }
 }
 
-// Rayleigh-Ritz with the grid's pseudo-spectral H in the span of `basis` (orthonormalised
-// here); returns the lowest `keep` Ritz pairs, their images H psi and residuals.
+// H applied to many columns, a block of at most 16 at a time (bounded transform buffers).
+Eigen::MatrixXd apply_in_blocks(const Grid& grid, const std::vector<double>& v, const Eigen::MatrixXd& in) {
+  constexpr Eigen::Index block = 16;
+  Eigen::MatrixXd out(in.rows(), in.cols()), part;
+  std::optional<KineticOperator> full, rest;
+  for (Eigen::Index c = 0; c < in.cols(); c += block) {
+    const Eigen::Index width = std::min(block, in.cols() - c);
+    auto& op = width == block ? full : rest;
+    if (!op) op.emplace(grid, int(width));
+    apply_hamiltonian(*op, v, in.middleCols(c, width), part);
+    out.middleCols(c, width) = part;
+  }
+  return out;
+}
+
+// Rayleigh-Ritz with the grid's pseudo-spectral H in the span of `basis` (columns nearly
+// orthonormal: the generalized problem with the overlap matrix absorbs the rest); returns
+// the lowest `keep` Ritz pairs and their images H psi.
 struct Ritz {
   Eigen::VectorXd values;
   Eigen::MatrixXd vectors, images;
 };
 Ritz rayleigh_ritz(const Grid& grid, const std::vector<double>& v, const Eigen::MatrixXd& basis, int keep) {
-  Eigen::HouseholderQR<Eigen::MatrixXd> qr(basis);
-  const Eigen::MatrixXd q = qr.householderQ() * Eigen::MatrixXd::Identity(basis.rows(), basis.cols());
-  KineticOperator kinetic(grid, int(q.cols()));
-  Eigen::MatrixXd hq;
-  apply_hamiltonian(kinetic, v, q, hq);
-  Eigen::MatrixXd small = q.transpose() * hq;
-  small = 0.5 * (small + small.transpose()).eval();
-  Eigen::SelfAdjointEigenSolver<Eigen::MatrixXd> eig(small);
+  const Eigen::MatrixXd hb = apply_in_blocks(grid, v, basis);
+  Eigen::MatrixXd s = basis.transpose() * hb;
+  s = 0.5 * (s + s.transpose()).eval();
+  const Eigen::MatrixXd m = basis.transpose() * basis;
+  Eigen::GeneralizedSelfAdjointEigenSolver<Eigen::MatrixXd> eig(s, m);
+  if (eig.info() != Eigen::Success) throw PhysicsError("Rayleigh-Ritz refinement failed (dependent basis)");
   const Eigen::MatrixXd y = eig.eigenvectors().leftCols(keep);
-  return {eig.eigenvalues().head(keep), q * y, hq * y};
+  return {eig.eigenvalues().head(keep), basis * y, hb * y};
+}
+
+// Orthonormalises the columns of c against the orthonormal columns of q and among themselves
+// (two passes of classical Gram-Schmidt, then a thin QR); drops columns that vanish.
+Eigen::MatrixXd orthonormal_complement(const Eigen::MatrixXd& q, Eigen::MatrixXd c) {
+  for (int pass = 0; pass < 2; ++pass) c -= q * (q.transpose() * c);
+  std::vector<Eigen::Index> keep;
+  for (Eigen::Index j = 0; j < c.cols(); ++j)
+    if (c.col(j).norm() > 1e-10) keep.push_back(j);
+  Eigen::MatrixXd kept(c.rows(), Eigen::Index(keep.size()));
+  for (std::size_t j = 0; j < keep.size(); ++j) kept.col(Eigen::Index(j)) = c.col(keep[j]).normalized();
+  Eigen::HouseholderQR<Eigen::MatrixXd> qr(kept);
+  Eigen::MatrixXd thin = qr.householderQ() * Eigen::MatrixXd::Identity(kept.rows(), kept.cols());
+  for (int pass = 0; pass < 2; ++pass) thin -= q * (q.transpose() * thin);
+  for (Eigen::Index j = 0; j < thin.cols(); ++j) thin.col(j).normalize();
+  return thin;
 }
 
 Eigen::VectorXd residual_norms(const Eigen::MatrixXd& states, const Eigen::MatrixXd& images,
@@ -190,18 +220,24 @@ Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const Sp
     const Eigen::SparseMatrix<double> h = finite_difference_hamiltonian(grid, v, options.fd_order);
     const int extra = std::max(4, k / 4);
     const int nev = std::min(k + extra, n - 2);
-    const int ncv = std::min(n - 1, std::max(2 * nev + 1, nev + 20));
+    // Shift-invert converges in a few restarts, so a subspace 1.5 nev wide is enough and
+    // keeps memory near the states themselves (2 nev is the usual default).
+    const int ncv = std::min(n - 1, nev + std::max(20, nev / 2));
     const double sigma = *std::min_element(v.begin(), v.end()) - 1.0;
-    ShiftInvert op(h);
-    Spectra::SymEigsShiftSolver<ShiftInvert> eigs(op, nev, ncv, sigma);
-    eigs.init();
-    eigs.compute(Spectra::SortRule::LargestMagn, 1000, 1e-12, Spectra::SortRule::SmallestAlge);
-    if (eigs.info() != Spectra::CompInfo::Successful)
-      throw PhysicsError("shift-invert Lanczos did not converge for " + std::to_string(nev) +
-                         " levels; try fewer levels or method = \"dense\"");
-    s.iterations = int(eigs.num_iterations());
-    Eigen::VectorXd values = eigs.eigenvalues();
-    Eigen::MatrixXd vectors = eigs.eigenvectors();
+    Eigen::VectorXd values;
+    Eigen::MatrixXd vectors;
+    {  // scoped so the Lanczos basis is freed before the refinement
+      ShiftInvert op(h);
+      Spectra::SymEigsShiftSolver<ShiftInvert> eigs(op, nev, ncv, sigma);
+      eigs.init();
+      eigs.compute(Spectra::SortRule::LargestMagn, 1000, 1e-12, Spectra::SortRule::SmallestAlge);
+      if (eigs.info() != Spectra::CompInfo::Successful)
+        throw PhysicsError("shift-invert Lanczos did not converge for " + std::to_string(nev) +
+                           " levels; try fewer levels or method = \"dense\"");
+      s.iterations = int(eigs.num_iterations());
+      values = eigs.eigenvalues();
+      vectors = eigs.eigenvectors();
+    }
     s.method = "shift-invert Lanczos, finite differences of order " + std::to_string(options.fd_order);
     if (method == EigenMethod::finite_difference) {
       s.energies = values.head(k);
@@ -221,15 +257,16 @@ Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const Sp
         for (int i = 0; i < nev; ++i)
           if (r(i) >= 0.1 * options.residual_tolerance) open.push_back(i);
         if (r.head(k).maxCoeff() < options.residual_tolerance || open.empty()) break;
-        Eigen::MatrixXd basis_vectors(n, nev + Eigen::Index(open.size()));
-        basis_vectors.leftCols(nev) = ritz.vectors;
+        Eigen::MatrixXd corrections(n, Eigen::Index(open.size()));
+        ShiftInvert near(h);
         for (std::size_t c = 0; c < open.size(); ++c) {
           const int i = open[c];
-          ShiftInvert near(h);
           near.set_shift(ritz.values(i));
-          basis_vectors.col(nev + Eigen::Index(c)) =
-              near.solve(ritz.images.col(i) - ritz.values(i) * ritz.vectors.col(i));
+          corrections.col(Eigen::Index(c)) = near.solve(ritz.images.col(i) - ritz.values(i) * ritz.vectors.col(i));
         }
+        const Eigen::MatrixXd extra = orthonormal_complement(ritz.vectors, std::move(corrections));
+        Eigen::MatrixXd basis_vectors(n, nev + extra.cols());
+        basis_vectors << ritz.vectors, extra;
         ritz = rayleigh_ritz(grid, v, basis_vectors, nev);
       }
       s.iterations += sweep;

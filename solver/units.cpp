@@ -128,6 +128,12 @@ std::string Dimension::describe() const {
   return text;
 }
 
+std::string with_article(Dimension d) {
+  if (d == Dimension::none()) return "a plain number";
+  const std::string text = d.describe();
+  return (std::string("aeiou").find(text[0]) != std::string::npos ? "an " : "a ") + text;
+}
+
 std::string expected_quantity(Dimension d) {
   if (const auto* n = find_named(d)) return n->expected;
   return "a quantity of dimension " + d.describe();
@@ -309,10 +315,10 @@ double UnitSystem::to_internal(const Quantity& q, Dimension expected, std::strin
       expected == Dimension::temperature() && q.dimension == Dimension::energy();
   if (energy_as_temperature) return q.si_value / energy_J();
   if (!(q.dimension == expected)) {
-    const std::string found = text.empty() ? "a " + q.dimension.describe() : std::string(text);
+    const std::string found = text.empty() ? with_article(q.dimension) : std::string(text);
     std::string hint = expected == Dimension::energy() ? energy_hint(q, text) : std::string();
-    throw InputError(std::string(key), found,
-                     expected_quantity(expected) + ", not a " + q.dimension.describe(), hint);
+    throw InputError(std::string(key), found, expected_quantity(expected) + ", not " + with_article(q.dimension),
+                     hint);
   }
   return q.si_value / internal_unit_in_si(*this, expected);
 }

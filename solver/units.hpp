@@ -41,6 +41,8 @@ struct Dimension {
 
 // What a value of dimension d looks like, for error messages: "an energy (e.g. \"0.5 h*kHz\")".
 std::string expected_quantity(Dimension d);
+// describe() with its article, for "not a length" / "not an energy".
+std::string with_article(Dimension d);
 
 // A parsed quantity: SI value and dimension, or a plain number meaning internal units.
 struct Quantity {

@@ -158,7 +158,7 @@ class Reader {
     const Quantity q = quantity(*n, dotted, d);
     if (q.plain) fail(*n, dotted, expected_quantity(d) + " with its unit: " + why);
     if (!(q.dimension == d))
-      fail(*n, dotted, expected_quantity(d) + ", not a " + q.dimension.describe());
+      fail(*n, dotted, expected_quantity(d) + ", not " + with_article(q.dimension));
     return Read{q.si_value, n->as_string()->get(), n};
   }
 
@@ -557,7 +557,7 @@ Scenario read_scenario_text(std::string_view toml_text, std::string file_name) {
 
 Scenario read_scenario(const std::string& path) {
   std::ifstream in(path, std::ios::binary);
-  if (!in) throw std::runtime_error("cannot open scenario file '" + path + "'");
+  if (!in) throw InputError("", "", "cannot open the scenario file", "", path);
   std::ostringstream text;
   text << in.rdbuf();
   return read_scenario_text(text.str(), path);

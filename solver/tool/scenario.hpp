@@ -57,8 +57,8 @@ struct Scenario {
   std::string output_folder;
 };
 
-// Reads a scenario file. Throws InputError (with file, line, column) on every problem, and
-// std::runtime_error if the file cannot be opened.
+// Reads a scenario file. Throws InputError (with file, line, column) on every problem,
+// including a file that cannot be opened.
 Scenario read_scenario(const std::string& path);
 // Reads scenario text; `file_name` is used in messages and to find data files (relative to
 // its folder) and for the default output folder "<stem>-output".

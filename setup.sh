@@ -1,0 +1,34 @@
+#!/usr/bin/env bash
+# trapwork's one set-up script, for Debian 12 (as root, or with sudo):
+#   ./setup.sh demo               install what is needed, build, run the built-in default scenario
+#   ./setup.sh test               install, build, run every test (unit and validation)
+#   ./setup.sh build              install and build only
+# The build goes to ./build; the tool is ./build/trapwork.
+set -euo pipefail
+cd "$(dirname "$0")"
+
+packages=(cmake make g++ pkg-config libeigen3-dev libspectra-dev libfftw3-dev libboost-dev
+          libcli11-dev catch2 libtomlplusplus-dev libmuparser-dev nlohmann-json3-dev
+          libplplot-dev plplot-driver-cairo)
+missing=()
+for p in "${packages[@]}"; do
+  dpkg-query -W -f='${Status}' "$p" 2>/dev/null | grep -q "ok installed" || missing+=("$p")
+done
+if [ ${#missing[@]} -gt 0 ]; then
+  sudo=""
+  [ "$(id -u)" -eq 0 ] || sudo="sudo"
+  echo "setup: installing ${missing[*]}" >&2
+  $sudo apt-get update -qq
+  DEBIAN_FRONTEND=noninteractive $sudo apt-get install -y -qq --no-install-recommends "${missing[@]}" >&2
+fi
+
+jobs=$(nproc 2>/dev/null || echo 2)
+cmake -S . -B build -DCMAKE_BUILD_TYPE=Release >/dev/null
+cmake --build build -j "$jobs"
+
+case "${1:-build}" in
+  demo) shift; exec ./build/trapwork demo "$@" ;;
+  test) exec ctest --test-dir build --output-on-failure -j "$jobs" ;;
+  build) ;;
+  *) echo "usage: ./setup.sh demo|test|build" >&2; exit 2 ;;
+esac

@@ -1,0 +1,200 @@
+// Units: parsing lab quantities, the internal unit system, display energy units, error text.
+#include <catch2/catch.hpp>
+#include <cmath>
+#include <limits>
+
+#include "solver/errors.hpp"
+#include "solver/units.hpp"
+
+using namespace trapwork;
+
+namespace {
+// CODATA 2018 recommended values (NIST, physics.nist.gov/constants), typed here independently
+// of solver/units.hpp: h and kB are exact SI values; u to its 12 digits; hbar = h / (2 pi).
+constexpr double codata_h = 6.62607015e-34;
+constexpr double codata_kB = 1.380649e-23;
+constexpr double codata_u = 1.66053906660e-27;
+constexpr double codata_eV = 1.602176634e-19;
+constexpr double pi = 3.14159265358979323846;
+constexpr double codata_hbar = codata_h / (2 * pi);
+
+// The parser and the test multiply the same factors in possibly different orders, and pow
+// with integer powers adds a rounding per factor: a few ulps. 8 eps relative covers up to 8
+// roundings (common practice for products of a handful of doubles).
+constexpr double eps8 = 8 * std::numeric_limits<double>::epsilon();
+
+bool close(double a, double b, double rel = eps8) { return std::abs(a - b) <= rel * std::abs(b); }
+
+std::string message_of(const std::function<void()>& f) {
+  try {
+    f();
+  } catch (const InputError& e) {
+    return e.what();
+  }
+  return "(no InputError thrown)";
+}
+}  // namespace
+
+TEST_CASE("parse_quantity reads numbers with lab units into SI", "[units]") {
+  struct Case {
+    const char* text;
+    double si;
+    Dimension dimension;
+  } cases[] = {
+      {"40 u", 40 * codata_u, Dimension::mass()},
+      {"87 Da", 87 * codata_u, Dimension::mass()},
+      {"1.2 MHz", 1.2e6, Dimension::frequency()},
+      {"15 nm", 15e-9, Dimension::length()},
+      {"2.5 \xC2\xB5m", 2.5e-6, Dimension::length()},  // micro sign
+      {"3 us", 3e-6, Dimension::time()},
+      {"2 uK", 2e-6, Dimension::temperature()},
+      {"0.5 h*kHz", 0.5 * codata_h * 1e3, Dimension::energy()},
+      {"1 kB*uK", codata_kB * 1e-6, Dimension::energy()},
+      {"7 hbar*kHz", 7 * codata_hbar * 1e3, Dimension::energy()},
+      {"2 meV", 2e-3 * codata_eV, Dimension::energy()},
+      {"2e-3 h*kHz/um^4", 2e-3 * codata_h * 1e3 / 1e-24, Dimension::energy_per_length(4)},
+      {"3 J/m^4", 3.0, Dimension::energy_per_length(4)},
+      {"1.5e3MHz", 1.5e9, Dimension::frequency()},
+      {"  4 h * MHz / nm ^ 3 ", 4 * codata_h * 1e6 / 1e-27, Dimension::energy_per_length(3)},
+  };
+  for (const auto& c : cases) {
+    INFO(c.text);
+    const Quantity q = parse_quantity(c.text);
+    CHECK_FALSE(q.plain);
+    CHECK(q.dimension == c.dimension);
+    CHECK(close(q.si_value, c.si));
+  }
+  const Quantity plain = parse_quantity("3.25");
+  CHECK(plain.plain);
+  CHECK(plain.si_value == 3.25);
+}
+
+TEST_CASE("parse_quantity rejects bad text with the reason and a suggestion", "[units]") {
+  try {
+    parse_quantity("1 Mhz");
+    FAIL("no error");
+  } catch (const InputError& e) {
+    CHECK(e.suggestion == "MHz");
+    CHECK_THAT(e.what(), Catch::Contains("'Mhz' is not known") && Catch::Contains("kHz") &&
+                             Catch::Contains("did you mean 'MHz'?"));
+  }
+  CHECK_THAT(message_of([] { parse_quantity("fast"); }), Catch::Contains("a number"));
+  CHECK_THAT(message_of([] { parse_quantity(""); }), Catch::Contains("a number"));
+  CHECK_THAT(message_of([] { parse_quantity("1 um^"); }), Catch::Contains("integer power"));
+  CHECK_THAT(message_of([] { parse_quantity("1 h*"); }), Catch::Contains("unit name"));
+  CHECK_THAT(message_of([] { parse_quantity("1 h+kHz"); }), Catch::Contains("'*' or '/'"));
+  CHECK_THAT(message_of([] { parse_quantity("nan MHz"); }), Catch::Contains("finite"));
+  CHECK_THAT(message_of([] { parse_quantity("inf"); }), Catch::Contains("finite"));
+}
+
+TEST_CASE("trap units of a 40 u ion at 1 MHz", "[units]") {
+  const double m = 40 * codata_u, omega = 2 * pi * 1e6;
+  const UnitSystem u = UnitSystem::for_trap(m, 1e6);
+  CHECK(close(u.length_m, std::sqrt(codata_hbar / (m * omega))));
+  CHECK(close(u.energy_J(), codata_h * 1e6));  // E0 = hbar omega = h * 1 MHz
+  CHECK(close(u.time_s(), 1 / omega));
+  // About 15.9 nm (from memory: the textbook scale of ion-trap ground states).
+  CHECK(u.length_m == Approx(15.9e-9).epsilon(0.01));
+
+  // 1 MHz is the angular frequency 1 in these units, and h*MHz the energy 1.
+  CHECK(close(u.to_internal(parse_quantity("1 MHz"), Dimension::frequency()), 1.0));
+  CHECK(close(u.to_internal(parse_quantity("1 h*MHz"), Dimension::energy()), 1.0));
+  CHECK(close(u.to_internal(parse_quantity("1 hbar*MHz"), Dimension::energy()), 1 / (2 * pi)));
+  CHECK(close(u.to_internal(parse_quantity("1 um"), Dimension::length()), 1e-6 / u.length_m));
+  CHECK(close(u.to_internal(parse_quantity("1 us"), Dimension::time()), omega * 1e-6));
+  // A temperature becomes kB T in energy units, whether given as T or as kB*T.
+  const double kT = codata_kB * 2e-6 / (codata_h * 1e6);
+  CHECK(close(u.to_internal(parse_quantity("2 uK"), Dimension::temperature()), kT));
+  CHECK(close(u.to_internal(parse_quantity("2 kB*uK"), Dimension::temperature()), kT));
+  // Energy per length^4: SI / (E0 / L0^4).
+  const double k4 = 2e-4 * codata_h / 1e-36;
+  CHECK(close(u.to_internal(parse_quantity("2e-4 h*Hz/nm^4"), Dimension::energy_per_length(4)),
+              k4 * std::pow(u.length_m, 4) / (codata_h * 1e6)));
+  // A plain number is already internal.
+  CHECK(u.to_internal(parse_quantity("0.25"), Dimension::energy()) == 0.25);
+  // to_si inverts to_internal; frequencies come back as ordinary (not angular) Hz.
+  CHECK(close(u.to_si(1.0, Dimension::frequency()), 1e6));
+  CHECK(close(u.to_si(u.to_internal(parse_quantity("3 nm"), Dimension::length()), Dimension::length()), 3e-9));
+}
+
+TEST_CASE("box units: L0 is the given length", "[units]") {
+  const UnitSystem u = UnitSystem::for_length(87 * codata_u, 2e-6);
+  CHECK(u.length_m == 2e-6);
+  CHECK(close(u.energy_J(), codata_hbar * codata_hbar / (87 * codata_u * 4e-12)));
+  CHECK(close(u.to_internal(parse_quantity("4 um"), Dimension::length()), 2.0));
+}
+
+TEST_CASE("a dimension mismatch names the key, the expected dimension and a fix", "[units]") {
+  const UnitSystem u = UnitSystem::for_trap(40 * codata_u, 1e6);
+  try {
+    u.to_internal(parse_quantity("1 mK"), Dimension::energy(), "tweezer.depth", "1 mK");
+    FAIL("no error");
+  } catch (const InputError& e) {
+    CHECK(e.key == "tweezer.depth");
+    CHECK(e.suggestion == "1 kB*mK");
+    CHECK_THAT(e.what(), Catch::StartsWith("tweezer.depth = 1 mK: an energy") &&
+                             Catch::Contains("not a temperature"));
+  }
+  try {
+    u.to_internal(parse_quantity("5 kHz"), Dimension::energy(), "bump.depth", "5 kHz");
+    FAIL("no error");
+  } catch (const InputError& e) {
+    CHECK(e.suggestion == "5 h*kHz");
+  }
+  CHECK_THAT(message_of([&] { u.to_internal(parse_quantity("1 um"), Dimension::frequency(), "trap.frequency"); }),
+             Catch::Contains("a frequency (e.g. \"1 MHz\")") && Catch::Contains("not a length"));
+  CHECK_THAT(message_of([&] {
+               u.to_internal(parse_quantity("1 h*kHz/um^3"), Dimension::energy_per_length(4), "trap.quartic");
+             }),
+             Catch::Contains("energy per length^4") && Catch::Contains("not an energy per length^3"));
+}
+
+TEST_CASE("display energy units", "[units]") {
+  const UnitSystem u = UnitSystem::for_trap(40 * codata_u, 1e6);
+  const double omega_ref = 1;
+  CHECK(close(energy_unit("h*kHz", u, omega_ref).internal_per_unit, 1e-3));
+  CHECK(close(energy_unit("h*MHz", u, omega_ref).internal_per_unit, 1.0));
+  CHECK(close(energy_unit("h*Hz", u, omega_ref).internal_per_unit, 1e-6));
+  CHECK(close(energy_unit("kB*uK", u, omega_ref).internal_per_unit, codata_kB * 1e-6 / (codata_h * 1e6)));
+  CHECK(close(energy_unit("kB*nK", u, omega_ref).internal_per_unit, codata_kB * 1e-9 / (codata_h * 1e6)));
+  CHECK(energy_unit("hbar*omega", u, 2.5).internal_per_unit == 2.5);
+  CHECK(energy_unit("natural", u, omega_ref).internal_per_unit == 1.0);
+  CHECK(energy_unit("kB*mK", u, omega_ref).name == "kB*mK");  // any other energy works too
+  CHECK_THAT(message_of([&] { energy_unit("hbar*omega", u, 0); }), Catch::Contains("reference frequency"));
+  try {
+    energy_unit("h*khz", u, omega_ref);
+    FAIL("no error");
+  } catch (const InputError& e) {
+    CHECK(e.suggestion == "h*kHz");
+    CHECK_THAT(e.what(), Catch::Contains("an energy unit"));
+  }
+  CHECK_THAT(message_of([&] { energy_unit("MHz", u, omega_ref); }), Catch::Contains("an energy unit"));
+}
+
+TEST_CASE("InputError text: file:line:column: key = found: expected (did you mean)", "[units][errors]") {
+  const InputError full("potential[1].frequency", "\"-1 MHz\"", "a frequency > 0", "", "trap.toml", 7, 13);
+  CHECK(std::string(full.what()) == "trap.toml:7:13: potential[1].frequency = \"-1 MHz\": a frequency > 0");
+  CHECK(full.line == 7);
+  CHECK(full.column == 13);
+  CHECK(full.file == "trap.toml");
+  const InputError suggested("potential[1].frequncy", "", "unknown key", "frequency", "t.toml", 3, 1);
+  CHECK(std::string(suggested.what()) == "t.toml:3:1: potential[1].frequncy: unknown key (did you mean 'frequency'?)");
+  CHECK(std::string(InputError("trap.depth", "1 mK", "an energy").what()) == "trap.depth = 1 mK: an energy");
+  CHECK(std::string(InputError("", "", "cannot open", "", "x.toml").what()) == "x.toml: cannot open");
+  CHECK(InputError::format("", 4, 2, "", "", "bad", "") == "line 4, column 2: bad");
+}
+
+TEST_CASE("edit distance and suggestions", "[units]") {
+  CHECK(edit_distance("frequncy", "frequency") == 1);
+  CHECK(edit_distance("kitten", "sitting") == 3);  // the classic example (common practice)
+  CHECK(edit_distance("", "abc") == 3);
+  CHECK(closest_name("frequncy", {"centre", "frequency", "quartic"}) == "frequency");
+  CHECK(closest_name("xyzzy", {"centre", "frequency"}).empty());  // nothing within 2 edits
+}
+
+TEST_CASE("dimensions describe themselves", "[units]") {
+  CHECK(Dimension::energy().describe() == "energy");
+  CHECK(Dimension::energy_per_length(4).describe() == "energy per length^4");
+  CHECK(Dimension{{1, 2, -1, 0}}.describe() == "kg^1 m^2 s^-1");
+  CHECK_THAT(expected_quantity(Dimension::length()), Catch::Contains("a length"));
+}
