@@ -148,7 +148,11 @@ Eigen::SparseMatrix<double> finite_difference_hamiltonian(const Grid& grid, cons
       for (int target : {j - d, j + d}) {
         if (target >= 0 && target < n) {
           entries.emplace_back(j, target, scale * w[d]);
-        } else if (odd_walls) {
+        } else if (!odd_walls) {
+          // Periodic grid: the stencil wraps around, like the Fourier operator it stands in for
+          // (so states that reach the grid's ends are treated alike by both).
+          entries.emplace_back(j, (target + n) % n, scale * w[d]);
+        } else {
           // Interior index j sits at distance j+1 from the left wall (index -1) and n-j from
           // the right one (index n); a ghost point mirrors to an interior one with a sign flip.
           const int mirrored = target < 0 ? -2 - target : 2 * n - target;

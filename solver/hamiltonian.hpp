@@ -38,7 +38,8 @@ void apply_hamiltonian(KineticOperator& kinetic, const std::vector<double>& v,
 Eigen::MatrixXd dense_hamiltonian(const Grid& grid, const std::vector<double>& v);
 
 // Central finite-difference Hamiltonian of order 2, 4, 6 or 8 (standard stencils, Fornberg
-// 1988 coefficients, common practice), with zero (Dirichlet) values outside the grid.
+// 1988 coefficients, common practice): periodic on a periodic grid; on a box grid the
+// wavefunction is continued oddly through each wall (psi = 0 there, as for the sine basis).
 // Throws PhysicsError for other orders.
 Eigen::SparseMatrix<double> finite_difference_hamiltonian(const Grid& grid,
                                                           const std::vector<double>& v, int order);

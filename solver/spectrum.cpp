@@ -481,22 +481,17 @@ SpectrumResult compute_spectrum(const Potential& potential, const SpectrumReques
     cutoff = std::max(cutoff, result.harmonic.v_min + 1.25 * std::pow((k + 1) * si::pi / l, 2) / 2);
   }
 
-  auto fixed_grid = [&]() -> std::optional<Grid> {
-    if (!request.points && !request.extent) return std::nullopt;
-    const double left = request.box ? request.box->first : request.extent ? request.extent->first : 0;
-    const double right = request.box ? request.box->second : request.extent ? request.extent->second : 0;
-    if (!request.box && !request.extent) return std::nullopt;
-    const Grid chosen = choose_grid(potential, cutoff, request, t);
-    const std::size_t points = request.points ? *request.points : chosen.size();
-    return request.box ? Grid::box(left, right, points) : Grid::periodic(left, right, points);
+  // What the request fixes stays fixed: a given extent (or box) keeps its walls, given points
+  // keep their number; the rest is chosen here and adapted below.
+  const bool auto_spacing = !request.points, auto_extent = !request.extent && !request.box;
+  auto make_grid = [&](double energy_max) {
+    Grid g = choose_grid(potential, energy_max, request, t);
+    if (request.extent) g = with_points(g, request.extent->first, request.extent->second, g.spacing());
+    if (request.points)
+      g = request.box ? Grid::box(g.left(), g.right(), *request.points) : Grid::periodic(g.left(), g.right(), *request.points);
+    return g;
   };
-  std::optional<Grid> grid = fixed_grid();
-  const bool automatic = !grid.has_value();
-  if (automatic && request.points) {  // points fixed, extent automatic
-    const Grid chosen = choose_grid(potential, cutoff, request, t);
-    grid = Grid::periodic(chosen.left(), chosen.right(), *request.points);
-  }
-  if (!grid) grid = choose_grid(potential, cutoff, request, t);
+  std::optional<Grid> grid = make_grid(cutoff);
 
   // Automatic grids are adapted: a higher cutoff when the top level lies above the one the
   // grid was made for, a wider grid while a bound state reaches its edge, a finer one while
@@ -508,16 +503,16 @@ SpectrumResult compute_spectrum(const Potential& potential, const SpectrumReques
     result.levels = analyse_levels(result.spectrum, result.harmonic, result.threshold);
     const Grid& g = result.spectrum.grid;
     const double top = result.spectrum.energies(k - 1);
-    if (automatic && !result.finite_depth && top > cutoff && raised < 3) {
+    if (auto_spacing && !result.finite_depth && top > cutoff && raised < 3) {
       ++raised;
       cutoff = result.harmonic.v_min + 1.25 * (top - result.harmonic.v_min);  // the WKB guess was low
-      grid = choose_grid(potential, cutoff, request, t);
+      grid = make_grid(cutoff);
       continue;
     }
     const bool touching = std::any_of(result.levels.begin(), result.levels.end(), [&](const Level& l) {
       return l.energy < result.threshold && l.edge_amplitude > request.edge_tolerance;
     });
-    if (automatic && !request.box && touching && widened < 3) {
+    if (auto_extent && auto_spacing && touching && widened < 3) {
       ++widened;
       // Widen the sides that are open (finite depth), or both for a confining trap.
       const bool left_open = s.v.front() <= result.threshold, right_open = s.v.back() <= result.threshold;
@@ -540,7 +535,7 @@ SpectrumResult compute_spectrum(const Potential& potential, const SpectrumReques
       result.convergence.energy_change.push_back(d);
       if (result.levels[j].energy < result.threshold) result.convergence.max_energy_change = std::max(result.convergence.max_energy_change, d);
     }
-    if (automatic && result.convergence.max_energy_change > request.energy_tolerance && refined < 4) {
+    if (auto_spacing && result.convergence.max_energy_change > request.energy_tolerance && refined < 4) {
       ++refined;
       grid = with_points(g, g.left(), g.right(), 0.7 * g.spacing());
       continue;

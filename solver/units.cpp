@@ -13,17 +13,21 @@ namespace trapwork {
 
 // ---- InputError -------------------------------------------------------------------------
 
-InputError::InputError(std::string key_, std::string found_, std::string expected_,
-                       std::string suggestion_, std::string file_, int line_, int column_)
+InputError::InputError(std::string key_, std::string found_, std::string expected_, std::string suggestion_,
+                       std::string file_, int line_, int column_)
     : std::runtime_error(format(file_, line_, column_, key_, found_, expected_, suggestion_)),
-      file(std::move(file_)), key(std::move(key_)), found(std::move(found_)),
-      expected(std::move(expected_)), suggestion(std::move(suggestion_)), line(line_),
+      file(std::move(file_)),
+      key(std::move(key_)),
+      found(std::move(found_)),
+      expected(std::move(expected_)),
+      suggestion(std::move(suggestion_)),
+      line(line_),
       column(column_) {}
 
 // "file:line:column: key = found: expected (did you mean 'x'?)"; empty parts are left out.
-std::string InputError::format(const std::string& file, int line, int column,
-                               const std::string& key, const std::string& found,
-                               const std::string& expected, const std::string& suggestion) {
+std::string InputError::format(const std::string& file, int line, int column, const std::string& key,
+                               const std::string& found, const std::string& expected,
+                               const std::string& suggestion) {
   std::string where = file;
   if (line > 0) {
     where += (where.empty() ? "line " : ":") + std::to_string(line);
@@ -90,17 +94,24 @@ const std::vector<NamedDimension>& named_dimensions() {
         {Dimension::temperature(), "temperature", "a temperature (e.g. \"2 uK\")"},
         {Dimension::energy(), "energy", "an energy (e.g. \"0.5 h*kHz\" or \"1 kB*uK\")"},
     };
-    static const char* per_length[] = {
-        "", "", "",
-        "an energy per length^3 (e.g. \"1e-3 h*kHz/um^3\")",
-        "an energy per length^4 (e.g. \"3e-4 h*kHz/um^4\")",
-        "an energy per length^5 (e.g. \"1e-5 h*kHz/um^5\")",
-        "an energy per length^6 (e.g. \"1e-6 h*kHz/um^6\")",
-        "an energy per length^7 (e.g. \"1e-7 h*kHz/um^7\")",
-        "an energy per length^8 (e.g. \"1e-8 h*kHz/um^8\")"};
-    static const char* per_length_name[] = {"", "", "", "energy per length^3",
-        "energy per length^4", "energy per length^5", "energy per length^6",
-        "energy per length^7", "energy per length^8"};
+    static const char* per_length[] = {"",
+                                       "",
+                                       "",
+                                       "an energy per length^3 (e.g. \"1e-3 h*kHz/um^3\")",
+                                       "an energy per length^4 (e.g. \"3e-4 h*kHz/um^4\")",
+                                       "an energy per length^5 (e.g. \"1e-5 h*kHz/um^5\")",
+                                       "an energy per length^6 (e.g. \"1e-6 h*kHz/um^6\")",
+                                       "an energy per length^7 (e.g. \"1e-7 h*kHz/um^7\")",
+                                       "an energy per length^8 (e.g. \"1e-8 h*kHz/um^8\")"};
+    static const char* per_length_name[] = {"",
+                                            "",
+                                            "",
+                                            "energy per length^3",
+                                            "energy per length^4",
+                                            "energy per length^5",
+                                            "energy per length^6",
+                                            "energy per length^7",
+                                            "energy per length^8"};
     for (int n = 3; n <= 8; ++n)
       t.push_back({Dimension::energy_per_length(n), per_length_name[n], per_length[n]});
     return t;
@@ -156,17 +167,41 @@ const std::vector<UnitAtom>& unit_atoms() {
                   F = Dimension::frequency(), K = Dimension::temperature(), E = Dimension::energy();
   const Dimension action{{1, 2, -1, 0}}, per_kelvin_energy{{1, 2, -2, -1}};
   static const std::vector<UnitAtom> atoms = {
-      {"u", si::atomic_mass, M}, {"Da", si::atomic_mass, M}, {"kg", 1, M}, {"g", 1e-3, M},
-      {"m", 1, L}, {"mm", 1e-3, L}, {"um", 1e-6, L}, {"nm", 1e-9, L}, {"pm", 1e-12, L},
-      {"s", 1, T}, {"ms", 1e-3, T}, {"us", 1e-6, T}, {"ns", 1e-9, T}, {"ps", 1e-12, T},
-      {"Hz", 1, F}, {"kHz", 1e3, F}, {"MHz", 1e6, F}, {"GHz", 1e9, F},
-      {"K", 1, K}, {"mK", 1e-3, K}, {"uK", 1e-6, K}, {"nK", 1e-9, K},
-      {"J", 1, E}, {"eV", electron_volt, E}, {"meV", 1e-3 * electron_volt, E},
-      {"h", si::planck_h, action}, {"hbar", si::hbar, action},
+      {"u", si::atomic_mass, M},
+      {"Da", si::atomic_mass, M},
+      {"kg", 1, M},
+      {"g", 1e-3, M},
+      {"m", 1, L},
+      {"mm", 1e-3, L},
+      {"um", 1e-6, L},
+      {"nm", 1e-9, L},
+      {"pm", 1e-12, L},
+      {"s", 1, T},
+      {"ms", 1e-3, T},
+      {"us", 1e-6, T},
+      {"ns", 1e-9, T},
+      {"ps", 1e-12, T},
+      {"Hz", 1, F},
+      {"kHz", 1e3, F},
+      {"MHz", 1e6, F},
+      {"GHz", 1e9, F},
+      {"K", 1, K},
+      {"mK", 1e-3, K},
+      {"uK", 1e-6, K},
+      {"nK", 1e-9, K},
+      {"J", 1, E},
+      {"eV", electron_volt, E},
+      {"meV", 1e-3 * electron_volt, E},
+      {"h", si::planck_h, action},
+      {"hbar", si::hbar, action},
       {"kB", si::boltzmann, per_kelvin_energy},
       // micro written with the micro sign (U+00B5) or the Greek mu (U+03BC)
-      {"\xC2\xB5m", 1e-6, L}, {"\xC2\xB5s", 1e-6, T}, {"\xC2\xB5K", 1e-6, K},
-      {"\xCE\xBCm", 1e-6, L}, {"\xCE\xBCs", 1e-6, T}, {"\xCE\xBCK", 1e-6, K},
+      {"\xC2\xB5m", 1e-6, L},
+      {"\xC2\xB5s", 1e-6, T},
+      {"\xC2\xB5K", 1e-6, K},
+      {"\xCE\xBCm", 1e-6, L},
+      {"\xCE\xBCs", 1e-6, T},
+      {"\xCE\xBCK", 1e-6, K},
   };
   return atoms;
 }
@@ -181,15 +216,18 @@ std::vector<std::string> ascii_unit_names() {
 std::string known_units_text() {
   std::string text;
   for (const auto& n : ascii_unit_names()) text += (text.empty() ? "" : ", ") + n;
-  return text + " (um, us, uK may be written with a micro sign), joined by * and / with "
-                "integer powers ^n";
+  return text +
+         " (um, us, uK may be written with a micro sign), joined by * and / with "
+         "integer powers ^n";
 }
 
 const char* const number_expected =
     "a number optionally followed by a unit, e.g. \"1.2 MHz\", \"0.5 h*kHz\", "
     "\"3e-4 h*kHz/um^4\"";
 
-bool is_space(char c) { return std::isspace(static_cast<unsigned char>(c)) != 0; }
+bool is_space(char c) {
+  return std::isspace(static_cast<unsigned char>(c)) != 0;
+}
 bool is_unit_char(char c) {
   return std::isalpha(static_cast<unsigned char>(c)) || static_cast<unsigned char>(c) >= 0x80;
 }
@@ -213,6 +251,9 @@ std::pair<std::string, std::string> split_number(const std::string& s, std::size
 
 }  // namespace
 
+// Grammar: number [unit {('*' | '/') unit}], unit = name ['^' integer], left to right
+// ("h*kHz/um^4" = h * kHz / um^4). Units multiply literally: "hbar*kHz" is hbar times
+// 10^3 s^-1 (an angular frequency of 10^3 rad/s), i.e. h*kHz / (2 pi).
 Quantity parse_quantity(std::string_view text_in) {
   const std::string s = trim(text_in);
   const std::string shown(text_in);
@@ -240,8 +281,8 @@ Quantity parse_quantity(std::string_view text_in) {
                        start < s.size() ? "a unit name at '" + s.substr(start) + "'; " + number_expected
                                         : std::string("a unit name after the last '*' or '/'"));
     const auto& atoms = unit_atoms();
-    const auto atom = std::find_if(atoms.begin(), atoms.end(),
-                                   [&](const UnitAtom& a) { return name == a.name; });
+    const auto atom =
+        std::find_if(atoms.begin(), atoms.end(), [&](const UnitAtom& a) { return name == a.name; });
     if (atom == atoms.end())
       throw InputError("", shown, "unit '" + name + "' is not known; known units: " + known_units_text(),
                        closest_name(name, ascii_unit_names()));
@@ -291,8 +332,7 @@ namespace {
 // internal value is angular, so one internal unit is 1/(2 pi T0) Hz.
 double internal_unit_in_si(const UnitSystem& u, const Dimension& d) {
   double unit = std::pow(u.mass_kg, d.power[0]) * std::pow(u.length_m, d.power[1]) *
-                std::pow(u.time_s(), d.power[2]) *
-                std::pow(u.energy_J() / si::boltzmann, d.power[3]);
+                std::pow(u.time_s(), d.power[2]) * std::pow(u.energy_J() / si::boltzmann, d.power[3]);
   if (d == Dimension::frequency()) unit /= 2 * si::pi;
   return unit;
 }
@@ -317,8 +357,8 @@ double UnitSystem::to_internal(const Quantity& q, Dimension expected, std::strin
   if (!(q.dimension == expected)) {
     const std::string found = text.empty() ? with_article(q.dimension) : std::string(text);
     std::string hint = expected == Dimension::energy() ? energy_hint(q, text) : std::string();
-    throw InputError(std::string(key), found, expected_quantity(expected) + ", not " + with_article(q.dimension),
-                     hint);
+    throw InputError(std::string(key), found,
+                     expected_quantity(expected) + ", not " + with_article(q.dimension), hint);
   }
   return q.si_value / internal_unit_in_si(*this, expected);
 }
@@ -331,7 +371,7 @@ double UnitSystem::to_si(double internal, Dimension d) const {
 
 EnergyUnit energy_unit(std::string_view name_in, const UnitSystem& units, double omega_ref) {
   const std::string name = trim(name_in);
-  static const std::vector<std::string> listed = {"h*kHz", "h*MHz", "h*Hz", "kB*uK",
+  static const std::vector<std::string> listed = {"h*kHz", "h*MHz",      "h*Hz",   "kB*uK",
                                                   "kB*nK", "hbar*omega", "natural"};
   const std::string expected =
       "an energy unit: h*kHz, h*MHz, h*Hz, kB*uK, kB*nK, hbar*omega (omega = the reference "
@@ -339,8 +379,9 @@ EnergyUnit energy_unit(std::string_view name_in, const UnitSystem& units, double
   if (name == "natural") return {name, 1.0};
   if (name == "hbar*omega") {
     if (!(omega_ref > 0))
-      throw InputError("", name, "a reference frequency for hbar*omega ([units] "
-                                 "reference_frequency or a harmonic or polynomial term)");
+      throw InputError("", name,
+                       "a reference frequency for hbar*omega ([units] "
+                       "reference_frequency or a harmonic or polynomial term)");
     return {name, omega_ref};  // hbar = 1: the energy hbar omega_ref is omega_ref internally
   }
   Quantity q;

@@ -243,7 +243,9 @@ struct Run {
   double norm_drift = 0, edge_amplitude = 0, max_phase = 0;
 };
 
-Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spectrum& final,
+// basis: the eigenbasis integrator's reference spectrum (of the same Hamiltonian as
+// `initial`, possibly with more levels); null for the split-operator integrators.
+Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spectrum& final, const Spectrum* basis,
                   const std::vector<double>& v_initial, int kept, int steps, const WorkRequest& request,
                   const OdeTolerances& ode, const std::function<void(double)>& progress) {
   const double tau = path.protocol().duration();
@@ -255,7 +257,8 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
       if (progress) progress(t / tau);
     };
     if (request.integrator == Integrator::eigenbasis) {
-      EigenbasisPropagator prop(path, initial, v_initial, ode);
+      TRAPWORK_EXPECT(basis != nullptr, "propagate_run: eigenbasis integrator without a basis");
+      EigenbasisPropagator prop(path, *basis, v_initial, ode);
       auto c = prop.coefficients(psi);
       propagate(prop, c, 0.0, tau, steps, observer);
       psi = prop.grid_states(c);
@@ -403,8 +406,16 @@ WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkR
 
   const auto forward_path = co_moving ? PotentialPath::co_moving(grid, base, protocol) : PotentialPath::lab(grid, base, protocol);
   const bool reverse = request.reverse_run && wa.gibbs;
+  const bool eigenbasis = request.integrator == Integrator::eigenbasis && tau > 0;
+  const int basis_levels = request.eigenbasis_levels > 0 ? request.eigenbasis_levels : 2 * levels;
+  auto basis_for = [&](const Grid& g, const std::vector<double>& v) {
+    SpectrumOptions options = base_options;
+    options.levels = std::min<int>(basis_levels, int(g.size()) / 2);
+    return spectrum_on(g, v, options, cutoff);
+  };
+  const Spectrum basis_a = eigenbasis ? basis_for(grid, v_a) : Spectrum{};
   const double share = reverse ? 0.4 : 0.6;
-  Run fwd = propagate_run(forward_path, sa, sb, v_a, kept_a, steps, request, request.ode, progress(0, share));
+  Run fwd = propagate_run(forward_path, sa, sb, &basis_a, v_a, kept_a, steps, request, request.ode, progress(0, share));
 
   result.initial_spectrum = sa;
   result.final_spectrum = sb;
@@ -420,7 +431,7 @@ WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkR
 
   if (request.time_step_check && tau > 0) {
     OdeTolerances tighter{request.ode.absolute / 100, request.ode.relative / 100};
-    Run half = propagate_run(forward_path, sa, sb, v_a, kept_a, 2 * steps, request, tighter, progress(share, 2 * share));
+    Run half = propagate_run(forward_path, sa, sb, &basis_a, v_a, kept_a, 2 * steps, request, tighter, progress(share, 2 * share));
     diag.time_step_error =
         (transition_matrix(half.amplitudes).probability - result.forward.transitions.probability).cwiseAbs().maxCoeff();
   }
@@ -438,7 +449,9 @@ WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkR
     const int kept_b = int(wb.weights.size());
     const auto path = co_moving ? PotentialPath::co_moving(grid_r, base, back) : PotentialPath::lab(grid_r, base, back);
     const double from = request.time_step_check ? 3 * share : share;
-    Run rev = propagate_run(path, rb, ra, samples(vb, x), kept_b, steps, request, request.ode, progress(from, 1));
+    const auto v_b = samples(vb, x);
+    const Spectrum basis_b = eigenbasis ? basis_for(grid_r, v_b) : Spectrum{};
+    Run rev = propagate_run(path, rb, ra, &basis_b, v_b, kept_b, steps, request, request.ode, progress(from, 1));
     result.reverse = WorkInput{transition_matrix(rev.amplitudes), rb.energies, ra.energies, wb.weights, rb.group, ra.group,
                                wa.beta};
     result.reverse_distribution = work_distribution(*result.reverse, request.merge_tolerance);

@@ -148,6 +148,8 @@ struct WorkRequest {
   double merge_tolerance = 1e-9;
   double unresolved_tolerance = 1e-8;  // warn above this
   OdeTolerances ode;                 // eigenbasis integrator
+  int eigenbasis_levels = 0;         // eigenbasis basis size; 0: twice the final levels (the
+                                     // final states of H_B need more levels of H_A than L)
   int threads = 1;                   // FFTW threads
   std::function<void(double fraction)> progress;  // optional, called with 0..1
 };

@@ -36,8 +36,8 @@ struct Run {
 
 // Runs trapwork with `arguments` (shell words) from `dir`, capturing stdout and stderr.
 Run run(const std::string& arguments, const fs::path& dir) {
-  const std::string command = "cd '" + dir.string() + "' && '" + binary.string() + "' " + arguments +
-                              " > stdout.txt 2> stderr.txt";
+  const std::string command =
+      "cd '" + dir.string() + "' && '" + binary.string() + "' " + arguments + " > stdout.txt 2> stderr.txt";
   const int status = std::system(command.c_str());
   REQUIRE(WIFEXITED(status));
   return {WEXITSTATUS(status), read_all(dir / "stdout.txt"), read_all(dir / "stderr.txt")};
@@ -50,7 +50,9 @@ std::vector<std::string> lines_of(const std::string& text) {
   return lines;
 }
 
-std::size_t fields(const std::string& line) { return 1 + std::count(line.begin(), line.end(), ','); }
+std::size_t fields(const std::string& line) {
+  return 1 + std::count(line.begin(), line.end(), ',');
+}
 
 // A CSV written by trapwork: names on line 1, then '#' comments, then rows of as many fields.
 // Returns the number of rows.
@@ -143,9 +145,9 @@ TEST_CASE("a bad scenario exits with 2 and names file, line and key", "[cli]") {
   CHECK_THAT(physics.err, Contains("trapwork: error:"));
   CHECK_FALSE(fs::exists(dir / "small-out" / "spectrum.csv"));
 
-  CHECK(run("spectrum --levels 0", dir).exit_code == 2);      // command-line value out of range
+  CHECK(run("spectrum --levels 0", dir).exit_code == 2);  // command-line value out of range
   CHECK(run("spectrum --no-such-option", dir).exit_code == 2);
-  CHECK(run("", dir).exit_code == 2);                         // no command
+  CHECK(run("", dir).exit_code == 2);  // no command
 }
 
 TEST_CASE("--help on the tool and on each command", "[cli]") {

@@ -19,7 +19,9 @@ constexpr double codata_u = 1.66053906660e-27;
 constexpr double pi = 3.14159265358979323846;
 // Products and quotients of a handful of doubles: a few roundings each (common practice).
 constexpr double eps8 = 8 * std::numeric_limits<double>::epsilon();
-bool close(double a, double b, double rel = eps8) { return std::abs(a - b) <= rel * std::abs(b); }
+bool close(double a, double b, double rel = eps8) {
+  return std::abs(a - b) <= rel * std::abs(b);
+}
 
 // 1-based line and column of the first occurrence of `needle` in `text`.
 std::pair<int, int> position_of(const std::string& text, const std::string& needle) {
@@ -96,7 +98,8 @@ TEST_CASE("the default scenario: a 40 u ion in a 1 MHz trap with a quartic term"
   CHECK(trap.shape() == Shape::polynomial);
   CHECK(close(trap.parameter("frequency"), 1.0));
   // quartic = 2e-4 h*Hz/nm^4 in units of E0 / L0^4, E0 = h * 1 MHz.
-  CHECK(close(trap.parameter("quartic"), 2e-4 * codata_h / 1e-36 * std::pow(s.units.length_m, 4) / (codata_h * 1e6)));
+  CHECK(close(trap.parameter("quartic"),
+              2e-4 * codata_h / 1e-36 * std::pow(s.units.length_m, 4) / (codata_h * 1e6)));
   CHECK(s.spectrum.options.levels == 20);
   CHECK(s.output_folder == "default-output");
   CHECK_FALSE(s.title.empty());
@@ -134,7 +137,8 @@ convergence_check = false
 search_half_width = "20 um"
 [output]
 folder = "somewhere"
-)", "dir/all_keys.toml");
+)",
+                                        "dir/all_keys.toml");
   const UnitSystem u = UnitSystem::for_trap(87 * codata_u, 1e4);
   CHECK(close(s.units.length_m, u.length_m));
   CHECK(close(s.omega_ref, 1.0));
@@ -185,7 +189,8 @@ right = "3 um"
 shape = "gaussian"
 depth = "-1 kB*nK"
 waist = "0.5 um"
-)", "box.toml");
+)",
+                                          "box.toml");
   CHECK(box.units.length_m == 2e-6);
   CHECK_FALSE(box.reference_frequency_Hz);
   CHECK(box.omega_ref == 0);
@@ -199,17 +204,20 @@ TEST_CASE("a misspelt key is an error with a suggestion and its position", "[sce
   check_error(replace(ion, "frequency =", "frequncy ="), "frequncy", "potential[1].frequncy", "unknown key",
               "frequency");
   check_error(ion + "[spectra]\nlevels = 3\n", "spectra", "spectra", "unknown key", "spectrum");
-  check_error(ion + "[spectrum]\nlevel = 3\n", "level =", "spectrum.level", "allowed in [spectrum]", "levels");
+  check_error(ion + "[spectrum]\nlevel = 3\n", "level =", "spectrum.level", "allowed in [spectrum]",
+              "levels");
   check_error(replace(ion, "\"harmonic\"", "\"gausian\""), "\"gausian\"", "potential[1].shape", "one of",
               "gaussian");
-  check_error(ion + "[spectrum]\nmethod = \"lancsoz\"\n", "\"lancsoz\"", "spectrum.method", "one of", "lanczos");
+  check_error(ion + "[spectrum]\nmethod = \"lancsoz\"\n", "\"lancsoz\"", "spectrum.method", "one of",
+              "lanczos");
 }
 
 TEST_CASE("bad units and dimensions point at the value", "[scenario]") {
   check_error(replace(ion, "\"1 MHz\"", "\"1 Mhz\""), "\"1 Mhz\"", "potential[1].frequency",
               "'Mhz' is not known", "MHz");
   const std::string poly = replace(ion, "\"harmonic\"", "\"polynomial\"");
-  check_error(poly + "quartic = \"3e-4 h*kHz/uum^4\"\n", "\"3e-4", "potential[1].quartic", "'uum' is not known", "um");
+  check_error(poly + "quartic = \"3e-4 h*kHz/uum^4\"\n", "\"3e-4", "potential[1].quartic",
+              "'uum' is not known", "um");
   check_error(poly + "quartic = \"3e-4 h*kHz/um^3\"\n", "\"3e-4", "potential[1].quartic",
               "an energy per length^4");
   check_error(ion + "centre = \"2 MHz\"\n", "\"2 MHz\"", "potential[1].centre", "a length");
@@ -220,12 +228,14 @@ TEST_CASE("bad units and dimensions point at the value", "[scenario]") {
 TEST_CASE("wrong types and out-of-range values are errors", "[scenario]") {
   check_error(replace(ion, "\"40 u\"", "40"), "40", "particle.mass", "with its unit");
   check_error(replace(ion, "\"40 u\"", "\"-40 u\""), "\"-40 u\"", "particle.mass", "a mass > 0");
-  check_error(replace(ion, "\"1 MHz\"", "\"-1 MHz\""), "\"-1 MHz\"", "potential[1].frequency", "a frequency > 0");
+  check_error(replace(ion, "\"1 MHz\"", "\"-1 MHz\""), "\"-1 MHz\"", "potential[1].frequency",
+              "a frequency > 0");
   check_error(replace(ion, "\"1 MHz\"", "true"), "true", "potential[1].frequency", "a frequency");
   check_error(ion + "[spectrum]\nlevels = \"20\"\n", "\"20\"", "spectrum.levels", "a whole number");
-  check_error(ion + "[spectrum]\nlevels = 0\n", "0", "spectrum.levels", "from 1");
+  check_error(ion + "[spectrum]\nlevels = 0\n", "0\n", "spectrum.levels", "from 1");
   check_error(ion + "[spectrum]\nfd_order = 5\n", "5", "spectrum.fd_order", "2, 4, 6 or 8");
-  check_error(ion + "[grid]\nconvergence_check = \"yes\"\n", "\"yes\"", "grid.convergence_check", "true or false");
+  check_error(ion + "[grid]\nconvergence_check = \"yes\"\n", "\"yes\"", "grid.convergence_check",
+              "true or false");
   check_error(ion + "[grid]\nleft = \"2 um\"\nright = \"1 um\"\n", "\"1 um\"", "grid.right", "larger than");
   check_error(ion + "[box]\nleft = \"-1 um\"\nright = \"1 um\"\n[grid]\nleft = \"-2 um\"\nright = \"2 um\"\n",
               "\"-2 um\"", "grid.left", "[box]");
@@ -251,12 +261,14 @@ TEST_CASE("TOML syntax errors and missing sections", "[scenario]") {
   CHECK_THAT(error_of("[[potential]]\nshape = \"harmonic\"\nfrequency = \"1 MHz\"\n").what(),
              Catch::Contains("particle.mass"));
   CHECK_THAT(error_of("[particle]\nmass = \"1 u\"\n").what(), Catch::Contains("[[potential]]"));
-  CHECK_THAT(error_of(replace(ion, "shape = \"harmonic\"\n", "")).what(), Catch::Contains("potential[1].shape"));
+  CHECK_THAT(error_of(replace(ion, "shape = \"harmonic\"\n", "")).what(),
+             Catch::Contains("potential[1].shape"));
 }
 
 TEST_CASE("library errors are re-thrown at the scenario's key", "[scenario]") {
   // A duplicate term name is found by Potential::add: the error points at the second name.
-  const std::string twice = ion + "[[potential]]\nname = \"trap\"\nshape = \"harmonic\"\nfrequency = \"2 MHz\"\n";
+  const std::string twice =
+      ion + "[[potential]]\nname = \"trap\"\nshape = \"harmonic\"\nfrequency = \"2 MHz\"\n";
   const InputError dup = error_of(twice);
   CHECK(dup.key == "potential[2].name");
   CHECK(dup.line == position_of(twice, "name = \"trap\"\nshape = \"harmonic\"\nfrequency = \"2").first);
@@ -297,11 +309,13 @@ energy_unit = "h*kHz"
 centre = "0.1 um"
 [potential.parameters]
 k = 2.5
-)", "formula.toml");
+)",
+                                        "formula.toml");
   const UnitSystem& u = s.units;
   const double m = u.mass_kg, k_si = 2.5 * codata_h * 1e3 / 1e-12;
   const double omega_si = std::sqrt(k_si / m);
-  const Term harmonic("h", Shape::harmonic, {{"frequency", omega_si * u.time_s()}, {"centre", 0.1e-6 / u.length_m}});
+  const Term harmonic("h", Shape::harmonic,
+                      {{"frequency", omega_si * u.time_s()}, {"centre", 0.1e-6 / u.length_m}});
   const Term& written = s.potential.terms()[0];
   for (double x_um : {-0.3, -0.05, 0.0, 0.15, 0.25, 0.7}) {
     const double x = x_um * 1e-6 / u.length_m;
@@ -332,7 +346,7 @@ energy_unit = "kB*uK"
   const Scenario s = read_scenario(scenario.string());
   const Term& t = s.potential.terms()[0];
   const double per_uK = 1e-6 * codata_kB / s.units.energy_J();
-  CHECK(close(t.value(0.0), 0.0, 0) );
+  CHECK(close(t.value(0.0), 0.0, 0));
   CHECK(close(t.value(1.0), 4.0 * per_uK));  // L0 = 1 um: the row x = 1 um is x = 1 inside
   CHECK(close(t.value(-1.0), 1.0 * per_uK));
 

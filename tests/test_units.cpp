@@ -23,7 +23,9 @@ constexpr double codata_hbar = codata_h / (2 * pi);
 // roundings (common practice for products of a handful of doubles).
 constexpr double eps8 = 8 * std::numeric_limits<double>::epsilon();
 
-bool close(double a, double b, double rel = eps8) { return std::abs(a - b) <= rel * std::abs(b); }
+bool close(double a, double b, double rel = eps8) {
+  return std::abs(a - b) <= rel * std::abs(b);
+}
 
 std::string message_of(const std::function<void()>& f) {
   try {
@@ -114,7 +116,8 @@ TEST_CASE("trap units of a 40 u ion at 1 MHz", "[units]") {
   CHECK(u.to_internal(parse_quantity("0.25"), Dimension::energy()) == 0.25);
   // to_si inverts to_internal; frequencies come back as ordinary (not angular) Hz.
   CHECK(close(u.to_si(1.0, Dimension::frequency()), 1e6));
-  CHECK(close(u.to_si(u.to_internal(parse_quantity("3 nm"), Dimension::length()), Dimension::length()), 3e-9));
+  CHECK(
+      close(u.to_si(u.to_internal(parse_quantity("3 nm"), Dimension::length()), Dimension::length()), 3e-9));
 }
 
 TEST_CASE("box units: L0 is the given length", "[units]") {
@@ -132,8 +135,8 @@ TEST_CASE("a dimension mismatch names the key, the expected dimension and a fix"
   } catch (const InputError& e) {
     CHECK(e.key == "tweezer.depth");
     CHECK(e.suggestion == "1 kB*mK");
-    CHECK_THAT(e.what(), Catch::StartsWith("tweezer.depth = 1 mK: an energy") &&
-                             Catch::Contains("not a temperature"));
+    CHECK_THAT(e.what(),
+               Catch::StartsWith("tweezer.depth = 1 mK: an energy") && Catch::Contains("not a temperature"));
   }
   try {
     u.to_internal(parse_quantity("5 kHz"), Dimension::energy(), "bump.depth", "5 kHz");
@@ -141,8 +144,9 @@ TEST_CASE("a dimension mismatch names the key, the expected dimension and a fix"
   } catch (const InputError& e) {
     CHECK(e.suggestion == "5 h*kHz");
   }
-  CHECK_THAT(message_of([&] { u.to_internal(parse_quantity("1 um"), Dimension::frequency(), "trap.frequency"); }),
-             Catch::Contains("a frequency (e.g. \"1 MHz\")") && Catch::Contains("not a length"));
+  CHECK_THAT(
+      message_of([&] { u.to_internal(parse_quantity("1 um"), Dimension::frequency(), "trap.frequency"); }),
+      Catch::Contains("a frequency (e.g. \"1 MHz\")") && Catch::Contains("not a length"));
   CHECK_THAT(message_of([&] {
                u.to_internal(parse_quantity("1 h*kHz/um^3"), Dimension::energy_per_length(4), "trap.quartic");
              }),
@@ -178,7 +182,8 @@ TEST_CASE("InputError text: file:line:column: key = found: expected (did you mea
   CHECK(full.column == 13);
   CHECK(full.file == "trap.toml");
   const InputError suggested("potential[1].frequncy", "", "unknown key", "frequency", "t.toml", 3, 1);
-  CHECK(std::string(suggested.what()) == "t.toml:3:1: potential[1].frequncy: unknown key (did you mean 'frequency'?)");
+  CHECK(std::string(suggested.what()) ==
+        "t.toml:3:1: potential[1].frequncy: unknown key (did you mean 'frequency'?)");
   CHECK(std::string(InputError("trap.depth", "1 mK", "an energy").what()) == "trap.depth = 1 mK: an energy");
   CHECK(std::string(InputError("", "", "cannot open", "", "x.toml").what()) == "x.toml: cannot open");
   CHECK(InputError::format("", 4, 2, "", "", "bad", "") == "line 4, column 2: bad");

@@ -36,8 +36,9 @@ Scenario load_scenario(const std::string& name) {
 void add_spectrum_command(CLI::App& app) {
   auto command = std::make_shared<SpectrumCommand>();
   CLI::App* sub = app.add_subcommand(
-      "spectrum", "Lowest energy levels and eigenstates of a scenario's potential; writes spectrum.csv, "
-                  "states.csv and summary.json");
+      "spectrum",
+      "Lowest energy levels and eigenstates of a scenario's potential; writes spectrum.csv, "
+      "states.csv and summary.json");
   sub->add_option("scenario", command->scenario,
                   "scenario file (TOML); \"default\" or nothing: the built-in 40 u ion scenario");
   sub->add_option("-o,--output", command->output, "output folder (overrides [output] folder)");
@@ -51,7 +52,12 @@ void run_spectrum(const SpectrumCommand& command, std::ostream& out) {
   Scenario scenario = load_scenario(command.scenario);
   if (!command.output.empty()) scenario.output_folder = command.output;
   if (command.levels) scenario.spectrum.options.levels = *command.levels;
-  const SpectrumResult result = compute_spectrum(scenario.potential, scenario.spectrum);
+  SpectrumResult result;
+  try {
+    result = compute_spectrum(scenario.potential, scenario.spectrum);
+  } catch (const PhysicsError& e) {
+    throw PhysicsError(scenario.file + ": " + e.what());  // say which scenario cannot be used
+  }
   const auto files = write_spectrum_outputs(scenario.output_folder, scenario, result);
   if (command.quiet) return;
   print_spectrum_report(out, scenario, result);

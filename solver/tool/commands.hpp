@@ -21,10 +21,10 @@ Scenario load_scenario(const std::string& name);
 
 // trapwork spectrum [SCENARIO] [-o DIR] [--levels N] [--quiet]
 struct SpectrumCommand {
-  std::string scenario;          // file, or "default"/"" for the built-in scenario
-  std::string output;            // overrides [output] folder when not empty
-  std::optional<int> levels;     // overrides [spectrum] levels
-  bool quiet = false;            // print nothing but errors
+  std::string scenario;       // file, or "default"/"" for the built-in scenario
+  std::string output;         // overrides [output] folder when not empty
+  std::optional<int> levels;  // overrides [spectrum] levels
+  bool quiet = false;         // print nothing but errors
 };
 void add_spectrum_command(CLI::App& app);
 void run_spectrum(const SpectrumCommand& command, std::ostream& out);

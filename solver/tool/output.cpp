@@ -61,8 +61,10 @@ std::string column_unit(const std::string& unit) {
   std::string name;
   for (char c : unit) {
     const bool keep = std::isalnum(static_cast<unsigned char>(c));
-    if (keep) name += c;
-    else if (!name.empty() && name.back() != '_') name += '_';
+    if (keep)
+      name += c;
+    else if (!name.empty() && name.back() != '_')
+      name += '_';
   }
   while (!name.empty() && name.back() == '_') name.pop_back();
   return name;
@@ -70,7 +72,9 @@ std::string column_unit(const std::string& unit) {
 
 namespace {
 
-double nan() { return std::numeric_limits<double>::quiet_NaN(); }
+double nan() {
+  return std::numeric_limits<double>::quiet_NaN();
+}
 
 struct Display {
   double energy_per;  // internal energy of one display unit
@@ -106,7 +110,9 @@ std::string si_unit(const Dimension& d) {
   return d.describe();
 }
 
-double rms_width(const Level& l) { return std::sqrt(std::max(0.0, l.mean_x2 - l.mean_x * l.mean_x)); }
+double rms_width(const Level& l) {
+  return std::sqrt(std::max(0.0, l.mean_x2 - l.mean_x * l.mean_x));
+}
 
 double convergence_of(const SpectrumResult& r, std::size_t n) {
   const auto& c = r.convergence;
@@ -124,7 +130,8 @@ nlohmann::ordered_json grid_json(const Grid& g, const Display& d) {
 std::string grid_text(const Grid& g, const Display& d) {
   return std::string(g.boundary() == Boundary::periodic ? "periodic (Fourier)" : "hard walls (sine basis)") +
          ", " + std::to_string(g.size()) + " points on [" + short_number(d.length(g.left())) + ", " +
-         short_number(d.length(g.right())) + "] um, spacing " + short_number(d.length(g.spacing()) * 1e3) + " nm";
+         short_number(d.length(g.right())) + "] um, spacing " + short_number(d.length(g.spacing()) * 1e3) +
+         " nm";
 }
 
 }  // namespace
@@ -133,14 +140,31 @@ CsvTable spectrum_table(const Scenario& scenario, const SpectrumResult& result) 
   const Display d = display(scenario);
   CsvTable t;
   auto& c = t.columns;
-  c = {{"level", {}}, {"energy" + d.e_col, {}}, {"energy_internal", {}}, {"spacing" + d.e_col, {}},
-       {"mean_x_um", {}}, {"rms_width_um", {}}, {"harmonic_shift" + d.e_col, {}}, {"bound", {}},
-       {"group", {}}, {"residual" + d.e_col, {}}, {"edge_amplitude", {}}, {"convergence" + d.e_col, {}}};
+  c = {{"level", {}},
+       {"energy" + d.e_col, {}},
+       {"energy_internal", {}},
+       {"spacing" + d.e_col, {}},
+       {"mean_x_um", {}},
+       {"rms_width_um", {}},
+       {"harmonic_shift" + d.e_col, {}},
+       {"bound", {}},
+       {"group", {}},
+       {"residual" + d.e_col, {}},
+       {"edge_amplitude", {}},
+       {"convergence" + d.e_col, {}}};
   for (std::size_t n = 0; n < result.levels.size(); ++n) {
     const Level& l = result.levels[n];
-    const double row[] = {double(n), d.energy(l.energy), l.energy, d.energy(l.spacing),
-                          d.length(l.mean_x), d.length(rms_width(l)), d.energy(l.harmonic_shift),
-                          l.bound ? 1.0 : 0.0, double(l.group), d.energy(l.residual), l.edge_amplitude,
+    const double row[] = {double(n),
+                          d.energy(l.energy),
+                          l.energy,
+                          d.energy(l.spacing),
+                          d.length(l.mean_x),
+                          d.length(rms_width(l)),
+                          d.energy(l.harmonic_shift),
+                          l.bound ? 1.0 : 0.0,
+                          double(l.group),
+                          d.energy(l.residual),
+                          l.edge_amplitude,
                           d.energy(convergence_of(result, n))};
     for (std::size_t k = 0; k < c.size(); ++k) c[k].values.push_back(row[k]);
   }
@@ -150,7 +174,8 @@ CsvTable spectrum_table(const Scenario& scenario, const SpectrumResult& result) 
       "energies in " + d.e + " (one " + d.e + " = " + number_text(d.energy_per) +
           " internal units); energy_internal in hbar^2/(m L0^2) with L0 = " +
           number_text(scenario.units.length_m) + " m; lengths in um",
-      "spacing: E(n+1) - E(n), nan for the last level; harmonic_shift: E(n) - (V_min + hbar omega_h (n + 1/2)) "
+      "spacing: E(n+1) - E(n), nan for the last level; harmonic_shift: E(n) - (V_min + hbar omega_h (n + "
+      "1/2)) "
       "with the harmonic approximation at the minimum (nan where it has no curvature)",
       "rms_width: sqrt(<x^2> - <x>^2); bound: 1 below the potential's lower asymptote; group: index of the "
       "group of levels closer than the degeneracy tolerance",
@@ -199,25 +224,35 @@ nlohmann::ordered_json spectrum_summary(const Scenario& scenario, const Spectrum
                             {"internal", p.internal}};
     json settings = json::object();
     for (const auto& [k, v] : term.settings) settings[k] = v;
-    terms.push_back({{"name", term.name}, {"shape", term.shape}, {"parameters", parameters}, {"settings", settings}});
+    terms.push_back(
+        {{"name", term.name}, {"shape", term.shape}, {"parameters", parameters}, {"settings", settings}});
   }
   json levels = json::array();
   for (std::size_t n = 0; n < result.levels.size(); ++n) {
     const Level& l = result.levels[n];
-    levels.push_back({{"level", n}, {"energy", d.energy(l.energy)}, {"energy_internal", l.energy},
-                      {"spacing", d.energy(l.spacing)}, {"mean_x", d.length(l.mean_x)},
-                      {"rms_width", d.length(rms_width(l))}, {"harmonic_shift", d.energy(l.harmonic_shift)},
-                      {"bound", l.bound}, {"group", l.group}, {"residual", d.energy(l.residual)},
-                      {"edge_amplitude", l.edge_amplitude}, {"convergence", d.energy(convergence_of(result, n))}});
+    levels.push_back({{"level", n},
+                      {"energy", d.energy(l.energy)},
+                      {"energy_internal", l.energy},
+                      {"spacing", d.energy(l.spacing)},
+                      {"mean_x", d.length(l.mean_x)},
+                      {"rms_width", d.length(rms_width(l))},
+                      {"harmonic_shift", d.energy(l.harmonic_shift)},
+                      {"bound", l.bound},
+                      {"group", l.group},
+                      {"residual", d.energy(l.residual)},
+                      {"edge_amplitude", l.edge_amplitude},
+                      {"convergence", d.energy(convergence_of(result, n))}});
   }
   const auto& c = result.convergence;
   const auto& h = result.harmonic;
   json box = nullptr;
   if (scenario.spectrum.box)
-    box = {{"left", d.length(scenario.spectrum.box->first)}, {"right", d.length(scenario.spectrum.box->second)}};
+    box = {{"left", d.length(scenario.spectrum.box->first)},
+           {"right", d.length(scenario.spectrum.box->second)}};
   return {
       {"command", "trapwork spectrum"},
-      {"scenario", {{"file", scenario.file}, {"title", scenario.title}, {"description", scenario.description}}},
+      {"scenario",
+       {{"file", scenario.file}, {"title", scenario.title}, {"description", scenario.description}}},
       {"units",
        {{"energy", d.e},
         {"energy_J", d.energy_per * u.energy_J()},
@@ -229,7 +264,8 @@ nlohmann::ordered_json spectrum_summary(const Scenario& scenario, const Spectrum
           {"length_m", u.length_m},
           {"energy_J", u.energy_J()},
           {"time_s", u.time_s()},
-          {"reference_frequency_Hz", scenario.reference_frequency_Hz ? json(*scenario.reference_frequency_Hz) : json(nullptr)},
+          {"reference_frequency_Hz",
+           scenario.reference_frequency_Hz ? json(*scenario.reference_frequency_Hz) : json(nullptr)},
           {"omega_ref", scenario.omega_ref}}}}},
       {"potential", terms},
       {"box", box},
@@ -260,7 +296,8 @@ nlohmann::ordered_json spectrum_summary(const Scenario& scenario, const Spectrum
 std::vector<fs::path> write_spectrum_outputs(const fs::path& folder, const Scenario& scenario,
                                              const SpectrumResult& result) {
   fs::create_directories(folder);
-  const std::vector<fs::path> files = {folder / "spectrum.csv", folder / "states.csv", folder / "summary.json"};
+  const std::vector<fs::path> files = {folder / "spectrum.csv", folder / "states.csv",
+                                       folder / "summary.json"};
   // Everything is assembled before the first file is opened.
   const CsvTable spectrum = spectrum_table(scenario, result);
   const CsvTable states = states_table(scenario, result);
@@ -282,10 +319,11 @@ void print_spectrum_report(std::ostream& out, const Scenario& scenario, const Sp
   };
   out << "trapwork spectrum: " << (scenario.title.empty() ? scenario.file : scenario.title) << '\n';
   row("scenario", scenario.file);
-  row("particle", "mass " + short_number(u.mass_kg / si::atomic_mass) + " u (" + short_number(u.mass_kg) + " kg)");
+  row("particle",
+      "mass " + short_number(u.mass_kg / si::atomic_mass) + " u (" + short_number(u.mass_kg) + " kg)");
   row("units", "L0 = " + short_number(u.length_m * 1e9) + " nm, E0 = h*" +
-                   short_number(u.energy_J() / si::planck_h / 1e3) + " kHz, T0 = " +
-                   short_number(u.time_s() * 1e6) + " us; energies shown in " + d.e);
+                   short_number(u.energy_J() / si::planck_h / 1e3) +
+                   " kHz, T0 = " + short_number(u.time_s() * 1e6) + " us; energies shown in " + d.e);
   for (const auto& term : scenario.terms) {
     std::string text = term.name + ": " + term.shape;
     for (const auto& p : term.parameters) text += ", " + p.name + " = " + p.given;
@@ -296,9 +334,10 @@ void print_spectrum_report(std::ostream& out, const Scenario& scenario, const Sp
     row("box", "hard walls at " + short_number(d.length(scenario.spectrum.box->first)) + " um and " +
                    short_number(d.length(scenario.spectrum.box->second)) + " um");
   row("grid", grid_text(s.grid, d));
-  row("method", s.method + ", " + std::to_string(s.iterations) + " iterations, " + std::to_string(s.converged) +
-                    " of " + std::to_string(s.energies.size()) + " levels converged (residual below " +
-                    short_number(d.energy(scenario.spectrum.options.residual_tolerance), 3) + " " + d.e + ")");
+  row("method",
+      s.method + ", " + std::to_string(s.iterations) + " iterations, " + std::to_string(s.converged) +
+          " of " + std::to_string(s.energies.size()) + " levels converged (residual below " +
+          short_number(d.energy(scenario.spectrum.options.residual_tolerance), 3) + " " + d.e + ")");
   const auto& c = result.convergence;
   row("convergence", c.done ? "finer grid of " + std::to_string(c.finer.size()) + " points: max |dE| = " +
                                   short_number(d.energy(c.max_energy_change), 3) + " " + d.e
@@ -320,12 +359,13 @@ void print_spectrum_report(std::ostream& out, const Scenario& scenario, const Sp
   const double e0 = result.levels.empty() ? 0 : result.levels.front().energy;
   for (std::size_t n = 0; n < result.levels.size(); ++n) {
     const Level& l = result.levels[n];
-    std::snprintf(line, sizeof line, "%4zu %18s %16s %14s %14s %11s %11s %5s %9s%s\n", n,
-                  short_number(d.energy(l.energy), 12).c_str(), short_number(d.energy(l.energy - e0), 10).c_str(),
-                  short_number(d.energy(l.spacing), 8).c_str(), short_number(d.energy(l.harmonic_shift), 6).c_str(),
-                  short_number(d.length(l.mean_x), 4).c_str(), short_number(d.length(rms_width(l)), 4).c_str(),
-                  l.bound ? "yes" : "no", short_number(d.energy(l.residual), 2).c_str(),
-                  (n > 0 && result.levels[n - 1].group == l.group) ? "  (degenerate with n-1)" : "");
+    std::snprintf(
+        line, sizeof line, "%4zu %18s %16s %14s %14s %11s %11s %5s %9s%s\n", n,
+        short_number(d.energy(l.energy), 12).c_str(), short_number(d.energy(l.energy - e0), 10).c_str(),
+        short_number(d.energy(l.spacing), 8).c_str(), short_number(d.energy(l.harmonic_shift), 6).c_str(),
+        short_number(d.length(l.mean_x), 4).c_str(), short_number(d.length(rms_width(l)), 4).c_str(),
+        l.bound ? "yes" : "no", short_number(d.energy(l.residual), 2).c_str(),
+        (n > 0 && result.levels[n - 1].group == l.group) ? "  (degenerate with n-1)" : "");
     out << line;
   }
   if (!result.warnings.empty()) {

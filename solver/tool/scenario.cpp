@@ -17,8 +17,8 @@ namespace {
 
 namespace fs = std::filesystem;
 
-const std::vector<std::string> top_level_keys = {"title", "description", "particle", "units",
-                                                 "potential", "box", "spectrum", "grid", "output"};
+const std::vector<std::string> top_level_keys = {"title", "description", "particle", "units", "potential",
+                                                 "box",   "spectrum",    "grid",     "output"};
 
 // Dimension of each named shape parameter (potentials/potential.hpp).
 Dimension parameter_dimension(std::string_view p) {
@@ -45,8 +45,10 @@ std::string found_text(const toml::node& n) {
   if (const auto* i = n.as_integer()) return std::to_string(i->get());
   if (const auto* b = n.as_boolean()) return b->get() ? "true" : "false";
   std::ostringstream os;
-  if (const auto* f = n.as_floating_point()) os << *f;
-  else os << "a date or time";
+  if (const auto* f = n.as_floating_point())
+    os << *f;
+  else
+    os << "a date or time";
   return os.str();
 }
 
@@ -74,9 +76,8 @@ class Reader {
   UnitSystem units_;
   double omega_ref_ = 0;
 
-  [[noreturn]] void fail(const toml::source_region& where, const std::string& key,
-                         const std::string& found, const std::string& expected,
-                         const std::string& suggestion = {}) const {
+  [[noreturn]] void fail(const toml::source_region& where, const std::string& key, const std::string& found,
+                         const std::string& expected, const std::string& suggestion = {}) const {
     throw InputError(key, found, expected, suggestion, file_, static_cast<int>(where.begin.line),
                      static_cast<int>(where.begin.column));
   }
@@ -93,8 +94,8 @@ class Reader {
       std::string list;
       for (const auto& a : allowed) list += (list.empty() ? "" : ", ") + a;
       fail(k.source(), prefix.empty() ? key : prefix + "." + key, "",
-           "unknown key; allowed " + (prefix.empty() ? std::string("at the top level") : "in [" + prefix + "]") +
-               ": " + list,
+           "unknown key; allowed " +
+               (prefix.empty() ? std::string("at the top level") : "in [" + prefix + "]") + ": " + list,
            closest_name(key, allowed));
     }
   }
@@ -114,9 +115,8 @@ class Reader {
     return n->as_string()->get();
   }
 
-  std::optional<std::int64_t> integer(const toml::table& t, std::string_view key,
-                                      const std::string& dotted, std::int64_t min,
-                                      std::int64_t max) const {
+  std::optional<std::int64_t> integer(const toml::table& t, std::string_view key, const std::string& dotted,
+                                      std::int64_t min, std::int64_t max) const {
     const toml::node* n = t.get(key);
     if (!n) return std::nullopt;
     if (!n->is_integer()) fail(*n, dotted, "a whole number without quotes (e.g. 20)");
@@ -142,7 +142,8 @@ class Reader {
       return {v, {}, true};
     }
     if (!n.is_string())
-      fail(n, dotted, expected_quantity(d) + " as a string with its unit, or a plain number in internal units");
+      fail(n, dotted,
+           expected_quantity(d) + " as a string with its unit, or a plain number in internal units");
     try {
       return parse_quantity(n.as_string()->get());
     } catch (const InputError& e) {
@@ -151,14 +152,13 @@ class Reader {
   }
 
   // An SI value that must carry a unit (mass, and what sets the unit system).
-  std::optional<Read> si(const toml::table& t, std::string_view key, const std::string& dotted,
-                         Dimension d, const std::string& why) const {
+  std::optional<Read> si(const toml::table& t, std::string_view key, const std::string& dotted, Dimension d,
+                         const std::string& why) const {
     const toml::node* n = t.get(key);
     if (!n) return std::nullopt;
     const Quantity q = quantity(*n, dotted, d);
     if (q.plain) fail(*n, dotted, expected_quantity(d) + " with its unit: " + why);
-    if (!(q.dimension == d))
-      fail(*n, dotted, expected_quantity(d) + ", not " + with_article(q.dimension));
+    if (!(q.dimension == d)) fail(*n, dotted, expected_quantity(d) + ", not " + with_article(q.dimension));
     return Read{q.si_value, n->as_string()->get(), n};
   }
 
@@ -205,8 +205,8 @@ class Reader {
 
   void read_units(const toml::table& root, Scenario& s);
   void read_term(const toml::table& t, int index, Scenario& s);
-  PotentialTable read_table_file(const toml::node& file_node, const std::string& dotted,
-                                 double x_per_unit, double v_per_unit) const;
+  PotentialTable read_table_file(const toml::node& file_node, const std::string& dotted, double x_per_unit,
+                                 double v_per_unit) const;
   void read_box_and_grid(const toml::table& root, Scenario& s);
   void read_spectrum(const toml::table& root, Scenario& s);
 };
@@ -214,7 +214,8 @@ class Reader {
 void Reader::read_units(const toml::table& root, Scenario& s) {
   const toml::table* particle = table(root, "particle");
   if (!particle)
-    throw InputError("particle.mass", "", "a [particle] table with the mass, e.g. mass = \"40 u\"", "", file_);
+    throw InputError("particle.mass", "", "a [particle] table with the mass, e.g. mass = \"40 u\"", "",
+                     file_);
   check_keys(*particle, "particle", {"mass"});
   const auto mass = si(*particle, "mass", "particle.mass", Dimension::mass(), "internal units have m = 1");
   if (!mass) fail(particle->source(), "particle.mass", "", "a mass, e.g. mass = \"40 u\"");
@@ -298,8 +299,10 @@ PotentialTable Reader::read_table_file(const toml::node& file_node, const std::s
       std::string field = text.substr(pos, end - pos);
       const std::size_t b = field.find_first_not_of(" \t\r");
       const std::size_t e = field.find_last_not_of(" \t\r");
-      if (b != std::string::npos) fields.emplace_back(field.substr(b, e - b + 1), int(pos + b + 1));
-      else if (commas) fields.emplace_back("", int(pos + 1));
+      if (b != std::string::npos)
+        fields.emplace_back(field.substr(b, e - b + 1), int(pos + b + 1));
+      else if (commas)
+        fields.emplace_back("", int(pos + 1));
       pos = end + 1;
     }
     const std::string row = text.substr(0, text.find_last_not_of(" \t\r") + 1);
@@ -343,8 +346,10 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
     fail(*t.get("name"), prefix + ".name",
          "a name of letters, digits and '_', starting with a letter (it is used as name.parameter)");
   const toml::node* shape_node = t.get("shape");
-  if (!shape_node) fail(t.source(), prefix + ".shape", "", "a shape: harmonic, polynomial, gaussian, "
-                        "double_well, morse, poschl_teller, square_well, table or formula");
+  if (!shape_node)
+    fail(t.source(), prefix + ".shape", "",
+         "a shape: harmonic, polynomial, gaussian, "
+         "double_well, morse, poschl_teller, square_well, table or formula");
   std::vector<std::string> shape_names;
   for (Shape sh : {Shape::harmonic, Shape::polynomial, Shape::gaussian, Shape::double_well, Shape::morse,
                    Shape::poschl_teller, Shape::square_well, Shape::table, Shape::formula})
@@ -388,8 +393,7 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
   auto setting = [&](std::string_view key, bool required) -> const toml::node* {
     const toml::node* n = t.get(key);
     if (!n && required)
-      fail(t.source(), prefix + "." + std::string(key), "",
-           "required for shape = \"" + shape_text + "\"");
+      fail(t.source(), prefix + "." + std::string(key), "", "required for shape = \"" + shape_text + "\"");
     if (n) record.settings.emplace_back(std::string(key), found_text(*n));
     return n;
   };
@@ -404,7 +408,8 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
       const toml::node* file = setting("file", true);
       if (!file->is_string()) fail(*file, prefix + ".file", "a file name in quotes");
       const double x_per = unit_at(*setting("x_unit", true), prefix + ".x_unit", Dimension::length());
-      const double v_per = energy_unit_at(*setting("energy_unit", true), prefix + ".energy_unit").internal_per_unit;
+      const double v_per =
+          energy_unit_at(*setting("energy_unit", true), prefix + ".energy_unit").internal_per_unit;
       PotentialTable data = read_table_file(*file, prefix + ".file", x_per, v_per);
       record.settings.emplace_back("rows", std::to_string(data.x.size()));
       s.potential.add(Term::tabulated(record.name, std::move(data), parameters));
@@ -412,7 +417,8 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
       const toml::node* expression = setting("expression", true);
       if (!expression->is_string()) fail(*expression, prefix + ".expression", "a formula in quotes");
       const double x_per = unit_at(*setting("x_unit", true), prefix + ".x_unit", Dimension::length());
-      const double e_per = energy_unit_at(*setting("energy_unit", true), prefix + ".energy_unit").internal_per_unit;
+      const double e_per =
+          energy_unit_at(*setting("energy_unit", true), prefix + ".energy_unit").internal_per_unit;
       double t_per = 1e-6 / units_.time_s();  // time_unit default: "us"
       if (const toml::node* tu = setting("time_unit", false))
         t_per = unit_at(*tu, prefix + ".time_unit", Dimension::time());
@@ -426,15 +432,15 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
       parameters.emplace_back("length_factor", 1 / x_per);
       parameters.emplace_back("time_factor", 1 / t_per);
       if (const toml::node* user = t.get("parameters")) {
-        if (!user->is_table()) fail(*user, prefix + ".parameters", "a table [potential.parameters] of numbers");
+        if (!user->is_table())
+          fail(*user, prefix + ".parameters", "a table [potential.parameters] of numbers");
         for (const auto& [k, v] : *user->as_table()) {
           const std::string name(k.str()), key = prefix + ".parameters." + name;
           if (std::find(allowed.begin(), allowed.end(), name) != allowed.end() || name == "length_factor" ||
               name == "time_factor" || name == "x" || name == "t")
             fail(k.source(), key, "", "a name other than x, t and the term's own keys");
           if (!is_identifier(name)) fail(k.source(), key, "", "a name of letters, digits and '_'");
-          if (!v.is_number())
-            fail(v, key, "a plain number, in the units the expression is written in");
+          if (!v.is_number()) fail(v, key, "a plain number, in the units the expression is written in");
           const double value = v.value<double>().value();
           parameters.emplace_back(name, value);
           record.parameters.push_back({name, found_text(v), value, Dimension::none()});
@@ -456,12 +462,15 @@ void Reader::read_box_and_grid(const toml::table& root, Scenario& s) {
     check_keys(*box, "box", {"left", "right"});
     const auto left = internal(*box, "left", "box.left", Dimension::length());
     const auto right = internal(*box, "right", "box.right", Dimension::length());
-    if (!left || !right) fail(box->source(), left ? "box.right" : "box.left", "", "both walls: left and right");
-    require(right->value > left->value, *right, "box.right", "a wall to the right of box.left = " + left->given);
+    if (!left || !right)
+      fail(box->source(), left ? "box.right" : "box.left", "", "both walls: left and right");
+    require(right->value > left->value, *right, "box.right",
+            "a wall to the right of box.left = " + left->given);
     s.spectrum.box = std::make_pair(left->value, right->value);
   }
   // Open-grid searches start at the first term's centre.
-  if (!s.potential.terms().empty()) s.spectrum.search_centre = s.potential.terms().front().parameter("centre");
+  if (!s.potential.terms().empty())
+    s.spectrum.search_centre = s.potential.terms().front().parameter("centre");
   const toml::table* grid = table(root, "grid");
   if (!grid) return;
   check_keys(*grid, "grid", {"points", "left", "right", "convergence_check", "search_half_width"});
@@ -471,12 +480,16 @@ void Reader::read_box_and_grid(const toml::table& root, Scenario& s) {
   if (left || right) {
     const Read& given = left ? *left : *right;
     if (s.spectrum.box)
-      fail(*given.node, left ? "grid.left" : "grid.right", "no grid extent with [box]: the walls are the grid's ends");
-    if (!left || !right) fail(*given.node, left ? "grid.right" : "grid.left", "both grid.left and grid.right");
-    require(right->value > left->value, *right, "grid.right", "a value larger than grid.left = " + left->given);
+      fail(*given.node, left ? "grid.left" : "grid.right",
+           "no grid extent with [box]: the walls are the grid's ends");
+    if (!left || !right)
+      fail(*given.node, left ? "grid.right" : "grid.left", "both grid.left and grid.right");
+    require(right->value > left->value, *right, "grid.right",
+            "a value larger than grid.left = " + left->given);
     s.spectrum.extent = std::make_pair(left->value, right->value);
   }
-  if (const auto c = boolean(*grid, "convergence_check", "grid.convergence_check")) s.spectrum.convergence_check = *c;
+  if (const auto c = boolean(*grid, "convergence_check", "grid.convergence_check"))
+    s.spectrum.convergence_check = *c;
   if (const auto w = internal(*grid, "search_half_width", "grid.search_half_width", Dimension::length())) {
     require(w->value > 0, *w, "grid.search_half_width", "a length > 0");
     s.spectrum.search_half_width = w->value;
@@ -491,14 +504,18 @@ void Reader::read_spectrum(const toml::table& root, Scenario& s) {
   if (const auto n = integer(*spectrum, "levels", "spectrum.levels", 1, 100000)) o.levels = int(*n);
   if (const auto m = string(*spectrum, "method", "spectrum.method")) {
     static const std::vector<std::pair<std::string, EigenMethod>> methods = {
-        {"auto", EigenMethod::automatic}, {"dense", EigenMethod::dense}, {"lanczos", EigenMethod::lanczos},
-        {"finite_difference", EigenMethod::finite_difference}, {"hermite", EigenMethod::hermite}};
+        {"auto", EigenMethod::automatic},
+        {"dense", EigenMethod::dense},
+        {"lanczos", EigenMethod::lanczos},
+        {"finite_difference", EigenMethod::finite_difference},
+        {"hermite", EigenMethod::hermite}};
     std::vector<std::string> names;
     for (const auto& [name, method] : methods) names.push_back(name);
-    const auto it = std::find_if(methods.begin(), methods.end(), [&](const auto& kv) { return kv.first == *m; });
+    const auto it =
+        std::find_if(methods.begin(), methods.end(), [&](const auto& kv) { return kv.first == *m; });
     if (it == methods.end())
-      fail(*spectrum->get("method"), "spectrum.method", "one of auto, dense, lanczos, finite_difference, hermite",
-           closest_name(*m, names));
+      fail(*spectrum->get("method"), "spectrum.method",
+           "one of auto, dense, lanczos, finite_difference, hermite", closest_name(*m, names));
     o.method = it->second;
   }
   if (const auto order = integer(*spectrum, "fd_order", "spectrum.fd_order", 2, 8)) {

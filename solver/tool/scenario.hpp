@@ -33,9 +33,9 @@ namespace trapwork {
 // A parameter as the scenario gave it, kept for the summary and the printed header.
 struct ParameterRecord {
   std::string name;
-  std::string given;     // the text in the file ("1 MHz"), or the number for plain values
-  double internal = 0;   // the value the Term received (internal units)
-  Dimension dimension;   // of the physical quantity (frequency: ordinary in the file, angular inside)
+  std::string given;    // the text in the file ("1 MHz"), or the number for plain values
+  double internal = 0;  // the value the Term received (internal units)
+  Dimension dimension;  // of the physical quantity (frequency: ordinary in the file, angular inside)
 };
 
 struct TermRecord {
@@ -45,12 +45,12 @@ struct TermRecord {
 };
 
 struct Scenario {
-  std::string file;          // the scenario file as given ("default" for the built-in one)
+  std::string file;  // the scenario file as given ("default" for the built-in one)
   std::string title, description;
   UnitSystem units;
   std::optional<double> reference_frequency_Hz;  // ordinary frequency that set the units
-  double omega_ref = 0;      // internal angular reference frequency (1 for trap units; 0 if none)
-  EnergyUnit energy;         // display unit for energies
+  double omega_ref = 0;  // internal angular reference frequency (1 for trap units; 0 if none)
+  EnergyUnit energy;     // display unit for energies
   Potential potential;
   std::vector<TermRecord> terms;
   SpectrumRequest spectrum;
@@ -69,6 +69,8 @@ Scenario read_scenario_text(std::string_view toml_text, std::string file_name);
 std::string_view default_scenario_text();
 
 // Internal length of one micrometre: lengths in output tables are in um.
-inline double internal_per_um(const Scenario& s) { return 1e-6 / s.units.length_m; }
+inline double internal_per_um(const Scenario& s) {
+  return 1e-6 / s.units.length_m;
+}
 
 }  // namespace trapwork

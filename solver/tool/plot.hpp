@@ -1,0 +1,124 @@
+#pragma once
+// Figures of the command-line tool, drawn with PLplot (C API) into a PNG (1200 x 800 px,
+// "pngcairo" device) and an SVG ("svgcairo", or PLplot's own "svg" device where the cairo
+// driver is missing) for one path stem: plot_levels("out/levels", f) writes out/levels.png
+// and out/levels.svg. The folder must exist.
+//
+// The figures take plain data (no numerical types); numbers are in whatever display unit
+// the caller chose, and the axis labels carrying those units come from the caller. Labels
+// are PLplot text: '#' starts an escape sequence ("#gD" is a Greek Delta), UTF-8 is fine.
+//
+// Each file is drawn under a temporary name "<stem>.png.tmp-<pid>" in the same folder and
+// renamed when complete; on any error the temporary files are removed and nothing is left.
+// Every figure has its own PLplot stream, ended before the function returns, so figures
+// share no state. PLplot itself is not thread-safe: call these from one thread at a time.
+//
+// Errors: std::invalid_argument for inconsistent data (sizes that differ, nothing to draw,
+// non-finite coordinates where a curve needs them); std::runtime_error naming the file when
+// a file cannot be written or PLplot reports an error.
+#include <filesystem>
+#include <optional>
+#include <string>
+#include <vector>
+
+namespace trapwork {
+
+// One potential with its levels, for plot_levels / plot_spectrum.
+struct LevelsPanel {
+  std::string title;               // panel title, e.g. "start" / "end"; may be empty
+  std::vector<double> x;           // positions, ascending
+  std::vector<double> potential;   // V(x), one per x, energy unit
+  std::vector<double> energies;    // level energies, ascending, energy unit
+  // |psi_n(x)|^2 on the same x for the first densities.size() levels (densities[n] belongs
+  // to energies[n]); may hold fewer entries than energies, or none. Any unit: each density
+  // is scaled so that its peak reaches LevelsFigure::density_height of the gap to the next
+  // level (the gap below, for the highest level) and drawn on its level line.
+  std::vector<std::vector<double>> densities;
+};
+
+struct LevelsFigure {
+  std::string title;               // figure title
+  std::string x_label;             // e.g. "position x (um)"
+  std::string energy_label;        // e.g. "energy E (h*kHz)"
+  std::vector<LevelsPanel> panels;  // one, or two drawn side by side with one energy axis
+  double density_height = 0.7;     // peak of a scaled density, in units of the level gap; (0, 1]
+  // Axis ranges; when absent: energy from min V to the highest level plus headroom for the
+  // legend, x over the classically allowed region of the highest level widened by 30%.
+  std::optional<double> x_min, x_max, energy_min, energy_max;
+};
+
+// Potential curve, each level as a horizontal segment across the classically allowed region
+// (where V < E, split where the region is), and the densities sitting on their levels.
+std::vector<std::filesystem::path> plot_levels(const std::filesystem::path& stem,
+                                               const LevelsFigure& figure);
+// The spectrum of one potential: plot_levels with figure.panels.size() == 1.
+std::vector<std::filesystem::path> plot_spectrum(const std::filesystem::path& stem,
+                                                 const LevelsFigure& figure);
+
+// Work values W_i with probabilities P_i (the lines), and optionally a smooth density.
+struct WorkSeries {
+  std::string label;                  // legend text, e.g. "quartic trap (grid)"
+  std::vector<double> work;           // W_i, work unit
+  std::vector<double> probability;    // P_i, one per W_i, >= 0
+  std::vector<double> density_work;   // grid of the broadened density, ascending; may be empty
+  std::vector<double> density;        // density per work unit, one per density_work
+};
+
+enum class ProbabilityAxis {
+  linear_and_log,  // linear stems, and a second panel below with log10 P
+  linear,          // linear stems only
+  log,             // log10 P stems only
+};
+
+struct WorkFigure {
+  std::string title;
+  std::string work_label;             // e.g. "work W (h*kHz)"
+  std::string density_label;          // right-hand axis, e.g. "density (1/(h*kHz))"
+  WorkSeries result;                  // drawn as filled stems and a solid curve
+  std::optional<WorkSeries> reference;  // e.g. harmonic prediction: hollow stems, dashed curve
+  std::optional<double> mean_work;      // vertical marker "<W>", work unit
+  std::optional<double> free_energy_change;  // vertical marker "Delta F", work unit
+  ProbabilityAxis probability_axis = ProbabilityAxis::linear_and_log;
+  double log_decades = 12;            // log panel shows P down to max P * 10^-log_decades; > 0
+};
+
+// Stems P_i at W_i on the left axis; the broadened density on a right-hand axis of its own.
+std::vector<std::filesystem::path> plot_work(const std::filesystem::path& stem,
+                                             const WorkFigure& figure);
+
+// Results over a swept parameter, with +-1 standard deviation.
+struct SweepPoints {
+  std::string label;                  // e.g. "<W> (grid), +-1 std. dev. of W"
+  std::vector<double> x;              // swept parameter
+  std::vector<double> y;              // e.g. <W>
+  std::vector<double> spread;         // +- this around y (one per y), or empty for none
+};
+struct SweepCurve {
+  std::string label;                  // e.g. "harmonic prediction"
+  std::vector<double> x;              // ascending
+  std::vector<double> y;
+};
+
+enum class Departure {
+  none,      // one panel
+  relative,  // second panel: (y - c(x)) / c(x), c = first curve interpolated linearly;
+             // points where c(x) = 0 are left out
+  absolute,  // second panel: y - c(x)
+};
+
+struct SweepFigure {
+  std::string title;
+  std::string x_label;                // e.g. "duration tau (us)"
+  std::string y_label;                // e.g. "mean work <W> (h*kHz)"
+  std::vector<SweepPoints> points;    // markers with error bars (or a band)
+  std::vector<SweepCurve> curves;     // analytic curves as lines
+  bool spread_as_band = false;        // shaded band instead of error bars
+  bool log_x = false;                 // logarithmic x axis (x > 0)
+  Departure departure = Departure::none;  // needs at least one curve
+  std::string departure_label;        // second panel's y label; empty: a default
+};
+
+std::vector<std::filesystem::path> plot_sweep(const std::filesystem::path& stem,
+                                              const SweepFigure& figure);
+
+}  // namespace trapwork
