@@ -11,13 +11,10 @@
 
 namespace trapwork {
 
-namespace {
-// FFTW's planner is not thread-safe (FFTW 3 manual, "Thread safety"); only execution is.
-std::mutex& planner_mutex() {
+std::mutex& fftw_planner_mutex() {
   static std::mutex m;
   return m;
 }
-}  // namespace
 
 // Periodic: r2c, multiply by k^2/2 (with 1/n folded in), c2r. Box: RODFT00 twice, whose
 // product is 2 (n + 1) times the identity (FFTW manual, "1d Real-odd DFTs (DSTs)").
@@ -31,7 +28,7 @@ struct KineticOperator::Plans {
   fftw_plan forward = nullptr, backward = nullptr;
 
   Plans(const Grid& g, int cols) : boundary(g.boundary()), n(int(g.size())), columns(cols) {
-    std::lock_guard lock(planner_mutex());
+    std::lock_guard lock(fftw_planner_mutex());
     real_in = fftw_alloc_real(std::size_t(n) * cols);
     real_out = fftw_alloc_real(std::size_t(n) * cols);
     if (boundary == Boundary::periodic) {
@@ -55,7 +52,7 @@ struct KineticOperator::Plans {
     }
   }
   ~Plans() {
-    std::lock_guard lock(planner_mutex());
+    std::lock_guard lock(fftw_planner_mutex());
     fftw_destroy_plan(forward);
     fftw_destroy_plan(backward);
     fftw_free(real_in);

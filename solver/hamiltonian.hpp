@@ -3,11 +3,17 @@
 #include <Eigen/Dense>
 #include <Eigen/SparseCore>
 #include <memory>
+#include <mutex>
 #include <vector>
 
 #include "solver/grid.hpp"
 
 namespace trapwork {
+
+// FFTW's planner is not thread-safe (FFTW 3 manual, "Thread safety"); only execution is. Every
+// plan in trapwork is created and destroyed while holding this mutex (a function-local static,
+// the library's one piece of shared state).
+std::mutex& fftw_planner_mutex();
 
 // Applies the grid's own kinetic operator (Fourier or DST-I, exactly the one the split-operator
 // propagator uses) to the columns of a real matrix. Plans are made once for `columns` columns.

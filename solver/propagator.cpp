@@ -8,10 +8,6 @@
 
 namespace trapwork {
 
-std::mutex& fftw_planner_mutex() {
-  static std::mutex m;
-  return m;
-}
 
 // ---- PotentialPath -------------------------------------------------------------------------
 

@@ -27,6 +27,7 @@
 #include "potentials/protocol.hpp"
 #include "solver/errors.hpp"
 #include "solver/grid.hpp"
+#include "solver/hamiltonian.hpp"
 #include "solver/spectrum.hpp"
 
 namespace trapwork {
@@ -73,9 +74,6 @@ int propagate(P& propagator, typename P::State& state, double t_begin, double t_
   return steps;
 }
 
-// FFTW's planner is not thread-safe: every plan in trapwork is created while holding this
-// mutex (a function-local static; plan execution needs no lock).
-std::mutex& fftw_planner_mutex();
 
 // The potential the propagator sees on its grid, in the lab frame or in the co-moving frame
 // of a rigid translation V(x, t) = V_0(x - d(t)):

@@ -154,14 +154,18 @@ struct WorkRequest {
   std::function<void(double fraction)> progress;  // optional, called with 0..1
 };
 
-// Harmonic reference prediction when the potential is one harmonic term and the protocol a
-// translation (displaced oscillator) or a frequency change (Husimi).
+// Harmonic reference prediction for the trap's harmonic part (omega_h = the summed harmonic
+// frequency of the harmonic and polynomial terms), when the protocol is a rigid translation
+// (displaced oscillator) or changes only that frequency (Husimi). For an anharmonic trap
+// this is the idealisation the result departs from; for a purely harmonic one it is exact.
 struct HarmonicComparison {
   std::string model;               // "displaced oscillator" or "parametric oscillator (Husimi)"
   double parameter = 0;            // |alpha|^2 or Q*
-  TransitionMatrix reference;
-  double max_line_difference = 0;  // max |P(m->n) - P_ref(m->n)| over the kept lines
-  double mean_work = 0;            // analytic <W> for the same initial weights
+  bool exact = false;              // the potential is one harmonic term: the reference is exact
+  TransitionMatrix reference;      // analytic P(m->n), same shape as the numeric one
+  WorkDistribution distribution;   // harmonic energies, harmonic Gibbs weights at the same beta
+  double max_line_difference = 0;  // max |P(m->n) - P_ref(m->n)| by level index
+  double mean_work = 0;            // analytic <W> (= distribution.mean)
 };
 
 struct WorkResult {

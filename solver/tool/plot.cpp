@@ -25,7 +25,8 @@ using Vec = std::vector<double>;
 
 constexpr PLINT page_width_px = 1200;
 constexpr PLINT page_height_px = 800;
-constexpr double text_scale = 1.1;  // base character size (plschr scale) of every figure
+constexpr double text_scale = 1.0;  // base character size (plschr scale) of every figure
+constexpr double char_px = 13.8;     // mean advance of one character at scale 1, px (measured)
 
 // Colour map 0 of every figure (index: role). Index 0 is the background.
 enum Colour : PLINT {
@@ -215,6 +216,31 @@ void fill_polygon(const Vec& x, const Vec& y) {
   if (x.size() >= 3) plfill(static_cast<PLINT>(x.size()), x.data(), y.data());
 }
 
+// Width of PLplot text in characters: escapes "#u", "#d" take no room, "#gX" is one glyph,
+// characters raised or lowered from the baseline count 0.6 (PLplot draws them smaller).
+double visible_length(const std::string& text) {
+  double n = 0;
+  int level = 0;  // superscript / subscript depth
+  for (std::size_t i = 0; i < text.size(); ++i) {
+    const auto c = static_cast<unsigned char>(text[i]);
+    const double w = level == 0 ? 1.0 : 0.6;
+    if (c == '#' && i + 1 < text.size()) {
+      const char e = text[i + 1];
+      if (e == 'g') {
+        i += 2;
+        n += w;
+        continue;
+      }
+      if (e == 'u') ++level;
+      if (e == 'd') --level;
+      ++i;
+    } else if ((c & 0xC0) != 0x80) {
+      n += w;  // count UTF-8 lead bytes only
+    }
+  }
+  return n;
+}
+
 // Tick labels without PLplot's separate "(x10^n)" factor, which collides with titles:
 // "%g" text, 0 for rounding noise, a x10^n form for very large or small values; on a
 // log10 axis "10^k" (plain numbers for |k| <= 2), only every `log_step`-th decade.
@@ -241,7 +267,7 @@ void tick_label(PLINT axis, PLFLT value, char* label, PLINT length, PLPointer da
   const double magnitude = std::abs(value);
   if (magnitude < 1e-9 * format->span[a]) {
     std::snprintf(label, size, "0");
-  } else if (magnitude >= 1e5 || magnitude < 1e-3) {
+  } else if (magnitude >= 1e6 || magnitude < 1e-4) {
     const int e = static_cast<int>(std::floor(std::log10(magnitude)));
     const double mantissa = value / std::pow(10.0, e);
     if (std::abs(std::abs(mantissa) - 1) < 1e-9)
@@ -255,7 +281,7 @@ void tick_label(PLINT axis, PLFLT value, char* label, PLINT length, PLPointer da
 
 // One plbox call with the tick labels above; log axes carry "l" in their options.
 void box(const std::string& xopt, const std::string& yopt, double x_span, double y_span,
-         int log_step_y = 1) {
+         int log_step_y = 1, double x_tick = 0, double y_tick = 0) {
   TickFormat format;
   format.span[0] = x_span;
   format.span[1] = y_span;
@@ -263,7 +289,7 @@ void box(const std::string& xopt, const std::string& yopt, double x_span, double
   format.log[1] = yopt.find('l') != std::string::npos;
   format.log_step[1] = log_step_y;
   plslabelfunc(tick_label, &format);
-  plbox((xopt + "o").c_str(), 0, 0, (yopt + "o").c_str(), 0, 0);
+  plbox((xopt + "o").c_str(), x_tick, 0, (yopt + "o").c_str(), y_tick, 0);
   plslabelfunc(nullptr, nullptr);
 }
 
@@ -277,29 +303,106 @@ struct Panel {
   int log_step_y = 1;              // label every n-th decade of a log y axis
 };
 
-void draw_frame(const Panel& p) {
-  plvpor(p.viewport[0], p.viewport[1], p.viewport[2], p.viewport[3]);
-  plwind(p.x_lo, p.x_hi, p.y_lo, p.y_hi);
-  const std::string lx = p.log_x ? "l" : "", ly = p.log_y ? "l" : "";
-  pen(grid_grey, 1.0);
-  box("g" + lx, "g" + ly, p.x_hi - p.x_lo, p.y_hi - p.y_lo);
-  std::string xopt = "bcst" + lx + (p.x_numbers ? "n" : "");
-  std::string yopt = (p.right_axis_free ? "bstv" : "bcstv") + ly + (p.y_numbers ? "n" : "");
-  pen(ink, 1.5);
-  box(xopt, yopt, p.x_hi - p.x_lo, p.y_hi - p.y_lo, p.log_step_y);
+// Tick spacing 1, 2 or 5 x 10^k for about `max_ticks` intervals over `span`:
+// The step nearest (in ratio) to span / max_ticks, so that a short axis still gets at least
+// two labelled ticks.
+double nice_step(double span, int max_ticks) {
+  const double raw = span / max_ticks;
+  const double decade = std::pow(10.0, std::floor(std::log10(raw)));
+  double best = decade;
+  for (double m : {2.0, 5.0, 10.0})
+    if (std::abs(std::log(m * decade / raw)) < std::abs(std::log(best / raw))) best = m * decade;
+  return best;
 }
 
-void label_bottom(const std::string& text) { plmtex("b", 2.8, 0.5, 0.5, text.c_str()); }
-void label_left(const std::string& text) { plmtex("l", 5.0, 0.5, 0.5, text.c_str()); }
-void label_right(const std::string& text) { plmtex("r", 5.4, 0.5, 0.5, text.c_str()); }
-void label_top(const std::string& text) { plmtex("t", 0.6, 0.5, 0.5, text.c_str()); }
+// Room per tick label (px): wide enough for labels such as "-0.025" at text_scale.
+constexpr double x_tick_room_px = 110, y_tick_room_px = 55;
+
+// Distance (in character heights) from the axis to an axis label that clears the widest
+// tick label of an axis from lo to hi with ticks every `step` (every `log_step`-th decade on
+// a log axis). Tick digits are about 0.85 character heights wide (measured on these figures).
+double label_distance(double lo, double hi, double step, bool log, int log_step) {
+  TickFormat format;
+  format.span[1] = hi - lo;
+  format.log[1] = log;
+  format.log_step[1] = log_step;
+  if (log) step = 1;
+  double widest = 1;
+  for (double v = std::ceil(lo / step) * step; v <= hi + 1e-9 * step; v += step) {
+    char text[64];
+    tick_label(PL_Y_AXIS, v, text, sizeof text, &format);
+    widest = std::max(widest, visible_length(text));
+  }
+  return 2.0 + 0.85 * widest;
+}
+
+int tick_count(double fraction, double page_px, double room) {
+  return std::max(3, static_cast<int>(fraction * page_px / room));
+}
+
+// Draws the panel's frame; returns the distance for its left axis label.
+double draw_frame(const Panel& p) {
+  plvpor(p.viewport[0], p.viewport[1], p.viewport[2], p.viewport[3]);
+  plwind(p.x_lo, p.x_hi, p.y_lo, p.y_hi);
+  const double x_tick = p.log_x ? 0
+      : nice_step(p.x_hi - p.x_lo, tick_count(p.viewport[1] - p.viewport[0], page_width_px, x_tick_room_px));
+  const double y_tick = p.log_y ? 0
+      : nice_step(p.y_hi - p.y_lo, tick_count(p.viewport[3] - p.viewport[2], page_height_px, y_tick_room_px));
+  // Log axes over many decades get no minor ticks: they would merge into a black band.
+  const auto minor = [](bool log, double span) {
+    return log ? (span <= 6 ? "ls" : "l") : "s";
+  };
+  const std::string lx = minor(p.log_x, p.x_hi - p.x_lo), ly = minor(p.log_y, p.y_hi - p.y_lo);
+  pen(grid_grey, 1.0);
+  box(p.log_x ? "gl" : "g", p.log_y ? "gl" : "g", p.x_hi - p.x_lo, p.y_hi - p.y_lo, 1, x_tick, y_tick);
+  std::string xopt = "bct" + lx + (p.x_numbers ? "n" : "");
+  std::string yopt = (p.right_axis_free ? "btv" : "bctv") + ly + (p.y_numbers ? "n" : "");
+  pen(ink, 1.5);
+  box(xopt, yopt, p.x_hi - p.x_lo, p.y_hi - p.y_lo, p.log_step_y, x_tick, y_tick);
+  return label_distance(p.y_lo, p.y_hi, y_tick, p.log_y, p.log_step_y);
+}
+
+// A second y axis on the right of panel p, from 0 to `top`; leaves that window set and
+// returns the distance for its label.
+double draw_right_axis(const Panel& p, double top) {
+  plwind(p.x_lo, p.x_hi, 0, top);
+  const double tick =
+      nice_step(top, tick_count(p.viewport[3] - p.viewport[2], page_height_px, y_tick_room_px));
+  pen(ink, 1.5);
+  box("", "cmstv", p.x_hi - p.x_lo, top, 1, 0, tick);
+  return label_distance(0, top, tick, false, 1);
+}
+
+// Character scale, at most `scale` and at least 0.7 of it, at which `text` fits `room_px`.
+double fitting_scale(const std::string& text, double room_px, double scale) {
+  const double needed = char_px * scale * visible_length(text);
+  return needed <= room_px ? scale : std::max(0.7 * scale, scale * room_px / needed);
+}
+
+// Text beside the current viewport (plmtex side "b", "l", "r", "t"), `distance` in character
+// heights at text_scale, shrunk where it is longer than that side of the viewport.
+void side_text(const char* side, double distance, const std::string& text) {
+  PLFLT x0, x1, y0, y1;
+  plgvpd(&x0, &x1, &y0, &y1);
+  const bool vertical = side[0] == 'l' || side[0] == 'r';
+  const double room = vertical ? (y1 - y0) * page_height_px : (x1 - x0) * page_width_px;
+  const double scale = fitting_scale(text, 0.98 * room, text_scale);
+  plschr(0, scale);
+  plmtex(side, distance * text_scale / scale, 0.5, 0.5, text.c_str());
+  plschr(0, text_scale);
+}
+
+void label_bottom(const std::string& text) { side_text("b", 2.8, text); }
+void label_left(const std::string& text, double distance) { side_text("l", distance, text); }
+void label_right(const std::string& text, double distance) { side_text("r", distance, text); }
+void label_top(const std::string& text) { side_text("t", 0.6, text); }
 
 void figure_title(const std::string& title) {
   if (title.empty()) return;
   plvpor(0, 1, 0, 1);
   plwind(0, 1, 0, 1);
   pen(ink, 1);
-  plschr(0, 1.45);
+  plschr(0, fitting_scale(title, 0.96 * page_width_px, 1.45));
   plptex(0.5, 0.955, 1, 0, 0.5, title.c_str());
   plschr(0, text_scale);
 }
@@ -318,12 +421,26 @@ LegendEntry line_entry(std::string text, PLINT colour, PLINT style, double width
   return {std::move(text), PL_LEGEND_LINE, colour, style, width, "", -1};
 }
 
-// Height of a legend row in normalised page units (measured on the 800 px page at
-// text_scale; used to lay panels out below the legend).
+// Height of a legend row in normalised page units, and the width of one character of legend
+// text in px (both measured on the 1200 x 800 page, which pngcairo and svgcairo share).
 constexpr double legend_row_height = 0.045;
+constexpr double legend_text_scale = 0.92;
+constexpr double legend_char_px = char_px * text_scale * legend_text_scale;
 
-// Legend above the viewport (x0, x1, y0, y1) with its lower edge at page height `bottom`,
-// entries in `rows` rows, filled row by row. The legend sits outside the data on purpose.
+// Rows a legend needs (at least `min_rows`) so that its columns, all as wide as the widest
+// entry, fit into a viewport `width` (normalised page units) wide.
+int legend_rows(const std::vector<LegendEntry>& entries, double width, int min_rows) {
+  double longest = 0;
+  for (const auto& e : entries) longest = std::max(longest, visible_length(e.text));
+  const double entry_px = 0.06 * width * page_width_px + 3 * legend_char_px +
+                          legend_char_px * longest;
+  const int n = static_cast<int>(entries.size());
+  const int columns = std::clamp(static_cast<int>(width * page_width_px / entry_px), 1, std::max(n, 1));
+  return std::max(min_rows, (n + columns - 1) / columns);
+}
+
+// Legend above the viewport (x0, x1, y0, y1) with its lower edge at page height `bottom`, in
+// `rows` rows filled column by column. The legend sits outside the data on purpose.
 void draw_legend_above(const std::vector<LegendEntry>& entries, std::array<double, 4> viewport,
                        double bottom, int rows) {
   if (entries.empty()) return;
@@ -353,13 +470,12 @@ void draw_legend_above(const std::vector<LegendEntry>& entries, std::array<doubl
   plwind(0, 1, 0, 1);
   const double offset = (bottom - viewport[3]) / (viewport[3] - viewport[2]);
   PLFLT width = 0, height = 0;
-  pllegend(&width, &height, PL_LEGEND_BACKGROUND | PL_LEGEND_ROW_MAJOR,
-           PL_POSITION_TOP | PL_POSITION_OUTSIDE, 0, offset, 0.06, white, ink, solid,
-           static_cast<PLINT>(rows), columns, n, opts.data(), 0.8, 0.92, 1.9, 0.0,
-           text_colours.data(), texts.data(), box_colours.data(), box_patterns.data(),
-           box_scales.data(), box_widths.data(), line_colours.data(), line_styles.data(),
-           line_widths.data(), symbol_colours.data(), symbol_scales.data(),
-           symbol_numbers.data(), symbols.data());
+  pllegend(&width, &height, PL_LEGEND_BACKGROUND, PL_POSITION_TOP | PL_POSITION_OUTSIDE, 0,
+           offset, 0.06, white, ink, solid, static_cast<PLINT>(rows), columns, n, opts.data(),
+           0.8, legend_text_scale, 1.9, 0.0, text_colours.data(), texts.data(),
+           box_colours.data(), box_patterns.data(), box_scales.data(), box_widths.data(),
+           line_colours.data(), line_styles.data(), line_widths.data(), symbol_colours.data(),
+           symbol_scales.data(), symbol_numbers.data(), symbols.data());
 }
 
 std::string number(double v) {
@@ -462,9 +578,9 @@ void draw_density_on_level(const Vec& x, const Vec& d, double energy, double hei
 }
 
 void draw_levels_panel(const LevelsPanel& p, const LevelsFigure& f, const Panel& frame) {
-  draw_frame(frame);
+  const double distance = draw_frame(frame);
   label_bottom(f.x_label);
-  if (frame.y_numbers) label_left(f.energy_label);
+  if (frame.y_numbers) label_left(f.energy_label, distance);
   if (!p.title.empty()) label_top(p.title);
   for (std::size_t n = 0; n < p.densities.size(); ++n)
     draw_density_on_level(p.x, p.densities[n], p.energies[n], density_peak(p, n, f.density_height));
@@ -514,16 +630,17 @@ std::vector<fs::path> draw_levels(const fs::path& stem, const LevelsFigure& f) {
 
   const bool panel_titles = std::any_of(f.panels.begin(), f.panels.end(),
                                         [](const LevelsPanel& p) { return !p.title.empty(); });
-  const double legend_bottom = (f.title.empty() ? 0.93 : 0.89) - legend_row_height;
-  const double top_edge = legend_bottom - (panel_titles ? 0.06 : 0.015);
   std::vector<LegendEntry> legend = {
       line_entry("potential V(x)", ink, solid, 2.6),
       line_entry("levels E#dn#u (where V < E#dn#u)", orange, solid, 2.0)};
   if (std::any_of(f.panels.begin(), f.panels.end(),
                   [](const LevelsPanel& p) { return !p.densities.empty(); }))
-    legend.push_back({"|ψ#dn#u(x)|#u2#d, scaled, on its level",
+    legend.push_back({"|ψ#dn#u(x)|#u2#d (scaled)",
                       PL_LEGEND_LINE | PL_LEGEND_COLOR_BOX, blue, solid, 1.8, "", blue_fill});
 
+  const int rows = legend_rows(legend, f.panels.size() == 1 ? 0.86 : 0.865, 1);
+  const double legend_bottom = (f.title.empty() ? 0.93 : 0.89) - rows * legend_row_height;
+  const double top_edge = legend_bottom - (panel_titles ? 0.06 : 0.015);
   std::vector<Panel> frames;
   auto frame = [&](std::size_t i, double x0, double x1, bool y_numbers) {
     Panel p{{x0, x1, 0.11, top_edge}, x_ranges[i].lo, x_ranges[i].hi, er.lo, er.hi};
@@ -538,7 +655,7 @@ std::vector<fs::path> draw_levels(const fs::path& stem, const LevelsFigure& f) {
     for (std::size_t i = 0; i < f.panels.size(); ++i) draw_levels_panel(f.panels[i], f, frames[i]);
     draw_legend_above(legend,
                       {frames.front().viewport[0], frames.back().viewport[1], 0.11, top_edge},
-                      legend_bottom, 1);
+                      legend_bottom, rows);
   });
 }
 
@@ -594,13 +711,18 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
   if (f.free_energy_change) wr.add(*f.free_energy_change);
   if (!wr.valid()) bad_data(name, "no finite work values");
   wr = wr.padded(0.04);
-  const bool has_density = dr.valid() && dr.hi > 0;
+  // Densities need the linear panel's right-hand axis.
+  const bool has_density =
+      dr.valid() && dr.hi > 0 && f.probability_axis != ProbabilityAxis::log;
   const double offset = f.reference ? 0.004 * (wr.hi - wr.lo) : 0;
-  const double headroom = 1.15;  // above the tallest stem: room for the marker labels
+  const double headroom = 1.3;  // above the tallest stem: room for the marker labels
   const double p_top = (p_max > 0 ? p_max : 1.0) * headroom;
   const double d_top = (has_density ? dr.hi : 1.0) * headroom;
-  const double log_top = std::log10(p_max > 0 ? p_max : 1.0) + 0.5;
-  const double log_floor = log_top - 0.5 - f.log_decades;
+  // A log panel alone carries the marker labels, so it gets headroom for them too.
+  const double log_headroom =
+      f.probability_axis == ProbabilityAxis::log ? 0.5 + 0.2 * f.log_decades : 0.5;
+  const double log_top = std::log10(p_max > 0 ? p_max : 1.0) + log_headroom;
+  const double log_floor = log_top - log_headroom - f.log_decades;
   const int log_step = static_cast<int>(std::max(1.0, std::ceil(f.log_decades / 4)));
 
   // Legend, column by column: each series (lines above, density below), then the markers.
@@ -616,23 +738,16 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
                                          k == 0 ? solid : dashed, 2.2)
                             : LegendEntry{"", PL_LEGEND_NONE, ink, solid, 1, "", -1});
   }
-  if (f.mean_work)
-    by_column.push_back(line_entry("mean work <W> = " + number(*f.mean_work), green, dashed, 2.0));
-  if (f.free_energy_change)
-    by_column.push_back(line_entry("free-energy change #gDF = " + number(*f.free_energy_change),
-                                   purple, dotted, 2.0));
-  const int rows = 2;
-  const std::size_t columns = (by_column.size() + 1) / 2;
-  std::vector<LegendEntry> legend;  // row-major order for pllegend
-  for (std::size_t r = 0; r < 2; ++r)
-    for (std::size_t c = 0; c < columns; ++c)
-      legend.push_back(2 * c + r < by_column.size()
-                           ? by_column[2 * c + r]
-                           : LegendEntry{"", PL_LEGEND_NONE, ink, solid, 1, "", -1});
-
+  if (!has_density)  // no densities: drop the empty places kept for them
+    by_column.erase(std::remove_if(by_column.begin(), by_column.end(),
+                                   [](const LegendEntry& e) { return e.kind == PL_LEGEND_NONE; }),
+                    by_column.end());
+  const double left = 0.10, right = has_density ? 0.87 : 0.97;
+  // Column-major legend: with two rows each series keeps its lines above its density.
+  const int rows = legend_rows(by_column, right - left, has_density ? 2 : 1);
+  const std::vector<LegendEntry>& legend = by_column;
   const double legend_bottom = (f.title.empty() ? 0.93 : 0.89) - rows * legend_row_height;
   const double top_edge = legend_bottom - 0.02;
-  const double left = 0.10, right = has_density ? 0.89 : 0.97;
   std::vector<Panel> panels;
   auto linear = [&](double y0, bool x_numbers) {
     Panel p{{left, right, y0, top_edge}, wr.lo, wr.hi, 0, p_top};
@@ -655,34 +770,40 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
   return write_png_and_svg(stem, [&] {
     figure_title(f.title);
     for (const auto& panel : panels) {
-      draw_frame(panel);
+      const double distance = draw_frame(panel);
       if (panel.x_numbers) label_bottom(f.work_label);
-      label_left(panel.log_y ? "P (log scale)" : "probability P");
+      label_left(panel.log_y ? "P (log scale)" : "probability P", distance);
 
-      // Markers first, so that stems are drawn over them; <W> >= Delta F for a thermal
-      // start (common practice), so Delta F is labelled left of its line and <W> right.
-      const bool free_energy_left =
-          !(f.mean_work && f.free_energy_change) || *f.free_energy_change <= *f.mean_work;
-      auto marker = [&](double w, const char* text, PLINT colour, PLINT style, bool left_side) {
+      // Markers first, so that stems are drawn over them. Labels at two heights so that
+      // they cannot overlap; each on its preferred side (Delta F left, <W> right, as
+      // <W> >= Delta F for a thermal start, common practice) unless it would leave the panel.
+      auto marker = [&](double w, const std::string& text, PLINT colour, PLINT style,
+                        bool prefer_left, double height) {
         pen(colour, 2.0, style);
         pljoin(w, panel.y_lo, w, panel.y_hi);
         if (panel.log_y && panels.size() > 1) return;
-        const double dx = 0.006 * (wr.hi - wr.lo) * (left_side ? -1 : 1);
+        const double world_per_px =
+            (wr.hi - wr.lo) / ((panel.viewport[1] - panel.viewport[0]) * page_width_px);
+        const double width = 1.1 * char_px * text_scale * visible_length(text) * world_per_px;
+        const double gap = 6 * world_per_px;
+        bool left_side = prefer_left;
+        if (left_side && w - gap - width < wr.lo) left_side = false;
+        else if (!left_side && w + gap + width > wr.hi) left_side = true;
         pen(colour, 1);
-        plptex(w + dx, panel.y_lo + 0.93 * (panel.y_hi - panel.y_lo), 1, 0,
-               left_side ? 1.0 : 0.0, text);
+        plptex(w + (left_side ? -gap : gap), panel.y_lo + height * (panel.y_hi - panel.y_lo), 1,
+               0, left_side ? 1.0 : 0.0, text.c_str());
       };
       if (f.free_energy_change)
-        marker(*f.free_energy_change, "#gDF", purple, dotted, free_energy_left);
-      if (f.mean_work) marker(*f.mean_work, "<W>", green, dashed, !free_energy_left);
+        marker(*f.free_energy_change, "#gDF = " + number(*f.free_energy_change), purple, dotted,
+               true, 0.83);
+      if (f.mean_work)
+        marker(*f.mean_work, "<W> = " + number(*f.mean_work), green, dashed, false, 0.92);
       if (f.reference) draw_stems(*f.reference, panel.log_y, panel.y_lo, offset, orange, "○");
       draw_stems(f.result, panel.log_y, panel.y_lo, 0, blue, "●");
 
       if (has_density && !panel.log_y) {
-        plwind(wr.lo, wr.hi, 0, d_top);
-        pen(ink, 1.5);
-        box("", "cmstv", wr.hi - wr.lo, d_top);
-        label_right(f.density_label.empty() ? "density (right axis)" : f.density_label);
+        label_right(f.density_label.empty() ? "density (right axis)" : f.density_label,
+                    draw_right_axis(panel, d_top));
         if (f.reference && !f.reference->density.empty()) {
           pen(orange, 2.2, dashed);
           draw_line(f.reference->density_work, f.reference->density);
@@ -813,40 +934,43 @@ std::vector<fs::path> draw_sweep(const fs::path& stem, const SweepFigure& f) {
   for (std::size_t k = 0; k < f.curves.size(); ++k)
     legend.push_back(
         line_entry(f.curves[k].label, curve_colours[k % 3], k == 0 ? solid : dashed, 2.4));
-  const int rows = legend.size() > 2 ? 2 : 1;
+  const int rows = legend_rows(legend, 0.86, 1);
 
   const bool two_panels = f.departure != Departure::none;
   const double legend_bottom = (f.title.empty() ? 0.93 : 0.89) - rows * legend_row_height;
   const double top_edge = legend_bottom - 0.02;
-  Panel main{{0.11, 0.97, two_panels ? 0.44 : 0.11, top_edge}, xr.lo, xr.hi, yr.lo, yr.hi};
+  Panel main{{0.11, 0.97, two_panels ? 0.42 : 0.11, top_edge}, xr.lo, xr.hi, yr.lo, yr.hi};
   main.x_numbers = !two_panels;
   main.log_x = f.log_x;
-  Panel lower{{0.11, 0.97, 0.11, 0.41}, xr.lo, xr.hi, dr.lo, dr.hi};
+  Panel lower{{0.11, 0.97, 0.11, 0.36}, xr.lo, xr.hi, dr.lo, dr.hi};
   lower.log_x = f.log_x;
 
   return write_png_and_svg(stem, [&] {
     figure_title(f.title);
-    draw_frame(main);
+    const double distance = draw_frame(main);
     if (!two_panels) label_bottom(f.x_label);
-    label_left(f.y_label);
+    label_left(f.y_label, distance);
     for (std::size_t k = 0; k < drawn.size(); ++k) draw_points(drawn[k], f.spread_as_band, k);
     for (std::size_t k = 0; k < f.curves.size(); ++k) {
       pen(curve_colours[k % 3], 2.4, k == 0 ? solid : dashed);
       draw_line(map_x(f.curves[k].x), f.curves[k].y);
     }
     if (two_panels) {
-      draw_frame(lower);
+      const double lower_distance = draw_frame(lower);
       label_bottom(f.x_label);
       label_left(!f.departure_label.empty() ? f.departure_label
                  : relative                 ? "relative departure"
-                                            : "departure");
+                                            : "departure",
+                 lower_distance);
       pen(curve_colours[0], 1.8, dashed);
       pljoin(xr.lo, 0, xr.hi, 0);
-      for (std::size_t k = 0; k < departures.size(); ++k) draw_points(departures[k], false, k);
+      for (std::size_t k = 0; k < departures.size(); ++k)
+        draw_points(departures[k], f.spread_as_band, k);
       pen(ink, 1);
-      plschr(0, 0.95);
-      plmtex("t", -1.4, 0.012, 0.0,
-             ((relative ? "(y - c) / c,  c: " : "y - c,  c: ") + f.curves[0].label).c_str());
+      plschr(0, 0.85);
+      plmtex("t", 0.9, 0.0, 0.0,
+             ((relative ? "below: (y - c) / c,  c = " : "below: y - c,  c = ") + f.curves[0].label)
+                 .c_str());
       plschr(0, text_scale);
     }
     draw_legend_above(legend, main.viewport, legend_bottom, rows);
