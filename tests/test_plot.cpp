@@ -20,7 +20,7 @@ namespace {
 // A fresh, empty folder for one test case under the build tree.
 fs::path fresh_folder(const std::string& name) {
   const fs::path folder = fs::path(TRAPWORK_BINARY_DIR) / "test_plot_output" /
-                          (name + "-" + std::to_string(::getpid()));
+                          name;
   fs::remove_all(folder);
   fs::create_directories(folder);
   return folder;

@@ -513,17 +513,22 @@ std::vector<std::pair<double, double>> allowed_intervals(const Vec& x, const Vec
   return out;
 }
 
-// Height (energy units) a scaled density of level n reaches above its line.
+// Height (energy units) a scaled density of level n reaches above its line: `fraction` of
+// the gap to the next level that is not near-degenerate with it (closer than 10% of the mean
+// spacing, as in a tunnelling doublet; the gap below for the highest level), but at most
+// `fraction` of the mean spacing.
 double density_peak(const LevelsPanel& p, std::size_t n, double fraction) {
+  const auto& e = p.energies;
+  const double mean = e.size() > 1 ? (e.back() - e.front()) / static_cast<double>(e.size() - 1) : 0;
   double gap = 0;
-  if (n + 1 < p.energies.size()) gap = p.energies[n + 1] - p.energies[n];
-  else if (n > 0) gap = p.energies[n] - p.energies[n - 1];
-  if (!(gap > 0)) {
-    Range v;
-    v.add(p.potential);
-    gap = 0.1 * (v.hi - p.energies[n]);
-  }
-  return fraction * gap;
+  for (std::size_t m = n + 1; m < e.size() && gap == 0; ++m)
+    if (e[m] - e[n] > 0.1 * mean) gap = e[m] - e[n];
+  for (std::size_t m = n; m-- > 0 && gap == 0;)
+    if (e[n] - e[m] > 0.1 * mean) gap = e[n] - e[m];
+  if (gap > 0) return fraction * std::min(gap, mean);
+  Range v;  // a single level (or all degenerate): a tenth of the potential's range above it
+  v.add(p.potential);
+  return fraction * 0.1 * std::max(v.hi - e[n], v.hi - v.lo);
 }
 
 void validate_levels(const LevelsFigure& f) {

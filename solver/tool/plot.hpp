@@ -31,8 +31,9 @@ struct LevelsPanel {
   std::vector<double> energies;    // level energies, ascending, energy unit
   // |psi_n(x)|^2 on the same x for the first densities.size() levels (densities[n] belongs
   // to energies[n]); may hold fewer entries than energies, or none. Any unit: each density
-  // is scaled so that its peak reaches LevelsFigure::density_height of the gap to the next
-  // level (the gap below, for the highest level) and drawn on its level line.
+  // is scaled so that its peak reaches LevelsFigure::density_height times the gap to the
+  // next level that is not near-degenerate with it (the gap below, for the highest level),
+  // at most that times the mean level spacing, and drawn on its level line.
   std::vector<std::vector<double>> densities;
 };
 

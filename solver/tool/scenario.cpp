@@ -205,8 +205,11 @@ class Reader {
 
   void read_units(const toml::table& root, Scenario& s);
   void read_term(const toml::table& t, int index, Scenario& s);
+  // Two columns of numbers (x and V, or t and value), the first strictly increasing, times the
+  // given unit factors; one header line of names may come first; '#' starts a comment.
   PotentialTable read_table_file(const toml::node& file_node, const std::string& dotted, double x_per_unit,
-                                 double v_per_unit) const;
+                                 double v_per_unit,
+                                 const std::array<std::string, 2>& names = {"x", "V"}) const;
   void read_box_and_grid(const toml::table& root, Scenario& s);
   void read_spectrum(const toml::table& root, Scenario& s);
 };
@@ -278,11 +281,13 @@ void Reader::read_units(const toml::table& root, Scenario& s) {
 }
 
 PotentialTable Reader::read_table_file(const toml::node& file_node, const std::string& dotted,
-                                       double x_per_unit, double v_per_unit) const {
+                                       double x_per_unit, double v_per_unit,
+                                       const std::array<std::string, 2>& names) const {
   const fs::path path = (base_ / fs::path(file_node.as_string()->get())).lexically_normal();
   std::ifstream in(path);
   if (!in) fail(file_node, dotted, "a readable data file (looked for " + path.string() + ")");
   const std::string data_file = path.string();
+  const std::string pair = names[0] + " and " + names[1];
   PotentialTable table;
   std::string line;
   bool header_allowed = true;
@@ -322,18 +327,18 @@ PotentialTable Reader::read_table_file(const toml::node& file_node, const std::s
     }
     header_allowed = false;
     if (fields.size() != 2)
-      bad(1, "two numbers per row, x and V (separated by a comma or spaces), not " +
+      bad(1, "two numbers per row, " + pair + " (separated by a comma or spaces), not " +
                  std::to_string(fields.size()) + " fields");
-    if (!numeric) bad(fields[0].second, "two numbers per row, x and V");
+    if (!numeric) bad(fields[0].second, "two numbers per row, " + pair);
     for (int i = 0; i < 2; ++i)
       if (!std::isfinite(values[i])) bad(fields[i].second, "finite numbers");
     if (!table.x.empty() && !(values[0] * x_per_unit > table.x.back()))
-      bad(fields[0].second, "x larger than on the row before (x must increase strictly)");
+      bad(fields[0].second, names[0] + " larger than on the row before (" + names[0] + " must increase strictly)");
     table.x.push_back(values[0] * x_per_unit);
     table.v.push_back(values[1] * v_per_unit);
   }
   if (table.x.size() < 2)
-    throw InputError(dotted, std::to_string(table.x.size()) + " rows", "at least 2 rows of x, V", "",
+    throw InputError(dotted, std::to_string(table.x.size()) + " rows", "at least 2 rows of " + pair, "",
                      data_file, 0, 0);
   return table;
 }

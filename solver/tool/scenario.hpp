@@ -19,13 +19,25 @@
 //   [spectrum]   levels, method, fd_order, degeneracy
 //   [grid]       points, left, right, convergence_check, search_half_width
 //   [output]     folder
+// What `trapwork work` and `trapwork sweep` add (all optional for `trapwork spectrum`):
+//   [protocol]   duration (tau; "0 us" is a sudden switch) and one or more
+//                [[protocol.change]] tables: parameter ("term.parameter"), ramp (constant,
+//                linear [default], smooth, smoother, table, formula), to, from (default: the
+//                value in [[potential]]); table: file, time_unit, value_unit; formula: formula
+//                (of t and tau, in time_unit; `pi` is 3.14159...), time_unit, value_unit
+//   [initial]    exactly one of temperature, mean_phonons, level, weights
+//   [work]       integrator, steps, frame, thermal_tolerance, max_initial_levels, final_margin,
+//                resolution, bin_width, reverse, time_step_check, threads
+//   [sweep]      parameter and either values = [...] or from, to, points
 #include <optional>
 #include <string>
 #include <string_view>
 #include <vector>
 
 #include "potentials/potential.hpp"
+#include "potentials/protocol.hpp"
 #include "solver/spectrum.hpp"
+#include "solver/work.hpp"
 #include "solver/units.hpp"
 
 namespace trapwork {
@@ -44,6 +56,63 @@ struct TermRecord {
   std::vector<std::pair<std::string, std::string>> settings;  // file, x_unit, expression, ...
 };
 
+// A parameter that a protocol or a sweep may change, with the dimension of its values in the
+// file. A plain number (no unit) is an internal value times plain_factor: 1, except for the
+// scale of a formula term, whose plain numbers are in the formula's energy_unit.
+struct ParameterSlot {
+  std::string address;  // "trap.centre"
+  Dimension dimension;  // none: a plain number
+  double plain_factor = 1;
+};
+
+// One [[protocol.change]]: a Schedule for one parameter, kept as given so that a sweep can
+// rebuild it with another duration or end value.
+struct ChangeSpec {
+  std::string parameter;              // "trap.centre"
+  Dimension dimension;
+  ScheduleForm form = ScheduleForm::linear;
+  std::string ramp;                   // as written: "linear", "smooth", ...
+  std::optional<double> from;         // internal; empty: the potential's value at build time
+  double to = 0;                      // internal (constant: the value held throughout)
+  std::string from_given, to_given;   // text in the file
+  std::vector<double> times, values;  // table (internal)
+  std::string file;                   // table file as given
+  std::string formula;                // formula as written
+  std::string internal_formula;       // what Schedule::formula receives (unit factors applied)
+  std::string time_unit, value_unit;  // table and formula
+};
+
+struct ProtocolSpec {
+  double duration = 0;  // internal
+  std::string duration_given;
+  std::vector<ChangeSpec> changes;
+};
+
+// The work calculation's settings ([initial] and [work]); request.spectrum is filled from the
+// scenario's [grid]/[spectrum] when the request is built (work_request below).
+struct WorkSettings {
+  WorkRequest request;
+  std::string initial_given;  // "temperature = \"20 uK\"", "level = 0", ...
+  std::string frame = "auto";
+  std::optional<double> resolution;  // internal energy; default: 1/20 of the lowest spacing
+  std::optional<double> bin_width;   // internal energy; default: the lowest spacing
+  bool threads_given = false;
+};
+
+enum class SweepTarget { duration, temperature, mean_phonons, parameter, change_to };
+
+struct SweepSpec {
+  std::string parameter;  // as written: "protocol.duration", "trap.quartic", "change[1].to"
+  SweepTarget target = SweepTarget::duration;
+  std::size_t change = 0;  // change_to: index into protocol.changes (0-based)
+  std::string address;     // parameter: "term.parameter"
+  Dimension dimension;
+  std::vector<double> values;      // internal, in the order given
+  std::vector<std::string> given;  // text of each value
+  std::string unit;                // display unit of the values (that of the first one; "" plain)
+  double internal_per_unit = 1;    // internal value of one display unit
+};
+
 struct Scenario {
   std::string file;  // the scenario file as given ("default" for the built-in one)
   std::string title, description;
@@ -55,6 +124,10 @@ struct Scenario {
   std::vector<TermRecord> terms;
   SpectrumRequest spectrum;
   std::string output_folder;
+  std::vector<ParameterSlot> parameters;  // every parameter a protocol may change
+  std::optional<ProtocolSpec> protocol;
+  std::optional<WorkSettings> work;       // present when [initial] is
+  std::optional<SweepSpec> sweep;
 };
 
 // Reads a scenario file. Throws InputError (with file, line, column) on every problem,
@@ -64,9 +137,22 @@ Scenario read_scenario(const std::string& path);
 // its folder) and for the default output folder "<stem>-output".
 Scenario read_scenario_text(std::string_view toml_text, std::string file_name);
 
-// The built-in scenario ("trapwork spectrum default"): an invented lab setting, a 40 u ion in
-// a 1 MHz trap with a small quartic correction (about 20 Hz shift of the lowest spacing).
+// The built-in scenario ("trapwork spectrum default", "trapwork demo"): an invented lab
+// setting, a 40 u ion in a 1 MHz trap with a quartic correction that raises the lowest
+// spacing by about 3 kHz, at a mean phonon number of 2, moved by ten oscillator lengths at
+// constant speed in 2.5 trap periods.
 std::string_view default_scenario_text();
+
+// The protocol of a scenario: one Schedule per change, `from` defaulting to the potential's
+// current value. Throws InputError (file and key, no position) when the scenario has no
+// [protocol] or the schedules are unusable.
+Protocol build_protocol(const Scenario& s);
+// The WorkRequest of a scenario: its [initial] and [work] settings and its grid/spectrum
+// request. Throws InputError naming the file when the scenario has no [initial].
+WorkRequest work_request(const Scenario& s);
+// The scenario with sweep value `index` applied (duration, temperature, mean phonon number, a
+// potential parameter or a change's end value). Requires s.sweep.
+Scenario at_sweep_point(const Scenario& s, std::size_t index);
 
 // Internal length of one micrometre: lengths in output tables are in um.
 inline double internal_per_um(const Scenario& s) {
