@@ -340,9 +340,7 @@ std::optional<HarmonicComparison> harmonic_comparison(const Potential& base, con
   return h;
 }
 
-}  // namespace
-
-WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkRequest& request) {
+WorkResult run_work_once(const Potential& base, const Protocol& protocol, const WorkRequest& request) {
   protocol.check(base);
   const double tau = protocol.duration();
   const auto translation = protocol.translation(base);
@@ -508,6 +506,33 @@ WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkR
                             " at half the time step: raise steps (now " + std::to_string(steps) + ")");
   if (request.progress) request.progress(1.0);
   return result;
+}
+
+}  // namespace
+
+// Levels are kept until the left-out thermal weight, the unresolved final weight and the
+// chance p_R(>=K) that the reverse run leaves the kept initial levels are all small (the last
+// bounds the Jarzynski residual; the thermal tail alone does not). When either escape
+// probability exceeds unresolved_tolerance the run is repeated with more final levels and a
+// 1000 times tighter thermal tolerance, at most twice.
+WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkRequest& request) {
+  WorkRequest r = request;
+  for (int attempt = 0;; ++attempt) {
+    WorkResult result = run_work_once(base, protocol, r);
+    const Diagnostics& d = result.diagnostics;
+    const double escape = std::max(d.unresolved_weight, d.truncation.reverse_tail);
+    if (!(escape > r.unresolved_tolerance) || attempt == 2) {
+      if (attempt > 0)
+        result.diagnostics.warnings.insert(result.diagnostics.warnings.begin(),
+            "levels enlarged " + std::to_string(attempt) + " time(s) to bound the escape probability (now " +
+            fmt(escape) + "; final margin " + std::to_string(r.final_margin) + ", thermal tolerance " +
+            fmt(r.thermal_tolerance) + ")");
+      return result;
+    }
+    r.final_margin *= 2;
+    r.thermal_tolerance /= 1e3;
+    r.max_initial_levels *= 2;
+  }
 }
 
 }  // namespace trapwork
