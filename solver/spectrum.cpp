@@ -186,6 +186,12 @@ Grid with_points(const Grid& shape, double left, double right, double spacing) {
 
 }  // namespace
 
+double effective_tolerance(const Grid& grid, const std::vector<double>& v, double requested) {
+  double v_max = 0;
+  for (double x : v) v_max = std::max(v_max, std::abs(x));
+  return std::max(requested, 64 * std::numeric_limits<double>::epsilon() * (grid.max_kinetic() + v_max));
+}
+
 std::vector<int> degenerate_groups(const Eigen::VectorXd& energies, double tolerance) {
   std::vector<int> g(std::size_t(energies.size()), 0);
   for (Eigen::Index k = 1; k < energies.size(); ++k)
@@ -205,7 +211,10 @@ Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const Sp
   if (method == EigenMethod::hermite)
     throw ContractViolation("solve_spectrum: the Hermite basis is handled by compute_spectrum");
 
-  Spectrum s{grid, {}, {}, {}, {}, 0, {}, 0};
+  Spectrum s;
+  s.grid = grid;
+  s.residual_tolerance = effective_tolerance(grid, v, options.residual_tolerance);
+  const double tolerance = s.residual_tolerance;
   const std::string basis = grid.boundary() == Boundary::periodic ? "Fourier" : "sine";
   Eigen::MatrixXd images;
   if (method == EigenMethod::dense) {
@@ -255,8 +264,8 @@ Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const Sp
         const Eigen::VectorXd r = residual_norms(ritz.vectors, ritz.images, ritz.values);
         std::vector<int> open;
         for (int i = 0; i < nev; ++i)
-          if (r(i) >= 0.1 * options.residual_tolerance) open.push_back(i);
-        if (r.head(k).maxCoeff() < options.residual_tolerance || open.empty()) break;
+          if (r(i) >= 0.1 * tolerance) open.push_back(i);
+        if (r.head(k).maxCoeff() < tolerance || open.empty()) break;
         Eigen::MatrixXd corrections(n, Eigen::Index(open.size()));
         ShiftInvert near(h);
         for (std::size_t c = 0; c < open.size(); ++c) {
@@ -278,8 +287,7 @@ Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const Sp
   }
   const Eigen::VectorXd r = residual_norms(s.states, images, s.energies);
   s.residuals.assign(r.data(), r.data() + r.size());
-  s.converged = int(std::count_if(s.residuals.begin(), s.residuals.end(),
-                                  [&](double x) { return x < options.residual_tolerance; }));
+  s.converged = int(std::count_if(s.residuals.begin(), s.residuals.end(), [&](double x) { return x < tolerance; }));
   s.states /= std::sqrt(grid.spacing());  // columns had unit Euclidean norm
   fix_signs(grid, s.states);
   s.group = degenerate_groups(s.energies, options.degeneracy_tolerance);
@@ -427,7 +435,8 @@ Spectrum hermite_spectrum(const Potential& potential, const HarmonicApproximatio
     throw PhysicsError("method = \"hermite\": the polynomial does not confine (negative leading coefficient)");
   HermiteBasis basis{harmonic.omega > 0 ? harmonic.omega : 1.0, harmonic.x_min, std::max(4 * options.levels + 60, 120)};
   Eigen::SelfAdjointEigenSolver<Eigen::MatrixXd> eig(hermite_hamiltonian(basis, *coefficients));
-  Spectrum s{grid, {}, {}, {}, {}, 0, {}, 0};
+  Spectrum s;
+  s.grid = grid;
   const int k = options.levels;
   s.energies = eig.eigenvalues().head(k);
   const Eigen::MatrixXd functions = hermite_functions(basis, grid.points(), basis.size);
@@ -438,8 +447,9 @@ Spectrum hermite_spectrum(const Potential& potential, const HarmonicApproximatio
   apply_hamiltonian(kinetic, v, s.states, images);
   const Eigen::VectorXd r = residual_norms(s.states, images, s.energies);
   s.residuals.assign(r.data(), r.data() + r.size());
+  s.residual_tolerance = effective_tolerance(grid, v, options.residual_tolerance);
   s.converged = int(std::count_if(s.residuals.begin(), s.residuals.end(),
-                                  [&](double x) { return x < options.residual_tolerance; }));
+                                  [&](double x) { return x < s.residual_tolerance; }));
   s.states /= std::sqrt(grid.spacing());
   fix_signs(grid, s.states);
   s.group = degenerate_groups(s.energies, options.degeneracy_tolerance);
@@ -559,9 +569,9 @@ SpectrumResult compute_spectrum(const Potential& potential, const SpectrumReques
   if (worst_edge > request.edge_tolerance)
     result.warnings.push_back("a bound state reaches the grid edge (relative density " + fmt(worst_edge) +
                               " on the outermost grid points): widen the grid ([grid] left/right)");
-  if (worst_residual > request.options.residual_tolerance && request.options.method != EigenMethod::hermite)
+  if (worst_residual > result.spectrum.residual_tolerance && request.options.method != EigenMethod::hermite)
     result.warnings.push_back("largest eigenpair residual " + fmt(worst_residual) + " exceeds the tolerance " +
-                              fmt(request.options.residual_tolerance) + ": use more points or method = \"dense\"");
+                              fmt(result.spectrum.residual_tolerance) + ": use more points or method = \"dense\"");
   const double scale = std::max(1.0, std::abs(result.spectrum.energies(k - 1) - result.harmonic.v_min));
   if (result.convergence.done && result.convergence.max_energy_change > request.energy_tolerance * scale)
     result.warnings.push_back("energies change by up to " + fmt(result.convergence.max_energy_change) +

@@ -43,7 +43,9 @@ struct Spectrum {
   Eigen::MatrixXd states;           // n x K
   std::vector<double> residuals;    // ||H psi - E psi|| with the grid's pseudo-spectral H
   std::vector<int> group;           // degenerate-group index of each level (0, 1, 2, ...)
-  int converged = 0;                // levels whose residual is below tolerance
+  int converged = 0;                // levels whose residual is below residual_tolerance
+  double residual_tolerance = 0;    // the one applied: the requested one, or the rounding floor
+                                    // of H psi on this grid if that is higher
   std::string method;               // "dense Fourier", "Lanczos FD-8 + Fourier Rayleigh-Ritz"...
   int iterations = 0;               // Lanczos restarts or refinement sweeps used
 };
@@ -51,6 +53,11 @@ struct Spectrum {
 // Lowest eigenpairs of the potential samples v on the grid. Throws PhysicsError if more levels
 // are asked for than the grid holds.
 Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const SpectrumOptions& options);
+
+// The residual tolerance a grid allows: the requested one, or 64 eps (max kinetic + max |V|),
+// the rounding floor of applying H in double precision (a backward-stable residual is
+// ~ eps ||H||; common practice), whichever is larger. Very fine grids raise the floor.
+double effective_tolerance(const Grid& grid, const std::vector<double>& v, double requested);
 
 // Groups levels whose neighbouring spacing is below tol (relative to 1 energy unit).
 std::vector<int> degenerate_groups(const Eigen::VectorXd& energies, double tolerance);

@@ -3,7 +3,7 @@
 // in a child process so that its peak memory (ru_maxrss) is its own. Prints a table with the
 // growth exponent of time and memory against N between successive sizes.
 //
-//   build/validation/bench_spectrum [min_log2=14] [max_log2=20]
+//   build/validation/bench_spectrum [min_log2=14] [max_log2=20] [K=50,200]
 #include <sys/resource.h>
 #include <sys/wait.h>
 #include <unistd.h>
@@ -12,6 +12,7 @@
 #include <cmath>
 #include <cstdio>
 #include <cstdlib>
+#include <vector>
 
 #include "solver/spectrum.hpp"
 
@@ -24,7 +25,13 @@ int main(int argc, char** argv) {
   std::printf("# lowest K levels of p^2/2 + x^2/2 + 2e-3 x^4 on [-40, 40); method: shift-invert Lanczos (FD-8) + Fourier Rayleigh-Ritz\n");
   std::printf("%6s %9s %10s %11s %9s %9s %11s %12s\n", "K", "N", "time_s", "peak_MiB", "t_growth", "m_growth",
               "max_resid", "E_K-1");
-  for (int levels : {50, 200}) {
+  std::vector<int> level_counts;
+  for (const char* p = argc > 3 ? argv[3] : "50,200"; *p;) {
+    char* end = nullptr;
+    level_counts.push_back(int(std::strtol(p, &end, 10)));
+    p = *end == ',' ? end + 1 : end;
+  }
+  for (int levels : level_counts) {
     double last_time = 0, last_mem = 0;
     for (int p = lo; p <= hi; ++p) {
       const std::size_t n = std::size_t(1) << p;
