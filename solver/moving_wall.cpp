@@ -1,0 +1,728 @@
+#include "solver/moving_wall.hpp"
+
+#include <fftw3.h>
+
+#include <algorithm>
+#include <boost/numeric/odeint.hpp>
+#include <cmath>
+#include <numbers>
+#include <sstream>
+
+#include "solver/errors.hpp"
+#include "solver/hamiltonian.hpp"
+#include "solver/thermal.hpp"
+
+namespace trapwork {
+
+static_assert(Propagator<WallSplitOperatorPropagator>);
+static_assert(Propagator<WallEigenbasisPropagator>);
+
+namespace {
+
+constexpr double pi = std::numbers::pi;
+using complex = std::complex<double>;
+
+std::string fmt(double v) {
+  std::ostringstream s;
+  s.precision(6);
+  s << v;
+  return s.str();
+}
+
+std::string address_prefix(const std::string& address, const std::string& suffix) {
+  if (address.size() <= suffix.size() || address.compare(address.size() - suffix.size(), suffix.size(), suffix) != 0)
+    return {};
+  return address.substr(0, address.size() - suffix.size());
+}
+
+// 5-point Gauss-Legendre on [t, t + dt] (symmetric in the interval, so the splitting stays
+// time-reversible): nodes and weights on [-1, 1] (Abramowitz & Stegun 25.4.30, common practice).
+template <class F>
+double gauss5(F&& f, double t, double dt) {
+  static constexpr double x[5] = {-0.9061798459386640, -0.5384693101056831, 0.0, 0.5384693101056831,
+                                  0.9061798459386640};
+  static constexpr double w[5] = {0.2369268850561891, 0.4786286704993665, 0.5688888888888889,
+                                  0.4786286704993665, 0.2369268850561891};
+  double s = 0;
+  for (int i = 0; i < 5; ++i) s += w[i] * f(t + dt * (1 + x[i]) / 2);
+  return s * dt / 2;
+}
+
+// gamma(t) = (1/2) int_0^t a'^2: 32 panels of 5-point Gauss-Legendre.
+double left_wall_phase(const WallProtocol& p, double t) {
+  if (t == 0) return 0;
+  const int panels = 32;
+  double s = 0;
+  for (int i = 0; i < panels; ++i)
+    s += gauss5([&](double time) { const double r = p.walls(time).left.rate; return r * r / 2; },
+                t * i / panels, t / panels);
+  return s;
+}
+
+// Sign convention of solver/spectrum.hpp for boxes: the first lobe at the left wall positive.
+// For a sine-basis vector c that is the sign of psi'(left) ~ sum_k k c_k.
+void fix_sine_signs(Eigen::MatrixXd& vectors) {
+  for (Eigen::Index j = 0; j < vectors.cols(); ++j) {
+    double slope = 0;
+    for (Eigen::Index k = 0; k < vectors.rows(); ++k) slope += double(k + 1) * vectors(k, j);
+    if (slope < 0) vectors.col(j) *= -1;
+  }
+}
+
+double log_sum_weights(const Eigen::VectorXd& energies, double beta) { return log_partition(energies, beta); }
+
+}  // namespace
+
+// ---- WallProtocol ------------------------------------------------------------------------
+
+WallProtocol::WallProtocol(double tau, Schedule left, Schedule right, Potential inner, std::vector<Schedule> inner_schedules)
+    : tau_(tau), left_(std::move(left)), right_(std::move(right)), inner_(std::move(inner)),
+      inner_protocol_(tau, std::move(inner_schedules)) {
+  name_ = address_prefix(left_.address(), ".left");
+  if (name_.empty() || address_prefix(right_.address(), ".right") != name_)
+    throw InputError(left_.address() + ", " + right_.address(), left_.address() + ", " + right_.address(),
+                     "wall schedules addressed \"<name>.left\" and \"<name>.right\" with one name (say walls.left, walls.right)");
+  left_.check(tau_);
+  right_.check(tau_);
+  inner_protocol_.check(inner_);
+  for (const auto& term : inner_.terms())
+    if (term.name() == name_)
+      throw InputError(name_, name_, "an inner potential term name other than the walls' name");
+  const int samples = 1024;
+  for (int i = 0; i <= samples; ++i) {
+    const double t = tau_ * i / samples;
+    const double l = tau_ > 0 ? walls(t).length() : (i == 0 ? initial_walls().length() : final_walls().length());
+    if (!(l > 0))
+      throw PhysicsError("moving walls: the box width b - a = " + fmt(l) + " at t = " + fmt(t) +
+                         " is not positive; the walls must not meet or cross");
+  }
+}
+
+WallProtocol WallProtocol::linear_right(double left, double right_from, double right_to, double tau, Potential inner) {
+  return WallProtocol(tau, Schedule::constant("walls.left", left), Schedule::linear("walls.right", right_from, right_to),
+                      std::move(inner));
+}
+
+WallState WallProtocol::walls(double t) const { return {left_.evaluate(t, tau_), right_.evaluate(t, tau_)}; }
+
+WallState WallProtocol::initial_walls() const {
+  if (tau_ > 0) return walls(0);
+  return {{left_.initial_value(0), 0, 0}, {right_.initial_value(0), 0, 0}};
+}
+
+WallState WallProtocol::final_walls() const {
+  if (tau_ > 0) return walls(tau_);
+  return {{left_.final_value(0), 0, 0}, {right_.final_value(0), 0, 0}};
+}
+
+Potential WallProtocol::inner_at(double t) const {
+  if (flat()) return inner_;
+  return inner_protocol_.at(inner_, t);
+}
+
+WallProtocol WallProtocol::reversed() const {
+  std::vector<Schedule> inner;
+  for (const auto& s : inner_protocol_.schedules()) inner.push_back(s.reversed());
+  return WallProtocol(tau_, left_.reversed(), right_.reversed(), inner_, std::move(inner));
+}
+
+Protocol WallProtocol::as_protocol() const {
+  std::vector<Schedule> all{left_, right_};
+  for (const auto& s : inner_protocol_.schedules()) all.push_back(s);
+  return Protocol(tau_, std::move(all));
+}
+
+std::optional<double> WallProtocol::constant_speed() const {
+  if (!flat() || !(tau_ > 0)) return std::nullopt;
+  auto linear = [](const Schedule& s) { return s.form() == ScheduleForm::constant || s.form() == ScheduleForm::linear; };
+  if (!linear(left_) || !linear(right_)) return std::nullopt;
+  const double da = left_.final_value(tau_) - left_.initial_value(tau_);
+  const double db = right_.final_value(tau_) - right_.initial_value(tau_);
+  if (da != 0 && db != 0) return std::nullopt;
+  return (db - da) / tau_;
+}
+
+// ---- split-operator on the dilated box -------------------------------------------------
+
+struct WallSplitOperatorPropagator::Plans {
+  std::size_t n = 0;
+  fftw_complex* buffer = nullptr;
+  fftw_plan plan = nullptr;  // RODFT00 on real and imaginary parts of every column; its own inverse
+  Plans(std::size_t n_, int columns) : n(n_) {
+    buffer = fftw_alloc_complex(n * std::size_t(columns));
+    if (!buffer) throw PhysicsError("moving-wall propagator: cannot allocate the transform buffer");
+    std::lock_guard<std::mutex> lock(fftw_planner_mutex());
+    fftw_iodim dim{int(n), 2, 2};
+    fftw_iodim many[2] = {{columns, 2 * int(n), 2 * int(n)}, {2, 1, 1}};
+    fftw_r2r_kind kind = FFTW_RODFT00;
+    double* data = reinterpret_cast<double*>(buffer);
+    plan = fftw_plan_guru_r2r(1, &dim, 2, many, data, data, &kind, FFTW_MEASURE);  // before any data is written
+    if (!plan) {
+      fftw_free(buffer);
+      throw PhysicsError("moving-wall propagator: FFTW could not create the sine-transform plan");
+    }
+  }
+  ~Plans() {
+    std::lock_guard<std::mutex> lock(fftw_planner_mutex());
+    fftw_destroy_plan(plan);
+    fftw_free(buffer);
+  }
+  complex* data() { return reinterpret_cast<complex*>(buffer); }
+};
+
+WallSplitOperatorPropagator::WallSplitOperatorPropagator(WallProtocol protocol, std::size_t points, int columns,
+                                                         SplitOrder order)
+    : protocol_(std::move(protocol)), grid_(Grid::box(0, 1, points)), y_(grid_.points()), columns_(columns),
+      order_(order), cached_t_{std::nan(""), std::nan("")} {
+  TRAPWORK_EXPECT(columns >= 1, "WallSplitOperatorPropagator needs at least one column");
+  plans_ = std::make_unique<Plans>(grid_.size(), columns);
+}
+
+WallSplitOperatorPropagator::~WallSplitOperatorPropagator() = default;
+WallSplitOperatorPropagator::WallSplitOperatorPropagator(WallSplitOperatorPropagator&&) noexcept = default;
+WallSplitOperatorPropagator& WallSplitOperatorPropagator::operator=(WallSplitOperatorPropagator&&) noexcept = default;
+
+const std::vector<double>& WallSplitOperatorPropagator::potential_at(double t) {
+  for (int k = 0; k < 2; ++k)
+    if (cached_t_[k] == t) return cached_v_[k];
+  const int k = cache_next_;
+  cache_next_ = 1 - cache_next_;
+  std::vector<double>& v = cached_v_[k];
+  const std::size_t n = y_.size();
+  v.assign(n, 0.0);
+  const WallState w = protocol_.walls(t);
+  const double l = w.length();
+  if (!protocol_.flat()) {
+    std::vector<double> x(n);
+    for (std::size_t j = 0; j < n; ++j) x[j] = w.left.value + l * y_[j];
+    protocol_.inner_at(t).evaluate(x.data(), v.data(), n, t);
+  }
+  for (std::size_t j = 0; j < n; ++j)
+    v[j] += 0.5 * l * w.acceleration() * y_[j] * y_[j] + l * w.left.acceleration * y_[j];
+  cached_t_[k] = t;
+  return v;
+}
+
+void WallSplitOperatorPropagator::strang(State& state, double t, double dt) {
+  Plans& p = *plans_;
+  const std::size_t n = p.n;
+  std::vector<complex> kick(n);
+  auto make_kick = [&](const std::vector<double>& v) {
+    double lo = v[0], hi = v[0];
+    for (std::size_t j = 0; j < n; ++j) {
+      kick[j] = std::polar(1.0, -v[j] * dt / 2);
+      lo = std::min(lo, v[j]);
+      hi = std::max(hi, v[j]);
+    }
+    max_phase_ = std::max(max_phase_, (hi - lo) * std::abs(dt) / 2);
+  };
+  complex* buffer = p.data();
+  make_kick(potential_at(t));
+  for (int c = 0; c < columns_; ++c) {
+    const complex* column = state.col(c).data();
+    complex* out = buffer + std::size_t(c) * n;
+    for (std::size_t j = 0; j < n; ++j) out[j] = column[j] * kick[j];
+  }
+  fftw_execute(p.plan);
+  // exact kinetic flow: exp(-i (k pi)^2/2 int_t^{t+dt} ds / L(s)^2); RODFT00 twice = 2(n+1)
+  const double lambda = gauss5([&](double s) { const double l = protocol_.walls(s).length(); return 1 / (l * l); }, t, dt);
+  const auto& modes = grid_.kinetic_modes();
+  const double normalisation = 1.0 / (2.0 * double(n + 1));
+  for (std::size_t j = 0; j < n; ++j) kick[j] = std::polar(normalisation, -modes[j] * lambda);
+  max_phase_ = std::max(max_phase_, grid_.max_kinetic() * std::abs(lambda));
+  for (int c = 0; c < columns_; ++c) {
+    complex* out = buffer + std::size_t(c) * n;
+    for (std::size_t j = 0; j < n; ++j) out[j] *= kick[j];
+  }
+  fftw_execute(p.plan);
+  make_kick(potential_at(t + dt));
+  for (int c = 0; c < columns_; ++c) {
+    complex* column = state.col(c).data();
+    const complex* in = buffer + std::size_t(c) * n;
+    for (std::size_t j = 0; j < n; ++j) column[j] = in[j] * kick[j];
+  }
+}
+
+void WallSplitOperatorPropagator::step(State& state, double t, double dt) {
+  TRAPWORK_EXPECT(state.rows() == Eigen::Index(plans_->n) && state.cols() == columns_,
+                  "WallSplitOperatorPropagator::step: state is not grid points x columns");
+  max_phase_ = 0;
+  if (order_ == SplitOrder::strang) {
+    strang(state, t, dt);
+    return;
+  }
+  // Yoshida triple jump, the same composition as SplitOperatorPropagator::step
+  const double cbrt2 = std::cbrt(2.0);
+  const double g1 = 1 / (2 - cbrt2), g0 = -cbrt2 / (2 - cbrt2);
+  strang(state, t, g1 * dt);
+  strang(state, t + g1 * dt, g0 * dt);
+  strang(state, t + (g1 + g0) * dt, t + dt - (t + (g1 + g0) * dt));
+}
+
+namespace {
+// Multiplies row j by exp(sign i theta(y_j, t)), theta = L a' y + L L' y^2/2 + gamma(t).
+void chirp(const WallProtocol& p, const std::vector<double>& y, Eigen::MatrixXcd& state, double t, double sign) {
+  TRAPWORK_EXPECT(state.rows() == Eigen::Index(y.size()), "chirp: state size != grid size");
+  if (p.duration() == 0) return;  // no motion defined
+  const WallState w = p.walls(t);
+  const double l = w.length(), gamma = left_wall_phase(p, t);
+  for (std::size_t j = 0; j < y.size(); ++j) {
+    const double theta = l * w.left.rate * y[j] + 0.5 * l * w.rate() * y[j] * y[j] + gamma;
+    state.row(Eigen::Index(j)) *= std::polar(1.0, sign * theta);
+  }
+}
+}  // namespace
+
+void WallSplitOperatorPropagator::to_lab(State& state, double t) const { chirp(protocol_, y_, state, t, +1); }
+void WallSplitOperatorPropagator::from_lab(State& state, double t) const { chirp(protocol_, y_, state, t, -1); }
+
+// ---- fixed-sine-basis ODE ---------------------------------------------------------------
+
+WallEigenbasisPropagator::WallEigenbasisPropagator(WallProtocol protocol, int modes, OdeTolerances tolerances)
+    : protocol_(std::move(protocol)), modes_(modes), tolerances_(tolerances), m_(modes, modes), d_(modes, modes) {
+  TRAPWORK_EXPECT(modes >= 1, "WallEigenbasisPropagator needs at least one mode");
+  for (int k = 1; k <= modes; ++k)
+    for (int n = 1; n <= modes; ++n) {
+      const double kk = k, nn = n, denominator = kk * kk - nn * nn;
+      const bool odd = (k + n) % 2 != 0;
+      m_(k - 1, n - 1) = k == n ? 0.0 : (odd ? 1.0 : -1.0) * 2 * kk * nn / denominator;
+      d_(k - 1, n - 1) = odd ? 4 * kk * nn / denominator : 0.0;
+    }
+  if (!protocol_.flat()) {
+    gauss_legendre(2 * modes + 64, nodes_, weights_);
+    chi_.resize(nodes_.size(), modes);
+    for (Eigen::Index q = 0; q < nodes_.size(); ++q)
+      for (int k = 0; k < modes; ++k)
+        chi_(q, k) = std::sqrt(2 * weights_[q]) * std::sin((k + 1) * pi * nodes_[q]);
+  }
+}
+
+Eigen::MatrixXd WallEigenbasisPropagator::hamiltonian(double t) const {
+  const WallState w = protocol_.walls(t);
+  const double l = w.length();
+  Eigen::MatrixXd h = Eigen::MatrixXd::Zero(modes_, modes_);
+  if (!protocol_.flat()) {
+    std::vector<double> x(std::size_t(nodes_.size())), v(x.size());
+    for (std::size_t q = 0; q < x.size(); ++q) x[q] = w.left.value + l * nodes_[Eigen::Index(q)];
+    protocol_.inner_at(t).evaluate(x.data(), v.data(), x.size(), t);
+    const Eigen::Map<const Eigen::VectorXd> vq(v.data(), Eigen::Index(v.size()));
+    h.noalias() = chi_.transpose() * vq.asDiagonal() * chi_;
+  }
+  for (int k = 0; k < modes_; ++k) h(k, k) += 0.5 * std::pow((k + 1) * pi / l, 2);
+  return h;
+}
+
+void WallEigenbasisPropagator::step(State& state, double t, double dt) {
+  TRAPWORK_EXPECT(state.rows() == modes_, "WallEigenbasisPropagator::step: state rows != modes");
+  if (dt == 0) return;
+  namespace odeint = boost::numeric::odeint;
+  using Vector = std::vector<double>;
+  const Eigen::Index k = modes_, cols = state.cols();
+  Vector x(std::size_t(2 * k * cols));
+  Eigen::Map<Eigen::MatrixXcd>(reinterpret_cast<complex*>(x.data()), k, cols) = state;
+  Eigen::MatrixXcd generator(k, k);
+  auto rhs = [&](const Vector& y, Vector& dydt, double time) {
+    ++evaluations_;
+    const WallState w = protocol_.walls(time);
+    const double l = w.length();
+    // dc/dt = (-i H + (L'/L) M + (a'/L) D) c
+    generator = complex(0, -1) * hamiltonian(time).cast<complex>();
+    generator.real() += (w.rate() / l) * m_ + (w.left.rate / l) * d_;
+    Eigen::Map<const Eigen::MatrixXcd> c(reinterpret_cast<const complex*>(y.data()), k, cols);
+    Eigen::Map<Eigen::MatrixXcd> dc(reinterpret_cast<complex*>(dydt.data()), k, cols);
+    dc.noalias() = generator * c;
+  };
+  auto stepper = odeint::make_controlled(tolerances_.absolute, tolerances_.relative, odeint::runge_kutta_dopri5<Vector>());
+  double hint = step_hint_ > 0 ? std::min(step_hint_, std::abs(dt)) : std::abs(dt) / 64;
+  odeint::integrate_adaptive(stepper, rhs, x, t, t + dt, std::copysign(hint, dt));
+  state = Eigen::Map<Eigen::MatrixXcd>(reinterpret_cast<complex*>(x.data()), k, cols);
+  step_hint_ = std::abs(dt) / 64;
+}
+
+Eigen::MatrixXcd wall_eigenbasis_amplitudes(const WallProtocol& protocol, int modes, int initial, int final,
+                                            OdeTolerances tolerances) {
+  TRAPWORK_EXPECT(initial >= 1 && final >= 1 && initial <= modes && final <= modes,
+                  "wall_eigenbasis_amplitudes: level counts must be within 1..modes");
+  WallEigenbasisPropagator p(protocol, modes, tolerances);
+  auto eigenvectors = [&](double t) {
+    Eigen::SelfAdjointEigenSolver<Eigen::MatrixXd> solver(p.hamiltonian(t));
+    Eigen::MatrixXd v = solver.eigenvectors();
+    fix_sine_signs(v);
+    return v;
+  };
+  const Eigen::MatrixXd va = eigenvectors(0), vb = eigenvectors(protocol.duration());
+  Eigen::MatrixXcd c = va.leftCols(initial).cast<complex>();
+  p.step(c, 0, protocol.duration());
+  return vb.leftCols(final).transpose().cast<complex>() * c;
+}
+
+// ---- closed forms -----------------------------------------------------------------------
+
+void gauss_legendre(int n, Eigen::VectorXd& nodes, Eigen::VectorXd& weights) {
+  TRAPWORK_EXPECT(n >= 1, "gauss_legendre needs n >= 1");
+  nodes.resize(n);
+  weights.resize(n);
+  for (int i = 0; i < (n + 1) / 2; ++i) {
+    double z = std::cos(pi * (i + 0.75) / (n + 0.5)), derivative = 0;
+    for (int iteration = 0; iteration < 100; ++iteration) {
+      double p0 = 1, p1 = 0;
+      for (int j = 1; j <= n; ++j) {  // P_j(z) = ((2j-1) z P_{j-1} - (j-1) P_{j-2}) / j
+        const double p2 = p1;
+        p1 = p0;
+        p0 = ((2.0 * j - 1) * z * p1 - (j - 1.0) * p2) / j;
+      }
+      derivative = n * (z * p0 - p1) / (z * z - 1);
+      const double previous = z;
+      z = previous - p0 / derivative;
+      if (std::abs(z - previous) < 1e-16) break;
+    }
+    const double w = 2 / ((1 - z * z) * derivative * derivative);
+    // on [0, 1]: y = (1 -+ z)/2, weight w/2
+    nodes[i] = (1 - z) / 2;
+    nodes[n - 1 - i] = (1 + z) / 2;
+    weights[i] = weights[n - 1 - i] = w / 2;
+  }
+}
+
+Eigen::MatrixXcd chirp_matrix(double theta, int modes, int rows) {
+  TRAPWORK_EXPECT(modes >= 1, "chirp_matrix needs modes >= 1");
+  if (rows <= 0 || rows > modes) rows = modes;
+  Eigen::VectorXd y, w;
+  gauss_legendre(int(std::ceil(pi * modes + std::abs(theta))) + 40, y, w);
+  Eigen::MatrixXd s(y.size(), modes);
+  Eigen::VectorXd c(y.size()), sn(y.size());
+  for (Eigen::Index q = 0; q < y.size(); ++q) {
+    c[q] = std::cos(theta * y[q] * y[q]);
+    sn[q] = std::sin(theta * y[q] * y[q]);
+    for (int k = 0; k < modes; ++k) s(q, k) = std::sqrt(2 * w[q]) * std::sin((k + 1) * pi * y[q]);
+  }
+  // real and imaginary parts as two real products (G is symmetric: the first rows suffice)
+  const auto top = s.leftCols(rows).transpose();
+  Eigen::MatrixXcd g(rows, modes);
+  g.real() = top * (c.asDiagonal() * s);
+  g.imag() = top * (sn.asDiagonal() * s);
+  return g;
+}
+
+Eigen::MatrixXcd doescher_rice_amplitudes(double L0, double L1, double u, int K, int modes) {
+  TRAPWORK_EXPECT(K >= 1, "doescher_rice_amplitudes needs K >= 1");
+  if (!(L0 > 0) || !(L1 > 0) || !std::isfinite(u))
+    throw PhysicsError("Doescher-Rice: box widths must be positive (L0 = " + fmt(L0) + ", L1 = " + fmt(L1) + ")");
+  if (L1 == L0) return Eigen::MatrixXcd::Identity(K, K);
+  if (u == 0 || (L1 - L0) * u < 0)
+    throw PhysicsError("Doescher-Rice: the wall speed u = " + fmt(u) + " does not take L from " + fmt(L0) +
+                       " to " + fmt(L1));
+  if (modes <= 0) modes = K + 100;
+  modes = std::max(modes, K);
+  const double tau = (L1 - L0) / u;
+  // G symmetric: G0's first K columns are the transpose of its first K rows
+  const Eigen::MatrixXcd g1 = chirp_matrix(u * L1 / 2, modes, K), g0 = chirp_matrix(-u * L0 / 2, modes, K).transpose();
+  Eigen::VectorXcd phase(modes);
+  for (int n = 1; n <= modes; ++n) phase[n - 1] = std::polar(1.0, -double(n) * n * pi * pi * tau / (2 * L0 * L1));
+  return g1 * phase.asDiagonal() * g0;
+}
+
+double box_state_weight_inside(double a, double b, int m, double c, double d) {
+  const double l = b - a, k = m + 1;
+  auto f = [&](double s) { return s - std::sin(2 * k * pi * s) / (2 * k * pi); };
+  return f((d - a) / l) - f((c - a) / l);
+}
+
+Eigen::MatrixXcd sudden_wall_amplitudes(double a0, double b0, double a1, double b1, int initial, int final) {
+  TRAPWORK_EXPECT(initial >= 1 && final >= 1, "sudden_wall_amplitudes needs level counts >= 1");
+  if (!(b0 > a0) || !(b1 > a1)) throw PhysicsError("sudden wall change: box widths must be positive");
+  if (a1 > a0 || b1 < b0) {
+    const double c = std::max(a0, a1), d = std::min(b0, b1);
+    const double inside = d > c ? box_state_weight_inside(a0, b0, 0, c, d) : 0.0;
+    throw PhysicsError(
+        "sudden compression of a hard wall, box [" + fmt(a0) + ", " + fmt(b0) + "] -> [" + fmt(a1) + ", " + fmt(b1) +
+        "], refused: the ground state has weight " + fmt(1 - inside) +
+        " outside the new box. Projecting onto the new box would be a post-selected position measurement, not a "
+        "unitary work protocol, and the cut state does not vanish at the new wall, so its energy in the new box is "
+        "infinite. Move the wall at a finite speed (tau > 0) instead");
+  }
+  const double l0 = b0 - a0, l1 = b1 - a1, r = l0 / l1;
+  auto sinc = [](double z) { return std::abs(z) < 1e-8 ? 1 - z * z / 6 : std::sin(z) / z; };
+  Eigen::MatrixXcd a(final, initial);
+  for (int n = 1; n <= final; ++n) {
+    const double phi = n * pi * (a0 - a1) / l1, alpha = n * pi * r;
+    for (int m = 1; m <= initial; ++m) {
+      const double e = alpha - m * pi, h = alpha + m * pi;
+      a(n - 1, m - 1) = std::sqrt(r) * (std::cos(phi + e / 2) * sinc(e / 2) - std::cos(phi + h / 2) * sinc(h / 2));
+    }
+  }
+  return a;
+}
+
+Spectrum flat_box_spectrum(double a, double b, std::size_t points, int levels) {
+  Spectrum s;
+  s.grid = Grid::box(a, b, points);
+  if (levels < 1 || std::size_t(levels) > points)
+    throw PhysicsError("flat box: " + std::to_string(levels) + " levels asked for on a sine basis of " +
+                       std::to_string(points) + " modes");
+  const double l = b - a;
+  s.energies.resize(levels);
+  s.states.resize(Eigen::Index(points), levels);
+  for (int k = 1; k <= levels; ++k) {
+    s.energies[k - 1] = 0.5 * std::pow(k * pi / l, 2);
+    for (std::size_t j = 0; j < points; ++j)
+      s.states(Eigen::Index(j), k - 1) = std::sqrt(2 / l) * std::sin(k * pi * double(j + 1) / double(points + 1));
+  }
+  s.residuals.assign(std::size_t(levels), 0.0);
+  s.group.resize(std::size_t(levels));
+  for (int k = 0; k < levels; ++k) s.group[std::size_t(k)] = k;
+  s.converged = levels;
+  s.method = "analytic sine basis (flat box)";
+  return s;
+}
+
+WorkDistribution adiabatic_wall_work(const Eigen::VectorXd& initial_energies, const Eigen::VectorXd& final_energies,
+                                     const std::vector<double>& weights) {
+  const int k = int(weights.size());
+  TRAPWORK_EXPECT(initial_energies.size() >= k && final_energies.size() >= k,
+                  "adiabatic_wall_work: fewer energies than weights");
+  WorkInput in{adiabatic_transition_matrix(k, k), initial_energies.head(k), final_energies.head(k), weights, {}, {},
+               std::nullopt};
+  return work_distribution(in);
+}
+
+// ---- driver ---------------------------------------------------------------------------
+
+namespace {
+
+struct WallRun {
+  Eigen::MatrixXcd amplitudes;  // final levels x initial levels
+  double norm_drift = 0, max_phase = 0;
+};
+
+Spectrum box_spectrum(const WallProtocol& p, const WallState& w, double t, const WallWorkRequest& request, int levels) {
+  levels = std::min<int>(levels, int(request.points));
+  if (p.flat()) return flat_box_spectrum(w.left.value, w.right.value, request.points, levels);
+  const Grid grid = Grid::box(w.left.value, w.right.value, request.points);
+  levels = std::min<int>(levels, int(request.points) / 2);  // solve_spectrum resolves at most half the points
+  SpectrumOptions options = request.spectrum;
+  options.levels = levels;
+  return solve_spectrum(grid, p.inner_at(t).evaluate(grid.points(), t), options);
+}
+
+WallRun run_walls(const WallProtocol& p, const Spectrum& initial, const Spectrum& final, int kept, int finals,
+                  int steps, SplitOrder order) {
+  const double tau = p.duration();
+  const WallState wa = p.walls(0), wb = p.walls(tau);
+  WallSplitOperatorPropagator propagator(p, initial.grid.size(), kept, order);
+  const double dy = propagator.grid().spacing();
+  Eigen::MatrixXcd state = (initial.states.leftCols(kept) * std::sqrt(wa.length())).cast<complex>();
+  propagator.from_lab(state, 0);
+  WallRun run;
+  propagate(propagator, state, 0.0, tau, steps, [&](const Eigen::MatrixXcd&, double) {
+    run.max_phase = std::max(run.max_phase, propagator.max_phase());
+  });
+  propagator.to_lab(state, tau);
+  for (int c = 0; c < kept; ++c) run.norm_drift = std::max(run.norm_drift, std::abs(state.col(c).squaredNorm() * dy - 1));
+  run.amplitudes = (final.states.leftCols(finals) * std::sqrt(wb.length())).transpose().cast<complex>() * state * dy;
+  return run;
+}
+
+// Phase rate that sets the automatic step: the splitting error comes from [T, W]; with
+// W_span the range of W over the box and E_max the highest level used, omega = W_span +
+// sqrt(2 E_max W_span) (the kinetic flow itself is exact). A heuristic: the half-step run
+// reports the actual error.
+double splitting_rate(const WallProtocol& p, std::size_t points, double e_max) {
+  const Grid g = Grid::box(0, 1, std::min<std::size_t>(points, 256));
+  const auto y = g.points();
+  double span = 0;
+  for (int i = 0; i <= 32; ++i) {
+    const double t = p.duration() * i / 32;
+    const WallState w = p.walls(t);
+    std::vector<double> x(y.size()), v(y.size(), 0.0);
+    for (std::size_t j = 0; j < y.size(); ++j) x[j] = w.left.value + w.length() * y[j];
+    if (!p.flat()) p.inner_at(t).evaluate(x.data(), v.data(), x.size(), t);
+    for (std::size_t j = 0; j < y.size(); ++j)
+      v[j] += 0.5 * w.length() * w.acceleration() * y[j] * y[j] + w.length() * w.left.acceleration * y[j];
+    const auto [lo, hi] = std::minmax_element(v.begin(), v.end());
+    span = std::max(span, *hi - *lo);
+  }
+  return span + std::sqrt(2 * e_max * span);
+}
+
+}  // namespace
+
+WallWorkResult run_wall_work(const WallProtocol& protocol, const WallWorkRequest& request) {
+  const double tau = protocol.duration();
+  const WallState wa = protocol.initial_walls(), wb = protocol.final_walls();
+  const int levels = std::min<int>(int(request.points), request.max_initial_levels + request.final_margin);
+  WallWorkResult out;
+  WorkResult& result = out.work;
+  Diagnostics& diag = result.diagnostics;
+  diag.edge_amplitude = std::numeric_limits<double>::quiet_NaN();  // psi = 0 at hard walls: not applicable
+  diag.grid_convergence = protocol.flat() ? 0.0 : std::numeric_limits<double>::quiet_NaN();
+
+  Spectrum sa = box_spectrum(protocol, wa, 0, request, levels);
+  const InitialWeights weights_a =
+      initial_weights(request.initial, sa.energies, request.thermal_tolerance, request.max_initial_levels);
+  const int kept_a = int(weights_a.weights.size());
+  const std::optional<double> beta = weights_a.gibbs ? std::optional<double>(weights_a.beta) : std::nullopt;
+  if (weights_a.gibbs && !weights_a.choice.reached)
+    diag.warnings.push_back("left-out thermal weight " + fmt(weights_a.choice.left_out) + " with " +
+                            std::to_string(kept_a) + " levels is above the tolerance: raise max_initial_levels");
+
+  if (tau == 0) {
+    if (!protocol.flat())
+      throw PhysicsError("sudden wall change with an inner potential is not implemented: use a short finite tau");
+    const int finals = std::max(request.sudden_final_levels, kept_a + request.final_margin);
+    const Eigen::MatrixXcd amplitudes =
+        sudden_wall_amplitudes(wa.left.value, wa.right.value, wb.left.value, wb.right.value, kept_a, finals);
+    const Spectrum sb = flat_box_spectrum(wb.left.value, wb.right.value, std::max<std::size_t>(request.points, std::size_t(finals)), finals);
+    result.grid = sa.grid;
+    result.method = "sudden expansion (closed-form overlaps)";
+    result.initial_spectrum = sa;
+    result.final_spectrum = sb;
+    result.forward = WorkInput{transition_matrix(amplitudes), sa.energies, sb.energies, weights_a.weights, {}, {}, beta};
+    result.distribution = work_distribution(result.forward, request.merge_tolerance);
+    diag.unresolved_weight = result.distribution.unresolved_weight;
+    diag.jarzynski_residual = result.distribution.jarzynski_residual;
+    diag.warnings.push_back("sudden expansion: <W^2> diverges (the old state has a kink at the old wall); the "
+                            "variance over the computed lines does not converge with the number of final levels");
+    if (beta) {
+      // (1/Z_A) sum_n exp(-beta E_n^B) int_A |phi_n^B|^2, shifted by E_0^B (no overflow)
+      double sum = 0;
+      for (int n = 0; n < finals; ++n)
+        sum += std::exp(-*beta * (sb.energies[n] - sb.energies[0])) *
+               box_state_weight_inside(wb.left.value, wb.right.value, n, wa.left.value, wa.right.value);
+      SuddenJarzynski s;
+      const double log_za = log_sum_weights(sa.energies, *beta), log_zb = log_sum_weights(sb.energies, *beta);
+      s.average = std::exp(std::log(sum) - *beta * sb.energies[0] - log_za);
+      s.partition_ratio = std::exp(log_zb - log_za);
+      s.ratio = s.average / s.partition_ratio;
+      out.sudden = s;
+      diag.warnings.push_back(
+          "sudden hard-wall expansion: <exp(-beta W)> = " + fmt(s.average) + " over all initial levels, but Z_B/Z_A = " +
+          fmt(s.partition_ratio) + " (ratio " + fmt(s.ratio) +
+          "). The Jarzynski equality does not hold for an instantaneous change of the Hilbert space: sum_m P(m->n) = "
+          "int_A |phi_n^B|^2 < 1 (Quan & Jarzynski 2012). Any finite wall speed restores it.");
+    }
+    return out;
+  }
+
+  Spectrum sb = box_spectrum(protocol, wb, tau, request, levels);
+  const int finals = std::min<int>(int(sb.energies.size()), kept_a + request.final_margin);
+  const double e_max = std::max(sa.energies[std::min<Eigen::Index>(sa.energies.size() - 1, finals - 1)],
+                                sb.energies[finals - 1]);
+  const double per_step = request.order == SplitOrder::fourth ? 0.2 : 0.02;
+  const int steps = request.steps > 0 ? request.steps
+                                      : std::max(16, int(std::ceil(tau * splitting_rate(protocol, request.points, e_max) / per_step)));
+  result.grid = Grid::box(0, 1, request.points);
+  result.steps = steps;
+  result.method = std::string("dilated box, DST-I split-operator ") +
+                  (request.order == SplitOrder::fourth ? "Yoshida triple jump (order 4)" : "Strang");
+  result.initial_spectrum = sa;
+  result.final_spectrum = sb;
+
+  const WallRun fwd = run_walls(protocol, sa, sb, kept_a, finals, steps, request.order);
+  result.forward = WorkInput{transition_matrix(fwd.amplitudes), sa.energies, sb.energies.head(finals), weights_a.weights,
+                             {}, {}, beta};
+  result.distribution = work_distribution(result.forward, request.merge_tolerance);
+  diag.norm_drift = fwd.norm_drift;
+  diag.max_phase_per_step = fwd.max_phase;
+  diag.unresolved_weight = result.distribution.unresolved_weight;
+  diag.jarzynski_residual = result.distribution.jarzynski_residual;
+  if (request.time_step_check) {
+    const WallRun half = run_walls(protocol, sa, sb, kept_a, finals, 2 * steps, request.order);
+    diag.time_step_error =
+        (transition_matrix(half.amplitudes).probability - result.forward.transitions.probability).cwiseAbs().maxCoeff();
+  }
+
+  if (request.reverse_run && beta) {
+    const WallProtocol reversed = protocol.reversed();
+    const InitialWeights weights_b =
+        initial_weights(request.initial, sb.energies, request.thermal_tolerance, request.max_initial_levels);
+    const int kept_b = int(weights_b.weights.size());
+    const int finals_r = std::min<int>(int(sa.energies.size()), kept_b + request.final_margin);
+    const WallRun rev = run_walls(reversed, sb, sa, kept_b, finals_r, steps, request.order);
+    result.reverse = WorkInput{transition_matrix(rev.amplitudes), sb.energies, sa.energies.head(finals_r),
+                               weights_b.weights, {}, {}, weights_b.beta};
+    result.reverse_distribution = work_distribution(*result.reverse, request.merge_tolerance);
+    result.crooks = crooks_check(result.forward, *result.reverse, request.merge_tolerance);
+    diag.crooks_line_difference = result.crooks->max_line_difference;
+    diag.crooks_ratio_error = result.crooks->max_ratio_error;
+    diag.norm_drift = std::max(diag.norm_drift, rev.norm_drift);
+    diag.truncation = truncation_residual_bound(weights_a.choice.left_out, kept_a, result.reverse->transitions.probability,
+                                                weights_b.weights, weights_b.choice.left_out);
+    if (std::abs(diag.jarzynski_residual) > diag.truncation.bound + 1e-9)
+      diag.warnings.push_back("Jarzynski residual " + fmt(diag.jarzynski_residual) + " exceeds the truncation bound " +
+                              fmt(diag.truncation.bound) + ": check the grid (points) and the time step");
+  }
+
+  if (const auto u = protocol.constant_speed()) {
+    const int k = std::max(kept_a, finals);
+    const Eigen::MatrixXcd dr = doescher_rice_amplitudes(wa.length(), wb.length(), *u, k);
+    WorkInput reference = result.forward;
+    reference.transitions = transition_matrix(dr.topLeftCorner(finals, kept_a));
+    DoescherRiceComparison c;
+    c.speed = *u;
+    c.max_line_difference = (reference.transitions.probability - result.forward.transitions.probability).cwiseAbs().maxCoeff();
+    c.mean_work = work_distribution(reference, request.merge_tolerance).mean;
+    c.mean_work_difference = result.distribution.mean - c.mean_work;
+    out.doescher_rice = c;
+  }
+  if (diag.unresolved_weight > 1e-8)
+    diag.warnings.push_back("unresolved weight " + fmt(diag.unresolved_weight) + ": raise final_margin");
+  return out;
+}
+
+// ---- soft walls -------------------------------------------------------------------------
+
+Term soft_walls(const std::string& name, const SoftWallShape& shape, double width, double left, double right) {
+  if (shape.power < 2 || shape.power > 32 || shape.power % 2 != 0)
+    throw InputError(name + ".power", std::to_string(shape.power), "an even integer in 2..32");
+  if (!(width > 0)) throw InputError(name + ".width", fmt(width), "> 0");
+  if (!(shape.height > 0)) throw InputError(name + ".height", fmt(shape.height), "> 0");
+  const std::string p = std::to_string(shape.power);
+  return Term::formula(name,
+                       "height*((max(0,x-right)/width)^" + p + "+(max(0,left-x)/width)^" + p + ")",
+                       {{"left", left}, {"right", right}, {"height", shape.height}, {"width", width}});
+}
+
+SoftWallComparison compare_soft_walls(const WallProtocol& protocol, const WallWorkRequest& hard_request,
+                                      const SoftWallShape& shape, const std::vector<double>& widths,
+                                      std::size_t soft_points, int soft_steps) {
+  SoftWallComparison out;
+  WallWorkRequest hard = hard_request;
+  hard.reverse_run = false;
+  out.hard = run_wall_work(protocol, hard);
+  const auto& hp = out.hard.work.forward.transitions.probability;
+  double lo = protocol.initial_walls().left.value, hi = protocol.initial_walls().right.value;
+  for (int i = 0; i <= 256; ++i) {
+    const WallState w = protocol.duration() > 0 ? protocol.walls(protocol.duration() * i / 256) : protocol.final_walls();
+    lo = std::min(lo, w.left.value);
+    hi = std::max(hi, w.right.value);
+  }
+  const WallState w0 = protocol.initial_walls();
+  for (double width : widths) {
+    Potential base = protocol.inner();
+    base.add(soft_walls(protocol.name(), shape, width, w0.left.value, w0.right.value));
+    WorkRequest r;
+    r.initial = hard_request.initial;
+    r.thermal_tolerance = hard_request.thermal_tolerance;
+    r.max_initial_levels = int(hp.rows());
+    r.final_margin = int(hp.cols()) - int(hp.rows());
+    r.spectrum.box = std::make_pair(lo - 4 * width, hi + 4 * width);
+    r.spectrum.points = soft_points;
+    r.spectrum.convergence_check = false;
+    r.steps = soft_steps;
+    r.reverse_run = false;
+    r.time_step_check = false;
+    r.grid_check = false;
+    r.unresolved_tolerance = 1.0;  // compare as computed; the unresolved weight stays in the result
+    const WorkResult soft = run_work(base, protocol.as_protocol(), r);
+    const auto& sp = soft.forward.transitions.probability;
+    const Eigen::Index rows = std::min(sp.rows(), hp.rows()), cols = std::min(sp.cols(), hp.cols());
+    out.widths.push_back(width);
+    out.mean_work.push_back(soft.distribution.mean);
+    out.mean_work_difference.push_back(soft.distribution.mean - out.hard.work.distribution.mean);
+    out.max_line_difference.push_back((sp.topLeftCorner(rows, cols) - hp.topLeftCorner(rows, cols)).cwiseAbs().maxCoeff());
+  }
+  return out;
+}
+
+}  // namespace trapwork
