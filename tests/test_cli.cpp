@@ -1,7 +1,12 @@
 // The `trapwork` command: runs every example, checks its files and its exit codes.
+// output.hpp before <sys/wait.h>, whose si_value macro would clash with Quantity::si_value
+#include "solver/tool/output.hpp"
+
 #include <sys/wait.h>
 
 #include <catch2/catch.hpp>
+#include <cctype>
+#include <cmath>
 #include <cstdlib>
 #include <filesystem>
 #include <fstream>
@@ -48,6 +53,12 @@ std::vector<std::string> lines_of(const std::string& text) {
   std::istringstream in(text);
   for (std::string line; std::getline(in, line);) lines.push_back(line);
   return lines;
+}
+
+std::string replace_first(std::string text, const std::string& from, const std::string& to) {
+  const auto at = text.find(from);
+  REQUIRE(at != std::string::npos);
+  return text.replace(at, from.size(), to);
 }
 
 std::size_t fields(const std::string& line) {
@@ -158,4 +169,157 @@ TEST_CASE("--help on the tool and on each command", "[cli]") {
   const Run spectrum = run("spectrum --help", dir);
   CHECK(spectrum.exit_code == 0);
   CHECK_THAT(spectrum.out, Contains("--levels") && Contains("--output") && Contains("--quiet"));
+}
+
+// ---- trapwork work, sweep, demo ------------------------------------------------------------
+
+namespace {
+// A purely harmonic 40 u ion at 1 MHz moved by 30 nm at constant speed in 1.5 us, nearly in
+// its ground state: few levels, a run of a few seconds.
+const std::string harmonic_move = R"(title = "harmonic move"
+[particle]
+mass = "40 u"
+[[potential]]
+name = "trap"
+shape = "harmonic"
+frequency = "1 MHz"
+[protocol]
+duration = "1.5 us"
+[[protocol.change]]
+parameter = "trap.centre"
+to = "30 nm"
+[initial]
+mean_phonons = 0.3
+)";
+
+void write_text(const fs::path& file, const std::string& text) {
+  std::ofstream out(file);
+  out << text;
+}
+
+// The files of a work run, each complete; returns the summary.
+nlohmann::json check_work_outputs(const fs::path& folder, bool reverse) {
+  for (const auto& entry : fs::directory_iterator(folder))
+    CHECK(entry.path().filename().string().find(".tmp-") == std::string::npos);
+  REQUIRE(fs::exists(folder / "summary.json"));
+  const auto summary = nlohmann::json::parse(read_all(folder / "summary.json"));
+  const std::string e = "_" + trapwork::column_unit(summary.at("units").at("energy"));
+  CHECK(check_csv(folder / "lines.csv", "work" + e) == summary.at("work").at("lines").get<std::size_t>());
+  CHECK(check_csv(folder / "histogram.csv", "bin_start" + e) > 0);
+  CHECK(check_csv(folder / "density.csv", "work" + e) > 0);
+  const auto& levels = summary.at("levels");
+  CHECK(check_csv(folder / "transition.csv", "initial") ==
+        levels.at("initial_kept").get<std::size_t>() * levels.at("final").get<std::size_t>());
+  CHECK(check_csv(folder / "characteristic.csv", "u_per" + e) == 401);
+  CHECK(fs::exists(folder / "reverse_lines.csv") == reverse);
+  if (reverse) CHECK(check_csv(folder / "reverse_lines.csv", "work" + e) > 0);
+  for (const char* picture : {"potential.png", "potential.svg", "work.png", "work.svg"})
+    CHECK(fs::file_size(folder / picture) > 1000);
+  for (const char* key : {"command", "scenario", "units", "potential", "protocol", "initial", "grid", "method",
+                          "steps", "time_step_ns", "levels", "work", "jarzynski", "crooks", "harmonic",
+                          "diagnostics", "warnings"})
+    CHECK(summary.contains(key));
+  for (const auto& check : summary.at("diagnostics").at("checks")) {
+    CHECK(check.contains("tolerance"));
+    CHECK(check.contains("pass"));
+  }
+  return summary;
+}
+}  // namespace
+
+TEST_CASE("trapwork work writes every file, and a harmonic trap meets its analytic <W>", "[cli][work]") {
+  const fs::path dir = scratch_dir("work");
+  write_text(dir / "move.toml", harmonic_move);
+  const Run r = run("work move.toml -o out", dir);
+  REQUIRE(r.exit_code == 0);
+  CHECK(r.err.empty());  // no progress bar when stderr is not a terminal
+  CHECK_THAT(r.out, Contains("trapwork work: harmonic move") && Contains("<W>") && Contains("Jarzynski") &&
+                        Contains("displaced oscillator") && Contains("PASS") && Contains("strongest work lines") &&
+                        Contains("wrote out/summary.json"));
+  const auto summary = check_work_outputs(dir / "out", true);
+  const auto& harmonic = summary.at("harmonic");
+  REQUIRE(harmonic.is_object());
+  CHECK(harmonic.at("exact") == true);
+  // The run's own error estimates are far below 1e-8 (line changes at half the step,
+  // probability beyond the final levels); the mean work, a sum of a few dozen lines of order
+  // hbar omega, is then good to well within 1e-6 of the analytic value (Husimi 1953, from
+  // memory: <W> = 2 m v^2 sin^2(omega tau/2) at any temperature).
+  const auto& diagnostics = summary.at("diagnostics");
+  CHECK(diagnostics.at("time_step_error").get<double>() < 1e-8);
+  CHECK(diagnostics.at("unresolved_weight").get<double>() < 1e-8);
+  const double numeric = summary.at("work").at("mean").at("internal");
+  const double analytic = harmonic.at("mean_work").at("internal");
+  CHECK(std::abs(numeric - analytic) <= 1e-6 * std::abs(analytic));
+  // ... and that analytic value is the closed form, evaluated here from the scenario's numbers.
+  const double omega = 1, tau = 2 * 3.14159265358979323846 * 1.5;  // trap units: T0 = 1/omega
+  const double distance = 30e-9 / summary.at("units").at("internal").at("length_m").get<double>();
+  const double v = distance / tau;
+  CHECK(std::abs(analytic - 2 * v * v * std::pow(std::sin(omega * tau / 2), 2)) <= 1e-9 * analytic);
+
+  CHECK(run("work move.toml -o quiet --quiet", dir).out.empty());
+}
+
+TEST_CASE("trapwork sweep writes one row per point", "[cli][work]") {
+  const fs::path dir = scratch_dir("sweep");
+  write_text(dir / "sweep.toml", harmonic_move + "[work]\ntime_step_check = false\n[sweep]\n"
+                                                 "parameter = \"protocol.duration\"\nvalues = [\"1.5 us\", \"0.7 us\", \"1 us\"]\n");
+  const Run r = run("sweep sweep.toml -o out --jobs 2", dir);
+  REQUIRE(r.exit_code == 0);
+  CHECK_THAT(r.out, Contains("trapwork sweep") && Contains("protocol.duration, 3 points, 2 at a time"));
+  REQUIRE(check_csv(dir / "out" / "sweep.csv", "protocol_duration_us") == 3);
+  const auto lines = lines_of(read_all(dir / "out" / "sweep.csv"));
+  std::vector<double> values;
+  for (const auto& line : lines)
+    if (!line.empty() && line[0] != '#' && std::isdigit(static_cast<unsigned char>(line[0])))
+      values.push_back(std::stod(line));
+  // sorted by value; the values are internal / (internal per us): a few roundings (common practice)
+  REQUIRE(values.size() == 3);
+  CHECK(values[0] == Approx(0.7).epsilon(1e-14));
+  CHECK(values[1] == Approx(1.0).epsilon(1e-14));
+  CHECK(values[2] == Approx(1.5).epsilon(1e-14));
+  CHECK(fs::file_size(dir / "out" / "sweep.png") > 1000);
+}
+
+TEST_CASE("each example runs through work or sweep", "[cli][work][examples]") {
+  int count = 0;
+  for (const auto& entry : fs::directory_iterator(examples)) {
+    if (entry.path().extension() != ".toml") continue;
+    const std::string text = read_all(entry.path());
+    if (text.find("[protocol]") == std::string::npos) continue;  // spectrum-only examples
+    const std::string name = entry.path().stem().string();
+    INFO(name);
+    const fs::path dir = scratch_dir("work-" + name);
+    const bool sweep = text.find("[sweep]") != std::string::npos;
+    const Run r = run(std::string(sweep ? "sweep '" : "work '") + entry.path().string() + "' -o out --quiet", dir);
+    CHECK(r.exit_code == 0);
+    CHECK(r.err.empty());
+    if (sweep)
+      CHECK(check_csv(dir / "out" / "sweep.csv", "protocol_duration_us") > 1);
+    else
+      check_work_outputs(dir / "out", text.find("temperature") != std::string::npos);
+    ++count;
+  }
+  CHECK(count >= 4);
+}
+
+TEST_CASE("demo and work --help, and a bad work scenario", "[cli][work]") {
+  const fs::path dir = scratch_dir("work-help");
+  const Run demo = run("demo --help", dir);
+  CHECK(demo.exit_code == 0);
+  CHECK_THAT(demo.out, Contains("--output") && Contains("--quiet") && Contains("built-in"));
+  const Run sweep = run("sweep --help", dir);
+  CHECK(sweep.exit_code == 0);
+  CHECK_THAT(sweep.out, Contains("--jobs"));
+
+  write_text(dir / "bad.toml", replace_first(harmonic_move, "to = \"30 nm\"", "to = \"30 MHz\""));
+  const Run bad = run("work bad.toml -o out", dir);
+  CHECK(bad.exit_code == 2);
+  CHECK_THAT(bad.err, Contains("trapwork: error: bad.toml:12:6: protocol.change[1].to") && Contains("a length"));
+  CHECK_FALSE(fs::exists(dir / "out"));
+
+  // No [protocol]: work refuses, naming the file.
+  write_text(dir / "still.toml", harmonic_move.substr(0, harmonic_move.find("[protocol]")));
+  const Run still = run("work still.toml -o out", dir);
+  CHECK(still.exit_code == 2);
+  CHECK_THAT(still.err, Contains("still.toml") && Contains("[protocol]"));
 }

@@ -97,9 +97,21 @@ TEST_CASE("the default scenario: a 40 u ion in a 1 MHz trap with a quartic term"
   CHECK(trap.name() == "trap");
   CHECK(trap.shape() == Shape::polynomial);
   CHECK(close(trap.parameter("frequency"), 1.0));
-  // quartic = 2e-4 h*Hz/nm^4 in units of E0 / L0^4, E0 = h * 1 MHz.
+  // quartic = 0.0157 h*Hz/nm^4 in units of E0 / L0^4, E0 = h * 1 MHz: about 1e-3, which
+  // raises the lowest spacing by 3 k4 L0^4 = 3e-3 hbar omega = 3 kHz (first order).
   CHECK(close(trap.parameter("quartic"),
-              2e-4 * codata_h / 1e-36 * std::pow(s.units.length_m, 4) / (codata_h * 1e6)));
+              0.0157 * codata_h / 1e-36 * std::pow(s.units.length_m, 4) / (codata_h * 1e6)));
+  CHECK(std::abs(3 * trap.parameter("quartic") - 3e-3) < 0.01 * 3e-3);
+  // The protocol: 160 nm at constant speed in 2.5 us, from a Gibbs state with nbar = 2.
+  REQUIRE(s.protocol);
+  CHECK(close(s.protocol->duration, 2 * pi * 2.5));  // T0 = 1/omega
+  REQUIRE(s.protocol->changes.size() == 1);
+  CHECK(s.protocol->changes[0].parameter == "trap.centre");
+  CHECK(s.protocol->changes[0].form == ScheduleForm::linear);
+  CHECK(close(s.protocol->changes[0].to, 160e-9 / s.units.length_m));
+  REQUIRE(s.work);
+  CHECK(s.work->request.initial.kind() == InitialState::Kind::phonons);
+  CHECK(s.work->request.initial.parameter() == 2);
   CHECK(s.spectrum.options.levels == 20);
   CHECK(s.output_folder == "default-output");
   CHECK_FALSE(s.title.empty());
@@ -411,4 +423,192 @@ TEST_CASE("every example scenario parses", "[scenario][examples]") {
     ++count;
   }
   CHECK(count >= 5);
+}
+
+// ---- [protocol], [initial], [work], [sweep] --------------------------------------------------
+
+namespace {
+const std::string moving = ion + R"([protocol]
+duration = "2.5 us"
+[[protocol.change]]
+parameter = "trap.centre"
+to = "160 nm"
+[initial]
+temperature = "20 uK"
+)";
+}  // namespace
+
+TEST_CASE("protocol, initial state, work settings and sweep reach the library values", "[scenario][work]") {
+  const Scenario s = read_scenario_text(moving + R"([work]
+integrator = "strang"
+steps = 500
+frame = "lab"
+thermal_tolerance = 1e-8
+max_initial_levels = 30
+final_margin = 12
+resolution = "2 h*kHz"
+bin_width = "10 h*kHz"
+reverse = false
+time_step_check = false
+threads = 2
+[sweep]
+parameter = "change[1].to"
+values = ["100 nm", "0.2 um"]
+)",
+                                        "scenario.toml");
+  const double L = s.units.length_m, T0 = s.units.time_s(), E0 = s.units.energy_J();
+  REQUIRE(s.protocol);
+  CHECK(close(s.protocol->duration, 2.5e-6 / T0));
+  const ChangeSpec& c = s.protocol->changes.at(0);
+  CHECK(c.form == ScheduleForm::linear);  // the default ramp
+  CHECK_FALSE(c.from);                    // from the potential
+  CHECK(close(c.to, 160e-9 / L));
+  const Protocol p = build_protocol(s);
+  CHECK(p.schedules().at(0).initial_value(p.duration()) == 0);
+  CHECK(close(p.schedules().at(0).final_value(p.duration()), 160e-9 / L));
+  const WorkRequest r = work_request(s);
+  CHECK(r.integrator == Integrator::strang);
+  CHECK(r.steps == 500);
+  CHECK(r.co_moving == std::optional<bool>(false));
+  CHECK(r.thermal_tolerance == 1e-8);
+  CHECK(r.max_initial_levels == 30);
+  CHECK(r.final_margin == 12);
+  CHECK_FALSE(r.reverse_run);
+  CHECK_FALSE(r.time_step_check);
+  CHECK(r.threads == 2);
+  CHECK(r.initial.kind() == InitialState::Kind::thermal);
+  CHECK(close(1 / r.initial.parameter(), codata_kB * 20e-6 / E0));  // beta = 1 / (kB T)
+  CHECK(close(*s.work->resolution, 2e3 * codata_h / E0));
+  CHECK(close(*s.work->bin_width, 1e4 * codata_h / E0));
+  REQUIRE(s.sweep);
+  CHECK(s.sweep->target == SweepTarget::change_to);
+  CHECK(s.sweep->unit == "nm");
+  REQUIRE(s.sweep->values.size() == 2);
+  CHECK(close(s.sweep->values[1], 200e-9 / L));
+  CHECK(close(s.sweep->values[1] / s.sweep->internal_per_unit, 200));
+  const Scenario second = at_sweep_point(s, 1);
+  CHECK(close(second.protocol->changes[0].to, 200e-9 / L));
+}
+
+TEST_CASE("the other ramps, initial states and sweep forms", "[scenario][work]") {
+  const fs::path dir = scratch_dir("ramps");
+  {
+    std::ofstream csv(dir / "ramp.csv");
+    csv << "t,value\n0,1\n1.5,1.1\n3,1.2\n";
+  }
+  const std::string text = ion + R"([protocol]
+duration = "3 us"
+[[protocol.change]]
+parameter = "trap.frequency"
+ramp = "table"
+file = "ramp.csv"
+time_unit = "us"
+value_unit = "MHz"
+[initial]
+weights = [1, 3]
+[sweep]
+parameter = "protocol.duration"
+from = "1 us"
+to = "3 us"
+points = 3
+)";
+  const Scenario s = read_scenario_text(text, (dir / "table.toml").string());
+  const Protocol p = build_protocol(s);
+  const double T0 = s.units.time_s();
+  // omega = 2 pi f: 1 MHz is 1 in trap units, 1.2 MHz is 1.2.
+  CHECK(close(p.schedules()[0].evaluate(1.5e-6 / T0, p.duration()).value, 1.1));
+  CHECK(close(p.schedules()[0].final_value(p.duration()), 1.2));
+  CHECK(s.work->request.initial.kind() == InitialState::Kind::mixture);
+  CHECK(s.sweep->values.size() == 3);
+  CHECK(close(s.sweep->values[1], 2e-6 / T0));
+  CHECK(s.sweep->unit == "us");
+
+  // A formula in lab units: value_unit "nm", time_unit "us", pi, and sqrt left alone.
+  const Scenario f = read_scenario_text(ion + R"toml([protocol]
+duration = "2.5 us"
+[[protocol.change]]
+parameter = "trap.centre"
+ramp = "formula"
+formula = "160*sin(pi*t/(2*tau))^2 + 0*sqrt(t)"
+time_unit = "us"
+value_unit = "nm"
+[initial]
+level = 2
+)toml",
+                                        "scenario.toml");
+  const Protocol pf = build_protocol(f);
+  const double tau = pf.duration(), L = f.units.length_m;
+  CHECK(close(pf.schedules()[0].final_value(tau), 160e-9 / L, 1e-12));
+  CHECK(close(pf.schedules()[0].evaluate(tau / 2, tau).value, 80e-9 / L, 1e-12));
+  CHECK(f.work->request.initial.kind() == InitialState::Kind::eigenstate);
+  CHECK(f.work->request.initial.level() == 2);
+}
+
+TEST_CASE("errors in the protocol, initial state and sweep name file, line, column and key", "[scenario][work]") {
+  check_error(replace(moving, "to = \"160 nm\"", "ramp = \"lineer\"\nto = \"160 nm\""), "\"lineer\"",
+              "protocol.change[1].ramp", "one of constant, linear, smooth, smoother, table, formula", "linear");
+  check_error(replace(moving, "\"trap.centre\"", "\"trap.center\""), "\"trap.center\"",
+              "protocol.change[1].parameter", "a parameter of the potential: trap.frequency, trap.centre",
+              "trap.centre");
+  check_error(replace(moving, "temperature = \"20 uK\"", "temperature = \"20 uK\"\nlevel = 0"), "level = 0",
+              "initial.level", "only one initial state ([initial] already has temperature)");
+  check_error(replace(moving, "to = \"160 nm\"", "to = \"160 kHz\""), "\"160 kHz\"", "protocol.change[1].to",
+              "a length");
+  check_error(replace(moving, "to = \"160 nm\"", "to = \"1 nm\"\nsped = 2"), "sped", "protocol.change[1].sped",
+              "unknown key");
+  check_error(moving + "[sweep]\nparameter = \"protocol.duration\"\nvalues = [\"1 us\", \"2 nm\"]\n", "\"2 nm\"",
+              "sweep.values[2]", "a time");
+  check_error(moving + "[sweep]\nparameter = \"trap.frequncy\"\nvalues = [\"1 MHz\"]\n", "\"trap.frequncy\"",
+              "sweep.parameter", "protocol.duration", "trap.frequency");
+  check_error(replace(moving, "duration = \"2.5 us\"", "duration = \"-1 us\""), "\"-1 us\"", "protocol.duration",
+              "a duration >= 0");
+  check_error(replace(moving, "temperature = \"20 uK\"", "mean_phonons = \"2 uK\""), "\"2 uK\"",
+              "initial.mean_phonons", "a plain number");
+  check_error(moving + "[work]\nintegrator = \"rk4\"\n", "\"rk4\"", "work.integrator",
+              "one of fourth_order, strang, eigenbasis");
+  // A frequency that a formula drives through zero: the harmonic shape refuses it mid-protocol.
+  check_error(ion + "[protocol]\nduration = \"1 us\"\n[[protocol.change]]\nparameter = \"trap.frequency\"\n"
+                    "ramp = \"formula\"\nformula = \"1 - 2*t\"\ntime_unit = \"us\"\nvalue_unit = \"MHz\"\n",
+              "[[protocol.change]]", "protocol.change", "trap.frequency");
+}
+
+TEST_CASE("a bad row in a ramp table names the data file and its line", "[scenario][work]") {
+  const fs::path dir = scratch_dir("bad-ramp");
+  {
+    std::ofstream csv(dir / "ramp.csv");
+    csv << "t,value\n0,0\n1,oops\n2,3\n";
+  }
+  const std::string text = ion + R"([protocol]
+duration = "2 us"
+[[protocol.change]]
+parameter = "trap.centre"
+ramp = "table"
+file = "ramp.csv"
+time_unit = "us"
+value_unit = "nm"
+)";
+  try {
+    read_scenario_text(text, (dir / "s.toml").string());
+    FAIL("no error for a bad table row");
+  } catch (const InputError& e) {
+    CHECK(e.file == (dir / "ramp.csv").string());
+    CHECK(e.line == 3);
+    CHECK(e.column == 1);  // the row's first field
+    CHECK(e.key == "protocol.change[1].file");
+    CHECK_THAT(e.what(), Catch::Contains("two numbers per row, t and value"));
+  }
+  // A table that stops before the end of the protocol.
+  {
+    std::ofstream csv(dir / "ramp.csv");
+    csv << "0,0\n1,5\n";
+  }
+  try {
+    read_scenario_text(text, (dir / "s.toml").string());
+    FAIL("no error for a short table");
+  } catch (const InputError& e) {
+    CHECK(e.key == "protocol.change[1].file");
+    CHECK(e.line == position_of(text, "\"ramp.csv\"").first);
+    CHECK(e.column == position_of(text, "\"ramp.csv\"").second);
+    CHECK_THAT(e.what(), Catch::Contains("covering the protocol"));
+  }
 }

@@ -29,4 +29,32 @@ struct SpectrumCommand {
 void add_spectrum_command(CLI::App& app);
 void run_spectrum(const SpectrumCommand& command, std::ostream& out);
 
+// trapwork work [SCENARIO] [-o DIR] [--quiet]: the work statistics of the scenario's protocol
+// (run_work), the report on `out`, the files of write_work_outputs. A progress bar goes to
+// `progress` when `show_progress` (the command line: stderr is a terminal and not --quiet).
+struct WorkCommand {
+  std::string scenario;  // file, or "default"/"" for the built-in scenario
+  std::string output;    // overrides [output] folder when not empty
+  bool quiet = false;
+  bool show_progress = false;
+};
+void add_work_command(CLI::App& app);
+void run_work_command(const WorkCommand& command, std::ostream& out, std::ostream& progress);
+
+// trapwork demo [-o DIR] [--quiet]: `trapwork work` on the built-in scenario.
+void add_demo_command(CLI::App& app);
+
+// trapwork sweep SCENARIO [-o DIR] [--quiet] [--jobs N]: one run_work per [sweep] value, `jobs`
+// points at a time (each with one FFTW thread), sweep.csv rewritten as points finish, then
+// sweep.png/.svg.
+struct SweepCommand {
+  std::string scenario;
+  std::string output;
+  bool quiet = false;
+  bool show_progress = false;
+  int jobs = 0;  // 0: std::thread::hardware_concurrency()
+};
+void add_sweep_command(CLI::App& app);
+void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostream& progress);
+
 }  // namespace trapwork

@@ -7,5 +7,8 @@ int main(int argc, char** argv) {
                "trapwork"};
   app.require_subcommand(1);
   trapwork::add_spectrum_command(app);
+  trapwork::add_work_command(app);
+  trapwork::add_sweep_command(app);
+  trapwork::add_demo_command(app);
   return trapwork::run_command_line(app, argc, argv);
 }

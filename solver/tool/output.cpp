@@ -71,19 +71,10 @@ std::string column_unit(const std::string& unit) {
 }
 
 namespace {
-
 double nan() {
   return std::numeric_limits<double>::quiet_NaN();
 }
-
-struct Display {
-  double energy_per;  // internal energy of one display unit
-  double um;          // internal length of one micrometre
-  std::string e;      // display energy unit
-  std::string e_col;  // "_h_kHz"
-  double energy(double internal) const { return internal / energy_per; }
-  double length(double internal) const { return internal / um; }
-};
+}  // namespace
 
 Display display(const Scenario& s) {
   Display d{s.energy.internal_per_unit, internal_per_um(s), s.energy.name, "_"};
@@ -91,7 +82,7 @@ Display display(const Scenario& s) {
   return d;
 }
 
-std::string short_number(double v, int digits = 6) {
+std::string short_number(double v, int digits) {
   if (!std::isfinite(v)) return std::isnan(v) ? "-" : (v > 0 ? "inf" : "-inf");
   char buffer[48];
   std::snprintf(buffer, sizeof buffer, "%.*g", digits, v);
@@ -110,6 +101,7 @@ std::string si_unit(const Dimension& d) {
   return d.describe();
 }
 
+namespace {
 double rms_width(const Level& l) {
   return std::sqrt(std::max(0.0, l.mean_x2 - l.mean_x * l.mean_x));
 }
@@ -118,6 +110,8 @@ double convergence_of(const SpectrumResult& r, std::size_t n) {
   const auto& c = r.convergence;
   return c.done && n < c.energy_change.size() ? c.energy_change[n] : nan();
 }
+
+}  // namespace
 
 nlohmann::ordered_json grid_json(const Grid& g, const Display& d) {
   return {{"boundary", g.boundary() == Boundary::periodic ? "periodic" : "hard_wall"},
@@ -134,7 +128,72 @@ std::string grid_text(const Grid& g, const Display& d) {
          " nm";
 }
 
-}  // namespace
+nlohmann::ordered_json potential_json(const Scenario& scenario) {
+  using json = nlohmann::ordered_json;
+  const UnitSystem& u = scenario.units;
+  json terms = json::array();
+  for (const auto& term : scenario.terms) {
+    json parameters = json::object();
+    for (const auto& p : term.parameters)
+      parameters[p.name] = {{"given", p.given},
+                            {"si", u.to_si(p.internal, p.dimension)},
+                            {"si_unit", si_unit(p.dimension)},
+                            {"internal", p.internal}};
+    json settings = json::object();
+    for (const auto& [k, v] : term.settings) settings[k] = v;
+    terms.push_back(
+        {{"name", term.name}, {"shape", term.shape}, {"parameters", parameters}, {"settings", settings}});
+  }
+  return terms;
+}
+
+nlohmann::ordered_json units_json(const Scenario& scenario) {
+  using json = nlohmann::ordered_json;
+  const Display d = display(scenario);
+  const UnitSystem& u = scenario.units;
+  return {{"energy", d.e},
+          {"energy_J", d.energy_per * u.energy_J()},
+          {"length", "um"},
+          {"frequency", "Hz (ordinary frequency f; omega = 2 pi f)"},
+          {"wavefunction", "1/sqrt(um)"},
+          {"internal",
+           {{"mass_kg", u.mass_kg},
+            {"length_m", u.length_m},
+            {"energy_J", u.energy_J()},
+            {"time_s", u.time_s()},
+            {"reference_frequency_Hz",
+             scenario.reference_frequency_Hz ? json(*scenario.reference_frequency_Hz) : json(nullptr)},
+            {"omega_ref", scenario.omega_ref}}}};
+}
+
+void print_row(std::ostream& out, const std::string& label, const std::string& text) {
+  char buffer[24];
+  std::snprintf(buffer, sizeof buffer, "  %-12s", label.c_str());
+  out << buffer << text << '\n';
+}
+
+void print_scenario_header(std::ostream& out, const std::string& command, const Scenario& scenario) {
+  const Display d = display(scenario);
+  const UnitSystem& u = scenario.units;
+  out << "trapwork " << command << ": " << (scenario.title.empty() ? scenario.file : scenario.title) << '\n';
+  print_row(out, "scenario", scenario.file);
+  print_row(out, "particle",
+            "mass " + short_number(u.mass_kg / si::atomic_mass) + " u (" + short_number(u.mass_kg) + " kg)");
+  print_row(out, "units",
+            "L0 = " + short_number(u.length_m * 1e9) + " nm, E0 = h*" +
+                short_number(u.energy_J() / si::planck_h / 1e3) + " kHz, T0 = " + short_number(u.time_s() * 1e6) +
+                " us; energies shown in " + d.e);
+  for (const auto& term : scenario.terms) {
+    std::string text = term.name + ": " + term.shape;
+    for (const auto& p : term.parameters) text += ", " + p.name + " = " + p.given;
+    for (const auto& [k, v] : term.settings) text += ", " + k + " = " + v;
+    print_row(out, "potential", text);
+  }
+  if (scenario.spectrum.box)
+    print_row(out, "box",
+              "hard walls at " + short_number(d.length(scenario.spectrum.box->first)) + " um and " +
+                  short_number(d.length(scenario.spectrum.box->second)) + " um");
+}
 
 CsvTable spectrum_table(const Scenario& scenario, const SpectrumResult& result) {
   const Display d = display(scenario);
@@ -214,19 +273,6 @@ nlohmann::ordered_json spectrum_summary(const Scenario& scenario, const Spectrum
   const Display d = display(scenario);
   const UnitSystem& u = scenario.units;
   const Spectrum& s = result.spectrum;
-  json terms = json::array();
-  for (const auto& term : scenario.terms) {
-    json parameters = json::object();
-    for (const auto& p : term.parameters)
-      parameters[p.name] = {{"given", p.given},
-                            {"si", u.to_si(p.internal, p.dimension)},
-                            {"si_unit", si_unit(p.dimension)},
-                            {"internal", p.internal}};
-    json settings = json::object();
-    for (const auto& [k, v] : term.settings) settings[k] = v;
-    terms.push_back(
-        {{"name", term.name}, {"shape", term.shape}, {"parameters", parameters}, {"settings", settings}});
-  }
   json levels = json::array();
   for (std::size_t n = 0; n < result.levels.size(); ++n) {
     const Level& l = result.levels[n];
@@ -253,28 +299,15 @@ nlohmann::ordered_json spectrum_summary(const Scenario& scenario, const Spectrum
       {"command", "trapwork spectrum"},
       {"scenario",
        {{"file", scenario.file}, {"title", scenario.title}, {"description", scenario.description}}},
-      {"units",
-       {{"energy", d.e},
-        {"energy_J", d.energy_per * u.energy_J()},
-        {"length", "um"},
-        {"frequency", "Hz (ordinary frequency f; omega = 2 pi f)"},
-        {"wavefunction", "1/sqrt(um)"},
-        {"internal",
-         {{"mass_kg", u.mass_kg},
-          {"length_m", u.length_m},
-          {"energy_J", u.energy_J()},
-          {"time_s", u.time_s()},
-          {"reference_frequency_Hz",
-           scenario.reference_frequency_Hz ? json(*scenario.reference_frequency_Hz) : json(nullptr)},
-          {"omega_ref", scenario.omega_ref}}}}},
-      {"potential", terms},
+      {"units", units_json(scenario)},
+      {"potential", potential_json(scenario)},
       {"box", box},
       {"grid", grid_json(s.grid, d)},
       {"method", s.method},
       {"iterations", s.iterations},
       {"levels_requested", scenario.spectrum.options.levels},
       {"converged", s.converged},
-      {"residual_tolerance", d.energy(scenario.spectrum.options.residual_tolerance)},
+      {"residual_tolerance", d.energy(result.spectrum.residual_tolerance)},
       {"degeneracy_tolerance", d.energy(scenario.spectrum.options.degeneracy_tolerance)},
       {"convergence",
        {{"done", c.done},
@@ -312,32 +345,13 @@ void print_spectrum_report(std::ostream& out, const Scenario& scenario, const Sp
   const Display d = display(scenario);
   const Spectrum& s = result.spectrum;
   const UnitSystem& u = scenario.units;
-  auto row = [&](const std::string& label, const std::string& text) {
-    char buffer[16];
-    std::snprintf(buffer, sizeof buffer, "  %-12s", label.c_str());
-    out << buffer << text << '\n';
-  };
-  out << "trapwork spectrum: " << (scenario.title.empty() ? scenario.file : scenario.title) << '\n';
-  row("scenario", scenario.file);
-  row("particle",
-      "mass " + short_number(u.mass_kg / si::atomic_mass) + " u (" + short_number(u.mass_kg) + " kg)");
-  row("units", "L0 = " + short_number(u.length_m * 1e9) + " nm, E0 = h*" +
-                   short_number(u.energy_J() / si::planck_h / 1e3) +
-                   " kHz, T0 = " + short_number(u.time_s() * 1e6) + " us; energies shown in " + d.e);
-  for (const auto& term : scenario.terms) {
-    std::string text = term.name + ": " + term.shape;
-    for (const auto& p : term.parameters) text += ", " + p.name + " = " + p.given;
-    for (const auto& [k, v] : term.settings) text += ", " + k + " = " + v;
-    row("potential", text);
-  }
-  if (scenario.spectrum.box)
-    row("box", "hard walls at " + short_number(d.length(scenario.spectrum.box->first)) + " um and " +
-                   short_number(d.length(scenario.spectrum.box->second)) + " um");
+  auto row = [&](const std::string& label, const std::string& text) { print_row(out, label, text); };
+  print_scenario_header(out, "spectrum", scenario);
   row("grid", grid_text(s.grid, d));
   row("method",
       s.method + ", " + std::to_string(s.iterations) + " iterations, " + std::to_string(s.converged) +
           " of " + std::to_string(s.energies.size()) + " levels converged (residual below " +
-          short_number(d.energy(scenario.spectrum.options.residual_tolerance), 3) + " " + d.e + ")");
+          short_number(d.energy(result.spectrum.residual_tolerance), 3) + " " + d.e + ")");
   const auto& c = result.convergence;
   row("convergence", c.done ? "finer grid of " + std::to_string(c.finer.size()) + " points: max |dE| = " +
                                   short_number(d.energy(c.max_energy_change), 3) + " " + d.e

@@ -42,6 +42,32 @@ void write_csv(std::ostream& out, const CsvTable& table);
 // A unit name as part of a column name: "h*kHz" -> "h_kHz".
 std::string column_unit(const std::string& unit);
 
+// Display units of one scenario: energies in its display unit, lengths in um.
+struct Display {
+  double energy_per;  // internal energy of one display unit
+  double um;          // internal length of one micrometre
+  std::string e;      // display energy unit
+  std::string e_col;  // "_h_kHz"
+  double energy(double internal) const { return internal / energy_per; }
+  double length(double internal) const { return internal / um; }
+};
+Display display(const Scenario& s);
+
+// Up to `digits` significant digits (printf %g); "-" for NaN.
+std::string short_number(double v, int digits = 6);
+// SI unit of a dimension, for summaries: "Hz", "m", "J/m^4".
+std::string si_unit(const Dimension& d);
+// "periodic (Fourier), 256 points on [-1, 1] um, spacing 7.8 nm" and its JSON form.
+std::string grid_text(const Grid& g, const Display& d);
+nlohmann::ordered_json grid_json(const Grid& g, const Display& d);
+// The [[potential]] terms as given (text, SI and internal values) and the unit system.
+nlohmann::ordered_json potential_json(const Scenario& scenario);
+nlohmann::ordered_json units_json(const Scenario& scenario);
+// One report line: "  label       text".
+void print_row(std::ostream& out, const std::string& label, const std::string& text);
+// "trapwork <command>: <title>", then scenario, particle, units, potential and box lines.
+void print_scenario_header(std::ostream& out, const std::string& command, const Scenario& scenario);
+
 // The tables and the summary of one spectrum run (energies in the scenario's display unit,
 // lengths in um, wavefunctions in 1/sqrt(um)).
 CsvTable spectrum_table(const Scenario& scenario, const SpectrumResult& result);

@@ -3,8 +3,12 @@
 
 #include <toml++/toml.h>
 
+#include <charconv>
 #include <cmath>
 #include <cstdlib>
+#include <map>
+#include <regex>
+#include <thread>
 #include <filesystem>
 #include <fstream>
 #include <sstream>
@@ -17,8 +21,9 @@ namespace {
 
 namespace fs = std::filesystem;
 
-const std::vector<std::string> top_level_keys = {"title", "description", "particle", "units", "potential",
-                                                 "box",   "spectrum",    "grid",     "output"};
+const std::vector<std::string> top_level_keys = {"title",  "description", "particle", "units",
+                                                 "potential", "box",   "spectrum", "grid",
+                                                 "output", "protocol", "initial", "work", "sweep"};
 
 // Dimension of each named shape parameter (potentials/potential.hpp).
 Dimension parameter_dimension(std::string_view p) {
@@ -212,6 +217,45 @@ class Reader {
                                  const std::array<std::string, 2>& names = {"x", "V"}) const;
   void read_box_and_grid(const toml::table& root, Scenario& s);
   void read_spectrum(const toml::table& root, Scenario& s);
+
+  // internal energy of one formula energy_unit, per formula term (the unit of its scale)
+  std::map<std::string, double> formula_energy_;
+  void read_parameter_slots(Scenario& s) const;
+  double slot_value(const toml::node& n, const std::string& dotted, const ParameterSlot& slot) const;
+  void read_protocol(const toml::table& root, Scenario& s) const;
+  ChangeSpec read_change(const toml::table& t, const std::string& prefix, const Scenario& s,
+                         double tau) const;
+  void check_protocol(const Scenario& s, const toml::node& where, const std::string& key) const;
+  void read_initial(const toml::table& root, Scenario& s) const;
+  void read_work(const toml::table& root, Scenario& s) const;
+  void read_sweep(const toml::table& root, Scenario& s) const;
+
+  // A plain number (integer or floating point) without a unit.
+  std::optional<Read> plain(const toml::table& t, std::string_view key, const std::string& dotted,
+                            const std::string& what) const {
+    const toml::node* n = t.get(key);
+    if (!n) return std::nullopt;
+    if (!n->is_number()) fail(*n, dotted, what + ", a plain number without quotes or unit");
+    const double v = n->value<double>().value();
+    if (!std::isfinite(v)) fail(*n, dotted, "a finite number");
+    return Read{v, found_text(*n), n};
+  }
+
+  // A string naming one of `choices`; error lists them with the closest as suggestion.
+  template <class T>
+  std::optional<T> choice(const toml::table& t, std::string_view key, const std::string& dotted,
+                          const std::vector<std::pair<std::string, T>>& choices) const {
+    const auto text = string(t, key, dotted);
+    if (!text) return std::nullopt;
+    std::vector<std::string> names;
+    std::string list;
+    for (const auto& [name, value] : choices) {
+      if (name == *text) return value;
+      names.push_back(name);
+      list += (list.empty() ? "" : ", ") + name;
+    }
+    fail(*t.get(key), dotted, "one of " + list, closest_name(*text, names));
+  }
 };
 
 void Reader::read_units(const toml::table& root, Scenario& s) {
@@ -434,6 +478,7 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
         if (k == "scale") scale = v;
       std::erase_if(parameters, [](const auto& kv) { return kv.first == "scale"; });
       parameters.emplace_back("scale", scale * e_per);
+      formula_energy_[record.name] = e_per;
       parameters.emplace_back("length_factor", 1 / x_per);
       parameters.emplace_back("time_factor", 1 / t_per);
       if (const toml::node* user = t.get("parameters")) {
@@ -533,6 +578,450 @@ void Reader::read_spectrum(const toml::table& root, Scenario& s) {
   }
 }
 
+// ---- protocol, initial state, work settings, sweep ----------------------------------------
+
+std::string exact_text(double v) {
+  char buffer[32];
+  const auto r = std::to_chars(buffer, buffer + sizeof buffer, v);  // shortest round trip
+  return std::string(buffer, r.ptr);
+}
+
+// A schedule formula written in lab units -> the expression Schedule::formula evaluates in
+// internal units: t and tau (internal) become (t*c) and (tau*c) with c = time_unit per internal
+// time unit, the value is multiplied by the internal value of one value_unit, and `pi` is
+// muParser's _pi. Tokens are rewritten whole (number literals such as 2e-3 are skipped as
+// one token), so names like "sqrt" or "tan" are left alone.
+std::string internal_formula(const std::string& formula, double time_scale, double value_scale) {
+  std::string out;
+  const std::size_t n = formula.size();
+  auto digit = [&](std::size_t i) { return i < n && std::isdigit(static_cast<unsigned char>(formula[i])); };
+  auto word_char = [&](std::size_t i) {
+    return i < n && (std::isalnum(static_cast<unsigned char>(formula[i])) || formula[i] == '_');
+  };
+  for (std::size_t i = 0; i < n;) {
+    std::size_t j = i;
+    if (digit(i) || (formula[i] == '.' && digit(i + 1))) {
+      while (digit(j) || (j < n && formula[j] == '.')) ++j;
+      if (j < n && (formula[j] == 'e' || formula[j] == 'E')) {
+        std::size_t k = j + 1;
+        if (k < n && (formula[k] == '+' || formula[k] == '-')) ++k;
+        if (digit(k)) {
+          j = k;
+          while (digit(j)) ++j;
+        }
+      }
+      out += formula.substr(i, j - i);
+    } else if (word_char(i)) {
+      while (word_char(j)) ++j;
+      const std::string word = formula.substr(i, j - i);
+      if (word == "t" || word == "tau")
+        out += "(" + word + "*" + exact_text(time_scale) + ")";
+      else if (word == "pi")
+        out += "_pi";
+      else
+        out += word;
+    } else {
+      out += formula[j++];
+    }
+    i = j;
+  }
+  std::string wrapped = "(";  // built by appending: GCC 12 warns falsely on "(" + string
+  wrapped.append(exact_text(value_scale)).append(")*(").append(out).append(")");
+  return wrapped;
+}
+
+// muParser messages quote positions in the rewritten expression; drop them.
+std::string without_position(const std::string& message) {
+  return std::regex_replace(message, std::regex(" at position [0-9]+"), "");
+}
+
+void Reader::read_parameter_slots(Scenario& s) const {
+  for (const Term& term : s.potential.terms()) {
+    const auto& fixed = shape_parameters(term.shape());
+    for (const auto& [name, value] : term.parameters()) {
+      if (name == "length_factor" || name == "time_factor") continue;  // unit conversions
+      const bool user = std::find(fixed.begin(), fixed.end(), name) == fixed.end();
+      ParameterSlot slot{term.name() + "." + name, user ? Dimension::none() : parameter_dimension(name), 1};
+      if (name == "scale" && term.shape() == Shape::formula) slot.plain_factor = formula_energy_.at(term.name());
+      s.parameters.push_back(slot);
+    }
+  }
+}
+
+double Reader::slot_value(const toml::node& n, const std::string& dotted, const ParameterSlot& slot) const {
+  const Quantity q = quantity(n, dotted, slot.dimension);
+  if (slot.dimension == Dimension::none()) {
+    if (!q.plain) fail(n, dotted, "a plain number (" + slot.address + " has no unit)");
+    return q.si_value * slot.plain_factor;
+  }
+  try {
+    return units_.to_internal(q, slot.dimension, dotted, found_text(n));
+  } catch (const InputError& e) {
+    fail(n, dotted, e.expected + " (the dimension of " + slot.address + ")", e.suggestion);
+  }
+}
+
+ChangeSpec Reader::read_change(const toml::table& t, const std::string& prefix, const Scenario& s,
+                               double tau) const {
+  check_keys(t, prefix, {"parameter", "ramp", "to", "from", "file", "formula", "time_unit", "value_unit"});
+  ChangeSpec c;
+  const auto parameter = string(t, "parameter", prefix + ".parameter");
+  if (!parameter) fail(t.source(), prefix + ".parameter", "", "the parameter to change, e.g. \"trap.centre\"");
+  std::vector<std::string> known;
+  std::string list;
+  const ParameterSlot* slot = nullptr;
+  for (const auto& p : s.parameters) {
+    known.push_back(p.address);
+    list += (list.empty() ? "" : ", ") + p.address;
+    if (p.address == *parameter) slot = &p;
+  }
+  if (!slot)
+    fail(*t.get("parameter"), prefix + ".parameter", "a parameter of the potential: " + list,
+         closest_name(*parameter, known, 3));
+  c.parameter = *parameter;
+  c.dimension = slot->dimension;
+  const auto form = choice<ScheduleForm>(t, "ramp", prefix + ".ramp",
+                                         {{"constant", ScheduleForm::constant},
+                                          {"linear", ScheduleForm::linear},
+                                          {"smooth", ScheduleForm::smooth_step},
+                                          {"smoother", ScheduleForm::smoother_step},
+                                          {"table", ScheduleForm::table},
+                                          {"formula", ScheduleForm::formula}});
+  c.form = form.value_or(ScheduleForm::linear);
+  c.ramp = string(t, "ramp", prefix + ".ramp").value_or("linear");
+  // Which keys each ramp takes.
+  const bool ramp = c.form != ScheduleForm::table && c.form != ScheduleForm::formula;
+  auto key_for = [&](const std::string& key, bool wanted, bool required) {
+    const toml::node* n = t.get(key);
+    if (n && !wanted)
+      fail(*n, prefix + "." + key, "no " + key + " with ramp = \"" + c.ramp + "\"");
+    if (!n && required)
+      fail(t.source(), prefix + "." + key, "", "required with ramp = \"" + c.ramp + "\"");
+    return n;
+  };
+  const bool plain_parameter = c.dimension == Dimension::none();
+  key_for("file", c.form == ScheduleForm::table, c.form == ScheduleForm::table);
+  key_for("formula", c.form == ScheduleForm::formula, c.form == ScheduleForm::formula);
+  key_for("time_unit", !ramp, !ramp);
+  if (plain_parameter && t.get("value_unit"))
+    fail(*t.get("value_unit"), prefix + ".value_unit",
+         "no value_unit: " + c.parameter + " is a plain number");
+  key_for("value_unit", !ramp, !ramp && !plain_parameter);
+  key_for("from", ramp && c.form != ScheduleForm::constant, false);
+  if (const toml::node* to = key_for("to", ramp, ramp)) {
+    c.to = slot_value(*to, prefix + ".to", *slot);
+    c.to_given = found_text(*to);
+  }
+  if (const toml::node* from = t.get("from")) {
+    c.from = slot_value(*from, prefix + ".from", *slot);
+    c.from_given = found_text(*from);
+  }
+  if (ramp) return c;
+
+  const toml::node& time_unit = *t.get("time_unit");
+  const double t_per = unit_at(time_unit, prefix + ".time_unit", Dimension::time());
+  c.time_unit = time_unit.as_string()->get();
+  double v_per = slot->plain_factor;
+  if (!plain_parameter) {
+    const toml::node& value_unit = *t.get("value_unit");
+    v_per = unit_at(value_unit, prefix + ".value_unit", c.dimension);
+    c.value_unit = value_unit.as_string()->get();
+  }
+  if (c.form == ScheduleForm::table) {
+    const toml::node& file = *t.get("file");
+    if (!file.is_string()) fail(file, prefix + ".file", "a file name in quotes");
+    c.file = file.as_string()->get();
+    PotentialTable data = read_table_file(file, prefix + ".file", t_per, v_per, {"t", "value"});
+    if (data.x.front() > 0 || data.x.back() < tau)
+      fail(file, prefix + ".file",
+           "a table covering the protocol from t = 0 to the duration (" + exact_text(tau / t_per) + " " +
+               c.time_unit + "); it runs from " + exact_text(data.x.front() / t_per) + " to " +
+               exact_text(data.x.back() / t_per) + " " + c.time_unit);
+    c.times = std::move(data.x);
+    c.values = std::move(data.v);
+    return c;
+  }
+  const toml::node& formula = *t.get("formula");
+  if (!formula.is_string()) fail(formula, prefix + ".formula", "a formula of t in quotes");
+  c.formula = formula.as_string()->get();
+  c.internal_formula = internal_formula(c.formula, 1 / t_per, v_per);
+  try {
+    (void)Schedule::formula(c.parameter, c.internal_formula);
+  } catch (const InputError& e) {
+    fail(formula, prefix + ".formula",
+         "a formula of t and tau (in " + c.time_unit + "), pi and muParser's functions: " +
+             without_position(e.expected));
+  }
+  return c;
+}
+
+// Builds the protocol and sets it at 65 times over [0, tau] (every parameter value a shape
+// accepts, tables covering the duration); an error is reported at `where`.
+void Reader::check_protocol(const Scenario& s, const toml::node& where, const std::string& key) const {
+  try {
+    const Protocol p = build_protocol(s);
+    for (int i = 0; i <= 64; ++i) (void)p.at(s.potential, p.duration() * i / 64);
+  } catch (const InputError& e) {
+    fail(where, key, "a protocol the potential accepts: " + e.key + " = " + e.found + ": " + e.expected);
+  }
+}
+
+void Reader::read_protocol(const toml::table& root, Scenario& s) const {
+  const toml::table* p = table(root, "protocol");
+  if (!p) return;
+  check_keys(*p, "protocol", {"duration", "change"});
+  const auto duration = internal(*p, "duration", "protocol.duration", Dimension::time());
+  if (!duration)
+    fail(p->source(), "protocol.duration", "", "the duration of the protocol, e.g. duration = \"2.5 us\"");
+  require(duration->value >= 0, *duration, "protocol.duration", "a duration >= 0 (0: a sudden switch)");
+  ProtocolSpec spec{duration->value, duration->given, {}};
+  const toml::node* changes = p->get("change");
+  if (!changes)
+    fail(p->source(), "protocol.change", "",
+         "one or more [[protocol.change]] tables (parameter, to, ramp)");
+  if (!changes->is_array_of_tables() || changes->as_array()->empty())
+    fail(*changes, "protocol.change", "one or more [[protocol.change]] tables (double brackets)");
+  int index = 0;
+  for (const auto& node : *changes->as_array()) {
+    const std::string prefix = "protocol.change[" + std::to_string(++index) + "]";
+    ChangeSpec c = read_change(*node.as_table(), prefix, s, spec.duration);
+    for (const auto& earlier : spec.changes)
+      if (earlier.parameter == c.parameter)
+        fail(*node.as_table()->get("parameter"), prefix + ".parameter",
+             "a parameter not changed by an earlier [[protocol.change]] (one change per parameter)");
+    spec.changes.push_back(std::move(c));
+  }
+  s.protocol = std::move(spec);
+  check_protocol(s, *changes, "protocol.change");
+}
+
+void Reader::read_initial(const toml::table& root, Scenario& s) const {
+  const toml::table* t = table(root, "initial");
+  if (!t) return;
+  const std::vector<std::string> kinds = {"temperature", "mean_phonons", "level", "weights"};
+  check_keys(*t, "initial", kinds);
+  // Exactly one kind; the second one in the file is the one reported.
+  const toml::node* first = nullptr;
+  std::string first_key;
+  for (const auto& k : kinds) {
+    const toml::node* n = t->get(k);
+    if (!n) continue;
+    if (!first || n->source().begin < first->source().begin) {
+      first = n;
+      first_key = k;
+    }
+  }
+  if (!first)
+    fail(t->source(), "initial", "", "one of temperature, mean_phonons, level or weights");
+  for (const auto& [k, n] : *t)
+    if (&n != first)
+      fail(k.source(), "initial." + std::string(k.str()), found_text(n),
+           "only one initial state ([initial] already has " + first_key + ")");
+  if (!s.work) s.work.emplace();
+  WorkSettings& w = *s.work;
+  w.initial_given = first_key + " = " + found_text(*first);
+  if (first_key == "temperature") {
+    const auto r = internal(*t, "temperature", "initial.temperature", Dimension::temperature());
+    require(r->value > 0, *r, "initial.temperature", "a temperature > 0");
+    w.request.initial = InitialState::thermal(1 / r->value);
+  } else if (first_key == "mean_phonons") {
+    const auto r = plain(*t, "mean_phonons", "initial.mean_phonons", "a mean phonon number");
+    require(r->value > 0, *r, "initial.mean_phonons", "a mean phonon number > 0");
+    w.request.initial = InitialState::phonons(r->value);
+  } else if (first_key == "level") {
+    w.request.initial = InitialState::eigenstate(int(*integer(*t, "level", "initial.level", 0, 100000)));
+  } else {
+    const toml::array* a = first->as_array();
+    if (!a || a->empty()) fail(*first, "initial.weights", "an array of weights of levels 0, 1, ...");
+    std::vector<double> weights;
+    for (const auto& v : *a) {
+      if (!v.is_number() || !(v.value<double>().value() >= 0))
+        fail(v, "initial.weights[" + std::to_string(weights.size() + 1) + "]", "a plain number >= 0");
+      weights.push_back(v.value<double>().value());
+    }
+    if (std::none_of(weights.begin(), weights.end(), [](double x) { return x > 0; }))
+      fail(*first, "initial.weights", "weights that are not all zero");
+    w.request.initial = InitialState::mixture(weights);
+  }
+}
+
+void Reader::read_work(const toml::table& root, Scenario& s) const {
+  if (!s.work) s.work.emplace();
+  WorkSettings& w = *s.work;
+  WorkRequest& r = w.request;
+  r.threads = int(std::max(1u, std::thread::hardware_concurrency()));
+  const toml::table* t = table(root, "work");
+  if (!t) return;
+  check_keys(*t, "work",
+             {"integrator", "steps", "frame", "thermal_tolerance", "max_initial_levels", "final_margin",
+              "resolution", "bin_width", "reverse", "time_step_check", "threads"});
+  if (const auto i = choice<Integrator>(*t, "integrator", "work.integrator",
+                                        {{"fourth_order", Integrator::fourth_order},
+                                         {"strang", Integrator::strang},
+                                         {"eigenbasis", Integrator::eigenbasis}}))
+    r.integrator = *i;
+  if (const auto n = integer(*t, "steps", "work.steps", 0, 1000000000)) r.steps = int(*n);
+  if (const auto f = choice<std::optional<bool>>(
+          *t, "frame", "work.frame",
+          {{"auto", std::nullopt}, {"lab", false}, {"co_moving", true}})) {
+    r.co_moving = *f;
+    w.frame = *string(*t, "frame", "work.frame");
+  }
+  if (const auto e = plain(*t, "thermal_tolerance", "work.thermal_tolerance", "a left-out thermal weight")) {
+    require(e->value > 0 && e->value < 1, *e, "work.thermal_tolerance", "a number between 0 and 1 (e.g. 1e-10)");
+    r.thermal_tolerance = e->value;
+  }
+  if (const auto n = integer(*t, "max_initial_levels", "work.max_initial_levels", 1, 100000))
+    r.max_initial_levels = int(*n);
+  if (const auto n = integer(*t, "final_margin", "work.final_margin", 0, 100000)) r.final_margin = int(*n);
+  for (const std::string key : {"resolution", "bin_width"})
+    if (const auto e = internal(*t, key, "work." + key, Dimension::energy())) {
+      require(e->value > 0, *e, "work." + key, "an energy > 0");
+      (key == "resolution" ? w.resolution : w.bin_width) = e->value;
+    }
+  if (const auto b = boolean(*t, "reverse", "work.reverse")) r.reverse_run = *b;
+  if (const auto b = boolean(*t, "time_step_check", "work.time_step_check")) r.time_step_check = *b;
+  if (const auto n = integer(*t, "threads", "work.threads", 1, 4096)) {
+    r.threads = int(*n);
+    w.threads_given = true;
+  }
+}
+
+void Reader::read_sweep(const toml::table& root, Scenario& s) const {
+  const toml::table* t = table(root, "sweep");
+  if (!t) return;
+  check_keys(*t, "sweep", {"parameter", "values", "from", "to", "points"});
+  const auto parameter = string(*t, "parameter", "sweep.parameter");
+  if (!parameter) fail(t->source(), "sweep.parameter", "", "the parameter to sweep, e.g. \"protocol.duration\"");
+  const toml::node& parameter_node = *t->get("parameter");
+  SweepSpec w;
+  w.parameter = *parameter;
+  std::vector<std::string> known = {"protocol.duration", "initial.temperature", "initial.mean_phonons"};
+  const ParameterSlot* slot = nullptr;
+  ParameterSlot change_slot;
+  if (s.protocol)
+    for (std::size_t k = 0; k < s.protocol->changes.size(); ++k) {
+      const ChangeSpec& c = s.protocol->changes[k];
+      const std::string name = "change[" + std::to_string(k + 1) + "].to";
+      if (c.form == ScheduleForm::table || c.form == ScheduleForm::formula) continue;
+      known.push_back(name);
+      if (name == w.parameter) {
+        w.target = SweepTarget::change_to;
+        w.change = k;
+        for (const auto& p : s.parameters)
+          if (p.address == c.parameter) change_slot = p;
+        slot = &change_slot;
+      }
+    }
+  for (const auto& p : s.parameters) {
+    known.push_back(p.address);
+    if (p.address == w.parameter) {
+      w.target = SweepTarget::parameter;
+      w.address = p.address;
+      slot = &p;
+    }
+  }
+  if (w.parameter == "protocol.duration") {
+    w.target = SweepTarget::duration;
+    w.dimension = Dimension::time();
+  } else if (w.parameter == "initial.temperature") {
+    w.target = SweepTarget::temperature;
+    w.dimension = Dimension::temperature();
+  } else if (w.parameter == "initial.mean_phonons") {
+    w.target = SweepTarget::mean_phonons;
+    w.dimension = Dimension::none();
+  } else if (slot) {
+    w.dimension = slot->dimension;
+  } else {
+    std::string list;
+    for (const auto& k : known) list += (list.empty() ? "" : ", ") + k;
+    fail(parameter_node, "sweep.parameter", "one of " + list, closest_name(w.parameter, known, 3));
+  }
+  if (w.target == SweepTarget::duration && !s.protocol)
+    fail(parameter_node, "sweep.parameter", "a [protocol] to take the duration from");
+  if ((w.target == SweepTarget::temperature || w.target == SweepTarget::mean_phonons) &&
+      s.work->initial_given.empty())
+    fail(parameter_node, "sweep.parameter", "an [initial] table (the other settings of the initial state)");
+
+  // One value: converted, range-checked, its text kept.
+  auto value_at = [&](const toml::node& n, const std::string& key) {
+    double v = 0;
+    if (slot) {
+      v = slot_value(n, key, *slot);
+    } else if (w.target == SweepTarget::mean_phonons) {
+      if (!n.is_number()) fail(n, key, "a mean phonon number, a plain number without quotes or unit");
+      v = n.value<double>().value();
+      if (!(v > 0)) fail(n, key, "a mean phonon number > 0");
+    } else {
+      const Quantity q = quantity(n, key, w.dimension);
+      try {
+        v = units_.to_internal(q, w.dimension, key, found_text(n));
+      } catch (const InputError& e) {
+        fail(n, key, e.expected + " (the dimension of " + w.parameter + ")", e.suggestion);
+      }
+      if (w.target == SweepTarget::duration && !(v >= 0)) fail(n, key, "a duration >= 0");
+      if (w.target == SweepTarget::temperature && !(v > 0)) fail(n, key, "a temperature > 0");
+    }
+    return v;
+  };
+  std::vector<const toml::node*> nodes;  // where each value came from (for errors)
+  const toml::node* values = t->get("values");
+  const toml::node* from = t->get("from");
+  if (values && (from || t->get("to") || t->get("points")))
+    fail(*values, "sweep.values", "either values = [...] or from, to and points, not both");
+  if (values) {
+    const toml::array* a = values->as_array();
+    if (!a || a->empty()) fail(*values, "sweep.values", "an array of values, e.g. [\"1 us\", \"2 us\"]");
+    for (const auto& v : *a) {
+      const std::string key = "sweep.values[" + std::to_string(w.values.size() + 1) + "]";
+      w.values.push_back(value_at(v, key));
+      w.given.push_back(found_text(v));
+      nodes.push_back(&v);
+    }
+  } else {
+    const toml::node* to = t->get("to");
+    const auto points = integer(*t, "points", "sweep.points", 2, 100000);
+    if (!from || !to || !points)
+      fail(t->source(), !from ? "sweep.from" : !to ? "sweep.to" : "sweep.points", "",
+           "values = [...], or from, to and points (evenly spaced)");
+    const double a = value_at(*from, "sweep.from"), b = value_at(*to, "sweep.to");
+    for (std::int64_t i = 0; i < *points; ++i) {
+      w.values.push_back(a + (b - a) * double(i) / double(*points - 1));
+      w.given.push_back(exact_text(w.values.back()) + " (internal)");
+      nodes.push_back(i == 0 ? from : to);
+    }
+    values = from;
+  }
+  // Display unit: the unit of the first value as written ("1 us" -> us); plain numbers stay.
+  const std::string first = values->is_array() ? w.given.front() : found_text(*values);
+  if (first.size() > 2 && first.front() == '"') {
+    const std::string text = first.substr(1, first.size() - 2);
+    char* end = nullptr;
+    std::strtod(text.c_str(), &end);
+    std::string unit(end);
+    unit.erase(0, unit.find_first_not_of(" \t"));
+    w.unit = unit;
+    w.internal_per_unit = units_.to_internal(parse_quantity("1 " + unit), w.dimension);
+  } else {
+    w.internal_per_unit = slot ? slot->plain_factor : 1;
+  }
+  if (!values->is_array() && !w.unit.empty())
+    for (std::size_t i = 0; i < w.values.size(); ++i)
+      w.given[i] = exact_text(w.values[i] / w.internal_per_unit) + " " + w.unit;
+  s.sweep = std::move(w);
+  // Every point must give a usable protocol and potential.
+  for (std::size_t i = 0; i < s.sweep->values.size(); ++i) {
+    const std::string key = values->is_array() ? "sweep.values[" + std::to_string(i + 1) + "]" : "sweep";
+    try {
+      const Scenario point = at_sweep_point(s, i);
+      if (point.protocol) check_protocol(point, *nodes[i], key);
+    } catch (const InputError& e) {
+      if (!e.file.empty()) throw;
+      fail(*nodes[i], key, e.key + ": " + e.expected);
+    }
+  }
+}
+
 Scenario Reader::read(const toml::table& root) {
   Scenario s;
   s.file = file_;
@@ -551,6 +1040,11 @@ Scenario Reader::read(const toml::table& root) {
 
   read_box_and_grid(root, s);
   read_spectrum(root, s);
+  read_parameter_slots(s);
+  read_protocol(root, s);
+  read_initial(root, s);
+  read_work(root, s);
+  read_sweep(root, s);
 
   s.output_folder = fs::path(file_).stem().string() + "-output";
   if (const toml::table* output = table(root, "output")) {
@@ -585,12 +1079,65 @@ Scenario read_scenario(const std::string& path) {
   return read_scenario_text(text.str(), path);
 }
 
+Protocol build_protocol(const Scenario& s) {
+  if (!s.protocol)
+    throw InputError("protocol", "", "a [protocol] table with duration and [[protocol.change]] tables", "",
+                     s.file);
+  std::vector<Schedule> schedules;
+  for (const ChangeSpec& c : s.protocol->changes) {
+    const double from = c.from.value_or(s.potential.parameter(c.parameter));
+    switch (c.form) {
+      case ScheduleForm::constant: schedules.push_back(Schedule::constant(c.parameter, c.to)); break;
+      case ScheduleForm::linear: schedules.push_back(Schedule::linear(c.parameter, from, c.to)); break;
+      case ScheduleForm::smooth_step: schedules.push_back(Schedule::smooth_step(c.parameter, from, c.to)); break;
+      case ScheduleForm::smoother_step:
+        schedules.push_back(Schedule::smoother_step(c.parameter, from, c.to));
+        break;
+      case ScheduleForm::table: schedules.push_back(Schedule::table(c.parameter, c.times, c.values)); break;
+      case ScheduleForm::formula: schedules.push_back(Schedule::formula(c.parameter, c.internal_formula)); break;
+    }
+  }
+  return Protocol(s.protocol->duration, std::move(schedules));
+}
+
+WorkRequest work_request(const Scenario& s) {
+  if (!s.work || s.work->initial_given.empty())
+    throw InputError("initial", "", "an [initial] table: temperature, mean_phonons, level or weights", "",
+                     s.file);
+  WorkRequest r = s.work->request;
+  r.spectrum = s.spectrum;
+  return r;
+}
+
+Scenario at_sweep_point(const Scenario& s, std::size_t index) {
+  TRAPWORK_EXPECT(s.sweep && index < s.sweep->values.size(), "at_sweep_point: no such sweep point");
+  Scenario r = s;
+  const SweepSpec& w = *s.sweep;
+  const double v = w.values[index];
+  switch (w.target) {
+    case SweepTarget::duration: r.protocol->duration = v; break;
+    case SweepTarget::temperature:
+      r.work->request.initial = InitialState::thermal(1 / v);
+      r.work->initial_given = "temperature = " + w.given[index];
+      break;
+    case SweepTarget::mean_phonons:
+      r.work->request.initial = InitialState::phonons(v);
+      r.work->initial_given = "mean_phonons = " + w.given[index];
+      break;
+    case SweepTarget::parameter: r.potential.set_parameter(w.address, v); break;
+    case SweepTarget::change_to: r.protocol->changes[w.change].to = v; break;
+  }
+  return r;
+}
+
 std::string_view default_scenario_text() {
-  // Invented setting. The quartic k4 shifts the lowest spacing by 3 k4 L^4 to first order
-  // (L = sqrt(hbar/(m omega)) = 15.9 nm for 40 u at 1 MHz): 3 * 2e-4 h*Hz/nm^4 * (15.9 nm)^4
-  // = 38 h*Hz.
-  return R"(title = "default: 40 u ion in a 1 MHz trap with a small quartic term"
-description = "Built-in scenario (invented lab setting): the quartic term shifts the lowest spacing by about 38 Hz, growing with n."
+  // Invented setting. L = sqrt(hbar/(m omega)) = 15.9 nm for 40 u at 1 MHz. To first order the
+  // quartic k4 raises the spacing E(n+1) - E(n) by 3 k4 L^4 (n + 1); k4 = m^2 omega^2 delta /
+  // (3 hbar) with delta = 2 pi 3 kHz gives 0.0157 h*Hz/nm^4 (1e-3 hbar omega / L^4), a 3 kHz
+  // shift of the lowest spacing. The trap moves by 160 nm (10 L) at constant speed in 2.5 us
+  // (2.5 periods), where the harmonic <W> = 2 m v^2 sin^2(omega tau / 2) is largest.
+  return R"(title = "default: 40 u ion in a 1 MHz trap with a quartic term, moved by 160 nm in 2.5 us"
+description = "Built-in scenario (invented lab setting): the quartic term raises the lowest spacing by about 3 kHz, growing with n; the ion starts thermal with 2 phonons and the trap moves 10 oscillator lengths at constant speed."
 
 [particle]
 mass = "40 u"
@@ -599,10 +1146,21 @@ mass = "40 u"
 name = "trap"
 shape = "polynomial"
 frequency = "1 MHz"
-quartic = "2e-4 h*Hz/nm^4"
+quartic = "0.0157 h*Hz/nm^4"
 
 [spectrum]
 levels = 20
+
+[protocol]
+duration = "2.5 us"
+
+[[protocol.change]]
+parameter = "trap.centre"
+ramp = "linear"
+to = "160 nm"
+
+[initial]
+mean_phonons = 2
 )";
 }
 

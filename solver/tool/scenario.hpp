@@ -92,7 +92,7 @@ struct ProtocolSpec {
 // scenario's [grid]/[spectrum] when the request is built (work_request below).
 struct WorkSettings {
   WorkRequest request;
-  std::string initial_given;  // "temperature = \"20 uK\"", "level = 0", ...
+  std::string initial_given;  // as written: temperature = "20 uK", level = 0, ...
   std::string frame = "auto";
   std::optional<double> resolution;  // internal energy; default: 1/20 of the lowest spacing
   std::optional<double> bin_width;   // internal energy; default: the lowest spacing

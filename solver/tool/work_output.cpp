@@ -1,0 +1,792 @@
+// Output files, summary and report of `trapwork work` and `trapwork sweep` (see work_output.hpp).
+#include "solver/tool/work_output.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <cstdio>
+#include <limits>
+#include <numeric>
+
+#include "solver/harmonic_reference.hpp"
+#include "solver/tool/plot.hpp"
+
+namespace trapwork {
+
+namespace fs = std::filesystem;
+using json = nlohmann::ordered_json;
+
+namespace {
+
+constexpr double nan_value = std::numeric_limits<double>::quiet_NaN();
+
+json number_or_null(double v) {
+  return std::isfinite(v) ? json(v) : json(nullptr);
+}
+
+// Energies for humans: the display unit, and hbar*omega_ref where the scenario has one.
+struct Energies {
+  Display d;
+  double omega_ref;  // internal; 0 without a reference frequency
+  explicit Energies(const Scenario& s) : d(display(s)), omega_ref(s.omega_ref) {}
+  bool oscillator() const { return omega_ref > 0 && d.e != "hbar*omega"; }
+  double show(double internal) const { return d.energy(internal); }
+  std::string text(double internal, int digits = 6) const {
+    std::string t = short_number(d.energy(internal), digits) + " " + d.e;
+    if (oscillator()) t += " (" + short_number(internal / omega_ref, digits) + " hbar*omega)";
+    return t;
+  }
+};
+
+// Lengths in nm for traps narrower than 2 um, else in um.
+struct LengthUnit {
+  std::string name;
+  double internal_per_unit;
+};
+LengthUnit length_unit(const Scenario& s, const Grid& g) {
+  const double um = internal_per_um(s);
+  return g.length() < 2 * um ? LengthUnit{"nm", um / 1000} : LengthUnit{"um", um};
+}
+
+// A scheduled value in lab units, by dimension.
+std::string lab_text(const Scenario& s, double internal, const Dimension& d) {
+  const UnitSystem& u = s.units;
+  if (d == Dimension::length()) return short_number(u.to_si(internal, d) * 1e9) + " nm";
+  if (d == Dimension::frequency()) return short_number(u.to_si(internal, d) / 1e3) + " kHz";
+  if (d == Dimension::time()) return short_number(u.to_si(internal, d) * 1e6) + " us";
+  if (d == Dimension::energy()) return Energies(s).text(internal);
+  if (d == Dimension::none()) return short_number(internal);
+  return short_number(u.to_si(internal, d)) + " " + si_unit(d);
+}
+
+double duration_us(const Scenario& s, double tau) {
+  return s.units.to_si(tau, Dimension::time()) * 1e6;
+}
+
+// The given text of a potential parameter ("trap.centre"), or its lab value.
+std::string potential_value_text(const Scenario& s, const ChangeSpec& c) {
+  const auto dot = c.parameter.find('.');
+  const std::string term = c.parameter.substr(0, dot), name = c.parameter.substr(dot + 1);
+  for (const auto& t : s.terms)
+    if (t.name == term)
+      for (const auto& p : t.parameters)
+        if (p.name == name) return p.given;
+  return lab_text(s, s.potential.parameter(c.parameter), c.dimension);
+}
+
+std::string unquoted(const std::string& text) {
+  return text.size() >= 2 && text.front() == '"' ? text.substr(1, text.size() - 2) : text;
+}
+
+std::string change_text(const Scenario& s, const ChangeSpec& c) {
+  const std::string from = c.from ? c.from_given : potential_value_text(s, c);
+  switch (c.form) {
+    case ScheduleForm::constant: return c.parameter + " held at " + unquoted(c.to_given);
+    case ScheduleForm::table:
+      return c.parameter + ": table " + c.file + " (" + std::to_string(c.times.size()) + " rows, t in " +
+             c.time_unit + (c.value_unit.empty() ? "" : ", value in " + c.value_unit) + ")";
+    case ScheduleForm::formula:
+      return c.parameter + " = " + c.formula + " (t in " + c.time_unit +
+             (c.value_unit.empty() ? "" : ", value in " + c.value_unit) + ")";
+    default: break;
+  }
+  return c.parameter + ": " + c.ramp + " ramp from " + unquoted(from) + " to " + unquoted(c.to_given);
+}
+
+// Gibbs states: temperature in uK and nbar against the lowest spacing of H_A.
+struct Thermal {
+  bool gibbs = false;
+  double beta = nan_value, temperature_uK = nan_value, mean_phonons = nan_value;
+};
+Thermal thermal_of(const WorkRun& run) {
+  Thermal t;
+  const double beta = run.result.distribution.beta;
+  if (!std::isfinite(beta)) return t;
+  t.gibbs = true;
+  t.beta = beta;
+  t.temperature_uK = run.scenario.units.energy_J() / (beta * si::boltzmann) * 1e6;
+  t.mean_phonons = 1 / std::expm1(beta * lowest_spacing(run.result));
+  return t;
+}
+
+std::string initial_text(const WorkRun& run) {
+  const Thermal t = thermal_of(run);
+  const std::string given = run.scenario.work ? run.scenario.work->initial_given : "";
+  if (!t.gibbs) {
+    const InitialState& s = run.request.initial;
+    if (s.kind() == InitialState::Kind::eigenstate) return given + ": level " + std::to_string(s.level()) + " of H_A";
+    return given + ": a mixture of the lowest " + std::to_string(s.mixture_weights().size()) + " levels of H_A";
+  }
+  return given + ": Gibbs state, T = " + short_number(t.temperature_uK, 4) + " uK, nbar = " +
+         short_number(t.mean_phonons, 4) + " (against the lowest spacing " +
+         Energies(run.scenario).text(lowest_spacing(run.result), 5) + ")";
+}
+
+double time_step_ns(const WorkRun& run) {
+  return run.result.steps > 0
+             ? run.scenario.units.to_si(run.protocol.duration() / run.result.steps, Dimension::time()) * 1e9
+             : nan_value;
+}
+
+// The displacement of a co-moving run's frame at tau (the final spectrum lives at x + d).
+double frame_shift(const WorkRun& run) {
+  if (!run.result.co_moving) return 0;
+  const auto tr = run.protocol.translation(run.scenario.potential);
+  return tr ? run.protocol.displacement(*tr, run.protocol.duration()).value : 0.0;
+}
+
+// Points for the broadened densities: the lines holding all but 1e-6 of the largest line's
+// probability, widened by 6 sigma, at sigma / 5 (at most 4001 points).
+std::vector<double> density_grid(const WorkDistribution& d, double sigma) {
+  double top = 0;
+  for (const auto& l : d.lines) top = std::max(top, l.probability);
+  double lo = std::numeric_limits<double>::infinity(), hi = -lo;
+  for (const auto& l : d.lines)
+    if (l.probability >= 1e-6 * top) {
+      lo = std::min(lo, l.work);
+      hi = std::max(hi, l.work);
+    }
+  if (!(hi >= lo)) return {};
+  lo -= 6 * sigma;
+  hi += 6 * sigma;
+  const std::size_t n = std::min<std::size_t>(4001, std::size_t(std::ceil((hi - lo) / (sigma / 5))) + 1);
+  std::vector<double> w(n);
+  for (std::size_t i = 0; i < n; ++i) w[i] = lo + (hi - lo) * double(i) / double(n - 1);
+  return w;
+}
+
+double sd_of(const WorkDistribution& d) {
+  return std::sqrt(std::max(0.0, d.variance));
+}
+
+// <W> = 2 m v^2 sin^2(omega tau / 2) of a constant-speed translation over `distance` in the
+// harmonic trap omega (internal units, m = 1); tau -> 0 gives the sudden value omega^2 D^2 / 2.
+double constant_speed_work(double omega, double distance, double tau) {
+  if (tau <= 0) return 0.5 * omega * omega * distance * distance;
+  return constant_speed_mean_work(omega, distance / tau, tau);
+}
+
+// The linear translation of a scenario's protocol: (omega_h, distance), when every term moves
+// rigidly at constant speed and the trap has a harmonic part.
+std::optional<std::pair<double, double>> constant_speed_translation(const Scenario& s) {
+  if (!s.protocol) return std::nullopt;
+  const Protocol p = build_protocol(s);
+  const auto part = s.potential.harmonic_part();
+  if (!part || !p.translation(s.potential)) return std::nullopt;
+  for (const auto& schedule : p.schedules())
+    if (schedule.form() != ScheduleForm::linear) return std::nullopt;
+  const Schedule& first = p.schedules().front();
+  return std::make_pair(part->first, first.final_value(p.duration()) - first.initial_value(p.duration()));
+}
+
+}  // namespace
+
+double lowest_spacing(const WorkResult& result) {
+  const auto& e = result.initial_spectrum.energies;
+  // first spacing above the ground group (degenerate levels are measured as one)
+  for (Eigen::Index i = 1; i < e.size(); ++i)
+    if (result.initial_spectrum.group.empty() || result.initial_spectrum.group[std::size_t(i)] != result.initial_spectrum.group[0])
+      return e[i] - e[0];
+  return nan_value;
+}
+
+double resolution_of(const WorkRun& run) {
+  const auto& w = run.scenario.work;
+  return w && w->resolution ? *w->resolution : lowest_spacing(run.result) / 20;
+}
+
+double bin_width_of(const WorkRun& run) {
+  const auto& w = run.scenario.work;
+  return w && w->bin_width ? *w->bin_width : lowest_spacing(run.result);
+}
+
+std::vector<WorkCheck> work_checks(const WorkRun& run) {
+  const Diagnostics& g = run.result.diagnostics;
+  const double spacing = lowest_spacing(run.result);
+  std::vector<WorkCheck> c;
+  c.push_back({"norm drift", g.norm_drift, 1e-8,
+               "unitary steps keep the norm to rounding (~1e-12); 1e-8 flags a failing step (common practice)"});
+  c.push_back({"unresolved weight", g.unresolved_weight, run.request.unresolved_tolerance,
+               "WorkRequest.unresolved_tolerance: probability not captured by the final levels kept"});
+  c.push_back({"edge amplitude", g.edge_amplitude, 1e-8,
+               "relative |psi|^2 in the outer 2% of the grid; the library warns above 1e-8"});
+  c.push_back({"time-step error", g.time_step_error, 1e-6,
+               "max |dP(m->n)| against half the step; the library warns above 1e-6"});
+  c.push_back({"grid convergence", g.grid_convergence / spacing, 1e-6,
+               "max |dE| of the levels on a finer grid over the lowest spacing; 1e-6 is our choice (work lines "
+               "placed to a millionth of a spacing)"});
+  const double bound = g.truncation.bound;
+  const bool reverse = run.result.reverse.has_value();
+  c.push_back({"Jarzynski residual", std::abs(g.jarzynski_residual), reverse ? bound + 1e-9 : nan_value,
+               "truncation bound eps_K + p_R(>=K) (solver/thermal.hpp) plus 1e-9 for the line errors of the "
+               "propagation, as in run_work"});
+  c.push_back({"Crooks ratio error", g.crooks_ratio_error,
+               reverse ? g.truncation.thermal_tail + g.truncation.reverse_thermal_tail + 1e-6 : nan_value,
+               "exact up to eps_A + eps_B (solver/work.hpp); plus 1e-6 for ratios of lines down to 1e-10, "
+               "whose absolute rounding ~1e-16 is relative 1e-6"});
+  return c;
+}
+
+std::vector<std::string> work_warnings(const WorkRun& run) {
+  std::vector<std::string> w = run.result.diagnostics.warnings;
+  for (const auto& c : work_checks(run)) {
+    if (c.pass()) continue;
+    if (c.name == "grid convergence")
+      w.push_back("level energies change by " + short_number(c.value, 3) + " of the lowest spacing on a finer grid, "
+                  "above " + short_number(c.tolerance, 3) + ": set [grid] points higher or widen [grid] left/right");
+    if (c.name == "norm drift")
+      w.push_back("norm drift " + short_number(c.value, 3) + " above " + short_number(c.tolerance, 3) +
+                  ": raise [work] steps or use integrator = \"fourth_order\"");
+    if (c.name == "Crooks ratio error")
+      w.push_back("Crooks ratio error " + short_number(c.value, 3) + " above " + short_number(c.tolerance, 3) +
+                  ": lower [work] thermal_tolerance or raise max_initial_levels");
+  }
+  return w;
+}
+
+CsvTable lines_table(const WorkRun& run, const WorkDistribution& d, const std::string& what) {
+  const Energies e(run.scenario);
+  CsvTable t;
+  t.columns.push_back({"work" + e.d.e_col, {}});
+  if (e.oscillator()) t.columns.push_back({"work_hbar_omega", {}});
+  t.columns.push_back({"probability", {}});
+  t.columns.push_back({"initial", {}});
+  t.columns.push_back({"final", {}});
+  t.columns.push_back({"cumulative", {}});
+  double cumulative = 0;
+  for (const auto& l : d.lines) {
+    cumulative += l.probability;
+    std::size_t k = 0;
+    t.columns[k++].values.push_back(e.show(l.work));
+    if (e.oscillator()) t.columns[k++].values.push_back(l.work / e.omega_ref);
+    t.columns[k++].values.push_back(l.probability);
+    t.columns[k++].values.push_back(l.initial);
+    t.columns[k++].values.push_back(l.final);
+    t.columns[k++].values.push_back(cumulative);
+  }
+  t.comments = {
+      "trapwork work: " + what + " of " + (run.scenario.title.empty() ? run.scenario.file : run.scenario.title),
+      "two-point measurement: W = E_n(final) - E_m(initial), probability = p_m P(m -> n), sorted by W",
+      "work in " + e.d.e + (e.oscillator() ? " and in hbar*omega_ref" : "") +
+          "; lines closer than " + number_text(e.show(d.merge_tolerance)) + " " + e.d.e +
+          " are merged (initial, final: the first merged pair)",
+      "cumulative: running sum of probability; total resolved " + number_text(d.resolved_weight) +
+          ", unresolved " + number_text(d.unresolved_weight),
+  };
+  return t;
+}
+
+CsvTable histogram_table(const WorkRun& run) {
+  const Energies e(run.scenario);
+  const WorkHistogram h = histogram(run.result.distribution, bin_width_of(run));
+  CsvTable t;
+  t.columns = {{"bin_start" + e.d.e_col, {}}, {"bin_end" + e.d.e_col, {}}, {"probability", {}}};
+  for (std::size_t k = 0; k < h.probability.size(); ++k) {
+    t.columns[0].values.push_back(e.show(h.start + double(k) * h.width));
+    t.columns[1].values.push_back(e.show(h.start + double(k + 1) * h.width));
+    t.columns[2].values.push_back(h.probability[k]);
+  }
+  t.comments = {"trapwork work: histogram of P(W), bins [bin_start, bin_end) of width " +
+                    number_text(e.show(h.width)) + " " + e.d.e,
+                "bin width: [work] bin_width, default the lowest level spacing of the initial trap"};
+  return t;
+}
+
+CsvTable density_table(const WorkRun& run) {
+  const Energies e(run.scenario);
+  const double sigma = resolution_of(run);
+  const auto w = density_grid(run.result.distribution, sigma);
+  const auto rho = broadened_density(run.result.distribution, sigma, w);
+  CsvTable t;
+  t.columns = {{"work" + e.d.e_col, {}}, {"density_per" + e.d.e_col, {}}};
+  for (std::size_t i = 0; i < w.size(); ++i) {
+    t.columns[0].values.push_back(e.show(w[i]));
+    t.columns[1].values.push_back(rho[i] * e.d.energy_per);  // per display unit
+  }
+  if (run.result.harmonic) {
+    const auto ref = broadened_density(run.result.harmonic->distribution, sigma, w);
+    CsvColumn c{"harmonic_density_per" + e.d.e_col, {}};
+    for (double r : ref) c.values.push_back(r * e.d.energy_per);
+    t.columns.push_back(std::move(c));
+  }
+  t.comments = {"trapwork work: P(W) seen through a Gaussian energy-measurement resolution sigma = " +
+                    number_text(e.show(sigma)) + " " + e.d.e + " ([work] resolution, default 1/20 of the lowest spacing)",
+                "density: sum_l p_l N(W - W_l; sigma), per " + e.d.e +
+                    (run.result.harmonic ? "; harmonic_density: the same for the harmonic reference" : "")};
+  return t;
+}
+
+CsvTable transition_table(const WorkRun& run) {
+  const Eigen::MatrixXd& p = run.result.forward.transitions.probability;
+  const bool ref = run.result.harmonic.has_value();
+  CsvTable t;
+  t.columns = {{"initial", {}}, {"final", {}}, {"probability", {}}};
+  if (ref) t.columns.push_back({"reference_probability", {}});
+  for (Eigen::Index m = 0; m < p.rows(); ++m)
+    for (Eigen::Index n = 0; n < p.cols(); ++n) {
+      t.columns[0].values.push_back(double(m));
+      t.columns[1].values.push_back(double(n));
+      t.columns[2].values.push_back(p(m, n));
+      if (ref) t.columns[3].values.push_back(run.result.harmonic->reference.probability(m, n));
+    }
+  t.comments = {"trapwork work: transition probabilities P(m -> n) = |<n_final|U|m_initial>|^2",
+                "initial: level m of the initial trap (the levels kept), final: level n of the final trap" +
+                    (ref ? "; reference_probability: " + run.result.harmonic->model : std::string())};
+  return t;
+}
+
+CsvTable characteristic_table(const WorkRun& run) {
+  const Energies e(run.scenario);
+  const double spacing = lowest_spacing(run.result);
+  const double u_max = 2 * 2 * si::pi / spacing;  // two periods of a harmonic line comb
+  std::vector<double> u(401);
+  for (std::size_t i = 0; i < u.size(); ++i) u[i] = u_max * double(i) / double(u.size() - 1);
+  const auto g = characteristic_function(run.result.distribution, u);
+  CsvTable t;
+  t.columns = {{"u_per" + e.d.e_col, {}}, {"re_G", {}}, {"im_G", {}}};
+  for (std::size_t i = 0; i < u.size(); ++i) {
+    t.columns[0].values.push_back(u[i] * e.d.energy_per);
+    t.columns[1].values.push_back(g[i].real());
+    t.columns[2].values.push_back(g[i].imag());
+  }
+  t.comments = {"trapwork work: characteristic function G(u) = <exp(i u W)> = sum_l p_l exp(i u W_l)",
+                "u in 1/" + e.d.e + ", from 0 to 4 pi / (lowest spacing)"};
+  return t;
+}
+
+json work_summary(const WorkRun& run) {
+  const Scenario& s = run.scenario;
+  const WorkResult& r = run.result;
+  const WorkDistribution& d = r.distribution;
+  const Energies e(s);
+  const Display& D = e.d;
+  const Thermal th = thermal_of(run);
+  auto energy = [&](double internal) {
+    json j = {{"value", number_or_null(e.show(internal))}, {"internal", number_or_null(internal)}};
+    if (e.oscillator()) j["hbar_omega"] = number_or_null(internal / e.omega_ref);
+    return j;
+  };
+  json changes = json::array();
+  if (s.protocol)
+    for (const auto& c : s.protocol->changes)
+      changes.push_back({{"parameter", c.parameter},
+                         {"ramp", c.ramp},
+                         {"from", c.from ? c.from_given : potential_value_text(s, c)},
+                         {"to", c.to_given},
+                         {"file", c.file},
+                         {"formula", c.formula},
+                         {"text", change_text(s, c)}});
+  const double tau = run.protocol.duration();
+  json harmonic = nullptr;
+  if (r.harmonic) {
+    const auto& h = *r.harmonic;
+    const double diff = d.mean - h.mean_work;
+    harmonic = {{"model", h.model},
+                {"parameter_name", h.model.rfind("displaced", 0) == 0 ? "|alpha|^2" : "Q*"},
+                {"parameter", h.parameter},
+                {"exact", h.exact},
+                {"mean_work", energy(h.mean_work)},
+                {"sd_work", energy(sd_of(h.distribution))},
+                {"departure", energy(diff)},
+                {"departure_percent", number_or_null(100 * diff / h.mean_work)},
+                {"max_line_difference", h.max_line_difference}};
+  }
+  json crooks = nullptr;
+  if (r.crooks)
+    crooks = {{"max_line_difference", r.crooks->max_line_difference},
+              {"max_ratio_error", r.crooks->max_ratio_error},
+              {"lines_compared", r.crooks->lines_compared},
+              {"ratios_compared", r.crooks->ratios_compared}};
+  json checks = json::array();
+  for (const auto& c : work_checks(run))
+    checks.push_back({{"name", c.name},
+                      {"value", number_or_null(c.value)},
+                      {"tolerance", number_or_null(c.tolerance)},
+                      {"pass", c.pass()},
+                      {"checked", std::isfinite(c.value) && std::isfinite(c.tolerance)},
+                      {"tolerance_source", c.source}});
+  const auto& g = r.diagnostics;
+  return {
+      {"command", "trapwork work"},
+      {"scenario", {{"file", s.file}, {"title", s.title}, {"description", s.description}}},
+      {"units", units_json(s)},
+      {"potential", potential_json(s)},
+      {"protocol",
+       {{"duration_us", duration_us(s, tau)},
+        {"duration_internal", tau},
+        {"duration_given", s.protocol ? s.protocol->duration_given : ""},
+        {"changes", changes}}},
+      {"initial",
+       {{"given", s.work ? s.work->initial_given : ""},
+        {"gibbs", th.gibbs},
+        {"beta_internal", number_or_null(th.beta)},
+        {"temperature_uK", number_or_null(th.temperature_uK)},
+        {"mean_phonons", number_or_null(th.mean_phonons)},
+        {"lowest_spacing", energy(lowest_spacing(r))}}},
+      {"grid", grid_json(r.grid, D)},
+      {"co_moving", r.co_moving},
+      {"method", r.method},
+      {"steps", r.steps},
+      {"time_step_ns", number_or_null(time_step_ns(run))},
+      {"levels",
+       {{"initial_kept", r.forward.transitions.initial_levels()},
+        {"final", r.forward.transitions.final_levels()},
+        {"left_out_thermal_weight", g.truncation.thermal_tail},
+        {"thermal_tolerance", run.request.thermal_tolerance}}},
+      {"work",
+       {{"mean", energy(d.mean)},
+        {"sd", energy(sd_of(d))},
+        {"skewness", d.skewness},
+        {"free_energy_change", energy(d.free_energy_change)},
+        {"dissipated_work", energy(d.dissipated_work)},
+        {"resolved_weight", d.resolved_weight},
+        {"unresolved_weight", d.unresolved_weight},
+        {"lines", d.lines.size()},
+        {"resolution", energy(resolution_of(run))},
+        {"bin_width", energy(bin_width_of(run))}}},
+      {"jarzynski",
+       {{"average_exp_minus_beta_W", number_or_null(d.jarzynski_average)},
+        {"partition_ratio", number_or_null(d.partition_ratio)},
+        {"residual", number_or_null(d.jarzynski_residual)},
+        {"truncation_bound", r.reverse ? json(g.truncation.bound) : json(nullptr)},
+        {"thermal_tail", g.truncation.thermal_tail},
+        {"reverse_tail", g.truncation.reverse_tail},
+        {"reverse_thermal_tail", g.truncation.reverse_thermal_tail}}},
+      {"crooks", crooks},
+      {"harmonic", harmonic},
+      {"diagnostics",
+       {{"norm_drift", g.norm_drift},
+        {"unresolved_weight", g.unresolved_weight},
+        {"edge_amplitude", g.edge_amplitude},
+        {"time_step_error", number_or_null(g.time_step_error)},
+        {"max_phase_per_step", g.max_phase_per_step},
+        {"grid_convergence", number_or_null(g.grid_convergence)},
+        {"grid_convergence_unit", "internal energy (hbar^2/(m L0^2))"},
+        {"checks", checks}}},
+      {"warnings", work_warnings(run)},
+  };
+}
+
+namespace {
+
+// potential.png: the initial and final potentials with their lowest levels and the first
+// densities, in the lab frame.
+LevelsFigure levels_figure(const WorkRun& run) {
+  const WorkResult& r = run.result;
+  const Display d = display(run.scenario);
+  const LengthUnit lu = length_unit(run.scenario, r.grid);
+  const int kept = r.forward.transitions.initial_levels();
+  const int shown = std::min<int>(12, std::max(kept + 2, 6));
+  auto panel = [&](const std::string& title, const Potential& v, const Spectrum& sp, double shift) {
+    LevelsPanel p;
+    p.title = title;
+    const auto x = sp.grid.points();
+    std::vector<double> xs(x);
+    for (double& xi : xs) xi += shift;
+    const auto values = v.evaluate(xs);
+    for (std::size_t j = 0; j < xs.size(); ++j) {
+      p.x.push_back(xs[j] / lu.internal_per_unit);
+      p.potential.push_back(d.energy(values[j]));
+    }
+    const int n = std::min<int>(shown, int(sp.energies.size()));
+    for (int k = 0; k < n; ++k) p.energies.push_back(d.energy(sp.energies[k]));
+    for (int k = 0; k < std::min(n, 4); ++k) {
+      std::vector<double> rho(xs.size());
+      for (std::size_t j = 0; j < xs.size(); ++j) rho[j] = sp.states(Eigen::Index(j), k) * sp.states(Eigen::Index(j), k);
+      p.densities.push_back(std::move(rho));
+    }
+    return p;
+  };
+  LevelsFigure f;
+  f.title = "potential, levels and |ψ#dn#u|#u2#d at the start and the end of the protocol";
+  f.x_label = "position x (" + lu.name + ")";
+  f.energy_label = "energy E (" + d.e + ")";
+  const double tau_us = duration_us(run.scenario, run.protocol.duration());
+  f.panels.push_back(panel("start, t = 0", run.protocol.initial(run.scenario.potential), r.initial_spectrum, 0));
+  f.panels.push_back(panel("end, t = " + short_number(tau_us, 4) + " us", run.protocol.final(run.scenario.potential),
+                           r.final_spectrum, frame_shift(run)));
+  return f;
+}
+
+WorkSeries series(const std::string& label, const WorkDistribution& dist, double sigma, const std::vector<double>& w,
+                  const Display& d) {
+  WorkSeries s;
+  s.label = label;
+  double top = 0;
+  for (const auto& l : dist.lines) top = std::max(top, l.probability);
+  for (const auto& l : dist.lines)
+    if (l.probability >= 1e-14 * top) {  // below the log panel's 12 decades
+      s.work.push_back(d.energy(l.work));
+      s.probability.push_back(l.probability);
+    }
+  const auto rho = broadened_density(dist, sigma, w);
+  for (std::size_t i = 0; i < w.size(); ++i) {
+    s.density_work.push_back(d.energy(w[i]));
+    s.density.push_back(rho[i] * d.energy_per);
+  }
+  return s;
+}
+
+WorkFigure work_figure(const WorkRun& run) {
+  const WorkResult& r = run.result;
+  const Display d = display(run.scenario);
+  const double sigma = resolution_of(run);
+  const auto w = density_grid(r.distribution, sigma);
+  WorkFigure f;
+  f.title = "work distribution (two-point measurement), resolution " + short_number(d.energy(sigma), 3) + " " + d.e;
+  f.work_label = "work W (" + d.e + ")";
+  f.density_label = "density (1/" + d.e + ")";
+  f.result = series("numerical (" + std::string(r.co_moving ? "co-moving grid" : "grid") + ")", r.distribution, sigma,
+                    w, d);
+  if (r.harmonic) f.reference = series("harmonic prediction", r.harmonic->distribution, sigma, w, d);
+  f.mean_work = d.energy(r.distribution.mean);
+  if (std::isfinite(r.distribution.free_energy_change)) {
+    // The marker's label shows Delta F to a millionth of the lowest spacing (the rounding noise
+    // of a translation's Delta F = 0 would otherwise read like a value).
+    const double step = 1e-6 * lowest_spacing(r);
+    f.free_energy_change = d.energy(std::round(r.distribution.free_energy_change / step) * step) + 0.0;
+  }
+  return f;
+}
+
+}  // namespace
+
+std::vector<fs::path> write_work_outputs(const fs::path& folder, const WorkRun& run) {
+  fs::create_directories(folder);
+  // Everything is assembled before the first file is opened.
+  std::vector<std::pair<std::string, CsvTable>> tables = {
+      {"lines.csv", lines_table(run, run.result.distribution, "work lines")},
+      {"histogram.csv", histogram_table(run)},
+      {"density.csv", density_table(run)},
+      {"transition.csv", transition_table(run)},
+  };
+  if (run.result.reverse_distribution)
+    tables.push_back({"reverse_lines.csv", lines_table(run, *run.result.reverse_distribution, "reverse-run work lines")});
+  tables.push_back({"characteristic.csv", characteristic_table(run)});
+  const std::string summary = work_summary(run).dump(2) + "\n";
+  const LevelsFigure levels = levels_figure(run);
+  const WorkFigure work = work_figure(run);
+  std::vector<fs::path> files;
+  for (const auto& [name, table] : tables) {
+    write_file_atomically(folder / name, [&](std::ostream& out) { write_csv(out, table); });
+    files.push_back(folder / name);
+  }
+  write_file_atomically(folder / "summary.json", [&](std::ostream& out) { out << summary; });
+  files.push_back(folder / "summary.json");
+  for (const auto& p : plot_levels(folder / "potential", levels)) files.push_back(p);
+  for (const auto& p : plot_work(folder / "work", work)) files.push_back(p);
+  return files;
+}
+
+void print_work_report(std::ostream& out, const WorkRun& run) {
+  const Scenario& s = run.scenario;
+  const WorkResult& r = run.result;
+  const WorkDistribution& d = r.distribution;
+  const Energies e(s);
+  auto row = [&](const std::string& label, const std::string& text) { print_row(out, label, text); };
+  print_scenario_header(out, "work", s);
+  const double tau = run.protocol.duration();
+  std::string protocol = tau > 0 ? "duration " + short_number(duration_us(s, tau), 6) + " us" : "sudden switch (duration 0)";
+  if (s.omega_ref > 0 && tau > 0)
+    protocol += " (" + short_number(tau * s.omega_ref / (2 * si::pi), 4) + " periods of the reference frequency)";
+  row("protocol", protocol);
+  if (s.protocol)
+    for (const auto& c : s.protocol->changes) row("", change_text(s, c));
+  row("initial", initial_text(run));
+  row("grid", grid_text(r.grid, display(s)));
+  row("method", r.method + (r.steps > 0 ? ", " + std::to_string(r.steps) + " steps of dt = " +
+                                              short_number(time_step_ns(run), 4) + " ns"
+                                        : std::string()));
+  const int kept = r.forward.transitions.initial_levels();
+  row("levels", std::to_string(kept) + (kept == 1 ? " initial level" : " initial levels") + " kept" +
+                    (thermal_of(run).gibbs ? " (left-out thermal weight " +
+                                                 short_number(r.diagnostics.truncation.thermal_tail, 2) + ")"
+                                           : std::string()) +
+                    ", " + std::to_string(r.forward.transitions.final_levels()) + " final levels");
+
+  out << "\nwork statistics\n";
+  row("<W>", e.text(d.mean));
+  row("sd(W)", e.text(sd_of(d)));
+  row("skewness", short_number(d.skewness, 4));
+  if (std::isfinite(d.free_energy_change)) {
+    row("Delta F", e.text(d.free_energy_change));
+    row("dissipated", e.text(d.dissipated_work) + "  (<W> - Delta F)");
+    const std::string bound = r.reverse ? short_number(r.diagnostics.truncation.bound, 2) : std::string("not computed");
+    row("Jarzynski", "<exp(-beta W)> = " + short_number(d.jarzynski_average, 10) + ", Z_B/Z_A = " +
+                         short_number(d.partition_ratio, 10));
+    row("", "residual " + short_number(d.jarzynski_residual, 2) + " (truncation bound eps_K + p_R(>=K) = " + bound + ")");
+  }
+  if (r.crooks)
+    row("Crooks", "max |P_F(m->n) - P_R(n->m)| = " + short_number(r.crooks->max_line_difference, 2) +
+                      ", max ratio error " + short_number(r.crooks->max_ratio_error, 2) + " over " +
+                      std::to_string(r.crooks->ratios_compared) + " lines");
+
+  if (r.harmonic) {
+    const auto& h = *r.harmonic;
+    const bool displaced = h.model.rfind("displaced", 0) == 0;
+    out << "\nharmonic reference (" << h.model << (h.exact ? ", exact for this trap" : ", harmonic part of the trap")
+        << ")\n";
+    row(displaced ? "|alpha|^2" : "Q*", short_number(h.parameter, 8));
+    row("<W> harm.", e.text(h.mean_work));
+    row("sd(W) harm.", e.text(sd_of(h.distribution)));
+    const double diff = d.mean - h.mean_work;
+    row("departure", "<W> - <W>_harm = " + e.text(diff, 4) + " (" + short_number(100 * diff / h.mean_work, 3) + " %)");
+    row("lines", "max |P(m->n) - P_harm(m->n)| = " + short_number(h.max_line_difference, 3));
+  } else {
+    out << "\nharmonic reference: none (the protocol is neither a rigid translation nor a change of the one "
+           "harmonic frequency)\n";
+  }
+
+  out << "\ndiagnostics\n";
+  char line[200];
+  for (const auto& c : work_checks(run)) {
+    const bool checked = std::isfinite(c.value) && std::isfinite(c.tolerance);
+    std::snprintf(line, sizeof line, "  %-20s %10s   tolerance %-10s %s\n", c.name.c_str(), short_number(c.value, 3).c_str(),
+                  std::isfinite(c.tolerance) ? short_number(c.tolerance, 3).c_str() : "-",
+                  !std::isfinite(c.value) ? "not computed" : !checked ? "not checked" : c.pass() ? "PASS" : "WARN");
+    out << line;
+  }
+  const auto warnings = work_warnings(run);
+  if (!warnings.empty()) {
+    out << "\nwarnings\n";
+    for (const auto& w : warnings) out << "  - " << w << '\n';
+  }
+
+  std::vector<WorkLine> strongest = d.lines;
+  std::sort(strongest.begin(), strongest.end(),
+            [](const WorkLine& a, const WorkLine& b) { return a.probability > b.probability; });
+  strongest.resize(std::min<std::size_t>(strongest.size(), 8));
+  // The pair (m, n) carrying most of each line, and how many more pairs were merged into it.
+  auto pairs_of = [&](const WorkLine& l) {
+    const auto& f = r.forward;
+    const Eigen::MatrixXd& p = f.transitions.probability;
+    double best = -1;
+    int bm = l.initial, bn = l.final, count = 0;
+    for (Eigen::Index m = 0; m < p.rows(); ++m)
+      for (Eigen::Index n = 0; n < p.cols(); ++n) {
+        const double w = f.final_energies[n] - f.initial_energies[m];
+        if (std::abs(w - l.work) > 2 * d.merge_tolerance) continue;
+        const double weight = f.initial_weights[std::size_t(m)] * p(m, n);
+        if (weight <= 0) continue;
+        ++count;
+        if (weight > best) {
+          best = weight;
+          bm = int(m);
+          bn = int(n);
+        }
+      }
+    return std::to_string(bm) + " -> " + std::to_string(bn) +
+           (count > 1 ? " (+" + std::to_string(count - 1) + " more pairs at this W)" : std::string());
+  };
+  out << "\nstrongest work lines\n";
+  std::snprintf(line, sizeof line, "  %16s %14s %12s   %s\n", ("W [" + e.d.e + "]").c_str(),
+                e.oscillator() ? "W [hbar*w]" : "", "P", "m -> n");
+  out << line;
+  for (const auto& l : strongest) {
+    // fixed decimals, a millionth of the lowest spacing (no rounding noise such as -3e-10)
+    const double step = 1e-6 * lowest_spacing(r);
+    const double w = std::round(l.work / step) * step + 0.0;
+    std::snprintf(line, sizeof line, "  %16s %14s %12s   %s\n", short_number(e.show(w), 8).c_str(),
+                  e.oscillator() ? short_number(w / e.omega_ref, 6).c_str() : "",
+                  short_number(l.probability, 4).c_str(), pairs_of(l).c_str());
+    out << line;
+  }
+}
+
+// ---- sweeps ----------------------------------------------------------------------------------
+
+SweepRow sweep_row(const WorkRun& run, double value) {
+  const WorkResult& r = run.result;
+  const auto& d = r.distribution;
+  SweepRow row;
+  row.value = value;
+  row.mean = d.mean;
+  row.sd = sd_of(d);
+  row.skewness = d.skewness;
+  row.free_energy_change = d.free_energy_change;
+  row.dissipated_work = d.dissipated_work;
+  row.jarzynski_residual = d.jarzynski_residual;
+  row.crooks_ratio_error = r.crooks ? r.crooks->max_ratio_error : nan_value;
+  row.harmonic_mean = r.harmonic ? r.harmonic->mean_work : nan_value;
+  row.harmonic_sd = r.harmonic ? sd_of(r.harmonic->distribution) : nan_value;
+  row.time_step_error = r.diagnostics.time_step_error;
+  row.unresolved_weight = r.diagnostics.unresolved_weight;
+  row.warnings = int(work_warnings(run).size());
+  return row;
+}
+
+namespace {
+std::string sweep_column(const SweepSpec& w) {
+  return column_unit(w.parameter) + "_" + (w.unit.empty() ? std::string("internal") : column_unit(w.unit));
+}
+}  // namespace
+
+CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t points) {
+  const SweepSpec& w = *s.sweep;
+  const Display d = display(s);
+  std::sort(rows.begin(), rows.end(), [](const SweepRow& a, const SweepRow& b) { return a.value < b.value; });
+  CsvTable t;
+  const std::string ec = d.e_col;
+  t.columns = {{sweep_column(w), {}},           {"mean_work" + ec, {}},          {"sd_work" + ec, {}},
+               {"skewness", {}},                {"free_energy_change" + ec, {}}, {"dissipated_work" + ec, {}},
+               {"jarzynski_residual", {}},      {"crooks_ratio_error", {}},      {"harmonic_mean_work" + ec, {}},
+               {"harmonic_sd_work" + ec, {}},   {"time_step_error", {}},         {"unresolved_weight", {}},
+               {"warnings", {}}};
+  for (const auto& r : rows) {
+    const double v[] = {r.value / w.internal_per_unit, d.energy(r.mean), d.energy(r.sd), r.skewness,
+                        d.energy(r.free_energy_change), d.energy(r.dissipated_work), r.jarzynski_residual,
+                        r.crooks_ratio_error, d.energy(r.harmonic_mean), d.energy(r.harmonic_sd),
+                        r.time_step_error, r.unresolved_weight, double(r.warnings)};
+    for (std::size_t k = 0; k < t.columns.size(); ++k) t.columns[k].values.push_back(v[k]);
+  }
+  t.comments = {
+      "trapwork sweep: " + (s.title.empty() ? s.file : s.title) + "; " + std::to_string(rows.size()) + " of " +
+          std::to_string(points) + " points done",
+      "swept " + w.parameter + " in " + (w.unit.empty() ? std::string("internal units") : w.unit) +
+          "; energies in " + d.e + "; nan where a value does not exist (no Gibbs state, no harmonic reference)",
+      "warnings: number of warnings of that point's run (see trapwork work on the scenario at that value)",
+  };
+  return t;
+}
+
+std::vector<fs::path> plot_sweep_figure(const fs::path& folder, const Scenario& s, const std::vector<SweepRow>& input) {
+  const SweepSpec& w = *s.sweep;
+  const Display d = display(s);
+  std::vector<SweepRow> rows = input;
+  std::sort(rows.begin(), rows.end(), [](const SweepRow& a, const SweepRow& b) { return a.value < b.value; });
+  SweepFigure f;
+  f.title = "mean work over the sweep of " + w.parameter;
+  f.x_label = w.parameter + (w.unit.empty() ? std::string() : " (" + w.unit + ")");
+  f.y_label = "mean work <W> (" + d.e + ")";
+  // No error bars: the spread of W (sd in sweep.csv) is far wider than the departure from
+  // the harmonic curve that the lower panel shows.
+  SweepPoints points{"<W> (numerical)", {}, {}, {}};
+  SweepCurve harmonic{"harmonic reference <W> at each point", {}, {}};
+  for (const auto& r : rows) {
+    points.x.push_back(r.value / w.internal_per_unit);
+    points.y.push_back(d.energy(r.mean));
+    if (std::isfinite(r.harmonic_mean)) {
+      harmonic.x.push_back(r.value / w.internal_per_unit);
+      harmonic.y.push_back(d.energy(r.harmonic_mean));
+    }
+  }
+  f.points.push_back(points);
+  const auto translation = constant_speed_translation(s);
+  if (w.target == SweepTarget::duration && translation && rows.size() >= 2) {
+    SweepCurve closed{"2 m v^2 sin^2(#gw#gt/2), v = distance/#gt", {}, {}};
+    const double lo = rows.front().value, hi = rows.back().value;
+    for (int i = 0; i <= 400; ++i) {
+      const double tau = lo + (hi - lo) * i / 400.0;
+      closed.x.push_back(tau / w.internal_per_unit);
+      closed.y.push_back(d.energy(constant_speed_work(translation->first, translation->second, tau)));
+    }
+    f.curves.push_back(closed);
+  }
+  if (harmonic.x.size() >= 2) f.curves.push_back(harmonic);
+  if (!f.curves.empty()) {
+    f.departure = Departure::absolute;  // relative fails at the zeros of sin^2(omega tau / 2)
+    f.departure_label = "<W> - curve (" + d.e + ")";
+  }
+  return plot_sweep(folder / "sweep", f);
+}
+
+}  // namespace trapwork

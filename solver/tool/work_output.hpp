@@ -1,0 +1,92 @@
+#pragma once
+// Output files, summary and printed report of `trapwork work` and `trapwork sweep`.
+//
+// Energies are in the scenario's display unit (column suffix "_h_kHz") and, where the
+// scenario has a reference frequency, also in units of hbar*omega_ref ("_hbar_omega");
+// times in us or ns, temperatures in uK, lengths in nm or um. CSV files follow output.hpp
+// (names on line 1, '#' comment lines, then numbers; "nan" where a value does not exist).
+//
+// Each diagnostic is judged against a tolerance (work_checks): PASS at or below it, WARN above.
+#include <filesystem>
+#include <nlohmann/json.hpp>
+#include <optional>
+#include <ostream>
+#include <string>
+#include <vector>
+
+#include "potentials/protocol.hpp"
+#include "solver/tool/output.hpp"
+#include "solver/tool/scenario.hpp"
+#include "solver/work.hpp"
+
+namespace trapwork {
+
+// One finished work run with the settings the outputs need.
+struct WorkRun {
+  const Scenario& scenario;
+  const Protocol& protocol;
+  const WorkRequest& request;
+  const WorkResult& result;
+};
+
+// Lowest level spacing E_1 - E_0 of H_A (internal energy; NaN with one level).
+double lowest_spacing(const WorkResult& result);
+// The energy resolution and histogram bin used: [work] resolution and bin_width, or the
+// defaults 1/20 of the lowest spacing and the lowest spacing.
+double resolution_of(const WorkRun& run);
+double bin_width_of(const WorkRun& run);
+
+// One diagnostic against its tolerance.
+struct WorkCheck {
+  std::string name;     // "norm drift"
+  double value = 0;     // NaN: not computed
+  double tolerance = 0;
+  std::string source;   // where the tolerance comes from
+  bool pass() const { return !(value > tolerance); }  // NaN counts as not failed
+};
+std::vector<WorkCheck> work_checks(const WorkRun& run);
+
+// Warnings: the library's (with their diagnostic values) and the tool's checks that failed,
+// each saying what to change.
+std::vector<std::string> work_warnings(const WorkRun& run);
+
+// The CSV tables (see the comments written into each file).
+CsvTable lines_table(const WorkRun& run, const WorkDistribution& d, const std::string& what);
+CsvTable histogram_table(const WorkRun& run);
+CsvTable density_table(const WorkRun& run);
+CsvTable transition_table(const WorkRun& run);
+CsvTable characteristic_table(const WorkRun& run);
+nlohmann::ordered_json work_summary(const WorkRun& run);
+
+// Writes lines.csv, histogram.csv, density.csv, transition.csv, reverse_lines.csv (reverse
+// run only), characteristic.csv, summary.json, potential.png/.svg and work.png/.svg into
+// `folder` (created if missing); returns their paths. Everything is computed before the first
+// file is opened; every file is written atomically.
+std::vector<std::filesystem::path> write_work_outputs(const std::filesystem::path& folder, const WorkRun& run);
+
+// The readable report: scenario header, protocol, initial state, grid and method, the work
+// statistics, fluctuation relations, harmonic reference, diagnostics, warnings and the
+// strongest work lines.
+void print_work_report(std::ostream& out, const WorkRun& run);
+
+// ---- sweeps ----------------------------------------------------------------------------------
+
+// One sweep point's numbers (internal units; NaN where they do not exist).
+struct SweepRow {
+  double value = 0;  // the swept value, internal
+  double mean = 0, sd = 0, skewness = 0;
+  double free_energy_change = 0, dissipated_work = 0, jarzynski_residual = 0, crooks_ratio_error = 0;
+  double harmonic_mean = 0, harmonic_sd = 0;
+  double time_step_error = 0, unresolved_weight = 0;
+  int warnings = 0;
+};
+SweepRow sweep_row(const WorkRun& run, double value);
+// sweep.csv: one row per finished point, sorted by value.
+CsvTable sweep_table(const Scenario& scenario, std::vector<SweepRow> rows, std::size_t points);
+// sweep.png/.svg: <W> +- sd against the swept value, the harmonic <W> of each point as a
+// curve and, for the duration of a constant-speed translation, the closed form
+// 2 m v^2 sin^2(omega tau / 2) on a fine grid of tau. Returns the paths written.
+std::vector<std::filesystem::path> plot_sweep_figure(const std::filesystem::path& folder, const Scenario& scenario,
+                                                     const std::vector<SweepRow>& rows);
+
+}  // namespace trapwork
