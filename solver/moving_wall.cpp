@@ -251,12 +251,7 @@ void WallSplitOperatorPropagator::step(State& state, double t, double dt) {
     strang(state, t, dt);
     return;
   }
-  // Yoshida triple jump, the same composition as SplitOperatorPropagator::step
-  const double cbrt2 = std::cbrt(2.0);
-  const double g1 = 1 / (2 - cbrt2), g0 = -cbrt2 / (2 - cbrt2);
-  strang(state, t, g1 * dt);
-  strang(state, t + g1 * dt, g0 * dt);
-  strang(state, t + (g1 + g0) * dt, t + dt - (t + (g1 + g0) * dt));
+  triple_jump([&](double from, double step) { strang(state, from, step); }, t, dt);
 }
 
 namespace {

@@ -210,11 +210,7 @@ void SplitOperatorPropagator::step(State& state, double t, double dt) {
     strang(state, t, dt);
     return;
   }
-  const double cbrt2 = std::cbrt(2.0);
-  const double g1 = 1 / (2 - cbrt2), g0 = -cbrt2 / (2 - cbrt2);
-  strang(state, t, g1 * dt);
-  strang(state, t + g1 * dt, g0 * dt);
-  strang(state, t + (g1 + g0) * dt, t + dt - (t + (g1 + g0) * dt));
+  triple_jump([&](double from, double step) { strang(state, from, step); }, t, dt);
 }
 
 // ---- EigenbasisPropagator ----------------------------------------------------------------

@@ -14,6 +14,7 @@
 // eigenbasis ODE, Boost.Odeint Dormand-Prince 5(4) with error control, reported order 5).
 // Swapping one for the other is the cross-check. propagate() owns the loop and the observer.
 #include <Eigen/Dense>
+#include <cmath>
 #include <complex>
 #include <concepts>
 #include <functional>
@@ -114,6 +115,19 @@ class PotentialPath {
 };
 
 enum class SplitOrder { strang = 2, fourth = 4 };
+
+// Yoshida's triple jump of a symmetric second-order step (Yoshida, Phys. Lett. A 150, 262
+// (1990), from memory): strang(t, g1 dt), strang(t + g1 dt, g0 dt), strang(t + (g1+g0) dt,
+// g1 dt) with g1 = 1/(2 - 2^{1/3}), g0 = -2^{1/3}/(2 - 2^{1/3}); symmetric and of order 4. The
+// last substep ends exactly at t + dt.
+template <class Strang>
+void triple_jump(Strang&& strang, double t, double dt) {
+  const double cbrt2 = std::cbrt(2.0);
+  const double g1 = 1 / (2 - cbrt2), g0 = -cbrt2 / (2 - cbrt2);
+  strang(t, g1 * dt);
+  strang(t + g1 * dt, g0 * dt);
+  strang(t + (g1 + g0) * dt, t + dt - (t + (g1 + g0) * dt));
+}
 
 // Split-operator Fourier method (Feit, Fleck & Steiger, J. Comput. Phys. 47, 412 (1982),
 // from memory) on the grid's own kinetic operator (FFT for a periodic grid, DST-I for a box).

@@ -5,6 +5,8 @@
 #include <sys/wait.h>
 
 #include <catch2/catch.hpp>
+
+#include "scratch_files.hpp"
 #include <cctype>
 #include <cmath>
 #include <cstdlib>
@@ -20,19 +22,9 @@ namespace {
 const fs::path binary = fs::path(TRAPWORK_BINARY_DIR) / "trapwork";
 const fs::path examples = fs::path(TRAPWORK_SOURCE_DIR) / "examples";
 
-fs::path scratch_dir(const std::string& name) {
-  const fs::path dir = fs::path(TRAPWORK_BINARY_DIR) / "test-cli" / name;
-  fs::remove_all(dir);
-  fs::create_directories(dir);
-  return dir;
-}
+fs::path scratch_dir(const std::string& name) { return trapwork_test::scratch_dir("test-cli", name); }
 
-std::string read_all(const fs::path& p) {
-  std::ifstream in(p);
-  std::ostringstream s;
-  s << in.rdbuf();
-  return s.str();
-}
+using trapwork_test::read_all;
 
 struct Run {
   int exit_code;

@@ -1,5 +1,7 @@
 // Output writers: atomic files, CSV layout, number text.
 #include <catch2/catch.hpp>
+
+#include "scratch_files.hpp"
 #include <cmath>
 #include <filesystem>
 #include <fstream>
@@ -12,19 +14,9 @@ using namespace trapwork;
 namespace fs = std::filesystem;
 
 namespace {
-fs::path scratch_dir(const std::string& name) {
-  const fs::path dir = fs::path(TRAPWORK_BINARY_DIR) / "test-output" / name;
-  fs::remove_all(dir);
-  fs::create_directories(dir);
-  return dir;
-}
+fs::path scratch_dir(const std::string& name) { return trapwork_test::scratch_dir("test-output", name); }
 
-std::string read_all(const fs::path& p) {
-  std::ifstream in(p);
-  std::ostringstream s;
-  s << in.rdbuf();
-  return s.str();
-}
+using trapwork_test::read_all;
 
 int files_in(const fs::path& dir) {
   return int(std::distance(fs::directory_iterator(dir), fs::directory_iterator()));
