@@ -173,7 +173,7 @@ struct WallSplitOperatorPropagator::Plans {
 WallSplitOperatorPropagator::WallSplitOperatorPropagator(WallProtocol protocol, std::size_t points, int columns,
                                                          SplitOrder order)
     : protocol_(std::move(protocol)), grid_(Grid::box(0, 1, points)), y_(grid_.points()), columns_(columns),
-      order_(order), cached_t_{std::nan(""), std::nan("")} {
+      order_(order) {
   TRAPWORK_EXPECT(columns >= 1, "WallSplitOperatorPropagator needs at least one column");
   plans_ = std::make_unique<Plans>(grid_.size(), columns);
 }
@@ -183,11 +183,10 @@ WallSplitOperatorPropagator::WallSplitOperatorPropagator(WallSplitOperatorPropag
 WallSplitOperatorPropagator& WallSplitOperatorPropagator::operator=(WallSplitOperatorPropagator&&) noexcept = default;
 
 const std::vector<double>& WallSplitOperatorPropagator::potential_at(double t) {
-  for (int k = 0; k < 2; ++k)
-    if (cached_t_[k] == t) return cached_v_[k];
-  const int k = cache_next_;
-  cache_next_ = 1 - cache_next_;
-  std::vector<double>& v = cached_v_[k];
+  return samples_.at(t, [&](double time, std::vector<double>& v) { sample_potential(time, v); });
+}
+
+void WallSplitOperatorPropagator::sample_potential(double t, std::vector<double>& v) const {
   const std::size_t n = y_.size();
   v.assign(n, 0.0);
   const WallState w = protocol_.walls(t);
@@ -199,8 +198,6 @@ const std::vector<double>& WallSplitOperatorPropagator::potential_at(double t) {
   }
   for (std::size_t j = 0; j < n; ++j)
     v[j] += 0.5 * l * w.acceleration() * y_[j] * y_[j] + l * w.left.acceleration * y_[j];
-  cached_t_[k] = t;
-  return v;
 }
 
 void WallSplitOperatorPropagator::strang(State& state, double t, double dt) {

@@ -121,15 +121,14 @@ class WallSplitOperatorPropagator {
   struct Plans;
   void strang(State& state, double t, double dt);
   const std::vector<double>& potential_at(double t);
+  void sample_potential(double t, std::vector<double>& v) const;  // frame potential at t
   WallProtocol protocol_;
   Grid grid_;
   std::vector<double> y_;
   int columns_;
   SplitOrder order_;
   std::unique_ptr<Plans> plans_;
-  double cached_t_[2];
-  std::vector<double> cached_v_[2];
-  int cache_next_ = 0;
+  RecentSamples samples_;
   double max_phase_ = 0;
 };
 

@@ -147,8 +147,7 @@ struct SplitOperatorPropagator::Plans {
 };
 
 SplitOperatorPropagator::SplitOperatorPropagator(PotentialPath path, int columns, SplitOrder order, int threads)
-    : path_(std::move(path)), columns_(columns), order_(order),
-      cached_t_{std::nan(""), std::nan("")} {
+    : path_(std::move(path)), columns_(columns), order_(order) {
   TRAPWORK_EXPECT(columns >= 1, "SplitOperatorPropagator needs at least one column");
   plans_ = std::make_unique<Plans>(path_.grid(), columns, threads);
 }
@@ -158,13 +157,7 @@ SplitOperatorPropagator::SplitOperatorPropagator(SplitOperatorPropagator&&) noex
 SplitOperatorPropagator& SplitOperatorPropagator::operator=(SplitOperatorPropagator&&) noexcept = default;
 
 const std::vector<double>& SplitOperatorPropagator::potential_at(double t) {
-  for (int k = 0; k < 2; ++k)
-    if (cached_t_[k] == t) return cached_v_[k];
-  const int k = cache_next_;
-  cache_next_ = 1 - cache_next_;
-  path_.sample(t, cached_v_[k]);
-  cached_t_[k] = t;
-  return cached_v_[k];
+  return samples_.at(t, [&](double time, std::vector<double>& v) { path_.sample(time, v); });
 }
 
 void SplitOperatorPropagator::strang(State& state, double t, double dt) {

@@ -18,6 +18,7 @@
 #include <complex>
 #include <concepts>
 #include <functional>
+#include <limits>
 #include <memory>
 #include <mutex>
 #include <optional>
@@ -116,6 +117,27 @@ class PotentialPath {
 
 enum class SplitOrder { strang = 2, fourth = 4 };
 
+// Potential samples at the two most recent times: adjacent split-operator steps share an end
+// point, so each time is sampled once. fill(t, values) computes the samples.
+class RecentSamples {
+ public:
+  template <class Fill>
+  const std::vector<double>& at(double t, Fill&& fill) {
+    for (int k = 0; k < 2; ++k)
+      if (time_[k] == t) return values_[k];
+    const int k = next_;
+    next_ = 1 - next_;
+    fill(t, values_[k]);
+    time_[k] = t;
+    return values_[k];
+  }
+
+ private:
+  double time_[2] = {std::numeric_limits<double>::quiet_NaN(), std::numeric_limits<double>::quiet_NaN()};
+  std::vector<double> values_[2];
+  int next_ = 0;
+};
+
 // Yoshida's triple jump of a symmetric second-order step (Yoshida, Phys. Lett. A 150, 262
 // (1990), from memory): strang(t, g1 dt), strang(t + g1 dt, g0 dt), strang(t + (g1+g0) dt,
 // g1 dt) with g1 = 1/(2 - 2^{1/3}), g0 = -2^{1/3}/(2 - 2^{1/3}); symmetric and of order 4. The
@@ -172,10 +194,7 @@ class SplitOperatorPropagator {
   int columns_;
   SplitOrder order_;
   std::unique_ptr<Plans> plans_;
-  // potential samples at the two most recent times (adjacent steps share an end point)
-  double cached_t_[2];
-  std::vector<double> cached_v_[2];
-  int cache_next_ = 0;
+  RecentSamples samples_;
   double max_phase_ = 0;
 };
 
