@@ -203,15 +203,9 @@ void WallSplitOperatorPropagator::sample_potential(double t, std::vector<double>
 void WallSplitOperatorPropagator::strang(State& state, double t, double dt) {
   Plans& p = *plans_;
   const std::size_t n = p.n;
-  std::vector<complex> kick(n);
+  std::vector<std::complex<double>>& kick = kick_;
   auto make_kick = [&](const std::vector<double>& v) {
-    double lo = v[0], hi = v[0];
-    for (std::size_t j = 0; j < n; ++j) {
-      kick[j] = std::polar(1.0, -v[j] * dt / 2);
-      lo = std::min(lo, v[j]);
-      hi = std::max(hi, v[j]);
-    }
-    max_phase_ = std::max(max_phase_, (hi - lo) * std::abs(dt) / 2);
+    max_phase_ = std::max(max_phase_, potential_kick(v, dt, kick));
   };
   complex* buffer = p.data();
   make_kick(potential_at(t));

@@ -129,6 +129,7 @@ class WallSplitOperatorPropagator {
   SplitOrder order_;
   std::unique_ptr<Plans> plans_;
   RecentSamples samples_;
+  std::vector<std::complex<double>> kick_;  // reused by every step (no allocation per step)
   double max_phase_ = 0;
 };
 

@@ -117,6 +117,10 @@ class PotentialPath {
 
 enum class SplitOrder { strang = 2, fourth = 4 };
 
+// Half kick of a split-operator step: kick[j] = exp(-i v[j] dt/2). Returns the spread of the
+// phase over the grid, (max v - min v) |dt| / 2 (radians), a time-step diagnostic.
+double potential_kick(const std::vector<double>& v, double dt, std::vector<std::complex<double>>& kick);
+
 // Potential samples at the two most recent times: adjacent split-operator steps share an end
 // point, so each time is sampled once. fill(t, values) computes the samples.
 class RecentSamples {
@@ -195,6 +199,7 @@ class SplitOperatorPropagator {
   SplitOrder order_;
   std::unique_ptr<Plans> plans_;
   RecentSamples samples_;
+  std::vector<std::complex<double>> kick_;  // reused by every step (no allocation per step)
   double max_phase_ = 0;
 };
 
