@@ -162,12 +162,19 @@ Term Term::formula(std::string name, std::string expression,
   }
   Term term(name, Shape::formula, fixed);
   for (std::size_t i = 0; i < user_names.size(); ++i) term.parameters_.emplace_back(user_names[i], user_values[i]);
+  double value = 0;
   try {
     term.formula_ = std::make_unique<Formula>(expression, user_names, user_values);
-    (*term.formula_)(0.0, 0.0);  // compiles the expression: unknown names and syntax errors show here
+    value = (*term.formula_)(0.0, 0.0);  // compiles the expression: unknown names and syntax errors show here
   } catch (const mu::Parser::exception_type& e) {
     throw InputError(name + ".expression", expression, "a formula of x, t and the named parameters: " + e.GetMsg());
   }
+  // muParser returns inf or nan for a division by zero; the term's centre is where the grid
+  // and the spectrum look first, so a formula undefined there is refused at once.
+  if (!std::isfinite(value))
+    throw InputError(name + ".expression", expression,
+                     "a formula finite at the term's centre: not finite (" + number_text(value) +
+                         ") at x = 0, t = 0, a division by zero or a function outside its domain");
   return term;
 }
 

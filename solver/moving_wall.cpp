@@ -120,6 +120,9 @@ Potential WallProtocol::inner_at(double t) const {
   return inner_protocol_.at(inner_, t);
 }
 
+Potential WallProtocol::initial_inner() const { return flat() ? inner_ : inner_protocol_.initial(inner_); }
+Potential WallProtocol::final_inner() const { return flat() ? inner_ : inner_protocol_.final(inner_); }
+
 WallProtocol WallProtocol::reversed() const {
   std::vector<Schedule> inner;
   for (const auto& s : inner_protocol_.schedules()) inner.push_back(s.reversed());
@@ -144,38 +147,11 @@ std::optional<double> WallProtocol::constant_speed() const {
 
 // ---- split-operator on the dilated box -------------------------------------------------
 
-struct WallSplitOperatorPropagator::Plans {
-  std::size_t n = 0;
-  fftw_complex* buffer = nullptr;
-  fftw_plan plan = nullptr;  // RODFT00 on real and imaginary parts of every column; its own inverse
-  Plans(std::size_t n_, int columns) : n(n_) {
-    buffer = fftw_alloc_complex(n * std::size_t(columns));
-    if (!buffer) throw PhysicsError("moving-wall propagator: cannot allocate the transform buffer");
-    std::lock_guard<std::mutex> lock(fftw_planner_mutex());
-    fftw_iodim dim{int(n), 2, 2};
-    fftw_iodim many[2] = {{columns, 2 * int(n), 2 * int(n)}, {2, 1, 1}};
-    fftw_r2r_kind kind = FFTW_RODFT00;
-    double* data = reinterpret_cast<double*>(buffer);
-    plan = fftw_plan_guru_r2r(1, &dim, 2, many, data, data, &kind, FFTW_MEASURE);  // before any data is written
-    if (!plan) {
-      fftw_free(buffer);
-      throw PhysicsError("moving-wall propagator: FFTW could not create the sine-transform plan");
-    }
-  }
-  ~Plans() {
-    std::lock_guard<std::mutex> lock(fftw_planner_mutex());
-    fftw_destroy_plan(plan);
-    fftw_free(buffer);
-  }
-  complex* data() { return reinterpret_cast<complex*>(buffer); }
-};
-
 WallSplitOperatorPropagator::WallSplitOperatorPropagator(WallProtocol protocol, std::size_t points, int columns,
-                                                         SplitOrder order)
+                                                         SplitOrder order, int threads)
     : protocol_(std::move(protocol)), grid_(Grid::box(0, 1, points)), y_(grid_.points()), columns_(columns),
-      order_(order) {
+      order_(order), pass_(grid_.size(), std::max(1, columns), true, threads) {
   TRAPWORK_EXPECT(columns >= 1, "WallSplitOperatorPropagator needs at least one column");
-  plans_ = std::make_unique<Plans>(grid_.size(), columns);
 }
 
 WallSplitOperatorPropagator::~WallSplitOperatorPropagator() = default;
@@ -198,44 +174,25 @@ void WallSplitOperatorPropagator::sample_potential(double t, std::vector<double>
   }
   for (std::size_t j = 0; j < n; ++j)
     v[j] += 0.5 * l * w.acceleration() * y_[j] * y_[j] + l * w.left.acceleration * y_[j];
+  check_potential_finite(v, y_, t, "y = (x - a)/L (dilated box)");
 }
 
 void WallSplitOperatorPropagator::strang(State& state, double t, double dt) {
-  Plans& p = *plans_;
-  const std::size_t n = p.n;
-  std::vector<std::complex<double>>& kick = kick_;
-  auto make_kick = [&](const std::vector<double>& v) {
-    max_phase_ = std::max(max_phase_, potential_kick(v, dt, kick));
-  };
-  complex* buffer = p.data();
-  make_kick(potential_at(t));
-  for (int c = 0; c < columns_; ++c) {
-    const complex* column = state.col(c).data();
-    complex* out = buffer + std::size_t(c) * n;
-    for (std::size_t j = 0; j < n; ++j) out[j] = column[j] * kick[j];
-  }
-  fftw_execute(p.plan);
+  kicks_.update(t, dt, [&](double time) -> const std::vector<double>& { return potential_at(time); });
+  max_phase_ = std::max(max_phase_, kicks_.spread());
   // exact kinetic flow: exp(-i (k pi)^2/2 int_t^{t+dt} ds / L(s)^2); RODFT00 twice = 2(n+1)
   const double lambda = gauss5([&](double s) { const double l = protocol_.walls(s).length(); return 1 / (l * l); }, t, dt);
   const auto& modes = grid_.kinetic_modes();
+  const std::size_t n = modes.size();
   const double normalisation = 1.0 / (2.0 * double(n + 1));
-  for (std::size_t j = 0; j < n; ++j) kick[j] = std::polar(normalisation, -modes[j] * lambda);
+  kinetic_.resize(n);
+  for (std::size_t j = 0; j < n; ++j) kinetic_[j] = std::polar(normalisation, -modes[j] * lambda);
   max_phase_ = std::max(max_phase_, grid_.max_kinetic() * std::abs(lambda));
-  for (int c = 0; c < columns_; ++c) {
-    complex* out = buffer + std::size_t(c) * n;
-    for (std::size_t j = 0; j < n; ++j) out[j] *= kick[j];
-  }
-  fftw_execute(p.plan);
-  make_kick(potential_at(t + dt));
-  for (int c = 0; c < columns_; ++c) {
-    complex* column = state.col(c).data();
-    const complex* in = buffer + std::size_t(c) * n;
-    for (std::size_t j = 0; j < n; ++j) column[j] = in[j] * kick[j];
-  }
+  pass_.apply(state, kicks_.before(), kinetic_.data(), kicks_.after());
 }
 
 void WallSplitOperatorPropagator::step(State& state, double t, double dt) {
-  TRAPWORK_EXPECT(state.rows() == Eigen::Index(plans_->n) && state.cols() == columns_,
+  TRAPWORK_EXPECT(state.rows() == Eigen::Index(grid_.size()) && state.cols() == columns_,
                   "WallSplitOperatorPropagator::step: state is not grid points x columns");
   max_phase_ = 0;
   if (order_ == SplitOrder::strang) {
@@ -481,14 +438,17 @@ struct WallRun {
   double norm_drift = 0, max_phase = 0;
 };
 
-Spectrum box_spectrum(const WallProtocol& p, const WallState& w, double t, const WallWorkRequest& request, int levels) {
+// Levels of the box at the start (final = false) or the end of the protocol.
+Spectrum box_spectrum(const WallProtocol& p, bool final, const WallWorkRequest& request, int levels) {
+  const WallState w = final ? p.final_walls() : p.initial_walls();
   levels = std::min<int>(levels, int(request.points));
   if (p.flat()) return flat_box_spectrum(w.left.value, w.right.value, request.points, levels);
   const Grid grid = Grid::box(w.left.value, w.right.value, request.points);
   levels = std::min<int>(levels, int(request.points) / 2);  // solve_spectrum resolves at most half the points
   SpectrumOptions options = request.spectrum;
   options.levels = levels;
-  return solve_spectrum(grid, p.inner_at(t).evaluate(grid.points(), t), options);
+  const double t = final ? p.duration() : 0.0;
+  return solve_spectrum(grid, (final ? p.final_inner() : p.initial_inner()).evaluate(grid.points(), t), options);
 }
 
 WallRun run_walls(const WallProtocol& p, const Spectrum& initial, const Spectrum& final, int kept, int finals,
@@ -531,21 +491,71 @@ double splitting_rate(const WallProtocol& p, std::size_t points, double e_max) {
   return span + std::sqrt(2 * e_max * span);
 }
 
-}  // namespace
+// Sudden expansion: amplitudes <n_B|m_A> for the first `kept` initial levels, the final
+// spectrum, and int_A |phi_n^B|^2 for each final level (the Jarzynski failure term).
+// Flat box: closed forms. Inner potential: both grid spectra are sine series on their own
+// boxes (the interior grid is the sine basis: c = S^T psi dx, discrete orthogonality), so
+//   <n_B|m_A> = sum_jk d_nj <s_j^B|s_k^A> c_mk = (D^T O C)_nm,
+// with O the closed-form flat-box overlaps of sudden_wall_amplitudes, and
+//   int_A |phi_n^B|^2 = d_n^T G d_n,  G_jj' = int_A s_j^B s_j'^B dx
+//   = (1/pi) [F(j - j') - F(j + j')],  F(q) = int_{u_c}^{u_d} cos(q u) du,  u = pi (x - a1)/L1.
+// Both exact for the grid eigenvectors (no quadrature across the kink at the old wall).
+struct SuddenWalls {
+  Eigen::MatrixXcd amplitudes;
+  Spectrum final_spectrum;
+  std::vector<double> weight_inside_old_box;
+};
 
-WallWorkResult run_wall_work(const WallProtocol& protocol, const WallWorkRequest& request) {
+SuddenWalls sudden_walls(const WallProtocol& protocol, const Spectrum& sa, int kept, const WallWorkRequest& request) {
+  const WallState wa = protocol.initial_walls(), wb = protocol.final_walls();
+  const double a0 = wa.left.value, b0 = wa.right.value, a1 = wb.left.value, b1 = wb.right.value;
+  SuddenWalls out;
+  if (protocol.flat()) {
+    const int finals = std::max(request.sudden_final_levels, kept + request.final_margin);
+    out.amplitudes = sudden_wall_amplitudes(a0, b0, a1, b1, kept, finals);
+    out.final_spectrum = flat_box_spectrum(a1, b1, std::max<std::size_t>(request.points, std::size_t(finals)), finals);
+    for (int n = 0; n < finals; ++n) out.weight_inside_old_box.push_back(box_state_weight_inside(a1, b1, n, a0, b0));
+    return out;
+  }
+  const int points = int(request.points);
+  const int levels = std::min(points / 2, std::max(request.sudden_final_levels, kept + request.final_margin));
+  out.final_spectrum = box_spectrum(protocol, true, request, levels);
+  const Spectrum& sb = out.final_spectrum;
+  const int finals = int(sb.energies.size());
+  const Eigen::MatrixXd c = flat_box_spectrum(a0, b0, request.points, points).states.transpose() *
+                            sa.states.leftCols(kept) * sa.grid.spacing();
+  const Eigen::MatrixXd d = flat_box_spectrum(a1, b1, request.points, points).states.transpose() *
+                            sb.states.leftCols(finals) * sb.grid.spacing();
+  const Eigen::MatrixXd o = sudden_wall_amplitudes(a0, b0, a1, b1, points, points).real();  // throws for a compression
+  out.amplitudes = (d.transpose() * o * c).cast<complex>();
+  const double uc = pi * (a0 - a1) / (b1 - a1), ud = pi * (b0 - a1) / (b1 - a1);
+  auto f = [&](int q) { return q == 0 ? ud - uc : (std::sin(q * ud) - std::sin(q * uc)) / q; };
+  Eigen::MatrixXd g(points, points);
+  for (int j = 1; j <= points; ++j)
+    for (int k = 1; k <= points; ++k) g(j - 1, k - 1) = (f(j - k) - f(j + k)) / pi;
+  for (int n = 0; n < finals; ++n) out.weight_inside_old_box.push_back(d.col(n).dot(g * d.col(n)));
+  return out;
+}
+
+WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRequest& request) {
   const double tau = protocol.duration();
   const WallState wa = protocol.initial_walls(), wb = protocol.final_walls();
-  const int levels = std::min<int>(int(request.points), request.max_initial_levels + request.final_margin);
+  const int levels = std::min<int>(int(request.points), std::max(request.max_initial_levels, request.min_initial_levels) +
+                                                           request.final_margin);
   WallWorkResult out;
   WorkResult& result = out.work;
   Diagnostics& diag = result.diagnostics;
   diag.edge_amplitude = std::numeric_limits<double>::quiet_NaN();  // psi = 0 at hard walls: not applicable
   diag.grid_convergence = protocol.flat() ? 0.0 : std::numeric_limits<double>::quiet_NaN();
 
-  Spectrum sa = box_spectrum(protocol, wa, 0, request, levels);
-  const InitialWeights weights_a =
+  Spectrum sa = box_spectrum(protocol, false, request, levels);
+  InitialWeights weights_a =
       initial_weights(request.initial, sa.energies, request.thermal_tolerance, request.max_initial_levels);
+  if (weights_a.gibbs && int(weights_a.weights.size()) < request.min_initial_levels) {
+    // more levels than the thermal tail needs: the reverse run leaves the first ones (p_R(>=K))
+    weights_a = initial_weights(request.initial, sa.energies, 0.0, request.min_initial_levels);
+    weights_a.choice.reached = weights_a.choice.left_out < request.thermal_tolerance;
+  }
   const int kept_a = int(weights_a.weights.size());
   const std::optional<double> beta = weights_a.gibbs ? std::optional<double>(weights_a.beta) : std::nullopt;
   if (weights_a.gibbs && !weights_a.choice.reached)
@@ -553,17 +563,15 @@ WallWorkResult run_wall_work(const WallProtocol& protocol, const WallWorkRequest
                             std::to_string(kept_a) + " levels is above the tolerance: raise max_initial_levels");
 
   if (tau == 0) {
-    if (!protocol.flat())
-      throw PhysicsError("sudden wall change with an inner potential is not implemented: use a short finite tau");
-    const int finals = std::max(request.sudden_final_levels, kept_a + request.final_margin);
-    const Eigen::MatrixXcd amplitudes =
-        sudden_wall_amplitudes(wa.left.value, wa.right.value, wb.left.value, wb.right.value, kept_a, finals);
-    const Spectrum sb = flat_box_spectrum(wb.left.value, wb.right.value, std::max<std::size_t>(request.points, std::size_t(finals)), finals);
+    const SuddenWalls sudden = sudden_walls(protocol, sa, kept_a, request);
+    const Spectrum& sb = sudden.final_spectrum;
+    const int finals = int(sb.energies.size());
     result.grid = sa.grid;
-    result.method = "sudden expansion (closed-form overlaps)";
+    result.method = protocol.flat() ? "sudden expansion (closed-form overlaps)"
+                                    : "sudden expansion (sine-basis overlaps of the grid eigenstates)";
     result.initial_spectrum = sa;
     result.final_spectrum = sb;
-    result.forward = WorkInput{transition_matrix(amplitudes), sa.energies, sb.energies, weights_a.weights, {}, {}, beta};
+    result.forward = WorkInput{transition_matrix(sudden.amplitudes), sa.energies, sb.energies, weights_a.weights, {}, {}, beta};
     result.distribution = work_distribution(result.forward, request.merge_tolerance);
     diag.unresolved_weight = result.distribution.unresolved_weight;
     diag.jarzynski_residual = result.distribution.jarzynski_residual;
@@ -573,8 +581,7 @@ WallWorkResult run_wall_work(const WallProtocol& protocol, const WallWorkRequest
       // (1/Z_A) sum_n exp(-beta E_n^B) int_A |phi_n^B|^2, shifted by E_0^B (no overflow)
       double sum = 0;
       for (int n = 0; n < finals; ++n)
-        sum += std::exp(-*beta * (sb.energies[n] - sb.energies[0])) *
-               box_state_weight_inside(wb.left.value, wb.right.value, n, wa.left.value, wa.right.value);
+        sum += std::exp(-*beta * (sb.energies[n] - sb.energies[0])) * sudden.weight_inside_old_box[std::size_t(n)];
       SuddenJarzynski s;
       const double log_za = log_sum_weights(sa.energies, *beta), log_zb = log_sum_weights(sb.energies, *beta);
       s.average = std::exp(std::log(sum) - *beta * sb.energies[0] - log_za);
@@ -590,14 +597,14 @@ WallWorkResult run_wall_work(const WallProtocol& protocol, const WallWorkRequest
     return out;
   }
 
-  Spectrum sb = box_spectrum(protocol, wb, tau, request, levels);
+  Spectrum sb = box_spectrum(protocol, true, request, levels);
   const int finals = std::min<int>(int(sb.energies.size()), kept_a + request.final_margin);
   const double e_max = std::max(sa.energies[std::min<Eigen::Index>(sa.energies.size() - 1, finals - 1)],
                                 sb.energies[finals - 1]);
   const double per_step = request.order == SplitOrder::fourth ? 0.2 : 0.02;
   const int steps = request.steps > 0 ? request.steps
                                       : std::max(16, int(std::ceil(tau * splitting_rate(protocol, request.points, e_max) / per_step)));
-  result.grid = Grid::box(0, 1, request.points);
+  result.grid = sa.grid;  // the lab box at t = 0 (the propagation runs on its dilation onto [0, 1])
   result.steps = steps;
   result.method = std::string("dilated box, DST-I split-operator ") +
                   (request.order == SplitOrder::fourth ? "Yoshida triple jump (order 4)" : "Strang");
@@ -612,6 +619,22 @@ WallWorkResult run_wall_work(const WallProtocol& protocol, const WallWorkRequest
   diag.max_phase_per_step = fwd.max_phase;
   diag.unresolved_weight = result.distribution.unresolved_weight;
   diag.jarzynski_residual = result.distribution.jarzynski_residual;
+  const bool end_chirp = wa.rate() != 0 || wa.left.rate != 0 || wb.rate() != 0 || wb.left.rate != 0;
+  if (request.grid_check && (end_chirp || !protocol.flat())) {
+    // Twice the sine modes: the end chirp of a wall already moving (and an inner potential's
+    // levels) are represented on the grid only to a finite number of modes.
+    WallWorkRequest fine = request;
+    fine.points = 2 * request.points + 1;  // (n + 1) doubled: a fast DST-I when n + 1 is
+    const Spectrum fa = box_spectrum(protocol, false, fine, levels), fb = box_spectrum(protocol, true, fine, levels);
+    const WallRun f = run_walls(protocol, fa, fb, kept_a, finals, steps, request.order);
+    out.grid_line_change =
+        (transition_matrix(f.amplitudes).probability - result.forward.transitions.probability).cwiseAbs().maxCoeff();
+    if (out.grid_line_change > 1e-6)
+      diag.warnings.push_back("line probabilities change by " + fmt(out.grid_line_change) + " with twice the points (" +
+                              std::to_string(fine.points) + ")" +
+                              (end_chirp ? ": the walls move at the start or the end, use a smooth ramp or " : ": ") +
+                              "raise the points");
+  }
   if (request.time_step_check) {
     const WallRun half = run_walls(protocol, sa, sb, kept_a, finals, 2 * steps, request.order);
     diag.time_step_error =
@@ -623,7 +646,7 @@ WallWorkResult run_wall_work(const WallProtocol& protocol, const WallWorkRequest
     const InitialWeights weights_b =
         initial_weights(request.initial, sb.energies, request.thermal_tolerance, request.max_initial_levels);
     const int kept_b = int(weights_b.weights.size());
-    const int finals_r = std::min<int>(int(sa.energies.size()), kept_b + request.final_margin);
+    const int finals_r = std::min<int>(int(sa.energies.size()), std::max(kept_a, kept_b) + request.final_margin);
     const WallRun rev = run_walls(reversed, sb, sa, kept_b, finals_r, steps, request.order);
     result.reverse = WorkInput{transition_matrix(rev.amplitudes), sb.energies, sa.energies.head(finals_r),
                                weights_b.weights, {}, {}, weights_b.beta};
@@ -651,9 +674,40 @@ WallWorkResult run_wall_work(const WallProtocol& protocol, const WallWorkRequest
     c.mean_work_difference = result.distribution.mean - c.mean_work;
     out.doescher_rice = c;
   }
-  if (diag.unresolved_weight > 1e-8)
+  if (diag.unresolved_weight > request.unresolved_tolerance)
     diag.warnings.push_back("unresolved weight " + fmt(diag.unresolved_weight) + ": raise final_margin");
   return out;
+}
+
+}  // namespace
+
+// As run_work (solver/work.cpp): when the unresolved final weight or the chance p_R(>=K) that
+// the reverse run leaves the kept initial levels exceeds unresolved_tolerance, the run is
+// repeated, at most twice: with twice the final margin for the first, and for the second with
+// as many initial levels as the reverse run's transition matrix shows are needed (plus 4), even
+// where the thermal tail is far smaller (a fast compression sends the reverse run high; the
+// Jarzynski average needs those levels, weighted by exp(-beta W)). A sudden expansion is
+// computed once: its closed form already keeps sudden_final_levels.
+WallWorkResult run_wall_work(const WallProtocol& protocol, const WallWorkRequest& request) {
+  WallWorkRequest r = request;
+  for (int attempt = 0;; ++attempt) {
+    WallWorkResult out = run_wall_work_once(protocol, r);
+    Diagnostics& d = out.work.diagnostics;
+    const double escape = std::max(d.unresolved_weight, d.truncation.reverse_tail);
+    if (protocol.duration() == 0 || !(escape > r.unresolved_tolerance) || attempt == 2) {
+      if (attempt > 0)
+        d.warnings.insert(d.warnings.begin(), "levels enlarged " + std::to_string(attempt) +
+                                                  " time(s) to bound the escape probability (now " + fmt(escape) +
+                                                  "; final margin " + std::to_string(r.final_margin) +
+                                                  ", thermal tolerance " + fmt(r.thermal_tolerance) + ")");
+      return out;
+    }
+    if (d.unresolved_weight > r.unresolved_tolerance) r.final_margin *= 2;
+    if (d.truncation.reverse_tail > r.unresolved_tolerance && out.work.reverse)
+      r.min_initial_levels = levels_for_reverse_tail(out.work.reverse->transitions.probability,
+                                                     out.work.reverse->initial_weights, r.unresolved_tolerance / 2) +
+                             4;
+  }
 }
 
 // ---- soft walls -------------------------------------------------------------------------

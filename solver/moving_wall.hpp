@@ -17,6 +17,7 @@
 // this is the Doescher-Rice solution (Am. J. Phys. 37, 1246 (1969), from memory).
 #include <Eigen/Dense>
 #include <complex>
+#include <limits>
 #include <memory>
 #include <optional>
 #include <string>
@@ -65,6 +66,9 @@ class WallProtocol {
   WallState final_walls() const;    // at t = tau (tau = 0: after it)
   // Inner potential with its schedules applied at t (empty potential for a flat box).
   Potential inner_at(double t) const;
+  // Inner potential before and after the protocol (for tau = 0: before and after the switch).
+  Potential initial_inner() const;
+  Potential final_inner() const;
   // lambda_R(t) = lambda(tau - t) for the walls and the inner schedules.
   WallProtocol reversed() const;
   // All schedules (walls and inner) as one Protocol, for a Potential holding a soft-wall term
@@ -92,14 +96,16 @@ class WallProtocol {
 // Gauss-Legendre, error O(dt^11)), so the step is Strang splitting of the extended
 // autonomous system: second order and symmetric, U_R = U_F^T for the mirrored protocol.
 // Fourth order: the Yoshida triple jump, as SplitOperatorPropagator (solver/propagator.hpp).
-// Models the Propagator concept, so propagate() (solver/propagator.hpp) drives it.
+// Models the Propagator concept, so propagate() (solver/propagator.hpp) drives it. Each step
+// runs the fused, cache-blocked batch pass of solver/propagator.hpp (BatchedSplitStep) over
+// `threads` worker threads owned by the propagator; results do not depend on `threads`.
 // State: n x columns, samples phi(y_j) with sum_j |phi_j|^2 dy = 1.
 class WallSplitOperatorPropagator {
  public:
   using State = Eigen::MatrixXcd;
-  // points >= 4, columns >= 1.
+  // points >= 4, columns >= 1, threads >= 1.
   WallSplitOperatorPropagator(WallProtocol protocol, std::size_t points, int columns,
-                              SplitOrder order = SplitOrder::fourth);
+                              SplitOrder order = SplitOrder::fourth, int threads = 1);
   ~WallSplitOperatorPropagator();
   WallSplitOperatorPropagator(WallSplitOperatorPropagator&&) noexcept;
   WallSplitOperatorPropagator& operator=(WallSplitOperatorPropagator&&) noexcept;
@@ -118,7 +124,6 @@ class WallSplitOperatorPropagator {
   void from_lab(State& state, double t) const;
 
  private:
-  struct Plans;
   void strang(State& state, double t, double dt);
   const std::vector<double>& potential_at(double t);
   void sample_potential(double t, std::vector<double>& v) const;  // frame potential at t
@@ -127,9 +132,10 @@ class WallSplitOperatorPropagator {
   std::vector<double> y_;
   int columns_;
   SplitOrder order_;
-  std::unique_ptr<Plans> plans_;
+  BatchedSplitStep pass_;
   RecentSamples samples_;
-  std::vector<std::complex<double>> kick_;  // reused by every step (no allocation per step)
+  StrangKicks kicks_;                          // reused by every step (no allocation per step)
+  std::vector<std::complex<double>> kinetic_;  // exp(-i T_0 lambda) / (2(n + 1)), per substep
   double max_phase_ = 0;
 };
 
@@ -217,15 +223,19 @@ struct WallWorkRequest {
   InitialState initial = InitialState::thermal(1);
   double thermal_tolerance = 1e-12;  // eps_K
   int max_initial_levels = 80;
+  int min_initial_levels = 0;        // Gibbs states: keep at least these (run_wall_work raises it)
   int final_margin = 24;             // final levels = kept initial levels + margin
-  std::size_t points = 512;          // sine modes (interior points) on the dilated box
+  std::size_t points = 511;          // sine modes (interior points) on the dilated box; the DST-I
+                                     // is an FFT of 2 (points + 1): keep points + 1 smooth
   int steps = 0;                     // 0: automatic, E_max dt <= 0.2 (order 4) or 0.02 (Strang)
   SplitOrder order = SplitOrder::fourth;
   bool reverse_run = true;
   bool time_step_check = true;
+  bool grid_check = true;            // same run on twice the points, where the grid limits it
   double merge_tolerance = 1e-9;
   SpectrumOptions spectrum;          // inner potential: eigensolver on Grid::box(a, b, points)
   int sudden_final_levels = 400;     // sudden expansion: final levels from the closed form
+  double unresolved_tolerance = 1e-8;  // escape probabilities above this enlarge the levels
 };
 
 // Line-by-line comparison with the Doescher-Rice exact amplitudes.
@@ -250,6 +260,9 @@ struct WallWorkResult {
   WorkResult work;  // forward/reverse inputs, distributions, Crooks, diagnostics
   std::optional<DoescherRiceComparison> doescher_rice;
   std::optional<SuddenJarzynski> sudden;
+  // max |dP(m -> n)| with twice the sine modes; NaN where not computed (grid_check off, or a
+  // flat box whose walls stand still at both ends: the sine basis is then exact).
+  double grid_line_change = std::numeric_limits<double>::quiet_NaN();
 };
 
 // The whole TPM calculation for moving walls: levels of H_A and H_B (analytic for the flat box,
@@ -257,10 +270,10 @@ struct WallWorkResult {
 // split-operator run of the kept levels on the dilated box (chirp at the ends), projection on
 // the final lab eigenstates, reverse run, work distributions, Crooks, the truncation terms of
 // the Jarzynski residual, norm drift, time-step error (half step), and the DR reference where
-// it applies. tau = 0: sudden expansion from the closed form (compression refused, see
-// sudden_wall_amplitudes), with the Jarzynski failure reported in `sudden` and a warning.
-// Throws PhysicsError for a sudden change with an inner potential (not implemented: use a
-// short finite tau).
+// it applies. tau = 0: sudden expansion (compression refused, see sudden_wall_amplitudes) from
+// the closed-form overlaps, for an inner potential through the sine coefficients of both grid
+// spectra (exact for the grid eigenvectors), with the Jarzynski failure reported in `sudden`
+// and a warning.
 WallWorkResult run_wall_work(const WallProtocol& protocol, const WallWorkRequest& request);
 
 // Adiabatic limit: P(m -> n) = delta_mn, W_m = E_m^B - E_m^A (no level crossings in a box).

@@ -3,8 +3,13 @@
 #include <fftw3.h>
 
 #include <algorithm>
+#include <atomic>
 #include <boost/numeric/odeint.hpp>
 #include <cmath>
+#include <condition_variable>
+#include <cstdint>
+#include <cstdio>
+#include <thread>
 
 namespace trapwork {
 
@@ -34,11 +39,13 @@ void PotentialPath::sample(double t, std::vector<double>& v) const {
   v.resize(points_.size());
   if (!translation_) {
     protocol_.at(base_, t).evaluate(points_.data(), v.data(), points_.size(), t);
+    check_potential_finite(v, points_, t, "x");
     return;
   }
   base_.evaluate(points_.data(), v.data(), points_.size(), 0.0);
   const double acceleration = protocol_.displacement(*translation_, t).acceleration;
   for (std::size_t j = 0; j < v.size(); ++j) v[j] += acceleration * points_[j];
+  check_potential_finite(v, points_, t, "y = x - d(t) (co-moving frame)");
 }
 
 std::vector<double> PotentialPath::sample(double t) const {
@@ -76,80 +83,263 @@ void PotentialPath::frame_phase(Eigen::MatrixXcd& states, double t, double sign)
 void PotentialPath::to_lab(Eigen::MatrixXcd& states, double t) const { frame_phase(states, t, +1); }
 void PotentialPath::from_lab(Eigen::MatrixXcd& states, double t) const { frame_phase(states, t, -1); }
 
-// ---- SplitOperatorPropagator -----------------------------------------------------------------
+// ---- guards --------------------------------------------------------------------------------
 
-struct SplitOperatorPropagator::Plans {
-  std::size_t n = 0;
-  int columns = 0;
-  bool box = false;
-  fftw_complex* buffer = nullptr;
-  fftw_plan forward = nullptr, backward = nullptr;  // box: one RODFT00 plan, its own inverse
-  std::vector<double> kinetic;                      // T of each transform mode
-  double normalisation = 1;                         // 1/n (FFT) or 1/(2(n+1)) (RODFT00 twice)
-  struct KineticPhase {
-    double dt;
-    std::vector<std::complex<double>> phase;
-  };
-  std::vector<KineticPhase> kinetic_phases;  // the few dt values in use (Strang: 1, triple jump: 2)
+std::string format_number(double value) {
+  char text[32];
+  std::snprintf(text, sizeof text, "%.6g", value);  // 6 significant digits: enough to locate
+  return text;
+}
 
-  Plans(const Grid& grid, int columns_, int threads) : n(grid.size()), columns(columns_) {
-    box = grid.boundary() == Boundary::hard_wall;
-    kinetic = grid.kinetic_modes();
-    TRAPWORK_EXPECT(kinetic.size() == n, "grid kinetic modes size != grid size");
-    normalisation = box ? 1.0 / (2.0 * (n + 1)) : 1.0 / n;
-    buffer = fftw_alloc_complex(n * columns);
-    if (!buffer) throw PhysicsError("split-operator propagator: cannot allocate the FFT buffer");
-    std::lock_guard<std::mutex> lock(fftw_planner_mutex());
-    static bool threads_ready = false;  // guarded by the planner mutex
-    if (!threads_ready) threads_ready = fftw_init_threads() != 0;
-    if (threads_ready) fftw_plan_with_nthreads(std::max(1, threads));
-    // FFTW_MEASURE overwrites the buffer: plans are made before any data is written.
-    if (!box) {
-      const int size = int(n);
-      forward = fftw_plan_many_dft(1, &size, columns, buffer, nullptr, 1, size, buffer, nullptr, 1, size,
-                                   FFTW_FORWARD, FFTW_MEASURE);
-      backward = fftw_plan_many_dft(1, &size, columns, buffer, nullptr, 1, size, buffer, nullptr, 1, size,
-                                    FFTW_BACKWARD, FFTW_MEASURE);
-    } else {
-      // real and imaginary parts of every column, each a RODFT00 of length n with stride 2
-      fftw_iodim dim{int(n), 2, 2};
-      fftw_iodim many[2] = {{columns, 2 * int(n), 2 * int(n)}, {2, 1, 1}};
-      fftw_r2r_kind kind = FFTW_RODFT00;
-      double* data = reinterpret_cast<double*>(buffer);
-      forward = fftw_plan_guru_r2r(1, &dim, 2, many, data, data, &kind, FFTW_MEASURE);
+void check_potential_finite(const std::vector<double>& v, const std::vector<double>& points, double t,
+                            const std::string& coordinate) {
+  for (std::size_t j = 0; j < v.size(); ++j)
+    if (!std::isfinite(v[j]))
+      throw PhysicsError("potential at " + coordinate + " = " + format_number(points[j]) + " is " +
+                         (std::isnan(v[j]) ? "NaN" : "infinite") + " at t = " + format_number(t) +
+                         ": the potential or its schedule is singular there");
+}
+
+int first_nonfinite_column(const Eigen::MatrixXcd& state) {
+  // A sum is finite exactly when every term is (finite terms of order one cannot overflow;
+  // NaN and infinity propagate), and Eigen vectorises the reduction.
+  for (Eigen::Index c = 0; c < state.cols(); ++c) {
+    const std::complex<double> sum = state.col(c).sum();
+    if (!std::isfinite(sum.real()) || !std::isfinite(sum.imag())) return int(c);
+  }
+  return -1;
+}
+
+// ---- the fused batch pass ------------------------------------------------------------------
+
+namespace {
+
+using complex = std::complex<double>;
+
+// out[j] = a[j] k[j] (out may be a), written on the real and imaginary parts so that the
+// compiler vectorises it, without std::complex's NaN recovery branch. `ahead` (may be null):
+// n complex samples to prefetch into the cache meanwhile, one line per 4 samples (the next
+// block's column, so that its first pass does not wait for memory). Compiled also for AVX2
+// and AVX-512 and chosen once at load time (GCC function multi-versioning); those versions may
+// fuse a*b - c*d into FMA, which changes the last bit against the baseline version, but every
+// thread of a process runs the same version, so results never depend on the thread count.
+__attribute__((target_clones("avx512f", "avx2", "default"))) void multiply(const complex* a, const complex* k,
+                                                                          complex* out, std::size_t n,
+                                                                          const complex* ahead = nullptr) {
+  const double* x = reinterpret_cast<const double*>(a);
+  const double* y = reinterpret_cast<const double*>(k);
+  double* z = reinterpret_cast<double*>(out);
+  for (std::size_t j0 = 0; j0 < n; j0 += 64) {  // chunks of 1 KiB
+    const std::size_t j1 = std::min(n, j0 + 64);
+    if (ahead)
+      for (std::size_t j = j0; j < j1; j += 4) __builtin_prefetch(ahead + j);
+    for (std::size_t i = 2 * j0; i < 2 * j1; i += 2) {
+      const double ar = x[i], ai = x[i + 1], kr = y[i], ki = y[i + 1];
+      z[i] = ar * kr - ai * ki;
+      z[i + 1] = ar * ki + ai * kr;
     }
-    if (threads_ready) fftw_plan_with_nthreads(1);
-    if (!forward || (!box && !backward)) {
-      if (forward) fftw_destroy_plan(forward);
-      if (backward) fftw_destroy_plan(backward);
-      fftw_free(buffer);
-      throw PhysicsError("split-operator propagator: FFTW could not create a plan");
+  }
+}
+
+// threads - 1 persistent worker threads plus the calling thread. run(blocks, task) calls
+// task(worker, block, next) once for every block in [0, blocks) and returns when all are done
+// (next: the block the same worker runs after this one, or -1);
+// blocks are claimed in order from a shared counter, so a worker that the system pauses
+// holds up at most one block. Tasks must not throw.
+class WorkerPool {
+ public:
+  explicit WorkerPool(int threads) {
+    for (int w = 1; w < threads; ++w) workers_.emplace_back([this, w] { serve(w); });
+  }
+  ~WorkerPool() {
+    {
+      std::lock_guard lock(mutex_);
+      stop_ = true;
+    }
+    wake_.notify_all();
+    for (auto& t : workers_) t.join();
+  }
+  WorkerPool(const WorkerPool&) = delete;
+  WorkerPool& operator=(const WorkerPool&) = delete;
+  int threads() const { return int(workers_.size()) + 1; }
+
+  template <class Task>
+  void run(int blocks, Task& task) {
+    if (workers_.empty()) {
+      for (int b = 0; b < blocks; ++b) task(0, b, b + 1 < blocks ? b + 1 : -1);
+      return;
+    }
+    {
+      std::lock_guard lock(mutex_);
+      call_ = [](void* f, int worker, int block, int next) { (*static_cast<Task*>(f))(worker, block, next); };
+      task_ = &task;
+      blocks_ = blocks;
+      next_.store(0);
+      busy_ = int(workers_.size());
+      ++generation_;
+    }
+    wake_.notify_all();
+    claim(0);
+    std::unique_lock lock(mutex_);
+    done_.wait(lock, [&] { return busy_ == 0; });
+  }
+
+ private:
+  // Each worker claims its next block before running the current one, so that the task can
+  // prefetch it (next = -1: none).
+  void claim(int worker) {
+    for (int b = next_.fetch_add(1); b < blocks_;) {
+      const int following = next_.fetch_add(1);
+      call_(task_, worker, b, following < blocks_ ? following : -1);
+      b = following;
     }
   }
-  ~Plans() {
-    std::lock_guard<std::mutex> lock(fftw_planner_mutex());
-    fftw_destroy_plan(forward);
-    if (backward) fftw_destroy_plan(backward);
-    fftw_free(buffer);
+  void serve(int worker) {
+    std::uint64_t seen = 0;
+    for (;;) {
+      {
+        std::unique_lock lock(mutex_);
+        wake_.wait(lock, [&] { return stop_ || generation_ != seen; });
+        if (stop_) return;
+        seen = generation_;
+      }
+      claim(worker);
+      std::lock_guard lock(mutex_);
+      if (--busy_ == 0) done_.notify_one();
+    }
   }
-  const std::vector<std::complex<double>>& kinetic_phase(double dt) {
-    for (const auto& k : kinetic_phases)
-      if (k.dt == dt) return k.phase;
-    if (kinetic_phases.size() >= 4) kinetic_phases.erase(kinetic_phases.begin());
-    KineticPhase k{dt, std::vector<std::complex<double>>(n)};
-    for (std::size_t j = 0; j < n; ++j) k.phase[j] = std::polar(normalisation, -kinetic[j] * dt);
-    kinetic_phases.push_back(std::move(k));
-    return kinetic_phases.back().phase;
-  }
-  std::complex<double>* data() { return reinterpret_cast<std::complex<double>*>(buffer); }
-  void to_modes() { box ? fftw_execute(forward) : fftw_execute(forward); }
-  void to_grid() { box ? fftw_execute(forward) : fftw_execute(backward); }
+  std::vector<std::thread> workers_;
+  std::mutex mutex_;
+  std::condition_variable wake_, done_;
+  std::uint64_t generation_ = 0;
+  bool stop_ = false;
+  int busy_ = 0, blocks_ = 0;
+  std::atomic<int> next_{0};
+  void (*call_)(void*, int, int, int) = nullptr;
+  void* task_ = nullptr;
 };
 
+// Columns per block: the block's scratch near 256 KiB (it and the transform's work arrays stay
+// in a core's L2 cache), and at least 8 blocks when there are 8 columns or more, so that two or
+// more threads share the work evenly. Depends on points and columns only.
+int block_columns_for(std::size_t points, int columns) {
+  const std::size_t scratch_bytes = 256 * 1024;
+  const int by_cache = int(std::max<std::size_t>(1, scratch_bytes / (points * sizeof(complex))));
+  const int by_balance = std::max(1, (columns + 7) / 8);
+  return std::min({by_cache, by_balance, columns});
+}
+
+}  // namespace
+
+struct BatchedSplitStep::Impl {
+  std::size_t n;
+  int columns, block, blocks;
+  bool sine;
+  std::vector<fftw_complex*> scratch;  // one block per worker
+  // [0]: a full block; [1]: the last, shorter block (null when the blocks divide the columns).
+  // A sine transform is its own inverse: backward is forward.
+  fftw_plan forward[2] = {nullptr, nullptr}, backward[2] = {nullptr, nullptr};
+  WorkerPool pool;
+
+  Impl(std::size_t n_, int columns_, bool sine_, int threads)
+      : n(n_), columns(columns_), block(block_columns_for(n_, columns_)),
+        blocks((columns_ + block - 1) / block), sine(sine_), pool(std::max(1, threads)) {
+    try {
+      for (int w = 0; w < pool.threads(); ++w) {
+        scratch.push_back(fftw_alloc_complex(n * std::size_t(block)));
+        if (!scratch.back()) throw PhysicsError("split-operator propagator: cannot allocate the transform scratch");
+      }
+      std::lock_guard<std::mutex> lock(fftw_planner_mutex());
+      const int last = columns - (blocks - 1) * block;
+      for (int k = 0; k < (last == block ? 1 : 2); ++k) {
+        const int count = k == 0 ? block : last;
+        // FFTW_MEASURE overwrites the scratch: planned before any data is written.
+        if (!sine) {
+          const int size = int(n);
+          forward[k] = fftw_plan_many_dft(1, &size, count, scratch[0], nullptr, 1, size, scratch[0], nullptr, 1, size,
+                                          FFTW_FORWARD, FFTW_MEASURE);
+          backward[k] = fftw_plan_many_dft(1, &size, count, scratch[0], nullptr, 1, size, scratch[0], nullptr, 1,
+                                           size, FFTW_BACKWARD, FFTW_MEASURE);
+        } else {
+          // real and imaginary parts of every column, each a RODFT00 of length n with stride 2
+          fftw_iodim dim{int(n), 2, 2};
+          fftw_iodim many[2] = {{count, 2 * int(n), 2 * int(n)}, {2, 1, 1}};
+          fftw_r2r_kind kind = FFTW_RODFT00;
+          double* data = reinterpret_cast<double*>(scratch[0]);
+          forward[k] = backward[k] = fftw_plan_guru_r2r(1, &dim, 2, many, data, data, &kind, FFTW_MEASURE);
+        }
+        if (!forward[k] || !backward[k]) throw PhysicsError("split-operator propagator: FFTW could not create a plan");
+      }
+    } catch (...) {
+      release();
+      throw;
+    }
+  }
+  ~Impl() { release(); }
+  void release() {
+    {
+      std::lock_guard<std::mutex> lock(fftw_planner_mutex());
+      for (int k = 0; k < 2; ++k) {
+        if (backward[k] && backward[k] != forward[k]) fftw_destroy_plan(backward[k]);
+        if (forward[k]) fftw_destroy_plan(forward[k]);
+        forward[k] = backward[k] = nullptr;
+      }
+    }
+    for (auto* s : scratch) fftw_free(s);
+    scratch.clear();
+  }
+  void execute(fftw_plan plan, complex* data) const {
+    if (sine)
+      fftw_execute_r2r(plan, reinterpret_cast<double*>(data), reinterpret_cast<double*>(data));
+    else
+      fftw_execute_dft(plan, reinterpret_cast<fftw_complex*>(data), reinterpret_cast<fftw_complex*>(data));
+  }
+};
+
+BatchedSplitStep::BatchedSplitStep(std::size_t points, int columns, bool sine_transform, int threads) {
+  TRAPWORK_EXPECT(points >= 1 && columns >= 1, "BatchedSplitStep needs points >= 1 and columns >= 1");
+  impl_ = std::make_unique<Impl>(points, columns, sine_transform, threads);
+}
+BatchedSplitStep::~BatchedSplitStep() = default;
+BatchedSplitStep::BatchedSplitStep(BatchedSplitStep&&) noexcept = default;
+BatchedSplitStep& BatchedSplitStep::operator=(BatchedSplitStep&&) noexcept = default;
+std::size_t BatchedSplitStep::points() const { return impl_->n; }
+int BatchedSplitStep::columns() const { return impl_->columns; }
+int BatchedSplitStep::threads() const { return impl_->pool.threads(); }
+int BatchedSplitStep::block_columns() const { return impl_->block; }
+
+void BatchedSplitStep::apply(Eigen::MatrixXcd& state, const complex* before, const complex* kinetic,
+                             const complex* after) {
+  Impl& p = *impl_;
+  TRAPWORK_EXPECT(state.rows() == Eigen::Index(p.n) && state.cols() == p.columns,
+                  "BatchedSplitStep::apply: state is not points x columns");
+  const std::size_t n = p.n;
+  auto task = [&](int worker, int b, int next) {
+    const int first = b * p.block, count = std::min(p.block, p.columns - first);
+    const int shape = count == p.block ? 0 : 1;
+    const int next_first = next < 0 ? 0 : next * p.block, next_count = next < 0 ? 0 : std::min(p.block, p.columns - next_first);
+    auto ahead = [&](int c) { return c < next_count ? state.col(next_first + c).data() : nullptr; };
+    complex* buffer = reinterpret_cast<complex*>(p.scratch[std::size_t(worker)]);
+    for (int c = 0; c < count; ++c) multiply(state.col(first + c).data(), before, buffer + std::size_t(c) * n, n);
+    p.execute(p.forward[shape], buffer);
+    for (int c = 0; c < count; ++c) multiply(buffer + std::size_t(c) * n, kinetic, buffer + std::size_t(c) * n, n);
+    p.execute(p.backward[shape], buffer);
+    // while the block is written back, the next one is fetched
+    for (int c = 0; c < count; ++c) multiply(buffer + std::size_t(c) * n, after, state.col(first + c).data(), n, ahead(c));
+  };
+  p.pool.run(p.blocks, task);
+}
+
+// ---- SplitOperatorPropagator -----------------------------------------------------------------
+
 SplitOperatorPropagator::SplitOperatorPropagator(PotentialPath path, int columns, SplitOrder order, int threads)
-    : path_(std::move(path)), columns_(columns), order_(order) {
+    : path_(std::move(path)), columns_(columns), order_(order),
+      pass_(path_.grid().size(), std::max(1, columns), path_.grid().boundary() == Boundary::hard_wall, threads),
+      kinetic_(path_.grid().kinetic_modes()) {
   TRAPWORK_EXPECT(columns >= 1, "SplitOperatorPropagator needs at least one column");
-  plans_ = std::make_unique<Plans>(path_.grid(), columns, threads);
+  const std::size_t n = path_.grid().size();
+  TRAPWORK_EXPECT(kinetic_.size() == n, "grid kinetic modes size != grid size");
+  normalisation_ = path_.grid().boundary() == Boundary::hard_wall ? 1.0 / (2.0 * double(n + 1)) : 1.0 / double(n);
 }
 
 SplitOperatorPropagator::~SplitOperatorPropagator() = default;
@@ -158,6 +348,16 @@ SplitOperatorPropagator& SplitOperatorPropagator::operator=(SplitOperatorPropaga
 
 const std::vector<double>& SplitOperatorPropagator::potential_at(double t) {
   return samples_.at(t, [&](double time, std::vector<double>& v) { path_.sample(time, v); });
+}
+
+const std::vector<std::complex<double>>& SplitOperatorPropagator::kinetic_phase(double dt) {
+  for (const auto& k : kinetic_phases_)
+    if (k.dt == dt) return k.phase;
+  if (kinetic_phases_.size() >= 4) kinetic_phases_.erase(kinetic_phases_.begin());
+  KineticPhase k{dt, std::vector<std::complex<double>>(kinetic_.size())};
+  for (std::size_t j = 0; j < kinetic_.size(); ++j) k.phase[j] = std::polar(normalisation_, -kinetic_[j] * dt);
+  kinetic_phases_.push_back(std::move(k));
+  return kinetic_phases_.back().phase;
 }
 
 double potential_kick(const std::vector<double>& v, double dt, std::vector<std::complex<double>>& kick) {
@@ -172,36 +372,13 @@ double potential_kick(const std::vector<double>& v, double dt, std::vector<std::
 }
 
 void SplitOperatorPropagator::strang(State& state, double t, double dt) {
-  Plans& p = *plans_;
-  const std::size_t n = p.n;
-  std::vector<std::complex<double>>& kick = kick_;
-  auto make_kick = [&](const std::vector<double>& v) {
-    max_phase_ = std::max(max_phase_, potential_kick(v, dt, kick));
-  };
-  std::complex<double>* buffer = p.data();
-  make_kick(potential_at(t));
-  for (int c = 0; c < columns_; ++c) {
-    const std::complex<double>* column = state.col(c).data();
-    std::complex<double>* out = buffer + std::size_t(c) * n;
-    for (std::size_t j = 0; j < n; ++j) out[j] = column[j] * kick[j];
-  }
-  p.to_modes();
-  const auto& kinetic = p.kinetic_phase(dt);
-  for (int c = 0; c < columns_; ++c) {
-    std::complex<double>* out = buffer + std::size_t(c) * n;
-    for (std::size_t j = 0; j < n; ++j) out[j] *= kinetic[j];
-  }
-  p.to_grid();
-  make_kick(potential_at(t + dt));
-  for (int c = 0; c < columns_; ++c) {
-    std::complex<double>* column = state.col(c).data();
-    const std::complex<double>* in = buffer + std::size_t(c) * n;
-    for (std::size_t j = 0; j < n; ++j) column[j] = in[j] * kick[j];
-  }
+  kicks_.update(t, dt, [&](double time) -> const std::vector<double>& { return potential_at(time); });
+  max_phase_ = std::max(max_phase_, kicks_.spread());
+  pass_.apply(state, kicks_.before(), kinetic_phase(dt).data(), kicks_.after());
 }
 
 void SplitOperatorPropagator::step(State& state, double t, double dt) {
-  TRAPWORK_EXPECT(state.rows() == Eigen::Index(plans_->n) && state.cols() == columns_,
+  TRAPWORK_EXPECT(state.rows() == Eigen::Index(path_.grid().size()) && state.cols() == columns_,
                   "SplitOperatorPropagator::step: state is not grid points x columns");
   max_phase_ = path_.grid().max_kinetic() * std::abs(dt);
   if (order_ == SplitOrder::strang) {

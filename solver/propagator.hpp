@@ -14,6 +14,7 @@
 // eigenbasis ODE, Boost.Odeint Dormand-Prince 5(4) with error control, reported order 5).
 // Swapping one for the other is the cross-check. propagate() owns the loop and the observer.
 #include <Eigen/Dense>
+#include <algorithm>
 #include <cmath>
 #include <complex>
 #include <concepts>
@@ -22,6 +23,7 @@
 #include <memory>
 #include <mutex>
 #include <optional>
+#include <string>
 #include <type_traits>
 #include <utility>
 #include <vector>
@@ -48,10 +50,31 @@ struct NoObserver {
   void operator()(const State&, double) const {}
 };
 
+// Throws PhysicsError naming the first sample that is NaN or infinite:
+// "potential at <coordinate> = x_j is nan at t = ...". points[j] is the coordinate of v[j].
+void check_potential_finite(const std::vector<double>& v, const std::vector<double>& points, double t,
+                            const std::string& coordinate = "x");
+
+// Shortest round-trip text of a number, for error messages.
+std::string format_number(double value);
+
+// Index of the first column of `state` holding a NaN or an infinity, or -1 when all are finite.
+int first_nonfinite_column(const Eigen::MatrixXcd& state);
+
+// Steps between two checks of the state for NaN or infinity in propagate(): a check reads the
+// batch once, a step at least twice and transforms it, so checking every 64th step costs well
+// under 1% of the loop.
+inline constexpr int finite_check_interval = 64;
+
 // Calls observer(state, t) at t = t_begin + i dt, dt = (t_end - t_begin)/steps, for
 // i = 0 .. steps (the last time is exactly t_end), and steps in between. Each time is
 // computed from i, not accumulated. Returns the number of steps taken (fewer than `steps`
 // when the observer returned false). steps must be >= 1.
+// Guards: a PhysicsError thrown by a step (for example a NaN or infinite potential sample) is
+// rethrown with the step index and time in front. For matrix states the state is checked for
+// NaN or infinity at the start, every finite_check_interval steps and after the last step; a bad column
+// throws PhysicsError naming the column, the step and the time where it was found and the
+// last step where the whole state was still finite.
 template <Propagator P, class Observer = NoObserver>
 int propagate(P& propagator, typename P::State& state, double t_begin, double t_end, int steps,
               Observer&& observer = {}) {
@@ -65,17 +88,43 @@ int propagate(P& propagator, typename P::State& state, double t_begin, double t_
       return static_cast<bool>(observer(std::as_const(state), t));
     }
   };
+  auto where = [&](int step, double t) {
+    return "propagation step " + std::to_string(step) + " of " + std::to_string(steps) + " (t = " +
+           format_number(t) + ")";
+  };
+  int last_finite = 0;  // steps taken when the state was last found finite
+  auto check_finite = [&](int taken, double t) {
+    if constexpr (std::is_convertible_v<const State&, const Eigen::MatrixXcd&>) {
+      const int column = first_nonfinite_column(state);
+      if (column < 0) {
+        last_finite = taken;
+      } else if (taken == 0) {
+        throw PhysicsError("propagation: the initial state column " + std::to_string(column) +
+                           " holds NaN or infinity at t = " + format_number(t));
+      } else {
+        throw PhysicsError(where(taken, t) + ": state column " + std::to_string(column) + " (initial state " +
+                           std::to_string(column) + " of the batch) holds NaN or infinity (finite at step " +
+                           std::to_string(last_finite) + "): the time step may be too long for the potential, " +
+                           "or the potential is singular");
+      }
+    }
+  };
   const double dt = (t_end - t_begin) / steps;
+  check_finite(0, t_begin);
   if (!notify(t_begin)) return 0;
   for (int i = 0; i < steps; ++i) {
     const double t = t_begin + i * dt;
     const double t_next = i + 1 == steps ? t_end : t_begin + (i + 1) * dt;
-    propagator.step(state, t, t_next - t);
+    try {
+      propagator.step(state, t, t_next - t);
+    } catch (const PhysicsError& e) {
+      throw PhysicsError(where(i + 1, t_next) + ": " + e.what());
+    }
+    if ((i + 1) % finite_check_interval == 0 || i + 1 == steps) check_finite(i + 1, t_next);
     if (!notify(t_next)) return i + 1;
   }
   return steps;
 }
-
 
 // The potential the propagator sees on its grid, in the lab frame or in the co-moving frame
 // of a rigid translation V(x, t) = V_0(x - d(t)):
@@ -96,7 +145,8 @@ class PotentialPath {
   const Grid& grid() const { return grid_; }
   const Protocol& protocol() const { return protocol_; }
   bool is_co_moving() const { return translation_.has_value(); }
-  // v[j] = V(x_j, t) in the frame (resized to the grid size).
+  // v[j] = V(x_j, t) in the frame (resized to the grid size). Throws PhysicsError naming the
+  // point and time when a sample is NaN or infinite (check_potential_finite).
   void sample(double t, std::vector<double>& v) const;
   std::vector<double> sample(double t) const;
   // Frame wavefunctions (columns) <-> lab wavefunctions at time t; identity in the lab frame.
@@ -155,6 +205,74 @@ void triple_jump(Strang&& strang, double t, double dt) {
   strang(t + (g1 + g0) * dt, t + dt - (t + (g1 + g0) * dt));
 }
 
+// The fused split-operator pass over a batch of columns, shared by the grid propagators:
+//   psi_c <- after .* B^-1[ kinetic .* B[ before .* psi_c ] ]   for every column c,
+// B the unnormalised transform of the grid (FFT forward and backward, or DST-I = FFTW RODFT00,
+// its own inverse, on the real and imaginary parts for a hard-walled box); `kinetic` carries
+// exp(-i T dt) and the transform normalisation. Cache blocking (common practice): columns go
+// in blocks of block_columns(), each copied (times `before`) into a worker's own aligned
+// scratch, transformed, multiplied and transformed back while in cache, and written back
+// (times `after`): one pass over the states per step. Plans (FFTW_MEASURE, one block shape and
+// the remainder's, made once on the scratch before any data is written) are executed with
+// new-array execution, which FFTW allows from several threads at once.
+// The block split depends only on (points, columns), never on the thread count, and a block's
+// arithmetic is the same whichever worker runs it, so the result does not depend on the
+// number of threads (bit for bit, as long as FFTW measures the same plans; within one process
+// it reuses what it measured). Memory: the scratch, threads x block_columns() x points
+// complex samples (about 256 KiB per thread), beside the states.
+class BatchedSplitStep {
+ public:
+  // points >= 1, columns >= 1, threads >= 1 (threads - 1 worker threads are started; the
+  // calling thread is the first worker).
+  BatchedSplitStep(std::size_t points, int columns, bool sine_transform, int threads);
+  ~BatchedSplitStep();
+  BatchedSplitStep(BatchedSplitStep&&) noexcept;
+  BatchedSplitStep& operator=(BatchedSplitStep&&) noexcept;
+  BatchedSplitStep(const BatchedSplitStep&) = delete;
+  BatchedSplitStep& operator=(const BatchedSplitStep&) = delete;
+
+  // state: points x columns; before, kinetic, after: `points` factors each.
+  void apply(Eigen::MatrixXcd& state, const std::complex<double>* before, const std::complex<double>* kinetic,
+             const std::complex<double>* after);
+  std::size_t points() const;
+  int columns() const;
+  int threads() const;
+  int block_columns() const;
+
+ private:
+  struct Impl;
+  std::unique_ptr<Impl> impl_;
+};
+
+// The two potential half kicks of a Strang step, exp(-i V(t) dt/2) and exp(-i V(t + dt) dt/2)
+// (potential_kick). The second kick of one step is the first of the next when it starts at
+// t + dt with the same dt, so consecutive equal steps compute one kick each (the same numbers
+// as computing both). sample(time) returns the potential samples at that time.
+class StrangKicks {
+ public:
+  template <class Sample>
+  void update(double t, double dt, Sample&& sample) {
+    if (after_time_ == t && after_dt_ == dt) {
+      std::swap(before_, after_);
+      std::swap(before_spread_, after_spread_);
+    } else {
+      before_spread_ = potential_kick(sample(t), dt, before_);
+    }
+    after_spread_ = potential_kick(sample(t + dt), dt, after_);
+    after_time_ = t + dt;
+    after_dt_ = dt;
+  }
+  const std::complex<double>* before() const { return before_.data(); }
+  const std::complex<double>* after() const { return after_.data(); }
+  // Largest potential phase spread of the two kicks (radians), as potential_kick returns.
+  double spread() const { return std::max(before_spread_, after_spread_); }
+
+ private:
+  std::vector<std::complex<double>> before_, after_;
+  double before_spread_ = 0, after_spread_ = 0;
+  double after_time_ = std::numeric_limits<double>::quiet_NaN(), after_dt_ = 0;
+};
+
 // Split-operator Fourier method (Feit, Fleck & Steiger, J. Comput. Phys. 47, 412 (1982),
 // from memory) on the grid's own kinetic operator (FFT for a periodic grid, DST-I for a box).
 // One Strang step from t to t + dt:
@@ -168,10 +286,10 @@ void triple_jump(Strang&& strang, double t, double dt) {
 // Fourth order: the triple jump S(t + (g1+g0) dt, g1 dt) S(t + g1 dt, g0 dt) S(t, g1 dt),
 // g1 = 1/(2 - 2^{1/3}), g0 = -2^{1/3}/(2 - 2^{1/3}) (Yoshida, Phys. Lett. A 150, 262 (1990);
 // Suzuki 1990; from memory), symmetric and of order 4.
-// Construction plans the FFTs once (FFTW_MEASURE on the propagator's own buffer, before any
-// data is written; fftw_plan_many_dft over all columns, or a guru r2r RODFT00 plan over the
-// real and imaginary parts for a box) with `threads` FFTW threads. step() only multiplies and
-// executes. Move-only.
+// Construction plans the transforms once (BatchedSplitStep below); step() only computes the
+// potential half kicks (reusing the previous step's second kick when consecutive steps share
+// t and dt) and runs the fused pass, spread over `threads` worker threads owned by the
+// propagator. Results do not depend on `threads`. Move-only.
 class SplitOperatorPropagator {
  public:
   using State = Eigen::MatrixXcd;  // grid points x columns, samples psi(x_j)
@@ -191,15 +309,22 @@ class SplitOperatorPropagator {
   double max_phase() const { return max_phase_; }
 
  private:
-  struct Plans;
   void strang(State& state, double t, double dt);
   const std::vector<double>& potential_at(double t);
+  const std::vector<std::complex<double>>& kinetic_phase(double dt);
   PotentialPath path_;
   int columns_;
   SplitOrder order_;
-  std::unique_ptr<Plans> plans_;
+  BatchedSplitStep pass_;
+  std::vector<double> kinetic_;  // T of each transform mode
+  double normalisation_;         // 1/n (FFT) or 1/(2(n+1)) (DST-I), folded into the kinetic phase
+  struct KineticPhase {
+    double dt;
+    std::vector<std::complex<double>> phase;
+  };
+  std::vector<KineticPhase> kinetic_phases_;  // the few dt in use (Strang: 1; order 4: up to 4)
   RecentSamples samples_;
-  std::vector<std::complex<double>> kick_;  // reused by every step (no allocation per step)
+  StrangKicks kicks_;  // reused by every step (no allocation per step)
   double max_phase_ = 0;
 };
 

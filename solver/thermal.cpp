@@ -140,6 +140,18 @@ InitialWeights initial_weights(const InitialState& state, const Eigen::VectorXd&
   return w;
 }
 
+int levels_for_reverse_tail(const Eigen::MatrixXd& reverse, const std::vector<double>& reverse_weights, double target) {
+  TRAPWORK_EXPECT(std::size_t(reverse.rows()) == reverse_weights.size(),
+                  "levels_for_reverse_tail: reverse weights do not match the reverse matrix rows");
+  for (Eigen::Index k = 1; k <= reverse.cols(); ++k) {
+    double tail = 0;
+    for (Eigen::Index n = 0; n < reverse.rows(); ++n)
+      tail += reverse_weights[std::size_t(n)] * (1.0 - reverse.row(n).head(k).sum());
+    if (tail <= target) return int(k);
+  }
+  return int(reverse.cols()) + 1;
+}
+
 TruncationResidual truncation_residual_bound(double thermal_tail_a, int kept_a, const Eigen::MatrixXd& reverse,
                                              const std::vector<double>& reverse_weights, double thermal_tail_b) {
   TRAPWORK_EXPECT(std::size_t(reverse.rows()) == reverse_weights.size(),

@@ -92,6 +92,9 @@ struct TruncationResidual {
   double reverse_thermal_tail = 0;
   double bound = 0;
 };
+// Smallest K >= 1 whose reverse tail p_R(>=K) (as above) is at most `target`; reverse.cols() + 1
+// when even all the columns leave more (the probability they miss ended higher still).
+int levels_for_reverse_tail(const Eigen::MatrixXd& reverse, const std::vector<double>& reverse_weights, double target);
 TruncationResidual truncation_residual_bound(double thermal_tail_a, int kept_a, const Eigen::MatrixXd& reverse,
                                              const std::vector<double>& reverse_weights,
                                              double thermal_tail_b);

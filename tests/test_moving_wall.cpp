@@ -181,3 +181,68 @@ TEST_CASE("soft-wall term: shape, parameters, schedule address", "[moving_wall]"
   CHECK_THROWS_AS(WallProtocol(1, Schedule::constant("walls.left", 0), Schedule::linear("box.right", 1, 2)), InputError);
   CHECK_THROWS_AS(WallProtocol(1, Schedule::constant("walls.left", 0), Schedule::linear("walls.right", 1, -1)), PhysicsError);
 }
+
+TEST_CASE("sudden expansion with an inner potential: overlaps against direct quadrature", "[moving_wall]") {
+  // [0.1, 1] -> [0, 1.4] with a harmonic trap inside that also changes in the switch. The
+  // amplitudes come from the sine coefficients of both grid spectra and the closed-form flat
+  // overlaps; here each overlap int_A phi_n^B phi_m^A dx is recomputed by Gauss-Legendre on
+  // the old box, where both sine series are smooth (independent of the closed form).
+  Potential inner({Term("trap", Shape::harmonic, {{"frequency", 9.0}, {"centre", 0.55}})});
+  const WallProtocol p(0, Schedule::linear("walls.left", 0.1, 0.0), Schedule::linear("walls.right", 1.0, 1.4), inner,
+                       {Schedule::linear("trap.frequency", 9.0, 7.0)});
+  WallWorkRequest r;
+  r.initial = InitialState::thermal(1.0 / 20);
+  r.points = 96;
+  r.reverse_run = false;
+  const WallWorkResult out = run_wall_work(p, r);
+  const Spectrum& sa = out.work.initial_spectrum;
+  const Spectrum& sb = out.work.final_spectrum;
+  REQUIRE(sb.grid.left() == 0.0);
+  REQUIRE(sb.grid.right() == Approx(1.4));
+  auto series = [](const Spectrum& s, int level, double a, double l, double x) {
+    // psi(x) = sum_k c_k sqrt(2/l) sin(k pi (x - a)/l), c_k = sum_j s_k(x_j) psi_j dx
+    const Eigen::Index n = s.states.rows();
+    double v = 0;
+    for (Eigen::Index k = 1; k <= n; ++k) {
+      double c = 0;
+      for (Eigen::Index j = 0; j < n; ++j)
+        c += std::sqrt(2 / l) * std::sin(k * pi * double(j + 1) / double(n + 1)) * s.states(j, level);
+      v += c * s.grid.spacing() * std::sqrt(2 / l) * std::sin(k * pi * (x - a) / l);
+    }
+    return v;
+  };
+  Eigen::VectorXd y, w;
+  gauss_legendre(160, y, w);
+  const auto& amplitudes = out.work.forward.transitions.probability;
+  double worst = 0;
+  for (int n = 0; n < 5; ++n)
+    for (int m = 0; m < 3; ++m) {
+      double q = 0;
+      for (Eigen::Index i = 0; i < y.size(); ++i) {
+        const double x = 0.1 + 0.9 * y[i];
+        q += w[i] * 0.9 * series(sb, n, 0.0, 1.4, x) * series(sa, m, 0.1, 0.9, x);
+      }
+      worst = std::max(worst, std::abs(amplitudes(m, n) - q * q));
+    }
+  CHECK(worst < 1e-12);  // roundoff of O(1) sums of 96 terms
+  // the Jarzynski failure term: int_A |phi_n^B|^2 < 1 makes <exp(-beta W)> fall short of Z_B/Z_A
+  // (1/Z_A) sum_n exp(-beta E_n^B) int_A |phi_n^B|^2, the weights by the same quadrature
+  REQUIRE(out.sudden);
+  const double beta = 1.0 / 20;
+  double za = 0, sum = 0;
+  for (Eigen::Index m = 0; m < sa.energies.size(); ++m) za += std::exp(-beta * sa.energies[m]);
+  for (Eigen::Index n = 0; n < sb.energies.size(); ++n) {
+    double inside = 0;
+    for (Eigen::Index i = 0; i < y.size(); ++i) {
+      const double v = series(sb, int(n), 0.0, 1.4, 0.1 + 0.9 * y[i]);
+      inside += w[i] * 0.9 * v * v;
+    }
+    sum += std::exp(-beta * sb.energies[n]) * inside;
+  }
+  CHECK(out.sudden->average == Approx(sum / za).epsilon(1e-10));
+  CHECK(out.sudden->ratio < 0.99);
+  // a compression with the same inner potential is refused, as for the flat box
+  const WallProtocol squeeze(0, Schedule::constant("walls.left", 0.0), Schedule::linear("walls.right", 1.4, 1.0),
+                             inner);
+  CHECK_THROWS_WITH(run_wall_work(squeeze, r), Contains("refused"));
+}

@@ -3,6 +3,8 @@
 #include <catch2/catch.hpp>
 
 #include <cmath>
+#include <limits>
+#include <string>
 #include <vector>
 
 #include "solver/propagator.hpp"
@@ -168,4 +170,49 @@ TEST_CASE("sudden amplitudes are the eigenstate overlaps", "[propagator]") {
   // the grid [-10, 10] at 128 points resolves both ground states to rounding
   CHECK(std::norm(a(0, 0)) == Approx(2 * std::sqrt(2.0) / 3).epsilon(1e-12));
   CHECK(std::abs(a(1, 0)) < 1e-12);  // parity
+}
+
+TEST_CASE("a NaN or infinite potential or state stops the propagation, naming step and quantity", "[propagator]") {
+  using Catch::Matchers::Contains;
+  // sqrt(g) with g scheduled linearly from 1 to -1 over tau = 1: g < 0, so V = NaN, from t > 1/2;
+  // with 10 steps the first NaN sample is at t = 0.6, the end of step 6 (g(0.5) = 0 is finite).
+  const Potential root({Term::formula("trap", "0.5*x^2 + sqrt(g)*x", {{"g", 1.0}})});
+  const Protocol through_zero(1, {Schedule::linear("trap.g", 1, -1)});
+  {
+    SplitOperatorPropagator prop(PotentialPath::lab(grid, root, through_zero), 2, SplitOrder::strang);
+    auto psi = oscillator_states(grid);
+    CHECK_THROWS_WITH(propagate(prop, psi, 0.0, 1.0, 10),
+                      Contains("step 6 of 10 (t = 0.6)") && Contains("potential at x = -10 is NaN at t = 0.6:"));
+  }
+  {
+    // the triple jump's first substep overshoots to t + g1 dt, g1 = 1/(2 - 2^{1/3}) = 1.3512:
+    // step 5 (t = 0.4 -> 0.5) already samples t = 0.53512
+    SplitOperatorPropagator prop(PotentialPath::lab(grid, root, through_zero), 2, SplitOrder::fourth);
+    auto psi = oscillator_states(grid);
+    CHECK_THROWS_WITH(propagate(prop, psi, 0.0, 1.0, 10),
+                      Contains("step 5 of 10 (t = 0.5)") && Contains("potential at x = -10 is NaN at t = 0.535121"));
+  }
+  // log(g) with g from 1 to 0: -infinity at t = tau exactly (the schedule's end value), step 4 of 4
+  const Potential logarithm({Term::formula("trap", "0.5*x^2 + log(g)", {{"g", 1.0}})});
+  const Protocol to_zero(1, {Schedule::linear("trap.g", 1, 0)});
+  SplitOperatorPropagator log_prop(PotentialPath::lab(grid, logarithm, to_zero), 2, SplitOrder::strang);
+  auto psi = oscillator_states(grid);
+  CHECK_THROWS_WITH(propagate(log_prop, psi, 0.0, 1.0, 4),
+                    Contains("step 4 of 4 (t = 1)") && Contains("potential at x = -10 is infinite at t = 1"));
+  // a finite potential, for contrast, propagates without complaint
+  SplitOperatorPropagator fine(PotentialPath::lab(grid, harmonic_trap(), ramp), 2, SplitOrder::strang);
+  auto good = oscillator_states(grid);
+  CHECK_NOTHROW(propagate(fine, good, 0.0, 1.0, 4));
+  // a state column that is already NaN: found before the first step, named by its column
+  auto bad = oscillator_states(grid);
+  bad(5, 1) = std::numeric_limits<double>::quiet_NaN();
+  CHECK_THROWS_WITH(propagate(fine, bad, 0.0, 1.0, 10), Contains("initial state column 1 holds NaN or infinity"));
+  // a column that overflows during the run (1e308 is finite, its Fourier sums are not): found at
+  // the first check after it, every finite_check_interval steps
+  auto bad_early = oscillator_states(grid);
+  bad_early(5, 0) = 1e308;
+  const int steps = 3 * finite_check_interval;
+  CHECK_THROWS_WITH(propagate(fine, bad_early, 0.0, 1.0, steps),
+                    Contains("step " + std::to_string(finite_check_interval) + " of " + std::to_string(steps)) &&
+                        Contains("state column 0 (initial state 0 of the batch)") && Contains("finite at step 0)"));
 }

@@ -1,6 +1,7 @@
 // The subcommands of the `trapwork` tool (see commands.hpp).
 #include "solver/tool/commands.hpp"
 
+#include <algorithm>
 #include <iostream>
 #include <memory>
 
@@ -14,6 +15,19 @@ int run_command_line(CLI::App& app, int argc, char** argv) {
     app.parse(argc, argv);  // runs the chosen command's callback
     return 0;
   } catch (const CLI::ParseError& e) {
+    // For a word that is no command CLI11 says only "A subcommand is required": name it.
+    std::vector<std::string> commands;
+    for (const CLI::App* sub : app.get_subcommands({})) commands.push_back(sub->get_name());
+    const std::string first = argc > 1 ? argv[1] : "";
+    if (!first.empty() && first[0] != '-' &&
+        std::find(commands.begin(), commands.end(), first) == commands.end()) {
+      std::string list;
+      for (const auto& c : commands) list += (list.empty() ? "" : ", ") + c;
+      std::cerr << "trapwork: error: " << InputError::format("", 0, 0, "command", first, "one of " + list,
+                                                             closest_name(first, commands))
+                << '\n';
+      return 2;
+    }
     const int code = app.exit(e);  // prints help, or the command-line error
     return code == 0 ? 0 : 2;
   } catch (const InputError& e) {

@@ -3,10 +3,15 @@
 // its CLI11 subcommand, options and callback to the app (main() calls each once), and one
 // run function doing the work, callable from tests. Commands print through the stream given.
 #include <CLI/CLI.hpp>
+#include <cstdint>
+#include <filesystem>
 #include <optional>
 #include <ostream>
 #include <string>
+#include <vector>
 
+#include "solver/compare.hpp"
+#include "solver/plan.hpp"
 #include "solver/tool/scenario.hpp"
 
 namespace trapwork {
@@ -44,17 +49,98 @@ void run_work_command(const WorkCommand& command, std::ostream& out, std::ostrea
 // trapwork demo [-o DIR] [--quiet]: `trapwork work` on the built-in scenario.
 void add_demo_command(CLI::App& app);
 
-// trapwork sweep SCENARIO [-o DIR] [--quiet] [--jobs N]: one run_work per [sweep] value, `jobs`
-// points at a time (each with one FFTW thread), sweep.csv rewritten as points finish, then
-// sweep.png/.svg.
+// trapwork sweep SCENARIO [-o DIR] [--quiet] [--jobs N] [--resume]: one run_work per [sweep]
+// value, `jobs` points at a time (each with one FFTW thread), sweep.csv and sweep-points.txt
+// rewritten as points finish, then sweep.png/.svg. --resume keeps the points in
+// sweep-points.txt when its fingerprint (scenario text and sweep values) matches, else
+// throws InputError; the final sweep.csv equals that of an uninterrupted run.
 struct SweepCommand {
   std::string scenario;
   std::string output;
   bool quiet = false;
   bool show_progress = false;
   int jobs = 0;  // 0: std::thread::hardware_concurrency()
+  bool resume = false;  // keep the finished points of an earlier run of the same scenario
 };
 void add_sweep_command(CLI::App& app);
 void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostream& progress);
+
+// ---- measured data: fit, compare, plan (solver/tool/fit_command.cpp, compare_command.cpp,
+// plan_command.cpp; data files in solver/tool/data_files.hpp) ---------------------------------
+
+// trapwork fit DATA (--start SCENARIO | --mass M --frequency F) [--terms frequency,quartic]
+// [-o DIR] [--quiet]: fit_trap on the transition lines of DATA, starting from the scenario's one
+// polynomial or harmonic term; writes fitted.toml (the start scenario with the fitted
+// coefficients, which `trapwork work` runs when the start had [protocol] and [initial]),
+// fit_lines.csv and fit_summary.json. Data the fit cannot determine: PhysicsError (exit 2).
+struct FitCommand {
+  std::string data;                           // transition lines file
+  std::string start;                          // start scenario file, "default", or "" (then mass, frequency)
+  std::string mass, frequency;                // "40 u", "1 MHz" when there is no start scenario
+  std::string terms = "frequency,quartic";    // coefficients to fit
+  std::string output;                         // default "<data stem>-fit"
+  bool quiet = false;
+};
+struct FitResultFiles {
+  std::filesystem::path scenario, lines, summary;
+};
+void add_fit_command(CLI::App& app);
+FitResultFiles run_fit_command(const FitCommand& command, std::ostream& out);
+
+// The work model of a scenario as `trapwork work` computes it (compute_work), without the
+// reverse run (compare and plan use the forward distribution only), with a progress bar;
+// PhysicsError names the scenario. Shared by compare and plan.
+struct ScenarioWork;  // solver/tool/work_output.hpp
+ScenarioWork model_work(const Scenario& scenario, std::ostream& progress, bool show_progress);
+// An energy option with its unit ("40 h*kHz") in internal units, >= 0; InputError naming `key`.
+double energy_option(const Scenario& scenario, const std::string& key, const std::string& text);
+
+// trapwork compare SCENARIO DATA [--resolution E] [--resamples N] [--seed S] [--confidence C]
+// [-o DIR] [--quiet]: the measured work data of DATA (work samples, level pairs or a histogram,
+// solver/tool/data_files.hpp) against the scenario's work distribution; writes compare.csv,
+// compare_summary.json and compare.png/.svg. The resolution comes from the option, the data
+// file's "# resolution:" line or the scenario's [work] resolution (level pairs need none).
+struct CompareCommand {
+  std::string scenario, data, output;
+  std::string resolution;  // e.g. "40 h*kHz"; empty: from the data file or the scenario
+  int resamples = 2000;
+  std::uint64_t seed = 1;
+  double confidence = 0.9;
+  bool quiet = false;
+  bool show_progress = false;
+};
+struct CompareOutcome {
+  WorkComparison comparison;
+  std::string verdict;
+  std::vector<std::filesystem::path> files;
+};
+void add_compare_command(CLI::App& app);
+CompareOutcome run_compare_command(const CompareCommand& command, std::ostream& out, std::ostream& progress);
+
+// trapwork plan SCENARIO [--runs 10,30,...] [--resolution "0 h*kHz,40 h*kHz"] [--target kT]
+// [--experiments N] [--seed S] [--correct-resolution] [--synthetic-runs N] [-o DIR] [--quiet]:
+// estimator_table and runs_needed (solver/plan.hpp) on the scenario's work lines; writes
+// plan.csv, plan_summary.json, plan.png/.svg and, with --synthetic-runs, synthetic_work.csv
+// (runs drawn from the model with the first resolution, in the work samples layout).
+struct PlanCommand {
+  std::string scenario, output;
+  std::vector<int> runs = {10, 30, 100, 300, 1000};
+  std::vector<std::string> resolutions;  // e.g. "40 h*kHz"; empty: 0
+  std::optional<double> target_kT;       // target rms error of beta Delta F
+  int experiments = 1000;
+  std::uint64_t seed = 1;
+  bool correct_resolution = false;
+  int synthetic_runs = 0;
+  bool quiet = false;
+  bool show_progress = false;
+};
+struct PlanOutcome {
+  std::vector<EstimatorStatistics> table;
+  std::vector<std::optional<RunsNeeded>> needed;  // per resolution, with --target
+  std::vector<std::string> refusals;              // why a target is not reachable ("" if it is)
+  std::vector<std::filesystem::path> files;
+};
+void add_plan_command(CLI::App& app);
+PlanOutcome run_plan_command(const PlanCommand& command, std::ostream& out, std::ostream& progress);
 
 }  // namespace trapwork

@@ -10,5 +10,8 @@ int main(int argc, char** argv) {
   trapwork::add_work_command(app);
   trapwork::add_sweep_command(app);
   trapwork::add_demo_command(app);
+  trapwork::add_fit_command(app);
+  trapwork::add_compare_command(app);
+  trapwork::add_plan_command(app);
   return trapwork::run_command_line(app, argc, argv);
 }

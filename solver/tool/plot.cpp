@@ -1002,3 +1002,115 @@ std::vector<fs::path> plot_sweep(const fs::path& stem, const SweepFigure& figure
 }
 
 }  // namespace trapwork
+
+// ---- (d) measured data against a model -------------------------------------------------
+
+namespace trapwork {
+namespace {
+
+std::vector<fs::path> draw_comparison(const fs::path& stem, const ComparisonFigure& f) {
+  const std::string name = "plot_comparison";
+  if (f.edges.size() < 2) bad_data(name, "needs at least one bin (two edges)");
+  const std::size_t bins = f.edges.size() - 1;
+  if (f.observed.size() != bins || f.expected.size() != bins)
+    bad_data(name, "observed and expected need one value per bin (" + std::to_string(bins) + ")");
+  for (std::size_t k = 0; k <= bins; ++k)
+    if (!std::isfinite(f.edges[k]) || (k > 0 && !(f.edges[k] > f.edges[k - 1])))
+      bad_data(name, "bin edges must be finite and ascending");
+  for (std::size_t k = 0; k < bins; ++k)
+    if (!(f.observed[k] >= 0) || !(f.expected[k] >= 0) || !std::isfinite(f.observed[k]) ||
+        !std::isfinite(f.expected[k]))
+      bad_data(name, "bin " + std::to_string(k) + " needs finite counts >= 0");
+  check_same_size(name, "curve", f.curve_work, f.curve);
+
+  Range yr, pr;
+  yr.add(0.0);
+  pr.add(-3.0);
+  pr.add(3.0);
+  Vec centre(bins), pull(bins, NAN), pull_x, pull_y;
+  for (std::size_t k = 0; k < bins; ++k) {
+    centre[k] = 0.5 * (f.edges[k] + f.edges[k + 1]);
+    yr.add(f.observed[k] + std::sqrt(f.observed[k]));
+    yr.add(f.expected[k]);
+    if (f.expected[k] >= 1) {  // bins expecting less than one run would only add clutter near 0
+      pull[k] = (f.observed[k] - f.expected[k]) / std::sqrt(f.expected[k]);
+      pull_x.push_back(centre[k]);
+      pull_y.push_back(pull[k]);
+      pr.add(pull[k]);
+    }
+  }
+  yr.add(f.curve);
+  const double x_lo = f.edges.front(), x_hi = f.edges.back();
+  const double pad = 0.02 * (x_hi - x_lo);
+  const double y_top = yr.hi * 1.15;
+  const Range pp = pr.padded(0.1);
+
+  std::vector<LegendEntry> legend = {
+      {f.observed_label + " (±√count)", PL_LEGEND_COLOR_BOX, blue, solid, 1, "", blue_fill},
+      line_entry(f.expected_label + ": expected runs per bin", orange, solid, 2.4)};
+  if (!f.curve.empty()) legend.push_back(line_entry(f.expected_label + " density x runs x bin width", orange, dashed, 1.8));
+  if (f.model_mean) legend.push_back(line_entry("model <W>", green, dashed, 2.0));
+  if (f.data_mean) legend.push_back(line_entry("measured <W>", purple, dotted, 2.0));
+  const double left = 0.11, right = 0.97;
+  const int rows = legend_rows(legend, right - left, 1);
+  const double legend_bottom = (f.title.empty() ? 0.93 : 0.89) - rows * legend_row_height;
+  const double top_edge = legend_bottom - 0.02;
+  Panel main{{left, right, 0.40, top_edge}, x_lo - pad, x_hi + pad, 0, y_top};
+  main.x_numbers = false;
+  Panel lower{{left, right, 0.11, 0.36}, x_lo - pad, x_hi + pad, pp.lo, pp.hi};
+
+  return write_png_and_svg(stem, [&] {
+    figure_title(f.title);
+    const double distance = draw_frame(main);
+    label_left(f.count_label.empty() ? "runs per bin" : f.count_label, distance);
+    for (std::size_t k = 0; k < bins; ++k) {  // filled bars
+      if (!(f.observed[k] > 0)) continue;
+      pen(blue_fill, 1);
+      fill_polygon({f.edges[k], f.edges[k + 1], f.edges[k + 1], f.edges[k]}, {0, 0, f.observed[k], f.observed[k]});
+    }
+    Vec lo(bins), hi(bins);
+    for (std::size_t k = 0; k < bins; ++k) {
+      lo[k] = std::max(0.0, f.observed[k] - std::sqrt(f.observed[k]));
+      hi[k] = f.observed[k] + std::sqrt(f.observed[k]);
+    }
+    pen(blue, 1.4);
+    plerry(static_cast<PLINT>(bins), centre.data(), lo.data(), hi.data());
+    Vec sx, sy;  // the expected counts as steps
+    for (std::size_t k = 0; k < bins; ++k) {
+      sx.insert(sx.end(), {f.edges[k], f.edges[k + 1]});
+      sy.insert(sy.end(), {f.expected[k], f.expected[k]});
+    }
+    pen(orange, 2.4);
+    draw_line(sx, sy);
+    if (!f.curve.empty()) {
+      pen(orange, 1.8, dashed);
+      draw_line(f.curve_work, f.curve);
+    }
+    if (f.model_mean) {
+      pen(green, 2.0, dashed);
+      pljoin(*f.model_mean, 0, *f.model_mean, y_top);
+    }
+    if (f.data_mean) {
+      pen(purple, 2.0, dotted);
+      pljoin(*f.data_mean, 0, *f.data_mean, y_top);
+    }
+    const double lower_distance = draw_frame(lower);
+    label_bottom(f.work_label);
+    label_left("pull (O - E)/√E", lower_distance);
+    pen(grey, 1.5, dashed);
+    pljoin(main.x_lo, 0, main.x_hi, 0);
+    pen(blue, 1);
+    plschr(0, 0.75);
+    if (!pull_x.empty()) plstring(static_cast<PLINT>(pull_x.size()), pull_x.data(), pull_y.data(), "●");
+    plschr(0, text_scale);
+    draw_legend_above(legend, main.viewport, legend_bottom, rows);
+  });
+}
+
+}  // namespace
+
+std::vector<fs::path> plot_comparison(const fs::path& stem, const ComparisonFigure& figure) {
+  return draw_comparison(stem, figure);
+}
+
+}  // namespace trapwork

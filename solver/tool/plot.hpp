@@ -122,4 +122,27 @@ struct SweepFigure {
 std::vector<std::filesystem::path> plot_sweep(const std::filesystem::path& stem,
                                               const SweepFigure& figure);
 
+// ---- measured data against a model (trapwork compare) -----------------------------------------
+
+// Counts of measured runs on bins against the counts the model expects there.
+struct ComparisonFigure {
+  std::string title;
+  std::string work_label;               // e.g. "work W (h*kHz)"
+  std::string count_label;              // e.g. "runs per bin"
+  std::vector<double> edges;            // bin edges, ascending, bins + 1 of them
+  std::vector<double> observed;         // measured runs per bin, >= 0
+  std::vector<double> expected;         // model's expected runs per bin, >= 0
+  std::string observed_label = "measured";
+  std::string expected_label = "model";
+  std::vector<double> curve_work;       // optional smooth model curve (e.g. N x bin width x density)
+  std::vector<double> curve;            // one per curve_work; may be empty
+  std::optional<double> model_mean, data_mean;  // vertical markers, work unit
+};
+
+// The measured counts as a filled histogram with sqrt(count) error bars, the model's expected
+// counts as a step line, the optional curve dashed, and below, in a second panel, the pull
+// (observed - expected) / sqrt(expected) of each bin expecting at least one run.
+std::vector<std::filesystem::path> plot_comparison(const std::filesystem::path& stem,
+                                                   const ComparisonFigure& figure);
+
 }  // namespace trapwork

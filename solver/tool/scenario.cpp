@@ -382,8 +382,8 @@ PotentialTable Reader::read_table_file(const toml::node& file_node, const std::s
     table.v.push_back(values[1] * v_per_unit);
   }
   if (table.x.size() < 2)
-    throw InputError(dotted, std::to_string(table.x.size()) + " rows", "at least 2 rows of " + pair, "",
-                     data_file, 0, 0);
+    fail(file_node, dotted, "at least 2 rows of " + pair + " in " + data_file + " (found " +
+                                std::to_string(table.x.size()) + ")");
   return table;
 }
 
@@ -394,6 +394,8 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
   if (!is_identifier(record.name))
     fail(*t.get("name"), prefix + ".name",
          "a name of letters, digits and '_', starting with a letter (it is used as name.parameter)");
+  if (record.name == "box")
+    fail(*t.get("name"), prefix + ".name", "a name other than \"box\" (box.left and box.right are the walls)");
   const toml::node* shape_node = t.get("shape");
   if (!shape_node)
     fail(t.source(), prefix + ".shape", "",
@@ -492,6 +494,7 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
           if (!is_identifier(name)) fail(k.source(), key, "", "a name of letters, digits and '_'");
           if (!v.is_number()) fail(v, key, "a plain number, in the units the expression is written in");
           const double value = v.value<double>().value();
+          if (!std::isfinite(value)) fail(v, key, "a finite plain number");
           parameters.emplace_back(name, value);
           record.parameters.push_back({name, found_text(v), value, Dimension::none()});
         }
@@ -636,6 +639,8 @@ std::string without_position(const std::string& message) {
 }
 
 void Reader::read_parameter_slots(Scenario& s) const {
+  if (s.spectrum.box)
+    for (const char* wall : {"box.left", "box.right"}) s.parameters.push_back({wall, Dimension::length(), 1});
   for (const Term& term : s.potential.terms()) {
     const auto& fixed = shape_parameters(term.shape());
     for (const auto& [name, value] : term.parameters()) {
@@ -761,8 +766,11 @@ void Reader::check_protocol(const Scenario& s, const toml::node& where, const st
   try {
     const Protocol p = build_protocol(s);
     for (int i = 0; i <= 64; ++i) (void)p.at(s.potential, p.duration() * i / 64);
+    if (moves_walls(s)) (void)build_wall_protocol(s);
   } catch (const InputError& e) {
     fail(where, key, "a protocol the potential accepts: " + e.key + " = " + e.found + ": " + e.expected);
+  } catch (const PhysicsError& e) {
+    fail(where, key, std::string("walls that stay apart: ") + e.what());
   }
 }
 
@@ -835,8 +843,8 @@ void Reader::read_initial(const toml::table& root, Scenario& s) const {
     if (!a || a->empty()) fail(*first, "initial.weights", "an array of weights of levels 0, 1, ...");
     std::vector<double> weights;
     for (const auto& v : *a) {
-      if (!v.is_number() || !(v.value<double>().value() >= 0))
-        fail(v, "initial.weights[" + std::to_string(weights.size() + 1) + "]", "a plain number >= 0");
+      if (!v.is_number() || !(v.value<double>().value() >= 0) || !std::isfinite(v.value<double>().value()))
+        fail(v, "initial.weights[" + std::to_string(weights.size() + 1) + "]", "a finite plain number >= 0");
       weights.push_back(v.value<double>().value());
     }
     if (std::none_of(weights.begin(), weights.end(), [](double x) { return x > 0; }))
@@ -1030,13 +1038,15 @@ Scenario Reader::read(const toml::table& root) {
   s.description = string(root, "description", "description").value_or("");
   read_units(root, s);
 
+  // A hard-walled [box] may be empty (a flat box); every other trap needs a potential.
   const toml::node* potential = root.get("potential");
-  if (!potential)
-    throw InputError("potential", "", "one or more [[potential]] tables (with a shape)", "", file_);
-  if (!potential->is_array_of_tables() || potential->as_array()->empty())
+  if (!potential && !root.get("box"))
+    throw InputError("potential", "", "one or more [[potential]] tables (with a shape), or a [box]", "", file_);
+  if (potential && (!potential->is_array_of_tables() || potential->as_array()->empty()))
     fail(*potential, "potential", "one or more [[potential]] tables (double brackets)");
   int index = 0;
-  for (const auto& term : *potential->as_array()) read_term(*term.as_table(), ++index, s);
+  if (potential)
+    for (const auto& term : *potential->as_array()) read_term(*term.as_table(), ++index, s);
 
   read_box_and_grid(root, s);
   read_spectrum(root, s);
@@ -1073,31 +1083,92 @@ Scenario read_scenario_text(std::string_view toml_text, std::string file_name) {
 
 Scenario read_scenario(const std::string& path) {
   std::ifstream in(path, std::ios::binary);
-  if (!in) throw InputError("", "", "cannot open the scenario file", "", path);
+  if (!in || fs::is_directory(path))
+    throw InputError("", "", fs::is_directory(path) ? "cannot open the scenario file: it is a folder"
+                                                    : "cannot open the scenario file", "", path);
   std::ostringstream text;
   text << in.rdbuf();
   return read_scenario_text(text.str(), path);
 }
 
-Protocol build_protocol(const Scenario& s) {
+namespace {
+
+bool is_wall(const std::string& address) { return address == "box.left" || address == "box.right"; }
+
+const ProtocolSpec& protocol_of(const Scenario& s) {
   if (!s.protocol)
     throw InputError("protocol", "", "a [protocol] table with duration and [[protocol.change]] tables", "",
                      s.file);
-  std::vector<Schedule> schedules;
-  for (const ChangeSpec& c : s.protocol->changes) {
-    const double from = c.from.value_or(s.potential.parameter(c.parameter));
-    switch (c.form) {
-      case ScheduleForm::constant: schedules.push_back(Schedule::constant(c.parameter, c.to)); break;
-      case ScheduleForm::linear: schedules.push_back(Schedule::linear(c.parameter, from, c.to)); break;
-      case ScheduleForm::smooth_step: schedules.push_back(Schedule::smooth_step(c.parameter, from, c.to)); break;
-      case ScheduleForm::smoother_step:
-        schedules.push_back(Schedule::smoother_step(c.parameter, from, c.to));
-        break;
-      case ScheduleForm::table: schedules.push_back(Schedule::table(c.parameter, c.times, c.values)); break;
-      case ScheduleForm::formula: schedules.push_back(Schedule::formula(c.parameter, c.internal_formula)); break;
-    }
+  return *s.protocol;
+}
+
+Schedule schedule_of(const Scenario& s, const ChangeSpec& c) {
+  const double from = c.from.value_or(parameter_value(s, c.parameter));
+  switch (c.form) {
+    case ScheduleForm::constant: return Schedule::constant(c.parameter, c.to);
+    case ScheduleForm::linear: return Schedule::linear(c.parameter, from, c.to);
+    case ScheduleForm::smooth_step: return Schedule::smooth_step(c.parameter, from, c.to);
+    case ScheduleForm::smoother_step: return Schedule::smoother_step(c.parameter, from, c.to);
+    case ScheduleForm::table: return Schedule::table(c.parameter, c.times, c.values);
+    case ScheduleForm::formula: return Schedule::formula(c.parameter, c.internal_formula);
   }
+  throw ContractViolation("schedule_of: unknown ramp");
+}
+
+}  // namespace
+
+double parameter_value(const Scenario& s, const std::string& address) {
+  if (is_wall(address) && s.spectrum.box) return address == "box.left" ? s.spectrum.box->first : s.spectrum.box->second;
+  return s.potential.parameter(address);
+}
+
+Protocol build_protocol(const Scenario& s) {
+  std::vector<Schedule> schedules;
+  for (const ChangeSpec& c : protocol_of(s).changes)
+    if (!is_wall(c.parameter)) schedules.push_back(schedule_of(s, c));
   return Protocol(s.protocol->duration, std::move(schedules));
+}
+
+bool moves_walls(const Scenario& s) {
+  return s.protocol && std::any_of(s.protocol->changes.begin(), s.protocol->changes.end(),
+                                   [](const ChangeSpec& c) { return is_wall(c.parameter); });
+}
+
+WallProtocol build_wall_protocol(const Scenario& s) {
+  const ProtocolSpec& spec = protocol_of(s);
+  TRAPWORK_EXPECT(s.spectrum.box.has_value(), "build_wall_protocol needs a [box]");
+  std::optional<Schedule> left, right;
+  for (const ChangeSpec& c : spec.changes)
+    if (is_wall(c.parameter)) (c.parameter == "box.left" ? left : right) = schedule_of(s, c);
+  if (!left) left = Schedule::constant("box.left", s.spectrum.box->first);
+  if (!right) right = Schedule::constant("box.right", s.spectrum.box->second);
+  return WallProtocol(spec.duration, *left, *right, s.potential, build_protocol(s).schedules());
+}
+
+WallWorkRequest wall_work_request(const Scenario& s) {
+  const WorkRequest r = work_request(s);
+  WallWorkRequest w;
+  w.initial = r.initial;
+  w.thermal_tolerance = r.thermal_tolerance;
+  w.max_initial_levels = r.max_initial_levels;
+  w.final_margin = r.final_margin;
+  // DST-I of n points runs as an FFT of 2 (n + 1): n + 1 with small prime factors only
+  w.points = fast_fft_size(s.spectrum.points.value_or(w.points) + 1) - 1;
+  w.steps = r.steps;
+  if (r.integrator == Integrator::eigenbasis)
+    throw InputError("work.integrator", "\"eigenbasis\"",
+                     "fourth_order or strang for moving walls (the dilated-box split-operator)", "", s.file);
+  w.order = r.integrator == Integrator::strang ? SplitOrder::strang : SplitOrder::fourth;
+  if (r.co_moving.value_or(false))
+    throw InputError("work.frame", "\"co_moving\"", "auto or lab for moving walls (the box is dilated instead)", "",
+                     s.file);
+  w.reverse_run = r.reverse_run;
+  w.time_step_check = r.time_step_check;
+  w.grid_check = r.grid_check;
+  w.merge_tolerance = r.merge_tolerance;
+  w.unresolved_tolerance = r.unresolved_tolerance;
+  w.spectrum = r.spectrum.options;
+  return w;
 }
 
 WorkRequest work_request(const Scenario& s) {
@@ -1124,7 +1195,12 @@ Scenario at_sweep_point(const Scenario& s, std::size_t index) {
       r.work->request.initial = InitialState::phonons(v);
       r.work->initial_given = "mean_phonons = " + w.given[index];
       break;
-    case SweepTarget::parameter: r.potential.set_parameter(w.address, v); break;
+    case SweepTarget::parameter:
+      if (is_wall(w.address))
+        (w.address == "box.left" ? r.spectrum.box->first : r.spectrum.box->second) = v;
+      else
+        r.potential.set_parameter(w.address, v);
+      break;
     case SweepTarget::change_to: r.protocol->changes[w.change].to = v; break;
   }
   return r;

@@ -36,6 +36,7 @@
 
 #include "potentials/potential.hpp"
 #include "potentials/protocol.hpp"
+#include "solver/moving_wall.hpp"
 #include "solver/spectrum.hpp"
 #include "solver/work.hpp"
 #include "solver/units.hpp"
@@ -147,6 +148,16 @@ std::string_view default_scenario_text();
 // current value. Throws InputError (file and key, no position) when the scenario has no
 // [protocol] or the schedules are unusable.
 Protocol build_protocol(const Scenario& s);
+// A parameter's value in the scenario: a potential parameter, or box.left / box.right.
+double parameter_value(const Scenario& s, const std::string& address);
+// Moving hard walls: a [protocol] that changes box.left or box.right. build_protocol then holds
+// the potential's schedules only, and build_wall_protocol the walls (a wall not changed stands
+// still) with the potential inside and its schedules; wall_work_request maps [initial] and
+// [work] onto run_wall_work (solver/moving_wall.hpp): [grid] points are the sine modes of the
+// dilated box; integrator eigenbasis and frame co_moving are refused (InputError).
+bool moves_walls(const Scenario& s);
+WallProtocol build_wall_protocol(const Scenario& s);
+WallWorkRequest wall_work_request(const Scenario& s);
 // The WorkRequest of a scenario: its [initial] and [work] settings and its grid/spectrum
 // request. Throws InputError naming the file when the scenario has no [initial].
 WorkRequest work_request(const Scenario& s);

@@ -1,9 +1,14 @@
 // `trapwork work`, `trapwork sweep` and `trapwork demo` (see commands.hpp).
 #include <atomic>
+#include <cmath>
+#include <cstdint>
+#include <cstdlib>
 #include <exception>
+#include <fstream>
 #include <iostream>
 #include <memory>
 #include <mutex>
+#include <sstream>
 #include <thread>
 #include <unistd.h>
 
@@ -36,19 +41,97 @@ void add_work_options(CLI::App* sub, std::string& output, bool& quiet) {
   sub->add_flag("--quiet", quiet, "print nothing but errors (no report, no progress bar)");
 }
 
+// ---- sweep points kept for --resume ------------------------------------------------------
+// sweep-points.txt beside sweep.csv holds every finished point in internal units, each number
+// in the shortest text that reads back to the same double, so a resumed sweep writes the same
+// sweep.csv as an uninterrupted one. Line 1: "trapwork sweep points <fingerprint>"; then one
+// line per point: its index in [sweep], the swept value and the other SweepRow numbers.
+
+// FNV-1a, 64 bit (Fowler, Noll and Vo; common practice for a non-cryptographic fingerprint)
+// of the scenario file's text and of the sweep values as read.
+std::string sweep_fingerprint(const Scenario& scenario) {
+  std::ifstream in(scenario.file, std::ios::binary);
+  std::ostringstream file_text;
+  file_text << in.rdbuf();
+  std::string text = file_text.str();
+  for (double v : scenario.sweep->values) text += "\n" + number_text(v);
+  std::uint64_t h = 14695981039346656037ull;
+  for (unsigned char c : text) h = (h ^ c) * 1099511628211ull;
+  char hex[17];
+  std::snprintf(hex, sizeof hex, "%016llx", static_cast<unsigned long long>(h));
+  return hex;
+}
+
+constexpr const char* points_header = "trapwork sweep points ";
+
+void write_sweep_points(std::ostream& out, const std::string& fingerprint,
+                        const std::vector<std::pair<std::size_t, SweepRow>>& done) {
+  out << points_header << fingerprint << '\n';
+  for (const auto& [i, r] : done) {
+    out << i;
+    for (double v : {r.value, r.mean, r.sd, r.skewness, r.free_energy_change, r.dissipated_work,
+                     r.jarzynski_residual, r.crooks_ratio_error, r.harmonic_mean, r.harmonic_sd, r.time_step_error,
+                     r.unresolved_weight, double(r.warnings)})
+      out << ' ' << number_text(v);
+    out << '\n';
+  }
+}
+
+// The finished points of an earlier run of the same scenario. Throws InputError naming the file
+// when it belongs to another scenario or is damaged.
+std::vector<std::pair<std::size_t, SweepRow>> read_sweep_points(const std::filesystem::path& file,
+                                                                const std::string& fingerprint,
+                                                                const SweepSpec& sweep) {
+  std::ifstream in(file);
+  std::string line;
+  std::getline(in, line);
+  if (line.rfind(points_header, 0) != 0)
+    throw InputError("", "", "not a list of sweep points written by trapwork sweep: remove it, or run without --resume",
+                     "", file.string(), 1);
+  const std::string found = line.substr(std::string(points_header).size());
+  if (found != fingerprint)
+    throw InputError("", "", "these sweep points belong to another scenario or another list of values (fingerprint " +
+                     found + ", this scenario " + fingerprint + "): use another output folder, or run without --resume",
+                     "", file.string(), 1);
+  std::vector<std::pair<std::size_t, SweepRow>> done;
+  std::vector<bool> seen(sweep.values.size(), false);
+  for (int number = 2; std::getline(in, line); ++number) {
+    std::istringstream fields(line);
+    std::size_t i = 0;
+    std::string v[13];
+    bool ok = bool(fields >> i);
+    for (auto& f : v) ok = ok && bool(fields >> f);
+    double x[13];
+    for (int k = 0; ok && k < 13; ++k) {
+      char* end = nullptr;
+      x[k] = std::strtod(v[k].c_str(), &end);  // reads nan and inf as number_text writes them
+      ok = *end == '\0';
+    }
+    // the value must be the one of that index, bit for bit (it was written as its exact text);
+    // the warning count a whole number (converting nan or a huge double to int is undefined)
+    ok = ok && x[12] >= 0 && x[12] <= 1e6 && x[12] == std::floor(x[12]);
+    if (!ok || i >= sweep.values.size() || seen[i] || !(x[0] == sweep.values[i]))
+      throw InputError("", line, "a finished sweep point (index, value and 12 numbers) of this scenario: remove the "
+                       "file, or run without --resume", "", file.string(), number);
+    seen[i] = true;
+    done.push_back({i, SweepRow{x[0], x[1], x[2], x[3], x[4], x[5], x[6], x[7], x[8], x[9], x[10], x[11],
+                                int(x[12])}});
+  }
+  return done;
+}
+
 }  // namespace
 
 void run_work_command(const WorkCommand& command, std::ostream& out, std::ostream& progress) {
   Scenario scenario = load_scenario(command.scenario);
   if (!command.output.empty()) scenario.output_folder = command.output;
-  const Protocol protocol = build_protocol(scenario);
+  (void)build_protocol(scenario);  // a missing [protocol] is reported before a missing [initial]
   WorkRequest request = work_request(scenario);
   ProgressBar bar("propagating", 1000, progress, command.show_progress);
   request.progress = [&bar](double fraction) { bar.update(std::size_t(fraction * 1000)); };
-  const WorkResult result =
-      naming_scenario(scenario.file, [&] { return run_work(scenario.potential, protocol, request); });
+  const ScenarioWork work = naming_scenario(scenario.file, [&] { return compute_work(scenario, request); });
   bar.finish();
-  const WorkRun run{scenario, protocol, request, result};
+  const WorkRun run = work.run(scenario);
   const auto files = write_work_outputs(scenario.output_folder, run);
   if (command.quiet) return;
   print_work_report(out, run);
@@ -105,30 +188,55 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
   const std::filesystem::path folder = scenario.output_folder;
   std::filesystem::create_directories(folder);
 
+  // --resume: the points an earlier run of the same scenario finished are kept, the rest run.
+  const std::string fingerprint = sweep_fingerprint(scenario);
+  const std::filesystem::path points_file = folder / "sweep-points.txt";
+  std::vector<std::pair<std::size_t, SweepRow>> done;  // (index in [sweep], row), guarded by mutex
+  if (command.resume && std::filesystem::exists(points_file)) done = read_sweep_points(points_file, fingerprint, sweep);
+  const std::size_t resumed = done.size();
+  std::vector<std::size_t> todo;  // unfinished indices, in [sweep] order
+  {
+    std::vector<bool> finished(points, false);
+    for (const auto& d : done) finished[d.first] = true;
+    for (std::size_t i = 0; i < points; ++i)
+      if (!finished[i]) todo.push_back(i);
+  }
+  // The points first (the record --resume reads), then sweep.csv made from them: a kill
+  // between the two leaves sweep.csv one point behind, which the resumed run rewrites.
+  auto write_done = [&] {
+    write_file_atomically(points_file, [&](std::ostream& o) { write_sweep_points(o, fingerprint, done); });
+    std::vector<SweepRow> finished_rows;
+    for (const auto& d : done) finished_rows.push_back(d.second);
+    CsvTable table = sweep_table(scenario, finished_rows, points);
+    table.comments.push_back("scenario fingerprint " + fingerprint +
+                             " (FNV-1a of the scenario file and the sweep values); sweep-points.txt keeps the "
+                             "finished points for trapwork sweep --resume");
+    write_file_atomically(folder / "sweep.csv", [&](std::ostream& o) { write_csv(o, table); });
+  };
+  if (resumed > 0) write_done();
+
   ProgressBar bar("sweep points", points, progress, command.show_progress);
-  bar.update(0);
-  std::mutex mutex;  // guards rows, error and the sweep.csv rewrite
-  std::vector<SweepRow> rows;
+  bar.update(resumed);
+  std::mutex mutex;  // guards done, error and the file rewrites
   std::exception_ptr error;
   std::atomic<std::size_t> next{0};
   std::atomic<bool> stop{false};
   auto worker = [&] {
-    for (std::size_t i; !stop && (i = next++) < points;) {
+    for (std::size_t k; !stop && (k = next++) < todo.size();) {
+      const std::size_t i = todo[k];
       try {
         // Each point has its own potential, protocol and request (one FFTW thread each).
         const Scenario point = at_sweep_point(scenario, i);
-        const Protocol protocol = build_protocol(point);
         WorkRequest request = work_request(point);
         request.threads = 1;
-        const WorkResult result = naming_scenario(
+        const ScenarioWork work = naming_scenario(
             scenario.file + ": sweep point " + sweep.parameter + " = " + sweep.given[i],
-            [&] { return run_work(point.potential, protocol, request); });
-        const SweepRow row = sweep_row(WorkRun{point, protocol, request, result}, sweep.values[i]);
+            [&] { return compute_work(point, request); });
+        const SweepRow row = sweep_row(work.run(point), sweep.values[i]);
         std::lock_guard lock(mutex);
-        rows.push_back(row);
-        const CsvTable table = sweep_table(scenario, rows, points);
-        write_file_atomically(folder / "sweep.csv", [&](std::ostream& o) { write_csv(o, table); });
-        bar.update(rows.size());
+        done.push_back({i, row});
+        write_done();
+        bar.update(done.size());
       } catch (...) {
         std::lock_guard lock(mutex);
         if (!error) error = std::current_exception();
@@ -137,18 +245,23 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
     }
   };
   std::vector<std::thread> threads;
-  for (std::size_t j = 0; j < jobs; ++j) threads.emplace_back(worker);
+  for (std::size_t j = 0; j < std::min(jobs, todo.size()); ++j) threads.emplace_back(worker);
   for (auto& t : threads) t.join();
   if (error) std::rethrow_exception(error);
   bar.finish();
+  std::vector<SweepRow> rows;
+  for (const auto& d : done) rows.push_back(d.second);
 
-  std::vector<std::filesystem::path> files = {folder / "sweep.csv"};
+  std::vector<std::filesystem::path> files = {folder / "sweep.csv", points_file};
   for (const auto& p : plot_sweep_figure(folder, scenario, rows)) files.push_back(p);
   if (command.quiet) return;
 
   print_scenario_header(out, "sweep", scenario);
   print_row(out, "sweep", sweep.parameter + ", " + std::to_string(points) + " points, " + std::to_string(jobs) +
                               " at a time");
+  if (command.resume)
+    print_row(out, "resumed", std::to_string(resumed) + " of " + std::to_string(points) + " points from " +
+                                  points_file.string() + ", " + std::to_string(todo.size()) + " computed now");
   std::sort(rows.begin(), rows.end(), [](const SweepRow& a, const SweepRow& b) { return a.value < b.value; });
   const Display d = display(scenario);
   char line[220];
@@ -183,6 +296,9 @@ void add_sweep_command(CLI::App& app) {
   add_work_options(sub, command->output, command->quiet);
   sub->add_option("--jobs", command->jobs, "points run at the same time (default: the number of cores)")
       ->check(CLI::Range(1, 4096));
+  sub->add_flag("--resume", command->resume,
+                "keep the points an interrupted run of the same scenario finished (sweep-points.txt in the output "
+                "folder) and compute only the rest");
   sub->callback([command] {
     SweepCommand c = *command;
     c.show_progress = !c.quiet && ProgressBar::terminal_allows();

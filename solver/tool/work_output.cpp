@@ -70,7 +70,7 @@ std::string potential_value_text(const Scenario& s, const ChangeSpec& c) {
     if (t.name == term)
       for (const auto& p : t.parameters)
         if (p.name == name) return p.given;
-  return lab_text(s, s.potential.parameter(c.parameter), c.dimension);
+  return lab_text(s, parameter_value(s, c.parameter), c.dimension);
 }
 
 std::string unquoted(const std::string& text) {
@@ -179,6 +179,15 @@ std::optional<std::pair<double, double>> constant_speed_translation(const Scenar
 }
 
 }  // namespace
+
+ScenarioWork compute_work(const Scenario& s, WorkRequest request) {
+  ScenarioWork w{build_protocol(s), std::move(request), std::nullopt, {}};
+  if (moves_walls(s))
+    w.walls = run_wall_work(build_wall_protocol(s), wall_work_request(s));
+  else
+    w.plain = run_work(s.potential, w.protocol, w.request);
+  return w;
+}
 
 double lowest_spacing(const WorkResult& result) {
   const auto& e = result.initial_spectrum.energies;
@@ -353,6 +362,33 @@ CsvTable characteristic_table(const WorkRun& run) {
   return t;
 }
 
+namespace {
+
+double wall_speed_si(const Scenario& s, double internal) {
+  return internal * s.units.length_m / s.units.time_s();
+}
+
+// Moving walls: the exact references (null where they do not apply), display energy units.
+nlohmann::ordered_json walls_json(const WorkRun& run) {
+  if (!run.walls) return nullptr;
+  const Display d = display(run.scenario);
+  nlohmann::ordered_json j = {{"grid_line_change", number_or_null(run.walls->grid_line_change)},
+                              {"doescher_rice", nullptr},
+                              {"sudden_expansion", nullptr}};
+  if (const auto& c = run.walls->doescher_rice)
+    j["doescher_rice"] = {{"wall_speed_m_per_s", wall_speed_si(run.scenario, c->speed)},
+                          {"mean_work", d.energy(c->mean_work)},
+                          {"mean_work_difference", d.energy(c->mean_work_difference)},
+                          {"max_line_difference", c->max_line_difference}};
+  if (const auto& s = run.walls->sudden)
+    j["sudden_expansion"] = {{"mean_exp_minus_beta_work", s->average},
+                             {"partition_ratio", s->partition_ratio},
+                             {"ratio", s->ratio}};
+  return j;
+}
+
+}  // namespace
+
 json work_summary(const WorkRun& run) {
   const Scenario& s = run.scenario;
   const WorkResult& r = run.result;
@@ -453,6 +489,7 @@ json work_summary(const WorkRun& run) {
         {"reverse_thermal_tail", g.truncation.reverse_thermal_tail}}},
       {"crooks", crooks},
       {"harmonic", harmonic},
+      {"walls", walls_json(run)},
       {"diagnostics",
        {{"norm_drift", g.norm_drift},
         {"unresolved_weight", g.unresolved_weight},
@@ -577,6 +614,7 @@ std::vector<fs::path> write_work_outputs(const fs::path& folder, const WorkRun& 
   return files;
 }
 
+
 void print_work_report(std::ostream& out, const WorkRun& run) {
   const Scenario& s = run.scenario;
   const WorkResult& r = run.result;
@@ -631,6 +669,24 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
     const double diff = d.mean - h.mean_work;
     row("departure", "<W> - <W>_harm = " + e.text(diff, 4) + " (" + short_number(100 * diff / h.mean_work, 3) + " %)");
     row("lines", "max |P(m->n) - P_harm(m->n)| = " + short_number(h.max_line_difference, 3));
+  } else if (run.walls) {
+    const WallWorkResult& w = *run.walls;
+    if (!std::isnan(w.grid_line_change))
+      out << "\nmoving walls: max |dP(m->n)| with twice the points = " << short_number(w.grid_line_change, 3) << "\n";
+    if (w.doescher_rice) {
+      const auto& c = *w.doescher_rice;
+      out << "\nexact reference: a wall at constant speed in a flat box (Doescher & Rice 1969)\n";
+      row("wall speed", short_number(wall_speed_si(run.scenario, c.speed) * 1e3, 6) + " mm/s");
+      row("<W> exact", e.text(c.mean_work));
+      row("departure", "<W> - <W>_exact = " + e.text(c.mean_work_difference, 3));
+      row("lines", "max |P(m->n) - P_exact(m->n)| = " + short_number(c.max_line_difference, 3));
+    } else if (w.sudden) {
+      out << "\nsudden expansion: the Jarzynski equality fails (the Hilbert space changes at once)\n";
+      row("<e^-bW>", short_number(w.sudden->average, 10) + " over all initial levels (closed form)");
+      row("Z_B/Z_A", short_number(w.sudden->partition_ratio, 10) + ", ratio " + short_number(w.sudden->ratio, 6));
+    } else {
+      out << "\nexact reference: none (the walls do not move at constant speed through a flat box)\n";
+    }
   } else {
     out << "\nharmonic reference: none (the protocol is neither a rigid translation nor a change of the one "
            "harmonic frequency)\n";

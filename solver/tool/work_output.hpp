@@ -27,7 +27,21 @@ struct WorkRun {
   const Protocol& protocol;
   const WorkRequest& request;
   const WorkResult& result;
+  const WallWorkResult* walls = nullptr;  // moving walls: the exact references (Doescher-Rice, sudden)
 };
+
+// The work calculation of one scenario: run_work, or run_wall_work when the protocol moves a
+// wall of the [box] (moves_walls). `request` is work_request(s), possibly adjusted (threads,
+// progress).
+struct ScenarioWork {
+  Protocol protocol;  // build_protocol(s): the potential's schedules
+  WorkRequest request;
+  std::optional<WallWorkResult> walls;
+  WorkResult plain;
+  const WorkResult& result() const { return walls ? walls->work : plain; }
+  WorkRun run(const Scenario& s) const { return {s, protocol, request, result(), walls ? &*walls : nullptr}; }
+};
+ScenarioWork compute_work(const Scenario& s, WorkRequest request);
 
 // Lowest level spacing E_1 - E_0 of H_A (internal energy; NaN with one level).
 double lowest_spacing(const WorkResult& result);

@@ -1,0 +1,514 @@
+// Readers of measured data files (see data_files.hpp).
+#include "solver/tool/data_files.hpp"
+
+#include <charconv>
+#include <cmath>
+#include <fstream>
+#include <map>
+#include <sstream>
+
+#include "solver/errors.hpp"
+#include "solver/units.hpp"
+
+namespace trapwork {
+
+namespace {
+
+struct Field {
+  std::string text;
+  int column = 0;  // 1-based character where the field starts
+};
+struct Row {
+  int line = 0;
+  std::vector<Field> fields;
+};
+
+// A directive comment ("# unit: h*kHz") as found.
+struct Directive {
+  std::string text;
+  int line = 0, column = 0;
+};
+
+// The file split into header and rows, before any column is interpreted.
+struct Table {
+  std::string file;
+  int header_line = 0;
+  std::vector<Field> names;
+  std::vector<Row> rows;
+  std::optional<Directive> unit, resolution;
+};
+
+bool is_blank(char c) {
+  return c == ' ' || c == '\t' || c == '\r' || c == '\v' || c == '\f';
+}
+
+std::string trimmed(std::string_view s) {
+  std::size_t a = 0, b = s.size();
+  while (a < b && is_blank(s[a])) ++a;
+  while (b > a && is_blank(s[b - 1])) --b;
+  return std::string(s.substr(a, b - a));
+}
+
+std::vector<Field> split_fields(std::string_view line, bool commas) {
+  std::vector<Field> out;
+  if (commas) {
+    std::size_t start = 0;
+    while (true) {
+      const std::size_t end = std::min(line.find(',', start), line.size());
+      std::size_t first = start;
+      while (first < end && is_blank(line[first])) ++first;
+      out.push_back({trimmed(line.substr(start, end - start)), int(first) + 1});
+      if (end == line.size()) break;
+      start = end + 1;
+    }
+  } else {
+    std::size_t i = 0;
+    while (i < line.size()) {
+      while (i < line.size() && is_blank(line[i])) ++i;
+      if (i == line.size()) break;
+      const std::size_t first = i;
+      while (i < line.size() && !is_blank(line[i])) ++i;
+      out.push_back({std::string(line.substr(first, i - first)), int(first) + 1});
+    }
+  }
+  return out;
+}
+
+// "# unit: h*kHz" -> the text after "unit:" when the comment starts with `word` and ':'.
+std::optional<Directive> directive(std::string_view comment, std::string_view word, int line, int offset) {
+  std::size_t i = 0;
+  while (i < comment.size() && is_blank(comment[i])) ++i;
+  if (comment.substr(i, word.size()) != word) return std::nullopt;
+  std::size_t j = i + word.size();
+  while (j < comment.size() && is_blank(comment[j])) ++j;
+  if (j >= comment.size() || comment[j] != ':') return std::nullopt;
+  ++j;
+  while (j < comment.size() && is_blank(comment[j])) ++j;
+  return Directive{trimmed(comment.substr(j)), line, offset + int(j) + 1};
+}
+
+Table parse_table(std::string_view text, const std::string& file) {
+  Table t;
+  t.file = file;
+  bool commas = false;
+  int line_number = 0;
+  std::size_t start = 0;
+  while (start <= text.size()) {
+    const std::size_t end = std::min(text.find('\n', start), text.size());
+    std::string_view line = text.substr(start, end - start);
+    ++line_number;
+    start = end + 1;
+    if (!line.empty() && line.back() == '\r') line.remove_suffix(1);
+    const std::size_t hash = line.find('#');
+    if (hash != std::string_view::npos) {
+      const std::string_view before = line.substr(0, hash);
+      if (trimmed(before).empty()) {  // a whole comment line: may hold a directive
+        const std::string_view comment = line.substr(hash + 1);
+        const int offset = int(hash) + 1;
+        for (auto [word, slot] : {std::pair{"unit", &t.unit}, std::pair{"resolution", &t.resolution}}) {
+          auto d = directive(comment, word, line_number, offset);
+          if (!d) continue;
+          if (*slot)
+            throw InputError(word, d->text,
+                             "given twice (first on line " + std::to_string((*slot)->line) + "); keep one",
+                             "", file, line_number, d->column);
+          *slot = *d;
+        }
+        continue;
+      }
+      line = before;
+    }
+    if (trimmed(line).empty()) {
+      if (end == text.size()) break;
+      continue;
+    }
+    if (t.header_line == 0) {
+      commas = line.find(',') != std::string_view::npos;
+      t.header_line = line_number;
+      t.names = split_fields(line, commas);
+    } else {
+      t.rows.push_back({line_number, split_fields(line, commas)});
+    }
+    if (end == text.size()) break;
+  }
+  if (t.header_line == 0)
+    throw InputError("", "", "an empty data file: expected a header line with column names, then data rows", "",
+                     file);
+  std::map<std::string, int> seen;
+  for (const auto& n : t.names) {
+    if (n.text.empty())
+      throw InputError("", "", "an empty column name in the header", "", file, t.header_line, n.column);
+    if (seen.count(n.text))
+      throw InputError(n.text, "", "a column named twice in the header (first at column " +
+                                       std::to_string(seen[n.text]) + ")",
+                       "", file, t.header_line, n.column);
+    seen[n.text] = n.column;
+  }
+  if (t.rows.empty())
+    throw InputError("", "", "no data rows after the header on line " + std::to_string(t.header_line), "", file);
+  for (const auto& r : t.rows)
+    if (r.fields.size() != t.names.size()) {
+      const int column = r.fields.size() > t.names.size() ? r.fields[t.names.size()].column : 0;
+      throw InputError("", std::to_string(r.fields.size()) + " fields",
+                       std::to_string(t.names.size()) + " fields, one per column of the header on line " +
+                           std::to_string(t.header_line),
+                       "", file, r.line, column);
+    }
+  return t;
+}
+
+// ---- columns ---------------------------------------------------------------------------
+
+enum class ColumnType { integer, number, quantity, keep };
+
+struct ColumnSpec {
+  std::string base;  // "work", "lower", "count"
+  ColumnType type = ColumnType::number;
+  Dimension dimension;  // quantity columns
+  bool required = true;
+  bool main = false;    // takes the "# unit:" comment when the name has no unit
+  std::string example;  // "work_h_kHz"
+};
+
+// A header column matched to its spec, with the SI value of one unit for quantities.
+struct BoundColumn {
+  const ColumnSpec* spec = nullptr;
+  int index = -1;  // field index
+  std::string name;
+  double si_per_unit = 1;
+  std::string unit;
+};
+
+const char* quantity_examples(const Dimension& d) {
+  if (d == Dimension::energy()) return "an energy unit such as h*kHz, h*MHz, h*Hz, kB*uK, meV or J";
+  if (d == Dimension::frequency()) return "a frequency unit such as Hz, kHz or MHz";
+  return "a force unit such as h*kHz/um, h*Hz/nm or N";
+}
+
+// SI value of "1 <unit>", checked against the dimension; errors point at `where`.
+double unit_value(const std::string& unit, const Dimension& d, const std::string& key, const Table& t, int line,
+                  int column) {
+  Quantity q;
+  try {
+    q = parse_quantity("1 " + unit);
+  } catch (const InputError& e) {
+    throw InputError(key, unit, std::string("an unknown unit: expected ") + quantity_examples(d), e.suggestion,
+                     t.file, line, column);
+  }
+  if (q.plain || !(q.dimension == d) || !(q.si_value > 0) || !std::isfinite(q.si_value))
+    throw InputError(key, unit, std::string("not ") + with_article(d) + " unit: expected " + quantity_examples(d),
+                     "", t.file, line, column);
+  return q.si_value;
+}
+
+std::map<std::string, BoundColumn> bind_columns(const Table& t, const std::vector<ColumnSpec>& specs,
+                                                const std::string& kind) {
+  std::vector<std::string> candidates;
+  std::string listing;
+  for (const auto& s : specs) {
+    candidates.push_back(s.type == ColumnType::quantity ? s.example : s.base);
+    listing += (listing.empty() ? "" : ", ") + (s.type == ColumnType::quantity ? s.base + "_<unit>" : s.base) +
+               (s.required ? "" : " (optional)");
+  }
+  std::map<std::string, BoundColumn> bound;
+  for (std::size_t i = 0; i < t.names.size(); ++i) {
+    const Field& name = t.names[i];
+    const ColumnSpec* match = nullptr;
+    std::string unit;
+    for (const auto& s : specs) {
+      if (name.text == s.base) {
+        match = &s;
+        break;
+      }
+      if (s.type == ColumnType::quantity && name.text.size() > s.base.size() + 1 &&
+          name.text.compare(0, s.base.size() + 1, s.base + "_") == 0) {
+        match = &s;
+        unit = name.text.substr(s.base.size() + 1);
+        for (char& c : unit)
+          if (c == '_') c = '*';
+        break;
+      }
+    }
+    if (!match)
+      throw InputError(name.text, "", "not a column of a " + kind + " file; its columns are " + listing,
+                       closest_name(name.text, candidates, 3), t.file, t.header_line, name.column);
+    if (bound.count(match->base))
+      throw InputError(name.text, "", "a second " + match->base + " column (the first is " +
+                                          bound[match->base].name + ")",
+                       "", t.file, t.header_line, name.column);
+    BoundColumn b{match, int(i), name.text, 1, ""};
+    if (match->type == ColumnType::quantity) {
+      if (!unit.empty()) {
+        b.si_per_unit = unit_value(unit, match->dimension, name.text, t, t.header_line, name.column);
+        b.unit = unit;
+      } else if (match->main && t.unit) {
+        b.si_per_unit = unit_value(t.unit->text, match->dimension, "unit", t, t.unit->line, t.unit->column);
+        b.unit = t.unit->text;
+      } else {
+        throw InputError(name.text, "",
+                         "a column without its unit: name it with the unit, e.g. " + match->example +
+                             (match->main ? ", or add a comment line '# unit: <unit>'" : ""),
+                         "", t.file, t.header_line, name.column);
+      }
+    }
+    bound[match->base] = b;
+  }
+  for (const auto& s : specs)
+    if (s.required && !bound.count(s.base))
+      throw InputError(s.type == ColumnType::quantity ? s.example : s.base, "",
+                       "a required column is missing from the header (a " + kind + " file has the columns " +
+                           listing + ")",
+                       "", t.file, t.header_line, 0);
+  return bound;
+}
+
+[[noreturn]] void bad_field(const Table& t, const Row& r, const BoundColumn& c, const std::string& expected) {
+  const Field& f = r.fields[std::size_t(c.index)];
+  throw InputError(c.name, f.text.empty() ? "(empty)" : f.text, expected, "", t.file, r.line, f.column);
+}
+
+double number_field(const Table& t, const Row& r, const BoundColumn& c) {
+  std::string_view s = r.fields[std::size_t(c.index)].text;
+  if (!s.empty() && s.front() == '+') s.remove_prefix(1);
+  double v = 0;
+  const auto [end, ec] = std::from_chars(s.data(), s.data() + s.size(), v);
+  if (s.empty() || ec != std::errc() || end != s.data() + s.size()) bad_field(t, r, c, "a number");
+  if (!std::isfinite(v)) bad_field(t, r, c, "a finite number");
+  return v;
+}
+
+double quantity_field(const Table& t, const Row& r, const BoundColumn& c) {
+  const double v = number_field(t, r, c) * c.si_per_unit;
+  if (!std::isfinite(v)) bad_field(t, r, c, "a finite number (too large in " + c.unit + ")");
+  return v;
+}
+
+int integer_field(const Table& t, const Row& r, const BoundColumn& c, const std::string& expected) {
+  std::string_view s = r.fields[std::size_t(c.index)].text;
+  if (!s.empty() && s.front() == '+') s.remove_prefix(1);
+  int v = 0;
+  const auto [end, ec] = std::from_chars(s.data(), s.data() + s.size(), v);
+  if (s.empty() || ec != std::errc() || end != s.data() + s.size() || v < 0) bad_field(t, r, c, expected);
+  return v;
+}
+
+// Whether the row is kept (no keep column: every row).
+bool kept(const Table& t, const Row& r, const std::map<std::string, BoundColumn>& columns, DataFileInfo& info) {
+  const auto it = columns.find("keep");
+  if (it == columns.end()) return true;
+  const std::string& s = r.fields[std::size_t(it->second.index)].text;
+  if (s == "1") return true;
+  if (s == "0") {
+    ++info.skipped_rows;
+    info.skipped_lines.push_back(r.line);
+    return false;
+  }
+  bad_field(t, r, it->second, "1 (use the row) or 0 (a run the experiment rejected)");
+}
+
+DataFileInfo info_of(const Table& t, const std::map<std::string, BoundColumn>& columns, const std::string& main) {
+  DataFileInfo info;
+  info.file = t.file;
+  for (const auto& n : t.names) info.columns.push_back(n.text);
+  const auto it = columns.find(main);
+  if (it != columns.end()) info.unit = it->second.unit;
+  if (t.resolution) {
+    Quantity q;
+    try {
+      q = parse_quantity(t.resolution->text);
+    } catch (const InputError& e) {
+      throw InputError("resolution", t.resolution->text, "an energy such as \"0.4 h*kHz\" (sigma of the work values)",
+                       e.suggestion, t.file, t.resolution->line, t.resolution->column);
+    }
+    if (q.plain || !(q.dimension == Dimension::energy()) || !(q.si_value >= 0) || !std::isfinite(q.si_value))
+      throw InputError("resolution", t.resolution->text,
+                       "an energy >= 0 with its unit, such as \"0.4 h*kHz\" (sigma of the work values)", "", t.file,
+                       t.resolution->line, t.resolution->column);
+    info.resolution_J = q.si_value;
+  }
+  return info;
+}
+
+void require_rows(const Table& t, const DataFileInfo& info) {
+  if (info.rows == 0)
+    throw InputError("keep", "", "no rows left: every one of the " + std::to_string(info.skipped_rows) +
+                                     " data rows has keep = 0",
+                     "", t.file);
+}
+
+ColumnSpec energy_column(const std::string& base, bool main = true) {
+  return {base, ColumnType::quantity, Dimension::energy(), true, main, base + "_h_kHz"};
+}
+const ColumnSpec keep_column{"keep", ColumnType::keep, {}, false, false, "keep"};
+
+WorkSamplesData samples_from(const Table& t) {
+  static const std::vector<ColumnSpec> specs = {energy_column("work"), keep_column};
+  const auto columns = bind_columns(t, specs, "work samples");
+  WorkSamplesData d;
+  d.info = info_of(t, columns, "work");
+  const BoundColumn& work = columns.at("work");
+  for (const Row& r : t.rows) {
+    const double w = quantity_field(t, r, work);  // checked before keep: a rejected row must still be well formed
+    if (!kept(t, r, columns, d.info)) continue;
+    d.work_J.push_back(w);
+    d.lines.push_back(r.line);
+  }
+  d.info.rows = int(d.work_J.size());
+  require_rows(t, d.info);
+  return d;
+}
+
+LevelPairsData pairs_from(const Table& t) {
+  static const std::vector<ColumnSpec> specs = {{"initial", ColumnType::integer, {}, true, false, "initial"},
+                                                {"final", ColumnType::integer, {}, true, false, "final"},
+                                                keep_column};
+  const auto columns = bind_columns(t, specs, "level pairs");
+  LevelPairsData d;
+  d.info = info_of(t, columns, "");
+  const std::string expected = "a level index: a whole number >= 0 (0 is the ground level)";
+  for (const Row& r : t.rows) {
+    const LevelPair p{integer_field(t, r, columns.at("initial"), expected),
+                      integer_field(t, r, columns.at("final"), expected)};
+    if (!kept(t, r, columns, d.info)) continue;
+    d.runs.push_back(p);
+    d.lines.push_back(r.line);
+  }
+  d.info.rows = int(d.runs.size());
+  require_rows(t, d.info);
+  return d;
+}
+
+WorkHistogramData histogram_from(const Table& t) {
+  // No keep column: a binned run cannot be rejected any more.
+  static const std::vector<ColumnSpec> specs = {energy_column("lower"), energy_column("upper"),
+                                                {"count", ColumnType::number, {}, true, false, "count"}};
+  const auto columns = bind_columns(t, specs, "histogram");
+  WorkHistogramData d;
+  d.info = info_of(t, columns, "lower");
+  const BoundColumn &lower = columns.at("lower"), &upper = columns.at("upper"), &count = columns.at("count");
+  for (const Row& r : t.rows) {
+    const double lo = quantity_field(t, r, lower), hi = quantity_field(t, r, upper);
+    const double c = number_field(t, r, count);
+    if (!(hi > lo)) bad_field(t, r, upper, "an upper edge above the lower edge of the bin");
+    if (!d.edges_J.empty() && lo != d.edges_J.back())
+      bad_field(t, r, lower,
+                "the upper edge of the previous bin: bins must be contiguous and ascending (give empty bins a "
+                "count of 0)");
+    if (c < 0) bad_field(t, r, count, "a count >= 0");
+    if (c != std::floor(c)) bad_field(t, r, count, "a whole number of runs");
+    if (d.edges_J.empty()) d.edges_J.push_back(lo);
+    d.edges_J.push_back(hi);
+    d.counts.push_back(c);
+  }
+  d.info.rows = int(d.counts.size());
+  return d;
+}
+
+TransitionLinesData transitions_from(const Table& t) {
+  static const std::vector<ColumnSpec> specs = {
+      {"lower", ColumnType::integer, {}, true, false, "lower"},
+      {"upper", ColumnType::integer, {}, true, false, "upper"},
+      {"frequency", ColumnType::quantity, Dimension::frequency(), true, true, "frequency_kHz"},
+      {"uncertainty", ColumnType::quantity, Dimension::frequency(), true, true, "uncertainty_kHz"},
+      {"force", ColumnType::quantity, Dimension::energy_per_length(1), false, false, "force_h_kHz/um"},
+      keep_column};
+  const auto columns = bind_columns(t, specs, "transition lines");
+  TransitionLinesData d;
+  d.info = info_of(t, columns, "frequency");
+  const std::string expected = "a level index: a whole number >= 0 (0 is the ground level)";
+  for (const Row& r : t.rows) {
+    MeasuredTransition m;
+    m.line = r.line;
+    m.lower = integer_field(t, r, columns.at("lower"), expected);
+    m.upper = integer_field(t, r, columns.at("upper"), expected);
+    if (m.upper <= m.lower) bad_field(t, r, columns.at("upper"), "a level above lower (" + std::to_string(m.lower) + ")");
+    m.frequency_Hz = quantity_field(t, r, columns.at("frequency"));
+    if (!(m.frequency_Hz > 0)) bad_field(t, r, columns.at("frequency"), "a transition frequency > 0");
+    m.uncertainty_Hz = quantity_field(t, r, columns.at("uncertainty"));
+    if (!(m.uncertainty_Hz > 0)) bad_field(t, r, columns.at("uncertainty"), "a standard uncertainty > 0");
+    if (columns.count("force")) m.force_N = quantity_field(t, r, columns.at("force"));
+    if (!kept(t, r, columns, d.info)) continue;
+    d.transitions.push_back(m);
+  }
+  d.info.rows = int(d.transitions.size());
+  require_rows(t, d.info);
+  return d;
+}
+
+std::string read_text(const std::string& path) {
+  std::ifstream in(path, std::ios::binary);
+  if (!in) throw InputError("", "", "cannot open the data file", "", path);
+  std::ostringstream text;
+  text << in.rdbuf();
+  return text.str();
+}
+
+}  // namespace
+
+WorkSamplesData read_work_samples_text(std::string_view text, const std::string& file_name) {
+  return samples_from(parse_table(text, file_name));
+}
+WorkSamplesData read_work_samples(const std::string& path) {
+  return read_work_samples_text(read_text(path), path);
+}
+
+LevelPairsData read_level_pairs_text(std::string_view text, const std::string& file_name) {
+  return pairs_from(parse_table(text, file_name));
+}
+LevelPairsData read_level_pairs(const std::string& path) {
+  return read_level_pairs_text(read_text(path), path);
+}
+
+WorkHistogramData read_work_histogram_text(std::string_view text, const std::string& file_name) {
+  return histogram_from(parse_table(text, file_name));
+}
+WorkHistogramData read_work_histogram(const std::string& path) {
+  return read_work_histogram_text(read_text(path), path);
+}
+
+TransitionLinesData read_transition_lines_text(std::string_view text, const std::string& file_name) {
+  return transitions_from(parse_table(text, file_name));
+}
+TransitionLinesData read_transition_lines(const std::string& path) {
+  return read_transition_lines_text(read_text(path), path);
+}
+
+const DataFileInfo& WorkData::info() const {
+  switch (kind) {
+    case WorkDataKind::samples: return samples.info;
+    case WorkDataKind::level_pairs: return pairs.info;
+    case WorkDataKind::histogram: return histogram.info;
+  }
+  return samples.info;
+}
+
+WorkData read_work_data_text(std::string_view text, const std::string& file_name) {
+  const Table t = parse_table(text, file_name);
+  bool work = false, pairs = false, bins = false;
+  for (const auto& n : t.names) {
+    work = work || n.text == "work" || n.text.rfind("work_", 0) == 0;
+    pairs = pairs || n.text == "initial" || n.text == "final";
+    bins = bins || n.text == "count";
+  }
+  WorkData d;
+  if (int(work) + int(pairs) + int(bins) != 1)
+    throw InputError("", "", "a header that fits no kind of work data: expected work samples (work_<unit>), "
+                             "level pairs (initial, final) or a histogram (lower_<unit>, upper_<unit>, count)",
+                     "", file_name, t.header_line, 1);
+  if (work) {
+    d.kind = WorkDataKind::samples;
+    d.samples = samples_from(t);
+  } else if (pairs) {
+    d.kind = WorkDataKind::level_pairs;
+    d.pairs = pairs_from(t);
+  } else {
+    d.kind = WorkDataKind::histogram;
+    d.histogram = histogram_from(t);
+  }
+  return d;
+}
+WorkData read_work_data(const std::string& path) {
+  return read_work_data_text(read_text(path), path);
+}
+
+}  // namespace trapwork

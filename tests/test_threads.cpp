@@ -1,0 +1,161 @@
+// Thread independence and reproducibility of the work statistics: the FFTW thread count of
+// run_work, the number of sweep points run at once, and a repeated run must not change the
+// numbers beyond rounding.
+//
+// Tolerance 1e-12 (absolute, on probabilities and on work values and moments in internal
+// energy units, which are of order one here): two FFT plans (one thread or two) differ only in
+// the order of their sums, a few eps per transform; over a propagation of a few thousand steps
+// these differences add up to at most steps * few eps, about 1e-12 (common practice for a
+// rounding budget that grows linearly with the number of operations).
+// output.hpp before <sys/wait.h>, whose si_value macro would clash with Quantity::si_value
+#include "solver/tool/output.hpp"
+
+#include <sys/wait.h>
+
+#include <catch2/catch.hpp>
+#include <cmath>
+#include <filesystem>
+#include <fstream>
+#include <sstream>
+#include <string>
+#include <vector>
+
+#include "scratch_files.hpp"
+#include "solver/tool/scenario.hpp"
+#include "solver/work.hpp"
+
+using namespace trapwork;
+namespace fs = std::filesystem;
+
+namespace {
+constexpr double tolerance = 1e-12;  // see the file comment
+
+// A 40 u ion in a 1 MHz trap with a small quartic term, thermal with 0.5 phonons, moved by
+// 30 nm in 1.5 us: anharmonic, so the lines are not merged into a few harmonic ones.
+const std::string scenario_text = R"(title = "threads"
+[particle]
+mass = "40 u"
+[[potential]]
+name = "trap"
+shape = "polynomial"
+frequency = "1 MHz"
+quartic = "0.01 h*Hz/nm^4"
+[protocol]
+duration = "1.5 us"
+[[protocol.change]]
+parameter = "trap.centre"
+to = "30 nm"
+[initial]
+mean_phonons = 0.5
+[work]
+time_step_check = false
+)";
+
+WorkResult run_with_threads(int threads) {
+  const Scenario s = read_scenario_text(scenario_text, "threads.toml");
+  WorkRequest request = work_request(s);
+  request.threads = threads;
+  return run_work(s.potential, build_protocol(s), request);
+}
+
+// Checks that two distributions agree line by line and in every moment to `tol`.
+void check_same_distribution(const WorkDistribution& a, const WorkDistribution& b, double tol) {
+  REQUIRE(a.lines.size() == b.lines.size());
+  double worst_work = 0, worst_probability = 0;
+  for (std::size_t i = 0; i < a.lines.size(); ++i) {
+    CHECK(a.lines[i].initial == b.lines[i].initial);
+    CHECK(a.lines[i].final == b.lines[i].final);
+    worst_work = std::max(worst_work, std::abs(a.lines[i].work - b.lines[i].work));
+    worst_probability = std::max(worst_probability, std::abs(a.lines[i].probability - b.lines[i].probability));
+  }
+  INFO("largest difference: work " << worst_work << ", probability " << worst_probability);
+  CHECK(worst_work <= tol);
+  CHECK(worst_probability <= tol);
+  CHECK(std::abs(a.mean - b.mean) <= tol);
+  CHECK(std::abs(a.variance - b.variance) <= tol);
+  CHECK(std::abs(a.skewness - b.skewness) <= tol);
+  CHECK(std::abs(a.resolved_weight - b.resolved_weight) <= tol);
+  CHECK(std::abs(a.free_energy_change - b.free_energy_change) <= tol);
+  CHECK(std::abs(a.jarzynski_residual - b.jarzynski_residual) <= tol);
+}
+
+void check_same_matrix(const TransitionMatrix& a, const TransitionMatrix& b, double tol) {
+  REQUIRE(a.probability.rows() == b.probability.rows());
+  REQUIRE(a.probability.cols() == b.probability.cols());
+  const double worst = (a.probability - b.probability).cwiseAbs().maxCoeff();
+  INFO("largest difference of P(m -> n): " << worst);
+  CHECK(worst <= tol);
+}
+
+// The numbers of a trapwork CSV, row by row (names line and '#' comments skipped).
+std::vector<std::vector<double>> csv_numbers(const fs::path& file) {
+  std::vector<std::vector<double>> rows;
+  std::istringstream in(trapwork_test::read_all(file));
+  std::string line;
+  std::getline(in, line);
+  while (std::getline(in, line)) {
+    if (line.empty() || line[0] == '#') continue;
+    std::vector<double> row;
+    std::istringstream fields(line);
+    for (std::string f; std::getline(fields, f, ',');) row.push_back(std::strtod(f.c_str(), nullptr));
+    rows.push_back(row);
+  }
+  return rows;
+}
+
+bool same_or_both_nan(double a, double b, double tol) {
+  return (std::isnan(a) && std::isnan(b)) || std::abs(a - b) <= tol * std::max(1.0, std::abs(b));
+}
+}  // namespace
+
+TEST_CASE("run_work with one and with two FFTW threads gives the same work distribution", "[threads]") {
+  const WorkResult one = run_with_threads(1);
+  const WorkResult two = run_with_threads(2);
+  REQUIRE(one.steps == two.steps);
+  REQUIRE(one.grid.size() == two.grid.size());
+  REQUIRE(one.distribution.lines.size() > 5);  // an anharmonic trap: many separate lines
+  check_same_matrix(one.forward.transitions, two.forward.transitions, tolerance);
+  check_same_distribution(one.distribution, two.distribution, tolerance);
+  REQUIRE(one.reverse_distribution);
+  REQUIRE(two.reverse_distribution);
+  check_same_distribution(*one.reverse_distribution, *two.reverse_distribution, tolerance);
+}
+
+TEST_CASE("two identical runs give identical results", "[threads]") {
+  for (int threads : {1, 2}) {
+    INFO("threads " << threads);
+    const WorkResult first = run_with_threads(threads);
+    const WorkResult second = run_with_threads(threads);
+    // Same inputs, same plans (FFTW reuses what it measured for the first), same order of
+    // operations: equal to the last bit.
+    check_same_matrix(first.forward.transitions, second.forward.transitions, 0);
+    check_same_distribution(first.distribution, second.distribution, 0);
+  }
+}
+
+TEST_CASE("trapwork sweep with --jobs 1 and --jobs 2 writes the same numbers", "[threads][cli]") {
+  const fs::path dir = trapwork_test::scratch_dir("test-threads", "sweep");
+  std::ofstream(dir / "sweep.toml") << scenario_text
+                                    << "[sweep]\nparameter = \"protocol.duration\"\n"
+                                       "values = [\"1.5 us\", \"0.6 us\", \"1 us\"]\n";
+  const fs::path binary = fs::path(TRAPWORK_BINARY_DIR) / "trapwork";
+  for (const char* jobs : {"1", "2"}) {
+    const std::string command = "cd '" + dir.string() + "' && '" + binary.string() + "' sweep sweep.toml -o jobs" +
+                                jobs + " --jobs " + jobs + " --quiet";
+    const int status = std::system(command.c_str());
+    REQUIRE(WIFEXITED(status));
+    REQUIRE(WEXITSTATUS(status) == 0);
+  }
+  const auto one = csv_numbers(dir / "jobs1" / "sweep.csv");
+  const auto two = csv_numbers(dir / "jobs2" / "sweep.csv");
+  REQUIRE(one.size() == 3);
+  REQUIRE(two.size() == one.size());
+  for (std::size_t r = 0; r < one.size(); ++r) {
+    REQUIRE(two[r].size() == one[r].size());
+    for (std::size_t c = 0; c < one[r].size(); ++c) {
+      INFO("row " << r << ", column " << c << ": " << one[r][c] << " vs " << two[r][c]);
+      // energies in h*kHz are about 1000 times the internal ones: the bound is relative
+      CHECK(same_or_both_nan(one[r][c], two[r][c], tolerance));
+    }
+  }
+}

@@ -1,0 +1,466 @@
+// Benchmark suite (not a test): four jobs, each case in its own child process (harness.hpp),
+// printed as one table with two ratios measured in the same run:
+//   naive/this  wall time of a deliberately straightforward implementation of the same job
+//               (one state at a time, a fresh FFTW plan and fresh buffers every step, phases
+//               recomputed with std::polar every step) over the wall time of the library;
+//   this/floor  the library's wall time over the FFT-only floor: the transforms of the same
+//               job alone, with the library's plan shapes (column blocks) and flags
+//               (FFTW_MEASURE), on as many threads, nothing else.
+// Jobs:
+//   (a) thermal anharmonic translation: 300 Hermite states on 2048 points, co-moving frame,
+//       2*10^4 Strang steps (default: 2000 steps measured, times scaled by 10; --full: all);
+//   (b) the lowest 200 levels on 2^18 points (solve_spectrum, shift-invert Lanczos + Rayleigh-
+//       Ritz); naive: dense diagonalisation, measured at 2^11 points and scaled by N^3;
+//   (c) a sweep of 64 protocol durations of run_work on a small trap, 1 and 2 sweep jobs (each
+//       run one thread, as the tool's sweep does); naive and floor for its propagations;
+//   (d) a box expansion L -> 2L on the dilated box (WallSplitOperatorPropagator, 120 states on
+//       1024 sine modes, fourth order), and run_wall_work end to end.
+// Naive runs are measured on a part of the job (stated in the table) and scaled linearly in
+// state-steps, which is how their cost grows.
+//
+//   build/validation/bench_suite [--full] [--cases=abcd]
+#include <fftw3.h>
+
+#include <atomic>
+#include <cmath>
+#include <complex>
+#include <cstdio>
+#include <cstring>
+#include <string>
+#include <thread>
+#include <vector>
+
+#include "harness.hpp"
+#include "solver/hamiltonian.hpp"
+#include "solver/moving_wall.hpp"
+#include "solver/propagator.hpp"
+#include "solver/spectrum.hpp"
+#include "solver/work.hpp"
+
+using namespace trapwork;
+using namespace trapwork_bench;
+using complex = std::complex<double>;
+
+namespace {
+
+// ---- the straightforward implementation -----------------------------------------------------
+
+// `steps` Strang steps of one state after another: for every state and step, fresh buffers, a
+// fresh FFTW_ESTIMATE plan, the potential sampled and both phases recomputed. sample(t) gives
+// the potential on the grid; kinetic[j] the mode energies; sine: DST-I (RODFT00) on the real
+// and imaginary parts instead of the FFT; lambda(t, dt) the kinetic time (dt, or
+// int dt/L^2 for the dilated box).
+template <class Sample, class Lambda>
+JobResult naive_propagation(const Eigen::MatrixXcd& initial, int columns, int steps, double t0, double dt,
+                            const std::vector<double>& kinetic, bool sine, Sample&& sample, Lambda&& lambda) {
+  const std::size_t n = std::size_t(initial.rows());
+  const double normalisation = sine ? 1.0 / (2.0 * double(n + 1)) : 1.0 / double(n);
+  Stopwatch clock;
+  double check = 0;
+  for (int c = 0; c < columns; ++c) {
+    std::vector<complex> psi(initial.col(c).data(), initial.col(c).data() + n);
+    for (int s = 0; s < steps; ++s) {
+      const double t = t0 + s * dt;
+      const std::vector<double> v0 = sample(t), v1 = sample(t + dt);
+      const double l = lambda(t, dt);
+      fftw_complex* buffer = fftw_alloc_complex(n);
+      for (std::size_t j = 0; j < n; ++j) {
+        const complex z = psi[j] * std::polar(1.0, -v0[j] * dt / 2);
+        buffer[j][0] = z.real();
+        buffer[j][1] = z.imag();
+      }
+      if (!sine) {
+        fftw_plan f = fftw_plan_dft_1d(int(n), buffer, buffer, FFTW_FORWARD, FFTW_ESTIMATE);
+        fftw_plan b = fftw_plan_dft_1d(int(n), buffer, buffer, FFTW_BACKWARD, FFTW_ESTIMATE);
+        fftw_execute(f);
+        for (std::size_t j = 0; j < n; ++j) {
+          const complex z = complex(buffer[j][0], buffer[j][1]) * std::polar(normalisation, -kinetic[j] * l);
+          buffer[j][0] = z.real();
+          buffer[j][1] = z.imag();
+        }
+        fftw_execute(b);
+        fftw_destroy_plan(f);
+        fftw_destroy_plan(b);
+      } else {
+        std::vector<double> re(n), im(n);
+        for (std::size_t j = 0; j < n; ++j) re[j] = buffer[j][0], im[j] = buffer[j][1];
+        for (int pass = 0; pass < 2; ++pass) {
+          fftw_plan pr = fftw_plan_r2r_1d(int(n), re.data(), re.data(), FFTW_RODFT00, FFTW_ESTIMATE);
+          fftw_plan pi = fftw_plan_r2r_1d(int(n), im.data(), im.data(), FFTW_RODFT00, FFTW_ESTIMATE);
+          fftw_execute(pr);
+          fftw_execute(pi);
+          fftw_destroy_plan(pr);
+          fftw_destroy_plan(pi);
+          if (pass == 0)
+            for (std::size_t j = 0; j < n; ++j) {
+              const complex z = complex(re[j], im[j]) * std::polar(normalisation, -kinetic[j] * l);
+              re[j] = z.real();
+              im[j] = z.imag();
+            }
+        }
+        for (std::size_t j = 0; j < n; ++j) buffer[j][0] = re[j], buffer[j][1] = im[j];
+      }
+      for (std::size_t j = 0; j < n; ++j) psi[j] = complex(buffer[j][0], buffer[j][1]) * std::polar(1.0, -v1[j] * dt / 2);
+      fftw_free(buffer);
+    }
+    check += std::norm(psi[n / 2]);
+  }
+  return clock.result({check});
+}
+
+// ---- the FFT-only floor -----------------------------------------------------------------
+
+// `substeps` forward + backward transforms of `columns` columns of n points in the library's
+// column blocks (BatchedSplitStep::block_columns()) and plan flags, blocks dealt to `threads`
+// threads, each with its own scratch; no multiplication, no sampling.
+JobResult fft_floor(std::size_t n, int columns, long substeps, bool sine, int threads) {
+  const int block = BatchedSplitStep(n, columns, sine, 1).block_columns();
+  const int blocks = (columns + block - 1) / block, last = columns - (blocks - 1) * block;
+  std::vector<fftw_complex*> scratch;
+  for (int w = 0; w < threads; ++w) scratch.push_back(fftw_alloc_complex(n * std::size_t(block)));
+  fftw_plan forward[2] = {nullptr, nullptr}, backward[2] = {nullptr, nullptr};
+  for (int k = 0; k < (last == block ? 1 : 2); ++k) {
+    const int count = k == 0 ? block : last, size = int(n);
+    if (!sine) {
+      forward[k] = fftw_plan_many_dft(1, &size, count, scratch[0], nullptr, 1, size, scratch[0], nullptr, 1, size,
+                                      FFTW_FORWARD, FFTW_MEASURE);
+      backward[k] = fftw_plan_many_dft(1, &size, count, scratch[0], nullptr, 1, size, scratch[0], nullptr, 1, size,
+                                       FFTW_BACKWARD, FFTW_MEASURE);
+    } else {
+      fftw_iodim dim{size, 2, 2};
+      fftw_iodim many[2] = {{count, 2 * size, 2 * size}, {2, 1, 1}};
+      fftw_r2r_kind kind = FFTW_RODFT00;
+      double* data = reinterpret_cast<double*>(scratch[0]);
+      forward[k] = backward[k] = fftw_plan_guru_r2r(1, &dim, 2, many, data, data, &kind, FFTW_MEASURE);
+    }
+  }
+  for (auto* s : scratch)
+    for (std::size_t i = 0; i < n * std::size_t(block); ++i) s[i][0] = s[i][1] = 1e-3;
+  auto run = [&](fftw_plan plan, fftw_complex* data) {
+    if (sine)
+      fftw_execute_r2r(plan, reinterpret_cast<double*>(data), reinterpret_cast<double*>(data));
+    else
+      fftw_execute_dft(plan, data, data);
+  };
+  auto work = [&](int w) {
+    for (long s = 0; s < substeps; ++s)
+      for (int b = w; b < blocks; b += threads) {
+        const int shape = b == blocks - 1 && last != block ? 1 : 0;
+        run(forward[shape], scratch[std::size_t(w)]);
+        run(backward[shape], scratch[std::size_t(w)]);
+        // keep the data bounded: unnormalised transforms multiply by 2n (box) or n
+        if (b == w && s % 16 == 15) {
+          const double scale = sine ? 1.0 / (2.0 * double(n + 1)) : 1.0 / double(n);
+          for (std::size_t i = 0; i < n * std::size_t(block); ++i)
+            scratch[std::size_t(w)][i][0] *= scale, scratch[std::size_t(w)][i][1] *= scale;
+        }
+      }
+  };
+  Stopwatch clock;
+  std::vector<std::thread> pool;
+  for (int w = 1; w < threads; ++w) pool.emplace_back(work, w);
+  work(0);
+  for (auto& t : pool) t.join();
+  JobResult r = clock.result();
+  for (int k = 0; k < 2; ++k) {
+    if (backward[k] && backward[k] != forward[k]) fftw_destroy_plan(backward[k]);
+    if (forward[k]) fftw_destroy_plan(forward[k]);
+  }
+  for (auto* s : scratch) fftw_free(s);
+  return r;
+}
+
+// The previous design's floor: one fftw_plan_many_dft over all columns (one batch plan).
+JobResult fft_floor_one_plan(std::size_t n, int columns, long substeps) {
+  fftw_complex* buffer = fftw_alloc_complex(n * std::size_t(columns));
+  const int size = int(n);
+  fftw_plan f = fftw_plan_many_dft(1, &size, columns, buffer, nullptr, 1, size, buffer, nullptr, 1, size,
+                                   FFTW_FORWARD, FFTW_MEASURE);
+  fftw_plan b = fftw_plan_many_dft(1, &size, columns, buffer, nullptr, 1, size, buffer, nullptr, 1, size,
+                                   FFTW_BACKWARD, FFTW_MEASURE);
+  for (std::size_t i = 0; i < n * std::size_t(columns); ++i) buffer[i][0] = buffer[i][1] = 1e-3;
+  Stopwatch clock;
+  for (long s = 0; s < substeps; ++s) {
+    fftw_execute(f);
+    fftw_execute(b);
+    if (s % 16 == 15)
+      for (std::size_t i = 0; i < n * std::size_t(columns); ++i) buffer[i][0] /= double(n), buffer[i][1] /= double(n);
+  }
+  JobResult r = clock.result();
+  fftw_destroy_plan(f);
+  fftw_destroy_plan(b);
+  fftw_free(buffer);
+  return r;
+}
+
+// The run with the shortest wall time of `repeats` child runs: on a shared machine the
+// shortest is the one least disturbed by other work (common practice for noisy timings).
+Measurement best_of(int repeats, const std::function<JobResult()>& job) {
+  Measurement best = in_child(job);
+  for (int i = 1; i < repeats; ++i) {
+    const Measurement m = in_child(job);
+    if (m.ok && (!best.ok || m.wall_s < best.wall_s)) best = m;
+  }
+  return best;
+}
+
+// ---- the table ------------------------------------------------------------------------------
+
+struct Row {
+  std::string name, work;
+  Measurement m;
+  double scale = 1;          // measured times x scale = the full job
+  double naive_s = NAN;      // naive wall time, scaled to the full job
+  double floor_s = NAN;      // floor wall time, scaled to the full job
+  std::string note;
+};
+std::vector<Row> rows;
+
+void print_row(const Row& r) {
+  auto num = [](double v, const char* f) {
+    char s[32];
+    if (std::isnan(v)) return std::string("-");
+    std::snprintf(s, sizeof s, f, v);
+    return std::string(s);
+  };
+  const double wall = r.m.wall_s * r.scale, cpu = r.m.cpu_s * r.scale;
+  std::printf("%-40s %-30s %10s %10s %9s %11s %10s  %s\n", r.name.c_str(), r.work.c_str(), num(wall, "%.2f").c_str(),
+              num(cpu, "%.2f").c_str(), num(r.m.peak_mib, "%.1f").c_str(), num(r.naive_s / wall, "%.1f").c_str(),
+              num(wall / r.floor_s, "%.2f").c_str(), r.note.c_str());
+  std::fflush(stdout);
+}
+
+void print_header() {
+  std::printf("%-40s %-30s %10s %10s %9s %11s %10s  %s\n", "case", "work", "wall_s", "cpu_s", "peak_MiB",
+              "naive/this", "this/floor", "note");
+}
+
+std::string text(const char* f, double a, double b = 0) {
+  char s[160];
+  std::snprintf(s, sizeof s, f, a, b);
+  return s;
+}
+
+}  // namespace
+
+int main(int argc, char** argv) {
+  bool full = false;
+  std::string cases = "abcd";
+  for (int i = 1; i < argc; ++i) {
+    if (!std::strcmp(argv[i], "--full"))
+      full = true;
+    else if (!std::strncmp(argv[i], "--cases=", 8))
+      cases = argv[i] + 8;
+    else {
+      std::fprintf(stderr, "usage: bench_suite [--full] [--cases=abcd]\n");
+      return 1;
+    }
+  }
+  auto wanted = [&](char c) { return cases.find(c) != std::string::npos; };
+  std::printf("# trapwork benchmark suite; hardware threads %u; times scaled to the full job where a part was "
+              "measured (note column)\n", std::thread::hardware_concurrency());
+  print_header();
+
+  // ---- (a) thermal anharmonic translation ----
+  if (wanted('a')) {
+    const int states = 300, total_steps = 20000, steps = full ? total_steps : 2000;
+    const std::size_t n = 2048;
+    // A trap with a small quartic term moved by 10 oscillator lengths in 2.5 periods
+    // (oscillator units), co-moving frame; Hermite functions of its harmonic part as states
+    // (the cost does not depend on which states are propagated).
+    const Potential trap({Term("trap", Shape::polynomial, {{"frequency", 1.0}, {"quartic", 1e-3}})});
+    const double tau = 2.5 * 2 * M_PI, dt = tau / total_steps;
+    const Protocol protocol(tau, {Schedule::linear("trap.centre", 0.0, 10.0)});
+    const Grid grid = Grid::periodic(-40, 40, n);
+    const Eigen::MatrixXcd initial =
+        hermite_functions(HermiteBasis{1.0, 0.0, states}, grid.points(), states).cast<complex>() *
+        std::sqrt(grid.spacing());
+    const auto path = PotentialPath::co_moving(grid, trap, protocol);
+    const double scale = double(total_steps) / steps;
+    const int naive_states = 10, naive_steps = 100;
+    const double naive_scale = double(states) * total_steps / (double(naive_states) * naive_steps);
+    const Measurement naive = in_child([&] {
+      return naive_propagation(initial, naive_states, naive_steps, 0.0, dt, grid.kinetic_modes(), false,
+                               [&](double t) { return path.sample(t); }, [](double, double h) { return h; });
+    });
+    std::vector<double> check[2];
+    for (int threads : {1, 2}) {
+      Row r{text("(a) translation, %.0f thread(s)", threads), "300 states x 2048 pts x 2e4 st"};
+      r.m = best_of(2, [&] {
+        SplitOperatorPropagator p(path, states, SplitOrder::strang, threads);
+        Eigen::MatrixXcd psi = initial;
+        Stopwatch clock;
+        propagate(p, psi, 0.0, steps * dt, steps);
+        JobResult result = clock.result();
+        result.values = {psi.real().sum(), psi.imag().sum(), psi.cwiseAbs2().sum()};
+        return result;
+      });
+      check[threads - 1] = r.m.values;
+      r.scale = scale;
+      r.naive_s = naive.wall_s * naive_scale;
+      const Measurement floor = in_child([&] { return fft_floor(n, states, steps, false, threads); });
+      r.floor_s = floor.wall_s * scale;
+      r.note = text("%.0f of 20000 steps, best of 2; naive: 10 states x 100 steps", steps);
+      if (threads == 2 && check[0].size() == 3 && check[1].size() == 3)
+        r.note += text("; |sum psi (1 thr) - (2 thr)| = %.1e", std::abs(check[0][0] - check[1][0]) +
+                                                                   std::abs(check[0][1] - check[1][1]));
+      print_row(r);
+      if (threads == 1) {
+        Row f{"(a) FFT floor, blocked plans, 1 thread", r.work, floor, scale};
+        f.note = "the floor above, shown alone";
+        print_row(f);
+      }
+    }
+    Row one{"(a) FFT floor, one plan over 300 columns", "300 states x 2048 pts x 2e4 st",
+            in_child([&] { return fft_floor_one_plan(n, states, steps); }), scale};
+    one.note = "previous design's floor (one fftw_plan_many_dft)";
+    print_row(one);
+  }
+
+  // ---- (b) spectrum ----
+  if (wanted('b')) {
+    const Potential trap({Term("trap", Shape::polynomial, {{"frequency", 1.0}, {"quartic", 2e-3}})});
+    auto levels_on = [&](std::size_t n, EigenMethod method) {
+      return [&trap, n, method] {
+        const Grid g = Grid::periodic(-40, 40, n);
+        SpectrumOptions o;
+        o.levels = 200;
+        o.method = method;
+        const auto v = trap.evaluate(g.points());
+        Stopwatch clock;
+        const Spectrum s = solve_spectrum(g, v, o);
+        return clock.result({s.energies(199)});
+      };
+    };
+    const std::size_t small = std::size_t(1) << 11, big = std::size_t(1) << 18;
+    const Measurement dense = in_child(levels_on(small, EigenMethod::dense));
+    Row r{"(b) spectrum, lowest 200 levels", "2^18 points, Lanczos", in_child(levels_on(big, EigenMethod::lanczos))};
+    const double growth = double(big) / double(small);
+    r.naive_s = dense.wall_s * growth * growth * growth;
+    r.note = text("naive: dense eigensolver at 2^11 (%.1f s) x (2^7)^3; floor: not FFT-bound (sparse LU + Lanczos)",
+                  dense.wall_s);
+    print_row(r);
+  }
+
+  // ---- (c) sweep of 64 durations through run_work ----
+  if (wanted('c')) {
+    const Potential trap({Term("trap", Shape::polynomial, {{"frequency", 1.0}, {"quartic", 0.02}})});
+    auto request_for = [] {
+      WorkRequest q;
+      q.initial = InitialState::phonons(0.5);
+      q.max_initial_levels = 20;
+      q.unresolved_tolerance = 1e-6;  // run_work enlarges the levels (at most twice) above this
+      q.spectrum.extent = std::pair{-10.0, 10.0};
+      q.spectrum.points = 384;  // room for the 160 levels of run_work's last enlargement
+      q.threads = 1;
+      return q;
+    };
+    auto protocol_for = [](int i) {
+      const double tau = 0.2 + 0.2 * i;  // 0.2 .. 12.8 oscillator times
+      return Protocol(tau, {Schedule::linear("trap.centre", 0.0, 1.0)});
+    };
+    // values: sum <W>, grid points, forward columns, total column-Strang-substeps (all runs)
+    auto sweep = [&](int jobs) {
+      return [&, jobs] {
+        std::vector<double> mean(64), points(64), columns(64), substeps(64);
+        std::atomic<int> next{0};
+        Stopwatch clock;
+        auto worker = [&] {
+          for (int i; (i = next++) < 64;) {
+            const WorkResult w = run_work(trap, protocol_for(i), request_for());
+            mean[std::size_t(i)] = w.distribution.mean;
+            points[std::size_t(i)] = double(w.grid.size());
+            const int kept_a = w.forward.transitions.initial_levels();
+            const int kept_b = w.reverse ? w.reverse->transitions.initial_levels() : 0;
+            columns[std::size_t(i)] = kept_a;
+            substeps[std::size_t(i)] = 3.0 * w.steps * (3.0 * kept_a + kept_b);  // order 4: 3 Strang substeps
+          }
+        };
+        std::vector<std::thread> pool;
+        for (int j = 1; j < jobs; ++j) pool.emplace_back(worker);
+        worker();
+        for (auto& t : pool) t.join();
+        JobResult r = clock.result();
+        double sum = 0, col_steps = 0, max_points = 0, max_columns = 0;
+        for (int i = 0; i < 64; ++i) {
+          sum += mean[std::size_t(i)];
+          col_steps += substeps[std::size_t(i)];
+          max_points = std::max(max_points, points[std::size_t(i)]);
+          max_columns = std::max(max_columns, columns[std::size_t(i)]);
+        }
+        r.values = {sum, max_points, max_columns, col_steps};
+        return r;
+      };
+    };
+    const Measurement one = in_child(sweep(1));
+    if (one.values.size() == 4) {
+      const std::size_t n = std::size_t(one.values[1]);
+      const int columns = int(one.values[2]);
+      const double column_substeps = one.values[3];
+      // floor: the counted column-substeps as blocked transforms of `columns` columns
+      const long substeps = long(std::ceil(column_substeps / columns));
+      // naive: one state, 2000 Strang steps on the same grid, scaled to the counted column-substeps
+      const Grid grid = Grid::periodic(-8, 8, n);
+      const Eigen::MatrixXcd initial = hermite_functions(HermiteBasis{1.0, 0.0, 1}, grid.points(), 1).cast<complex>();
+      const auto path = PotentialPath::co_moving(grid, trap, protocol_for(10));
+      const Measurement naive = in_child([&] {
+        return naive_propagation(initial, 1, 2000, 0.0, 1e-3, grid.kinetic_modes(), false,
+                                 [&](double t) { return path.sample(t); }, [](double, double h) { return h; });
+      });
+      for (int jobs : {1, 2}) {
+        Row r{text("(c) sweep of 64 durations, %.0f job(s)", jobs), text("run_work, %.0f pts, %.0f states", double(n), columns)};
+        r.m = jobs == 1 ? one : in_child(sweep(2));
+        r.naive_s = naive.wall_s * column_substeps / 2000;
+        r.floor_s = in_child([&] { return fft_floor(n, columns, substeps / jobs, false, 1); }).wall_s;
+        r.note = text("%.3g column-substeps (fwd, half-step, reverse); ratios: propagation only", column_substeps);
+        if (jobs == 2 && r.m.values.size() == 4) r.note += text("; sum <W> differs by %.1e", std::abs(r.m.values[0] - one.values[0]));
+        print_row(r);
+      }
+    }
+  }
+
+  // ---- (d) box expansion ----
+  if (wanted('d')) {
+    const int states = 120, total_steps = 4000, steps = full ? total_steps : 1000;
+    const std::size_t n = 1024;
+    const double tau = 0.5;
+    const WallProtocol expansion = WallProtocol::linear_right(0, 1, 2, tau);
+    const Spectrum initial = flat_box_spectrum(0, 1, n, states);
+    const Eigen::MatrixXcd start = initial.states.cast<complex>();
+    const double dt = tau / total_steps, scale = double(total_steps) / steps;
+    const Grid box = Grid::box(0, 1, n);
+    const Measurement naive = in_child([&] {
+      // flat box: the dilated potential vanishes; the kinetic time is int dt/L^2 (L = 1 + 2t)
+      return naive_propagation(start, 4, 200, 0.0, dt, box.kinetic_modes(), true,
+                               [&](double) { return std::vector<double>(n, 0.0); },
+                               [](double t, double h) { return 1 / (1 + 2 * t) - 1 / (1 + 2 * (t + h)); });
+    });
+    const double naive_scale = double(states) * total_steps * 3 / (4.0 * 200);  // order 4: 3 substeps
+    for (int threads : {1, 2}) {
+      Row r{text("(d) box expansion, %.0f thread(s)", threads), "120 states x 1024 modes x 4000 st"};
+      r.m = in_child([&] {
+        WallSplitOperatorPropagator p(expansion, n, states, SplitOrder::fourth, threads);
+        Eigen::MatrixXcd psi = start;
+        Stopwatch clock;
+        propagate(p, psi, 0.0, steps * dt, steps);
+        return clock.result({psi.cwiseAbs2().sum()});
+      });
+      r.scale = scale;
+      r.naive_s = naive.wall_s * naive_scale;
+      r.floor_s = in_child([&] { return fft_floor(n, states, 3L * steps, true, threads); }).wall_s * scale;
+      r.note = text("order 4; %.0f of 4000 steps; naive: 4 states x 200 Strang steps", steps);
+      print_row(r);
+    }
+    Row w{"(d) run_wall_work, whole TPM job", "L -> 2L, tau 0.5, 512 modes"};
+    w.m = in_child([&] {
+      WallWorkRequest q;
+      q.initial = InitialState::thermal(0.05);
+      Stopwatch clock;
+      const WallWorkResult r = run_wall_work(expansion, q);
+      return clock.result({r.work.distribution.mean, double(r.work.steps)});
+    });
+    if (w.m.values.size() == 2) w.note = text("%.0f steps, fwd + half-step + reverse, 1 thread", w.m.values[1]);
+    print_row(w);
+  }
+  std::printf("# naive/this: speed-up over the straightforward implementation; this/floor: time over the FFTs alone\n");
+}
