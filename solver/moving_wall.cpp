@@ -746,7 +746,7 @@ SoftWallComparison compare_soft_walls(const WallProtocol& protocol, const WallWo
     r.thermal_tolerance = hard_request.thermal_tolerance;
     r.max_initial_levels = int(hp.rows());
     r.final_margin = int(hp.cols()) - int(hp.rows());
-    r.spectrum.box = std::make_pair(lo - 4 * width, hi + 4 * width);
+    r.spectrum.box = std::make_pair(lo - 1.25 * width, hi + 1.25 * width);
     r.spectrum.points = soft_points;
     r.spectrum.convergence_check = false;
     r.steps = soft_steps;

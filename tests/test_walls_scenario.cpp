@@ -1,0 +1,158 @@
+// Moving hard walls from scenario files: box.left / box.right as protocol parameters, the
+// work run through the same path as `trapwork work` (compute_work), its report and summary,
+// and the errors of unusable wall protocols.
+#include <catch2/catch.hpp>
+#include <cmath>
+#include <sstream>
+#include <string>
+
+#include "solver/errors.hpp"
+#include "solver/tool/scenario.hpp"
+#include "solver/tool/work_output.hpp"
+
+using namespace trapwork;
+using Catch::Matchers::Contains;
+
+namespace {
+
+// An 87 u atom in a 10 um box at 2 nK; the right wall moves by `to` in `duration`.
+std::string box_scenario(const std::string& duration, const std::string& to, const std::string& ramp,
+                         const std::string& extra = "", int points = 127) {
+  return "title = \"box\"\n"
+         "[particle]\nmass = \"87 u\"\n"
+         "[units]\nenergy = \"kB*nK\"\n"
+         "[box]\nleft = \"0 um\"\nright = \"10 um\"\n"
+         "[grid]\npoints = " + std::to_string(points) + "\n" +
+         extra +
+         "[protocol]\nduration = \"" + duration + "\"\n"
+         "[[protocol.change]]\nparameter = \"box.right\"\nto = \"" + to + "\"\nramp = \"" + ramp + "\"\n"
+         "[initial]\ntemperature = \"2 nK\"\n";
+}
+
+InputError error_of(const std::string& text) {
+  try {
+    read_scenario_text(text, "walls.toml");
+  } catch (const InputError& e) {
+    return e;
+  }
+  FAIL("no InputError");
+  return InputError("", "", "");
+}
+
+}  // namespace
+
+TEST_CASE("a wall at constant speed: the Doescher-Rice reference and every check", "[walls][scenario]") {
+  const Scenario s = read_scenario_text(box_scenario("4 ms", "11 um", "linear"), "walls.toml");
+  REQUIRE(moves_walls(s));
+  CHECK(s.potential.terms().empty());  // a flat box needs no [[potential]]
+  const WallProtocol p = build_wall_protocol(s);
+  CHECK(p.flat());
+  CHECK(p.final_walls().length() == Approx(11 * internal_per_um(s)));
+  // 127 points given: the DST-I wants points + 1 smooth, 128 already is
+  CHECK(wall_work_request(s).points == 127);
+  const ScenarioWork w = compute_work(s, work_request(s));
+  REQUIRE(w.walls);
+  REQUIRE(w.walls->doescher_rice);
+  const WorkRun run = w.run(s);
+  // Doescher & Rice, Am. J. Phys. 37, 1246 (1969): exact for a flat box with one wall at
+  // constant speed; the numerical lines agree to the grid limit of the end chirp, which the
+  // twice-the-points run measures (the two agree to a factor of a few).
+  const double dr = w.walls->doescher_rice->max_line_difference;
+  CHECK(dr < 1e-4);
+  CHECK(w.walls->grid_line_change == Approx(dr).epsilon(0.9));
+  CHECK(std::abs(w.walls->doescher_rice->mean_work_difference) < 1e-3 * std::abs(w.walls->doescher_rice->mean_work));
+  for (const auto& c : work_checks(run)) {
+    INFO(c.name << " = " << c.value << ", tolerance " << c.tolerance);
+    CHECK(c.pass());
+  }
+  std::ostringstream report;
+  print_work_report(report, run);
+  CHECK_THAT(report.str(), Contains("Doescher & Rice") && Contains("box.right") && Contains("mm/s"));
+  const auto summary = work_summary(run);
+  CHECK(summary["walls"]["doescher_rice"]["wall_speed_m_per_s"].get<double>() == Approx(1e-6 / 4e-3));
+}
+
+TEST_CASE("a smooth expansion with a harmonic trap inside, compressed in the reverse run", "[walls][scenario]") {
+  const std::string trap =
+      "[[potential]]\nname = \"dimple\"\nshape = \"harmonic\"\nfrequency = \"50 Hz\"\ncentre = \"5 um\"\n";
+  const Scenario s = read_scenario_text(box_scenario("2 ms", "12 um", "smooth", trap, 255), "walls.toml");
+  const ScenarioWork w = compute_work(s, work_request(s));
+  REQUIRE(w.walls);
+  CHECK_FALSE(w.walls->doescher_rice);  // not a flat box
+  const WorkRun run = w.run(s);
+  for (const auto& c : work_checks(run)) {
+    INFO(c.name << " = " << c.value << ", tolerance " << c.tolerance);
+    CHECK(c.pass());
+  }
+  REQUIRE(run.result.crooks);
+  CHECK(run.result.crooks->max_line_difference < 1e-10);  // U_R = U_F^T of the symmetric steps
+  CHECK(w.walls->grid_line_change < 1e-6);  // smooth ramp: no end chirp; the trap's levels resolved
+  // the expansion lowers every level: the mean work is negative
+  CHECK(run.result.distribution.mean < 0);
+}
+
+TEST_CASE("sudden expansion and the refused sudden compression from a scenario", "[walls][scenario]") {
+  const Scenario expand = read_scenario_text(box_scenario("0 ms", "15 um", "linear"), "walls.toml");
+  const ScenarioWork w = compute_work(expand, work_request(expand));
+  REQUIRE(w.walls);
+  REQUIRE(w.walls->sudden);
+  CHECK(w.walls->sudden->ratio < 0.9);  // the Hilbert space changes: Jarzynski fails
+  std::ostringstream report;
+  print_work_report(report, w.run(expand));
+  CHECK_THAT(report.str(), Contains("Jarzynski equality fails"));
+
+  const Scenario squeeze = read_scenario_text(box_scenario("0 ms", "8 um", "linear"), "walls.toml");
+  CHECK_THROWS_WITH(compute_work(squeeze, work_request(squeeze)), Contains("refused") && Contains("finite speed"));
+}
+
+TEST_CASE("unusable wall protocols are errors with file, line and key", "[walls][scenario]") {
+  // the right wall crosses the left one
+  const InputError cross = error_of(box_scenario("1 ms", "-1 um", "linear"));
+  CHECK(cross.file == "walls.toml");
+  CHECK(cross.line > 0);
+  CHECK(cross.key == "protocol.change");
+  CHECK_THAT(std::string(cross.what()), Contains("walls that stay apart"));
+  // "box" names the walls
+  const InputError name = error_of(box_scenario(
+      "1 ms", "11 um", "linear", "[[potential]]\nname = \"box\"\nshape = \"harmonic\"\nfrequency = \"1 kHz\"\n"));
+  CHECK(name.key == "potential[1].name");
+  // a wall position is a length
+  const InputError unit = error_of(box_scenario("1 ms", "11 MHz", "linear"));
+  CHECK(unit.key == "protocol.change[1].to");
+  CHECK_THAT(std::string(unit.what()), Contains("length"));
+  // the eigenbasis integrator does not move walls
+  const Scenario s =
+      read_scenario_text(box_scenario("1 ms", "11 um", "linear", "[work]\nintegrator = \"eigenbasis\"\n"), "walls.toml");
+  CHECK_THROWS_WITH(wall_work_request(s), Contains("work.integrator") && Contains("moving walls"));
+  // a wall of an open grid does not exist
+  const std::string open =
+      "[particle]\nmass = \"40 u\"\n[[potential]]\nname = \"trap\"\nshape = \"harmonic\"\nfrequency = \"1 MHz\"\n"
+      "[protocol]\nduration = \"1 us\"\n[[protocol.change]]\nparameter = \"box.right\"\nto = \"1 um\"\n";
+  CHECK(error_of(open).key == "protocol.change[1].parameter");
+}
+
+TEST_CASE("a sweep over the wall's end position", "[walls][scenario]") {
+  const Scenario s = read_scenario_text(
+      box_scenario("2 ms", "11 um", "smooth", "[sweep]\nparameter = \"change[1].to\"\nvalues = [\"11 um\", \"12 um\"]\n"),
+      "walls.toml");
+  REQUIRE(s.sweep);
+  double previous = 0;
+  for (std::size_t i = 0; i < 2; ++i) {
+    const Scenario point = at_sweep_point(s, i);
+    const ScenarioWork w = compute_work(point, work_request(point));
+    REQUIRE(w.walls);
+    CHECK(w.run(point).result.final_spectrum.grid.right() == Approx((11 + i) * internal_per_um(s)));
+    // minimal work principle for a thermal start without level crossings (Allahverdyan &
+    // Nieuwenhuizen, Phys. Rev. E 71, 046107 (2005), from memory): <W> >= the adiabatic <W>
+    const WorkInput& f = w.result().forward;
+    const double adiabatic = adiabatic_wall_work(f.initial_energies.head(Eigen::Index(f.initial_weights.size())),
+                                                 f.final_energies, f.initial_weights).mean;
+    CHECK(w.result().distribution.mean > adiabatic);
+    // a hard wall is pushed outward by (hbar^2/2m)|psi'(b)|^2 >= 0 (common practice): moving it
+    // outward, the particle does work on it in every run, so <W> < 0
+    CHECK(w.result().distribution.mean < 0);
+    // a wider final box: lower final levels
+    if (i > 0) CHECK(w.result().final_spectrum.energies[0] < previous);
+    previous = w.result().final_spectrum.energies[0];
+  }
+}
