@@ -1,6 +1,5 @@
 #include "solver/moving_wall.hpp"
 
-#include <fftw3.h>
 
 #include <algorithm>
 #include <boost/numeric/odeint.hpp>
@@ -452,10 +451,10 @@ Spectrum box_spectrum(const WallProtocol& p, bool final, const WallWorkRequest& 
 }
 
 WallRun run_walls(const WallProtocol& p, const Spectrum& initial, const Spectrum& final, int kept, int finals,
-                  int steps, SplitOrder order) {
+                  int steps, SplitOrder order, int threads) {
   const double tau = p.duration();
   const WallState wa = p.walls(0), wb = p.walls(tau);
-  WallSplitOperatorPropagator propagator(p, initial.grid.size(), kept, order);
+  WallSplitOperatorPropagator propagator(p, initial.grid.size(), kept, order, threads);
   const double dy = propagator.grid().spacing();
   Eigen::MatrixXcd state = (initial.states.leftCols(kept) * std::sqrt(wa.length())).cast<complex>();
   propagator.from_lab(state, 0);
@@ -611,7 +610,7 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
   result.initial_spectrum = sa;
   result.final_spectrum = sb;
 
-  const WallRun fwd = run_walls(protocol, sa, sb, kept_a, finals, steps, request.order);
+  const WallRun fwd = run_walls(protocol, sa, sb, kept_a, finals, steps, request.order, request.threads);
   result.forward = WorkInput{transition_matrix(fwd.amplitudes), sa.energies, sb.energies.head(finals), weights_a.weights,
                              {}, {}, beta};
   result.distribution = work_distribution(result.forward, request.merge_tolerance);
@@ -626,7 +625,7 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
     WallWorkRequest fine = request;
     fine.points = 2 * request.points + 1;  // (n + 1) doubled: a fast DST-I when n + 1 is
     const Spectrum fa = box_spectrum(protocol, false, fine, levels), fb = box_spectrum(protocol, true, fine, levels);
-    const WallRun f = run_walls(protocol, fa, fb, kept_a, finals, steps, request.order);
+    const WallRun f = run_walls(protocol, fa, fb, kept_a, finals, steps, request.order, request.threads);
     out.grid_line_change =
         (transition_matrix(f.amplitudes).probability - result.forward.transitions.probability).cwiseAbs().maxCoeff();
     if (out.grid_line_change > 1e-6)
@@ -636,7 +635,7 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
                               "raise the points");
   }
   if (request.time_step_check) {
-    const WallRun half = run_walls(protocol, sa, sb, kept_a, finals, 2 * steps, request.order);
+    const WallRun half = run_walls(protocol, sa, sb, kept_a, finals, 2 * steps, request.order, request.threads);
     diag.time_step_error =
         (transition_matrix(half.amplitudes).probability - result.forward.transitions.probability).cwiseAbs().maxCoeff();
   }
@@ -647,7 +646,7 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
         initial_weights(request.initial, sb.energies, request.thermal_tolerance, request.max_initial_levels);
     const int kept_b = int(weights_b.weights.size());
     const int finals_r = std::min<int>(int(sa.energies.size()), std::max(kept_a, kept_b) + request.final_margin);
-    const WallRun rev = run_walls(reversed, sb, sa, kept_b, finals_r, steps, request.order);
+    const WallRun rev = run_walls(reversed, sb, sa, kept_b, finals_r, steps, request.order, request.threads);
     result.reverse = WorkInput{transition_matrix(rev.amplitudes), sb.energies, sa.energies.head(finals_r),
                                weights_b.weights, {}, {}, weights_b.beta};
     result.reverse_distribution = work_distribution(*result.reverse, request.merge_tolerance);

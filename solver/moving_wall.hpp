@@ -229,6 +229,7 @@ struct WallWorkRequest {
                                      // is an FFT of 2 (points + 1): keep points + 1 smooth
   int steps = 0;                     // 0: automatic, E_max dt <= 0.2 (order 4) or 0.02 (Strang)
   SplitOrder order = SplitOrder::fourth;
+  int threads = 1;                   // propagator worker threads (results independent of it)
   bool reverse_run = true;
   bool time_step_check = true;
   bool grid_check = true;            // same run on twice the points, where the grid limits it

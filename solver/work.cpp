@@ -159,6 +159,33 @@ std::vector<std::complex<double>> characteristic_function(const WorkDistribution
   return g;
 }
 
+LineDistance line_distance(const WorkInput& a, const WorkInput& b) {
+  const Eigen::MatrixXd& pa = a.transitions.probability;
+  const Eigen::MatrixXd& pb = b.transitions.probability;
+  auto joint = [](const WorkInput& w, Eigen::Index m, Eigen::Index n) {
+    return w.initial_weights[std::size_t(m)] * w.transitions.probability(m, n);
+  };
+  LineDistance d;
+  double total_a = 0, total_b = 0, common_a = 0, common_b = 0;
+  for (Eigen::Index m = 0; m < pa.rows(); ++m)
+    for (Eigen::Index n = 0; n < pa.cols(); ++n) total_a += joint(a, m, n);
+  for (Eigen::Index m = 0; m < pb.rows(); ++m)
+    for (Eigen::Index n = 0; n < pb.cols(); ++n) total_b += joint(b, m, n);
+  const Eigen::Index rows = std::min(pa.rows(), pb.rows()), cols = std::min(pa.cols(), pb.cols());
+  for (Eigen::Index m = 0; m < rows; ++m)
+    for (Eigen::Index n = 0; n < cols; ++n) {
+      const double ja = joint(a, m, n), jb = joint(b, m, n);
+      common_a += ja;
+      common_b += jb;
+      d.distance += 0.5 * std::abs(ja - jb);
+      if (std::max(ja, jb) > 1e-9)
+        d.max_work_shift = std::max(d.max_work_shift, std::abs((a.final_energies[n] - a.initial_energies[m]) -
+                                                               (b.final_energies[n] - b.initial_energies[m])));
+    }
+  d.distance += 0.5 * ((total_a - common_a) + (total_b - common_b)) + 0.5 * std::abs((1 - total_a) - (1 - total_b));
+  return d;
+}
+
 CrooksCheck crooks_check(const WorkInput& forward, const WorkInput& reverse, double merge_tolerance,
                          double min_probability) {
   TRAPWORK_EXPECT(forward.beta && reverse.beta && std::abs(*forward.beta - *reverse.beta) <= 1e-14 * *forward.beta,

@@ -111,6 +111,20 @@ struct CrooksCheck {
   int lines_compared = 0;
   int ratios_compared = 0;
 };
+// Distance between two computations of the same work distribution (say at two time steps or
+// grids), line by line: the lines m -> n carry p_m P(m -> n) in each, and
+//   distance = (1/2) sum_{m,n} |p_m P(m->n) - p'_m P'(m->n)|
+// over the levels both hold, plus half the joint probability either holds outside them, plus
+// half the difference of their unresolved weights. It bounds the total-variation distance of
+// the two P(W) when matching lines sit at the same work; `max_work_shift` is the largest
+// |W - W'| of matching lines carrying more than 1e-9, so both together say how far apart the
+// distributions are.
+struct LineDistance {
+  double distance = 0;
+  double max_work_shift = 0;
+};
+LineDistance line_distance(const WorkInput& a, const WorkInput& b);
+
 CrooksCheck crooks_check(const WorkInput& forward, const WorkInput& reverse, double merge_tolerance = 1e-9,
                          double min_probability = 1e-10);
 
@@ -150,7 +164,7 @@ struct WorkRequest {
   OdeTolerances ode;                 // eigenbasis integrator
   int eigenbasis_levels = 0;         // eigenbasis basis size; 0: twice the final levels (the
                                      // final states of H_B need more levels of H_A than L)
-  int threads = 1;                   // FFTW threads
+  int threads = 1;                   // propagator worker threads (results independent of it)
   std::function<void(double fraction)> progress;  // optional, called with 0..1
 };
 

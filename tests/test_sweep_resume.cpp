@@ -111,7 +111,10 @@ void check_same_sweep(const std::string& a, const std::string& b) {
     CHECK(x[r][0] == y[r][0]);
     for (std::size_t c = 1; c < x[r].size(); ++c) {
       INFO("row " << r << ", column " << c << ": " << x[r][c] << " vs " << y[r][c]);
-      if (std::isnan(x[r][c]) || std::isnan(y[r][c]))
+      if (c == 7) {  // crooks_ratio_error: rounding of the smallest probabilities (tests/test_threads.cpp)
+        CHECK(std::abs(x[r][c]) < 1e-9);
+        CHECK(std::abs(y[r][c]) < 1e-9);
+      } else if (std::isnan(x[r][c]) || std::isnan(y[r][c]))
         CHECK((std::isnan(x[r][c]) && std::isnan(y[r][c])));
       else
         CHECK(std::abs(x[r][c] - y[r][c]) <= 1e-12 * std::max(1.0, std::abs(y[r][c])));

@@ -29,9 +29,11 @@ namespace fs = std::filesystem;
 
 namespace {
 constexpr double tolerance = 1e-12;  // see the file comment
+constexpr std::size_t crooks_column = 7;  // crooks_ratio_error in sweep.csv
 
 // A 40 u ion in a 1 MHz trap with a small quartic term, thermal with 0.5 phonons, moved by
 // 30 nm in 1.5 us: anharmonic, so the lines are not merged into a few harmonic ones.
+// (Sweep durations avoid whole trap periods, where <W> is near 0 and the skewness is noise.)
 const std::string scenario_text = R"(title = "threads"
 [particle]
 mass = "40 u"
@@ -137,7 +139,7 @@ TEST_CASE("trapwork sweep with --jobs 1 and --jobs 2 writes the same numbers", "
   const fs::path dir = trapwork_test::scratch_dir("test-threads", "sweep");
   std::ofstream(dir / "sweep.toml") << scenario_text
                                     << "[sweep]\nparameter = \"protocol.duration\"\n"
-                                       "values = [\"1.5 us\", \"0.6 us\", \"1 us\"]\n";
+                                       "values = [\"1.5 us\", \"0.6 us\", \"1.3 us\"]\n";
   const fs::path binary = fs::path(TRAPWORK_BINARY_DIR) / "trapwork";
   for (const char* jobs : {"1", "2"}) {
     const std::string command = "cd '" + dir.string() + "' && '" + binary.string() + "' sweep sweep.toml -o jobs" +
@@ -154,6 +156,13 @@ TEST_CASE("trapwork sweep with --jobs 1 and --jobs 2 writes the same numbers", "
     REQUIRE(two[r].size() == one[r].size());
     for (std::size_t c = 0; c < one[r].size(); ++c) {
       INFO("row " << r << ", column " << c << ": " << one[r][c] << " vs " << two[r][c]);
+      if (c == crooks_column) {
+        // max |P_F / (P_R e^...) - 1| over lines down to 1e-10: itself rounding of the smallest
+        // probabilities (about 1e-11 here), so not compared; both must stay that small.
+        CHECK(std::abs(one[r][c]) < 1e-9);
+        CHECK(std::abs(two[r][c]) < 1e-9);
+        continue;
+      }
       // energies in h*kHz are about 1000 times the internal ones: the bound is relative
       CHECK(same_or_both_nan(one[r][c], two[r][c], tolerance));
     }

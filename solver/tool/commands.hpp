@@ -34,7 +34,7 @@ struct SpectrumCommand {
 void add_spectrum_command(CLI::App& app);
 void run_spectrum(const SpectrumCommand& command, std::ostream& out);
 
-// trapwork work [SCENARIO] [-o DIR] [--quiet]: the work statistics of the scenario's protocol
+// trapwork work [SCENARIO] [-o DIR] [--quiet] [--tolerance T]: the work statistics of the scenario's protocol
 // (run_work), the report on `out`, the files of write_work_outputs. A progress bar goes to
 // `progress` when `show_progress` (the command line: stderr is a terminal and not --quiet).
 struct WorkCommand {
@@ -42,6 +42,7 @@ struct WorkCommand {
   std::string output;    // overrides [output] folder when not empty
   bool quiet = false;
   bool show_progress = false;
+  std::optional<double> tolerance;  // --tolerance: numerics chosen for this bound (work_output.hpp)
 };
 void add_work_command(CLI::App& app);
 void run_work_command(const WorkCommand& command, std::ostream& out, std::ostream& progress);

@@ -1162,6 +1162,7 @@ WallWorkRequest wall_work_request(const Scenario& s) {
   if (r.co_moving.value_or(false))
     throw InputError("work.frame", "\"co_moving\"", "auto or lab for moving walls (the box is dilated instead)", "",
                      s.file);
+  w.threads = r.threads;
   w.reverse_run = r.reverse_run;
   w.time_step_check = r.time_step_check;
   w.grid_check = r.grid_check;

@@ -127,11 +127,22 @@ void run_work_command(const WorkCommand& command, std::ostream& out, std::ostrea
   if (!command.output.empty()) scenario.output_folder = command.output;
   (void)build_protocol(scenario);  // a missing [protocol] is reported before a missing [initial]
   WorkRequest request = work_request(scenario);
-  ProgressBar bar("propagating", 1000, progress, command.show_progress);
-  request.progress = [&bar](double fraction) { bar.update(std::size_t(fraction * 1000)); };
-  const ScenarioWork work = naming_scenario(scenario.file, [&] { return compute_work(scenario, request); });
-  bar.finish();
-  const WorkRun run = work.run(scenario);
+  std::optional<ToleranceChoice> choice;
+  std::optional<ScenarioWork> direct;
+  if (command.tolerance) {
+    if (!(*command.tolerance > 0 && *command.tolerance < 1))
+      throw InputError("--tolerance", short_number(*command.tolerance), "a bound between 0 and 1 (e.g. 1e-4)");
+    choice = naming_scenario(scenario.file,
+                             [&] { return compute_work_to_tolerance(scenario, request, *command.tolerance); });
+  } else {
+    ProgressBar bar("propagating", 1000, progress, command.show_progress);
+    request.progress = [&bar](double fraction) { bar.update(std::size_t(fraction * 1000)); };
+    direct = naming_scenario(scenario.file, [&] { return compute_work(scenario, request); });
+    bar.finish();
+  }
+  const Scenario& used = choice ? choice->scenario : scenario;
+  WorkRun run = choice ? choice->work->run(used) : direct->run(used);
+  run.tolerance = choice ? &*choice : nullptr;
   const auto files = write_work_outputs(scenario.output_folder, run);
   if (command.quiet) return;
   print_work_report(out, run);
@@ -149,6 +160,10 @@ void add_work_command(CLI::App& app) {
                   "scenario file (TOML) with [protocol] and [initial]; \"default\" or nothing: the built-in one")
       ->required();
   add_work_options(sub, command->output, command->quiet);
+  sub->add_option("--tolerance", command->tolerance,
+                  "choose the time step and grid for this bound on the distance of P(W) from its converged value "
+                  "(a total-variation bound over the work lines, e.g. 1e-4): steps are doubled and the grid refined "
+                  "until two runs agree to half of it; the report says what was chosen and the error estimate");
   sub->callback([command] {
     WorkCommand c = *command;
     c.show_progress = !c.quiet && ProgressBar::terminal_allows();

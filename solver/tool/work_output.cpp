@@ -189,6 +189,67 @@ ScenarioWork compute_work(const Scenario& s, WorkRequest request) {
   return w;
 }
 
+ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request, double tolerance) {
+  ToleranceChoice c{tolerance, s, std::nullopt, 0, 0, 0, 0, 0, {}};
+  request.time_step_check = false;  // the refinements below are the checks
+  auto run = [&](const Scenario& sc, WorkRequest r) {
+    r.spectrum = work_request(sc).spectrum;  // the grid of this scenario
+    ScenarioWork w = compute_work(sc, r);
+    c.trail.push_back(std::to_string(w.result().steps) + " steps, " + std::to_string(w.result().grid.size()) +
+                      " points");
+    return w;
+  };
+  // Steps: from the automatic (or given) count, halve while the halved run stays within T/2
+  // of the current one (the automatic step aims at accuracy everywhere, far beyond a loose
+  // T); if even the first halving leaves T/2, double until two runs agree to T/2.
+  ScenarioWork coarse = run(c.scenario, request);
+  if (coarse.result().steps > 0) {  // a sudden switch has no steps
+    bool lowered = false;
+    while (coarse.result().steps / 2 >= 16) {
+      request.steps = coarse.result().steps / 2;
+      ScenarioWork half = run(c.scenario, request);
+      const double d = line_distance(half.result().forward, coarse.result().forward).distance;
+      c.trail.back() += ": distance to twice the steps " + short_number(d, 3);
+      if (d > tolerance / 2) break;
+      c.time_step_part = d;
+      coarse = std::move(half);
+      lowered = true;
+    }
+    for (int k = 0; !lowered && k < 6; ++k) {
+      request.steps = 2 * coarse.result().steps;
+      ScenarioWork fine = run(c.scenario, request);
+      c.time_step_part = line_distance(coarse.result().forward, fine.result().forward).distance;
+      c.trail.back() += ": distance to half the steps " + short_number(c.time_step_part, 3);
+      coarse = std::move(fine);
+      if (c.time_step_part <= tolerance / 2) break;
+    }
+    request.steps = coarse.result().steps;
+  }
+  for (int k = 0; k < 3; ++k) {
+    const Grid& g = coarse.result().grid;
+    Scenario finer = c.scenario;
+    if (g.boundary() == Boundary::hard_wall) {
+      finer.spectrum.points = fast_fft_size(3 * (g.size() + 1) / 2) - 1;
+    } else {
+      finer.spectrum.points = fast_fft_size(3 * g.size() / 2);
+      if (!finer.spectrum.box) finer.spectrum.extent = std::make_pair(g.left(), g.right());
+    }
+    ScenarioWork fine = run(finer, request);
+    const LineDistance d = line_distance(coarse.result().forward, fine.result().forward);
+    c.grid_part = d.distance;
+    c.max_work_shift = d.max_work_shift;
+    c.trail.back() += ": distance to the coarser grid " + short_number(c.grid_part, 3);
+    c.scenario = std::move(finer);
+    coarse = std::move(fine);
+    if (c.grid_part <= tolerance / 2) break;
+  }
+  c.steps = coarse.result().steps;
+  c.points = coarse.result().grid.size();
+  c.work = std::move(coarse);
+  c.scenario.spectrum.points = c.points;
+  return c;
+}
+
 double lowest_spacing(const WorkResult& result) {
   const auto& e = result.initial_spectrum.energies;
   // first spacing above the ground group (degenerate levels are measured as one)
@@ -368,6 +429,16 @@ double wall_speed_si(const Scenario& s, double internal) {
   return internal * s.units.length_m / s.units.time_s();
 }
 
+// --tolerance: the bound asked for, what was chosen, the estimate and every run made.
+nlohmann::ordered_json tolerance_json(const WorkRun& run) {
+  if (!run.tolerance) return nullptr;
+  const ToleranceChoice& t = *run.tolerance;
+  return {{"requested", t.tolerance},  {"estimate", t.estimate()}, {"reached", t.reached()},
+          {"time_step_part", t.time_step_part}, {"grid_part", t.grid_part},
+          {"max_work_shift", display(run.scenario).energy(t.max_work_shift)},
+          {"steps", t.steps}, {"points", t.points}, {"runs", t.trail}};
+}
+
 // Moving walls: the exact references (null where they do not apply), display energy units.
 nlohmann::ordered_json walls_json(const WorkRun& run) {
   if (!run.walls) return nullptr;
@@ -490,6 +561,7 @@ json work_summary(const WorkRun& run) {
       {"crooks", crooks},
       {"harmonic", harmonic},
       {"walls", walls_json(run)},
+      {"tolerance", tolerance_json(run)},
       {"diagnostics",
        {{"norm_drift", g.norm_drift},
         {"unresolved_weight", g.unresolved_weight},
@@ -604,7 +676,7 @@ std::vector<fs::path> write_work_outputs(const fs::path& folder, const WorkRun& 
   const WorkFigure work = work_figure(run);
   std::vector<fs::path> files;
   for (const auto& [name, table] : tables) {
-    write_file_atomically(folder / name, [&](std::ostream& out) { write_csv(out, table); });
+    write_file_atomically(folder / name, [&, &table = table](std::ostream& out) { write_csv(out, table); });
     files.push_back(folder / name);
   }
   write_file_atomically(folder / "summary.json", [&](std::ostream& out) { out << summary; });
@@ -658,6 +730,15 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
                       ", max ratio error " + short_number(r.crooks->max_ratio_error, 2) + " over " +
                       std::to_string(r.crooks->ratios_compared) + " lines");
 
+  if (run.tolerance) {
+    const ToleranceChoice& t = *run.tolerance;
+    out << "\nnumerics chosen for --tolerance " << short_number(t.tolerance, 3) << " (distance of P(W) over the lines)\n";
+    for (const auto& line : t.trail) row("run", line);
+    row("chosen", std::to_string(t.steps) + " steps, " + std::to_string(t.points) + " points");
+    row("estimate", short_number(t.estimate(), 3) + " = " + short_number(t.time_step_part, 3) + " (time step) + " +
+                        short_number(t.grid_part, 3) + " (grid); lines move by up to " +
+                        e.text(t.max_work_shift, 3) + (t.reached() ? "" : ": the tolerance is NOT reached"));
+  }
   if (r.harmonic) {
     const auto& h = *r.harmonic;
     const bool displaced = h.model.rfind("displaced", 0) == 0;

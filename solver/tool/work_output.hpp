@@ -28,6 +28,7 @@ struct WorkRun {
   const WorkRequest& request;
   const WorkResult& result;
   const WallWorkResult* walls = nullptr;  // moving walls: the exact references (Doescher-Rice, sudden)
+  const struct ToleranceChoice* tolerance = nullptr;  // --tolerance: what was chosen
 };
 
 // The work calculation of one scenario: run_work, or run_wall_work when the protocol moves a
@@ -42,6 +43,29 @@ struct ScenarioWork {
   WorkRun run(const Scenario& s) const { return {s, protocol, request, result(), walls ? &*walls : nullptr}; }
 };
 ScenarioWork compute_work(const Scenario& s, WorkRequest request);
+
+// `trapwork work --tolerance T`: numerics chosen for a bound T on the distance of P(W) from
+// its converged value (line_distance, solver/work.hpp; a total-variation bound over the lines).
+// From the automatic step count (or the scenario's [work] steps), the steps are halved while
+// the halved run stays within T/2 of the current one, or else doubled until two runs differ by
+// at most T/2 (at most 6 doublings); then the grid is refined by 3/2 in points over the same extent
+// until two runs differ by at most T/2 (at most 3 refinements). The finest run is returned;
+// its error estimate is the sum of the two last differences (each measures the coarser run,
+// so it is an overestimate for the finer one). The scenario's [grid] and [work] steps are the
+// starting point when given.
+struct ToleranceChoice {
+  double tolerance = 0;
+  Scenario scenario;  // with the chosen [grid] points/extent
+  std::optional<ScenarioWork> work;  // the finest run
+  int steps = 0;
+  std::size_t points = 0;
+  double time_step_part = 0, grid_part = 0;  // the last differences (line_distance)
+  double max_work_shift = 0;                 // of the last grid refinement (internal energy)
+  std::vector<std::string> trail;            // one line per run: steps, points, difference
+  double estimate() const { return time_step_part + grid_part; }
+  bool reached() const { return estimate() <= tolerance; }
+};
+ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request, double tolerance);
 
 // Lowest level spacing E_1 - E_0 of H_A (internal energy; NaN with one level).
 double lowest_spacing(const WorkResult& result);
