@@ -1,9 +1,12 @@
 #pragma once
-// Helpers shared by the tests that write files: a fresh scratch folder and whole-file reads.
+// Helpers shared by the tests that write files: a fresh scratch folder, whole-file reads and
+// the numbers of a CSV file.
 #include <filesystem>
 #include <fstream>
 #include <sstream>
+#include <cstdlib>
 #include <string>
+#include <vector>
 
 namespace trapwork_test {
 
@@ -20,6 +23,22 @@ inline std::string read_all(const std::filesystem::path& p) {
   std::ostringstream s;
   s << in.rdbuf();
   return s.str();
+}
+
+// The numbers of a CSV text written by trapwork: the names line and '#' lines skipped.
+inline std::vector<std::vector<double>> csv_rows(const std::string& csv) {
+  std::vector<std::vector<double>> rows;
+  std::istringstream in(csv);
+  std::string line;
+  std::getline(in, line);
+  while (std::getline(in, line)) {
+    if (line.empty() || line[0] == '#') continue;
+    std::vector<double> row;
+    std::istringstream fields(line);
+    for (std::string f; std::getline(fields, f, ',');) row.push_back(std::strtod(f.c_str(), nullptr));
+    rows.push_back(row);
+  }
+  return rows;
 }
 
 }  // namespace trapwork_test

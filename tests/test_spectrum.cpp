@@ -118,7 +118,10 @@ TEST_CASE("bad requests fail with a reason", "[spectrum]") {
   SpectrumOptions o;
   o.levels = 9;
   CHECK_THROWS_WITH(solve_spectrum(g, std::vector<double>(16, 0.0), o), Contains("use more points"));
-  const Potential broken({Term::formula("f", "1/x", {})});
+  // a formula that is not finite at its centre is refused when the term is made ...
+  CHECK_THROWS_WITH(Term::formula("f", "1/x", {}), Contains("not finite"));
+  // ... and one that is not finite elsewhere (here x < -1) when the grid samples it
+  const Potential broken({Term::formula("f", "sqrt(x+1)", {})});
   SpectrumRequest r;
   r.search_half_width = 5;
   CHECK_THROWS_WITH(compute_spectrum(broken, r), Contains("not finite"));

@@ -75,20 +75,6 @@ std::size_t points_recorded(const fs::path& file) {
 }
 
 // The numbers of each data row of a trapwork CSV.
-std::vector<std::vector<double>> numbers(const std::string& csv) {
-  std::vector<std::vector<double>> rows;
-  std::istringstream in(csv);
-  std::string line;
-  std::getline(in, line);
-  while (std::getline(in, line)) {
-    if (line.empty() || line[0] == '#') continue;
-    std::vector<double> row;
-    std::istringstream fields(line);
-    for (std::string f; std::getline(fields, f, ',');) row.push_back(std::strtod(f.c_str(), nullptr));
-    rows.push_back(row);
-  }
-  return rows;
-}
 
 // The names line and the comment lines of a trapwork CSV.
 std::string head_of(const std::string& csv) {
@@ -104,7 +90,7 @@ std::string head_of(const std::string& csv) {
 // repeated), every other number within the rounding budget of the file comment.
 void check_same_sweep(const std::string& a, const std::string& b) {
   CHECK(head_of(a) == head_of(b));
-  const auto x = numbers(a), y = numbers(b);
+  const auto x = trapwork_test::csv_rows(a), y = trapwork_test::csv_rows(b);
   REQUIRE(x.size() == y.size());
   for (std::size_t r = 0; r < x.size(); ++r) {
     REQUIRE(x[r].size() == y[r].size());

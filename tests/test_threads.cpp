@@ -90,20 +90,6 @@ void check_same_matrix(const TransitionMatrix& a, const TransitionMatrix& b, dou
 }
 
 // The numbers of a trapwork CSV, row by row (names line and '#' comments skipped).
-std::vector<std::vector<double>> csv_numbers(const fs::path& file) {
-  std::vector<std::vector<double>> rows;
-  std::istringstream in(trapwork_test::read_all(file));
-  std::string line;
-  std::getline(in, line);
-  while (std::getline(in, line)) {
-    if (line.empty() || line[0] == '#') continue;
-    std::vector<double> row;
-    std::istringstream fields(line);
-    for (std::string f; std::getline(fields, f, ',');) row.push_back(std::strtod(f.c_str(), nullptr));
-    rows.push_back(row);
-  }
-  return rows;
-}
 
 bool same_or_both_nan(double a, double b, double tol) {
   return (std::isnan(a) && std::isnan(b)) || std::abs(a - b) <= tol * std::max(1.0, std::abs(b));
@@ -148,8 +134,8 @@ TEST_CASE("trapwork sweep with --jobs 1 and --jobs 2 writes the same numbers", "
     REQUIRE(WIFEXITED(status));
     REQUIRE(WEXITSTATUS(status) == 0);
   }
-  const auto one = csv_numbers(dir / "jobs1" / "sweep.csv");
-  const auto two = csv_numbers(dir / "jobs2" / "sweep.csv");
+  const auto one = trapwork_test::csv_rows(trapwork_test::read_all(dir / "jobs1" / "sweep.csv"));
+  const auto two = trapwork_test::csv_rows(trapwork_test::read_all(dir / "jobs2" / "sweep.csv"));
   REQUIRE(one.size() == 3);
   REQUIRE(two.size() == one.size());
   for (std::size_t r = 0; r < one.size(); ++r) {
