@@ -113,7 +113,8 @@ TEST_CASE("Husimi matrix matches Husimi's generating function", "[harmonic]") {
 TEST_CASE("parametric Q* from the classical equation of motion", "[harmonic]") {
   // omega^2 linear from 1 to 4 over tau (Airy-function solutions; mpmath, CHECK to 1e-10)
   for (auto [tau, expect] : {std::pair{1.0, 1.1149494069249281487}, std::pair{5.0, 1.0111003637936734767}}) {
-    const double q = parametric_q([&](double t) { return 1 + 3 * t / tau; }, tau);
+    const double duration = tau;  // a structured binding cannot be captured in C++17/clang 14
+    const double q = parametric_q([duration](double t) { return 1 + 3 * t / duration; }, duration);
     CHECK(std::abs(q - expect) < 1e-10);
   }
   // no time and no change: Q* = 1 exactly
