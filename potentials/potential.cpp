@@ -28,6 +28,8 @@ const std::vector<ShapeInfo>& shape_table() {
       {Shape::morse, "morse", {"depth", "range", "centre"}},
       {Shape::poschl_teller, "poschl_teller", {"depth", "width", "centre"}},
       {Shape::square_well, "square_well", {"depth", "half_width", "softness", "centre"}},
+      {Shape::power_walls, "power_walls", {"left", "right", "height", "width", "power"}},
+      {Shape::erf_walls, "erf_walls", {"left", "right", "height", "width"}},
       {Shape::table, "table", {"centre", "scale"}},
       {Shape::formula, "formula", {"centre", "scale", "length_factor", "time_factor"}},
   };
@@ -35,6 +37,7 @@ const std::vector<ShapeInfo>& shape_table() {
 }
 
 double default_value(std::string_view p) {
+  if (p == "power") return 8.0;
   return (p == "scale" || p == "length_factor" || p == "time_factor") ? 1.0 : 0.0;
 }
 
@@ -43,7 +46,7 @@ bool must_be_positive(Shape s, std::string_view p) {
   if (p == "waist" || p == "separation" || p == "range" || p == "width" || p == "half_width") return true;
   if (p == "frequency") return s == Shape::harmonic;
   if (p == "length_factor" || p == "time_factor") return true;
-  return false;
+  return p == "power" || p == "height";
 }
 
 // Monotone cubic Hermite interpolation (Fritsch & Carlson, SIAM J. Numer. Anal. 17, 238
@@ -127,6 +130,14 @@ Term::Term(std::string name, Shape shape, const std::vector<std::pair<std::strin
   for (const auto& [key, value] : parameters) set_parameter(key, value);
   if (shape == Shape::harmonic && parameter("frequency") <= 0)
     throw InputError(name_ + ".frequency", number_text(parameter("frequency")), "a harmonic term needs frequency > 0");
+  if (shape == Shape::power_walls || shape == Shape::erf_walls) {
+    if (!(parameter("width") > 0)) throw InputError(name_ + ".width", number_text(parameter("width")), "a wall width > 0");
+    if (!(parameter("height") > 0))
+      throw InputError(name_ + ".height", number_text(parameter("height")), "a wall height > 0");
+    if (!(parameter("right") > parameter("left")))
+      throw InputError(name_ + ".right", number_text(parameter("right")),
+                       "a right wall beyond the left one (left = " + number_text(parameter("left")) + ")");
+  }
 }
 
 Term Term::tabulated(std::string name, PotentialTable table,
@@ -256,6 +267,13 @@ double Term::value(double x, double t) const {
       if (s <= 0) return std::abs(y) < a ? -p[0].second : (std::abs(y) == a ? -0.5 * p[0].second : 0.0);
       return -0.5 * p[0].second * (std::tanh((y + a) / s) - std::tanh((y - a) / s));
     }
+    case Shape::power_walls: {
+      const double d = x > p[1].second ? x - p[1].second : (x < p[0].second ? p[0].second - x : 0.0);
+      return d > 0 ? p[2].second * std::pow(d / p[3].second, p[4].second) : 0.0;
+    }
+    case Shape::erf_walls:
+      return 0.5 * p[2].second *
+             (std::erfc((p[1].second - x) / p[3].second) + std::erfc((x - p[0].second) / p[3].second));
     case Shape::table:
       return p[1].second * interpolate_monotone(*table_, x - p[0].second);
     case Shape::formula:

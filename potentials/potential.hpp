@@ -16,6 +16,12 @@
 //   poschl_teller  -depth / cosh^2((x-c)/width)                    depth, width, centre
 //   square_well    -depth inside |x-c| < half_width, 0 outside; with softness s > 0
 //                  -depth (tanh((x-c+a)/s) - tanh((x-c-a)/s)) / 2   depth, half_width, softness, centre
+//   power_walls    height ((x - right)/width)^power for x > right, height ((left - x)/width)^power
+//                  for x < left, 0 between: steep soft walls (power > 0, default 8)
+//                                                   left, right, height, width, power
+//   erf_walls      (height/2) [erfc((right - x)/width) + erfc((x - left)/width)]: walls of finite
+//                  height, half of it at left and right, rising over ~width
+//                                                   left, right, height, width
 //   table          monotone cubic (Fritsch-Carlson) interpolation of (x, V) samples; constant
 //                  beyond the ends                                 centre, scale (multiplies V)
 //   formula        scale * f((x-c) * length_factor, t * time_factor), f a muParser expression
@@ -33,7 +39,7 @@
 namespace trapwork {
 
 enum class Shape { harmonic, polynomial, gaussian, double_well, morse, poschl_teller, square_well,
-                   table, formula };
+                   power_walls, erf_walls, table, formula };
 
 std::string_view shape_name(Shape s);
 std::optional<Shape> shape_from_name(std::string_view name);

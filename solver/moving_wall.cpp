@@ -712,24 +712,17 @@ WallWorkResult run_wall_work(const WallProtocol& protocol, const WallWorkRequest
 // ---- soft walls -------------------------------------------------------------------------
 
 Term soft_walls(const std::string& name, const SoftWallShape& shape, double width, double left, double right) {
-  if (shape.power < 2 || shape.power > 32 || shape.power % 2 != 0)
-    throw InputError(name + ".power", std::to_string(shape.power), "an even integer in 2..32");
-  if (!(width > 0)) throw InputError(name + ".width", fmt(width), "> 0");
-  if (!(shape.height > 0)) throw InputError(name + ".height", fmt(shape.height), "> 0");
-  const std::string p = std::to_string(shape.power);
-  return Term::formula(name,
-                       "height*((max(0,x-right)/width)^" + p + "+(max(0,left-x)/width)^" + p + ")",
-                       {{"left", left}, {"right", right}, {"height", shape.height}, {"width", width}});
+  return Term(name, Shape::power_walls,
+              {{"left", left}, {"right", right}, {"height", shape.height}, {"width", width}, {"power", shape.power}});
 }
 
-SoftWallComparison compare_soft_walls(const WallProtocol& protocol, const WallWorkRequest& hard_request,
-                                      const SoftWallShape& shape, const std::vector<double>& widths,
-                                      std::size_t soft_points, int soft_steps) {
+SoftWallComparison compare_soft_walls(const WallProtocol& protocol, const WallWorkResult& hard,
+                                      const WallWorkRequest& hard_request, const SoftWallRequest& soft) {
+  for (double w : soft.widths)
+    if (!(w > 0)) throw InputError("soft_walls.widths", fmt(w), "widths > 0");
   SoftWallComparison out;
-  WallWorkRequest hard = hard_request;
-  hard.reverse_run = false;
-  out.hard = run_wall_work(protocol, hard);
-  const auto& hp = out.hard.work.forward.transitions.probability;
+  out.hard_mean_work = hard.work.distribution.mean;
+  const WorkInput& h = hard.work.forward;
   double lo = protocol.initial_walls().left.value, hi = protocol.initial_walls().right.value;
   for (int i = 0; i <= 256; ++i) {
     const WallState w = protocol.duration() > 0 ? protocol.walls(protocol.duration() * i / 256) : protocol.final_walls();
@@ -737,29 +730,56 @@ SoftWallComparison compare_soft_walls(const WallProtocol& protocol, const WallWo
     hi = std::max(hi, w.right.value);
   }
   const WallState w0 = protocol.initial_walls();
-  for (double width : widths) {
+  for (double width : soft.widths) {
     Potential base = protocol.inner();
-    base.add(soft_walls(protocol.name(), shape, width, w0.left.value, w0.right.value));
+    base.add(soft_walls(protocol.name(), soft.shape, width, w0.left.value, w0.right.value));
+    const double extent = hi - lo + 2.5 * width;
     WorkRequest r;
     r.initial = hard_request.initial;
     r.thermal_tolerance = hard_request.thermal_tolerance;
-    r.max_initial_levels = int(hp.rows());
-    r.final_margin = int(hp.cols()) - int(hp.rows());
+    r.max_initial_levels = int(h.transitions.probability.rows());
+    r.final_margin = int(h.transitions.probability.cols() - h.transitions.probability.rows());
     r.spectrum.box = std::make_pair(lo - 1.25 * width, hi + 1.25 * width);
-    r.spectrum.points = soft_points;
+    r.spectrum.points = soft.points > 0 ? soft.points
+                                        : fast_fft_size(std::max<std::size_t>(257, std::size_t(std::ceil(6 * extent / width)))) - 1;
     r.spectrum.convergence_check = false;
-    r.steps = soft_steps;
     r.reverse_run = false;
     r.time_step_check = false;
     r.grid_check = false;
+    r.threads = hard_request.threads;
     r.unresolved_tolerance = 1.0;  // compare as computed; the unresolved weight stays in the result
-    const WorkResult soft = run_work(base, protocol.as_protocol(), r);
-    const auto& sp = soft.forward.transitions.probability;
-    const Eigen::Index rows = std::min(sp.rows(), hp.rows()), cols = std::min(sp.cols(), hp.cols());
-    out.widths.push_back(width);
-    out.mean_work.push_back(soft.distribution.mean);
-    out.mean_work_difference.push_back(soft.distribution.mean - out.hard.work.distribution.mean);
-    out.max_line_difference.push_back((sp.topLeftCorner(rows, cols) - hp.topLeftCorner(rows, cols)).cwiseAbs().maxCoeff());
+    // Steps doubled from run_work's choice until two runs agree; then one run on 3/2 the points.
+    WorkResult run = run_work(base, protocol.as_protocol(), r);
+    SoftWallRun s;
+    s.width = width;
+    s.points = *r.spectrum.points;
+    s.steps = run.steps;
+    for (int k = 0; k <= soft.max_doublings && protocol.duration() > 0; ++k) {
+      r.steps = 2 * s.steps;
+      WorkResult finer = run_work(base, protocol.as_protocol(), r);
+      s.numerical_error = line_distance(run.forward, finer.forward).distance;
+      run = std::move(finer);
+      s.steps = r.steps;
+      if (s.numerical_error <= soft.numerical_tolerance) break;
+    }
+    r.spectrum.points = fast_fft_size(3 * (s.points + 1) / 2) - 1;
+    const WorkResult refined = run_work(base, protocol.as_protocol(), r);
+    s.numerical_error = std::max(s.numerical_error, line_distance(run.forward, refined.forward).distance);
+    s.converged = s.numerical_error <= soft.numerical_tolerance;
+    s.mean_work = run.distribution.mean;
+    s.mean_work_difference = s.mean_work - out.hard_mean_work;
+    s.distance = line_distance(run.forward, h);
+    out.runs.push_back(s);
+  }
+  const std::size_t n = out.runs.size();
+  if (n >= 3 && std::abs(out.runs[n - 2].width - 2 * out.runs[n - 1].width) <= 1e-9 * out.runs[n - 2].width &&
+      std::abs(out.runs[n - 3].width - 2 * out.runs[n - 2].width) <= 1e-9 * out.runs[n - 3].width) {
+    const double d1 = out.runs[n - 3].mean_work - out.runs[n - 2].mean_work;
+    const double d2 = out.runs[n - 2].mean_work - out.runs[n - 1].mean_work;
+    if (d1 * d2 > 0 && std::abs(d1) > std::abs(d2)) {
+      out.observed_order = std::log2(d1 / d2);
+      out.extrapolated_mean_work = out.runs[n - 1].mean_work - d2 / (d1 / d2 - 1);
+    }
   }
   return out;
 }

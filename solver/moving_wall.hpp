@@ -283,28 +283,55 @@ WorkDistribution adiabatic_wall_work(const Eigen::VectorXd& initial_energies, co
 
 // ---- soft walls ------------------------------------------------------------------------
 
-// Power-law walls height ((x - right)/width)^power for x > right, mirrored at left, zero between,
-// as a Term::formula named `name` with parameters left, right, height, width (so a Protocol
-// can schedule "<name>.right"). power: even integer 2..32; width > 0; height > 0.
+// Power-law walls at the hard walls' places: the Potential term `name` of shape power_walls
+// (potentials/potential.hpp), height ((x - right)/width)^power beyond right, mirrored at left, so
+// that the WallProtocol's schedules "<name>.left" and "<name>.right" move it on an ordinary grid.
 struct SoftWallShape {
-  double height = 1e3;
-  int power = 8;
+  double height = 1e3;  // > 0 (internal energy units)
+  double power = 8;     // > 0
 };
 Term soft_walls(const std::string& name, const SoftWallShape& shape, double width, double left, double right);
 
-// The soft-wall problem through run_work (solver/work.hpp) for each width, against the hard-wall
-// result of run_wall_work with the same initial state: differences in <W> and the largest
-// difference of P(m -> n) over the lines both computed. The soft run uses a hard-walled grid
-// [min a - 4 width, max b + 4 width] with `soft_points` points, no reverse run.
-struct SoftWallComparison {
-  WallWorkResult hard;
-  std::vector<double> widths;
-  std::vector<double> mean_work;             // soft <W>
-  std::vector<double> mean_work_difference;  // soft - hard
-  std::vector<double> max_line_difference;
+// Soft walls converge to hard ones as they steepen (width -> 0 at fixed height and power). The
+// ground-state penetration into h (s/w)^p scales as s_0 = (w^p/h)^{1/(p+2)} (kinetic 1/s_0^2
+// against h (s_0/w)^p; derived here), so the soft box acts as a hard one about s_0 wider and
+// differences fall as w^{p/(p+2)} (0.8 for p = 8) once w is small.
+struct SoftWallRequest {
+  SoftWallShape shape;
+  std::vector<double> widths;         // each > 0; compared in the order given (largest first)
+  std::size_t points = 0;             // soft-run grid points; 0: spacing <= width/6 (>= 256)
+  double numerical_tolerance = 1e-4;  // steps doubled until a run moves by less (line distance)
+  int max_doublings = 5;
 };
-SoftWallComparison compare_soft_walls(const WallProtocol& protocol, const WallWorkRequest& hard_request,
-                                      const SoftWallShape& shape, const std::vector<double>& widths,
-                                      std::size_t soft_points, int soft_steps = 0);
+
+// One soft-wall run against the hard-wall result (forward runs, the same initial state).
+struct SoftWallRun {
+  double width = 0;
+  std::size_t points = 0;
+  int steps = 0;
+  double mean_work = 0;             // soft <W>
+  double mean_work_difference = 0;  // soft - hard
+  LineDistance distance;            // line distance (work.hpp) from the hard-wall lines
+  double numerical_error = 0;       // line distance between the last two step counts, and to a
+                                    // grid of 3/2 the points (the larger)
+  bool converged = false;           // numerical_error <= numerical_tolerance
+};
+
+struct SoftWallComparison {
+  double hard_mean_work = 0;
+  std::vector<SoftWallRun> runs;
+  // From the last three widths when they halve (w, w/2, w/4): the observed order alpha of
+  // <W>(w) - <W>(0) ~ w^alpha, and the extrapolation of the soft <W> to w = 0 (Richardson with
+  // the observed order), to compare with the hard-wall <W>. NaN when not available.
+  double observed_order = std::numeric_limits<double>::quiet_NaN();
+  double extrapolated_mean_work = std::numeric_limits<double>::quiet_NaN();
+};
+
+// The soft-wall problem through run_work (solver/work.hpp) on a hard-walled grid reaching 1.25
+// widths beyond the walls' widest positions, for each width, against the forward lines of
+// `hard` (run_wall_work of `protocol` with `hard_request`), the same initial state and levels
+// (no reverse runs). Throws InputError for a width <= 0.
+SoftWallComparison compare_soft_walls(const WallProtocol& protocol, const WallWorkResult& hard,
+                                      const WallWorkRequest& hard_request, const SoftWallRequest& soft);
 
 }  // namespace trapwork

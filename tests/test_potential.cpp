@@ -97,3 +97,29 @@ TEST_CASE("formula terms evaluate muParser expressions with their own parameters
   CHECK_THROWS_AS(Term::formula("u", "0.5*x^", {}), InputError);
   CHECK_THROWS_AS(Term::formula("u", "x", {{"x", 1.0}}), InputError);
 }
+
+TEST_CASE("power-law and error-function walls", "[potential]") {
+  const Term walls("w", Shape::power_walls, {{"left", -1.0}, {"right", 2.0}, {"height", 50.0}, {"width", 0.5}});
+  CHECK(walls.parameter("power") == 8);  // the default
+  CHECK(walls.value(0.3) == 0);
+  CHECK(walls.value(2.0) == 0);
+  CHECK(walls.value(2.5) == Approx(50.0).epsilon(1e-14));        // one width beyond: the height
+  CHECK(walls.value(3.0) == Approx(50.0 * 256).epsilon(1e-14));  // (2)^8
+  CHECK(walls.value(-1.5) == Approx(50.0).epsilon(1e-14));       // mirrored at the left wall
+  const Term quartic("w", Shape::power_walls,
+                     {{"left", 0.0}, {"right", 1.0}, {"height", 2.0}, {"width", 0.1}, {"power", 4.0}});
+  CHECK(quartic.value(1.2) == Approx(2.0 * 16).epsilon(1e-14));
+
+  const Term erf("e", Shape::erf_walls, {{"left", 0.0}, {"right", 4.0}, {"height", 10.0}, {"width", 0.2}});
+  CHECK(erf.value(4.0) == Approx(5.0 + 5.0 * std::erfc(4.0 / 0.2)).epsilon(1e-14));  // half height at the wall
+  CHECK(erf.value(0.0) == Approx(5.0).epsilon(1e-12));
+  CHECK(erf.value(2.0) == Approx(0.0).margin(1e-12));
+  CHECK(erf.value(6.0) == Approx(10.0).epsilon(1e-12));
+
+  CHECK_THROWS_WITH(Term("w", Shape::power_walls, {{"left", 1.0}, {"right", 0.5}, {"height", 1.0}, {"width", 0.1}}),
+                    Contains("w.right") && Contains("beyond the left"));
+  CHECK_THROWS_WITH(Term("w", Shape::erf_walls, {{"left", 0.0}, {"right", 1.0}, {"width", 0.1}}), Contains("w.height"));
+  CHECK_THROWS_WITH(Term("w", Shape::power_walls, {{"left", 0.0}, {"right", 1.0}, {"height", 1.0}, {"width", 0.1},
+                                                   {"power", -2.0}}),
+                    Contains("w.power"));
+}

@@ -156,3 +156,48 @@ TEST_CASE("a sweep over the wall's end position", "[walls][scenario]") {
     previous = w.result().final_spectrum.energies[0];
   }
 }
+
+TEST_CASE("[box.soft_walls]: soft walls of narrowing width against the hard walls", "[walls][scenario]") {
+  const std::string soft = "[box.soft_walls]\nwidths = [\"0.4 um\", \"0.2 um\"]\nheight = \"100 kB*nK\"\n";
+  const Scenario s = read_scenario_text(box_scenario("4 ms", "11 um", "smooth", soft), "walls.toml");
+  REQUIRE(s.soft_walls);
+  CHECK(s.soft_walls->widths.size() == 2);
+  CHECK(s.soft_walls->shape.power == 8);  // the default
+  CHECK(s.soft_widths_given.front() == "0.4 um");
+  const ScenarioWork w = compute_work(s, work_request(s));
+  REQUIRE(w.soft_walls);
+  const SoftWallComparison& c = *w.soft_walls;
+  REQUIRE(c.runs.size() == 2);
+  for (const SoftWallRun& r : c.runs) {
+    INFO("width " << r.width << ": distance " << r.distance.distance << ", numerical error " << r.numerical_error);
+    CHECK(r.converged);
+    CHECK(r.distance.distance > 10 * r.numerical_error);  // the difference is physical, not numerical
+  }
+  // Narrower walls are closer to the hard ones, in the lines and in <W>.
+  CHECK(c.runs[1].distance.distance < c.runs[0].distance.distance);
+  CHECK(std::abs(c.runs[1].mean_work_difference) < std::abs(c.runs[0].mean_work_difference));
+  const WorkRun run = w.run(s);
+  const auto j = work_summary(run);
+  REQUIRE(j["walls"]["soft_walls"]["runs"].size() == 2);
+  CHECK(j["walls"]["soft_walls"]["runs"][0]["width_um"].get<double>() == Approx(0.4));
+  CHECK(j["walls"]["soft_walls"]["height"].get<double>() == Approx(100));
+  std::ostringstream report;
+  print_work_report(report, run);
+  CHECK_THAT(report.str(), Contains("soft walls: height 100 kB*nK") && Contains("0.2 um"));
+}
+
+TEST_CASE("[box.soft_walls] errors name the key", "[walls][scenario]") {
+  const auto soft = [](const std::string& body) { return "[box.soft_walls]\n" + body; };
+  CHECK_THAT(error_of(box_scenario("4 ms", "11 um", "smooth", soft("widths = [\"0.1 um\", \"0.2 um\"]\nheight = \"1 kB*nK\"\n"))).what(),
+             Contains("box.soft_walls.widths[2]") && Contains("widest first"));
+  CHECK_THAT(error_of(box_scenario("4 ms", "11 um", "smooth", soft("widths = [\"0.1 um\"]\n"))).what(),
+             Contains("box.soft_walls.height"));
+  CHECK_THAT(error_of(box_scenario("4 ms", "11 um", "smooth", soft("widths = [\"0.1 us\"]\nheight = \"1 kB*nK\"\n"))).what(),
+             Contains("box.soft_walls.widths[1]"));
+  CHECK_THAT(error_of(box_scenario("4 ms", "11 um", "smooth", soft("width = [\"0.1 um\"]\nheight = \"1 kB*nK\"\n"))).what(),
+             Contains("box.soft_walls.width"));
+  // The comparison is of moving walls: a protocol that moves none is refused.
+  const std::string still = "title = \"box\"\n[particle]\nmass = \"87 u\"\n[box]\nleft = \"0 um\"\nright = \"10 um\"\n"
+                            "[box.soft_walls]\nwidths = [\"0.1 um\"]\nheight = \"1 kB*nK\"\n";
+  CHECK_THAT(error_of(still).what(), Contains("box.soft_walls") && Contains("moves box.left or box.right"));
+}

@@ -184,3 +184,42 @@ TEST_CASE("adiabatic limit of a slow expansion", "[validation][walls]") {
   CHECK(adiabatic.mean == Approx(w3).epsilon(1e-12));
   CHECK(res.work.distribution.mean == Approx(w3).epsilon(1e-3));
 }
+
+TEST_CASE("soft power-law walls converge to the hard walls as they steepen", "[validation][walls]") {
+  // Box [0, 1] -> [0, 1.5] by a smooth step in tau = 0.2, beta = 0.2 (five levels), against
+  // walls 1000 ((x - b)/w)^8 of widths 0.08, 0.04, 0.02 on the ordinary grid. No published value:
+  // the check is the limit itself. The ground-state penetration s_0 = (w^8/h)^{1/10}
+  // (derived in solver/moving_wall.hpp) makes differences fall as w^{0.8} for small w; at these
+  // widths the line distance halves at each halving of w (measured: 0.058, 0.031, 0.016) and
+  // <W> converges more slowly (order about 0.5), its Richardson extrapolation to w = 0 landing
+  // within 0.06 of the hard value where the narrowest wall still differs by 0.15.
+  WallProtocol p(0.2, Schedule::constant("walls.left", 0), Schedule::smooth_step("walls.right", 1, 1.5));
+  WallWorkRequest hr;
+  hr.initial = InitialState::thermal(0.2);
+  hr.points = 255;
+  hr.reverse_run = false;
+  const WallWorkResult hard = run_wall_work(p, hr);
+  SoftWallRequest sr;
+  sr.shape.height = 1000;
+  sr.shape.power = 8;
+  sr.widths = {0.08, 0.04, 0.02};
+  const SoftWallComparison c = compare_soft_walls(p, hard, hr, sr);
+  REQUIRE(c.runs.size() == 3);
+  for (std::size_t i = 0; i < c.runs.size(); ++i) {
+    INFO("width " << c.runs[i].width << ": line distance " << c.runs[i].distance.distance << ", <W> - hard "
+                  << c.runs[i].mean_work_difference << ", numerical error " << c.runs[i].numerical_error);
+    CHECK(c.runs[i].converged);
+    CHECK(c.runs[i].numerical_error < 0.01 * c.runs[i].distance.distance);
+    if (i == 0) continue;
+    const double ratio = c.runs[i - 1].distance.distance / c.runs[i].distance.distance;
+    CHECK(ratio > 1.5);  // order > 0.58 in the distance
+    CHECK(ratio < 2.5);
+    CHECK(std::abs(c.runs[i].mean_work_difference) < std::abs(c.runs[i - 1].mean_work_difference));
+  }
+  INFO("observed order " << c.observed_order << ", extrapolated <W> " << c.extrapolated_mean_work << ", hard "
+                         << c.hard_mean_work);
+  REQUIRE(std::isfinite(c.extrapolated_mean_work));
+  CHECK(c.observed_order > 0.3);
+  CHECK(c.observed_order < 1.2);
+  CHECK(std::abs(c.extrapolated_mean_work - c.hard_mean_work) < 0.5 * std::abs(c.runs.back().mean_work_difference));
+}

@@ -695,6 +695,27 @@ void draw_stems(const WorkSeries& s, bool log, double floor, double offset, PLIN
   plschr(0, text_scale);
 }
 
+// Work range of the lines left after dropping, from each end, lines that together carry at most
+// `tail` of the probability (all series together); invalid when there are no lines.
+Range bulk_range(const std::vector<const WorkSeries*>& series, double tail) {
+  std::vector<std::pair<double, double>> lines;
+  double total = 0;
+  for (const auto* s : series)
+    for (std::size_t i = 0; i < s->work.size(); ++i) {
+      lines.emplace_back(s->work[i], s->probability[i]);
+      total += s->probability[i];
+    }
+  Range r;
+  if (lines.empty() || !(total > 0)) return r;
+  std::sort(lines.begin(), lines.end());
+  std::size_t lo = 0, hi = lines.size() - 1;
+  for (double dropped = lines[lo].second; dropped <= tail * total && lo < hi;) dropped += lines[++lo].second;
+  for (double dropped = lines[hi].second; dropped <= tail * total && hi > lo;) dropped += lines[--hi].second;
+  r.add(lines[lo].first);
+  r.add(lines[hi].first);
+  return r;
+}
+
 std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
   const std::string name = "plot_work";
   validate_series(name, f.result);
@@ -715,11 +736,19 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
   if (f.mean_work) wr.add(*f.mean_work);
   if (f.free_energy_change) wr.add(*f.free_energy_change);
   if (!wr.valid()) bad_data(name, "no finite work values");
+  // The linear panel shows the bulk: lines beyond the central 1 - 2e-3 of the probability (and
+  // their density) are visible only in the log panel, which keeps the whole range. When the
+  // two ranges differ by more than a factor of 2, the linear panel carries its own numbers.
+  Range bulk = bulk_range(series, 1e-3);
+  if (f.mean_work) bulk.add(*f.mean_work);
+  if (f.free_energy_change) bulk.add(*f.free_energy_change);
+  const bool own_range = f.probability_axis == ProbabilityAxis::linear_and_log && bulk.valid() &&
+                         bulk.hi - bulk.lo < 0.5 * (wr.hi - wr.lo);
   wr = wr.padded(0.04);
+  bulk = own_range ? bulk.padded(0.08) : wr;
   // Densities need the linear panel's right-hand axis.
   const bool has_density =
       dr.valid() && dr.hi > 0 && f.probability_axis != ProbabilityAxis::log;
-  const double offset = f.reference ? 0.004 * (wr.hi - wr.lo) : 0;
   const double headroom = 1.3;  // above the tallest stem: room for the marker labels
   const double p_top = (p_max > 0 ? p_max : 1.0) * headroom;
   const double d_top = (has_density ? dr.hi : 1.0) * headroom;
@@ -755,7 +784,7 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
   const double top_edge = legend_bottom - 0.02;
   std::vector<Panel> panels;
   auto linear = [&](double y0, bool x_numbers) {
-    Panel p{{left, right, y0, top_edge}, wr.lo, wr.hi, 0, p_top};
+    Panel p{{left, right, y0, top_edge}, bulk.lo, bulk.hi, 0, p_top};
     p.x_numbers = x_numbers;
     p.right_axis_free = has_density;
     return p;
@@ -767,7 +796,10 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
     return p;
   };
   switch (f.probability_axis) {
-    case ProbabilityAxis::linear_and_log: panels = {linear(0.42, false), logarithmic(0.39)}; break;
+    case ProbabilityAxis::linear_and_log:
+      panels = own_range ? std::vector<Panel>{linear(0.47, true), logarithmic(0.37)}
+                         : std::vector<Panel>{linear(0.42, false), logarithmic(0.39)};
+      break;
     case ProbabilityAxis::linear: panels = {linear(0.11, true)}; break;
     case ProbabilityAxis::log: panels = {logarithmic(top_edge)}; break;
   }
@@ -788,12 +820,12 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
         pljoin(w, panel.y_lo, w, panel.y_hi);
         if (panel.log_y && panels.size() > 1) return;
         const double world_per_px =
-            (wr.hi - wr.lo) / ((panel.viewport[1] - panel.viewport[0]) * page_width_px);
+            (panel.x_hi - panel.x_lo) / ((panel.viewport[1] - panel.viewport[0]) * page_width_px);
         const double width = 1.1 * char_px * text_scale * visible_length(text) * world_per_px;
         const double gap = 6 * world_per_px;
         bool left_side = prefer_left;
-        if (left_side && w - gap - width < wr.lo) left_side = false;
-        else if (!left_side && w + gap + width > wr.hi) left_side = true;
+        if (left_side && w - gap - width < panel.x_lo) left_side = false;
+        else if (!left_side && w + gap + width > panel.x_hi) left_side = true;
         pen(colour, 1);
         plptex(w + (left_side ? -gap : gap), panel.y_lo + height * (panel.y_hi - panel.y_lo), 1,
                0, left_side ? 1.0 : 0.0, text.c_str());
@@ -803,6 +835,7 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
                true, 0.83);
       if (f.mean_work)
         marker(*f.mean_work, "<W> = " + number(*f.mean_work), green, dashed, false, 0.92);
+      const double offset = f.reference ? 0.004 * (panel.x_hi - panel.x_lo) : 0;
       if (f.reference) draw_stems(*f.reference, panel.log_y, panel.y_lo, offset, orange, "○");
       draw_stems(f.result, panel.log_y, panel.y_lo, 0, blue, "●");
 

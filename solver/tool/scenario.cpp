@@ -29,13 +29,13 @@ const std::vector<std::string> top_level_keys = {"title",  "description", "parti
 Dimension parameter_dimension(std::string_view p) {
   if (p == "frequency") return Dimension::frequency();
   if (p == "centre" || p == "separation" || p == "range" || p == "width" || p == "waist" ||
-      p == "half_width" || p == "softness")
+      p == "half_width" || p == "softness" || p == "left" || p == "right")
     return Dimension::length();
-  if (p == "depth" || p == "barrier" || p == "tilt") return Dimension::energy();
+  if (p == "depth" || p == "barrier" || p == "tilt" || p == "height") return Dimension::energy();
   static const char* orders[] = {"cubic", "quartic", "quintic", "sextic", "septic", "octic"};
   for (int n = 3; n <= 8; ++n)
     if (p == orders[n - 3]) return Dimension::energy_per_length(n);
-  if (p == "scale") return Dimension::none();
+  if (p == "scale" || p == "power") return Dimension::none();
   throw ContractViolation("scenario reader: no dimension known for parameter '" + std::string(p) + "'");
 }
 
@@ -210,6 +210,7 @@ class Reader {
 
   void read_units(const toml::table& root, Scenario& s);
   void read_term(const toml::table& t, int index, Scenario& s);
+  void read_soft_walls(const toml::table& box, Scenario& s);
   // Two columns of numbers (x and V, or t and value), the first strictly increasing, times the
   // given unit factors; one header line of names may come first; '#' starts a comment.
   PotentialTable read_table_file(const toml::node& file_node, const std::string& dotted, double x_per_unit,
@@ -399,11 +400,12 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
   const toml::node* shape_node = t.get("shape");
   if (!shape_node)
     fail(t.source(), prefix + ".shape", "",
-         "a shape: harmonic, polynomial, gaussian, "
-         "double_well, morse, poschl_teller, square_well, table or formula");
+         "a shape: harmonic, polynomial, gaussian, double_well, morse, poschl_teller, "
+         "square_well, power_walls, erf_walls, table or formula");
   std::vector<std::string> shape_names;
   for (Shape sh : {Shape::harmonic, Shape::polynomial, Shape::gaussian, Shape::double_well, Shape::morse,
-                   Shape::poschl_teller, Shape::square_well, Shape::table, Shape::formula})
+                   Shape::poschl_teller, Shape::square_well, Shape::power_walls, Shape::erf_walls, Shape::table,
+                   Shape::formula})
     shape_names.emplace_back(shape_name(sh));
   const std::string shape_text = string(t, "shape", prefix + ".shape").value();
   const auto shape = shape_from_name(shape_text);
@@ -436,6 +438,8 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
               *shape == Shape::polynomial ? "a frequency >= 0" : "a frequency > 0");
     if (parameter_must_be_positive(p)) require(r->value > 0, *r, key, "a length > 0");
     if (p == "softness") require(r->value >= 0, *r, key, "a length >= 0");
+    if (p == "height") require(r->value > 0, *r, key, "an energy > 0");
+    if (p == "power") require(r->value > 0, *r, key, "a number > 0");
     parameters.emplace_back(p, r->value);
     record.parameters.push_back({p, r->given, r->value, parameter_dimension(p)});
   }
@@ -510,9 +514,49 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
   s.terms.push_back(std::move(record));
 }
 
+// [box.soft_walls]: widths (lengths, each > 0, narrowing), height (an energy > 0), power
+// (> 0, default 8), points (soft-run grid points; default: spacing <= width/6).
+void Reader::read_soft_walls(const toml::table& box, Scenario& s) {
+  const toml::node* node = box.get("soft_walls");
+  if (!node->is_table()) fail(*node, "box.soft_walls", "a table [box.soft_walls]");
+  const toml::table* t = node->as_table();
+  check_keys(*t, "box.soft_walls", {"widths", "height", "power", "points"});
+  SoftWallRequest r;
+  const toml::node* widths = t->get("widths");
+  const toml::array* a = widths ? widths->as_array() : nullptr;
+  if (!a || a->empty())
+    fail(widths ? widths->source() : t->source(), "box.soft_walls.widths", widths ? found_text(*widths) : "",
+         "an array of wall widths, widest first, e.g. [\"0.4 um\", \"0.2 um\", \"0.1 um\"]");
+  for (std::size_t i = 0; i < a->size(); ++i) {
+    const std::string key = "box.soft_walls.widths[" + std::to_string(i + 1) + "]";
+    const toml::node& n = *a->get(i);
+    const Quantity q = quantity(n, key, Dimension::length());
+    double w = 0;
+    try {
+      w = units_.to_internal(q, Dimension::length(), key, found_text(n));
+    } catch (const InputError& e) {
+      fail(n, key, e.expected, e.suggestion);
+    }
+    if (!(w > 0)) fail(n, key, "a width > 0");
+    if (!r.widths.empty() && !(w < r.widths.back())) fail(n, key, "a width below the one before it (widest first)");
+    r.widths.push_back(w);
+    s.soft_widths_given.push_back(n.is_string() ? n.as_string()->get() : found_text(n));
+  }
+  const auto height = internal(*t, "height", "box.soft_walls.height", Dimension::energy());
+  if (!height) fail(t->source(), "box.soft_walls.height", "", "the wall height, an energy (e.g. \"20 kB*uK\")");
+  require(height->value > 0, *height, "box.soft_walls.height", "an energy > 0");
+  r.shape.height = height->value;
+  if (const auto power = internal(*t, "power", "box.soft_walls.power", Dimension::none())) {
+    require(power->value > 0, *power, "box.soft_walls.power", "a number > 0");
+    r.shape.power = power->value;
+  }
+  if (const auto n = integer(*t, "points", "box.soft_walls.points", 16, 1 << 20)) r.points = std::size_t(*n);
+  s.soft_walls = r;
+}
+
 void Reader::read_box_and_grid(const toml::table& root, Scenario& s) {
   if (const toml::table* box = table(root, "box")) {
-    check_keys(*box, "box", {"left", "right"});
+    check_keys(*box, "box", {"left", "right", "soft_walls"});
     const auto left = internal(*box, "left", "box.left", Dimension::length());
     const auto right = internal(*box, "right", "box.right", Dimension::length());
     if (!left || !right)
@@ -520,6 +564,7 @@ void Reader::read_box_and_grid(const toml::table& root, Scenario& s) {
     require(right->value > left->value, *right, "box.right",
             "a wall to the right of box.left = " + left->given);
     s.spectrum.box = std::make_pair(left->value, right->value);
+    if (box->get("soft_walls")) read_soft_walls(*box, s);
   }
   // Open-grid searches start at the first term's centre.
   if (!s.potential.terms().empty())
@@ -1055,6 +1100,9 @@ Scenario Reader::read(const toml::table& root) {
   read_initial(root, s);
   read_work(root, s);
   read_sweep(root, s);
+  if (s.soft_walls && !moves_walls(s))
+    fail(*root["box"]["soft_walls"].node(), "box.soft_walls",
+         "a [protocol] that moves box.left or box.right (the comparison is of moving walls)");
 
   s.output_folder = fs::path(file_).stem().string() + "-output";
   if (const toml::table* output = table(root, "output")) {

@@ -129,6 +129,10 @@ struct Scenario {
   std::optional<ProtocolSpec> protocol;
   std::optional<WorkSettings> work;       // present when [initial] is
   std::optional<SweepSpec> sweep;
+  // [box.soft_walls]: compare the hard-wall run with soft power-law walls of these widths
+  // (compare_soft_walls, solver/moving_wall.hpp); only with moving walls.
+  std::optional<SoftWallRequest> soft_walls;
+  std::vector<std::string> soft_widths_given;  // as written, for the report
 };
 
 // Reads a scenario file. Throws InputError (with file, line, column) on every problem,

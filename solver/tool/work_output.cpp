@@ -181,10 +181,13 @@ std::optional<std::pair<double, double>> constant_speed_translation(const Scenar
 }  // namespace
 
 ScenarioWork compute_work(const Scenario& s, WorkRequest request) {
-  ScenarioWork w{build_protocol(s), std::move(request), std::nullopt, {}};
-  if (moves_walls(s))
-    w.walls = run_wall_work(build_wall_protocol(s), wall_work_request(s));
-  else
+  ScenarioWork w{build_protocol(s), std::move(request), std::nullopt, std::nullopt, {}};
+  if (moves_walls(s)) {
+    const WallProtocol walls = build_wall_protocol(s);
+    const WallWorkRequest wr = wall_work_request(s);
+    w.walls = run_wall_work(walls, wr);
+    if (s.soft_walls) w.soft_walls = compare_soft_walls(walls, *w.walls, wr, *s.soft_walls);
+  } else
     w.plain = run_work(s.potential, w.protocol, w.request);
   return w;
 }
@@ -309,6 +312,20 @@ std::vector<std::string> work_warnings(const WorkRun& run) {
     if (c.name == "Crooks ratio error")
       w.push_back("Crooks ratio error " + short_number(c.value, 3) + " above " + short_number(c.tolerance, 3) +
                   ": lower [work] thermal_tolerance or raise max_initial_levels");
+  }
+  if (const SoftWallComparison* c = run.soft_walls) {
+    for (std::size_t i = 0; i < c->runs.size(); ++i) {
+      const SoftWallRun& r = c->runs[i];
+      if (!r.converged)
+        w.push_back("soft walls of width " + run.scenario.soft_widths_given[i] + ": numerical error " +
+                    short_number(r.numerical_error, 3) + " after " + std::to_string(r.steps) +
+                    " steps: set [box.soft_walls] points higher, or widen the walls");
+      if (i > 0 && !(r.distance.distance < c->runs[i - 1].distance.distance))
+        w.push_back("soft walls do not approach the hard walls from width " + run.scenario.soft_widths_given[i - 1] +
+                    " to " + run.scenario.soft_widths_given[i] + " (line distance " +
+                    short_number(c->runs[i - 1].distance.distance, 3) + " -> " + short_number(r.distance.distance, 3) +
+                    "): raise the wall height, or the widths are not yet small against the box");
+    }
   }
   return w;
 }
@@ -455,6 +472,27 @@ nlohmann::ordered_json walls_json(const WorkRun& run) {
     j["sudden_expansion"] = {{"mean_exp_minus_beta_work", s->average},
                              {"partition_ratio", s->partition_ratio},
                              {"ratio", s->ratio}};
+  j["soft_walls"] = nullptr;
+  if (const SoftWallComparison* c = run.soft_walls) {
+    const SoftWallRequest& req = *run.scenario.soft_walls;
+    nlohmann::ordered_json runs = nlohmann::ordered_json::array();
+    for (const SoftWallRun& r : c->runs)
+      runs.push_back({{"width_um", d.length(r.width)},
+                      {"points", r.points},
+                      {"steps", r.steps},
+                      {"mean_work", d.energy(r.mean_work)},
+                      {"mean_work_difference", d.energy(r.mean_work_difference)},
+                      {"line_distance", r.distance.distance},
+                      {"max_work_shift", d.energy(r.distance.max_work_shift)},
+                      {"numerical_error", r.numerical_error},
+                      {"converged", r.converged}});
+    j["soft_walls"] = {{"height", d.energy(req.shape.height)},
+                       {"power", req.shape.power},
+                       {"hard_mean_work", d.energy(c->hard_mean_work)},
+                       {"runs", runs},
+                       {"observed_order", number_or_null(c->observed_order)},
+                       {"extrapolated_mean_work", number_or_null(d.energy(c->extrapolated_mean_work))}};
+  }
   return j;
 }
 
@@ -767,6 +805,25 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
       row("Z_B/Z_A", short_number(w.sudden->partition_ratio, 10) + ", ratio " + short_number(w.sudden->ratio, 6));
     } else {
       out << "\nexact reference: none (the walls do not move at constant speed through a flat box)\n";
+    }
+    if (const SoftWallComparison* c = run.soft_walls) {
+      out << "\nsoft walls: height " << e.text(run.scenario.soft_walls->shape.height) << " * ((x - wall)/width)^"
+          << short_number(run.scenario.soft_walls->shape.power, 4) << " beyond each wall, on the ordinary grid\n";
+      char line[200];
+      std::snprintf(line, sizeof line, "  %-12s %7s %8s %16s %16s %14s %10s\n", "width", "points", "steps",
+                    ("<W> " + e.d.e).c_str(), "<W> - hard", "line distance", "numerics");
+      out << line;
+      for (std::size_t i = 0; i < c->runs.size(); ++i) {
+        const SoftWallRun& r = c->runs[i];
+        std::snprintf(line, sizeof line, "  %-12s %7zu %8d %16s %16s %14s %10s\n",
+                      run.scenario.soft_widths_given[i].c_str(), r.points, r.steps, short_number(e.show(r.mean_work), 8).c_str(),
+                      short_number(e.show(r.mean_work_difference), 3).c_str(), short_number(r.distance.distance, 3).c_str(),
+                      short_number(r.numerical_error, 2).c_str());
+        out << line;
+      }
+      if (std::isfinite(c->extrapolated_mean_work))
+        row("width -> 0", "<W> extrapolated " + e.text(c->extrapolated_mean_work, 6) + " (observed order " +
+                              short_number(c->observed_order, 3) + "), hard walls " + e.text(c->hard_mean_work, 6));
     }
   } else {
     out << "\nharmonic reference: none (the protocol is neither a rigid translation nor a change of the one "

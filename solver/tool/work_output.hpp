@@ -29,6 +29,7 @@ struct WorkRun {
   const WorkResult& result;
   const WallWorkResult* walls = nullptr;  // moving walls: the exact references (Doescher-Rice, sudden)
   const struct ToleranceChoice* tolerance = nullptr;  // --tolerance: what was chosen
+  const SoftWallComparison* soft_walls = nullptr;     // [box.soft_walls]: soft against hard walls
 };
 
 // The work calculation of one scenario: run_work, or run_wall_work when the protocol moves a
@@ -38,9 +39,12 @@ struct ScenarioWork {
   Protocol protocol;  // build_protocol(s): the potential's schedules
   WorkRequest request;
   std::optional<WallWorkResult> walls;
+  std::optional<SoftWallComparison> soft_walls;  // moving walls with [box.soft_walls]
   WorkResult plain;
   const WorkResult& result() const { return walls ? walls->work : plain; }
-  WorkRun run(const Scenario& s) const { return {s, protocol, request, result(), walls ? &*walls : nullptr}; }
+  WorkRun run(const Scenario& s) const {
+    return {s, protocol, request, result(), walls ? &*walls : nullptr, nullptr, soft_walls ? &*soft_walls : nullptr};
+  }
 };
 ScenarioWork compute_work(const Scenario& s, WorkRequest request);
 
