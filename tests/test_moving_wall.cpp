@@ -176,7 +176,9 @@ TEST_CASE("soft-wall term: shape, parameters, schedule address", "[moving_wall]"
   CHECK(v(-0.2) == Approx(500 * 64).epsilon(1e-14));    // two widths beyond: height 2^6
   v.set_parameter("walls.right", 1.5);
   CHECK(v(1.2) == 0.0);
-  CHECK_THROWS_AS(soft_walls("walls", {500, 5}, 0.1, 0, 1), InputError);
+  CHECK(Potential({soft_walls("walls", {500, 5}, 0.1, 0.0, 1.0)})(1.2) == Approx(500 * 32).epsilon(1e-14));  // odd powers too
+  CHECK_THROWS_AS(soft_walls("walls", {500, -2}, 0.1, 0, 1), InputError);
+  CHECK_THROWS_AS(soft_walls("walls", {500, 8}, 0.1, 1, 0.5), InputError);  // right wall left of the left one
   const WallProtocol p(1, Schedule::constant("walls.left", 0), Schedule::linear("walls.right", 1, 2));
   CHECK(p.as_protocol().at(v, 0.5).parameter("walls.right") == Approx(1.5));
   CHECK_THROWS_AS(WallProtocol(1, Schedule::constant("walls.left", 0), Schedule::linear("box.right", 1, 2)), InputError);

@@ -157,13 +157,14 @@ void add_work_command(CLI::App& app) {
       "harmonic prediction and the Jarzynski and Crooks checks; writes lines.csv, histogram.csv, density.csv, "
       "transition.csv, characteristic.csv, summary.json and figures");
   sub->add_option("scenario", command->scenario,
-                  "scenario file (TOML) with [protocol] and [initial]; \"default\" or nothing: the built-in one")
+                  "scenario file (TOML) with [protocol] and [initial], or \"default\" for the built-in one")
       ->required();
   add_work_options(sub, command->output, command->quiet);
   sub->add_option("--tolerance", command->tolerance,
                   "choose the time step and grid for this bound on the distance of P(W) from its converged value "
                   "(a total-variation bound over the work lines, e.g. 1e-4): steps are doubled and the grid refined "
-                  "until two runs agree to half of it; the report says what was chosen and the error estimate");
+                  "until two runs agree to half of it, and the eigenbasis ODE is tried where its estimated cost is "
+                  "lower; the report says what was chosen, why, and the error estimate");
   sub->callback([command] {
     WorkCommand c = *command;
     c.show_progress = !c.quiet && ProgressBar::terminal_allows();

@@ -2,6 +2,7 @@
 #include "solver/tool/work_output.hpp"
 
 #include <algorithm>
+#include <chrono>
 #include <cmath>
 #include <cstdio>
 #include <limits>
@@ -195,9 +196,12 @@ ScenarioWork compute_work(const Scenario& s, WorkRequest request) {
 ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request, double tolerance) {
   ToleranceChoice c{tolerance, s, std::nullopt, 0, 0, 0, 0, 0, {}};
   request.time_step_check = false;  // the refinements below are the checks
+  double last_seconds = 0;
   auto run = [&](const Scenario& sc, WorkRequest r) {
     r.spectrum = work_request(sc).spectrum;  // the grid of this scenario
+    const auto start = std::chrono::steady_clock::now();
     ScenarioWork w = compute_work(sc, r);
+    last_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
     c.trail.push_back(std::to_string(w.result().steps) + " steps, " + std::to_string(w.result().grid.size()) +
                       " points");
     return w;
@@ -246,8 +250,44 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
     coarse = std::move(fine);
     if (c.grid_part <= tolerance / 2) break;
   }
+  c.split_seconds = last_seconds;
   c.steps = coarse.result().steps;
   c.points = coarse.result().grid.size();
+  c.method = coarse.result().method;
+  // The eigenbasis ODE is tried only when its arithmetic could be lower: Dormand-Prince steps
+  // are held below ~3/E_K by stability alone (K = twice the levels, E_K ~ twice the top level
+  // above the ground), each of 6 evaluations of n K^2 for M(t); against the split-operator
+  // run's steps x substeps x columns x (two FFTs, 5 n log2 n each, and the phases).
+  const WorkResult& split = coarse.result();
+  if (split.steps > 0 && !moves_walls(s)) {
+    const auto& energies = split.initial_spectrum.energies;
+    const double n = double(split.grid.size()), levels = 2.0 * double(energies.size());
+    const double columns = double(split.forward.initial_weights.size());
+    const double top = 2 * (energies(energies.size() - 1) - energies(0));
+    const double ode = std::max(1.0, s.protocol->duration * top / 3) * 6 * (n * levels * levels + 8 * levels * levels * columns);
+    const double substeps = split.method.find("order 4") != std::string::npos ? 3 : 1;
+    const double fft = double(split.steps) * substeps * columns * (10 * n * std::log2(n) + 30 * n);
+    c.ode_cost_ratio = ode / fft;
+  }
+  if (c.ode_cost_ratio < 1) {
+    WorkRequest e = request;
+    e.integrator = Integrator::eigenbasis;
+    e.ode = {tolerance / 50, tolerance / 50};
+    ScenarioWork basis = run(c.scenario, e);
+    const double seconds = last_seconds;
+    e.ode = {tolerance / 500, tolerance / 500};
+    e.eigenbasis_levels = 3 * int(basis.result().initial_spectrum.energies.size()) / 2;
+    const ScenarioWork finer = run(c.scenario, e);
+    c.ode_part = line_distance(basis.result().forward, finer.result().forward).distance;
+    const double agreement = line_distance(basis.result().forward, coarse.result().forward).distance;
+    c.trail.back() += ": distance to the coarser ODE run " + short_number(c.ode_part, 3) + ", to the split-operator run " +
+                      short_number(agreement, 3);
+    c.eigenbasis_seconds = seconds;
+    if (c.ode_part + c.grid_part <= tolerance && agreement <= tolerance && seconds < c.split_seconds) {
+      c.method = basis.result().method;
+      coarse = std::move(basis);
+    }
+  }
   c.work = std::move(coarse);
   c.scenario.spectrum.points = c.points;
   return c;
@@ -453,7 +493,9 @@ nlohmann::ordered_json tolerance_json(const WorkRun& run) {
   return {{"requested", t.tolerance},  {"estimate", t.estimate()}, {"reached", t.reached()},
           {"time_step_part", t.time_step_part}, {"grid_part", t.grid_part},
           {"max_work_shift", display(run.scenario).energy(t.max_work_shift)},
-          {"steps", t.steps}, {"points", t.points}, {"runs", t.trail}};
+          {"steps", t.steps}, {"points", t.points}, {"method", t.method},
+          {"ode_part", number_or_null(t.ode_part)}, {"ode_cost_ratio", number_or_null(t.ode_cost_ratio)}, {"split_seconds", t.split_seconds},
+          {"eigenbasis_seconds", number_or_null(t.eigenbasis_seconds)}, {"runs", t.trail}};
 }
 
 // Moving walls: the exact references (null where they do not apply), display energy units.
@@ -772,10 +814,19 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
     const ToleranceChoice& t = *run.tolerance;
     out << "\nnumerics chosen for --tolerance " << short_number(t.tolerance, 3) << " (distance of P(W) over the lines)\n";
     for (const auto& line : t.trail) row("run", line);
-    row("chosen", std::to_string(t.steps) + " steps, " + std::to_string(t.points) + " points");
-    row("estimate", short_number(t.estimate(), 3) + " = " + short_number(t.time_step_part, 3) + " (time step) + " +
-                        short_number(t.grid_part, 3) + " (grid); lines move by up to " +
-                        e.text(t.max_work_shift, 3) + (t.reached() ? "" : ": the tolerance is NOT reached"));
+    const bool ode = t.method.rfind("eigenbasis", 0) == 0;
+    row("chosen", t.method + ", " + (ode ? std::string() : std::to_string(t.steps) + " steps, ") +
+                      std::to_string(t.points) + " points");
+    if (!std::isnan(t.eigenbasis_seconds))
+      row("cost", "split-operator run " + short_number(t.split_seconds, 2) + " s, eigenbasis ODE run " +
+                      short_number(t.eigenbasis_seconds, 2) + " s (wall time here)");
+    else if (std::isfinite(t.ode_cost_ratio))
+      row("method", "eigenbasis ODE not tried: its stability limit alone needs about " +
+                        short_number(t.ode_cost_ratio, 2) + " times the arithmetic of the split-operator run");
+    row("estimate", short_number(t.estimate(), 3) + " = " + short_number(ode ? t.ode_part : t.time_step_part, 3) +
+                        (ode ? " (ODE tolerance and basis)" : " (time step)") + " + " + short_number(t.grid_part, 3) +
+                        " (grid); lines move by up to " + e.text(t.max_work_shift, 3) +
+                        (t.reached() ? "" : ": the tolerance is NOT reached"));
   }
   if (r.harmonic) {
     const auto& h = *r.harmonic;

@@ -66,7 +66,19 @@ struct ToleranceChoice {
   double time_step_part = 0, grid_part = 0;  // the last differences (line_distance)
   double max_work_shift = 0;                 // of the last grid refinement (internal energy)
   std::vector<std::string> trail;            // one line per run: steps, points, difference
-  double estimate() const { return time_step_part + grid_part; }
+  // Method: after the grid search, the eigenbasis ODE is tried on the chosen grid where it
+  // applies (tau > 0, walls standing): at ODE tolerances T/50 and, with 3/2 the basis, T/500;
+  // their distance is its own error (ode_part, NaN if not tried). It is chosen when its
+  // estimate ode_part + grid_part is within T, it agrees with the split-operator run to T, and
+  // its run took less wall time than the split-operator run (both timed here, one after the
+  // other on the same machine: the choice can differ between machines).
+  std::string method;                        // of the returned run (WorkResult::method)
+  double ode_part = std::numeric_limits<double>::quiet_NaN();
+  double split_seconds = 0, eigenbasis_seconds = std::numeric_limits<double>::quiet_NaN();
+  // Estimated arithmetic of the ODE over the split-operator run (NaN: not applicable); the ODE
+  // is tried only below 1 (see compute_work_to_tolerance).
+  double ode_cost_ratio = std::numeric_limits<double>::quiet_NaN();
+  double estimate() const { return (method.rfind("eigenbasis", 0) == 0 ? ode_part : time_step_part) + grid_part; }
   bool reached() const { return estimate() <= tolerance; }
 };
 ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request, double tolerance);
