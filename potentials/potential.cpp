@@ -133,7 +133,7 @@ Term::Term(std::string name, Shape shape, const std::vector<std::pair<std::strin
   if (shape == Shape::power_walls || shape == Shape::erf_walls) {
     if (!(parameter("width") > 0)) throw InputError(name_ + ".width", number_text(parameter("width")), "a wall width > 0");
     if (!(parameter("height") > 0))
-      throw InputError(name_ + ".height", number_text(parameter("height")), "a wall height > 0");
+      throw InputError(name_ + ".height", number_text(parameter("height")), "a wall height > 0 (height has no default)");
     if (!(parameter("right") > parameter("left")))
       throw InputError(name_ + ".right", number_text(parameter("right")),
                        "a right wall beyond the left one (left = " + number_text(parameter("left")) + ")");

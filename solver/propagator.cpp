@@ -310,9 +310,16 @@ int BatchedSplitStep::block_columns() const { return impl_->block; }
 
 void BatchedSplitStep::apply(Eigen::MatrixXcd& state, const complex* before, const complex* kinetic,
                              const complex* after) {
+  const complex* kicks[2] = {before, after};
+  apply_many(state, 1, kicks, &kinetic);
+}
+
+void BatchedSplitStep::apply_many(Eigen::MatrixXcd& state, int substeps, const complex* const* kicks,
+                                  const complex* const* kinetic) {
   Impl& p = *impl_;
   TRAPWORK_EXPECT(state.rows() == Eigen::Index(p.n) && state.cols() == p.columns,
                   "BatchedSplitStep::apply: state is not points x columns");
+  TRAPWORK_EXPECT(substeps >= 1, "BatchedSplitStep::apply_many needs substeps >= 1");
   const std::size_t n = p.n;
   auto task = [&](int worker, int b, int next) {
     const int first = b * p.block, count = std::min(p.block, p.columns - first);
@@ -320,12 +327,17 @@ void BatchedSplitStep::apply(Eigen::MatrixXcd& state, const complex* before, con
     const int next_first = next < 0 ? 0 : next * p.block, next_count = next < 0 ? 0 : std::min(p.block, p.columns - next_first);
     auto ahead = [&](int c) { return c < next_count ? state.col(next_first + c).data() : nullptr; };
     complex* buffer = reinterpret_cast<complex*>(p.scratch[std::size_t(worker)]);
-    for (int c = 0; c < count; ++c) multiply(state.col(first + c).data(), before, buffer + std::size_t(c) * n, n);
-    p.execute(p.forward[shape], buffer);
-    for (int c = 0; c < count; ++c) multiply(buffer + std::size_t(c) * n, kinetic, buffer + std::size_t(c) * n, n);
-    p.execute(p.backward[shape], buffer);
+    auto column = [&](int c) { return buffer + std::size_t(c) * n; };
+    for (int c = 0; c < count; ++c) multiply(state.col(first + c).data(), kicks[0], column(c), n);
+    for (int s = 0; s < substeps; ++s) {
+      p.execute(p.forward[shape], buffer);
+      for (int c = 0; c < count; ++c) multiply(column(c), kinetic[s], column(c), n);
+      p.execute(p.backward[shape], buffer);
+      if (s + 1 < substeps)
+        for (int c = 0; c < count; ++c) multiply(column(c), kicks[s + 1], column(c), n);
+    }
     // while the block is written back, the next one is fetched
-    for (int c = 0; c < count; ++c) multiply(buffer + std::size_t(c) * n, after, state.col(first + c).data(), n, ahead(c));
+    for (int c = 0; c < count; ++c) multiply(column(c), kicks[substeps], state.col(first + c).data(), n, ahead(c));
   };
   p.pool.run(p.blocks, task);
 }
@@ -350,9 +362,14 @@ const std::vector<double>& SplitOperatorPropagator::potential_at(double t) {
   return samples_.at(t, [&](double time, std::vector<double>& v) { path_.sample(time, v); });
 }
 
+// Least recently used first: a hit moves to the back, so the phases of the last few lookups
+// stay (moving a vector keeps its data pointer).
 const std::vector<std::complex<double>>& SplitOperatorPropagator::kinetic_phase(double dt) {
-  for (const auto& k : kinetic_phases_)
-    if (k.dt == dt) return k.phase;
+  for (auto k = kinetic_phases_.begin(); k != kinetic_phases_.end(); ++k)
+    if (k->dt == dt) {
+      std::rotate(k, k + 1, kinetic_phases_.end());
+      return kinetic_phases_.back().phase;
+    }
   if (kinetic_phases_.size() >= 4) kinetic_phases_.erase(kinetic_phases_.begin());
   KineticPhase k{dt, std::vector<std::complex<double>>(kinetic_.size())};
   for (std::size_t j = 0; j < kinetic_.size(); ++j) k.phase[j] = std::polar(normalisation_, -kinetic_[j] * dt);
@@ -375,6 +392,74 @@ void SplitOperatorPropagator::strang(State& state, double t, double dt) {
   kicks_.update(t, dt, [&](double time) -> const std::vector<double>& { return potential_at(time); });
   max_phase_ = std::max(max_phase_, kicks_.spread());
   pass_.apply(state, kicks_.before(), kinetic_phase(dt).data(), kicks_.after());
+}
+
+int SplitOperatorPropagator::chunk_substeps() const {
+  // kicks of a chunk near 1 MiB, at most 64 substeps, a whole number of steps
+  const int per_step = order_ == SplitOrder::strang ? 1 : 3;
+  const std::size_t budget = (std::size_t(1) << 20) / (path_.grid().size() * sizeof(complex));
+  const int substeps = int(std::clamp<std::size_t>(budget, 1, 64));
+  return std::max(1, substeps / per_step) * per_step;
+}
+
+void SplitOperatorPropagator::steps(State& state, double t_begin, double t_end, int total, int first, int count) {
+  TRAPWORK_EXPECT(state.rows() == Eigen::Index(path_.grid().size()) && state.cols() == columns_,
+                  "SplitOperatorPropagator::steps: state is not grid points x columns");
+  TRAPWORK_EXPECT(total >= 1 && first >= 0 && count >= 0 && first + count <= total,
+                  "SplitOperatorPropagator::steps: steps outside the subdivision");
+  const std::size_t n = path_.grid().size();
+  const bool fourth = order_ == SplitOrder::fourth;
+  const int per_step = fourth ? 3 : 1, chunk = chunk_substeps();
+  const double dt = (t_end - t_begin) / total;
+  // nominal substep lengths of one step and their kinetic phases (kinetic_phase keeps the
+  // last few looked up, so the pointers stay valid)
+  const double g1 = triple_jump_g1(), g0 = triple_jump_g0();
+  const double h[3] = {fourth ? g1 * dt : dt, g0 * dt, g1 * dt};
+  const complex* phase[3];
+  for (int k = 0; k < per_step; ++k) phase[k] = kinetic_phase(h[k]).data();
+  chunk_kicks_.resize(std::size_t(chunk + 1) * n);
+  kick_rows_.resize(std::size_t(chunk + 1));
+  kinetic_rows_.resize(std::size_t(chunk));
+  max_phase_ = 0;
+  for (int begin = first; begin < first + count;) {
+    const int end = std::min(first + count, begin + chunk / per_step);
+    const int substeps = (end - begin) * per_step;
+    // boundary b of the chunk: time, and the lengths of the substeps before and after it
+    int b = 0;
+    auto kick = [&](int step, double t, double before, double after) {
+      try {
+        path_.sample(t, chunk_samples_);
+      } catch (const PhysicsError& e) {
+        throw StepError(step, e.what());
+      }
+      complex* row = chunk_kicks_.data() + std::size_t(b) * n;
+      const double w = (before + after) / 2;
+      double lo = chunk_samples_[0], hi = chunk_samples_[0];
+      for (std::size_t j = 0; j < n; ++j) {
+        const double v = chunk_samples_[j];
+        row[j] = std::polar(1.0, -v * w);
+        lo = std::min(lo, v);
+        hi = std::max(hi, v);
+      }
+      max_phase_ = std::max(max_phase_, (hi - lo) * std::max(std::abs(before), std::abs(after)) / 2);
+      kick_rows_[std::size_t(b)] = row;
+      if (b < substeps) kinetic_rows_[std::size_t(b)] = phase[b % per_step];
+      ++b;
+    };
+    kick(begin, subdivision_time(t_begin, t_end, total, begin), 0, h[0]);
+    for (int i = begin; i < end; ++i) {
+      const double t = subdivision_time(t_begin, t_end, total, i), t_next = subdivision_time(t_begin, t_end, total, i + 1);
+      const double step_dt = t_next - t;
+      max_phase_ = std::max(max_phase_, path_.grid().max_kinetic() * std::abs(step_dt));
+      if (fourth) {  // the inner boundaries of the triple jump, at triple_jump's times
+        kick(i, t + g1 * step_dt, h[0], h[1]);
+        kick(i, t + (g1 + g0) * step_dt, h[1], h[2]);
+      }
+      kick(i, t_next, h[per_step - 1], i + 1 < end ? h[0] : 0);
+    }
+    pass_.apply_many(state, substeps, kick_rows_.data(), kinetic_rows_.data());
+    begin = end;
+  }
 }
 
 void SplitOperatorPropagator::step(State& state, double t, double dt) {

@@ -10,9 +10,17 @@
 //                          a step backwards in time); valid for t, t + dt inside [0, tau]
 //   p.order()              global order in dt of the error of one step's scheme
 //
-// Models: SplitOperatorPropagator (grid, order 2 or 4) and EigenbasisPropagator (truncated
-// eigenbasis ODE, Boost.Odeint Dormand-Prince 5(4) with error control, reported order 5).
-// Swapping one for the other is the cross-check. propagate() owns the loop and the observer.
+// A MultiStepPropagator also offers
+//   p.steps(state, t_begin, t_end, total, first, count)
+//                          advances state through steps first .. first + count - 1 of the
+//                          uniform subdivision of [t_begin, t_end] into `total` steps (times
+//                          subdivision_time), as many step() calls would, up to rounding; a
+//                          PhysicsError it throws is a StepError naming the failing step.
+//
+// Models: SplitOperatorPropagator (grid, order 2 or 4; multi-step) and EigenbasisPropagator
+// (truncated eigenbasis ODE, Boost.Odeint Dormand-Prince 5(4) with error control, reported
+// order 5). Swapping one for the other is the cross-check. propagate() owns the loop and the
+// observer.
 #include <Eigen/Dense>
 #include <algorithm>
 #include <cmath>
@@ -43,12 +51,49 @@ concept Propagator = requires(P& p, const P& cp, typename P::State& state, doubl
   { cp.order() } -> std::convertible_to<int>;
 };
 
+template <class P>
+concept MultiStepPropagator =
+    Propagator<P> && requires(P& p, typename P::State& state, double t, int i) {
+      { p.steps(state, t, t, i, i, i) } -> std::same_as<void>;
+    };
+
+// Time i of the uniform subdivision of [t_begin, t_end] into `steps` steps:
+// t_begin + i (t_end - t_begin)/steps, computed from i (not accumulated), exactly t_end for
+// i = steps.
+inline double subdivision_time(double t_begin, double t_end, int steps, int i) {
+  return i == steps ? t_end : t_begin + i * ((t_end - t_begin) / steps);
+}
+
+// A PhysicsError of step `step()` (0-based index in the subdivision) of a multi-step call;
+// what() is the cause's message.
+class StepError : public PhysicsError {
+ public:
+  StepError(int step, const std::string& what) : PhysicsError(what), step_(step) {}
+  int step() const { return step_; }
+
+ private:
+  int step_;
+};
+
 // An observer is any callable taking (const State&, double t), returning void or bool;
 // returning false stops the propagation. The default does nothing.
 struct NoObserver {
   template <class State>
   void operator()(const State&, double) const {}
 };
+
+// An observer called only every `interval` steps (at t_begin, after every interval-th step
+// and after the last step), so that propagate() can hand the steps in between to a
+// multi-step propagator at once. Made by observe_every().
+template <class Observer>
+struct ObserveEvery {
+  int interval;
+  Observer observer;
+};
+template <class Observer>
+ObserveEvery<std::decay_t<Observer>> observe_every(int interval, Observer&& observer) {
+  return {interval, std::forward<Observer>(observer)};
+}
 
 // Throws PhysicsError naming the first sample that is NaN or infinite:
 // "potential at <coordinate> = x_j is nan at t = ...". points[j] is the coordinate of v[j].
@@ -66,62 +111,92 @@ int first_nonfinite_column(const Eigen::MatrixXcd& state);
 // under 1% of the loop.
 inline constexpr int finite_check_interval = 64;
 
-// Calls observer(state, t) at t = t_begin + i dt, dt = (t_end - t_begin)/steps, for
-// i = 0 .. steps (the last time is exactly t_end), and steps in between. Each time is
-// computed from i, not accumulated. Returns the number of steps taken (fewer than `steps`
-// when the observer returned false). steps must be >= 1.
+namespace detail {
+template <class T>
+struct is_observe_every : std::false_type {};
+template <class O>
+struct is_observe_every<ObserveEvery<O>> : std::true_type {};
+}  // namespace detail
+
+// Calls observer(state, t) at t = subdivision_time(t_begin, t_end, steps, i) for
+// i = 0 .. steps (the last time is exactly t_end; an ObserveEvery observer only at i = 0, the
+// multiples of its interval and i = steps), and steps in between. Returns the number of steps
+// taken (fewer than `steps` when the observer returned false). steps must be >= 1.
+// A multi-step propagator with NoObserver or an ObserveEvery observer is advanced by steps()
+// from one observation or finite check to the next; otherwise by step() one step at a time.
 // Guards: a PhysicsError thrown by a step (for example a NaN or infinite potential sample) is
-// rethrown with the step index and time in front. For matrix states the state is checked for
-// NaN or infinity at the start, every finite_check_interval steps and after the last step; a bad column
-// throws PhysicsError naming the column, the step and the time where it was found and the
-// last step where the whole state was still finite.
+// rethrown with the step index and time in front (the state is then left at an earlier step).
+// For matrix states the state is checked for NaN or infinity at the start, every
+// finite_check_interval steps and after the last step; a bad column throws PhysicsError naming
+// the column, the step and the time where it was found and the last step where the whole state
+// was still finite.
 template <Propagator P, class Observer = NoObserver>
 int propagate(P& propagator, typename P::State& state, double t_begin, double t_end, int steps,
               Observer&& observer = {}) {
   TRAPWORK_EXPECT(steps >= 1, "propagate needs steps >= 1");
   using State = typename P::State;
+  using O = std::remove_cvref_t<Observer>;
+  constexpr bool silent = std::is_same_v<O, NoObserver>, sparse = detail::is_observe_every<O>::value;
+  constexpr bool batched = MultiStepPropagator<P> && (silent || sparse);
+  int interval = 1;  // steps between observations
+  if constexpr (silent) interval = steps;
+  if constexpr (sparse) interval = std::max(1, observer.interval);
   auto notify = [&](double t) -> bool {
-    if constexpr (std::is_same_v<std::invoke_result_t<Observer&, const State&, double>, void>) {
-      observer(std::as_const(state), t);
+    if constexpr (silent) {
       return true;
     } else {
-      return static_cast<bool>(observer(std::as_const(state), t));
+      auto& call = [&]() -> auto& {
+        if constexpr (sparse) return observer.observer;
+        else return observer;
+      }();
+      if constexpr (std::is_same_v<std::invoke_result_t<decltype(call), const State&, double>, void>) {
+        call(std::as_const(state), t);
+        return true;
+      } else {
+        return static_cast<bool>(call(std::as_const(state), t));
+      }
     }
   };
-  auto where = [&](int step, double t) {
+  auto time = [&](int i) { return subdivision_time(t_begin, t_end, steps, i); };
+  auto where = [&](int step) {
     return "propagation step " + std::to_string(step) + " of " + std::to_string(steps) + " (t = " +
-           format_number(t) + ")";
+           format_number(time(step)) + ")";
   };
   int last_finite = 0;  // steps taken when the state was last found finite
-  auto check_finite = [&](int taken, double t) {
+  auto check_finite = [&](int taken) {
     if constexpr (std::is_convertible_v<const State&, const Eigen::MatrixXcd&>) {
       const int column = first_nonfinite_column(state);
       if (column < 0) {
         last_finite = taken;
       } else if (taken == 0) {
         throw PhysicsError("propagation: the initial state column " + std::to_string(column) +
-                           " holds NaN or infinity at t = " + format_number(t));
+                           " holds NaN or infinity at t = " + format_number(time(0)));
       } else {
-        throw PhysicsError(where(taken, t) + ": state column " + std::to_string(column) + " (initial state " +
+        throw PhysicsError(where(taken) + ": state column " + std::to_string(column) + " (initial state " +
                            std::to_string(column) + " of the batch) holds NaN or infinity (finite at step " +
                            std::to_string(last_finite) + "): the time step may be too long for the potential, " +
                            "or the potential is singular");
       }
     }
   };
-  const double dt = (t_end - t_begin) / steps;
-  check_finite(0, t_begin);
+  check_finite(0);
   if (!notify(t_begin)) return 0;
-  for (int i = 0; i < steps; ++i) {
-    const double t = t_begin + i * dt;
-    const double t_next = i + 1 == steps ? t_end : t_begin + (i + 1) * dt;
+  for (int i = 0; i < steps;) {
+    int next = i + 1;  // the next check, observation or the end
+    if constexpr (batched)
+      next = std::min({steps, (i / finite_check_interval + 1) * finite_check_interval, (i / interval + 1) * interval});
     try {
-      propagator.step(state, t, t_next - t);
+      if constexpr (batched)
+        propagator.steps(state, t_begin, t_end, steps, i, next - i);
+      else
+        propagator.step(state, time(i), time(next) - time(i));
     } catch (const PhysicsError& e) {
-      throw PhysicsError(where(i + 1, t_next) + ": " + e.what());
+      const auto* failed = dynamic_cast<const StepError*>(&e);
+      throw PhysicsError(where(failed ? failed->step() + 1 : next) + ": " + e.what());
     }
-    if ((i + 1) % finite_check_interval == 0 || i + 1 == steps) check_finite(i + 1, t_next);
-    if (!notify(t_next)) return i + 1;
+    i = next;
+    if (i % finite_check_interval == 0 || i == steps) check_finite(i);
+    if ((i % interval == 0 || i == steps) && !notify(time(i))) return i;
   }
   return steps;
 }
@@ -196,10 +271,11 @@ class RecentSamples {
 // (1990), from memory): strang(t, g1 dt), strang(t + g1 dt, g0 dt), strang(t + (g1+g0) dt,
 // g1 dt) with g1 = 1/(2 - 2^{1/3}), g0 = -2^{1/3}/(2 - 2^{1/3}); symmetric and of order 4. The
 // last substep ends exactly at t + dt.
+inline double triple_jump_g1() { return 1 / (2 - std::cbrt(2.0)); }
+inline double triple_jump_g0() { return -std::cbrt(2.0) / (2 - std::cbrt(2.0)); }
 template <class Strang>
 void triple_jump(Strang&& strang, double t, double dt) {
-  const double cbrt2 = std::cbrt(2.0);
-  const double g1 = 1 / (2 - cbrt2), g0 = -cbrt2 / (2 - cbrt2);
+  const double g1 = triple_jump_g1(), g0 = triple_jump_g0();
   strang(t, g1 * dt);
   strang(t + g1 * dt, g0 * dt);
   strang(t + (g1 + g0) * dt, t + dt - (t + (g1 + g0) * dt));
@@ -207,12 +283,13 @@ void triple_jump(Strang&& strang, double t, double dt) {
 
 // The fused split-operator pass over a batch of columns, shared by the grid propagators:
 //   psi_c <- after .* B^-1[ kinetic .* B[ before .* psi_c ] ]   for every column c,
+// or several such substeps in a row per column (apply_many: temporal blocking),
 // B the unnormalised transform of the grid (FFT forward and backward, or DST-I = FFTW RODFT00,
 // its own inverse, on the real and imaginary parts for a hard-walled box); `kinetic` carries
 // exp(-i T dt) and the transform normalisation. Cache blocking (common practice): columns go
 // in blocks of block_columns(), each copied (times `before`) into a worker's own aligned
 // scratch, transformed, multiplied and transformed back while in cache, and written back
-// (times `after`): one pass over the states per step. Plans (FFTW_MEASURE, one block shape and
+// (times `after`): one pass over the states per call, however many substeps. Plans (FFTW_MEASURE, one block shape and
 // the remainder's, made once on the scratch before any data is written) are executed with
 // new-array execution, which FFTW allows from several threads at once.
 // The block split depends only on (points, columns), never on the thread count, and a block's
@@ -234,6 +311,12 @@ class BatchedSplitStep {
   // state: points x columns; before, kinetic, after: `points` factors each.
   void apply(Eigen::MatrixXcd& state, const std::complex<double>* before, const std::complex<double>* kinetic,
              const std::complex<double>* after);
+  // `substeps` >= 1 substeps while each block is in cache: for every column c, for s = 0 ..
+  // substeps - 1, psi_c <- B^-1[ kinetic[s] .* B[ kicks[s] .* psi_c ] ], then
+  // psi_c <- kicks[substeps] .* psi_c. kicks: substeps + 1 arrays, kinetic: substeps arrays, of
+  // `points` factors each. apply() is the case substeps = 1.
+  void apply_many(Eigen::MatrixXcd& state, int substeps, const std::complex<double>* const* kicks,
+                  const std::complex<double>* const* kinetic);
   std::size_t points() const;
   int columns() const;
   int threads() const;
@@ -289,7 +372,16 @@ class StrangKicks {
 // Construction plans the transforms once (BatchedSplitStep below); step() only computes the
 // potential half kicks (reusing the previous step's second kick when consecutive steps share
 // t and dt) and runs the fused pass, spread over `threads` worker threads owned by the
-// propagator. Results do not depend on `threads`. Move-only.
+// propagator. steps() (temporal blocking) goes through the steps in chunks of up to
+// chunk_substeps() Strang substeps: it computes the kicks of a chunk first, merging the second
+// half kick of each substep with the first of the next into one kick exp(-i V(t) (h_a + h_b)/2)
+// (h_a, h_b the lengths of the substeps that meet at t; exact in exact arithmetic), then runs
+// every column block through the whole chunk while it is in cache (BatchedSplitStep::
+// apply_many): one pass over the states per chunk, one kick and one kinetic multiplication per
+// point and substep. It uses the nominal lengths (dt, or g1 dt and g0 dt) for kicks and kinetic
+// phases, so its results agree with step() to rounding, not bit for bit. Memory: the kicks of
+// one chunk, (chunk_substeps() + 1) x points complex samples (about 1 MiB). Chunks depend only
+// on the sizes and the step range, so results do not depend on `threads`. Move-only.
 class SplitOperatorPropagator {
  public:
   using State = Eigen::MatrixXcd;  // grid points x columns, samples psi(x_j)
@@ -301,10 +393,18 @@ class SplitOperatorPropagator {
   SplitOperatorPropagator& operator=(const SplitOperatorPropagator&) = delete;
 
   void step(State& state, double t, double dt);
+  // Steps first .. first + count - 1 (count >= 0) of the uniform subdivision of
+  // [t_begin, t_end] into `total` steps (the MultiStepPropagator contract). A potential sample
+  // that is NaN or infinite throws StepError naming its step; the state is then left at the
+  // start of the chunk where it was found.
+  void steps(State& state, double t_begin, double t_end, int total, int first, int count);
   int order() const { return static_cast<int>(order_); }
   const PotentialPath& path() const { return path_; }
   int columns() const { return columns_; }
-  // Largest |V| dt/2 and T_max dt of the last step (radians): the phase per step, a
+  // Strang substeps per chunk of steps() (a whole number of steps; depends on the grid size).
+  int chunk_substeps() const;
+  // Largest potential phase spread (max V - min V) |h|/2 of a kick and T_max |dt| of a step
+  // (radians) over the steps of the last step() or steps() call: the phase per step, a
   // time-step diagnostic (large values mean the step does not resolve the fastest phases).
   double max_phase() const { return max_phase_; }
 
@@ -322,9 +422,14 @@ class SplitOperatorPropagator {
     double dt;
     std::vector<std::complex<double>> phase;
   };
-  std::vector<KineticPhase> kinetic_phases_;  // the few dt in use (Strang: 1; order 4: up to 4)
+  std::vector<KineticPhase> kinetic_phases_;  // the few dt in use, most recent last (at most 4)
   RecentSamples samples_;
   StrangKicks kicks_;  // reused by every step (no allocation per step)
+  // steps(): the kicks of one chunk and pointers to them and to the kinetic phases, allocated
+  // at the first call and reused
+  std::vector<std::complex<double>> chunk_kicks_;
+  std::vector<const std::complex<double>*> kick_rows_, kinetic_rows_;
+  std::vector<double> chunk_samples_;
   double max_phase_ = 0;
 };
 

@@ -499,6 +499,10 @@ SpectrumResult compute_spectrum(const Potential& potential, const SpectrumReques
     if (request.extent) g = with_points(g, request.extent->first, request.extent->second, g.spacing());
     if (request.points)
       g = request.box ? Grid::box(g.left(), g.right(), *request.points) : Grid::periodic(g.left(), g.right(), *request.points);
+    // At most half the points are resolved levels: a low WKB guess (a flat-bottomed trap) must
+    // not leave fewer than 2k + 8; the raised cutoff below then refines further.
+    else if (g.size() < std::size_t(2 * k + 8))
+      g = with_points(g, g.left(), g.right(), g.length() / double(2 * k + 8));
     return g;
   };
   std::optional<Grid> grid = make_grid(cutoff);

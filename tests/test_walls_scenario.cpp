@@ -201,3 +201,28 @@ TEST_CASE("[box.soft_walls] errors name the key", "[walls][scenario]") {
                             "[box.soft_walls]\nwidths = [\"0.1 um\"]\nheight = \"1 kB*nK\"\n";
   CHECK_THAT(error_of(still).what(), Contains("box.soft_walls") && Contains("moves box.left or box.right"));
 }
+
+TEST_CASE("soft walls as a potential: power_walls moved by a protocol on the ordinary grid", "[walls][scenario]") {
+  const std::string text = "title = \"soft\"\n[particle]\nmass = \"87 u\"\n[units]\nenergy = \"kB*nK\"\n"
+                           "[[potential]]\nname = \"walls\"\nshape = \"power_walls\"\nleft = \"0 um\"\nright = \"10 um\"\n"
+                           "height = \"100 kB*nK\"\nwidth = \"0.5 um\"\n"
+                           "[protocol]\nduration = \"4 ms\"\n[[protocol.change]]\nparameter = \"walls.right\"\n"
+                           "to = \"12 um\"\nramp = \"smooth\"\n[initial]\ntemperature = \"2 nK\"\n";
+  const Scenario s = read_scenario_text(text, "soft.toml");
+  CHECK_FALSE(moves_walls(s));  // soft walls are a potential term, not the hard [box]
+  const double um = internal_per_um(s);
+  CHECK(parameter_value(s, "walls.right") == Approx(10 * um));
+  CHECK(s.spectrum.search_centre == Approx(5 * um));  // midway between the walls
+  const Protocol p = build_protocol(s);
+  CHECK(p.at(s.potential, p.duration()).parameter("walls.right") == Approx(12 * um));
+  // the automatic grid of the flat-bottomed trap holds twice the levels asked for
+  SpectrumRequest r = s.spectrum;
+  r.options.levels = 40;
+  const SpectrumResult spectrum = compute_spectrum(s.potential, r);
+  CHECK(spectrum.spectrum.grid.size() >= 88);
+  CHECK(spectrum.spectrum.energies(0) > 0);
+  // a missing height is named
+  std::string bad = text;
+  bad.erase(bad.find("height = "), std::string("height = \"100 kB*nK\"\n").size());
+  CHECK_THAT(error_of(bad).what(), Contains("potential[1].height") && Contains("no default"));
+}

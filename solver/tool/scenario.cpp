@@ -554,6 +554,12 @@ void Reader::read_soft_walls(const toml::table& box, Scenario& s) {
   s.soft_walls = r;
 }
 
+// Where a term sits: its centre, or midway between the walls of a walls shape.
+double term_centre(const Term& t) {
+  if (t.has_parameter("centre")) return t.parameter("centre");
+  return 0.5 * (t.parameter("left") + t.parameter("right"));
+}
+
 void Reader::read_box_and_grid(const toml::table& root, Scenario& s) {
   if (const toml::table* box = table(root, "box")) {
     check_keys(*box, "box", {"left", "right", "soft_walls"});
@@ -568,7 +574,7 @@ void Reader::read_box_and_grid(const toml::table& root, Scenario& s) {
   }
   // Open-grid searches start at the first term's centre.
   if (!s.potential.terms().empty())
-    s.spectrum.search_centre = s.potential.terms().front().parameter("centre");
+    s.spectrum.search_centre = term_centre(s.potential.terms().front());
   const toml::table* grid = table(root, "grid");
   if (!grid) return;
   check_keys(*grid, "grid", {"points", "left", "right", "convergence_check", "search_half_width"});
