@@ -293,10 +293,12 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
       SplitOperatorPropagator prop(path, kept,
                                    request.integrator == Integrator::strang ? SplitOrder::strang : SplitOrder::fourth,
                                    request.threads);
-      propagate(prop, psi, 0.0, tau, steps, [&](const Eigen::MatrixXcd& s, double t) {
+      // Observed every finite_check_interval steps, so that propagate() runs the time-blocked
+      // path between observations (max_phase() covers all steps since the last call).
+      propagate(prop, psi, 0.0, tau, steps, observe_every(finite_check_interval, [&](const Eigen::MatrixXcd& s, double t) {
         run.max_phase = std::max(run.max_phase, prop.max_phase());
         observer(s, t);
-      });
+      }));
     }
     path.to_lab(psi, tau);
   }
