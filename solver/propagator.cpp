@@ -476,13 +476,16 @@ void SplitOperatorPropagator::step(State& state, double t, double dt) {
 // ---- EigenbasisPropagator ----------------------------------------------------------------
 
 EigenbasisPropagator::EigenbasisPropagator(PotentialPath path, Spectrum reference, std::vector<double> v_reference,
-                                           OdeTolerances tolerances)
+                                           OdeTolerances tolerances, double arithmetic_limit)
     : path_(std::move(path)), energies_(reference.energies), v_reference_(std::move(v_reference)),
-      tolerances_(tolerances) {
+      tolerances_(tolerances), arithmetic_limit_(arithmetic_limit) {
   TRAPWORK_EXPECT(reference.states.rows() == Eigen::Index(path_.grid().size()) &&
                       v_reference_.size() == path_.grid().size(),
                   "EigenbasisPropagator: reference spectrum or potential not on the path's grid");
   basis_ = reference.states * std::sqrt(path_.grid().spacing());
+  density_ = basis_.rowwise().squaredNorm();
+  shapes_.resize(basis_.rows(), 0);
+  shape_limit_ = tolerances_.absolute / (100 * std::max(path_.protocol().duration(), 1.0));
 }
 
 EigenbasisPropagator::State EigenbasisPropagator::coefficients(const Eigen::MatrixXcd& grid_states) const {
@@ -493,33 +496,92 @@ Eigen::MatrixXcd EigenbasisPropagator::grid_states(const State& c) const {
   return basis_.cast<std::complex<double>>() * c / std::sqrt(path_.grid().spacing());
 }
 
+// M(t) = sum_r f_r M_r when the remainder of dV outside the shapes is below the limit; else
+// the remainder becomes a shape (two Gram-Schmidt passes), or, with 64 shapes, M is formed
+// directly.
+void EigenbasisPropagator::matrix_at(double t, Eigen::MatrixXd& m) {
+  const Eigen::Index n = basis_.rows(), k = basis_.cols();
+  path_.sample(t, v_);
+  dv_.resize(n);
+  for (Eigen::Index j = 0; j < n; ++j) dv_[j] = v_[std::size_t(j)] - v_reference_[std::size_t(j)];
+  // rounding floor: dV is a difference of potentials, rounded relative to V itself
+  double size = 0;
+  for (Eigen::Index j = 0; j < n; ++j) size += std::abs(v_[std::size_t(j)]) * density_[j];
+  const double limit = std::max(shape_limit_, 1000 * std::numeric_limits<double>::epsilon() * size);
+  auto remainder = [&](Eigen::VectorXd& rem) {
+    rem = dv_;
+    for (int pass = 0; pass < 2 && shapes_.cols() > 0; ++pass) rem -= shapes_ * (shapes_.transpose() * rem);
+    arithmetic_ += 8.0 * double(n * shapes_.cols()) + 10.0 * double(n);
+  };
+  Eigen::VectorXd rem;
+  remainder(rem);
+  if (rem.cwiseAbs().dot(density_) > limit) {
+    if (shapes_.cols() >= 64) {
+      ++direct_evaluations_;
+      m.noalias() = basis_.transpose() * (dv_.asDiagonal() * basis_);
+      arithmetic_ += 2.0 * double(n * k * k);
+      return;
+    }
+    const Eigen::VectorXd shape = rem / rem.norm();
+    shapes_.conservativeResize(Eigen::NoChange, shapes_.cols() + 1);
+    shapes_.col(shapes_.cols() - 1) = shape;
+    shape_matrices_.push_back(basis_.transpose() * (shape.asDiagonal() * basis_));
+    arithmetic_ += 2.0 * double(n * k * k);
+  }
+  f_.noalias() = shapes_.transpose() * dv_;
+  m.setZero(k, k);
+  for (Eigen::Index r = 0; r < f_.size(); ++r) m += f_[r] * shape_matrices_[std::size_t(r)];
+  arithmetic_ += 2.0 * double(n * f_.size()) + 2.0 * double(k * k * f_.size());
+}
+
 void EigenbasisPropagator::step(State& state, double t, double dt) {
   const Eigen::Index k = basis_.cols(), cols = state.cols();
   TRAPWORK_EXPECT(state.rows() == k, "EigenbasisPropagator::step: state rows != basis size");
   if (dt == 0) return;
   namespace odeint = boost::numeric::odeint;
   using Vector = std::vector<double>;
+  using Complex = std::complex<double>;
   Vector x(std::size_t(2 * k * cols));
-  Eigen::Map<Eigen::MatrixXcd>(reinterpret_cast<std::complex<double>*>(x.data()), k, cols) = state;
-  std::vector<double> v;
-  Eigen::VectorXd dv(basis_.rows());
-  Eigen::MatrixXd m(k, k);
+  Eigen::Map<Eigen::MatrixXcd>(reinterpret_cast<Complex*>(x.data()), k, cols) = state;
+  Eigen::MatrixXd m(k, k), re(k, cols), im(k, cols);
+  Eigen::VectorXcd phase(k);
+  Eigen::MatrixXcd b(k, cols);
+  // Interaction picture from t: c = exp(-i E s) a, da/dt = -i exp(i E s) M(t) c.
   auto rhs = [&](const Vector& y, Vector& dydt, double time) {
     ++evaluations_;
-    path_.sample(time, v);
-    for (Eigen::Index j = 0; j < dv.size(); ++j) dv[j] = v[std::size_t(j)] - v_reference_[std::size_t(j)];
-    m.noalias() = basis_.transpose() * (dv.asDiagonal() * basis_);
-    m.diagonal() += energies_;
-    Eigen::Map<const Eigen::MatrixXcd> c(reinterpret_cast<const std::complex<double>*>(y.data()), k, cols);
-    Eigen::Map<Eigen::MatrixXcd> dc(reinterpret_cast<std::complex<double>*>(dydt.data()), k, cols);
-    dc.noalias() = std::complex<double>(0, -1) * (m.cast<std::complex<double>>() * c);
+    matrix_at(time, m);
+    const double s = time - t;
+    for (Eigen::Index i = 0; i < k; ++i) phase[i] = std::polar(1.0, -energies_[i] * s);
+    Eigen::Map<const Eigen::MatrixXcd> a(reinterpret_cast<const Complex*>(y.data()), k, cols);
+    b = phase.asDiagonal() * a;
+    re.noalias() = m * b.real();
+    im.noalias() = m * b.imag();
+    Eigen::Map<Eigen::MatrixXcd> da(reinterpret_cast<Complex*>(dydt.data()), k, cols);
+    da = phase.conjugate().asDiagonal() * (Complex(0, -1) * (re.cast<Complex>() + Complex(0, 1) * im.cast<Complex>()));
+    arithmetic_ += 4.0 * double(k * k * cols) + 16.0 * double(k * cols);
+    if (arithmetic_limit_ > 0 && arithmetic_ > arithmetic_limit_)
+      throw ArithmeticLimitReached("eigenbasis ODE: estimated arithmetic passed the limit of " +
+                                   format_number(arithmetic_limit_) + " operations at t = " + format_number(time));
   };
   auto stepper = odeint::make_controlled(tolerances_.absolute, tolerances_.relative, odeint::runge_kutta_dopri5<Vector>());
-  double hint = step_hint_ > 0 ? std::min(step_hint_, std::abs(dt)) : std::abs(dt) / 4;
-  hint = std::copysign(hint, dt);
-  odeint::integrate_adaptive(stepper, rhs, x, t, t + dt, hint);
-  state = Eigen::Map<Eigen::MatrixXcd>(reinterpret_cast<std::complex<double>*>(x.data()), k, cols);
-  step_hint_ = std::abs(dt) / 4;
+  const double end = t + dt, sign = dt > 0 ? 1.0 : -1.0;
+  double time = t, h = sign * (step_hint_ > 0 ? step_hint_ : std::abs(dt) / 4);
+  for (int rejected = 0; sign * (end - time) > 0;) {
+    const bool last = std::abs(h) >= std::abs(end - time);
+    const double free = h;
+    if (last) h = end - time;
+    if (stepper.try_step(rhs, x, time, h) == odeint::success) {
+      rejected = 0;
+      step_hint_ = last ? std::max(std::abs(free), std::abs(h)) : std::abs(h);
+      if (last) time = end;
+    } else if (++rejected > 200) {
+      throw PhysicsError("eigenbasis ODE: 200 rejected steps in a row at t = " + format_number(time) +
+                         " (step " + format_number(std::abs(h)) + "): the potential may be singular in time");
+    }
+  }
+  const double s = dt;
+  for (Eigen::Index i = 0; i < k; ++i) phase[i] = std::polar(1.0, -energies_[i] * s);
+  state = phase.asDiagonal() * Eigen::Map<Eigen::MatrixXcd>(reinterpret_cast<Complex*>(x.data()), k, cols);
 }
 
 // ---- projections -------------------------------------------------------------------------

@@ -435,21 +435,43 @@ class SplitOperatorPropagator {
 
 // Truncated instantaneous-eigenbasis propagator: expands in the K eigenstates phi_k (energies
 // E_k) of one reference Hamiltonian p^2/2 + V_ref on the same grid and integrates
-//   i dc/dt = [diag(E) + M(t)] c,   M_kl(t) = sum_j phi_k(x_j) (V(x_j, t) - V_ref(x_j)) phi_l(x_j) dx
+//   i dc/dt = [diag(E) + M(t)] c,   M_kl(t) = sum_j phi_k(x_j) dV(x_j, t) phi_l(x_j) dx,
+//   dV = V(x, t) - V_ref(x),
 // with Boost.Odeint's controlled runge_kutta_dopri5 (Dormand & Prince 1980) at the given
 // absolute and relative tolerances. Exact up to the basis truncation and the tolerance;
 // not symmetric in time, so Crooks holds only to the tolerance. State = K x columns.
+//
+// Two devices keep it cheap (both standard; derived here for this Hamiltonian):
+// - Interaction picture: within each step from t0 it integrates a = exp(i E (t - t0)) c,
+//   i da/dt = exp(i E s) M(t) exp(-i E s) a (s = t - t0), so the Dormand-Prince steps follow
+//   the coupling M and its time dependence, not the phase E_K dt of the top basis level.
+// - Shapes of the potential change: dV(x, t) = sum_r f_r(t) W_r(x) + remainder, with orthonormal
+//   grid vectors W_r and their matrices M_r = Phi^T diag(W_r) Phi dx formed once, so an
+//   evaluation costs r K^2 + 2 n r instead of n K^2. The shapes are found as the run goes: the
+//   remainder dV - W f is bounded in its effect on M by sum_j |rem_j| rho_j (rho_j =
+//   sum_k phi_k(x_j)^2 dx; a bound on the 2-norm of the neglected part of M), and where that is
+//   above shape_limit (below) the remainder becomes a new shape (at most 64), after which M
+//   is formed directly (n K^2). A rigid translation in the co-moving frame needs one or two
+//   shapes, a ramped amplitude one per ramped term.
 struct OdeTolerances {
   double absolute = 1e-10;
   double relative = 1e-10;
+};
+
+// Thrown by EigenbasisPropagator when its estimated arithmetic passes the limit it was given.
+// Not a PhysicsError (nothing is wrong with the input; the caller set a budget), so it passes
+// through propagate() unchanged.
+struct ArithmeticLimitReached : std::runtime_error {
+  using std::runtime_error::runtime_error;
 };
 
 class EigenbasisPropagator {
  public:
   using State = Eigen::MatrixXcd;  // basis coefficients x columns
   // reference.grid must equal path.grid() in size; v_reference = V_ref on the grid.
+  // arithmetic_limit > 0: throw ArithmeticLimitReached once arithmetic() passes it.
   EigenbasisPropagator(PotentialPath path, Spectrum reference, std::vector<double> v_reference,
-                       OdeTolerances tolerances = {});
+                       OdeTolerances tolerances = {}, double arithmetic_limit = 0);
   void step(State& state, double t, double dt);
   int order() const { return 5; }
   int basis_size() const { return static_cast<int>(energies_.size()); }
@@ -457,17 +479,32 @@ class EigenbasisPropagator {
   // c = Phi^T psi dx (grid samples to coefficients) and back psi = Phi c.
   State coefficients(const Eigen::MatrixXcd& grid_states) const;
   Eigen::MatrixXcd grid_states(const State& coefficients) const;
-  // Right-hand-side evaluations so far (each costs n K^2 for the matrix M).
+  // Right-hand-side evaluations so far, and how many formed M directly (n K^2).
   long evaluations() const { return evaluations_; }
+  long direct_evaluations() const { return direct_evaluations_; }
+  int shapes() const { return static_cast<int>(shapes_.cols()); }
+  // Estimated floating-point operations so far (products and sums of the evaluations, shape
+  // matrices, direct formations; the potential samples counted as 10 per point).
+  double arithmetic() const { return arithmetic_; }
+  // The remainder bound above which dV gains a shape: tolerances.absolute / (100 max(tau, 1)),
+  // so that a neglected part adds at most 1/100 of the tolerance over the run (never below
+  // 1000 eps times the same bound of V itself, the rounding of dV = V - V_ref).
+  double shape_limit() const { return shape_limit_; }
 
  private:
+  void matrix_at(double t, Eigen::MatrixXd& m);
   PotentialPath path_;
   Eigen::MatrixXd basis_;  // n x K, phi_k(x_j) sqrt(dx): orthonormal columns
-  Eigen::VectorXd energies_;
+  Eigen::VectorXd energies_, density_;  // density_ = rho_j (row norms squared of basis_)
   std::vector<double> v_reference_;
   OdeTolerances tolerances_;
-  double step_hint_ = 0;
-  long evaluations_ = 0;
+  double arithmetic_limit_ = 0, shape_limit_ = 0;
+  Eigen::MatrixXd shapes_;                     // n x r, orthonormal
+  std::vector<Eigen::MatrixXd> shape_matrices_;  // M_r, K x K
+  std::vector<double> v_;                      // scratch: the potential sample
+  Eigen::VectorXd dv_, f_;
+  double step_hint_ = 0, arithmetic_ = 0;
+  long evaluations_ = 0, direct_evaluations_ = 0;
 };
 
 // Amplitudes A(n, m) = <n|psi_m> = sum_j phi_n(x_j) psi_m(x_j) dx of grid states (columns) on

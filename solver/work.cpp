@@ -267,7 +267,7 @@ Grid shifted(const Grid& g, double d) {
 // One direction of the protocol: propagate the kept initial states, project on the final ones.
 struct Run {
   Eigen::MatrixXcd amplitudes;  // A(n, m)
-  double norm_drift = 0, edge_amplitude = 0, max_phase = 0;
+  double norm_drift = 0, edge_amplitude = 0, max_phase = 0, arithmetic = 0;
 };
 
 // basis: the eigenbasis integrator's reference spectrum (of the same Hamiltonian as
@@ -285,10 +285,11 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
     };
     if (request.integrator == Integrator::eigenbasis) {
       TRAPWORK_EXPECT(basis != nullptr, "propagate_run: eigenbasis integrator without a basis");
-      EigenbasisPropagator prop(path, *basis, v_initial, ode);
+      EigenbasisPropagator prop(path, *basis, v_initial, ode, request.ode_arithmetic_limit);
       auto c = prop.coefficients(psi);
       propagate(prop, c, 0.0, tau, steps, observer);
       psi = prop.grid_states(c);
+      run.arithmetic = prop.arithmetic();
     } else {
       SplitOperatorPropagator prop(path, kept,
                                    request.integrator == Integrator::strang ? SplitOrder::strang : SplitOrder::fourth,
@@ -447,8 +448,12 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   // Largest phase E dt per step over the energy range in use: the splitting error per unit
   // time goes as (E dt)^p; these choices give line errors of ~1e-9 in the validation cases,
   // and the half-step run reports the actual error.
-  const double phase_per_step = request.integrator == Integrator::strang ? 0.02 : request.integrator == Integrator::fourth_order ? 0.2 : 1.0;
-  const int steps = request.steps > 0 ? request.steps : std::max(16, int(std::ceil(tau * range / phase_per_step)));
+  const double phase_per_step = request.phase_per_step > 0                  ? request.phase_per_step
+                                : request.integrator == Integrator::strang ? 0.02
+                                                                           : 0.2;
+  const int steps = request.steps > 0                           ? request.steps
+                    : request.integrator == Integrator::eigenbasis ? 64
+                                                                   : std::max(16, int(std::ceil(tau * range / phase_per_step)));
   result.steps = tau > 0 ? steps : 0;
   result.method = tau == 0 ? "sudden (U = 1)"
                   : request.integrator == Integrator::strang       ? "split-operator Strang"
@@ -480,6 +485,8 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   diag.norm_drift = fwd.norm_drift;
   diag.edge_amplitude = fwd.edge_amplitude;
   diag.max_phase_per_step = fwd.max_phase;
+  diag.ode_arithmetic = fwd.arithmetic;
+  diag.ode_basis_levels = int(basis_a.energies.size());
   diag.unresolved_weight = result.distribution.unresolved_weight;
   diag.jarzynski_residual = result.distribution.jarzynski_residual;
 

@@ -140,6 +140,8 @@ struct Diagnostics {
   TruncationResidual truncation;  // eps_K, p_R(>=K) and their sum
   double crooks_line_difference = std::numeric_limits<double>::quiet_NaN();
   double crooks_ratio_error = std::numeric_limits<double>::quiet_NaN();
+  double ode_arithmetic = 0;      // eigenbasis: estimated operations of the forward run (0: split)
+  int ode_basis_levels = 0;       // eigenbasis: levels of its basis (0: split)
   std::vector<std::string> warnings;  // each with the diagnostic value and what to change
 };
 
@@ -154,7 +156,10 @@ struct WorkRequest {
   int final_margin = 20;             // final levels computed = kept initial levels + margin
   SpectrumRequest spectrum;          // grid choice (extent/points fixed or automatic), eigensolver
   Integrator integrator = Integrator::fourth_order;
-  int steps = 0;                     // 0: automatic, dt (E_range) <= 0.05 (order 4), 0.01 (Strang)
+  int steps = 0;                     // 0: automatic, dt (E_range) <= phase_per_step;
+                                     // eigenbasis: 64 (its own steps are adaptive; these are
+                                     // the observation and restart points)
+  double phase_per_step = 0;         // largest phase per automatic step; 0: 0.2 (order 4), 0.02 (Strang)
   std::optional<bool> co_moving;     // automatic: used whenever the protocol is a rigid translation
   bool reverse_run = true;           // needed for Crooks and p_R(>=K)
   bool time_step_check = true;       // same run at half the step
@@ -162,6 +167,8 @@ struct WorkRequest {
   double merge_tolerance = 1e-9;
   double unresolved_tolerance = 1e-8;  // warn above this
   OdeTolerances ode;                 // eigenbasis integrator
+  double ode_arithmetic_limit = 0;   // > 0: each eigenbasis run throws ArithmeticLimitReached
+                                     // past this many estimated operations (see propagator.hpp)
   int eigenbasis_levels = 0;         // eigenbasis basis size; 0: twice the final levels (the
                                      // final states of H_B need more levels of H_A than L)
   int threads = 1;                   // propagator worker threads (results independent of it)

@@ -52,16 +52,16 @@ TEST_CASE("--tolerance: the estimate bounds the true distance to the exact Husim
     CHECK(c->trail.size() >= 3);  // at least one step doubling and one grid refinement
     // Husimi, J. Phys. Soc. Jpn. 9, 381 (1953) (from memory; solver/harmonic_reference)
     CHECK(distance_to_exact(c->work->result()) <= c->tolerance);
-    // The method: the eigenbasis ODE is weighed on its estimated arithmetic, tried below a
-    // ratio of 1, and the run returned is the method reported.
+    // The method: the eigenbasis ODE is tried with the split-operator run's arithmetic as its
+    // budget; either it was stopped, or it finished within it and was timed.
     INFO("method " << c->method << ", ODE cost ratio " << c->ode_cost_ratio << ", ODE part " << c->ode_part
                    << ", split " << c->split_seconds << " s, ODE " << c->eigenbasis_seconds << " s");
-    CHECK(std::isfinite(c->ode_cost_ratio));
     CHECK(c->method == c->work->result().method);
-    CHECK(std::isfinite(c->eigenbasis_seconds) == (c->ode_cost_ratio < 1));
-    if (c->ode_cost_ratio < 1) CHECK(c->ode_part <= c->tolerance);
+    CHECK(c->ode_stopped != std::isfinite(c->eigenbasis_seconds));
+    if (!c->ode_stopped) CHECK(c->ode_cost_ratio <= 1);
   }
   // from 2000 steps the loose bound halves them and the tight one doubles them (Strang: error ~ dt^2)
   CHECK(loose.steps < 2000);
   CHECK(tight.steps > 2000);
 }
+

@@ -194,7 +194,9 @@ ScenarioWork compute_work(const Scenario& s, WorkRequest request) {
 }
 
 ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request, double tolerance) {
-  ToleranceChoice c{tolerance, s, std::nullopt, 0, 0, 0, 0, 0, {}};
+  ToleranceChoice c;
+  c.tolerance = tolerance;
+  c.scenario = s;
   request.time_step_check = false;  // the refinements below are the checks
   double last_seconds = 0;
   auto run = [&](const Scenario& sc, WorkRequest r) {
@@ -202,13 +204,21 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
     const auto start = std::chrono::steady_clock::now();
     ScenarioWork w = compute_work(sc, r);
     last_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
-    c.trail.push_back(std::to_string(w.result().steps) + " steps, " + std::to_string(w.result().grid.size()) +
-                      " points");
+    const std::string points = std::to_string(w.result().grid.size()) + " points (" + short_number(last_seconds, 2) + " s)";
+    if (r.integrator == Integrator::eigenbasis)
+      c.trail.push_back("eigenbasis ODE at tolerance " + short_number(r.ode.absolute, 2) + ", " +
+                        std::to_string(w.result().diagnostics.ode_basis_levels) + " basis levels, " + points);
+    else
+      c.trail.push_back(std::to_string(w.result().steps) + " steps, " + points);
     return w;
   };
-  // Steps: from the automatic (or given) count, halve while the halved run stays within T/2
-  // of the current one (the automatic step aims at accuracy everywhere, far beyond a loose
-  // T); if even the first halving leaves T/2, double until two runs agree to T/2.
+  // Steps: from the given count, or 1/16 of the automatic one (phases of 3.2 rad per order-4
+  // step, 0.32 per Strang step: the automatic step aims at accuracy everywhere, far beyond a
+  // loose T, and the runs from the start on make most of the cost), halve while the halved
+  // run stays within T/2 of the current one; if even the first halving leaves T/2, double
+  // until two runs agree to T/2.
+  if (request.steps == 0 && request.phase_per_step == 0)
+    request.phase_per_step = request.integrator == Integrator::strang ? 0.32 : 3.2;
   ScenarioWork coarse = run(c.scenario, request);
   if (coarse.result().steps > 0) {  // a sudden switch has no steps
     bool lowered = false;
@@ -222,7 +232,7 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       coarse = std::move(half);
       lowered = true;
     }
-    for (int k = 0; !lowered && k < 6; ++k) {
+    for (int k = 0; !lowered && k < 8; ++k) {
       request.steps = 2 * coarse.result().steps;
       ScenarioWork fine = run(c.scenario, request);
       c.time_step_part = line_distance(coarse.result().forward, fine.result().forward).distance;
@@ -254,38 +264,49 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
   c.steps = coarse.result().steps;
   c.points = coarse.result().grid.size();
   c.method = coarse.result().method;
-  // The eigenbasis ODE is tried only when its arithmetic could be lower: Dormand-Prince steps
-  // are held below ~3/E_K by stability alone (K = twice the levels, E_K ~ twice the top level
-  // above the ground), each of 6 evaluations of n K^2 for M(t); against the split-operator
-  // run's steps x substeps x columns x (two FFTs, 5 n log2 n each, and the phases).
+  // The eigenbasis ODE, where it applies, with a budget: each of its runs (per direction) stops
+  // once its estimated arithmetic passes that of the split-operator run: steps x substeps x
+  // columns x (two FFTs, 5 n log2 n each, and 30 n for the phases).
   const WorkResult& split = coarse.result();
   if (split.steps > 0 && !moves_walls(s)) {
-    const auto& energies = split.initial_spectrum.energies;
-    const double n = double(split.grid.size()), levels = 2.0 * double(energies.size());
-    const double columns = double(split.forward.initial_weights.size());
-    const double top = 2 * (energies(energies.size() - 1) - energies(0));
-    const double ode = std::max(1.0, s.protocol->duration * top / 3) * 6 * (n * levels * levels + 8 * levels * levels * columns);
+    const double n = double(split.grid.size()), columns = double(split.forward.initial_weights.size());
     const double substeps = split.method.find("order 4") != std::string::npos ? 3 : 1;
-    const double fft = double(split.steps) * substeps * columns * (10 * n * std::log2(n) + 30 * n);
-    c.ode_cost_ratio = ode / fft;
-  }
-  if (c.ode_cost_ratio < 1) {
+    const double split_arithmetic = double(split.steps) * substeps * columns * (10 * n * std::log2(n) + 30 * n);
     WorkRequest e = request;
     e.integrator = Integrator::eigenbasis;
+    e.steps = 0;
     e.ode = {tolerance / 50, tolerance / 50};
-    ScenarioWork basis = run(c.scenario, e);
-    const double seconds = last_seconds;
-    e.ode = {tolerance / 500, tolerance / 500};
-    e.eigenbasis_levels = 3 * int(basis.result().initial_spectrum.energies.size()) / 2;
-    const ScenarioWork finer = run(c.scenario, e);
-    c.ode_part = line_distance(basis.result().forward, finer.result().forward).distance;
-    const double agreement = line_distance(basis.result().forward, coarse.result().forward).distance;
-    c.trail.back() += ": distance to the coarser ODE run " + short_number(c.ode_part, 3) + ", to the split-operator run " +
-                      short_number(agreement, 3);
-    c.eigenbasis_seconds = seconds;
-    if (c.ode_part + c.grid_part <= tolerance && agreement <= tolerance && seconds < c.split_seconds) {
-      c.method = basis.result().method;
-      coarse = std::move(basis);
+    e.ode_arithmetic_limit = split_arithmetic;
+    try {
+      ScenarioWork basis = run(c.scenario, e);
+      const double seconds = last_seconds;
+      c.ode_cost_ratio = basis.result().diagnostics.ode_arithmetic / split_arithmetic;
+      // The check: a tighter tolerance, twice the restart points (so that its steps differ even
+      // where the coupling is weak enough for every step to pass both tolerances) and 3/2 the
+      // basis; it may cost more: up to 4 times the split-operator run.
+      e.ode = {tolerance / 500, tolerance / 500};
+      e.steps = 2 * basis.result().steps;
+      e.eigenbasis_levels = 3 * basis.result().diagnostics.ode_basis_levels / 2;
+      e.ode_arithmetic_limit = 4 * split_arithmetic;
+      const ScenarioWork finer = run(c.scenario, e);
+      c.ode_part = line_distance(basis.result().forward, finer.result().forward).distance;
+      const double agreement = line_distance(basis.result().forward, coarse.result().forward).distance;
+      c.trail.back() += ": distance to the coarser ODE run " + short_number(c.ode_part, 3) + ", to the split-operator run " +
+                        short_number(agreement, 3);
+      if (finer.result().diagnostics.ode_basis_levels == basis.result().diagnostics.ode_basis_levels)
+        c.trail.back() += " (basis not enlarged: at most half the grid points)";
+      c.eigenbasis_seconds = seconds;
+      // faster: on the estimated arithmetic where it is clear (below 1/2), else on the wall times
+      const bool faster = c.ode_cost_ratio < 0.5 || seconds < c.split_seconds;
+      if (c.ode_part + c.grid_part <= tolerance && agreement <= tolerance && faster) {
+        c.method = basis.result().method;
+        coarse = std::move(basis);
+      }
+    } catch (const ArithmeticLimitReached&) {
+      c.ode_stopped = true;
+      c.trail.push_back("eigenbasis ODE (tolerance " + short_number(e.ode.absolute, 2) +
+                        "): stopped when its estimated arithmetic passed " +
+                        (e.ode_arithmetic_limit > split_arithmetic ? "4 times " : "") + "the split-operator run's");
     }
   }
   c.work = std::move(coarse);
@@ -495,7 +516,7 @@ nlohmann::ordered_json tolerance_json(const WorkRun& run) {
           {"max_work_shift", display(run.scenario).energy(t.max_work_shift)},
           {"steps", t.steps}, {"points", t.points}, {"method", t.method},
           {"ode_part", number_or_null(t.ode_part)}, {"ode_cost_ratio", number_or_null(t.ode_cost_ratio)}, {"split_seconds", t.split_seconds},
-          {"eigenbasis_seconds", number_or_null(t.eigenbasis_seconds)}, {"runs", t.trail}};
+          {"eigenbasis_seconds", number_or_null(t.eigenbasis_seconds)}, {"ode_stopped", t.ode_stopped}, {"runs", t.trail}};
 }
 
 // Moving walls: the exact references (null where they do not apply), display energy units.
@@ -819,10 +840,10 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
                       std::to_string(t.points) + " points");
     if (!std::isnan(t.eigenbasis_seconds))
       row("cost", "split-operator run " + short_number(t.split_seconds, 2) + " s, eigenbasis ODE run " +
-                      short_number(t.eigenbasis_seconds, 2) + " s (wall time here)");
-    else if (std::isfinite(t.ode_cost_ratio))
-      row("method", "eigenbasis ODE not tried: its stability limit alone needs about " +
-                        short_number(t.ode_cost_ratio, 2) + " times the arithmetic of the split-operator run");
+                      short_number(t.eigenbasis_seconds, 2) + " s (wall time here; estimated arithmetic ratio " +
+                      short_number(t.ode_cost_ratio, 2) + ")");
+    else if (t.ode_stopped)
+      row("method", "eigenbasis ODE stopped: it needed more arithmetic than the split-operator run");
     row("estimate", short_number(t.estimate(), 3) + " = " + short_number(ode ? t.ode_part : t.time_step_part, 3) +
                         (ode ? " (ODE tolerance and basis)" : " (time step)") + " + " + short_number(t.grid_part, 3) +
                         " (grid); lines move by up to " + e.text(t.max_work_shift, 3) +

@@ -50,9 +50,9 @@ ScenarioWork compute_work(const Scenario& s, WorkRequest request);
 
 // `trapwork work --tolerance T`: numerics chosen for a bound T on the distance of P(W) from
 // its converged value (line_distance, solver/work.hpp; a total-variation bound over the lines).
-// From the automatic step count (or the scenario's [work] steps), the steps are halved while
-// the halved run stays within T/2 of the current one, or else doubled until two runs differ by
-// at most T/2 (at most 6 doublings); then the grid is refined by 3/2 in points over the same extent
+// From 1/16 of the automatic step count (or the scenario's [work] steps), the steps are halved
+// while the halved run stays within T/2 of the current one, or else doubled until two runs
+// differ by at most T/2 (at most 8 doublings); then the grid is refined by 3/2 in points over the same extent
 // until two runs differ by at most T/2 (at most 3 refinements). The finest run is returned;
 // its error estimate is the sum of the two last differences (each measures the coarser run,
 // so it is an overestimate for the finer one). The scenario's [grid] and [work] steps are the
@@ -68,16 +68,20 @@ struct ToleranceChoice {
   std::vector<std::string> trail;            // one line per run: steps, points, difference
   // Method: after the grid search, the eigenbasis ODE is tried on the chosen grid where it
   // applies (tau > 0, walls standing): at ODE tolerances T/50 and, with 3/2 the basis, T/500;
-  // their distance is its own error (ode_part, NaN if not tried). It is chosen when its
-  // estimate ode_part + grid_part is within T, it agrees with the split-operator run to T, and
-  // its run took less wall time than the split-operator run (both timed here, one after the
-  // other on the same machine: the choice can differ between machines).
+  // their distance is its own error (ode_part, NaN if not tried). Each ODE run stops once its
+  // estimated arithmetic passes the split-operator run's (4 times for the check), which bounds
+  // the time spent trying. It is chosen when its estimate ode_part + grid_part is within T, it
+  // agrees with the split-operator run to T, and it is faster: its estimated arithmetic is
+  // below half the split-operator run's, or else its run took less wall time (both timed
+  // here, one after the other on the same machine: in that band the choice can differ between
+  // machines).
   std::string method;                        // of the returned run (WorkResult::method)
   double ode_part = std::numeric_limits<double>::quiet_NaN();
   double split_seconds = 0, eigenbasis_seconds = std::numeric_limits<double>::quiet_NaN();
-  // Estimated arithmetic of the ODE over the split-operator run (NaN: not applicable); the ODE
-  // is tried only below 1 (see compute_work_to_tolerance).
+  // Estimated arithmetic of the ODE's first run over the split-operator run's (NaN: not run
+  // to the end); ode_stopped: a run was stopped by its budget.
   double ode_cost_ratio = std::numeric_limits<double>::quiet_NaN();
+  bool ode_stopped = false;
   double estimate() const { return (method.rfind("eigenbasis", 0) == 0 ? ode_part : time_step_part) + grid_part; }
   bool reached() const { return estimate() <= tolerance; }
 };

@@ -1,5 +1,5 @@
-// Benchmark suite (not a test): four jobs, each case in its own child process (harness.hpp),
-// printed as one table with two ratios measured in the same run:
+// Benchmark suite (not a test): five jobs, each case in its own child process (harness.hpp),
+// printed as one table; (a)-(d) with two ratios measured in the same run:
 //   naive/this  wall time of a deliberately straightforward implementation of the same job
 //               (one state at a time, a fresh FFTW plan and fresh buffers every step, phases
 //               recomputed with std::polar every step) over the wall time of the library;
@@ -18,11 +18,18 @@
 //       run), 1 and 2 sweep jobs (each run one thread, as the tool's sweep does); naive and
 //       floor for its propagations only (run_work also solves spectra and projects);
 //   (d) a box expansion L -> 2L on the dilated box (WallSplitOperatorPropagator, 120 states on
-//       1024 sine modes, fourth order), and run_wall_work end to end.
+//       1023 sine modes, fourth order), and run_wall_work end to end;
+//   (e) accuracy target against the best hand-tuned choice: for the built-in default scenario
+//       at T = 1e-3 and 1e-5, the whole compute_work_to_tolerance call (`trapwork work
+//       --tolerance T`) and its final choice alone, against the fastest of a scan of fixed
+//       choices (steps chosen/8 .. chosen*2, points 2/3, 1, 3/2 of the chosen, order 4; the
+//       eigenbasis ODE at T/10 and T/100 where it applies) whose true error is within T; true
+//       errors (line_distance of P(W)) against a reference at 4x the chosen steps and 9/4 the
+//       points. Ratios in the note column: true error / T, final run / best, search / best.
 // Naive runs are measured on a part of the job (stated in the table) and scaled linearly in
 // state-steps, which is how their cost grows.
 //
-//   build/validation/bench_suite [--full] [--cases=abcd]
+//   build/validation/bench_suite [--full] [--cases=abcde]
 #include <fftw3.h>
 
 #include <atomic>
@@ -34,12 +41,15 @@
 #include <thread>
 #include <vector>
 
-#include "harness.hpp"
 #include "solver/hamiltonian.hpp"
 #include "solver/moving_wall.hpp"
 #include "solver/propagator.hpp"
 #include "solver/spectrum.hpp"
+#include "solver/tool/scenario.hpp"
+#include "solver/tool/work_output.hpp"
 #include "solver/work.hpp"
+// last: its <sys/wait.h> defines the macro si_value, a member name in solver/units.hpp
+#include "harness.hpp"
 
 using namespace trapwork;
 using namespace trapwork_bench;
@@ -245,18 +255,134 @@ std::string text(const char* f, double a, double b = 0) {
   return s;
 }
 
+// ---- (e) accuracy target against the best hand-tuned choice --------------------------------
+
+// What a case (e) child passes back besides the search's wall and CPU time (NaN: none).
+namespace target {
+enum : int { final_s, final_cpu, steps, points, ode, estimate, error, rerun_distance, recorded_s, search_runs,
+             ode_stopped, reference_steps, reference_points, best_s, best_cpu, best_steps, best_points, best_ode,
+             best_error, split_s, split_steps, split_points, tried, failed, count };
+}
+
+// The default scenario at fixed numerics, as compute_work_to_tolerance runs its choices: the
+// chosen scenario's grid extent with `points` points, `steps` steps (0: automatic), no half-step
+// run; ode > 0: the eigenbasis ODE at that tolerance (absolute and relative), else the
+// request's integrator. FFTW's accumulated plans (wisdom) are forgotten first, so that the run
+// plans as a `trapwork work` process of its own would (FFTW_MEASURE planning is part of its cost).
+ScenarioWork fixed_work(Scenario s, WorkRequest q, std::size_t points, int steps, double ode = 0) {
+  fftw_forget_wisdom();
+  s.spectrum.points = points;
+  q.spectrum = s.spectrum;
+  q.steps = steps;
+  q.time_step_check = false;
+  if (ode > 0) {
+    q.integrator = Integrator::eigenbasis;
+    q.ode = {ode, ode};
+  }
+  return compute_work(s, q);
+}
+
+// Case (e) at one tolerance: the whole compute_work_to_tolerance call, its final choice alone,
+// a reference (4x the chosen steps, 9/4 the points, order 4) giving true errors, and the
+// hand-tuned scan: for points 2/3, 1 and 3/2 of the chosen, order-4 split-operator runs at
+// chosen/8 .. chosen*2 steps and, where the ODE applies, eigenbasis runs at ODE tolerances
+// T/10 and T/100; each series in rising cost stops at its first run within T (the rest are
+// slower at the same points). The best hand-tuned choice is the fastest run within T.
+JobResult tolerance_target(double tolerance) {
+  const Scenario scenario = read_scenario_text(default_scenario_text(), "default");
+  const WorkRequest request = work_request(scenario);
+  fftw_forget_wisdom();
+  Stopwatch search_clock;
+  const ToleranceChoice choice = compute_work_to_tolerance(scenario, request, tolerance);
+  JobResult r = search_clock.result();
+  const bool ode_chosen = choice.method.rfind("eigenbasis", 0) == 0;
+  const WorkRequest& chosen = choice.work->request;  // the final run's request, grid included
+  std::vector<double>& v = r.values;
+  v.assign(target::count, NAN);
+  v[target::steps] = choice.steps;
+  v[target::points] = double(choice.points);
+  v[target::ode] = ode_chosen ? chosen.ode.absolute : 0;
+  v[target::estimate] = choice.estimate();
+  v[target::recorded_s] = ode_chosen ? choice.eigenbasis_seconds : choice.split_seconds;
+  v[target::search_runs] = double(choice.trail.size());
+  v[target::ode_stopped] = choice.ode_stopped;
+
+  fftw_forget_wisdom();  // as in fixed_work
+  Stopwatch final_clock;
+  const ScenarioWork final_run = compute_work(choice.scenario, chosen);
+  const JobResult final_time = final_clock.result();
+  v[target::final_s] = final_time.wall_s;
+  v[target::final_cpu] = final_time.cpu_s;
+
+  // Order 4: a quarter of the step leaves 1/256 of the chosen run's time-step error; the grid
+  // error falls faster than any power of the points.
+  WorkRequest fine = request;
+  fine.integrator = Integrator::fourth_order;
+  const int reference_steps = 4 * choice.steps;
+  const std::size_t reference_points = fast_fft_size(9 * choice.points / 4);
+  const ScenarioWork reference = fixed_work(choice.scenario, fine, reference_points, reference_steps);
+  v[target::reference_steps] = reference_steps;
+  v[target::reference_points] = double(reference.result().grid.size());
+  auto error_of = [&](const ScenarioWork& w) {
+    return line_distance(w.result().forward, reference.result().forward).distance;
+  };
+  v[target::error] = error_of(*choice.work);
+  v[target::rerun_distance] = line_distance(final_run.result().forward, choice.work->result().forward).distance;
+
+  v[target::tried] = v[target::failed] = 0;
+  // one series at `points`: (steps, ODE tolerance) in rising cost
+  auto scan = [&](std::size_t points, const std::vector<std::pair<int, double>>& series) {
+    for (const auto& [steps, ode] : series) {
+      try {
+        Stopwatch clock;
+        const ScenarioWork w = fixed_work(choice.scenario, fine, points, steps, ode);
+        const JobResult t = clock.result();
+        const double e = error_of(w);
+        ++v[target::tried];
+        if (e > tolerance) continue;
+        if (std::isnan(v[target::best_s]) || t.wall_s < v[target::best_s]) {
+          v[target::best_s] = t.wall_s;
+          v[target::best_cpu] = t.cpu_s;
+          v[target::best_steps] = w.result().steps;
+          v[target::best_points] = double(w.result().grid.size());
+          v[target::best_ode] = ode;
+          v[target::best_error] = e;
+        }
+        if (ode == 0 && (std::isnan(v[target::split_s]) || t.wall_s < v[target::split_s])) {
+          v[target::split_s] = t.wall_s;
+          v[target::split_steps] = w.result().steps;
+          v[target::split_points] = double(w.result().grid.size());
+        }
+        return;
+      } catch (const std::exception& e) {  // e.g. a grid too coarse for the levels needed
+        ++v[target::failed];
+        std::fprintf(stderr, "(e) T = %.0e: %zu points, %s failed: %s\n", tolerance, points,
+                     (ode > 0 ? text("ODE tolerance %.0e", ode) : text("%.0f steps", steps)).c_str(), e.what());
+      }
+    }
+  };
+  const bool ode_applies = choice.steps > 0 && !moves_walls(scenario);  // as for the search's own try
+  for (const std::size_t points : {fast_fft_size(2 * choice.points / 3), choice.points,
+                                   fast_fft_size(3 * choice.points / 2)}) {
+    scan(points, {{choice.steps / 8, 0}, {choice.steps / 4, 0}, {choice.steps / 2, 0}, {choice.steps, 0},
+                  {2 * choice.steps, 0}});
+    if (ode_applies) scan(points, {{0, tolerance / 10}, {0, tolerance / 100}});
+  }
+  return r;
+}
+
 }  // namespace
 
 int main(int argc, char** argv) {
   bool full = false;
-  std::string cases = "abcd";
+  std::string cases = "abcde";
   for (int i = 1; i < argc; ++i) {
     if (!std::strcmp(argv[i], "--full"))
       full = true;
     else if (!std::strncmp(argv[i], "--cases=", 8))
       cases = argv[i] + 8;
     else {
-      std::fprintf(stderr, "usage: bench_suite [--full] [--cases=abcd]\n");
+      std::fprintf(stderr, "usage: bench_suite [--full] [--cases=abcde]\n");
       return 1;
     }
   }
@@ -444,7 +570,7 @@ int main(int argc, char** argv) {
   // ---- (d) box expansion ----
   if (wanted('d')) {
     const int states = 120, total_steps = 4000, steps = full ? total_steps : 1000;
-    const std::size_t n = 1024;
+    const std::size_t n = 1023;  // DST-I (RODFT00) of size n is fastest where n + 1 is a power of two
     const double tau = 0.5;
     const WallProtocol expansion = WallProtocol::linear_right(0, 1, 2, tau);
     const Spectrum initial = flat_box_spectrum(0, 1, n, states);
@@ -459,7 +585,7 @@ int main(int argc, char** argv) {
     });
     const double naive_scale = double(states) * total_steps * 3 / (4.0 * 200);  // order 4: 3 substeps
     for (int threads : {1, 2}) {
-      Row r{text("(d) box expansion, %.0f thread(s)", threads), "120 states x 1024 modes x 4000 st"};
+      Row r{text("(d) box expansion, %.0f thread(s)", threads), "120 states x 1023 modes x 4000 st"};
       r.m = in_child([&] {
         WallSplitOperatorPropagator p(expansion, n, states, SplitOrder::fourth, threads);
         Eigen::MatrixXcd psi = start;
@@ -484,5 +610,48 @@ int main(int argc, char** argv) {
     if (w.m.values.size() == 2) w.note = text("%.0f steps, fwd + half-step + reverse, 1 thread", w.m.values[1]);
     print_row(w);
   }
+
+  // ---- (e) accuracy target against the best hand-tuned choice ----
+  if (wanted('e')) {
+    for (const double tolerance : {1e-3, 1e-5}) {
+      const Measurement m = in_child([tolerance] { return tolerance_target(tolerance); });
+      const std::string t = text("(e) T = %.0e: ", tolerance);
+      if (m.values.size() != std::size_t(target::count)) {
+        print_row({t + "failed", "default scenario", m});
+        continue;
+      }
+      const auto& v = m.values;
+      auto numerics = [](double steps, double points, double ode) {
+        return ode > 0 ? text("ODE tol %.0e, %.0f pts", ode, points) : text("%.0f st x %.0f pts", steps, points);
+      };
+      Row search{t + "--tolerance search", "whole call, default scenario", m};
+      search.note = "chose " + numerics(v[target::steps], v[target::points], v[target::ode]) +
+                    text(" in %.0f runs; estimate %.2g", v[target::search_runs], v[target::estimate]) +
+                    text(", true error / T = %.2g; search / best hand-tuned = %.2f", v[target::error] / tolerance,
+                         m.wall_s / v[target::best_s]) +
+                    (v[target::ode_stopped] > 0 ? "; its ODE try stopped by the arithmetic budget" : "");
+      print_row(search);
+      Row final_run{t + "its final choice alone", numerics(v[target::steps], v[target::points], v[target::ode]),
+                    {v[target::final_s], v[target::final_cpu], NAN, {}, true}};
+      final_run.note = text("final / best hand-tuned = %.2f; the search timed it at %.2f s", v[target::final_s] / v[target::best_s],
+                            v[target::recorded_s]) +
+                       text(", rerun vs returned: distance %.1e", v[target::rerun_distance]);
+      print_row(final_run);
+      Row best{t + "best hand-tuned choice", numerics(v[target::best_steps], v[target::best_points], v[target::best_ode]),
+               {v[target::best_s], v[target::best_cpu], NAN, {}, true}};
+      best.note = std::isnan(v[target::best_s])
+                      ? "no scanned run within T"
+                      : text("true error / T = %.2g; fastest within T of %.0f runs", v[target::best_error] / tolerance,
+                             v[target::tried]) +
+                            text(" (%.0f failed); best split-operator: %.2f s", v[target::failed], v[target::split_s]) +
+                            " at " + numerics(v[target::split_steps], v[target::split_points], 0) +
+                            text("; reference %.0f st x %.0f pts", v[target::reference_steps], v[target::reference_points]);
+      print_row(best);
+    }
+  }
   std::printf("# naive/this: speed-up over the straightforward implementation; this/floor: time over the FFTs alone\n");
+  if (wanted('e'))
+    std::printf("# (e): true error = line distance of P(W) (forward) from the reference run; best hand-tuned: the "
+                "fastest of the scanned fixed choices within T (failed ones on stderr); all runs use the scenario's "
+                "threads, one after another in one child, each timed once and planning its FFTs afresh\n");
 }

@@ -51,8 +51,11 @@ class Stopwatch {
   double cpu_;
 };
 
+// At most this many values are passed back from a child.
+constexpr std::size_t max_values = 32;
+
 // Runs job() in a child process. Peak memory is the child's whole life (set-up included);
-// wall and CPU time are what the job measured. At most 16 values are passed back.
+// wall and CPU time are what the job measured; at most max_values values are passed back.
 inline Measurement in_child(const std::function<JobResult()>& job) {
   int fd[2];
   if (pipe(fd) != 0) return {};
@@ -60,13 +63,13 @@ inline Measurement in_child(const std::function<JobResult()>& job) {
   const pid_t child = fork();
   if (child == 0) {
     close(fd[0]);
-    double out[19] = {};
+    double out[3 + max_values] = {};
     try {
       const JobResult r = job();
       out[0] = r.wall_s;
       out[1] = r.cpu_s;
-      out[2] = double(std::min<std::size_t>(r.values.size(), 16));
-      for (std::size_t i = 0; i < r.values.size() && i < 16; ++i) out[3 + i] = r.values[i];
+      out[2] = double(std::min(r.values.size(), max_values));
+      for (std::size_t i = 0; i < r.values.size() && i < max_values; ++i) out[3 + i] = r.values[i];
     } catch (const std::exception& e) {
       std::fprintf(stderr, "benchmark case failed: %s\n", e.what());
       _exit(2);
@@ -76,7 +79,7 @@ inline Measurement in_child(const std::function<JobResult()>& job) {
   }
   close(fd[1]);
   Measurement m;
-  double in[19] = {};
+  double in[3 + max_values] = {};
   m.ok = read(fd[0], in, sizeof in) == sizeof in;
   close(fd[0]);
   int status = 0;
