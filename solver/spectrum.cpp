@@ -199,7 +199,60 @@ std::vector<int> degenerate_groups(const Eigen::VectorXd& energies, double toler
   return g;
 }
 
+namespace {
+bool same_options(const SpectrumOptions& a, const SpectrumOptions& b) {
+  return a.levels == b.levels && a.method == b.method && a.fd_order == b.fd_order && a.dense_limit == b.dense_limit &&
+         a.residual_tolerance == b.residual_tolerance && a.refinement_sweeps == b.refinement_sweeps &&
+         a.degeneracy_tolerance == b.degeneracy_tolerance;
+}
+bool same_grid(const Grid& a, const Grid& b) {
+  return a.boundary() == b.boundary() && a.size() == b.size() && a.left() == b.left() && a.right() == b.right();
+}
+std::size_t bytes_of(const Spectrum& s) {
+  return sizeof(double) * std::size_t(s.states.size() + s.energies.size());
+}
+}  // namespace
+
+std::optional<Spectrum> SpectrumMemo::find(const Grid& grid, const std::vector<double>& v,
+                                           const SpectrumOptions& options) const {
+  const std::lock_guard<std::mutex> lock(mutex_);
+  for (const Entry& e : entries_)
+    if (same_grid(e.grid, grid) && same_options(e.options, options) && e.v == v) {
+      ++reused_;
+      return e.spectrum;
+    }
+  return std::nullopt;
+}
+
+void SpectrumMemo::keep(const Grid& grid, const std::vector<double>& v, const SpectrumOptions& options,
+                        const Spectrum& s) {
+  const std::size_t bytes = bytes_of(s);
+  if (bytes > budget_) return;
+  const std::lock_guard<std::mutex> lock(mutex_);
+  while (held_ + bytes > budget_) {
+    held_ -= bytes_of(entries_.front().spectrum);
+    entries_.erase(entries_.begin());
+  }
+  SpectrumOptions o = options;
+  o.memo.reset();
+  entries_.push_back({grid, v, std::move(o), s});
+  held_ += bytes;
+}
+
+std::size_t SpectrumMemo::reused() const {
+  const std::lock_guard<std::mutex> lock(mutex_);
+  return reused_;
+}
+
 Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const SpectrumOptions& options) {
+  if (options.memo) {
+    if (auto found = options.memo->find(grid, v, options)) return std::move(*found);
+    SpectrumOptions plain = options;
+    plain.memo.reset();
+    Spectrum s = solve_spectrum(grid, v, plain);
+    options.memo->keep(grid, v, options, s);
+    return s;
+  }
   const int n = int(grid.size()), k = options.levels;
   TRAPWORK_EXPECT(int(v.size()) == n, "solve_spectrum: potential samples do not match the grid");
   if (k < 1 || k > n / 2)

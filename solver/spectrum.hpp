@@ -15,6 +15,8 @@
 // phi_n ~ +x^n for an oscillator); in a hard-walled box the first lobe at the left wall is
 // positive (as sin(n pi x/L)).
 #include <Eigen/Dense>
+#include <memory>
+#include <mutex>
 #include <optional>
 #include <string>
 #include <vector>
@@ -26,6 +28,8 @@ namespace trapwork {
 
 enum class EigenMethod { automatic, dense, lanczos, finite_difference, hermite };
 
+class SpectrumMemo;
+
 struct SpectrumOptions {
   int levels = 10;                  // K, the number of lowest eigenpairs wanted
   EigenMethod method = EigenMethod::automatic;
@@ -34,6 +38,9 @@ struct SpectrumOptions {
   double residual_tolerance = 1e-9; // on ||H psi - E psi|| (energy units), lanczos refinement
   int refinement_sweeps = 8;        // at most this many Rayleigh-Ritz sweeps
   double degeneracy_tolerance = 1e-9;  // levels closer than this (energy units) form a group
+  // Optional: spectra solved before from equal inputs (grid, samples, the options above) are
+  // returned from here instead of solved again; the results are the same either way.
+  std::shared_ptr<SpectrumMemo> memo;
 };
 
 // Eigenpairs on one grid. Energies ascend; states are columns normalised on the grid.
@@ -51,8 +58,33 @@ struct Spectrum {
 };
 
 // Lowest eigenpairs of the potential samples v on the grid. Throws PhysicsError if more levels
-// are asked for than the grid holds.
+// are asked for than the grid holds. Uses options.memo when it is set.
 Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const SpectrumOptions& options);
+
+// Spectra kept for reuse by a caller that solves the same problems again: `trapwork work
+// --tolerance` repeats a run at other step counts on the same grid, and a duration sweep has
+// the same H_A and H_B at every point. A spectrum is found by exact equality of the grid, the
+// potential samples and the options. Safe to share between threads; it keeps at most `bytes`
+// of states, dropping the oldest first. Owned by the caller: the library keeps no state.
+class SpectrumMemo {
+ public:
+  explicit SpectrumMemo(std::size_t bytes = std::size_t(256) << 20) : budget_(bytes) {}
+  std::optional<Spectrum> find(const Grid& grid, const std::vector<double>& v, const SpectrumOptions& options) const;
+  void keep(const Grid& grid, const std::vector<double>& v, const SpectrumOptions& options, const Spectrum& s);
+  std::size_t reused() const;  // spectra returned by find
+
+ private:
+  struct Entry {
+    Grid grid;
+    std::vector<double> v;
+    SpectrumOptions options;  // without its memo
+    Spectrum spectrum;
+  };
+  std::size_t budget_, held_ = 0;
+  mutable std::size_t reused_ = 0;
+  std::vector<Entry> entries_;  // oldest first
+  mutable std::mutex mutex_;
+};
 
 // The residual tolerance a grid allows: the requested one, or 64 eps (max kinetic + max |V|),
 // the rounding floor of applying H in double precision (a backward-stable residual is

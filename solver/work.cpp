@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <limits>
 #include <map>
 #include <numbers>
 #include <sstream>
@@ -400,10 +401,14 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
     SpectrumRequest sr = request.spectrum;
     sr.options.levels = levels;
     const SpectrumResult ra = compute_spectrum(va, sr);
-    const SpectrumResult rb = compute_spectrum(vb, sr);
+    SpectrumRequest sr_b = sr;  // a fixed extent is the frame's: V_B sits displaced in the lab
+    if (co_moving && sr_b.extent) sr_b.extent = std::make_pair(sr_b.extent->first + displacement, sr_b.extent->second + displacement);
+    const SpectrumResult rb = compute_spectrum(vb, sr_b);
     cutoff = std::max(ra.energy_cutoff, rb.energy_cutoff);
-    result.diagnostics.grid_convergence =
-        std::max(ra.convergence.max_energy_change, rb.convergence.max_energy_change);
+    result.diagnostics.grid_convergence =  // NaN: not checked ([grid] convergence_check = false)
+        ra.convergence.done && rb.convergence.done
+            ? std::max(ra.convergence.max_energy_change, rb.convergence.max_energy_change)
+            : std::numeric_limits<double>::quiet_NaN();
     // common grid: the union of extents at the finer spacing (and the path in the lab frame)
     double left = ra.spectrum.grid.left(), right = ra.spectrum.grid.right();
     double dx = std::min(ra.spectrum.grid.spacing(), rb.spectrum.grid.spacing());

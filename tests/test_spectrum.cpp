@@ -131,3 +131,37 @@ TEST_CASE("bad requests fail with a reason", "[spectrum]") {
   const Potential tweezer({Term("tw", Shape::gaussian, {{"depth", 6.0}, {"waist", 2.0}})});
   CHECK_THROWS_WITH(compute_spectrum(tweezer, r), Contains("polynomial"));
 }
+
+TEST_CASE("a spectrum memo returns what solving again gives, and only for equal inputs", "[spectrum]") {
+  const Grid g = Grid::periodic(-9, 9, 128);
+  const auto v = oscillator(1.0, 0.02).evaluate(g.points());
+  SpectrumOptions o;
+  o.levels = 8;
+  const Spectrum plain = solve_spectrum(g, v, o);
+  o.memo = std::make_shared<SpectrumMemo>();
+  const Spectrum first = solve_spectrum(g, v, o);
+  CHECK(o.memo->reused() == 0);
+  const Spectrum again = solve_spectrum(g, v, o);
+  CHECK(o.memo->reused() == 1);
+  CHECK(again.energies == plain.energies);
+  CHECK(again.states == plain.states);
+  CHECK(first.states == plain.states);
+  // other samples, other options, another grid: solved, not reused
+  auto w = v;
+  w[64] += 1e-3;  // at the trap centre
+  const Spectrum other = solve_spectrum(g, w, o);
+  SpectrumOptions more = o;
+  more.levels = 9;
+  CHECK(solve_spectrum(g, v, more).energies.size() == 9);
+  CHECK(solve_spectrum(Grid::periodic(-9, 9.5, 128), v, o).energies.size() == 8);
+  CHECK(o.memo->reused() == 1);
+  CHECK(other.energies(0) != plain.energies(0));
+  // a memo smaller than two spectra keeps only the newest: the first one is solved again
+  o.memo = std::make_shared<SpectrumMemo>(sizeof(double) * (128 * 8 + 8) * 3 / 2);
+  solve_spectrum(g, v, o);
+  solve_spectrum(g, w, o);
+  solve_spectrum(g, w, o);
+  CHECK(o.memo->reused() == 1);
+  solve_spectrum(g, v, o);
+  CHECK(o.memo->reused() == 1);
+}

@@ -237,6 +237,8 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
   std::exception_ptr error;
   std::atomic<std::size_t> next{0};
   std::atomic<bool> stop{false};
+  // Points share their spectra where they have the same H_A or H_B (a duration sweep: all).
+  const auto memo = std::make_shared<SpectrumMemo>();
   auto worker = [&] {
     for (std::size_t k; !stop && (k = next++) < todo.size();) {
       const std::size_t i = todo[k];
@@ -245,6 +247,7 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
         const Scenario point = at_sweep_point(scenario, i);
         WorkRequest request = work_request(point);
         request.threads = 1;
+        request.spectrum.options.memo = memo;
         const ScenarioWork work = naming_scenario(
             scenario.file + ": sweep point " + sweep.parameter + " = " + sweep.given[i],
             [&] { return compute_work(point, request); });

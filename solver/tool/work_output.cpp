@@ -199,8 +199,14 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
   c.scenario = s;
   request.time_step_check = false;  // the refinements below are the checks
   double last_seconds = 0;
-  auto run = [&](const Scenario& sc, WorkRequest r) {
+  const auto memo = std::make_shared<SpectrumMemo>();  // runs on one grid share their spectra
+  // checked = false: no finer-grid check of the spectra (for the refined runs, whose
+  // comparison with the coarser grid is the check)
+  auto run = [&](const Scenario& sc, WorkRequest r, bool checked = true) {
     r.spectrum = work_request(sc).spectrum;  // the grid of this scenario
+    r.spectrum.options.memo = memo;
+    r.spectrum.convergence_check = r.spectrum.convergence_check && checked;
+    r.grid_check = r.grid_check && checked;
     const auto start = std::chrono::steady_clock::now();
     ScenarioWork w = compute_work(sc, r);
     last_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
@@ -212,14 +218,39 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       c.trail.push_back(std::to_string(w.result().steps) + " steps, " + points);
     return w;
   };
-  // Steps: from the given count, or 1/16 of the automatic one (phases of 3.2 rad per order-4
+  // The start: the given steps, or 1/16 of the automatic count (phases of 3.2 rad per order-4
   // step, 0.32 per Strang step: the automatic step aims at accuracy everywhere, far beyond a
-  // loose T, and the runs from the start on make most of the cost), halve while the halved
-  // run stays within T/2 of the current one; if even the first halving leaves T/2, double
-  // until two runs agree to T/2.
+  // loose T). Each parameter is then varied with the other held: first the grid at these steps,
+  // then the steps on the chosen grid.
   if (request.steps == 0 && request.phase_per_step == 0)
     request.phase_per_step = request.integrator == Integrator::strang ? 0.32 : 3.2;
   ScenarioWork coarse = run(c.scenario, request);
+  double coarse_seconds = last_seconds;
+  request.steps = coarse.result().steps;  // the same steps on every grid below
+  // Grid: refine by 3/2 until two grids agree to T/2; the coarser of the two is kept (grid
+  // errors fall off exponentially, so their distance is the coarser run's own error estimate).
+  for (int k = 0; k < 3; ++k) {
+    const Grid& g = coarse.result().grid;
+    Scenario finer = c.scenario;
+    if (g.boundary() == Boundary::hard_wall) {
+      finer.spectrum.points = fast_fft_size(3 * (g.size() + 1) / 2) - 1;
+    } else {
+      finer.spectrum.points = fast_fft_size(3 * g.size() / 2);
+      if (!finer.spectrum.box) finer.spectrum.extent = std::make_pair(g.left(), g.right());
+    }
+    ScenarioWork fine = run(finer, request, false);
+    const LineDistance d = line_distance(coarse.result().forward, fine.result().forward);
+    c.grid_part = d.distance;
+    c.max_work_shift = d.max_work_shift;
+    c.trail.back() += ": distance to the coarser grid " + short_number(c.grid_part, 3);
+    if (c.grid_part <= tolerance / 2) break;
+    c.scenario = std::move(finer);
+    coarse = std::move(fine);
+    coarse_seconds = last_seconds;
+  }
+  // Steps: halve while the halved run stays within T/2 of the current one; if even the first
+  // halving leaves T/2, double until two runs agree to T/2 and keep the coarser of the two
+  // (its distance to the finer is its error estimate, as for the halving).
   if (coarse.result().steps > 0) {  // a sudden switch has no steps
     bool lowered = false;
     while (coarse.result().steps / 2 >= 16) {
@@ -230,6 +261,7 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       if (d > tolerance / 2) break;
       c.time_step_part = d;
       coarse = std::move(half);
+      coarse_seconds = last_seconds;
       lowered = true;
     }
     for (int k = 0; !lowered && k < 8; ++k) {
@@ -237,30 +269,13 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       ScenarioWork fine = run(c.scenario, request);
       c.time_step_part = line_distance(coarse.result().forward, fine.result().forward).distance;
       c.trail.back() += ": distance to half the steps " + short_number(c.time_step_part, 3);
-      coarse = std::move(fine);
       if (c.time_step_part <= tolerance / 2) break;
+      coarse = std::move(fine);
+      coarse_seconds = last_seconds;
     }
     request.steps = coarse.result().steps;
   }
-  for (int k = 0; k < 3; ++k) {
-    const Grid& g = coarse.result().grid;
-    Scenario finer = c.scenario;
-    if (g.boundary() == Boundary::hard_wall) {
-      finer.spectrum.points = fast_fft_size(3 * (g.size() + 1) / 2) - 1;
-    } else {
-      finer.spectrum.points = fast_fft_size(3 * g.size() / 2);
-      if (!finer.spectrum.box) finer.spectrum.extent = std::make_pair(g.left(), g.right());
-    }
-    ScenarioWork fine = run(finer, request);
-    const LineDistance d = line_distance(coarse.result().forward, fine.result().forward);
-    c.grid_part = d.distance;
-    c.max_work_shift = d.max_work_shift;
-    c.trail.back() += ": distance to the coarser grid " + short_number(c.grid_part, 3);
-    c.scenario = std::move(finer);
-    coarse = std::move(fine);
-    if (c.grid_part <= tolerance / 2) break;
-  }
-  c.split_seconds = last_seconds;
+  c.split_seconds = coarse_seconds;
   c.steps = coarse.result().steps;
   c.points = coarse.result().grid.size();
   c.method = coarse.result().method;

@@ -50,17 +50,19 @@ ScenarioWork compute_work(const Scenario& s, WorkRequest request);
 
 // `trapwork work --tolerance T`: numerics chosen for a bound T on the distance of P(W) from
 // its converged value (line_distance, solver/work.hpp; a total-variation bound over the lines).
-// From 1/16 of the automatic step count (or the scenario's [work] steps), the steps are halved
-// while the halved run stays within T/2 of the current one, or else doubled until two runs
-// differ by at most T/2 (at most 8 doublings); then the grid is refined by 3/2 in points over the same extent
-// until two runs differ by at most T/2 (at most 3 refinements). The finest run is returned;
-// its error estimate is the sum of the two last differences (each measures the coarser run,
-// so it is an overestimate for the finer one). The scenario's [grid] and [work] steps are the
-// starting point when given.
+// From 1/16 of the automatic step count (or the scenario's [work] steps), each parameter is
+// varied with the other held. The grid first, at those steps: refined by 3/2 in points over the
+// same extent until two runs differ by at most T/2 (at most 3 refinements). Then the steps on
+// that grid: halved while the halved run stays within T/2 of the current one, or else doubled
+// until two runs differ by at most T/2 (at most 8 doublings). In each search the coarser run
+// of the agreeing pair is kept (its distance to the finer one is its error estimate), the
+// finest when none agree; the error estimate is the sum of the two distances. Runs on one grid
+// share their spectra (SpectrumMemo). The scenario's [grid] and [work] steps are the starting
+// point when given.
 struct ToleranceChoice {
   double tolerance = 0;
   Scenario scenario;  // with the chosen [grid] points/extent
-  std::optional<ScenarioWork> work;  // the finest run
+  std::optional<ScenarioWork> work;  // the chosen run
   int steps = 0;
   std::size_t points = 0;
   double time_step_part = 0, grid_part = 0;  // the last differences (line_distance)
