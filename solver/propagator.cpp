@@ -508,13 +508,14 @@ void EigenbasisPropagator::matrix_at(double t, Eigen::MatrixXd& m) {
   double size = 0;
   for (Eigen::Index j = 0; j < n; ++j) size += std::abs(v_[std::size_t(j)]) * density_[j];
   const double limit = std::max(shape_limit_, 1000 * std::numeric_limits<double>::epsilon() * size);
-  auto remainder = [&](Eigen::VectorXd& rem) {
-    rem = dv_;
-    for (int pass = 0; pass < 2 && shapes_.cols() > 0; ++pass) rem -= shapes_ * (shapes_.transpose() * rem);
-    arithmetic_ += 8.0 * double(n * shapes_.cols()) + 10.0 * double(n);
-  };
-  Eigen::VectorXd rem;
-  remainder(rem);
+  // the remainder of dV outside the shapes (member scratch: no allocation per evaluation)
+  Eigen::VectorXd& rem = rem_;
+  rem = dv_;
+  for (int pass = 0; pass < 2 && shapes_.cols() > 0; ++pass) {
+    f_.noalias() = shapes_.transpose() * rem;
+    rem.noalias() -= shapes_ * f_;
+  }
+  arithmetic_ += 8.0 * double(n * shapes_.cols()) + 10.0 * double(n);
   if (rem.cwiseAbs().dot(density_) > limit) {
     if (shapes_.cols() >= 64) {
       ++direct_evaluations_;
@@ -543,7 +544,7 @@ void EigenbasisPropagator::step(State& state, double t, double dt) {
   using Complex = std::complex<double>;
   Vector x(std::size_t(2 * k * cols));
   Eigen::Map<Eigen::MatrixXcd>(reinterpret_cast<Complex*>(x.data()), k, cols) = state;
-  Eigen::MatrixXd m(k, k), re(k, cols), im(k, cols);
+  Eigen::MatrixXd m(k, k), re(k, cols), im(k, cols), b_re(k, cols), b_im(k, cols);
   Eigen::VectorXcd phase(k);
   Eigen::MatrixXcd b(k, cols);
   // Interaction picture from t: c = exp(-i E s) a, da/dt = -i exp(i E s) M(t) c.
@@ -554,8 +555,10 @@ void EigenbasisPropagator::step(State& state, double t, double dt) {
     for (Eigen::Index i = 0; i < k; ++i) phase[i] = std::polar(1.0, -energies_[i] * s);
     Eigen::Map<const Eigen::MatrixXcd> a(reinterpret_cast<const Complex*>(y.data()), k, cols);
     b = phase.asDiagonal() * a;
-    re.noalias() = m * b.real();
-    im.noalias() = m * b.imag();
+    b_re = b.real();  // plain matrices for the products (no temporaries per evaluation)
+    b_im = b.imag();
+    re.noalias() = m * b_re;
+    im.noalias() = m * b_im;
     Eigen::Map<Eigen::MatrixXcd> da(reinterpret_cast<Complex*>(dydt.data()), k, cols);
     da = phase.conjugate().asDiagonal() * (Complex(0, -1) * (re.cast<Complex>() + Complex(0, 1) * im.cast<Complex>()));
     arithmetic_ += 4.0 * double(k * k * cols) + 16.0 * double(k * cols);

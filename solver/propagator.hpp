@@ -502,7 +502,7 @@ class EigenbasisPropagator {
   Eigen::MatrixXd shapes_;                     // n x r, orthonormal
   std::vector<Eigen::MatrixXd> shape_matrices_;  // M_r, K x K
   std::vector<double> v_;                      // scratch: the potential sample
-  Eigen::VectorXd dv_, f_;
+  Eigen::VectorXd dv_, f_, rem_;
   double step_hint_ = 0, arithmetic_ = 0;
   long evaluations_ = 0, direct_evaluations_ = 0;
 };
