@@ -241,7 +241,7 @@ struct BatchedSplitStep::Impl {
   fftw_plan forward[2] = {nullptr, nullptr}, backward[2] = {nullptr, nullptr};
   WorkerPool pool;
 
-  Impl(std::size_t n_, int columns_, bool sine_, int threads)
+  Impl(std::size_t n_, int columns_, bool sine_, int threads, FftPlanning planning)
       : n(n_), columns(columns_), block(block_columns_for(n_, columns_)),
         blocks((columns_ + block - 1) / block), sine(sine_), pool(std::max(1, threads)) {
     try {
@@ -250,6 +250,7 @@ struct BatchedSplitStep::Impl {
         if (!scratch.back()) throw PhysicsError("split-operator propagator: cannot allocate the transform scratch");
       }
       std::lock_guard<std::mutex> lock(fftw_planner_mutex());
+      const unsigned flags = planning == FftPlanning::measure ? FFTW_MEASURE : FFTW_ESTIMATE;
       const int last = columns - (blocks - 1) * block;
       for (int k = 0; k < (last == block ? 1 : 2); ++k) {
         const int count = k == 0 ? block : last;
@@ -257,16 +258,16 @@ struct BatchedSplitStep::Impl {
         if (!sine) {
           const int size = int(n);
           forward[k] = fftw_plan_many_dft(1, &size, count, scratch[0], nullptr, 1, size, scratch[0], nullptr, 1, size,
-                                          FFTW_FORWARD, FFTW_MEASURE);
+                                          FFTW_FORWARD, flags);
           backward[k] = fftw_plan_many_dft(1, &size, count, scratch[0], nullptr, 1, size, scratch[0], nullptr, 1,
-                                           size, FFTW_BACKWARD, FFTW_MEASURE);
+                                           size, FFTW_BACKWARD, flags);
         } else {
           // real and imaginary parts of every column, each a RODFT00 of length n with stride 2
           fftw_iodim dim{int(n), 2, 2};
           fftw_iodim many[2] = {{count, 2 * int(n), 2 * int(n)}, {2, 1, 1}};
           fftw_r2r_kind kind = FFTW_RODFT00;
           double* data = reinterpret_cast<double*>(scratch[0]);
-          forward[k] = backward[k] = fftw_plan_guru_r2r(1, &dim, 2, many, data, data, &kind, FFTW_MEASURE);
+          forward[k] = backward[k] = fftw_plan_guru_r2r(1, &dim, 2, many, data, data, &kind, flags);
         }
         if (!forward[k] || !backward[k]) throw PhysicsError("split-operator propagator: FFTW could not create a plan");
       }
@@ -296,9 +297,10 @@ struct BatchedSplitStep::Impl {
   }
 };
 
-BatchedSplitStep::BatchedSplitStep(std::size_t points, int columns, bool sine_transform, int threads) {
+BatchedSplitStep::BatchedSplitStep(std::size_t points, int columns, bool sine_transform, int threads,
+                                   FftPlanning planning) {
   TRAPWORK_EXPECT(points >= 1 && columns >= 1, "BatchedSplitStep needs points >= 1 and columns >= 1");
-  impl_ = std::make_unique<Impl>(points, columns, sine_transform, threads);
+  impl_ = std::make_unique<Impl>(points, columns, sine_transform, threads, planning);
 }
 BatchedSplitStep::~BatchedSplitStep() = default;
 BatchedSplitStep::BatchedSplitStep(BatchedSplitStep&&) noexcept = default;
@@ -344,9 +346,11 @@ void BatchedSplitStep::apply_many(Eigen::MatrixXcd& state, int substeps, const c
 
 // ---- SplitOperatorPropagator -----------------------------------------------------------------
 
-SplitOperatorPropagator::SplitOperatorPropagator(PotentialPath path, int columns, SplitOrder order, int threads)
+SplitOperatorPropagator::SplitOperatorPropagator(PotentialPath path, int columns, SplitOrder order, int threads,
+                                                 FftPlanning planning)
     : path_(std::move(path)), columns_(columns), order_(order),
-      pass_(path_.grid().size(), std::max(1, columns), path_.grid().boundary() == Boundary::hard_wall, threads),
+      pass_(path_.grid().size(), std::max(1, columns), path_.grid().boundary() == Boundary::hard_wall, threads,
+            planning),
       kinetic_(path_.grid().kinetic_modes()) {
   TRAPWORK_EXPECT(columns >= 1, "SplitOperatorPropagator needs at least one column");
   const std::size_t n = path_.grid().size();

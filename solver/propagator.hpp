@@ -242,6 +242,12 @@ class PotentialPath {
 
 enum class SplitOrder { strang = 2, fourth = 4 };
 
+// FFTW planning: `measure` times candidate algorithms first (FFTW_MEASURE: fastest transforms,
+// a planning cost of some hundred transforms per new shape, repaid by long runs); `estimate`
+// takes FFTW's heuristic choice at once (FFTW_ESTIMATE: for short runs). Results agree to
+// rounding either way.
+enum class FftPlanning { measure, estimate };
+
 // Half kick of a split-operator step: kick[j] = exp(-i v[j] dt/2). Returns the spread of the
 // phase over the grid, (max v - min v) |dt| / 2 (radians), a time-step diagnostic.
 double potential_kick(const std::vector<double>& v, double dt, std::vector<std::complex<double>>& kick);
@@ -301,7 +307,8 @@ class BatchedSplitStep {
  public:
   // points >= 1, columns >= 1, threads >= 1 (threads - 1 worker threads are started; the
   // calling thread is the first worker).
-  BatchedSplitStep(std::size_t points, int columns, bool sine_transform, int threads);
+  BatchedSplitStep(std::size_t points, int columns, bool sine_transform, int threads,
+                   FftPlanning planning = FftPlanning::measure);
   ~BatchedSplitStep();
   BatchedSplitStep(BatchedSplitStep&&) noexcept;
   BatchedSplitStep& operator=(BatchedSplitStep&&) noexcept;
@@ -385,7 +392,8 @@ class StrangKicks {
 class SplitOperatorPropagator {
  public:
   using State = Eigen::MatrixXcd;  // grid points x columns, samples psi(x_j)
-  SplitOperatorPropagator(PotentialPath path, int columns, SplitOrder order = SplitOrder::fourth, int threads = 1);
+  SplitOperatorPropagator(PotentialPath path, int columns, SplitOrder order = SplitOrder::fourth, int threads = 1,
+                          FftPlanning planning = FftPlanning::measure);
   ~SplitOperatorPropagator();
   SplitOperatorPropagator(SplitOperatorPropagator&&) noexcept;
   SplitOperatorPropagator& operator=(SplitOperatorPropagator&&) noexcept;

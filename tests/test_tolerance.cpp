@@ -59,7 +59,7 @@ TEST_CASE("--tolerance: the estimate bounds the true distance to the exact Husim
                    << ", split " << c->split_seconds << " s, ODE " << c->eigenbasis_seconds << " s");
     CHECK(c->method == c->work->result().method);
     CHECK(c->ode_stopped != std::isfinite(c->eigenbasis_seconds));
-    if (!c->ode_stopped) CHECK(c->ode_cost_ratio <= 1);
+    if (!c->ode_stopped) CHECK(c->ode_cost_ratio <= 3);  // its budget
   }
   // from 2000 steps the loose bound halves them; the tight one cannot halve them and doubles
   // them until a pair agrees, keeping the coarser of that pair (Strang: error ~ dt^2)

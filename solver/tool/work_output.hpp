@@ -68,11 +68,12 @@ struct ToleranceChoice {
   double time_step_part = 0, grid_part = 0;  // the last differences (line_distance)
   double max_work_shift = 0;                 // of the last grid refinement (internal energy)
   std::vector<std::string> trail;            // one line per run: steps, points, difference
-  // Method: after the grid search, the eigenbasis ODE is tried on the chosen grid where it
-  // applies (tau > 0, walls standing): at ODE tolerances T/50 and, with 3/2 the basis, T/500;
-  // their distance is its own error (ode_part, NaN if not tried). Each ODE run stops once its
-  // estimated arithmetic passes the split-operator run's (4 times for the check), which bounds
-  // the time spent trying. It is chosen when its estimate ode_part + grid_part is within T, it
+  // Method: after the grid and step search, the eigenbasis ODE is tried on the chosen grid
+  // where it applies (tau > 0, walls standing): at ODE tolerances T/50 and, with twice the
+  // restart points and 3/2 the basis, T/500; their distance is its own error (ode_part, NaN if
+  // not tried). The first ODE run stops once its estimated arithmetic passes 3 times the
+  // split-operator run's, the check at 6 times the first ODE run's, which bounds the time
+  // spent trying. It is chosen when its estimate ode_part + grid_part is within T, it
   // agrees with the split-operator run to T, and it is faster: its estimated arithmetic is
   // below half the split-operator run's, or else its run took less wall time (both timed
   // here, one after the other on the same machine: in that band the choice can differ between
