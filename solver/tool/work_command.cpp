@@ -178,7 +178,7 @@ void add_demo_command(CLI::App& app) {
       "demo",
       "Runs `trapwork work` on the built-in scenario: a 40 u ion in a 1 MHz trap with a quartic correction "
       "(lowest spacing raised by about 3 kHz), 2 phonons, moved by 160 nm at constant speed in 2.5 us "
-      "(about 15 s)");
+      "(about 5 s)");
   add_work_options(sub, command->output, command->quiet);
   sub->callback([command] {
     WorkCommand c = *command;
