@@ -550,7 +550,6 @@ void EigenbasisPropagator::step(State& state, double t, double dt) {
   Eigen::Map<Eigen::MatrixXcd>(reinterpret_cast<Complex*>(x.data()), k, cols) = state;
   Eigen::MatrixXd m(k, k), re(k, cols), im(k, cols), b_re(k, cols), b_im(k, cols);
   Eigen::VectorXcd phase(k);
-  Eigen::MatrixXcd b(k, cols);
   // Interaction picture from t: c = exp(-i E s) a, da/dt = -i exp(i E s) M(t) c.
   auto rhs = [&](const Vector& y, Vector& dydt, double time) {
     ++evaluations_;
@@ -558,9 +557,8 @@ void EigenbasisPropagator::step(State& state, double t, double dt) {
     const double s = time - t;
     for (Eigen::Index i = 0; i < k; ++i) phase[i] = std::polar(1.0, -energies_[i] * s);
     Eigen::Map<const Eigen::MatrixXcd> a(reinterpret_cast<const Complex*>(y.data()), k, cols);
-    b = phase.asDiagonal() * a;
-    b_re = b.real();  // plain matrices for the products (no temporaries per evaluation)
-    b_im = b.imag();
+    b_re = (phase.asDiagonal() * a).real();  // plain matrices for the products (no temporaries)
+    b_im = (phase.asDiagonal() * a).imag();
     re.noalias() = m * b_re;
     im.noalias() = m * b_im;
     Eigen::Map<Eigen::MatrixXcd> da(reinterpret_cast<Complex*>(dydt.data()), k, cols);

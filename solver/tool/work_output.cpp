@@ -863,7 +863,7 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
                       short_number(t.eigenbasis_seconds, 2) + " s (wall time here; estimated arithmetic ratio " +
                       short_number(t.ode_cost_ratio, 2) + ")");
     else if (t.ode_stopped)
-      row("method", "eigenbasis ODE stopped by its arithmetic budget (3 times the split-operator run's)");
+      row("method", "eigenbasis ODE stopped by its arithmetic budget (the last run line above says which)");
     row("estimate", short_number(t.estimate(), 3) + " = " + short_number(ode ? t.ode_part : t.time_step_part, 3) +
                         (ode ? " (ODE tolerance and basis)" : " (time step)") + " + " + short_number(t.grid_part, 3) +
                         " (grid); lines move by up to " + e.text(t.max_work_shift, 3) +
