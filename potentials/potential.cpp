@@ -109,6 +109,7 @@ struct Term::Formula {
   mutable double x = 0, t = 0;
   mutable std::vector<double> user_values;
   mu::Parser parser;
+  bool uses_t = false;  // the expression reads t (set when compiled)
 
   Formula(std::string expr, std::vector<std::string> names, std::vector<double> values)
       : expression(std::move(expr)), user_names(std::move(names)), user_values(std::move(values)) {
@@ -177,6 +178,7 @@ Term Term::formula(std::string name, std::string expression,
   try {
     term.formula_ = std::make_unique<Formula>(expression, user_names, user_values);
     value = (*term.formula_)(0.0, 0.0);  // compiles the expression: unknown names and syntax errors show here
+    term.formula_->uses_t = term.formula_->parser.GetUsedVar().count("t") > 0;
   } catch (const mu::Parser::exception_type& e) {
     throw InputError(name + ".expression", expression, "a formula of x, t and the named parameters: " + e.GetMsg());
   }
@@ -191,8 +193,10 @@ Term Term::formula(std::string name, std::string expression,
 
 Term::Term(const Term& o)
     : name_(o.name_), shape_(o.shape_), parameters_(o.parameters_), table_(o.table_) {
-  if (o.formula_)
+  if (o.formula_) {
     formula_ = std::make_unique<Formula>(o.formula_->expression, o.formula_->user_names, o.formula_->user_values);
+    formula_->uses_t = o.formula_->uses_t;
+  }
 }
 Term& Term::operator=(const Term& o) {
   if (this != &o) *this = Term(o);
@@ -282,6 +286,8 @@ double Term::value(double x, double t) const {
   return 0;
 }
 
+bool Term::depends_on_time() const { return formula_ && formula_->uses_t; }
+
 std::optional<std::pair<double, double>> Term::harmonic_part() const {
   if (shape_ != Shape::harmonic && shape_ != Shape::polynomial) return std::nullopt;
   if (parameter("frequency") == 0) return std::nullopt;
@@ -313,6 +319,10 @@ std::vector<double> Potential::evaluate(const std::vector<double>& x, double t) 
   std::vector<double> v(x.size());
   evaluate(x.data(), v.data(), x.size(), t);
   return v;
+}
+
+bool Potential::depends_on_time() const {
+  return std::any_of(terms_.begin(), terms_.end(), [](const Term& t) { return t.depends_on_time(); });
 }
 
 std::pair<std::size_t, std::string_view> Potential::locate(std::string_view address) const {

@@ -26,7 +26,10 @@
 //                  beyond the ends                                 centre, scale (multiplies V)
 //   formula        scale * f((x-c) * length_factor, t * time_factor), f a muParser expression
 //                  of x, t and the user's named parameters (the factors convert internal units
-//                  to the units the formula is written in)
+//                  to the units the formula is written in). t is the protocol time: a
+//                  Potential carries the time its formulas are read at (time(); 0 unless
+//                  set, Protocol::at/initial/final set it), so H_B of a formula using t is
+//                  V(x, tau).
 //                                      centre, scale, length_factor, time_factor, + user names
 // A hard-walled box is not a term: it is a boundary condition of the grid (solver/grid.hpp).
 #include <memory>
@@ -77,6 +80,8 @@ class Term {
   void set_parameter(std::string_view p, double value);  // throws InputError if unknown/invalid
 
   double value(double x, double t = 0) const;
+  // True for a formula whose expression uses t (explicitly time-dependent).
+  bool depends_on_time() const;
   // Harmonic part (1/2) omega^2 (x - c)^2 of harmonic and polynomial terms, if any.
   std::optional<std::pair<double, double>> harmonic_part() const;  // (omega, centre)
 
@@ -98,10 +103,21 @@ class Potential {
   const std::vector<Term>& terms() const { return terms_; }
   void add(Term t);  // throws InputError if the name is taken
 
-  double operator()(double x, double t = 0) const;
+  // V(x) at the potential's own time(); the overloads with t read formulas at t instead.
+  double operator()(double x) const { return (*this)(x, time_); }
+  double operator()(double x, double t) const;
   // V at each x (the hot path for grids and time steps).
-  void evaluate(const double* x, double* v, std::size_t n, double t = 0) const;
-  std::vector<double> evaluate(const std::vector<double>& x, double t = 0) const;
+  void evaluate(const double* x, double* v, std::size_t n) const { evaluate(x, v, n, time_); }
+  void evaluate(const double* x, double* v, std::size_t n, double t) const;
+  std::vector<double> evaluate(const std::vector<double>& x) const { return evaluate(x, time_); }
+  std::vector<double> evaluate(const std::vector<double>& x, double t) const;
+
+  // The time (internal units) at which formula terms using t are read by the overloads
+  // without t: the instant of the protocol this potential is a snapshot of.
+  double time() const { return time_; }
+  void set_time(double t) { time_ = t; }
+  // True when a formula term uses t (V depends on time beyond its scheduled parameters).
+  bool depends_on_time() const;
 
   double parameter(std::string_view address) const;  // "trap.centre"
   void set_parameter(std::string_view address, double value);
@@ -115,6 +131,7 @@ class Potential {
  private:
   std::pair<std::size_t, std::string_view> locate(std::string_view address) const;
   std::vector<Term> terms_;
+  double time_ = 0;
 };
 
 }  // namespace trapwork

@@ -183,7 +183,8 @@ void Schedule::check(double tau) const {
                      "a table covering the protocol [0, " + number_text(tau) + "]");
 }
 
-Protocol::Protocol(double tau, std::vector<Schedule> schedules) : tau_(tau), schedules_(std::move(schedules)) {
+Protocol::Protocol(double tau, std::vector<Schedule> schedules, bool time_reversed)
+    : tau_(tau), schedules_(std::move(schedules)), time_reversed_(time_reversed) {
   if (!std::isfinite(tau) || tau < 0) throw InputError("duration", number_text(tau), "a finite duration >= 0");
   std::set<std::string> seen;
   for (const auto& s : schedules_) {
@@ -193,33 +194,61 @@ Protocol::Protocol(double tau, std::vector<Schedule> schedules) : tau_(tau), sch
   }
 }
 
+namespace {
+// Soft walls (power_walls, erf_walls) scheduled past each other leave no flat region between
+// them: refused, as crossing [box] walls are.
+void check_walls_apart(const Potential& p, double t) {
+  for (const auto& term : p.terms()) {
+    if (term.shape() != Shape::power_walls && term.shape() != Shape::erf_walls) continue;
+    const double left = term.parameter("left"), right = term.parameter("right");
+    if (!(right > left))
+      throw InputError(term.name() + ".right", "right = " + number_text(right) + ", left = " + number_text(left) +
+                       " at t = " + number_text(t),
+                       "soft walls that stay apart (right > left) over the whole protocol: they meet or cross");
+  }
+}
+}  // namespace
+
 Potential Protocol::at(const Potential& base, double t) const {
   Potential p = base;
   for (const auto& s : schedules_) p.set_parameter(s.address(), s.evaluate(t, tau_).value);
+  p.set_time(formula_time(t));
+  check_walls_apart(p, t);
   return p;
 }
 
 Potential Protocol::initial(const Potential& base) const {
   Potential p = base;
   for (const auto& s : schedules_) p.set_parameter(s.address(), s.initial_value(tau_));
+  p.set_time(formula_time(0));
+  check_walls_apart(p, 0);
   return p;
 }
 
 Potential Protocol::final(const Potential& base) const {
   Potential p = base;
   for (const auto& s : schedules_) p.set_parameter(s.address(), s.final_value(tau_));
+  p.set_time(formula_time(tau_));
+  check_walls_apart(p, tau_);
   return p;
 }
 
 void Protocol::check(const Potential& base) const {
   for (const auto& s : schedules_) (void)base.parameter(s.address());
+  if (tau_ == 0)
+    for (const auto& term : base.terms())
+      if (term.depends_on_time())
+        throw InputError(term.name() + ".expression", "a formula using t with a sudden switch (duration 0)",
+                         "a protocol duration > 0 for a formula that uses t: a sudden switch compares V at t = 0 "
+                         "before and after, so the formula's time dependence would have no effect; schedule one of "
+                         "its named parameters instead");
 }
 
 Protocol Protocol::reversed() const {
   std::vector<Schedule> r;
   r.reserve(schedules_.size());
   for (const auto& s : schedules_) r.push_back(s.reversed());
-  return Protocol(tau_, std::move(r));
+  return Protocol(tau_, std::move(r), !time_reversed_);
 }
 
 const Schedule& Protocol::find(const std::string& address) const {

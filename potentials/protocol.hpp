@@ -20,6 +20,10 @@
 // tables their end segments), because the fourth-order composition of Strang steps evaluates
 // V at times up to 0.35 dt beyond the ends and needs a smooth V(t) there.
 // The reversed protocol is lambda_R(t) = lambda(tau - t) (derivative sign flipped).
+// Formula terms of the potential that use t (explicit time dependence) follow the same
+// clock: at(base, t) reads them at t (reversed: tau - t), so H_A = V(x, 0) and H_B = V(x, tau).
+// A sudden switch (tau = 0) compares V at t = 0 before and after, so a formula using t would
+// have no effect there: check() refuses it (InputError naming the term's expression).
 #include <memory>
 #include <optional>
 #include <string>
@@ -88,17 +92,21 @@ struct Translation {
 class Protocol {
  public:
   // Throws InputError for tau < 0 or not finite, a repeated address, or a table that does
-  // not cover [0, tau].
-  Protocol(double tau, std::vector<Schedule> schedules);
+  // not cover [0, tau]. time_reversed: formula terms using t are read at tau - t (the
+  // schedules given are already reversed; reversed() sets it).
+  Protocol(double tau, std::vector<Schedule> schedules, bool time_reversed = false);
+  bool is_time_reversed() const { return time_reversed_; }
   double duration() const { return tau_; }
   const std::vector<Schedule>& schedules() const { return schedules_; }
 
-  // The base potential with every scheduled parameter set to its value at t. Throws
-  // InputError for an address the potential does not have.
+  // The base potential with every scheduled parameter set to its value at t, and its
+  // formula time (Potential::time) t, or tau - t when reversed. Throws InputError for an
+  // address the potential does not have.
   Potential at(const Potential& base, double t) const;
   Potential initial(const Potential& base) const;  // t = 0
   Potential final(const Potential& base) const;    // t = tau
-  // Throws InputError naming the first address the potential does not have.
+  // Throws InputError naming the first address the potential does not have, or the
+  // expression of a formula term using t when tau = 0.
   void check(const Potential& base) const;
   Protocol reversed() const;
 
@@ -112,8 +120,10 @@ class Protocol {
 
  private:
   const Schedule& find(const std::string& address) const;
+  double formula_time(double t) const { return time_reversed_ ? tau_ - t : t; }
   double tau_;
   std::vector<Schedule> schedules_;
+  bool time_reversed_ = false;
 };
 
 }  // namespace trapwork

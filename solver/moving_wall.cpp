@@ -123,15 +123,17 @@ Potential WallProtocol::initial_inner() const { return flat() ? inner_ : inner_p
 Potential WallProtocol::final_inner() const { return flat() ? inner_ : inner_protocol_.final(inner_); }
 
 WallProtocol WallProtocol::reversed() const {
-  std::vector<Schedule> inner;
-  for (const auto& s : inner_protocol_.schedules()) inner.push_back(s.reversed());
-  return WallProtocol(tau_, left_.reversed(), right_.reversed(), inner_, std::move(inner));
+  WallProtocol r = *this;  // checked when built; reversal keeps the walls apart
+  r.left_ = left_.reversed();
+  r.right_ = right_.reversed();
+  r.inner_protocol_ = inner_protocol_.reversed();  // also reads formulas using t at tau - t
+  return r;
 }
 
 Protocol WallProtocol::as_protocol() const {
   std::vector<Schedule> all{left_, right_};
   for (const auto& s : inner_protocol_.schedules()) all.push_back(s);
-  return Protocol(tau_, std::move(all));
+  return Protocol(tau_, std::move(all), inner_protocol_.is_time_reversed());
 }
 
 std::optional<double> WallProtocol::constant_speed() const {
@@ -169,7 +171,7 @@ void WallSplitOperatorPropagator::sample_potential(double t, std::vector<double>
   if (!protocol_.flat()) {
     std::vector<double> x(n);
     for (std::size_t j = 0; j < n; ++j) x[j] = w.left.value + l * y_[j];
-    protocol_.inner_at(t).evaluate(x.data(), v.data(), n, t);
+    protocol_.inner_at(t).evaluate(x.data(), v.data(), n);
   }
   for (std::size_t j = 0; j < n; ++j)
     v[j] += 0.5 * l * w.acceleration() * y_[j] * y_[j] + l * w.left.acceleration * y_[j];
@@ -246,7 +248,7 @@ Eigen::MatrixXd WallEigenbasisPropagator::hamiltonian(double t) const {
   if (!protocol_.flat()) {
     std::vector<double> x(std::size_t(nodes_.size())), v(x.size());
     for (std::size_t q = 0; q < x.size(); ++q) x[q] = w.left.value + l * nodes_[Eigen::Index(q)];
-    protocol_.inner_at(t).evaluate(x.data(), v.data(), x.size(), t);
+    protocol_.inner_at(t).evaluate(x.data(), v.data(), x.size());
     const Eigen::Map<const Eigen::VectorXd> vq(v.data(), Eigen::Index(v.size()));
     h.noalias() = chi_.transpose() * vq.asDiagonal() * chi_;
   }
@@ -446,12 +448,11 @@ Spectrum box_spectrum(const WallProtocol& p, bool final, const WallWorkRequest& 
   levels = std::min<int>(levels, int(request.points) / 2);  // solve_spectrum resolves at most half the points
   SpectrumOptions options = request.spectrum;
   options.levels = levels;
-  const double t = final ? p.duration() : 0.0;
-  return solve_spectrum(grid, (final ? p.final_inner() : p.initial_inner()).evaluate(grid.points(), t), options);
+  return solve_spectrum(grid, (final ? p.final_inner() : p.initial_inner()).evaluate(grid.points()), options);
 }
 
 WallRun run_walls(const WallProtocol& p, const Spectrum& initial, const Spectrum& final, int kept, int finals,
-                  int steps, SplitOrder order, int threads) {
+                  int steps, SplitOrder order, int threads, const std::function<void(double)>& progress = {}) {
   const double tau = p.duration();
   const WallState wa = p.walls(0), wb = p.walls(tau);
   WallSplitOperatorPropagator propagator(p, initial.grid.size(), kept, order, threads);
@@ -459,8 +460,9 @@ WallRun run_walls(const WallProtocol& p, const Spectrum& initial, const Spectrum
   Eigen::MatrixXcd state = (initial.states.leftCols(kept) * std::sqrt(wa.length())).cast<complex>();
   propagator.from_lab(state, 0);
   WallRun run;
-  propagate(propagator, state, 0.0, tau, steps, [&](const Eigen::MatrixXcd&, double) {
+  propagate(propagator, state, 0.0, tau, steps, [&](const Eigen::MatrixXcd&, double t) {
     run.max_phase = std::max(run.max_phase, propagator.max_phase());
+    if (progress) progress(t / tau);
   });
   propagator.to_lab(state, tau);
   for (int c = 0; c < kept; ++c) run.norm_drift = std::max(run.norm_drift, std::abs(state.col(c).squaredNorm() * dy - 1));
@@ -481,7 +483,7 @@ double splitting_rate(const WallProtocol& p, std::size_t points, double e_max) {
     const WallState w = p.walls(t);
     std::vector<double> x(y.size()), v(y.size(), 0.0);
     for (std::size_t j = 0; j < y.size(); ++j) x[j] = w.left.value + w.length() * y[j];
-    if (!p.flat()) p.inner_at(t).evaluate(x.data(), v.data(), x.size(), t);
+    if (!p.flat()) p.inner_at(t).evaluate(x.data(), v.data(), x.size());
     for (std::size_t j = 0; j < y.size(); ++j)
       v[j] += 0.5 * w.length() * w.acceleration() * y[j] * y[j] + w.length() * w.left.acceleration * y[j];
     const auto [lo, hi] = std::minmax_element(v.begin(), v.end());
@@ -610,7 +612,20 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
   result.initial_spectrum = sa;
   result.final_spectrum = sb;
 
-  const WallRun fwd = run_walls(protocol, sa, sb, kept_a, finals, steps, request.order, request.threads);
+  const bool end_chirp = wa.rate() != 0 || wa.left.rate != 0 || wb.rate() != 0 || wb.left.rate != 0;
+  // Progress in units of forward runs: forward 1, grid check 2, half step 2, reverse 1.
+  const bool grid_check = request.grid_check && (end_chirp || !protocol.flat());
+  const double units = 1.0 + (grid_check ? 2.0 : 0.0) + (request.time_step_check ? 2.0 : 0.0) +
+                       (request.reverse_run && beta ? 1.0 : 0.0);
+  double done_units = 0;
+  auto share = [&](double width) {
+    const double from = done_units;
+    done_units += width;
+    return std::function<void(double)>([&request, from, width, units](double f) {
+      if (request.progress) request.progress((from + width * f) / units);
+    });
+  };
+  const WallRun fwd = run_walls(protocol, sa, sb, kept_a, finals, steps, request.order, request.threads, share(1));
   result.forward = WorkInput{transition_matrix(fwd.amplitudes), sa.energies, sb.energies.head(finals), weights_a.weights,
                              {}, {}, beta};
   result.distribution = work_distribution(result.forward, request.merge_tolerance);
@@ -618,14 +633,13 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
   diag.max_phase_per_step = fwd.max_phase;
   diag.unresolved_weight = result.distribution.unresolved_weight;
   diag.jarzynski_residual = result.distribution.jarzynski_residual;
-  const bool end_chirp = wa.rate() != 0 || wa.left.rate != 0 || wb.rate() != 0 || wb.left.rate != 0;
-  if (request.grid_check && (end_chirp || !protocol.flat())) {
+  if (grid_check) {
     // Twice the sine modes: the end chirp of a wall already moving (and an inner potential's
     // levels) are represented on the grid only to a finite number of modes.
     WallWorkRequest fine = request;
     fine.points = 2 * request.points + 1;  // (n + 1) doubled: a fast DST-I when n + 1 is
     const Spectrum fa = box_spectrum(protocol, false, fine, levels), fb = box_spectrum(protocol, true, fine, levels);
-    const WallRun f = run_walls(protocol, fa, fb, kept_a, finals, steps, request.order, request.threads);
+    const WallRun f = run_walls(protocol, fa, fb, kept_a, finals, steps, request.order, request.threads, share(2));
     out.grid_line_change =
         (transition_matrix(f.amplitudes).probability - result.forward.transitions.probability).cwiseAbs().maxCoeff();
     if (out.grid_line_change > 1e-6)
@@ -635,7 +649,7 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
                               "raise the points");
   }
   if (request.time_step_check) {
-    const WallRun half = run_walls(protocol, sa, sb, kept_a, finals, 2 * steps, request.order, request.threads);
+    const WallRun half = run_walls(protocol, sa, sb, kept_a, finals, 2 * steps, request.order, request.threads, share(2));
     diag.time_step_error =
         (transition_matrix(half.amplitudes).probability - result.forward.transitions.probability).cwiseAbs().maxCoeff();
   }
@@ -646,7 +660,7 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
         initial_weights(request.initial, sb.energies, request.thermal_tolerance, request.max_initial_levels);
     const int kept_b = int(weights_b.weights.size());
     const int finals_r = std::min<int>(int(sa.energies.size()), std::max(kept_a, kept_b) + request.final_margin);
-    const WallRun rev = run_walls(reversed, sb, sa, kept_b, finals_r, steps, request.order, request.threads);
+    const WallRun rev = run_walls(reversed, sb, sa, kept_b, finals_r, steps, request.order, request.threads, share(1));
     result.reverse = WorkInput{transition_matrix(rev.amplitudes), sb.energies, sa.energies.head(finals_r),
                                weights_b.weights, {}, {}, weights_b.beta};
     result.reverse_distribution = work_distribution(*result.reverse, request.merge_tolerance);

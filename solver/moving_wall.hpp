@@ -19,6 +19,7 @@
 #include <complex>
 #include <limits>
 #include <memory>
+#include <functional>
 #include <optional>
 #include <string>
 #include <vector>
@@ -237,6 +238,7 @@ struct WallWorkRequest {
   SpectrumOptions spectrum;          // inner potential: eigensolver on Grid::box(a, b, points)
   int sudden_final_levels = 400;     // sudden expansion: final levels from the closed form
   double unresolved_tolerance = 1e-8;  // escape probabilities above this enlarge the levels
+  std::function<void(double fraction)> progress;  // optional, called with 0..1 (per attempt)
 };
 
 // Line-by-line comparison with the Doescher-Rice exact amplitudes.

@@ -38,11 +38,11 @@ PotentialPath PotentialPath::co_moving(Grid grid, Potential base, Protocol proto
 void PotentialPath::sample(double t, std::vector<double>& v) const {
   v.resize(points_.size());
   if (!translation_) {
-    protocol_.at(base_, t).evaluate(points_.data(), v.data(), points_.size(), t);
+    protocol_.at(base_, t).evaluate(points_.data(), v.data(), points_.size());  // formulas at its time
     check_potential_finite(v, points_, t, "x");
     return;
   }
-  base_.evaluate(points_.data(), v.data(), points_.size(), 0.0);
+  base_.evaluate(points_.data(), v.data(), points_.size());
   const double acceleration = protocol_.displacement(*translation_, t).acceleration;
   for (std::size_t j = 0; j < v.size(); ++j) v[j] += acceleration * points_[j];
   check_potential_finite(v, points_, t, "y = x - d(t) (co-moving frame)");

@@ -366,11 +366,13 @@ HarmonicApproximation harmonic_from_scan(const Potential& potential, const Scan&
 }
 }  // namespace
 
-HarmonicApproximation harmonic_approximation(const Potential& potential, double lo, double hi, double t) {
+HarmonicApproximation harmonic_approximation(const Potential& potential, double lo, double hi) {
+  const double t = potential.time();  // formulas using t at the potential's own time
   return harmonic_from_scan(potential, scan_potential(potential, lo, hi, t), t);
 }
 
-double wkb_level_energy(const Potential& potential, int level, double lo, double hi, double t) {
+double wkb_level_energy(const Potential& potential, int level, double lo, double hi) {
+  const double t = potential.time();  // formulas using t at the potential's own time
   const Scan s = scan_potential(potential, lo, hi, t);
   const double v_min = *std::min_element(s.v.begin(), s.v.end());
   const double threshold = std::min(s.v.front(), s.v.back());
@@ -384,7 +386,8 @@ double wkb_level_energy(const Potential& potential, int level, double lo, double
   return b;
 }
 
-Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRequest& request, double t) {
+Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRequest& request) {
+  const double t = potential.time();  // formulas using t at the potential's own time
   const auto [lo, hi] = search_window(request);
   const Scan s = scan_potential(potential, lo, hi, t);
   const double v_min = *std::min_element(s.v.begin(), s.v.end());
@@ -522,7 +525,8 @@ Spectrum solve_on(const Potential& potential, const HarmonicApproximation& harmo
 
 }  // namespace
 
-SpectrumResult compute_spectrum(const Potential& potential, const SpectrumRequest& request, double t) {
+SpectrumResult compute_spectrum(const Potential& potential, const SpectrumRequest& request) {
+  const double t = potential.time();  // formulas using t at the potential's own time
   SpectrumResult result;
   const auto [lo, hi] = search_window(request);
   const Scan s = scan_potential(potential, lo, hi, t);

@@ -99,7 +99,7 @@ std::vector<int> degenerate_groups(const Eigen::VectorXd& energies, double toler
 struct HarmonicApproximation {
   double x_min = 0, v_min = 0, omega = 0;
 };
-HarmonicApproximation harmonic_approximation(const Potential& potential, double lo, double hi, double t = 0);
+HarmonicApproximation harmonic_approximation(const Potential& potential, double lo, double hi);
 
 // Per-level properties for the tables.
 struct Level {
@@ -158,14 +158,14 @@ void cap_potential(std::vector<double>& v, double v_min, double cutoff);
 // a WKB decay length (integral of sqrt(2 (V - E)) dx = decay beyond each), spacing from the
 // largest momentum sqrt(2 (energy_max - v_min)) plus a margin; n rounded to a fast FFT size.
 // Throws PhysicsError if V is nowhere below energy_max in the search window.
-Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRequest& request, double t = 0);
+Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRequest& request);
 
 // WKB estimate of the energy of level K (sum p dx = pi (K + 1/2)), capped at the threshold.
-double wkb_level_energy(const Potential& potential, int level, double lo, double hi, double t = 0);
+double wkb_level_energy(const Potential& potential, int level, double lo, double hi);
 
 // Full pipeline: grid (automatic or fixed), eigenpairs, level table, convergence estimate,
 // warnings (unbound states asked for, states touching the grid edge, unconverged residuals).
-SpectrumResult compute_spectrum(const Potential& potential, const SpectrumRequest& request, double t = 0);
+SpectrumResult compute_spectrum(const Potential& potential, const SpectrumRequest& request);
 
 std::vector<Level> analyse_levels(const Spectrum& spectrum, const HarmonicApproximation& harmonic,
                                   double threshold);

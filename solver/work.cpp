@@ -248,10 +248,11 @@ CrooksCheck crooks_check(const WorkInput& forward, const WorkInput& reverse, dou
 
 namespace {
 
-std::vector<double> samples(const Potential& v, const std::vector<double>& x, double shift = 0, double t = 0) {
+// V at x + shift, formulas at the potential's own time (H_A at 0, H_B at tau).
+std::vector<double> samples(const Potential& v, const std::vector<double>& x, double shift = 0) {
   std::vector<double> xs(x);
   for (double& xi : xs) xi += shift;
-  return v.evaluate(xs, t);
+  return v.evaluate(xs);
 }
 
 Spectrum spectrum_on(const Grid& grid, std::vector<double> v, const SpectrumOptions& options, double cutoff) {
@@ -328,11 +329,20 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
 // applied to (1/2) omega_h^2 (x - c)^2 alone, with the analytic transition probabilities,
 // harmonic energies and, for a Gibbs state, harmonic Boltzmann weights at the same beta.
 // Applies when the protocol moves every term rigidly (displaced oscillator), or changes only
-// the frequency of the one term that carries the harmonic part (parametric oscillator).
+// the frequency of the one term that carries the harmonic part (parametric oscillator), with
+// omega > 0 at both ends. Otherwise nothing, with the reason in why_not.
 std::optional<HarmonicComparison> harmonic_comparison(const Potential& base, const Protocol& protocol,
-                                                      const WorkInput& forward, double merge_tolerance) {
+                                                      const WorkInput& forward, double merge_tolerance,
+                                                      std::string& why_not) {
   const auto part = base.harmonic_part();
-  if (!part) return std::nullopt;
+  if (!part) {
+    why_not = "the trap has no harmonic or polynomial term with a frequency (or their centres differ)";
+    return std::nullopt;
+  }
+  if (base.depends_on_time()) {
+    why_not = "a formula term uses t: the harmonic model would leave its time dependence out";
+    return std::nullopt;
+  }
   const double tau = protocol.duration();
   const int rows = forward.transitions.initial_levels(), cols = forward.transitions.final_levels();
   HarmonicComparison h;
@@ -349,13 +359,20 @@ std::optional<HarmonicComparison> harmonic_comparison(const Potential& base, con
   } else if (carrier && protocol.schedules().size() == 1 &&
              protocol.schedules().front().address() == carrier->name() + ".frequency") {
     const Schedule& s = protocol.schedules().front();
-    w0 = s.initial_value(tau);
-    w1 = s.final_value(tau);
+    w0 = std::abs(s.initial_value(tau));
+    w1 = std::abs(s.final_value(tau));
+    if (!(w0 > 0 && w1 > 0)) {  // e.g. a polynomial trap ramped to a pure quartic
+      why_not = std::string("the harmonic frequency is 0 at the ") + (w0 > 0 ? "end" : "start") +
+                " of the protocol (no harmonic trap there): the parametric-oscillator model needs a frequency "
+                "above 0 at both ends";
+      return std::nullopt;
+    }
     h.model = "parametric oscillator (Husimi 1953)";
     h.parameter = tau > 0 ? parametric_q([&](double t) { double w = s.evaluate(t, tau).value; return w * w; }, tau)
                           : sudden_q(w0, w1);
     h.reference = {husimi_transition_matrix(rows, cols, h.parameter)};
   } else {
+    why_not = "the protocol is neither a rigid translation nor a change of the one harmonic frequency alone";
     return std::nullopt;
   }
   h.exact = base.terms().size() == 1 && base.terms().front().shape() == Shape::harmonic;
@@ -424,7 +441,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
       right = std::max(right, rb.spectrum.grid.right());
       if (!fixed_grid && tau > 0)
         for (int i = 1; i < 16; ++i) {
-          const Grid g = choose_grid(protocol.at(base, tau * i / 16), cutoff, sr, tau * i / 16);
+          const Grid g = choose_grid(protocol.at(base, tau * i / 16), cutoff, sr);
           left = std::min(left, g.left());
           right = std::max(right, g.right());
           dx = std::min(dx, g.spacing());
@@ -540,7 +557,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   } else if (!wa.gibbs) {
     diag.warnings.push_back("initial state is not a Gibbs state of H_A: Jarzynski and Crooks do not apply");
   }
-  result.harmonic = harmonic_comparison(base, protocol, result.forward, request.merge_tolerance);
+  result.harmonic = harmonic_comparison(base, protocol, result.forward, request.merge_tolerance, result.harmonic_absent);
 
   if (diag.unresolved_weight > request.unresolved_tolerance)
     diag.warnings.push_back("unresolved final weight " + fmt(diag.unresolved_weight) + " above " +

@@ -201,6 +201,7 @@ struct WorkResult {
   std::optional<WorkDistribution> reverse_distribution;
   std::optional<CrooksCheck> crooks;
   std::optional<HarmonicComparison> harmonic;
+  std::string harmonic_absent;  // why there is no harmonic reference (empty when there is one)
   Diagnostics diagnostics;
 };
 

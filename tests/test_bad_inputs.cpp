@@ -78,6 +78,29 @@ energy_unit = "h*kHz"
 k = 2.0
 )";
 
+// Soft walls (a power_walls term, not the hard [box]) whose right wall is ramped through the
+// left one: 10 um -> -2 um in 4 ms crosses 0 um at 3.33 ms.
+const std::string soft_walls = R"(title = "soft walls"
+[particle]
+mass = "87 u"
+[units]
+energy = "kB*nK"
+[[potential]]
+name = "walls"
+shape = "power_walls"
+left = "0 um"
+right = "10 um"
+height = "100 kB*nK"
+width = "0.5 um"
+[protocol]
+duration = "4 ms"
+[[protocol.change]]
+parameter = "walls.right"
+to = "-2 um"
+[initial]
+temperature = "2 nK"
+)";
+
 std::string with(std::string text, const std::string& from, const std::string& to) {
   const auto at = text.find(from);
   REQUIRE(at != std::string::npos);
@@ -194,6 +217,15 @@ const std::vector<BadScenario>& bad_scenarios() {
       {"a protocol formula with an unknown variable",
        with(moving, "to = \"30 nm\"", "ramp = \"formula\"\nformula = \"30*t/T\"\ntime_unit = \"us\"\nvalue_unit = \"nm\""),
        "\"30*t/T\"", "protocol.change[1].formula", {"T"}},
+      // issue 14: soft walls ramped past each other are refused as crossing [box] walls are
+      {"soft walls ramped past each other", soft_walls, "[[protocol.change]]", "protocol.change",
+       {"walls.left = 0 um", "walls.right = -0.0", "cross", "ms of 4 ms", "soft walls that stay apart"}},
+      // issue 14: a formula using t cannot act in a sudden switch (V is compared at t = 0 only)
+      {"a formula using t with a sudden switch",
+       with(formula, "0.5*k*x^2", "0.5*k*x^2*(1 + t)") +
+           "[protocol]\nduration = \"0 us\"\n[[protocol.change]]\nparameter = \"f.k\"\nto = 3.0\n"
+           "[initial]\nmean_phonons = 0.3\n",
+       "[[protocol.change]]", "protocol.change", {"f.expression", "duration > 0", "sudden"}},
       {"a protocol formula that divides by zero",
        with(moving, "to = \"30 nm\"", "ramp = \"formula\"\nformula = \"30*t/(tau-tau)\"\ntime_unit = \"us\"\nvalue_unit = \"nm\""),
        "[[protocol.change]]", "protocol.change", {"trap.centre", "finite"}},

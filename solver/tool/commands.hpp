@@ -13,6 +13,7 @@
 #include "solver/compare.hpp"
 #include "solver/plan.hpp"
 #include "solver/tool/scenario.hpp"
+#include "solver/tool/work_output.hpp"
 
 namespace trapwork {
 
@@ -43,6 +44,7 @@ struct WorkCommand {
   bool quiet = false;
   bool show_progress = false;
   std::optional<double> tolerance;  // --tolerance: numerics chosen for this bound (work_output.hpp)
+  double search_budget = default_search_budget;  // --search-budget: the search's cost bound
 };
 void add_work_command(CLI::App& app);
 void run_work_command(const WorkCommand& command, std::ostream& out, std::ostream& progress);
@@ -62,6 +64,7 @@ struct SweepCommand {
   bool show_progress = false;
   int jobs = 0;  // 0: std::thread::hardware_concurrency()
   bool resume = false;  // keep the finished points of an earlier run of the same scenario
+  bool retry_failed = false;  // --retry-failed: with --resume, compute the failed points again
 };
 void add_sweep_command(CLI::App& app);
 void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostream& progress);

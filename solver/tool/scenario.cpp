@@ -227,6 +227,7 @@ class Reader {
   ChangeSpec read_change(const toml::table& t, const std::string& prefix, const Scenario& s,
                          double tau) const;
   void check_protocol(const Scenario& s, const toml::node& where, const std::string& key) const;
+  void check_soft_walls(const Scenario& s, const Protocol& p, const toml::node& where, const std::string& key) const;
   void read_initial(const toml::table& root, Scenario& s) const;
   void read_work(const toml::table& root, Scenario& s) const;
   void read_sweep(const toml::table& root, Scenario& s) const;
@@ -813,9 +814,49 @@ ChangeSpec Reader::read_change(const toml::table& t, const std::string& prefix, 
 
 // Builds the protocol and sets it at 65 times over [0, tau] (every parameter value a shape
 // accepts, tables covering the duration); an error is reported at `where`.
+// Soft walls (power_walls, erf_walls terms) with a scheduled left or right must stay apart, as
+// [box] walls must: checked at 1025 times (as WallProtocol checks the box), reported in lab
+// units at the first time where right <= left.
+void Reader::check_soft_walls(const Scenario& s, const Protocol& p, const toml::node& where,
+                              const std::string& key) const {
+  const double tau = p.duration();
+  auto scheduled = [&](const std::string& a) {
+    return std::any_of(p.schedules().begin(), p.schedules().end(), [&](const Schedule& x) { return x.address() == a; });
+  };
+  auto length_text = [&](double x) { return number_text(s.units.to_si(x, Dimension::length()) * 1e6) + " um"; };
+  auto time_text = [&](double t) {
+    const double sec = s.units.to_si(t, Dimension::time()), full = s.units.to_si(tau, Dimension::time());
+    if (full < 1e-6) return number_text(sec * 1e9) + " ns";
+    if (full < 1e-3) return number_text(sec * 1e6) + " us";
+    if (full < 1) return number_text(sec * 1e3) + " ms";
+    return number_text(sec) + " s";
+  };
+  for (const auto& term : s.potential.terms()) {
+    if (term.shape() != Shape::power_walls && term.shape() != Shape::erf_walls) continue;
+    const std::string left = term.name() + ".left", right = term.name() + ".right";
+    if (!scheduled(left) && !scheduled(right)) continue;
+    constexpr int samples = 1024;
+    for (int i = 0; i <= samples; ++i) {
+      const double t = tau * i / samples;
+      Potential v = s.potential;
+      for (const auto& x : p.schedules())
+        v.set_parameter(x.address(), tau > 0 ? x.evaluate(t, tau).value : (i == 0 ? x.initial_value(0) : x.final_value(0)));
+      const double a = v.parameter(left), b = v.parameter(right);
+      if (b > a) continue;
+      fail(where.source(), key,
+           left + " = " + length_text(a) + ", " + right + " = " + length_text(b) + " at t = " + time_text(t) +
+               (tau > 0 ? " of " + time_text(tau) : std::string(" (after the sudden switch)")),
+           "soft walls that stay apart (right > left) over the whole protocol, as [box] walls must: they " +
+               std::string(b == a ? "meet" : "cross") + " there");
+    }
+  }
+}
+
 void Reader::check_protocol(const Scenario& s, const toml::node& where, const std::string& key) const {
   try {
     const Protocol p = build_protocol(s);
+    p.check(s.potential);  // addresses, and a formula using t with a sudden switch
+    check_soft_walls(s, p, where, key);
     for (int i = 0; i <= 64; ++i) (void)p.at(s.potential, p.duration() * i / 64);
     if (moves_walls(s)) (void)build_wall_protocol(s);
   } catch (const InputError& e) {
@@ -1199,15 +1240,16 @@ WallProtocol build_wall_protocol(const Scenario& s) {
   return WallProtocol(spec.duration, *left, *right, s.potential, build_protocol(s).schedules());
 }
 
-WallWorkRequest wall_work_request(const Scenario& s) {
-  const WorkRequest r = work_request(s);
+WallWorkRequest wall_work_request(const Scenario& s) { return wall_work_request(s, work_request(s)); }
+
+WallWorkRequest wall_work_request(const Scenario& s, const WorkRequest& r) {
   WallWorkRequest w;
   w.initial = r.initial;
   w.thermal_tolerance = r.thermal_tolerance;
   w.max_initial_levels = r.max_initial_levels;
   w.final_margin = r.final_margin;
   // DST-I of n points runs as an FFT of 2 (n + 1): n + 1 with small prime factors only
-  w.points = fast_fft_size(s.spectrum.points.value_or(w.points) + 1) - 1;
+  w.points = fast_fft_size(r.spectrum.points.value_or(w.points) + 1) - 1;
   w.steps = r.steps;
   if (r.integrator == Integrator::eigenbasis)
     throw InputError("work.integrator", "\"eigenbasis\"",
@@ -1223,6 +1265,7 @@ WallWorkRequest wall_work_request(const Scenario& s) {
   w.merge_tolerance = r.merge_tolerance;
   w.unresolved_tolerance = r.unresolved_tolerance;
   w.spectrum = r.spectrum.options;
+  w.progress = r.progress;
   return w;
 }
 

@@ -162,6 +162,9 @@ double parameter_value(const Scenario& s, const std::string& address);
 bool moves_walls(const Scenario& s);
 WallProtocol build_wall_protocol(const Scenario& s);
 WallWorkRequest wall_work_request(const Scenario& s);
+// The same from a work request (work_request(s), possibly adjusted: steps, [grid] points,
+// threads, progress, as the --tolerance search passes them).
+WallWorkRequest wall_work_request(const Scenario& s, const WorkRequest& request);
 // The WorkRequest of a scenario: its [initial] and [work] settings and its grid/spectrum
 // request. Throws InputError naming the file when the scenario has no [initial].
 WorkRequest work_request(const Scenario& s);

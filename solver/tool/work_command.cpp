@@ -1,4 +1,5 @@
 // `trapwork work`, `trapwork sweep` and `trapwork demo` (see commands.hpp).
+#include <algorithm>
 #include <atomic>
 #include <cmath>
 #include <cstdint>
@@ -45,7 +46,8 @@ void add_work_options(CLI::App* sub, std::string& output, bool& quiet) {
 // sweep-points.txt beside sweep.csv holds every finished point in internal units, each number
 // in the shortest text that reads back to the same double, so a resumed sweep writes the same
 // sweep.csv as an uninterrupted one. Line 1: "trapwork sweep points <fingerprint>"; then one
-// line per point: its index in [sweep], the swept value and the other SweepRow numbers.
+// line per point: its index in [sweep], the swept value and the other SweepRow numbers; or, for
+// a point that failed, its index, the value, the word "failed" and the message (one line).
 
 // FNV-1a, 64 bit (Fowler, Noll and Vo; common practice for a non-cryptographic fingerprint)
 // of the scenario file's text and of the sweep values as read.
@@ -69,6 +71,10 @@ void write_sweep_points(std::ostream& out, const std::string& fingerprint,
   out << points_header << fingerprint << '\n';
   for (const auto& [i, r] : done) {
     out << i;
+    if (!r.failure.empty()) {
+      out << ' ' << number_text(r.value) << " failed " << r.failure << '\n';
+      continue;
+    }
     for (double v : {r.value, r.mean, r.sd, r.skewness, r.free_energy_change, r.dissipated_work,
                      r.jarzynski_residual, r.crooks_ratio_error, r.harmonic_mean, r.harmonic_sd, r.time_step_error,
                      r.unresolved_weight, double(r.warnings)})
@@ -100,6 +106,22 @@ std::vector<std::pair<std::size_t, SweepRow>> read_sweep_points(const std::files
     std::size_t i = 0;
     std::string v[13];
     bool ok = bool(fields >> i);
+    {  // a failed point: index, value, "failed", message
+      std::istringstream probe(line);
+      std::string index, value, word;
+      if (probe >> index >> value >> word && word == "failed") {
+        std::string message;
+        std::getline(probe >> std::ws, message);
+        char* end = nullptr;
+        const double x = std::strtod(value.c_str(), &end);
+        if (!ok || *end != '\0' || i >= sweep.values.size() || seen[i] || !(x == sweep.values[i]))
+          throw InputError("", line, "a failed sweep point (index, value, failed, message) of this scenario: remove "
+                           "the file, or run without --resume", "", file.string(), number);
+        seen[i] = true;
+        done.push_back({i, failed_sweep_row(x, message)});
+        continue;
+      }
+    }
     for (auto& f : v) ok = ok && bool(fields >> f);
     double x[13];
     for (int k = 0; ok && k < 13; ++k) {
@@ -132,8 +154,15 @@ void run_work_command(const WorkCommand& command, std::ostream& out, std::ostrea
   if (command.tolerance) {
     if (!(*command.tolerance > 0 && *command.tolerance < 1))
       throw InputError("--tolerance", short_number(*command.tolerance), "a bound between 0 and 1 (e.g. 1e-4)");
-    choice = naming_scenario(scenario.file,
-                             [&] { return compute_work_to_tolerance(scenario, request, *command.tolerance); });
+    if (!(command.search_budget >= 1))
+      throw InputError("--search-budget", short_number(command.search_budget),
+                       "a cost bound >= 1 (in units of the search's first run)");
+    ProgressBar bar("--tolerance search (share of its cost bound)", 1000, progress, command.show_progress);
+    request.progress = [&bar](double fraction) { bar.update(std::size_t(fraction * 1000)); };
+    choice = naming_scenario(scenario.file, [&] {
+      return compute_work_to_tolerance(scenario, request, *command.tolerance, command.search_budget);
+    });
+    bar.finish();
   } else {
     ProgressBar bar("propagating", 1000, progress, command.show_progress);
     request.progress = [&bar](double fraction) { bar.update(std::size_t(fraction * 1000)); };
@@ -165,6 +194,10 @@ void add_work_command(CLI::App& app) {
                   "(a total-variation bound over the work lines, e.g. 1e-4): steps are doubled and the grid refined "
                   "until two runs agree to half of it, and the eigenbasis ODE is tried where its estimated cost is "
                   "lower; the report says what was chosen, why, and the error estimate");
+  sub->add_option("--search-budget", command->search_budget,
+                  "cost bound of the --tolerance search: its runs' estimated arithmetic, summed, in units of its "
+                  "first run's (default " + short_number(default_search_budget) + "); at the bound it stops and "
+                  "reports the accuracy it verified");
   sub->callback([command] {
     WorkCommand c = *command;
     c.show_progress = !c.quiet && ProgressBar::terminal_allows();
@@ -195,6 +228,9 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
   if (!scenario.sweep)
     throw InputError("sweep", "", "a [sweep] table: parameter, and values = [...] or from, to, points", "",
                      scenario.file);
+  if (command.retry_failed && !command.resume)
+    throw InputError("--retry-failed", "without --resume", "--resume --retry-failed (it retries the failed points "
+                     "of the earlier run kept in sweep-points.txt)");
   (void)build_protocol(scenario);  // the errors of a missing [protocol] or [initial] come first
   (void)work_request(scenario);
   const SweepSpec& sweep = *scenario.sweep;
@@ -209,6 +245,12 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
   const std::filesystem::path points_file = folder / "sweep-points.txt";
   std::vector<std::pair<std::size_t, SweepRow>> done;  // (index in [sweep], row), guarded by mutex
   if (command.resume && std::filesystem::exists(points_file)) done = read_sweep_points(points_file, fingerprint, sweep);
+  // Failed points are kept as failed (not tried again on every --resume) unless asked.
+  const std::size_t retried = command.retry_failed ? std::size_t(std::count_if(done.begin(), done.end(), [](const auto& d) {
+    return !d.second.failure.empty();
+  })) : 0;
+  if (command.retry_failed)
+    std::erase_if(done, [](const auto& d) { return !d.second.failure.empty(); });
   const std::size_t resumed = done.size();
   std::vector<std::size_t> todo;  // unfinished indices, in [sweep] order
   {
@@ -243,15 +285,22 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
     for (std::size_t k; !stop && (k = next++) < todo.size();) {
       const std::size_t i = todo[k];
       try {
-        // Each point has its own potential, protocol and request (one FFTW thread each).
-        const Scenario point = at_sweep_point(scenario, i);
-        WorkRequest request = work_request(point);
-        request.threads = 1;
-        request.spectrum.options.memo = memo;
-        const ScenarioWork work = naming_scenario(
-            scenario.file + ": sweep point " + sweep.parameter + " = " + sweep.given[i],
-            [&] { return compute_work(point, request); });
-        const SweepRow row = sweep_row(work.run(point), sweep.values[i]);
+        // Each point has its own potential, protocol and request (one FFTW thread each). A
+        // point that cannot be computed (bad value for that point, physics refused, a bug
+        // caught by a contract check) is recorded as failed and the sweep goes on.
+        SweepRow row;
+        try {
+          const Scenario point = at_sweep_point(scenario, i);
+          WorkRequest request = work_request(point);
+          request.threads = 1;
+          request.spectrum.options.memo = memo;
+          const ScenarioWork work = compute_work(point, request);
+          row = sweep_row(work.run(point), sweep.values[i]);
+        } catch (const std::bad_alloc&) {
+          throw;
+        } catch (const std::exception& e) {
+          row = failed_sweep_row(sweep.values[i], e.what());
+        }
         std::lock_guard lock(mutex);
         done.push_back({i, row});
         write_done();
@@ -270,6 +319,11 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
   bar.finish();
   std::vector<SweepRow> rows;
   for (const auto& d : done) rows.push_back(d.second);
+  const auto failed = std::count_if(rows.begin(), rows.end(), [](const SweepRow& r) { return !r.failure.empty(); });
+  if (failed > 0)  // an error, so printed even with --quiet
+    progress << "trapwork sweep: " << failed << " of " << points << " point(s) failed (failed = 1 in "
+             << (folder / "sweep.csv").string() << ", each with its message; --resume --retry-failed computes them "
+             << "again)\n";
 
   std::vector<std::filesystem::path> files = {folder / "sweep.csv", points_file};
   for (const auto& p : plot_sweep_figure(folder, scenario, rows)) files.push_back(p);
@@ -280,7 +334,8 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
                               " at a time");
   if (command.resume)
     print_row(out, "resumed", std::to_string(resumed) + " of " + std::to_string(points) + " points from " +
-                                  points_file.string() + ", " + std::to_string(todo.size()) + " computed now");
+                                  points_file.string() + ", " + std::to_string(todo.size()) + " computed now" +
+                                  (retried > 0 ? " (" + std::to_string(retried) + " failed before, tried again)" : ""));
   std::sort(rows.begin(), rows.end(), [](const SweepRow& a, const SweepRow& b) { return a.value < b.value; });
   const Display d = display(scenario);
   char line[220];
@@ -291,6 +346,10 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
   out << line;
   int warned = 0;
   for (const auto& r : rows) {
+    if (!r.failure.empty()) {
+      out << "  " << short_number(r.value / sweep.internal_per_unit, 6) << ": failed: " << r.failure << '\n';
+      continue;
+    }
     std::snprintf(line, sizeof line, "  %14s %14s %14s %16s %14s %10s %8d\n",
                   short_number(r.value / sweep.internal_per_unit, 6).c_str(), short_number(d.energy(r.mean), 7).c_str(),
                   short_number(d.energy(r.sd), 5).c_str(), short_number(d.energy(r.harmonic_mean), 7).c_str(),
@@ -317,7 +376,9 @@ void add_sweep_command(CLI::App& app) {
       ->check(CLI::Range(1, 4096));
   sub->add_flag("--resume", command->resume,
                 "keep the points an interrupted run of the same scenario finished (sweep-points.txt in the output "
-                "folder) and compute only the rest");
+                "folder) and compute only the rest; points that failed stay failed");
+  sub->add_flag("--retry-failed", command->retry_failed,
+                "with --resume: compute the points recorded as failed again");
   sub->callback([command] {
     SweepCommand c = *command;
     c.show_progress = !c.quiet && ProgressBar::terminal_allows();

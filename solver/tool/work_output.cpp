@@ -185,7 +185,7 @@ ScenarioWork compute_work(const Scenario& s, WorkRequest request) {
   ScenarioWork w{build_protocol(s), std::move(request), std::nullopt, std::nullopt, {}};
   if (moves_walls(s)) {
     const WallProtocol walls = build_wall_protocol(s);
-    const WallWorkRequest wr = wall_work_request(s);
+    const WallWorkRequest wr = wall_work_request(s, w.request);  // the request as passed (steps, points)
     w.walls = run_wall_work(walls, wr);
     if (s.soft_walls) w.soft_walls = compare_soft_walls(walls, *w.walls, wr, *s.soft_walls);
   } else
@@ -193,13 +193,42 @@ ScenarioWork compute_work(const Scenario& s, WorkRequest request) {
   return w;
 }
 
-ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request, double tolerance) {
+namespace {
+// Estimated arithmetic of a split-operator run (steps x substeps x columns x (two FFTs,
+// 5 n log2 n each, and 30 n for the phases), the reverse run as much again; a sudden switch
+// counts as one step): the unit of the --tolerance search's cost bound.
+double transform_arithmetic(double n) { return 10 * n * std::log2(std::max(2.0, n)) + 30 * n; }
+double run_arithmetic(const WorkResult& r) {
+  if (r.diagnostics.ode_arithmetic > 0) return r.diagnostics.ode_arithmetic * (r.reverse ? 2 : 1);
+  const double substeps = r.method.find("order 4") != std::string::npos ? 3 : 1;
+  const double columns = double(std::max<std::size_t>(1, r.forward.initial_weights.size()));
+  return double(std::max(1, r.steps)) * substeps * columns * transform_arithmetic(double(r.grid.size())) *
+         (r.reverse ? 2 : 1);
+}
+}  // namespace
+
+ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request, double tolerance,
+                                          double cost_bound) {
   ToleranceChoice c;
   c.tolerance = tolerance;
   c.scenario = s;
+  c.cost_bound = cost_bound;
   request.time_step_check = false;  // the refinements below are the checks
   double last_seconds = 0;
   const auto memo = std::make_shared<SpectrumMemo>();  // runs on one grid share their spectra
+  // Cost: every run's estimated arithmetic is added to c.cost_spent (in units of the first
+  // run's); a run that would take the total past the bound is not started. request.progress
+  // (if any) reports the share of the bound used.
+  const std::function<void(double)> report = request.progress;
+  request.progress = nullptr;
+  double unit = 0, predicted = 0;
+  auto fits = [&](const WorkResult& from, int steps, std::size_t points) {
+    predicted = run_arithmetic(from) / unit * double(std::max(1, steps)) / double(std::max(1, from.steps)) *
+                transform_arithmetic(double(points)) / transform_arithmetic(double(from.grid.size()));
+    if (c.cost_spent + predicted <= c.cost_bound) return true;
+    c.bound_reached = true;
+    return false;
+  };
   // checked = false: no finer-grid check of the spectra (for the refined runs, whose
   // comparison with the coarser grid is the check)
   auto run = [&](const Scenario& sc, WorkRequest r, bool checked = true) {
@@ -207,9 +236,16 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
     r.spectrum.options.memo = memo;
     r.spectrum.convergence_check = r.spectrum.convergence_check && checked;
     r.grid_check = r.grid_check && checked;
+    if (report && unit > 0)
+      r.progress = [&, spent = c.cost_spent, share = predicted](double f) {
+        report(std::min(1.0, (spent + f * share) / c.cost_bound));
+      };
     const auto start = std::chrono::steady_clock::now();
     ScenarioWork w = compute_work(sc, r);
     last_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+    if (unit == 0) unit = run_arithmetic(w.result());
+    c.cost_spent += run_arithmetic(w.result()) / unit;
+    if (report) report(std::min(1.0, c.cost_spent / c.cost_bound));
     const std::string points = std::to_string(w.result().grid.size()) + " points (" + short_number(last_seconds, 2) + " s)";
     if (r.integrator == Integrator::eigenbasis)
       c.trail.push_back("eigenbasis ODE at tolerance " + short_number(r.ode.absolute, 2) + ", " +
@@ -229,6 +265,7 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
   request.steps = coarse.result().steps;  // the same steps on every grid below
   // Grid: refine by 3/2 until two grids agree to T/2; the coarser of the two is kept (grid
   // errors fall off exponentially, so their distance is the coarser run's own error estimate).
+  c.grid_part = nan_value;  // not verified until two grids were compared
   for (int k = 0; k < 3; ++k) {
     const Grid& g = coarse.result().grid;
     Scenario finer = c.scenario;
@@ -238,6 +275,7 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       finer.spectrum.points = fast_fft_size(3 * g.size() / 2);
       if (!finer.spectrum.box) finer.spectrum.extent = std::make_pair(g.left(), g.right());
     }
+    if (!fits(coarse.result(), coarse.result().steps, *finer.spectrum.points)) break;
     ScenarioWork fine = run(finer, request, false);
     const LineDistance d = line_distance(coarse.result().forward, fine.result().forward);
     c.grid_part = d.distance;
@@ -250,15 +288,27 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
   }
   // Steps: halve while the halved run stays within T/2 of the current one; if even the first
   // halving leaves T/2, double until two runs agree to T/2 and keep the coarser of the two
-  // (its distance to the finer is its error estimate, as for the halving).
+  // (its distance to the finer is its error estimate, as for the halving). Every run must
+  // have the steps asked for (a run that ignored them would make this loop endless).
+  auto expect_steps = [&](const ScenarioWork& w) {
+    TRAPWORK_EXPECT(w.result().steps == request.steps,
+                    "--tolerance search: the run did not take the steps it was given (" +
+                        std::to_string(w.result().steps) + " for " + std::to_string(request.steps) + ")");
+  };
   if (coarse.result().steps > 0) {  // a sudden switch has no steps
     bool lowered = false;
+    c.time_step_part = nan_value;  // not verified until two step counts were compared
     while (coarse.result().steps / 2 >= 16) {
       request.steps = coarse.result().steps / 2;
+      if (!fits(coarse.result(), request.steps, coarse.result().grid.size())) break;
       ScenarioWork half = run(c.scenario, request);
+      expect_steps(half);
       const double d = line_distance(half.result().forward, coarse.result().forward).distance;
       c.trail.back() += ": distance to twice the steps " + short_number(d, 3);
-      if (d > tolerance / 2) break;
+      if (d > tolerance / 2) {
+        if (!lowered) c.time_step_part = nan_value;
+        break;
+      }
       c.time_step_part = d;
       coarse = std::move(half);
       coarse_seconds = last_seconds;
@@ -266,7 +316,9 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
     }
     for (int k = 0; !lowered && k < 8; ++k) {
       request.steps = 2 * coarse.result().steps;
+      if (!fits(coarse.result(), request.steps, coarse.result().grid.size())) break;
       ScenarioWork fine = run(c.scenario, request);
+      expect_steps(fine);
       c.time_step_part = line_distance(coarse.result().forward, fine.result().forward).distance;
       c.trail.back() += ": distance to half the steps " + short_number(c.time_step_part, 3);
       if (c.time_step_part <= tolerance / 2) break;
@@ -286,7 +338,7 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
   // run's time also holds FFT planning that the count leaves out. Its check may use 6 times
   // the first run's arithmetic.
   const WorkResult& split = coarse.result();
-  if (split.steps > 0 && !moves_walls(s)) {
+  if (split.steps > 0 && !moves_walls(s) && !c.bound_reached) {
     const double n = double(split.grid.size()), columns = double(split.forward.initial_weights.size());
     const double substeps = split.method.find("order 4") != std::string::npos ? 3 : 1;
     const double split_arithmetic = double(split.steps) * substeps * columns * (10 * n * std::log2(n) + 30 * n);
@@ -393,6 +445,15 @@ std::vector<std::string> work_warnings(const WorkRun& run) {
     if (c.name == "Crooks ratio error")
       w.push_back("Crooks ratio error " + short_number(c.value, 3) + " above " + short_number(c.tolerance, 3) +
                   ": lower [work] thermal_tolerance or raise max_initial_levels");
+  }
+  if (run.tolerance && run.tolerance->bound_reached) {
+    const ToleranceChoice& t = *run.tolerance;
+    auto verified = [](double v) { return std::isnan(v) ? std::string("not verified") : short_number(v, 3); };
+    w.push_back("the --tolerance search stopped at its cost bound (" + short_number(t.cost_bound, 3) +
+                " times its first run's estimated arithmetic; next run not started): the result is its finest "
+                "verified run, time-step part " + verified(t.time_step_part) + ", grid part " + verified(t.grid_part) +
+                (t.reached() ? " (within " : " (NOT within ") + short_number(t.tolerance, 3) +
+                "): loosen --tolerance or raise --search-budget");
   }
   if (const SoftWallComparison* c = run.soft_walls) {
     for (std::size_t i = 0; i < c->runs.size(); ++i) {
@@ -536,7 +597,9 @@ nlohmann::ordered_json tolerance_json(const WorkRun& run) {
           {"max_work_shift", display(run.scenario).energy(t.max_work_shift)},
           {"steps", t.steps}, {"points", t.points}, {"method", t.method},
           {"ode_part", number_or_null(t.ode_part)}, {"ode_cost_ratio", number_or_null(t.ode_cost_ratio)}, {"split_seconds", t.split_seconds},
-          {"eigenbasis_seconds", number_or_null(t.eigenbasis_seconds)}, {"ode_stopped", t.ode_stopped}, {"runs", t.trail}};
+          {"eigenbasis_seconds", number_or_null(t.eigenbasis_seconds)}, {"ode_stopped", t.ode_stopped},
+          {"cost_bound", t.cost_bound}, {"cost_spent", t.cost_spent}, {"cost_bound_reached", t.bound_reached},
+          {"runs", t.trail}};
 }
 
 // Moving walls: the exact references (null where they do not apply), display energy units.
@@ -681,6 +744,7 @@ json work_summary(const WorkRun& run) {
         {"reverse_thermal_tail", g.truncation.reverse_thermal_tail}}},
       {"crooks", crooks},
       {"harmonic", harmonic},
+      {"harmonic_absent", r.harmonic || r.harmonic_absent.empty() ? json(nullptr) : json(r.harmonic_absent)},
       {"walls", walls_json(run)},
       {"tolerance", tolerance_json(run)},
       {"diagnostics",
@@ -864,6 +928,8 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
                       short_number(t.ode_cost_ratio, 2) + ")");
     else if (t.ode_stopped)
       row("method", "eigenbasis ODE stopped by its arithmetic budget (the last run line above says which)");
+    row("cost", short_number(t.cost_spent, 3) + " times the first run's estimated arithmetic, bound " +
+                    short_number(t.cost_bound, 3) + (t.bound_reached ? ": the bound stopped the search" : ""));
     row("estimate", short_number(t.estimate(), 3) + " = " + short_number(ode ? t.ode_part : t.time_step_part, 3) +
                         (ode ? " (ODE tolerance and basis)" : " (time step)") + " + " + short_number(t.grid_part, 3) +
                         " (grid); lines move by up to " + e.text(t.max_work_shift, 3) +
@@ -918,8 +984,8 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
                               short_number(c->observed_order, 3) + "), hard walls " + e.text(c->hard_mean_work, 6));
     }
   } else {
-    out << "\nharmonic reference: none (the protocol is neither a rigid translation nor a change of the one "
-           "harmonic frequency)\n";
+    out << "\nharmonic reference: none ("
+        << (r.harmonic_absent.empty() ? std::string("not applicable to moving walls") : r.harmonic_absent) << ")\n";
   }
 
   out << "\ndiagnostics\n";
@@ -980,6 +1046,18 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
 
 // ---- sweeps ----------------------------------------------------------------------------------
 
+SweepRow failed_sweep_row(double value, const std::string& message) {
+  SweepRow r;
+  r.value = value;
+  for (double* x : {&r.mean, &r.sd, &r.skewness, &r.free_energy_change, &r.dissipated_work, &r.jarzynski_residual,
+                    &r.crooks_ratio_error, &r.harmonic_mean, &r.harmonic_sd, &r.time_step_error, &r.unresolved_weight})
+    *x = nan_value;
+  r.failure = message.empty() ? std::string("failed") : message;
+  for (char& ch : r.failure)
+    if (ch == '\n' || ch == '\r') ch = ' ';  // one line in sweep-points.txt and sweep.csv
+  return r;
+}
+
 SweepRow sweep_row(const WorkRun& run, double value) {
   const WorkResult& r = run.result;
   const auto& d = r.distribution;
@@ -1016,12 +1094,16 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
                {"skewness", {}},                {"free_energy_change" + ec, {}}, {"dissipated_work" + ec, {}},
                {"jarzynski_residual", {}},      {"crooks_ratio_error", {}},      {"harmonic_mean_work" + ec, {}},
                {"harmonic_sd_work" + ec, {}},   {"time_step_error", {}},         {"unresolved_weight", {}},
-               {"warnings", {}}};
+               {"warnings", {}},                {"failed", {}}};
+  std::vector<std::string> failures;
   for (const auto& r : rows) {
+    if (!r.failure.empty())
+      failures.push_back("failed: " + w.parameter + " = " + short_number(r.value / w.internal_per_unit, 10) +
+                         (w.unit.empty() ? "" : " " + w.unit) + ": " + r.failure);
     const double v[] = {r.value / w.internal_per_unit, d.energy(r.mean), d.energy(r.sd), r.skewness,
                         d.energy(r.free_energy_change), d.energy(r.dissipated_work), r.jarzynski_residual,
                         r.crooks_ratio_error, d.energy(r.harmonic_mean), d.energy(r.harmonic_sd),
-                        r.time_step_error, r.unresolved_weight, double(r.warnings)};
+                        r.time_step_error, r.unresolved_weight, double(r.warnings), r.failure.empty() ? 0.0 : 1.0};
     for (std::size_t k = 0; k < t.columns.size(); ++k) t.columns[k].values.push_back(v[k]);
   }
   t.comments = {
@@ -1030,14 +1112,19 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
       "swept " + w.parameter + " in " + (w.unit.empty() ? std::string("internal units") : w.unit) +
           "; energies in " + d.e + "; nan where a value does not exist (no Gibbs state, no harmonic reference)",
       "warnings: number of warnings of that point's run (see trapwork work on the scenario at that value)",
+      "failed: 1 where the point could not be computed (numbers nan; its message below; trapwork sweep --resume "
+      "keeps it, --resume --retry-failed computes it again)",
   };
+  t.comments.insert(t.comments.end(), failures.begin(), failures.end());
   return t;
 }
 
 std::vector<fs::path> plot_sweep_figure(const fs::path& folder, const Scenario& s, const std::vector<SweepRow>& input) {
   const SweepSpec& w = *s.sweep;
   const Display d = display(s);
-  std::vector<SweepRow> rows = input;
+  std::vector<SweepRow> rows;
+  for (const auto& r : input)
+    if (r.failure.empty()) rows.push_back(r);  // failed points have no numbers to draw
   std::sort(rows.begin(), rows.end(), [](const SweepRow& a, const SweepRow& b) { return a.value < b.value; });
   SweepFigure f;
   f.title = "mean work over the sweep of " + w.parameter;

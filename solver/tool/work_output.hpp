@@ -85,10 +85,19 @@ struct ToleranceChoice {
   // to the end); ode_stopped: a run was stopped by its budget.
   double ode_cost_ratio = std::numeric_limits<double>::quiet_NaN();
   bool ode_stopped = false;
+  // Cost bound: the runs' estimated arithmetic (steps x substeps x columns x transform cost,
+  // the reverse run included), summed in units of the first run's; a run that would take the
+  // sum past cost_bound is not started, and the search returns what it has verified
+  // (bound_reached; the parts not yet measured are NaN, so estimate() is NaN and reached()
+  // false). request.progress, if set, is called with the share of the bound used.
+  double cost_bound = 0, cost_spent = 0;
+  bool bound_reached = false;
   double estimate() const { return (method.rfind("eigenbasis", 0) == 0 ? ode_part : time_step_part) + grid_part; }
   bool reached() const { return estimate() <= tolerance; }
 };
-ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request, double tolerance);
+constexpr double default_search_budget = 2000;  // about 40 automatic runs with their checks
+ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request, double tolerance,
+                                          double cost_bound = default_search_budget);
 
 // Lowest level spacing E_1 - E_0 of H_A (internal energy; NaN with one level).
 double lowest_spacing(const WorkResult& result);
@@ -140,9 +149,13 @@ struct SweepRow {
   double harmonic_mean = 0, harmonic_sd = 0;
   double time_step_error = 0, unresolved_weight = 0;
   int warnings = 0;
+  std::string failure;  // a point that could not be computed: its error message (numbers NaN)
 };
+// The row of a point that failed with `message`: every number NaN.
+SweepRow failed_sweep_row(double value, const std::string& message);
 SweepRow sweep_row(const WorkRun& run, double value);
-// sweep.csv: one row per finished point, sorted by value.
+// sweep.csv: one row per finished point, sorted by value; a failed point has NaN numbers,
+// failed = 1 and its message in a comment line.
 CsvTable sweep_table(const Scenario& scenario, std::vector<SweepRow> rows, std::size_t points);
 // sweep.png/.svg: <W> +- sd against the swept value, the harmonic <W> of each point as a
 // curve and, for the duration of a constant-speed translation, the closed form
