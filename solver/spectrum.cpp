@@ -539,7 +539,7 @@ SpectrumResult compute_spectrum(const Potential& potential, const SpectrumReques
   const double edge_min = std::min(s.v.front(), s.v.back());
   const int k = request.options.levels;
   // A level is bound below the lower asymptote; for a box or a confining trap there is none.
-  const double top_estimate = wkb_level_energy(potential, k - 1, lo, hi, t);
+  const double top_estimate = wkb_level_energy(potential, k - 1, lo, hi);
   result.finite_depth = !request.box && top_estimate >= edge_min;
   result.threshold = result.finite_depth ? edge_min : inf;
   double cutoff = result.harmonic.v_min + 1.25 * (top_estimate - result.harmonic.v_min) + 1e-12;
@@ -552,7 +552,7 @@ SpectrumResult compute_spectrum(const Potential& potential, const SpectrumReques
   // keep their number; the rest is chosen here and adapted below.
   const bool auto_spacing = !request.points, auto_extent = !request.extent && !request.box;
   auto make_grid = [&](double energy_max) {
-    Grid g = choose_grid(potential, energy_max, request, t);
+    Grid g = choose_grid(potential, energy_max, request);
     if (request.extent) g = with_points(g, request.extent->first, request.extent->second, g.spacing());
     if (request.points)
       g = request.box ? Grid::box(g.left(), g.right(), *request.points) : Grid::periodic(g.left(), g.right(), *request.points);

@@ -823,13 +823,13 @@ void Reader::check_soft_walls(const Scenario& s, const Protocol& p, const toml::
   auto scheduled = [&](const std::string& a) {
     return std::any_of(p.schedules().begin(), p.schedules().end(), [&](const Schedule& x) { return x.address() == a; });
   };
-  auto length_text = [&](double x) { return number_text(s.units.to_si(x, Dimension::length()) * 1e6) + " um"; };
+  auto length_text = [&](double x) { return exact_text(s.units.to_si(x, Dimension::length()) * 1e6) + " um"; };
   auto time_text = [&](double t) {
     const double sec = s.units.to_si(t, Dimension::time()), full = s.units.to_si(tau, Dimension::time());
-    if (full < 1e-6) return number_text(sec * 1e9) + " ns";
-    if (full < 1e-3) return number_text(sec * 1e6) + " us";
-    if (full < 1) return number_text(sec * 1e3) + " ms";
-    return number_text(sec) + " s";
+    if (full < 1e-6) return exact_text(sec * 1e9) + " ns";
+    if (full < 1e-3) return exact_text(sec * 1e6) + " us";
+    if (full < 1) return exact_text(sec * 1e3) + " ms";
+    return exact_text(sec) + " s";
   };
   for (const auto& term : s.potential.terms()) {
     if (term.shape() != Shape::power_walls && term.shape() != Shape::erf_walls) continue;
