@@ -100,7 +100,7 @@ namespace {
 // A hard-wall box [0, 10 um] widened to [0, 20 um] in 4 ms by the smooth formula ramp of the
 // issue, 1 + t/tau - sin(2 pi t/tau)/(2 pi) (zero wall speed at both ends); few levels and a
 // coarse grid so that a search takes seconds.
-const std::string smooth_box = R"(title = "smooth box expansion"
+const std::string smooth_box = R"toml(title = "smooth box expansion"
 [particle]
 mass = "87 u"
 [units]
@@ -123,7 +123,7 @@ temperature = "1 nK"
 [work]
 reverse = false
 max_initial_levels = 12
-)";
+)toml";
 
 std::set<int> trail_steps(const ToleranceChoice& c) {
   std::set<int> steps;
