@@ -21,7 +21,8 @@ WorkRequest small_request(double beta) {
   WorkRequest r;
   r.initial = InitialState::thermal(beta);
   r.spectrum.extent = std::make_pair(-9.0, 9.0);
-  r.spectrum.points = 128;
+  r.spectrum.points = 256;
+  r.max_initial_levels = 30;
   r.spectrum.convergence_check = false;
   r.grid_check = false;
   r.time_step_check = false;
@@ -42,7 +43,7 @@ TEST_CASE("issue 14: a formula using t gives H_B = V(x, tau), as the same V(x, t
   const WorkResult b = run_work(scheduled, Protocol(tau, {Schedule::linear("trap.k", 1.0, 2.0)}), small_request(beta));
 
   // H_B: harmonic levels of omega_1 = sqrt(2), (n + 1/2) omega_1 (textbook); the Fourier grid
-  // of 128 points over [-9, 9] resolves the lowest levels to rounding (measured 1e-13)
+  // of 256 points over [-9, 9] resolves the lowest levels to rounding (measured 1e-13)
   const double w1 = std::sqrt(2.0);
   REQUIRE(a.final_spectrum.energies.size() > 3);
   for (int n = 0; n < 3; ++n) CHECK(a.final_spectrum.energies[n] == Approx((n + 0.5) * w1).epsilon(1e-9));
