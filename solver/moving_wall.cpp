@@ -602,7 +602,9 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
   const int finals = std::min<int>(int(sb.energies.size()), kept_a + request.final_margin);
   const double e_max = std::max(sa.energies[std::min<Eigen::Index>(sa.energies.size() - 1, finals - 1)],
                                 sb.energies[finals - 1]);
-  const double per_step = request.order == SplitOrder::fourth ? 0.2 : 0.02;
+  const double per_step = request.phase_per_step > 0             ? request.phase_per_step
+                          : request.order == SplitOrder::fourth ? 0.2
+                                                                : 0.02;
   const int steps = request.steps > 0 ? request.steps
                                       : std::max(16, int(std::ceil(tau * splitting_rate(protocol, request.points, e_max) / per_step)));
   result.grid = sa.grid;  // the lab box at t = 0 (the propagation runs on its dilation onto [0, 1])
@@ -744,7 +746,17 @@ SoftWallComparison compare_soft_walls(const WallProtocol& protocol, const WallWo
     hi = std::max(hi, w.right.value);
   }
   const WallState w0 = protocol.initial_walls();
+  // Progress: each width an equal share, each of its at most max_doublings + 3 runs a part.
+  const double runs_per_width = soft.max_doublings + 3.0;
+  int runs_done = 0;
+  auto ran = [&] {
+    ++runs_done;
+    if (soft.progress)
+      soft.progress(std::min(1.0, (double(out.runs.size()) + std::min(1.0, runs_done / runs_per_width)) /
+                                      double(soft.widths.size())));
+  };
   for (double width : soft.widths) {
+    runs_done = 0;
     Potential base = protocol.inner();
     base.add(soft_walls(protocol.name(), soft.shape, width, w0.left.value, w0.right.value));
     const double extent = hi - lo + 2.5 * width;
@@ -764,6 +776,7 @@ SoftWallComparison compare_soft_walls(const WallProtocol& protocol, const WallWo
     r.unresolved_tolerance = 1.0;  // compare as computed; the unresolved weight stays in the result
     // Steps doubled from run_work's choice until two runs agree; then one run on 3/2 the points.
     WorkResult run = run_work(base, protocol.as_protocol(), r);
+    ran();
     SoftWallRun s;
     s.width = width;
     s.points = *r.spectrum.points;
@@ -771,6 +784,7 @@ SoftWallComparison compare_soft_walls(const WallProtocol& protocol, const WallWo
     for (int k = 0; k <= soft.max_doublings && protocol.duration() > 0; ++k) {
       r.steps = 2 * s.steps;
       WorkResult finer = run_work(base, protocol.as_protocol(), r);
+      ran();
       s.numerical_error = line_distance(run.forward, finer.forward).distance;
       run = std::move(finer);
       s.steps = r.steps;
@@ -778,6 +792,7 @@ SoftWallComparison compare_soft_walls(const WallProtocol& protocol, const WallWo
     }
     r.spectrum.points = fast_fft_size(3 * (s.points + 1) / 2) - 1;
     const WorkResult refined = run_work(base, protocol.as_protocol(), r);
+    ran();
     s.numerical_error = std::max(s.numerical_error, line_distance(run.forward, refined.forward).distance);
     s.converged = s.numerical_error <= soft.numerical_tolerance;
     s.mean_work = run.distribution.mean;

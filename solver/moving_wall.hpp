@@ -228,7 +228,8 @@ struct WallWorkRequest {
   int final_margin = 24;             // final levels = kept initial levels + margin
   std::size_t points = 511;          // sine modes (interior points) on the dilated box; the DST-I
                                      // is an FFT of 2 (points + 1): keep points + 1 smooth
-  int steps = 0;                     // 0: automatic, E_max dt <= 0.2 (order 4) or 0.02 (Strang)
+  int steps = 0;                     // 0: automatic, E_max dt <= phase_per_step
+  double phase_per_step = 0;         // automatic steps; 0: 0.2 (order 4), 0.02 (Strang)
   SplitOrder order = SplitOrder::fourth;
   int threads = 1;                   // propagator worker threads (results independent of it)
   bool reverse_run = true;
@@ -303,7 +304,10 @@ struct SoftWallRequest {
   std::vector<double> widths;         // each > 0; compared in the order given (largest first)
   std::size_t points = 0;             // soft-run grid points; 0: spacing <= width/6 (>= 256)
   double numerical_tolerance = 1e-4;  // steps doubled until a run moves by less (line distance)
-  int max_doublings = 5;
+  int max_doublings = 5;              // the cost bound: at most 2^(max_doublings + 1) times the
+                                      // first run's steps per width; the last distance is the
+                                      // error reported (SoftWallRun::converged says if it is met)
+  std::function<void(double fraction)> progress;  // optional, 0..1 over all widths
 };
 
 // One soft-wall run against the hard-wall result (forward runs, the same initial state).

@@ -221,3 +221,37 @@ TEST_CASE("--resume refuses the points of another scenario or a damaged record",
   CHECK_THAT(read_all(dir / "stdout.txt"), Catch::Contains("0 of 2 points") && Catch::Contains("2 computed now"));
   check_same_sweep(read_all(dir / "out" / "sweep.csv"), first);
 }
+
+TEST_CASE("issue 14: a failing sweep point is recorded as failed, the sweep goes on, --resume keeps it",
+          "[sweep][resume][issue14]") {
+  // A polynomial trap swept through frequency 0 (no quartic): V = 0 there does not confine,
+  // so that point cannot be computed; the others can.
+  const fs::path dir = trapwork_test::scratch_dir("test-sweep-resume", "failed");
+  std::string text = sweep_scenario.substr(0, sweep_scenario.find("[sweep]"));
+  text.replace(text.find("\"harmonic\""), std::string("\"harmonic\"").size(), "\"polynomial\"");
+  text += "[sweep]\nparameter = \"trap.frequency\"\nvalues = [\"1 MHz\", \"0 MHz\", \"1.2 MHz\"]\n";
+  std::ofstream(dir / "s.toml") << text;
+
+  REQUIRE(run(dir, "sweep s.toml -o out --jobs 1") == 0);
+  CHECK_THAT(read_all(dir / "stderr.txt"), Catch::Contains("1 of 3 point(s) failed"));
+  const std::string csv = read_all(dir / "out" / "sweep.csv");
+  CHECK_THAT(csv, Catch::Contains(",failed\n") && Catch::Contains("# failed: trap.frequency = 0 MHz: ") &&
+                      Catch::Contains("does not confine"));
+  const auto rows = trapwork_test::csv_rows(csv);
+  REQUIRE(rows.size() == 3);
+  int failed = 0;
+  for (const auto& r : rows) {
+    failed += r.back() == 1;
+    CHECK(std::isnan(r[1]) == (r.back() == 1));  // a failed point has no numbers; the others do
+  }
+  CHECK(failed == 1);
+
+  // --resume keeps the failed point (not tried again); --retry-failed computes it again
+  REQUIRE(run(dir, "sweep s.toml -o out --jobs 1 --resume") == 0);
+  CHECK_THAT(read_all(dir / "stdout.txt"), Catch::Contains("3 of 3 points") && Catch::Contains("0 computed now"));
+  REQUIRE(run(dir, "sweep s.toml -o out --jobs 1 --resume --retry-failed") == 0);
+  CHECK_THAT(read_all(dir / "stdout.txt"), Catch::Contains("2 of 3 points") && Catch::Contains("1 computed now") &&
+                                               Catch::Contains("1 failed before, tried again"));
+  CHECK(run(dir, "sweep s.toml -o out --retry-failed") == 2);
+  CHECK_THAT(read_all(dir / "stderr.txt"), Catch::Contains("--retry-failed") && Catch::Contains("--resume"));
+}

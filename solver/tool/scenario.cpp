@@ -1251,6 +1251,7 @@ WallWorkRequest wall_work_request(const Scenario& s, const WorkRequest& r) {
   // DST-I of n points runs as an FFT of 2 (n + 1): n + 1 with small prime factors only
   w.points = fast_fft_size(r.spectrum.points.value_or(w.points) + 1) - 1;
   w.steps = r.steps;
+  w.phase_per_step = r.phase_per_step;
   if (r.integrator == Integrator::eigenbasis)
     throw InputError("work.integrator", "\"eigenbasis\"",
                      "fourth_order or strang for moving walls (the dilated-box split-operator)", "", s.file);

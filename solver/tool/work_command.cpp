@@ -137,7 +137,7 @@ std::vector<std::pair<std::size_t, SweepRow>> read_sweep_points(const std::files
                        "file, or run without --resume", "", file.string(), number);
     seen[i] = true;
     done.push_back({i, SweepRow{x[0], x[1], x[2], x[3], x[4], x[5], x[6], x[7], x[8], x[9], x[10], x[11],
-                                int(x[12])}});
+                                int(x[12]), {}}});
   }
   return done;
 }

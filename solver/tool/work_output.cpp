@@ -185,9 +185,16 @@ ScenarioWork compute_work(const Scenario& s, WorkRequest request) {
   ScenarioWork w{build_protocol(s), std::move(request), std::nullopt, std::nullopt, {}};
   if (moves_walls(s)) {
     const WallProtocol walls = build_wall_protocol(s);
-    const WallWorkRequest wr = wall_work_request(s, w.request);  // the request as passed (steps, points)
+    WallWorkRequest wr = wall_work_request(s, w.request);  // the request as passed (steps, points)
+    const auto& report = w.request.progress;  // the hard-wall run, then the soft-wall runs (if any)
+    const double hard_share = s.soft_walls ? 0.5 : 1.0;
+    if (report) wr.progress = [&report, hard_share](double f) { report(hard_share * f); };
     w.walls = run_wall_work(walls, wr);
-    if (s.soft_walls) w.soft_walls = compare_soft_walls(walls, *w.walls, wr, *s.soft_walls);
+    if (s.soft_walls) {
+      SoftWallRequest soft = *s.soft_walls;
+      if (report) soft.progress = [&report](double f) { report(0.5 + 0.5 * f); };
+      w.soft_walls = compare_soft_walls(walls, *w.walls, wr, soft);
+    }
   } else
     w.plain = run_work(s.potential, w.protocol, w.request);
   return w;
