@@ -108,13 +108,18 @@ WorkDistribution work_distribution(const WorkInput& in, double merge_tolerance) 
   if (in.beta) {
     const double beta = *in.beta;
     const double e0a = in.initial_energies[0], e0b = in.final_energies[0];
-    double average = 0;  // shifted: times exp(-beta (E0B - E0A)) below
+    // Gibbs weights: p_m exp(beta (E_m - E_0^A)) = p_0 for every kept level m, also where p_m
+    // itself underflows to 0 (a cold box drops no level: the levels kept to bound p_R(>=K)
+    // carry the reverse run's contribution to the average).
+    const double p0 = in.initial_weights.front();
     for (int m = 0; m < rows; ++m) {
       const double w = in.initial_weights[std::size_t(m)];
-      if (w <= 0) continue;
-      const double a = std::exp(std::log(w) + beta * (in.initial_energies[m] - e0a));
-      for (int n = 0; n < cols; ++n) average += a * p(m, n) * std::exp(-beta * (in.final_energies[n] - e0b));
+      TRAPWORK_EXPECT(w < 1e-250 || std::abs(w * std::exp(beta * (in.initial_energies[m] - e0a)) / p0 - 1) < 1e-8,
+                      "work_distribution: beta given but the initial weights are not Gibbs weights");
     }
+    double average = 0;  // shifted: times exp(-beta (E0B - E0A)) below
+    for (int n = 0; n < cols; ++n) average += p.col(n).sum() * std::exp(-beta * (in.final_energies[n] - e0b));
+    average *= p0;
     const double ratio = shifted_partition(in.final_energies, beta) / shifted_partition(in.initial_energies, beta);
     d.beta = beta;
     d.jarzynski_residual = average / ratio - 1;

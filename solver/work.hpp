@@ -80,9 +80,11 @@ struct WorkDistribution {
 };
 
 // <exp(-beta W)> = (1/Z_A^K) sum_n exp(-beta E_n^B) sum_m P(m -> n) for Gibbs weights p_m over
-// the K kept levels, evaluated with energies shifted by E_0^A and E_0^B (no overflow) as
-// sum_{m,n} exp(ln p_m + beta (E_m - E_0^A)) P(m,n) exp(-beta (E_n - E_0^B)), times
-// exp(-beta (E_0^B - E_0^A)). Z_B / Z_A uses all the energies given.
+// the K kept levels, evaluated with energies shifted by E_0^A and E_0^B (no overflow or
+// underflow) as p_0 sum_n exp(-beta (E_n - E_0^B)) sum_m P(m,n), times exp(-beta (E_0^B - E_0^A)):
+// for Gibbs weights p_m exp(beta (E_m - E_0^A)) = p_0, so every kept row counts, also those
+// whose weight p_m underflows to 0. Z_B / Z_A uses all the energies given. With beta given the
+// weights must be Gibbs weights over the rows (programmer error otherwise).
 WorkDistribution work_distribution(const WorkInput& input, double merge_tolerance = 1e-9);
 
 // Histogram with bins [start + k width, start + (k+1) width), start = floor(W_min/width) width.

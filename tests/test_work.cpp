@@ -216,3 +216,22 @@ TEST_CASE("run_work: sudden quench through the driver, and a non-Gibbs start is 
   CHECK(flagged);
   CHECK(e.distribution.lines.front().initial == 1);
 }
+
+TEST_CASE("issue 14: Jarzynski average keeps the rows whose Boltzmann weight underflows", "[work][thermal]") {
+  // beta (E_m - E_0) = 800 m: every weight but p_0 underflows to 0.0 (exp(-745) is below the
+  // smallest double). The reverse run's escape p_R(>=K) is what the K kept rows are for; the
+  // identity residual = (Z_A/Z_A^K)(1 - p_R(>=K)) - 1 (derived in the TPM scheme from unitarity,
+  // as in the test above) must hold. Dropping rows m >= 1 gives P(0 -> 0) - 1 = -0.057 instead.
+  const double beta = 800, q = sudden_q(1, 2);
+  const int k = 12, levels = 200;
+  const Eigen::VectorXd ea = oscillator_energies(1, levels), eb = oscillator_energies(2, levels);
+  const auto weights = boltzmann_weights(ea.head(k), beta);
+  REQUIRE(weights[1] == 0.0);
+  const WorkInput fwd{{husimi_transition_matrix(k, levels, q)}, ea, eb, weights, {}, {}, beta};
+  const auto d = work_distribution(fwd);
+  const auto t = truncation_residual_bound(thermal_tail(ea, beta, k), k, husimi_transition_matrix(40, levels, q),
+                                           boltzmann_weights(eb.head(40), beta), thermal_tail(eb, beta, 40));
+  INFO("residual " << d.jarzynski_residual << " p_R(>=K) " << t.reverse_tail);
+  CHECK(d.jarzynski_residual == Approx((1 - t.reverse_tail) / (1 - t.thermal_tail) - 1).margin(1e-14));
+  CHECK(std::abs(d.jarzynski_residual) <= t.bound + 1e-14);
+}
