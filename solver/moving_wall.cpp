@@ -348,11 +348,12 @@ Eigen::MatrixXcd chirp_matrix(double theta, int modes, int rows) {
   return g;
 }
 
-Eigen::MatrixXcd doescher_rice_amplitudes(double L0, double L1, double u, int K, int modes) {
+Eigen::MatrixXcd doescher_rice_amplitudes(double L0, double L1, double u, int K, int modes, int initial) {
   TRAPWORK_EXPECT(K >= 1, "doescher_rice_amplitudes needs K >= 1");
   if (!(L0 > 0) || !(L1 > 0) || !std::isfinite(u))
     throw PhysicsError("Doescher-Rice: box widths must be positive (L0 = " + fmt(L0) + ", L1 = " + fmt(L1) + ")");
-  if (L1 == L0) return Eigen::MatrixXcd::Identity(K, K);
+  const int columns = initial > 0 ? std::min(initial, K) : K;
+  if (L1 == L0) return Eigen::MatrixXcd::Identity(K, columns);
   if (u == 0 || (L1 - L0) * u < 0)
     throw PhysicsError("Doescher-Rice: the wall speed u = " + fmt(u) + " does not take L from " + fmt(L0) +
                        " to " + fmt(L1));
@@ -360,7 +361,7 @@ Eigen::MatrixXcd doescher_rice_amplitudes(double L0, double L1, double u, int K,
   modes = std::max(modes, K);
   const double tau = (L1 - L0) / u;
   // G symmetric: G0's first K columns are the transpose of its first K rows
-  const Eigen::MatrixXcd g1 = chirp_matrix(u * L1 / 2, modes, K), g0 = chirp_matrix(-u * L0 / 2, modes, K).transpose();
+  const Eigen::MatrixXcd g1 = chirp_matrix(u * L1 / 2, modes, K), g0 = chirp_matrix(-u * L0 / 2, modes, columns).transpose();
   Eigen::VectorXcd phase(modes);
   for (int n = 1; n <= modes; ++n) phase[n - 1] = std::polar(1.0, -double(n) * n * pi * pi * tau / (2 * L0 * L1));
   return g1 * phase.asDiagonal() * g0;
@@ -436,6 +437,7 @@ namespace {
 
 struct WallRun {
   Eigen::MatrixXcd amplitudes;  // final levels x initial levels
+  StateEnergies energies;       // <H_B>, ||H_B psi||^2 of the final states in the sine basis
   double norm_drift = 0, max_phase = 0;
 };
 
@@ -467,6 +469,12 @@ WallRun run_walls(const WallProtocol& p, const Spectrum& initial, const Spectrum
   propagator.to_lab(state, tau);
   for (int c = 0; c < kept; ++c) run.norm_drift = std::max(run.norm_drift, std::abs(state.col(c).squaredNorm() * dy - 1));
   run.amplitudes = (final.states.leftCols(finals) * std::sqrt(wb.length())).transpose().cast<complex>() * state * dy;
+  // H_B on the lab box at tau in the sine basis (final.grid has the same points; the scale
+  // sqrt(L) cancels in state_energies): ||H_B psi||^2 is finite even where H_B psi does not
+  // vanish at the wall (a wall still moving at tau), where <psi|H_B H_B psi> by parts is not.
+  const std::vector<double> v = p.flat() ? std::vector<double>(final.grid.size(), 0.0)
+                                         : p.final_inner().evaluate(final.grid.points(), tau);
+  run.energies = state_energies(final.grid, v, state);
   return run;
 }
 
@@ -635,6 +643,8 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
   diag.max_phase_per_step = fwd.max_phase;
   diag.unresolved_weight = result.distribution.unresolved_weight;
   diag.jarzynski_residual = result.distribution.jarzynski_residual;
+  diag.moments = moment_errors(result.forward, result.distribution, fwd.energies, weights_a.choice.left_out,
+                               request.unresolved_tolerance);
   if (grid_check) {
     // Twice the sine modes: the end chirp of a wall already moving (and an inner potential's
     // levels) are represented on the grid only to a finite number of modes.
@@ -644,11 +654,24 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
     const WallRun f = run_walls(protocol, fa, fb, kept_a, finals, steps, request.order, request.threads, share(2));
     out.grid_line_change =
         (transition_matrix(f.amplitudes).probability - result.forward.transitions.probability).cwiseAbs().maxCoeff();
+    // The direct moments' own sine-basis error: the change on twice the modes, times 3. For an
+    // error falling as 1/modes (the slowest seen: a wall moving at an end leaves psi'' != 0 at
+    // the wall, so |c_k|^2 ~ k^-6 and E_k^2 |c_k|^2 ~ k^-2) the remainder is twice the change;
+    // the factor 3 leaves room for the next order.
+    const MomentErrors finer = moment_errors(result.forward, result.distribution, f.energies,
+                                             weights_a.choice.left_out, request.unresolved_tolerance);
+    diag.moments.mean_basis = 3 * std::abs(finer.mean_direct - diag.moments.mean_direct);
+    diag.moments.variance_basis = 3 * std::abs(finer.variance_direct - diag.moments.variance_direct);
+    total_moment_errors(diag.moments);
     if (out.grid_line_change > 1e-6)
       diag.warnings.push_back("line probabilities change by " + fmt(out.grid_line_change) + " with twice the points (" +
                               std::to_string(fine.points) + ")" +
                               (end_chirp ? ": the walls move at the start or the end, use a smooth ramp or " : ": ") +
                               "raise the points");
+  }
+  else if (end_chirp || !protocol.flat()) {  // the basis error of the direct moments is not known
+    diag.moments.mean_basis = diag.moments.variance_basis = std::numeric_limits<double>::quiet_NaN();
+    total_moment_errors(diag.moments);
   }
   if (request.time_step_check) {
     const WallRun half = run_walls(protocol, sa, sb, kept_a, finals, 2 * steps, request.order, request.threads, share(2));
@@ -678,17 +701,38 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
   }
 
   if (const auto u = protocol.constant_speed()) {
-    const int k = std::max(kept_a, finals);
-    const Eigen::MatrixXcd dr = doescher_rice_amplitudes(wa.length(), wb.length(), *u, k);
-    WorkInput reference = result.forward;
-    reference.transitions = transition_matrix(dr.topLeftCorner(finals, kept_a));
+    // Not summed on the run's final levels: the reference <W> keeps 4 times as many (at least
+    // 400, at most 1024; its error from the change against half of them), so that it judges
+    // the truncation of the run's moments too. Same initial levels and weights as the run.
     DoescherRiceComparison c;
     c.speed = *u;
+    c.levels = std::min(1024, std::max({400, 4 * finals, kept_a}));
+    const Eigen::MatrixXcd dr = doescher_rice_amplitudes(wa.length(), wb.length(), *u, c.levels, 0, kept_a);
+    WorkInput reference = result.forward;
+    reference.transitions = transition_matrix(dr.topLeftCorner(finals, kept_a));
     c.max_line_difference = (reference.transitions.probability - result.forward.transitions.probability).cwiseAbs().maxCoeff();
-    c.mean_work = work_distribution(reference, request.merge_tolerance).mean;
+    auto reference_with = [&](int levels) {
+      WorkInput r = result.forward;
+      r.transitions = transition_matrix(dr.topLeftCorner(levels, kept_a));
+      r.final_energies = flat_box_spectrum(wb.left.value, wb.right.value, std::size_t(levels), levels).energies;
+      return work_distribution(r, request.merge_tolerance);
+    };
+    const WorkDistribution full = reference_with(c.levels), half = reference_with(c.levels / 2);
+    c.mean_work = full.mean;
+    c.mean_work_error = std::abs(full.mean - half.mean);
+    c.variance = full.variance;
+    c.variance_error = 2 * std::abs(full.variance - half.variance);  // 1/levels convergence (see above)
     c.mean_work_difference = result.distribution.mean - c.mean_work;
     out.doescher_rice = c;
   }
+  if (const std::string w = moment_warning(
+          diag.moments, finals,
+          end_chirp ? "the walls move at the start or the end: H_B psi does not vanish at the wall, its sine "
+                      "coefficients fall slowly and <W^2> converges only as 1/modes; use a smooth ramp, or raise "
+                      "[grid] points (now " + std::to_string(request.points) + ")"
+                    : "the sine basis: raise [grid] points (now " + std::to_string(request.points) + ")");
+      !w.empty())
+    diag.warnings.push_back(w);
   if (diag.unresolved_weight > request.unresolved_tolerance)
     diag.warnings.push_back("unresolved weight " + fmt(diag.unresolved_weight) + ": raise final_margin");
   return out;
@@ -709,15 +753,22 @@ WallWorkResult run_wall_work(const WallProtocol& protocol, const WallWorkRequest
     WallWorkResult out = run_wall_work_once(protocol, r);
     Diagnostics& d = out.work.diagnostics;
     const double escape = std::max(d.unresolved_weight, d.truncation.reverse_tail);
-    if (protocol.duration() == 0 || !(escape > r.unresolved_tolerance) || attempt == 2) {
+    // more levels help the moments only where the final levels or the thermal cut dominate
+    const std::string moments = d.moments.dominant();
+    const bool levels_help = moments == "final" || moments == "thermal";
+    if (protocol.duration() == 0 || (!(escape > r.unresolved_tolerance) && !levels_help) || attempt == 2) {
       if (attempt > 0)
         d.warnings.insert(d.warnings.begin(), "levels enlarged " + std::to_string(attempt) +
-                                                  " time(s) to bound the escape probability (now " + fmt(escape) +
-                                                  "; final margin " + std::to_string(r.final_margin) +
-                                                  ", thermal tolerance " + fmt(r.thermal_tolerance) + ")");
+                                                  " time(s) to bound the escape probability and the moments' "
+                                                  "truncation error (escape now " + fmt(escape) + ", <W> error " +
+                                                  fmt(d.moments.mean_error) + ", var W error " +
+                                                  fmt(d.moments.variance_error) + "; final margin " +
+                                                  std::to_string(r.final_margin) + ", thermal tolerance " +
+                                                  fmt(r.thermal_tolerance) + ")");
       return out;
     }
-    if (d.unresolved_weight > r.unresolved_tolerance) r.final_margin *= 2;
+    if (d.unresolved_weight > r.unresolved_tolerance || moments == "final") r.final_margin *= 2;
+    if (moments == "thermal") r.thermal_tolerance /= 1e3;
     if (d.truncation.reverse_tail > r.unresolved_tolerance && out.work.reverse)
       r.min_initial_levels = levels_for_reverse_tail(out.work.reverse->transitions.probability,
                                                      out.work.reverse->initial_weights, r.unresolved_tolerance / 2) +

@@ -193,10 +193,10 @@ Eigen::MatrixXcd chirp_matrix(double theta, int modes, int rows = 0);
 // Doescher-Rice amplitudes A_km = <phi_k^{L1}|U|phi_m^{L0}>, k, m = 1..K (index 0..K-1) for a
 // flat box [0, L(t)], L(t) = L0 + u t, tau = (L1 - L0)/u:
 //   A = G(u L1/2) diag(exp(-i n^2 pi^2 tau/(2 L0 L1))) G(-u L0/2),
-// the intermediate sum over n <= `modes` (0: K + 100). Exact solutions of Doescher & Rice,
-// Am. J. Phys. 37, 1246 (1969) (from memory). Throws PhysicsError unless L0, L1 > 0 and u has
-// the sign of L1 - L0 (u = 0 only when L1 = L0).
-Eigen::MatrixXcd doescher_rice_amplitudes(double L0, double L1, double u, int K, int modes = 0);
+// the intermediate sum over n <= `modes` (0: K + 100), for the first `initial` columns (0: K).
+// Exact solutions of Doescher & Rice, Am. J. Phys. 37, 1246 (1969) (from memory). Throws
+// PhysicsError unless L0, L1 > 0 and u has the sign of L1 - L0 (u = 0 only when L1 = L0).
+Eigen::MatrixXcd doescher_rice_amplitudes(double L0, double L1, double u, int K, int modes = 0, int initial = 0);
 
 // Sudden expansion [a0, b0] -> [a1, b1] with a1 <= a0, b0 <= b1 (flat box): overlaps
 // A(n, m) = <n_B|m_A> = int_{a0}^{b0} phi_n^B phi_m^A dx, n < final, m < initial, in closed form
@@ -243,10 +243,17 @@ struct WallWorkRequest {
 };
 
 // Line-by-line comparison with the Doescher-Rice exact amplitudes.
+// The reference moments use `levels` final levels (at least 4 times the run's, at most 1024),
+// the run's initial levels and weights: they judge the run's final-level truncation too.
 struct DoescherRiceComparison {
   double speed = 0;                // u = L'
+  int levels = 0;                  // final levels of the reference moments
   double max_line_difference = 0;  // max |P(m->n) - P_DR(m->n)| over the computed lines
-  double mean_work = 0;            // <W> from the DR probabilities, same levels and weights
+  double mean_work = 0;            // <W> from the DR probabilities over `levels` final levels
+  double mean_work_error = 0;      // |<W>(levels) - <W>(levels/2)|
+  double variance = 0;             // var W over `levels` final levels
+  double variance_error = 0;       // 2 |var(levels) - var(levels/2)| (var W converges as 1/levels
+                                   // when the wall moves at the ends)
   double mean_work_difference = 0; // numerical <W> - DR <W>
 };
 

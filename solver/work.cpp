@@ -8,6 +8,7 @@
 #include <sstream>
 
 #include "solver/errors.hpp"
+#include "solver/hamiltonian.hpp"
 #include "solver/harmonic_reference.hpp"
 
 namespace trapwork {
@@ -108,13 +109,18 @@ WorkDistribution work_distribution(const WorkInput& in, double merge_tolerance) 
   if (in.beta) {
     const double beta = *in.beta;
     const double e0a = in.initial_energies[0], e0b = in.final_energies[0];
-    double average = 0;  // shifted: times exp(-beta (E0B - E0A)) below
+    // Gibbs weights: p_m exp(beta (E_m - E_0^A)) = p_0 for every kept level m, also where p_m
+    // itself underflows to 0 (a cold box drops no level: the levels kept to bound p_R(>=K)
+    // carry the reverse run's contribution to the average).
+    const double p0 = in.initial_weights.front();
     for (int m = 0; m < rows; ++m) {
       const double w = in.initial_weights[std::size_t(m)];
-      if (w <= 0) continue;
-      const double a = std::exp(std::log(w) + beta * (in.initial_energies[m] - e0a));
-      for (int n = 0; n < cols; ++n) average += a * p(m, n) * std::exp(-beta * (in.final_energies[n] - e0b));
+      TRAPWORK_EXPECT(w < 1e-250 || std::abs(w * std::exp(beta * (in.initial_energies[m] - e0a)) / p0 - 1) < 1e-8,
+                      "work_distribution: beta given but the initial weights are not Gibbs weights");
     }
+    double average = 0;  // shifted: times exp(-beta (E0B - E0A)) below
+    for (int n = 0; n < cols; ++n) average += p.col(n).sum() * std::exp(-beta * (in.final_energies[n] - e0b));
+    average *= p0;
     const double ratio = shifted_partition(in.final_energies, beta) / shifted_partition(in.initial_energies, beta);
     d.beta = beta;
     d.jarzynski_residual = average / ratio - 1;
@@ -124,6 +130,98 @@ WorkDistribution work_distribution(const WorkInput& in, double merge_tolerance) 
     d.dissipated_work = d.mean - d.free_energy_change;
   }
   return d;
+}
+
+StateEnergies state_energies(const Grid& grid, const std::vector<double>& v, const Eigen::MatrixXcd& states) {
+  TRAPWORK_EXPECT(states.rows() == Eigen::Index(grid.size()) && v.size() == grid.size(),
+                  "state_energies: states and potential must have one row per grid point");
+  const Eigen::Index cols = states.cols();
+  StateEnergies out{Eigen::VectorXd::Zero(cols), Eigen::VectorXd::Zero(cols)};
+  if (cols == 0) return out;
+  KineticOperator kinetic(grid, int(cols));
+  const Eigen::MatrixXd re = states.real(), im = states.imag();
+  Eigen::MatrixXd h_re, h_im;
+  apply_hamiltonian(kinetic, v, re, h_re);
+  apply_hamiltonian(kinetic, v, im, h_im);
+  for (Eigen::Index c = 0; c < cols; ++c) {
+    const double norm = states.col(c).squaredNorm();  // the grid spacing cancels in the ratios
+    out.energy[c] = (re.col(c).dot(h_re.col(c)) + im.col(c).dot(h_im.col(c))) / norm;
+    out.energy_squared[c] = (h_re.col(c).squaredNorm() + h_im.col(c).squaredNorm()) / norm;
+  }
+  return out;
+}
+
+bool MomentErrors::mean_met() const { return mean_error <= tolerance * scale_mean; }
+bool MomentErrors::variance_met() const { return variance_error <= tolerance * scale_variance; }
+
+std::string MomentErrors::dominant() const {
+  if (mean_met() && variance_met()) return {};
+  // the quantity that misses by more (relative), then its largest part
+  const double miss_mean = mean_error / scale_mean, miss_var = variance_error / scale_variance;
+  const bool var = !(miss_mean >= miss_var);
+  const double f = std::abs(var ? variance_final : mean_final), t = var ? variance_thermal : mean_thermal,
+               b = var ? variance_basis : mean_basis;
+  if (!(b <= std::max(f, t))) return "basis";  // includes an unknown (NaN) basis part
+  return f >= t ? "final" : "thermal";
+}
+
+void total_moment_errors(MomentErrors& e) {
+  e.mean_error = std::abs(e.mean_final) + e.mean_thermal + e.mean_basis;
+  e.variance_error = std::abs(e.variance_final) + e.variance_thermal + e.variance_basis;
+}
+
+MomentErrors moment_errors(const WorkInput& in, const WorkDistribution& d, const StateEnergies& direct,
+                           double left_out_thermal_weight, double tolerance) {
+  const int rows = in.transitions.initial_levels();
+  TRAPWORK_EXPECT(direct.energy.size() == rows && direct.energy_squared.size() == rows,
+                  "moment_errors: one direct energy per kept initial level");
+  MomentErrors e;
+  e.tolerance = tolerance;
+  double mean = 0, second = 0, total = 0;
+  Eigen::VectorXd w(rows), s(rows);
+  for (int m = 0; m < rows; ++m) {
+    const double ea = in.initial_energies[m], h1 = direct.energy[m], h2 = direct.energy_squared[m];
+    w[m] = h1 - ea;
+    s[m] = h2 - 2 * ea * h1 + ea * ea;
+    const double p = in.initial_weights[std::size_t(m)];
+    total += p;
+    mean += p * w[m];
+    second += p * s[m];
+  }
+  mean /= total;
+  second /= total;
+  e.mean_direct = mean;
+  e.variance_direct = second - mean * mean;
+  e.mean_final = d.mean - e.mean_direct;
+  e.variance_final = d.variance - e.variance_direct;
+  const double eps = std::max(0.0, left_out_thermal_weight);
+  if (eps > 0 && rows > 0) {
+    e.mean_thermal = eps * (2 * std::abs(w[rows - 1]) + std::abs(mean));
+    const double second_thermal = eps * (2 * std::abs(s[rows - 1]) + std::abs(second));
+    e.variance_thermal = second_thermal + 2 * std::abs(mean) * e.mean_thermal;
+  }
+  e.scale_mean = std::max(std::abs(d.mean), std::sqrt(std::max(0.0, d.variance)));
+  // a (near-)deterministic W: the variance is judged against rounding of the W^2 sums instead
+  e.scale_variance = std::max(d.variance, 1e-8 * mean * mean);
+  total_moment_errors(e);
+  return e;
+}
+
+std::string moment_warning(const MomentErrors& e, int final_levels, const std::string& basis_cause) {
+  const std::string part = e.dominant();
+  if (part.empty()) return {};
+  std::string text = "moments miss their tolerance " + fmt(e.tolerance) + " (relative): <W> error " +
+                     fmt(e.mean_error) + ", var W error " + fmt(e.variance_error) + " (final levels " +
+                     fmt(std::max(std::abs(e.mean_final), std::abs(e.variance_final))) + ", thermal cut " +
+                     fmt(std::max(e.mean_thermal, e.variance_thermal)) + ", basis " +
+                     fmt(std::max(e.mean_basis, e.variance_basis)) + "); likely cause: ";
+  if (part == "final")
+    text += "too few final levels (" + std::to_string(final_levels) + "): raise final_margin";
+  else if (part == "thermal")
+    text += "the thermal cut: lower thermal_tolerance";
+  else
+    text += basis_cause;
+  return text;
 }
 
 WorkHistogram histogram(const WorkDistribution& d, double bin_width) {
@@ -269,6 +367,7 @@ Grid shifted(const Grid& g, double d) {
 // One direction of the protocol: propagate the kept initial states, project on the final ones.
 struct Run {
   Eigen::MatrixXcd amplitudes;  // A(n, m)
+  StateEnergies energies;       // of the final states under H_B (v_final given)
   double norm_drift = 0, edge_amplitude = 0, max_phase = 0, arithmetic = 0;
 };
 
@@ -279,7 +378,8 @@ constexpr int planning_substeps = 4096;
 
 Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spectrum& final, const Spectrum* basis,
                   const std::vector<double>& v_initial, int kept, int steps, const WorkRequest& request,
-                  const OdeTolerances& ode, const std::function<void(double)>& progress) {
+                  const OdeTolerances& ode, const std::function<void(double)>& progress,
+                  const std::vector<double>* v_final = nullptr) {
   const double tau = path.protocol().duration();
   Eigen::MatrixXcd psi = initial.states.leftCols(kept).cast<std::complex<double>>();
   Run run;
@@ -322,6 +422,7 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
     if (top > 0) run.edge_amplitude = std::max(run.edge_amplitude, outer / top);
   }
   run.amplitudes = project(final, psi);
+  if (v_final) run.energies = state_energies(path.grid(), *v_final, psi);
   return run;
 }
 
@@ -503,7 +604,11 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   // Progress in units of forward steps: forward 1, half-step check 2, reverse 1.
   const double units = 1.0 + (request.time_step_check && tau > 0 ? 2.0 : 0.0) + (reverse ? 1.0 : 0.0);
   const double share = 1.0 / units;
-  Run fwd = propagate_run(forward_path, sa, sb, &basis_a, v_a, kept_a, steps, request, request.ode, progress(0, share));
+  // H_B on the grid as its spectrum saw it (capped like spectrum_on), for the direct moments
+  std::vector<double> v_b = samples(vb, grid.points(), displacement);
+  cap_potential(v_b, *std::min_element(v_b.begin(), v_b.end()), cutoff);
+  Run fwd = propagate_run(forward_path, sa, sb, &basis_a, v_a, kept_a, steps, request, request.ode, progress(0, share),
+                          &v_b);
 
   result.initial_spectrum = sa;
   result.final_spectrum = sb;
@@ -518,6 +623,8 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   diag.ode_basis_levels = int(basis_a.energies.size());
   diag.unresolved_weight = result.distribution.unresolved_weight;
   diag.jarzynski_residual = result.distribution.jarzynski_residual;
+  diag.moments = moment_errors(result.forward, result.distribution, fwd.energies, wa.choice.left_out,
+                               request.unresolved_tolerance);
 
   if (request.time_step_check && tau > 0) {
     OdeTolerances tighter{request.ode.absolute / 100, request.ode.relative / 100};
@@ -563,6 +670,9 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
     diag.warnings.push_back("unresolved final weight " + fmt(diag.unresolved_weight) + " above " +
                             fmt(request.unresolved_tolerance) + ": raise final_margin (final levels " +
                             std::to_string(levels) + ")");
+  if (const std::string w = moment_warning(diag.moments, result.forward.transitions.final_levels(), "");
+      !w.empty())
+    diag.warnings.push_back(w);
   if (diag.edge_amplitude > 1e-8)
     diag.warnings.push_back("final states reach the grid edge (relative density " + fmt(diag.edge_amplitude) +
                             " in the outer 2%): widen the grid" + (co_moving ? "" : " or use the co-moving frame"));
@@ -577,21 +687,25 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
 
 // Levels are kept until the left-out thermal weight, the unresolved final weight and the
 // chance p_R(>=K) that the reverse run leaves the kept initial levels are all small (the last
-// bounds the Jarzynski residual; the thermal tail alone does not). When either escape
-// probability exceeds unresolved_tolerance the run is repeated with more final levels and a
-// 1000 times tighter thermal tolerance, at most twice.
+// bounds the Jarzynski residual; the thermal tail alone does not), and the moments' truncation
+// error (Diagnostics::moments) is within unresolved_tolerance (relative). When either escape
+// probability exceeds unresolved_tolerance, or the moments miss it, the run is repeated with
+// twice the final margin and max_initial_levels and a 1000 times tighter thermal tolerance, at
+// most twice (the cost bound); moments still missing then are a warning naming the cause.
 WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkRequest& request) {
   WorkRequest r = request;
   for (int attempt = 0;; ++attempt) {
     WorkResult result = run_work_once(base, protocol, r);
     const Diagnostics& d = result.diagnostics;
     const double escape = std::max(d.unresolved_weight, d.truncation.reverse_tail);
-    if (!(escape > r.unresolved_tolerance) || attempt == 2) {
+    const bool moments = d.moments.mean_met() && d.moments.variance_met();
+    if ((!(escape > r.unresolved_tolerance) && moments) || attempt == 2) {
       if (attempt > 0)
         result.diagnostics.warnings.insert(result.diagnostics.warnings.begin(),
-            "levels enlarged " + std::to_string(attempt) + " time(s) to bound the escape probability (now " +
-            fmt(escape) + "; final margin " + std::to_string(r.final_margin) + ", thermal tolerance " +
-            fmt(r.thermal_tolerance) + ")");
+            "levels enlarged " + std::to_string(attempt) + " time(s) to bound the escape probability and the "
+            "moments' truncation error (escape now " + fmt(escape) + ", <W> error " + fmt(d.moments.mean_error) +
+            ", var W error " + fmt(d.moments.variance_error) + "; final margin " + std::to_string(r.final_margin) +
+            ", thermal tolerance " + fmt(r.thermal_tolerance) + ")");
       return result;
     }
     r.final_margin *= 2;

@@ -80,9 +80,11 @@ struct WorkDistribution {
 };
 
 // <exp(-beta W)> = (1/Z_A^K) sum_n exp(-beta E_n^B) sum_m P(m -> n) for Gibbs weights p_m over
-// the K kept levels, evaluated with energies shifted by E_0^A and E_0^B (no overflow) as
-// sum_{m,n} exp(ln p_m + beta (E_m - E_0^A)) P(m,n) exp(-beta (E_n - E_0^B)), times
-// exp(-beta (E_0^B - E_0^A)). Z_B / Z_A uses all the energies given.
+// the K kept levels, evaluated with energies shifted by E_0^A and E_0^B (no overflow or
+// underflow) as p_0 sum_n exp(-beta (E_n - E_0^B)) sum_m P(m,n), times exp(-beta (E_0^B - E_0^A)):
+// for Gibbs weights p_m exp(beta (E_m - E_0^A)) = p_0, so every kept row counts, also those
+// whose weight p_m underflows to 0. Z_B / Z_A uses all the energies given. With beta given the
+// weights must be Gibbs weights over the rows (programmer error otherwise).
 WorkDistribution work_distribution(const WorkInput& input, double merge_tolerance = 1e-9);
 
 // Histogram with bins [start + k width, start + (k+1) width), start = floor(W_min/width) width.
@@ -128,6 +130,59 @@ LineDistance line_distance(const WorkInput& a, const WorkInput& b);
 CrooksCheck crooks_check(const WorkInput& forward, const WorkInput& reverse, double merge_tolerance = 1e-9,
                          double min_probability = 1e-10);
 
+// ---- moments with their truncation error ----------------------------------------------------
+//
+// The line sums <W^k> = sum_{m,n} p_m P(m->n) (E_n^B - E_m^A)^k over the final levels kept can
+// miss weight far up (small in probability, large in W^k) while every line is right. The same
+// moments follow from each propagated state psi_m = U|m_A> itself, with no final-level sum:
+//   w_m = <psi_m|H_B|psi_m> - E_m^A,
+//   s_m = ||H_B psi_m||^2 - 2 E_m^A <psi_m|H_B|psi_m> + (E_m^A)^2     (= <psi_m|(H_B - E_m^A)^2|psi_m>)
+//   direct <W> = sum_m p_m w_m, direct <W^2> = sum_m p_m s_m   (over the kept initial levels).
+// ||H_B psi||^2 is the honest form of <H_B^2> (a hard wall: H_B psi need not vanish at the wall).
+// They equal the line sums over every level of the operator they use (the grid's Fourier or
+// sine-basis H_B, the one the spectra come from), so line minus direct is the final-level
+// truncation error of the line moments.
+struct StateEnergies {
+  Eigen::VectorXd energy;          // <psi_m|H_B|psi_m> / <psi_m|psi_m>, one per kept initial level
+  Eigen::VectorXd energy_squared;  // ||H_B psi_m||^2 / <psi_m|psi_m>
+};
+// On a grid (periodic: Fourier kinetic operator; box: sine basis, KineticOperator), potential v
+// of H_B at the grid points, states as columns normalised with the grid spacing.
+StateEnergies state_energies(const Grid& grid, const std::vector<double>& v, const Eigen::MatrixXcd& states);
+
+// The moments of the resolved lines (WorkDistribution: mean, variance) against the direct ones,
+// and the error estimate of the line moments, in parts (energy and energy^2 units):
+//   final    line minus direct (final levels not kept), exact up to rounding;
+//   thermal  the initial levels left out (weight eps_K, the kept ones renormalised): true minus
+//            kept = eps_K (tail - kept); the tail's row moments estimated as twice the last kept
+//            row's (row moments grow at most as a power of the level index; the thermal tail's
+//            mean index lies within a few levels of K), so eps_K (2 |w_K-1| + |<W>|);
+//   basis    the direct moments' own basis or grid error where the caller has estimated it
+//            (a moving wall: the same run on twice the sine modes); 0 where not estimated here
+//            (plain grids: grid and time step are separate diagnostics), NaN where unknown.
+// mean_error, variance_error: the sums (NaN where a part is unknown or no direct moments).
+struct MomentErrors {
+  static constexpr double nan = std::numeric_limits<double>::quiet_NaN();
+  double mean_direct = nan, variance_direct = nan;
+  double mean_final = nan, variance_final = nan;      // line - direct (signed)
+  double mean_thermal = 0, variance_thermal = 0;
+  double mean_basis = 0, variance_basis = 0;
+  double mean_error = nan, variance_error = nan;
+  double tolerance = nan;  // relative: mean against max(|<W>|, sd W), variance against var W
+  bool mean_met() const;       // mean_error <= tolerance max(|<W>|, sd W) (false when NaN)
+  bool variance_met() const;   // variance_error <= tolerance var W (false when NaN)
+  double scale_mean = nan, scale_variance = nan;  // the scales of the two tests
+  // The part that dominates the larger relative miss: "final", "thermal" or "basis" (empty: met).
+  std::string dominant() const;
+};
+MomentErrors moment_errors(const WorkInput& input, const WorkDistribution& d, const StateEnergies& direct,
+                           double left_out_thermal_weight, double tolerance);
+// Sets the error sums from the parts (after the caller set a basis part).
+void total_moment_errors(MomentErrors& e);
+// The warning for moments that miss their tolerance, naming the dominant part as the likely
+// cause and what to change (empty when both are met). `basis_cause` says what limits the basis.
+std::string moment_warning(const MomentErrors& e, int final_levels, const std::string& basis_cause);
+
 // Every result carries these (NaN where not computed).
 struct Diagnostics {
   double norm_drift = 0;          // max_m | ||psi_m(tau)||^2 - 1 |
@@ -142,6 +197,7 @@ struct Diagnostics {
   double crooks_ratio_error = std::numeric_limits<double>::quiet_NaN();
   double ode_arithmetic = 0;      // eigenbasis: estimated operations of the forward run (0: split)
   int ode_basis_levels = 0;       // eigenbasis: levels of its basis (0: split)
+  MomentErrors moments;           // direct moments and the error of the line moments
   std::vector<std::string> warnings;  // each with the diagnostic value and what to change
 };
 
@@ -165,7 +221,7 @@ struct WorkRequest {
   bool time_step_check = true;       // same run at half the step
   bool grid_check = true;            // spectrum of H_A on a finer, wider grid
   double merge_tolerance = 1e-9;
-  double unresolved_tolerance = 1e-8;  // warn above this
+  double unresolved_tolerance = 1e-8;  // warn above this; also the moments' relative tolerance
   OdeTolerances ode;                 // eigenbasis integrator
   double ode_arithmetic_limit = 0;   // > 0: each eigenbasis run throws ArithmeticLimitReached
                                      // past this many estimated operations (see propagator.hpp)

@@ -216,3 +216,77 @@ TEST_CASE("run_work: sudden quench through the driver, and a non-Gibbs start is 
   CHECK(flagged);
   CHECK(e.distribution.lines.front().initial == 1);
 }
+
+TEST_CASE("issue 14: Jarzynski average keeps the rows whose Boltzmann weight underflows", "[work][thermal]") {
+  // beta (E_m - E_0) = 800 m: every weight but p_0 underflows to 0.0 (exp(-745) is below the
+  // smallest double). The reverse run's escape p_R(>=K) is what the K kept rows are for; the
+  // identity residual = (Z_A/Z_A^K)(1 - p_R(>=K)) - 1 (derived in the TPM scheme from unitarity,
+  // as in the test above) must hold. Dropping rows m >= 1 gives P(0 -> 0) - 1 = -0.057 instead.
+  const double beta = 800, q = sudden_q(1, 2);
+  const int k = 12, levels = 200;
+  const Eigen::VectorXd ea = oscillator_energies(1, levels), eb = oscillator_energies(2, levels);
+  const auto weights = boltzmann_weights(ea.head(k), beta);
+  REQUIRE(weights[1] == 0.0);
+  const WorkInput fwd{{husimi_transition_matrix(k, levels, q)}, ea, eb, weights, {}, {}, beta};
+  const auto d = work_distribution(fwd);
+  const auto t = truncation_residual_bound(thermal_tail(ea, beta, k), k, husimi_transition_matrix(40, levels, q),
+                                           boltzmann_weights(eb.head(40), beta), thermal_tail(eb, beta, 40));
+  INFO("residual " << d.jarzynski_residual << " p_R(>=K) " << t.reverse_tail);
+  CHECK(d.jarzynski_residual == Approx((1 - t.reverse_tail) / (1 - t.thermal_tail) - 1).margin(1e-14));
+  CHECK(std::abs(d.jarzynski_residual) <= t.bound + 1e-14);
+}
+
+namespace {
+// Sudden switch omega0 -> omega1 of a harmonic trap (U = 1): H_B - E_m^A acts on |m_A> as
+// (omega1^2 - omega0^2) x^2 / 2, so <W^2>_m = ((omega1^2 - omega0^2)/2)^2 <m|x^4|m> with
+// <m|x^4|m> = 3 (2m^2 + 2m + 1)/(4 omega0^2) (textbook ladder algebra), and over the Gibbs state
+// 2<m^2> + 2<m> + 1 = (2 nbar + 1)^2 = coth^2(beta omega0/2): <W^2> = 3 <W>^2, var W = 2 <W>^2
+// (derived here), with <W> from parametric_mean_work (Husimi 1953; Deffner & Lutz 2008).
+WorkResult sudden_squeeze(WorkRequest request) {
+  const Potential base({Term("trap", Shape::harmonic, {{"frequency", 1.0}})});
+  const Protocol quench(0, {Schedule::linear("trap.frequency", 1, 2.2)});
+  request.initial = InitialState::thermal(0.5);
+  request.spectrum.options.method = EigenMethod::dense;
+  return run_work(base, quench, request);
+}
+bool has_warning(const Diagnostics& d, const std::string& text) {
+  for (const auto& w : d.warnings)
+    if (w.find(text) != std::string::npos) return true;
+  return false;
+}
+}  // namespace
+
+TEST_CASE("issue 14: moments of a sudden 1 -> 2.2 switch carry an error estimate that bounds the exact error",
+          "[work][moments]") {
+  const double mean = parametric_mean_work(1, 2.2, sudden_q(1, 2.2), 0.5), variance = 2 * mean * mean;
+  WorkRequest request;  // defaults: thermal cut 1e-10, relative moment tolerance 1e-8
+  const WorkResult r = sudden_squeeze(request);
+  const MomentErrors& m = r.diagnostics.moments;
+  INFO("<W> " << r.distribution.mean - mean << " +- " << m.mean_error << ", var " << r.distribution.variance - variance
+              << " +- " << m.variance_error << ", final levels " << r.forward.transitions.final_levels());
+  CHECK(std::abs(r.distribution.mean - mean) <= m.mean_error);
+  CHECK(std::abs(r.distribution.variance - variance) <= m.variance_error);
+  CHECK(m.mean_met());
+  CHECK(m.variance_met());
+  CHECK_FALSE(has_warning(r.diagnostics, "moments miss"));
+  // before: 80 final levels, thermal cut 1e-10 gave <W> 9e-8 and var W 1.7e-6 relative off
+  CHECK(std::abs(r.distribution.mean - mean) < 1e-8 * mean);
+  CHECK(std::abs(r.distribution.variance - variance) < 1e-8 * variance);
+  // the direct moments (no final-level sum) against the closed forms: the thermal cut and
+  // rounding of <H_B^2> sums over the grid (~1e-13 relative) only
+  CHECK(std::abs(m.mean_direct - mean) <= m.mean_thermal + 1e-12 * mean);
+
+  SECTION("a deliberately truncated run reports a large moment error and a warning") {
+    request.max_initial_levels = 8;  // thermal cut never reached: eps_K ~ exp(-0.5 K)
+    request.final_margin = 2;
+    const WorkResult t = sudden_squeeze(request);
+    const MomentErrors& e = t.diagnostics.moments;
+    INFO("<W> " << t.distribution.mean - mean << " +- " << e.mean_error << ", var " << t.distribution.variance - variance
+                << " +- " << e.variance_error);
+    CHECK(e.mean_error > 1e-4 * mean);
+    CHECK_FALSE(e.mean_met());
+    CHECK(has_warning(t.diagnostics, "moments miss their tolerance"));
+    CHECK(std::abs(t.distribution.mean - mean) <= e.mean_error);
+    CHECK(std::abs(t.distribution.variance - variance) <= e.variance_error);
+  }
+}

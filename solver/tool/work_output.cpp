@@ -159,6 +159,14 @@ double sd_of(const WorkDistribution& d) {
   return std::sqrt(std::max(0.0, d.variance));
 }
 
+// Error of sd W from the error dv of var W: |sqrt(v + dv) - sqrt(v)| <= min(dv / sqrt(v), sqrt(dv)).
+// NaN where the variance error is not known.
+double sd_error_of(const WorkDistribution& d, const MomentErrors& m) {
+  const double sd = sd_of(d), dv = m.variance_error;
+  if (!std::isfinite(dv)) return nan_value;
+  return sd > 0 ? std::min(dv / sd, std::sqrt(dv)) : std::sqrt(dv);
+}
+
 // <W> = 2 m v^2 sin^2(omega tau / 2) of a constant-speed translation over `distance` in the
 // harmonic trap omega (internal units, m = 1); tau -> 0 gives the sudden value omega^2 D^2 / 2.
 double constant_speed_work(double omega, double distance, double tau) {
@@ -618,7 +626,11 @@ nlohmann::ordered_json walls_json(const WorkRun& run) {
                               {"sudden_expansion", nullptr}};
   if (const auto& c = run.walls->doescher_rice)
     j["doescher_rice"] = {{"wall_speed_m_per_s", wall_speed_si(run.scenario, c->speed)},
+                          {"final_levels", c->levels},
                           {"mean_work", d.energy(c->mean_work)},
+                          {"mean_work_error", d.energy(c->mean_work_error)},
+                          {"sd_work", d.energy(std::sqrt(c->variance))},
+                          {"sd_work_error", d.energy(c->variance_error / std::sqrt(c->variance))},
                           {"mean_work_difference", d.energy(c->mean_work_difference)},
                           {"max_line_difference", c->max_line_difference}};
   if (const auto& s = run.walls->sudden)
@@ -650,6 +662,26 @@ nlohmann::ordered_json walls_json(const WorkRun& run) {
 }
 
 }  // namespace
+
+// The moments' error estimate and its parts (energies as `energy` writes them; variances in
+// internal energy^2). An error that is not known is null, with "error_known": false.
+template <class Energy>
+json moments_json(const MomentErrors& m, const Energy& energy) {
+  return {{"mean_direct", energy(m.mean_direct)},
+          {"variance_direct_internal", number_or_null(m.variance_direct)},
+          {"mean_final_levels_part", energy(m.mean_final)},
+          {"mean_thermal_part", energy(m.mean_thermal)},
+          {"mean_basis_part", energy(m.mean_basis)},
+          {"variance_final_levels_part_internal", number_or_null(m.variance_final)},
+          {"variance_thermal_part_internal", number_or_null(m.variance_thermal)},
+          {"variance_basis_part_internal", number_or_null(m.variance_basis)},
+          {"variance_error_internal", number_or_null(m.variance_error)},
+          {"mean_error_known", std::isfinite(m.mean_error)},
+          {"variance_error_known", std::isfinite(m.variance_error)},
+          {"relative_tolerance", number_or_null(m.tolerance)},
+          {"mean_met", m.mean_met()},
+          {"variance_met", m.variance_met()}};
+}
 
 json work_summary(const WorkRun& run) {
   const Scenario& s = run.scenario;
@@ -732,7 +764,10 @@ json work_summary(const WorkRun& run) {
         {"thermal_tolerance", run.request.thermal_tolerance}}},
       {"work",
        {{"mean", energy(d.mean)},
+        {"mean_error", energy(g.moments.mean_error)},
         {"sd", energy(sd_of(d))},
+        {"sd_error", energy(sd_error_of(d, g.moments))},
+        {"moments", moments_json(g.moments, energy)},
         {"skewness", d.skewness},
         {"free_energy_change", energy(d.free_energy_change)},
         {"dissipated_work", energy(d.dissipated_work)},
@@ -906,8 +941,18 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
                     ", " + std::to_string(r.forward.transitions.final_levels()) + " final levels");
 
   out << "\nwork statistics\n";
-  row("<W>", e.text(d.mean));
-  row("sd(W)", e.text(sd_of(d)));
+  const MomentErrors& mom = r.diagnostics.moments;
+  auto error_text = [&](double error, bool met) {
+    if (!std::isfinite(error)) return std::string("  (error not known)");
+    return "  +- " + e.text(error, 2) + (met ? "" : "  (above the tolerance " + short_number(mom.tolerance, 2) + ", relative)");
+  };
+  row("<W>", e.text(d.mean) + error_text(mom.mean_error, mom.mean_met()));
+  row("sd(W)", e.text(sd_of(d)) + error_text(sd_error_of(d, mom), mom.variance_met()));
+  if (std::isfinite(mom.mean_direct))
+    row("moments", "from the states directly: <W> = " + e.text(mom.mean_direct, 10) + ", sd(W) = " +
+                       e.text(std::sqrt(std::max(0.0, mom.variance_direct)), 10) + "; <W> error parts: final levels " +
+                       e.text(std::abs(mom.mean_final), 2) + ", thermal cut " + e.text(mom.mean_thermal, 2) +
+                       ", basis " + (std::isfinite(mom.mean_basis) ? e.text(mom.mean_basis, 2) : std::string("not known")));
   row("skewness", short_number(d.skewness, 4));
   if (std::isfinite(d.free_energy_change)) {
     row("Delta F", e.text(d.free_energy_change));
@@ -961,7 +1006,10 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
       const auto& c = *w.doescher_rice;
       out << "\nexact reference: a wall at constant speed in a flat box (Doescher & Rice 1969)\n";
       row("wall speed", short_number(wall_speed_si(run.scenario, c.speed) * 1e3, 6) + " mm/s");
-      row("<W> exact", e.text(c.mean_work));
+      row("<W> exact", e.text(c.mean_work) + "  +- " + e.text(c.mean_work_error, 2) + " (" + std::to_string(c.levels) +
+                           " final levels, not the run's " + std::to_string(r.forward.transitions.final_levels()) + ")");
+      row("sd(W) exact", e.text(std::sqrt(c.variance)) + "  +- " + e.text(c.variance_error / std::sqrt(c.variance), 2) +
+                             " (var W converges slowly when the wall moves at the ends)");
       row("departure", "<W> - <W>_exact = " + e.text(c.mean_work_difference, 3));
       row("lines", "max |P(m->n) - P_exact(m->n)| = " + short_number(c.max_line_difference, 3));
     } else if (w.sudden) {
