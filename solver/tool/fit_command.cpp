@@ -49,17 +49,9 @@ std::vector<TrapCoefficient> parse_terms(const std::string& text) {
   return out;
 }
 
-std::string read_text_file(const std::string& path) {
-  std::ifstream in(path, std::ios::binary);
-  if (!in) throw InputError("", "", "cannot open the scenario file", "", path);
-  std::ostringstream s;
-  s << in.rdbuf();
-  return s.str();
-}
-
 // The start scenario's text: the file, the built-in one, or one made from --mass/--frequency.
 std::string start_text(const FitCommand& c) {
-  if (!c.start.empty()) return c.start == "default" ? std::string(default_scenario_text()) : read_text_file(c.start);
+  if (!c.start.empty()) return c.start == "default" ? std::string(default_scenario_text()) : read_text_file(c.start, "the scenario file");
   if (c.mass.empty() || c.frequency.empty())
     throw InputError("--start", "", "a start scenario (--start FILE), or both --mass and --frequency");
   return "title = \"polynomial trap, " + c.mass + " particle\"\n\n[particle]\nmass = \"" + c.mass + "\"\n\n[units]\nreference_frequency = \"" + c.frequency +
