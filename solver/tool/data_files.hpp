@@ -3,7 +3,8 @@
 //
 // Layout (our own, shared by all four kinds): plain text, one row per line, fields separated by
 // commas (when the header line has one) or else by spaces/tabs. Blank lines are skipped; '#'
-// starts a comment (a whole line, or the rest of a row). The first other line is the header:
+// starts a comment (a whole line, or the rest of a row). The first other line is the header (a
+// line with no number at all, see the header rule below):
 // column names, in any order. Quantities carry their unit in the column name, written as the
 // unit with '*' replaced by '_' (so trapwork's own CSV columns read back):
 //   work_h_kHz        work in h*kHz         frequency_kHz      a frequency in kHz
