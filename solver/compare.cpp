@@ -383,7 +383,7 @@ WorkComparison compare_samples(const std::vector<WorkLine>& model, const std::ve
   }
   categorical(r, observed, probability, o.min_expected);
   r.ks_statistic = ks_statistic(m, sigma, work, o.match_tolerance);
-  if (sigma > 0) r.ks_p_value = kolmogorov_p_value(r.ks_statistic, r.runs);
+  if (sigma > 0) r.ks_p_value = kolmogorov_p_value(r.ks_statistic, int(r.runs));
   r.moments = sample_moments(work, m, sigma);
   jarzynski_part(r, work, model, sigma, o);
   return r;
@@ -460,12 +460,21 @@ WorkComparison compare_histogram(const std::vector<WorkLine>& model, const std::
     if (!(edges[k] < edges[k + 1]))
       throw InputError("bins.edges[" + std::to_string(k + 1) + "]", std::to_string(edges[k + 1]),
                        "strictly ascending edges");
-  double n = 0;
+  // Runs are summed as 64-bit integers: a double sum loses runs above 2^53 and an int overflows
+  // at 2^31 (giving negative totals). Each count must be a whole number below 2^63 and the total
+  // must stay below 2^63.
+  constexpr double limit = 9223372036854775808.0;  // 2^63
+  std::int64_t runs = 0;
   for (std::size_t k = 0; k < counts.size(); ++k) {
-    if (!(counts[k] >= 0) || !std::isfinite(counts[k]))
-      throw InputError("bins.counts[" + std::to_string(k) + "]", std::to_string(counts[k]), "a count >= 0");
-    n += counts[k];
+    const std::string key = "bins.counts[" + std::to_string(k) + "]";
+    if (!(counts[k] >= 0) || !(counts[k] < limit) || counts[k] != std::floor(counts[k]))
+      throw InputError(key, std::to_string(counts[k]), "a whole number of runs >= 0 and below 2^63");
+    const auto c = static_cast<std::int64_t>(counts[k]);
+    if (c > std::numeric_limits<std::int64_t>::max() - runs)
+      throw InputError(key, std::to_string(counts[k]), "counts whose total stays below 2^63 runs");
+    runs += c;
   }
+  const double n = double(runs);
   const NormalisedModel m = normalise(model);
   std::vector<double> probability;
   for (std::size_t k = 0; k < counts.size(); ++k)
@@ -473,7 +482,7 @@ WorkComparison compare_histogram(const std::vector<WorkLine>& model, const std::
   const double inside = std::accumulate(probability.begin(), probability.end(), 0.0);
   if (!(inside > 0)) throw PhysicsError("compare: the model has no probability inside the histogram's bins");
   WorkComparison r;
-  r.runs = int(std::lround(n));
+  r.runs = runs;
   r.model_weight = m.weight;
   r.model_mass_outside = 1 - inside;
   std::vector<double> possible = counts;
@@ -484,7 +493,7 @@ WorkComparison compare_histogram(const std::vector<WorkLine>& model, const std::
       r.log_likelihood += counts[k] * std::log(probability[k]);
     else {
       r.log_likelihood = -infinity;
-      r.impossible_runs += int(counts[k]);
+      r.impossible_runs += static_cast<std::int64_t>(counts[k]);
       possible[k] = 0;
     }
   }

@@ -116,11 +116,11 @@ struct CompareOptions {
 };
 
 struct WorkComparison {
-  int runs = 0;
+  std::int64_t runs = 0;  // 64 bit: a histogram may hold more than 2^31 runs
   double model_weight = 0;    // sum of the model probabilities before normalisation
   double log_likelihood = 0;  // sum over runs of ln(model density or probability)
   double log_likelihood_per_run = 0;
-  int impossible_runs = 0;  // runs where the model has no probability (log-likelihood -inf)
+  std::int64_t impossible_runs = 0;  // runs where the model has no probability (log-likelihood -inf)
   ChiSquareTest chi_square;
   double total_variation = 0;  // (1/2) sum_bins |O/N - p| over the bins before merging
   double ks_statistic = std::numeric_limits<double>::quiet_NaN();  // sup |F_data - F_model|

@@ -202,8 +202,15 @@ const std::vector<BadScenario>& bad_scenarios() {
        std::string("0, 1\n1, 2\n# a comment line\n0.5, 3\n"), true},
       {"x repeated in a table", tabulated, "1, 5", "potential[1].file", {"x must increase strictly"}, {},
        std::string("0, 1\n1, 2\n1, 5\n"), true},
-      {"three fields in a row", tabulated, "1, 2, 3", "potential[1].file", {"two numbers per row", "not 3 fields"}, {},
+      {"three fields in a row", tabulated, "3", "potential[1].file", {"two numbers per row", "3 fields", "2 fields per row"}, {},
        std::string("0, 1\n1, 2, 3\n"), true},
+      // issue 14: a first row with a typo was taken for a header and lost; a header is a line with no number
+      {"a typo in the first row of a table", tabulated, "1O", "potential[1].file",
+       {"= 1O", "a number", "mixes numbers and text", "a header is a line with no number at all"}, {},
+       std::string("-1, 1O\n0, 0\n1, 10\n"), true},
+      {"a typo in the first row after a comment line", tabulated, "2.O", "potential[1].file",
+       {"= 2.O", "a header is a line with no number at all"}, {},
+       std::string("# x in um, V in uK\n-1, 2.O\n0, 0\n1, 10\n"), true},
       {"a table file that is missing", tabulated, "\"trap.csv\"", "potential[1].file", {"a readable data file"}},
       // formulas
       {"a formula with an unknown variable", with(formula, "0.5*k*x^2", "0.5*k*x^2 + q"), "\"0.5*k", 

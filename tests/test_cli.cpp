@@ -316,3 +316,52 @@ TEST_CASE("demo and work --help, and a bad work scenario", "[cli][work]") {
   CHECK(still.exit_code == 2);
   CHECK_THAT(still.err, Contains("still.toml") && Contains("[protocol]"));
 }
+
+TEST_CASE("issue 14: an output folder that cannot be written is refused before computing", "[cli]") {
+  const fs::path dir = scratch_dir("unwritable-output");
+  // A scenario whose computation fails (more levels than grid points): the folder error must
+  // come first, so it is found before anything is computed.
+  std::ofstream(dir / "small.toml") << "[particle]\nmass = \"40 u\"\n[[potential]]\nshape = \"harmonic\"\n"
+                                       "frequency = \"1 MHz\"\n[spectrum]\nlevels = 20\n[grid]\npoints = 8\n"
+                                       "left = \"-0.1 um\"\nright = \"0.1 um\"\n";
+  std::ofstream(dir / "plain-file") << "x";
+  const Run r = run("spectrum small.toml -o plain-file/out", dir);
+  CHECK(r.exit_code == 2);
+  CHECK_THAT(r.err, Contains("trapwork: error: plain-file/out: cannot create the output folder: Not a directory"));
+  CHECK_THAT(r.err, !Contains("levels"));
+  // the scenario given as the output folder
+  const Run same = run("spectrum small.toml -o small.toml", dir);
+  CHECK(same.exit_code == 2);
+  CHECK_THAT(same.err, Contains("an output folder, not the scenario"));
+}
+
+TEST_CASE("issue 14: a table file of the scenario is never overwritten by its outputs", "[cli]") {
+  const fs::path dir = scratch_dir("table-input");
+  fs::create_directories(dir / "out");
+  std::ofstream(dir / "out" / "summary.json") << "-2, 40\n-1, 10\n0, 0\n1, 10\n2, 40\n";
+  std::ofstream(dir / "tab.toml") << "[particle]\nmass = \"87 u\"\n[[potential]]\nname = \"data\"\n"
+                                     "shape = \"table\"\nfile = \"out/summary.json\"\nx_unit = \"um\"\n"
+                                     "energy_unit = \"kB*uK\"\n[spectrum]\nlevels = 3\n";
+  const Run r = run("spectrum tab.toml -o out", dir);
+  CHECK(r.exit_code == 2);
+  CHECK_THAT(r.err, Contains("summary.json here is a table file of the scenario"));
+  CHECK(read_all(dir / "out" / "summary.json") == "-2, 40\n-1, 10\n0, 0\n1, 10\n2, 40\n");
+}
+
+TEST_CASE("issue 14: two runs on one output folder: the second says who holds it", "[cli]") {
+  const fs::path dir = scratch_dir("locked-output");
+  // The first run: a work run of the built-in scenario (a few seconds), in the background.
+  const std::string first = "cd '" + dir.string() + "' && '" + binary.string() +
+                            "' work default -o out --quiet > first.txt 2>&1 & echo $! > '" + (dir / "first.pid").string() + "'";
+  REQUIRE(std::system(first.c_str()) == 0);
+  // Wait until it holds the lock (its lock file names it), then start the second.
+  for (int i = 0; i < 200 && !Catch::contains(read_all(dir / "out" / ".trapwork-lock"), "command trapwork work"); ++i)
+    std::system("sleep 0.05");
+  const Run second = run("work default -o out --quiet", dir);
+  std::system(("while kill -0 $(cat '" + (dir / "first.pid").string() + "') 2>/dev/null; do sleep 0.1; done").c_str());
+  CHECK(second.exit_code == 2);
+  CHECK_THAT(second.err, Contains("the output folder is in use by another trapwork run (pid ") &&
+                             Contains("command trapwork work default") && Contains("started "));
+  CHECK(read_all(dir / "first.txt").empty());  // the first run finished without a word
+  CHECK(fs::exists(dir / "out" / "summary.json"));
+}

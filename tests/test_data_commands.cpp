@@ -314,3 +314,26 @@ TEST_CASE("plot_comparison draws both files and refuses inconsistent bins", "[pl
   CHECK_THROWS_AS(plot_comparison(dir / "bad", bad), std::invalid_argument);
   CHECK(!fs::exists(dir / "bad.png"));
 }
+
+TEST_CASE("issue 14: compare refuses to write over its data file, before computing", "[compare_command]") {
+  const fs::path dir = scratch("compare-over-input");
+  fs::create_directories(dir / "out");
+  fs::copy_file(examples / "ion_work_samples.csv", dir / "out" / "compare.csv");
+  const std::string before = trapwork_test::read_all(dir / "out" / "compare.csv");
+  CompareCommand c;
+  c.scenario = model_file;
+  c.data = (dir / "out" / "compare.csv").string();
+  c.output = (dir / "out").string();
+  c.quiet = true;
+  try {
+    run_compare_command(c, std::cout, std::cout);
+    FAIL("compare wrote its result over its data");
+  } catch (const InputError& e) {
+    CHECK_THAT(std::string(e.what()), Contains("compare.csv here is the data file") && Contains("another folder"));
+  }
+  CHECK(trapwork_test::read_all(dir / "out" / "compare.csv") == before);  // the measured data, untouched
+  CHECK_FALSE(fs::exists(dir / "out" / "compare_summary.json"));
+  // the same through the command line, the folder written another way: exit 2
+  CHECK(run_cli({"compare", model_file, c.data, "-o", (dir / "out" / "." ).string(), "--quiet"}) == 2);
+  CHECK(trapwork_test::read_all(dir / "out" / "compare.csv") == before);
+}

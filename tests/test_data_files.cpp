@@ -3,12 +3,14 @@
 #include "solver/tool/data_files.hpp"
 
 #include <catch2/catch.hpp>
+#include <algorithm>
 #include <cmath>
 #include <fstream>
 #include <string>
 
 #include "scratch_files.hpp"
 #include "solver/errors.hpp"
+#include "solver/tool/scenario.hpp"
 #include "solver/units.hpp"
 
 using namespace trapwork;
@@ -178,4 +180,80 @@ TEST_CASE("path forms read the file, and name it when it cannot be opened", "[da
   } catch (const InputError& e) {
     CHECK_THAT(std::string(e.what()), Contains("missing.csv") && Contains("cannot open"));
   }
+}
+
+// ---- issue 14: header rule, byte-order mark, histogram counts ---------------------------
+
+TEST_CASE("issue 14: a header is a line with no number at all; a typo in the first row is an error",
+          "[data_files]") {
+  // A two-column table (header optional): names, numbers, or an error naming the bad field.
+  const TextTable named = split_table("x_um, V_uK\n# measured 3 May\n-1, 1\n0, 0\n1, 1\n", "data.csv", 2);
+  CHECK(named.header_line == 1);
+  CHECK(named.rows.size() == 3);
+  CHECK(named.skipped() == "header line 1 (x_um, V_uK), comment line 2");
+  const TextTable bare = split_table("-1 1\n0 0\n1 1\n", "data.csv", 2);
+  CHECK(bare.header_line == 0);
+  CHECK(bare.rows.size() == 3);
+  CHECK(bare.rows.front().line == 1);
+  CHECK(bare.skipped().empty());
+  // the first row with a typo is neither a header nor data (it used to be dropped as a header)
+  check_error([] { split_table("-1, 1O\n0, 0\n1, 1\n", "data.csv", 2); }, 1, 5,
+              {"1O", "mixes numbers and text", "a header is a line with no number at all"});
+  // data files need their header: a first line holding a number says the names are missing
+  check_error([] { read_work_samples_text("1.25\n2.5\n", "data.csv"); }, 1, 1,
+              {"1:1: 1.25: column names", "a header is a line with no number at all"});
+  check_error([] { read_work_samples_text("work_h_kHz, 2\n1, 1\n", "data.csv"); }, 1, 13, {"1:13: 2: column names"});
+}
+
+TEST_CASE("issue 14: a UTF-8 byte-order mark is dropped from tables, data files and scenarios", "[data_files]") {
+  const std::string bom = "\xEF\xBB\xBF";
+  CHECK(without_byte_order_mark(bom + "x") == "x");
+  CHECK(without_byte_order_mark("x") == "x");
+  // the first row stays data (before: a BOM made it text, so it was dropped as a header)
+  const TextTable t = split_table(bom + "-1, 1\n0, 0\n1, 1\n", "data.csv", 2);
+  CHECK(t.header_line == 0);
+  REQUIRE(t.rows.size() == 3);
+  CHECK(t.rows.front().fields.front().text == "-1");
+  // a data file's first column name reads as written
+  const auto d = read_work_samples_text(bom + "work_h_kHz\n1\n", "data.csv");
+  CHECK(d.work_J.size() == 1);
+  // a scenario and the table file it names, both written with a BOM, through the path forms
+  const auto dir = trapwork_test::scratch_dir("test-data-files", "bom");
+  std::ofstream(dir / "trap.csv", std::ios::binary) << bom << "-2, 40\n-1, 10\n0, 0\n1, 10\n2, 40\n";
+  std::ofstream(dir / "trap.toml", std::ios::binary)
+      << bom << "[particle]\nmass = \"87 u\"\n[[potential]]\nname = \"data\"\nshape = \"table\"\n"
+      << "file = \"trap.csv\"\nx_unit = \"um\"\nenergy_unit = \"kB*uK\"\n";
+  const Scenario s = read_scenario((dir / "trap.toml").string());
+  REQUIRE(s.terms.size() == 1);
+  const auto& settings = s.terms[0].settings;
+  const auto rows = std::find_if(settings.begin(), settings.end(), [](const auto& kv) { return kv.first == "rows"; });
+  REQUIRE(rows != settings.end());
+  CHECK(rows->second == "5");
+  CHECK(read_text_file((dir / "trap.csv").string(), "the data file").substr(0, 2) == "-2");
+}
+
+TEST_CASE("issue 14: histogram counts are whole numbers read exactly and summed in 64 bits", "[data_files]") {
+  const std::string head = "lower_h_kHz upper_h_kHz count\n";
+  // 1e18 runs per bin: the total 2e18 is beyond a 32-bit int (it used to give negative runs and
+  // a total variation above 1)
+  const auto big = read_work_histogram_text(head + "0 1 1e18\n1 2 1000000000000000000\n", "data.csv");
+  REQUIRE(big.counts.size() == 2);
+  CHECK(big.counts[0] == 1e18);
+  const std::vector<WorkLine> model = work_lines({{0.5 * h * 1e3, 0.5}, {1.5 * h * 1e3, 0.5}});
+  const WorkComparison c = compare_histogram(model, big.edges_J, big.counts, CompareOptions{});
+  CHECK(c.runs == 2000000000000000000);
+  CHECK(c.total_variation >= 0);
+  CHECK(c.total_variation <= 1);
+  CHECK(c.total_variation < 1e-12);  // the counts match the model exactly
+  // not a whole number, not exactly a double (2^53 + 1), beyond 63 bits, a total beyond 63 bits
+  check_error([&] { read_work_histogram_text(head + "0 1 2.5\n", "data.csv"); }, 2, 5, {"whole number"});
+  check_error([&] { read_work_histogram_text(head + "0 1 9007199254740993\n", "data.csv"); }, 2, 5,
+              {"count = 9007199254740993", "a double holds exactly"});
+  check_error([&] { read_work_histogram_text(head + "0 1 1e19\n", "data.csv"); }, 2, 5, {"below 2^63"});
+  check_error([&] { read_work_histogram_text(head + "0 1 5e18\n1 2 5e18\n", "data.csv"); }, 3, 5,
+              {"total stays below 2^63"});
+  // the library refuses what it cannot count too
+  CHECK_THROWS_WITH(compare_histogram(model, {0.0, 1.0, 2.0}, {1e19, 1}, CompareOptions{}), Contains("below 2^63"));
+  CHECK_THROWS_WITH(compare_histogram(model, {0.0, 1.0, 2.0}, {5e18, 5e18}, CompareOptions{}),
+                    Contains("total stays below 2^63"));
 }

@@ -10,6 +10,14 @@
 
 #include "solver/tool/output.hpp"
 
+// after output.hpp: <sys/wait.h> defines a macro si_value that clashes with Quantity::si_value
+#include <sys/wait.h>
+#include <unistd.h>
+
+#include <csignal>
+
+#include "solver/errors.hpp"
+
 using namespace trapwork;
 namespace fs = std::filesystem;
 
@@ -78,4 +86,139 @@ TEST_CASE("unit names become column-name parts", "[output]") {
   CHECK(column_unit("kB*uK") == "kB_uK");
   CHECK(column_unit("hbar*omega") == "hbar_omega");
   CHECK(column_unit("natural") == "natural");
+}
+
+// ---- issue 14: one run's hold on its output folder (OutputRun) ---------------------------
+
+namespace {
+// Writes `text` to <staging>/<name> and returns the path (a command's writer in small).
+fs::path stage(OutputRun& run, const std::string& name, const std::string& text) {
+  const fs::path p = run.staging() / name;
+  write_file_atomically(p, [&](std::ostream& o) { o << text; });
+  return p;
+}
+bool has_staging(const fs::path& dir) {
+  for (const auto& e : fs::directory_iterator(dir))
+    if (e.path().filename().string().rfind(".trapwork-new-", 0) == 0) return true;
+  return false;
+}
+const std::vector<std::string> names = {"a.csv", "b.csv"};
+}  // namespace
+
+TEST_CASE("issue 14: an output never replaces an input of the run, however the path is written", "[output]") {
+  const fs::path dir = scratch_dir("inputs");
+  fs::create_directories(dir / "out");
+  std::ofstream(dir / "out" / "a.csv") << "measured\n";
+  fs::create_hard_link(dir / "out" / "a.csv", dir / "linked.csv");
+  for (const fs::path& input : {dir / "out" / "a.csv", dir / "out" / ".." / "out" / "a.csv", dir / "linked.csv"}) {
+    INFO(input);
+    try {
+      OutputRun run(dir / "out", names, {{input, "the data file"}}, "trapwork test");
+      FAIL("an output that replaces an input was accepted");
+    } catch (const InputError& e) {
+      CHECK_THAT(e.what(), Catch::Contains("a.csv here is the data file"));
+    }
+  }
+  CHECK(read_all(dir / "out" / "a.csv") == "measured\n");
+  // the input given as the output folder itself
+  CHECK_THROWS_WITH(OutputRun(dir / "linked.csv", names, {{dir / "linked.csv", "the scenario"}}, "t"),
+                    Catch::Contains("an output folder, not the scenario"));
+  // an input in the folder that the run does not write is fine, and survives the run
+  OutputRun ok(dir / "out", {"b.csv"}, {{dir / "out" / "a.csv", "the data file"}}, "t");
+  ok.commit({stage(ok, "b.csv", "1\n")});
+  CHECK(read_all(dir / "out" / "a.csv") == "measured\n");
+}
+
+TEST_CASE("issue 14: a folder that cannot be written is refused when the run starts", "[output]") {
+  const fs::path dir = scratch_dir("unwritable");
+  std::ofstream(dir / "plain-file") << "x";
+  try {
+    OutputRun run(dir / "plain-file" / "out", names, {}, "t");
+    FAIL("no error for a folder under a file");
+  } catch (const InputError& e) {
+    CHECK(e.file == (dir / "plain-file" / "out").string());
+    CHECK_THAT(e.what(), Catch::Contains("cannot create the output folder") && Catch::Contains("Not a directory"));
+  }
+  // A run that fails leaves no folder it made (and no lock file in a folder it did not make).
+  { OutputRun failed(dir / "new", names, {}, "t"); }
+  CHECK_FALSE(fs::exists(dir / "new"));
+}
+
+TEST_CASE("issue 14: a second run on a locked folder says who holds it", "[output]") {
+  const fs::path dir = scratch_dir("lock");
+  {
+    OutputRun first(dir, names, {}, "trapwork work first.toml");
+    try {
+      OutputRun second(dir, names, {}, "trapwork work second.toml");
+      FAIL("two runs held one folder");
+    } catch (const InputError& e) {
+      CHECK_THAT(e.what(), Catch::Contains("in use by another trapwork run") &&
+                               Catch::Contains("pid " + std::to_string(::getpid())) &&
+                               Catch::Contains("trapwork work first.toml") && Catch::Contains("started "));
+    }
+    first.commit({stage(first, "a.csv", "first\n")});
+  }
+  // The lock file stays, but its lock went with its run: the next run is not blocked.
+  REQUIRE(fs::exists(dir / ".trapwork-lock"));
+  OutputRun third(dir, names, {}, "trapwork work third.toml");
+  CHECK_THAT(read_all(dir / ".trapwork-lock"), Catch::Contains("trapwork work third.toml"));
+}
+
+TEST_CASE("issue 14: the folder holds one whole run; other files stay", "[output]") {
+  const fs::path dir = scratch_dir("swap");
+  {
+    OutputRun run(dir, names, {}, "t");
+    const auto files = run.commit({stage(run, "a.csv", "old a\n"), stage(run, "b.csv", "old b\n")});
+    CHECK(files == std::vector<fs::path>{dir / "a.csv", dir / "b.csv"});
+  }
+  std::ofstream(dir / "notes.txt") << "mine\n";
+  // what a killed run leaves: a staging folder and a temporary file; the next run removes them
+  fs::create_directories(dir / ".trapwork-new-999999");
+  std::ofstream(dir / "a.csv.tmp-999999") << "half";
+  {
+    OutputRun run(dir, names, {}, "t");
+    CHECK_FALSE(fs::exists(dir / ".trapwork-new-999999"));
+    CHECK_FALSE(fs::exists(dir / "a.csv.tmp-999999"));
+    const fs::path staged = stage(run, "a.csv", "new a\n");
+    CHECK(read_all(dir / "a.csv") == "old a\n");  // nothing changes before commit
+    run.commit({staged});
+  }
+  CHECK(read_all(dir / "a.csv") == "new a\n");
+  CHECK_FALSE(fs::exists(dir / "b.csv"));  // the previous run's file this run did not write
+  CHECK(read_all(dir / "notes.txt") == "mine\n");
+  CHECK_FALSE(has_staging(dir));
+  // an undeclared output is a programmer error
+  OutputRun run(dir, names, {}, "t");
+  CHECK_THROWS_AS(run.commit({stage(run, "c.csv", "x")}), std::logic_error);
+}
+
+TEST_CASE("issue 14: SIGTERM during the write phase leaves the previous run whole", "[output]") {
+  const fs::path dir = scratch_dir("signal");
+  {
+    OutputRun run(dir, names, {}, "t");
+    run.commit({stage(run, "a.csv", "old a\n"), stage(run, "b.csv", "old b\n")});
+  }
+  const pid_t child = ::fork();
+  REQUIRE(child >= 0);
+  if (child == 0) {  // the interrupted run: half its files staged when the signal comes
+    std::signal(SIGTERM, SIG_DFL);  // as in the tool (Catch2 installs its own handler)
+    try {
+      OutputRun run(dir, names, {}, "t");
+      const fs::path a = stage(run, "a.csv", "new a\n");
+      ::raise(SIGTERM);  // only sets the flag now
+      const fs::path b = stage(run, "b.csv", "new b\n");
+      run.commit({a, b});
+    } catch (...) {
+    }
+    ::_exit(0);  // reached only if the signal did not end the run
+  }
+  int status = 0;
+  REQUIRE(::waitpid(child, &status, 0) == child);
+  INFO("wait status " << status);
+  REQUIRE(WIFSIGNALED(status));
+  CHECK(WTERMSIG(status) == SIGTERM);
+  CHECK(read_all(dir / "a.csv") == "old a\n");
+  CHECK(read_all(dir / "b.csv") == "old b\n");
+  CHECK_FALSE(has_staging(dir));
+  OutputRun next(dir, names, {}, "t");  // the lock died with the child
 }

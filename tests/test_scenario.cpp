@@ -593,7 +593,7 @@ value_unit = "nm"
   } catch (const InputError& e) {
     CHECK(e.file == (dir / "ramp.csv").string());
     CHECK(e.line == 3);
-    CHECK(e.column == 1);  // the row's first field
+    CHECK(e.column == 3);  // the field that is not a number
     CHECK(e.key == "protocol.change[1].file");
     CHECK_THAT(e.what(), Catch::Contains("two numbers per row, t and value"));
   }

@@ -66,13 +66,15 @@ void run_spectrum(const SpectrumCommand& command, std::ostream& out) {
   Scenario scenario = load_scenario(command.scenario);
   if (!command.output.empty()) scenario.output_folder = command.output;
   if (command.levels) scenario.spectrum.options.levels = *command.levels;
+  OutputRun output(scenario.output_folder, {"spectrum.csv", "states.csv", "summary.json"}, scenario_inputs(scenario),
+                   "trapwork spectrum " + scenario.file);
   SpectrumResult result;
   try {
     result = compute_spectrum(scenario.potential, scenario.spectrum);
   } catch (const PhysicsError& e) {
     throw PhysicsError(scenario.file + ": " + e.what());  // say which scenario cannot be used
   }
-  const auto files = write_spectrum_outputs(scenario.output_folder, scenario, result);
+  const auto files = output.commit(write_spectrum_outputs(output.staging(), scenario, result));
   if (command.quiet) return;
   print_spectrum_report(out, scenario, result);
   out << '\n';

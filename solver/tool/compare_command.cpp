@@ -256,6 +256,10 @@ CompareOutcome run_compare_command(const CompareCommand& command, std::ostream& 
   const WorkData data = read_work_data(command.data);
   std::string sigma_source;
   const double sigma = resolution_for(command, scenario, data, sigma_source);
+  std::vector<OutputRun::Input> inputs = scenario_inputs(scenario);
+  inputs.push_back({command.data, "the data file"});
+  OutputRun output(scenario.output_folder, {"compare.csv", "compare_summary.json", "compare.png", "compare.svg"},
+                   inputs, "trapwork compare " + scenario.file + " " + command.data);
   const ScenarioWork work = model_work(scenario, progress, command.show_progress);
   const WorkRun run = work.run(scenario);
   const WorkResult& r = run.result;
@@ -371,12 +375,12 @@ CompareOutcome run_compare_command(const CompareCommand& command, std::ostream& 
     figure.data_mean = d.energy(outcome.comparison.moments->mean);
   }
 
-  const fs::path folder = scenario.output_folder;
-  fs::create_directories(folder);
+  const fs::path folder = output.staging();
   write_file_atomically(folder / "compare.csv", [&](std::ostream& o) { write_csv(o, table); });
   write_file_atomically(folder / "compare_summary.json", [&](std::ostream& o) { o << summary.dump(2) << '\n'; });
   outcome.files = {folder / "compare.csv", folder / "compare_summary.json"};
   for (const auto& p : plot_comparison(folder / "compare", figure)) outcome.files.push_back(p);
+  outcome.files = output.commit(outcome.files);
   if (command.quiet) return outcome;
   print_compare_report(out, run, data, outcome.comparison, sigma, sigma_source, outcome.verdict);
   out << '\n';

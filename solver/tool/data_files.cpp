@@ -1,8 +1,13 @@
 // Readers of measured data files (see data_files.hpp).
 #include "solver/tool/data_files.hpp"
 
+#include <algorithm>
 #include <charconv>
+#include <cctype>
 #include <cmath>
+#include <cstdint>
+#include <limits>
+#include <filesystem>
 #include <fstream>
 #include <map>
 #include <sstream>
@@ -14,29 +19,10 @@ namespace trapwork {
 
 namespace {
 
-struct Field {
-  std::string text;
-  int column = 0;  // 1-based character where the field starts
-};
-struct Row {
-  int line = 0;
-  std::vector<Field> fields;
-};
-
-// A directive comment ("# unit: h*kHz") as found.
-struct Directive {
-  std::string text;
-  int line = 0, column = 0;
-};
-
-// The file split into header and rows, before any column is interpreted.
-struct Table {
-  std::string file;
-  int header_line = 0;
-  std::vector<Field> names;
-  std::vector<Row> rows;
-  std::optional<Directive> unit, resolution;
-};
+using Field = TableField;
+using Row = TableRow;
+using Directive = TableDirective;
+using Table = TextTable;
 
 bool is_blank(char c) {
   return c == ' ' || c == '\t' || c == '\r' || c == '\v' || c == '\f';
@@ -87,10 +73,53 @@ std::optional<Directive> directive(std::string_view comment, std::string_view wo
   return Directive{trimmed(comment.substr(j)), line, offset + int(j) + 1};
 }
 
-Table parse_table(std::string_view text, const std::string& file) {
+}  // namespace
+
+std::string_view without_byte_order_mark(std::string_view text) {
+  if (text.substr(0, 3) == "\xEF\xBB\xBF") text.remove_prefix(3);
+  return text;
+}
+
+std::string read_text_file(const std::string& path, const std::string& what) {
+  std::error_code ec;
+  if (std::filesystem::is_directory(path, ec))
+    throw InputError("", "", "cannot open " + what + ": it is a folder", "", path);
+  std::ifstream in(path, std::ios::binary);
+  if (!in) throw InputError("", "", "cannot open " + what, "", path);
+  std::ostringstream text;
+  text << in.rdbuf();
+  return std::string(without_byte_order_mark(text.str()));
+}
+
+bool is_number(std::string_view s) {
+  if (!s.empty() && s.front() == '+') s.remove_prefix(1);
+  double v = 0;
+  const auto [end, ec] = std::from_chars(s.data(), s.data() + s.size(), v);
+  return !s.empty() && end == s.data() + s.size() && (ec == std::errc() || ec == std::errc::result_out_of_range);
+}
+
+std::string TextTable::skipped() const {
+  std::string out;
+  if (header_line > 0) {
+    out = "header line " + std::to_string(header_line) + " (";
+    for (std::size_t i = 0; i < names.size(); ++i) out += (i ? ", " : "") + names[i].text;
+    out += ")";
+  }
+  if (!comment_lines.empty()) {
+    out += std::string(out.empty() ? "" : ", ") + (comment_lines.size() == 1 ? "comment line " : "comment lines ");
+    for (std::size_t i = 0; i < comment_lines.size() && i < 8; ++i)
+      out += (i ? ", " : "") + std::to_string(comment_lines[i]);
+    if (comment_lines.size() > 8) out += " and " + std::to_string(comment_lines.size() - 8) + " more";
+  }
+  return out;
+}
+
+TextTable split_table(std::string_view text, const std::string& file, std::size_t columns) {
+  text = without_byte_order_mark(text);
+  const bool header_required = columns == 0;
   Table t;
   t.file = file;
-  bool commas = false;
+  bool commas = false, first = true;
   int line_number = 0;
   std::size_t start = 0;
   while (start <= text.size()) {
@@ -103,10 +132,11 @@ Table parse_table(std::string_view text, const std::string& file) {
     if (hash != std::string_view::npos) {
       const std::string_view before = line.substr(0, hash);
       if (trimmed(before).empty()) {  // a whole comment line: may hold a directive
+        t.comment_lines.push_back(line_number);
         const std::string_view comment = line.substr(hash + 1);
         const int offset = int(hash) + 1;
         for (auto [word, slot] : {std::pair{"unit", &t.unit}, std::pair{"resolution", &t.resolution}}) {
-          auto d = directive(comment, word, line_number, offset);
+          auto d = header_required ? directive(comment, word, line_number, offset) : std::nullopt;
           if (!d) continue;
           if (*slot)
             throw InputError(word, d->text,
@@ -114,6 +144,7 @@ Table parse_table(std::string_view text, const std::string& file) {
                              "", file, line_number, d->column);
           *slot = *d;
         }
+        if (end == text.size()) break;
         continue;
       }
       line = before;
@@ -122,16 +153,38 @@ Table parse_table(std::string_view text, const std::string& file) {
       if (end == text.size()) break;
       continue;
     }
-    if (t.header_line == 0) {
+    if (first) {
+      // The header rule (data_files.hpp): a header is a line with no number at all.
+      first = false;
       commas = line.find(',') != std::string_view::npos;
-      t.header_line = line_number;
-      t.names = split_fields(line, commas);
+      const std::vector<Field> fields = split_fields(line, commas);
+      const auto number = std::find_if(fields.begin(), fields.end(), [](const Field& f) { return is_number(f.text); });
+      const auto word = std::find_if(fields.begin(), fields.end(), [](const Field& f) { return !is_number(f.text); });
+      if (number == fields.end()) {
+        t.header_line = line_number;
+        t.names = fields;
+      } else if (header_required) {
+        throw InputError("", number->text,
+                         "column names on the first line (a header is a line with no number at all; this one "
+                         "holds a number, so the header may be missing)",
+                         "", file, line_number, number->column);
+      } else if (word != fields.end()) {
+        throw InputError("", word->text.empty() ? "(empty)" : word->text,
+                         "a number: the first line mixes numbers and text, so it is neither a header (a header "
+                         "is a line with no number at all) nor a data row",
+                         "", file, line_number, word->column);
+      } else {
+        t.rows.push_back({line_number, fields});
+      }
     } else {
       t.rows.push_back({line_number, split_fields(line, commas)});
     }
     if (end == text.size()) break;
   }
-  if (t.header_line == 0)
+  // A table whose header may be left out may also come back empty: its reader says how many
+  // rows it needs.
+  if (!header_required && t.rows.empty()) return t;
+  if (first)
     throw InputError("", "", "an empty data file: expected a header line with column names, then data rows", "",
                      file);
   std::map<std::string, int> seen;
@@ -146,16 +199,20 @@ Table parse_table(std::string_view text, const std::string& file) {
   }
   if (t.rows.empty())
     throw InputError("", "", "no data rows after the header on line " + std::to_string(t.header_line), "", file);
+  const std::size_t width = t.header_line > 0 ? t.names.size() : columns;
+  const std::string per_row = t.header_line > 0 ? " fields, one per column of the header on line " +
+                                                      std::to_string(t.header_line)
+                                                : " fields per row";
   for (const auto& r : t.rows)
-    if (r.fields.size() != t.names.size()) {
-      const int column = r.fields.size() > t.names.size() ? r.fields[t.names.size()].column : 0;
-      throw InputError("", std::to_string(r.fields.size()) + " fields",
-                       std::to_string(t.names.size()) + " fields, one per column of the header on line " +
-                           std::to_string(t.header_line),
-                       "", file, r.line, column);
+    if (r.fields.size() != width) {
+      const int column = r.fields.size() > width ? r.fields[width].column : 1;
+      throw InputError("", std::to_string(r.fields.size()) + " fields", std::to_string(width) + per_row, "", file,
+                       r.line, column);
     }
   return t;
 }
+
+namespace {
 
 // ---- columns ---------------------------------------------------------------------------
 
@@ -292,6 +349,43 @@ int integer_field(const Table& t, const Row& r, const BoundColumn& c, const std:
   return v;
 }
 
+// The whole number a count field writes ("1200", "1.2e3", "+5"), exactly, from its decimal text:
+// nullopt when it is not a whole number >= 0 or does not fit in 63 bits.
+std::optional<std::int64_t> exact_count(std::string_view s) {
+  if (!s.empty() && s.front() == '+') s.remove_prefix(1);
+  std::string digits;  // mantissa digits, the decimal point removed
+  int exponent = 0;    // value = digits * 10^exponent
+  std::size_t i = 0;
+  for (; i < s.size() && std::isdigit(static_cast<unsigned char>(s[i])); ++i) digits += s[i];
+  if (i < s.size() && s[i] == '.')
+    for (++i; i < s.size() && std::isdigit(static_cast<unsigned char>(s[i])); ++i, --exponent) digits += s[i];
+  if (digits.empty()) return std::nullopt;
+  if (i < s.size() && (s[i] == 'e' || s[i] == 'E')) {
+    int e = 0;
+    const char* from = s.data() + i + 1;
+    if (from < s.data() + s.size() && *from == '+') ++from;
+    const auto [end, ec] = std::from_chars(from, s.data() + s.size(), e);
+    if (ec != std::errc() || end != s.data() + s.size() || from == s.data() + s.size()) return std::nullopt;
+    exponent += e;
+  } else if (i != s.size()) {
+    return std::nullopt;
+  }
+  for (; exponent < 0; ++exponent) {  // the digits below the units must be zeros
+    if (digits.back() != '0') return std::nullopt;
+    digits.pop_back();
+    if (digits.empty()) digits = "0";
+  }
+  const std::size_t first = std::min(digits.find_first_not_of('0'), digits.size());
+  digits.erase(0, first);
+  if (digits.empty()) return 0;
+  if (exponent > 19) return std::nullopt;
+  digits.append(std::size_t(exponent), '0');
+  std::int64_t v = 0;
+  const auto [end, ec] = std::from_chars(digits.data(), digits.data() + digits.size(), v);
+  if (ec != std::errc() || end != digits.data() + digits.size()) return std::nullopt;
+  return v;
+}
+
 // Whether the row is kept (no keep column: every row).
 bool kept(const Table& t, const Row& r, const std::map<std::string, BoundColumn>& columns, DataFileInfo& info) {
   const auto it = columns.find("keep");
@@ -386,16 +480,31 @@ WorkHistogramData histogram_from(const Table& t) {
   WorkHistogramData d;
   d.info = info_of(t, columns, "lower");
   const BoundColumn &lower = columns.at("lower"), &upper = columns.at("upper"), &count = columns.at("count");
+  std::int64_t total = 0;
   for (const Row& r : t.rows) {
     const double lo = quantity_field(t, r, lower), hi = quantity_field(t, r, upper);
-    const double c = number_field(t, r, count);
     if (!(hi > lo)) bad_field(t, r, upper, "an upper edge above the lower edge of the bin");
     if (!d.edges_J.empty() && lo != d.edges_J.back())
       bad_field(t, r, lower,
                 "the upper edge of the previous bin: bins must be contiguous and ascending (give empty bins a "
                 "count of 0)");
+    // Counts are whole numbers of runs, read exactly from their text and summed in 64 bits; a
+    // count a double cannot hold exactly (above 2^53, e.g. 9007199254740993) would be changed
+    // silently, so it is refused, as is a total above 2^63 runs.
+    const double c = number_field(t, r, count);
     if (c < 0) bad_field(t, r, count, "a count >= 0");
-    if (c != std::floor(c)) bad_field(t, r, count, "a whole number of runs");
+    const std::optional<std::int64_t> whole = exact_count(r.fields[std::size_t(count.index)].text);
+    if (!whole && c == std::floor(c) && c < 0x1p63)
+      bad_field(t, r, count, "a whole number of runs that a double holds exactly (below 2^53 = 9007199254740992, "
+                             "or a multiple of a power of 2 above it)");
+    if (!whole) bad_field(t, r, count, c < 0x1p63 ? "a whole number of runs" : "a number of runs below 2^63");
+    if (double(*whole) != c || !(c < 0x1p63) || static_cast<std::int64_t>(c) != *whole)
+      bad_field(t, r, count, "a whole number of runs that a double holds exactly (below 2^53 = 9007199254740992, "
+                             "or a multiple of a power of 2 above it)");
+    if (*whole > std::numeric_limits<std::int64_t>::max() - total)
+      bad_field(t, r, count, "counts whose total stays below 2^63 runs (the total so far is " +
+                                 std::to_string(total) + ")");
+    total += *whole;
     if (d.edges_J.empty()) d.edges_J.push_back(lo);
     d.edges_J.push_back(hi);
     d.counts.push_back(c);
@@ -436,38 +545,34 @@ TransitionLinesData transitions_from(const Table& t) {
 }
 
 std::string read_text(const std::string& path) {
-  std::ifstream in(path, std::ios::binary);
-  if (!in) throw InputError("", "", "cannot open the data file", "", path);
-  std::ostringstream text;
-  text << in.rdbuf();
-  return text.str();
+  return read_text_file(path, "the data file");
 }
 
 }  // namespace
 
 WorkSamplesData read_work_samples_text(std::string_view text, const std::string& file_name) {
-  return samples_from(parse_table(text, file_name));
+  return samples_from(split_table(text, file_name));
 }
 WorkSamplesData read_work_samples(const std::string& path) {
   return read_work_samples_text(read_text(path), path);
 }
 
 LevelPairsData read_level_pairs_text(std::string_view text, const std::string& file_name) {
-  return pairs_from(parse_table(text, file_name));
+  return pairs_from(split_table(text, file_name));
 }
 LevelPairsData read_level_pairs(const std::string& path) {
   return read_level_pairs_text(read_text(path), path);
 }
 
 WorkHistogramData read_work_histogram_text(std::string_view text, const std::string& file_name) {
-  return histogram_from(parse_table(text, file_name));
+  return histogram_from(split_table(text, file_name));
 }
 WorkHistogramData read_work_histogram(const std::string& path) {
   return read_work_histogram_text(read_text(path), path);
 }
 
 TransitionLinesData read_transition_lines_text(std::string_view text, const std::string& file_name) {
-  return transitions_from(parse_table(text, file_name));
+  return transitions_from(split_table(text, file_name));
 }
 TransitionLinesData read_transition_lines(const std::string& path) {
   return read_transition_lines_text(read_text(path), path);
@@ -483,7 +588,7 @@ const DataFileInfo& WorkData::info() const {
 }
 
 WorkData read_work_data_text(std::string_view text, const std::string& file_name) {
-  const Table t = parse_table(text, file_name);
+  const Table t = split_table(text, file_name);
   bool work = false, pairs = false, bins = false;
   for (const auto& n : t.names) {
     work = work || n.text == "work" || n.text.rfind("work_", 0) == 0;

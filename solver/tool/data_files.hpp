@@ -3,7 +3,8 @@
 //
 // Layout (our own, shared by all four kinds): plain text, one row per line, fields separated by
 // commas (when the header line has one) or else by spaces/tabs. Blank lines are skipped; '#'
-// starts a comment (a whole line, or the rest of a row). The first other line is the header:
+// starts a comment (a whole line, or the rest of a row). The first other line is the header (a
+// line with no number at all, see the header rule below):
 // column names, in any order. Quantities carry their unit in the column name, written as the
 // unit with '*' replaced by '_' (so trapwork's own CSV columns read back):
 //   work_h_kHz        work in h*kHz         frequency_kHz      a frequency in kHz
@@ -30,6 +31,11 @@
 // column name as key: malformed or non-finite numbers, negative counts, non-integer levels,
 // unknown or missing columns (with a suggestion for a misspelt one), unknown units, rows with
 // the wrong number of fields, non-contiguous bins, a file without data rows.
+// Header rule (every table trapwork reads, data files and the two-column tables of scenarios):
+// a header is a line in which no field is a number. A first line with only numbers is a data
+// row (where the header may be left out); a first line that mixes numbers and other text is an
+// error naming the field, so a data row with a typo ("1.0, 2.O") is never taken for a header.
+// A UTF-8 byte-order mark at the start of a file is removed before anything is read.
 // Each kind has a text form (parses `text`; `file_name` is used only in messages; no file
 // access) and a path form that reads the file and calls the text form.
 #include <optional>
@@ -40,6 +46,49 @@
 #include "solver/compare.hpp"
 
 namespace trapwork {
+
+// ---- shared by every reader of tables and text files --------------------------------------
+
+// `text` without a UTF-8 byte-order mark (EF BB BF) at its start; editors on Windows write one,
+// and it would otherwise stick to the first field or key.
+std::string_view without_byte_order_mark(std::string_view text);
+// The whole file, without a byte-order mark. InputError naming the file and `what` ("the data
+// file", "the scenario file") when it cannot be opened or is a folder.
+std::string read_text_file(const std::string& path, const std::string& what);
+// Whether `field` is one number, as the readers read it (an optional '+', then std::from_chars).
+bool is_number(std::string_view field);
+
+// A table file split into lines of fields, before any column is interpreted. Fields are
+// separated by commas when the first line has one, else by spaces or tabs; '#' starts a
+// comment; blank lines are skipped.
+struct TableField {
+  std::string text;
+  int column = 0;  // 1-based character where the field starts
+};
+struct TableRow {
+  int line = 0;
+  std::vector<TableField> fields;
+};
+struct TableDirective {  // "# unit: h*kHz" as found
+  std::string text;
+  int line = 0, column = 0;
+};
+struct TextTable {
+  std::string file;
+  int header_line = 0;  // 0: no header (the first line was data)
+  std::vector<TableField> names;
+  std::vector<TableRow> rows;
+  std::vector<int> comment_lines;  // whole-line comments, for the report
+  std::optional<TableDirective> unit, resolution;  // only read where a header is required
+  // "header line 1 (x, V), comment lines 2, 5": what was read but is not data ("" if nothing)
+  std::string skipped() const;
+};
+// Splits `text` by the header rule above. `columns` > 0: the number of fields of a table
+// whose header may be left out (the two-column tables); 0: a header is required (data files).
+// Every row must have as many fields as the header (or the first row). InputError (key "")
+// with file, line and column: a mixed first line, an empty file, no data rows, a row with
+// the wrong number of fields, an empty or repeated column name.
+TextTable split_table(std::string_view text, const std::string& file, std::size_t columns = 0);
 
 // What every reader reports besides the values.
 struct DataFileInfo {

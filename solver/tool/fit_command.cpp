@@ -49,17 +49,9 @@ std::vector<TrapCoefficient> parse_terms(const std::string& text) {
   return out;
 }
 
-std::string read_text_file(const std::string& path) {
-  std::ifstream in(path, std::ios::binary);
-  if (!in) throw InputError("", "", "cannot open the scenario file", "", path);
-  std::ostringstream s;
-  s << in.rdbuf();
-  return s.str();
-}
-
 // The start scenario's text: the file, the built-in one, or one made from --mass/--frequency.
 std::string start_text(const FitCommand& c) {
-  if (!c.start.empty()) return c.start == "default" ? std::string(default_scenario_text()) : read_text_file(c.start);
+  if (!c.start.empty()) return c.start == "default" ? std::string(default_scenario_text()) : read_text_file(c.start, "the scenario file");
   if (c.mass.empty() || c.frequency.empty())
     throw InputError("--start", "", "a start scenario (--start FILE), or both --mass and --frequency");
   return "title = \"polynomial trap, " + c.mass + " particle\"\n\n[particle]\nmass = \"" + c.mass + "\"\n\n[units]\nreference_frequency = \"" + c.frequency +
@@ -279,6 +271,12 @@ FitResultFiles run_fit_command(const FitCommand& command, std::ostream& out) {
   const Scenario start = read_scenario_text(text, start_name == "default" ? "default" : start_name);
   const PolynomialTrap trap = start_trap(start);
   const std::vector<TrapCoefficient> free = parse_terms(command.terms);
+  const fs::path folder =
+      command.output.empty() ? fs::path(fs::path(command.data).stem().string() + "-fit") : fs::path(command.output);
+  std::vector<OutputRun::Input> inputs = scenario_inputs(start);
+  inputs.push_back({command.data, "the data file"});
+  OutputRun output(folder, {"fitted.toml", "fit_lines.csv", "fit_summary.json"}, inputs,
+                   "trapwork fit " + command.data);
   TrapFit fit;
   try {
     fit = fit_trap(internal_data(data, start), trap, free);
@@ -286,18 +284,18 @@ FitResultFiles run_fit_command(const FitCommand& command, std::ostream& out) {
     throw PhysicsError("fit of " + command.data + ": " + e.what());
   }
 
-  const fs::path folder =
-      command.output.empty() ? fs::path(fs::path(command.data).stem().string() + "-fit") : fs::path(command.output);
   const std::string fitted = fitted_scenario_text(text, start, fit, command.data);
   // The fitted scenario must read back before any file is written.
   (void)read_scenario_text(fitted, (folder / "fitted.toml").string());
   const CsvTable lines = fit_lines_table(start, data, fit);
   const std::string summary = fit_summary(start, data, fit).dump(2) + "\n";
-  fs::create_directories(folder);
-  FitResultFiles files{folder / "fitted.toml", folder / "fit_lines.csv", folder / "fit_summary.json"};
+  const fs::path staging = output.staging();
+  FitResultFiles files{staging / "fitted.toml", staging / "fit_lines.csv", staging / "fit_summary.json"};
   write_file_atomically(files.scenario, [&](std::ostream& o) { o << fitted; });
   write_file_atomically(files.lines, [&](std::ostream& o) { write_csv(o, lines); });
   write_file_atomically(files.summary, [&](std::ostream& o) { o << summary; });
+  const auto written = output.commit({files.scenario, files.lines, files.summary});
+  files = {written[0], written[1], written[2]};
   if (command.quiet) return files;
   print_fit_report(out, start, data, fit);
   out << "\nwrote " << files.scenario.string() << " (run it with `trapwork work` or `trapwork spectrum`)\n"

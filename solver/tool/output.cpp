@@ -1,14 +1,25 @@
 // Output files and printed reports of the command-line tool (see output.hpp).
 #include "solver/tool/output.hpp"
 
+#include <fcntl.h>
+#include <sys/file.h>
 #include <unistd.h>
 
+#include <algorithm>
+#include <cerrno>
 #include <charconv>
 #include <cmath>
+#include <csignal>
 #include <cstdio>
+#include <cstring>
+#include <ctime>
 #include <fstream>
 #include <limits>
+#include <set>
+#include <sstream>
 #include <stdexcept>
+
+#include "solver/errors.hpp"
 
 namespace trapwork {
 
@@ -31,6 +42,221 @@ void write_file_atomically(const fs::path& path, const std::function<void(std::o
     fs::remove(temporary, ignored);
     throw;
   }
+}
+
+// ---- one run's hold on its output folder (output.hpp) ------------------------------------
+
+namespace {
+
+constexpr const char* lock_name = ".trapwork-lock";
+constexpr const char* manifest_name = ".trapwork-outputs";
+constexpr const char* staging_prefix = ".trapwork-new-";
+
+// Set by the handler of SIGINT and SIGTERM during a write phase; the handler does nothing else
+// (only async-signal-safe work belongs in a handler), commit() acts on it.
+volatile std::sig_atomic_t interrupted_by = 0;
+struct sigaction previous_int, previous_term;
+
+extern "C" void note_signal(int signal) {
+  interrupted_by = signal;
+}
+
+bool same_file(const fs::path& a, const fs::path& b) {
+  std::error_code ec;
+  return fs::equivalent(a, b, ec) && !ec;
+}
+
+std::string folder_error(const std::string& what, int error) {
+  return what + " (" + std::strerror(error) + ")";
+}
+
+}  // namespace
+
+std::vector<OutputRun::Input> scenario_inputs(const Scenario& scenario) {
+  std::vector<OutputRun::Input> inputs;
+  if (scenario.file.empty() || scenario.file == "default") return inputs;
+  inputs.push_back({scenario.file, "the scenario"});
+  const fs::path base = fs::path(scenario.file).parent_path();
+  for (const auto& term : scenario.terms)
+    for (const auto& [key, value] : term.settings)
+      if (key == "file") {
+        std::string name = value;  // as found in the file: in quotes
+        if (name.size() >= 2 && name.front() == '"' && name.back() == '"') name = name.substr(1, name.size() - 2);
+        inputs.push_back({base / name, "a table file of the scenario"});
+      }
+  if (scenario.protocol)
+    for (const auto& change : scenario.protocol->changes)
+      if (!change.file.empty()) inputs.push_back({base / change.file, "a ramp table of the scenario"});
+  return inputs;
+}
+
+OutputRun::OutputRun(fs::path folder, std::vector<std::string> names, const std::vector<Input>& inputs,
+                     std::string command)
+    : folder_(std::move(folder)), names_(std::move(names)) {
+  const std::string where = folder_.string();
+  // 1. No output replaces an input (compared by identity, so other spellings of a path count).
+  for (const auto& input : inputs) {
+    inputs_.push_back(input.path);
+    if (same_file(input.path, folder_))
+      throw InputError("--output", where, "an output folder, not " + input.what + " (" + input.path.string() + ")");
+    for (const auto& name : names_)
+      if (same_file(input.path, folder_ / name))
+        throw InputError("--output", where,
+                         "an output folder where this run does not replace its own input: " + name + " here is " +
+                             input.what + " (" + input.path.string() + "); write to another folder (-o) or move "
+                             "the input",
+                         "", input.path.string());
+  }
+  // 2. The folder exists and can be written: the lock file is the first file written.
+  std::error_code ec;
+  created_ = !fs::exists(folder_, ec);
+  fs::create_directories(folder_, ec);
+  if (ec || !fs::is_directory(folder_))
+    throw InputError("", "", "cannot create the output folder: " +
+                                 (ec ? ec.message() : std::string("a file of that name exists")),
+                     "", where);
+  const fs::path lock = folder_ / lock_name;
+  lock_fd_ = ::open(lock.c_str(), O_RDWR | O_CREAT | O_CLOEXEC, 0644);
+  if (lock_fd_ < 0) {
+    const int error = errno;
+    if (created_) fs::remove(folder_, ec);
+    throw InputError("", "", folder_error("cannot write in the output folder", error), "", where);
+  }
+  // 3. The advisory lock. Whoever holds it wrote who they are into the file.
+  if (::flock(lock_fd_, LOCK_EX | LOCK_NB) != 0) {
+    const int error = errno;
+    std::string holder;
+    char buffer[512];
+    const ssize_t n = ::pread(lock_fd_, buffer, sizeof buffer - 1, 0);
+    if (n > 0) holder.assign(buffer, std::size_t(n));
+    while (!holder.empty() && holder.back() == '\n') holder.pop_back();
+    for (std::size_t at; (at = holder.find('\n')) != std::string::npos;) holder.replace(at, 1, ", ");
+    ::close(lock_fd_);
+    lock_fd_ = -1;
+    if (error == EWOULDBLOCK)
+      throw InputError("", "", "the output folder is in use by another trapwork run (" +
+                                   (holder.empty() ? std::string("no details yet") : holder) +
+                                   "): wait for it to finish, or write to another folder (-o)",
+                       "", where);
+    throw InputError("", "", folder_error("cannot lock the output folder", error), "", where);
+  }
+  char host[256] = "unknown";
+  ::gethostname(host, sizeof host - 1);
+  const std::time_t now = std::time(nullptr);
+  char started[64];
+  std::strftime(started, sizeof started, "%Y-%m-%d %H:%M:%S UTC", std::gmtime(&now));
+  const std::string me = "pid " + std::to_string(::getpid()) + "\nhost " + host + "\ncommand " + command +
+                         "\nstarted " + started + "\n";
+  if (::ftruncate(lock_fd_, 0) != 0 || ::pwrite(lock_fd_, me.data(), me.size(), 0) != ssize_t(me.size())) {
+    const int error = errno;
+    ::close(lock_fd_);
+    lock_fd_ = -1;
+    throw InputError("", "", folder_error("cannot write in the output folder", error), "", where);
+  }
+  // Left behind by a run that was killed (its lock is gone, we hold it now): staging folders
+  // and temporary files of trapwork's own outputs.
+  for (const auto& entry : fs::directory_iterator(folder_, ec)) {
+    const std::string name = entry.path().filename().string();
+    bool stale = name.rfind(staging_prefix, 0) == 0;
+    for (const auto& output : names_) stale = stale || name.rfind(output + ".tmp-", 0) == 0;
+    if (stale) fs::remove_all(entry.path(), ec);
+  }
+}
+
+const fs::path& OutputRun::staging() {
+  if (!staging_.empty()) return staging_;
+  fs::path path = folder_ / (staging_prefix + std::to_string(::getpid()));
+  std::error_code ec;
+  fs::create_directory(path, ec);
+  if (ec)
+    throw InputError("", "", "cannot write in the output folder (" + ec.message() + ")", "", folder_.string());
+  staging_ = path;
+  // The write phase: a SIGINT or SIGTERM now only sets the flag, commit() acts on it.
+  interrupted_by = 0;
+  struct sigaction action {};
+  action.sa_handler = note_signal;
+  sigemptyset(&action.sa_mask);
+  action.sa_flags = SA_RESTART;
+  ::sigaction(SIGINT, &action, &previous_int);
+  ::sigaction(SIGTERM, &action, &previous_term);
+  handling_ = true;
+  return staging_;
+}
+
+void OutputRun::restore_signals() {
+  if (!handling_) return;
+  ::sigaction(SIGINT, &previous_int, nullptr);
+  ::sigaction(SIGTERM, &previous_term, nullptr);
+  handling_ = false;
+}
+
+std::vector<fs::path> OutputRun::commit(const std::vector<fs::path>& files) {
+  for (const auto& file : files) {
+    const std::string name = file.filename().string();
+    if (std::find(names_.begin(), names_.end(), name) == names_.end())
+      throw std::logic_error("OutputRun: '" + name + "' is not among the declared outputs");
+  }
+  sigset_t held, before;
+  sigemptyset(&held);
+  sigaddset(&held, SIGINT);
+  sigaddset(&held, SIGTERM);
+  ::pthread_sigmask(SIG_BLOCK, &held, &before);
+  std::error_code ec;
+  if (interrupted_by != 0) {  // stopped during the write phase: keep the previous run
+    const int signal = interrupted_by;
+    if (!staging_.empty()) fs::remove_all(staging_, ec);
+    staging_.clear();
+    restore_signals();
+    ::close(lock_fd_);
+    lock_fd_ = -1;
+    committed_ = true;
+    ::pthread_sigmask(SIG_SETMASK, &before, nullptr);
+    std::raise(signal);  // the previous disposition (by default: the process ends)
+    throw std::runtime_error("interrupted by signal " + std::to_string(signal));
+  }
+  // Whatever happens below, the signals held back are let through again.
+  struct Release {
+    sigset_t mask;
+    ~Release() { ::pthread_sigmask(SIG_SETMASK, &mask, nullptr); }
+  } release{before};
+  std::vector<fs::path> out;
+  std::set<std::string> written;
+  for (const auto& file : files) {
+    const std::string name = file.filename().string();
+    const fs::path target = folder_ / name;
+    if (!staging_.empty() && file.parent_path() == staging_) fs::rename(file, target);
+    out.push_back(target);
+    written.insert(name);
+  }
+  // The previous run's outputs that this run did not write again, except the run's inputs.
+  {
+    std::ifstream manifest(folder_ / manifest_name);
+    for (std::string name; std::getline(manifest, name);) {
+      if (name.empty() || name.find('/') != std::string::npos || name[0] == '.' || written.count(name)) continue;
+      const fs::path old = folder_ / name;
+      const bool input = std::any_of(inputs_.begin(), inputs_.end(), [&](const fs::path& p) { return same_file(p, old); });
+      if (!input) fs::remove(old, ec);
+    }
+  }
+  write_file_atomically(folder_ / manifest_name, [&](std::ostream& o) {
+    for (const auto& name : written) o << name << '\n';
+  });
+  if (!staging_.empty()) fs::remove_all(staging_, ec);
+  staging_.clear();
+  committed_ = true;
+  restore_signals();
+  return out;  // a signal held back arrives when `release` ends (after the handler is restored)
+}
+
+OutputRun::~OutputRun() {
+  std::error_code ec;
+  if (!staging_.empty()) fs::remove_all(staging_, ec);
+  restore_signals();
+  if (!committed_ && created_) {  // a failed run leaves no folder it made
+    fs::remove(folder_ / lock_name, ec);
+    fs::remove(folder_, ec);  // only when empty
+  }
+  if (lock_fd_ >= 0) ::close(lock_fd_);
 }
 
 std::string number_text(double v) {

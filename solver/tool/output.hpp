@@ -26,6 +26,59 @@ namespace trapwork {
 void write_file_atomically(const std::filesystem::path& path,
                            const std::function<void(std::ostream&)>& write);
 
+// One run's hold on its output folder, taken by every command before it computes:
+//  1. refuses an output that would replace an input of the run (the scenario, data files,
+//     table files): inputs and outputs are compared by filesystem identity
+//     (std::filesystem::equivalent), so "out/../out/data.csv" and hard links are caught;
+//  2. creates the folder and opens its lock file ".trapwork-lock": a folder that cannot be
+//     written is refused here, with the OS reason, not after the computation;
+//  3. locks the folder for the run with an advisory lock (flock; the kernel drops it when the
+//     process ends, so a crashed run's lock file never blocks). The file holds pid, host,
+//     command and start time; a second run on the folder says who holds it and stops;
+//  4. the run writes its files into staging(), a hidden folder ".trapwork-new-<pid>" inside the
+//     output folder, and commit() renames them into place with SIGINT and SIGTERM held back, so
+//     the folder holds one whole run: the files of the previous run that this run does not write
+//     again are removed then (the list is kept in ".trapwork-outputs"); files that are not
+//     trapwork's outputs, and inputs of the run, are never touched. A SIGINT or SIGTERM during
+//     the write phase only sets a flag (the handler does nothing else); commit() then discards
+//     the staged files and ends the process by that signal, leaving the previous run in place.
+//     (A SIGKILL or power loss inside the rename loop itself can still mix two runs.)
+// The destructor of a run that did not commit removes its staged files, and the folder too
+// when the run created it and it holds nothing else (a failed run leaves no empty folder).
+class OutputRun {
+ public:
+  struct Input {
+    std::filesystem::path path;
+    std::string what;  // "the scenario", "the data file", "a table file of the scenario"
+  };
+  // `names`: every file name the command may write into the folder; `command`: for the lock
+  // file ("trapwork work model.toml"). Throws InputError naming the folder or the input.
+  OutputRun(std::filesystem::path folder, std::vector<std::string> names, const std::vector<Input>& inputs,
+            std::string command);
+  ~OutputRun();
+  OutputRun(const OutputRun&) = delete;
+  OutputRun& operator=(const OutputRun&) = delete;
+
+  const std::filesystem::path& folder() const { return folder_; }
+  // The staging folder (created, and the signal flag handler installed, on the first call).
+  const std::filesystem::path& staging();
+  // Moves the staged files into the folder (see above); returns the final paths of `files`,
+  // which are staged files or files the run wrote in the folder itself (sweep's resume record).
+  std::vector<std::filesystem::path> commit(const std::vector<std::filesystem::path>& files);
+
+ private:
+  std::filesystem::path folder_, staging_;
+  std::vector<std::string> names_;
+  std::vector<std::filesystem::path> inputs_;
+  int lock_fd_ = -1;
+  bool created_ = false, committed_ = false, handling_ = false;
+  void restore_signals();
+};
+
+// The inputs of a scenario run: the scenario file and the table files it names (potential and
+// ramp tables). The built-in scenario has none.
+std::vector<OutputRun::Input> scenario_inputs(const Scenario& scenario);
+
 // Shortest decimal text that reads back to the same double; "nan", "inf", "-inf" otherwise.
 std::string number_text(double v);
 

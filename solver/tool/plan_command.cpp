@@ -58,6 +58,9 @@ PlanOutcome run_plan_command(const PlanCommand& command, std::ostream& out, std:
                      "a thermal initial state ([initial] temperature or mean_phonons): the Jarzynski estimate "
                      "needs beta = 1/kT",
                      "", scenario.file);
+  OutputRun output(scenario.output_folder,
+                   {"plan.csv", "plan_summary.json", "plan.png", "plan.svg", "synthetic_work.csv"},
+                   scenario_inputs(scenario), "trapwork plan " + scenario.file);
   const ScenarioWork work = model_work(scenario, progress, command.show_progress);
   const WorkRun run = work.run(scenario);
   const WorkDistribution& dist = run.result.distribution;
@@ -165,8 +168,7 @@ PlanOutcome run_plan_command(const PlanCommand& command, std::ostream& out, std:
                         {"target_kT", command.target_kT ? json(*command.target_kT) : json(nullptr)},
                         {"runs_needed", needed}};
 
-  const fs::path folder = scenario.output_folder;
-  fs::create_directories(folder);
+  const fs::path folder = output.staging();
   write_file_atomically(folder / "plan.csv", [&](std::ostream& o) { write_csv(o, table); });
   write_file_atomically(folder / "plan_summary.json", [&](std::ostream& o) { o << summary.dump(2) << '\n'; });
   outcome.files = {folder / "plan.csv", folder / "plan_summary.json"};
@@ -177,6 +179,7 @@ PlanOutcome run_plan_command(const PlanCommand& command, std::ostream& out, std:
     write_synthetic(folder / "synthetic_work.csv", scenario, samples, resolutions.front(), command.seed);
     outcome.files.push_back(folder / "synthetic_work.csv");
   }
+  outcome.files = output.commit(outcome.files);
   if (command.quiet) return outcome;
 
   print_scenario_header(out, "plan", scenario);

@@ -14,6 +14,7 @@
 #include <sstream>
 
 #include "solver/errors.hpp"
+#include "solver/tool/data_files.hpp"
 
 namespace trapwork {
 
@@ -212,10 +213,12 @@ class Reader {
   void read_term(const toml::table& t, int index, Scenario& s);
   void read_soft_walls(const toml::table& box, Scenario& s);
   // Two columns of numbers (x and V, or t and value), the first strictly increasing, times the
-  // given unit factors; one header line of names may come first; '#' starts a comment.
+  // given unit factors; one header line of names may come first (a line with no number at
+  // all, data_files.hpp); '#' starts a comment. `skipped` gets what was not data, for the report.
   PotentialTable read_table_file(const toml::node& file_node, const std::string& dotted, double x_per_unit,
                                  double v_per_unit,
-                                 const std::array<std::string, 2>& names = {"x", "V"}) const;
+                                 const std::array<std::string, 2>& names = {"x", "V"},
+                                 std::string* skipped = nullptr) const;
   void read_box_and_grid(const toml::table& root, Scenario& s);
   void read_spectrum(const toml::table& root, Scenario& s);
 
@@ -328,58 +331,43 @@ void Reader::read_units(const toml::table& root, Scenario& s) {
 
 PotentialTable Reader::read_table_file(const toml::node& file_node, const std::string& dotted,
                                        double x_per_unit, double v_per_unit,
-                                       const std::array<std::string, 2>& names) const {
+                                       const std::array<std::string, 2>& names, std::string* skipped) const {
   const fs::path path = (base_ / fs::path(file_node.as_string()->get())).lexically_normal();
-  std::ifstream in(path);
-  if (!in) fail(file_node, dotted, "a readable data file (looked for " + path.string() + ")");
+  std::ifstream in(path, std::ios::binary);
+  if (!in || fs::is_directory(path)) fail(file_node, dotted, "a readable data file (looked for " + path.string() + ")");
+  std::ostringstream text;
+  text << in.rdbuf();
   const std::string data_file = path.string();
   const std::string pair = names[0] + " and " + names[1];
+  // The shared table reader (data_files.hpp): a UTF-8 byte-order mark is dropped, and the first
+  // line is a header only when it holds no number at all; a data row with a typo is an error.
+  TextTable rows;
+  try {
+    rows = split_table(text.str(), data_file, 2);
+  } catch (const InputError& e) {
+    throw InputError(dotted, e.found,
+                     e.expected + " (a table file holds two numbers per row, " + pair +
+                         ", separated by a comma or spaces)",
+                     "", e.file, e.line, e.column);
+  }
+  if (skipped) *skipped = rows.skipped();
   PotentialTable table;
-  std::string line;
-  bool header_allowed = true;
-  for (int line_number = 1; std::getline(in, line); ++line_number) {
-    const std::string text = line.substr(0, line.find('#'));
-    if (text.find_first_not_of(" \t\r") == std::string::npos) continue;
-    // Fields separated by commas, or else by whitespace; remember where each starts.
-    std::vector<std::pair<std::string, int>> fields;
-    const bool commas = text.find(',') != std::string::npos;
-    std::size_t pos = 0;
-    while (pos <= text.size()) {
-      std::size_t end = commas ? text.find(',', pos) : text.find_first_of(" \t\r", pos);
-      if (end == std::string::npos) end = text.size();
-      std::string field = text.substr(pos, end - pos);
-      const std::size_t b = field.find_first_not_of(" \t\r");
-      const std::size_t e = field.find_last_not_of(" \t\r");
-      if (b != std::string::npos)
-        fields.emplace_back(field.substr(b, e - b + 1), int(pos + b + 1));
-      else if (commas)
-        fields.emplace_back("", int(pos + 1));
-      pos = end + 1;
-    }
-    const std::string row = text.substr(0, text.find_last_not_of(" \t\r") + 1);
+  for (const TableRow& r : rows.rows) {
     auto bad = [&](int column, const std::string& expected) {
-      throw InputError(dotted, row, expected, "", data_file, line_number, column);
+      std::string row;
+      for (const auto& f : r.fields) row += (row.empty() ? "" : ", ") + f.text;
+      throw InputError(dotted, row, expected, "", data_file, r.line, column);
     };
     double values[2];
-    bool numeric = fields.size() == 2;
-    for (std::size_t i = 0; numeric && i < 2; ++i) {
+    for (std::size_t i = 0; i < 2; ++i) {
+      const std::string& f = r.fields[i].text;
       char* end = nullptr;
-      values[i] = std::strtod(fields[i].first.c_str(), &end);
-      numeric = !fields[i].first.empty() && *end == '\0';
+      values[i] = std::strtod(f.c_str(), &end);
+      if (f.empty() || *end != '\0') bad(r.fields[i].column, "two numbers per row, " + pair);
+      if (!std::isfinite(values[i])) bad(r.fields[i].column, "finite numbers");
     }
-    if (!numeric && header_allowed && fields.size() == 2) {
-      header_allowed = false;  // one line of column names may come first
-      continue;
-    }
-    header_allowed = false;
-    if (fields.size() != 2)
-      bad(1, "two numbers per row, " + pair + " (separated by a comma or spaces), not " +
-                 std::to_string(fields.size()) + " fields");
-    if (!numeric) bad(fields[0].second, "two numbers per row, " + pair);
-    for (int i = 0; i < 2; ++i)
-      if (!std::isfinite(values[i])) bad(fields[i].second, "finite numbers");
     if (!table.x.empty() && !(values[0] * x_per_unit > table.x.back()))
-      bad(fields[0].second, names[0] + " larger than on the row before (" + names[0] + " must increase strictly)");
+      bad(r.fields[0].column, names[0] + " larger than on the row before (" + names[0] + " must increase strictly)");
     table.x.push_back(values[0] * x_per_unit);
     table.v.push_back(values[1] * v_per_unit);
   }
@@ -466,8 +454,10 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
       const double x_per = unit_at(*setting("x_unit", true), prefix + ".x_unit", Dimension::length());
       const double v_per =
           energy_unit_at(*setting("energy_unit", true), prefix + ".energy_unit").internal_per_unit;
-      PotentialTable data = read_table_file(*file, prefix + ".file", x_per, v_per);
+      std::string skipped;
+      PotentialTable data = read_table_file(*file, prefix + ".file", x_per, v_per, {"x", "V"}, &skipped);
       record.settings.emplace_back("rows", std::to_string(data.x.size()));
+      if (!skipped.empty()) record.settings.emplace_back("skipped", skipped);
       s.potential.add(Term::tabulated(record.name, std::move(data), parameters));
     } else if (*shape == Shape::formula) {
       const toml::node* expression = setting("expression", true);
@@ -1165,6 +1155,7 @@ Scenario Reader::read(const toml::table& root) {
 }  // namespace
 
 Scenario read_scenario_text(std::string_view toml_text, std::string file_name) {
+  toml_text = without_byte_order_mark(toml_text);
   toml::table root;
   try {
     root = toml::parse(toml_text, file_name);
@@ -1177,13 +1168,7 @@ Scenario read_scenario_text(std::string_view toml_text, std::string file_name) {
 }
 
 Scenario read_scenario(const std::string& path) {
-  std::ifstream in(path, std::ios::binary);
-  if (!in || fs::is_directory(path))
-    throw InputError("", "", fs::is_directory(path) ? "cannot open the scenario file: it is a folder"
-                                                    : "cannot open the scenario file", "", path);
-  std::ostringstream text;
-  text << in.rdbuf();
-  return read_scenario_text(text.str(), path);
+  return read_scenario_text(read_text_file(path, "the scenario file"), path);
 }
 
 namespace {

@@ -149,6 +149,8 @@ void run_work_command(const WorkCommand& command, std::ostream& out, std::ostrea
   if (!command.output.empty()) scenario.output_folder = command.output;
   (void)build_protocol(scenario);  // a missing [protocol] is reported before a missing [initial]
   WorkRequest request = work_request(scenario);
+  OutputRun output(scenario.output_folder, work_output_names(), scenario_inputs(scenario),
+                   "trapwork work " + scenario.file);
   std::optional<ToleranceChoice> choice;
   std::optional<ScenarioWork> direct;
   if (command.tolerance) {
@@ -172,7 +174,7 @@ void run_work_command(const WorkCommand& command, std::ostream& out, std::ostrea
   const Scenario& used = choice ? choice->scenario : scenario;
   WorkRun run = choice ? choice->work->run(used) : direct->run(used);
   run.tolerance = choice ? &*choice : nullptr;
-  const auto files = write_work_outputs(scenario.output_folder, run);
+  const auto files = output.commit(write_work_outputs(output.staging(), run));
   if (command.quiet) return;
   print_work_report(out, run);
   print_files(out, files);
@@ -237,8 +239,11 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
   const std::size_t points = sweep.values.size();
   const unsigned cores = std::max(1u, std::thread::hardware_concurrency());
   const std::size_t jobs = std::min<std::size_t>(points, command.jobs > 0 ? std::size_t(command.jobs) : cores);
+  // sweep.csv and sweep-points.txt are written in the folder itself as points finish (the
+  // record --resume reads); the figures go through the staging folder.
+  OutputRun output(scenario.output_folder, {"sweep.csv", "sweep-points.txt", "sweep.png", "sweep.svg"},
+                   scenario_inputs(scenario), "trapwork sweep " + scenario.file);
   const std::filesystem::path folder = scenario.output_folder;
-  std::filesystem::create_directories(folder);
 
   // --resume: the points an earlier run of the same scenario finished are kept, the rest run.
   const std::string fingerprint = sweep_fingerprint(scenario);
@@ -326,7 +331,8 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
              << "again)\n";
 
   std::vector<std::filesystem::path> files = {folder / "sweep.csv", points_file};
-  for (const auto& p : plot_sweep_figure(folder, scenario, rows)) files.push_back(p);
+  for (const auto& p : plot_sweep_figure(output.staging(), scenario, rows)) files.push_back(p);
+  files = output.commit(files);
   if (command.quiet) return;
 
   print_scenario_header(out, "sweep", scenario);

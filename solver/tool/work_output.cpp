@@ -886,6 +886,12 @@ WorkFigure work_figure(const WorkRun& run) {
 
 }  // namespace
 
+std::vector<std::string> work_output_names() {
+  return {"lines.csv",      "histogram.csv", "density.csv",   "transition.csv", "reverse_lines.csv",
+          "characteristic.csv", "summary.json", "potential.png", "potential.svg", "work.png",
+          "work.svg"};
+}
+
 std::vector<fs::path> write_work_outputs(const fs::path& folder, const WorkRun& run) {
   fs::create_directories(folder);
   // Everything is assembled before the first file is opened.

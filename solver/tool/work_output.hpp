@@ -133,6 +133,8 @@ nlohmann::ordered_json work_summary(const WorkRun& run);
 // `folder` (created if missing); returns their paths. Everything is computed before the first
 // file is opened; every file is written atomically.
 std::vector<std::filesystem::path> write_work_outputs(const std::filesystem::path& folder, const WorkRun& run);
+// Every name write_work_outputs may write (for OutputRun).
+std::vector<std::string> work_output_names();
 
 // The readable report: scenario header, protocol, initial state, grid and method, the work
 // statistics, fluctuation relations, harmonic reference, diagnostics, warnings and the
