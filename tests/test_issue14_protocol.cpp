@@ -7,6 +7,7 @@
 #include <set>
 
 #include "solver/errors.hpp"
+#include "solver/moving_wall.hpp"
 #include "solver/tool/scenario.hpp"
 #include "solver/tool/work_output.hpp"
 #include "solver/work.hpp"
@@ -172,4 +173,30 @@ TEST_CASE("issue 14: a --tolerance search at its cost bound stops with its verif
   CHECK(first.bound_reached);
   CHECK(first.trail.size() == 1);
   CHECK(std::isnan(first.estimate()));
+}
+
+TEST_CASE("issue 14: moving walls with a formula inside that uses t: H_B at tau, as the same ramp",
+          "[issue14][walls][formula]") {
+  // a box [0, 1] -> [0, 1.5] with a tilt V = s(t) x inside, s(t) = 20 t/tau, tau = 0.5
+  const double tau = 0.5;
+  WallWorkRequest r;
+  r.initial = InitialState::thermal(0.05);
+  r.points = 127;
+  r.steps = 200;
+  r.max_initial_levels = 12;
+  r.grid_check = false;
+  r.time_step_check = false;
+  const WallProtocol explicit_t(tau, Schedule::constant("walls.left", 0), Schedule::linear("walls.right", 1, 1.5),
+                                Potential({Term::formula("tilt", "20*x*t/0.5")}));
+  const WallProtocol scheduled(tau, Schedule::constant("walls.left", 0), Schedule::linear("walls.right", 1, 1.5),
+                               Potential({Term::formula("tilt", "s*x", {{"s", 0.0}})}),
+                               {Schedule::linear("tilt.s", 0, 20)});
+  const WallWorkResult a = run_wall_work(explicit_t, r), b = run_wall_work(scheduled, r);
+  // before the fix H_B was the untilted box (E_0^B about pi^2/(2 1.5^2) = 2.19) in the first
+  REQUIRE(a.work.final_spectrum.energies.size() > 2);
+  CHECK(a.work.final_spectrum.energies[0] == Approx(b.work.final_spectrum.energies[0]).epsilon(1e-10));
+  CHECK(a.work.distribution.mean == Approx(b.work.distribution.mean).margin(1e-9));
+  CHECK(a.work.distribution.free_energy_change == Approx(b.work.distribution.free_energy_change).margin(1e-9));
+  REQUIRE(a.work.reverse_distribution);
+  CHECK(a.work.reverse_distribution->mean == Approx(b.work.reverse_distribution->mean).margin(1e-9));
 }

@@ -850,6 +850,7 @@ void Reader::check_protocol(const Scenario& s, const toml::node& where, const st
     for (int i = 0; i <= 64; ++i) (void)p.at(s.potential, p.duration() * i / 64);
     if (moves_walls(s)) (void)build_wall_protocol(s);
   } catch (const InputError& e) {
+    if (!e.file.empty()) throw;  // located already (check_soft_walls)
     fail(where, key, "a protocol the potential accepts: " + e.key + " = " + e.found + ": " + e.expected);
   } catch (const PhysicsError& e) {
     fail(where, key, std::string("walls that stay apart: ") + e.what());
