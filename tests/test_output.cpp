@@ -79,3 +79,40 @@ TEST_CASE("unit names become column-name parts", "[output]") {
   CHECK(column_unit("hbar*omega") == "hbar_omega");
   CHECK(column_unit("natural") == "natural");
 }
+
+// Issue 14: with [units] natural = true the header and summary.json say what a bare number
+// means in lab units; without it they say nothing about natural units.
+TEST_CASE("issue 14: natural units are stated in the header and the summary", "[output]") {
+  const std::string text = R"([particle]
+mass = "40 u"
+[units]
+natural = true
+[[potential]]
+name = "trap"
+shape = "harmonic"
+frequency = "1 MHz"
+centre = 2
+)";
+  const Scenario s = read_scenario_text(text, "natural.toml");
+  std::ostringstream header;
+  print_scenario_header(header, "spectrum", s);
+  // L0 = sqrt(hbar/(m omega)) = 15.9 nm for 40 u at 1 MHz; E0 = hbar omega = h*1 MHz; T0 = 1/omega
+  CHECK_THAT(header.str(), Catch::Contains("natural     bare numbers in the file: hbar = m = 1 (m = 40 u), length L0 = 15.8962 nm") &&
+                               Catch::Contains("= hbar*omega_ref (f_ref = 1 MHz)") && Catch::Contains("= 1/omega_ref") &&
+                               Catch::Contains("time m L0^2/hbar = 159.155 ns"));
+  const auto units = units_json(s);
+  CHECK(units.at("natural").at("used") == true);
+  CHECK(units.at("natural").at("meaning").get<std::string>().find("length L0 = 15.8962 nm") != std::string::npos);
+
+  const Scenario lab = read_scenario_text(R"([particle]
+mass = "40 u"
+[[potential]]
+name = "trap"
+shape = "harmonic"
+frequency = "1 MHz"
+)", "lab.toml");
+  std::ostringstream plain;
+  print_scenario_header(plain, "spectrum", lab);
+  CHECK_THAT(plain.str(), !Catch::Contains("natural"));
+  CHECK(units_json(lab).at("natural").at("used") == false);
+}

@@ -147,6 +147,20 @@ nlohmann::ordered_json potential_json(const Scenario& scenario) {
   return terms;
 }
 
+std::string natural_units_text(const Scenario& scenario) {
+  const UnitSystem& u = scenario.units;
+  std::string text = "hbar = m = 1 (m = " + short_number(u.mass_kg / si::atomic_mass) + " u), length L0 = " +
+                     lab_text(u.length_m, Dimension::length()) + ", energy hbar^2/(m L0^2) = " +
+                     lab_text(u.energy_J(), Dimension::energy());
+  if (scenario.reference_frequency_Hz)
+    text += " = hbar*omega_ref (f_ref = " + lab_text(*scenario.reference_frequency_Hz, Dimension::frequency()) + ")";
+  text += ", time m L0^2/hbar = " + lab_text(u.time_s(), Dimension::time());
+  if (scenario.reference_frequency_Hz) text += " = 1/omega_ref";
+  text += ", temperature (energy unit)/kB = " + lab_text(u.energy_J() / si::boltzmann, Dimension::temperature());
+  text += "; frequencies angular (omega, in 1/time)";
+  return text;
+}
+
 nlohmann::ordered_json units_json(const Scenario& scenario) {
   using json = nlohmann::ordered_json;
   const Display d = display(scenario);
@@ -163,7 +177,10 @@ nlohmann::ordered_json units_json(const Scenario& scenario) {
             {"time_s", u.time_s()},
             {"reference_frequency_Hz",
              scenario.reference_frequency_Hz ? json(*scenario.reference_frequency_Hz) : json(nullptr)},
-            {"omega_ref", scenario.omega_ref}}}};
+            {"omega_ref", scenario.omega_ref}}},
+          {"natural",
+           {{"used", scenario.natural_units},
+            {"meaning", scenario.natural_units ? json(natural_units_text(scenario)) : json(nullptr)}}}};
 }
 
 void print_row(std::ostream& out, const std::string& label, const std::string& text) {
@@ -180,9 +197,10 @@ void print_scenario_header(std::ostream& out, const std::string& command, const 
   print_row(out, "particle",
             "mass " + short_number(u.mass_kg / si::atomic_mass) + " u (" + short_number(u.mass_kg) + " kg)");
   print_row(out, "units",
-            "L0 = " + short_number(u.length_m * 1e9) + " nm, E0 = h*" +
-                short_number(u.energy_J() / si::planck_h / 1e3) + " kHz, T0 = " + short_number(u.time_s() * 1e6) +
-                " us; energies shown in " + d.e);
+            "internal L0 = " + lab_text(u.length_m, Dimension::length()) + ", E0 = hbar^2/(m L0^2) = " +
+                lab_text(u.energy_J(), Dimension::energy()) + ", T0 = " + lab_text(u.time_s(), Dimension::time()) +
+                "; energies shown in " + d.e);
+  if (scenario.natural_units) print_row(out, "natural", "bare numbers in the file: " + natural_units_text(scenario));
   for (const auto& term : scenario.terms) {
     std::string text = term.name + ": " + term.shape;
     for (const auto& p : term.parameters) text += ", " + p.name + " = " + p.given;

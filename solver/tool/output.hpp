@@ -63,6 +63,9 @@ nlohmann::ordered_json grid_json(const Grid& g, const Display& d);
 // The [[potential]] terms as given (text, SI and internal values) and the unit system.
 nlohmann::ordered_json potential_json(const Scenario& scenario);
 nlohmann::ordered_json units_json(const Scenario& scenario);
+// What a bare number means in a scenario with [units] natural = true: "hbar = m = 1 (m = 40 u),
+// length L0 = 15.9 nm, energy ... = h*1 MHz = hbar*omega_ref, time ..." (lab units).
+std::string natural_units_text(const Scenario& scenario);
 // One report line: "  label       text".
 void print_row(std::ostream& out, const std::string& label, const std::string& text);
 // "trapwork <command>: <title>", then scenario, particle, units, potential and box lines.

@@ -49,12 +49,12 @@ std::string found_text(const toml::node& n) {
   if (n.is_array()) return n.is_array_of_tables() ? "an array of tables" : "an array";
   if (const auto* i = n.as_integer()) return std::to_string(i->get());
   if (const auto* b = n.as_boolean()) return b->get() ? "true" : "false";
-  std::ostringstream os;
-  if (const auto* f = n.as_floating_point())
-    os << *f;
-  else
-    os << "a date or time";
-  return os.str();
+  if (const auto* f = n.as_floating_point()) {
+    char buffer[32];  // shortest text that reads back (65e-6 -> 6.5e-05)
+    const auto r = std::to_chars(buffer, buffer + sizeof buffer, f->get());
+    return std::string(buffer, r.ptr);
+  }
+  return "a date or time";
 }
 
 bool is_identifier(const std::string& s) {
@@ -80,6 +80,7 @@ class Reader {
   fs::path base_;
   UnitSystem units_;
   double omega_ref_ = 0;
+  bool natural_ = false;  // [units] natural = true: bare numbers are internal values
 
   [[noreturn]] void fail(const toml::source_region& where, const std::string& key, const std::string& found,
                          const std::string& expected, const std::string& suggestion = {}) const {
@@ -138,22 +139,35 @@ class Reader {
     return n->as_boolean()->get();
   }
 
-  // The quantity at a node: a string with a unit, or a plain number (internal units).
+  // The quantity at a node: a string with a unit, or a plain number. A plain number for a
+  // dimensional quantity is refused unless the scenario says [units] natural = true: it would
+  // be read in the scenario's internal units, which differ from file to file.
   Quantity quantity(const toml::node& n, const std::string& dotted, Dimension d) const {
-    if (n.is_integer()) return {static_cast<double>(n.as_integer()->get()), {}, true};
-    if (n.is_floating_point()) {
-      const double v = n.as_floating_point()->get();
-      if (!std::isfinite(v)) fail(n, dotted, "a finite number");
-      return {v, {}, true};
-    }
-    if (!n.is_string())
+    Quantity q;
+    if (n.is_integer()) {
+      q = {static_cast<double>(n.as_integer()->get()), {}, true};
+    } else if (n.is_floating_point()) {
+      q = {n.as_floating_point()->get(), {}, true};
+      if (!std::isfinite(q.si_value)) fail(n, dotted, "a finite number");
+    } else if (!n.is_string()) {
       fail(n, dotted,
-           expected_quantity(d) + " as a string with its unit, or a plain number in internal units");
-    try {
-      return parse_quantity(n.as_string()->get());
-    } catch (const InputError& e) {
-      fail(n, dotted, e.expected, e.suggestion);
+           expected_quantity(d) + " as a string with its unit" +
+               (natural_ ? ", or a plain number in natural units" : std::string()));
+    } else {
+      try {
+        q = parse_quantity(n.as_string()->get());
+      } catch (const InputError& e) {
+        fail(n, dotted, e.expected, e.suggestion);
+      }
     }
+    // a bare number, with or without quotes
+    if (q.plain && !(d == Dimension::none()) && !natural_)
+      fail(n, dotted,
+           expected_quantity(d) + " with its unit in quotes; a bare number would be read in this "
+           "scenario's internal units (hbar = m = 1, here " + found_text(n) + " would mean " +
+               lab_text(units_.to_si(q.si_value, d), d, 3) +
+               "); to give values in internal units, write [units] natural = true");
+    return q;
   }
 
   // An SI value that must carry a unit (mass, and what sets the unit system).
@@ -161,8 +175,14 @@ class Reader {
                          const std::string& why) const {
     const toml::node* n = t.get(key);
     if (!n) return std::nullopt;
-    const Quantity q = quantity(*n, dotted, d);
-    if (q.plain) fail(*n, dotted, expected_quantity(d) + " with its unit: " + why);
+    if (!n->is_string() && !n->is_number()) (void)quantity(*n, dotted, d);  // the wrong-type message
+    Quantity q;
+    if (n->is_string()) try {
+        q = parse_quantity(n->as_string()->get());
+      } catch (const InputError& e) {
+        fail(*n, dotted, e.expected, e.suggestion);
+      }
+    if (!n->is_string() || q.plain) fail(*n, dotted, expected_quantity(d) + " with its unit: " + why);
     if (!(q.dimension == d)) fail(*n, dotted, expected_quantity(d) + ", not " + with_article(q.dimension));
     return Read{q.si_value, n->as_string()->get(), n};
   }
@@ -272,7 +292,9 @@ void Reader::read_units(const toml::table& root, Scenario& s) {
   const toml::table* units = table(root, "units");
   static const toml::table empty;
   if (!units) units = &empty;
-  check_keys(*units, "units", {"reference_frequency", "length", "energy"});
+  check_keys(*units, "units", {"reference_frequency", "length", "energy", "natural"});
+  natural_ = boolean(*units, "natural", "units.natural").value_or(false);
+  s.natural_units = natural_;
   std::optional<Read> frequency = si(*units, "reference_frequency", "units.reference_frequency",
                                      Dimension::frequency(), "it sets the unit system");
   std::string frequency_key = "units.reference_frequency";
