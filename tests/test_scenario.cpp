@@ -646,3 +646,21 @@ value_unit = "nm"
     CHECK_THAT(e.what(), Catch::Contains("covering the protocol"));
   }
 }
+
+// Issue 14: library messages about a scenario say lengths and energies in its lab units.
+TEST_CASE("issue 14: a potential that does not confine is described in lab units", "[scenario]") {
+  const Scenario s = read_scenario_text(replace(ion, "\"harmonic\"", "\"polynomial\"") + "quartic = \"-1 h*Hz/nm^4\"\n",
+                                        "open.toml");
+  std::string message;
+  try {
+    (void)compute_spectrum(s.potential, s.spectrum);
+  } catch (const PhysicsError& e) {
+    message = e.what();
+  }
+  // the search window is 500 oscillator lengths either side: 500 * 15.9 nm = 7.95 um
+  const double half_um = 500 * s.units.length_m * 1e6;
+  char window[80];
+  std::snprintf(window, sizeof window, "search window from %.6g um to %.6g um", -half_um, half_um);
+  CHECK_THAT(message, Catch::Contains(window) && Catch::Contains(" h*kHz)"));
+  CHECK_THAT(message, !Catch::Contains("[-500, 500]"));
+}

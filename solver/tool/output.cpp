@@ -136,7 +136,7 @@ nlohmann::ordered_json potential_json(const Scenario& scenario) {
     json parameters = json::object();
     for (const auto& p : term.parameters)
       parameters[p.name] = {{"given", p.given},
-                            {"si", u.to_si(p.internal, p.dimension)},
+                            {"si", conversion_rounded(u.to_si(p.internal, p.dimension))},
                             {"si_unit", si_unit(p.dimension)},
                             {"internal", p.internal}};
     json settings = json::object();
@@ -337,7 +337,7 @@ nlohmann::ordered_json spectrum_summary(const Scenario& scenario, const Spectrum
       {"harmonic_approximation",
        {{"x_min", d.length(h.x_min)},
         {"v_min", d.energy(h.v_min)},
-        {"frequency_Hz", u.to_si(h.omega, Dimension::frequency())},
+        {"frequency_Hz", conversion_rounded(u.to_si(h.omega, Dimension::frequency()))},
         {"omega_internal", h.omega}}},
       {"warnings", result.warnings},
       {"levels", levels},
@@ -386,7 +386,7 @@ void print_spectrum_report(std::ostream& out, const Scenario& scenario, const Sp
   char line[256];
   const std::string e = "[" + d.e + "]";
   std::snprintf(line, sizeof line, "%4s %18s %16s %14s %14s %11s %11s %5s %9s\n", "n", ("E " + e).c_str(),
-                "E - E0", "spacing", "shift vs harm.", "<x> [um]", "width [um]", "bound", "residual");
+                "E - E(n=0)", "spacing", "shift vs harm.", "<x> [um]", "width [um]", "bound", "residual");
   out << line;
   const double e0 = result.levels.empty() ? 0 : result.levels.front().energy;
   for (std::size_t n = 0; n < result.levels.size(); ++n) {
@@ -401,7 +401,7 @@ void print_spectrum_report(std::ostream& out, const Scenario& scenario, const Sp
     out << line;
   }
   if (!result.warnings.empty()) {
-    out << "\nwarnings (values in internal units, E0 and L0 above):\n";
+    out << "\nwarnings:\n";
     for (const auto& w : result.warnings) out << "  - " << w << '\n';
   }
 }

@@ -48,8 +48,8 @@ struct Display {
   double um;          // internal length of one micrometre
   std::string e;      // display energy unit
   std::string e_col;  // "_h_kHz"
-  double energy(double internal) const { return internal / energy_per; }
-  double length(double internal) const { return internal / um; }
+  double energy(double internal) const { return conversion_rounded(internal / energy_per); }
+  double length(double internal) const { return conversion_rounded(internal / um); }
 };
 Display display(const Scenario& s);
 

@@ -812,9 +812,9 @@ ChangeSpec Reader::read_change(const toml::table& t, const std::string& prefix, 
     PotentialTable data = read_table_file(file, prefix + ".file", t_per, v_per, {"t", "value"});
     if (data.x.front() > 0 || data.x.back() < tau)
       fail(file, prefix + ".file",
-           "a table covering the protocol from t = 0 to the duration (" + exact_text(tau / t_per) + " " +
-               c.time_unit + "); it runs from " + exact_text(data.x.front() / t_per) + " to " +
-               exact_text(data.x.back() / t_per) + " " + c.time_unit);
+           "a table covering the protocol from t = 0 to the duration (" + exact_text(conversion_rounded(tau / t_per)) + " " +
+               c.time_unit + "); it runs from " + exact_text(conversion_rounded(data.x.front() / t_per)) + " to " +
+               exact_text(conversion_rounded(data.x.back() / t_per)) + " " + c.time_unit);
     c.times = std::move(data.x);
     c.values = std::move(data.v);
     return c;
@@ -842,6 +842,11 @@ void Reader::check_protocol(const Scenario& s, const toml::node& where, const st
     if (moves_walls(s)) (void)build_wall_protocol(s);
   } catch (const InputError& e) {
     fail(where, key, "a protocol the potential accepts: " + e.key + " = " + e.found + ": " + e.expected);
+  } catch (const WallsMeetError& e) {
+    MessageUnits units{s.units, s.energy, duration_unit(s)};
+    fail(where, key,
+         "walls that stay apart: the box width b - a = " + units(e.width, Dimension::length()) + " at t = " +
+             units(e.time, Dimension::time()) + " is not positive; the walls must not meet or cross");
   } catch (const PhysicsError& e) {
     fail(where, key, std::string("walls that stay apart: ") + e.what());
   }
@@ -1088,7 +1093,7 @@ void Reader::read_sweep(const toml::table& root, Scenario& s) const {
   }
   if (!values->is_array() && !w.unit.empty())
     for (std::size_t i = 0; i < w.values.size(); ++i)
-      w.given[i] = exact_text(w.values[i] / w.internal_per_unit) + " " + w.unit;
+      w.given[i] = exact_text(conversion_rounded(w.values[i] / w.internal_per_unit)) + " " + w.unit;
   s.sweep = std::move(w);
   // Every point must give a usable protocol and potential.
   for (std::size_t i = 0; i < s.sweep->values.size(); ++i) {
@@ -1123,8 +1128,10 @@ Scenario Reader::read(const toml::table& root) {
 
   read_box_and_grid(root, s);
   read_spectrum(root, s);
+  s.spectrum.message_units = {s.units, s.energy};  // library messages in lab units
   read_parameter_slots(s);
   read_protocol(root, s);
+  s.spectrum.message_units.time_unit = duration_unit(s);
   read_initial(root, s);
   read_work(root, s);
   read_sweep(root, s);
@@ -1165,6 +1172,20 @@ Scenario read_scenario(const std::string& path) {
   std::ostringstream text;
   text << in.rdbuf();
   return read_scenario_text(text.str(), path);
+}
+
+std::string duration_unit(const Scenario& s) {
+  if (!s.protocol) return {};
+  const std::string& given = s.protocol->duration_given;
+  char* end = nullptr;
+  std::strtod(given.c_str(), &end);
+  std::string unit = end ? std::string(end) : std::string();
+  unit.erase(0, std::min(unit.size(), unit.find_first_not_of(" \t")));
+  try {
+    if (!unit.empty() && parse_quantity("1 " + unit).dimension == Dimension::time()) return unit;
+  } catch (const InputError&) {
+  }
+  return {};
 }
 
 namespace {

@@ -173,6 +173,10 @@ WorkRequest work_request(const Scenario& s);
 // potential parameter or a change's end value). Requires s.sweep.
 Scenario at_sweep_point(const Scenario& s, std::size_t index);
 
+// The time unit protocol.duration was written in ("ms" for "4 ms"); "" without a protocol or
+// for a bare (natural) duration. Reports and messages give times in it.
+std::string duration_unit(const Scenario& s);
+
 // Internal length of one micrometre: lengths in output tables are in um.
 inline double internal_per_um(const Scenario& s) {
   return 1e-6 / s.units.length_m;

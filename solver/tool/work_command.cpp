@@ -21,11 +21,13 @@ namespace trapwork {
 
 namespace {
 
-// Says which scenario (and sweep point) the physics could not handle.
+// Says which scenario (and sweep point) the physics could not handle, in its lab units.
 template <class F>
-auto naming_scenario(const std::string& where, F&& f) {
+auto naming_scenario(const std::string& where, const Scenario& scenario, F&& f) {
   try {
     return f();
+  } catch (const NonFinitePotentialError& e) {
+    throw PhysicsError(where + ": " + e.describe(scenario.spectrum.message_units));
   } catch (const PhysicsError& e) {
     throw PhysicsError(where + ": " + e.what());
   }
@@ -132,12 +134,12 @@ void run_work_command(const WorkCommand& command, std::ostream& out, std::ostrea
   if (command.tolerance) {
     if (!(*command.tolerance > 0 && *command.tolerance < 1))
       throw InputError("--tolerance", short_number(*command.tolerance), "a bound between 0 and 1 (e.g. 1e-4)");
-    choice = naming_scenario(scenario.file,
+    choice = naming_scenario(scenario.file, scenario,
                              [&] { return compute_work_to_tolerance(scenario, request, *command.tolerance); });
   } else {
     ProgressBar bar("propagating", 1000, progress, command.show_progress);
     request.progress = [&bar](double fraction) { bar.update(std::size_t(fraction * 1000)); };
-    direct = naming_scenario(scenario.file, [&] { return compute_work(scenario, request); });
+    direct = naming_scenario(scenario.file, scenario, [&] { return compute_work(scenario, request); });
     bar.finish();
   }
   const Scenario& used = choice ? choice->scenario : scenario;
@@ -249,7 +251,7 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
         request.threads = 1;
         request.spectrum.options.memo = memo;
         const ScenarioWork work = naming_scenario(
-            scenario.file + ": sweep point " + sweep.parameter + " = " + sweep.given[i],
+            scenario.file + ": sweep point " + sweep.parameter + " = " + sweep.given[i], point,
             [&] { return compute_work(point, request); });
         const SweepRow row = sweep_row(work.run(point), sweep.values[i]);
         std::lock_guard lock(mutex);
