@@ -92,8 +92,9 @@ WallProtocol::WallProtocol(double tau, Schedule left, Schedule right, Potential 
     const double t = tau_ * i / samples;
     const double l = tau_ > 0 ? walls(t).length() : (i == 0 ? initial_walls().length() : final_walls().length());
     if (!(l > 0))
-      throw PhysicsError("moving walls: the box width b - a = " + fmt(l) + " at t = " + fmt(t) +
-                         " is not positive; the walls must not meet or cross");
+      throw WallsMeetError("moving walls: the box width b - a = " + fmt(l) + " L0 at t = " + fmt(t) +
+                               " T0 is not positive; the walls must not meet or cross",
+                           t, l);
   }
 }
 

@@ -26,6 +26,7 @@
 
 #include "potentials/potential.hpp"
 #include "potentials/protocol.hpp"
+#include "solver/errors.hpp"
 #include "solver/grid.hpp"
 #include "solver/propagator.hpp"
 #include "solver/work.hpp"
@@ -44,10 +45,18 @@ struct WallState {
 // the box, itself optionally scheduled (its own Protocol over the same tau). The wall schedules'
 // addresses must be "<name>.left" and "<name>.right" with one name (say "walls"): the same
 // schedules then drive a soft-wall Potential term of that name (soft_walls()).
+// The walls meet or cross: b - a = width <= 0 at `time` (internal units, kept so that the
+// tool can say them in lab units).
+struct WallsMeetError : PhysicsError {
+  double time, width;
+  WallsMeetError(const std::string& what, double time_, double width_)
+      : PhysicsError(what), time(time_), width(width_) {}
+};
+
 class WallProtocol {
  public:
   // Throws InputError for mismatched addresses, tau < 0, or an inner schedule the inner
-  // potential does not have; PhysicsError if L(t) <= 0 anywhere (checked at 1025 equally
+  // potential does not have; WallsMeetError if L(t) <= 0 anywhere (checked at 1025 equally
   // spaced times, ends included).
   WallProtocol(double tau, Schedule left, Schedule right, Potential inner = {},
                std::vector<Schedule> inner_schedules = {});

@@ -91,13 +91,42 @@ std::string format_number(double value) {
   return text;
 }
 
+namespace {
+std::string non_finite_text(const std::string& coordinate, Dimension d, double position, double time, bool nan,
+                            const MessageUnits& units) {
+  return "potential at " + coordinate + " = " + units(position, d) + " is " + (nan ? "NaN" : "infinite") +
+         " at t = " + units(time, Dimension::time()) + ": the potential or its schedule is singular there";
+}
+}  // namespace
+
+NonFinitePotentialError::NonFinitePotentialError(std::string coordinate_, Dimension dimension, double position_,
+                                                 double time_, bool nan)
+    : PhysicsError(non_finite_text(coordinate_, dimension, position_, time_, nan, {})),
+      coordinate(std::move(coordinate_)),
+      coordinate_dimension(dimension),
+      position(position_),
+      time(time_),
+      is_nan(nan) {}
+
+std::string NonFinitePotentialError::describe(const MessageUnits& units) const {
+  const std::string text = non_finite_text(coordinate, coordinate_dimension, position, time, is_nan, units);
+  if (step == 0) return text;
+  return "propagation step " + std::to_string(step) + " of " + std::to_string(steps) + " (t = " +
+         units(step_time, Dimension::time()) + "): " + text;
+}
+
+void NonFinitePotentialError::set_step(int step_, int steps_, double step_time_) {
+  step = step_;
+  steps = steps_;
+  step_time = step_time_;
+  static_cast<PhysicsError&>(*this) = PhysicsError(describe({}));
+}
+
 void check_potential_finite(const std::vector<double>& v, const std::vector<double>& points, double t,
                             const std::string& coordinate) {
+  const Dimension d = coordinate == "x" || coordinate.rfind("y = x", 0) == 0 ? Dimension::length() : Dimension::none();
   for (std::size_t j = 0; j < v.size(); ++j)
-    if (!std::isfinite(v[j]))
-      throw PhysicsError("potential at " + coordinate + " = " + format_number(points[j]) + " is " +
-                         (std::isnan(v[j]) ? "NaN" : "infinite") + " at t = " + format_number(t) +
-                         ": the potential or its schedule is singular there");
+    if (!std::isfinite(v[j])) throw NonFinitePotentialError(coordinate, d, points[j], t, std::isnan(v[j]));
 }
 
 int first_nonfinite_column(const Eigen::MatrixXcd& state) {
@@ -433,6 +462,9 @@ void SplitOperatorPropagator::steps(State& state, double t_begin, double t_end, 
     auto kick = [&](int step, double t, double before, double after) {
       try {
         path_.sample(t, chunk_samples_);
+      } catch (NonFinitePotentialError& e) {
+        e.set_step(step + 1, total, subdivision_time(t_begin, t_end, total, step + 1));
+        throw;
       } catch (const PhysicsError& e) {
         throw StepError(step, e.what());
       }

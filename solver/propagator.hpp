@@ -95,8 +95,24 @@ ObserveEvery<std::decay_t<Observer>> observe_every(int interval, Observer&& obse
   return {interval, std::forward<Observer>(observer)};
 }
 
-// Throws PhysicsError naming the first sample that is NaN or infinite:
-// "potential at <coordinate> = x_j is nan at t = ...". points[j] is the coordinate of v[j].
+// A potential sample that is NaN or infinite, with where and when (internal units) so that a
+// caller can say them in lab units: describe(units) is "potential at x = 1.2 um is NaN at
+// t = 2.97 ms: ..."; what() is describe({}) (internal units named L0 and T0).
+struct NonFinitePotentialError : PhysicsError {
+  std::string coordinate;  // "x", "y = x - d(t) (co-moving frame)", "y = (x - a)/L (dilated box)"
+  Dimension coordinate_dimension;  // length, or none for the dilated box's y
+  double position = 0, time = 0;
+  bool is_nan = true;
+  int step = 0, steps = 0;  // set by propagate(): the step (1-based) that failed, of `steps`
+  double step_time = 0;     // ... and the time at its end
+  NonFinitePotentialError(std::string coordinate_, Dimension dimension, double position_, double time_, bool nan);
+  std::string describe(const MessageUnits& units) const;
+  void set_step(int step_, int steps_, double step_time_);  // also updates what()
+};
+
+// Throws NonFinitePotentialError naming the first sample that is NaN or infinite.
+// points[j] is the coordinate of v[j]; a coordinate other than "x" or "y = x - ..." is taken
+// as dimensionless.
 void check_potential_finite(const std::vector<double>& v, const std::vector<double>& points, double t,
                             const std::string& coordinate = "x");
 
@@ -190,6 +206,9 @@ int propagate(P& propagator, typename P::State& state, double t_begin, double t_
         propagator.steps(state, t_begin, t_end, steps, i, next - i);
       else
         propagator.step(state, time(i), time(next) - time(i));
+    } catch (NonFinitePotentialError& e) {
+      if (e.step == 0) e.set_step(next, steps, time(next));  // keeps the values for lab units
+      throw;
     } catch (const PhysicsError& e) {
       const auto* failed = dynamic_cast<const StepError*>(&e);
       throw PhysicsError(where(failed ? failed->step() + 1 : next) + ": " + e.what());

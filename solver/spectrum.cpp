@@ -134,7 +134,8 @@ struct Scan {
   std::vector<double> x, v;
   double step = 0;
 };
-Scan scan_potential(const Potential& potential, double lo, double hi, double t, std::size_t n = 200001) {
+Scan scan_potential(const Potential& potential, double lo, double hi, double t, const MessageUnits& units = {},
+                    std::size_t n = 200001) {
   Scan s;
   s.step = (hi - lo) / double(n - 1);
   s.x.resize(n);
@@ -142,7 +143,8 @@ Scan scan_potential(const Potential& potential, double lo, double hi, double t, 
   s.v = potential.evaluate(s.x, t);
   for (std::size_t i = 0; i < n; ++i)
     if (!std::isfinite(s.v[i]))
-      throw PhysicsError("the potential is not finite at x = " + fmt(s.x[i]) + " (value " + fmt(s.v[i]) +
+      throw PhysicsError("the potential is not finite at x = " + units(s.x[i], Dimension::length()) + " (value " +
+                         fmt(s.v[i]) +
                          "): check formulas for division by zero or overflow");
   return s;
 }
@@ -389,11 +391,12 @@ double wkb_level_energy(const Potential& potential, int level, double lo, double
 Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRequest& request) {
   const double t = potential.time();  // formulas using t at the potential's own time
   const auto [lo, hi] = search_window(request);
-  const Scan s = scan_potential(potential, lo, hi, t);
+  const MessageUnits& units = request.message_units;
+  const Scan s = scan_potential(potential, lo, hi, t, units);
   const double v_min = *std::min_element(s.v.begin(), s.v.end());
   if (!(energy_max > v_min))
-    throw PhysicsError("no states below E = " + fmt(energy_max) + ": the potential's minimum in the search window is " +
-                       fmt(v_min));
+    throw PhysicsError("no states below E = " + units(energy_max, Dimension::energy()) +
+                       ": the potential's minimum in the search window is " + units(v_min, Dimension::energy()));
   const std::size_t n = s.x.size();
   std::size_t a = 0, b = n - 1;
   while (a < n && s.v[a] >= energy_max) ++a;
@@ -514,10 +517,11 @@ Spectrum hermite_spectrum(const Potential& potential, const HarmonicApproximatio
 }
 
 Spectrum solve_on(const Potential& potential, const HarmonicApproximation& harmonic, const Grid& grid,
-                  const SpectrumOptions& options, double t, double cutoff) {
+                  const SpectrumOptions& options, double t, double cutoff, const MessageUnits& units) {
   std::vector<double> v = potential.evaluate(grid.points(), t);
   for (std::size_t j = 0; j < v.size(); ++j)
-    if (!std::isfinite(v[j])) throw PhysicsError("the potential is not finite at x = " + fmt(grid.x(j)));
+    if (!std::isfinite(v[j]))
+      throw PhysicsError("the potential is not finite at x = " + units(grid.x(j), Dimension::length()));
   cap_potential(v, harmonic.v_min, cutoff);
   if (options.method == EigenMethod::hermite) return hermite_spectrum(potential, harmonic, grid, v, options);
   return solve_spectrum(grid, v, options);
@@ -529,12 +533,14 @@ SpectrumResult compute_spectrum(const Potential& potential, const SpectrumReques
   const double t = potential.time();  // formulas using t at the potential's own time
   SpectrumResult result;
   const auto [lo, hi] = search_window(request);
-  const Scan s = scan_potential(potential, lo, hi, t);
+  const MessageUnits& units = request.message_units;
+  const Scan s = scan_potential(potential, lo, hi, t, units);
   result.harmonic = harmonic_from_scan(potential, s, t);
   const std::size_t lowest = std::min_element(s.v.begin(), s.v.end()) - s.v.begin();
   if (!request.box && (lowest == 0 || lowest + 1 == s.v.size()))
-    throw PhysicsError("the potential does not confine: its lowest value in the search window [" + fmt(lo) + ", " +
-                       fmt(hi) + "] is at the window's edge (V = " + fmt(s.v[lowest]) +
+    throw PhysicsError("the potential does not confine: its lowest value in the search window from " +
+                       units(lo, Dimension::length()) + " to " + units(hi, Dimension::length()) +
+                       " is at the window's edge (V = " + units(s.v[lowest], Dimension::energy()) +
                        "); check signs and coefficients, or set the search window ([grid] search_half_width)");
   const double edge_min = std::min(s.v.front(), s.v.back());
   const int k = request.options.levels;
@@ -569,7 +575,7 @@ SpectrumResult compute_spectrum(const Potential& potential, const SpectrumReques
   // the energies still change on a finer, wider grid.
   int widened = 0, refined = 0, raised = 0;
   for (;;) {
-    result.spectrum = solve_on(potential, result.harmonic, *grid, request.options, t, cutoff);
+    result.spectrum = solve_on(potential, result.harmonic, *grid, request.options, t, cutoff, units);
     result.energy_cutoff = cutoff;
     result.levels = analyse_levels(result.spectrum, result.harmonic, result.threshold);
     const Grid& g = result.spectrum.grid;
@@ -598,7 +604,7 @@ SpectrumResult compute_spectrum(const Potential& potential, const SpectrumReques
     const double centre = 0.5 * (g.left() + g.right()), half = 0.5 * g.length();
     const Grid finer = request.box ? with_points(g, g.left(), g.right(), 0.8 * g.spacing())
                                    : with_points(g, centre - 1.2 * half, centre + 1.2 * half, 0.8 * g.spacing());
-    const Spectrum fine = solve_on(potential, result.harmonic, finer, request.options, t, cutoff);
+    const Spectrum fine = solve_on(potential, result.harmonic, finer, request.options, t, cutoff, units);
     result.convergence.done = true;
     result.convergence.finer = finer;
     for (int j = 0; j < k; ++j) {
@@ -625,17 +631,18 @@ SpectrumResult compute_spectrum(const Potential& potential, const SpectrumReques
   }
   if (unbound > 0)
     result.warnings.push_back(std::to_string(unbound) + " of " + std::to_string(k) +
-                              " levels lie above the potential's threshold " + fmt(result.threshold) +
+                              " levels lie above the potential's threshold " + units(result.threshold, Dimension::energy()) +
                               " and are not bound: they are discretised continuum states whose energies depend on the grid extent");
   if (worst_edge > request.edge_tolerance)
     result.warnings.push_back("a bound state reaches the grid edge (relative density " + fmt(worst_edge) +
                               " on the outermost grid points): widen the grid ([grid] left/right)");
   if (worst_residual > result.spectrum.residual_tolerance && request.options.method != EigenMethod::hermite)
-    result.warnings.push_back("largest eigenpair residual " + fmt(worst_residual) + " exceeds the tolerance " +
-                              fmt(result.spectrum.residual_tolerance) + ": use more points or method = \"dense\"");
+    result.warnings.push_back("largest eigenpair residual " + units(worst_residual, Dimension::energy()) +
+                              " exceeds the tolerance " + units(result.spectrum.residual_tolerance, Dimension::energy()) +
+                              ": use more points or method = \"dense\"");
   const double scale = std::max(1.0, std::abs(result.spectrum.energies(k - 1) - result.harmonic.v_min));
   if (result.convergence.done && result.convergence.max_energy_change > request.energy_tolerance * scale)
-    result.warnings.push_back("energies change by up to " + fmt(result.convergence.max_energy_change) +
+    result.warnings.push_back("energies change by up to " + units(result.convergence.max_energy_change, Dimension::energy()) +
                               " on a finer, wider grid: the spectrum is not converged; use more points");
   return result;
 }

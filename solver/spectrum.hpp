@@ -23,6 +23,7 @@
 
 #include "potentials/potential.hpp"
 #include "solver/grid.hpp"
+#include "solver/units.hpp"
 
 namespace trapwork {
 
@@ -126,6 +127,7 @@ struct SpectrumRequest {
   bool convergence_check = true;   // repeat on a finer, wider grid and compare
   double energy_tolerance = 1e-9;  // automatic grids are refined until bound energies change less
   double edge_tolerance = 1e-8;    // ... and widened while a bound state's edge density exceeds this
+  MessageUnits message_units;      // how warnings and errors write lengths and energies
 };
 
 struct GridConvergence {

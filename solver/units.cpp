@@ -4,7 +4,9 @@
 
 #include <algorithm>
 #include <cctype>
+#include <charconv>
 #include <cmath>
+#include <cstdio>
 #include <cstdlib>
 
 #include "solver/errors.hpp"
@@ -365,6 +367,81 @@ double UnitSystem::to_internal(const Quantity& q, Dimension expected, std::strin
 
 double UnitSystem::to_si(double internal, Dimension d) const {
   return internal * internal_unit_in_si(*this, d);
+}
+
+double conversion_rounded(double v) {
+  if (!std::isfinite(v) || v == 0) return v + 0.0;
+  char buffer[32];
+  const auto r = std::to_chars(buffer, buffer + sizeof buffer, v, std::chars_format::scientific, 14);
+  double rounded = v;
+  std::from_chars(buffer, r.ptr, rounded);
+  return rounded;
+}
+
+// ---- lab text ---------------------------------------------------------------------------
+
+std::string lab_text(double si_value, Dimension d, int digits) {
+  struct Prefixed {
+    const char* name;
+    double si;
+  };
+  std::vector<Prefixed> units;
+  if (d == Dimension::length())
+    units = {{"pm", 1e-12}, {"nm", 1e-9}, {"um", 1e-6}, {"mm", 1e-3}, {"m", 1}};
+  else if (d == Dimension::time())
+    units = {{"ps", 1e-12}, {"ns", 1e-9}, {"us", 1e-6}, {"ms", 1e-3}, {"s", 1}};
+  else if (d == Dimension::frequency())
+    units = {{"Hz", 1}, {"kHz", 1e3}, {"MHz", 1e6}, {"GHz", 1e9}};
+  else if (d == Dimension::temperature())
+    units = {{"nK", 1e-9}, {"uK", 1e-6}, {"mK", 1e-3}, {"K", 1}};
+  else if (d == Dimension::energy())
+    units = {{"h*Hz", si::planck_h}, {"h*kHz", 1e3 * si::planck_h}, {"h*MHz", 1e6 * si::planck_h},
+             {"h*GHz", 1e9 * si::planck_h}};
+  else if (d == Dimension::mass())
+    units = {{"u", si::atomic_mass}};
+  for (int n = 3; n <= 8; ++n)
+    if (d == Dimension::energy_per_length(n)) {
+      units = {{"h*Hz/nm^", si::planck_h / std::pow(1e-9, n)}};
+      char buffer[64];
+      std::snprintf(buffer, sizeof buffer, "%.*g h*Hz/nm^%d", digits, si_value / units[0].si, n);
+      return buffer;
+    }
+  char buffer[64];
+  if (units.empty()) {
+    std::snprintf(buffer, sizeof buffer, "%.*g", digits, si_value);
+    return d == Dimension::none() ? std::string(buffer) : std::string(buffer) + " " + d.describe();
+  }
+  // The largest unit not above |value|; the smallest for smaller values and NaN; for 0 the
+  // unprefixed one where there is one ("0 s").
+  const Prefixed* chosen = &units.front();
+  for (const auto& u : units)
+    if (std::abs(si_value) >= u.si * (1 - 1e-12) || (si_value == 0 && u.si == 1)) chosen = &u;
+  std::snprintf(buffer, sizeof buffer, "%.*g %s", digits, si_value / chosen->si, chosen->name);
+  return buffer;
+}
+
+std::string MessageUnits::operator()(double internal, Dimension d) const {
+  char buffer[64];
+  if (units && energy && d == Dimension::energy()) {
+    std::snprintf(buffer, sizeof buffer, "%.6g %s", internal / energy->internal_per_unit, energy->name.c_str());
+    return buffer;
+  }
+  if (units && !time_unit.empty() && d == Dimension::time()) {
+    const Quantity one = parse_quantity("1 " + time_unit);
+    std::snprintf(buffer, sizeof buffer, "%.6g %s", conversion_rounded(units->to_si(internal, d) / one.si_value),
+                  time_unit.c_str());
+    return buffer;
+  }
+  if (units) return lab_text(units->to_si(internal, d), d);
+  const char* unit = d == Dimension::length()        ? " L0"
+                     : d == Dimension::energy()      ? " E0"
+                     : d == Dimension::time()        ? " T0"
+                     : d == Dimension::temperature() ? " E0/kB"
+                     : d == Dimension::frequency()   ? " /T0 (angular)"
+                     : d == Dimension::none()        ? ""
+                                                     : " (internal units)";
+  std::snprintf(buffer, sizeof buffer, "%.6g%s", internal, unit);
+  return buffer;
 }
 
 // ---- display energy units ---------------------------------------------------------------

@@ -9,6 +9,7 @@
 // internally every frequency is angular, omega = 2 pi f, in units of 1/T0.
 // Constants: CODATA 2018 (exact SI values for h, kB; u from CODATA 2018).
 #include <array>
+#include <optional>
 #include <string>
 #include <string_view>
 #include <vector>
@@ -76,12 +77,38 @@ struct UnitSystem {
   double to_si(double internal, Dimension d) const;
 };
 
+// v rounded to 15 significant digits: a value converted between units (internal <-> lab)
+// carries a relative rounding error of a few 1e-16, so its 16th and 17th digits are noise;
+// rounded, 1.5 um read in and written out is 1.5 again, not 1.5000000000000002. The tool
+// rounds every converted value it writes; exact values (probabilities, internal energies)
+// are written unrounded.
+double conversion_rounded(double v);
+
+// A value of dimension d given in SI as text in a lab unit, the prefix chosen so that the
+// number reads between 1 and 1000 where the prefixes reach: "48 uK", "15.9 nm", "2.16 ms",
+// "1 MHz" (ordinary frequency), "40 u", energies in h*Hz..h*GHz, polynomial coefficients in
+// h*Hz/nm^n. `digits` significant digits
+// (printf %g). Dimensions without a lab unit here are written in SI ("3e-30 kg^1 m^-1 s^-2").
+std::string lab_text(double si_value, Dimension d, int digits = 6);
+
 // A display unit for energies in output tables: "h*kHz", "h*MHz", "kB*uK", "hbar*omega".
 struct EnergyUnit {
   std::string name;
   double internal_per_unit;  // how many internal energy units one display unit is
 };
 EnergyUnit energy_unit(std::string_view name, const UnitSystem& units, double omega_ref);
+
+// How library messages (warnings, PhysicsError text) write a dimensional value. Without a
+// unit system (the default) the internal value with its internal unit: "-500 L0",
+// "0.000409 E0", "2.16 T0" (E0 = hbar^2/(m L0^2), T0 = m L0^2/hbar, as above); with one (the
+// tool sets it from the scenario) lab units by lab_text, energies in the display unit when
+// one is given, times in time_unit when one is given: "-7.97 um", "0.0409 h*kHz", "2.97 ms".
+struct MessageUnits {
+  std::optional<UnitSystem> units;
+  std::optional<EnergyUnit> energy;
+  std::string time_unit;  // with units: times in this unit ("ms", the protocol's), if set
+  std::string operator()(double internal, Dimension d) const;
+};
 
 // Levenshtein edit distance (insertions, deletions, substitutions; Levenshtein 1966).
 std::size_t edit_distance(std::string_view a, std::string_view b);

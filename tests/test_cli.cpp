@@ -13,6 +13,7 @@
 #include <filesystem>
 #include <fstream>
 #include <nlohmann/json.hpp>
+#include <set>
 #include <sstream>
 
 using Catch::Contains;
@@ -251,6 +252,37 @@ TEST_CASE("trapwork work writes every file, and a harmonic trap meets its analyt
   CHECK(run("work move.toml -o quiet --quiet", dir).out.empty());
 }
 
+// Issue 14: the report's numbers are the files' numbers and the user's units.
+TEST_CASE("issue 14: strongest work lines print W as lines.csv holds it; the duration in the unit written",
+          "[cli][work]") {
+  const fs::path dir = scratch_dir("work-true-numbers");
+  write_text(dir / "move.toml", replace_first(harmonic_move, "\"1.5 us\"", "\"0.0015 ms\""));
+  const Run r = run("work move.toml -o out", dir);
+  REQUIRE(r.exit_code == 0);
+  CHECK_THAT(r.out, Contains("duration 0.0015 ms"));
+  const auto summary = nlohmann::json::parse(read_all(dir / "out" / "summary.json"));
+  CHECK(summary.at("protocol").at("duration") == "0.0015 ms");
+  // every W printed among the strongest lines is, as text, a value of lines.csv's first column
+  const auto csv = lines_of(read_all(dir / "out" / "lines.csv"));
+  std::set<std::string> csv_work;
+  for (const auto& line : csv)
+    if (!line.empty() && line[0] != '#') csv_work.insert(line.substr(0, line.find(',')));
+  const auto report = lines_of(r.out);
+  const auto header = std::find_if(report.begin(), report.end(),
+                                   [](const std::string& l) { return l.rfind("strongest work lines", 0) == 0; });
+  REQUIRE(header != report.end());
+  int printed = 0;
+  for (auto it = header + 2; it != report.end() && !it->empty() && it->rfind("wrote", 0) != 0; ++it) {
+    std::istringstream fields(*it);
+    std::string w;
+    fields >> w;
+    INFO(*it);
+    CHECK(csv_work.count(w) == 1);
+    ++printed;
+  }
+  CHECK(printed >= 3);
+}
+
 TEST_CASE("trapwork sweep writes one row per point", "[cli][work]") {
   const fs::path dir = scratch_dir("sweep");
   write_text(dir / "sweep.toml", harmonic_move + "[work]\ntime_step_check = false\n[sweep]\n"
@@ -269,6 +301,12 @@ TEST_CASE("trapwork sweep writes one row per point", "[cli][work]") {
   CHECK(values[0] == Approx(0.7).epsilon(1e-14));
   CHECK(values[1] == Approx(1.0).epsilon(1e-14));
   CHECK(values[2] == Approx(1.5).epsilon(1e-14));
+  // issue 14: written as the user wrote them, not 1.5000000000000002 (values converted to
+  // internal units and back are rounded to 15 digits, below the conversion's own rounding)
+  std::vector<std::string> texts;
+  for (const auto& line : lines)
+    if (!line.empty() && std::isdigit(static_cast<unsigned char>(line[0]))) texts.push_back(line.substr(0, line.find(',')));
+  CHECK(texts == std::vector<std::string>{"0.7", "1", "1.5"});
   CHECK(fs::file_size(dir / "out" / "sweep.png") > 1000);
 }
 

@@ -9,6 +9,7 @@
 #include <sstream>
 
 #include "solver/tool/output.hpp"
+#include "solver/tool/work_output.hpp"
 
 // after output.hpp: <sys/wait.h> defines a macro si_value that clashes with Quantity::si_value
 #include <sys/wait.h>
@@ -65,6 +66,39 @@ TEST_CASE("numbers read back exactly", "[output]") {
   CHECK(number_text(std::numeric_limits<double>::quiet_NaN()) == "nan");
   CHECK(number_text(-std::numeric_limits<double>::infinity()) == "-inf");
   CHECK(number_text(2.0) == "2");
+}
+
+// Issue 14: a skewness whose variance comes from lines at the rounding level of probabilities
+// is not defined (today it printed values such as 8.5e9).
+TEST_CASE("issue 14: skewness is not defined when the variance is rounding noise", "[output]") {
+  auto distribution = [](std::vector<std::pair<double, double>> lines) {
+    WorkDistribution d;
+    for (const auto& [w, p] : lines) d.lines.push_back({w, p, 0, 0});
+    double total = 0, mean = 0, m2 = 0, m3 = 0;
+    for (const auto& l : d.lines) total += l.probability, mean += l.probability * l.work;
+    mean /= total;
+    for (const auto& l : d.lines) {
+      const double x = l.work - mean;
+      m2 += l.probability * x * x;
+      m3 += l.probability * x * x * x;
+    }
+    d.mean = mean;
+    d.variance = m2 / total;
+    d.skewness = d.variance > 0 ? (m3 / total) / std::pow(d.variance, 1.5) : 0.0;
+    return d;
+  };
+  // one line at the 1e-19 level: skewness ~ 1/sqrt(1e-19) = 3e9, meaningless
+  const WorkDistribution noise = distribution({{0.0, 1.0}, {1.0, 1e-19}});
+  CHECK(noise.skewness > 1e9);  // what was printed before
+  CHECK(std::isnan(defined_skewness(noise)));
+  // a single line: no spread at all
+  CHECK(std::isnan(defined_skewness(distribution({{0.5, 1.0}}))));
+  // a real distribution keeps its value: p = 0.1 at W = 1 gives skewness (1 - 2p)/sqrt(p(1-p)) = 2.667
+  const WorkDistribution real = distribution({{0.0, 0.9}, {1.0, 0.1}});
+  CHECK(defined_skewness(real) == real.skewness);
+  CHECK(real.skewness == Approx(0.8 / std::sqrt(0.09)).epsilon(1e-12));
+  // the boundary: a line of probability 1e-12 (above the floor 1e-13) still counts
+  CHECK_FALSE(std::isnan(defined_skewness(distribution({{0.0, 1.0}, {1.0, 1e-12}}))));
 }
 
 TEST_CASE("CSV: column names first, then comments, then rows", "[output]") {
@@ -221,4 +255,39 @@ TEST_CASE("issue 14: SIGTERM during the write phase leaves the previous run whol
   CHECK(read_all(dir / "b.csv") == "old b\n");
   CHECK_FALSE(has_staging(dir));
   OutputRun next(dir, names, {}, "t");  // the lock died with the child
+// Issue 14: with [units] natural = true the header and summary.json say what a bare number
+// means in lab units; without it they say nothing about natural units.
+TEST_CASE("issue 14: natural units are stated in the header and the summary", "[output]") {
+  const std::string text = R"([particle]
+mass = "40 u"
+[units]
+natural = true
+[[potential]]
+name = "trap"
+shape = "harmonic"
+frequency = "1 MHz"
+centre = 2
+)";
+  const Scenario s = read_scenario_text(text, "natural.toml");
+  std::ostringstream header;
+  print_scenario_header(header, "spectrum", s);
+  // L0 = sqrt(hbar/(m omega)) = 15.9 nm for 40 u at 1 MHz; E0 = hbar omega = h*1 MHz; T0 = 1/omega
+  CHECK_THAT(header.str(), Catch::Contains("natural     bare numbers in the file: hbar = m = 1 (m = 40 u), length L0 = 15.8962 nm") &&
+                               Catch::Contains("= hbar*omega_ref (f_ref = 1 MHz)") && Catch::Contains("= 1/omega_ref") &&
+                               Catch::Contains("time m L0^2/hbar = 159.155 ns"));
+  const auto units = units_json(s);
+  CHECK(units.at("natural").at("used") == true);
+  CHECK(units.at("natural").at("meaning").get<std::string>().find("length L0 = 15.8962 nm") != std::string::npos);
+
+  const Scenario lab = read_scenario_text(R"([particle]
+mass = "40 u"
+[[potential]]
+name = "trap"
+shape = "harmonic"
+frequency = "1 MHz"
+)", "lab.toml");
+  std::ostringstream plain;
+  print_scenario_header(plain, "spectrum", lab);
+  CHECK_THAT(plain.str(), !Catch::Contains("natural"));
+  CHECK(units_json(lab).at("natural").at("used") == false);
 }

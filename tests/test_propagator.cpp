@@ -326,7 +326,7 @@ TEST_CASE("a NaN or infinite potential or state stops the propagation, naming st
     SplitOperatorPropagator prop(PotentialPath::lab(grid, root, through_zero), 2, SplitOrder::strang);
     auto psi = oscillator_states(grid);
     CHECK_THROWS_WITH(propagate(prop, psi, 0.0, 1.0, 10),
-                      Contains("step 6 of 10 (t = 0.6)") && Contains("potential at x = -10 is NaN at t = 0.6:"));
+                      Contains("step 6 of 10 (t = 0.6 T0)") && Contains("potential at x = -10 L0 is NaN at t = 0.6 T0:"));
   }
   {
     // the triple jump's first substep overshoots to t + g1 dt, g1 = 1/(2 - 2^{1/3}) = 1.3512:
@@ -334,7 +334,7 @@ TEST_CASE("a NaN or infinite potential or state stops the propagation, naming st
     SplitOperatorPropagator prop(PotentialPath::lab(grid, root, through_zero), 2, SplitOrder::fourth);
     auto psi = oscillator_states(grid);
     CHECK_THROWS_WITH(propagate(prop, psi, 0.0, 1.0, 10),
-                      Contains("step 5 of 10 (t = 0.5)") && Contains("potential at x = -10 is NaN at t = 0.535121"));
+                      Contains("step 5 of 10 (t = 0.5 T0)") && Contains("potential at x = -10 L0 is NaN at t = 0.535121 T0"));
   }
   // log(g) with g from 1 to 0: -infinity at t = tau exactly (the schedule's end value), step 4 of 4
   const Potential logarithm({Term::formula("trap", "0.5*x^2 + log(g)", {{"g", 1.0}})});
@@ -342,7 +342,7 @@ TEST_CASE("a NaN or infinite potential or state stops the propagation, naming st
   SplitOperatorPropagator log_prop(PotentialPath::lab(grid, logarithm, to_zero), 2, SplitOrder::strang);
   auto psi = oscillator_states(grid);
   CHECK_THROWS_WITH(propagate(log_prop, psi, 0.0, 1.0, 4),
-                    Contains("step 4 of 4 (t = 1)") && Contains("potential at x = -10 is infinite at t = 1"));
+                    Contains("step 4 of 4 (t = 1 T0)") && Contains("potential at x = -10 L0 is infinite at t = 1 T0"));
   // a finite potential, for contrast, propagates without complaint
   SplitOperatorPropagator fine(PotentialPath::lab(grid, harmonic_trap(), ramp), 2, SplitOrder::strang);
   auto good = oscillator_states(grid);

@@ -1,6 +1,7 @@
 // Scenario files: conversion to library values and positioned error messages.
 #include <catch2/catch.hpp>
 #include <cmath>
+#include <cstdio>
 #include <filesystem>
 #include <fstream>
 #include <limits>
@@ -210,6 +211,39 @@ waist = "0.5 um"
   REQUIRE(box.spectrum.box);
   CHECK(close(box.spectrum.box->first, -0.5));
   CHECK(close(box.spectrum.box->second, 1.5));
+}
+
+// Issue 14: a bare number is read in internal units, which differ from scenario to scenario
+// (here E0 = h*1 MHz, so temperature = 65e-6 would be 3.1 nK, not 65 uK).
+TEST_CASE("issue 14: a bare number for a dimensional quantity needs [units] natural = true", "[scenario]") {
+  const std::string cold = ion + "[protocol]\nduration = \"2 us\"\n[[protocol.change]]\nparameter = \"trap.centre\"\n"
+                                 "to = \"20 nm\"\n[initial]\ntemperature = 65e-6\n";
+  check_error(cold, "65e-6", "initial.temperature", "a temperature (e.g. \"2 uK\") with its unit");
+  CHECK_THAT(error_of(cold).what(), Catch::Contains("initial.temperature = 6.5e-05: "));
+  const InputError e = error_of(cold);
+  // what the bare number would have meant, in lab units: 65e-6 E0/kB with E0 = h*1 MHz
+  const double meant_uK = 65e-6 * codata_h * 1e6 / codata_kB * 1e6;
+  char meant[32];
+  std::snprintf(meant, sizeof meant, "%.3g nK", meant_uK * 1e3);  // 3.12 nK
+  CHECK_THAT(e.what(), Catch::Contains(std::string("would mean ") + meant) &&
+                           Catch::Contains("[units] natural = true"));
+  // dimensionless values stay plain
+  CHECK_NOTHROW(read_scenario_text(replace(cold, "temperature = 65e-6", "mean_phonons = 0.5"), "s.toml"));
+  CHECK_NOTHROW(read_scenario_text(replace(cold, "temperature = 65e-6", "level = 1"), "s.toml"));
+
+  // The switch: bare numbers are internal values (energies in hbar*omega_ref, lengths in L0).
+  const std::string natural = replace(cold, "[protocol]", "[units]\nnatural = true\n[protocol]");
+  const Scenario s = read_scenario_text(replace(replace(natural, "\"20 nm\"", "2"), "65e-6", "0.5"), "n.toml");
+  CHECK(s.natural_units);
+  CHECK(s.protocol->changes[0].to == 2);
+  REQUIRE(s.work);
+  CHECK(s.work->request.initial.kind() == InitialState::Kind::thermal);
+  CHECK(s.work->request.initial.parameter() == 2);  // beta = 1/kT = 1/0.5
+  // units still convert beside bare numbers
+  CHECK(close(s.protocol->duration, 2e-6 * 2 * pi * 1e6));
+  CHECK_FALSE(read_scenario_text(cold.substr(0, cold.find("[initial]")), "c.toml").natural_units);
+  // the mass and the reference frequency set the units, so they need a unit even then
+  check_error(replace(natural, "\"40 u\"", "40"), "40", "particle.mass", "with its unit");
 }
 
 TEST_CASE("a misspelt key is an error with a suggestion and its position", "[scenario]") {
@@ -611,4 +645,22 @@ value_unit = "nm"
     CHECK(e.column == position_of(text, "\"ramp.csv\"").second);
     CHECK_THAT(e.what(), Catch::Contains("covering the protocol"));
   }
+}
+
+// Issue 14: library messages about a scenario say lengths and energies in its lab units.
+TEST_CASE("issue 14: a potential that does not confine is described in lab units", "[scenario]") {
+  const Scenario s = read_scenario_text(replace(ion, "\"harmonic\"", "\"polynomial\"") + "quartic = \"-1 h*Hz/nm^4\"\n",
+                                        "open.toml");
+  std::string message;
+  try {
+    (void)compute_spectrum(s.potential, s.spectrum);
+  } catch (const PhysicsError& e) {
+    message = e.what();
+  }
+  // the search window is 500 oscillator lengths either side: 500 * 15.9 nm = 7.95 um
+  const double half_um = 500 * s.units.length_m * 1e6;
+  char window[80];
+  std::snprintf(window, sizeof window, "search window from %.6g um to %.6g um", -half_um, half_um);
+  CHECK_THAT(message, Catch::Contains(window) && Catch::Contains(" h*kHz)"));
+  CHECK_THAT(message, !Catch::Contains("[-500, 500]"));
 }

@@ -1,6 +1,9 @@
 // Units: parsing lab quantities, the internal unit system, display energy units, error text.
 #include <catch2/catch.hpp>
 #include <cmath>
+#include <cstdio>
+#include <functional>
+#include <string>
 #include <limits>
 
 #include "solver/errors.hpp"
@@ -202,4 +205,62 @@ TEST_CASE("dimensions describe themselves", "[units]") {
   CHECK(Dimension::energy_per_length(4).describe() == "energy per length^4");
   CHECK(Dimension{{1, 2, -1, 0}}.describe() == "kg^1 m^2 s^-1");
   CHECK_THAT(expected_quantity(Dimension::length()), Catch::Contains("a length"));
+}
+
+// Issue 14: messages and written numbers in the user's units.
+TEST_CASE("lab_text picks the prefix that puts the number between 1 and 1000", "[units]") {
+  CHECK(lab_text(2.97e-3, Dimension::time()) == "2.97 ms");
+  CHECK(lab_text(4e-3, Dimension::time()) == "4 ms");
+  CHECK(lab_text(-7.95e-6, Dimension::length()) == "-7.95 um");
+  CHECK(lab_text(15.9e-9, Dimension::length()) == "15.9 nm");
+  CHECK(lab_text(1e6, Dimension::frequency()) == "1 MHz");
+  CHECK(lab_text(65e-6, Dimension::temperature()) == "65 uK");
+  CHECK(lab_text(3e-12, Dimension::temperature()) == "0.003 nK");  // below the smallest prefix
+  CHECK(lab_text(codata_h * 2e3, Dimension::energy()) == "2 h*kHz");
+  CHECK(lab_text(40 * codata_u, Dimension::mass()) == "40 u");
+  CHECK(lab_text(codata_h * 0.0157 / 1e-36, Dimension::energy_per_length(4)) == "0.0157 h*Hz/nm^4");
+  CHECK(lab_text(0, Dimension::length()) == "0 m");
+  CHECK(lab_text(1.23456789e-3, Dimension::time(), 3) == "1.23 ms");
+}
+
+TEST_CASE("MessageUnits: internal values with their internal unit, or lab units", "[units]") {
+  const MessageUnits internal;
+  CHECK(internal(-500, Dimension::length()) == "-500 L0");
+  CHECK(internal(0.000409, Dimension::energy()) == "0.000409 E0");
+  CHECK(internal(2.16426, Dimension::time()) == "2.16426 T0");
+  CHECK(internal(0.5, Dimension::none()) == "0.5");
+  // 87 u in a box of 1 um: T0 = m L0^2 / hbar = 1.37 ms, E0 = hbar^2/(m L0^2)
+  const UnitSystem box = UnitSystem::for_length(87 * codata_u, 1e-6);
+  const MessageUnits lab{box, std::nullopt};
+  const double t0_ms = 87 * codata_u * 1e-12 / codata_hbar * 1e3;
+  char expected[32];
+  std::snprintf(expected, sizeof expected, "%.6g ms", 2.16426 * t0_ms);
+  CHECK(lab(2.16426, Dimension::time()) == expected);
+  CHECK(lab(-500, Dimension::length()) == "-500 um");
+  // times in the protocol's unit when one is given (a 4 ms protocol: "2.97 ms", not "2967 us")
+  std::snprintf(expected, sizeof expected, "%.6g us", 2.16426 * t0_ms * 1e3);
+  CHECK((MessageUnits{box, std::nullopt, "us"}(2.16426, Dimension::time())) == expected);
+  // energies in the display unit when one is given
+  const MessageUnits display{box, energy_unit("kB*nK", box, 0)};
+  std::snprintf(expected, sizeof expected, "%.6g kB*nK", 0.000409 * codata_hbar * codata_hbar / (87 * codata_u * 1e-12) / (codata_kB * 1e-9));
+  CHECK(display(0.000409, Dimension::energy()) == expected);
+}
+
+TEST_CASE("conversion_rounded drops the rounding noise of a unit conversion", "[units]") {
+  // 1.5 um through L0 = 15.9 nm and back: 1.5000000000000002 or 1.4999999999999998 before
+  const UnitSystem u = UnitSystem::for_trap(40 * codata_u, 1e6);
+  int noisy = 0;
+  for (double v : {1.5, 0.7, 2.5, 160.0, -400000.0, 0.1, 3e-7}) {
+    const double internal = u.to_internal(Quantity{v * 1e-6, Dimension::length(), false}, Dimension::length());
+    const double back = internal / u.to_internal(parse_quantity("1 um"), Dimension::length());
+    if (back != v) ++noisy;
+    CHECK(conversion_rounded(back) == v);
+  }
+  INFO("values that came back with noise: " << noisy);
+  CHECK(conversion_rounded(-399999.99999999994) == -400000.0);
+  CHECK(conversion_rounded(1.5000000000000002) == 1.5);
+  // a value that needs 15 digits keeps them; an exact 17-digit value is not our case
+  CHECK(conversion_rounded(1.23456789012345) == 1.23456789012345);
+  CHECK(std::isnan(conversion_rounded(std::nan(""))));
+  CHECK(conversion_rounded(-0.0) == 0.0);
 }

@@ -112,6 +112,10 @@ TEST_CASE("unusable wall protocols are errors with file, line and key", "[walls]
   CHECK(cross.line > 0);
   CHECK(cross.key == "protocol.change");
   CHECK_THAT(std::string(cross.what()), Contains("walls that stay apart"));
+  // issue 14: in lab units (the width first fails at sample 931 of 1024 over 1 ms: the
+  // width 10 um - 11 um * 931/1024 = -0.977 nm = -977 pm, in the time unit of the duration), not
+  // in internal units
+  CHECK_THAT(std::string(cross.what()), Contains("-976.562 pm at t = 0.90918 ms is not positive"));
   // "box" names the walls
   const InputError name = error_of(box_scenario(
       "1 ms", "11 um", "linear", "[[potential]]\nname = \"box\"\nshape = \"harmonic\"\nfrequency = \"1 kHz\"\n"));

@@ -362,7 +362,7 @@ nlohmann::ordered_json potential_json(const Scenario& scenario) {
     json parameters = json::object();
     for (const auto& p : term.parameters)
       parameters[p.name] = {{"given", p.given},
-                            {"si", u.to_si(p.internal, p.dimension)},
+                            {"si", conversion_rounded(u.to_si(p.internal, p.dimension))},
                             {"si_unit", si_unit(p.dimension)},
                             {"internal", p.internal}};
     json settings = json::object();
@@ -371,6 +371,20 @@ nlohmann::ordered_json potential_json(const Scenario& scenario) {
         {{"name", term.name}, {"shape", term.shape}, {"parameters", parameters}, {"settings", settings}});
   }
   return terms;
+}
+
+std::string natural_units_text(const Scenario& scenario) {
+  const UnitSystem& u = scenario.units;
+  std::string text = "hbar = m = 1 (m = " + short_number(u.mass_kg / si::atomic_mass) + " u), length L0 = " +
+                     lab_text(u.length_m, Dimension::length()) + ", energy hbar^2/(m L0^2) = " +
+                     lab_text(u.energy_J(), Dimension::energy());
+  if (scenario.reference_frequency_Hz)
+    text += " = hbar*omega_ref (f_ref = " + lab_text(*scenario.reference_frequency_Hz, Dimension::frequency()) + ")";
+  text += ", time m L0^2/hbar = " + lab_text(u.time_s(), Dimension::time());
+  if (scenario.reference_frequency_Hz) text += " = 1/omega_ref";
+  text += ", temperature (energy unit)/kB = " + lab_text(u.energy_J() / si::boltzmann, Dimension::temperature());
+  text += "; frequencies angular (omega, in 1/time)";
+  return text;
 }
 
 nlohmann::ordered_json units_json(const Scenario& scenario) {
@@ -389,7 +403,10 @@ nlohmann::ordered_json units_json(const Scenario& scenario) {
             {"time_s", u.time_s()},
             {"reference_frequency_Hz",
              scenario.reference_frequency_Hz ? json(*scenario.reference_frequency_Hz) : json(nullptr)},
-            {"omega_ref", scenario.omega_ref}}}};
+            {"omega_ref", scenario.omega_ref}}},
+          {"natural",
+           {{"used", scenario.natural_units},
+            {"meaning", scenario.natural_units ? json(natural_units_text(scenario)) : json(nullptr)}}}};
 }
 
 void print_row(std::ostream& out, const std::string& label, const std::string& text) {
@@ -406,9 +423,10 @@ void print_scenario_header(std::ostream& out, const std::string& command, const 
   print_row(out, "particle",
             "mass " + short_number(u.mass_kg / si::atomic_mass) + " u (" + short_number(u.mass_kg) + " kg)");
   print_row(out, "units",
-            "L0 = " + short_number(u.length_m * 1e9) + " nm, E0 = h*" +
-                short_number(u.energy_J() / si::planck_h / 1e3) + " kHz, T0 = " + short_number(u.time_s() * 1e6) +
-                " us; energies shown in " + d.e);
+            "internal L0 = " + lab_text(u.length_m, Dimension::length()) + ", E0 = hbar^2/(m L0^2) = " +
+                lab_text(u.energy_J(), Dimension::energy()) + ", T0 = " + lab_text(u.time_s(), Dimension::time()) +
+                "; energies shown in " + d.e);
+  if (scenario.natural_units) print_row(out, "natural", "bare numbers in the file: " + natural_units_text(scenario));
   for (const auto& term : scenario.terms) {
     std::string text = term.name + ": " + term.shape;
     for (const auto& p : term.parameters) text += ", " + p.name + " = " + p.given;
@@ -545,7 +563,7 @@ nlohmann::ordered_json spectrum_summary(const Scenario& scenario, const Spectrum
       {"harmonic_approximation",
        {{"x_min", d.length(h.x_min)},
         {"v_min", d.energy(h.v_min)},
-        {"frequency_Hz", u.to_si(h.omega, Dimension::frequency())},
+        {"frequency_Hz", conversion_rounded(u.to_si(h.omega, Dimension::frequency()))},
         {"omega_internal", h.omega}}},
       {"warnings", result.warnings},
       {"levels", levels},
@@ -594,7 +612,7 @@ void print_spectrum_report(std::ostream& out, const Scenario& scenario, const Sp
   char line[256];
   const std::string e = "[" + d.e + "]";
   std::snprintf(line, sizeof line, "%4s %18s %16s %14s %14s %11s %11s %5s %9s\n", "n", ("E " + e).c_str(),
-                "E - E0", "spacing", "shift vs harm.", "<x> [um]", "width [um]", "bound", "residual");
+                "E - E(n=0)", "spacing", "shift vs harm.", "<x> [um]", "width [um]", "bound", "residual");
   out << line;
   const double e0 = result.levels.empty() ? 0 : result.levels.front().energy;
   for (std::size_t n = 0; n < result.levels.size(); ++n) {
@@ -609,7 +627,7 @@ void print_spectrum_report(std::ostream& out, const Scenario& scenario, const Sp
     out << line;
   }
   if (!result.warnings.empty()) {
-    out << "\nwarnings (values in internal units, E0 and L0 above):\n";
+    out << "\nwarnings:\n";
     for (const auto& w : result.warnings) out << "  - " << w << '\n';
   }
 }

@@ -101,8 +101,8 @@ struct Display {
   double um;          // internal length of one micrometre
   std::string e;      // display energy unit
   std::string e_col;  // "_h_kHz"
-  double energy(double internal) const { return internal / energy_per; }
-  double length(double internal) const { return internal / um; }
+  double energy(double internal) const { return conversion_rounded(internal / energy_per); }
+  double length(double internal) const { return conversion_rounded(internal / um); }
 };
 Display display(const Scenario& s);
 
@@ -116,6 +116,9 @@ nlohmann::ordered_json grid_json(const Grid& g, const Display& d);
 // The [[potential]] terms as given (text, SI and internal values) and the unit system.
 nlohmann::ordered_json potential_json(const Scenario& scenario);
 nlohmann::ordered_json units_json(const Scenario& scenario);
+// What a bare number means in a scenario with [units] natural = true: "hbar = m = 1 (m = 40 u),
+// length L0 = 15.9 nm, energy ... = h*1 MHz = hbar*omega_ref, time ..." (lab units).
+std::string natural_units_text(const Scenario& scenario);
 // One report line: "  label       text".
 void print_row(std::ostream& out, const std::string& label, const std::string& text);
 // "trapwork <command>: <title>", then scenario, particle, units, potential and box lines.

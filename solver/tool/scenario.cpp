@@ -50,12 +50,12 @@ std::string found_text(const toml::node& n) {
   if (n.is_array()) return n.is_array_of_tables() ? "an array of tables" : "an array";
   if (const auto* i = n.as_integer()) return std::to_string(i->get());
   if (const auto* b = n.as_boolean()) return b->get() ? "true" : "false";
-  std::ostringstream os;
-  if (const auto* f = n.as_floating_point())
-    os << *f;
-  else
-    os << "a date or time";
-  return os.str();
+  if (const auto* f = n.as_floating_point()) {
+    char buffer[32];  // shortest text that reads back (65e-6 -> 6.5e-05)
+    const auto r = std::to_chars(buffer, buffer + sizeof buffer, f->get());
+    return std::string(buffer, r.ptr);
+  }
+  return "a date or time";
 }
 
 bool is_identifier(const std::string& s) {
@@ -81,6 +81,7 @@ class Reader {
   fs::path base_;
   UnitSystem units_;
   double omega_ref_ = 0;
+  bool natural_ = false;  // [units] natural = true: bare numbers are internal values
 
   [[noreturn]] void fail(const toml::source_region& where, const std::string& key, const std::string& found,
                          const std::string& expected, const std::string& suggestion = {}) const {
@@ -139,22 +140,35 @@ class Reader {
     return n->as_boolean()->get();
   }
 
-  // The quantity at a node: a string with a unit, or a plain number (internal units).
+  // The quantity at a node: a string with a unit, or a plain number. A plain number for a
+  // dimensional quantity is refused unless the scenario says [units] natural = true: it would
+  // be read in the scenario's internal units, which differ from file to file.
   Quantity quantity(const toml::node& n, const std::string& dotted, Dimension d) const {
-    if (n.is_integer()) return {static_cast<double>(n.as_integer()->get()), {}, true};
-    if (n.is_floating_point()) {
-      const double v = n.as_floating_point()->get();
-      if (!std::isfinite(v)) fail(n, dotted, "a finite number");
-      return {v, {}, true};
-    }
-    if (!n.is_string())
+    Quantity q;
+    if (n.is_integer()) {
+      q = {static_cast<double>(n.as_integer()->get()), {}, true};
+    } else if (n.is_floating_point()) {
+      q = {n.as_floating_point()->get(), {}, true};
+      if (!std::isfinite(q.si_value)) fail(n, dotted, "a finite number");
+    } else if (!n.is_string()) {
       fail(n, dotted,
-           expected_quantity(d) + " as a string with its unit, or a plain number in internal units");
-    try {
-      return parse_quantity(n.as_string()->get());
-    } catch (const InputError& e) {
-      fail(n, dotted, e.expected, e.suggestion);
+           expected_quantity(d) + " as a string with its unit" +
+               (natural_ ? ", or a plain number in natural units" : std::string()));
+    } else {
+      try {
+        q = parse_quantity(n.as_string()->get());
+      } catch (const InputError& e) {
+        fail(n, dotted, e.expected, e.suggestion);
+      }
     }
+    // a bare number, with or without quotes
+    if (q.plain && !(d == Dimension::none()) && !natural_)
+      fail(n, dotted,
+           expected_quantity(d) + " with its unit in quotes; a bare number would be read in this "
+           "scenario's internal units (hbar = m = 1, here " + found_text(n) + " would mean " +
+               lab_text(units_.to_si(q.si_value, d), d, 3) +
+               "); to give values in internal units, write [units] natural = true");
+    return q;
   }
 
   // An SI value that must carry a unit (mass, and what sets the unit system).
@@ -162,8 +176,14 @@ class Reader {
                          const std::string& why) const {
     const toml::node* n = t.get(key);
     if (!n) return std::nullopt;
-    const Quantity q = quantity(*n, dotted, d);
-    if (q.plain) fail(*n, dotted, expected_quantity(d) + " with its unit: " + why);
+    if (!n->is_string() && !n->is_number()) (void)quantity(*n, dotted, d);  // the wrong-type message
+    Quantity q;
+    if (n->is_string()) try {
+        q = parse_quantity(n->as_string()->get());
+      } catch (const InputError& e) {
+        fail(*n, dotted, e.expected, e.suggestion);
+      }
+    if (!n->is_string() || q.plain) fail(*n, dotted, expected_quantity(d) + " with its unit: " + why);
     if (!(q.dimension == d)) fail(*n, dotted, expected_quantity(d) + ", not " + with_article(q.dimension));
     return Read{q.si_value, n->as_string()->get(), n};
   }
@@ -276,7 +296,9 @@ void Reader::read_units(const toml::table& root, Scenario& s) {
   const toml::table* units = table(root, "units");
   static const toml::table empty;
   if (!units) units = &empty;
-  check_keys(*units, "units", {"reference_frequency", "length", "energy"});
+  check_keys(*units, "units", {"reference_frequency", "length", "energy", "natural"});
+  natural_ = boolean(*units, "natural", "units.natural").value_or(false);
+  s.natural_units = natural_;
   std::optional<Read> frequency = si(*units, "reference_frequency", "units.reference_frequency",
                                      Dimension::frequency(), "it sets the unit system");
   std::string frequency_key = "units.reference_frequency";
@@ -781,9 +803,9 @@ ChangeSpec Reader::read_change(const toml::table& t, const std::string& prefix, 
     PotentialTable data = read_table_file(file, prefix + ".file", t_per, v_per, {"t", "value"});
     if (data.x.front() > 0 || data.x.back() < tau)
       fail(file, prefix + ".file",
-           "a table covering the protocol from t = 0 to the duration (" + exact_text(tau / t_per) + " " +
-               c.time_unit + "); it runs from " + exact_text(data.x.front() / t_per) + " to " +
-               exact_text(data.x.back() / t_per) + " " + c.time_unit);
+           "a table covering the protocol from t = 0 to the duration (" + exact_text(conversion_rounded(tau / t_per)) + " " +
+               c.time_unit + "); it runs from " + exact_text(conversion_rounded(data.x.front() / t_per)) + " to " +
+               exact_text(conversion_rounded(data.x.back() / t_per)) + " " + c.time_unit);
     c.times = std::move(data.x);
     c.values = std::move(data.v);
     return c;
@@ -852,6 +874,11 @@ void Reader::check_protocol(const Scenario& s, const toml::node& where, const st
   } catch (const InputError& e) {
     if (!e.file.empty()) throw;  // located already (check_soft_walls)
     fail(where, key, "a protocol the potential accepts: " + e.key + " = " + e.found + ": " + e.expected);
+  } catch (const WallsMeetError& e) {
+    MessageUnits units{s.units, s.energy, duration_unit(s)};
+    fail(where, key,
+         "walls that stay apart: the box width b - a = " + units(e.width, Dimension::length()) + " at t = " +
+             units(e.time, Dimension::time()) + " is not positive; the walls must not meet or cross");
   } catch (const PhysicsError& e) {
     fail(where, key, std::string("walls that stay apart: ") + e.what());
   }
@@ -1098,7 +1125,7 @@ void Reader::read_sweep(const toml::table& root, Scenario& s) const {
   }
   if (!values->is_array() && !w.unit.empty())
     for (std::size_t i = 0; i < w.values.size(); ++i)
-      w.given[i] = exact_text(w.values[i] / w.internal_per_unit) + " " + w.unit;
+      w.given[i] = exact_text(conversion_rounded(w.values[i] / w.internal_per_unit)) + " " + w.unit;
   s.sweep = std::move(w);
   // Every point must give a usable protocol and potential.
   for (std::size_t i = 0; i < s.sweep->values.size(); ++i) {
@@ -1133,8 +1160,10 @@ Scenario Reader::read(const toml::table& root) {
 
   read_box_and_grid(root, s);
   read_spectrum(root, s);
+  s.spectrum.message_units = {s.units, s.energy};  // library messages in lab units
   read_parameter_slots(s);
   read_protocol(root, s);
+  s.spectrum.message_units.time_unit = duration_unit(s);
   read_initial(root, s);
   read_work(root, s);
   read_sweep(root, s);
@@ -1170,6 +1199,20 @@ Scenario read_scenario_text(std::string_view toml_text, std::string file_name) {
 
 Scenario read_scenario(const std::string& path) {
   return read_scenario_text(read_text_file(path, "the scenario file"), path);
+}
+
+std::string duration_unit(const Scenario& s) {
+  if (!s.protocol) return {};
+  const std::string& given = s.protocol->duration_given;
+  char* end = nullptr;
+  std::strtod(given.c_str(), &end);
+  std::string unit = end ? std::string(end) : std::string();
+  unit.erase(0, std::min(unit.size(), unit.find_first_not_of(" \t")));
+  try {
+    if (!unit.empty() && parse_quantity("1 " + unit).dimension == Dimension::time()) return unit;
+  } catch (const InputError&) {
+  }
+  return {};
 }
 
 namespace {

@@ -2,8 +2,10 @@
 // Scenario files: one TOML file describing a particle, its trap and what to compute.
 //
 // Values carry their units as text ("40 u", "1 MHz", "3e-4 h*kHz/um^4") and are converted to
-// internal units (hbar = m = 1, solver/units.hpp) once, here. A plain number means internal
-// units. Every problem (TOML syntax, unknown or misspelt key, wrong type, wrong dimension,
+// internal units (hbar = m = 1, solver/units.hpp) once, here. A plain number for a
+// dimensional quantity is an error unless [units] natural = true, where it means internal
+// units (stated in the report header); dimensionless values (level, weights, mean_phonons,
+// points, steps, tolerances, formula parameters) are plain numbers. Every problem (TOML syntax, unknown or misspelt key, wrong type, wrong dimension,
 // value out of range, bad data file) throws InputError with file, line, column and the
 // dotted key, e.g. "trap.toml:7:13: potential[1].frequency = \"-1 MHz\": a frequency > 0".
 // [[potential]] tables are counted from 1, as a person reads the file.
@@ -11,7 +13,8 @@
 // Layout (all tables but [particle] and [[potential]] optional):
 //   title, description             free text
 //   [particle]   mass
-//   [units]      reference_frequency, length, energy (display unit of the tables)
+//   [units]      reference_frequency, length, energy (display unit of the tables), natural
+//                (true: bare numbers are internal values)
 //   [[potential]] name, shape, the shape's parameters (potentials/potential.hpp); table shape:
 //                file, x_unit, energy_unit; formula shape: expression, x_unit, energy_unit,
 //                time_unit and a [potential.parameters] table of plain numbers
@@ -118,6 +121,7 @@ struct Scenario {
   std::string file;  // the scenario file as given ("default" for the built-in one)
   std::string title, description;
   UnitSystem units;
+  bool natural_units = false;  // [units] natural = true: bare numbers were read as internal values
   std::optional<double> reference_frequency_Hz;  // ordinary frequency that set the units
   double omega_ref = 0;  // internal angular reference frequency (1 for trap units; 0 if none)
   EnergyUnit energy;     // display unit for energies
@@ -171,6 +175,10 @@ WorkRequest work_request(const Scenario& s);
 // The scenario with sweep value `index` applied (duration, temperature, mean phonon number, a
 // potential parameter or a change's end value). Requires s.sweep.
 Scenario at_sweep_point(const Scenario& s, std::size_t index);
+
+// The time unit protocol.duration was written in ("ms" for "4 ms"); "" without a protocol or
+// for a bare (natural) duration. Reports and messages give times in it.
+std::string duration_unit(const Scenario& s);
 
 // Internal length of one micrometre: lengths in output tables are in um.
 inline double internal_per_um(const Scenario& s) {

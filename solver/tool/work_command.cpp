@@ -22,11 +22,13 @@ namespace trapwork {
 
 namespace {
 
-// Says which scenario (and sweep point) the physics could not handle.
+// Says which scenario (and sweep point) the physics could not handle, in its lab units.
 template <class F>
-auto naming_scenario(const std::string& where, F&& f) {
+auto naming_scenario(const std::string& where, const Scenario& scenario, F&& f) {
   try {
     return f();
+  } catch (const NonFinitePotentialError& e) {
+    throw PhysicsError(where + ": " + e.describe(scenario.spectrum.message_units));
   } catch (const PhysicsError& e) {
     throw PhysicsError(where + ": " + e.what());
   }
@@ -161,14 +163,14 @@ void run_work_command(const WorkCommand& command, std::ostream& out, std::ostrea
                        "a cost bound >= 1 (in units of the search's first run)");
     ProgressBar bar("--tolerance search (share of its cost bound)", 1000, progress, command.show_progress);
     request.progress = [&bar](double fraction) { bar.update(std::size_t(fraction * 1000)); };
-    choice = naming_scenario(scenario.file, [&] {
+    choice = naming_scenario(scenario.file, scenario, [&] {
       return compute_work_to_tolerance(scenario, request, *command.tolerance, command.search_budget);
     });
     bar.finish();
   } else {
     ProgressBar bar("propagating", 1000, progress, command.show_progress);
     request.progress = [&bar](double fraction) { bar.update(std::size_t(fraction * 1000)); };
-    direct = naming_scenario(scenario.file, [&] { return compute_work(scenario, request); });
+    direct = naming_scenario(scenario.file, scenario, [&] { return compute_work(scenario, request); });
     bar.finish();
   }
   const Scenario& used = choice ? choice->scenario : scenario;
@@ -299,7 +301,9 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
           WorkRequest request = work_request(point);
           request.threads = 1;
           request.spectrum.options.memo = memo;
-          const ScenarioWork work = compute_work(point, request);
+          const ScenarioWork work = naming_scenario(
+              scenario.file + ": sweep point " + sweep.parameter + " = " + sweep.given[i], point,
+              [&] { return compute_work(point, request); });
           row = sweep_row(work.run(point), sweep.values[i]);
         } catch (const std::bad_alloc&) {
           throw;

@@ -5,9 +5,11 @@
 #include <chrono>
 #include <cmath>
 #include <cstdio>
+#include <cstdlib>
 #include <limits>
 #include <numeric>
 
+#include "solver/errors.hpp"
 #include "solver/harmonic_reference.hpp"
 #include "solver/tool/plot.hpp"
 
@@ -48,19 +50,30 @@ LengthUnit length_unit(const Scenario& s, const Grid& g) {
   return g.length() < 2 * um ? LengthUnit{"nm", um / 1000} : LengthUnit{"um", um};
 }
 
+// 100 diff / reference, or NaN where the reference is 0 to rounding (below 1e-12 of the
+// lowest spacing: a constant-speed translation over whole periods has <W>_harm = 0).
+double departure_percent(double diff, double reference, double spacing) {
+  return std::abs(reference) > 1e-12 * std::abs(spacing) ? 100 * diff / reference : nan_value;
+}
+
 // A scheduled value in lab units, by dimension.
 std::string lab_text(const Scenario& s, double internal, const Dimension& d) {
   const UnitSystem& u = s.units;
-  if (d == Dimension::length()) return short_number(u.to_si(internal, d) * 1e9) + " nm";
-  if (d == Dimension::frequency()) return short_number(u.to_si(internal, d) / 1e3) + " kHz";
-  if (d == Dimension::time()) return short_number(u.to_si(internal, d) * 1e6) + " us";
   if (d == Dimension::energy()) return Energies(s).text(internal);
+  if (d == Dimension::length() || d == Dimension::frequency() || d == Dimension::time())
+    return trapwork::lab_text(u.to_si(internal, d), d);
   if (d == Dimension::none()) return short_number(internal);
   return short_number(u.to_si(internal, d)) + " " + si_unit(d);
 }
 
 double duration_us(const Scenario& s, double tau) {
-  return s.units.to_si(tau, Dimension::time()) * 1e6;
+  return conversion_rounded(s.units.to_si(tau, Dimension::time()) * 1e6);
+}
+
+// A duration in the unit the scenario's protocol.duration was written in ("4 ms", not
+// "4000 us"); a bare (natural) duration in a lab unit chosen by its size.
+std::string duration_text(const Scenario& s, double tau) {
+  return MessageUnits{s.units, s.energy, duration_unit(s)}(tau, Dimension::time());
 }
 
 // The given text of a potential parameter ("trap.centre"), or its lab value.
@@ -104,7 +117,7 @@ Thermal thermal_of(const WorkRun& run) {
   if (!std::isfinite(beta)) return t;
   t.gibbs = true;
   t.beta = beta;
-  t.temperature_uK = run.scenario.units.energy_J() / (beta * si::boltzmann) * 1e6;
+  t.temperature_uK = conversion_rounded(run.scenario.units.energy_J() / (beta * si::boltzmann) * 1e6);
   t.mean_phonons = 1 / std::expm1(beta * lowest_spacing(run.result));
   return t;
 }
@@ -117,7 +130,8 @@ std::string initial_text(const WorkRun& run) {
     if (s.kind() == InitialState::Kind::eigenstate) return given + ": level " + std::to_string(s.level()) + " of H_A";
     return given + ": a mixture of the lowest " + std::to_string(s.mixture_weights().size()) + " levels of H_A";
   }
-  return given + ": Gibbs state, T = " + short_number(t.temperature_uK, 4) + " uK, nbar = " +
+  return given + ": Gibbs state, T = " + trapwork::lab_text(t.temperature_uK * 1e-6, Dimension::temperature(), 4) +
+         ", nbar = " +
          short_number(t.mean_phonons, 4) + " (against the lowest spacing " +
          Energies(run.scenario).text(lowest_spacing(run.result), 5) + ")";
 }
@@ -420,6 +434,13 @@ double bin_width_of(const WorkRun& run) {
   return w && w->bin_width ? *w->bin_width : lowest_spacing(run.result);
 }
 
+double defined_skewness(const WorkDistribution& d) {
+  double spread = 0;
+  for (const auto& l : d.lines) spread = std::max(spread, (l.work - d.mean) * (l.work - d.mean));
+  if (!(d.variance > probability_rounding_floor * spread)) return nan_value;
+  return d.skewness;
+}
+
 std::vector<WorkCheck> work_checks(const WorkRun& run) {
   const Diagnostics& g = run.result.diagnostics;
   const double spacing = lowest_spacing(run.result);
@@ -501,7 +522,7 @@ CsvTable lines_table(const WorkRun& run, const WorkDistribution& d, const std::s
     cumulative += l.probability;
     std::size_t k = 0;
     t.columns[k++].values.push_back(e.show(l.work));
-    if (e.oscillator()) t.columns[k++].values.push_back(l.work / e.omega_ref);
+    if (e.oscillator()) t.columns[k++].values.push_back(conversion_rounded(l.work / e.omega_ref));
     t.columns[k++].values.push_back(l.probability);
     t.columns[k++].values.push_back(l.initial);
     t.columns[k++].values.push_back(l.final);
@@ -692,7 +713,7 @@ json work_summary(const WorkRun& run) {
   const Thermal th = thermal_of(run);
   auto energy = [&](double internal) {
     json j = {{"value", number_or_null(e.show(internal))}, {"internal", number_or_null(internal)}};
-    if (e.oscillator()) j["hbar_omega"] = number_or_null(internal / e.omega_ref);
+    if (e.oscillator()) j["hbar_omega"] = number_or_null(conversion_rounded(internal / e.omega_ref));
     return j;
   };
   json changes = json::array();
@@ -717,7 +738,7 @@ json work_summary(const WorkRun& run) {
                 {"mean_work", energy(h.mean_work)},
                 {"sd_work", energy(sd_of(h.distribution))},
                 {"departure", energy(diff)},
-                {"departure_percent", number_or_null(100 * diff / h.mean_work)},
+                {"departure_percent", number_or_null(departure_percent(diff, h.mean_work, lowest_spacing(r)))},
                 {"max_line_difference", h.max_line_difference}};
   }
   json crooks = nullptr;
@@ -742,6 +763,7 @@ json work_summary(const WorkRun& run) {
       {"potential", potential_json(s)},
       {"protocol",
        {{"duration_us", duration_us(s, tau)},
+        {"duration", duration_text(s, tau)},
         {"duration_internal", tau},
         {"duration_given", s.protocol ? s.protocol->duration_given : ""},
         {"changes", changes}}},
@@ -768,7 +790,7 @@ json work_summary(const WorkRun& run) {
         {"sd", energy(sd_of(d))},
         {"sd_error", energy(sd_error_of(d, g.moments))},
         {"moments", moments_json(g.moments, energy)},
-        {"skewness", d.skewness},
+        {"skewness", number_or_null(defined_skewness(d))},
         {"free_energy_change", energy(d.free_energy_change)},
         {"dissipated_work", energy(d.dissipated_work)},
         {"resolved_weight", d.resolved_weight},
@@ -836,9 +858,8 @@ LevelsFigure levels_figure(const WorkRun& run) {
   f.title = "potential, levels and |ψ#dn#u|#u2#d at the start and the end of the protocol";
   f.x_label = "position x (" + lu.name + ")";
   f.energy_label = "energy E (" + d.e + ")";
-  const double tau_us = duration_us(run.scenario, run.protocol.duration());
   f.panels.push_back(panel("start, t = 0", run.protocol.initial(run.scenario.potential), r.initial_spectrum, 0));
-  f.panels.push_back(panel("end, t = " + short_number(tau_us, 4) + " us", run.protocol.final(run.scenario.potential),
+  f.panels.push_back(panel("end, t = " + duration_text(run.scenario, run.protocol.duration()), run.protocol.final(run.scenario.potential),
                            r.final_spectrum, frame_shift(run)));
   return f;
 }
@@ -928,7 +949,7 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
   auto row = [&](const std::string& label, const std::string& text) { print_row(out, label, text); };
   print_scenario_header(out, "work", s);
   const double tau = run.protocol.duration();
-  std::string protocol = tau > 0 ? "duration " + short_number(duration_us(s, tau), 6) + " us" : "sudden switch (duration 0)";
+  std::string protocol = tau > 0 ? "duration " + duration_text(s, tau) : "sudden switch (duration 0)";
   if (s.omega_ref > 0 && tau > 0)
     protocol += " (" + short_number(tau * s.omega_ref / (2 * si::pi), 4) + " periods of the reference frequency)";
   row("protocol", protocol);
@@ -937,7 +958,7 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
   row("initial", initial_text(run));
   row("grid", grid_text(r.grid, display(s)));
   row("method", r.method + (r.steps > 0 ? ", " + std::to_string(r.steps) + " steps of dt = " +
-                                              short_number(time_step_ns(run), 4) + " ns"
+                                              trapwork::lab_text(time_step_ns(run) * 1e-9, Dimension::time(), 4)
                                         : std::string()));
   const int kept = r.forward.transitions.initial_levels();
   row("levels", std::to_string(kept) + (kept == 1 ? " initial level" : " initial levels") + " kept" +
@@ -959,7 +980,11 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
                        e.text(std::sqrt(std::max(0.0, mom.variance_direct)), 10) + "; <W> error parts: final levels " +
                        e.text(std::abs(mom.mean_final), 2) + ", thermal cut " + e.text(mom.mean_thermal, 2) +
                        ", basis " + (std::isfinite(mom.mean_basis) ? e.text(mom.mean_basis, 2) : std::string("not known")));
-  row("skewness", short_number(d.skewness, 4));
+  row("skewness", !std::isnan(defined_skewness(d)) ? short_number(d.skewness, 4)
+                  : d.variance > 0
+                      ? "not defined: var(W) is below " + short_number(probability_rounding_floor) +
+                            " max (W - <W>)^2, the size lines of probability at the rounding level give"
+                      : std::string("not defined: sd(W) = 0 (a single work value)"));
   if (std::isfinite(d.free_energy_change)) {
     row("Delta F", e.text(d.free_energy_change));
     row("dissipated", e.text(d.dissipated_work) + "  (<W> - Delta F)");
@@ -1002,7 +1027,10 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
     row("<W> harm.", e.text(h.mean_work));
     row("sd(W) harm.", e.text(sd_of(h.distribution)));
     const double diff = d.mean - h.mean_work;
-    row("departure", "<W> - <W>_harm = " + e.text(diff, 4) + " (" + short_number(100 * diff / h.mean_work, 3) + " %)");
+    const double percent = departure_percent(diff, h.mean_work, lowest_spacing(r));
+    row("departure", "<W> - <W>_harm = " + e.text(diff, 4) +
+                         (std::isnan(percent) ? " (percentage not defined: <W>_harm is 0 to rounding)"
+                                              : " (" + short_number(percent, 3) + " %)"));
     row("lines", "max |P(m->n) - P_harm(m->n)| = " + short_number(h.max_line_difference, 3));
   } else if (run.walls) {
     const WallWorkResult& w = *run.walls;
@@ -1090,16 +1118,14 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
     return std::to_string(bm) + " -> " + std::to_string(bn) +
            (count > 1 ? " (+" + std::to_string(count - 1) + " more pairs at this W)" : std::string());
   };
-  out << "\nstrongest work lines\n";
-  std::snprintf(line, sizeof line, "  %16s %14s %12s   %s\n", ("W [" + e.d.e + "]").c_str(),
+  // W as lines.csv holds it (the same text), P to 4 digits
+  out << "\nstrongest work lines (W as in lines.csv)\n";
+  std::snprintf(line, sizeof line, "  %24s %24s %12s   %s\n", ("W [" + e.d.e + "]").c_str(),
                 e.oscillator() ? "W [hbar*w]" : "", "P", "m -> n");
   out << line;
   for (const auto& l : strongest) {
-    // fixed decimals, a millionth of the lowest spacing (no rounding noise such as -3e-10)
-    const double step = 1e-6 * lowest_spacing(r);
-    const double w = std::round(l.work / step) * step + 0.0;
-    std::snprintf(line, sizeof line, "  %16s %14s %12s   %s\n", short_number(e.show(w), 8).c_str(),
-                  e.oscillator() ? short_number(w / e.omega_ref, 6).c_str() : "",
+    std::snprintf(line, sizeof line, "  %24s %24s %12s   %s\n", number_text(e.show(l.work)).c_str(),
+                  e.oscillator() ? number_text(conversion_rounded(l.work / e.omega_ref)).c_str() : "",
                   short_number(l.probability, 4).c_str(), pairs_of(l).c_str());
     out << line;
   }
@@ -1126,7 +1152,7 @@ SweepRow sweep_row(const WorkRun& run, double value) {
   row.value = value;
   row.mean = d.mean;
   row.sd = sd_of(d);
-  row.skewness = d.skewness;
+  row.skewness = defined_skewness(d);
   row.free_energy_change = d.free_energy_change;
   row.dissipated_work = d.dissipated_work;
   row.jarzynski_residual = d.jarzynski_residual;
@@ -1161,7 +1187,7 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
     if (!r.failure.empty())
       failures.push_back("failed: " + w.parameter + " = " + short_number(r.value / w.internal_per_unit, 10) +
                          (w.unit.empty() ? "" : " " + w.unit) + ": " + r.failure);
-    const double v[] = {r.value / w.internal_per_unit, d.energy(r.mean), d.energy(r.sd), r.skewness,
+    const double v[] = {conversion_rounded(r.value / w.internal_per_unit), d.energy(r.mean), d.energy(r.sd), r.skewness,
                         d.energy(r.free_energy_change), d.energy(r.dissipated_work), r.jarzynski_residual,
                         r.crooks_ratio_error, d.energy(r.harmonic_mean), d.energy(r.harmonic_sd),
                         r.time_step_error, r.unresolved_weight, double(r.warnings), r.failure.empty() ? 0.0 : 1.0};
@@ -1196,10 +1222,10 @@ std::vector<fs::path> plot_sweep_figure(const fs::path& folder, const Scenario& 
   SweepPoints points{"<W> (numerical)", {}, {}, {}};
   SweepCurve harmonic{"harmonic reference <W> at each point", {}, {}};
   for (const auto& r : rows) {
-    points.x.push_back(r.value / w.internal_per_unit);
+    points.x.push_back(conversion_rounded(r.value / w.internal_per_unit));
     points.y.push_back(d.energy(r.mean));
     if (std::isfinite(r.harmonic_mean)) {
-      harmonic.x.push_back(r.value / w.internal_per_unit);
+      harmonic.x.push_back(conversion_rounded(r.value / w.internal_per_unit));
       harmonic.y.push_back(d.energy(r.harmonic_mean));
     }
   }
@@ -1210,7 +1236,7 @@ std::vector<fs::path> plot_sweep_figure(const fs::path& folder, const Scenario& 
     const double lo = rows.front().value, hi = rows.back().value;
     for (int i = 0; i <= 400; ++i) {
       const double tau = lo + (hi - lo) * i / 400.0;
-      closed.x.push_back(tau / w.internal_per_unit);
+      closed.x.push_back(conversion_rounded(tau / w.internal_per_unit));
       closed.y.push_back(d.energy(constant_speed_work(translation->first, translation->second, tau)));
     }
     f.curves.push_back(closed);

@@ -106,6 +106,12 @@ double lowest_spacing(const WorkResult& result);
 double resolution_of(const WorkRun& run);
 double bin_width_of(const WorkRun& run);
 
+// Skewness of W, or NaN (not defined) when the variance is rounding noise: below what lines
+// of probability 1e-13 (about 500 times the rounding of a probability near 1) could give,
+// 1e-13 max_l (W_l - <W>)^2, so that the ratio m3 / var^1.5 would print noise such as 8.5e9.
+double defined_skewness(const WorkDistribution& d);
+inline constexpr double probability_rounding_floor = 1e-13;
+
 // One diagnostic against its tolerance.
 struct WorkCheck {
   std::string name;     // "norm drift"

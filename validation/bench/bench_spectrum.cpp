@@ -10,8 +10,10 @@
 #include <cstdlib>
 #include <vector>
 
-#include "harness.hpp"
+// spectrum.hpp (which includes units.hpp) before harness.hpp, whose <sys/wait.h> defines a
+// si_value macro that would clash with Quantity::si_value
 #include "solver/spectrum.hpp"
+#include "harness.hpp"
 
 using namespace trapwork;
 using namespace trapwork_bench;
