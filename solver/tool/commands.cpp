@@ -7,6 +7,7 @@
 
 #include "solver/errors.hpp"
 #include "solver/tool/output.hpp"
+#include "solver/tool/machine.hpp"
 
 namespace trapwork {
 
@@ -66,6 +67,7 @@ void run_spectrum(const SpectrumCommand& command, std::ostream& out) {
   Scenario scenario = load_scenario(command.scenario);
   if (!command.output.empty()) scenario.output_folder = command.output;
   if (command.levels) scenario.spectrum.options.levels = *command.levels;
+  scenario.spectrum.options.memory_limit = available_memory_bytes();  // refused before it allocates
   SpectrumResult result;
   try {
     result = compute_spectrum(scenario.potential, scenario.spectrum);

@@ -9,6 +9,7 @@
 #include <numeric>
 
 #include "solver/harmonic_reference.hpp"
+#include "solver/tool/machine.hpp"
 #include "solver/tool/plot.hpp"
 
 namespace trapwork {
@@ -182,10 +183,12 @@ std::optional<std::pair<double, double>> constant_speed_translation(const Scenar
 }  // namespace
 
 ScenarioWork compute_work(const Scenario& s, WorkRequest request) {
+  if (!(request.spectrum.options.memory_limit > 0)) request.spectrum.options.memory_limit = available_memory_bytes();
   ScenarioWork w{build_protocol(s), std::move(request), std::nullopt, std::nullopt, {}};
   if (moves_walls(s)) {
     const WallProtocol walls = build_wall_protocol(s);
-    const WallWorkRequest wr = wall_work_request(s);
+    WallWorkRequest wr = wall_work_request(s);
+    wr.spectrum.memory_limit = w.request.spectrum.options.memory_limit;
     w.walls = run_wall_work(walls, wr);
     if (s.soft_walls) w.soft_walls = compare_soft_walls(walls, *w.walls, wr, *s.soft_walls);
   } else
@@ -691,6 +694,8 @@ json work_summary(const WorkRun& run) {
         {"max_phase_per_step", g.max_phase_per_step},
         {"grid_convergence", number_or_null(g.grid_convergence)},
         {"grid_convergence_unit", "internal energy (hbar^2/(m L0^2))"},
+        {"estimated_memory_bytes", g.estimated_bytes},        // before the propagation (solver/cost.hpp)
+        {"estimated_operations", g.estimated_operations},
         {"checks", checks}}},
       {"warnings", work_warnings(run)},
   };
@@ -833,6 +838,10 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
                                                  short_number(r.diagnostics.truncation.thermal_tail, 2) + ")"
                                            : std::string()) +
                     ", " + std::to_string(r.forward.transitions.final_levels()) + " final levels");
+  // a long run says what it was estimated to cost before it started (solver/cost.hpp)
+  if (estimated_seconds(r.diagnostics.estimated_operations, run.request.threads) > long_run_seconds)
+    row("cost", cost_text({r.diagnostics.estimated_bytes, r.diagnostics.estimated_operations, "", ""},
+                          run.request.threads) + " (estimated before the propagation)");
 
   out << "\nwork statistics\n";
   row("<W>", e.text(d.mean));
