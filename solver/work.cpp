@@ -133,6 +133,9 @@ WorkHistogram histogram(const WorkDistribution& d, double bin_width) {
   if (d.lines.empty()) return h;
   h.start = std::floor(d.lines.front().work / bin_width) * bin_width;
   const double span = d.lines.back().work - h.start;
+  if (!(span / bin_width < 1e7))  // 80 MB of bins: a bin width far below the work range's scale
+    throw PhysicsError("histogram: a bin width of " + fmt(bin_width) + " gives " + fmt(span / bin_width) +
+                       " bins over the work range of " + fmt(span) + ": set a wider [work] bin_width");
   h.probability.assign(std::size_t(std::floor(span / bin_width)) + 1, 0.0);
   for (const auto& l : d.lines) {
     const auto k = std::min(h.probability.size() - 1, std::size_t(std::floor((l.work - h.start) / bin_width)));

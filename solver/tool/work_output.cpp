@@ -351,9 +351,14 @@ double resolution_of(const WorkRun& run) {
   return w && w->resolution ? *w->resolution : lowest_spacing(run.result) / 20;
 }
 
+// Default: the lowest spacing, widened where needed so that the histogram has at most 4000 bins
+// (a tunnelling doublet's splitting, say 1e-8 of the work range, would ask for 1e8 of them).
 double bin_width_of(const WorkRun& run) {
   const auto& w = run.scenario.work;
-  return w && w->bin_width ? *w->bin_width : lowest_spacing(run.result);
+  if (w && w->bin_width) return *w->bin_width;
+  const auto& lines = run.result.distribution.lines;
+  const double span = lines.empty() ? 0.0 : lines.back().work - lines.front().work;
+  return std::max(lowest_spacing(run.result), span / 4000);
 }
 
 std::vector<WorkCheck> work_checks(const WorkRun& run) {
@@ -458,7 +463,8 @@ CsvTable histogram_table(const WorkRun& run) {
   }
   t.comments = {"trapwork work: histogram of P(W), bins [bin_start, bin_end) of width " +
                     number_text(e.show(h.width)) + " " + e.d.e,
-                "bin width: [work] bin_width, default the lowest level spacing of the initial trap"};
+                "bin width: [work] bin_width, default the lowest level spacing of the initial trap (at least 1/4000 "
+                "of the work range)"};
   return t;
 }
 
