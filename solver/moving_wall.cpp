@@ -558,6 +558,22 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
   diag.edge_amplitude = std::numeric_limits<double>::quiet_NaN();  // psi = 0 at hard walls: not applicable
   diag.grid_convergence = protocol.flat() ? 0.0 : std::numeric_limits<double>::quiet_NaN();
 
+  // Cost before commitment: the sizes are fixed here (solver/cost.hpp).
+  auto sizes = [&](std::size_t points, int steps) {
+    WorkSizes z;
+    z.points = points;
+    z.levels = levels;
+    z.kept = std::min(levels, std::max(request.max_initial_levels, request.min_initial_levels));
+    z.steps = steps;
+    z.substeps = request.order == SplitOrder::fourth ? 3 : 1;
+    z.runs = 1 + (request.time_step_check ? 2 : 0) + (request.reverse_run ? 1 : 0) + (request.grid_check ? 2 : 0);
+    z.dense = !protocol.flat() && points <= request.spectrum.dense_limit;
+    return z;
+  };
+  check_memory(work_cost(sizes(request.points, 0)), request.spectrum.memory_limit, "refused before computing");
+  if (request.grid_check && protocol.duration() > 0)
+    check_memory(work_cost(sizes(2 * request.points + 1, 0)), request.spectrum.memory_limit,
+                 "refused before computing (the check on twice the points)");
   Spectrum sa = box_spectrum(protocol, false, request, levels);
   InitialWeights weights_a =
       initial_weights(request.initial, sa.energies, request.thermal_tolerance, request.max_initial_levels);
@@ -622,6 +638,9 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
                   (request.order == SplitOrder::fourth ? "Yoshida triple jump (order 4)" : "Strang");
   result.initial_spectrum = sa;
   result.final_spectrum = sb;
+  const CostEstimate cost = work_cost(sizes(request.points, steps));
+  diag.estimated_bytes = cost.bytes;
+  diag.estimated_operations = cost.operations;
 
   const bool end_chirp = wa.rate() != 0 || wa.left.rate != 0 || wb.rate() != 0 || wb.left.rate != 0;
   // Progress in units of forward runs: forward 1, grid check 2, half step 2, reverse 1.

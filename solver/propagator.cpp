@@ -9,6 +9,8 @@
 #include <condition_variable>
 #include <cstdint>
 #include <cstdio>
+#include <string>
+#include <system_error>
 #include <thread>
 
 namespace trapwork {
@@ -175,10 +177,20 @@ __attribute__((target_clones("avx512f", "avx2", "default"))) void multiply(const
 // (next: the block the same worker runs after this one, or -1);
 // blocks are claimed in order from a shared counter, so a worker that the system pauses
 // holds up at most one block. Tasks must not throw.
+// A worker the system refuses to start (std::thread throws std::system_error: a process or
+// memory limit) is not waited for: the pool runs with the threads it could start, threads()
+// says how many, and refusal() gives the system's reason.
 class WorkerPool {
  public:
   explicit WorkerPool(int threads) {
-    for (int w = 1; w < threads; ++w) workers_.emplace_back([this, w] { serve(w); });
+    for (int w = 1; w < threads; ++w) {
+      try {
+        workers_.emplace_back([this, w] { serve(w); });
+      } catch (const std::system_error& e) {
+        refusal_ = e.what();
+        break;
+      }
+    }
   }
   ~WorkerPool() {
     {
@@ -191,6 +203,7 @@ class WorkerPool {
   WorkerPool(const WorkerPool&) = delete;
   WorkerPool& operator=(const WorkerPool&) = delete;
   int threads() const { return int(workers_.size()) + 1; }
+  const std::string& refusal() const { return refusal_; }  // empty: every thread started
 
   template <class Task>
   void run(int blocks, Task& task) {
@@ -238,6 +251,7 @@ class WorkerPool {
     }
   }
   std::vector<std::thread> workers_;
+  std::string refusal_;
   std::mutex mutex_;
   std::condition_variable wake_, done_;
   std::uint64_t generation_ = 0;
@@ -337,6 +351,7 @@ BatchedSplitStep& BatchedSplitStep::operator=(BatchedSplitStep&&) noexcept = def
 std::size_t BatchedSplitStep::points() const { return impl_->n; }
 int BatchedSplitStep::columns() const { return impl_->columns; }
 int BatchedSplitStep::threads() const { return impl_->pool.threads(); }
+const std::string& BatchedSplitStep::thread_refusal() const { return impl_->pool.refusal(); }
 int BatchedSplitStep::block_columns() const { return impl_->block; }
 
 void BatchedSplitStep::apply(Eigen::MatrixXcd& state, const complex* before, const complex* kinetic,

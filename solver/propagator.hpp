@@ -325,7 +325,8 @@ void triple_jump(Strang&& strang, double t, double dt) {
 class BatchedSplitStep {
  public:
   // points >= 1, columns >= 1, threads >= 1 (threads - 1 worker threads are started; the
-  // calling thread is the first worker).
+  // calling thread is the first worker). Workers the system refuses to start are left out:
+  // threads() is the number running, thread_refusal() the system's reason (empty: none).
   BatchedSplitStep(std::size_t points, int columns, bool sine_transform, int threads,
                    FftPlanning planning = FftPlanning::measure);
   ~BatchedSplitStep();
@@ -346,6 +347,7 @@ class BatchedSplitStep {
   std::size_t points() const;
   int columns() const;
   int threads() const;
+  const std::string& thread_refusal() const;
   int block_columns() const;
 
  private:
@@ -428,6 +430,10 @@ class SplitOperatorPropagator {
   int order() const { return static_cast<int>(order_); }
   const PotentialPath& path() const { return path_; }
   int columns() const { return columns_; }
+  // Threads running the passes (fewer than asked for when the system refused some; the
+  // results do not depend on it) and the system's reason (empty: every thread started).
+  int threads() const { return pass_.threads(); }
+  const std::string& thread_refusal() const { return pass_.thread_refusal(); }
   // Strang substeps per chunk of steps() (a whole number of steps; depends on the grid size).
   int chunk_substeps() const;
   // Largest potential phase spread (max V - min V) |h|/2 of a kick and T_max |dt| of a step

@@ -8,6 +8,7 @@
 #include <limits>
 #include <tuple>
 
+#include "solver/cost.hpp"
 #include "solver/errors.hpp"
 #include "solver/hamiltonian.hpp"
 #include "solver/units.hpp"
@@ -265,6 +266,8 @@ Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const Sp
     method = std::size_t(n) <= options.dense_limit ? EigenMethod::dense : EigenMethod::lanczos;
   if (method == EigenMethod::hermite)
     throw ContractViolation("solve_spectrum: the Hermite basis is handled by compute_spectrum");
+  check_memory(spectrum_cost(grid.size(), k, method == EigenMethod::dense, options.fd_order), options.memory_limit,
+               "refused before computing");
 
   Spectrum s;
   s.grid = grid;

@@ -39,6 +39,10 @@ struct SpectrumOptions {
   double residual_tolerance = 1e-9; // on ||H psi - E psi|| (energy units), lanczos refinement
   int refinement_sweeps = 8;        // at most this many Rayleigh-Ritz sweeps
   double degeneracy_tolerance = 1e-9;  // levels closer than this (energy units) form a group
+  // Memory a computation may use (bytes; 0: no limit): one whose estimate (solver/cost.hpp)
+  // exceeds it throws PhysicsError before allocating, with the estimate and what to change.
+  // The tool passes the machine's available memory; it does not change any result.
+  double memory_limit = 0;
   // Optional: spectra solved before from equal inputs (grid, samples, the options above) are
   // returned from here instead of solved again; the results are the same either way.
   std::shared_ptr<SpectrumMemo> memo;

@@ -231,6 +231,9 @@ WorkHistogram histogram(const WorkDistribution& d, double bin_width) {
   if (d.lines.empty()) return h;
   h.start = std::floor(d.lines.front().work / bin_width) * bin_width;
   const double span = d.lines.back().work - h.start;
+  if (!(span / bin_width < 1e7))  // 80 MB of bins: a bin width far below the work range's scale
+    throw PhysicsError("histogram: a bin width of " + fmt(bin_width) + " gives " + fmt(span / bin_width) +
+                       " bins over the work range of " + fmt(span) + ": set a wider [work] bin_width");
   h.probability.assign(std::size_t(std::floor(span / bin_width)) + 1, 0.0);
   for (const auto& l : d.lines) {
     const auto k = std::min(h.probability.size() - 1, std::size_t(std::floor((l.work - h.start) / bin_width)));
@@ -369,6 +372,7 @@ struct Run {
   Eigen::MatrixXcd amplitudes;  // A(n, m)
   StateEnergies energies;       // of the final states under H_B (v_final given)
   double norm_drift = 0, edge_amplitude = 0, max_phase = 0, arithmetic = 0;
+  std::string thread_shortfall;  // the threads the system refused to start, with its reason
 };
 
 // basis: the eigenbasis integrator's reference spectrum (of the same Hamiltonian as
@@ -403,6 +407,10 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
       const int substeps = steps * (order == SplitOrder::fourth ? 3 : 1);
       SplitOperatorPropagator prop(path, kept, order, request.threads,
                                    substeps < planning_substeps ? FftPlanning::estimate : FftPlanning::measure);
+      if (prop.threads() < request.threads)
+        run.thread_shortfall = "propagated with " + std::to_string(prop.threads()) + " of " +
+                               std::to_string(request.threads) + " threads: the system refused to start more (" +
+                               prop.thread_refusal() + "); the results do not depend on it, only the time taken";
       // Observed every finite_check_interval steps, so that propagate() runs the time-blocked
       // path between observations (max_phase() covers all steps since the last call).
       propagate(prop, psi, 0.0, tau, steps, observe_every(finite_check_interval, [&](const Eigen::MatrixXcd& s, double t) {
@@ -518,6 +526,22 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   const SpectrumOptions base_options = request.spectrum.options;
   const bool fixed_grid = request.spectrum.extent || request.spectrum.box;
   int levels = std::max(base_options.levels, std::min(request.max_initial_levels, 20) + request.final_margin);
+  // The sizes of the run on a grid (cost.hpp), for its memory check and its estimate.
+  auto run_sizes = [&](const Grid& g, int spectrum_levels, int steps) {
+    WorkSizes z;
+    z.points = g.size();
+    z.levels = spectrum_levels;
+    z.kept = std::min(request.max_initial_levels, spectrum_levels);
+    z.spectra = co_moving && request.reverse_run ? 4 : 2;
+    z.steps = tau > 0 ? steps : 0;
+    z.substeps = request.integrator == Integrator::strang ? 1 : 3;
+    z.runs = 1 + (request.time_step_check ? 2 : 0) + (request.reverse_run ? 1 : 0);
+    if (request.integrator == Integrator::eigenbasis)
+      z.basis_levels = request.eigenbasis_levels > 0 ? request.eigenbasis_levels : 2 * spectrum_levels;
+    z.dense = base_options.method == EigenMethod::dense ||
+              (base_options.method == EigenMethod::automatic && g.size() <= base_options.dense_limit);
+    return z;
+  };
   Spectrum sa, sb;  // forward grid: H_A and H_B (in the frame)
   InitialWeights wa;
   Grid grid = Grid::periodic(0, 1, 4);
@@ -554,6 +578,8 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
       grid = Grid::periodic(left, right, *request.spectrum.points);
     else
       grid = Grid::periodic(left, right, fast_fft_size(std::size_t(std::ceil((right - left) / dx))));
+    check_memory(work_cost(run_sizes(grid, levels, 0)), request.spectrum.options.memory_limit,
+                 "refused before computing");
     const auto x = grid.points();
     sr.options.levels = levels;
     sa = spectrum_on(grid, samples(va, x), sr.options, cutoff);
@@ -590,6 +616,10 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
                   : request.integrator == Integrator::fourth_order ? "split-operator Yoshida triple jump (order 4)"
                                                                    : "eigenbasis ODE (Dormand-Prince 5(4))";
   if (co_moving) result.method += ", co-moving frame";
+  const CostEstimate cost = work_cost(run_sizes(grid, levels, steps));
+  result.diagnostics.estimated_bytes = cost.bytes;
+  result.diagnostics.estimated_operations = cost.operations;
+  if (request.on_estimate) request.on_estimate(cost);
 
   const auto forward_path = co_moving ? PotentialPath::co_moving(grid, base, protocol) : PotentialPath::lab(grid, base, protocol);
   const bool reverse = request.reverse_run && wa.gibbs;
@@ -621,6 +651,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   diag.max_phase_per_step = fwd.max_phase;
   diag.ode_arithmetic = fwd.arithmetic;
   diag.ode_basis_levels = int(basis_a.energies.size());
+  if (!fwd.thread_shortfall.empty()) diag.warnings.push_back(fwd.thread_shortfall);
   diag.unresolved_weight = result.distribution.unresolved_weight;
   diag.jarzynski_residual = result.distribution.jarzynski_residual;
   diag.moments = moment_errors(result.forward, result.distribution, fwd.energies, wa.choice.left_out,
@@ -711,6 +742,9 @@ WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkR
     r.final_margin *= 2;
     r.thermal_tolerance /= 1e3;
     r.max_initial_levels *= 2;
+    // the whole work runs again: a new stage, so that progress does not sit at 100 % meanwhile
+    if (r.stage)
+      r.stage("more levels (escape probability " + fmt(escape) + "), run " + std::to_string(attempt + 2) + " of at most 3");
   }
 }
 

@@ -21,6 +21,7 @@
 #include <vector>
 
 #include "potentials/protocol.hpp"
+#include "solver/cost.hpp"
 #include "solver/propagator.hpp"
 #include "solver/spectrum.hpp"
 #include "solver/thermal.hpp"
@@ -198,6 +199,9 @@ struct Diagnostics {
   double ode_arithmetic = 0;      // eigenbasis: estimated operations of the forward run (0: split)
   int ode_basis_levels = 0;       // eigenbasis: levels of its basis (0: split)
   MomentErrors moments;           // direct moments and the error of the line moments
+  // Cost estimated before the propagation (solver/cost.hpp, work_cost) from the sizes chosen:
+  // peak memory of the large arrays (bytes) and the propagations' floating-point operations.
+  double estimated_bytes = 0, estimated_operations = 0;
   std::vector<std::string> warnings;  // each with the diagnostic value and what to change
 };
 
@@ -229,6 +233,14 @@ struct WorkRequest {
                                      // final states of H_B need more levels of H_A than L)
   int threads = 1;                   // propagator worker threads (results independent of it)
   std::function<void(double fraction)> progress;  // optional, called with 0..1
+  // Optional: called with a new stage's name when the work restarts (run_work's enlargement of
+  // the levels); the progress then runs from 0 to 1 again for that stage.
+  std::function<void(const std::string& stage)> stage;
+  // Optional: called once the grid, levels and steps are chosen, before the propagation, with
+  // the estimated memory and arithmetic (the tool prints it for long runs). The memory limit
+  // is request.spectrum.options.memory_limit: a run estimated above it throws PhysicsError
+  // before its spectra on the common grid are computed.
+  std::function<void(const CostEstimate&)> on_estimate;
 };
 
 // Harmonic reference prediction for the trap's harmonic part (omega_h = the summed harmonic

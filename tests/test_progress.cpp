@@ -157,3 +157,27 @@ TEST_CASE("updates from several threads end in one consistent final line", "[pro
   CHECK(last_line(s).find("[" + std::string(ProgressBar::bar_width, '#') + "]") !=
         std::string::npos);
 }
+
+TEST_CASE("restart ends the line as it stands and draws a new stage from 0 %", "[progress]") {
+  std::ostringstream out;
+  FakeClock clock;
+  ProgressBar bar("propagating", 100, out, true, clock.function());
+  clock.now = 5;
+  bar.update(100);
+  clock.now = 6;
+  bar.restart("more levels");
+  const std::string text = out.str();
+  const std::size_t newline = text.rfind('\n');
+  REQUIRE(newline != std::string::npos);
+  CHECK(text.substr(0, newline).find("100%") != std::string::npos);  // the first stage, ended
+  const std::string line = last_line(text);
+  CHECK(line.find("more levels [") == 0);
+  CHECK(line.find("  0%") != std::string::npos);
+  CHECK(line.find("elapsed 0s") != std::string::npos);  // its own clock
+  clock.now = 8;
+  bar.update(50);
+  CHECK(last_line(out.str()).find(" 50%") != std::string::npos);
+  bar.finish();
+  bar.restart("after finish");  // does nothing
+  CHECK(out.str().find("after finish") == std::string::npos);
+}

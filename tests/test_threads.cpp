@@ -10,9 +10,15 @@
 // output.hpp before <sys/wait.h>, whose si_value macro would clash with Quantity::si_value
 #include "solver/tool/output.hpp"
 
+#include <dlfcn.h>
+#include <pthread.h>
 #include <sys/wait.h>
+#include <unistd.h>
 
 #include <catch2/catch.hpp>
+#include <cerrno>
+#include <functional>
+#include <iostream>
 #include <cmath>
 #include <filesystem>
 #include <fstream>
@@ -21,11 +27,33 @@
 #include <vector>
 
 #include "scratch_files.hpp"
+#include "solver/tool/commands.hpp"
 #include "solver/tool/scenario.hpp"
 #include "solver/work.hpp"
 
 using namespace trapwork;
 namespace fs = std::filesystem;
+
+// Test hook (this executable only, never the library): pthread_create, which std::thread
+// calls, is interposed here so that a test can make the system refuse threads as a process
+// limit would (ulimit -u; root is exempt from it, so the limit itself cannot be used). It
+// starts `threads_allowed` more threads, refuses the next one with EAGAIN, then starts threads
+// again (so that libraries used afterwards, such as the plots' font code, are not affected);
+// negative: no refusal. The code under test stops asking at the first refusal.
+namespace {
+int threads_allowed = -1;
+}
+extern "C" int pthread_create(pthread_t* thread, const pthread_attr_t* attributes, void* (*start)(void*),
+                              void* argument) {
+  using Create = int (*)(pthread_t*, const pthread_attr_t*, void* (*)(void*), void*);
+  static const Create real = reinterpret_cast<Create>(dlsym(RTLD_NEXT, "pthread_create"));
+  if (threads_allowed == 0) {
+    threads_allowed = -1;
+    return EAGAIN;
+  }
+  if (threads_allowed > 0) --threads_allowed;
+  return real(thread, attributes, start, argument);
+}
 
 namespace {
 constexpr double tolerance = 1e-12;  // see the file comment
@@ -152,5 +180,87 @@ TEST_CASE("trapwork sweep with --jobs 1 and --jobs 2 writes the same numbers", "
       // energies in h*kHz are about 1000 times the internal ones: the bound is relative
       CHECK(same_or_both_nan(one[r][c], two[r][c], tolerance));
     }
+  }
+}
+
+namespace {
+// Runs `body` in a forked child whose thread number `allowed` + 1 is refused; the child's exit code is
+// body's result (0: as expected; otherwise it printed why). A child that does not finish in
+// 120 s is killed by its alarm: a hang fails the test instead of stopping the suite.
+int in_child_with_threads(int allowed, const std::function<int()>& body) {
+  std::cout.flush();
+  const pid_t pid = fork();
+  if (pid == 0) {
+    alarm(120);
+    threads_allowed = allowed;
+    int code = 3;
+    try {
+      code = body();
+    } catch (const std::exception& e) {
+      std::cerr << "child: exception: " << e.what() << '\n';
+      code = 4;
+    }
+    std::cout.flush();
+    std::cerr.flush();
+    _exit(code);
+  }
+  int status = 0;
+  waitpid(pid, &status, 0);
+  if (WIFSIGNALED(status)) return 128 + WTERMSIG(status);  // 142: the alarm (a hang); 134: abort (terminate)
+  return WEXITSTATUS(status);
+}
+}  // namespace
+
+TEST_CASE("issue 14: a worker thread the system refuses to start neither hangs nor aborts the run", "[threads]") {
+  const WorkResult reference = run_with_threads(1);
+  for (int allowed : {0, 1}) {  // none of the 3 workers of a 4-thread pool, or only the first
+    INFO("worker threads the system starts: " << allowed << " (child exit 142: hung, 134: aborted)");
+    const int code = in_child_with_threads(allowed, [&] {
+      const WorkResult r = run_with_threads(4);
+      const std::string expected = "propagated with " + std::to_string(allowed + 1) + " of 4 threads";
+      bool said = false;
+      for (const auto& w : r.diagnostics.warnings) said = said || w.find(expected) != std::string::npos;
+      if (!said) {
+        std::cerr << "child: no warning \"" << expected << "\"\n";
+        return 1;
+      }
+      // the same numbers as one thread (the block split does not depend on the thread count)
+      const double worst = (r.forward.transitions.probability - reference.forward.transitions.probability)
+                               .cwiseAbs()
+                               .maxCoeff();
+      if (!(worst <= tolerance) || !(std::abs(r.distribution.mean - reference.distribution.mean) <= tolerance)) {
+        std::cerr << "child: results differ from one thread by " << worst << '\n';
+        return 2;
+      }
+      return 0;
+    });
+    CHECK(code == 0);
+  }
+}
+
+TEST_CASE("issue 14: a sweep whose point threads the system refuses runs on the threads it has", "[threads][cli]") {
+  const fs::path dir = trapwork_test::scratch_dir("test-threads", "refused");
+  std::ofstream(dir / "sweep.toml") << scenario_text
+                                    << "[sweep]\nparameter = \"protocol.duration\"\n"
+                                       "values = [\"1.5 us\", \"0.6 us\", \"1.3 us\"]\n";
+  for (int allowed : {0, 1}) {  // no thread for the points (they run on the caller), or one of 3
+    INFO("point threads the system starts: " << allowed << " (child exit 142: hung, 134: aborted)");
+    const fs::path out = dir / ("allowed" + std::to_string(allowed));
+    const int code = in_child_with_threads(allowed, [&] {
+      SweepCommand c;
+      c.scenario = (dir / "sweep.toml").string();
+      c.output = out.string();
+      c.jobs = 3;
+      std::ostringstream report, progress;
+      run_sweep_command(c, report, progress);
+      const std::string expected = std::to_string(std::max(allowed, 1)) + " at a time (of 3 asked for: the system refused";
+      if (report.str().find(expected) == std::string::npos) {
+        std::cerr << "child: the report does not say \"" << expected << "\":\n" << report.str();
+        return 1;
+      }
+      return 0;
+    });
+    CHECK(code == 0);
+    CHECK(trapwork_test::csv_rows(trapwork_test::read_all(out / "sweep.csv")).size() == 3);
   }
 }

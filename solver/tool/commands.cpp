@@ -7,6 +7,7 @@
 
 #include "solver/errors.hpp"
 #include "solver/tool/output.hpp"
+#include "solver/tool/machine.hpp"
 
 namespace trapwork {
 
@@ -68,6 +69,7 @@ void run_spectrum(const SpectrumCommand& command, std::ostream& out) {
   if (command.levels) scenario.spectrum.options.levels = *command.levels;
   OutputRun output(scenario.output_folder, {"spectrum.csv", "states.csv", "summary.json"}, scenario_inputs(scenario),
                    "trapwork spectrum " + scenario.file);
+  scenario.spectrum.options.memory_limit = available_memory_bytes();  // refused before it allocates
   SpectrumResult result;
   try {
     result = compute_spectrum(scenario.potential, scenario.spectrum);

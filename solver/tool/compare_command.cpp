@@ -9,6 +9,7 @@
 #include "solver/tool/commands.hpp"
 #include "solver/tool/data_files.hpp"
 #include "solver/tool/plot.hpp"
+#include "solver/tool/machine.hpp"
 #include "solver/tool/progress.hpp"
 #include "solver/tool/work_output.hpp"
 
@@ -20,11 +21,13 @@ ScenarioWork model_work(const Scenario& scenario, std::ostream& progress, bool s
   WorkRequest request = work_request(scenario);
   request.reverse_run = false;  // only the forward distribution is compared; the reverse run serves Crooks
   ProgressBar bar("propagating", 1000, progress, show_progress);
-  request.progress = [&bar](double fraction) { bar.update(std::size_t(fraction * 1000)); };
+  watch_work(request, bar, show_progress ? &progress : nullptr);
   try {
     ScenarioWork w = compute_work(scenario, request);
     bar.finish();
     w.request.progress = nullptr;  // the bar ends here
+    w.request.stage = nullptr;
+    w.request.on_estimate = nullptr;
     return w;
   } catch (const PhysicsError& e) {
     throw PhysicsError(scenario.file + ": " + e.what());

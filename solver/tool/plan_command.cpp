@@ -3,6 +3,7 @@
 // (solver/plan.hpp); optionally one synthetic data set to rehearse `trapwork compare` on.
 #include <cmath>
 #include <cstdio>
+#include <cstdlib>
 #include <iostream>
 #include <memory>
 
@@ -10,6 +11,7 @@
 #include "solver/plan.hpp"
 #include "solver/tool/commands.hpp"
 #include "solver/tool/plot.hpp"
+#include "solver/tool/machine.hpp"
 #include "solver/tool/progress.hpp"
 #include "solver/tool/work_output.hpp"
 
@@ -52,6 +54,22 @@ PlanOutcome run_plan_command(const PlanCommand& command, std::ostream& out, std:
     if (n < 1) throw InputError("--runs", std::to_string(n), "numbers of runs >= 1");
   if (command.target_kT && !(*command.target_kT > 0 && std::isfinite(*command.target_kT)))
     throw InputError("--target", std::to_string(*command.target_kT), "a target precision > 0 (kT)");
+
+  // Cost before commitment (solver/cost.hpp): one experiment's samples in memory at a time,
+  // experiments x runs x resolutions draws (the --target search is not counted: it stops at
+  // 2^20 runs).
+  double largest_runs = command.synthetic_runs, draws = 0;
+  for (int n : command.runs) {
+    largest_runs = std::max(largest_runs, double(n));
+    draws += double(n) * double(command.experiments) * double(resolutions.size());
+  }
+  const CostEstimate cost = plan_cost(largest_runs, draws, 1000);
+  check_memory(cost, available_memory_bytes(), "--runs");
+  const bool long_plan = estimated_seconds(cost.operations) > long_run_seconds;
+  if (long_plan && !command.quiet)
+    progress << "trapwork: plan " << cost_text(cost) << " (" << short_number(draws, 3)
+             << " synthetic runs; lower --runs or --experiments for less)\n"
+             << std::flush;
 
   if (!scenario.work || !scenario.work->request.initial.is_gibbs())
     throw InputError("initial", scenario.work ? scenario.work->initial_given : "",
@@ -189,6 +207,7 @@ PlanOutcome run_plan_command(const PlanCommand& command, std::ostream& out, std:
   print_row(out, "method", std::to_string(command.experiments) + " synthetic experiments per N (seed " +
                                std::to_string(command.seed) + ")" +
                                (command.correct_resolution ? ", resolution bias corrected" : ""));
+  if (long_plan) print_row(out, "cost", cost_text(cost) + " (estimated before the experiments)");
   char line[240];
   std::snprintf(line, sizeof line, "\n  %14s %8s %11s %11s %11s %11s %13s\n", ("sigma [" + d.e + "]").c_str(), "N",
                 "bias [kT]", "+- [kT]", "spread [kT]", "rms [kT]", "delta m. [kT]");
@@ -226,6 +245,14 @@ void add_plan_command(CLI::App& app) {
       ->required();
   sub->add_option("--runs", command->runs, "numbers of runs N per experiment (comma-separated)")
       ->delimiter(',')
+      ->transform([](const std::string& text) {  // "2e9" is a whole number of runs too
+        char* end = nullptr;
+        const double v = std::strtod(text.c_str(), &end);
+        if (end == text.c_str() || *end != '\0' || v != std::floor(v)) return text;  // CLI11 reports it
+        if (!(std::abs(v) <= 2147483647.0))
+          throw CLI::ValidationError(text + ": at most 2147483647 runs per experiment");
+        return std::to_string(static_cast<long long>(v));
+      })
       ->capture_default_str();
   sub->add_option("--resolution", command->resolutions,
                   "resolutions sigma of the measured work, e.g. \"0 h*kHz,40 h*kHz\" (default 0)")

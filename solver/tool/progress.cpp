@@ -64,6 +64,23 @@ void ProgressBar::finish() {
   out_ << '\n' << std::flush;
 }
 
+void ProgressBar::restart(std::string label) {
+  if (!enabled_) return;
+  std::lock_guard<std::mutex> lock(mutex_);
+  if (finished_) return;
+  const double now = clock_();
+  if (drawn_) {
+    draw(now);
+    out_ << '\n';
+  }
+  label_ = std::move(label);
+  done_ = 0;
+  start_ = now;
+  drawn_ = false;
+  line_length_ = 0;
+  draw(now);
+}
+
 void ProgressBar::draw(double now) {
   const double fraction = static_cast<double>(done_) / static_cast<double>(total_);
   const double elapsed = now - start_;

@@ -38,6 +38,10 @@ class ProgressBar {
   void update(std::size_t done);
   // Draws the final state and ends the line with '\n'. Later calls and updates do nothing.
   void finish();
+  // A new stage of the run whose progress starts again from 0 (for example the whole work
+  // repeated with more levels): ends the current line as it stands and starts a fresh bar
+  // with this label, its own elapsed time and estimate. Does nothing after finish().
+  void restart(std::string label);
 
   // True when stderr is a terminal (isatty(STDERR_FILENO)).
   static bool terminal_allows();

@@ -10,11 +10,13 @@
 #include <memory>
 #include <mutex>
 #include <sstream>
+#include <system_error>
 #include <thread>
 #include <unistd.h>
 
 #include "solver/errors.hpp"
 #include "solver/tool/commands.hpp"
+#include "solver/tool/machine.hpp"
 #include "solver/tool/progress.hpp"
 #include "solver/tool/work_output.hpp"
 
@@ -169,9 +171,12 @@ void run_work_command(const WorkCommand& command, std::ostream& out, std::ostrea
     bar.finish();
   } else {
     ProgressBar bar("propagating", 1000, progress, command.show_progress);
-    request.progress = [&bar](double fraction) { bar.update(std::size_t(fraction * 1000)); };
+    watch_work(request, bar, command.quiet ? nullptr : &progress);
     direct = naming_scenario(scenario.file, scenario, [&] { return compute_work(scenario, request); });
     bar.finish();
+    direct->request.progress = nullptr;  // the bar ends here
+    direct->request.stage = nullptr;
+    direct->request.on_estimate = nullptr;
   }
   const Scenario& used = choice ? choice->scenario : scenario;
   WorkRun run = choice ? choice->work->run(used) : direct->run(used);
@@ -286,6 +291,8 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
   std::exception_ptr error;
   std::atomic<std::size_t> next{0};
   std::atomic<bool> stop{false};
+  // Each of the points run at once may use its share of the memory available now.
+  const double memory_per_point = available_memory_bytes() / double(std::max<std::size_t>(1, jobs));
   // Points share their spectra where they have the same H_A or H_B (a duration sweep: all).
   const auto memo = std::make_shared<SpectrumMemo>();
   auto worker = [&] {
@@ -301,6 +308,7 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
           WorkRequest request = work_request(point);
           request.threads = 1;
           request.spectrum.options.memo = memo;
+          request.spectrum.options.memory_limit = memory_per_point;
           const ScenarioWork work = naming_scenario(
               scenario.file + ": sweep point " + sweep.parameter + " = " + sweep.given[i], point,
               [&] { return compute_work(point, request); });
@@ -321,8 +329,19 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
       }
     }
   };
+  // Points run on the threads the system lets us start; with none, on this one (said in the
+  // report: the sweep is slower, its results the same).
   std::vector<std::thread> threads;
-  for (std::size_t j = 0; j < std::min(jobs, todo.size()); ++j) threads.emplace_back(worker);
+  std::string refusal;
+  for (std::size_t j = 0; j < std::min(jobs, todo.size()); ++j) {
+    try {
+      threads.emplace_back(worker);
+    } catch (const std::system_error& e) {
+      refusal = e.what();
+      break;
+    }
+  }
+  if (threads.empty() && !todo.empty()) worker();
   for (auto& t : threads) t.join();
   if (error) std::rethrow_exception(error);
   bar.finish();
@@ -340,8 +359,13 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
   if (command.quiet) return;
 
   print_scenario_header(out, "sweep", scenario);
-  print_row(out, "sweep", sweep.parameter + ", " + std::to_string(points) + " points, " + std::to_string(jobs) +
-                              " at a time");
+  const std::size_t started = refusal.empty() ? jobs : std::max<std::size_t>(1, threads.size());
+  print_row(out, "sweep", sweep.parameter + ", " + std::to_string(points) + " points, " + std::to_string(started) +
+                              " at a time" +
+                              (refusal.empty() ? std::string()
+                                               : " (of " + std::to_string(std::min(jobs, todo.size())) +
+                                                     " asked for: the system refused to start more threads: " +
+                                                     refusal + ")"));
   if (command.resume)
     print_row(out, "resumed", std::to_string(resumed) + " of " + std::to_string(points) + " points from " +
                                   points_file.string() + ", " + std::to_string(todo.size()) + " computed now" +

@@ -11,6 +11,7 @@
 
 #include "solver/errors.hpp"
 #include "solver/harmonic_reference.hpp"
+#include "solver/tool/machine.hpp"
 #include "solver/tool/plot.hpp"
 
 namespace trapwork {
@@ -204,6 +205,7 @@ std::optional<std::pair<double, double>> constant_speed_translation(const Scenar
 }  // namespace
 
 ScenarioWork compute_work(const Scenario& s, WorkRequest request) {
+  if (!(request.spectrum.options.memory_limit > 0)) request.spectrum.options.memory_limit = available_memory_bytes();
   ScenarioWork w{build_protocol(s), std::move(request), std::nullopt, std::nullopt, {}};
   if (moves_walls(s)) {
     const WallProtocol walls = build_wall_protocol(s);
@@ -211,6 +213,7 @@ ScenarioWork compute_work(const Scenario& s, WorkRequest request) {
     const auto& report = w.request.progress;  // the hard-wall run, then the soft-wall runs (if any)
     const double hard_share = s.soft_walls ? 0.5 : 1.0;
     if (report) wr.progress = [&report, hard_share](double f) { report(hard_share * f); };
+    wr.spectrum.memory_limit = w.request.spectrum.options.memory_limit;
     w.walls = run_wall_work(walls, wr);
     if (s.soft_walls) {
       SoftWallRequest soft = *s.soft_walls;
@@ -429,9 +432,14 @@ double resolution_of(const WorkRun& run) {
   return w && w->resolution ? *w->resolution : lowest_spacing(run.result) / 20;
 }
 
+// Default: the lowest spacing, widened where needed so that the histogram has at most 4000 bins
+// (a tunnelling doublet's splitting, say 1e-8 of the work range, would ask for 1e8 of them).
 double bin_width_of(const WorkRun& run) {
   const auto& w = run.scenario.work;
-  return w && w->bin_width ? *w->bin_width : lowest_spacing(run.result);
+  if (w && w->bin_width) return *w->bin_width;
+  const auto& lines = run.result.distribution.lines;
+  const double span = lines.empty() ? 0.0 : lines.back().work - lines.front().work;
+  return std::max(lowest_spacing(run.result), span / 4000);
 }
 
 double defined_skewness(const WorkDistribution& d) {
@@ -552,7 +560,8 @@ CsvTable histogram_table(const WorkRun& run) {
   }
   t.comments = {"trapwork work: histogram of P(W), bins [bin_start, bin_end) of width " +
                     number_text(e.show(h.width)) + " " + e.d.e,
-                "bin width: [work] bin_width, default the lowest level spacing of the initial trap"};
+                "bin width: [work] bin_width, default the lowest level spacing of the initial trap (at least 1/4000 "
+                "of the work range)"};
   return t;
 }
 
@@ -819,6 +828,8 @@ json work_summary(const WorkRun& run) {
         {"max_phase_per_step", g.max_phase_per_step},
         {"grid_convergence", number_or_null(g.grid_convergence)},
         {"grid_convergence_unit", "internal energy (hbar^2/(m L0^2))"},
+        {"estimated_memory_bytes", g.estimated_bytes},        // before the propagation (solver/cost.hpp)
+        {"estimated_operations", g.estimated_operations},
         {"checks", checks}}},
       {"warnings", work_warnings(run)},
   };
@@ -966,6 +977,10 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
                                                  short_number(r.diagnostics.truncation.thermal_tail, 2) + ")"
                                            : std::string()) +
                     ", " + std::to_string(r.forward.transitions.final_levels()) + " final levels");
+  // a long run says what it was estimated to cost before it started (solver/cost.hpp)
+  if (estimated_seconds(r.diagnostics.estimated_operations, run.request.threads) > long_run_seconds)
+    row("cost", cost_text({r.diagnostics.estimated_bytes, r.diagnostics.estimated_operations, "", ""},
+                          run.request.threads) + " (estimated before the propagation)");
 
   out << "\nwork statistics\n";
   const MomentErrors& mom = r.diagnostics.moments;

@@ -102,7 +102,8 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
 // Lowest level spacing E_1 - E_0 of H_A (internal energy; NaN with one level).
 double lowest_spacing(const WorkResult& result);
 // The energy resolution and histogram bin used: [work] resolution and bin_width, or the
-// defaults 1/20 of the lowest spacing and the lowest spacing.
+// defaults 1/20 of the lowest spacing and the lowest spacing (at least 1/4000 of the work range,
+// so that a tunnelling doublet does not ask for 1e8 bins).
 double resolution_of(const WorkRun& run);
 double bin_width_of(const WorkRun& run);
 
