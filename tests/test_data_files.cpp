@@ -250,6 +250,9 @@ TEST_CASE("issue 14: histogram counts are whole numbers read exactly and summed 
   check_error([&] { read_work_histogram_text(head + "0 1 9007199254740993\n", "data.csv"); }, 2, 5,
               {"count = 9007199254740993", "a double holds exactly"});
   check_error([&] { read_work_histogram_text(head + "0 1 1e19\n", "data.csv"); }, 2, 5, {"below 2^63"});
+  check_error([&] { read_work_histogram_text(head + "0 1 1.5e-2147483648\n", "data.csv"); }, 2, 5, {"count"});
+  CHECK(read_work_histogram_text(head + "0 1 0.0e-2147483647\n1 2 12.5e1\n", "data.csv").counts ==
+        std::vector<double>{0, 125});
   check_error([&] { read_work_histogram_text(head + "0 1 5e18\n1 2 5e18\n", "data.csv"); }, 3, 5,
               {"total stays below 2^63"});
   // the library refuses what it cannot count too

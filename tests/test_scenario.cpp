@@ -556,6 +556,8 @@ points = 3
   CHECK(s.sweep->values.size() == 3);
   CHECK(close(s.sweep->values[1], 2e-6 / T0));
   CHECK(s.sweep->unit == "us");
+  // what the ramp table held besides data is kept for the report (issue 14: nothing silent)
+  CHECK(s.protocol->changes[0].file_skipped == "header line 1 (t, value)");
 
   // A formula in lab units: value_unit "nm", time_unit "us", pi, and sqrt left alone.
   const Scenario f = read_scenario_text(ion + R"toml([protocol]

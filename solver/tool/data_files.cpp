@@ -366,6 +366,8 @@ std::optional<std::int64_t> exact_count(std::string_view s) {
     if (from < s.data() + s.size() && *from == '+') ++from;
     const auto [end, ec] = std::from_chars(from, s.data() + s.size(), e);
     if (ec != std::errc() || end != s.data() + s.size() || from == s.data() + s.size()) return std::nullopt;
+    if (e > 400 || e < -400)  // far beyond 2^63 or below 1: whole only when the digits are zeros
+      return digits.find_first_not_of('0') == std::string::npos ? std::optional<std::int64_t>(0) : std::nullopt;
     exponent += e;
   } else if (i != s.size()) {
     return std::nullopt;

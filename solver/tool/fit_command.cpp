@@ -273,7 +273,8 @@ FitResultFiles run_fit_command(const FitCommand& command, std::ostream& out) {
   const std::vector<TrapCoefficient> free = parse_terms(command.terms);
   const fs::path folder =
       command.output.empty() ? fs::path(fs::path(command.data).stem().string() + "-fit") : fs::path(command.output);
-  std::vector<OutputRun::Input> inputs = scenario_inputs(start);
+  std::vector<OutputRun::Input> inputs;  // no start file with --mass and --frequency
+  if (!command.start.empty()) inputs = scenario_inputs(start);
   inputs.push_back({command.data, "the data file"});
   OutputRun output(folder, {"fitted.toml", "fit_lines.csv", "fit_summary.json"}, inputs,
                    "trapwork fit " + command.data);

@@ -800,7 +800,7 @@ ChangeSpec Reader::read_change(const toml::table& t, const std::string& prefix, 
     const toml::node& file = *t.get("file");
     if (!file.is_string()) fail(file, prefix + ".file", "a file name in quotes");
     c.file = file.as_string()->get();
-    PotentialTable data = read_table_file(file, prefix + ".file", t_per, v_per, {"t", "value"});
+    PotentialTable data = read_table_file(file, prefix + ".file", t_per, v_per, {"t", "value"}, &c.file_skipped);
     if (data.x.front() > 0 || data.x.back() < tau)
       fail(file, prefix + ".file",
            "a table covering the protocol from t = 0 to the duration (" + exact_text(conversion_rounded(tau / t_per)) + " " +

@@ -81,6 +81,7 @@ struct ChangeSpec {
   std::string from_given, to_given;   // text in the file
   std::vector<double> times, values;  // table (internal)
   std::string file;                   // table file as given
+  std::string file_skipped;           // what the table file held besides data ("header line 1 (t, x)")
   std::string formula;                // formula as written
   std::string internal_formula;       // what Schedule::formula receives (unit factors applied)
   std::string time_unit, value_unit;  // table and formula

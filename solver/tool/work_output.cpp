@@ -98,7 +98,8 @@ std::string change_text(const Scenario& s, const ChangeSpec& c) {
     case ScheduleForm::constant: return c.parameter + " held at " + unquoted(c.to_given);
     case ScheduleForm::table:
       return c.parameter + ": table " + c.file + " (" + std::to_string(c.times.size()) + " rows, t in " +
-             c.time_unit + (c.value_unit.empty() ? "" : ", value in " + c.value_unit) + ")";
+             c.time_unit + (c.value_unit.empty() ? "" : ", value in " + c.value_unit) +
+             (c.file_skipped.empty() ? "" : "; skipped " + c.file_skipped) + ")";
     case ScheduleForm::formula:
       return c.parameter + " = " + c.formula + " (t in " + c.time_unit +
              (c.value_unit.empty() ? "" : ", value in " + c.value_unit) + ")";
