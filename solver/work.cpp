@@ -474,7 +474,12 @@ std::optional<HarmonicComparison> harmonic_comparison(const Potential& base, con
     for (auto& p : ref.initial_weights) p /= sum;
   }
   h.distribution = work_distribution(ref, merge_tolerance);
-  h.mean_work = h.distribution.mean;
+  // <W> in closed form over all levels for a Gibbs state, not on the run's truncated basis, so
+  // that the departure also shows the run's truncation: hbar omega |alpha|^2 (displaced; any
+  // temperature) or parametric_mean_work (Husimi)
+  h.mean_work = !forward.beta ? h.distribution.mean
+                : h.model.rfind("displaced", 0) == 0 ? w0 * h.parameter
+                                                     : parametric_mean_work(w0, w1, h.parameter, *forward.beta);
   h.max_line_difference = (h.reference.probability - forward.transitions.probability).cwiseAbs().maxCoeff();
   return h;
 }

@@ -699,6 +699,7 @@ json work_summary(const WorkRun& run) {
         {"sd_error", energy(sd_error_of(d, g.moments))},
         {"moments", moments_json(g.moments, energy)},
         {"skewness", d.skewness},
+        {"skewness_error_known", false},
         {"free_energy_change", energy(d.free_energy_change)},
         {"dissipated_work", energy(d.dissipated_work)},
         {"resolved_weight", d.resolved_weight},
@@ -882,7 +883,7 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
                        e.text(std::sqrt(std::max(0.0, mom.variance_direct)), 10) + "; <W> error parts: final levels " +
                        e.text(std::abs(mom.mean_final), 2) + ", thermal cut " + e.text(mom.mean_thermal, 2) +
                        ", basis " + (std::isfinite(mom.mean_basis) ? e.text(mom.mean_basis, 2) : std::string("not known")));
-  row("skewness", short_number(d.skewness, 4));
+  row("skewness", short_number(d.skewness, 4) + "  (error not estimated: line sum only)");
   if (std::isfinite(d.free_energy_change)) {
     row("Delta F", e.text(d.free_energy_change));
     row("dissipated", e.text(d.dissipated_work) + "  (<W> - Delta F)");
