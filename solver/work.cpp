@@ -215,8 +215,11 @@ std::string moment_warning(const MomentErrors& e, int final_levels, const std::s
                      fmt(std::max(std::abs(e.mean_final), std::abs(e.variance_final))) + ", thermal cut " +
                      fmt(std::max(e.mean_thermal, e.variance_thermal)) + ", basis " +
                      fmt(std::max(e.mean_basis, e.variance_basis)) + "); likely cause: ";
-  if (part == "final")
+  if (part == "final") {
     text += "too few final levels (" + std::to_string(final_levels) + "): raise final_margin";
+    const double basis = std::max(e.mean_basis / e.scale_mean, e.variance_basis / e.scale_variance);
+    if (!(basis <= e.tolerance)) text += "; then the basis part also misses it: " + basis_cause;
+  }
   else if (part == "thermal")
     text += "the thermal cut: lower thermal_tolerance";
   else
