@@ -215,8 +215,11 @@ std::string moment_warning(const MomentErrors& e, int final_levels, const std::s
                      fmt(std::max(std::abs(e.mean_final), std::abs(e.variance_final))) + ", thermal cut " +
                      fmt(std::max(e.mean_thermal, e.variance_thermal)) + ", basis " +
                      fmt(std::max(e.mean_basis, e.variance_basis)) + "); likely cause: ";
-  if (part == "final")
+  if (part == "final") {
     text += "too few final levels (" + std::to_string(final_levels) + "): raise final_margin";
+    const double basis = std::max(e.mean_basis / e.scale_mean, e.variance_basis / e.scale_variance);
+    if (!(basis <= e.tolerance)) text += "; then the basis part also misses it: " + basis_cause;
+  }
   else if (part == "thermal")
     text += "the thermal cut: lower thermal_tolerance";
   else
@@ -499,7 +502,12 @@ std::optional<HarmonicComparison> harmonic_comparison(const Potential& base, con
     for (auto& p : ref.initial_weights) p /= sum;
   }
   h.distribution = work_distribution(ref, merge_tolerance);
-  h.mean_work = h.distribution.mean;
+  // <W> in closed form over all levels for a Gibbs state, not on the run's truncated basis, so
+  // that the departure also shows the run's truncation: hbar omega |alpha|^2 (displaced; any
+  // temperature) or parametric_mean_work (Husimi)
+  h.mean_work = !forward.beta ? h.distribution.mean
+                : h.model.rfind("displaced", 0) == 0 ? w0 * h.parameter
+                                                     : parametric_mean_work(w0, w1, h.parameter, *forward.beta);
   h.max_line_difference = (h.reference.probability - forward.transitions.probability).cwiseAbs().maxCoeff();
   return h;
 }

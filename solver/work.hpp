@@ -254,7 +254,8 @@ struct HarmonicComparison {
   TransitionMatrix reference;      // analytic P(m->n), same shape as the numeric one
   WorkDistribution distribution;   // harmonic energies, harmonic Gibbs weights at the same beta
   double max_line_difference = 0;  // max |P(m->n) - P_ref(m->n)| by level index
-  double mean_work = 0;            // analytic <W> (= distribution.mean)
+  double mean_work = 0;            // analytic <W>: closed form over all levels for a Gibbs state
+                                   // (distribution.mean, on the run's levels, otherwise)
 };
 
 struct WorkResult {

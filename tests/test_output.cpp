@@ -255,6 +255,8 @@ TEST_CASE("issue 14: SIGTERM during the write phase leaves the previous run whol
   CHECK(read_all(dir / "b.csv") == "old b\n");
   CHECK_FALSE(has_staging(dir));
   OutputRun next(dir, names, {}, "t");  // the lock died with the child
+}
+
 // Issue 14: with [units] natural = true the header and summary.json say what a bare number
 // means in lab units; without it they say nothing about natural units.
 TEST_CASE("issue 14: natural units are stated in the header and the summary", "[output]") {

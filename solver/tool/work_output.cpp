@@ -801,6 +801,7 @@ json work_summary(const WorkRun& run) {
         {"sd_error", energy(sd_error_of(d, g.moments))},
         {"moments", moments_json(g.moments, energy)},
         {"skewness", number_or_null(defined_skewness(d))},
+        {"skewness_error_known", false},
         {"free_energy_change", energy(d.free_energy_change)},
         {"dissipated_work", energy(d.dissipated_work)},
         {"resolved_weight", d.resolved_weight},
@@ -996,7 +997,7 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
                        e.text(std::sqrt(std::max(0.0, mom.variance_direct)), 10) + "; <W> error parts: final levels " +
                        e.text(std::abs(mom.mean_final), 2) + ", thermal cut " + e.text(mom.mean_thermal, 2) +
                        ", basis " + (std::isfinite(mom.mean_basis) ? e.text(mom.mean_basis, 2) : std::string("not known")));
-  row("skewness", !std::isnan(defined_skewness(d)) ? short_number(d.skewness, 4)
+  row("skewness", !std::isnan(defined_skewness(d)) ? short_number(d.skewness, 4) + "  (error not estimated: line sum only)"
                   : d.variance > 0
                       ? "not defined: var(W) is below " + short_number(probability_rounding_floor) +
                             " max (W - <W>)^2, the size lines of probability at the rounding level give"
