@@ -701,8 +701,10 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
 
   if (request.reverse_run && beta) {
     const WallProtocol reversed = protocol.reversed();
-    const InitialWeights weights_b =
-        initial_weights(request.initial, sb.energies, request.thermal_tolerance, request.max_initial_levels);
+    // The reverse run starts thermal at the forward run's beta (Crooks compares the two at one
+    // temperature), whichever way the initial state was given (mean_phonons is a beta for A).
+    const InitialWeights weights_b = initial_weights(InitialState::thermal(*beta), sb.energies,
+                                                     request.thermal_tolerance, request.max_initial_levels);
     const int kept_b = int(weights_b.weights.size());
     const int finals_r = std::min<int>(int(sa.energies.size()), std::max(kept_a, kept_b) + request.final_margin);
     const WallRun rev = run_walls(reversed, sb, sa, kept_b, finals_r, steps, request.order, request.threads, share(1));

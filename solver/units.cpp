@@ -267,7 +267,7 @@ Quantity parse_quantity(std::string_view text_in) {
   if (!std::isfinite(number)) throw InputError("", shown, "a finite number");
   while (pos < s.size() && is_space(s[pos])) ++pos;
   if (pos == s.size()) {
-    q.si_value = number;
+    q.value_si = number;
     q.plain = true;
     return q;
   }
@@ -311,9 +311,9 @@ Quantity parse_quantity(std::string_view text_in) {
     ++pos;
     while (pos < s.size() && is_space(s[pos])) ++pos;
   }
-  q.si_value = number * factor;
+  q.value_si = number * factor;
   q.dimension = dim;
-  if (!std::isfinite(q.si_value)) throw InputError("", shown, "a value that fits a double in SI units");
+  if (!std::isfinite(q.value_si)) throw InputError("", shown, "a value that fits a double in SI units");
   return q;
 }
 
@@ -351,18 +351,18 @@ std::string energy_hint(const Quantity& q, std::string_view text) {
 
 double UnitSystem::to_internal(const Quantity& q, Dimension expected, std::string_view key,
                                std::string_view text) const {
-  if (q.plain) return q.si_value;
+  if (q.plain) return q.value_si;
   // kB T is an energy: a temperature may be given as one ("1 kB*uK").
   const bool energy_as_temperature =
       expected == Dimension::temperature() && q.dimension == Dimension::energy();
-  if (energy_as_temperature) return q.si_value / energy_J();
+  if (energy_as_temperature) return q.value_si / energy_J();
   if (!(q.dimension == expected)) {
     const std::string found = text.empty() ? with_article(q.dimension) : std::string(text);
     std::string hint = expected == Dimension::energy() ? energy_hint(q, text) : std::string();
     throw InputError(std::string(key), found,
                      expected_quantity(expected) + ", not " + with_article(q.dimension), hint);
   }
-  return q.si_value / internal_unit_in_si(*this, expected);
+  return q.value_si / internal_unit_in_si(*this, expected);
 }
 
 double UnitSystem::to_si(double internal, Dimension d) const {
@@ -380,7 +380,7 @@ double conversion_rounded(double v) {
 
 // ---- lab text ---------------------------------------------------------------------------
 
-std::string lab_text(double si_value, Dimension d, int digits) {
+std::string lab_text(double value_si, Dimension d, int digits) {
   struct Prefixed {
     const char* name;
     double si;
@@ -403,20 +403,20 @@ std::string lab_text(double si_value, Dimension d, int digits) {
     if (d == Dimension::energy_per_length(n)) {
       units = {{"h*Hz/nm^", si::planck_h / std::pow(1e-9, n)}};
       char buffer[64];
-      std::snprintf(buffer, sizeof buffer, "%.*g h*Hz/nm^%d", digits, si_value / units[0].si, n);
+      std::snprintf(buffer, sizeof buffer, "%.*g h*Hz/nm^%d", digits, value_si / units[0].si, n);
       return buffer;
     }
   char buffer[64];
   if (units.empty()) {
-    std::snprintf(buffer, sizeof buffer, "%.*g", digits, si_value);
+    std::snprintf(buffer, sizeof buffer, "%.*g", digits, value_si);
     return d == Dimension::none() ? std::string(buffer) : std::string(buffer) + " " + d.describe();
   }
   // The largest unit not above |value|; the smallest for smaller values and NaN; for 0 the
   // unprefixed one where there is one ("0 s").
   const Prefixed* chosen = &units.front();
   for (const auto& u : units)
-    if (std::abs(si_value) >= u.si * (1 - 1e-12) || (si_value == 0 && u.si == 1)) chosen = &u;
-  std::snprintf(buffer, sizeof buffer, "%.*g %s", digits, si_value / chosen->si, chosen->name);
+    if (std::abs(value_si) >= u.si * (1 - 1e-12) || (value_si == 0 && u.si == 1)) chosen = &u;
+  std::snprintf(buffer, sizeof buffer, "%.*g %s", digits, value_si / chosen->si, chosen->name);
   return buffer;
 }
 
@@ -428,7 +428,7 @@ std::string MessageUnits::operator()(double internal, Dimension d) const {
   }
   if (units && !time_unit.empty() && d == Dimension::time()) {
     const Quantity one = parse_quantity("1 " + time_unit);
-    std::snprintf(buffer, sizeof buffer, "%.6g %s", conversion_rounded(units->to_si(internal, d) / one.si_value),
+    std::snprintf(buffer, sizeof buffer, "%.6g %s", conversion_rounded(units->to_si(internal, d) / one.value_si),
                   time_unit.c_str());
     return buffer;
   }
@@ -469,7 +469,7 @@ EnergyUnit energy_unit(std::string_view name_in, const UnitSystem& units, double
   }
   if (q.plain || !(q.dimension == Dimension::energy()))
     throw InputError("", name, expected, closest_name(name, listed));
-  return {name, q.si_value / units.energy_J()};
+  return {name, q.value_si / units.energy_J()};
 }
 
 }  // namespace trapwork

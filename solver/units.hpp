@@ -47,7 +47,7 @@ std::string with_article(Dimension d);
 
 // A parsed quantity: SI value and dimension, or a plain number meaning internal units.
 struct Quantity {
-  double si_value = 0;   // value in SI (kg, m, s, K); for plain numbers the number itself
+  double value_si = 0;   // value in SI (kg, m, s, K); for plain numbers the number itself
   Dimension dimension;   // meaningless when `plain`
   bool plain = false;    // no unit given: natural (internal) units
 };
@@ -89,7 +89,7 @@ double conversion_rounded(double v);
 // "1 MHz" (ordinary frequency), "40 u", energies in h*Hz..h*GHz, polynomial coefficients in
 // h*Hz/nm^n. `digits` significant digits
 // (printf %g). Dimensions without a lab unit here are written in SI ("3e-30 kg^1 m^-1 s^-2").
-std::string lab_text(double si_value, Dimension d, int digits = 6);
+std::string lab_text(double value_si, Dimension d, int digits = 6);
 
 // A display unit for energies in output tables: "h*kHz", "h*MHz", "kB*uK", "hbar*omega".
 struct EnergyUnit {

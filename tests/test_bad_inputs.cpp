@@ -6,7 +6,6 @@
 // A case that ever crashed, or gave a silent number or an unclear message, stays here as a
 // regression test with the fix beside the code it exercised.
 //
-// output.hpp before <sys/wait.h>, whose si_value macro would clash with Quantity::si_value
 #include "solver/tool/output.hpp"
 
 #include <sys/wait.h>

@@ -1,5 +1,4 @@
 // The `trapwork` command: runs every example, checks its files and its exit codes.
-// output.hpp before <sys/wait.h>, whose si_value macro would clash with Quantity::si_value
 #include "solver/tool/output.hpp"
 
 #include <sys/wait.h>

@@ -11,7 +11,6 @@
 #include "solver/tool/output.hpp"
 #include "solver/tool/work_output.hpp"
 
-// after output.hpp: <sys/wait.h> defines a macro si_value that clashes with Quantity::si_value
 #include <sys/wait.h>
 #include <unistd.h>
 

@@ -7,7 +7,6 @@
 // the order of their sums, a few eps per transform; over a propagation of a few thousand steps
 // these differences add up to at most steps * few eps, about 1e-12 (common practice for a
 // rounding budget that grows linearly with the number of operations).
-// output.hpp before <sys/wait.h>, whose si_value macro would clash with Quantity::si_value
 #include "solver/tool/output.hpp"
 
 #include <dlfcn.h>

@@ -67,11 +67,11 @@ TEST_CASE("parse_quantity reads numbers with lab units into SI", "[units]") {
     const Quantity q = parse_quantity(c.text);
     CHECK_FALSE(q.plain);
     CHECK(q.dimension == c.dimension);
-    CHECK(close(q.si_value, c.si));
+    CHECK(close(q.value_si, c.si));
   }
   const Quantity plain = parse_quantity("3.25");
   CHECK(plain.plain);
-  CHECK(plain.si_value == 3.25);
+  CHECK(plain.value_si == 3.25);
 }
 
 TEST_CASE("parse_quantity rejects bad text with the reason and a suggestion", "[units]") {

@@ -252,10 +252,10 @@ double unit_value(const std::string& unit, const Dimension& d, const std::string
     throw InputError(key, unit, std::string("an unknown unit: expected ") + quantity_examples(d), e.suggestion,
                      t.file, line, column);
   }
-  if (q.plain || !(q.dimension == d) || !(q.si_value > 0) || !std::isfinite(q.si_value))
+  if (q.plain || !(q.dimension == d) || !(q.value_si > 0) || !std::isfinite(q.value_si))
     throw InputError(key, unit, std::string("not ") + with_article(d) + " unit: expected " + quantity_examples(d),
                      "", t.file, line, column);
-  return q.si_value;
+  return q.value_si;
 }
 
 std::map<std::string, BoundColumn> bind_columns(const Table& t, const std::vector<ColumnSpec>& specs,
@@ -416,11 +416,11 @@ DataFileInfo info_of(const Table& t, const std::map<std::string, BoundColumn>& c
       throw InputError("resolution", t.resolution->text, "an energy such as \"0.4 h*kHz\" (sigma of the work values)",
                        e.suggestion, t.file, t.resolution->line, t.resolution->column);
     }
-    if (q.plain || !(q.dimension == Dimension::energy()) || !(q.si_value >= 0) || !std::isfinite(q.si_value))
+    if (q.plain || !(q.dimension == Dimension::energy()) || !(q.value_si >= 0) || !std::isfinite(q.value_si))
       throw InputError("resolution", t.resolution->text,
                        "an energy >= 0 with its unit, such as \"0.4 h*kHz\" (sigma of the work values)", "", t.file,
                        t.resolution->line, t.resolution->column);
-    info.resolution_J = q.si_value;
+    info.resolution_J = q.value_si;
   }
   return info;
 }

@@ -149,7 +149,7 @@ class Reader {
       q = {static_cast<double>(n.as_integer()->get()), {}, true};
     } else if (n.is_floating_point()) {
       q = {n.as_floating_point()->get(), {}, true};
-      if (!std::isfinite(q.si_value)) fail(n, dotted, "a finite number");
+      if (!std::isfinite(q.value_si)) fail(n, dotted, "a finite number");
     } else if (!n.is_string()) {
       fail(n, dotted,
            expected_quantity(d) + " as a string with its unit" +
@@ -166,7 +166,7 @@ class Reader {
       fail(n, dotted,
            expected_quantity(d) + " with its unit in quotes; a bare number would be read in this "
            "scenario's internal units (hbar = m = 1, here " + found_text(n) + " would mean " +
-               lab_text(units_.to_si(q.si_value, d), d, 3) +
+               lab_text(units_.to_si(q.value_si, d), d, 3) +
                "); to give values in internal units, write [units] natural = true");
     return q;
   }
@@ -185,7 +185,7 @@ class Reader {
       }
     if (!n->is_string() || q.plain) fail(*n, dotted, expected_quantity(d) + " with its unit: " + why);
     if (!(q.dimension == d)) fail(*n, dotted, expected_quantity(d) + ", not " + with_article(q.dimension));
-    return Read{q.si_value, n->as_string()->get(), n};
+    return Read{q.value_si, n->as_string()->get(), n};
   }
 
   // A value converted to internal units.
@@ -721,7 +721,7 @@ double Reader::slot_value(const toml::node& n, const std::string& dotted, const 
   const Quantity q = quantity(n, dotted, slot.dimension);
   if (slot.dimension == Dimension::none()) {
     if (!q.plain) fail(n, dotted, "a plain number (" + slot.address + " has no unit)");
-    return q.si_value * slot.plain_factor;
+    return q.value_si * slot.plain_factor;
   }
   try {
     return units_.to_internal(q, slot.dimension, dotted, found_text(n));

@@ -93,7 +93,12 @@ std::string unquoted(const std::string& text) {
 }
 
 std::string change_text(const Scenario& s, const ChangeSpec& c) {
-  const std::string from = c.from ? c.from_given : potential_value_text(s, c);
+  std::string from = c.from ? c.from_given : potential_value_text(s, c);
+  // A start taken from the potential at exactly 0 reads in the unit of the end value
+  // ("from 0 nm to 160 nm", not "from 0 m").
+  const std::string to = unquoted(c.to_given);
+  if (!c.from && parameter_value(s, c.parameter) == 0 && to.find(' ') != std::string::npos)
+    from = "0" + to.substr(to.find(' '));
   switch (c.form) {
     case ScheduleForm::constant: return c.parameter + " held at " + unquoted(c.to_given);
     case ScheduleForm::table:
@@ -105,7 +110,14 @@ std::string change_text(const Scenario& s, const ChangeSpec& c) {
              (c.value_unit.empty() ? "" : ", value in " + c.value_unit) + ")";
     default: break;
   }
-  return c.parameter + ": " + c.ramp + " ramp from " + unquoted(from) + " to " + unquoted(c.to_given);
+  // A bare number (natural units) is shown with its lab value beside it.
+  auto shown = [&](const std::string& text, double internal) {
+    const std::string t = unquoted(text);
+    if (c.dimension == Dimension::none() || t.find(' ') != std::string::npos) return t;
+    return t + " (" + lab_text(s, internal, c.dimension) + ")";
+  };
+  return c.parameter + ": " + c.ramp + " ramp from " + shown(from, c.from ? *c.from : parameter_value(s, c.parameter)) +
+         " to " + shown(c.to_given, c.to);
 }
 
 // Gibbs states: temperature in uK and nbar against the lowest spacing of H_A.

@@ -32,7 +32,6 @@
 //   --show SEED     print the case's scenario only
 // A failing case prints its seed and scenario; `property_work --case SEED` reproduces it.
 // Longer runs: `property_work --random 2000 --case-seconds 60` (about an hour).
-// trapwork headers before <sys/wait.h>, whose si_value macro would clash with Quantity::si_value
 #include "solver/errors.hpp"
 #include "solver/tool/commands.hpp"
 

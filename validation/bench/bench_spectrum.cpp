@@ -10,8 +10,6 @@
 #include <cstdlib>
 #include <vector>
 
-// spectrum.hpp (which includes units.hpp) before harness.hpp, whose <sys/wait.h> defines a
-// si_value macro that would clash with Quantity::si_value
 #include "solver/spectrum.hpp"
 #include "harness.hpp"
 

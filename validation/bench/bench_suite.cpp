@@ -48,7 +48,7 @@
 #include "solver/tool/scenario.hpp"
 #include "solver/tool/work_output.hpp"
 #include "solver/work.hpp"
-// last: its <sys/wait.h> defines the macro si_value, a member name in solver/units.hpp
+// last: its <sys/wait.h> defines the macro value_si, a member name in solver/units.hpp
 #include "harness.hpp"
 
 using namespace trapwork;
