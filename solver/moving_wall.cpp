@@ -780,13 +780,8 @@ WallWorkResult run_wall_work(const WallProtocol& protocol, const WallWorkRequest
     const bool levels_help = moments == "final" || moments == "thermal";
     if (protocol.duration() == 0 || (!(escape > r.unresolved_tolerance) && !levels_help) || attempt == 2) {
       if (attempt > 0)
-        d.warnings.insert(d.warnings.begin(), "levels enlarged " + std::to_string(attempt) +
-                                                  " time(s) to bound the escape probability and the moments' "
-                                                  "truncation error (escape now " + fmt(escape) + ", <W> error " +
-                                                  fmt(d.moments.mean_error) + ", var W error " +
-                                                  fmt(d.moments.variance_error) + "; final margin " +
-                                                  std::to_string(r.final_margin) + ", thermal tolerance " +
-                                                  fmt(r.thermal_tolerance) + ")");
+        d.warnings.insert(d.warnings.begin(),
+                          enlargement_warning(attempt, escape, d.moments, r.final_margin, r.thermal_tolerance));
       return out;
     }
     if (d.unresolved_weight > r.unresolved_tolerance || moments == "final") r.final_margin *= 2;

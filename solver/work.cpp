@@ -210,11 +210,13 @@ MomentErrors moment_errors(const WorkInput& in, const WorkDistribution& d, const
 std::string moment_warning(const MomentErrors& e, int final_levels, const std::string& basis_cause) {
   const std::string part = e.dominant();
   if (part.empty()) return {};
-  std::string text = "moments miss their tolerance " + fmt(e.tolerance) + " (relative): <W> error " +
-                     fmt(e.mean_error) + ", var W error " + fmt(e.variance_error) + " (final levels " +
-                     fmt(std::max(std::abs(e.mean_final), std::abs(e.variance_final))) + ", thermal cut " +
-                     fmt(std::max(e.mean_thermal, e.variance_thermal)) + ", basis " +
-                     fmt(std::max(e.mean_basis, e.variance_basis)) + "); likely cause: ";
+  auto relative = [](double error, double scale) { return fmt(error / scale); };
+  std::string text =
+      "moments miss their relative tolerance " + fmt(e.tolerance) + ": <W> error " + relative(e.mean_error, e.scale_mean) +
+      " of max(|<W>|, sd W), var W error " + relative(e.variance_error, e.scale_variance) + " of var W (parts: final levels " +
+      fmt(std::max(std::abs(e.mean_final) / e.scale_mean, std::abs(e.variance_final) / e.scale_variance)) +
+      ", thermal cut " + fmt(std::max(e.mean_thermal / e.scale_mean, e.variance_thermal / e.scale_variance)) +
+      ", basis " + fmt(std::max(e.mean_basis / e.scale_mean, e.variance_basis / e.scale_variance)) + "); likely cause: ";
   if (part == "final") {
     text += "too few final levels (" + std::to_string(final_levels) + "): raise final_margin";
     const double basis = std::max(e.mean_basis / e.scale_mean, e.variance_basis / e.scale_variance);
@@ -225,6 +227,15 @@ std::string moment_warning(const MomentErrors& e, int final_levels, const std::s
   else
     text += basis_cause;
   return text;
+}
+
+std::string enlargement_warning(int attempt, double escape, const MomentErrors& e, int final_margin,
+                                double thermal_tolerance) {
+  return "levels enlarged " + std::to_string(attempt) +
+         " time(s) to bound the escape probability and the moments' truncation error (escape now " + fmt(escape) +
+         ", relative <W> error " + fmt(e.mean_error / e.scale_mean) + ", relative var W error " +
+         fmt(e.variance_error / e.scale_variance) + "; final margin " + std::to_string(final_margin) +
+         ", thermal tolerance " + fmt(thermal_tolerance) + ")";
 }
 
 WorkHistogram histogram(const WorkDistribution& d, double bin_width) {
@@ -740,11 +751,9 @@ WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkR
     const bool moments = d.moments.mean_met() && d.moments.variance_met();
     if ((!(escape > r.unresolved_tolerance) && moments) || attempt == 2) {
       if (attempt > 0)
-        result.diagnostics.warnings.insert(result.diagnostics.warnings.begin(),
-            "levels enlarged " + std::to_string(attempt) + " time(s) to bound the escape probability and the "
-            "moments' truncation error (escape now " + fmt(escape) + ", <W> error " + fmt(d.moments.mean_error) +
-            ", var W error " + fmt(d.moments.variance_error) + "; final margin " + std::to_string(r.final_margin) +
-            ", thermal tolerance " + fmt(r.thermal_tolerance) + ")");
+        result.diagnostics.warnings.insert(
+            result.diagnostics.warnings.begin(),
+            enlargement_warning(attempt, escape, d.moments, r.final_margin, r.thermal_tolerance));
       return result;
     }
     r.final_margin *= 2;

@@ -182,7 +182,13 @@ MomentErrors moment_errors(const WorkInput& input, const WorkDistribution& d, co
 void total_moment_errors(MomentErrors& e);
 // The warning for moments that miss their tolerance, naming the dominant part as the likely
 // cause and what to change (empty when both are met). `basis_cause` says what limits the basis.
+// Errors are printed relative to their scales (max(|<W>|, sd W) and var W), as the tolerance
+// is, so that the text needs no energy unit.
 std::string moment_warning(const MomentErrors& e, int final_levels, const std::string& basis_cause);
+// The warning of a run repeated `attempt` times with more levels (escape probability now
+// `escape`, moments' relative errors, the final margin and thermal tolerance it ended with).
+std::string enlargement_warning(int attempt, double escape, const MomentErrors& e, int final_margin,
+                                double thermal_tolerance);
 
 // Every result carries these (NaN where not computed).
 struct Diagnostics {
