@@ -412,10 +412,11 @@ std::string lab_text(double value_si, Dimension d, int digits) {
     return d == Dimension::none() ? std::string(buffer) : std::string(buffer) + " " + d.describe();
   }
   // The largest unit not above |value|; the smallest for smaller values and NaN; for 0 the
-  // unprefixed one where there is one ("0 s").
+  // middle one of the list, a lab's usual unit ("0 um", "0 us", "0 uK"), not "0 m".
   const Prefixed* chosen = &units.front();
   for (const auto& u : units)
-    if (std::abs(value_si) >= u.si * (1 - 1e-12) || (value_si == 0 && u.si == 1)) chosen = &u;
+    if (std::abs(value_si) >= u.si * (1 - 1e-12)) chosen = &u;
+  if (value_si == 0) chosen = &units[(units.size() - 1) / 2];
   std::snprintf(buffer, sizeof buffer, "%.*g %s", digits, value_si / chosen->si, chosen->name);
   return buffer;
 }

@@ -219,7 +219,8 @@ TEST_CASE("lab_text picks the prefix that puts the number between 1 and 1000", "
   CHECK(lab_text(codata_h * 2e3, Dimension::energy()) == "2 h*kHz");
   CHECK(lab_text(40 * codata_u, Dimension::mass()) == "40 u");
   CHECK(lab_text(codata_h * 0.0157 / 1e-36, Dimension::energy_per_length(4)) == "0.0157 h*Hz/nm^4");
-  CHECK(lab_text(0, Dimension::length()) == "0 m");
+  CHECK(lab_text(0, Dimension::length()) == "0 um");
+  CHECK(lab_text(0, Dimension::time()) == "0 us");
   CHECK(lab_text(1.23456789e-3, Dimension::time(), 3) == "1.23 ms");
 }
 

@@ -101,8 +101,13 @@ TEST_CASE("sudden expansion and the refused sudden compression from a scenario",
   print_work_report(report, w.run(expand));
   CHECK_THAT(report.str(), Contains("Jarzynski equality fails"));
 
-  const Scenario squeeze = read_scenario_text(box_scenario("0 ms", "8 um", "linear"), "walls.toml");
-  CHECK_THROWS_WITH(compute_work(squeeze, work_request(squeeze)), Contains("refused") && Contains("finite speed"));
+  // A sudden compression is refused when the scenario is read, with its line and lab units
+  // (before, only the run refused it, in internal units and without a line).
+  const InputError squeeze = error_of(box_scenario("0 ms", "8 um", "linear"));
+  CHECK(squeeze.line > 0);
+  CHECK(squeeze.key == "protocol.change");
+  CHECK_THAT(std::string(squeeze.what()),
+             Contains("[0 um, 10 um] -> [0 um, 8 um] is a sudden compression") && Contains("finite speed"));
 }
 
 TEST_CASE("unusable wall protocols are errors with file, line and key", "[walls][scenario]") {

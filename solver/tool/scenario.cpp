@@ -870,7 +870,21 @@ void Reader::check_protocol(const Scenario& s, const toml::node& where, const st
     p.check(s.potential);  // addresses, and a formula using t with a sudden switch
     check_soft_walls(s, p, where, key);
     for (int i = 0; i <= 64; ++i) (void)p.at(s.potential, p.duration() * i / 64);
-    if (moves_walls(s)) (void)build_wall_protocol(s);
+    if (moves_walls(s)) {
+      const WallProtocol walls = build_wall_protocol(s);
+      const WallState a = walls.initial_walls(), b = walls.final_walls();
+      if (walls.duration() == 0 && (b.left.value > a.left.value || b.right.value < a.right.value)) {
+        // The same refusal as sudden_wall_amplitudes, here with the file's line and lab units.
+        MessageUnits units{s.units, s.energy, duration_unit(s)};
+        auto box = [&](const WallState& w) {
+          return "[" + units(w.left.value, Dimension::length()) + ", " + units(w.right.value, Dimension::length()) + "]";
+        };
+        fail(where, key,
+             "a sudden change that only widens the box, or a duration > 0: the box " + box(a) + " -> " + box(b) +
+                 " is a sudden compression, which cuts the state (a post-selected position measurement, not a "
+                 "unitary work protocol, and an infinite energy at the new wall); move the wall at a finite speed");
+      }
+    }
   } catch (const InputError& e) {
     if (!e.file.empty()) throw;  // located already (check_soft_walls)
     fail(where, key, "a protocol the potential accepts: " + e.key + " = " + e.found + ": " + e.expected);
