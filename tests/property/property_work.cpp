@@ -12,7 +12,8 @@
 // --case-seconds (a hang past that cost bound is a failure). The properties checked:
 //   - the run ends normally, or is refused with PhysicsError (counted and printed: a refusal
 //     with its message is an honest outcome); an InputError on a scenario built valid, any
-//     other exception, a crash or a timeout fails;
+//     other exception, a crash or a timeout fails (a sudden compression of hard walls is drawn
+//     as well: the reader must refuse it, naming protocol.change);
 //   - every file the report names exists, is not empty, and no temporary file is left beside it;
 //     every CSV row has as many fields as its names line;
 //   - the line probabilities (lines.csv) plus the reported unresolved weight sum to 1 within
@@ -68,6 +69,9 @@ struct Case {
   std::string family;  // short description printed with the result
   std::string text;    // the scenario (TOML)
   std::optional<double> tolerance;
+  // A case the scenario reader must refuse (a sudden compression of hard walls): an InputError
+  // naming this key is its expected outcome.
+  std::string refused_key;
 };
 
 class Draw {
@@ -190,6 +194,8 @@ Case make_case(std::uint64_t seed) {
     s << "ramp = \"" << ramp(d) << "\"\n";
     s << "[initial]\ntemperature = " << q(e1_nK * d.uniform(1, 8), "nK") << "\n";
     c.family = to >= length ? "box expansion" : "box compression";
+    if (to < length && c.text.empty() && s.str().find("duration = \"0 ms\"") != std::string::npos)
+      c.refused_key = "protocol.change";
   }
   if (family <= 4 && d.chance(0.25)) c.tolerance = 1e-2;
   s << "[output]\nfolder = \"out\"\n";
@@ -359,6 +365,10 @@ int run_case(const Case& c, const fs::path& dir, bool verbose) {
     std::cout << "  refused: " << e.what() << '\n';
     return refused;
   } catch (const InputError& e) {
+    if (!c.refused_key.empty() && e.key == c.refused_key) {
+      std::cout << "  refused as it must be: " << e.what() << '\n';
+      return refused;
+    }
     std::cout << "  InputError on a scenario built valid: " << e.what() << '\n';
     return input_error;
   } catch (const std::exception& e) {
