@@ -496,6 +496,14 @@ Spectrum hermite_spectrum(const Potential& potential, const HarmonicApproximatio
   if ((*coefficients)[8] < 0 || ((*coefficients)[8] == 0 && (*coefficients)[7] == 0 && (*coefficients)[6] < 0))
     throw PhysicsError("method = \"hermite\": the polynomial does not confine (negative leading coefficient)");
   HermiteBasis basis{harmonic.omega > 0 ? harmonic.omega : 1.0, harmonic.x_min, std::max(4 * options.levels + 60, 120)};
+  // Cost before commitment: a dense eigensolve of the basis, and the basis functions and states
+  // sampled on the grid.
+  CostEstimate cost = spectrum_cost(std::size_t(basis.size), options.levels, true);
+  cost.bytes += sizeof(double) * double(grid.size()) * double(basis.size + 2 * options.levels);
+  cost.what = "a spectrum of " + std::to_string(options.levels) + " levels in a Hermite basis of " +
+              std::to_string(basis.size) + " functions on " + std::to_string(grid.size()) + " points";
+  cost.change = "ask for fewer levels ([spectrum] levels)";
+  check_memory(cost, options.memory_limit, "refused before computing");
   Eigen::SelfAdjointEigenSolver<Eigen::MatrixXd> eig(hermite_hamiltonian(basis, *coefficients));
   Spectrum s;
   s.grid = grid;

@@ -203,3 +203,16 @@ TEST_CASE("issue 14: a tunnelling doublet does not ask the histogram for 1e8 bin
   s.work->bin_width = 1e-9;  // a width the user asks for is kept
   CHECK(bin_width_of(run) == 1e-9);
 }
+
+TEST_CASE("issue 14: the Hermite basis path is refused before it allocates, too", "[cost]") {
+  // A polynomial trap with method = "hermite" and 50000 levels: a dense basis of 200060 functions
+  // (about 1 TB); before, it ended in std::bad_alloc (or swapping) with no advice.
+  Scenario s = read_scenario_text(enlarging_scenario + "[spectrum]\nlevels = 50000\nmethod = \"hermite\"\n",
+                                  "hermite.toml");
+  s.spectrum.options.memory_limit = 16e9;
+  const std::string message = physics_error_of([&] { (void)compute_spectrum(s.potential, s.spectrum); });
+  INFO(message);
+  CHECK(contains(message, "Hermite basis"));
+  CHECK(contains(message, "more than the 16 GB available"));
+  CHECK(contains(message, "[spectrum] levels"));
+}
