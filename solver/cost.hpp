@@ -52,7 +52,7 @@ CostEstimate work_cost(const WorkSizes& sizes);
 // its N samples (8 bytes each) at once; each draw costs a binary search over the lines, an
 // exponential and, with a resolution, a normal deviate: counted as 250 + log2(lines)
 // operations, the time of about 50 ns that 1e8 draws took on the development machine at the
-// rate estimated_seconds assumes (solver/tool/machine.hpp). `draws` = experiments x (sum of
+// rate estimated_seconds assumes (solver/scenario/machine.hpp). `draws` = experiments x (sum of
 // N) x resolutions.
 CostEstimate plan_cost(double largest_runs, double draws, std::size_t lines);
 

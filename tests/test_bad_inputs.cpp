@@ -6,7 +6,7 @@
 // A case that ever crashed, or gave a silent number or an unclear message, stays here as a
 // regression test with the fix beside the code it exercised.
 //
-#include "solver/tool/output.hpp"
+#include "solver/scenario/output.hpp"
 
 #include <sys/wait.h>
 
@@ -21,7 +21,7 @@
 
 #include "scratch_files.hpp"
 #include "solver/errors.hpp"
-#include "solver/tool/scenario.hpp"
+#include "solver/scenario/scenario.hpp"
 #include "solver/work.hpp"
 
 using namespace trapwork;

@@ -1,5 +1,5 @@
 // The `trapwork` command: runs every example, checks its files and its exit codes.
-#include "solver/tool/output.hpp"
+#include "solver/scenario/output.hpp"
 
 #include <sys/wait.h>
 

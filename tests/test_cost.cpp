@@ -14,8 +14,8 @@
 #include "solver/errors.hpp"
 #include "solver/spectrum.hpp"
 #include "solver/tool/commands.hpp"
-#include "solver/tool/work_output.hpp"
-#include "solver/tool/scenario.hpp"
+#include "solver/scenario/work_output.hpp"
+#include "solver/scenario/scenario.hpp"
 #include "solver/work.hpp"
 
 using namespace trapwork;

@@ -12,9 +12,9 @@
 #include "scratch_files.hpp"
 #include "solver/errors.hpp"
 #include "solver/tool/commands.hpp"
-#include "solver/tool/data_files.hpp"
-#include "solver/tool/plot.hpp"
-#include "solver/tool/work_output.hpp"
+#include "solver/scenario/data_files.hpp"
+#include "solver/scenario/plot.hpp"
+#include "solver/scenario/work_output.hpp"
 
 using namespace trapwork;
 using Catch::Matchers::Contains;

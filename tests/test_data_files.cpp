@@ -1,6 +1,6 @@
-// Readers of measured data files (solver/tool/data_files): every kind, the units in column
+// Readers of measured data files (solver/scenario/data_files): every kind, the units in column
 // names and in "# unit:" lines, the skipped-row count, and each error with its file:line:column.
-#include "solver/tool/data_files.hpp"
+#include "solver/scenario/data_files.hpp"
 
 #include <catch2/catch.hpp>
 #include <algorithm>
@@ -10,7 +10,7 @@
 
 #include "scratch_files.hpp"
 #include "solver/errors.hpp"
-#include "solver/tool/scenario.hpp"
+#include "solver/scenario/scenario.hpp"
 #include "solver/units.hpp"
 
 using namespace trapwork;

@@ -8,8 +8,8 @@
 
 #include "solver/errors.hpp"
 #include "solver/moving_wall.hpp"
-#include "solver/tool/scenario.hpp"
-#include "solver/tool/work_output.hpp"
+#include "solver/scenario/scenario.hpp"
+#include "solver/scenario/work_output.hpp"
 #include "solver/work.hpp"
 
 using namespace trapwork;

@@ -8,8 +8,8 @@
 #include <limits>
 #include <sstream>
 
-#include "solver/tool/output.hpp"
-#include "solver/tool/work_output.hpp"
+#include "solver/scenario/output.hpp"
+#include "solver/scenario/work_output.hpp"
 
 #include <sys/wait.h>
 #include <unistd.h>

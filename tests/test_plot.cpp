@@ -10,7 +10,7 @@
 #include <fstream>
 #include <iterator>
 
-#include "solver/tool/plot.hpp"
+#include "solver/scenario/plot.hpp"
 
 namespace fs = std::filesystem;
 using namespace trapwork;

@@ -8,7 +8,7 @@
 #include <thread>
 #include <vector>
 
-#include "solver/tool/progress.hpp"
+#include "solver/scenario/progress.hpp"
 
 using trapwork::ProgressBar;
 

@@ -7,7 +7,7 @@
 #include <limits>
 
 #include "solver/errors.hpp"
-#include "solver/tool/scenario.hpp"
+#include "solver/scenario/scenario.hpp"
 
 using namespace trapwork;
 namespace fs = std::filesystem;

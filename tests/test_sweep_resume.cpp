@@ -6,7 +6,7 @@
 // Points computed in different processes agree to rounding, not bit for bit: FFTW_MEASURE may
 // pick another transform algorithm in each process. They are compared to 1e-12 relative, the
 // rounding budget of tests/test_threads.cpp (steps * a few eps).
-#include "solver/tool/output.hpp"
+#include "solver/scenario/output.hpp"
 
 #include <signal.h>
 #include <sys/wait.h>

@@ -7,7 +7,7 @@
 // the order of their sums, a few eps per transform; over a propagation of a few thousand steps
 // these differences add up to at most steps * few eps, about 1e-12 (common practice for a
 // rounding budget that grows linearly with the number of operations).
-#include "solver/tool/output.hpp"
+#include "solver/scenario/output.hpp"
 
 #include <dlfcn.h>
 #include <pthread.h>
@@ -27,7 +27,7 @@
 
 #include "scratch_files.hpp"
 #include "solver/tool/commands.hpp"
-#include "solver/tool/scenario.hpp"
+#include "solver/scenario/scenario.hpp"
 #include "solver/work.hpp"
 
 using namespace trapwork;

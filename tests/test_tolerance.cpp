@@ -4,8 +4,8 @@
 #include <algorithm>
 #include <cmath>
 
-#include "solver/tool/scenario.hpp"
-#include "solver/tool/work_output.hpp"
+#include "solver/scenario/scenario.hpp"
+#include "solver/scenario/work_output.hpp"
 
 using namespace trapwork;
 

@@ -7,8 +7,8 @@
 #include <string>
 
 #include "solver/errors.hpp"
-#include "solver/tool/scenario.hpp"
-#include "solver/tool/work_output.hpp"
+#include "solver/scenario/scenario.hpp"
+#include "solver/scenario/work_output.hpp"
 
 using namespace trapwork;
 using Catch::Matchers::Contains;

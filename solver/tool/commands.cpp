@@ -6,8 +6,8 @@
 #include <memory>
 
 #include "solver/errors.hpp"
-#include "solver/tool/output.hpp"
-#include "solver/tool/machine.hpp"
+#include "solver/scenario/output.hpp"
+#include "solver/scenario/machine.hpp"
 
 namespace trapwork {
 

@@ -12,8 +12,8 @@
 
 #include "solver/compare.hpp"
 #include "solver/plan.hpp"
-#include "solver/tool/scenario.hpp"
-#include "solver/tool/work_output.hpp"
+#include "solver/scenario/scenario.hpp"
+#include "solver/scenario/work_output.hpp"
 
 namespace trapwork {
 
@@ -70,7 +70,7 @@ void add_sweep_command(CLI::App& app);
 void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostream& progress);
 
 // ---- measured data: fit, compare, plan (solver/tool/fit_command.cpp, compare_command.cpp,
-// plan_command.cpp; data files in solver/tool/data_files.hpp) ---------------------------------
+// plan_command.cpp; data files in solver/scenario/data_files.hpp) ---------------------------------
 
 // trapwork fit DATA (--start SCENARIO | --mass M --frequency F) [--terms frequency,quartic]
 // [-o DIR] [--quiet]: fit_trap on the transition lines of DATA, starting from the scenario's one
@@ -94,14 +94,14 @@ FitResultFiles run_fit_command(const FitCommand& command, std::ostream& out);
 // The work model of a scenario as `trapwork work` computes it (compute_work), without the
 // reverse run (compare and plan use the forward distribution only), with a progress bar;
 // PhysicsError names the scenario. Shared by compare and plan.
-struct ScenarioWork;  // solver/tool/work_output.hpp
+struct ScenarioWork;  // solver/scenario/work_output.hpp
 ScenarioWork model_work(const Scenario& scenario, std::ostream& progress, bool show_progress);
 // An energy option with its unit ("40 h*kHz") in internal units, >= 0; InputError naming `key`.
 double energy_option(const Scenario& scenario, const std::string& key, const std::string& text);
 
 // trapwork compare SCENARIO DATA [--resolution E] [--resamples N] [--seed S] [--confidence C]
 // [-o DIR] [--quiet]: the measured work data of DATA (work samples, level pairs or a histogram,
-// solver/tool/data_files.hpp) against the scenario's work distribution; writes compare.csv,
+// solver/scenario/data_files.hpp) against the scenario's work distribution; writes compare.csv,
 // compare_summary.json and compare.png/.svg. The resolution comes from the option, the data
 // file's "# resolution:" line or the scenario's [work] resolution (level pairs need none).
 struct CompareCommand {

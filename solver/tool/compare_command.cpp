@@ -7,11 +7,11 @@
 
 #include "solver/errors.hpp"
 #include "solver/tool/commands.hpp"
-#include "solver/tool/data_files.hpp"
-#include "solver/tool/plot.hpp"
-#include "solver/tool/machine.hpp"
-#include "solver/tool/progress.hpp"
-#include "solver/tool/work_output.hpp"
+#include "solver/scenario/data_files.hpp"
+#include "solver/scenario/plot.hpp"
+#include "solver/scenario/machine.hpp"
+#include "solver/scenario/progress.hpp"
+#include "solver/scenario/work_output.hpp"
 
 namespace trapwork {
 

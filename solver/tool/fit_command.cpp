@@ -12,8 +12,8 @@
 #include "solver/errors.hpp"
 #include "solver/fit.hpp"
 #include "solver/tool/commands.hpp"
-#include "solver/tool/data_files.hpp"
-#include "solver/tool/output.hpp"
+#include "solver/scenario/data_files.hpp"
+#include "solver/scenario/output.hpp"
 
 namespace trapwork {
 

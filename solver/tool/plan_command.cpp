@@ -10,10 +10,10 @@
 #include "solver/errors.hpp"
 #include "solver/plan.hpp"
 #include "solver/tool/commands.hpp"
-#include "solver/tool/plot.hpp"
-#include "solver/tool/machine.hpp"
-#include "solver/tool/progress.hpp"
-#include "solver/tool/work_output.hpp"
+#include "solver/scenario/plot.hpp"
+#include "solver/scenario/machine.hpp"
+#include "solver/scenario/progress.hpp"
+#include "solver/scenario/work_output.hpp"
 
 namespace trapwork {
 
@@ -21,7 +21,7 @@ namespace {
 
 namespace fs = std::filesystem;
 
-// synthetic_work.csv: the data layout `trapwork compare` reads (solver/tool/data_files.hpp), in h*kHz.
+// synthetic_work.csv: the data layout `trapwork compare` reads (solver/scenario/data_files.hpp), in h*kHz.
 void write_synthetic(const fs::path& file, const Scenario& s, const std::vector<double>& work, double sigma,
                      std::uint64_t seed) {
   const double per_h_kHz = si::planck_h * 1e3 / s.units.energy_J();  // internal energy of 1 h*kHz

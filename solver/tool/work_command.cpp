@@ -16,9 +16,9 @@
 
 #include "solver/errors.hpp"
 #include "solver/tool/commands.hpp"
-#include "solver/tool/machine.hpp"
-#include "solver/tool/progress.hpp"
-#include "solver/tool/work_output.hpp"
+#include "solver/scenario/machine.hpp"
+#include "solver/scenario/progress.hpp"
+#include "solver/scenario/work_output.hpp"
 
 namespace trapwork {
 

@@ -1,11 +1,11 @@
-// libFuzzer target: the measured-data readers (solver/tool/data_files.hpp), each of the four
+// libFuzzer target: the measured-data readers (solver/scenario/data_files.hpp), each of the four
 // kinds and the kind-detecting work reader on the same text. Only InputError may come out.
 #include <cstddef>
 #include <cstdint>
 #include <string_view>
 
 #include "solver/errors.hpp"
-#include "solver/tool/data_files.hpp"
+#include "solver/scenario/data_files.hpp"
 
 namespace {
 template <class F>

@@ -7,7 +7,7 @@
 #include <string_view>
 
 #include "solver/errors.hpp"
-#include "solver/tool/scenario.hpp"
+#include "solver/scenario/scenario.hpp"
 
 extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size) {
   const std::string_view text(reinterpret_cast<const char*>(data), size);

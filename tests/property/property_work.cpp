@@ -275,7 +275,7 @@ std::vector<std::string> check_outputs(const fs::path& folder, const std::string
   }
   for (const auto& e : fs::directory_iterator(folder)) {
     const std::string name = e.path().filename().string();
-    // The folder's lock and its list of outputs stay by design (solver/tool/output.hpp); a
+    // The folder's lock and its list of outputs stay by design (solver/scenario/output.hpp); a
     // staging folder or a temporary file does not.
     if (name == ".trapwork-lock" || name == ".trapwork-outputs") continue;
     if (name.find(".tmp") != std::string::npos || name[0] == '.') fail("temporary file left: " + name);

@@ -45,8 +45,8 @@
 #include "solver/moving_wall.hpp"
 #include "solver/propagator.hpp"
 #include "solver/spectrum.hpp"
-#include "solver/tool/scenario.hpp"
-#include "solver/tool/work_output.hpp"
+#include "solver/scenario/scenario.hpp"
+#include "solver/scenario/work_output.hpp"
 #include "solver/work.hpp"
 // last: its <sys/wait.h> defines the macro value_si, a member name in solver/units.hpp
 #include "harness.hpp"

@@ -1,4 +1,4 @@
-#include "solver/tool/progress.hpp"
+#include "solver/scenario/progress.hpp"
 
 #include <unistd.h>
 

@@ -1,5 +1,5 @@
 // Output files, summary and report of `trapwork work` and `trapwork sweep` (see work_output.hpp).
-#include "solver/tool/work_output.hpp"
+#include "solver/scenario/work_output.hpp"
 
 #include <algorithm>
 #include <chrono>
@@ -11,8 +11,8 @@
 
 #include "solver/errors.hpp"
 #include "solver/harmonic_reference.hpp"
-#include "solver/tool/machine.hpp"
-#include "solver/tool/plot.hpp"
+#include "solver/scenario/machine.hpp"
+#include "solver/scenario/plot.hpp"
 
 namespace trapwork {
 

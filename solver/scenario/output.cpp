@@ -1,5 +1,5 @@
 // Output files and printed reports of the command-line tool (see output.hpp).
-#include "solver/tool/output.hpp"
+#include "solver/scenario/output.hpp"
 
 #include <fcntl.h>
 #include <sys/file.h>

@@ -1,5 +1,5 @@
 // Readers of measured data files (see data_files.hpp).
-#include "solver/tool/data_files.hpp"
+#include "solver/scenario/data_files.hpp"
 
 #include <algorithm>
 #include <charconv>

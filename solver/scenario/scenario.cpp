@@ -1,5 +1,5 @@
 // Scenario reader: TOML (toml++) to library values, with positioned errors. See scenario.hpp.
-#include "solver/tool/scenario.hpp"
+#include "solver/scenario/scenario.hpp"
 
 #include <toml++/toml.h>
 
@@ -14,7 +14,7 @@
 #include <sstream>
 
 #include "solver/errors.hpp"
-#include "solver/tool/data_files.hpp"
+#include "solver/scenario/data_files.hpp"
 
 namespace trapwork {
 

@@ -1,7 +1,7 @@
 // Figures with PLplot: see plot.hpp. Layout is in normalised page coordinates (plvpor),
 // data in world coordinates (plwind); every figure runs in its own stream (plmkstrm ...
 // plend1), with the error code captured through plsError instead of printed.
-#include "solver/tool/plot.hpp"
+#include "solver/scenario/plot.hpp"
 
 #include <plplot/plplot.h>
 #include <unistd.h>

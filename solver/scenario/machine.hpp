@@ -6,7 +6,7 @@
 #include <string>
 
 #include "solver/cost.hpp"
-#include "solver/tool/progress.hpp"
+#include "solver/scenario/progress.hpp"
 #include "solver/work.hpp"
 
 namespace trapwork {

@@ -1,4 +1,4 @@
-#include "solver/tool/machine.hpp"
+#include "solver/scenario/machine.hpp"
 
 #include <sys/resource.h>
 #include <unistd.h>
@@ -8,7 +8,7 @@
 #include <sstream>
 #include <string>
 
-#include "solver/tool/progress.hpp"
+#include "solver/scenario/progress.hpp"
 
 namespace trapwork {
 

@@ -17,7 +17,7 @@
 #include <vector>
 
 #include "solver/spectrum.hpp"
-#include "solver/tool/scenario.hpp"
+#include "solver/scenario/scenario.hpp"
 
 namespace trapwork {
 

@@ -15,8 +15,8 @@
 #include <vector>
 
 #include "potentials/protocol.hpp"
-#include "solver/tool/output.hpp"
-#include "solver/tool/scenario.hpp"
+#include "solver/scenario/output.hpp"
+#include "solver/scenario/scenario.hpp"
 #include "solver/work.hpp"
 
 namespace trapwork {
