@@ -310,3 +310,44 @@ TEST_CASE("issue 15: fit_task gives the fitted scenario, table and summary the c
   CHECK(read_scenario_text(fit_start_text("40 u", "1 MHz"), "start").terms.size() == 1);
   CHECK_THROWS_AS(fit_start_text("40 u", ""), InputError);
 }
+
+TEST_CASE("issue 15: compare_task gives the table, summary and figure the command writes", "[tasks]") {
+  const Scenario s = read_scenario((examples / "ion_shuttle_model.toml").string());
+  CompareSettings settings;
+  settings.data = (examples / "ion_work_samples.csv").string();
+  settings.resamples = 200;
+  const CompareTaskOutcome o = compare_task(s, settings);
+  CHECK(o.comparison.runs == 400);
+  CHECK(o.sigma_source == settings.data);  // the data file's "# resolution:" line
+  CHECK(o.verdict.rfind("CONSISTENT", 0) == 0);
+  CHECK(o.observed.size() + 1 == o.edges.size());
+  const auto figures = task_figures(o);
+  REQUIRE(figures.size() == 1);
+  CHECK(std::holds_alternative<ComparisonFigure>(figures[0].figure));
+  CHECK(task_summary(o)["verdict"] == o.verdict);
+  check_files_are_the_outcome(o, "compare_summary.json", "compare");
+
+  const fs::path dir = trapwork_test::scratch_dir("test-tasks", "compare-cli");
+  CompareCommand c;
+  c.scenario = s.file;
+  c.data = settings.data;
+  c.resamples = settings.resamples;
+  c.output = (dir / "out").string();
+  std::ostringstream report;
+  const CompareOutcome cli = run_compare_command(c, report, report);
+  check_cli_files(task_tables(o), dir / "out");
+  CHECK(cli.verdict == o.verdict);
+  std::ostringstream task_report;
+  print_task_report(task_report, o);
+  CHECK(report.str().rfind(task_report.str(), 0) == 0);
+
+  // the data are read and the resolution chosen before `checked`; the model run may be interrupted
+  std::atomic<int> calls{0};
+  bool checked = false;
+  CHECK_THROWS_AS(compare_task(s, settings, interrupting(calls, 2), [&] { checked = true; }), Interrupted);
+  CHECK(checked);
+  settings.data = (examples / "missing.csv").string();
+  checked = false;
+  CHECK_THROWS_AS(compare_task(s, settings, {}, [&] { checked = true; }), InputError);
+  CHECK(!checked);
+}
