@@ -379,3 +379,66 @@ TEST_CASE("issue 15: scenario_text_from_json writes sub-tables and refuses null"
     CHECK(e.key == "particle.charge");
   }
 }
+
+TEST_CASE("issue 15: edits in sub-tables, dotted keys, CRLF lines and a text without a last line break",
+          "[scenario_edit]") {
+  SECTION("a missing sub-table becomes a dotted key of its table") {
+    const std::string text = example("box_expansion.toml");
+    const std::string widths =
+        scenario_text_with_values(text, "box_expansion.toml", {{"box.soft_walls.widths", Json::array({"0.1 um"})}});
+    CHECK(inserted_after(text, widths, line_of(text, "right")) == "soft_walls.widths = [\"0.1 um\"]");
+    const std::string edited =
+        scenario_text_with_values(widths, "box_expansion.toml", {{"box.soft_walls.height", "100 kB*nK"}});
+    CHECK(inserted_after(widths, edited, line_of(text, "right") + 1) == "soft_walls.height = \"100 kB*nK\"");
+    const Scenario s = read_scenario_text(edited, "box_expansion.toml");
+    REQUIRE(s.soft_walls);
+    REQUIRE(s.soft_widths_given == std::vector<std::string>{"0.1 um"});
+    // ... and is then edited in place through the same address.
+    const std::string again =
+        scenario_text_with_values(edited, "box_expansion.toml", {{"box.soft_walls.widths", Json::array({"0.2 um"})}});
+    changed_in_place(edited, again, {line_of(text, "right") + 1});
+    CHECK(read_scenario_text(again, "box_expansion.toml").soft_widths_given == std::vector<std::string>{"0.2 um"});
+  }
+  SECTION("a table made by a deeper header is opened at the end; one made by dotted keys gets a dotted key") {
+    const std::string text = example("box_expansion.toml"), walls = "[box]\nleft = \"0 um\"\nright = \"10 um\"\n";
+    const std::size_t box = text.find(walls);
+    REQUIRE(box != std::string::npos);
+    const std::string header =
+        std::string(text).replace(box, walls.size(), "[box.soft_walls]\nwidths = [\"0.1 um\"]\nheight = \"100 kB*nK\"\n");
+    const std::string opened = scenario_text_with_values(
+        header, "b.toml", {{"box.left", "0 um"}, {"box.right", "10 um"}});
+    CHECK(opened.substr(header.size()) == "\n[box]\nleft = \"0 um\"\nright = \"10 um\"\n");
+    CHECK(read_scenario_text(opened, "b.toml").spectrum.box->second ==
+          read_scenario_text(text, "b.toml").spectrum.box->second);
+
+    const std::string dotted = "box.left = \"0 um\"\n" + std::string(text).replace(box, walls.size(), "");
+    const std::string added = scenario_text_with_values(dotted, "b.toml", {{"box.right", "10 um"}});
+    CHECK(inserted_after(dotted, added, line_of(dotted, "title")) == "box.right = \"10 um\"");
+    CHECK(read_scenario_text(added, "b.toml").spectrum.box->second ==
+          read_scenario_text(text, "b.toml").spectrum.box->second);
+  }
+  SECTION("an inline table: its values replaced, no key added") {
+    const std::string text = std::string(default_scenario_text()) + "[box]\nsoft_walls = {widths = [\"1 nm\"]}\n";
+    const std::string edited = scenario_text_with_values(text, "i.toml", {{"box.soft_walls.widths", Json::array({"2 nm"})}});
+    const std::string last = "\nsoft_walls = {widths = [\"2 nm\"]}\n";
+    CHECK(edited.substr(edited.size() - last.size()) == last);
+    const InputError e = edit_error(text, {{"box.soft_walls.height", "1 h*kHz"}});
+    CHECK(e.key == "box.soft_walls.height");
+    CHECK(std::string(e.what()).find("inline table") != std::string::npos);
+  }
+  SECTION("CRLF line ends and a missing last line break") {
+    std::string crlf;
+    for (const auto& line : lines_of(example("ion_translation.toml"))) crlf += line + "\r\n";
+    const std::string edited = scenario_text_with_values(crlf, "c.toml", {{"trap.frequency", "2 MHz"}, {"initial.level", 0}});
+    const Scenario s = read_scenario_text(edited, "c.toml");
+    CHECK(s.potential.parameter("trap.frequency") == Approx(2 * M_PI * 2e6 * s.units.time_s()).epsilon(1e-12));
+    CHECK(s.work->request.initial.kind() == InitialState::Kind::eigenstate);
+    CHECK(lines_of(edited).size() == lines_of(crlf).size());
+
+    std::string text(default_scenario_text());
+    text.pop_back();
+    const std::string appended = scenario_text_with_values(text, "n.toml", {{"initial.level", 1}, {"work.steps", 200}});
+    CHECK(appended.substr(text.size() - 16) == "level = 1\n\n[work]\nsteps = 200\n");
+    CHECK(read_scenario_text(appended, "n.toml").work->request.steps == 200);
+  }
+}

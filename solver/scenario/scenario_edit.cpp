@@ -254,7 +254,8 @@ class Edit {
   std::string value_;
   std::vector<Segment> segments_;
 
-  [[noreturn]] void unknown(const toml::table& root, const std::string& expected) const;
+  // Throws InputError for this address; `suggest`: with the closest known address.
+  [[noreturn]] void unknown(const toml::table& root, const std::string& expected, bool suggest = true) const;
   std::vector<Segment> split() const;
 };
 
@@ -285,7 +286,8 @@ std::vector<Segment> Edit::split() const {
   return out;
 }
 
-void Edit::unknown(const toml::table& root, const std::string& expected) const {
+void Edit::unknown(const toml::table& root, const std::string& expected, bool suggest) const {
+  if (!suggest) throw InputError(address_, value_, expected, "", file_);
   std::vector<std::string> known;
   collect_addresses(root, "", known);
   std::vector<std::string> heads = scenario_tables;
@@ -374,7 +376,7 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
     } else {
       if (node->is_array_of_tables())
         unknown(root, not_found + ": " + sub + " holds [[tables]]; give " + s.key + "[N]");
-      if (!node->is_table()) unknown(root, not_found + ": " + segment_text(s) + " is a value, not a table");
+      if (!node->is_table()) unknown(root, "an address of a value: " + segment_text(s) + " is a value, not a table", false);
       current = node->as_table();
     }
     current_path = sub;
@@ -388,10 +390,10 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
     }
   }
   const Segment& last = path.back();
-  if (last.index) unknown(root, not_found + ": " + segment_text(last) + " is an array element, not a key");
+  if (last.index) unknown(root, "an address of a key: " + segment_text(last) + " is an array element", false);
   key_name = last.key;
   if (path.size() == 1 && std::find(scenario_tables.begin(), scenario_tables.end(), last.key) != scenario_tables.end())
-    unknown(root, not_found + ": [" + last.key + "] is a table; give one of its keys");
+    unknown(root, "an address of a value: [" + last.key + "] is a table; give one of its keys", false);
 
   std::string text = text_;
   auto replace = [&](const toml::source_region& where, const std::string& with) {
@@ -403,9 +405,9 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
   if (missing.empty())
     if (const toml::node* node = current->get(last.key)) {
       if (node->is_table() && !node->as_table()->is_inline())
-        unknown(root, not_found + ": " + last.key + " is a table; give one of its keys");
+        unknown(root, "an address of a value: " + last.key + " is a table; give one of its keys", false);
       if (node->is_array_of_tables() && !node->as_array()->front().as_table()->is_inline())
-        unknown(root, not_found + ": " + last.key + " holds [[tables]]; give one of their keys");
+        unknown(root, "an address of a value: " + last.key + " holds [[tables]]; give one of their keys", false);
       // Removals after the replacement in the text go first, so that offsets stay valid.
       std::vector<std::pair<toml::source_region, std::string>> edits = {{node->source(), value_}};
       if (path.size() == 2)
@@ -422,12 +424,22 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
   keys.push_back(last.key);
   for (const auto& k : keys)
     if (k.find("[]") != std::string::npos || current->is_inline())
-      unknown(root, not_found + ": a key cannot be added to an inline table");
+      unknown(root, "a key already in its table: keys cannot be added to an inline table { ... }; set the whole table",
+              false);
   std::string dotted;
   for (const auto& k : keys) dotted += (dotted.empty() ? "" : ".") + k;
 
-  // A missing top-level table (or one opened only by a deeper header): appended at the end.
-  if (anchor == &root && keys.size() > 1) {
+  // A missing top-level table, or one opened only by a deeper header ([box.soft_walls] without
+  // [box]), is appended at the end; one made by dotted keys at the top (box.left = ...) gets
+  // another dotted key there.
+  const auto opened_by_header = [&](const std::string& top) {
+    const toml::node* t = root.get(top);
+    if (!t) return true;
+    const std::string line = lines.line(t->source().begin.line);
+    const std::size_t start = line.find_first_not_of(" \t");
+    return start != std::string::npos && line[start] == '[';
+  };
+  if (anchor == &root && keys.size() > 1 && opened_by_header(keys[0])) {
     std::string rest;
     for (std::size_t i = 1; i < keys.size(); ++i) rest += (i > 1 ? "." : "") + keys[i];
     if (!text.empty() && text.back() != '\n') text += '\n';
