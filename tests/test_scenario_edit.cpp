@@ -122,6 +122,15 @@ TEST_CASE("issue 15: term parameters by name and by number, and change keys", "[
           Approx(internal(s, "0.02 h*Hz/nm^4", Dimension::energy_per_length(4))).epsilon(1e-12));
     CHECK(s.potential.parameter("trap.quartic") != 0);
   }
+  SECTION("a term named like a table the scenario does not have") {
+    std::string renamed = text;
+    renamed.replace(renamed.find("name = \"trap\""), 13, "name = \"work\"");
+    renamed.replace(renamed.find("\"trap.centre\""), 13, "\"work.centre\"");
+    const std::string edited = scenario_text_with_values(renamed, "default", {{"work.frequency", "2 MHz"}});
+    changed_in_place(renamed, edited, {frequency});
+    const Scenario s = read_scenario_text(edited, "default");
+    CHECK(s.potential.parameter("work.frequency") == Approx(2 * M_PI * 2e6 * s.units.time_s()).epsilon(1e-12));
+  }
   SECTION("change[1].to and protocol.change[1].ramp") {
     const std::string edited =
         scenario_text_with_values(text, "default", {{"change[1].to", "200 nm"}, {"protocol.change[1].ramp", "smooth"}});

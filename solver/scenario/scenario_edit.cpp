@@ -329,17 +329,17 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
   const toml::table* current = &root;
   std::string current_path;   // header path of `current` ("potential", "protocol.change", "" at the top)
   std::size_t first = 0;      // segments before `first` are resolved
-  if (path.size() > 1 && !path[0].index && !root.get(path[0].key) &&
-      std::find(scenario_tables.begin(), scenario_tables.end(), path[0].key) == scenario_tables.end()) {
+  if (path.size() > 1 && !path[0].index && !root.get(path[0].key)) {
     for (const auto& [name, t] : terms(root))
       if (name == path[0].key) {
         current = t;
         current_path = "potential";
         first = 1;
       }
-    if (!first) unknown(root, not_found);
+    if (!first && std::find(scenario_tables.begin(), scenario_tables.end(), path[0].key) == scenario_tables.end())
+      unknown(root, not_found);
   }
-  table_name = path[0].key;
+  table_name = first ? "potential" : path[0].key;  // for the exclusive keys of [initial] and [sweep]
 
   // Down the tables: `anchor` is the deepest one with its own header (or the top), `below` the
   // keys from it to `current`, `missing` the tables still to create.
