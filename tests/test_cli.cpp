@@ -402,3 +402,73 @@ TEST_CASE("issue 14: two runs on one output folder: the second says who holds it
   CHECK(read_all(dir / "first.txt").empty());  // the first run finished without a word
   CHECK(fs::exists(dir / "out" / "summary.json"));
 }
+
+// --set ADDRESS=VALUE changes the scenario as an edited file would, and the summary records it.
+TEST_CASE("--set changes a value as editing the file does, and the summary says so", "[cli][set]") {
+  const fs::path dir = scratch_dir("set");
+  const std::string file = (examples / "ion_translation.toml").string();
+  std::string text = read_all(file);
+  // the same change made by hand in a copy of the file
+  const auto at = text.find("duration");
+  REQUIRE(at != std::string::npos);
+  const auto open = text.find('"', at), close = text.find('"', open + 1);
+  text.replace(open, close - open + 1, "\"1.5 us\"");
+  { std::ofstream(dir / "edited.toml") << text; }
+  const Run by_set = run("work '" + file + "' --set 'protocol.duration=1.5 us' -o by-set --quiet", dir);
+  REQUIRE(by_set.exit_code == 0);
+  const Run by_hand = run("work edited.toml -o by-hand --quiet", dir);
+  REQUIRE(by_hand.exit_code == 0);
+  const auto set_summary = nlohmann::json::parse(read_all(dir / "by-set" / "summary.json"));
+  const auto hand_summary = nlohmann::json::parse(read_all(dir / "by-hand" / "summary.json"));
+  // Two runs of one scenario agree to rounding only (the FFT plans and threads may differ between
+  // runs): the statistics to 1e-9 relative, the number of lines exactly.
+  for (const char* key : {"mean", "sd", "dissipated_work"}) {
+    const double a = set_summary["work"][key]["internal"], b = hand_summary["work"][key]["internal"];
+    CHECK(std::abs(a - b) <= 1e-9 * std::abs(b));
+  }
+  CHECK(set_summary["work"]["lines"] == hand_summary["work"]["lines"]);
+  CHECK(set_summary["protocol"] == hand_summary["protocol"]);
+  CHECK(set_summary["changed_values"] == nlohmann::json::array({"protocol.duration=1.5 us"}));
+  CHECK_THAT(set_summary["invocation"].get<std::string>(), Contains("--set 'protocol.duration=1.5 us'"));
+  CHECK(hand_summary["changed_values"].empty());
+  CHECK(set_summary["trapwork_version"] == std::string(trapwork::trapwork_version()));
+
+  SECTION("the report names the change") {
+    const Run r = run("spectrum default --set spectrum.levels=3 -o levels", dir);
+    REQUIRE(r.exit_code == 0);
+    CHECK_THAT(r.out, Contains("changed     spectrum.levels=3"));
+    CHECK(lines_of(read_all(dir / "levels" / "spectrum.csv")).size() >= 4);
+  }
+  SECTION("a misspelt address is refused with the closest one") {
+    const Run r = run("work default --set 'protocl.duration=1 us' -o bad", dir);
+    CHECK(r.exit_code == 2);
+    CHECK_THAT(r.err, Contains("did you mean 'protocol.duration'"));
+    CHECK(!fs::exists(dir / "bad"));
+  }
+  SECTION("a wrong value is refused by the scenario reader with its line") {
+    const Run r = run("work default --set 'protocol.duration=-1 us' -o bad", dir);
+    CHECK(r.exit_code == 2);
+    CHECK_THAT(r.err, Contains("protocol.duration = \"-1 us\": a duration >= 0"));
+  }
+  SECTION("an assignment without '=' is refused") {
+    const Run r = run("spectrum default --set spectrum.levels -o bad", dir);
+    CHECK(r.exit_code == 2);
+    CHECK_THAT(r.err, Contains("ADDRESS=VALUE"));
+  }
+  SECTION("a sweep names the command that reruns each point with warnings") {
+    const std::string sweep = (examples / "ion_sweep.toml").string();
+    const Run r = run("sweep '" + sweep + "' -o sweep --set 'sweep.values=[\"0.2 us\"]' --set work.steps=20", dir);
+    REQUIRE(r.exit_code == 0);
+    const std::string rerun = "trapwork work " + sweep + " --set 'work.steps=20' --set 'protocol.duration=\"0.2 us\"'";
+    REQUIRE_THAT(r.out, Contains(rerun));
+    // and that command gives the point's numbers (its report has the warnings)
+    const Run point = run(rerun.substr(std::string("trapwork ").size()) + " -o point", dir);
+    REQUIRE(point.exit_code == 0);
+    CHECK_THAT(point.out, Contains("WARN"));
+  }
+  SECTION("--version") {
+    const Run r = run("--version", dir);
+    CHECK(r.exit_code == 0);
+    CHECK(r.out == "trapwork " + std::string(trapwork::trapwork_version()) + "\n");
+  }
+}

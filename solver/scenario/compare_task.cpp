@@ -330,7 +330,7 @@ std::vector<NamedTable> task_tables(const CompareTaskOutcome& o) {
 nlohmann::ordered_json task_summary(const CompareTaskOutcome& o) {
   const Display d = display(o.scenario);
   const WorkData& data = o.data;
-  return {{"command", "compare"},
+  return with_provenance({{"command", "compare"},
           {"scenario", o.scenario.file},
           {"data", data.info().file},
           {"data_kind", data.kind == WorkDataKind::samples       ? "work samples"
@@ -341,7 +341,7 @@ nlohmann::ordered_json task_summary(const CompareTaskOutcome& o) {
           {"resolution_source", o.sigma_source},
           {"energy_unit", d.e},
           {"comparison", comparison_json(o.comparison, d, o.work.result().distribution.beta)},
-          {"verdict", o.verdict}};
+          {"verdict", o.verdict}}, o.scenario);
 }
 
 std::vector<NamedText> task_texts(const CompareTaskOutcome&) { return {}; }

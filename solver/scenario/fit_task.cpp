@@ -269,6 +269,8 @@ FitOutcome fit_task(const FitSettings& settings, const std::function<void(const 
   o.data = read_transition_lines(settings.data);
   o.start_text = settings.start_text;
   o.start = read_scenario_text(o.start_text, settings.start_name);
+  o.start.invocation = settings.invocation;
+  o.start.changed_values = settings.changed_values;
   const PolynomialTrap trap = start_trap(o.start);
   const std::vector<TrapCoefficient> free = parse_terms(settings.terms);
   if (checked) checked(o.start);
@@ -285,7 +287,9 @@ FitOutcome fit_task(const FitSettings& settings, const std::function<void(const 
 
 std::vector<std::string> fit_output_names() { return {"fitted.toml", "fit_lines.csv", "fit_summary.json"}; }
 std::vector<NamedTable> task_tables(const FitOutcome& o) { return {{"fit_lines.csv", fit_lines_table(o.start, o.data, o.fit)}}; }
-nlohmann::ordered_json task_summary(const FitOutcome& o) { return fit_summary(o.start, o.data, o.fit); }
+nlohmann::ordered_json task_summary(const FitOutcome& o) {
+  return with_provenance(fit_summary(o.start, o.data, o.fit), o.start);
+}
 std::vector<NamedText> task_texts(const FitOutcome& o) { return {{"fitted.toml", o.fitted_text}}; }
 std::vector<NamedFigure> task_figures(const FitOutcome&) { return {}; }
 std::vector<fs::path> write_task_outputs(const fs::path& folder, const FitOutcome& o) {

@@ -260,6 +260,20 @@ OutputRun::~OutputRun() {
   if (lock_fd_ >= 0) ::close(lock_fd_);
 }
 
+std::string_view trapwork_version() { return TRAPWORK_VERSION; }
+
+nlohmann::ordered_json provenance_json(const Scenario& scenario) {
+  return {{"trapwork_version", std::string(trapwork_version())},
+          {"invocation", scenario.invocation},
+          {"changed_values", scenario.changed_values}};
+}
+
+nlohmann::ordered_json with_provenance(nlohmann::ordered_json summary, const Scenario& scenario) {
+  const nlohmann::ordered_json provenance = provenance_json(scenario);  // the loop must not range over a temporary
+  for (const auto& [key, value] : provenance.items()) summary[key] = value;
+  return summary;
+}
+
 std::string number_text(double v) {
   if (std::isnan(v)) return "nan";
   if (std::isinf(v)) return v > 0 ? "inf" : "-inf";
@@ -421,6 +435,11 @@ void print_scenario_header(std::ostream& out, const std::string& command, const 
   const UnitSystem& u = scenario.units;
   out << "trapwork " << command << ": " << (scenario.title.empty() ? scenario.file : scenario.title) << '\n';
   print_row(out, "scenario", scenario.file);
+  if (!scenario.changed_values.empty()) {
+    std::string changed;
+    for (const auto& c : scenario.changed_values) changed += (changed.empty() ? "" : ", ") + c;
+    print_row(out, "changed", changed + " (on top of the file)");
+  }
   print_row(out, "particle",
             "mass " + short_number(u.mass_kg / si::atomic_mass) + " u (" + short_number(u.mass_kg) + " kg)");
   print_row(out, "units",

@@ -14,6 +14,7 @@
 #include <nlohmann/json.hpp>
 #include <ostream>
 #include <string>
+#include <string_view>
 #include <vector>
 
 #include "solver/spectrum.hpp"
@@ -78,6 +79,14 @@ class OutputRun {
 // The inputs of a scenario run: the scenario file and the table files it names (potential and
 // ramp tables). The built-in scenario has none.
 std::vector<OutputRun::Input> scenario_inputs(const Scenario& scenario);
+
+// trapwork's version ("0.1.0", the CMake project version).
+std::string_view trapwork_version();
+// What every summary.json carries about how it was made: {"trapwork_version", "invocation",
+// "changed_values"} (scenario.hpp).
+nlohmann::ordered_json provenance_json(const Scenario& scenario);
+// `summary` with provenance_json(scenario) added at its end.
+nlohmann::ordered_json with_provenance(nlohmann::ordered_json summary, const Scenario& scenario);
 
 // Shortest decimal text that reads back to the same double; "nan", "inf", "-inf" otherwise.
 std::string number_text(double v);

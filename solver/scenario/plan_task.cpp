@@ -151,7 +151,7 @@ nlohmann::ordered_json task_summary(const PlanTaskOutcome& o) {
     }
     needed.push_back(row);
   }
-  return {{"command", "plan"},
+  return with_provenance({{"command", "plan"},
           {"scenario", o.scenario.file},
           {"energy_unit", d.e},
           {"kT", d.energy(1 / dist.beta)},
@@ -160,7 +160,7 @@ nlohmann::ordered_json task_summary(const PlanTaskOutcome& o) {
           {"seed", o.settings.seed},
           {"correct_resolution", o.settings.correct_resolution},
           {"target_kT", o.settings.target_kT ? json(*o.settings.target_kT) : json(nullptr)},
-          {"runs_needed", needed}};
+          {"runs_needed", needed}}, o.scenario);
 }
 
 std::vector<NamedText> task_texts(const PlanTaskOutcome& o) {

@@ -120,6 +120,11 @@ struct SweepSpec {
 
 struct Scenario {
   std::string file;  // the scenario file as given ("default" for the built-in one)
+  // How this run was asked for, recorded in every summary (provenance_json, output.hpp): the
+  // front end's command ("trapwork work ion.toml --set ...", or the Python call) and the
+  // values changed on top of the file ("protocol.duration=1 us", the --set assignments).
+  std::string invocation;
+  std::vector<std::string> changed_values;
   std::string title, description;
   UnitSystem units;
   bool natural_units = false;  // [units] natural = true: bare numbers were read as internal values

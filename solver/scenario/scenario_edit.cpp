@@ -569,3 +569,52 @@ std::string scenario_text_from_json(const Json& scenario) {
 }
 
 }  // namespace trapwork
+
+namespace trapwork {
+
+namespace {
+
+// A TOML value as JSON (integers stay integers); nullopt for a table or a date.
+std::optional<nlohmann::json> toml_value_json(const toml::node& n) {
+  if (auto v = n.as_integer()) return nlohmann::json(v->get());
+  if (auto v = n.as_floating_point()) return nlohmann::json(v->get());
+  if (auto v = n.as_boolean()) return nlohmann::json(v->get());
+  if (auto v = n.as_string()) return nlohmann::json(v->get());
+  if (auto a = n.as_array()) {
+    nlohmann::json out = nlohmann::json::array();
+    for (const auto& e : *a) {
+      auto j = toml_value_json(e);
+      if (!j) return std::nullopt;
+      out.push_back(*j);
+    }
+    return out;
+  }
+  return std::nullopt;
+}
+
+}  // namespace
+
+nlohmann::json assignments_json(const std::vector<std::string>& assignments, const std::string& option) {
+  nlohmann::json values = nlohmann::json::object();
+  for (const auto& a : assignments) {
+    const auto eq = a.find('=');
+    std::string address = eq == std::string::npos ? std::string() : a.substr(0, eq);
+    address.erase(0, std::min(address.size(), address.find_first_not_of(" \t")));
+    address.erase(address.find_last_not_of(" \t") + 1);
+    if (eq == std::string::npos || address.empty())
+      throw InputError(option, a, "ADDRESS=VALUE, e.g. protocol.duration=\"1 us\" or trap.quartic=\"0.02 h*Hz/nm^4\"");
+    std::string text = a.substr(eq + 1);
+    text.erase(0, std::min(text.size(), text.find_first_not_of(" \t")));
+    text.erase(text.find_last_not_of(" \t") + 1);
+    std::optional<nlohmann::json> value;
+    try {
+      const toml::table t = toml::parse("value = " + text);
+      if (const toml::node* n = t.get("value"); n && t.size() == 1) value = toml_value_json(*n);
+    } catch (const toml::parse_error&) {
+    }
+    values[address] = value ? *value : nlohmann::json(text);
+  }
+  return values;
+}
+
+}  // namespace trapwork

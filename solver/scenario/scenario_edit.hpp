@@ -5,6 +5,7 @@
 #include <nlohmann/json.hpp>
 #include <string>
 #include <string_view>
+#include <vector>
 
 namespace trapwork {
 
@@ -38,5 +39,16 @@ std::string scenario_text_with_values(std::string_view text, const std::string& 
 // potential, box, ...; unknown keys after them, for the reader to refuse). Throws InputError
 // naming the key for null values or a scenario that is not a JSON object.
 std::string scenario_text_from_json(const nlohmann::json& scenario);
+
+}  // namespace trapwork
+
+namespace trapwork {
+
+// Assignments "ADDRESS=VALUE" (the command line's --set, repeatable) as the JSON object
+// scenario_text_with_values takes. VALUE is read as a TOML value when it is one (3, 2.5e-3,
+// true, "quoted text", [1, 2]); any other text is a string, so `protocol.duration=1 us` needs
+// no quotes. A later assignment to the same address replaces an earlier one. Throws InputError
+// naming `option` for an assignment with no '=' or an empty address.
+nlohmann::json assignments_json(const std::vector<std::string>& assignments, const std::string& option = "--set");
 
 }  // namespace trapwork

@@ -131,7 +131,9 @@ std::vector<NamedTable> spectrum_tables(const Scenario& scenario, const Spectrum
 }
 
 std::vector<NamedTable> task_tables(const SpectrumOutcome& o) { return spectrum_tables(o.scenario, o.result); }
-nlohmann::ordered_json task_summary(const SpectrumOutcome& o) { return spectrum_summary(o.scenario, o.result); }
+nlohmann::ordered_json task_summary(const SpectrumOutcome& o) {
+  return with_provenance(spectrum_summary(o.scenario, o.result), o.scenario);
+}
 std::vector<NamedText> task_texts(const SpectrumOutcome&) { return {}; }
 std::vector<NamedFigure> task_figures(const SpectrumOutcome&) { return {}; }
 std::vector<fs::path> write_task_outputs(const fs::path& folder, const SpectrumOutcome& o) {
@@ -175,7 +177,7 @@ WorkOutcome work_task(const Scenario& scenario, std::optional<double> tolerance,
 }
 
 std::vector<NamedTable> task_tables(const WorkOutcome& o) { return work_tables(o.run()); }
-nlohmann::ordered_json task_summary(const WorkOutcome& o) { return work_summary(o.run()); }
+nlohmann::ordered_json task_summary(const WorkOutcome& o) { return with_provenance(work_summary(o.run()), o.scenario); }
 std::vector<NamedText> task_texts(const WorkOutcome&) { return {}; }
 std::vector<NamedFigure> task_figures(const WorkOutcome& o) { return work_figures(o.run()); }
 std::vector<fs::path> write_task_outputs(const fs::path& folder, const WorkOutcome& o) {
@@ -313,7 +315,7 @@ std::vector<NamedTable> task_tables(const SweepOutcome& o) {
 nlohmann::ordered_json task_summary(const SweepOutcome& o) {
   const SweepSpec& w = *o.scenario.sweep;
   const auto failed = std::count_if(o.rows.begin(), o.rows.end(), [](const auto& r) { return !r.second.failure.empty(); });
-  return {{"command", "sweep"},
+  return with_provenance({{"command", "sweep"},
           {"scenario", o.scenario.file},
           {"parameter", w.parameter},
           {"unit", w.unit},
@@ -321,7 +323,7 @@ nlohmann::ordered_json task_summary(const SweepOutcome& o) {
           {"computed", o.rows.size()},
           {"failed", failed},
           {"jobs", o.jobs},
-          {"threads", o.started_threads}};
+          {"threads", o.started_threads}}, o.scenario);
 }
 
 std::vector<NamedText> task_texts(const SweepOutcome&) { return {}; }
@@ -366,8 +368,20 @@ void print_sweep_report(std::ostream& out, const SweepOutcome& run, std::vector<
     out << line;
     warned += r.warnings > 0;
   }
-  if (warned > 0)
-    out << "\n" << warned << " point(s) have warnings: run `trapwork work` on the scenario at that value to read them\n";
+  if (warned > 0) {
+    out << "\n" << warned << " point(s) have warnings; to read them, run the point alone:\n";
+    // The command that reruns a point: the sweep's scenario, its own changed values, the point's value.
+    std::string base = "trapwork work " + scenario.file;
+    for (const auto& c : scenario.changed_values)
+      if (c.rfind("sweep.", 0) != 0) base += " --set '" + c + "'";  // [sweep] plays no part in `work`
+    for (const auto& r : rows)
+      if (r.failure.empty() && r.warnings > 0)
+        for (std::size_t i = 0; i < sweep.values.size(); ++i)
+          if (sweep.values[i] == r.value) {
+            out << "  " << base << " --set '" << sweep.parameter << "=" << sweep.given[i] << "'\n";
+            break;
+          }
+  }
 }
 
 void print_task_report(std::ostream& out, const SweepOutcome& o) { print_sweep_report(out, o, rows_of(o), ""); }

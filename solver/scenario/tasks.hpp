@@ -141,6 +141,8 @@ struct FitSettings {  // (FitOptions is solver/fit.hpp's)
   std::string start_text, start_name;       // start scenario text and its name (a file, or "default")
   std::string terms = "frequency,quartic";  // coefficients to fit
   std::string fitted_name = "fitted.toml";  // the fitted scenario's name in messages
+  std::string invocation;                   // recorded in fit_summary.json (Scenario::invocation)
+  std::vector<std::string> changed_values;  // the values start_text changed (Scenario::changed_values)
 };
 // The start scenario made from --mass and --frequency (one harmonic polynomial term).
 std::string fit_start_text(const std::string& mass, const std::string& frequency);

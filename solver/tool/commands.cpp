@@ -7,11 +7,38 @@
 
 #include "solver/errors.hpp"
 #include "solver/scenario/output.hpp"
+#include "solver/scenario/scenario_edit.hpp"
 #include "solver/scenario/machine.hpp"
 
 namespace trapwork {
 
+namespace {
+std::string the_command_line;  // this process's command line (command_line())
+
+// An argument as a POSIX shell reads it back: single-quoted unless it is plain.
+std::string shell_quoted(const std::string& a) {
+  if (!a.empty() && a.find_first_not_of("abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ0123456789-_./=:,+@%") ==
+                        std::string::npos)
+    return a;
+  std::string q = "'";
+  for (char c : a) q += c == '\'' ? std::string("'\\''") : std::string(1, c);
+  return q + "'";
+}
+}  // namespace
+
+const std::string& command_line() { return the_command_line; }
+
+void add_set_option(CLI::App* sub, std::vector<std::string>& set) {
+  sub->add_option("--set", set,
+                  "change a value of the scenario, ADDRESS=VALUE with the file's addresses and units, e.g. "
+                  "--set protocol.duration=\"1 us\" --set trap.quartic=\"0.02 h*Hz/nm^4\" (repeatable; recorded in the "
+                  "summary)")
+      ->allow_extra_args(false);
+}
+
 int run_command_line(CLI::App& app, int argc, char** argv) {
+  the_command_line = "trapwork";
+  for (int i = 1; i < argc; ++i) the_command_line += " " + shell_quoted(argv[i]);
   try {
     app.parse(argc, argv);  // runs the chosen command's callback
     return 0;
@@ -43,9 +70,19 @@ int run_command_line(CLI::App& app, int argc, char** argv) {
   }
 }
 
-Scenario load_scenario(const std::string& name) {
-  if (name.empty() || name == "default") return read_scenario_text(default_scenario_text(), "default");
-  return read_scenario(name);
+std::string scenario_text(const std::string& name, const std::vector<std::string>& set) {
+  const bool builtin = name.empty() || name == "default";
+  std::string text = builtin ? std::string(default_scenario_text()) : read_text_file(name, "the scenario file");
+  if (!set.empty()) text = scenario_text_with_values(text, builtin ? "default" : name, assignments_json(set));
+  return text;
+}
+
+Scenario load_scenario(const std::string& name, const std::vector<std::string>& set) {
+  const bool builtin = name.empty() || name == "default";
+  Scenario s = read_scenario_text(scenario_text(name, set), builtin ? "default" : name);
+  s.invocation = command_line();
+  s.changed_values = set;
+  return s;
 }
 
 void add_spectrum_command(CLI::App& app) {
@@ -60,11 +97,12 @@ void add_spectrum_command(CLI::App& app) {
   sub->add_option("--levels", command->levels, "number of levels (overrides [spectrum] levels)")
       ->check(CLI::Range(1, 100000));
   sub->add_flag("--quiet", command->quiet, "print nothing but errors");
+  add_set_option(sub, command->set);
   sub->callback([command] { run_spectrum(*command, std::cout); });
 }
 
 void run_spectrum(const SpectrumCommand& command, std::ostream& out) {
-  Scenario scenario = load_scenario(command.scenario);
+  Scenario scenario = load_scenario(command.scenario, command.set);
   if (!command.output.empty()) scenario.output_folder = command.output;
   OutputRun output(scenario.output_folder, spectrum_output_names(), scenario_inputs(scenario),
                    "trapwork spectrum " + scenario.file);

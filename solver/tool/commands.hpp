@@ -24,8 +24,18 @@ namespace trapwork {
 // Errors are printed to stderr as "trapwork: error: <message>".
 int run_command_line(CLI::App& app, int argc, char** argv);
 
-// The scenario named on a command line: "default" or "" is the built-in one, else a file.
-Scenario load_scenario(const std::string& name);
+// The scenario named on a command line: "default" or "" is the built-in one, else a file; with
+// the --set assignments ("protocol.duration=1 us", scenario_edit.hpp) applied to its text, so
+// the reader checks the changed values as it checks the file's, and recorded in the scenario
+// (changed_values) with the command line (invocation) for the summaries.
+Scenario load_scenario(const std::string& name, const std::vector<std::string>& set = {});
+// The scenario text named on a command line ("default": the built-in one) with `set` applied.
+std::string scenario_text(const std::string& name, const std::vector<std::string>& set);
+// The command line this process was started with, quoted for a POSIX shell (set by
+// run_command_line; recorded in every summary.json).
+const std::string& command_line();
+// Adds the repeatable --set ADDRESS=VALUE option to a command that reads a scenario.
+void add_set_option(CLI::App* sub, std::vector<std::string>& set);
 
 // The hooks of a task drawn as a progress bar on `out` when `show`: the first stage makes a bar
 // of `total` units with the stage's name, later stages restart it, progress fractions move it.
@@ -51,6 +61,7 @@ std::function<void(const std::string&)> notice_to(std::ostream& out);
 
 // trapwork spectrum [SCENARIO] [-o DIR] [--levels N] [--quiet]
 struct SpectrumCommand {
+  std::vector<std::string> set;  // --set ADDRESS=VALUE, applied to the scenario (fit: the start scenario)
   std::string scenario;       // file, or "default"/"" for the built-in scenario
   std::string output;         // overrides [output] folder when not empty
   std::optional<int> levels;  // overrides [spectrum] levels
@@ -63,6 +74,7 @@ void run_spectrum(const SpectrumCommand& command, std::ostream& out);
 // (run_work), the report on `out`, the files of write_work_outputs. A progress bar goes to
 // `progress` when `show_progress` (the command line: stderr is a terminal and not --quiet).
 struct WorkCommand {
+  std::vector<std::string> set;  // --set ADDRESS=VALUE, applied to the scenario (fit: the start scenario)
   std::string scenario;  // file, or "default"/"" for the built-in scenario
   std::string output;    // overrides [output] folder when not empty
   bool quiet = false;
@@ -82,6 +94,7 @@ void add_demo_command(CLI::App& app);
 // sweep-points.txt when its fingerprint (scenario text and sweep values) matches, else
 // throws InputError; the final sweep.csv equals that of an uninterrupted run.
 struct SweepCommand {
+  std::vector<std::string> set;  // --set ADDRESS=VALUE, applied to the scenario (fit: the start scenario)
   std::string scenario;
   std::string output;
   bool quiet = false;
@@ -102,6 +115,7 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
 // coefficients, which `trapwork work` runs when the start had [protocol] and [initial]),
 // fit_lines.csv and fit_summary.json. Data the fit cannot determine: PhysicsError (exit 2).
 struct FitCommand {
+  std::vector<std::string> set;  // --set ADDRESS=VALUE, applied to the scenario (fit: the start scenario)
   std::string data;                           // transition lines file
   std::string start;                          // start scenario file, "default", or "" (then mass, frequency)
   std::string mass, frequency;                // "40 u", "1 MHz" when there is no start scenario
@@ -124,6 +138,7 @@ ScenarioWork model_work(const Scenario& scenario, std::ostream& progress, bool s
 // compare_summary.json and compare.png/.svg. The resolution comes from the option, the data
 // file's "# resolution:" line or the scenario's [work] resolution (level pairs need none).
 struct CompareCommand {
+  std::vector<std::string> set;  // --set ADDRESS=VALUE, applied to the scenario (fit: the start scenario)
   std::string scenario, data, output;
   std::string resolution;  // e.g. "40 h*kHz"; empty: from the data file or the scenario
   int resamples = 2000;
@@ -146,6 +161,7 @@ CompareOutcome run_compare_command(const CompareCommand& command, std::ostream& 
 // plan.csv, plan_summary.json, plan.png/.svg and, with --synthetic-runs, synthetic_work.csv
 // (runs drawn from the model with the first resolution, in the work samples layout).
 struct PlanCommand {
+  std::vector<std::string> set;  // --set ADDRESS=VALUE, applied to the scenario (fit: the start scenario)
   std::string scenario, output;
   std::vector<int> runs = {10, 30, 100, 300, 1000};
   std::vector<std::string> resolutions;  // e.g. "40 h*kHz"; empty: 0

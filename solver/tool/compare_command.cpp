@@ -18,7 +18,7 @@ ScenarioWork model_work(const Scenario& scenario, std::ostream& progress, bool s
 }
 
 CompareOutcome run_compare_command(const CompareCommand& command, std::ostream& out, std::ostream& progress) {
-  Scenario scenario = load_scenario(command.scenario);
+  Scenario scenario = load_scenario(command.scenario, command.set);
   if (!command.output.empty()) scenario.output_folder = command.output;
   CompareSettings settings;
   settings.data = command.data;
@@ -70,6 +70,7 @@ void add_compare_command(CLI::App& app) {
       ->check(CLI::Range(0.5, 0.9999));
   sub->add_option("-o,--output", command->output, "output folder (overrides [output] folder)");
   sub->add_flag("--quiet", command->quiet, "print nothing but errors");
+  add_set_option(sub, command->set);
   sub->callback([command] {
     CompareCommand c = *command;
     c.show_progress = !c.quiet && ProgressBar::terminal_allows();

@@ -6,6 +6,7 @@
 #include "solver/tool/commands.hpp"
 #include "solver/scenario/data_files.hpp"
 #include "solver/scenario/output.hpp"
+#include "solver/scenario/scenario_edit.hpp"
 #include "solver/scenario/tasks.hpp"
 
 namespace trapwork {
@@ -16,11 +17,15 @@ FitResultFiles run_fit_command(const FitCommand& command, std::ostream& out) {
   (void)read_transition_lines(command.data);  // its errors come before those of the start scenario
   FitSettings settings;
   settings.data = command.data;
-  settings.start_text = !command.start.empty() ? (command.start == "default" ? std::string(default_scenario_text())
-                                                                              : read_text_file(command.start, "the scenario file"))
-                                               : fit_start_text(command.mass, command.frequency);
   settings.start_name =
       command.start.empty() ? "--mass " + command.mass + " --frequency " + command.frequency : command.start;
+  settings.start_text = !command.start.empty() ? scenario_text(command.start, command.set)
+                        : command.set.empty()
+                            ? fit_start_text(command.mass, command.frequency)
+                            : scenario_text_with_values(fit_start_text(command.mass, command.frequency),
+                                                        settings.start_name, assignments_json(command.set));
+  settings.invocation = command_line();
+  settings.changed_values = command.set;
   settings.terms = command.terms;
   const fs::path folder =
       command.output.empty() ? fs::path(fs::path(command.data).stem().string() + "-fit") : fs::path(command.output);
@@ -65,6 +70,7 @@ void add_fit_command(CLI::App& app) {
       ->capture_default_str();
   sub->add_option("-o,--output", command->output, "output folder (default: <data file stem>-fit)");
   sub->add_flag("--quiet", command->quiet, "print nothing but errors");
+  add_set_option(sub, command->set);
   sub->callback([command] { run_fit_command(*command, std::cout); });
 }
 

@@ -12,7 +12,7 @@
 namespace trapwork {
 
 PlanOutcome run_plan_command(const PlanCommand& command, std::ostream& out, std::ostream& progress) {
-  Scenario scenario = load_scenario(command.scenario);
+  Scenario scenario = load_scenario(command.scenario, command.set);
   if (!command.output.empty()) scenario.output_folder = command.output;
   PlanSettings settings;
   settings.runs = command.runs;
@@ -84,6 +84,7 @@ void add_plan_command(CLI::App& app) {
       ->check(CLI::Range(0, 100000000));
   sub->add_option("-o,--output", command->output, "output folder (overrides [output] folder)");
   sub->add_flag("--quiet", command->quiet, "print nothing but errors");
+  add_set_option(sub, command->set);
   sub->callback([command] {
     PlanCommand c = *command;
     c.show_progress = !c.quiet && ProgressBar::terminal_allows();

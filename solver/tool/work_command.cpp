@@ -24,7 +24,8 @@ void print_files(std::ostream& out, const std::vector<std::filesystem::path>& fi
   for (const auto& f : files) out << "wrote " << f.string() << '\n';
 }
 
-void add_work_options(CLI::App* sub, std::string& output, bool& quiet) {
+void add_work_options(CLI::App* sub, std::string& output, bool& quiet, std::vector<std::string>& set) {
+  add_set_option(sub, set);
   sub->add_option("-o,--output", output, "output folder (overrides [output] folder)");
   sub->add_flag("--quiet", quiet, "print nothing but errors (no report, no progress bar)");
 }
@@ -132,7 +133,7 @@ std::vector<std::pair<std::size_t, SweepRow>> read_sweep_points(const std::files
 }  // namespace
 
 void run_work_command(const WorkCommand& command, std::ostream& out, std::ostream& progress) {
-  Scenario scenario = load_scenario(command.scenario);
+  Scenario scenario = load_scenario(command.scenario, command.set);
   if (!command.output.empty()) scenario.output_folder = command.output;
   (void)build_protocol(scenario);  // a missing [protocol] is reported before a missing [initial]
   (void)work_request(scenario);
@@ -158,7 +159,7 @@ void add_work_command(CLI::App& app) {
   sub->add_option("scenario", command->scenario,
                   "scenario file (TOML) with [protocol] and [initial], or \"default\" for the built-in one")
       ->required();
-  add_work_options(sub, command->output, command->quiet);
+  add_work_options(sub, command->output, command->quiet, command->set);
   sub->add_option("--tolerance", command->tolerance,
                   "choose the time step and grid for this bound on the distance of P(W) from its converged value "
                   "(a total-variation bound over the work lines, e.g. 1e-4): steps are doubled and the grid refined "
@@ -182,7 +183,7 @@ void add_demo_command(CLI::App& app) {
       "Runs `trapwork work` on the built-in scenario: a 40 u ion in a 1 MHz trap with a quartic correction "
       "(lowest spacing raised by about 3 kHz), 2 phonons, moved by 160 nm at constant speed in 2.5 us "
       "(about 5 s)");
-  add_work_options(sub, command->output, command->quiet);
+  add_work_options(sub, command->output, command->quiet, command->set);
   sub->callback([command] {
     WorkCommand c = *command;
     c.scenario = "default";
@@ -193,7 +194,7 @@ void add_demo_command(CLI::App& app) {
 }
 
 void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostream& progress) {
-  Scenario scenario = load_scenario(command.scenario);
+  Scenario scenario = load_scenario(command.scenario, command.set);
   if (!command.output.empty()) scenario.output_folder = command.output;
   if (!scenario.sweep)
     throw InputError("sweep", "", "a [sweep] table: parameter, and values = [...] or from, to, points", "",
@@ -287,7 +288,7 @@ void add_sweep_command(CLI::App& app) {
       "sweep.csv (rewritten as points finish) and sweep.png/.svg");
   sub->add_option("scenario", command->scenario, "scenario file (TOML) with [protocol], [initial] and [sweep]")
       ->required();
-  add_work_options(sub, command->output, command->quiet);
+  add_work_options(sub, command->output, command->quiet, command->set);
   sub->add_option("--jobs", command->jobs, "points run at the same time (default: the number of cores)")
       ->check(CLI::Range(1, 4096));
   sub->add_flag("--resume", command->resume,
