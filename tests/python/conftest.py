@@ -20,14 +20,19 @@ SOURCE = pathlib.Path(os.environ.get("TRAPWORK_SOURCE_DIR", pathlib.Path(__file_
 EXAMPLES = SOURCE / "examples"
 CLI = os.environ.get("TRAPWORK_CLI", str(SOURCE / "build" / "trapwork"))
 
-# Relative tolerance of module against command line. Both run the same code on the same input,
-# but the command line is not bitwise repeatable itself: FFTW_MEASURE (long runs) picks transform
-# algorithms by timing, so two runs of `trapwork demo` differ at rounding level (measured: <W> by
-# 2.6e-13 relative; an error estimate that is a difference of two O(1) sums, such as sd_error, by
-# 3e-5 relative, because it is itself rounding noise). So each number is compared to 1e-12 of
-# itself plus 1e-12 of its scale: the largest magnitude in its CSV column, or in its top-level
-# section of the summary (same run, same units).
+# Tolerance of module against command line. Both run the same code on the same input, but the
+# command line is not bitwise repeatable itself: FFTW_MEASURE (long runs) picks transform
+# algorithms by timing, so two runs of one scenario differ at rounding level. Measured, command
+# line against command line: <W> of `trapwork demo` by 2.6e-13 relative; the transition
+# probabilities of ion_translation.toml at 3 us by 3.6e-12 of the column's largest value; an
+# error estimate that is a difference of two O(1) sums (sd_error) by 3e-5 of itself, being
+# rounding noise. So each number a (module) is compared with b (command line) as
+#     |a - b| <= RELATIVE |b| + SCALE_RELATIVE * scale,
+# scale: the largest magnitude in its CSV column, or in its top-level section of the summary
+# (same run, same units). RELATIVE is the 1e-12 the issue asks for; SCALE_RELATIVE is looser
+# than it because of the measured 3.6e-12 above (about 3 times that).
 RELATIVE = 1e-12
+SCALE_RELATIVE = 1e-11
 
 
 def run_cli(*args, cwd=None):
@@ -58,7 +63,7 @@ def assert_close(a, b, scale, what):
     assert a.shape == b.shape, f"{what}: shapes {a.shape} and {b.shape}"
     same_nan = np.isnan(a) == np.isnan(b)
     assert same_nan.all(), f"{what}: NaN in one and not the other at {np.flatnonzero(~same_nan)[:5]}"
-    ok = np.isnan(a) | (a == b) | (np.abs(a - b) <= RELATIVE * (np.abs(b) + scale))
+    ok = np.isnan(a) | (a == b) | (np.abs(a - b) <= RELATIVE * np.abs(b) + SCALE_RELATIVE * scale)
     bad = np.flatnonzero(~ok)
     assert bad.size == 0, f"{what}: {bad.size} values differ, first at row {bad[0]}: {a[bad[0]]!r} vs {b[bad[0]]!r}"
 
@@ -108,12 +113,14 @@ def _compare_json(a, b, scale, where):
         assert a == b, f"{where}: {a!r} vs {b!r}"
 
 
-def assert_summary_equals_json(summary, path):
+def assert_summary_equals_json(summary, path, ignore=()):
     """Module summary dict against the command line's JSON file: same keys in the same order,
     flags, strings (assert_text_close: warnings quote diagnostic values), numbers to RELATIVE of their top-level section's scale."""
     expected = json.loads(pathlib.Path(path).read_text())
     assert list(summary) == list(expected), f"{path.name}: keys differ"
     for k in expected:
+        if k in ignore:
+            continue
         scale = _largest(expected[k])
         _compare_json(summary[k], expected[k], scale, f"{path.name}:{k}")
 

@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 
 import trapwork
-from conftest import EXAMPLES, assert_table_equals_csv, cli_ok
+from conftest import EXAMPLES, assert_summary_equals_json, assert_table_equals_csv, cli_ok
 
 
 def test_from_file_keeps_text_and_name():
@@ -48,3 +48,50 @@ def test_levels_argument_changes_the_spectrum():
     r = trapwork.spectrum(trapwork.Scenario.default(), levels=4)
     assert len(r.energies) == 4 and r.summary["levels_requested"] == 4
     assert np.all(np.diff(r.energies) > 0)
+
+
+def test_with_values_equals_the_cli_on_the_edited_file(in_tmp):
+    s = trapwork.Scenario.from_file(EXAMPLES / "ion_translation.toml")
+    changed = s.with_values({"protocol.duration": "1.4 us", "initial.temperature": "10 uK"})
+    assert changed.name == s.name and changed.text != s.text
+    edited = in_tmp / "edited.toml"
+    edited.write_text(changed.text)
+    cli_ok("work", edited, "-o", in_tmp / "cli")
+    module = trapwork.work(changed)
+    original = trapwork.work(s)
+    assert module.summary["work"]["mean"]["value"] != original.summary["work"]["mean"]["value"]
+    for table in module.tables.values():
+        assert_table_equals_csv(table, in_tmp / "cli" / table.file)
+    # the summary names the file the CLI read (edited.toml); everything else is equal
+    assert_summary_equals_json(module.summary, in_tmp / "cli" / "summary.json", ignore=("scenario",))
+    assert module.summary["protocol"]["duration_given"] == "1.4 us"
+    assert module.summary["scenario"]["file"] == s.name
+
+
+def test_with_values_unknown_address_is_input_error():
+    with pytest.raises(trapwork.InputError, match="duratio"):
+        trapwork.Scenario.default().with_values({"protocol.duratio": "3 us"})
+    with pytest.raises(trapwork.InputError, match="frequencyy"):
+        trapwork.Scenario.default().with_values({"trap.frequencyy": "1 MHz"})
+
+
+def test_with_values_bad_value_names_the_line():
+    with pytest.raises(trapwork.InputError) as caught:
+        trapwork.Scenario.default().with_values({"protocol.duration": "-3 us"})
+    assert str(caught.value).startswith("default:"), str(caught.value)
+    assert "protocol.duration" in str(caught.value)
+
+
+def test_from_dict_builds_the_same_scenario_as_its_toml(in_tmp):
+    values = {"particle": {"mass": "40 u"},
+              "potential": [{"name": "trap", "shape": "polynomial", "frequency": "1 MHz",
+                             "quartic": "0.0157 h*Hz/nm^4"}],
+              "spectrum": {"levels": 5}}
+    s = trapwork.Scenario.from_dict(values, name="mine.toml")
+    (in_tmp / "mine.toml").write_text(s.text)
+    cli_ok("spectrum", "mine.toml", "-o", "cli")
+    r = trapwork.spectrum(s)
+    assert len(r.energies) == 5
+    assert_table_equals_csv(r.tables["spectrum"], in_tmp / "cli" / "spectrum.csv")
+    with pytest.raises(trapwork.InputError, match="mass"):
+        trapwork.Scenario.from_dict({"particle": {"mass": 40}, "potential": values["potential"]})
