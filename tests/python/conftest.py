@@ -113,6 +113,12 @@ def _compare_json(a, b, scale, where):
         assert a == b, f"{where}: {a!r} vs {b!r}"
 
 
+def assert_json_close(a, b, where):
+    """Two JSON values: same keys, strings and flags; numbers to RELATIVE of their scale (the
+    largest magnitude in b)."""
+    _compare_json(a, b, _largest(b), where)
+
+
 def assert_summary_equals_json(summary, path, ignore=()):
     """Module summary dict against the command line's JSON file: same keys in the same order,
     flags, strings (assert_text_close: warnings quote diagnostic values), numbers to RELATIVE of their top-level section's scale."""

@@ -1,12 +1,14 @@
 """The module's results equal the command line's files on every example (issue 15): each CSV
 column against the module's Table, summary.json against result.summary, the printed report
 against result.report. Tolerance: conftest.RELATIVE (why it is not 0 is said there)."""
+import json
 import pathlib
+import re
 
 import pytest
 
 import trapwork
-from conftest import (EXAMPLES, assert_summary_equals_json, assert_table_equals_csv, assert_text_close, cli_ok,
+from conftest import (EXAMPLES, assert_json_close, assert_summary_equals_json, assert_table_equals_csv, assert_text_close, cli_ok,
                       example_scenarios, has_tables)
 
 
@@ -55,3 +57,23 @@ def test_default_scenario_equals_demo(in_tmp):
     done = cli_ok("demo", "-o", in_tmp / "cli")
     result = trapwork.work(trapwork.Scenario.default())
     assert_result_equals_cli(result, in_tmp / "cli", done.stdout)
+
+
+def test_work_tolerance_equals_cli(in_tmp):
+    # `trapwork work --tolerance 1e-3 --search-budget 500` and work(tolerance=1e-3, search_budget=500)
+    name = EXAMPLES / "ion_translation.toml"
+    cli_ok("work", name, "--tolerance", "1e-3", "--search-budget", "500", "-o", in_tmp / "cli")
+    result = trapwork.work(trapwork.Scenario.from_file(name), tolerance=1e-3, search_budget=500)
+    for table in result.tables.values():
+        assert_table_equals_csv(table, in_tmp / "cli" / table.file)
+    assert_summary_equals_json(result.summary, in_tmp / "cli" / "summary.json", ignore=("tolerance",))
+    # the search's own record: its wall times (split_seconds, "(0.18 s)" in each run's line) are
+    # measured, so they differ; the choices and distances do not
+    expected = dict(json.loads((in_tmp / "cli" / "summary.json").read_text())["tolerance"])
+    got = dict(result.summary["tolerance"])
+    assert got["cost_bound"] == 500 and got["requested"] == 1e-3
+    for k in ("split_seconds", "eigenbasis_seconds"):
+        assert (got.pop(k) is None) == (expected.pop(k) is None), k
+    untimed = lambda runs: [re.sub(r" \([0-9.e+-]+ s\)", "", r) for r in runs]
+    got["runs"], expected["runs"] = untimed(got["runs"]), untimed(expected["runs"])
+    assert_json_close(got, expected, "summary.json:tolerance")
