@@ -243,6 +243,16 @@ class Table:
         return f"<trapwork.Table {self.file}: {len(self)} rows, columns {', '.join(self.columns)}>"
 
 
+def _table_of_csv(file, text):
+    """A CSV file's text in the command line's layout (names, '#' lines, rows) as a Table."""
+    lines = text.splitlines()
+    names = lines[0].split(",") if lines else []
+    comments = [l[2:] if l.startswith("# ") else l[1:] for l in lines[1:] if l.startswith("#")]
+    rows = [l.split(",") for l in lines[1:] if l and not l.startswith("#")]
+    values = np.array([[float(x) for x in r] for r in rows], dtype=float).reshape(len(rows), len(names))
+    return Table(file, [(n, values[:, i]) for i, n in enumerate(names)], comments)
+
+
 def _figure_value(v):
     if isinstance(v, dict):
         return {k: _figure_value(x) for k, x in v.items()}
@@ -277,6 +287,11 @@ class Result:
         for file, columns, comments in native.tables():
             self.tables[file.rsplit(".", 1)[0]] = Table(file, columns, comments)
         self.summary = json.loads(native.summary_json())
+        # other files (fitted.toml, synthetic_work.csv): their text; a CSV one is a table too
+        self.texts = {name: text for name, text in native.texts()}
+        for name, text in self.texts.items():
+            if name.endswith(".csv"):
+                self.tables[name[:-4]] = _table_of_csv(name, text)
         self.figures = {stem: _figure_value(dict(data)) for stem, data in native.figures}
         self.report = native.report
         self._inputs = [tuple(i) for i in native.inputs()]
