@@ -105,6 +105,31 @@ def test_ctrl_c_raises_keyboard_interrupt_and_writes_nothing(tmp_path):
     assert not folder.exists()
 
 
+def test_ctrl_c_during_write_leaves_one_whole_run(tmp_path):
+    # The child writes two different spectra into one folder in turn until SIGINT: wherever the
+    # signal lands (inside OutputRun's write phase, its commit, or between writes), the folder
+    # must then hold exactly the files of one of the two runs, and KeyboardInterrupt is raised.
+    folder = tmp_path / "out"
+    runs = tmp_path / "runs.pickle"
+    child = subprocess.Popen([sys.executable, str(HERE / "write_driver.py"), str(folder), str(runs)],
+                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        assert child.stdout.readline().strip() == "ready", child.stderr.read()
+        time.sleep(0.5)
+        child.send_signal(signal.SIGINT)
+        out, err = child.communicate(timeout=60)
+    finally:
+        if child.poll() is None:
+            child.kill()
+            child.wait()
+    assert child.returncode == 0 and out.strip() == "interrupted", f"exit {child.returncode}: {out}\n{err}"
+    expected = pickle.loads(runs.read_bytes())
+    found = {p.name: p.read_bytes() for p in folder.iterdir() if not p.name.startswith(".trapwork-")}
+    leftovers = [p.name for p in folder.iterdir() if p.name.startswith(".trapwork-new") or ".tmp-" in p.name]
+    assert not leftovers
+    assert found in expected, "the folder mixes the two runs"
+
+
 # ---- the GIL and progress ---------------------------------------------------------------------
 
 def test_gil_is_released_during_a_computation():
