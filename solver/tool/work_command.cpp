@@ -152,38 +152,16 @@ void run_work_command(const WorkCommand& command, std::ostream& out, std::ostrea
   Scenario scenario = load_scenario(command.scenario);
   if (!command.output.empty()) scenario.output_folder = command.output;
   (void)build_protocol(scenario);  // a missing [protocol] is reported before a missing [initial]
-  WorkRequest request = work_request(scenario);
+  (void)work_request(scenario);
   OutputRun output(scenario.output_folder, work_output_names(), scenario_inputs(scenario),
                    "trapwork work " + scenario.file);
-  std::optional<ToleranceChoice> choice;
-  std::optional<ScenarioWork> direct;
-  if (command.tolerance) {
-    if (!(*command.tolerance > 0 && *command.tolerance < 1))
-      throw InputError("--tolerance", short_number(*command.tolerance), "a bound between 0 and 1 (e.g. 1e-4)");
-    if (!(command.search_budget >= 1))
-      throw InputError("--search-budget", short_number(command.search_budget),
-                       "a cost bound >= 1 (in units of the search's first run)");
-    ProgressBar bar("--tolerance search (share of its cost bound)", 1000, progress, command.show_progress);
-    request.progress = [&bar](double fraction) { bar.update(std::size_t(fraction * 1000)); };
-    choice = naming_scenario(scenario.file, scenario, [&] {
-      return compute_work_to_tolerance(scenario, request, *command.tolerance, command.search_budget);
-    });
-    bar.finish();
-  } else {
-    ProgressBar bar("propagating", 1000, progress, command.show_progress);
-    watch_work(request, bar, command.quiet ? nullptr : &progress);
-    direct = naming_scenario(scenario.file, scenario, [&] { return compute_work(scenario, request); });
-    bar.finish();
-    direct->request.progress = nullptr;  // the bar ends here
-    direct->request.stage = nullptr;
-    direct->request.on_estimate = nullptr;
-  }
-  const Scenario& used = choice ? choice->scenario : scenario;
-  WorkRun run = choice ? choice->work->run(used) : direct->run(used);
-  run.tolerance = choice ? &*choice : nullptr;
-  const auto files = output.commit(write_work_outputs(output.staging(), run));
+  TaskBar bar(progress, command.show_progress);
+  const WorkOutcome outcome = work_task(scenario, command.tolerance, command.search_budget,
+                                        bar.hooks(command.quiet ? nullptr : notice_to(progress)));
+  bar.finish();
+  const auto files = output.commit(write_task_outputs(output.staging(), outcome));
   if (command.quiet) return;
-  print_work_report(out, run);
+  print_task_report(out, outcome);
   print_files(out, files);
 }
 
