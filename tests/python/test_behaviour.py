@@ -46,11 +46,13 @@ def test_missing_file_is_input_error(tmp_path):
         trapwork.Scenario.from_file(tmp_path / "missing.toml")
 
 
-def test_work_without_protocol_is_input_error():
+def test_work_without_protocol_is_input_error(tmp_path):
     s = trapwork.Scenario.from_file(EXAMPLES / "ion_quartic.toml")
     assert not s.has_protocol
-    with pytest.raises(trapwork.InputError, match="protocol"):
+    with pytest.raises(trapwork.InputError, match="protocol") as caught:
         trapwork.work(s)
+    done = run_cli("work", EXAMPLES / "ion_quartic.toml", "-o", tmp_path / "out")
+    assert done.returncode == 2 and done.stderr.strip() == f"trapwork: error: {caught.value}"
 
 
 def test_bad_arguments_are_input_errors():
@@ -275,3 +277,20 @@ def test_docstrings():
     for c in (trapwork.Scenario, trapwork.Table, trapwork.Result, trapwork.WorkResult, trapwork.InputError,
               trapwork.PhysicsError):
         assert c.__doc__ and len(c.__doc__) > 40, c.__name__
+
+
+def test_work_figures_are_plain_data(default_work):
+    # the figure data the command line draws work.png and potential.png from, as dicts of numpy arrays
+    r = default_work
+    assert set(r.figures) == {"potential", "work"}
+    work = r.figures["work"]
+    assert work["kind"] == "work" and isinstance(work["result"]["work"], np.ndarray)
+    assert abs(work["result"]["probability"].sum() - r.lines["probability"].sum()) < 1e-12
+    assert work["mean_work"] == r.summary["work"]["mean"]["value"]
+    levels = r.figures["potential"]
+    assert levels["kind"] == "levels" and len(levels["panels"]) == 2
+    start = levels["panels"][0]
+    assert start["x"].shape == start["potential"].shape
+    np.testing.assert_allclose(start["energies"][:3], trapwork.spectrum("default", levels=3).energies, rtol=1e-9)
+    copy = pickle.loads(pickle.dumps(r))
+    np.testing.assert_array_equal(copy.figures["work"]["result"]["work"], work["result"]["work"])
