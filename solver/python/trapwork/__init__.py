@@ -549,7 +549,9 @@ def _run(function, *args, progress=None):
         callback = progress
     else:
         raise TypeError("progress must be None, True or a callable progress(stage, fraction)")
-    notice = (lambda line: print(line, file=sys.stderr)) if callback is not None else None
+    def notice(line):  # the cost estimate of a long run, said before it starts (as the command line does)
+        print(line, file=sys.stderr, flush=True)
+
     try:
         return function(*args, callback, notice)
     finally:
@@ -561,7 +563,8 @@ _PROGRESS_DOC = """progress: None (default: nothing shown), True (a text bar on 
         which works in a notebook) or a callable ``progress(stage, fraction)`` called on the
         calling thread about 20 times a second while the run advances (stage: str, the stage's
         name; fraction: float in [0, 1], the share of that stage done). An exception it raises
-        stops the run and is raised."""
+        stops the run and is raised. A run estimated to take over 30 s says its estimated
+        memory and time on stderr before it starts, whatever ``progress`` is."""
 
 
 # ---- the computations ----------------------------------------------------------------------------
