@@ -4,6 +4,7 @@
 // from a progress hook stops the task and passes out of it.
 #include <catch2/catch.hpp>
 
+#include <algorithm>
 #include <atomic>
 #include <chrono>
 #include <filesystem>
@@ -184,4 +185,80 @@ TEST_CASE("issue 15: an Interrupted thrown by the progress hook passes out of wo
   calls = 0;
   CHECK_THROWS_AS(work_task(s, 1e-3, 20, interrupting(calls, 2)), Interrupted);
   CHECK(calls == 2);
+}
+
+TEST_CASE("issue 15: sweep_task computes every point, its files are its tables", "[tasks]") {
+  const fs::path dir = trapwork_test::scratch_dir("test-tasks", "sweep-cli");
+  std::ofstream(dir / "sweep.toml") << work_text << "[sweep]\nparameter = \"protocol.duration\"\n"
+                                                    "values = [\"1.5 us\", \"0.6 us\"]\n";
+  const Scenario s = read_scenario((dir / "sweep.toml").string());
+  std::vector<std::size_t> reported;
+  SweepOptions options;
+  options.jobs = 2;
+  options.on_point = [&](std::size_t i, const SweepRow& row) {
+    reported.push_back(i);
+    CHECK(row.failure.empty());
+  };
+  double last = -1;
+  TaskHooks hooks;
+  hooks.progress = [&](double f) {
+    CHECK(f >= 0);
+    CHECK(f <= 1);
+    last = f;
+  };
+  const SweepOutcome o = sweep_task(s, options, hooks);
+  CHECK(last == 1.0);
+  REQUIRE(o.rows.size() == 2);
+  std::sort(reported.begin(), reported.end());
+  CHECK(reported == std::vector<std::size_t>{0, 1});
+  CHECK(o.jobs == 2);
+  CHECK(o.refusal.empty());
+  const auto summary = task_summary(o);
+  CHECK(summary["points"] == 2);
+  CHECK(summary["failed"] == 0);
+  CHECK(summary["parameter"] == "protocol.duration");
+  check_files_are_the_outcome(o, "sweep_summary.json", "sweep");
+
+  // The command line's sweep.csv has the same rows (and a comment line more: its --resume fingerprint).
+  SweepCommand c;
+  c.scenario = (dir / "sweep.toml").string();
+  c.output = (dir / "out").string();
+  c.jobs = 2;
+  std::ostringstream report, progress;
+  run_sweep_command(c, report, progress);
+  const auto tables = task_tables(o);
+  REQUIRE(tables.size() == 1);
+  std::istringstream cli(trapwork_test::read_all(dir / "out" / "sweep.csv"));
+  std::string cli_text;
+  for (std::string line; std::getline(cli, line);)
+    if (line.rfind("# scenario fingerprint ", 0) != 0) cli_text += line + "\n";
+  CHECK(cli_text == csv_text(tables[0].table));
+  CHECK(trapwork_test::csv_rows(cli_text).size() == 2);
+  // Only the points, a subset: todo.
+  options.todo = std::vector<std::size_t>{1};
+  reported.clear();
+  const SweepOutcome one = sweep_task(s, options);
+  REQUIRE(one.rows.size() == 1);
+  CHECK(one.rows[0].first == 1);
+  CHECK(reported == std::vector<std::size_t>{1});
+}
+
+TEST_CASE("issue 15: an Interrupted from the progress hook stops sweep_task, no point recorded as failed", "[tasks]") {
+  std::string text = work_text + "[sweep]\nparameter = \"protocol.duration\"\nvalues = [\"1.5 us\", \"0.6 us\", \"1.3 us\"]\n";
+  const Scenario s = read_scenario_text(text, "sweep.toml");
+  std::atomic<int> points{0}, failed{0};
+  SweepOptions options;
+  options.jobs = 2;
+  options.on_point = [&](std::size_t, const SweepRow& row) {
+    ++points;
+    failed += !row.failure.empty();
+  };
+  std::atomic<int> calls{0};
+  CHECK_THROWS_AS(sweep_task(s, options, interrupting(calls, 5)), Interrupted);
+  CHECK(calls >= 5);
+  CHECK(failed == 0);  // the interrupted points are not failed points
+  CHECK(points < 3);   // stopped before the end
+  const int after = points;
+  std::this_thread::sleep_for(std::chrono::milliseconds(200));
+  CHECK(points == after);  // no worker left running
 }

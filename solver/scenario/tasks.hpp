@@ -108,9 +108,11 @@ std::vector<NamedFigure> work_figures(const WorkRun& run);
 
 // ---- sweep ---------------------------------------------------------------------------------
 struct SweepOptions {
-  int jobs = 0;                   // points at a time; 0: std::thread::hardware_concurrency()
-  std::vector<std::size_t> todo;  // indices into [sweep] values to compute; empty: every point
-  // Called (under a lock, one call at a time) as each point finishes, with its index and row.
+  int jobs = 0;  // points at a time; 0: std::thread::hardware_concurrency()
+  // Indices into [sweep] values to compute, each once; not set: every point.
+  std::optional<std::vector<std::size_t>> todo;
+  // Called (under a lock, one call at a time, from the point threads) as each point finishes,
+  // with its index and row; an exception from it stops the sweep like a failed worker.
   std::function<void(std::size_t index, const SweepRow&)> on_point;
 };
 struct SweepOutcome {
@@ -124,8 +126,14 @@ struct SweepOutcome {
 // H_A or H_B, each point its share of the memory) per [sweep] value, `jobs` at a time. A point
 // that cannot be computed is a failed row (failed_sweep_row) and the sweep goes on; an
 // Interrupted (or std::bad_alloc) stops the workers, joins them and passes on. Stage "sweep
-// points"; progress: the share of the points done, including the running points' progress.
+// points"; progress: the share of the points to compute done, including the running points'
+// progress (called from the point threads, one call at a time).
 SweepOutcome sweep_task(const Scenario& scenario, const SweepOptions& options = {}, const TaskHooks& hooks = {});
+std::vector<std::string> sweep_output_names();  // sweep.csv, sweep_summary.json, sweep.png, sweep.svg
+// The sweep report: header, the points and threads of `run` (its rows are the points computed
+// now), the `resumed` line if not empty (--resume), then `rows` sorted by value.
+void print_sweep_report(std::ostream& out, const SweepOutcome& run, std::vector<SweepRow> rows,
+                        const std::string& resumed);
 
 // ---- fit -----------------------------------------------------------------------------------
 struct FitSettings {  // (FitOptions is solver/fit.hpp's)
@@ -220,5 +228,14 @@ std::vector<NamedText> task_texts(const WorkOutcome& outcome);
 std::vector<NamedFigure> task_figures(const WorkOutcome& outcome);
 std::vector<std::filesystem::path> write_task_outputs(const std::filesystem::path& folder, const WorkOutcome& outcome);
 void print_task_report(std::ostream& out, const WorkOutcome& outcome);
+
+// The sweep's write_task_outputs writes sweep.csv, sweep_summary.json and sweep.png/.svg; the
+// command line writes sweep.csv itself as points finish (with its --resume record).
+std::vector<NamedTable> task_tables(const SweepOutcome& outcome);
+nlohmann::ordered_json task_summary(const SweepOutcome& outcome);
+std::vector<NamedText> task_texts(const SweepOutcome& outcome);
+std::vector<NamedFigure> task_figures(const SweepOutcome& outcome);
+std::vector<std::filesystem::path> write_task_outputs(const std::filesystem::path& folder, const SweepOutcome& outcome);
+void print_task_report(std::ostream& out, const SweepOutcome& outcome);
 
 }  // namespace trapwork

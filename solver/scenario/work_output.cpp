@@ -1228,7 +1228,7 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
   return t;
 }
 
-std::vector<fs::path> plot_sweep_figure(const fs::path& folder, const Scenario& s, const std::vector<SweepRow>& input) {
+SweepFigure sweep_figure(const Scenario& s, const std::vector<SweepRow>& input) {
   const SweepSpec& w = *s.sweep;
   const Display d = display(s);
   std::vector<SweepRow> rows;
@@ -1268,7 +1268,11 @@ std::vector<fs::path> plot_sweep_figure(const fs::path& folder, const Scenario& 
     f.departure = Departure::absolute;  // relative fails at the zeros of sin^2(omega tau / 2)
     f.departure_label = "<W> - curve (" + d.e + ")";
   }
-  return plot_sweep(folder / "sweep", f);
+  return f;
+}
+
+std::vector<fs::path> plot_sweep_figure(const fs::path& folder, const Scenario& s, const std::vector<SweepRow>& rows) {
+  return plot_sweep(folder / "sweep", sweep_figure(s, rows));
 }
 
 }  // namespace trapwork

@@ -173,6 +173,7 @@ CsvTable sweep_table(const Scenario& scenario, std::vector<SweepRow> rows, std::
 // sweep.png/.svg: <W> +- sd against the swept value, the harmonic <W> of each point as a
 // curve and, for the duration of a constant-speed translation, the closed form
 // 2 m v^2 sin^2(omega tau / 2) on a fine grid of tau. Returns the paths written.
+SweepFigure sweep_figure(const Scenario& scenario, const std::vector<SweepRow>& rows);
 std::vector<std::filesystem::path> plot_sweep_figure(const std::filesystem::path& folder, const Scenario& scenario,
                                                      const std::vector<SweepRow>& rows);
 
