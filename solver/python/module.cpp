@@ -93,6 +93,25 @@ std::shared_ptr<NativeResult> module_work(const std::string& text, const std::st
   return native_of(outcome, "work", scenario_inputs(outcome->scenario));
 }
 
+std::shared_ptr<NativeResult> module_sweep(const std::string& text, const std::string& name, int jobs,
+                                           py::object progress, py::object notice) {
+  std::function<SweepOutcome(const TaskHooks&)> task = [&](const TaskHooks& hooks) {
+    const Scenario scenario = read_scenario_text(text, name);
+    if (!scenario.sweep)
+      throw InputError("sweep", "", "a [sweep] table: parameter, and values = [...] or from, to, points", "",
+                       scenario.file);
+    if (jobs < 0 || jobs > 4096)
+      throw InputError("jobs", std::to_string(jobs), "points at a time, 1 to 4096 (None: the number of cores)");
+    (void)build_protocol(scenario);  // as the command line: the errors of a missing [protocol] or [initial] first
+    (void)work_request(scenario);
+    SweepOptions options;
+    options.jobs = jobs;
+    return sweep_task(scenario, options, hooks);
+  };
+  auto outcome = compute(task, progress, notice, "sweep points");
+  return native_of(outcome, "sweep", scenario_inputs(outcome->scenario));
+}
+
 // ---- scenarios --------------------------------------------------------------------------------
 
 // Reads a scenario file as the CLI does (same errors) and returns its text.
@@ -157,6 +176,8 @@ PYBIND11_MODULE(_trapwork, m) {
   m.def("scenario_text_with_values", &text_with_values, py::arg("text"), py::arg("name"), py::arg("values"));
   m.def("scenario_text_from_json", &text_from_json, py::arg("scenario"), py::arg("name"));
   m.def("spectrum", &module_spectrum, py::arg("text"), py::arg("name"), py::arg("levels"), py::arg("progress"),
+        py::arg("notice"));
+  m.def("sweep", &module_sweep, py::arg("text"), py::arg("name"), py::arg("jobs"), py::arg("progress"),
         py::arg("notice"));
   m.def("work", &module_work, py::arg("text"), py::arg("name"), py::arg("tolerance"), py::arg("search_budget"),
         py::arg("progress"), py::arg("notice"));
