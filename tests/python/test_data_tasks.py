@@ -52,3 +52,25 @@ def test_compare_equals_cli(in_tmp):
     assert r.verdict == json.loads((in_tmp / "cli" / "compare_summary.json").read_text())["verdict"]
     assert r.figures["compare"]["kind"] == "comparison"
     assert_text_close(r.report, report_of(done.stdout), "report", REPORT_RELATIVE)
+
+
+def test_fitted_scenario_runs_as_the_cli_runs_fitted_toml(in_tmp):
+    # the notebook path: fit, then the work of the fitted trap, as `trapwork work fitted.toml`
+    data = EXAMPLES / "ion_spectroscopy_lines.csv"
+    r = trapwork.fit(data, start=EXAMPLES / "ion_spectroscopy_start.toml")
+    cli_ok("fit", data, "--start", EXAMPLES / "ion_spectroscopy_start.toml", "-o", in_tmp / "fit")
+    cli_ok("work", in_tmp / "fit" / "fitted.toml", "-o", in_tmp / "cli")
+    w = trapwork.work(r.scenario)
+    assert_table_equals_csv(w.lines, in_tmp / "cli" / "lines.csv")
+
+
+def test_compare_with_options_equals_cli(in_tmp):
+    model = EXAMPLES / "ion_shuttle_model.toml"
+    data = EXAMPLES / "ion_work_samples.csv"
+    cli_ok("compare", model, data, "--resolution", "30 h*kHz", "--resamples", "300", "--seed", "7",
+           "--confidence", "0.8", "-o", in_tmp / "cli")
+    r = trapwork.compare(model, data, resolution="30 h*kHz", resamples=300, seed=7, confidence=0.8)
+    assert_table_equals_csv(r.tables["compare"], in_tmp / "cli" / "compare.csv")
+    assert_summary_equals_json(r.summary, in_tmp / "cli" / "compare_summary.json")
+    with pytest.raises(trapwork.InputError, match="resolution"):
+        trapwork.compare(model, data, resolution="30")
