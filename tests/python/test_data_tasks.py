@@ -96,3 +96,27 @@ def test_plan_default_settings_equal_cli(in_tmp):
     assert_summary_equals_json(r.summary, in_tmp / "cli" / "plan_summary.json")
 
 
+
+
+@pytest.mark.parametrize("kind", ["fit", "compare", "plan", "spectrum"])
+def test_every_result_pickles_and_writes_the_same_files(kind, tmp_path):
+    import pathlib
+    import pickle
+    model = EXAMPLES / "ion_shuttle_model.toml"
+    make = {
+        "fit": lambda: trapwork.fit(EXAMPLES / "ion_spectroscopy_lines.csv", mass="40 u", frequency="1 MHz"),
+        "compare": lambda: trapwork.compare(model, EXAMPLES / "ion_work_samples.csv", resamples=200),
+        "plan": lambda: trapwork.plan(model, runs=(10, 30), experiments=100, synthetic_runs=20),
+        "spectrum": lambda: trapwork.spectrum(model, levels=5),
+    }
+    r = make[kind]()
+    first = r.write(tmp_path / "a")
+    copy = pickle.loads(pickle.dumps(r))
+    assert type(copy) is type(r) and copy.summary == r.summary and copy.texts == r.texts
+    assert {k: v.columns for k, v in copy.tables.items()} == {k: v.columns for k, v in r.tables.items()}
+    second = copy.write(tmp_path / "b")
+    assert [pathlib.Path(p).name for p in first] == [pathlib.Path(p).name for p in second]
+    for p, q in zip(first, second):
+        assert pathlib.Path(p).read_bytes() == pathlib.Path(q).read_bytes(), p
+    if kind == "fit":
+        assert (tmp_path / "b" / "fitted.toml").read_text() == copy.scenario.text
