@@ -1,0 +1,47 @@
+"""examples/notebook_shuttle.py runs top to bottom (issue 15, item 6): it calibrates the trap
+with fit, predicts P(W) for several shuttle durations in a loop, compares with the demo data and
+saves its pictures. Executed as a script into a scratch folder, as a user would run it."""
+import csv
+import math
+import os
+import pathlib
+import subprocess
+import sys
+
+import pytest
+
+pytest.importorskip("matplotlib")
+trapwork = pytest.importorskip("trapwork")
+
+REPO = pathlib.Path(__file__).resolve().parents[2]
+SCRIPT = REPO / "examples" / "notebook_shuttle.py"
+
+
+def test_notebook_example_runs_and_saves_its_figures(tmp_path):
+    missing = [f for f in ("fit", "work", "compare") if not hasattr(trapwork, f)]
+    if missing:
+        pytest.skip("the module has no " + ", ".join(missing) + " yet")
+    out = tmp_path / "notebook"
+    env = dict(os.environ, MPLBACKEND="Agg")
+    run = subprocess.run([sys.executable, str(SCRIPT), str(out)], cwd=tmp_path, env=env,
+                         capture_output=True, text=True, timeout=900)
+    assert run.returncode == 0, run.stdout[-3000:] + run.stderr[-3000:]
+    for png in ("fit_residuals.png", "mean_work_vs_duration.png", "work_0.8us.png",
+                "potential_0.8us.png", "compare.png"):
+        data = (out / png).read_bytes()
+        assert data.startswith(b"\x89PNG") and len(data) > 10000, png
+    with open(out / "shuttle_durations.csv") as f:
+        rows = list(csv.DictReader(f))
+    assert [float(r["duration_us"]) for r in rows] == [0.4, 0.6, 0.8, 1.0, 1.2, 1.6, 2.0]
+    for r in rows:
+        values = {k: float(v) for k, v in r.items()}
+        assert all(math.isfinite(v) for v in values.values()), r
+        # A rigid translation leaves Delta F = 0, so <W> >= 0 (second law, <W> >= Delta F:
+        # common practice); the errors are truncation estimates, small and non-negative.
+        assert values["mean_work"] >= -values["mean_work_error"] - 1e-9 * values["sd_work"]
+        assert 0 <= values["mean_work_error"] < 1e-3 * values["sd_work"]
+        assert values["sd_work"] > 0 and values["sd_work_error"] >= 0
+    printed = run.stdout
+    assert "fitted trap" in printed and "compare at 0.8 us:" in printed
+    numbers = [line for line in printed.splitlines() if line.startswith(("tau =", "  measured <W>"))]
+    assert len(numbers) == 8 and not any("nan" in line or "inf" in line for line in numbers), numbers
