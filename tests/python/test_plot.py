@@ -465,3 +465,32 @@ def test_module_figures_draw():
     assert len(x) > 0  # the harmonic prediction's lines
     levels = [a for a in drawn["potential"].axes if a.axison]
     assert len(levels) == len(result.figures["potential"]["panels"]) == 2
+
+
+# ---- backend choice ----------------------------------------------------------------------------
+
+BACKEND_PROBE = """
+import numpy as np
+from trapwork import plot
+f = {"kind": "comparison", "edges": np.array([0.0, 1.0, 2.0]), "observed": np.array([3.0, 4.0]),
+     "expected": np.array([3.5, 3.5])}
+plot.plot(f)
+import matplotlib
+print(matplotlib.get_backend().lower())
+"""
+
+
+# Without a display and without MPLBACKEND the picture is drawn with Agg (matplotlib 3.6 would
+# fall back to it by itself, so only the other half is checked): a backend the user chose is kept.
+@pytest.mark.parametrize("preset, expected", [("svg", "svg")])
+def test_a_chosen_backend_is_kept_without_display(preset, expected):
+    import subprocess
+    import sys
+    env = {k: v for k, v in os.environ.items() if k not in ("DISPLAY", "WAYLAND_DISPLAY", "MPLBACKEND")}
+    if preset:
+        env["MPLBACKEND"] = preset
+    package_parent = pathlib.Path(tplot.__file__).resolve().parents[1]
+    env["PYTHONPATH"] = os.pathsep.join([str(package_parent)] + env.get("PYTHONPATH", "").split(os.pathsep))
+    run = subprocess.run([sys.executable, "-c", BACKEND_PROBE], env=env, capture_output=True, text=True, timeout=120)
+    assert run.returncode == 0, run.stderr
+    assert run.stdout.strip().splitlines()[-1] == expected
