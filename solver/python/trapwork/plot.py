@@ -543,8 +543,6 @@ def _draw_work(plt, f, ax, style):
         a.set_ylim(floor, top)
         a.grid(True, color="0.88", linewidth=0.6)
         x_lo, x_hi = a.get_xlim()
-        if log and len(kinds) == 2 and not lay["own_range"]:
-            pass
         a.set_xlabel(plplot_text(f.get("work_label")))
         if len(kinds) == 2 and kind == "linear" and not lay["own_range"]:
             a.set_xlabel("")
