@@ -25,6 +25,7 @@
 #include "solver/scenario/machine.hpp"
 #include "solver/scenario/output.hpp"
 #include "solver/scenario/scenario.hpp"
+#include "solver/scenario/scenario_edit.hpp"
 #include "solver/scenario/work_output.hpp"
 
 namespace py = pybind11;
@@ -185,6 +186,20 @@ py::dict scenario_info(const std::string& text, const std::string& name) {
   return info;
 }
 
+// The scenario text with values changed (scenario_edit.hpp), checked by the reader. `values`:
+// a JSON object as text (Python's json.dumps).
+std::string text_with_values(const std::string& text, const std::string& name, const std::string& values) {
+  const std::string edited = scenario_text_with_values(text, name, nlohmann::json::parse(values));
+  (void)read_scenario_text(edited, name);
+  return edited;
+}
+
+std::string text_from_json(const std::string& scenario, const std::string& name) {
+  const std::string text = scenario_text_from_json(nlohmann::json::parse(scenario));
+  (void)read_scenario_text(text, name);
+  return text;
+}
+
 }  // namespace
 
 }  // namespace trapwork_python
@@ -212,6 +227,8 @@ PYBIND11_MODULE(_trapwork, m) {
   m.def("default_scenario_text", [] { return std::string(default_scenario_text()); });
   m.def("scenario_file_text", &scenario_file_text, py::arg("path"));
   m.def("scenario_info", &scenario_info, py::arg("text"), py::arg("name"));
+  m.def("scenario_text_with_values", &text_with_values, py::arg("text"), py::arg("name"), py::arg("values"));
+  m.def("scenario_text_from_json", &text_from_json, py::arg("scenario"), py::arg("name"));
   m.def("spectrum", &module_spectrum, py::arg("text"), py::arg("name"), py::arg("levels"), py::arg("progress"),
         py::arg("notice"));
   m.def("work", &module_work, py::arg("text"), py::arg("name"), py::arg("tolerance"), py::arg("search_budget"),

@@ -102,10 +102,7 @@ class Scenario:
         Example: ``Scenario.from_dict({"particle": {"mass": "40 u"}, "potential":
         [{"name": "trap", "shape": "harmonic", "frequency": "1 MHz"}]})``.
         Raises InputError naming the key."""
-        if not hasattr(_trapwork, "scenario_text_from_json"):
-            raise NotImplementedError("Scenario.from_dict needs the scenario edits (scenario_edit.hpp), "
-                                      "not built into this module")
-        return cls(_trapwork.scenario_text_from_json(json.dumps(values), str(name)), name)
+        return cls(_trapwork.scenario_text_from_json(json.dumps(values, allow_nan=False), str(name)), name)
 
     @classmethod
     def default(cls):
@@ -123,10 +120,8 @@ class Scenario:
         strings with units (``"2 us"``), numbers, booleans or lists. Setting one of
         [initial]'s keys removes the others. Raises InputError for an unknown address (naming
         the closest known one) or a value the scenario reader refuses."""
-        if not hasattr(_trapwork, "scenario_text_with_values"):
-            raise NotImplementedError("Scenario.with_values needs the scenario edits (scenario_edit.hpp), "
-                                      "not built into this module")
-        return Scenario(_trapwork.scenario_text_with_values(self._text, self._name, json.dumps(values)), self._name)
+        return Scenario(_trapwork.scenario_text_with_values(self._text, self._name, json.dumps(values, allow_nan=False)),
+                        self._name)
 
     @property
     def text(self):

@@ -1,0 +1,175 @@
+"""Shared helpers of the Python module's tests: where the command line and the examples are,
+running the command line, reading its CSV files, and comparing numbers.
+
+Run by ctest (tests/python/CMakeLists.txt), which sets PYTHONPATH to build/python and
+TRAPWORK_CLI, TRAPWORK_SOURCE_DIR; by hand:
+    PYTHONPATH=build/python TRAPWORK_CLI=build/trapwork python3 -m pytest tests/python
+"""
+import difflib
+import json
+import math
+import os
+import pathlib
+import re
+import subprocess
+
+import numpy as np
+import pytest
+
+SOURCE = pathlib.Path(os.environ.get("TRAPWORK_SOURCE_DIR", pathlib.Path(__file__).resolve().parents[2]))
+EXAMPLES = SOURCE / "examples"
+CLI = os.environ.get("TRAPWORK_CLI", str(SOURCE / "build" / "trapwork"))
+
+# Tolerance of module against command line. Both run the same code on the same input, but the
+# command line is not bitwise repeatable itself: FFTW_MEASURE (long runs) picks transform
+# algorithms by timing, so two runs of one scenario differ at rounding level. Measured, command
+# line against command line: <W> of `trapwork demo` by 2.6e-13 relative; the transition
+# probabilities of ion_translation.toml at 3 us by 3.6e-12 of the column's largest value; an
+# error estimate that is a difference of two O(1) sums (sd_error) by 3e-5 of itself, being
+# rounding noise. So each number a (module) is compared with b (command line) as
+#     |a - b| <= RELATIVE |b| + SCALE_RELATIVE * scale,
+# scale: the largest magnitude in its CSV column, or in its top-level section of the summary
+# (same run, same units). RELATIVE is the 1e-12 the issue asks for; SCALE_RELATIVE is looser
+# than it because of the measured 3.6e-12 above (about 3 times that).
+RELATIVE = 1e-12
+SCALE_RELATIVE = 1e-11
+
+
+def run_cli(*args, cwd=None):
+    """Runs the command line; returns the CompletedProcess (stdout, stderr as text)."""
+    return subprocess.run([CLI, *map(str, args)], capture_output=True, text=True, cwd=cwd, timeout=600)
+
+
+def cli_ok(*args, cwd=None):
+    """Runs the command line and requires success."""
+    done = run_cli(*args, cwd=cwd)
+    assert done.returncode == 0, f"trapwork {' '.join(map(str, args))} failed:\n{done.stderr}"
+    return done
+
+
+def read_csv(path):
+    """A CSV file of the command line: (column names, comment lines, {name: float array})."""
+    lines = pathlib.Path(path).read_text().splitlines()
+    names = lines[0].split(",")
+    comments = [l[2:] if l.startswith("# ") else l[1:] for l in lines[1:] if l.startswith("#")]
+    rows = [l.split(",") for l in lines[1:] if l and not l.startswith("#")]
+    values = np.array([[float(x) for x in r] for r in rows], dtype=float).reshape(len(rows), len(names))
+    return names, comments, {n: values[:, i] for i, n in enumerate(names)}
+
+
+def assert_close(a, b, scale, what):
+    a = np.atleast_1d(np.asarray(a, dtype=float))
+    b = np.atleast_1d(np.asarray(b, dtype=float))
+    assert a.shape == b.shape, f"{what}: shapes {a.shape} and {b.shape}"
+    same_nan = np.isnan(a) == np.isnan(b)
+    assert same_nan.all(), f"{what}: NaN in one and not the other at {np.flatnonzero(~same_nan)[:5]}"
+    ok = np.isnan(a) | (a == b) | (np.abs(a - b) <= RELATIVE * np.abs(b) + SCALE_RELATIVE * scale)
+    bad = np.flatnonzero(~ok)
+    assert bad.size == 0, f"{what}: {bad.size} values differ, first at row {bad[0]}: {a[bad[0]]!r} vs {b[bad[0]]!r}"
+
+
+def assert_table_equals_csv(table, path):
+    """Module Table against the command line's CSV file: same columns in the same order, the
+    same comment lines (assert_text_close), each column equal to RELATIVE (see above)."""
+    names, comments, columns = read_csv(path)
+    assert table.columns == names, f"{path.name}: columns {table.columns} vs {names}"
+    assert len(table.comments) == len(comments), f"{path.name}: comment lines differ"
+    for a, b in zip(table.comments, comments):
+        assert_text_close(a, b, f"{path.name} comment")
+    for n in names:
+        finite = np.abs(columns[n][np.isfinite(columns[n])])
+        scale = finite.max() if finite.size else 0.0
+        assert_close(table[n], columns[n], scale, f"{path.name} column {n}")
+
+
+def _largest(value):
+    if isinstance(value, bool):
+        return 0.0
+    if isinstance(value, (int, float)):
+        return abs(value) if math.isfinite(value) else 0.0
+    if isinstance(value, dict):
+        return max((_largest(v) for v in value.values()), default=0.0)
+    if isinstance(value, list):
+        return max((_largest(v) for v in value), default=0.0)
+    return 0.0
+
+
+def _compare_json(a, b, scale, where):
+    if isinstance(b, dict):
+        assert isinstance(a, dict) and list(a) == list(b), f"{where}: keys {list(a)} vs {list(b)}"
+        for k in b:
+            _compare_json(a[k], b[k], scale, f"{where}.{k}")
+    elif isinstance(b, list):
+        assert isinstance(a, list) and len(a) == len(b), f"{where}: lists of different length"
+        for i, (x, y) in enumerate(zip(a, b)):
+            _compare_json(x, y, scale, f"{where}[{i}]")
+    elif isinstance(b, (int, float)) and not isinstance(b, bool) and b is not None:
+        assert isinstance(a, (int, float)) and not isinstance(a, bool), f"{where}: {a!r} vs {b!r}"
+        assert_close(a, b, scale, where)
+    elif isinstance(b, str):
+        assert isinstance(a, str), f"{where}: {a!r} vs {b!r}"
+        assert_text_close(a, b, where)
+    else:
+        assert a == b, f"{where}: {a!r} vs {b!r}"
+
+
+def assert_json_close(a, b, where):
+    """Two JSON values: same keys, strings and flags; numbers to RELATIVE of their scale (the
+    largest magnitude in b)."""
+    _compare_json(a, b, _largest(b), where)
+
+
+def assert_summary_equals_json(summary, path, ignore=()):
+    """Module summary dict against the command line's JSON file: same keys in the same order,
+    flags, strings (assert_text_close: warnings quote diagnostic values), numbers to RELATIVE of their top-level section's scale."""
+    expected = json.loads(pathlib.Path(path).read_text())
+    assert list(summary) == list(expected), f"{path.name}: keys differ"
+    for k in expected:
+        if k in ignore:
+            continue
+        scale = _largest(expected[k])
+        _compare_json(summary[k], expected[k], scale, f"{path.name}:{k}")
+
+
+def example_scenarios():
+    return sorted(p.name for p in EXAMPLES.glob("*.toml"))
+
+
+def has_tables(name, *tables):
+    text = (EXAMPLES / name).read_text()
+    return all(any(line.strip() == f"[{t}]" for line in text.splitlines()) for t in tables)
+
+
+@pytest.fixture
+def in_tmp(tmp_path, monkeypatch):
+    """Runs the test in a fresh folder (the command line's default output folders land there)."""
+    monkeypatch.chdir(tmp_path)
+    return tmp_path
+
+
+_NUMBER = re.compile(r"(?<![\w.])[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?(?![\w.])")
+
+
+def _last_place(text):
+    """One unit in the last printed digit of a number's text (0.001 for "805.071")."""
+    mantissa, _, exponent = text.lower().partition("e")
+    decimals = len(mantissa.partition(".")[2])
+    return 10.0 ** (-decimals + (int(exponent) if exponent else 0))
+
+
+def assert_text_close(a, b, where):
+    """Text with numbers in it (a report, a CSV comment line): the words equal, each number equal
+    to one unit of its last printed digit (rounding noise can flip it) plus RELATIVE of itself plus
+    1e-10 absolute: rounding-noise diagnostics such as "unresolved -3.2e-13" differ between two
+    runs of the command line itself by up to about 2e-13 (measured), so they are compared to that
+    floor, not relatively. Runs of white space count as one (report columns are padded to the
+    numbers' widths)."""
+    words_a = re.sub(r"\s+", " ", _NUMBER.sub("#", a))  # column padding follows the numbers' widths
+    words_b = re.sub(r"\s+", " ", _NUMBER.sub("#", b))
+    if words_a != words_b:
+        diff = difflib.unified_diff(a.splitlines(), b.splitlines(), "module", "command line", lineterm="", n=1)
+        raise AssertionError(f"{where}: the text differs:\n" + "\n".join(diff))
+    for x, y in zip(_NUMBER.findall(a), _NUMBER.findall(b)):
+        fx, fy = float(x), float(y)
+        bound = max(_last_place(x), _last_place(y)) + RELATIVE * (abs(fx) + abs(fy)) + 1e-10
+        assert abs(fx - fy) <= bound, f"{where}: {x} vs {y}"
