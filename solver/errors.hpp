@@ -24,6 +24,12 @@ struct PhysicsError : std::runtime_error {
   using std::runtime_error::runtime_error;
 };
 
+// A run stopped on request: a front end throws it from a progress hook (the Python module on
+// Ctrl-C); the tasks (solver/scenario/tasks.hpp) let it through and leave no thread running.
+struct Interrupted : std::runtime_error {
+  using std::runtime_error::runtime_error;
+};
+
 // Programmer error (mismatched sizes, unsorted input passed inwards).
 struct ContractViolation : std::logic_error {
   using std::logic_error::logic_error;

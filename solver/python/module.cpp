@@ -1,32 +1,32 @@
 // _trapwork: the compiled part of the Python module `trapwork` (solver/python/trapwork/ holds
-// the Python part, which users import). A thin layer over the scenario layer: scenarios are
-// passed as TOML text and a file name and read by read_scenario_text, the computations are the
-// scenario layer's, and every result comes back as a NativeResult: its tables (the CSV files'
-// columns), its summary (the JSON file's text), figure data, the CLI's report, and a writer
-// that renders the files the CLI writes.
+// the Python part, which users import). A thin layer over the scenario layer's task layer
+// (solver/scenario/tasks.hpp): scenarios are passed as TOML text and a file name and read by
+// read_scenario_text, each function calls its task on a worker thread (run.hpp), and every
+// outcome comes back as a NativeResult: its tables (the CSV files' columns), its summary (the
+// JSON file's content), other files' text, figure data, the CLI's report, and a writer that
+// renders the files the CLI writes (write_task_outputs).
 #include <pybind11/functional.h>
 #include <pybind11/numpy.h>
 #include <pybind11/pybind11.h>
 #include <pybind11/stl.h>
 
-#include <cstdlib>
 #include <filesystem>
 #include <fstream>
 #include <iterator>
 #include <memory>
 #include <sstream>
 #include <string>
+#include <variant>
 #include <vector>
 
 #include "solver/errors.hpp"
-#include "solver/propagator.hpp"
+#include "solver/python/figures.hpp"
 #include "solver/python/native_result.hpp"
 #include "solver/python/run.hpp"
-#include "solver/scenario/machine.hpp"
 #include "solver/scenario/output.hpp"
 #include "solver/scenario/scenario.hpp"
 #include "solver/scenario/scenario_edit.hpp"
-#include "solver/scenario/work_output.hpp"
+#include "solver/scenario/tasks.hpp"
 
 namespace py = pybind11;
 namespace fs = std::filesystem;
@@ -41,129 +41,75 @@ std::string read_text_file(const std::string& path) {
   return std::string(std::istreambuf_iterator<char>(in), std::istreambuf_iterator<char>());
 }
 
-// Says which scenario the physics could not handle, in its lab units (as the CLI does).
-template <class F>
-auto naming_scenario(const Scenario& scenario, F&& f) {
-  try {
-    return f();
-  } catch (const NonFinitePotentialError& e) {
-    throw PhysicsError(scenario.file + ": " + e.describe(scenario.spectrum.message_units));
-  } catch (const PhysicsError& e) {
-    throw PhysicsError(scenario.file + ": " + e.what());
-  }
+// The NativeResult of a task's outcome: everything taken from the task layer's accessors, so
+// that the module shows what the command line writes.
+template <class X>
+std::shared_ptr<NativeResult> native_of(std::shared_ptr<X> outcome, std::string kind,
+                                        std::vector<OutputRun::Input> inputs) {
+  auto r = std::make_shared<NativeResult>();
+  r->kind = std::move(kind);
+  for (auto& t : task_tables(*outcome)) r->tables.emplace_back(t.file, std::move(t.table));
+  r->summary = task_summary(*outcome);
+  for (auto& t : task_texts(*outcome)) r->texts.emplace_back(t.file, std::move(t.text));
+  for (const auto& f : task_figures(*outcome))
+    r->figures.append(py::make_tuple(f.stem, std::visit([](const auto& d) { return figure_dict(d); }, f.figure)));
+  std::ostringstream report;
+  print_task_report(report, *outcome);
+  r->report = report.str();
+  r->inputs = std::move(inputs);
+  r->writer = [outcome](const fs::path& folder) { return write_task_outputs(folder, *outcome); };
+  return r;
 }
 
-// ---- spectrum ---------------------------------------------------------------------------------
-struct SpectrumRun {
-  Scenario scenario;
-  SpectrumResult result;
-};
-
-std::shared_ptr<NativeResult> spectrum_result(std::shared_ptr<SpectrumRun> run) {
-  auto r = std::make_shared<NativeResult>();
-  r->kind = "spectrum";
-  r->tables = {{"spectrum.csv", spectrum_table(run->scenario, run->result)},
-               {"states.csv", states_table(run->scenario, run->result)}};
-  r->summary = spectrum_summary(run->scenario, run->result);
-  std::ostringstream report;
-  print_spectrum_report(report, run->scenario, run->result);
-  r->report = report.str();
-  r->inputs = scenario_inputs(run->scenario);
-  r->writer = [run](const fs::path& folder) { return write_spectrum_outputs(folder, run->scenario, run->result); };
-  return r;
+template <class X>
+std::shared_ptr<X> compute(const std::function<X(const TaskHooks&)>& task, py::object progress, py::object notice,
+                           const std::string& first_stage) {
+  std::function<std::shared_ptr<X>(const TaskHooks&)> f = [&](const TaskHooks& hooks) {
+    return std::make_shared<X>(task(hooks));
+  };
+  return run_interruptible(f, std::move(progress), std::move(notice), first_stage);
 }
 
 std::shared_ptr<NativeResult> module_spectrum(const std::string& text, const std::string& name,
-                                           std::optional<int> levels, py::object progress, py::object notice) {
-  std::function<std::shared_ptr<SpectrumRun>(const TaskHooks&)> compute = [&](const TaskHooks&) {
-    auto run = std::make_shared<SpectrumRun>();
-    run->scenario = read_scenario_text(text, name);
-    if (levels) {
-      if (*levels < 1 || *levels > 100000)
-        throw InputError("levels", std::to_string(*levels), "a number of levels from 1 to 100000");
-      run->scenario.spectrum.options.levels = *levels;
-    }
-    run->scenario.spectrum.options.memory_limit = available_memory_bytes();  // refused before it allocates
-    run->result = naming_scenario(run->scenario, [&] { return compute_spectrum(run->scenario.potential,
-                                                                               run->scenario.spectrum); });
-    return run;
+                                              std::optional<int> levels, py::object progress, py::object notice) {
+  std::function<SpectrumOutcome(const TaskHooks&)> task = [&](const TaskHooks& hooks) {
+    if (levels && (*levels < 1 || *levels > 100000))
+      throw InputError("levels", std::to_string(*levels), "a number of levels from 1 to 100000");
+    return spectrum_task(read_scenario_text(text, name), levels, hooks);
   };
-  auto run = run_interruptible(compute, progress, notice, "spectrum");
-  return spectrum_result(run);
+  auto outcome = compute(task, progress, notice, "spectrum");
+  return native_of(outcome, "spectrum", scenario_inputs(outcome->scenario));
 }
 
-// ---- work -------------------------------------------------------------------------------------
-struct WorkOutcomeHere {
-  Scenario scenario;
-  std::optional<ToleranceChoice> choice;
-  std::optional<ScenarioWork> direct;
-  WorkRun run() const {
-    const Scenario& used = choice ? choice->scenario : scenario;
-    WorkRun r = choice ? choice->work->run(used) : direct->run(used);
-    r.tolerance = choice ? &*choice : nullptr;
-    return r;
-  }
-};
-
-std::shared_ptr<NativeResult> work_result(std::shared_ptr<WorkOutcomeHere> outcome) {
-  auto r = std::make_shared<NativeResult>();
-  r->kind = "work";
-  const WorkRun run = outcome->run();
-  r->tables = {{"lines.csv", lines_table(run, run.result.distribution, "work lines")},
-               {"histogram.csv", histogram_table(run)},
-               {"density.csv", density_table(run)},
-               {"transition.csv", transition_table(run)}};
-  if (run.result.reverse_distribution)
-    r->tables.push_back({"reverse_lines.csv", lines_table(run, *run.result.reverse_distribution, "reverse-run work lines")});
-  r->tables.push_back({"characteristic.csv", characteristic_table(run)});
-  r->summary = work_summary(run);
-  std::ostringstream report;
-  print_work_report(report, run);
-  r->report = report.str();
-  r->inputs = scenario_inputs(outcome->scenario);
-  r->writer = [outcome](const fs::path& folder) { return write_work_outputs(folder, outcome->run()); };
-  return r;
+std::shared_ptr<NativeResult> module_work(const std::string& text, const std::string& name,
+                                          std::optional<double> tolerance, double search_budget, py::object progress,
+                                          py::object notice) {
+  std::function<WorkOutcome(const TaskHooks&)> task = [&](const TaskHooks& hooks) {
+    const Scenario scenario = read_scenario_text(text, name);
+    (void)build_protocol(scenario);  // as the command line: a missing [protocol] before a missing [initial]
+    return work_task(scenario, tolerance, search_budget, hooks);
+  };
+  auto outcome = compute(task, progress, notice, tolerance ? "--tolerance search (share of its cost bound)" : "propagating");
+  return native_of(outcome, "work", scenario_inputs(outcome->scenario));
 }
 
-std::shared_ptr<NativeResult> module_work(const std::string& text, const std::string& name, std::optional<double> tolerance,
-                                       double search_budget, py::object progress, py::object notice) {
-  std::function<std::shared_ptr<WorkOutcomeHere>(const TaskHooks&)> compute = [&](const TaskHooks& hooks) {
-    auto outcome = std::make_shared<WorkOutcomeHere>();
-    outcome->scenario = read_scenario_text(text, name);
-    const Scenario& scenario = outcome->scenario;
-    (void)build_protocol(scenario);  // a missing [protocol] is reported before a missing [initial]
-    WorkRequest request = work_request(scenario);
-    request.spectrum.options.memory_limit = available_memory_bytes();
-    request.progress = hooks.progress;
-    request.stage = hooks.stage;
-    const int threads = request.threads;
-    request.on_estimate = [notice = hooks.notice, threads](const CostEstimate& e) {
-      if (estimated_seconds(e.operations, threads) > long_run_seconds)
-        notice("trapwork: " + cost_text(e, threads) + " (" + e.what + ")");
-    };
-    if (tolerance) {
-      if (!(*tolerance > 0 && *tolerance < 1))
-        throw InputError("tolerance", short_number(*tolerance), "a bound between 0 and 1 (e.g. 1e-4)");
-      if (!(search_budget >= 1))
-        throw InputError("search_budget", short_number(search_budget),
-                         "a cost bound >= 1 (in units of the search's first run)");
-      request.stage = nullptr;
-      request.on_estimate = nullptr;
-      outcome->choice = naming_scenario(scenario, [&] {
-        return compute_work_to_tolerance(scenario, request, *tolerance, search_budget);
-      });
-      outcome->choice->work->request.progress = nullptr;
-    } else {
-      outcome->direct = naming_scenario(scenario, [&] { return compute_work(scenario, request); });
-      outcome->direct->request.progress = nullptr;  // the hooks end with this call
-      outcome->direct->request.stage = nullptr;
-      outcome->direct->request.on_estimate = nullptr;
-    }
-    return outcome;
+std::shared_ptr<NativeResult> module_sweep(const std::string& text, const std::string& name, int jobs,
+                                           py::object progress, py::object notice) {
+  std::function<SweepOutcome(const TaskHooks&)> task = [&](const TaskHooks& hooks) {
+    const Scenario scenario = read_scenario_text(text, name);
+    if (!scenario.sweep)
+      throw InputError("sweep", "", "a [sweep] table: parameter, and values = [...] or from, to, points", "",
+                       scenario.file);
+    if (jobs < 0 || jobs > 4096)
+      throw InputError("jobs", std::to_string(jobs), "points at a time, 1 to 4096 (None: the number of cores)");
+    (void)build_protocol(scenario);  // as the command line: the errors of a missing [protocol] or [initial] first
+    (void)work_request(scenario);
+    SweepOptions options;
+    options.jobs = jobs;
+    return sweep_task(scenario, options, hooks);
   };
-  auto outcome = run_interruptible(compute, progress, notice,
-                                   tolerance ? "tolerance search (share of its cost bound)" : "propagating");
-  return work_result(outcome);
+  auto outcome = compute(task, progress, notice, "sweep points");
+  return native_of(outcome, "sweep", scenario_inputs(outcome->scenario));
 }
 
 // ---- scenarios --------------------------------------------------------------------------------
@@ -230,6 +176,8 @@ PYBIND11_MODULE(_trapwork, m) {
   m.def("scenario_text_with_values", &text_with_values, py::arg("text"), py::arg("name"), py::arg("values"));
   m.def("scenario_text_from_json", &text_from_json, py::arg("scenario"), py::arg("name"));
   m.def("spectrum", &module_spectrum, py::arg("text"), py::arg("name"), py::arg("levels"), py::arg("progress"),
+        py::arg("notice"));
+  m.def("sweep", &module_sweep, py::arg("text"), py::arg("name"), py::arg("jobs"), py::arg("progress"),
         py::arg("notice"));
   m.def("work", &module_work, py::arg("text"), py::arg("name"), py::arg("tolerance"), py::arg("search_budget"),
         py::arg("progress"), py::arg("notice"));

@@ -116,6 +116,7 @@ void bind_native_result(py::module_& m) {
       .def("summary_json", [](const NativeResult& r) { return r.summary.dump(2) + "\n"; },
            "the summary file's text")
       .def_readonly("figures", &NativeResult::figures)
+      .def("texts", [](const NativeResult& r) { return r.texts; }, "[(file name, text)] of the other files")
       .def("inputs", [](const NativeResult& r) {
         std::vector<std::pair<std::string, std::string>> out;
         for (const auto& i : r.inputs) out.emplace_back(i.path.string(), i.what);

@@ -17,6 +17,7 @@ struct NativeResult {
   std::string kind;                                          // "spectrum", "work", ...
   std::vector<std::pair<std::string, trapwork::CsvTable>> tables;  // file name -> table, in file order
   nlohmann::ordered_json summary;                            // the summary file's content
+  std::vector<std::pair<std::string, std::string>> texts;    // other files: name -> text (fitted.toml)
   pybind11::list figures;                                    // (stem, dict of figure data)
   std::string report;                                        // the CLI's report
   std::vector<trapwork::OutputRun::Input> inputs;            // files an output must not replace

@@ -27,7 +27,8 @@
 #include <thread>
 #include <vector>
 
-#include "solver/python/task_api.hpp"
+#include "solver/errors.hpp"
+#include "solver/scenario/tasks.hpp"
 
 namespace trapwork_python {
 

@@ -20,6 +20,7 @@
 #include <stdexcept>
 
 #include "solver/errors.hpp"
+#include "solver/scenario/tasks.hpp"
 
 namespace trapwork {
 
@@ -572,17 +573,8 @@ nlohmann::ordered_json spectrum_summary(const Scenario& scenario, const Spectrum
 
 std::vector<fs::path> write_spectrum_outputs(const fs::path& folder, const Scenario& scenario,
                                              const SpectrumResult& result) {
-  fs::create_directories(folder);
-  const std::vector<fs::path> files = {folder / "spectrum.csv", folder / "states.csv",
-                                       folder / "summary.json"};
-  // Everything is assembled before the first file is opened.
-  const CsvTable spectrum = spectrum_table(scenario, result);
-  const CsvTable states = states_table(scenario, result);
-  const std::string summary = spectrum_summary(scenario, result).dump(2) + "\n";
-  write_file_atomically(files[0], [&](std::ostream& out) { write_csv(out, spectrum); });
-  write_file_atomically(files[1], [&](std::ostream& out) { write_csv(out, states); });
-  write_file_atomically(files[2], [&](std::ostream& out) { out << summary; });
-  return files;
+  return write_outputs(folder, spectrum_tables(scenario, result), "summary.json", spectrum_summary(scenario, result),
+                       {}, {});
 }
 
 void print_spectrum_report(std::ostream& out, const Scenario& scenario, const SpectrumResult& result) {

@@ -13,6 +13,7 @@
 #include "solver/harmonic_reference.hpp"
 #include "solver/scenario/machine.hpp"
 #include "solver/scenario/plot.hpp"
+#include "solver/scenario/tasks.hpp"
 
 namespace trapwork {
 
@@ -849,8 +850,6 @@ json work_summary(const WorkRun& run) {
   };
 }
 
-namespace {
-
 // potential.png: the initial and final potentials with their lowest levels and the first
 // densities, in the lab frame.
 LevelsFigure levels_figure(const WorkRun& run) {
@@ -889,6 +888,7 @@ LevelsFigure levels_figure(const WorkRun& run) {
   return f;
 }
 
+namespace {
 WorkSeries series(const std::string& label, const WorkDistribution& dist, double sigma, const std::vector<double>& w,
                   const Display& d) {
   WorkSeries s;
@@ -907,6 +907,8 @@ WorkSeries series(const std::string& label, const WorkDistribution& dist, double
   }
   return s;
 }
+
+}  // namespace
 
 WorkFigure work_figure(const WorkRun& run) {
   const WorkResult& r = run.result;
@@ -930,18 +932,14 @@ WorkFigure work_figure(const WorkRun& run) {
   return f;
 }
 
-}  // namespace
-
 std::vector<std::string> work_output_names() {
   return {"lines.csv",      "histogram.csv", "density.csv",   "transition.csv", "reverse_lines.csv",
           "characteristic.csv", "summary.json", "potential.png", "potential.svg", "work.png",
           "work.svg"};
 }
 
-std::vector<fs::path> write_work_outputs(const fs::path& folder, const WorkRun& run) {
-  fs::create_directories(folder);
-  // Everything is assembled before the first file is opened.
-  std::vector<std::pair<std::string, CsvTable>> tables = {
+std::vector<NamedTable> work_tables(const WorkRun& run) {
+  std::vector<NamedTable> tables = {
       {"lines.csv", lines_table(run, run.result.distribution, "work lines")},
       {"histogram.csv", histogram_table(run)},
       {"density.csv", density_table(run)},
@@ -950,21 +948,16 @@ std::vector<fs::path> write_work_outputs(const fs::path& folder, const WorkRun& 
   if (run.result.reverse_distribution)
     tables.push_back({"reverse_lines.csv", lines_table(run, *run.result.reverse_distribution, "reverse-run work lines")});
   tables.push_back({"characteristic.csv", characteristic_table(run)});
-  const std::string summary = work_summary(run).dump(2) + "\n";
-  const LevelsFigure levels = levels_figure(run);
-  const WorkFigure work = work_figure(run);
-  std::vector<fs::path> files;
-  for (const auto& [name, table] : tables) {
-    write_file_atomically(folder / name, [&, &table = table](std::ostream& out) { write_csv(out, table); });
-    files.push_back(folder / name);
-  }
-  write_file_atomically(folder / "summary.json", [&](std::ostream& out) { out << summary; });
-  files.push_back(folder / "summary.json");
-  for (const auto& p : plot_levels(folder / "potential", levels)) files.push_back(p);
-  for (const auto& p : plot_work(folder / "work", work)) files.push_back(p);
-  return files;
+  return tables;
 }
 
+std::vector<NamedFigure> work_figures(const WorkRun& run) {
+  return {{"potential", levels_figure(run)}, {"work", work_figure(run)}};
+}
+
+std::vector<fs::path> write_work_outputs(const fs::path& folder, const WorkRun& run) {
+  return write_outputs(folder, work_tables(run), "summary.json", work_summary(run), {}, work_figures(run));
+}
 
 void print_work_report(std::ostream& out, const WorkRun& run) {
   const Scenario& s = run.scenario;
@@ -1235,7 +1228,7 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
   return t;
 }
 
-std::vector<fs::path> plot_sweep_figure(const fs::path& folder, const Scenario& s, const std::vector<SweepRow>& input) {
+SweepFigure sweep_figure(const Scenario& s, const std::vector<SweepRow>& input) {
   const SweepSpec& w = *s.sweep;
   const Display d = display(s);
   std::vector<SweepRow> rows;
@@ -1275,7 +1268,11 @@ std::vector<fs::path> plot_sweep_figure(const fs::path& folder, const Scenario& 
     f.departure = Departure::absolute;  // relative fails at the zeros of sin^2(omega tau / 2)
     f.departure_label = "<W> - curve (" + d.e + ")";
   }
-  return plot_sweep(folder / "sweep", f);
+  return f;
+}
+
+std::vector<fs::path> plot_sweep_figure(const fs::path& folder, const Scenario& s, const std::vector<SweepRow>& rows) {
+  return plot_sweep(folder / "sweep", sweep_figure(s, rows));
 }
 
 }  // namespace trapwork

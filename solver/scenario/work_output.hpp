@@ -16,6 +16,7 @@
 
 #include "potentials/protocol.hpp"
 #include "solver/scenario/output.hpp"
+#include "solver/scenario/plot.hpp"
 #include "solver/scenario/scenario.hpp"
 #include "solver/work.hpp"
 
@@ -134,11 +135,14 @@ CsvTable density_table(const WorkRun& run);
 CsvTable transition_table(const WorkRun& run);
 CsvTable characteristic_table(const WorkRun& run);
 nlohmann::ordered_json work_summary(const WorkRun& run);
+// potential.png: the initial and final potentials with their levels; work.png: P(W) and its density.
+LevelsFigure levels_figure(const WorkRun& run);
+WorkFigure work_figure(const WorkRun& run);
 
 // Writes lines.csv, histogram.csv, density.csv, transition.csv, reverse_lines.csv (reverse
 // run only), characteristic.csv, summary.json, potential.png/.svg and work.png/.svg into
-// `folder` (created if missing); returns their paths. Everything is computed before the first
-// file is opened; every file is written atomically.
+// `folder` (created if missing); returns their paths: work_tables, work_summary and work_figures
+// (solver/scenario/tasks.hpp) written by write_outputs.
 std::vector<std::filesystem::path> write_work_outputs(const std::filesystem::path& folder, const WorkRun& run);
 // Every name write_work_outputs may write (for OutputRun).
 std::vector<std::string> work_output_names();
@@ -169,6 +173,7 @@ CsvTable sweep_table(const Scenario& scenario, std::vector<SweepRow> rows, std::
 // sweep.png/.svg: <W> +- sd against the swept value, the harmonic <W> of each point as a
 // curve and, for the duration of a constant-speed translation, the closed form
 // 2 m v^2 sin^2(omega tau / 2) on a fine grid of tau. Returns the paths written.
+SweepFigure sweep_figure(const Scenario& scenario, const std::vector<SweepRow>& rows);
 std::vector<std::filesystem::path> plot_sweep_figure(const std::filesystem::path& folder, const Scenario& scenario,
                                                      const std::vector<SweepRow>& rows);
 

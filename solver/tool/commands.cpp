@@ -66,21 +66,31 @@ void add_spectrum_command(CLI::App& app) {
 void run_spectrum(const SpectrumCommand& command, std::ostream& out) {
   Scenario scenario = load_scenario(command.scenario);
   if (!command.output.empty()) scenario.output_folder = command.output;
-  if (command.levels) scenario.spectrum.options.levels = *command.levels;
-  OutputRun output(scenario.output_folder, {"spectrum.csv", "states.csv", "summary.json"}, scenario_inputs(scenario),
+  OutputRun output(scenario.output_folder, spectrum_output_names(), scenario_inputs(scenario),
                    "trapwork spectrum " + scenario.file);
-  scenario.spectrum.options.memory_limit = available_memory_bytes();  // refused before it allocates
-  SpectrumResult result;
-  try {
-    result = compute_spectrum(scenario.potential, scenario.spectrum);
-  } catch (const PhysicsError& e) {
-    throw PhysicsError(scenario.file + ": " + e.what());  // say which scenario cannot be used
-  }
-  const auto files = output.commit(write_spectrum_outputs(output.staging(), scenario, result));
+  const SpectrumOutcome outcome = spectrum_task(std::move(scenario), command.levels);
+  const auto files = output.commit(write_task_outputs(output.staging(), outcome));
   if (command.quiet) return;
-  print_spectrum_report(out, scenario, result);
+  print_task_report(out, outcome);
   out << '\n';
   for (const auto& f : files) out << "wrote " << f.string() << '\n';
+}
+
+TaskHooks TaskBar::hooks(std::function<void(const std::string&)> notice) {
+  TaskHooks h;
+  h.progress = [this](double fraction) {
+    if (bar_) bar_->update(std::size_t(fraction * double(total_)));
+  };
+  h.stage = [this](const std::string& name) {
+    if (!bar_) bar_.emplace(name, total_, out_, show_);
+    else bar_->restart(name);
+  };
+  h.notice = std::move(notice);
+  return h;
+}
+
+std::function<void(const std::string&)> notice_to(std::ostream& out) {
+  return [&out](const std::string& text) { out << "trapwork: " << text << "\n" << std::flush; };
 }
 
 }  // namespace trapwork

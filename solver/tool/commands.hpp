@@ -12,7 +12,9 @@
 
 #include "solver/compare.hpp"
 #include "solver/plan.hpp"
+#include "solver/scenario/progress.hpp"
 #include "solver/scenario/scenario.hpp"
+#include "solver/scenario/tasks.hpp"
 #include "solver/scenario/work_output.hpp"
 
 namespace trapwork {
@@ -24,6 +26,28 @@ int run_command_line(CLI::App& app, int argc, char** argv);
 
 // The scenario named on a command line: "default" or "" is the built-in one, else a file.
 Scenario load_scenario(const std::string& name);
+
+// The hooks of a task drawn as a progress bar on `out` when `show`: the first stage makes a bar
+// of `total` units with the stage's name, later stages restart it, progress fractions move it.
+class TaskBar {
+ public:
+  TaskBar(std::ostream& out, bool show, std::size_t total = 1000) : out_(out), show_(show), total_(total) {}
+  TaskBar(const TaskBar&) = delete;
+  TaskBar& operator=(const TaskBar&) = delete;
+  // Hooks referring to this bar (keep it alive while they are used); `notice` as given.
+  TaskHooks hooks(std::function<void(const std::string&)> notice = {});
+  void finish() {
+    if (bar_) bar_->finish();
+  }
+
+ private:
+  std::ostream& out_;
+  bool show_;
+  std::size_t total_;
+  std::optional<ProgressBar> bar_;
+};
+// A notice hook printing "trapwork: <text>" on its own line of `out`.
+std::function<void(const std::string&)> notice_to(std::ostream& out);
 
 // trapwork spectrum [SCENARIO] [-o DIR] [--levels N] [--quiet]
 struct SpectrumCommand {
@@ -91,13 +115,8 @@ struct FitResultFiles {
 void add_fit_command(CLI::App& app);
 FitResultFiles run_fit_command(const FitCommand& command, std::ostream& out);
 
-// The work model of a scenario as `trapwork work` computes it (compute_work), without the
-// reverse run (compare and plan use the forward distribution only), with a progress bar;
-// PhysicsError names the scenario. Shared by compare and plan.
-struct ScenarioWork;  // solver/scenario/work_output.hpp
+// model_work (solver/scenario/tasks.hpp) with a progress bar on `progress` when `show_progress`.
 ScenarioWork model_work(const Scenario& scenario, std::ostream& progress, bool show_progress);
-// An energy option with its unit ("40 h*kHz") in internal units, >= 0; InputError naming `key`.
-double energy_option(const Scenario& scenario, const std::string& key, const std::string& text);
 
 // trapwork compare SCENARIO DATA [--resolution E] [--resamples N] [--seed S] [--confidence C]
 // [-o DIR] [--quiet]: the measured work data of DATA (work samples, level pairs or a histogram,

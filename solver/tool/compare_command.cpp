@@ -18,28 +18,10 @@ namespace trapwork {
 namespace fs = std::filesystem;
 
 ScenarioWork model_work(const Scenario& scenario, std::ostream& progress, bool show_progress) {
-  WorkRequest request = work_request(scenario);
-  request.reverse_run = false;  // only the forward distribution is compared; the reverse run serves Crooks
-  ProgressBar bar("propagating", 1000, progress, show_progress);
-  watch_work(request, bar, show_progress ? &progress : nullptr);
-  try {
-    ScenarioWork w = compute_work(scenario, request);
-    bar.finish();
-    w.request.progress = nullptr;  // the bar ends here
-    w.request.stage = nullptr;
-    w.request.on_estimate = nullptr;
-    return w;
-  } catch (const PhysicsError& e) {
-    throw PhysicsError(scenario.file + ": " + e.what());
-  }
-}
-
-double energy_option(const Scenario& s, const std::string& key, const std::string& text) {
-  const Quantity q = parse_quantity(text);
-  if (q.plain) throw InputError(key, text, "an energy with its unit, e.g. \"40 h*kHz\"");
-  const double v = s.units.to_internal(q, Dimension::energy(), key, text);
-  if (!(v >= 0) || !std::isfinite(v)) throw InputError(key, text, "an energy >= 0");
-  return v;
+  TaskBar bar(progress, show_progress);
+  ScenarioWork w = model_work(scenario, bar.hooks(show_progress ? notice_to(progress) : nullptr));
+  bar.finish();
+  return w;
 }
 
 namespace {

@@ -1,17 +1,12 @@
 // `trapwork work`, `trapwork sweep` and `trapwork demo` (see commands.hpp).
 #include <algorithm>
-#include <atomic>
 #include <cmath>
 #include <cstdint>
 #include <cstdlib>
-#include <exception>
 #include <fstream>
 #include <iostream>
 #include <memory>
-#include <mutex>
 #include <sstream>
-#include <system_error>
-#include <thread>
 #include <unistd.h>
 
 #include "solver/errors.hpp"
@@ -23,18 +18,6 @@
 namespace trapwork {
 
 namespace {
-
-// Says which scenario (and sweep point) the physics could not handle, in its lab units.
-template <class F>
-auto naming_scenario(const std::string& where, const Scenario& scenario, F&& f) {
-  try {
-    return f();
-  } catch (const NonFinitePotentialError& e) {
-    throw PhysicsError(where + ": " + e.describe(scenario.spectrum.message_units));
-  } catch (const PhysicsError& e) {
-    throw PhysicsError(where + ": " + e.what());
-  }
-}
 
 void print_files(std::ostream& out, const std::vector<std::filesystem::path>& files) {
   out << '\n';
@@ -152,38 +135,16 @@ void run_work_command(const WorkCommand& command, std::ostream& out, std::ostrea
   Scenario scenario = load_scenario(command.scenario);
   if (!command.output.empty()) scenario.output_folder = command.output;
   (void)build_protocol(scenario);  // a missing [protocol] is reported before a missing [initial]
-  WorkRequest request = work_request(scenario);
+  (void)work_request(scenario);
   OutputRun output(scenario.output_folder, work_output_names(), scenario_inputs(scenario),
                    "trapwork work " + scenario.file);
-  std::optional<ToleranceChoice> choice;
-  std::optional<ScenarioWork> direct;
-  if (command.tolerance) {
-    if (!(*command.tolerance > 0 && *command.tolerance < 1))
-      throw InputError("--tolerance", short_number(*command.tolerance), "a bound between 0 and 1 (e.g. 1e-4)");
-    if (!(command.search_budget >= 1))
-      throw InputError("--search-budget", short_number(command.search_budget),
-                       "a cost bound >= 1 (in units of the search's first run)");
-    ProgressBar bar("--tolerance search (share of its cost bound)", 1000, progress, command.show_progress);
-    request.progress = [&bar](double fraction) { bar.update(std::size_t(fraction * 1000)); };
-    choice = naming_scenario(scenario.file, scenario, [&] {
-      return compute_work_to_tolerance(scenario, request, *command.tolerance, command.search_budget);
-    });
-    bar.finish();
-  } else {
-    ProgressBar bar("propagating", 1000, progress, command.show_progress);
-    watch_work(request, bar, command.quiet ? nullptr : &progress);
-    direct = naming_scenario(scenario.file, scenario, [&] { return compute_work(scenario, request); });
-    bar.finish();
-    direct->request.progress = nullptr;  // the bar ends here
-    direct->request.stage = nullptr;
-    direct->request.on_estimate = nullptr;
-  }
-  const Scenario& used = choice ? choice->scenario : scenario;
-  WorkRun run = choice ? choice->work->run(used) : direct->run(used);
-  run.tolerance = choice ? &*choice : nullptr;
-  const auto files = output.commit(write_work_outputs(output.staging(), run));
+  TaskBar bar(progress, command.show_progress);
+  const WorkOutcome outcome = work_task(scenario, command.tolerance, command.search_budget,
+                                        bar.hooks(command.quiet ? nullptr : notice_to(progress)));
+  bar.finish();
+  const auto files = output.commit(write_task_outputs(output.staging(), outcome));
   if (command.quiet) return;
-  print_work_report(out, run);
+  print_task_report(out, outcome);
   print_files(out, files);
 }
 
@@ -244,8 +205,6 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
   (void)work_request(scenario);
   const SweepSpec& sweep = *scenario.sweep;
   const std::size_t points = sweep.values.size();
-  const unsigned cores = std::max(1u, std::thread::hardware_concurrency());
-  const std::size_t jobs = std::min<std::size_t>(points, command.jobs > 0 ? std::size_t(command.jobs) : cores);
   // sweep.csv and sweep-points.txt are written in the folder itself as points finish (the
   // record --resume reads); the figures go through the staging folder.
   OutputRun output(scenario.output_folder, {"sweep.csv", "sweep-points.txt", "sweep.png", "sweep.svg"},
@@ -255,7 +214,7 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
   // --resume: the points an earlier run of the same scenario finished are kept, the rest run.
   const std::string fingerprint = sweep_fingerprint(scenario);
   const std::filesystem::path points_file = folder / "sweep-points.txt";
-  std::vector<std::pair<std::size_t, SweepRow>> done;  // (index in [sweep], row), guarded by mutex
+  std::vector<std::pair<std::size_t, SweepRow>> done;  // (index in [sweep], row), guarded by sweep_task's lock
   if (command.resume && std::filesystem::exists(points_file)) done = read_sweep_points(points_file, fingerprint, sweep);
   // Failed points are kept as failed (not tried again on every --resume) unless asked.
   const std::size_t retried = command.retry_failed ? std::size_t(std::count_if(done.begin(), done.end(), [](const auto& d) {
@@ -287,63 +246,15 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
 
   ProgressBar bar("sweep points", points, progress, command.show_progress);
   bar.update(resumed);
-  std::mutex mutex;  // guards done, error and the file rewrites
-  std::exception_ptr error;
-  std::atomic<std::size_t> next{0};
-  std::atomic<bool> stop{false};
-  // Each of the points run at once may use its share of the memory available now.
-  const double memory_per_point = available_memory_bytes() / double(std::max<std::size_t>(1, jobs));
-  // Points share their spectra where they have the same H_A or H_B (a duration sweep: all).
-  const auto memo = std::make_shared<SpectrumMemo>();
-  auto worker = [&] {
-    for (std::size_t k; !stop && (k = next++) < todo.size();) {
-      const std::size_t i = todo[k];
-      try {
-        // Each point has its own potential, protocol and request (one FFTW thread each). A
-        // point that cannot be computed (bad value for that point, physics refused, a bug
-        // caught by a contract check) is recorded as failed and the sweep goes on.
-        SweepRow row;
-        try {
-          const Scenario point = at_sweep_point(scenario, i);
-          WorkRequest request = work_request(point);
-          request.threads = 1;
-          request.spectrum.options.memo = memo;
-          request.spectrum.options.memory_limit = memory_per_point;
-          const ScenarioWork work = naming_scenario(
-              scenario.file + ": sweep point " + sweep.parameter + " = " + sweep.given[i], point,
-              [&] { return compute_work(point, request); });
-          row = sweep_row(work.run(point), sweep.values[i]);
-        } catch (const std::bad_alloc&) {
-          throw;
-        } catch (const std::exception& e) {
-          row = failed_sweep_row(sweep.values[i], e.what());
-        }
-        std::lock_guard lock(mutex);
-        done.push_back({i, row});
-        write_done();
-        bar.update(done.size());
-      } catch (...) {
-        std::lock_guard lock(mutex);
-        if (!error) error = std::current_exception();
-        stop = true;
-      }
-    }
+  SweepOptions options;
+  options.jobs = command.jobs;
+  options.todo = todo;
+  options.on_point = [&](std::size_t i, const SweepRow& row) {
+    done.push_back({i, row});
+    write_done();
+    bar.update(done.size());
   };
-  // Points run on the threads the system lets us start; with none, on this one (said in the
-  // report: the sweep is slower, its results the same).
-  std::vector<std::thread> threads;
-  std::string refusal;
-  for (std::size_t j = 0; j < std::min(jobs, todo.size()); ++j) {
-    try {
-      threads.emplace_back(worker);
-    } catch (const std::system_error& e) {
-      refusal = e.what();
-      break;
-    }
-  }
-  if (threads.empty() && !todo.empty()) worker();
-  for (auto& t : threads) t.join();
-  if (error) std::rethrow_exception(error);
+  const SweepOutcome run = sweep_task(scenario, options);
   bar.finish();
   std::vector<SweepRow> rows;
   for (const auto& d : done) rows.push_back(d.second);
@@ -358,42 +269,13 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
   files = output.commit(files);
   if (command.quiet) return;
 
-  print_scenario_header(out, "sweep", scenario);
-  const std::size_t started = refusal.empty() ? jobs : std::max<std::size_t>(1, threads.size());
-  print_row(out, "sweep", sweep.parameter + ", " + std::to_string(points) + " points, " + std::to_string(started) +
-                              " at a time" +
-                              (refusal.empty() ? std::string()
-                                               : " (of " + std::to_string(std::min(jobs, todo.size())) +
-                                                     " asked for: the system refused to start more threads: " +
-                                                     refusal + ")"));
-  if (command.resume)
-    print_row(out, "resumed", std::to_string(resumed) + " of " + std::to_string(points) + " points from " +
-                                  points_file.string() + ", " + std::to_string(todo.size()) + " computed now" +
-                                  (retried > 0 ? " (" + std::to_string(retried) + " failed before, tried again)" : ""));
-  std::sort(rows.begin(), rows.end(), [](const SweepRow& a, const SweepRow& b) { return a.value < b.value; });
-  const Display d = display(scenario);
-  char line[220];
-  const std::string e = "[" + d.e + "]";
-  std::snprintf(line, sizeof line, "\n  %14s %14s %14s %16s %14s %10s %8s\n",
-                (sweep.unit.empty() ? std::string("value") : "[" + sweep.unit + "]").c_str(), ("<W> " + e).c_str(),
-                ("sd " + e).c_str(), ("harm. <W> " + e).c_str(), "<W> - harm.", "Jarzynski", "warnings");
-  out << line;
-  int warned = 0;
-  for (const auto& r : rows) {
-    if (!r.failure.empty()) {
-      out << "  " << short_number(r.value / sweep.internal_per_unit, 6) << ": failed: " << r.failure << '\n';
-      continue;
-    }
-    std::snprintf(line, sizeof line, "  %14s %14s %14s %16s %14s %10s %8d\n",
-                  short_number(r.value / sweep.internal_per_unit, 6).c_str(), short_number(d.energy(r.mean), 7).c_str(),
-                  short_number(d.energy(r.sd), 5).c_str(), short_number(d.energy(r.harmonic_mean), 7).c_str(),
-                  short_number(d.energy(r.mean - r.harmonic_mean), 4).c_str(),
-                  short_number(r.jarzynski_residual, 2).c_str(), r.warnings);
-    out << line;
-    warned += r.warnings > 0;
-  }
-  if (warned > 0)
-    out << "\n" << warned << " point(s) have warnings: run `trapwork work` on the scenario at that value to read them\n";
+  print_sweep_report(out, run, rows,
+                     command.resume ? std::to_string(resumed) + " of " + std::to_string(points) + " points from " +
+                                          points_file.string() + ", " + std::to_string(todo.size()) +
+                                          " computed now" +
+                                          (retried > 0 ? " (" + std::to_string(retried) + " failed before, tried again)"
+                                                       : "")
+                                    : std::string());
   print_files(out, files);
 }
 

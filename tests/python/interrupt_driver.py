@@ -1,6 +1,8 @@
-"""Driver of test_interrupt.py: a long work run that the test interrupts with SIGINT.
+"""Driver of the Ctrl-C tests (test_behaviour.py, test_tasks.py): a long run that the test interrupts with SIGINT.
 
-argv[1]: the output folder the run would write into after computing (it must not appear).
+argv[1]: the output folder the run would write into after computing (it must not appear);
+argv[2]: "work" (default) or "sweep" with argv[3] a scenario with [sweep] (its points made long
+by 400000 time steps each, two at a time).
 Prints "started" when the computation has begun (its first progress call), then either
 "interrupted <time.monotonic()>" when KeyboardInterrupt arrives (and exits 0), or "finished"
 (exit 3: the interruption did not work)."""
@@ -9,9 +11,13 @@ import time
 
 import trapwork
 
-# The built-in scenario with far more time steps than it needs: about a minute of propagation,
-# so that a SIGINT after a second arrives in the middle of it.
-scenario = trapwork.Scenario.from_text(trapwork.Scenario.default().text + "\n[work]\nsteps = 400000\n", "long.toml")
+# Far more time steps than the scenario needs: a minute or more of propagation, so that a SIGINT
+# after a second arrives in the middle of it.
+command = sys.argv[2] if len(sys.argv) > 2 else "work"
+if command == "work":
+    scenario = trapwork.Scenario.from_text(trapwork.Scenario.default().text + "\n[work]\nsteps = 400000\n", "long.toml")
+else:
+    scenario = trapwork.Scenario.from_file(sys.argv[3]).with_values({"work.steps": 400000})
 started = False
 
 
@@ -23,7 +29,10 @@ def progress(stage, fraction):
 
 
 try:
-    result = trapwork.work(scenario, progress=progress)
+    if command == "work":
+        result = trapwork.work(scenario, progress=progress)
+    else:
+        result = trapwork.sweep(scenario, jobs=2, progress=progress)
     result.write(sys.argv[1])
 except KeyboardInterrupt:
     print(f"interrupted {time.monotonic()!r}", flush=True)

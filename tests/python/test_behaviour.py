@@ -46,11 +46,13 @@ def test_missing_file_is_input_error(tmp_path):
         trapwork.Scenario.from_file(tmp_path / "missing.toml")
 
 
-def test_work_without_protocol_is_input_error():
+def test_work_without_protocol_is_input_error(tmp_path):
     s = trapwork.Scenario.from_file(EXAMPLES / "ion_quartic.toml")
     assert not s.has_protocol
-    with pytest.raises(trapwork.InputError, match="protocol"):
+    with pytest.raises(trapwork.InputError, match="protocol") as caught:
         trapwork.work(s)
+    done = run_cli("work", EXAMPLES / "ion_quartic.toml", "-o", tmp_path / "out")
+    assert done.returncode == 2 and done.stderr.strip() == f"trapwork: error: {caught.value}"
 
 
 def test_bad_arguments_are_input_errors():
@@ -103,6 +105,31 @@ def test_ctrl_c_raises_keyboard_interrupt_and_writes_nothing(tmp_path):
     # bound is 5 s so that a loaded test machine does not fail it.
     assert float(when) - sent < 5.0
     assert not folder.exists()
+
+
+def test_ctrl_c_during_write_leaves_one_whole_run(tmp_path):
+    # The child writes two different spectra into one folder in turn until SIGINT: wherever the
+    # signal lands (inside OutputRun's write phase, its commit, or between writes), the folder
+    # must then hold exactly the files of one of the two runs, and KeyboardInterrupt is raised.
+    folder = tmp_path / "out"
+    runs = tmp_path / "runs.pickle"
+    child = subprocess.Popen([sys.executable, str(HERE / "write_driver.py"), str(folder), str(runs)],
+                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        assert child.stdout.readline().strip() == "ready", child.stderr.read()
+        time.sleep(0.5)
+        child.send_signal(signal.SIGINT)
+        out, err = child.communicate(timeout=60)
+    finally:
+        if child.poll() is None:
+            child.kill()
+            child.wait()
+    assert child.returncode == 0 and out.strip() == "interrupted", f"exit {child.returncode}: {out}\n{err}"
+    expected = pickle.loads(runs.read_bytes())
+    found = {p.name: p.read_bytes() for p in folder.iterdir() if not p.name.startswith(".trapwork-")}
+    leftovers = [p.name for p in folder.iterdir() if p.name.startswith(".trapwork-new") or ".tmp-" in p.name]
+    assert not leftovers
+    assert found in expected, "the folder mixes the two runs"
 
 
 # ---- the GIL and progress ---------------------------------------------------------------------
@@ -250,3 +277,20 @@ def test_docstrings():
     for c in (trapwork.Scenario, trapwork.Table, trapwork.Result, trapwork.WorkResult, trapwork.InputError,
               trapwork.PhysicsError):
         assert c.__doc__ and len(c.__doc__) > 40, c.__name__
+
+
+def test_work_figures_are_plain_data(default_work):
+    # the figure data the command line draws work.png and potential.png from, as dicts of numpy arrays
+    r = default_work
+    assert set(r.figures) == {"potential", "work"}
+    work = r.figures["work"]
+    assert work["kind"] == "work" and isinstance(work["result"]["work"], np.ndarray)
+    assert abs(work["result"]["probability"].sum() - r.lines["probability"].sum()) < 1e-12
+    assert work["mean_work"] == r.summary["work"]["mean"]["value"]
+    levels = r.figures["potential"]
+    assert levels["kind"] == "levels" and len(levels["panels"]) == 2
+    start = levels["panels"][0]
+    assert start["x"].shape == start["potential"].shape
+    np.testing.assert_allclose(start["energies"][:3], trapwork.spectrum("default", levels=3).energies, rtol=1e-9)
+    copy = pickle.loads(pickle.dumps(r))
+    np.testing.assert_array_equal(copy.figures["work"]["result"]["work"], work["result"]["work"])

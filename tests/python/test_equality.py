@@ -8,7 +8,7 @@ import re
 import pytest
 
 import trapwork
-from conftest import (EXAMPLES, assert_json_close, assert_summary_equals_json, assert_table_equals_csv, assert_text_close, cli_ok,
+from conftest import (REPORT_RELATIVE, EXAMPLES, assert_json_close, assert_summary_equals_json, assert_table_equals_csv, assert_text_close, cli_ok,
                       example_scenarios, has_tables)
 
 
@@ -23,7 +23,7 @@ def assert_result_equals_cli(result, folder, stdout, summary_file="summary.json"
     written = sorted(p.name for p in folder.glob("*.csv"))
     assert sorted(t.file for t in result.tables.values()) == written
     assert_summary_equals_json(result.summary, folder / summary_file)
-    assert_text_close(result.report, report_of(stdout), "report")
+    assert_text_close(result.report, report_of(stdout), "report", REPORT_RELATIVE)
 
 
 @pytest.mark.parametrize("name", example_scenarios())

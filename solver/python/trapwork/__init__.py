@@ -243,6 +243,16 @@ class Table:
         return f"<trapwork.Table {self.file}: {len(self)} rows, columns {', '.join(self.columns)}>"
 
 
+def _table_of_csv(file, text):
+    """A CSV file's text in the command line's layout (names, '#' lines, rows) as a Table."""
+    lines = text.splitlines()
+    names = lines[0].split(",") if lines else []
+    comments = [l[2:] if l.startswith("# ") else l[1:] for l in lines[1:] if l.startswith("#")]
+    rows = [l.split(",") for l in lines[1:] if l and not l.startswith("#")]
+    values = np.array([[float(x) for x in r] for r in rows], dtype=float).reshape(len(rows), len(names))
+    return Table(file, [(n, values[:, i]) for i, n in enumerate(names)], comments)
+
+
 def _figure_value(v):
     if isinstance(v, dict):
         return {k: _figure_value(x) for k, x in v.items()}
@@ -277,6 +287,11 @@ class Result:
         for file, columns, comments in native.tables():
             self.tables[file.rsplit(".", 1)[0]] = Table(file, columns, comments)
         self.summary = json.loads(native.summary_json())
+        # other files (fitted.toml, synthetic_work.csv): their text; a CSV one is a table too
+        self.texts = {name: text for name, text in native.texts()}
+        for name, text in self.texts.items():
+            if name.endswith(".csv"):
+                self.tables[name[:-4]] = _table_of_csv(name, text)
         self.figures = {stem: _figure_value(dict(data)) for stem, data in native.figures}
         self.report = native.report
         self._inputs = [tuple(i) for i in native.inputs()]
@@ -534,7 +549,9 @@ def _run(function, *args, progress=None):
         callback = progress
     else:
         raise TypeError("progress must be None, True or a callable progress(stage, fraction)")
-    notice = (lambda line: print(line, file=sys.stderr)) if callback is not None else None
+    def notice(line):  # the cost estimate of a long run, said before it starts (as the command line does)
+        print(line, file=sys.stderr, flush=True)
+
     try:
         return function(*args, callback, notice)
     finally:
@@ -546,7 +563,8 @@ _PROGRESS_DOC = """progress: None (default: nothing shown), True (a text bar on 
         which works in a notebook) or a callable ``progress(stage, fraction)`` called on the
         calling thread about 20 times a second while the run advances (stage: str, the stage's
         name; fraction: float in [0, 1], the share of that stage done). An exception it raises
-        stops the run and is raised."""
+        stops the run and is raised. A run estimated to take over 30 s says its estimated
+        memory and time on stderr before it starts, whatever ``progress`` is."""
 
 
 # ---- the computations ----------------------------------------------------------------------------

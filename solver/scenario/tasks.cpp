@@ -1,0 +1,375 @@
+// The task layer (see tasks.hpp): the shared writers, spectrum and work.
+#include "solver/scenario/tasks.hpp"
+
+#include <algorithm>
+#include <atomic>
+#include <cmath>
+#include <cstdio>
+#include <exception>
+#include <memory>
+#include <mutex>
+#include <system_error>
+#include <thread>
+
+#include "solver/errors.hpp"
+#include "solver/scenario/machine.hpp"
+
+namespace trapwork {
+
+namespace fs = std::filesystem;
+
+std::vector<fs::path> write_figure(const fs::path& folder, const NamedFigure& figure) {
+  const fs::path stem = folder / figure.stem;
+  return std::visit(
+      [&](const auto& f) -> std::vector<fs::path> {
+        using F = std::decay_t<decltype(f)>;
+        if constexpr (std::is_same_v<F, LevelsFigure>) return plot_levels(stem, f);
+        else if constexpr (std::is_same_v<F, WorkFigure>) return plot_work(stem, f);
+        else if constexpr (std::is_same_v<F, SweepFigure>) return plot_sweep(stem, f);
+        else return plot_comparison(stem, f);
+      },
+      figure.figure);
+}
+
+std::vector<fs::path> write_outputs(const fs::path& folder, const std::vector<NamedTable>& tables,
+                                    const std::string& summary_file, const nlohmann::ordered_json& summary,
+                                    const std::vector<NamedText>& texts, const std::vector<NamedFigure>& figures) {
+  fs::create_directories(folder);
+  const std::string summary_text = summary_file.empty() ? std::string() : summary.dump(2) + "\n";
+  std::vector<fs::path> files;
+  for (const auto& t : tables) {
+    write_file_atomically(folder / t.file, [&](std::ostream& out) { write_csv(out, t.table); });
+    files.push_back(folder / t.file);
+  }
+  if (!summary_file.empty()) {
+    write_file_atomically(folder / summary_file, [&](std::ostream& out) { out << summary_text; });
+    files.push_back(folder / summary_file);
+  }
+  for (const auto& f : figures)
+    for (const auto& p : write_figure(folder, f)) files.push_back(p);
+  for (const auto& t : texts) {
+    write_file_atomically(folder / t.file, [&](std::ostream& out) { out << t.text; });
+    files.push_back(folder / t.file);
+  }
+  return files;
+}
+
+double energy_option(const Scenario& s, const std::string& key, const std::string& text) {
+  const Quantity q = parse_quantity(text);
+  if (q.plain) throw InputError(key, text, "an energy with its unit, e.g. \"40 h*kHz\"");
+  const double v = s.units.to_internal(q, Dimension::energy(), key, text);
+  if (!(v >= 0) || !std::isfinite(v)) throw InputError(key, text, "an energy >= 0");
+  return v;
+}
+
+void watch_work(WorkRequest& request, const TaskHooks& hooks) {
+  if (!(request.spectrum.options.memory_limit > 0)) request.spectrum.options.memory_limit = available_memory_bytes();
+  request.progress = hooks.progress;
+  request.stage = hooks.stage;
+  const int threads = request.threads;
+  if (hooks.notice)
+    request.on_estimate = [notice = hooks.notice, threads](const CostEstimate& e) {
+      if (estimated_seconds(e.operations, threads) > long_run_seconds) notice(cost_text(e, threads) + " (" + e.what + ")");
+    };
+}
+
+namespace {
+
+// Says which scenario the physics could not handle, in its lab units.
+template <class F>
+auto naming_scenario(const std::string& where, const Scenario& scenario, F&& f) {
+  try {
+    return f();
+  } catch (const NonFinitePotentialError& e) {
+    throw PhysicsError(where + ": " + e.describe(scenario.spectrum.message_units));
+  } catch (const PhysicsError& e) {
+    throw PhysicsError(where + ": " + e.what());
+  }
+}
+
+// The hooks end with the task: the outcome keeps no callback of its caller.
+void drop_hooks(WorkRequest& request) {
+  request.progress = nullptr;
+  request.stage = nullptr;
+  request.on_estimate = nullptr;
+}
+
+}  // namespace
+
+ScenarioWork model_work(const Scenario& scenario, const TaskHooks& hooks) {
+  WorkRequest request = work_request(scenario);
+  request.reverse_run = false;  // only the forward distribution is compared; the reverse run serves Crooks
+  if (hooks.stage) hooks.stage("propagating");
+  watch_work(request, hooks);
+  try {
+    ScenarioWork w = compute_work(scenario, request);
+    drop_hooks(w.request);
+    return w;
+  } catch (const PhysicsError& e) {
+    throw PhysicsError(scenario.file + ": " + e.what());
+  }
+}
+
+// ---- spectrum ------------------------------------------------------------------------------
+
+SpectrumOutcome spectrum_task(Scenario scenario, std::optional<int> levels, const TaskHooks& hooks) {
+  if (levels) scenario.spectrum.options.levels = *levels;
+  scenario.spectrum.options.memory_limit = available_memory_bytes();  // refused before it allocates
+  if (hooks.stage) hooks.stage("spectrum");
+  SpectrumOutcome outcome{std::move(scenario), {}};
+  try {
+    outcome.result = compute_spectrum(outcome.scenario.potential, outcome.scenario.spectrum);
+  } catch (const PhysicsError& e) {
+    throw PhysicsError(outcome.scenario.file + ": " + e.what());  // say which scenario cannot be used
+  }
+  if (hooks.progress) hooks.progress(1.0);
+  return outcome;
+}
+
+std::vector<NamedTable> spectrum_tables(const Scenario& scenario, const SpectrumResult& result) {
+  return {{"spectrum.csv", spectrum_table(scenario, result)}, {"states.csv", states_table(scenario, result)}};
+}
+
+std::vector<NamedTable> task_tables(const SpectrumOutcome& o) { return spectrum_tables(o.scenario, o.result); }
+nlohmann::ordered_json task_summary(const SpectrumOutcome& o) { return spectrum_summary(o.scenario, o.result); }
+std::vector<NamedText> task_texts(const SpectrumOutcome&) { return {}; }
+std::vector<NamedFigure> task_figures(const SpectrumOutcome&) { return {}; }
+std::vector<fs::path> write_task_outputs(const fs::path& folder, const SpectrumOutcome& o) {
+  return write_outputs(folder, task_tables(o), "summary.json", task_summary(o), task_texts(o), task_figures(o));
+}
+std::vector<std::string> spectrum_output_names() { return {"spectrum.csv", "states.csv", "summary.json"}; }
+void print_task_report(std::ostream& out, const SpectrumOutcome& o) { print_spectrum_report(out, o.scenario, o.result); }
+
+// ---- work ----------------------------------------------------------------------------------
+
+WorkRun WorkOutcome::run() const {
+  const Scenario& used = choice ? choice->scenario : scenario;
+  WorkRun r = choice ? choice->work->run(used) : direct->run(used);
+  r.tolerance = choice ? &*choice : nullptr;
+  return r;
+}
+
+WorkOutcome work_task(const Scenario& scenario, std::optional<double> tolerance, double search_budget,
+                      const TaskHooks& hooks) {
+  WorkRequest request = work_request(scenario);
+  WorkOutcome outcome{scenario, std::nullopt, std::nullopt};
+  if (tolerance) {
+    if (!(*tolerance > 0 && *tolerance < 1))
+      throw InputError("--tolerance", short_number(*tolerance), "a bound between 0 and 1 (e.g. 1e-4)");
+    if (!(search_budget >= 1))
+      throw InputError("--search-budget", short_number(search_budget),
+                       "a cost bound >= 1 (in units of the search's first run)");
+    if (hooks.stage) hooks.stage("--tolerance search (share of its cost bound)");
+    request.progress = hooks.progress;
+    outcome.choice = naming_scenario(scenario.file, scenario, [&] {
+      return compute_work_to_tolerance(scenario, request, *tolerance, search_budget);
+    });
+    if (outcome.choice->work) drop_hooks(outcome.choice->work->request);
+  } else {
+    if (hooks.stage) hooks.stage("propagating");
+    watch_work(request, hooks);
+    outcome.direct = naming_scenario(scenario.file, scenario, [&] { return compute_work(scenario, request); });
+    drop_hooks(outcome.direct->request);
+  }
+  return outcome;
+}
+
+std::vector<NamedTable> task_tables(const WorkOutcome& o) { return work_tables(o.run()); }
+nlohmann::ordered_json task_summary(const WorkOutcome& o) { return work_summary(o.run()); }
+std::vector<NamedText> task_texts(const WorkOutcome&) { return {}; }
+std::vector<NamedFigure> task_figures(const WorkOutcome& o) { return work_figures(o.run()); }
+std::vector<fs::path> write_task_outputs(const fs::path& folder, const WorkOutcome& o) {
+  return write_outputs(folder, task_tables(o), "summary.json", task_summary(o), task_texts(o), task_figures(o));
+}
+void print_task_report(std::ostream& out, const WorkOutcome& o) { print_work_report(out, o.run()); }
+
+// ---- sweep ---------------------------------------------------------------------------------
+
+SweepOutcome sweep_task(const Scenario& scenario, const SweepOptions& options, const TaskHooks& hooks) {
+  if (!scenario.sweep)
+    throw InputError("sweep", "", "a [sweep] table: parameter, and values = [...] or from, to, points", "",
+                     scenario.file);
+  (void)build_protocol(scenario);  // the errors of a missing [protocol] or [initial] come first
+  (void)work_request(scenario);
+  const SweepSpec& sweep = *scenario.sweep;
+  const std::size_t points = sweep.values.size();
+  std::vector<std::size_t> todo;
+  if (options.todo) {
+    todo = *options.todo;
+    std::vector<bool> seen(points, false);
+    for (std::size_t i : todo) {
+      TRAPWORK_EXPECT(i < points && !seen[i], "sweep_task: each index of SweepOptions::todo once, below the points");
+      seen[i] = true;
+    }
+  } else {
+    for (std::size_t i = 0; i < points; ++i) todo.push_back(i);
+  }
+  const unsigned cores = std::max(1u, std::thread::hardware_concurrency());
+  SweepOutcome outcome;
+  outcome.scenario = scenario;
+  outcome.jobs = std::min<std::size_t>(points, options.jobs > 0 ? std::size_t(options.jobs) : cores);
+  const std::size_t jobs = outcome.jobs;
+  if (hooks.stage) hooks.stage("sweep points");
+
+  std::mutex mutex;  // guards outcome.rows, error and on_point
+  std::exception_ptr error;
+  std::atomic<std::size_t> next{0};
+  std::atomic<bool> stop{false}, interrupted{false};
+  // Progress: finished points plus the running points' shares, over the points to compute.
+  std::mutex hook_mutex;  // one progress call at a time; taken after `mutex` where both are held
+  std::vector<double> partial(todo.size(), 0.0);
+  double partial_sum = 0;
+  std::size_t finished = 0;
+  auto report = [&](std::size_t k, double fraction, bool done) {
+    std::lock_guard lock(hook_mutex);
+    partial_sum += (done ? 0.0 : fraction) - partial[k];
+    partial[k] = done ? 0.0 : fraction;
+    finished += done;
+    if (hooks.progress) hooks.progress(std::min(1.0, (double(finished) + partial_sum) / double(todo.size())));
+  };
+  // Each of the points run at once may use its share of the memory available now.
+  const double memory_per_point = available_memory_bytes() / double(std::max<std::size_t>(1, jobs));
+  // Points share their spectra where they have the same H_A or H_B (a duration sweep: all).
+  const auto memo = std::make_shared<SpectrumMemo>();
+  auto worker = [&] {
+    for (std::size_t k; !stop && (k = next++) < todo.size();) {
+      const std::size_t i = todo[k];
+      try {
+        // Each point has its own potential, protocol and request (one FFTW thread each). A
+        // point that cannot be computed (bad value for that point, physics refused, a bug
+        // caught by a contract check) is recorded as failed and the sweep goes on; an
+        // interruption is no failure of the point.
+        SweepRow row;
+        try {
+          const Scenario point = at_sweep_point(scenario, i);
+          WorkRequest request = work_request(point);
+          request.threads = 1;
+          request.spectrum.options.memo = memo;
+          request.spectrum.options.memory_limit = memory_per_point;
+          if (hooks.progress)
+            request.progress = [&, k](double fraction) {
+              if (interrupted) throw Interrupted("sweep interrupted");  // another point was interrupted
+              report(k, fraction, false);
+            };
+          const ScenarioWork work = naming_scenario(
+              scenario.file + ": sweep point " + sweep.parameter + " = " + sweep.given[i], point,
+              [&] { return compute_work(point, request); });
+          row = sweep_row(work.run(point), sweep.values[i]);
+        } catch (const std::bad_alloc&) {
+          throw;
+        } catch (const Interrupted&) {
+          throw;
+        } catch (const std::exception& e) {
+          row = failed_sweep_row(sweep.values[i], e.what());
+        }
+        std::lock_guard lock(mutex);
+        outcome.rows.push_back({i, row});
+        if (options.on_point) options.on_point(i, row);
+        report(k, 1.0, true);
+      } catch (const Interrupted&) {
+        std::lock_guard lock(mutex);
+        if (!error) error = std::current_exception();
+        interrupted = true;
+        stop = true;
+      } catch (...) {
+        std::lock_guard lock(mutex);
+        if (!error) error = std::current_exception();
+        stop = true;
+      }
+    }
+  };
+  // Points run on the threads the system lets us start; with none, on this one (said in the
+  // report: the sweep is slower, its results the same).
+  std::vector<std::thread> threads;
+  for (std::size_t j = 0; j < std::min(jobs, todo.size()); ++j) {
+    try {
+      threads.emplace_back(worker);
+    } catch (const std::system_error& e) {
+      outcome.refusal = e.what();
+      break;
+    }
+  }
+  if (threads.empty() && !todo.empty()) worker();
+  for (auto& t : threads) t.join();
+  if (error) std::rethrow_exception(error);
+  outcome.started_threads = threads.size();
+  return outcome;
+}
+
+namespace {
+std::vector<SweepRow> rows_of(const SweepOutcome& o) {
+  std::vector<SweepRow> rows;
+  for (const auto& r : o.rows) rows.push_back(r.second);
+  return rows;
+}
+}  // namespace
+
+std::vector<std::string> sweep_output_names() { return {"sweep.csv", "sweep_summary.json", "sweep.png", "sweep.svg"}; }
+
+std::vector<NamedTable> task_tables(const SweepOutcome& o) {
+  return {{"sweep.csv", sweep_table(o.scenario, rows_of(o), o.scenario.sweep->values.size())}};
+}
+
+nlohmann::ordered_json task_summary(const SweepOutcome& o) {
+  const SweepSpec& w = *o.scenario.sweep;
+  const auto failed = std::count_if(o.rows.begin(), o.rows.end(), [](const auto& r) { return !r.second.failure.empty(); });
+  return {{"command", "sweep"},
+          {"scenario", o.scenario.file},
+          {"parameter", w.parameter},
+          {"unit", w.unit},
+          {"points", w.values.size()},
+          {"computed", o.rows.size()},
+          {"failed", failed},
+          {"jobs", o.jobs},
+          {"threads", o.started_threads}};
+}
+
+std::vector<NamedText> task_texts(const SweepOutcome&) { return {}; }
+std::vector<NamedFigure> task_figures(const SweepOutcome& o) { return {{"sweep", sweep_figure(o.scenario, rows_of(o))}}; }
+std::vector<fs::path> write_task_outputs(const fs::path& folder, const SweepOutcome& o) {
+  return write_outputs(folder, task_tables(o), "sweep_summary.json", task_summary(o), task_texts(o), task_figures(o));
+}
+
+void print_sweep_report(std::ostream& out, const SweepOutcome& run, std::vector<SweepRow> rows,
+                        const std::string& resumed) {
+  const Scenario& scenario = run.scenario;
+  const SweepSpec& sweep = *scenario.sweep;
+  const std::size_t points = sweep.values.size(), jobs = run.jobs, computed = run.rows.size();
+  print_scenario_header(out, "sweep", scenario);
+  const std::size_t started = run.refusal.empty() ? jobs : std::max<std::size_t>(1, run.started_threads);
+  print_row(out, "sweep", sweep.parameter + ", " + std::to_string(points) + " points, " + std::to_string(started) +
+                              " at a time" +
+                              (run.refusal.empty() ? std::string()
+                                                   : " (of " + std::to_string(std::min(jobs, computed)) +
+                                                         " asked for: the system refused to start more threads: " +
+                                                         run.refusal + ")"));
+  if (!resumed.empty()) print_row(out, "resumed", resumed);
+  std::sort(rows.begin(), rows.end(), [](const SweepRow& a, const SweepRow& b) { return a.value < b.value; });
+  const Display d = display(scenario);
+  char line[220];
+  const std::string e = "[" + d.e + "]";
+  std::snprintf(line, sizeof line, "\n  %14s %14s %14s %16s %14s %10s %8s\n",
+                (sweep.unit.empty() ? std::string("value") : "[" + sweep.unit + "]").c_str(), ("<W> " + e).c_str(),
+                ("sd " + e).c_str(), ("harm. <W> " + e).c_str(), "<W> - harm.", "Jarzynski", "warnings");
+  out << line;
+  int warned = 0;
+  for (const auto& r : rows) {
+    if (!r.failure.empty()) {
+      out << "  " << short_number(r.value / sweep.internal_per_unit, 6) << ": failed: " << r.failure << '\n';
+      continue;
+    }
+    std::snprintf(line, sizeof line, "  %14s %14s %14s %16s %14s %10s %8d\n",
+                  short_number(r.value / sweep.internal_per_unit, 6).c_str(), short_number(d.energy(r.mean), 7).c_str(),
+                  short_number(d.energy(r.sd), 5).c_str(), short_number(d.energy(r.harmonic_mean), 7).c_str(),
+                  short_number(d.energy(r.mean - r.harmonic_mean), 4).c_str(),
+                  short_number(r.jarzynski_residual, 2).c_str(), r.warnings);
+    out << line;
+    warned += r.warnings > 0;
+  }
+  if (warned > 0)
+    out << "\n" << warned << " point(s) have warnings: run `trapwork work` on the scenario at that value to read them\n";
+}
+
+void print_task_report(std::ostream& out, const SweepOutcome& o) { print_sweep_report(out, o, rows_of(o), ""); }
+
+}  // namespace trapwork

@@ -1,0 +1,264 @@
+// The task layer (solver/scenario/tasks.hpp): each task on a small scenario; the files that
+// write_task_outputs writes are exactly the tables, summary and figures the outcome gives (the
+// Python module shows the latter, the command line writes the former); an Interrupted thrown
+// from a progress hook stops the task and passes out of it.
+#include <catch2/catch.hpp>
+
+#include <algorithm>
+#include <atomic>
+#include <chrono>
+#include <filesystem>
+#include <fstream>
+#include <sstream>
+#include <thread>
+
+#include "solver/errors.hpp"
+#include "solver/scenario/tasks.hpp"
+#include "solver/tool/commands.hpp"
+#include "scratch_files.hpp"
+
+using namespace trapwork;
+namespace fs = std::filesystem;
+
+namespace {
+
+// A 40 u ion in a 1 MHz trap with a small quartic term, thermal with 0.5 phonons, moved by
+// 30 nm in 1.5 us (the scenario of test_threads.cpp), with few levels and no step check: fast.
+const std::string work_text = R"(title = "tasks"
+[particle]
+mass = "40 u"
+[[potential]]
+name = "trap"
+shape = "polynomial"
+frequency = "1 MHz"
+quartic = "0.01 h*Hz/nm^4"
+[protocol]
+duration = "1.5 us"
+[[protocol.change]]
+parameter = "trap.centre"
+to = "30 nm"
+[initial]
+mean_phonons = 0.5
+[work]
+time_step_check = false
+)";
+
+std::string csv_text(const CsvTable& table) {
+  std::ostringstream out;
+  write_csv(out, table);
+  return out.str();
+}
+
+// write_task_outputs writes each of task_tables as write_csv does, task_summary as the summary
+// file, each of task_figures as <stem>.png and .svg, the texts as given; and returns those paths.
+template <class Outcome>
+void check_files_are_the_outcome(const Outcome& o, const std::string& summary_file, const std::string& area) {
+  const fs::path dir = trapwork_test::scratch_dir("test-tasks", area);
+  const auto files = write_task_outputs(dir, o);
+  std::size_t expected_files = 0;
+  for (const auto& t : task_tables(o)) {
+    INFO(t.file);
+    REQUIRE(fs::exists(dir / t.file));
+    CHECK(trapwork_test::read_all(dir / t.file) == csv_text(t.table));
+    CHECK(!t.table.columns.empty());
+    ++expected_files;
+  }
+  if (!summary_file.empty()) {
+    CHECK(trapwork_test::read_all(dir / summary_file) == task_summary(o).dump(2) + "\n");
+    ++expected_files;
+  }
+  for (const auto& t : task_texts(o)) {
+    CHECK(trapwork_test::read_all(dir / t.file) == t.text);
+    ++expected_files;
+  }
+  for (const auto& f : task_figures(o)) {
+    CHECK(fs::exists(dir / (f.stem + ".png")));
+    CHECK(fs::exists(dir / (f.stem + ".svg")));
+    expected_files += 2;
+  }
+  CHECK(files.size() == expected_files);
+  for (const auto& f : files) CHECK(fs::exists(f));
+}
+
+// Tables equal the files the command line wrote into `folder`.
+void check_cli_files(const std::vector<NamedTable>& tables, const fs::path& folder) {
+  for (const auto& t : tables) {
+    INFO(t.file);
+    CHECK(trapwork_test::read_all(folder / t.file) == csv_text(t.table));
+  }
+}
+
+// Hooks whose progress throws Interrupted on its `after`-th call.
+TaskHooks interrupting(std::atomic<int>& calls, int after) {
+  TaskHooks h;
+  h.progress = [&calls, after](double) {
+    if (++calls >= after) throw Interrupted("interrupted by the test");
+  };
+  return h;
+}
+
+}  // namespace
+
+TEST_CASE("issue 15: spectrum_task gives the tables and summary the command writes", "[tasks]") {
+  const Scenario s = read_scenario_text(default_scenario_text(), "default");
+  std::vector<std::string> stages;
+  TaskHooks hooks;
+  hooks.stage = [&](const std::string& name) { stages.push_back(name); };
+  const SpectrumOutcome o = spectrum_task(s, 6, hooks);
+  CHECK(o.result.spectrum.energies.size() == 6);
+  CHECK(stages == std::vector<std::string>{"spectrum"});
+  const auto tables = task_tables(o);
+  REQUIRE(tables.size() == 2);
+  CHECK(tables[0].file == "spectrum.csv");
+  CHECK(tables[0].table.columns[0].values.size() == 6);
+  CHECK(task_summary(o)["levels"].size() == 6);
+  check_files_are_the_outcome(o, "summary.json", "spectrum");
+
+  const fs::path dir = trapwork_test::scratch_dir("test-tasks", "spectrum-cli");
+  SpectrumCommand c;
+  c.scenario = "default";
+  c.output = (dir / "out").string();
+  c.levels = 6;
+  std::ostringstream report;
+  run_spectrum(c, report);
+  check_cli_files(tables, dir / "out");
+  std::ostringstream task_report;
+  print_task_report(task_report, o);
+  CHECK(report.str().rfind(task_report.str(), 0) == 0);  // the CLI's report, then the "wrote" lines
+}
+
+TEST_CASE("issue 15: work_task gives the tables, summary and figures the command writes", "[tasks]") {
+  const fs::path dir = trapwork_test::scratch_dir("test-tasks", "work-cli");
+  std::ofstream(dir / "tasks.toml") << work_text;
+  const Scenario s = read_scenario((dir / "tasks.toml").string());
+  std::vector<std::string> stages;
+  int progress_calls = 0;
+  TaskHooks hooks;
+  hooks.stage = [&](const std::string& name) { stages.push_back(name); };
+  hooks.progress = [&](double f) {
+    ++progress_calls;
+    CHECK(f >= 0);
+    CHECK(f <= 1);
+  };
+  const WorkOutcome o = work_task(s, std::nullopt, default_search_budget, hooks);
+  REQUIRE(o.direct);
+  CHECK(!o.choice);
+  CHECK(!o.direct->request.progress);  // the outcome keeps no hook of its caller
+  REQUIRE(!stages.empty());
+  CHECK(stages.front() == "propagating");
+  CHECK(progress_calls > 0);
+  const auto tables = task_tables(o);
+  std::vector<std::string> names;
+  for (const auto& t : tables) names.push_back(t.file);
+  CHECK(names == std::vector<std::string>{"lines.csv", "histogram.csv", "density.csv", "transition.csv",
+                                          "reverse_lines.csv", "characteristic.csv"});
+  const auto figures = task_figures(o);
+  REQUIRE(figures.size() == 2);
+  CHECK(std::holds_alternative<LevelsFigure>(figures[0].figure));
+  CHECK(std::holds_alternative<WorkFigure>(figures[1].figure));
+  CHECK(task_summary(o)["command"] == "trapwork work");
+  check_files_are_the_outcome(o, "summary.json", "work");
+
+  WorkCommand c;
+  c.scenario = (dir / "tasks.toml").string();
+  c.output = (dir / "out").string();
+  std::ostringstream report, progress;
+  run_work_command(c, report, progress);
+  check_cli_files(tables, dir / "out");
+  CHECK(trapwork_test::read_all(dir / "out" / "summary.json").size() > 100);
+  std::ostringstream task_report;
+  print_task_report(task_report, o);
+  CHECK(report.str().rfind(task_report.str(), 0) == 0);
+}
+
+TEST_CASE("issue 15: work_task with a tolerance checks it and reports the choice", "[tasks]") {
+  const Scenario s = read_scenario_text(work_text, "tasks.toml");
+  CHECK_THROWS_AS(work_task(s, 2.0, default_search_budget), InputError);
+  CHECK_THROWS_AS(work_task(s, 1e-3, 0.5), InputError);
+}
+
+TEST_CASE("issue 15: an Interrupted thrown by the progress hook passes out of work_task", "[tasks]") {
+  const Scenario s = read_scenario_text(work_text, "tasks.toml");
+  std::atomic<int> calls{0};
+  CHECK_THROWS_AS(work_task(s, std::nullopt, default_search_budget, interrupting(calls, 3)), Interrupted);
+  CHECK(calls == 3);  // not called again once it threw
+  calls = 0;
+  CHECK_THROWS_AS(work_task(s, 1e-3, 20, interrupting(calls, 2)), Interrupted);
+  CHECK(calls == 2);
+}
+
+TEST_CASE("issue 15: sweep_task computes every point, its files are its tables", "[tasks]") {
+  const fs::path dir = trapwork_test::scratch_dir("test-tasks", "sweep-cli");
+  std::ofstream(dir / "sweep.toml") << work_text << "[sweep]\nparameter = \"protocol.duration\"\n"
+                                                    "values = [\"1.5 us\", \"0.6 us\"]\n";
+  const Scenario s = read_scenario((dir / "sweep.toml").string());
+  std::vector<std::size_t> reported;
+  SweepOptions options;
+  options.jobs = 2;
+  options.on_point = [&](std::size_t i, const SweepRow& row) {
+    reported.push_back(i);
+    CHECK(row.failure.empty());
+  };
+  double last = -1;
+  TaskHooks hooks;
+  hooks.progress = [&](double f) {
+    CHECK(f >= 0);
+    CHECK(f <= 1);
+    last = f;
+  };
+  const SweepOutcome o = sweep_task(s, options, hooks);
+  CHECK(last == 1.0);
+  REQUIRE(o.rows.size() == 2);
+  std::sort(reported.begin(), reported.end());
+  CHECK(reported == std::vector<std::size_t>{0, 1});
+  CHECK(o.jobs == 2);
+  CHECK(o.refusal.empty());
+  const auto summary = task_summary(o);
+  CHECK(summary["points"] == 2);
+  CHECK(summary["failed"] == 0);
+  CHECK(summary["parameter"] == "protocol.duration");
+  check_files_are_the_outcome(o, "sweep_summary.json", "sweep");
+
+  // The command line's sweep.csv has the same rows (and a comment line more: its --resume fingerprint).
+  SweepCommand c;
+  c.scenario = (dir / "sweep.toml").string();
+  c.output = (dir / "out").string();
+  c.jobs = 2;
+  std::ostringstream report, progress;
+  run_sweep_command(c, report, progress);
+  const auto tables = task_tables(o);
+  REQUIRE(tables.size() == 1);
+  std::istringstream cli(trapwork_test::read_all(dir / "out" / "sweep.csv"));
+  std::string cli_text;
+  for (std::string line; std::getline(cli, line);)
+    if (line.rfind("# scenario fingerprint ", 0) != 0) cli_text += line + "\n";
+  CHECK(cli_text == csv_text(tables[0].table));
+  CHECK(trapwork_test::csv_rows(cli_text).size() == 2);
+  // Only the points, a subset: todo.
+  options.todo = std::vector<std::size_t>{1};
+  reported.clear();
+  const SweepOutcome one = sweep_task(s, options);
+  REQUIRE(one.rows.size() == 1);
+  CHECK(one.rows[0].first == 1);
+  CHECK(reported == std::vector<std::size_t>{1});
+}
+
+TEST_CASE("issue 15: an Interrupted from the progress hook stops sweep_task, no point recorded as failed", "[tasks]") {
+  std::string text = work_text + "[sweep]\nparameter = \"protocol.duration\"\nvalues = [\"1.5 us\", \"0.6 us\", \"1.3 us\"]\n";
+  const Scenario s = read_scenario_text(text, "sweep.toml");
+  std::atomic<int> points{0}, failed{0};
+  SweepOptions options;
+  options.jobs = 2;
+  options.on_point = [&](std::size_t, const SweepRow& row) {
+    ++points;
+    failed += !row.failure.empty();
+  };
+  std::atomic<int> calls{0};
+  CHECK_THROWS_AS(sweep_task(s, options, interrupting(calls, 5)), Interrupted);
+  CHECK(calls >= 5);
+  CHECK(failed == 0);  // the interrupted points are not failed points
+  CHECK(points < 3);   // stopped before the end
+  const int after = points;
+  std::this_thread::sleep_for(std::chrono::milliseconds(200));
+  CHECK(points == after);  // no worker left running
+}
