@@ -494,3 +494,23 @@ def test_a_chosen_backend_is_kept_without_display(preset, expected):
     run = subprocess.run([sys.executable, "-c", BACKEND_PROBE], env=env, capture_output=True, text=True, timeout=120)
     assert run.returncode == 0, run.stderr
     assert run.stdout.strip().splitlines()[-1] == expected
+
+
+def test_module_sweep_figure_draws():
+    import trapwork
+    if not hasattr(getattr(trapwork, "_trapwork", None), "sweep"):
+        pytest.skip("the compiled module has no sweep yet")
+    s = trapwork.Scenario.from_file(EXAMPLES / "ion_sweep.toml").with_values(
+        {"sweep.points": 3, "sweep.to": "1.5 us"})
+    result = trapwork.sweep(s)
+    f = result.figures["sweep"]
+    fig = tplot.plot(result, "sweep")
+    main, lower = [a for a in fig.axes if a.axison]
+    (marks,) = by_gid(fig, "points_0")
+    assert np.allclose(marks.get_xdata(), f["points"][0]["x"]) and len(marks.get_xdata()) == 3
+    assert len(by_gid(fig, "curve_0")) == 1 and len(by_gid(fig, "curve_1")) == len(f["curves"]) - 1
+    (dep,) = by_gid(fig, "departure_0")
+    c = f["curves"][0]
+    assert np.allclose(dep.get_ydata(), f["points"][0]["y"] - np.interp(f["points"][0]["x"], c["x"], c["y"]))
+    # The closed form's label "2 m v^2 sin^2(#gw#gt/2) ..." arrives with its Greek letters.
+    assert any("sin^2(ωτ/2)" in t.get_text() for t in fig.findobj(matplotlib.text.Text))
