@@ -75,7 +75,7 @@ fig.savefig(output / "fit_residuals.png", dpi=120)
 # truncation errors in the scenario's energy unit.
 
 # %%
-durations_us = [0.4, 0.6, 0.8, 1.0, 1.2, 1.6, 2.0]
+durations_us = [0.4, 0.5, 0.6, 0.7, 0.8, 0.9, 1.0, 1.2, 1.4, 1.6, 1.8, 2.0]
 rows = []
 results = {}
 for tau in durations_us:
