@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 import trapwork
-from conftest import EXAMPLES, cli_ok, run_cli
+from conftest import EXAMPLES, assert_text_close, cli_ok, run_cli
 
 HERE = pathlib.Path(__file__).resolve().parent
 
@@ -294,3 +294,14 @@ def test_work_figures_are_plain_data(default_work):
     np.testing.assert_allclose(start["energies"][:3], trapwork.spectrum("default", levels=3).energies, rtol=1e-9)
     copy = pickle.loads(pickle.dumps(r))
     np.testing.assert_array_equal(copy.figures["work"]["result"]["work"], work["result"]["work"])
+
+
+def test_run_too_large_for_memory_is_refused_as_the_cli_does(tmp_path):
+    # refused before it allocates (PhysicsError, the CLI's message), not a MemoryError midway
+    with pytest.raises(trapwork.PhysicsError) as caught:
+        trapwork.spectrum(trapwork.Scenario.default(), levels=100000)
+    assert "refused before computing" in str(caught.value)
+    done = run_cli("spectrum", "default", "--levels", "100000", "-o", tmp_path / "out")
+    assert done.returncode == 2
+    # the memory available is read again by each run: same words, numbers within 5%
+    assert_text_close(f"trapwork: error: {caught.value}", done.stderr.strip(), "message", relative=0.05)

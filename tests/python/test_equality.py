@@ -35,24 +35,6 @@ def test_spectrum_equals_cli(name, in_tmp):
     assert result.states.shape == (len(result.energies), len(result.x_um))
 
 
-WORK_EXAMPLES = [n for n in example_scenarios() if has_tables(n, "protocol", "initial")]
-
-
-def test_work_examples_found():
-    # the examples with a [protocol] and an [initial] (what `trapwork work` runs) are found
-    assert "ion_translation.toml" in WORK_EXAMPLES and len(WORK_EXAMPLES) >= 5
-
-
-@pytest.mark.parametrize("name", WORK_EXAMPLES)
-def test_work_equals_cli(name, in_tmp):
-    done = cli_ok("work", EXAMPLES / name, "-o", in_tmp / "cli")
-    result = trapwork.work(trapwork.Scenario.from_file(EXAMPLES / name))
-    assert_result_equals_cli(result, in_tmp / "cli", done.stdout)
-    p = result.transitions
-    t = result.tables["transition"]
-    assert p[int(t["initial"][-1]), int(t["final"][-1])] == t["probability"][-1]
-
-
 def test_default_scenario_equals_demo(in_tmp):
     done = cli_ok("demo", "-o", in_tmp / "cli")
     result = trapwork.work(trapwork.Scenario.default())

@@ -461,15 +461,16 @@ class FitResult(Result):
 
     @property
     def scenario(self):
-        """The start scenario with the fitted coefficients (the text of fitted.toml)."""
-        return Scenario.from_text(self.files()["fitted.toml"].decode(), self._fitted_name)
-
-    _fitted_name = "fitted.toml"
+        """The start scenario with the fitted coefficients (the text of fitted.toml), a Scenario
+        named "fitted.toml"; ``trapwork.work(result.scenario)`` runs it when the start scenario
+        had [protocol] and [initial]."""
+        return Scenario.from_text(self.texts["fitted.toml"], "fitted.toml")
 
     @property
     def coefficients(self):
-        """The fitted coefficients as in fit_summary.json."""
-        return self.summary.get("coefficients", self.summary.get("fit", {}))
+        """The fitted coefficients: dict name -> dict (value, unit, uncertainty, scaled_uncertainty,
+        value_internal, uncertainty_internal), as in fit_summary.json."""
+        return {c["name"]: c for c in self.summary.get("coefficients", [])}
 
 
 class CompareResult(Result):
@@ -486,16 +487,18 @@ class CompareResult(Result):
 
 
 class PlanResult(Result):
-    """Result of :func:`plan`: the table ``plan``; ``summary`` is plan_summary.json;
-    ``runs_needed`` the runs needed per resolution for the target (with ``target``)."""
+    """Result of :func:`plan`: the table ``plan`` (and ``synthetic_work`` with synthetic runs);
+    ``summary`` is plan_summary.json; ``runs_needed`` the runs needed per resolution for the
+    target (with ``target``)."""
 
     _command = "plan"
     _main_table = "plan"
 
     @property
     def runs_needed(self):
-        """Runs needed for the target, per resolution, as in plan_summary.json (None without a target)."""
-        return self.summary.get("runs_needed")
+        """Runs needed for the target, one dict per resolution (resolution, runs, rms_error_kT,
+        ...), as in plan_summary.json; empty without a target."""
+        return self.summary.get("runs_needed", [])
 
 
 # ---- progress ------------------------------------------------------------------------------------
