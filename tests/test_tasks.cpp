@@ -88,6 +88,12 @@ void check_cli_files(const std::vector<NamedTable>& tables, const fs::path& fold
   }
 }
 
+std::string replace_first(std::string text, const std::string& from, const std::string& to) {
+  const auto at = text.find(from);
+  REQUIRE(at != std::string::npos);
+  return text.replace(at, from.size(), to);
+}
+
 // Hooks whose progress throws Interrupted on its `after`-th call.
 TaskHooks interrupting(std::atomic<int>& calls, int after) {
   TaskHooks h;
@@ -261,4 +267,87 @@ TEST_CASE("issue 15: an Interrupted from the progress hook stops sweep_task, no 
   const int after = points;
   std::this_thread::sleep_for(std::chrono::milliseconds(200));
   CHECK(points == after);  // no worker left running
+}
+
+namespace {
+const fs::path examples = fs::path(TRAPWORK_SOURCE_DIR) / "examples";
+}
+
+TEST_CASE("issue 15: fit_task gives the fitted scenario, table and summary the command writes", "[tasks]") {
+  FitSettings settings;
+  settings.data = (examples / "ion_spectroscopy_lines.csv").string();
+  settings.start_name = (examples / "ion_spectroscopy_start.toml").string();
+  settings.start_text = read_text_file(settings.start_name, "the scenario file");
+  bool checked = false;
+  const FitOutcome o = fit_task(settings, [&](const Scenario& start) {
+    checked = true;
+    CHECK(start.file == settings.start_name);
+  });
+  CHECK(checked);
+  CHECK(o.fit.free.size() == 2);  // frequency and quartic
+  const Scenario fitted = read_scenario_text(o.fitted_text, "fitted.toml");
+  CHECK(fitted.terms.size() == 1);
+  CHECK(task_figures(o).empty());
+  REQUIRE(task_texts(o).size() == 1);
+  CHECK(task_summary(o)["coefficients"].size() == 2);
+  check_files_are_the_outcome(o, "fit_summary.json", "fit");
+
+  const fs::path dir = trapwork_test::scratch_dir("test-tasks", "fit-cli");
+  FitCommand c;
+  c.data = settings.data;
+  c.start = settings.start_name;
+  c.output = (dir / "out").string();
+  std::ostringstream report;
+  const FitResultFiles files = run_fit_command(c, report);
+  check_cli_files(task_tables(o), dir / "out");
+  CHECK(trapwork_test::read_all(files.scenario) == o.fitted_text);
+  CHECK(trapwork_test::read_all(files.summary) == task_summary(o).dump(2) + "\n");
+  std::ostringstream task_report;
+  print_task_report(task_report, o);
+  CHECK(report.str().rfind(task_report.str(), 0) == 0);
+
+  // --mass and --frequency: a start scenario of one polynomial term; both are needed.
+  CHECK(read_scenario_text(fit_start_text("40 u", "1 MHz"), "start").terms.size() == 1);
+  CHECK_THROWS_AS(fit_start_text("40 u", ""), InputError);
+}
+
+TEST_CASE("issue 15: compare_task gives the table, summary and figure the command writes", "[tasks]") {
+  const Scenario s = read_scenario((examples / "ion_shuttle_model.toml").string());
+  CompareSettings settings;
+  settings.data = (examples / "ion_work_samples.csv").string();
+  settings.resamples = 200;
+  const CompareTaskOutcome o = compare_task(s, settings);
+  CHECK(o.comparison.runs == 400);
+  CHECK(o.sigma_source == settings.data);  // the data file's "# resolution:" line
+  CHECK(o.verdict.rfind("CONSISTENT", 0) == 0);
+  CHECK(o.observed.size() + 1 == o.edges.size());
+  const auto figures = task_figures(o);
+  REQUIRE(figures.size() == 1);
+  CHECK(std::holds_alternative<ComparisonFigure>(figures[0].figure));
+  CHECK(task_summary(o)["verdict"] == o.verdict);
+  check_files_are_the_outcome(o, "compare_summary.json", "compare");
+
+  const fs::path dir = trapwork_test::scratch_dir("test-tasks", "compare-cli");
+  CompareCommand c;
+  c.scenario = s.file;
+  c.data = settings.data;
+  c.resamples = settings.resamples;
+  c.output = (dir / "out").string();
+  std::ostringstream report;
+  const CompareOutcome cli = run_compare_command(c, report, report);
+  check_cli_files(task_tables(o), dir / "out");
+  CHECK(cli.verdict == o.verdict);
+  std::ostringstream task_report;
+  print_task_report(task_report, o);
+  CHECK(report.str().rfind(task_report.str(), 0) == 0);
+
+  // the data are read and the resolution chosen before `checked`; the model run may be interrupted
+  std::atomic<int> calls{0};
+  bool checked = false;
+  CHECK_THROWS_AS(compare_task(s, settings, interrupting(calls, 2), [&] { checked = true; }), Interrupted);
+  CHECK(checked);
+  settings.data = (examples / "missing.csv").string();
+  checked = false;
+  CHECK_THROWS_AS(compare_task(s, settings, {}, [&] { checked = true; }), InputError);
+  CHECK(!checked);
 }

@@ -112,6 +112,47 @@ std::shared_ptr<NativeResult> module_sweep(const std::string& text, const std::s
   return native_of(outcome, "sweep", scenario_inputs(outcome->scenario));
 }
 
+// The start scenario is `start_text` named `start_name`, or when that is empty the one made from
+// mass and frequency (named as the command line names it).
+std::shared_ptr<NativeResult> module_fit(const std::string& data, const std::string& start_text,
+                                         const std::string& start_name, const std::string& mass,
+                                         const std::string& frequency, const std::string& terms, py::object progress,
+                                         py::object notice) {
+  std::function<FitOutcome(const TaskHooks&)> task = [&](const TaskHooks&) {
+    (void)read_transition_lines(data);  // as the command line: its errors before the start scenario's
+    FitSettings settings;
+    settings.data = data;
+    settings.start_text = start_text.empty() ? fit_start_text(mass, frequency) : start_text;
+    settings.start_name = start_text.empty() ? "--mass " + mass + " --frequency " + frequency : start_name;
+    settings.terms = terms;
+    settings.fitted_name = "fitted.toml";
+    return fit_task(settings);
+  };
+  auto outcome = compute(task, progress, notice, "fit");
+  std::vector<OutputRun::Input> inputs;
+  if (!start_text.empty()) inputs = scenario_inputs(outcome->start);
+  inputs.push_back({data, "the data file"});
+  return native_of(outcome, "fit", inputs);
+}
+
+std::shared_ptr<NativeResult> module_compare(const std::string& text, const std::string& name, const std::string& data,
+                                             const std::string& resolution, int resamples, std::uint64_t seed,
+                                             double confidence, py::object progress, py::object notice) {
+  std::function<CompareTaskOutcome(const TaskHooks&)> task = [&](const TaskHooks& hooks) {
+    CompareSettings settings;
+    settings.data = data;
+    settings.resolution = resolution;
+    settings.resamples = resamples;
+    settings.seed = seed;
+    settings.confidence = confidence;
+    return compare_task(read_scenario_text(text, name), settings, hooks);
+  };
+  auto outcome = compute(task, progress, notice, "propagating");
+  auto inputs = scenario_inputs(outcome->scenario);
+  inputs.push_back({data, "the data file"});
+  return native_of(outcome, "compare", inputs);
+}
+
 // ---- scenarios --------------------------------------------------------------------------------
 
 // Reads a scenario file as the CLI does (same errors) and returns its text.
@@ -179,6 +220,10 @@ PYBIND11_MODULE(_trapwork, m) {
         py::arg("notice"));
   m.def("sweep", &module_sweep, py::arg("text"), py::arg("name"), py::arg("jobs"), py::arg("progress"),
         py::arg("notice"));
+  m.def("fit", &module_fit, py::arg("data"), py::arg("start_text"), py::arg("start_name"), py::arg("mass"),
+        py::arg("frequency"), py::arg("terms"), py::arg("progress"), py::arg("notice"));
+  m.def("compare", &module_compare, py::arg("text"), py::arg("name"), py::arg("data"), py::arg("resolution"),
+        py::arg("resamples"), py::arg("seed"), py::arg("confidence"), py::arg("progress"), py::arg("notice"));
   m.def("work", &module_work, py::arg("text"), py::arg("name"), py::arg("tolerance"), py::arg("search_budget"),
         py::arg("progress"), py::arg("notice"));
 }

@@ -140,6 +140,7 @@ struct FitSettings {  // (FitOptions is solver/fit.hpp's)
   std::string data;                         // transition lines file
   std::string start_text, start_name;       // start scenario text and its name (a file, or "default")
   std::string terms = "frequency,quartic";  // coefficients to fit
+  std::string fitted_name = "fitted.toml";  // the fitted scenario's name in messages
 };
 // The start scenario made from --mass and --frequency (one harmonic polynomial term).
 std::string fit_start_text(const std::string& mass, const std::string& frequency);
@@ -150,7 +151,12 @@ struct FitOutcome {
   TrapFit fit;
   std::string fitted_text;  // fitted.toml: the start scenario with the fitted coefficients
 };
-FitOutcome fit_task(const FitSettings& settings);
+// Reads the data and the start scenario (its one polynomial or harmonic term) and the terms,
+// calls `checked` with the start scenario (if set; the command line takes its output folder
+// there), fits (PhysicsError when the data cannot determine the terms) and writes the fitted
+// scenario's text, which must read back.
+FitOutcome fit_task(const FitSettings& settings, const std::function<void(const Scenario& start)>& checked = {});
+std::vector<std::string> fit_output_names();  // fitted.toml, fit_lines.csv, fit_summary.json
 
 // ---- compare -------------------------------------------------------------------------------
 struct CompareSettings {
@@ -168,13 +174,16 @@ struct CompareTaskOutcome {
   std::string sigma_source;  // "--resolution", the data file, "<scenario> [work] resolution", "none"
   WorkComparison comparison;
   std::string verdict;
-  std::vector<double> edges, observed, expected;  // the table's and figure's bins (internal energy)
+  std::vector<double> edges, observed, expected;  // the table's and figure's bins (internal energy), runs
+  // References into *this: keep the outcome in place while the run is used.
+  WorkRun run() const { return work.run(scenario); }
 };
 // Reads settings.data, chooses the resolution (InputError when none is given and the data need
 // one), then calls `checked` (if set; the command line takes its output folder there) and
 // computes the model and the comparison.
 CompareTaskOutcome compare_task(const Scenario& scenario, const CompareSettings& settings,
                                 const TaskHooks& hooks = {}, const std::function<void()>& checked = {});
+std::vector<std::string> compare_output_names();  // compare.csv, compare_summary.json, compare.png, compare.svg
 
 // ---- plan ----------------------------------------------------------------------------------
 struct PlanSettings {
@@ -202,6 +211,7 @@ struct PlanTaskOutcome {
 // calls `checked` (if set), then computes the model, the estimator table and runs_needed.
 PlanTaskOutcome plan_task(const Scenario& scenario, const PlanSettings& settings, const TaskHooks& hooks = {},
                           const std::function<void()>& checked = {});
+std::vector<std::string> plan_output_names();  // plan.csv, plan_summary.json, plan.png/.svg, synthetic_work.csv
 
 // ---- outputs of every outcome ----------------------------------------------------------------
 // task_tables: the CSV files' tables, in file order; task_summary: the summary JSON file's
@@ -237,5 +247,30 @@ std::vector<NamedText> task_texts(const SweepOutcome& outcome);
 std::vector<NamedFigure> task_figures(const SweepOutcome& outcome);
 std::vector<std::filesystem::path> write_task_outputs(const std::filesystem::path& folder, const SweepOutcome& outcome);
 void print_task_report(std::ostream& out, const SweepOutcome& outcome);
+
+// fit: fitted.toml (a text), fit_lines.csv, fit_summary.json; no figure.
+std::vector<NamedTable> task_tables(const FitOutcome& outcome);
+nlohmann::ordered_json task_summary(const FitOutcome& outcome);
+std::vector<NamedText> task_texts(const FitOutcome& outcome);
+std::vector<NamedFigure> task_figures(const FitOutcome& outcome);
+std::vector<std::filesystem::path> write_task_outputs(const std::filesystem::path& folder, const FitOutcome& outcome);
+void print_task_report(std::ostream& out, const FitOutcome& outcome);
+
+// compare: compare.csv, compare_summary.json, compare.png/.svg.
+std::vector<NamedTable> task_tables(const CompareTaskOutcome& outcome);
+nlohmann::ordered_json task_summary(const CompareTaskOutcome& outcome);
+std::vector<NamedText> task_texts(const CompareTaskOutcome& outcome);
+std::vector<NamedFigure> task_figures(const CompareTaskOutcome& outcome);
+std::vector<std::filesystem::path> write_task_outputs(const std::filesystem::path& folder,
+                                                      const CompareTaskOutcome& outcome);
+void print_task_report(std::ostream& out, const CompareTaskOutcome& outcome);
+
+// plan: plan.csv, plan_summary.json, plan.png/.svg, then synthetic_work.csv (a text) with synthetic runs.
+std::vector<NamedTable> task_tables(const PlanTaskOutcome& outcome);
+nlohmann::ordered_json task_summary(const PlanTaskOutcome& outcome);
+std::vector<NamedText> task_texts(const PlanTaskOutcome& outcome);
+std::vector<NamedFigure> task_figures(const PlanTaskOutcome& outcome);
+std::vector<std::filesystem::path> write_task_outputs(const std::filesystem::path& folder, const PlanTaskOutcome& outcome);
+void print_task_report(std::ostream& out, const PlanTaskOutcome& outcome);
 
 }  // namespace trapwork

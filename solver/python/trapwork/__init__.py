@@ -636,8 +636,6 @@ def sweep(scenario, jobs=None, progress=None):
     Raises InputError (no [sweep], bad values), MemoryError; KeyboardInterrupt after Ctrl-C (the
     workers are stopped and joined first).
     """
-    if not hasattr(_trapwork, "sweep"):
-        raise NotImplementedError("sweep needs the task layer (solver/scenario/tasks.hpp), not built into this module")
     s = _scenario(scenario)
     return SweepResult(_run(_trapwork.sweep, s.text, s.name, 0 if jobs is None else int(jobs), progress=progress), s)
 
@@ -657,17 +655,15 @@ def fit(data, start=None, mass=None, frequency=None, terms="frequency,quartic", 
     Raises InputError (bad data file with file and line, bad arguments), PhysicsError (data
     that cannot determine the coefficients).
     """
-    if not hasattr(_trapwork, "fit"):
-        raise NotImplementedError("fit needs the task layer (solver/scenario/tasks.hpp), not built into this module")
     if start is not None:
         s = _scenario(start)
         start_text, start_name = s.text, s.name
+    elif mass is None or frequency is None:
+        raise InputError("fit: give start (a Scenario or scenario file), or mass and frequency (\"40 u\", \"1 MHz\")")
     else:
-        if mass is None or frequency is None:
-            raise InputError("fit: give start=Scenario, or mass and frequency (\"40 u\", \"1 MHz\")")
-        start_text, start_name = _trapwork.fit_start_text(str(mass), str(frequency)), "default"
-    r = FitResult(_run(_trapwork.fit, os.fspath(data), start_text, start_name, str(terms), progress=progress))
-    return r
+        start_text, start_name = "", ""
+    return FitResult(_run(_trapwork.fit, os.fspath(data), start_text, start_name, "" if mass is None else str(mass),
+                          "" if frequency is None else str(frequency), str(terms), progress=progress))
 
 
 def compare(scenario, data, resolution=None, resamples=2000, seed=1, confidence=0.9, progress=None):
@@ -686,8 +682,6 @@ def compare(scenario, data, resolution=None, resamples=2000, seed=1, confidence=
 
     Raises InputError, PhysicsError; KeyboardInterrupt after Ctrl-C.
     """
-    if not hasattr(_trapwork, "compare"):
-        raise NotImplementedError("compare needs the task layer (solver/scenario/tasks.hpp), not built into this module")
     s = _scenario(scenario)
     return CompareResult(_run(_trapwork.compare, s.text, s.name, os.fspath(data),
                               "" if resolution is None else str(resolution), int(resamples), int(seed),
