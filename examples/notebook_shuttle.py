@@ -62,8 +62,8 @@ model = calibration.scenario
 lines = calibration.tables["fit_lines"]
 fig, ax = plt.subplots(figsize=(7, 3.5), layout="constrained")
 ax.axhline(0, color="0.5", linewidth=1)
-ax.plot(np.arange(len(lines["residual_sigma"])), lines["residual_sigma"], "o")
-ax.set_xlabel("transition (data row)")
+ax.plot(lines["line"], lines["residual_sigma"], "o")
+ax.set_xlabel("transition (line of the data file)")
 ax.set_ylabel("residual (measured - model) / uncertainty")
 ax.set_title("trap calibration: residuals of the fit")
 fig.savefig(output / "fit_residuals.png", dpi=120)
