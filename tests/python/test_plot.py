@@ -514,3 +514,24 @@ def test_module_sweep_figure_draws():
     assert np.allclose(dep.get_ydata(), f["points"][0]["y"] - np.interp(f["points"][0]["x"], c["x"], c["y"]))
     # The closed form's label "2 m v^2 sin^2(#gw#gt/2) ..." arrives with its Greek letters.
     assert any("sin^2(ωτ/2)" in t.get_text() for t in fig.findobj(matplotlib.text.Text))
+
+
+def test_module_comparison_figure_draws():
+    import trapwork
+    if not hasattr(getattr(trapwork, "_trapwork", None), "compare"):
+        pytest.skip("the compiled module has no compare yet")
+    result = trapwork.compare(trapwork.Scenario.from_file(EXAMPLES / "ion_shuttle_model.toml"),
+                              str(EXAMPLES / "ion_work_samples.csv"))
+    (stem,) = result.figures
+    f = result.figures[stem]
+    fig = tplot.plot(result, stem)
+    main, lower = [a for a in fig.axes if a.axison]
+    table = result.tables["compare"]
+    used = np.asarray(table["expected_runs"]) >= 1
+    (pulls,) = by_gid(fig, "pulls")
+    assert np.allclose(pulls.get_ydata(), np.asarray(table["pull"])[used])
+    (curve,) = by_gid(fig, "curve")  # the model's smooth curve, not cut at the top
+    assert len(curve.get_ydata()) == len(f["curve"]) > 0
+    assert max(curve.get_ydata()) < main.get_ylim()[1]
+    assert by_gid(fig, "model_mean")[0].get_xdata()[0] == pytest.approx(f["model_mean"])
+    assert by_gid(fig, "data_mean")[0].get_xdata()[0] == pytest.approx(f["data_mean"])
