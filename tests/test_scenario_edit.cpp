@@ -1,13 +1,12 @@
 // Scenario edits (solver/scenario/scenario_edit.hpp), issue 15: values changed in the TOML text
 // in place, checked through what read_scenario_text makes of the result (internal units) and
 // through the lines that must stay byte-identical; scenarios written from JSON.
-#include <catch2/catch.hpp>
+#include <toml++/toml.h>
 
+#include <catch2/catch.hpp>
 #include <cmath>
 #include <fstream>
 #include <sstream>
-
-#include <toml++/toml.h>
 
 #include "solver/errors.hpp"
 #include "solver/scenario/scenario.hpp"
@@ -88,18 +87,23 @@ double internal(const Scenario& s, const std::string& text, Dimension d) {
 
 }  // namespace
 
-TEST_CASE("issue 15: table.key values of the built-in scenario are replaced on their own lines", "[scenario_edit]") {
+TEST_CASE("issue 15: table.key values of the built-in scenario are replaced on their own lines",
+          "[scenario_edit]") {
   const std::string text(default_scenario_text());
   const std::size_t duration = line_of(text, "duration"), levels = line_of(text, "levels"),
                     mass = line_of(text, "mass"), phonons = line_of(text, "mean_phonons");
-  const std::string edited = scenario_text_with_values(
-      text, "default",
-      {{"protocol.duration", "3 us"}, {"spectrum.levels", 25}, {"particle.mass", "24 u"}, {"initial.mean_phonons", 0.5}});
+  const std::string edited = scenario_text_with_values(text, "default",
+                                                       {{"protocol.duration", "3 us"},
+                                                        {"spectrum.levels", 25},
+                                                        {"particle.mass", "24 u"},
+                                                        {"initial.mean_phonons", 0.5}});
   const auto lines = changed_in_place(text, edited, {duration, levels, mass, phonons});
-  CHECK(lines == std::vector<std::string>{"mass = \"24 u\"", "levels = 25", "duration = \"3 us\"", "mean_phonons = 0.5"});
+  CHECK(lines == std::vector<std::string>{"mass = \"24 u\"", "levels = 25", "duration = \"3 us\"",
+                                          "mean_phonons = 0.5"});
 
   const Scenario s = read_scenario_text(edited, "default");
-  CHECK(s.units.mass_kg == Approx(24 * 1.66053906660e-27).epsilon(1e-9));  // atomic mass constant, CODATA 2018
+  CHECK(s.units.mass_kg ==
+        Approx(24 * 1.66053906660e-27).epsilon(1e-9));  // atomic mass constant, CODATA 2018
   REQUIRE(s.protocol);
   CHECK(s.protocol->duration == Approx(3e-6 / s.units.time_s()).epsilon(1e-12));
   CHECK(s.spectrum.options.levels == 25);
@@ -117,7 +121,8 @@ TEST_CASE("issue 15: term parameters by name and by number, and change keys", "[
         text, "default", {{"trap.quartic", "0.02 h*Hz/nm^4"}, {"potential[1].frequency", "1.2 MHz"}});
     changed_in_place(text, edited, {frequency, quartic});
     const Scenario s = read_scenario_text(edited, "default");
-    CHECK(s.potential.parameter("trap.frequency") == Approx(2 * M_PI * 1.2e6 * s.units.time_s()).epsilon(1e-12));
+    CHECK(s.potential.parameter("trap.frequency") ==
+          Approx(2 * M_PI * 1.2e6 * s.units.time_s()).epsilon(1e-12));
     CHECK(s.potential.parameter("trap.quartic") ==
           Approx(internal(s, "0.02 h*Hz/nm^4", Dimension::energy_per_length(4))).epsilon(1e-12));
     CHECK(s.potential.parameter("trap.quartic") != 0);
@@ -129,11 +134,12 @@ TEST_CASE("issue 15: term parameters by name and by number, and change keys", "[
     const std::string edited = scenario_text_with_values(renamed, "default", {{"work.frequency", "2 MHz"}});
     changed_in_place(renamed, edited, {frequency});
     const Scenario s = read_scenario_text(edited, "default");
-    CHECK(s.potential.parameter("work.frequency") == Approx(2 * M_PI * 2e6 * s.units.time_s()).epsilon(1e-12));
+    CHECK(s.potential.parameter("work.frequency") ==
+          Approx(2 * M_PI * 2e6 * s.units.time_s()).epsilon(1e-12));
   }
   SECTION("change[1].to and protocol.change[1].ramp") {
-    const std::string edited =
-        scenario_text_with_values(text, "default", {{"change[1].to", "200 nm"}, {"protocol.change[1].ramp", "smooth"}});
+    const std::string edited = scenario_text_with_values(
+        text, "default", {{"change[1].to", "200 nm"}, {"protocol.change[1].ramp", "smooth"}});
     changed_in_place(text, edited, {to, ramp});
     const Scenario s = read_scenario_text(edited, "default");
     REQUIRE(s.protocol->changes.size() == 1);
@@ -141,7 +147,8 @@ TEST_CASE("issue 15: term parameters by name and by number, and change keys", "[
     CHECK(s.protocol->changes[0].form == ScheduleForm::smooth_step);
   }
   SECTION("protocol.change[1].to, the same key by its full address") {
-    const std::string edited = scenario_text_with_values(text, "default", {{"protocol.change[1].to", "-80 nm"}});
+    const std::string edited =
+        scenario_text_with_values(text, "default", {{"protocol.change[1].to", "-80 nm"}});
     CHECK(changed_in_place(text, edited, {to}) == std::vector<std::string>{"to = \"-80 nm\""});
     CHECK(read_scenario_text(edited, "default").protocol->changes[0].to ==
           Approx(-80e-9 / read_scenario_text(edited, "default").units.length_m).epsilon(1e-12));
@@ -161,8 +168,8 @@ TEST_CASE("issue 15: the examples' box walls, sweep values and exclusive [initia
     const std::string text = example("ion_sweep.toml");
     const std::size_t from = line_of(text, "from"), to = from + 1, points = line_of(text, "points");
     REQUIRE(lines_of(text)[to - 1] == "to = \"6 us\"");
-    const std::string edited =
-        scenario_text_with_values(text, "ion_sweep.toml", {{"sweep.values", Json::array({"1 us", "2.5 us"})}});
+    const std::string edited = scenario_text_with_values(text, "ion_sweep.toml",
+                                                         {{"sweep.values", Json::array({"1 us", "2.5 us"})}});
     CHECK(changed_in_place(text, edited, {from, to, points}) ==
           std::vector<std::string>{"values = [\"1 us\", \"2.5 us\"]", "", ""});
     const Scenario s = read_scenario_text(edited, "ion_sweep.toml");
@@ -172,7 +179,8 @@ TEST_CASE("issue 15: the examples' box walls, sweep values and exclusive [initia
   }
   SECTION("initial.mean_phonons replaces temperature on its line") {
     const std::string text = example("ion_translation.toml");
-    const std::string edited = scenario_text_with_values(text, "ion_translation.toml", {{"initial.mean_phonons", 2}});
+    const std::string edited =
+        scenario_text_with_values(text, "ion_translation.toml", {{"initial.mean_phonons", 2}});
     CHECK(changed_in_place(text, edited, {line_of(text, "temperature")}) ==
           std::vector<std::string>{"mean_phonons = 2"});
     const Scenario s = read_scenario_text(edited, "ion_translation.toml");
@@ -180,9 +188,10 @@ TEST_CASE("issue 15: the examples' box walls, sweep values and exclusive [initia
     CHECK(s.work->request.initial.parameter() == 2);
   }
   SECTION("initial.level on a multi-line weights array, then the array replaced whole") {
-    const std::string text = std::string(default_scenario_text()).replace(
-        std::string(default_scenario_text()).find("mean_phonons = 2"), 16,
-        "weights = [\n  0.5,\n  0.5,\n]  # two levels\n[work]\nsteps = 300");
+    const std::string text =
+        std::string(default_scenario_text())
+            .replace(std::string(default_scenario_text()).find("mean_phonons = 2"), 16,
+                     "weights = [\n  0.5,\n  0.5,\n]  # two levels\n[work]\nsteps = 300");
     const std::size_t weights = line_of(text, "weights");
     REQUIRE(read_scenario_text(text, "w.toml").work->request.initial.kind() == InitialState::Kind::mixture);
     const std::string level = scenario_text_with_values(text, "w.toml", {{"initial.level", 1}});
@@ -193,18 +202,22 @@ TEST_CASE("issue 15: the examples' box walls, sweep values and exclusive [initia
     CHECK(s.work->request.initial.level() == 1);
     CHECK(s.work->request.steps == 300);
 
-    const std::string mixed = scenario_text_with_values(text, "w.toml", {{"initial.weights", Json::array({0.25, 0.75})}});
+    const std::string mixed =
+        scenario_text_with_values(text, "w.toml", {{"initial.weights", Json::array({0.25, 0.75})}});
     CHECK(changed_in_place(text, mixed, {weights, weights + 1, weights + 2, weights + 3}) ==
           std::vector<std::string>{"weights = [0.25, 0.75]", "", "", "  # two levels"});
-    CHECK(read_scenario_text(mixed, "w.toml").work->request.initial.mixture_weights() == std::vector<double>{0.25, 0.75});
+    CHECK(read_scenario_text(mixed, "w.toml").work->request.initial.mixture_weights() ==
+          std::vector<double>{0.25, 0.75});
   }
   SECTION("two exclusive keys at once are refused") {
-    const InputError e = edit_error(example("ion_translation.toml"), {{"initial.level", 0}, {"initial.temperature", "1 uK"}});
+    const InputError e =
+        edit_error(example("ion_translation.toml"), {{"initial.level", 0}, {"initial.temperature", "1 uK"}});
     CHECK(std::string(e.what()).find("not together with initial.") != std::string::npos);
   }
 }
 
-TEST_CASE("issue 15: a missing key is inserted after its table's last key, a missing table appended", "[scenario_edit]") {
+TEST_CASE("issue 15: a missing key is inserted after its table's last key, a missing table appended",
+          "[scenario_edit]") {
   SECTION("a key of an existing [work]") {
     const std::string text = example("tweezer_deform.toml");
     const std::string edited = scenario_text_with_values(text, "tweezer_deform.toml", {{"work.steps", 500}});
@@ -215,7 +228,8 @@ TEST_CASE("issue 15: a missing key is inserted after its table's last key, a mis
   }
   SECTION("a parameter missing from its [[potential]] table goes before the next header") {
     const std::string text(default_scenario_text());
-    const std::string edited = scenario_text_with_values(text, "default", {{"trap.cubic", "-0.05 h*Hz/nm^3"}});
+    const std::string edited =
+        scenario_text_with_values(text, "default", {{"trap.cubic", "-0.05 h*Hz/nm^3"}});
     CHECK(inserted_after(text, edited, line_of(text, "quartic")) == "cubic = \"-0.05 h*Hz/nm^3\"");
     const Scenario s = read_scenario_text(edited, "default");
     CHECK(s.potential.parameter("trap.cubic") ==
@@ -229,7 +243,8 @@ TEST_CASE("issue 15: a missing key is inserted after its table's last key, a mis
     const auto a = lines_of(text), b = lines_of(edited);
     REQUIRE(b.size() > a.size());
     CHECK(std::equal(a.begin(), a.end(), b.begin()));
-    CHECK(edited.substr(text.size()) == "\n[grid]\npoints = 512\n\n[work]\nsteps = 400\nthermal_tolerance = 1e-08\n");
+    CHECK(edited.substr(text.size()) ==
+          "\n[grid]\npoints = 512\n\n[work]\nsteps = 400\nthermal_tolerance = 1e-08\n");
     const Scenario s = read_scenario_text(edited, "ion_translation.toml");
     CHECK(s.work->request.steps == 400);
     CHECK(s.work->request.thermal_tolerance == 1e-8);  // shortest round-trip text reads back exactly
@@ -269,7 +284,8 @@ k = 2.5
   }
 }
 
-TEST_CASE("issue 15: unknown addresses name the address and value and suggest the closest", "[scenario_edit]") {
+TEST_CASE("issue 15: unknown addresses name the address and value and suggest the closest",
+          "[scenario_edit]") {
   const std::string text(default_scenario_text());
   const InputError misspelt = edit_error(text, {{"trapp.quartic", "1 h*Hz/nm^4"}});
   CHECK(misspelt.key == "trapp.quartic");
@@ -299,7 +315,8 @@ TEST_CASE("issue 15: unknown addresses name the address and value and suggest th
   CHECK(edit_error(text, {{"trap[1].frequency", "1 MHz"}}).key == "trap[1].frequency");
 }
 
-TEST_CASE("issue 15: an invalid value is refused by the reader at its line of the user's file", "[scenario_edit]") {
+TEST_CASE("issue 15: an invalid value is refused by the reader at its line of the user's file",
+          "[scenario_edit]") {
   const std::string text = example("ion_translation.toml");
   const std::string edited = scenario_text_with_values(text, "ion_translation.toml",
                                                        {{"trap.frequency", "-1 MHz"}, {"work.steps", 100}});
@@ -313,7 +330,8 @@ TEST_CASE("issue 15: an invalid value is refused by the reader at its line of th
     CHECK(e.found == "\"-1 MHz\"");
   }
   // A float where the reader wants a whole number stays a float (JSON 256.0 is not 256).
-  const std::string points = scenario_text_with_values(text, "ion_translation.toml", {{"grid.points", 256.0}});
+  const std::string points =
+      scenario_text_with_values(text, "ion_translation.toml", {{"grid.points", 256.0}});
   CHECK(points.find("points = 256.0") != std::string::npos);
   CHECK_THROWS_AS(read_scenario_text(points, "ion_translation.toml"), InputError);
 }
@@ -322,9 +340,14 @@ TEST_CASE("issue 15: scenario_text_from_json reads to the same scenario as the f
   // examples/ion_translation.toml as JSON, keys in another order than the file.
   const Json json = {
       {"initial", {{"temperature", "20 uK"}}},
-      {"protocol", {{"duration", "1.6 us"}, {"change", Json::array({{{"parameter", "trap.centre"}, {"ramp", "smooth"}, {"to", "50 nm"}}})}}},
-      {"potential", Json::array({{{"name", "trap"}, {"shape", "polynomial"}, {"frequency", "1.5 MHz"},
-                                  {"cubic", "-0.05 h*Hz/nm^3"}, {"quartic", "0.01 h*Hz/nm^4"}}})},
+      {"protocol",
+       {{"duration", "1.6 us"},
+        {"change", Json::array({{{"parameter", "trap.centre"}, {"ramp", "smooth"}, {"to", "50 nm"}}})}}},
+      {"potential", Json::array({{{"name", "trap"},
+                                  {"shape", "polynomial"},
+                                  {"frequency", "1.5 MHz"},
+                                  {"cubic", "-0.05 h*Hz/nm^3"},
+                                  {"quartic", "0.01 h*Hz/nm^4"}}})},
       {"units", {{"energy", "h*kHz"}}},
       {"particle", {{"mass", "24 u"}}},
       {"title", "24 u ion, 1.5 MHz trap, smooth 50 nm shuttle in 1.6 us at 20 uK"}};
@@ -360,12 +383,15 @@ TEST_CASE("issue 15: scenario_text_from_json reads to the same scenario as the f
 }
 
 TEST_CASE("issue 15: scenario_text_from_json writes sub-tables and refuses null", "[scenario_edit]") {
-  const Json json = {
-      {"particle", {{"mass", "40 u"}}},
-      {"units", {{"reference_frequency", "1 MHz"}}},
-      {"potential", Json::array({{{"name", "written"}, {"shape", "formula"}, {"expression", "0.5*k*x^2"},
-                                  {"x_unit", "um"}, {"energy_unit", "h*kHz"}, {"parameters", {{"k", 2.5}}}}})},
-      {"spectrum", {{"levels", 8}}}};
+  const Json json = {{"particle", {{"mass", "40 u"}}},
+                     {"units", {{"reference_frequency", "1 MHz"}}},
+                     {"potential", Json::array({{{"name", "written"},
+                                                 {"shape", "formula"},
+                                                 {"expression", "0.5*k*x^2"},
+                                                 {"x_unit", "um"},
+                                                 {"energy_unit", "h*kHz"},
+                                                 {"parameters", {{"k", 2.5}}}}})},
+                     {"spectrum", {{"levels", 8}}}};
   const std::string text = scenario_text_from_json(json);
   CHECK(text.find("[potential.parameters]\nk = 2.5\n") != std::string::npos);
   const Scenario s = read_scenario_text(text, "json");
@@ -395,8 +421,8 @@ TEST_CASE("issue 15: edits in sub-tables, dotted keys, CRLF lines and a text wit
           "[scenario_edit]") {
   SECTION("a missing sub-table becomes a dotted key of its table") {
     const std::string text = example("box_expansion.toml");
-    const std::string widths =
-        scenario_text_with_values(text, "box_expansion.toml", {{"box.soft_walls.widths", Json::array({"0.1 um"})}});
+    const std::string widths = scenario_text_with_values(
+        text, "box_expansion.toml", {{"box.soft_walls.widths", Json::array({"0.1 um"})}});
     CHECK(inserted_after(text, widths, line_of(text, "right")) == "soft_walls.widths = [\"0.1 um\"]");
     const std::string edited =
         scenario_text_with_values(widths, "box_expansion.toml", {{"box.soft_walls.height", "100 kB*nK"}});
@@ -405,19 +431,21 @@ TEST_CASE("issue 15: edits in sub-tables, dotted keys, CRLF lines and a text wit
     REQUIRE(s.soft_walls);
     REQUIRE(s.soft_widths_given == std::vector<std::string>{"0.1 um"});
     // ... and is then edited in place through the same address.
-    const std::string again =
-        scenario_text_with_values(edited, "box_expansion.toml", {{"box.soft_walls.widths", Json::array({"0.2 um"})}});
+    const std::string again = scenario_text_with_values(edited, "box_expansion.toml",
+                                                        {{"box.soft_walls.widths", Json::array({"0.2 um"})}});
     changed_in_place(edited, again, {line_of(text, "right") + 1});
-    CHECK(read_scenario_text(again, "box_expansion.toml").soft_widths_given == std::vector<std::string>{"0.2 um"});
+    CHECK(read_scenario_text(again, "box_expansion.toml").soft_widths_given ==
+          std::vector<std::string>{"0.2 um"});
   }
   SECTION("a table made by a deeper header is opened at the end; one made by dotted keys gets a dotted key") {
-    const std::string text = example("box_expansion.toml"), walls = "[box]\nleft = \"0 um\"\nright = \"10 um\"\n";
+    const std::string text = example("box_expansion.toml"),
+                      walls = "[box]\nleft = \"0 um\"\nright = \"10 um\"\n";
     const std::size_t box = text.find(walls);
     REQUIRE(box != std::string::npos);
-    const std::string header =
-        std::string(text).replace(box, walls.size(), "[box.soft_walls]\nwidths = [\"0.1 um\"]\nheight = \"100 kB*nK\"\n");
-    const std::string opened = scenario_text_with_values(
-        header, "b.toml", {{"box.left", "0 um"}, {"box.right", "10 um"}});
+    const std::string header = std::string(text).replace(
+        box, walls.size(), "[box.soft_walls]\nwidths = [\"0.1 um\"]\nheight = \"100 kB*nK\"\n");
+    const std::string opened =
+        scenario_text_with_values(header, "b.toml", {{"box.left", "0 um"}, {"box.right", "10 um"}});
     CHECK(opened.substr(header.size()) == "\n[box]\nleft = \"0 um\"\nright = \"10 um\"\n");
     CHECK(read_scenario_text(opened, "b.toml").spectrum.box->second ==
           read_scenario_text(text, "b.toml").spectrum.box->second);
@@ -429,8 +457,10 @@ TEST_CASE("issue 15: edits in sub-tables, dotted keys, CRLF lines and a text wit
           read_scenario_text(text, "b.toml").spectrum.box->second);
   }
   SECTION("an inline table: its values replaced, no key added") {
-    const std::string text = std::string(default_scenario_text()) + "[box]\nsoft_walls = {widths = [\"1 nm\"]}\n";
-    const std::string edited = scenario_text_with_values(text, "i.toml", {{"box.soft_walls.widths", Json::array({"2 nm"})}});
+    const std::string text =
+        std::string(default_scenario_text()) + "[box]\nsoft_walls = {widths = [\"1 nm\"]}\n";
+    const std::string edited =
+        scenario_text_with_values(text, "i.toml", {{"box.soft_walls.widths", Json::array({"2 nm"})}});
     const std::string last = "\nsoft_walls = {widths = [\"2 nm\"]}\n";
     CHECK(edited.substr(edited.size() - last.size()) == last);
     const InputError e = edit_error(text, {{"box.soft_walls.height", "1 h*kHz"}});
@@ -440,15 +470,18 @@ TEST_CASE("issue 15: edits in sub-tables, dotted keys, CRLF lines and a text wit
   SECTION("CRLF line ends and a missing last line break") {
     std::string crlf;
     for (const auto& line : lines_of(example("ion_translation.toml"))) crlf += line + "\r\n";
-    const std::string edited = scenario_text_with_values(crlf, "c.toml", {{"trap.frequency", "2 MHz"}, {"initial.level", 0}});
+    const std::string edited =
+        scenario_text_with_values(crlf, "c.toml", {{"trap.frequency", "2 MHz"}, {"initial.level", 0}});
     const Scenario s = read_scenario_text(edited, "c.toml");
-    CHECK(s.potential.parameter("trap.frequency") == Approx(2 * M_PI * 2e6 * s.units.time_s()).epsilon(1e-12));
+    CHECK(s.potential.parameter("trap.frequency") ==
+          Approx(2 * M_PI * 2e6 * s.units.time_s()).epsilon(1e-12));
     CHECK(s.work->request.initial.kind() == InitialState::Kind::eigenstate);
     CHECK(lines_of(edited).size() == lines_of(crlf).size());
 
     std::string text(default_scenario_text());
     text.pop_back();
-    const std::string appended = scenario_text_with_values(text, "n.toml", {{"initial.level", 1}, {"work.steps", 200}});
+    const std::string appended =
+        scenario_text_with_values(text, "n.toml", {{"initial.level", 1}, {"work.steps", 200}});
     CHECK(appended.substr(text.size() - 16) == "level = 1\n\n[work]\nsteps = 200\n");
     CHECK(read_scenario_text(appended, "n.toml").work->request.steps == 200);
   }
@@ -468,7 +501,8 @@ Json json_of(const toml::node& n) {
 }
 
 // Every value of a table with its address, array tables numbered from 1.
-void values_of(const toml::table& t, const std::string& prefix, std::vector<std::pair<std::string, const toml::node*>>& out) {
+void values_of(const toml::table& t, const std::string& prefix,
+               std::vector<std::pair<std::string, const toml::node*>>& out) {
   for (const auto& [k, v] : t) {
     const std::string name = prefix + std::string(k.str());
     if (const auto* sub = v.as_table())
@@ -483,14 +517,15 @@ void values_of(const toml::table& t, const std::string& prefix, std::vector<std:
 
 }  // namespace
 
-TEST_CASE("issue 15: every value of every example set to itself by each of its addresses", "[scenario_edit]") {
+TEST_CASE("issue 15: every value of every example set to itself by each of its addresses",
+          "[scenario_edit]") {
   // Setting a value to what it is must give a text that parses to the same TOML document with the
   // same lines; strings, integers and bools are written back byte for byte.
   const std::string folder = std::string(TRAPWORK_SOURCE_DIR) + "/examples/";
-  for (const auto& name : {"box_barrier.toml", "box_expansion.toml", "double_well.toml", "ion_quartic.toml",
-                           "ion_shuttle_model.toml", "ion_spectroscopy_start.toml", "ion_squeeze.toml",
-                           "ion_sweep.toml", "ion_translation.toml", "tabulated_trap.toml", "tweezer_deform.toml",
-                           "tweezer_gaussian.toml"}) {
+  for (const auto& name :
+       {"box_barrier.toml", "box_expansion.toml", "double_well.toml", "ion_quartic.toml",
+        "ion_shuttle_model.toml", "ion_spectroscopy_start.toml", "ion_squeeze.toml", "ion_sweep.toml",
+        "ion_translation.toml", "tabulated_trap.toml", "tweezer_deform.toml", "tweezer_gaussian.toml"}) {
     const std::string text = example(name);
     const toml::table root = toml::parse(text);
     std::vector<std::pair<std::string, const toml::node*>> values;
@@ -501,7 +536,8 @@ TEST_CASE("issue 15: every value of every example set to itself by each of its a
       const std::string address = values[i].first;
       if (address.rfind("potential[", 0) == 0) {
         const std::size_t close = address.find("].");
-        const toml::table& term = *root["potential"].as_array()->at(std::stoul(address.substr(10)) - 1).as_table();
+        const toml::table& term =
+            *root["potential"].as_array()->at(std::stoul(address.substr(10)) - 1).as_table();
         if (const auto* term_name = term.get_as<std::string>("name"))
           values.emplace_back(term_name->get() + address.substr(close + 1), values[i].second);
       }

@@ -351,3 +351,54 @@ TEST_CASE("issue 15: compare_task gives the table, summary and figure the comman
   CHECK_THROWS_AS(compare_task(s, settings, {}, [&] { checked = true; }), InputError);
   CHECK(!checked);
 }
+
+TEST_CASE("issue 15: plan_task gives the table, summary, figure and synthetic runs the command writes", "[tasks]") {
+  const fs::path dir = trapwork_test::scratch_dir("test-tasks", "plan-cli");
+  std::ofstream(dir / "tasks.toml") << work_text;
+  const Scenario s = read_scenario((dir / "tasks.toml").string());
+  PlanSettings settings;
+  settings.runs = {10, 100};
+  settings.resolutions = {"0 h*kHz", "20 h*kHz"};
+  settings.experiments = 100;
+  settings.target_kT = 0.3;
+  settings.synthetic_runs = 20;
+  const PlanTaskOutcome o = plan_task(s, settings);
+  CHECK(o.table.size() == 4);
+  CHECK(o.needed.size() == 2);
+  CHECK(o.synthetic.size() == 20);
+  CHECK(!o.long_plan);
+  const auto texts = task_texts(o);
+  REQUIRE(texts.size() == 1);
+  CHECK(texts[0].file == "synthetic_work.csv");
+  CHECK(std::count(texts[0].text.begin(), texts[0].text.end(), '\n') == 5 + 20);  // names, 4 comments, runs
+  check_files_are_the_outcome(o, "plan_summary.json", "plan");
+
+  PlanCommand c;
+  c.scenario = s.file;
+  c.runs = settings.runs;
+  c.resolutions = settings.resolutions;
+  c.experiments = settings.experiments;
+  c.target_kT = settings.target_kT;
+  c.synthetic_runs = settings.synthetic_runs;
+  c.output = (dir / "out").string();
+  std::ostringstream report;
+  run_plan_command(c, report, report);
+  check_cli_files(task_tables(o), dir / "out");
+  CHECK(trapwork_test::read_all(dir / "out" / "synthetic_work.csv") == texts[0].text);
+  std::ostringstream task_report;
+  print_task_report(task_report, o);
+  CHECK(report.str().rfind(task_report.str(), 0) == 0);
+
+  // The cost of a long plan is said through the notice hook before the checks of the scenario.
+  const Scenario pure = read_scenario_text(
+      replace_first(work_text, "mean_phonons = 0.5", "level = 0"), "pure.toml");
+  settings.runs = {1000000};
+  settings.experiments = 1000;
+  settings.resolutions.clear();
+  std::vector<std::string> notices;
+  TaskHooks hooks;
+  hooks.notice = [&](const std::string& text) { notices.push_back(text); };
+  CHECK_THROWS_AS(plan_task(pure, settings, hooks), InputError);  // not thermal
+  REQUIRE(notices.size() == 1);
+  CHECK(notices[0].rfind("plan estimated ", 0) == 0);
+}

@@ -153,6 +153,25 @@ std::shared_ptr<NativeResult> module_compare(const std::string& text, const std:
   return native_of(outcome, "compare", inputs);
 }
 
+std::shared_ptr<NativeResult> module_plan(const std::string& text, const std::string& name, const std::vector<int>& runs,
+                                          const std::vector<std::string>& resolutions, std::optional<double> target,
+                                          int experiments, std::uint64_t seed, bool correct_resolution,
+                                          int synthetic_runs, py::object progress, py::object notice) {
+  std::function<PlanTaskOutcome(const TaskHooks&)> task = [&](const TaskHooks& hooks) {
+    PlanSettings settings;
+    settings.runs = runs;
+    settings.resolutions = resolutions;
+    settings.target_kT = target;
+    settings.experiments = experiments;
+    settings.seed = seed;
+    settings.correct_resolution = correct_resolution;
+    settings.synthetic_runs = synthetic_runs;
+    return plan_task(read_scenario_text(text, name), settings, hooks);
+  };
+  auto outcome = compute(task, progress, notice, "plan");
+  return native_of(outcome, "plan", scenario_inputs(outcome->scenario));
+}
+
 // ---- scenarios --------------------------------------------------------------------------------
 
 // Reads a scenario file as the CLI does (same errors) and returns its text.
@@ -224,6 +243,9 @@ PYBIND11_MODULE(_trapwork, m) {
         py::arg("frequency"), py::arg("terms"), py::arg("progress"), py::arg("notice"));
   m.def("compare", &module_compare, py::arg("text"), py::arg("name"), py::arg("data"), py::arg("resolution"),
         py::arg("resamples"), py::arg("seed"), py::arg("confidence"), py::arg("progress"), py::arg("notice"));
+  m.def("plan", &module_plan, py::arg("text"), py::arg("name"), py::arg("runs"), py::arg("resolutions"),
+        py::arg("target"), py::arg("experiments"), py::arg("seed"), py::arg("correct_resolution"),
+        py::arg("synthetic_runs"), py::arg("progress"), py::arg("notice"));
   m.def("work", &module_work, py::arg("text"), py::arg("name"), py::arg("tolerance"), py::arg("search_budget"),
         py::arg("progress"), py::arg("notice"));
 }

@@ -24,15 +24,14 @@ using Json = nlohmann::json;
 
 // The scenario's tables, as the reader knows them (top_level_keys in scenario.cpp); used to
 // append a missing table, to order the tables written from JSON and for suggestions.
-const std::vector<std::string> scenario_tables = {"particle", "units",  "potential", "box",  "spectrum",
-                                                  "grid",     "output", "protocol",  "initial", "work",
-                                                  "sweep"};
-const std::vector<std::string> top_level_order = {"title", "description", "particle", "units",  "potential",
-                                                  "box",   "spectrum",    "grid",     "output", "protocol",
-                                                  "initial", "work",      "sweep"};
+const std::vector<std::string> scenario_tables = {"particle", "units", "potential", "box",
+                                                  "spectrum", "grid",  "output",    "protocol",
+                                                  "initial",  "work",  "sweep"};
+const std::vector<std::string> top_level_order = {"title",   "description", "particle", "units",  "potential",
+                                                  "box",     "spectrum",    "grid",     "output", "protocol",
+                                                  "initial", "work",        "sweep"};
 
-const char* const address_forms =
-    "table.key, <term name>.<parameter>, potential[N].key or change[N].key";
+const char* const address_forms = "table.key, <term name>.<parameter>, potential[N].key or change[N].key";
 
 // ---- TOML text of JSON values ----------------------------------------------------------------
 
@@ -40,13 +39,27 @@ std::string toml_string(std::string_view s) {
   std::string out = "\"";
   for (const unsigned char c : s) {
     switch (c) {
-      case '"': out += "\\\""; break;
-      case '\\': out += "\\\\"; break;
-      case '\b': out += "\\b"; break;
-      case '\t': out += "\\t"; break;
-      case '\n': out += "\\n"; break;
-      case '\f': out += "\\f"; break;
-      case '\r': out += "\\r"; break;
+      case '"':
+        out += "\\\"";
+        break;
+      case '\\':
+        out += "\\\\";
+        break;
+      case '\b':
+        out += "\\b";
+        break;
+      case '\t':
+        out += "\\t";
+        break;
+      case '\n':
+        out += "\\n";
+        break;
+      case '\f':
+        out += "\\f";
+        break;
+      case '\r':
+        out += "\\r";
+        break;
       default:
         if (c < 0x20 || c == 0x7f) {
           char code[8];
@@ -61,12 +74,13 @@ std::string toml_string(std::string_view s) {
 }
 
 bool is_bare_key(std::string_view k) {
-  return !k.empty() && std::all_of(k.begin(), k.end(), [](unsigned char c) {
-    return std::isalnum(c) || c == '_' || c == '-';
-  });
+  return !k.empty() && std::all_of(k.begin(), k.end(),
+                                   [](unsigned char c) { return std::isalnum(c) || c == '_' || c == '-'; });
 }
 
-std::string toml_key(const std::string& k) { return is_bare_key(k) ? k : toml_string(k); }
+std::string toml_key(const std::string& k) {
+  return is_bare_key(k) ? k : toml_string(k);
+}
 
 // Shortest text that reads back to the same double (std::to_chars), with ".0" added to an
 // integral value so that TOML reads a float.
@@ -84,16 +98,20 @@ std::string toml_float(double v) {
 // the error for what TOML cannot hold (null, an integer beyond 2^63 - 1).
 std::string toml_value(const Json& v, const std::string& key) {
   switch (v.type()) {
-    case Json::value_t::string: return toml_string(v.get_ref<const std::string&>());
-    case Json::value_t::boolean: return v.get<bool>() ? "true" : "false";
-    case Json::value_t::number_integer: return std::to_string(v.get<std::int64_t>());
+    case Json::value_t::string:
+      return toml_string(v.get_ref<const std::string&>());
+    case Json::value_t::boolean:
+      return v.get<bool>() ? "true" : "false";
+    case Json::value_t::number_integer:
+      return std::to_string(v.get<std::int64_t>());
     case Json::value_t::number_unsigned: {
       const auto u = v.get<std::uint64_t>();
       if (u > std::uint64_t(std::numeric_limits<std::int64_t>::max()))
         throw InputError(key, std::to_string(u), "an integer TOML can hold (at most 2^63 - 1)");
       return std::to_string(u);
     }
-    case Json::value_t::number_float: return toml_float(v.get<double>());
+    case Json::value_t::number_float:
+      return toml_float(v.get<double>());
     case Json::value_t::array: {
       std::string s = "[";
       for (std::size_t i = 0; i < v.size(); ++i)
@@ -167,12 +185,12 @@ std::size_t last_key_line(const toml::table& t, const std::string& path, const L
     const std::string sub = path.empty() ? std::string(k.str()) : path + "." + std::string(k.str());
     if (const auto* table = v.as_table()) {
       if (!has_header(*table, sub, lines))
-        last = std::max<std::size_t>(last, table->is_inline() ? v.source().end.line
-                                                               : last_key_line(*table, sub, lines));
+        last = std::max<std::size_t>(
+            last, table->is_inline() ? v.source().end.line : last_key_line(*table, sub, lines));
       continue;
     }
-    if (const auto* array = v.as_array(); array && array->is_array_of_tables() &&
-                                          !array->empty() && !array->front().as_table()->is_inline())
+    if (const auto* array = v.as_array();
+        array && array->is_array_of_tables() && !array->empty() && !array->front().as_table()->is_inline())
       continue;  // [[path]] tables
     last = std::max<std::size_t>(last, v.source().end.line);
   }
@@ -219,7 +237,7 @@ std::vector<std::pair<std::string, const toml::table*>> terms(const toml::table&
     for (std::size_t i = 0; i < array->size(); ++i) {
       const auto* t = array->at(i).as_table();
       out.emplace_back(t->get_as<std::string>("name") ? t->get_as<std::string>("name")->get()
-                                                        : "term" + std::to_string(i + 1),
+                                                      : "term" + std::to_string(i + 1),
                        t);
     }
   return out;
@@ -231,7 +249,8 @@ std::vector<std::string> excluded_by(const std::string& table, const std::string
   const std::vector<std::string> range = {"from", "to", "points"};
   std::vector<std::string> out;
   if (table == "initial" && std::find(initial.begin(), initial.end(), key) != initial.end())
-    std::copy_if(initial.begin(), initial.end(), std::back_inserter(out), [&](const auto& k) { return k != key; });
+    std::copy_if(initial.begin(), initial.end(), std::back_inserter(out),
+                 [&](const auto& k) { return k != key; });
   if (table == "sweep" && key == "values") out = range;
   if (table == "sweep" && std::find(range.begin(), range.end(), key) != range.end()) out = {"values"};
   return out;
@@ -268,11 +287,12 @@ std::vector<Segment> Edit::split() const {
     Segment s;
     if (const std::size_t open = part.find('['); open != std::string::npos) {
       const std::string digits = part.substr(open + 1, part.size() - open - 2);
-      const bool ok = part.back() == ']' && !digits.empty() && digits.size() < 9 &&
-                      std::all_of(digits.begin(), digits.end(), [](unsigned char c) { return std::isdigit(c); });
+      const bool ok =
+          part.back() == ']' && !digits.empty() && digits.size() < 9 &&
+          std::all_of(digits.begin(), digits.end(), [](unsigned char c) { return std::isdigit(c); });
       if (!ok || std::stoul(digits) == 0)
-        throw InputError(address_, value_, std::string("an address: ") + address_forms + " (N counted from 1)", "",
-                         file_);
+        throw InputError(address_, value_,
+                         std::string("an address: ") + address_forms + " (N counted from 1)", "", file_);
       s.index = std::stoul(digits);
       part.resize(open);
     }
@@ -327,8 +347,8 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
     path[0].index = 0;
   }
   const toml::table* current = &root;
-  std::string current_path;   // header path of `current` ("potential", "protocol.change", "" at the top)
-  std::size_t first = 0;      // segments before `first` are resolved
+  std::string current_path;  // header path of `current` ("potential", "protocol.change", "" at the top)
+  std::size_t first = 0;     // segments before `first` are resolved
   if (path.size() > 1 && !path[0].index && !root.get(path[0].key)) {
     for (const auto& [name, t] : terms(root))
       if (name == path[0].key) {
@@ -336,7 +356,8 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
         current_path = "potential";
         first = 1;
       }
-    if (!first && std::find(scenario_tables.begin(), scenario_tables.end(), path[0].key) == scenario_tables.end())
+    if (!first &&
+        std::find(scenario_tables.begin(), scenario_tables.end(), path[0].key) == scenario_tables.end())
       unknown(root, not_found);
   }
   table_name = first ? "potential" : path[0].key;  // for the exclusive keys of [initial] and [sweep]
@@ -359,8 +380,9 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
         const std::string count = current->get(s.key) ? "" : ": it has no [[" + sub + "]] tables";
         unknown(root, not_found + count);
       }
-      if (current == &root && (s.key == "potential" || std::find(scenario_tables.begin(), scenario_tables.end(),
-                                                                  s.key) == scenario_tables.end()))
+      if (current == &root &&
+          (s.key == "potential" ||
+           std::find(scenario_tables.begin(), scenario_tables.end(), s.key) == scenario_tables.end()))
         unknown(root, not_found);
       missing.push_back(s.key);
       continue;
@@ -376,7 +398,8 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
     } else {
       if (node->is_array_of_tables())
         unknown(root, not_found + ": " + sub + " holds [[tables]]; give " + s.key + "[N]");
-      if (!node->is_table()) unknown(root, "an address of a value: " + segment_text(s) + " is a value, not a table", false);
+      if (!node->is_table())
+        unknown(root, "an address of a value: " + segment_text(s) + " is a value, not a table", false);
       current = node->as_table();
     }
     current_path = sub;
@@ -392,7 +415,8 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
   const Segment& last = path.back();
   if (last.index) unknown(root, "an address of a key: " + segment_text(last) + " is an array element", false);
   key_name = last.key;
-  if (path.size() == 1 && std::find(scenario_tables.begin(), scenario_tables.end(), last.key) != scenario_tables.end())
+  if (path.size() == 1 &&
+      std::find(scenario_tables.begin(), scenario_tables.end(), last.key) != scenario_tables.end())
     unknown(root, "an address of a value: [" + last.key + "] is a table; give one of its keys", false);
 
   std::string text = text_;
@@ -407,14 +431,16 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
       if (node->is_table() && !node->as_table()->is_inline())
         unknown(root, "an address of a value: " + last.key + " is a table; give one of its keys", false);
       if (node->is_array_of_tables() && !node->as_array()->front().as_table()->is_inline())
-        unknown(root, "an address of a value: " + last.key + " holds [[tables]]; give one of their keys", false);
+        unknown(root, "an address of a value: " + last.key + " holds [[tables]]; give one of their keys",
+                false);
       // Removals after the replacement in the text go first, so that offsets stay valid.
       std::vector<std::pair<toml::source_region, std::string>> edits = {{node->source(), value_}};
       if (path.size() == 2)
         for (const auto& other : excluded_by(table_name, last.key))
           if (const toml::key* k = key_of(*current, other))
             edits.push_back({{k->source().begin, current->get(other)->source().end, {}}, ""});
-      std::sort(edits.begin(), edits.end(), [](const auto& a, const auto& b) { return b.first.begin < a.first.begin; });
+      std::sort(edits.begin(), edits.end(),
+                [](const auto& a, const auto& b) { return b.first.begin < a.first.begin; });
       for (const auto& [where, with] : edits) replace(where, with);
       return text;
     }
@@ -424,8 +450,10 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
   keys.push_back(last.key);
   for (const auto& k : keys)
     if (k.find("[]") != std::string::npos || current->is_inline())
-      unknown(root, "a key already in its table: keys cannot be added to an inline table { ... }; set the whole table",
-              false);
+      unknown(
+          root,
+          "a key already in its table: keys cannot be added to an inline table { ... }; set the whole table",
+          false);
   std::string dotted;
   for (const auto& k : keys) dotted += (dotted.empty() ? "" : ".") + k;
 
@@ -454,7 +482,8 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
       if (const toml::key* k = key_of(*current, other))
         edits.push_back({{k->source().begin, current->get(other)->source().end, {}}, ""});
     if (!edits.empty()) {
-      std::sort(edits.begin(), edits.end(), [](const auto& a, const auto& b) { return b.first.begin < a.first.begin; });
+      std::sort(edits.begin(), edits.end(),
+                [](const auto& a, const auto& b) { return b.first.begin < a.first.begin; });
       edits.back().second = toml_key(last.key) + " = " + value_;
       for (const auto& [where, with] : edits) replace(where, with);
       return text;
@@ -474,12 +503,14 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
 // ---- TOML text from JSON -------------------------------------------------------------------
 
 bool is_table_array(const Json& v) {
-  return v.is_array() && !v.empty() && std::all_of(v.begin(), v.end(), [](const Json& e) { return e.is_object(); });
+  return v.is_array() && !v.empty() &&
+         std::all_of(v.begin(), v.end(), [](const Json& e) { return e.is_object(); });
 }
 
 void write_table(std::string& out, const Json& table, const std::string& header, const std::string& dotted,
                  bool element) {
-  if (!header.empty()) out += (out.empty() ? "" : "\n") + (element ? "[[" + header + "]]\n" : "[" + header + "]\n");
+  if (!header.empty())
+    out += (out.empty() ? "" : "\n") + (element ? "[[" + header + "]]\n" : "[" + header + "]\n");
   std::vector<std::string> order;
   if (header.empty())
     for (const auto& k : top_level_order)
@@ -489,24 +520,28 @@ void write_table(std::string& out, const Json& table, const std::string& header,
   auto join = [](const std::string& a, const std::string& b) { return a.empty() ? b : a + "." + b; };
   for (const auto& k : order) {
     const Json& v = table.at(k);
-    if (!v.is_object() && !is_table_array(v)) out += toml_key(k) + " = " + toml_value(v, join(dotted, k)) + "\n";
+    if (!v.is_object() && !is_table_array(v))
+      out += toml_key(k) + " = " + toml_value(v, join(dotted, k)) + "\n";
   }
   for (const auto& k : order)
-    if (table.at(k).is_object()) write_table(out, table.at(k), join(header, toml_key(k)), join(dotted, k), false);
+    if (table.at(k).is_object())
+      write_table(out, table.at(k), join(header, toml_key(k)), join(dotted, k), false);
   for (const auto& k : order) {
     const Json& v = table.at(k);
     if (!is_table_array(v)) continue;
     for (std::size_t i = 0; i < v.size(); ++i)
-      write_table(out, v[i], join(header, toml_key(k)), join(dotted, k) + "[" + std::to_string(i + 1) + "]", true);
+      write_table(out, v[i], join(header, toml_key(k)), join(dotted, k) + "[" + std::to_string(i + 1) + "]",
+                  true);
   }
 }
 
 }  // namespace
 
-std::string scenario_text_with_values(std::string_view text, const std::string& file_name, const Json& values) {
+std::string scenario_text_with_values(std::string_view text, const std::string& file_name,
+                                      const Json& values) {
   if (!values.is_object())
-    throw InputError("", values.dump(), "a JSON object of address -> value (\"protocol.duration\": \"2 us\")", "",
-                     file_name);
+    throw InputError("", values.dump(), "a JSON object of address -> value (\"protocol.duration\": \"2 us\")",
+                     "", file_name);
   std::string edited(text);
   std::vector<std::pair<std::string, std::string>> done;  // (top-level table, key) set so far
   for (const auto& [address, value] : values.items()) {
@@ -526,7 +561,8 @@ std::string scenario_text_with_values(std::string_view text, const std::string& 
 
 std::string scenario_text_from_json(const Json& scenario) {
   if (!scenario.is_object())
-    throw InputError("", scenario.dump().substr(0, 60), "a scenario as a JSON object (\"particle\": {\"mass\": \"40 u\"}, ...)");
+    throw InputError("", scenario.dump().substr(0, 60),
+                     "a scenario as a JSON object (\"particle\": {\"mass\": \"40 u\"}, ...)");
   std::string out;
   write_table(out, scenario, "", "", false);
   return out;

@@ -2,10 +2,9 @@
 // Scenario edits: a scenario's TOML text with some values changed, and a scenario's TOML text
 // built from JSON. Both return text for read_scenario_text (solver/scenario/scenario.hpp), so
 // every check of the reader applies to the result and its errors name lines of that text.
+#include <nlohmann/json.hpp>
 #include <string>
 #include <string_view>
-
-#include <nlohmann/json.hpp>
 
 namespace trapwork {
 

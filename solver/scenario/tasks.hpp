@@ -215,8 +215,8 @@ std::vector<std::string> plan_output_names();  // plan.csv, plan_summary.json, p
 
 // ---- outputs of every outcome ----------------------------------------------------------------
 // task_tables: the CSV files' tables, in file order; task_summary: the summary JSON file's
-// content (summary.json, fit_summary.json, compare_summary.json, plan_summary.json; the sweep's
-// is a small summary that only the module shows); task_texts: other files; task_figures: the
+// content (summary.json, fit_summary.json, compare_summary.json, plan_summary.json; the sweep's:
+// sweep_summary.json, a small summary the command line does not write); task_texts: other files; task_figures: the
 // figures' data (none for spectrum and fit). write_task_outputs writes exactly these into
 // `folder` (created if missing; everything assembled before the first file is opened, each file
 // written atomically) and returns the paths in the order the command line reports them;

@@ -1,4 +1,4 @@
-"""fit and compare: the module against the command line on the examples that use
+"""fit, compare and plan: the module against the command line on the examples that use
 them (issue 15), plus their result classes' named values."""
 import json
 
@@ -74,3 +74,49 @@ def test_compare_with_options_equals_cli(in_tmp):
     assert_summary_equals_json(r.summary, in_tmp / "cli" / "compare_summary.json")
     with pytest.raises(trapwork.InputError, match="resolution"):
         trapwork.compare(model, data, resolution="30")
+def test_plan_equals_cli(in_tmp):
+    model = EXAMPLES / "ion_shuttle_model.toml"
+    args = ["--runs", "10,100", "--resolution", "0 h*kHz,40 h*kHz", "--target", "0.5", "--experiments", "200",
+            "--seed", "3", "--synthetic-runs", "50"]
+    done = cli_ok("plan", model, *args, "-o", in_tmp / "cli")
+    r = trapwork.plan(trapwork.Scenario.from_file(model), runs=(10, 100), resolutions=["0 h*kHz", "40 h*kHz"],
+                      target=0.5, experiments=200, seed=3, synthetic_runs=50)
+    assert_table_equals_csv(r.tables["plan"], in_tmp / "cli" / "plan.csv")
+    assert_table_equals_csv(r.tables["synthetic_work"], in_tmp / "cli" / "synthetic_work.csv")
+    assert_summary_equals_json(r.summary, in_tmp / "cli" / "plan_summary.json")
+    assert r.runs_needed and r.runs_needed == r.summary["runs_needed"]
+    assert_text_close(r.report, report_of(done.stdout), "report", REPORT_RELATIVE)
+
+
+def test_plan_default_settings_equal_cli(in_tmp):
+    model = EXAMPLES / "ion_shuttle_model.toml"
+    cli_ok("plan", model, "-o", in_tmp / "cli")
+    r = trapwork.plan(model)
+    assert_table_equals_csv(r.tables["plan"], in_tmp / "cli" / "plan.csv")
+    assert_summary_equals_json(r.summary, in_tmp / "cli" / "plan_summary.json")
+
+
+
+
+@pytest.mark.parametrize("kind", ["fit", "compare", "plan", "spectrum"])
+def test_every_result_pickles_and_writes_the_same_files(kind, tmp_path):
+    import pathlib
+    import pickle
+    model = EXAMPLES / "ion_shuttle_model.toml"
+    make = {
+        "fit": lambda: trapwork.fit(EXAMPLES / "ion_spectroscopy_lines.csv", mass="40 u", frequency="1 MHz"),
+        "compare": lambda: trapwork.compare(model, EXAMPLES / "ion_work_samples.csv", resamples=200),
+        "plan": lambda: trapwork.plan(model, runs=(10, 30), experiments=100, synthetic_runs=20),
+        "spectrum": lambda: trapwork.spectrum(model, levels=5),
+    }
+    r = make[kind]()
+    first = r.write(tmp_path / "a")
+    copy = pickle.loads(pickle.dumps(r))
+    assert type(copy) is type(r) and copy.summary == r.summary and copy.texts == r.texts
+    assert {k: v.columns for k, v in copy.tables.items()} == {k: v.columns for k, v in r.tables.items()}
+    second = copy.write(tmp_path / "b")
+    assert [pathlib.Path(p).name for p in first] == [pathlib.Path(p).name for p in second]
+    for p, q in zip(first, second):
+        assert pathlib.Path(p).read_bytes() == pathlib.Path(q).read_bytes(), p
+    if kind == "fit":
+        assert (tmp_path / "b" / "fitted.toml").read_text() == copy.scenario.text

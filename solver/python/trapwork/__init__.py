@@ -706,8 +706,6 @@ def plan(scenario, runs=(10, 30, 100, 300, 1000), resolutions=None, target=None,
 
     Raises InputError, PhysicsError; KeyboardInterrupt after Ctrl-C.
     """
-    if not hasattr(_trapwork, "plan"):
-        raise NotImplementedError("plan needs the task layer (solver/scenario/tasks.hpp), not built into this module")
     s = _scenario(scenario)
     return PlanResult(_run(_trapwork.plan, s.text, s.name, [int(r) for r in runs],
                            [str(r) for r in (resolutions or [])], None if target is None else float(target),
