@@ -535,3 +535,22 @@ def test_module_comparison_figure_draws():
     assert max(curve.get_ydata()) < main.get_ylim()[1]
     assert by_gid(fig, "model_mean")[0].get_xdata()[0] == pytest.approx(f["model_mean"])
     assert by_gid(fig, "data_mean")[0].get_xdata()[0] == pytest.approx(f["data_mean"])
+
+
+def test_module_plan_figure_draws():
+    import trapwork
+    if not hasattr(getattr(trapwork, "_trapwork", None), "plan"):
+        pytest.skip("the compiled module has no plan yet")
+    result = trapwork.plan(trapwork.Scenario.from_file(EXAMPLES / "ion_shuttle_model.toml"), runs=(10, 30, 100),
+                           resolutions=["40 h*kHz"], experiments=200)
+    (stem,) = result.figures
+    fig = tplot.plot(result, stem)
+    (ax,) = [a for a in fig.axes if a.axison]
+    table = result.tables["plan"]
+    assert ax.get_xscale() == "log"
+    (marks,) = by_gid(fig, "points_0")
+    assert np.allclose(marks.get_xdata(), table["runs"]) and np.allclose(marks.get_ydata(), table["bias_kT"])
+    (bars,) = by_gid(fig, "points_0_errorbars")
+    lengths = [s[1][1] - s[0][1] for s in bars.lines[2][0].get_segments()]
+    assert np.allclose(lengths, 2 * np.asarray(table["spread_kT"]))
+    assert ax.get_ylabel() == "estimate - true βΔF (kT)"
