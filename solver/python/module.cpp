@@ -61,6 +61,17 @@ std::shared_ptr<NativeResult> native_of(std::shared_ptr<X> outcome, std::string 
   return r;
 }
 
+// How a run was asked for (Scenario::invocation, changed_values): the Python call and the
+// values Scenario.with_values changed, recorded in every summary as the command line records its own.
+using Provenance = std::pair<std::string, std::vector<std::string>>;
+
+Scenario read_for(const std::string& text, const std::string& name, const Provenance& provenance) {
+  Scenario s = read_scenario_text(text, name);
+  s.invocation = provenance.first;
+  s.changed_values = provenance.second;
+  return s;
+}
+
 template <class X>
 std::shared_ptr<X> compute(const std::function<X(const TaskHooks&)>& task, py::object progress, py::object notice,
                            const std::string& first_stage) {
@@ -71,11 +82,11 @@ std::shared_ptr<X> compute(const std::function<X(const TaskHooks&)>& task, py::o
 }
 
 std::shared_ptr<NativeResult> module_spectrum(const std::string& text, const std::string& name,
-                                              std::optional<int> levels, py::object progress, py::object notice) {
+                                              std::optional<int> levels, py::object progress, py::object notice, const Provenance& provenance) {
   std::function<SpectrumOutcome(const TaskHooks&)> task = [&](const TaskHooks& hooks) {
     if (levels && (*levels < 1 || *levels > 100000))
       throw InputError("levels", std::to_string(*levels), "a number of levels from 1 to 100000");
-    return spectrum_task(read_scenario_text(text, name), levels, hooks);
+    return spectrum_task(read_for(text, name, provenance), levels, hooks);
   };
   auto outcome = compute(task, progress, notice, "spectrum");
   return native_of(outcome, "spectrum", scenario_inputs(outcome->scenario));
@@ -83,9 +94,9 @@ std::shared_ptr<NativeResult> module_spectrum(const std::string& text, const std
 
 std::shared_ptr<NativeResult> module_work(const std::string& text, const std::string& name,
                                           std::optional<double> tolerance, double search_budget, py::object progress,
-                                          py::object notice) {
+                                          py::object notice, const Provenance& provenance) {
   std::function<WorkOutcome(const TaskHooks&)> task = [&](const TaskHooks& hooks) {
-    const Scenario scenario = read_scenario_text(text, name);
+    const Scenario scenario = read_for(text, name, provenance);
     (void)build_protocol(scenario);  // as the command line: a missing [protocol] before a missing [initial]
     return work_task(scenario, tolerance, search_budget, hooks);
   };
@@ -94,9 +105,9 @@ std::shared_ptr<NativeResult> module_work(const std::string& text, const std::st
 }
 
 std::shared_ptr<NativeResult> module_sweep(const std::string& text, const std::string& name, int jobs,
-                                           py::object progress, py::object notice) {
+                                           py::object progress, py::object notice, const Provenance& provenance) {
   std::function<SweepOutcome(const TaskHooks&)> task = [&](const TaskHooks& hooks) {
-    const Scenario scenario = read_scenario_text(text, name);
+    const Scenario scenario = read_for(text, name, provenance);
     if (!scenario.sweep)
       throw InputError("sweep", "", "a [sweep] table: parameter, and values = [...] or from, to, points", "",
                        scenario.file);
@@ -117,7 +128,7 @@ std::shared_ptr<NativeResult> module_sweep(const std::string& text, const std::s
 std::shared_ptr<NativeResult> module_fit(const std::string& data, const std::string& start_text,
                                          const std::string& start_name, const std::string& mass,
                                          const std::string& frequency, const std::string& terms, py::object progress,
-                                         py::object notice) {
+                                         py::object notice, const Provenance& provenance) {
   std::function<FitOutcome(const TaskHooks&)> task = [&](const TaskHooks&) {
     (void)read_transition_lines(data);  // as the command line: its errors before the start scenario's
     FitSettings settings;
@@ -126,6 +137,8 @@ std::shared_ptr<NativeResult> module_fit(const std::string& data, const std::str
     settings.start_name = start_text.empty() ? "--mass " + mass + " --frequency " + frequency : start_name;
     settings.terms = terms;
     settings.fitted_name = "fitted.toml";
+    settings.invocation = provenance.first;
+    settings.changed_values = provenance.second;
     return fit_task(settings);
   };
   auto outcome = compute(task, progress, notice, "fit");
@@ -137,7 +150,7 @@ std::shared_ptr<NativeResult> module_fit(const std::string& data, const std::str
 
 std::shared_ptr<NativeResult> module_compare(const std::string& text, const std::string& name, const std::string& data,
                                              const std::string& resolution, int resamples, std::uint64_t seed,
-                                             double confidence, py::object progress, py::object notice) {
+                                             double confidence, py::object progress, py::object notice, const Provenance& provenance) {
   std::function<CompareTaskOutcome(const TaskHooks&)> task = [&](const TaskHooks& hooks) {
     CompareSettings settings;
     settings.data = data;
@@ -145,7 +158,7 @@ std::shared_ptr<NativeResult> module_compare(const std::string& text, const std:
     settings.resamples = resamples;
     settings.seed = seed;
     settings.confidence = confidence;
-    return compare_task(read_scenario_text(text, name), settings, hooks);
+    return compare_task(read_for(text, name, provenance), settings, hooks);
   };
   auto outcome = compute(task, progress, notice, "propagating");
   auto inputs = scenario_inputs(outcome->scenario);
@@ -156,7 +169,7 @@ std::shared_ptr<NativeResult> module_compare(const std::string& text, const std:
 std::shared_ptr<NativeResult> module_plan(const std::string& text, const std::string& name, const std::vector<int>& runs,
                                           const std::vector<std::string>& resolutions, std::optional<double> target,
                                           int experiments, std::uint64_t seed, bool correct_resolution,
-                                          int synthetic_runs, py::object progress, py::object notice) {
+                                          int synthetic_runs, py::object progress, py::object notice, const Provenance& provenance) {
   std::function<PlanTaskOutcome(const TaskHooks&)> task = [&](const TaskHooks& hooks) {
     PlanSettings settings;
     settings.runs = runs;
@@ -166,7 +179,7 @@ std::shared_ptr<NativeResult> module_plan(const std::string& text, const std::st
     settings.seed = seed;
     settings.correct_resolution = correct_resolution;
     settings.synthetic_runs = synthetic_runs;
-    return plan_task(read_scenario_text(text, name), settings, hooks);
+    return plan_task(read_for(text, name, provenance), settings, hooks);
   };
   auto outcome = compute(task, progress, notice, "plan");
   return native_of(outcome, "plan", scenario_inputs(outcome->scenario));
@@ -230,22 +243,23 @@ PYBIND11_MODULE(_trapwork, m) {
 
   bind_native_result(m);
 
+  m.def("version", [] { return std::string(trapwork_version()); });
   m.def("default_scenario_text", [] { return std::string(default_scenario_text()); });
   m.def("scenario_file_text", &scenario_file_text, py::arg("path"));
   m.def("scenario_info", &scenario_info, py::arg("text"), py::arg("name"));
   m.def("scenario_text_with_values", &text_with_values, py::arg("text"), py::arg("name"), py::arg("values"));
   m.def("scenario_text_from_json", &text_from_json, py::arg("scenario"), py::arg("name"));
   m.def("spectrum", &module_spectrum, py::arg("text"), py::arg("name"), py::arg("levels"), py::arg("progress"),
-        py::arg("notice"));
+        py::arg("notice"), py::arg("provenance"));
   m.def("sweep", &module_sweep, py::arg("text"), py::arg("name"), py::arg("jobs"), py::arg("progress"),
-        py::arg("notice"));
+        py::arg("notice"), py::arg("provenance"));
   m.def("fit", &module_fit, py::arg("data"), py::arg("start_text"), py::arg("start_name"), py::arg("mass"),
-        py::arg("frequency"), py::arg("terms"), py::arg("progress"), py::arg("notice"));
+        py::arg("frequency"), py::arg("terms"), py::arg("progress"), py::arg("notice"), py::arg("provenance"));
   m.def("compare", &module_compare, py::arg("text"), py::arg("name"), py::arg("data"), py::arg("resolution"),
-        py::arg("resamples"), py::arg("seed"), py::arg("confidence"), py::arg("progress"), py::arg("notice"));
+        py::arg("resamples"), py::arg("seed"), py::arg("confidence"), py::arg("progress"), py::arg("notice"), py::arg("provenance"));
   m.def("plan", &module_plan, py::arg("text"), py::arg("name"), py::arg("runs"), py::arg("resolutions"),
         py::arg("target"), py::arg("experiments"), py::arg("seed"), py::arg("correct_resolution"),
-        py::arg("synthetic_runs"), py::arg("progress"), py::arg("notice"));
+        py::arg("synthetic_runs"), py::arg("progress"), py::arg("notice"), py::arg("provenance"));
   m.def("work", &module_work, py::arg("text"), py::arg("name"), py::arg("tolerance"), py::arg("search_budget"),
-        py::arg("progress"), py::arg("notice"));
+        py::arg("progress"), py::arg("notice"), py::arg("provenance"));
 }

@@ -70,7 +70,7 @@ int run_command_line(CLI::App& app, int argc, char** argv) {
   }
 }
 
-std::string scenario_text(const std::string& name, const std::vector<std::string>& set) {
+std::string set_scenario_text(const std::string& name, const std::vector<std::string>& set) {
   const bool builtin = name.empty() || name == "default";
   std::string text = builtin ? std::string(default_scenario_text()) : read_text_file(name, "the scenario file");
   if (!set.empty()) text = scenario_text_with_values(text, builtin ? "default" : name, assignments_json(set));
@@ -79,7 +79,7 @@ std::string scenario_text(const std::string& name, const std::vector<std::string
 
 Scenario load_scenario(const std::string& name, const std::vector<std::string>& set) {
   const bool builtin = name.empty() || name == "default";
-  Scenario s = read_scenario_text(scenario_text(name, set), builtin ? "default" : name);
+  Scenario s = read_scenario_text(set_scenario_text(name, set), builtin ? "default" : name);
   s.invocation = command_line();
   s.changed_values = set;
   return s;

@@ -30,7 +30,7 @@ int run_command_line(CLI::App& app, int argc, char** argv);
 // (changed_values) with the command line (invocation) for the summaries.
 Scenario load_scenario(const std::string& name, const std::vector<std::string>& set = {});
 // The scenario text named on a command line ("default": the built-in one) with `set` applied.
-std::string scenario_text(const std::string& name, const std::vector<std::string>& set);
+std::string set_scenario_text(const std::string& name, const std::vector<std::string>& set);
 // The command line this process was started with, quoted for a POSIX shell (set by
 // run_command_line; recorded in every summary.json).
 const std::string& command_line();

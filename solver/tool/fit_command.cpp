@@ -19,7 +19,7 @@ FitResultFiles run_fit_command(const FitCommand& command, std::ostream& out) {
   settings.data = command.data;
   settings.start_name =
       command.start.empty() ? "--mass " + command.mass + " --frequency " + command.frequency : command.start;
-  settings.start_text = !command.start.empty() ? scenario_text(command.start, command.set)
+  settings.start_text = !command.start.empty() ? set_scenario_text(command.start, command.set)
                         : command.set.empty()
                             ? fit_start_text(command.mass, command.frequency)
                             : scenario_text_with_values(fit_start_text(command.mass, command.frequency),

@@ -150,8 +150,12 @@ def assert_summary_equals_json(summary, path, ignore=()):
     flags, strings (assert_text_close: warnings quote diagnostic values), numbers to RELATIVE of their top-level section's scale."""
     expected = json.loads(pathlib.Path(path).read_text())
     assert list(summary) == list(expected), f"{path.name}: keys differ"
+    # "invocation" records how the run was asked for: the command line there, the Python call
+    # here (test_scenario.py checks the module's); everything else must agree.
+    assert summary["invocation"].startswith("trapwork.") and "(Python, trapwork " in summary["invocation"]
+    assert expected["invocation"].startswith("trapwork ")
     for k in expected:
-        if k in ignore:
+        if k in ignore or k == "invocation":
             continue
         scale = _largest(expected[k])
         _compare_json(summary[k], expected[k], scale, f"{path.name}:{k}")

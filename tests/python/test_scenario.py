@@ -54,6 +54,7 @@ def test_with_values_equals_the_cli_on_the_edited_file(in_tmp):
     s = trapwork.Scenario.from_file(EXAMPLES / "ion_translation.toml")
     changed = s.with_values({"protocol.duration": "1.4 us", "initial.temperature": "10 uK"})
     assert changed.name == s.name and changed.text != s.text
+    assert changed.changed_values == ["protocol.duration=1.4 us", "initial.temperature=10 uK"]
     edited = in_tmp / "edited.toml"
     edited.write_text(changed.text)
     cli_ok("work", edited, "-o", in_tmp / "cli")
@@ -62,10 +63,23 @@ def test_with_values_equals_the_cli_on_the_edited_file(in_tmp):
     assert module.summary["work"]["mean"]["value"] != original.summary["work"]["mean"]["value"]
     for table in module.tables.values():
         assert_table_equals_csv(table, in_tmp / "cli" / table.file)
-    # the summary names the file the CLI read (edited.toml); everything else is equal
-    assert_summary_equals_json(module.summary, in_tmp / "cli" / "summary.json", ignore=("scenario",))
+    # the summary names the file the CLI read (edited.toml) and the changes; everything else is equal
+    assert_summary_equals_json(module.summary, in_tmp / "cli" / "summary.json", ignore=("scenario", "changed_values"))
     assert module.summary["protocol"]["duration_given"] == "1.4 us"
     assert module.summary["scenario"]["file"] == s.name
+
+
+def test_with_values_equals_the_cli_with_set_and_both_record_the_changes(in_tmp):
+    s = trapwork.Scenario.from_file(EXAMPLES / "ion_translation.toml")
+    changed = s.with_values({"protocol.duration": "1.4 us"}).with_values({"initial.temperature": "10 uK"})
+    cli_ok("work", s.name, "--set", "protocol.duration=1.4 us", "--set", "initial.temperature=10 uK",
+           "-o", in_tmp / "cli")
+    module = trapwork.work(changed, search_budget=2000)
+    assert_summary_equals_json(module.summary, in_tmp / "cli" / "summary.json")
+    assert module.summary["changed_values"] == ["protocol.duration=1.4 us", "initial.temperature=10 uK"]
+    assert module.summary["invocation"] == f"trapwork.work({s.name!r}) (Python, trapwork {trapwork.__version__})"
+    # the changes survive pickling of the scenario
+    assert pickle.loads(pickle.dumps(changed)).changed_values == changed.changed_values
 
 
 def test_with_values_unknown_address_is_input_error():

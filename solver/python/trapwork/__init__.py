@@ -37,6 +37,8 @@ __all__ = [
     "spectrum", "work", "sweep", "fit", "compare", "plan",
 ]
 
+__version__ = _trapwork.version()
+
 InputError = _trapwork.InputError
 InputError.__doc__ = """Bad input: a scenario value, a unit, a formula, a data row or an argument.
 
@@ -66,7 +68,7 @@ class Scenario:
     ``has_initial``, ``has_sweep`` (bool: what :func:`work` and :func:`sweep` need).
     """
 
-    __slots__ = ("_text", "_name", "_info")
+    __slots__ = ("_text", "_name", "_info", "_changed")
 
     def __init__(self, text, name="scenario"):
         """Same as :meth:`from_text`."""
@@ -75,6 +77,7 @@ class Scenario:
         self._text = text
         self._name = str(name)
         self._info = _trapwork.scenario_info(self._text, self._name)
+        self._changed = ()  # "address=value" of each with_values change, for the summaries
 
     @classmethod
     def from_file(cls, path):
@@ -120,8 +123,16 @@ class Scenario:
         strings with units (``"2 us"``), numbers, booleans or lists. Setting one of
         [initial]'s keys removes the others. Raises InputError for an unknown address (naming
         the closest known one) or a value the scenario reader refuses."""
-        return Scenario(_trapwork.scenario_text_with_values(self._text, self._name, json.dumps(values, allow_nan=False)),
-                        self._name)
+        changed = Scenario(_trapwork.scenario_text_with_values(self._text, self._name,
+                                                               json.dumps(values, allow_nan=False)), self._name)
+        changed._changed = self._changed + tuple(f"{k}={v}" for k, v in values.items())
+        return changed
+
+    @property
+    def changed_values(self):
+        """The changes :meth:`with_values` made, "address=value" each, in order (recorded in every
+        result's summary, as the command line records its --set values)."""
+        return list(self._changed)
 
     @property
     def text(self):
@@ -158,12 +169,13 @@ class Scenario:
         pathlib.Path(path).write_text(self._text)
 
     def __getstate__(self):
-        return {"text": self._text, "name": self._name}
+        return {"text": self._text, "name": self._name, "changed": self._changed}
 
     def __setstate__(self, state):
         self._text = state["text"]
         self._name = state["name"]
         self._info = _trapwork.scenario_info(self._text, self._name)
+        self._changed = tuple(state.get("changed", ()))
 
     def __eq__(self, other):
         return isinstance(other, Scenario) and (self._text, self._name) == (other._text, other._name)
@@ -540,7 +552,16 @@ class _TextProgress:
             sys.stderr.flush()
 
 
-def _run(function, *args, progress=None):
+def _provenance(call, scenario, **arguments):
+    """(invocation, changed values) for the summaries: the Python call as written, e.g.
+    "trapwork.work('ion.toml', tolerance=0.0001) (Python, trapwork 0.1.0)"."""
+    words = [repr(scenario.name if isinstance(scenario, Scenario) else scenario)]
+    words += [f"{k}={v!r}" for k, v in arguments.items() if v is not None]
+    changed = list(scenario._changed) if isinstance(scenario, Scenario) else []
+    return (f"trapwork.{call}({', '.join(words)}) (Python, trapwork {_trapwork.version()})", changed)
+
+
+def _run(function, *args, progress=None, provenance=("", [])):
     """Calls a compiled function with the progress callback and notices it takes."""
     bar = None
     if progress is True:
@@ -556,7 +577,7 @@ def _run(function, *args, progress=None):
         print(line, file=sys.stderr, flush=True)
 
     try:
-        return function(*args, callback, notice)
+        return function(*args, callback, notice, provenance)
     finally:
         if bar is not None:
             bar.close()
@@ -590,7 +611,8 @@ def spectrum(scenario, levels=None, progress=None):
     s = _scenario(scenario)
     if levels is not None:
         levels = int(levels)
-    return SpectrumResult(_run(_trapwork.spectrum, s.text, s.name, levels, progress=progress), s)
+    return SpectrumResult(_run(_trapwork.spectrum, s.text, s.name, levels, progress=progress,
+                               provenance=_provenance("spectrum", s, levels=levels)), s)
 
 
 def work(scenario, tolerance=None, search_budget=2000, progress=None):
@@ -619,7 +641,9 @@ def work(scenario, tolerance=None, search_budget=2000, progress=None):
     s = _scenario(scenario)
     if tolerance is not None:
         tolerance = float(tolerance)
-    return WorkResult(_run(_trapwork.work, s.text, s.name, tolerance, float(search_budget), progress=progress), s)
+    return WorkResult(_run(_trapwork.work, s.text, s.name, tolerance, float(search_budget), progress=progress,
+                           provenance=_provenance("work", s, tolerance=tolerance,
+                                                  search_budget=None if search_budget == 2000 else search_budget)), s)
 
 
 def sweep(scenario, jobs=None, progress=None):
@@ -637,7 +661,8 @@ def sweep(scenario, jobs=None, progress=None):
     workers are stopped and joined first).
     """
     s = _scenario(scenario)
-    return SweepResult(_run(_trapwork.sweep, s.text, s.name, 0 if jobs is None else int(jobs), progress=progress), s)
+    return SweepResult(_run(_trapwork.sweep, s.text, s.name, 0 if jobs is None else int(jobs), progress=progress,
+                            provenance=_provenance("sweep", s, jobs=jobs)), s)
 
 
 def fit(data, start=None, mass=None, frequency=None, terms="frequency,quartic", progress=None):
@@ -662,8 +687,12 @@ def fit(data, start=None, mass=None, frequency=None, terms="frequency,quartic", 
         raise InputError("fit: give start (a Scenario or scenario file), or mass and frequency (\"40 u\", \"1 MHz\")")
     else:
         start_text, start_name = "", ""
+    changed = list(start._changed) if isinstance(start, Scenario) else []
+    invocation = _provenance("fit", os.fspath(data), start=None if start is None else start_name,
+                             mass=mass, frequency=frequency, terms=terms)[0]
     return FitResult(_run(_trapwork.fit, os.fspath(data), start_text, start_name, "" if mass is None else str(mass),
-                          "" if frequency is None else str(frequency), str(terms), progress=progress))
+                          "" if frequency is None else str(frequency), str(terms), progress=progress,
+                          provenance=(invocation, changed)))
 
 
 def compare(scenario, data, resolution=None, resamples=2000, seed=1, confidence=0.9, progress=None):
@@ -685,7 +714,8 @@ def compare(scenario, data, resolution=None, resamples=2000, seed=1, confidence=
     s = _scenario(scenario)
     return CompareResult(_run(_trapwork.compare, s.text, s.name, os.fspath(data),
                               "" if resolution is None else str(resolution), int(resamples), int(seed),
-                              float(confidence), progress=progress), s)
+                              float(confidence), progress=progress,
+                              provenance=_provenance("compare", s, data=os.fspath(data), resolution=resolution)), s)
 
 
 def plan(scenario, runs=(10, 30, 100, 300, 1000), resolutions=None, target=None, experiments=1000, seed=1,
@@ -710,7 +740,8 @@ def plan(scenario, runs=(10, 30, 100, 300, 1000), resolutions=None, target=None,
     return PlanResult(_run(_trapwork.plan, s.text, s.name, [int(r) for r in runs],
                            [str(r) for r in (resolutions or [])], None if target is None else float(target),
                            int(experiments), int(seed), bool(correct_resolution), int(synthetic_runs),
-                           progress=progress), s)
+                           progress=progress, provenance=_provenance("plan", s, runs=tuple(runs),
+                                                                     resolutions=resolutions, target=target)), s)
 
 
 for _f in (spectrum, work, sweep, fit, compare, plan):
