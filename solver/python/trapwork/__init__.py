@@ -353,11 +353,13 @@ class Result:
 
     _main_table = ""
 
-    def plot(self, name=None, ax=None):
-        """Draws ``figures[name]`` (all figures when None) with matplotlib, as the command line's
-        pictures; returns the matplotlib Figure (a list for several). Needs python3-matplotlib."""
+    def plot(self, name=None, ax=None, **style):
+        """Draws ``figures[name]`` with matplotlib, as the command line's pictures, and returns the
+        matplotlib Figure; with ``name=None``, every figure, as a dict name -> Figure. ``ax``: an
+        Axes to draw into (or one per panel); ``style``: figsize, dpi, title, legend, colors (see
+        :func:`trapwork.plot.plot`). Needs python3-matplotlib."""
         from . import plot as _plot
-        return _plot.plot(self, name=name, ax=ax)
+        return _plot.plot(self, name=name, ax=ax, **style)
 
     def __getstate__(self):
         state = dict(self.__dict__)
