@@ -145,8 +145,9 @@ StateEnergies state_energies(const Grid& grid, const std::vector<double>& v, con
   apply_hamiltonian(kinetic, v, im, h_im);
   for (Eigen::Index c = 0; c < cols; ++c) {
     const double norm = states.col(c).squaredNorm();  // the grid spacing cancels in the ratios
-    out.energy[c] = (re.col(c).dot(h_re.col(c)) + im.col(c).dot(h_im.col(c))) / norm;
-    out.energy_squared[c] = (h_re.col(c).squaredNorm() + h_im.col(c).squaredNorm()) / norm;
+    const double e = (re.col(c).dot(h_re.col(c)) + im.col(c).dot(h_im.col(c))) / norm;
+    out.energy[c] = e;
+    out.energy_variance[c] = ((h_re.col(c) - e * re.col(c)).squaredNorm() + (h_im.col(c) - e * im.col(c)).squaredNorm()) / norm;
   }
   return out;
 }
@@ -173,25 +174,31 @@ void total_moment_errors(MomentErrors& e) {
 MomentErrors moment_errors(const WorkInput& in, const WorkDistribution& d, const StateEnergies& direct,
                            double left_out_thermal_weight, double tolerance) {
   const int rows = in.transitions.initial_levels();
-  TRAPWORK_EXPECT(direct.energy.size() == rows && direct.energy_squared.size() == rows,
+  TRAPWORK_EXPECT(direct.energy.size() == rows && direct.energy_variance.size() == rows,
                   "moment_errors: one direct energy per kept initial level");
   MomentErrors e;
   e.tolerance = tolerance;
   double mean = 0, second = 0, total = 0;
   Eigen::VectorXd w(rows), s(rows);
   for (int m = 0; m < rows; ++m) {
-    const double ea = in.initial_energies[m], h1 = direct.energy[m], h2 = direct.energy_squared[m];
-    w[m] = h1 - ea;
-    s[m] = h2 - 2 * ea * h1 + ea * ea;
+    w[m] = direct.energy[m] - in.initial_energies[m];  // the row's mean work
+    s[m] = direct.energy_variance[m] + w[m] * w[m];      // the row's <W^2>
     const double p = in.initial_weights[std::size_t(m)];
     total += p;
     mean += p * w[m];
-    second += p * s[m];
   }
   mean /= total;
+  // var W = sum_m p_m (var_m + (w_m - <W>)^2): no difference of large second moments (a protocol
+  // that shifts every level by much more than sd W would lose digits in <W^2> - <W>^2)
+  double variance = 0;
+  for (int m = 0; m < rows; ++m) {
+    const double p = in.initial_weights[std::size_t(m)];
+    second += p * s[m];
+    variance += p * (direct.energy_variance[m] + (w[m] - mean) * (w[m] - mean));
+  }
   second /= total;
   e.mean_direct = mean;
-  e.variance_direct = second - mean * mean;
+  e.variance_direct = variance / total;
   e.mean_final = d.mean - e.mean_direct;
   e.variance_final = d.variance - e.variance_direct;
   const double eps = std::max(0.0, left_out_thermal_weight);

@@ -290,3 +290,24 @@ TEST_CASE("issue 14: moments of a sudden 1 -> 2.2 switch carry an error estimate
     CHECK(std::abs(t.distribution.variance - variance) <= e.variance_error);
   }
 }
+
+// The direct moments' spread of H_B in a state is computed about the state's own energy: with a
+// large common energy offset (a deep trap, |E| = 3568 internal units as in examples/
+// tweezer_deform.toml) <H^2> - <H>^2 would leave rounding of about 1e-16 |E|^2 ~ 1e-9 in place
+// of the true spread. An oscillator ground state (hbar = m = omega = 1) has spread 0 and energy
+// 1/2 above the offset; a displaced one (a coherent state, x0 = 1) has energy 1/2 + x0^2/2 and
+// spread (hbar omega)^2 |alpha|^2 = x0^2 / 2, with |alpha|^2 = x0^2 / 2 (common practice, from
+// memory: the textbook coherent-state energy variance).
+TEST_CASE("state_energies: the spread of H in a state is not lost under a large energy offset", "[work][moments]") {
+  const Grid grid = Grid::periodic(-12, 12, 256);
+  const double offset = -3568;
+  std::vector<double> v;
+  for (double x : grid.points()) v.push_back(offset + 0.5 * x * x);
+  for (double x0 : {0.0, 1.0}) {
+    Eigen::MatrixXcd psi(grid.size(), 1);
+    for (std::size_t j = 0; j < grid.size(); ++j) psi(Eigen::Index(j), 0) = std::exp(-0.5 * std::pow(grid.x(j) - x0, 2));
+    const StateEnergies e = state_energies(grid, v, psi);
+    CHECK(std::abs(e.energy[0] - (offset + 0.5 + 0.5 * x0 * x0)) < 1e-10);
+    CHECK(std::abs(e.energy_variance[0] - 0.5 * x0 * x0) < 1e-11);
+  }
+}
