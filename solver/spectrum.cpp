@@ -30,7 +30,8 @@ std::string fmt(double v) {
 class ShiftInvert {
  public:
   using Scalar = double;
-  explicit ShiftInvert(const Eigen::SparseMatrix<double>& h) : h_(h) {}
+  ShiftInvert(const Eigen::SparseMatrix<double>& h, const std::function<void()>& interrupt)
+      : h_(h), interrupt_(interrupt) {}
   Eigen::Index rows() const { return h_.rows(); }
   Eigen::Index cols() const { return h_.cols(); }
   void set_shift(double sigma) {
@@ -43,6 +44,7 @@ class ShiftInvert {
       throw PhysicsError("shift-invert: factorisation of H - sigma failed (sigma = " + fmt(sigma) + ")");
   }
   void perform_op(const double* in, double* out) const {
+    if (interrupt_) interrupt_();
     Eigen::Map<const Eigen::VectorXd> x(in, h_.rows());
     Eigen::Map<Eigen::VectorXd> y(out, h_.rows());
     y = solver_.solve(x);
@@ -51,6 +53,7 @@ class ShiftInvert {
 
  private:
   const Eigen::SparseMatrix<double>& h_;
+  const std::function<void()>& interrupt_;
   bool analysed_ = false;
   Eigen::SimplicialLDLT<Eigen::SparseMatrix<double>> solver_;  // also used at indefinite shifts (no zero pivots met in practice)
 };
@@ -294,7 +297,7 @@ Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const Sp
     Eigen::VectorXd values;
     Eigen::MatrixXd vectors;
     {  // scoped so the Lanczos basis is freed before the refinement
-      ShiftInvert op(h);
+      ShiftInvert op(h, options.interrupt);
       Spectra::SymEigsShiftSolver<ShiftInvert> eigs(op, nev, ncv, sigma);
       eigs.init();
       eigs.compute(Spectra::SortRule::LargestMagn, 1000, 1e-12, Spectra::SortRule::SmallestAlge);
@@ -325,7 +328,8 @@ Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const Sp
           if (r(i) >= 0.1 * tolerance) open.push_back(i);
         if (r.head(k).maxCoeff() < tolerance || open.empty()) break;
         Eigen::MatrixXd corrections(n, Eigen::Index(open.size()));
-        ShiftInvert near(h);
+        if (options.interrupt) options.interrupt();
+        ShiftInvert near(h, options.interrupt);
         for (std::size_t c = 0; c < open.size(); ++c) {
           const int i = open[c];
           near.set_shift(ritz.values(i));

@@ -15,6 +15,7 @@
 // phi_n ~ +x^n for an oscillator); in a hard-walled box the first lobe at the left wall is
 // positive (as sin(n pi x/L)).
 #include <Eigen/Dense>
+#include <functional>
 #include <memory>
 #include <mutex>
 #include <optional>
@@ -46,6 +47,11 @@ struct SpectrumOptions {
   // Optional: spectra solved before from equal inputs (grid, samples, the options above) are
   // returned from here instead of solved again; the results are the same either way.
   std::shared_ptr<SpectrumMemo> memo;
+  // Optional: called at every step of the sparse eigensolver (each shift-invert application) and
+  // of its refinement, so that a front end can stop a long solve (its Ctrl-C) by throwing from
+  // it; the exception passes through unchanged. Not called by the dense solvers (at most
+  // dense_limit points or a Hermite basis: seconds at most). Does not change any result.
+  std::function<void()> interrupt;
 };
 
 // Eigenpairs on one grid. Energies ascend; states are columns normalised on the grid.

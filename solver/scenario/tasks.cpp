@@ -89,6 +89,7 @@ auto naming_scenario(const std::string& where, const Scenario& scenario, F&& f) 
 
 // The hooks end with the task: the outcome keeps no callback of its caller.
 void drop_hooks(WorkRequest& request) {
+  request.spectrum.options.interrupt = nullptr;
   request.progress = nullptr;
   request.stage = nullptr;
   request.on_estimate = nullptr;
@@ -99,6 +100,7 @@ void drop_hooks(WorkRequest& request) {
 ScenarioWork model_work(const Scenario& scenario, const TaskHooks& hooks) {
   WorkRequest request = work_request(scenario);
   request.reverse_run = false;  // only the forward distribution is compared; the reverse run serves Crooks
+  request.spectrum.options.interrupt = hooks.interrupt;
   if (hooks.stage) hooks.stage("propagating");
   watch_work(request, hooks);
   try {
@@ -115,6 +117,7 @@ ScenarioWork model_work(const Scenario& scenario, const TaskHooks& hooks) {
 SpectrumOutcome spectrum_task(Scenario scenario, std::optional<int> levels, const TaskHooks& hooks) {
   if (levels) scenario.spectrum.options.levels = *levels;
   scenario.spectrum.options.memory_limit = available_memory_bytes();  // refused before it allocates
+  scenario.spectrum.options.interrupt = hooks.interrupt;
   if (hooks.stage) hooks.stage("spectrum");
   SpectrumOutcome outcome{std::move(scenario), {}};
   try {
@@ -122,6 +125,7 @@ SpectrumOutcome spectrum_task(Scenario scenario, std::optional<int> levels, cons
   } catch (const PhysicsError& e) {
     throw PhysicsError(outcome.scenario.file + ": " + e.what());  // say which scenario cannot be used
   }
+  outcome.scenario.spectrum.options.interrupt = nullptr;  // the hooks end with the task
   if (hooks.progress) hooks.progress(1.0);
   return outcome;
 }
@@ -154,6 +158,7 @@ WorkRun WorkOutcome::run() const {
 WorkOutcome work_task(const Scenario& scenario, std::optional<double> tolerance, double search_budget,
                       const TaskHooks& hooks) {
   WorkRequest request = work_request(scenario);
+  request.spectrum.options.interrupt = hooks.interrupt;
   WorkOutcome outcome{scenario, std::nullopt, std::nullopt};
   if (tolerance) {
     if (!(*tolerance > 0 && *tolerance < 1))
@@ -247,6 +252,7 @@ SweepOutcome sweep_task(const Scenario& scenario, const SweepOptions& options, c
           WorkRequest request = work_request(point);
           request.threads = 1;
           request.spectrum.options.memo = memo;
+          request.spectrum.options.interrupt = hooks.interrupt;
           request.spectrum.options.memory_limit = memory_per_point;
           if (hooks.progress)
             request.progress = [&, k](double fraction) {

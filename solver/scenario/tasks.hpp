@@ -34,6 +34,9 @@ struct TaskHooks {
   std::function<void(double)> progress;           // share of the current stage done, 0..1
   std::function<void(const std::string&)> stage;  // a new stage starts (its name); progress restarts at 0
   std::function<void(const std::string&)> notice;  // a line for the user (the cost estimate of a long run)
+  // Called often where no progress is reported (the sparse eigensolver's steps); may throw
+  // Interrupted to stop the run there (SpectrumOptions::interrupt).
+  std::function<void()> interrupt;
 };
 
 struct NamedTable {

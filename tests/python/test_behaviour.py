@@ -81,11 +81,12 @@ def test_unphysical_scenario_is_physics_error(tmp_path):
 
 # ---- Ctrl-C -----------------------------------------------------------------------------------
 
-def test_ctrl_c_raises_keyboard_interrupt_and_writes_nothing(tmp_path):
+@pytest.mark.parametrize("command", ["work", "spectrum"])
+def test_ctrl_c_raises_keyboard_interrupt_and_writes_nothing(tmp_path, command):
     folder = tmp_path / "out"
     env = dict(os.environ)
-    child = subprocess.Popen([sys.executable, str(HERE / "interrupt_driver.py"), str(folder)], stdout=subprocess.PIPE,
-                             stderr=subprocess.PIPE, text=True, env=env)
+    child = subprocess.Popen([sys.executable, str(HERE / "interrupt_driver.py"), str(folder), command],
+                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
     try:
         assert child.stdout.readline().strip() == "started", child.stderr.read()
         time.sleep(1)

@@ -607,8 +607,9 @@ def spectrum(scenario, levels=None, progress=None):
     spectrum.csv and states.csv, ``summary`` equal to summary.json.
 
     Raises InputError (bad scenario or levels), PhysicsError (a potential that does not hold the
-    levels, a grid that cannot), MemoryError; KeyboardInterrupt after Ctrl-C (the eigensolver
-    itself is not interruptible: the interrupt is raised when it ends).
+    levels, a grid that cannot), MemoryError; KeyboardInterrupt after Ctrl-C (at the sparse
+    eigensolver's next step; a dense solve, on at most 1024 grid points or in the Hermite basis,
+    runs to its end first).
     """
     s = _scenario(scenario)
     if levels is not None:
