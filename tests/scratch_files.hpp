@@ -10,6 +10,28 @@
 
 namespace trapwork_test {
 
+// A small, fast work scenario shared by the tests of threads and tasks: a 40 u ion in a 1 MHz
+// trap with a small quartic term, thermal with 0.5 phonons, moved by 30 nm in 1.5 us
+// (anharmonic, so the lines are not merged into a few harmonic ones), no time-step check.
+inline const std::string small_shuttle_text = R"(title = "small shuttle"
+[particle]
+mass = "40 u"
+[[potential]]
+name = "trap"
+shape = "polynomial"
+frequency = "1 MHz"
+quartic = "0.01 h*Hz/nm^4"
+[protocol]
+duration = "1.5 us"
+[[protocol.change]]
+parameter = "trap.centre"
+to = "30 nm"
+[initial]
+mean_phonons = 0.5
+[work]
+time_step_check = false
+)";
+
 // An empty folder TRAPWORK_BINARY_DIR/<area>/<name>, removed and re-created each call.
 inline std::filesystem::path scratch_dir(const std::string& area, const std::string& name) {
   const auto dir = std::filesystem::path(TRAPWORK_BINARY_DIR) / area / name;

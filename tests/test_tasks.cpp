@@ -22,26 +22,8 @@ namespace fs = std::filesystem;
 
 namespace {
 
-// A 40 u ion in a 1 MHz trap with a small quartic term, thermal with 0.5 phonons, moved by
-// 30 nm in 1.5 us (the scenario of test_threads.cpp), with few levels and no step check: fast.
-const std::string work_text = R"(title = "tasks"
-[particle]
-mass = "40 u"
-[[potential]]
-name = "trap"
-shape = "polynomial"
-frequency = "1 MHz"
-quartic = "0.01 h*Hz/nm^4"
-[protocol]
-duration = "1.5 us"
-[[protocol.change]]
-parameter = "trap.centre"
-to = "30 nm"
-[initial]
-mean_phonons = 0.5
-[work]
-time_step_check = false
-)";
+// The small shuttle of scratch_files.hpp (also test_threads.cpp's): fast.
+const std::string work_text = trapwork_test::small_shuttle_text;
 
 std::string csv_text(const CsvTable& table) {
   std::ostringstream out;

@@ -58,27 +58,8 @@ namespace {
 constexpr double tolerance = 1e-12;  // see the file comment
 constexpr std::size_t crooks_column = 7;  // crooks_ratio_error in sweep.csv
 
-// A 40 u ion in a 1 MHz trap with a small quartic term, thermal with 0.5 phonons, moved by
-// 30 nm in 1.5 us: anharmonic, so the lines are not merged into a few harmonic ones.
-// (Sweep durations avoid whole trap periods, where <W> is near 0 and the skewness is noise.)
-const std::string scenario_text = R"(title = "threads"
-[particle]
-mass = "40 u"
-[[potential]]
-name = "trap"
-shape = "polynomial"
-frequency = "1 MHz"
-quartic = "0.01 h*Hz/nm^4"
-[protocol]
-duration = "1.5 us"
-[[protocol.change]]
-parameter = "trap.centre"
-to = "30 nm"
-[initial]
-mean_phonons = 0.5
-[work]
-time_step_check = false
-)";
+// The small shuttle of scratch_files.hpp. (Sweep durations avoid whole trap periods, where <W> is near 0 and the skewness is noise.)
+const std::string scenario_text = trapwork_test::small_shuttle_text;
 
 WorkResult run_with_threads(int threads) {
   const Scenario s = read_scenario_text(scenario_text, "threads.toml");
