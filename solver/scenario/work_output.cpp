@@ -968,8 +968,10 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
   print_scenario_header(out, "work", s);
   const double tau = run.protocol.duration();
   std::string protocol = tau > 0 ? "duration " + duration_text(s, tau) : "sudden switch (duration 0)";
-  if (s.omega_ref > 0 && tau > 0)
-    protocol += " (" + short_number(tau * s.omega_ref / (2 * si::pi), 4) + " periods of the reference frequency)";
+  if (s.omega_ref > 0 && tau > 0) {
+    const std::string periods = short_number(tau * s.omega_ref / (2 * si::pi), 4);
+    protocol += " (" + periods + (periods == "1" ? " period" : " periods") + " of the reference frequency)";
+  }
   row("protocol", protocol);
   if (s.protocol)
     for (const auto& c : s.protocol->changes) row("", change_text(s, c));
