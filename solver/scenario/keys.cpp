@@ -3,6 +3,7 @@
 #include "solver/scenario/keys.hpp"
 
 #include <algorithm>
+#include <cctype>
 #include <charconv>
 #include <sstream>
 
@@ -49,10 +50,8 @@ KeySpec sub(std::string name, KeyType type, std::string default_text, std::strin
   return {std::move(name), type, {}, std::move(default_text), {}, std::move(meaning), std::move(example)};
 }
 
-const Dimension L = Dimension::length(), E = Dimension::energy();
-
 KeySpec centre() {
-  return quantity("centre", L, "0 um", "position of the term's centre (every shape shifts with it)", "\"0.1 um\"");
+  return quantity("centre", Dimension::length(), "0 um", "position of the term's centre (every shape shifts with it)", "\"0.1 um\"");
 }
 
 }  // namespace
@@ -84,47 +83,47 @@ const std::vector<ShapeSpec>& shape_specs() {
                  {}});
     s.push_back({Shape::gaussian,
                  "V(x) = -depth exp(-2 (x - centre)^2 / waist^2) (optical tweezer; waist: 1/e^2 intensity radius)",
-                 {quantity("depth", E, "0", "well depth (> 0 for a trap)", "\"20 kB*uK\""),
-                  quantity("waist", L, "required", "1/e^2 intensity radius (> 0)", "\"0.8 um\""), centre()},
+                 {quantity("depth", Dimension::energy(), "0", "well depth (> 0 for a trap)", "\"20 kB*uK\""),
+                  quantity("waist", Dimension::length(), "required", "1/e^2 intensity radius (> 0)", "\"0.8 um\""), centre()},
                  {}});
     s.push_back({Shape::double_well,
                  "V(x) = barrier ((y/a)^2 - 1)^2 + tilt y/a, y = x - centre, a = separation/2",
-                 {quantity("barrier", E, "0", "height of the central barrier above the minima", "\"5 h*kHz\""),
-                  quantity("separation", L, "required", "distance between the two minima (> 0)", "\"1 um\""),
-                  quantity("tilt", E, "0", "energy tilt between the wells", "\"0.2 h*kHz\""), centre()},
+                 {quantity("barrier", Dimension::energy(), "0", "height of the central barrier above the minima", "\"5 h*kHz\""),
+                  quantity("separation", Dimension::length(), "required", "distance between the two minima (> 0)", "\"1 um\""),
+                  quantity("tilt", Dimension::energy(), "0", "energy tilt between the wells", "\"0.2 h*kHz\""), centre()},
                  {}});
     s.push_back({Shape::morse,
                  "V(x) = depth (1 - exp(-(x - centre)/range))^2",
-                 {quantity("depth", E, "0", "dissociation energy", "\"50 h*kHz\""),
-                  quantity("range", L, "required", "range of the well (> 0)", "\"0.2 um\""), centre()},
+                 {quantity("depth", Dimension::energy(), "0", "dissociation energy", "\"50 h*kHz\""),
+                  quantity("range", Dimension::length(), "required", "range of the well (> 0)", "\"0.2 um\""), centre()},
                  {}});
     s.push_back({Shape::poschl_teller,
                  "V(x) = -depth / cosh^2((x - centre)/width)",
-                 {quantity("depth", E, "0", "well depth", "\"20 h*kHz\""),
-                  quantity("width", L, "required", "width of the well (> 0)", "\"0.3 um\""), centre()},
+                 {quantity("depth", Dimension::energy(), "0", "well depth", "\"20 h*kHz\""),
+                  quantity("width", Dimension::length(), "required", "width of the well (> 0)", "\"0.3 um\""), centre()},
                  {}});
     s.push_back({Shape::square_well,
                  "V(x) = -depth for |x - centre| < half_width, 0 outside; softness s > 0: -depth (tanh((y + a)/s) - "
                  "tanh((y - a)/s))/2, y = x - centre, a = half_width",
-                 {quantity("depth", E, "0", "well depth", "\"20 h*kHz\""),
-                  quantity("half_width", L, "required", "half the well's width (> 0)", "\"0.5 um\""),
-                  quantity("softness", L, "0 um", "edge width s (>= 0; 0: sharp edges)", "\"0.05 um\""), centre()},
+                 {quantity("depth", Dimension::energy(), "0", "well depth", "\"20 h*kHz\""),
+                  quantity("half_width", Dimension::length(), "required", "half the well's width (> 0)", "\"0.5 um\""),
+                  quantity("softness", Dimension::length(), "0 um", "edge width s (>= 0; 0: sharp edges)", "\"0.05 um\""), centre()},
                  {}});
     s.push_back({Shape::power_walls,
                  "V(x) = height ((x - right)/width)^power for x > right, height ((left - x)/width)^power for x < "
                  "left, 0 between",
-                 {quantity("left", L, "required", "position of the left wall", "\"-1 um\""),
-                  quantity("right", L, "required", "position of the right wall (> left)", "\"1 um\""),
-                  quantity("height", E, "required", "wall energy one width beyond a wall (> 0)", "\"20 kB*uK\""),
-                  quantity("width", L, "required", "wall width (> 0)", "\"0.1 um\""),
+                 {quantity("left", Dimension::length(), "required", "position of the left wall", "\"-1 um\""),
+                  quantity("right", Dimension::length(), "required", "position of the right wall (> left)", "\"1 um\""),
+                  quantity("height", Dimension::energy(), "required", "wall energy one width beyond a wall (> 0)", "\"20 kB*uK\""),
+                  quantity("width", Dimension::length(), "required", "wall width (> 0)", "\"0.1 um\""),
                   plain("power", "8", "steepness of the walls (> 0)", "6")},
                  {}});
     s.push_back({Shape::erf_walls,
                  "V(x) = (height/2) [erfc((right - x)/width) + erfc((x - left)/width)] (walls of finite height)",
-                 {quantity("left", L, "required", "position of the left wall (half height)", "\"-1 um\""),
-                  quantity("right", L, "required", "position of the right wall (> left)", "\"1 um\""),
-                  quantity("height", E, "required", "wall height (> 0)", "\"20 kB*uK\""),
-                  quantity("width", L, "required", "distance over which a wall rises (> 0)", "\"0.1 um\"")},
+                 {quantity("left", Dimension::length(), "required", "position of the left wall (half height)", "\"-1 um\""),
+                  quantity("right", Dimension::length(), "required", "position of the right wall (> left)", "\"1 um\""),
+                  quantity("height", Dimension::energy(), "required", "wall height (> 0)", "\"20 kB*uK\""),
+                  quantity("width", Dimension::length(), "required", "distance over which a wall rises (> 0)", "\"0.1 um\"")},
                  {}});
     s.push_back({Shape::table,
                  "V(x) = scale T(x - centre), T the monotone cubic (Fritsch-Carlson) interpolation of the file's "
@@ -186,7 +185,7 @@ const std::vector<TableSpec>& scenario_tables() {
                    "the first harmonic or polynomial frequency",
                    "sets the internal units: length sqrt(hbar/(m 2 pi f)), energy h f, always with its unit",
                    "\"1 MHz\""),
-          quantity("length", L, "1 um (when no frequency sets the units)",
+          quantity("length", Dimension::length(), "1 um (when no frequency sets the units)",
                    "internal length unit when no frequency sets it (boxes); not with a frequency", "\"2 um\""),
           text("energy", "h*kHz with a frequency, else kB*uK",
                "display unit of energies in tables: h*kHz, h*MHz, h*Hz, kB*uK, kB*nK, hbar*omega, natural, or another "
@@ -199,25 +198,25 @@ const std::vector<TableSpec>& scenario_tables() {
                  {text("name", "term<N>", "the term's name, used in addresses such as trap.centre", "\"trap\""),
                   choice("shape", shapes, "required", "the term's shape")}});
     t.push_back({"box", "[box]", "hard walls: the grid's ends (a particle in a box, possibly with a potential inside)",
-                 {quantity("left", L, "required", "position of the left wall", "\"0 um\""),
-                  quantity("right", L, "required", "position of the right wall (> left)", "\"2 um\""),
+                 {quantity("left", Dimension::length(), "required", "position of the left wall", "\"0 um\""),
+                  quantity("right", Dimension::length(), "required", "position of the right wall (> left)", "\"2 um\""),
                   sub("soft_walls", KeyType::table, "none",
                       "[box.soft_walls]: compare moving hard walls with soft ones",
                       "{ widths = [\"0.1 um\"], height = \"20 kB*uK\" }")}});
     t.push_back({"box.soft_walls", "[box.soft_walls]",
                  "soft power-law walls compared with moving hard walls (needs a protocol moving box.left or box.right)",
-                 {array("widths", L, "required", "wall widths, widest first, each > 0", "[\"0.2 um\", \"0.1 um\"]"),
-                  quantity("height", E, "required", "wall height (> 0)", "\"20 kB*uK\""),
+                 {array("widths", Dimension::length(), "required", "wall widths, widest first, each > 0", "[\"0.2 um\", \"0.1 um\"]"),
+                  quantity("height", Dimension::energy(), "required", "wall height (> 0)", "\"20 kB*uK\""),
                   plain("power", number_text(walls.power), "steepness of the walls (> 0)", "6"),
                   whole("points", "spacing <= width/6 (at least 256)", "grid points of the soft runs", "512")}});
     t.push_back(
         {"grid", "[grid]", "the position grid (chosen automatically unless given)",
          {whole("points", "automatic", "number of grid points (4 to 2^24)", "512"),
-          quantity("left", L, "automatic", "left end of an open grid (with right; not with [box])", "\"-2 um\""),
-          quantity("right", L, "automatic", "right end of an open grid (with left)", "\"2 um\""),
+          quantity("left", Dimension::length(), "automatic", "left end of an open grid (with right; not with [box])", "\"-2 um\""),
+          quantity("right", Dimension::length(), "automatic", "right end of an open grid (with left)", "\"2 um\""),
           flag("convergence_check", grid.convergence_check ? "true" : "false",
                "repeat the spectrum on a finer, wider grid and report the change", "false"),
-          quantity("search_half_width", L, number_text(grid.search_half_width) + " internal length units",
+          quantity("search_half_width", Dimension::length(), number_text(grid.search_half_width) + " internal length units",
                    "how far from the first term's centre the automatic grid looks for the minimum and turning points",
                    "\"5 um\"")}});
     t.push_back({"spectrum", "[spectrum]", "the eigensolver",
@@ -227,7 +226,7 @@ const std::vector<TableSpec>& scenario_tables() {
                              " points, else lanczos)"),
                   whole("fd_order", std::to_string(spectrum.fd_order),
                         "finite-difference order of lanczos and finite_difference: 2, 4, 6 or 8", "6"),
-                  quantity("degeneracy", E, number_text(spectrum.degeneracy_tolerance) + " internal energy units",
+                  quantity("degeneracy", Dimension::energy(), number_text(spectrum.degeneracy_tolerance) + " internal energy units",
                            "levels closer than this form one degenerate group", "\"1e-6 h*kHz\"")}});
     t.push_back({"output", "[output]", "where results are written",
                  {text("folder", "<scenario file stem>-output", "output folder (the command's -o overrides it)",
@@ -255,12 +254,12 @@ const std::vector<TableSpec>& scenario_tables() {
                "unit of the table's or formula's values", "\"um\"")}});
     t.push_back(
         {"initial", "[initial]", "the initial state, exactly one of its keys (trapwork work, sweep)",
-         {quantity("temperature", Dimension::temperature(), "one of the four",
+         {quantity("temperature", Dimension::temperature(), "exactly one of the four keys",
                    "thermal state at T (> 0; an energy such as \"1 kB*uK\" is taken as kB T)", "\"20 uK\""),
-          plain("mean_phonons", "one of the four",
+          plain("mean_phonons", "exactly one of the four keys",
                 "thermal state with this mean phonon number of the harmonic reference frequency (> 0)", "2"),
-          whole("level", "one of the four", "the eigenstate with this index (0: ground state)", "0"),
-          array("weights", std::nullopt, "one of the four", "mixture of levels 0, 1, ... with these weights (>= 0)",
+          whole("level", "exactly one of the four keys", "the eigenstate with this index (0: ground state)", "0"),
+          array("weights", std::nullopt, "exactly one of the four keys", "mixture of levels 0, 1, ... with these weights (>= 0)",
                 "[1, 0.5]")}});
     t.push_back(
         {"work", "[work]", "the work calculation (trapwork work, sweep)",
@@ -275,9 +274,9 @@ const std::vector<TableSpec>& scenario_tables() {
                 "40"),
           whole("final_margin", std::to_string(work.final_margin),
                 "final levels computed beyond the kept initial ones", "10"),
-          quantity("resolution", E, "1/20 of the lowest level spacing",
+          quantity("resolution", Dimension::energy(), "1/20 of the lowest level spacing",
                    "energy-measurement resolution (sigma) used to broaden the work lines", "\"0.5 h*kHz\""),
-          quantity("bin_width", E, "the lowest level spacing", "histogram bin width of the work distribution",
+          quantity("bin_width", Dimension::energy(), "the lowest level spacing", "histogram bin width of the work distribution",
                    "\"1 h*kHz\""),
           flag("reverse", work.reverse_run ? "true" : "false", "also run the reversed protocol (Crooks check)",
                "false"),
@@ -290,13 +289,13 @@ const std::vector<TableSpec>& scenario_tables() {
                "protocol.duration, initial.temperature, initial.mean_phonons, a potential parameter "
                "(\"trap.quartic\"), box.left / box.right, or change[N].to",
                "\"protocol.duration\""),
-          array("values", std::nullopt, "values, or from/to/points",
+          array("values", std::nullopt, "required unless from, to and points",
                 "the values, in the parameter's dimension, in the order run", "[\"1 us\", \"2 us\"]"),
-          {"from", KeyType::quantity, std::nullopt, "with to and points", {}, "first of evenly spaced values",
+          {"from", KeyType::quantity, std::nullopt, "none (instead of values, with to and points)", {}, "first of evenly spaced values",
            "\"1 us\""},
-          {"to", KeyType::quantity, std::nullopt, "with from and points", {}, "last of evenly spaced values",
+          {"to", KeyType::quantity, std::nullopt, "none (instead of values, with from and points)", {}, "last of evenly spaced values",
            "\"3 us\""},
-          whole("points", "with from and to", "number of evenly spaced values (2 to 100000)", "3")}});
+          whole("points", "none (instead of values, with from and to)", "number of evenly spaced values (2 to 100000)", "3")}});
     return t;
   }();
   return tables;
@@ -398,8 +397,11 @@ void write_keys(std::ostream& out, const std::vector<KeySpec>& keys, bool markdo
 }
 
 void write_table(std::ostream& out, const TableSpec& t, bool markdown) {
-  if (markdown)
-    out << "## " << (t.address == "top" ? "Top level" : "`" + t.header + "`") << "\n\n" << t.meaning << ".\n\n";
+  if (markdown) {
+    std::string sentence = t.meaning;
+    sentence[0] = char(std::toupper(static_cast<unsigned char>(sentence[0])));
+    out << "## " << (t.address == "top" ? "Top level" : "`" + t.header + "`") << "\n\n" << sentence << ".\n\n";
+  }
   else
     out << t.header << " -- " << t.meaning << (t.address == "top" ? "" : " (trapwork keys " + t.address + ")") << "\n";
   write_keys(out, t.keys, markdown);
