@@ -74,8 +74,10 @@ const std::vector<ShapeSpec>& shape_specs() {
     const char* orders[] = {"cubic", "quartic", "quintic", "sextic", "septic", "octic"};
     for (int n = 3; n <= 8; ++n)
       poly.push_back(quantity(orders[n - 3], Dimension::energy_per_length(n), "0",
-                              "c" + std::to_string(n) + ", coefficient of (x - centre)^" + std::to_string(n),
-                              "\"1e-" + std::to_string(n) + " h*kHz/um^" + std::to_string(n) + "\""));
+                              std::string("c").append(std::to_string(n)).append(", coefficient of (x - centre)^")
+                                  .append(std::to_string(n)),
+                              std::string("\"1e-").append(std::to_string(n)).append(" h*kHz/um^")
+                                  .append(std::to_string(n)).append("\"")));
     s.push_back({Shape::polynomial,
                  "V(x) = (1/2) m omega^2 y^2 + c1 y + c3 y^3 + c4 y^4 + ... + c8 y^8, y = x - centre, omega = 2 pi "
                  "frequency",
@@ -384,7 +386,7 @@ void write_keys(std::ostream& out, const std::vector<KeySpec>& keys, bool markdo
     out << "| key | type | default | meaning | example |\n|---|---|---|---|---|\n";
     for (const auto& k : keys)
       out << "| `" << k.name << "` | " << cell(key_type_text(k)) << " | " << cell(k.default_text) << " | "
-          << cell(k.meaning) << " | " << (k.example.empty() ? "" : "`" + cell(k.example) + "`") << " |\n";
+          << cell(k.meaning) << " | " << (k.example.empty() ? "" : std::string("`").append(cell(k.example)).append("`")) << " |\n";
     return;
   }
   for (const auto& k : keys) {
