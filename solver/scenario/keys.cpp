@@ -148,7 +148,8 @@ const std::vector<ShapeSpec>& shape_specs() {
                   sub("parameters", KeyType::table, "none",
                       "[potential.parameters]: named values of the expression, plain numbers in its units or "
                       "quantities with a unit (\"0.3 um\", \"2 h*kHz\"), converted to x_unit, energy_unit and "
-                      "time_unit (frequencies: per time_unit, angular ones \"2pi*...\" in rad per time_unit)",
+                      "time_unit (frequencies: per time_unit, angular ones \"2pi*...\" in rad per time_unit); protocols and "
+                      "sweeps change them as plain numbers in those units",
                       "{ a = 1 }")}});
     return s;
   }();

@@ -463,7 +463,7 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
     const auto r = internal(t, p, key, parameter_dimension(*shape, p));
     if (!r && spec.required())
       fail(t.source(), key, "",
-           "required for shape = \"" + shape_text + "\": the " + spec.meaning + ", e.g. " + p + " = " + spec.example);
+           "required for shape = \"" + shape_text + "\" (no default): the " + spec.meaning + ", e.g. " + p + " = " + spec.example);
     if (!r) continue;
     if (p == "frequency")
       require(*shape == Shape::polynomial ? r->value >= 0 : r->value > 0, *r, key,
