@@ -22,7 +22,7 @@ const std::vector<ShapeInfo>& shape_table() {
   static const std::vector<ShapeInfo> table = {
       {Shape::harmonic, "harmonic", {"frequency", "centre"}},
       {Shape::polynomial, "polynomial",
-       {"frequency", "centre", "cubic", "quartic", "quintic", "sextic", "septic", "octic"}},
+       {"frequency", "centre", "linear", "cubic", "quartic", "quintic", "sextic", "septic", "octic"}},
       {Shape::gaussian, "gaussian", {"depth", "waist", "centre"}},
       {Shape::double_well, "double_well", {"barrier", "separation", "tilt", "centre"}},
       {Shape::morse, "morse", {"depth", "range", "centre"}},
@@ -246,8 +246,8 @@ double Term::value(double x, double t) const {
     case Shape::polynomial: {
       const double y = x - p[1].second, w = p[0].second;
       double sum = 0;  // Horner from the octic down to the cubic term
-      for (int k = 7; k >= 2; --k) sum = (sum + p[k].second) * y;
-      return 0.5 * w * w * y * y + sum * y * y;
+      for (int k = 8; k >= 3; --k) sum = (sum + p[k].second) * y;
+      return 0.5 * w * w * y * y + p[2].second * y + sum * y * y;
     }
     case Shape::gaussian: {
       const double y = x - p[2].second, w = p[1].second;
@@ -290,8 +290,12 @@ bool Term::depends_on_time() const { return formula_ && formula_->uses_t; }
 
 std::optional<std::pair<double, double>> Term::harmonic_part() const {
   if (shape_ != Shape::harmonic && shape_ != Shape::polynomial) return std::nullopt;
-  if (parameter("frequency") == 0) return std::nullopt;
-  return std::make_pair(parameter("frequency"), parameter("centre"));
+  const double w = parameter("frequency");
+  if (w == 0) return std::nullopt;
+  // A linear term c1 y moves the minimum of (1/2) w^2 y^2 + c1 y to y = -c1/w^2 (completing
+  // the square; the constant -c1^2/(2 w^2) does not change the shape).
+  const double c1 = shape_ == Shape::polynomial ? parameter("linear") : 0.0;
+  return std::make_pair(w, parameter("centre") - c1 / (w * w));
 }
 
 Potential::Potential(std::vector<Term> terms) {

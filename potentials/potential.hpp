@@ -7,8 +7,9 @@
 //
 // Shapes (c = centre, all shapes shift with it):
 //   harmonic       (1/2) omega^2 (x-c)^2                          frequency (angular), centre
-//   polynomial     (1/2) omega^2 (x-c)^2 + sum_{n=3..8} k_n (x-c)^n
-//                  frequency, centre, cubic, quartic, quintic, sextic, septic, octic
+//   polynomial     (1/2) omega^2 (x-c)^2 + linear (x-c) + sum_{n=3..8} k_n (x-c)^n
+//                  frequency, centre, linear (a static force -linear), cubic, quartic, quintic,
+//                  sextic, septic, octic
 //   gaussian       -depth exp(-2 (x-c)^2 / waist^2)   (1/e^2 intensity radius: optical tweezer)
 //   double_well    barrier ((x-c)^2/a^2 - 1)^2 + tilt (x-c)/a,  a = separation/2
 //                  barrier, separation (distance between the minima), tilt, centre
@@ -82,7 +83,8 @@ class Term {
   double value(double x, double t = 0) const;
   // True for a formula whose expression uses t (explicitly time-dependent).
   bool depends_on_time() const;
-  // Harmonic part (1/2) omega^2 (x - c)^2 of harmonic and polynomial terms, if any.
+  // Harmonic part (1/2) omega^2 (x - c)^2 of harmonic and polynomial terms, if any; c is the
+  // minimum of the quadratic and linear parts (centre - linear/omega^2).
   std::optional<std::pair<double, double>> harmonic_part() const;  // (omega, centre)
 
  private:

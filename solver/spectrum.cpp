@@ -477,8 +477,10 @@ std::optional<std::vector<double>> polynomial_coefficients(const Potential& pote
     std::vector<double> own(9, 0.0);
     const double w = term.parameter("frequency");
     own[2] = 0.5 * w * w;
-    if (term.shape() == Shape::polynomial)
+    if (term.shape() == Shape::polynomial) {
+      own[1] = term.parameter("linear");
       for (int j = 3; j <= 8; ++j) own[j] = term.parameter(names[j - 3]);
+    }
     // (y + d)^j with y = x - centre, d = centre - c_term.
     const double d = centre - term.parameter("centre");
     for (int j = 0; j <= 8; ++j) {

@@ -114,6 +114,8 @@ const std::vector<NamedDimension>& named_dimensions() {
                                             "energy per length^6",
                                             "energy per length^7",
                                             "energy per length^8"};
+    t.push_back({Dimension::energy_per_length(1), "energy per length",
+                 "an energy per length, a force (e.g. \"0.5 h*kHz/um\")"});
     for (int n = 3; n <= 8; ++n)
       t.push_back({Dimension::energy_per_length(n), per_length_name[n], per_length[n]});
     return t;
@@ -197,6 +199,8 @@ const std::vector<UnitAtom>& unit_atoms() {
       {"h", si::planck_h, action},
       {"hbar", si::hbar, action},
       {"kB", si::boltzmann, per_kelvin_energy},
+      // the radian of an angular frequency ("9.42 rad/us"): allowed there only (parse_quantity)
+      {"rad", 1, Dimension::none()},
       // micro written with the micro sign (U+00B5) or the Greek mu (U+03BC)
       {"\xC2\xB5m", 1e-6, L},
       {"\xC2\xB5s", 1e-6, T},
@@ -251,14 +255,65 @@ std::pair<std::string, std::string> split_number(const std::string& s, std::size
   return {trim(s.substr(0, n)), trim(s.substr(n))};
 }
 
+const char* const frequency_advice =
+    "write \"1.5 MHz\" (ordinary frequency f) or \"2pi*1.5 MHz\" (angular frequency omega = 2 pi f)";
+
+// Length of a leading "2pi*" ("2*pi*", "2 pi", "2π×", "2π*", "2·π·") in s, or 0.
+std::size_t two_pi_prefix(const std::string& s) {
+  std::size_t p = 0;
+  auto skip = [&] {
+    while (p < s.size() && is_space(s[p])) ++p;
+  };
+  auto times = [&] {  // '*', the multiplication sign U+00D7 or the middle dot U+00B7
+    if (p < s.size() && s[p] == '*') return ++p, true;
+    if (s.compare(p, 2, "\xC3\x97") == 0 || s.compare(p, 2, "\xC2\xB7") == 0) return p += 2, true;
+    return false;
+  };
+  if (s.empty() || s[0] != '2') return 0;
+  p = 1;
+  skip();
+  times();
+  skip();
+  if (s.compare(p, 2, "pi") == 0 || s.compare(p, 2, "\xCF\x80") == 0)  // "pi" or the Greek pi
+    p += 2;
+  else
+    return 0;
+  if (p < s.size() && is_unit_char(s[p]) && s.compare(p, 2, "\xC3\x97") != 0 && s.compare(p, 2, "\xC2\xB7") != 0)
+    return 0;  // a longer word ("2pico")
+  skip();
+  times();
+  skip();
+  return p;
+}
+
 }  // namespace
 
-// Grammar: number [unit {('*' | '/') unit}], unit = name ['^' integer], left to right
-// ("h*kHz/um^4" = h * kHz / um^4). Units multiply literally: "hbar*kHz" is hbar times
-// 10^3 s^-1 (an angular frequency of 10^3 rad/s), i.e. h*kHz / (2 pi).
+std::string unit_text(std::string_view text) {
+  const std::string s = trim(text);
+  return split_number(s.substr(two_pi_prefix(s))).second;
+}
+
+// Grammar: ["2pi*"] number [unit {('*' | '/') unit}], unit = name ['^' integer], left to right
+// ("h*kHz/um^4" = h * kHz / um^4); "1/s" or "/s" may start the unit. Units multiply literally:
+// "hbar*kHz" is hbar times 10^3 s^-1 (an angular frequency of 10^3 rad/s), i.e. h*kHz / (2 pi).
+// A frequency must name Hz ("1.5 MHz", ordinary) or be angular ("2pi*1.5 MHz", "9.42 rad/us");
+// "s^-1" alone does not say whether 2 pi is in it and is refused.
 Quantity parse_quantity(std::string_view text_in) {
   const std::string s = trim(text_in);
   const std::string shown(text_in);
+  if (const std::size_t prefix = two_pi_prefix(s)) {
+    Quantity q;
+    const std::string expected =
+        "a frequency after 2pi*, e.g. \"2pi*1.5 MHz\" (the angular frequency 2 pi x 1.5 MHz, i.e. f = 1.5 MHz)";
+    try {
+      q = parse_quantity(s.substr(prefix));
+    } catch (const InputError& e) {
+      throw InputError("", shown, expected + ": " + e.expected, e.suggestion);
+    }
+    if (q.plain || !(q.dimension == Dimension::frequency()) || q.angular) throw InputError("", shown, expected);
+    q.angular = true;
+    return q;
+  }
   std::size_t pos = 0;
   split_number(s, &pos);
   if (pos == 0) throw InputError("", shown, number_expected);
@@ -274,6 +329,18 @@ Quantity parse_quantity(std::string_view text_in) {
   double factor = 1;
   Dimension dim;
   int sign = 1;  // +1 after '*' (or at the start), -1 after '/'
+  bool hertz = false;    // a unit of Hz was named
+  int radian_power = 0;  // of "rad"
+  if (s[pos] == '1') {   // "1/s": the '/' starts the unit
+    std::size_t p = pos + 1;
+    while (p < s.size() && is_space(s[p])) ++p;
+    if (p < s.size() && s[p] == '/') pos = p;
+  }
+  if (s[pos] == '/') {
+    sign = -1;
+    ++pos;
+    while (pos < s.size() && is_space(s[pos])) ++pos;
+  }
   while (true) {
     const std::size_t start = pos;
     while (pos < s.size() && is_unit_char(s[pos])) ++pos;
@@ -301,6 +368,8 @@ Quantity parse_quantity(std::string_view text_in) {
         throw InputError("", shown, "an integer power after '^' in '" + name + "^...'");
       power = std::stoi(s.substr(power_start, pos - power_start));
     }
+    if (atom->dimension == Dimension::frequency()) hertz = true;
+    if (name == "rad") radian_power += sign * power;
     factor *= std::pow(atom->si, sign * power);
     for (int i = 0; i < 4; ++i) dim.power[i] += sign * power * atom->dimension.power[i];
     while (pos < s.size() && is_space(s[pos])) ++pos;
@@ -310,6 +379,17 @@ Quantity parse_quantity(std::string_view text_in) {
     sign = s[pos] == '*' ? 1 : -1;
     ++pos;
     while (pos < s.size() && is_space(s[pos])) ++pos;
+  }
+  if (radian_power != 0) {
+    if (radian_power != 1 || !(dim == Dimension::frequency()))
+      throw InputError("", shown, "rad only in an angular frequency such as \"9.42 rad/us\"; " +
+                                      std::string(frequency_advice));
+    factor /= 2 * si::pi;  // value_si is the ordinary frequency f = omega / (2 pi)
+    q.angular = true;
+  } else if (dim == Dimension::frequency() && !hertz) {
+    throw InputError("", shown,
+                     "a frequency with Hz or written as angular: " + std::string(frequency_advice) +
+                         " (\"" + split_number(s).second + "\" does not say whether it is f or 2 pi f)");
   }
   q.value_si = number * factor;
   q.dimension = dim;
@@ -399,6 +479,11 @@ std::string lab_text(double value_si, Dimension d, int digits) {
              {"h*GHz", 1e9 * si::planck_h}};
   else if (d == Dimension::mass())
     units = {{"u", si::atomic_mass}};
+  if (d == Dimension::energy_per_length(1)) {
+    char buffer[64];
+    std::snprintf(buffer, sizeof buffer, "%.*g h*Hz/nm", digits, value_si / (si::planck_h / 1e-9));
+    return buffer;
+  }
   for (int n = 3; n <= 8; ++n)
     if (d == Dimension::energy_per_length(n)) {
       units = {{"h*Hz/nm^", si::planck_h / std::pow(1e-9, n)}};

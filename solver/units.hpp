@@ -50,11 +50,19 @@ struct Quantity {
   double value_si = 0;   // value in SI (kg, m, s, K); for plain numbers the number itself
   Dimension dimension;   // meaningless when `plain`
   bool plain = false;    // no unit given: natural (internal) units
+  // A frequency written as an angular one ("2pi*1.5 MHz", "9.42 rad/us"); value_si is still
+  // the ordinary frequency f (1.5e6 Hz for both).
+  bool angular = false;
 };
 
 // Parses "40 u", "1.2 MHz", "15 nm", "3 us", "2 uK", "0.5 h*kHz", "2e-3 h*kHz/um^4",
-// "1 kB*uK", "7 hbar*kHz" or a plain number. Throws InputError (key empty) on bad text.
+// "1 kB*uK", "7 hbar*kHz" or a plain number. Frequencies are ordinary ("1.5 MHz") or angular
+// ("2pi*1.5 MHz", "2*pi*1.5 MHz", "2π×1.5 MHz", "9.42 rad/us": all mean f = 1.5 MHz); a
+// frequency naming neither Hz nor rad ("9.42e6 1/s", "s^-1") is refused as ambiguous. Throws
+// InputError (key empty) on bad text.
 Quantity parse_quantity(std::string_view text);
+// The unit part of a quantity's text: "MHz" for "1.5 MHz" and for "2pi*1.5 MHz", "" for "3".
+std::string unit_text(std::string_view text);
 
 // The internal unit system of one scenario.
 struct UnitSystem {

@@ -488,6 +488,11 @@ std::optional<HarmonicComparison> harmonic_comparison(const Potential& base, con
     h.reference = {displaced_transition_matrix(rows, cols, h.parameter)};
   } else if (carrier && protocol.schedules().size() == 1 &&
              protocol.schedules().front().address() == carrier->name() + ".frequency") {
+    if (carrier->shape() == Shape::polynomial && carrier->parameter("linear") != 0) {
+      why_not = "the trap has a linear (force) term: changing the frequency moves its minimum, which the "
+                "parametric-oscillator model leaves out";
+      return std::nullopt;
+    }
     const Schedule& s = protocol.schedules().front();
     w0 = std::abs(s.initial_value(tau));
     w1 = std::abs(s.final_value(tau));

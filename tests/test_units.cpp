@@ -265,3 +265,40 @@ TEST_CASE("conversion_rounded drops the rounding noise of a unit conversion", "[
   CHECK(std::isnan(conversion_rounded(std::nan(""))));
   CHECK(conversion_rounded(-0.0) == 0.0);
 }
+
+TEST_CASE("issue 16: angular frequencies are accepted as 2pi*f or rad per time, s^-1 alone is refused", "[units]") {
+  const double pi = 3.14159265358979323846;
+  for (const char* text : {"2pi*1.5 MHz", "2*pi*1.5 MHz", "2 pi * 1.5 MHz", "2pi 1.5 MHz",
+                           "2\xCF\x80\xC3\x97" "1.5 MHz", "2\xCF\x80*1.5 MHz"}) {
+    INFO(text);
+    const Quantity q = parse_quantity(text);
+    CHECK(q.dimension == Dimension::frequency());
+    CHECK(q.angular);
+    CHECK(q.value_si == Approx(1.5e6).epsilon(1e-15));  // the ordinary frequency f
+    CHECK(unit_text(text) == "MHz");
+  }
+  const Quantity rad = parse_quantity("9.42477796076938 rad/us");  // 2 pi x 1.5 per us
+  CHECK(rad.angular);
+  CHECK(rad.value_si == Approx(1.5e6).epsilon(1e-14));
+  CHECK(parse_quantity("3 rad/s").value_si == Approx(3 / (2 * pi)).epsilon(1e-15));
+  CHECK_FALSE(parse_quantity("1.5 MHz").angular);
+  CHECK(unit_text("1.5 MHz") == "MHz");
+  CHECK(unit_text("3") == "");
+  // Ambiguous: a frequency built from seconds says neither f nor 2 pi f.
+  for (const char* text : {"9.42e6 1/s", "9.42e6 s^-1", "9.42 /us", "9.42 1 / us"}) {
+    INFO(text);
+    CHECK_THROWS_WITH(parse_quantity(text),
+                      Catch::Contains("write \"1.5 MHz\" (ordinary frequency f) or \"2pi*1.5 MHz\" (angular"));
+  }
+  // "1/" starts other units too: an inverse length is no frequency.
+  CHECK(parse_quantity("2 1/um").dimension == (Dimension{{0, -1, 0, 0}}));
+  CHECK_THROWS_WITH(parse_quantity("2pi*3 um"), Catch::Contains("a frequency after 2pi*"));
+  CHECK_THROWS_WITH(parse_quantity("2pi*3"), Catch::Contains("a frequency after 2pi*"));
+  CHECK_THROWS_WITH(parse_quantity("3 rad"), Catch::Contains("rad only in an angular frequency"));
+  CHECK_THROWS_WITH(parse_quantity("3 rad^2/s"), Catch::Contains("rad only in an angular frequency"));
+  // Numbers starting with 2 are not taken for 2pi: "2 pm", "2.5 MHz", "20 uK".
+  CHECK(parse_quantity("2 pm").value_si == Approx(2e-12));
+  CHECK(parse_quantity("2.5 MHz").value_si == Approx(2.5e6));
+  CHECK_FALSE(parse_quantity("2.5 MHz").angular);
+  CHECK(parse_quantity("20 uK").value_si == Approx(2e-5));
+}

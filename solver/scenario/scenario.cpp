@@ -15,6 +15,7 @@
 
 #include "solver/errors.hpp"
 #include "solver/scenario/data_files.hpp"
+#include "solver/scenario/keys.hpp"
 
 namespace trapwork {
 
@@ -22,22 +23,11 @@ namespace {
 
 namespace fs = std::filesystem;
 
-const std::vector<std::string> top_level_keys = {"title",  "description", "particle", "units",
-                                                 "potential", "box",   "spectrum", "grid",
-                                                 "output", "protocol", "initial", "work", "sweep"};
-
-// Dimension of each named shape parameter (potentials/potential.hpp).
-Dimension parameter_dimension(std::string_view p) {
-  if (p == "frequency") return Dimension::frequency();
-  if (p == "centre" || p == "separation" || p == "range" || p == "width" || p == "waist" ||
-      p == "half_width" || p == "softness" || p == "left" || p == "right")
-    return Dimension::length();
-  if (p == "depth" || p == "barrier" || p == "tilt" || p == "height") return Dimension::energy();
-  static const char* orders[] = {"cubic", "quartic", "quintic", "sextic", "septic", "octic"};
-  for (int n = 3; n <= 8; ++n)
-    if (p == orders[n - 3]) return Dimension::energy_per_length(n);
-  if (p == "scale" || p == "power") return Dimension::none();
-  throw ContractViolation("scenario reader: no dimension known for parameter '" + std::string(p) + "'");
+// Dimension of a shape parameter, from the key reference (keys.hpp): none for plain numbers.
+Dimension parameter_dimension(Shape shape, std::string_view p) {
+  const KeySpec* k = shape_parameter(shape, p);
+  if (!k) throw ContractViolation("scenario reader: the key reference has no parameter '" + std::string(p) + "'");
+  return k->dimension.value_or(Dimension::none());
 }
 
 bool parameter_must_be_positive(std::string_view p) {
@@ -229,6 +219,49 @@ class Reader {
     return units_.to_internal(q, d);
   }
 
+  // A value of a formula's [potential.parameters]: a plain number (in the units the expression
+  // is written in), or a quantity with a unit converted to them: a quantity of dimension
+  // kg^a m^b s^c is energy^a length^(b-2a) time^(c+2a), so it is divided by energy_unit^a
+  // x_unit^(b-2a) time_unit^(c+2a) (x_per, e_per, t_per: internal values of one of each);
+  // a temperature is kB T, an energy; a frequency counts cycles per time_unit, or radians per
+  // time_unit when written as angular ("2pi*1.5 MHz"). A mass, or a mass power other than 0
+  // and 1, is refused (InputError at the value).
+  double formula_parameter(const toml::node& v, const std::string& key, double x_per, double e_per,
+                           double t_per) const {
+    const std::string expected =
+        "a plain number in the units the expression is written in, or a quantity with its unit (\"0.3 um\", "
+        "\"2 h*kHz\", \"1.5 MHz\") converted to x_unit, energy_unit and time_unit";
+    if (v.is_number()) {
+      const double value = v.value<double>().value();
+      if (!std::isfinite(value)) fail(v, key, "a finite plain number");
+      return value;
+    }
+    if (!v.is_string()) fail(v, key, expected);
+    Quantity q;
+    try {
+      q = parse_quantity(v.as_string()->get());
+    } catch (const InputError& e) {
+      fail(v, key, expected + ": " + e.expected, e.suggestion);
+    }
+    if (q.plain) return q.value_si;
+    std::array<int, 4> d = q.dimension.power;
+    double value = q.value_si;
+    if (d[3] != 0) {  // kB T
+      if (!(q.dimension == Dimension::temperature())) fail(v, key, expected + "; a temperature only alone (kB T)");
+      value *= si::boltzmann;
+      d = Dimension::energy().power;
+    }
+    const int a = d[0], b = d[1] - 2 * d[0], c = d[2] + 2 * d[0];
+    if ((a != 0 && a != 1) || q.dimension == Dimension::mass())
+      fail(v, key, expected + "; not " + with_article(q.dimension) + " (the formula's units hold no mass)");
+    const double energy_si = e_per * units_.energy_J(), length_si = x_per * units_.length_m,
+                 time_si = t_per * units_.time_s();
+    value /= std::pow(energy_si, a) * std::pow(length_si, b) * std::pow(time_si, c);
+    if (q.angular) value *= 2 * si::pi;  // radians per time_unit
+    if (!std::isfinite(value)) fail(v, key, "a value that is finite in the formula's units");
+    return value;
+  }
+
   void read_units(const toml::table& root, Scenario& s);
   void read_term(const toml::table& t, int index, Scenario& s);
   void read_soft_walls(const toml::table& box, Scenario& s);
@@ -288,7 +321,7 @@ void Reader::read_units(const toml::table& root, Scenario& s) {
   if (!particle)
     throw InputError("particle.mass", "", "a [particle] table with the mass, e.g. mass = \"40 u\"", "",
                      file_);
-  check_keys(*particle, "particle", {"mass"});
+  check_keys(*particle, "particle", table_keys("particle"));
   const auto mass = si(*particle, "mass", "particle.mass", Dimension::mass(), "internal units have m = 1");
   if (!mass) fail(particle->source(), "particle.mass", "", "a mass, e.g. mass = \"40 u\"");
   require(mass->value > 0, *mass, "particle.mass", "a mass > 0");
@@ -296,7 +329,7 @@ void Reader::read_units(const toml::table& root, Scenario& s) {
   const toml::table* units = table(root, "units");
   static const toml::table empty;
   if (!units) units = &empty;
-  check_keys(*units, "units", {"reference_frequency", "length", "energy", "natural"});
+  check_keys(*units, "units", table_keys("units"));
   natural_ = boolean(*units, "natural", "units.natural").value_or(false);
   s.natural_units = natural_;
   std::optional<Read> frequency = si(*units, "reference_frequency", "units.reference_frequency",
@@ -409,40 +442,28 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
   if (record.name == "box")
     fail(*t.get("name"), prefix + ".name", "a name other than \"box\" (box.left and box.right are the walls)");
   const toml::node* shape_node = t.get("shape");
-  if (!shape_node)
-    fail(t.source(), prefix + ".shape", "",
-         "a shape: harmonic, polynomial, gaussian, double_well, morse, poschl_teller, "
-         "square_well, power_walls, erf_walls, table or formula");
-  std::vector<std::string> shape_names;
-  for (Shape sh : {Shape::harmonic, Shape::polynomial, Shape::gaussian, Shape::double_well, Shape::morse,
-                   Shape::poschl_teller, Shape::square_well, Shape::power_walls, Shape::erf_walls, Shape::table,
-                   Shape::formula})
-    shape_names.emplace_back(shape_name(sh));
+  const std::vector<std::string> shape_names = table_spec("potential").keys[1].choices;  // the reference's shapes
+  std::string shape_list;
+  for (const auto& n : shape_names) shape_list += (shape_list.empty() ? "" : ", ") + n;
+  if (!shape_node) fail(t.source(), prefix + ".shape", "", "a shape: one of " + shape_list);
   const std::string shape_text = string(t, "shape", prefix + ".shape").value();
   const auto shape = shape_from_name(shape_text);
-  if (!shape) {
-    std::string list;
-    for (const auto& n : shape_names) list += (list.empty() ? "" : ", ") + n;
-    fail(*shape_node, prefix + ".shape", "one of " + list, closest_name(shape_text, shape_names));
-  }
+  if (!shape) fail(*shape_node, prefix + ".shape", "one of " + shape_list, closest_name(shape_text, shape_names));
   record.shape = shape_text;
 
-  // Allowed keys: name, shape, the shape's parameters (formula: not the unit factors, which
-  // follow from x_unit and time_unit), and the table/formula settings.
-  std::vector<std::string> parameter_names;
-  for (const auto& p : shape_parameters(*shape))
-    if (p != "length_factor" && p != "time_factor") parameter_names.push_back(p);
-  std::vector<std::string> allowed = {"name", "shape"};
-  allowed.insert(allowed.end(), parameter_names.begin(), parameter_names.end());
-  if (*shape == Shape::table) allowed.insert(allowed.end(), {"file", "x_unit", "energy_unit"});
-  if (*shape == Shape::formula)
-    allowed.insert(allowed.end(), {"expression", "x_unit", "energy_unit", "time_unit", "parameters"});
+  // Allowed keys (the key reference): name, shape, the shape's parameters (formula: not the
+  // unit factors, which follow from x_unit and time_unit), and the table/formula settings.
+  const std::vector<std::string> allowed = term_keys(*shape);
   check_keys(t, prefix, allowed);
 
   std::vector<std::pair<std::string, double>> parameters;
-  for (const auto& p : parameter_names) {
+  for (const KeySpec& spec : shape_spec(*shape).parameters) {
+    const std::string& p = spec.name;
     const std::string key = prefix + "." + p;
-    const auto r = internal(t, p, key, parameter_dimension(p));
+    const auto r = internal(t, p, key, parameter_dimension(*shape, p));
+    if (!r && spec.required())
+      fail(t.source(), key, "",
+           "required for shape = \"" + shape_text + "\" (no default): the " + spec.meaning + ", e.g. " + p + " = " + spec.example);
     if (!r) continue;
     if (p == "frequency")
       require(*shape == Shape::polynomial ? r->value >= 0 : r->value > 0, *r, key,
@@ -452,7 +473,7 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
     if (p == "height") require(r->value > 0, *r, key, "an energy > 0");
     if (p == "power") require(r->value > 0, *r, key, "a number > 0");
     parameters.emplace_back(p, r->value);
-    record.parameters.push_back({p, r->given, r->value, parameter_dimension(p)});
+    record.parameters.push_back({p, r->given, r->value, parameter_dimension(*shape, p)});
   }
 
   // Settings of tabulated and formula terms.
@@ -509,9 +530,7 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
               name == "time_factor" || name == "x" || name == "t")
             fail(k.source(), key, "", "a name other than x, t and the term's own keys");
           if (!is_identifier(name)) fail(k.source(), key, "", "a name of letters, digits and '_'");
-          if (!v.is_number()) fail(v, key, "a plain number, in the units the expression is written in");
-          const double value = v.value<double>().value();
-          if (!std::isfinite(value)) fail(v, key, "a finite plain number");
+          const double value = formula_parameter(v, key, x_per, e_per, t_per);
           parameters.emplace_back(name, value);
           record.parameters.push_back({name, found_text(v), value, Dimension::none()});
         }
@@ -533,7 +552,7 @@ void Reader::read_soft_walls(const toml::table& box, Scenario& s) {
   const toml::node* node = box.get("soft_walls");
   if (!node->is_table()) fail(*node, "box.soft_walls", "a table [box.soft_walls]");
   const toml::table* t = node->as_table();
-  check_keys(*t, "box.soft_walls", {"widths", "height", "power", "points"});
+  check_keys(*t, "box.soft_walls", table_keys("box.soft_walls"));
   SoftWallRequest r;
   const toml::node* widths = t->get("widths");
   const toml::array* a = widths ? widths->as_array() : nullptr;
@@ -575,7 +594,7 @@ double term_centre(const Term& t) {
 
 void Reader::read_box_and_grid(const toml::table& root, Scenario& s) {
   if (const toml::table* box = table(root, "box")) {
-    check_keys(*box, "box", {"left", "right", "soft_walls"});
+    check_keys(*box, "box", table_keys("box"));
     const auto left = internal(*box, "left", "box.left", Dimension::length());
     const auto right = internal(*box, "right", "box.right", Dimension::length());
     if (!left || !right)
@@ -590,7 +609,7 @@ void Reader::read_box_and_grid(const toml::table& root, Scenario& s) {
     s.spectrum.search_centre = term_centre(s.potential.terms().front());
   const toml::table* grid = table(root, "grid");
   if (!grid) return;
-  check_keys(*grid, "grid", {"points", "left", "right", "convergence_check", "search_half_width"});
+  check_keys(*grid, "grid", table_keys("grid"));
   if (const auto n = integer(*grid, "points", "grid.points", 4, 1 << 24)) s.spectrum.points = std::size_t(*n);
   const auto left = internal(*grid, "left", "grid.left", Dimension::length());
   const auto right = internal(*grid, "right", "grid.right", Dimension::length());
@@ -617,7 +636,7 @@ void Reader::read_spectrum(const toml::table& root, Scenario& s) {
   const toml::table* spectrum = table(root, "spectrum");
   if (!spectrum) return;
   auto& o = s.spectrum.options;
-  check_keys(*spectrum, "spectrum", {"levels", "method", "fd_order", "degeneracy"});
+  check_keys(*spectrum, "spectrum", table_keys("spectrum"));
   if (const auto n = integer(*spectrum, "levels", "spectrum.levels", 1, 100000)) o.levels = int(*n);
   if (const auto m = string(*spectrum, "method", "spectrum.method")) {
     static const std::vector<std::pair<std::string, EigenMethod>> methods = {
@@ -710,7 +729,7 @@ void Reader::read_parameter_slots(Scenario& s) const {
     for (const auto& [name, value] : term.parameters()) {
       if (name == "length_factor" || name == "time_factor") continue;  // unit conversions
       const bool user = std::find(fixed.begin(), fixed.end(), name) == fixed.end();
-      ParameterSlot slot{term.name() + "." + name, user ? Dimension::none() : parameter_dimension(name), 1};
+      ParameterSlot slot{term.name() + "." + name, user ? Dimension::none() : parameter_dimension(term.shape(), name), 1};
       if (name == "scale" && term.shape() == Shape::formula) slot.plain_factor = formula_energy_.at(term.name());
       s.parameters.push_back(slot);
     }
@@ -732,7 +751,7 @@ double Reader::slot_value(const toml::node& n, const std::string& dotted, const 
 
 ChangeSpec Reader::read_change(const toml::table& t, const std::string& prefix, const Scenario& s,
                                double tau) const {
-  check_keys(t, prefix, {"parameter", "ramp", "to", "from", "file", "formula", "time_unit", "value_unit"});
+  check_keys(t, prefix, table_keys("protocol.change"));
   ChangeSpec c;
   const auto parameter = string(t, "parameter", prefix + ".parameter");
   if (!parameter) fail(t.source(), prefix + ".parameter", "", "the parameter to change, e.g. \"trap.centre\"");
@@ -901,7 +920,7 @@ void Reader::check_protocol(const Scenario& s, const toml::node& where, const st
 void Reader::read_protocol(const toml::table& root, Scenario& s) const {
   const toml::table* p = table(root, "protocol");
   if (!p) return;
-  check_keys(*p, "protocol", {"duration", "change"});
+  check_keys(*p, "protocol", table_keys("protocol"));
   const auto duration = internal(*p, "duration", "protocol.duration", Dimension::time());
   if (!duration)
     fail(p->source(), "protocol.duration", "", "the duration of the protocol, e.g. duration = \"2.5 us\"");
@@ -930,7 +949,7 @@ void Reader::read_protocol(const toml::table& root, Scenario& s) const {
 void Reader::read_initial(const toml::table& root, Scenario& s) const {
   const toml::table* t = table(root, "initial");
   if (!t) return;
-  const std::vector<std::string> kinds = {"temperature", "mean_phonons", "level", "weights"};
+  const std::vector<std::string> kinds = table_keys("initial");
   check_keys(*t, "initial", kinds);
   // Exactly one kind; the second one in the file is the one reported.
   const toml::node* first = nullptr;
@@ -984,9 +1003,7 @@ void Reader::read_work(const toml::table& root, Scenario& s) const {
   r.threads = int(std::max(1u, std::thread::hardware_concurrency()));
   const toml::table* t = table(root, "work");
   if (!t) return;
-  check_keys(*t, "work",
-             {"integrator", "steps", "frame", "thermal_tolerance", "max_initial_levels", "final_margin",
-              "resolution", "bin_width", "reverse", "time_step_check", "threads"});
+  check_keys(*t, "work", table_keys("work"));
   if (const auto i = choice<Integrator>(*t, "integrator", "work.integrator",
                                         {{"fourth_order", Integrator::fourth_order},
                                          {"strang", Integrator::strang},
@@ -1022,7 +1039,7 @@ void Reader::read_work(const toml::table& root, Scenario& s) const {
 void Reader::read_sweep(const toml::table& root, Scenario& s) const {
   const toml::table* t = table(root, "sweep");
   if (!t) return;
-  check_keys(*t, "sweep", {"parameter", "values", "from", "to", "points"});
+  check_keys(*t, "sweep", table_keys("sweep"));
   const auto parameter = string(*t, "parameter", "sweep.parameter");
   if (!parameter) fail(t->source(), "sweep.parameter", "", "the parameter to sweep, e.g. \"protocol.duration\"");
   const toml::node& parameter_node = *t->get("parameter");
@@ -1127,11 +1144,7 @@ void Reader::read_sweep(const toml::table& root, Scenario& s) const {
   // Display unit: the unit of the first value as written ("1 us" -> us); plain numbers stay.
   const std::string first = values->is_array() ? w.given.front() : found_text(*values);
   if (first.size() > 2 && first.front() == '"') {
-    const std::string text = first.substr(1, first.size() - 2);
-    char* end = nullptr;
-    std::strtod(text.c_str(), &end);
-    std::string unit(end);
-    unit.erase(0, unit.find_first_not_of(" \t"));
+    const std::string unit = unit_text(first.substr(1, first.size() - 2));  // "MHz" for "2pi*1.5 MHz" too
     w.unit = unit;
     w.internal_per_unit = units_.to_internal(parse_quantity("1 " + unit), w.dimension);
   } else {
@@ -1157,7 +1170,7 @@ void Reader::read_sweep(const toml::table& root, Scenario& s) const {
 Scenario Reader::read(const toml::table& root) {
   Scenario s;
   s.file = file_;
-  check_keys(root, "", top_level_keys);
+  check_keys(root, "", table_keys("top"));
   s.title = string(root, "title", "title").value_or("");
   s.description = string(root, "description", "description").value_or("");
   read_units(root, s);
@@ -1187,7 +1200,7 @@ Scenario Reader::read(const toml::table& root) {
 
   s.output_folder = fs::path(file_).stem().string() + "-output";
   if (const toml::table* output = table(root, "output")) {
-    check_keys(*output, "output", {"folder"});
+    check_keys(*output, "output", table_keys("output"));
     if (const auto folder = string(*output, "folder", "output.folder")) {
       if (folder->empty()) fail(*output->get("folder"), "output.folder", "a folder name");
       s.output_folder = *folder;

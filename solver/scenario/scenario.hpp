@@ -5,7 +5,8 @@
 // internal units (hbar = m = 1, solver/units.hpp) once, here. A plain number for a
 // dimensional quantity is an error unless [units] natural = true, where it means internal
 // units (stated in the report header); dimensionless values (level, weights, mean_phonons,
-// points, steps, tolerances, formula parameters) are plain numbers. Every problem (TOML syntax, unknown or misspelt key, wrong type, wrong dimension,
+// points, steps, tolerances) are plain numbers. Every key, its type, dimension and default:
+// the key reference solver/scenario/keys.hpp, from which the reader takes the keys it accepts. Every problem (TOML syntax, unknown or misspelt key, wrong type, wrong dimension,
 // value out of range, bad data file) throws InputError with file, line, column and the
 // dotted key, e.g. "trap.toml:7:13: potential[1].frequency = \"-1 MHz\": a frequency > 0".
 // [[potential]] tables are counted from 1, as a person reads the file.
@@ -17,7 +18,9 @@
 //                (true: bare numbers are internal values)
 //   [[potential]] name, shape, the shape's parameters (potentials/potential.hpp); table shape:
 //                file, x_unit, energy_unit; formula shape: expression, x_unit, energy_unit,
-//                time_unit and a [potential.parameters] table of plain numbers
+//                time_unit and a [potential.parameters] table of plain numbers (in the
+//                expression's units) or quantities with units, converted to x_unit,
+//                energy_unit and time_unit
 //   [box]        left, right (hard walls)
 //   [spectrum]   levels, method, fd_order, degeneracy
 //   [grid]       points, left, right, convergence_check, search_half_width

@@ -14,6 +14,7 @@
 #include <vector>
 
 #include "solver/errors.hpp"
+#include "solver/scenario/keys.hpp"
 #include "solver/units.hpp"
 
 namespace trapwork {
@@ -22,14 +23,16 @@ namespace {
 
 using Json = nlohmann::json;
 
-// The scenario's tables, as the reader knows them (top_level_keys in scenario.cpp); used to
-// append a missing table, to order the tables written from JSON and for suggestions.
-const std::vector<std::string> scenario_tables = {"particle", "units", "potential", "box",
-                                                  "spectrum", "grid",  "output",    "protocol",
-                                                  "initial",  "work",  "sweep"};
-const std::vector<std::string> top_level_order = {"title",   "description", "particle", "units",  "potential",
-                                                  "box",     "spectrum",    "grid",     "output", "protocol",
-                                                  "initial", "work",        "sweep"};
+// The scenario's tables and top-level keys in file order, from the key reference the reader
+// uses (keys.hpp); used to append a missing table, to order the tables written from JSON and
+// for suggestions.
+const std::vector<std::string> top_level_order = table_keys("top");
+const std::vector<std::string> scenario_table_names = [] {
+  std::vector<std::string> out;
+  for (const KeySpec& k : table_spec("top").keys)
+    if (k.type == KeyType::table || k.type == KeyType::tables) out.push_back(k.name);
+  return out;
+}();
 
 const char* const address_forms = "table.key, <term name>.<parameter>, potential[N].key or change[N].key";
 
@@ -310,7 +313,7 @@ void Edit::unknown(const toml::table& root, const std::string& expected, bool su
   if (!suggest) throw InputError(address_, value_, expected, "", file_);
   std::vector<std::string> known;
   collect_addresses(root, "", known);
-  std::vector<std::string> heads = scenario_tables;
+  std::vector<std::string> heads = scenario_table_names;
   heads.insert(heads.end(), {"title", "description"});
   const auto named = terms(root);
   for (std::size_t i = 0; i < named.size(); ++i) {
@@ -357,7 +360,7 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
         first = 1;
       }
     if (!first &&
-        std::find(scenario_tables.begin(), scenario_tables.end(), path[0].key) == scenario_tables.end())
+        std::find(scenario_table_names.begin(), scenario_table_names.end(), path[0].key) == scenario_table_names.end())
       unknown(root, not_found);
   }
   table_name = first ? "potential" : path[0].key;  // for the exclusive keys of [initial] and [sweep]
@@ -382,7 +385,7 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
       }
       if (current == &root &&
           (s.key == "potential" ||
-           std::find(scenario_tables.begin(), scenario_tables.end(), s.key) == scenario_tables.end()))
+           std::find(scenario_table_names.begin(), scenario_table_names.end(), s.key) == scenario_table_names.end()))
         unknown(root, not_found);
       missing.push_back(s.key);
       continue;
@@ -416,7 +419,7 @@ std::string Edit::apply(std::string& table_name, std::string& key_name) {
   if (last.index) unknown(root, "an address of a key: " + segment_text(last) + " is an array element", false);
   key_name = last.key;
   if (path.size() == 1 &&
-      std::find(scenario_tables.begin(), scenario_tables.end(), last.key) != scenario_tables.end())
+      std::find(scenario_table_names.begin(), scenario_table_names.end(), last.key) != scenario_table_names.end())
     unknown(root, "an address of a value: [" + last.key + "] is a table; give one of its keys", false);
 
   std::string text = text_;

@@ -106,6 +106,15 @@ struct SweepCommand {
 void add_sweep_command(CLI::App& app);
 void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostream& progress);
 
+// trapwork keys [TABLE] [--markdown]: the key reference of scenario files (keys_text,
+// solver/scenario/keys.hpp); an unknown TABLE is an InputError listing the known ones.
+struct KeysCommand {
+  std::string table;  // "work", "box.soft_walls", "potential.gaussian", ...; empty: all
+  bool markdown = false;
+};
+void add_keys_command(CLI::App& app);
+void run_keys(const KeysCommand& command, std::ostream& out);
+
 // ---- measured data: fit, compare, plan (solver/tool/fit_command.cpp, compare_command.cpp,
 // plan_command.cpp; data files in solver/scenario/data_files.hpp) ---------------------------------
 
