@@ -73,15 +73,17 @@ def main():
                 nu = e[upper] - e[lower] + noise.gauss(0.0, sigma)
                 rows.append((lower, upper, f"{nu:.5f}", f"{sigma:g}", f"{force:g}", 1))
     rows.append((0, 1, "998.91234", "0.015", "0", 0))  # the rejected scan
-    header = f"""# INVENTED DEMO DATA, not a measurement: motional sideband spectroscopy of a 40 u ion.
+    # The column names first, the provenance comments after them: numpy.genfromtxt(names=True)
+    # would take a comment line before the names as the names (README's loading recipe).
+    comments = f"""# INVENTED DEMO DATA, not a measurement: motional sideband spectroscopy of a 40 u ion.
 # Made by examples/make_ion_spectroscopy_lines.py from the trap of ion_shuttle_model.toml:
-#   frequency {FREQUENCY}, cubic {CUBIC}, quartic {QUARTIC}, plus a static tilt F x
+#   frequency {FREQUENCY}, cubic {CUBIC}, quartic {QUARTIC}, plus a static tilt F x (linear_coefficient = F)
 # (levels from `trapwork spectrum`), with Gaussian noise of the stated uncertainty (seed {SEED}).
 # lower, upper: levels of the transition; keep = 0 marks a scan the experiment rejected.
 """
     with open(target, "w") as f:
-        f.write(header)
-        f.write("lower,upper,frequency_kHz,uncertainty_kHz,force_h_Hz/nm,keep\n")
+        f.write("lower,upper,frequency_kHz,uncertainty_kHz,linear_coefficient_h_Hz/nm,keep\n")
+        f.write(comments)
         for r in rows:
             f.write(",".join(str(x) for x in r) + "\n")
 

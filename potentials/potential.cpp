@@ -2,7 +2,10 @@
 
 #include <muParser.h>
 
+#include <math.h>  // before pchip.hpp: Boost 1.74's pchip calls isnan unqualified, ::isnan
+
 #include <algorithm>
+#include <boost/math/interpolators/pchip.hpp>
 #include <cmath>
 #include <limits>
 
@@ -49,31 +52,26 @@ bool must_be_positive(Shape s, std::string_view p) {
   return p == "power" || p == "height";
 }
 
+}  // namespace
+
 // Monotone cubic Hermite interpolation (Fritsch & Carlson, SIAM J. Numer. Anal. 17, 238
-// (1980), from memory): slopes by the weighted harmonic mean of neighbouring secants, zero at
-// local extrema, so the interpolant never overshoots the data.
-double interpolate_monotone(const PotentialTable& t, double x) {
-  const auto& xs = t.x;
-  const auto& vs = t.v;
-  const std::size_t n = xs.size();
-  if (x <= xs.front()) return vs.front();
-  if (x >= xs.back()) return vs.back();
-  const std::size_t k = std::upper_bound(xs.begin(), xs.end(), x) - xs.begin() - 1;
-  auto secant = [&](std::size_t i) { return (vs[i + 1] - vs[i]) / (xs[i + 1] - xs[i]); };
-  auto slope = [&](std::size_t i) {
-    if (i == 0) return secant(0);
-    if (i == n - 1) return secant(n - 2);
-    const double d0 = secant(i - 1), d1 = secant(i);
-    if (d0 * d1 <= 0) return 0.0;
-    const double h0 = xs[i] - xs[i - 1], h1 = xs[i + 1] - xs[i];
-    const double w1 = 2 * h1 + h0, w2 = h1 + 2 * h0;
-    return (w1 + w2) / (w1 / d0 + w2 / d1);
-  };
-  const double h = xs[k + 1] - xs[k], s = (x - xs[k]) / h;
-  const double h00 = (1 + 2 * s) * (1 - s) * (1 - s), h10 = s * (1 - s) * (1 - s);
-  const double h01 = s * s * (3 - 2 * s), h11 = s * s * (s - 1);
-  return h00 * vs[k] + h10 * h * slope(k) + h01 * vs[k + 1] + h11 * h * slope(k + 1);
-}
+// (1980), from memory) by Boost.Math's pchip: slopes by the weighted harmonic mean of
+// neighbouring secants, zero at local extrema, the secant at each end, so the interpolant never
+// overshoots the data; constant beyond the ends (pchip itself refuses points outside).
+struct Term::TableInterpolant {
+  double x_first, x_last, v_first, v_last;
+  boost::math::interpolators::pchip<std::vector<double>> pchip;  // at least 4 points
+  explicit TableInterpolant(PotentialTable t)
+      : x_first(t.x.front()), x_last(t.x.back()), v_first(t.v.front()), v_last(t.v.back()),
+        pchip(std::move(t.x), std::move(t.v)) {}
+  double operator()(double x) const {
+    if (x <= x_first) return v_first;
+    if (x >= x_last) return v_last;
+    return pchip(x);
+  }
+};
+
+namespace {
 
 std::string number_text(double v) {
   char buf[64];
@@ -143,8 +141,9 @@ Term::Term(std::string name, Shape shape, const std::vector<std::pair<std::strin
 
 Term Term::tabulated(std::string name, PotentialTable table,
                      const std::vector<std::pair<std::string, double>>& parameters) {
-  if (table.x.size() < 2 || table.x.size() != table.v.size())
-    throw InputError(name + ".file", std::to_string(table.x.size()) + " rows", "at least 2 rows of (x, V)");
+  if (table.x.size() < 4 || table.x.size() != table.v.size())
+    throw InputError(name + ".file", std::to_string(table.x.size()) + " rows",
+                     "at least 4 rows of (x, V) (monotone cubic interpolation)");
   for (std::size_t i = 0; i < table.x.size(); ++i) {
     if (!std::isfinite(table.x[i]) || !std::isfinite(table.v[i]))
       throw InputError(name + ".file", "row " + std::to_string(i + 1) + " not finite", "finite x and V");
@@ -153,7 +152,7 @@ Term Term::tabulated(std::string name, PotentialTable table,
                        "x strictly increasing");
   }
   Term term(std::move(name), Shape::table, parameters);
-  term.table_ = std::make_shared<const PotentialTable>(std::move(table));
+  term.table_ = std::make_shared<const TableInterpolant>(std::move(table));
   return term;
 }
 
@@ -279,7 +278,7 @@ double Term::value(double x, double t) const {
       return 0.5 * p[2].second *
              (std::erfc((p[1].second - x) / p[3].second) + std::erfc((x - p[0].second) / p[3].second));
     case Shape::table:
-      return p[1].second * interpolate_monotone(*table_, x - p[0].second);
+      return p[1].second * (*table_)(x - p[0].second);
     case Shape::formula:
       return p[1].second * (*formula_)((x - p[0].second) * p[2].second, t * p[3].second);
   }

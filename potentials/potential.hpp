@@ -23,8 +23,8 @@
 //   erf_walls      (height/2) [erfc((right - x)/width) + erfc((x - left)/width)]: walls of finite
 //                  height, half of it at left and right, rising over ~width
 //                                                   left, right, height, width
-//   table          monotone cubic (Fritsch-Carlson) interpolation of (x, V) samples; constant
-//                  beyond the ends                                 centre, scale (multiplies V)
+//   table          monotone cubic (Fritsch-Carlson) interpolation of (x, V) samples (Boost.Math
+//                  pchip, at least 4 rows); constant beyond the ends  centre, scale (multiplies V)
 //   formula        scale * f((x-c) * length_factor, t * time_factor), f a muParser expression
 //                  of x, t and the user's named parameters (the factors convert internal units
 //                  to the units the formula is written in). t is the protocol time: a
@@ -50,7 +50,7 @@ std::optional<Shape> shape_from_name(std::string_view name);
 // The parameter names of a shape, in a fixed order (formula: the fixed ones only).
 const std::vector<std::string>& shape_parameters(Shape s);
 
-// Samples of a tabulated potential, x strictly increasing, all finite, at least 2 rows.
+// Samples of a tabulated potential, x strictly increasing, all finite, at least 4 rows.
 struct PotentialTable {
   std::vector<double> x, v;
 };
@@ -89,11 +89,12 @@ class Term {
 
  private:
   struct Formula;
+  struct TableInterpolant;  // Boost.Math's pchip of the table (potential.cpp)
   void validate() const;
   std::string name_;
   Shape shape_;
   std::vector<std::pair<std::string, double>> parameters_;
-  std::shared_ptr<const PotentialTable> table_;
+  std::shared_ptr<const TableInterpolant> table_;
   std::unique_ptr<Formula> formula_;  // owns a muParser parser; cloned on copy
 };
 

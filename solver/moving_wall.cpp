@@ -780,8 +780,7 @@ WallWorkResult run_wall_work(const WallProtocol& protocol, const WallWorkRequest
     const bool levels_help = moments == "final" || moments == "thermal";
     if (protocol.duration() == 0 || (!(escape > r.unresolved_tolerance) && !levels_help) || attempt == 2) {
       if (attempt > 0)
-        d.warnings.insert(d.warnings.begin(),
-                          enlargement_warning(attempt, escape, d.moments, r.final_margin, r.thermal_tolerance));
+        d.notes.push_back(enlargement_note(attempt, escape, d.moments, r.final_margin, r.thermal_tolerance));
       return out;
     }
     if (d.unresolved_weight > r.unresolved_tolerance || moments == "final") r.final_margin *= 2;

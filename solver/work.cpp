@@ -236,8 +236,8 @@ std::string moment_warning(const MomentErrors& e, int final_levels, const std::s
   return text;
 }
 
-std::string enlargement_warning(int attempt, double escape, const MomentErrors& e, int final_margin,
-                                double thermal_tolerance) {
+std::string enlargement_note(int attempt, double escape, const MomentErrors& e, int final_margin,
+                             double thermal_tolerance) {
   return "levels enlarged " + std::to_string(attempt) +
          " time(s) to bound the escape probability and the moments' truncation error (escape now " + fmt(escape) +
          ", relative <W> error " + fmt(e.mean_error / e.scale_mean) + ", relative var W error " +
@@ -763,9 +763,8 @@ WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkR
     const bool moments = d.moments.mean_met() && d.moments.variance_met();
     if ((!(escape > r.unresolved_tolerance) && moments) || attempt == 2) {
       if (attempt > 0)
-        result.diagnostics.warnings.insert(
-            result.diagnostics.warnings.begin(),
-            enlargement_warning(attempt, escape, d.moments, r.final_margin, r.thermal_tolerance));
+        result.diagnostics.notes.push_back(
+            enlargement_note(attempt, escape, d.moments, r.final_margin, r.thermal_tolerance));
       return result;
     }
     r.final_margin *= 2;

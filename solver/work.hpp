@@ -188,10 +188,11 @@ void total_moment_errors(MomentErrors& e);
 // Errors are printed relative to their scales (max(|<W>|, sd W) and var W), as the tolerance
 // is, so that the text needs no energy unit.
 std::string moment_warning(const MomentErrors& e, int final_levels, const std::string& basis_cause);
-// The warning of a run repeated `attempt` times with more levels (escape probability now
-// `escape`, moments' relative errors, the final margin and thermal tolerance it ended with).
-std::string enlargement_warning(int attempt, double escape, const MomentErrors& e, int final_margin,
-                                double thermal_tolerance);
+// The note (Diagnostics::notes, not a warning) of a run repeated `attempt` times with more
+// levels (escape probability now `escape`, moments' relative errors, the final margin and
+// thermal tolerance it ended with). What still fails after it is warned on its own.
+std::string enlargement_note(int attempt, double escape, const MomentErrors& e, int final_margin,
+                             double thermal_tolerance);
 
 // Every result carries these (NaN where not computed).
 struct Diagnostics {
@@ -212,6 +213,9 @@ struct Diagnostics {
   // peak memory of the large arrays (bytes) and the propagations' floating-point operations.
   double estimated_bytes = 0, estimated_operations = 0;
   std::vector<std::string> warnings;  // each with the diagnostic value and what to change
+  // What the run did on its own that the user should know but need not act on (the levels
+  // enlarged to bound the escape probability); not warnings: they do not mark a sweep point.
+  std::vector<std::string> notes;
 };
 
 // ---- the driver ----------------------------------------------------------------------------

@@ -212,6 +212,10 @@ const std::vector<BadScenario>& bad_scenarios() {
        std::string("# nothing measured yet\n")},
       {"a header and one row", tabulated, "\"trap.csv\"", "potential[1].file", {"at least 2 rows of x and V in", "trap.csv (found 1)"}, {},
        std::string("x_um, V_uK\n0, 1\n")},
+      // issue 16: the monotone cubic is Boost.Math's pchip, which needs 4 points
+      {"a table of three rows", tabulated, "\"trap.csv\"", "potential[1].file",
+       {"at least 4 rows of x and V (monotone cubic interpolation; found 3)"}, {},
+       std::string("x_um, V_uK\n-1, 1\n0, 0\n1, 1\n")},
       {"nan in a table row", tabulated, "nan", "potential[1].file", {"finite numbers"}, {},
        std::string("x, V\n-1, 1\n0, nan\n1, 1\n"), true},
       {"inf in a table row", tabulated, "-inf", "potential[1].file", {"finite numbers"}, {},

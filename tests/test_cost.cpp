@@ -159,7 +159,7 @@ TEST_CASE("issue 14: a run repeated with more levels starts a new progress stage
   };
   const WorkResult r = run_work(s.potential, build_protocol(s), request);
   bool enlarged = false;
-  for (const auto& w : r.diagnostics.warnings) enlarged = enlarged || contains(w, "levels enlarged");
+  for (const auto& n : r.diagnostics.notes) enlarged = enlarged || contains(n, "levels enlarged");
   REQUIRE(enlarged);  // the scenario is built to need more levels
   REQUIRE(!stages.empty());
   CHECK(contains(stages.front(), "more levels"));

@@ -83,7 +83,7 @@ TEST_CASE("level pairs, histogram and transition lines", "[data_files]") {
   CHECK(hist.counts == std::vector<double>{3, 0, 12});
 
   const auto t = read_transition_lines_text(
-      "lower,upper,frequency_MHz,uncertainty_Hz,force_h_kHz/um,keep\n0,1,1.0001,20,0,1\n1,2,1.0003,25,-5,1\n"
+      "lower,upper,frequency_MHz,uncertainty_Hz,linear_coefficient_h_kHz/um,keep\n0,1,1.0001,20,0,1\n1,2,1.0003,25,-5,1\n"
       "0,2,2.0004,30,0,0\n",
       "data.csv");
   REQUIRE(t.transitions.size() == 2);
@@ -159,9 +159,14 @@ TEST_CASE("malformed data give file, line, column and column name", "[data_files
               2, 3, {"upper = 1", "above lower"});
   check_error([] { read_transition_lines_text("lower upper frequency_kHz uncertainty_kHz\n0 1 10 0\n", "data.csv"); },
               2, 8, {"uncertainty_kHz = 0", "> 0"});
-  check_error([] { read_transition_lines_text("lower upper frequency_kHz uncertainty_kHz force_kHz\n0 1 10 1 0\n",
+  check_error([] { read_transition_lines_text("lower upper frequency_kHz uncertainty_kHz linear_coefficient_kHz\n0 1 10 1 0\n",
                                               "data.csv"); },
-              1, 43, {"force_kHz", "force unit"});
+              1, 43, {"linear_coefficient_kHz", "force unit"});
+  // issue 16: the column of F in V + F x was named force_<unit>; an old file is refused, not read
+  // with a sign it may not mean
+  check_error([] { read_transition_lines_text("lower upper frequency_kHz uncertainty_kHz force_h_kHz/um\n0 1 10 1 0\n",
+                                              "data.csv"); },
+              1, 43, {"force_h_kHz/um", "linear_coefficient_<unit>", "minus the physical force", "flip the sign"});
   check_error([] { read_transition_lines_text("lower upper frequency uncertainty_kHz\n0 1 10 1\n", "data.csv"); }, 1,
               13, {"without its unit"});
 }

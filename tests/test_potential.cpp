@@ -77,8 +77,15 @@ TEST_CASE("tabulated potentials interpolate monotonically", "[potential]") {
   // Linear data are reproduced exactly.
   const Term lin = Term::tabulated("lin", PotentialTable{{0, 0.5, 2, 3}, {1, 2, 5, 7}});
   CHECK(lin.value(1.25) == Approx(3.5).epsilon(1e-14));
-  CHECK_THROWS_WITH(Term::tabulated("bad", PotentialTable{{0, 2, 1}, {0, 1, 2}}), Contains("increasing") && Contains("row 3"));
-  CHECK_THROWS_WITH(Term::tabulated("bad", PotentialTable{{0, 1}, {0, NAN}}), Contains("finite"));
+  // Fritsch-Carlson slopes by hand (the weighted harmonic mean of the secants; the secant at the
+  // ends): for V = x^2 at 0, 1, 2, 3 the slopes at 0 and 1 are 1 and 6 / (3/1 + 3/3) = 1.5, so
+  // V(0.5) = h10 * 1 + h01 * 1 + h11 * 1.5 = 0.125 + 0.5 - 0.1875.
+  const Term square = Term::tabulated("square", PotentialTable{{0, 1, 2, 3}, {0, 1, 4, 9}});
+  CHECK(square.value(0.5) == Approx(0.4375).epsilon(1e-14));
+  CHECK_THROWS_WITH(Term::tabulated("bad", PotentialTable{{0, 2, 1, 3}, {0, 1, 2, 3}}), Contains("increasing") && Contains("row 3"));
+  CHECK_THROWS_WITH(Term::tabulated("bad", PotentialTable{{0, 1, 2, 3}, {0, NAN, 0, 0}}), Contains("finite"));
+  // Boost.Math's pchip needs 4 points (issue 16: the library replaced the hand-written one)
+  CHECK_THROWS_WITH(Term::tabulated("bad", PotentialTable{{0, 1, 2}, {0, 1, 2}}), Contains("at least 4 rows"));
   CHECK_THROWS_AS(Term::tabulated("bad", PotentialTable{{0}, {0}}), InputError);
 }
 

@@ -376,7 +376,7 @@ TEST_CASE("tabulated terms read x, V rows from a data file next to the scenario"
   const fs::path dir = scratch_dir("table");
   {
     std::ofstream csv(dir / "trap.csv");
-    csv << "# invented test rows\nx_um, V_uK\n-1, 1.0\n0, 0.0   # bottom\n\n1 , 4.0\n";
+    csv << "# invented test rows\nx_um, V_uK\n-1, 1.0\n0, 0.0   # bottom\n\n1 , 4.0\n2, 9.0\n";
   }
   const std::string text = R"([particle]
 mass = "87 u"

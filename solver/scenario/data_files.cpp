@@ -521,8 +521,18 @@ TransitionLinesData transitions_from(const Table& t) {
       {"upper", ColumnType::integer, {}, true, false, "upper"},
       {"frequency", ColumnType::quantity, Dimension::frequency(), true, true, "frequency_kHz"},
       {"uncertainty", ColumnType::quantity, Dimension::frequency(), true, true, "uncertainty_kHz"},
-      {"force", ColumnType::quantity, Dimension::energy_per_length(1), false, false, "force_h_kHz/um"},
+      {"linear_coefficient", ColumnType::quantity, Dimension::energy_per_length(1), false, false,
+       "linear_coefficient_h_kHz/um"},
       keep_column};
+  // The column was called force_<unit> before issue 16, though it holds F of V + F x, minus the
+  // physical force: an old file is refused rather than read with a sign it may not mean.
+  for (const Field& name : t.names)
+    if (name.text == "force" || name.text.rfind("force_", 0) == 0)
+      throw InputError(name.text, "",
+                       "a linear_coefficient_<unit> column: the coefficient F of the term F x added to the trap "
+                       "(V + F x), which is minus the physical force; rename the column, and flip the sign of its "
+                       "values if they are the physical force",
+                       "", t.file, t.header_line, name.column);
   const auto columns = bind_columns(t, specs, "transition lines");
   TransitionLinesData d;
   d.info = info_of(t, columns, "frequency");
@@ -537,7 +547,7 @@ TransitionLinesData transitions_from(const Table& t) {
     if (!(m.frequency_Hz > 0)) bad_field(t, r, columns.at("frequency"), "a transition frequency > 0");
     m.uncertainty_Hz = quantity_field(t, r, columns.at("uncertainty"));
     if (!(m.uncertainty_Hz > 0)) bad_field(t, r, columns.at("uncertainty"), "a standard uncertainty > 0");
-    if (columns.count("force")) m.force_N = quantity_field(t, r, columns.at("force"));
+    if (columns.count("linear_coefficient")) m.force_N = quantity_field(t, r, columns.at("linear_coefficient"));
     if (!kept(t, r, columns, d.info)) continue;
     d.transitions.push_back(m);
   }

@@ -8,7 +8,7 @@
 // column names, in any order. Quantities carry their unit in the column name, written as the
 // unit with '*' replaced by '_' (so trapwork's own CSV columns read back):
 //   work_h_kHz        work in h*kHz         frequency_kHz      a frequency in kHz
-//   lower_h_kHz       a bin edge            force_h_kHz/um     a force in h*kHz/um
+//   lower_h_kHz       a bin edge            linear_coefficient_h_kHz/um   F of V + F x in h*kHz/um
 // or the name alone ("work") together with a comment line "# unit: h*kHz", which gives the unit
 // of the file's main quantity (work and bin edges; frequencies and uncertainties).
 // A comment line "# resolution: 0.4 h*kHz" states the measurement resolution sigma of the work
@@ -21,10 +21,11 @@
 //   level pairs      initial, final                                level indices (>= 0) per run
 //   histogram        lower_<energy unit>, upper_<energy unit>, count
 //                    contiguous ascending bins [lower, upper), counts >= 0
-//   transition lines lower, upper, frequency_<unit>, uncertainty_<unit>[, force_<unit>]
+//   transition lines lower, upper, frequency_<unit>, uncertainty_<unit>[, linear_coefficient_<unit>]
 //                    measured transition frequency between levels lower < upper (ordinary
 //                    frequency, Hz-based units), its standard uncertainty (> 0), and the known
-//                    linear force F of V + F x under which it was taken (default 0)
+//                    linear coefficient F of V + F x under which it was taken (default 0; the
+//                    physical force is -F); a column force_<unit> is refused, naming the change
 // Values are returned in SI (J, Hz, N); the commands convert them with the scenario's units.
 //
 // Errors: InputError with file, line, column (the character where the field starts) and the
@@ -128,7 +129,7 @@ WorkHistogramData read_work_histogram(const std::string& path);
 struct MeasuredTransition {
   int lower = 0, upper = 1;
   double frequency_Hz = 0, uncertainty_Hz = 0;
-  double force_N = 0;
+  double force_N = 0;  // the linear coefficient F of V + F x, in N (J/m); the physical force is -F
   int line = 0;
 };
 struct TransitionLinesData {

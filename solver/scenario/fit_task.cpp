@@ -141,7 +141,7 @@ CsvTable fit_lines_table(const Scenario& s, const TransitionLinesData& d, const 
   const double force_unit = si::planck_h / 1e-9;  // N per h*Hz/nm
   CsvTable t;
   t.columns = {{"line", {}},           {"lower", {}},          {"upper", {}},
-               {"force_h_Hz/nm", {}},  {"frequency_kHz", {}},  {"uncertainty_kHz", {}},
+               {"linear_coefficient_h_Hz/nm", {}},  {"frequency_kHz", {}},  {"uncertainty_kHz", {}},
                {"model_frequency_kHz", {}}, {"difference_Hz", {}}, {"residual_sigma", {}}};
   const double to_Hz = 1 / s.units.time_s();
   for (std::size_t i = 0; i < d.transitions.size(); ++i) {
@@ -153,7 +153,8 @@ CsvTable fit_lines_table(const Scenario& s, const TransitionLinesData& d, const 
     for (std::size_t c = 0; c < row.size(); ++c) t.columns[c].values.push_back(row[c]);
   }
   t.comments = {"measured transitions of " + d.info.file + " and the fitted model (`trapwork fit`)",
-                "line: line in the data file; lower, upper: level indices; force: the linear term F of V + F x",
+                "line: line in the data file; lower, upper: level indices; linear_coefficient: F of the term F x added to the "
+                "trap (V + F x; the physical force is -F)",
                 "difference = measured - model; residual_sigma = difference / uncertainty"};
   return t;
 }
@@ -238,7 +239,7 @@ void print_task_report(std::ostream& out, const FitOutcome& o) {
     }
     out << '\n';
   }
-  std::snprintf(line, sizeof line, "\n  %5s %6s %14s %16s %16s %12s %9s\n", "line", "levels", "force [h*Hz/nm]",
+  std::snprintf(line, sizeof line, "\n  %5s %6s %14s %16s %16s %12s %9s\n", "line", "levels", "F [h*Hz/nm]",
                 "measured [kHz]", "model [kHz]", "diff. [Hz]", "residual");
   out << line;
   const double to_Hz = 1 / s.units.time_s();

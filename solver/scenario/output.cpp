@@ -290,12 +290,19 @@ void write_csv(std::ostream& out, const CsvTable& table) {
     out << (c ? "," : "") << table.columns[c].name;
   }
   out << '\n';
+  if (!table.left_out_of_file.empty() && table.left_out_of_file.size() != rows)
+    throw std::logic_error("write_csv: left_out_of_file has a different length");
   for (const auto& comment : table.comments) out << "# " << comment << '\n';
   for (std::size_t r = 0; r < rows; ++r) {
+    if (!table.left_out_of_file.empty() && table.left_out_of_file[r]) continue;
     for (std::size_t c = 0; c < table.columns.size(); ++c)
-      out << (c ? "," : "") << number_text(table.columns[c].values[r]);
+      out << (c ? "," : "") << (table.columns[c].applies ? number_text(table.columns[c].values[r]) : "");
     out << '\n';
   }
+}
+
+CsvColumn absent_column(std::string name, std::size_t rows) {
+  return {std::move(name), std::vector<double>(rows, std::numeric_limits<double>::quiet_NaN()), false};
 }
 
 std::string column_unit(const std::string& unit) {
@@ -459,13 +466,15 @@ void print_scenario_header(std::ostream& out, const std::string& command, const 
                   short_number(d.length(scenario.spectrum.box->second)) + " um");
 }
 
+const std::string internal_energy_column = "energy_hbar2_per_m_L0sq";
+
 CsvTable spectrum_table(const Scenario& scenario, const SpectrumResult& result) {
   const Display d = display(scenario);
   CsvTable t;
   auto& c = t.columns;
   c = {{"level", {}},
        {"energy" + d.e_col, {}},
-       {"energy_internal", {}},
+       {internal_energy_column, {}},
        {"spacing" + d.e_col, {}},
        {"mean_x_um", {}},
        {"rms_width_um", {}},
@@ -491,19 +500,22 @@ CsvTable spectrum_table(const Scenario& scenario, const SpectrumResult& result) 
                           d.energy(convergence_of(result, n))};
     for (std::size_t k = 0; k < c.size(); ++k) c[k].values.push_back(row[k]);
   }
+  c[6].applies = result.harmonic.omega > 0;  // harmonic_shift
+  c[11].applies = result.convergence.done;   // convergence
   t.comments = {
       "trapwork spectrum: " + (scenario.title.empty() ? scenario.file : scenario.title),
       "scenario: " + scenario.file,
       "energies in " + d.e + " (one " + d.e + " = " + number_text(d.energy_per) +
-          " internal units); energy_internal in hbar^2/(m L0^2) with L0 = " +
+          " internal units); " + internal_energy_column + " in hbar^2/(m L0^2) with L0 = " +
           number_text(scenario.units.length_m) + " m; lengths in um",
       "spacing: E(n+1) - E(n), nan for the last level; harmonic_shift: E(n) - (V_min + hbar omega_h (n + "
       "1/2)) "
-      "with the harmonic approximation at the minimum (nan where it has no curvature)",
+      "with the harmonic approximation at the minimum (empty where it has no curvature)",
       "rms_width: sqrt(<x^2> - <x>^2); bound: 1 below the potential's lower asymptote; group: index of the "
       "group of levels closer than the degeneracy tolerance",
       "residual: ||H psi - E psi||; edge_amplitude: max |psi|^2 in the outer 2% of an open grid relative to "
-      "max |psi|^2; convergence: |E(n) on a finer, wider grid - E(n)| (nan without the check)",
+      "max |psi|^2; convergence: |E(n) on a finer, wider grid - E(n)| (empty without the check)",
+      "an empty column does not apply to this run; every spectrum.csv has the same columns",
   };
   return t;
 }

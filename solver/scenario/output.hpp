@@ -91,15 +91,26 @@ nlohmann::ordered_json with_provenance(nlohmann::ordered_json summary, const Sce
 // Shortest decimal text that reads back to the same double; "nan", "inf", "-inf" otherwise.
 std::string number_text(double v);
 
+// A table's columns do not change with the scenario: a column that does not apply to a run
+// (no harmonic reference, no reference frequency) is still there, its cells empty in the file
+// (NaN in `values`, so the Python module's arrays keep their shape); "nan" in a cell means a
+// value that applies but does not exist (a failed sweep point, a spacing after the last level).
 struct CsvColumn {
   std::string name;
   std::vector<double> values;
+  bool applies = true;  // false: written as empty cells
 };
 struct CsvTable {
   std::vector<CsvColumn> columns;     // all of one length
   std::vector<std::string> comments;  // written as "# <text>" lines after the names
+  // Rows the file leaves out (empty: none; else one flag per row): the table itself, which the
+  // Python module and every computation see, keeps them (lines.csv's probability floor).
+  std::vector<bool> left_out_of_file;
 };
+// Names on the first line, the comments, then the rows (those not left_out_of_file).
 void write_csv(std::ostream& out, const CsvTable& table);
+// A column of `rows` NaN values that does not apply (written as empty cells).
+CsvColumn absent_column(std::string name, std::size_t rows);
 
 // A unit name as part of a column name: "h*kHz" -> "h_kHz".
 std::string column_unit(const std::string& unit);
@@ -135,6 +146,9 @@ void print_scenario_header(std::ostream& out, const std::string& command, const 
 
 // The tables and the summary of one spectrum run (energies in the scenario's display unit,
 // lengths in um, wavefunctions in 1/sqrt(um)).
+// spectrum.csv's column of the energies in the internal unit hbar^2/(m L0^2) ("energy_internal"
+// before issue 16): the unit of bare numbers with [units] natural = true.
+extern const std::string internal_energy_column;
 CsvTable spectrum_table(const Scenario& scenario, const SpectrumResult& result);
 CsvTable states_table(const Scenario& scenario, const SpectrumResult& result);
 nlohmann::ordered_json spectrum_summary(const Scenario& scenario, const SpectrumResult& result);

@@ -499,6 +499,9 @@ void Reader::read_term(const toml::table& t, int index, Scenario& s) {
           energy_unit_at(*setting("energy_unit", true), prefix + ".energy_unit").internal_per_unit;
       std::string skipped;
       PotentialTable data = read_table_file(*file, prefix + ".file", x_per, v_per, {"x", "V"}, &skipped);
+      if (data.x.size() < 4)  // Term::tabulated's monotone cubic (Boost.Math pchip) needs 4
+        fail(*file, prefix + ".file", "at least 4 rows of x and V (monotone cubic interpolation; found " +
+                                          std::to_string(data.x.size()) + ")");
       record.settings.emplace_back("rows", std::to_string(data.x.size()));
       if (!skipped.empty()) record.settings.emplace_back("skipped", skipped);
       s.potential.add(Term::tabulated(record.name, std::move(data), parameters));

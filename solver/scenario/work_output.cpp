@@ -42,6 +42,12 @@ struct Energies {
   }
 };
 
+// Why a run has no harmonic reference, for the comment of a column left empty.
+std::string harmonic_absence(const WorkRun& run) {
+  const std::string& why = run.result.harmonic_absent;
+  return "no harmonic reference (" + (why.empty() ? std::string("not applicable to moving walls") : why) + ")";
+}
+
 // Lengths in nm for traps narrower than 2 um, else in um.
 struct LengthUnit {
   std::string name;
@@ -530,34 +536,43 @@ std::vector<std::string> work_warnings(const WorkRun& run) {
   return w;
 }
 
+LinesFileFloor lines_file_floor(const WorkDistribution& d, double floor) {
+  LinesFileFloor f;
+  f.floor = floor;
+  for (const auto& l : d.lines)
+    if (l.probability < floor) {
+      ++f.left_out;
+      f.left_out_probability += l.probability;
+    }
+  return f;
+}
+
 CsvTable lines_table(const WorkRun& run, const WorkDistribution& d, const std::string& what) {
   const Energies e(run.scenario);
+  const bool oscillator = e.omega_ref > 0;  // work_hbar_omega applies
   CsvTable t;
-  t.columns.push_back({"work" + e.d.e_col, {}});
-  if (e.oscillator()) t.columns.push_back({"work_hbar_omega", {}});
-  t.columns.push_back({"probability", {}});
-  t.columns.push_back({"initial", {}});
-  t.columns.push_back({"final", {}});
-  t.columns.push_back({"cumulative", {}});
+  t.columns = {{"work" + e.d.e_col, {}}, {"work_hbar_omega", {}, oscillator}, {"probability", {}},
+               {"initial", {}},          {"final", {}},                      {"cumulative", {}}};
+  const LinesFileFloor floor = lines_file_floor(d);
   double cumulative = 0;
   for (const auto& l : d.lines) {
     cumulative += l.probability;
-    std::size_t k = 0;
-    t.columns[k++].values.push_back(e.show(l.work));
-    if (e.oscillator()) t.columns[k++].values.push_back(conversion_rounded(l.work / e.omega_ref));
-    t.columns[k++].values.push_back(l.probability);
-    t.columns[k++].values.push_back(l.initial);
-    t.columns[k++].values.push_back(l.final);
-    t.columns[k++].values.push_back(cumulative);
+    const double row[] = {e.show(l.work), oscillator ? conversion_rounded(l.work / e.omega_ref) : nan_value,
+                          l.probability,  double(l.initial), double(l.final), cumulative};
+    for (std::size_t k = 0; k < t.columns.size(); ++k) t.columns[k].values.push_back(row[k]);
+    t.left_out_of_file.push_back(l.probability < floor.floor);
   }
   t.comments = {
       "trapwork work: " + what + " of " + (run.scenario.title.empty() ? run.scenario.file : run.scenario.title),
       "two-point measurement: W = E_n(final) - E_m(initial), probability = p_m P(m -> n), sorted by W",
-      "work in " + e.d.e + (e.oscillator() ? " and in hbar*omega_ref" : "") +
+      "work in " + e.d.e + (oscillator ? " and in hbar*omega_ref" : "; work_hbar_omega empty: no reference frequency") +
           "; lines closer than " + number_text(e.show(d.merge_tolerance)) + " " + e.d.e +
           " are merged (initial, final: the first merged pair)",
-      "cumulative: running sum of probability; total resolved " + number_text(d.resolved_weight) +
-          ", unresolved " + number_text(d.unresolved_weight),
+      "cumulative: running sum of probability over every line (also those left out below); total resolved " +
+          number_text(d.resolved_weight) + ", unresolved " + number_text(d.unresolved_weight),
+      "probability floor " + number_text(floor.floor) + ": " + std::to_string(floor.left_out) +
+          " lines below it left out of this file, total probability " + number_text(floor.left_out_probability) +
+          " (the statistics in summary.json use every line)",
   };
   return t;
 }
@@ -584,41 +599,40 @@ CsvTable density_table(const WorkRun& run) {
   const double sigma = resolution_of(run);
   const auto w = density_grid(run.result.distribution, sigma);
   const auto rho = broadened_density(run.result.distribution, sigma, w);
+  const auto& harmonic = run.result.harmonic;
+  const auto ref = harmonic ? broadened_density(harmonic->distribution, sigma, w) : std::vector<double>(w.size(), nan_value);
   CsvTable t;
-  t.columns = {{"work" + e.d.e_col, {}}, {"density_per" + e.d.e_col, {}}};
+  t.columns = {{"work" + e.d.e_col, {}},
+               {"density_per" + e.d.e_col, {}},
+               {"harmonic_density_per" + e.d.e_col, {}, harmonic.has_value()}};
   for (std::size_t i = 0; i < w.size(); ++i) {
     t.columns[0].values.push_back(e.show(w[i]));
     t.columns[1].values.push_back(rho[i] * e.d.energy_per);  // per display unit
-  }
-  if (run.result.harmonic) {
-    const auto ref = broadened_density(run.result.harmonic->distribution, sigma, w);
-    CsvColumn c{"harmonic_density_per" + e.d.e_col, {}};
-    for (double r : ref) c.values.push_back(r * e.d.energy_per);
-    t.columns.push_back(std::move(c));
+    t.columns[2].values.push_back(ref[i] * e.d.energy_per);
   }
   t.comments = {"trapwork work: P(W) seen through a Gaussian energy-measurement resolution sigma = " +
                     number_text(e.show(sigma)) + " " + e.d.e + " ([work] resolution, default 1/20 of the lowest spacing)",
-                "density: sum_l p_l N(W - W_l; sigma), per " + e.d.e +
-                    (run.result.harmonic ? "; harmonic_density: the same for the harmonic reference" : "")};
+                "density: sum_l p_l N(W - W_l; sigma), per " + e.d.e + "; harmonic_density: the same for the harmonic " +
+                    (harmonic ? std::string("reference") : "reference, empty: " + harmonic_absence(run))};
   return t;
 }
 
 CsvTable transition_table(const WorkRun& run) {
   const Eigen::MatrixXd& p = run.result.forward.transitions.probability;
-  const bool ref = run.result.harmonic.has_value();
+  const auto& harmonic = run.result.harmonic;
   CsvTable t;
-  t.columns = {{"initial", {}}, {"final", {}}, {"probability", {}}};
-  if (ref) t.columns.push_back({"reference_probability", {}});
+  t.columns = {{"initial", {}}, {"final", {}}, {"probability", {}}, {"reference_probability", {}, harmonic.has_value()}};
   for (Eigen::Index m = 0; m < p.rows(); ++m)
     for (Eigen::Index n = 0; n < p.cols(); ++n) {
       t.columns[0].values.push_back(double(m));
       t.columns[1].values.push_back(double(n));
       t.columns[2].values.push_back(p(m, n));
-      if (ref) t.columns[3].values.push_back(run.result.harmonic->reference.probability(m, n));
+      t.columns[3].values.push_back(harmonic ? harmonic->reference.probability(m, n) : nan_value);
     }
   t.comments = {"trapwork work: transition probabilities P(m -> n) = |<n_final|U|m_initial>|^2",
-                "initial: level m of the initial trap (the levels kept), final: level n of the final trap" +
-                    (ref ? "; reference_probability: " + run.result.harmonic->model : std::string())};
+                "initial: level m of the initial trap (the levels kept), final: level n of the final trap; "
+                "reference_probability: " +
+                    (harmonic ? harmonic->model : "empty: " + harmonic_absence(run))};
   return t;
 }
 
@@ -630,14 +644,18 @@ CsvTable characteristic_table(const WorkRun& run) {
   for (std::size_t i = 0; i < u.size(); ++i) u[i] = u_max * double(i) / double(u.size() - 1);
   const auto g = characteristic_function(run.result.distribution, u);
   CsvTable t;
-  t.columns = {{"u_per" + e.d.e_col, {}}, {"re_G", {}}, {"im_G", {}}};
+  t.columns = {{"conjugate_variable_per" + e.d.e_col, {}},
+               {"characteristic_function_real", {}},
+               {"characteristic_function_imaginary", {}}};
   for (std::size_t i = 0; i < u.size(); ++i) {
     t.columns[0].values.push_back(u[i] * e.d.energy_per);
     t.columns[1].values.push_back(g[i].real());
     t.columns[2].values.push_back(g[i].imag());
   }
-  t.comments = {"trapwork work: characteristic function G(u) = <exp(i u W)> = sum_l p_l exp(i u W_l)",
-                "u in 1/" + e.d.e + ", from 0 to 4 pi / (lowest spacing)"};
+  t.comments = {"trapwork work: characteristic function G(u) = <exp(i u W)> = sum_l p_l exp(i u W_l): "
+                "characteristic_function_real = Re G(u), characteristic_function_imaginary = Im G(u)",
+                "conjugate_variable: u, the variable conjugate to W, in 1/" + e.d.e +
+                    ", from 0 to 4 pi / (lowest spacing)"};
   return t;
 }
 
@@ -706,6 +724,12 @@ nlohmann::ordered_json walls_json(const WorkRun& run) {
 }
 
 }  // namespace
+
+// What lines.csv leaves out (lines_file_floor).
+json lines_file_json(const WorkDistribution& d) {
+  const LinesFileFloor f = lines_file_floor(d);
+  return {{"probability_floor", f.floor}, {"left_out", f.left_out}, {"left_out_probability", f.left_out_probability}};
+}
 
 // The moments' error estimate and its parts (energies as `energy` writes them; variances in
 // internal energy^2). An error that is not known is null, with "error_known": false.
@@ -820,6 +844,7 @@ json work_summary(const WorkRun& run) {
         {"resolved_weight", d.resolved_weight},
         {"unresolved_weight", d.unresolved_weight},
         {"lines", d.lines.size()},
+        {"lines_file", lines_file_json(d)},
         {"resolution", energy(resolution_of(run))},
         {"bin_width", energy(bin_width_of(run))}}},
       {"jarzynski",
@@ -847,6 +872,7 @@ json work_summary(const WorkRun& run) {
         {"estimated_operations", g.estimated_operations},
         {"checks", checks}}},
       {"warnings", work_warnings(run)},
+      {"notes", r.diagnostics.notes},
   };
 }
 
@@ -1115,6 +1141,10 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
     out << "\nwarnings\n";
     for (const auto& w : warnings) out << "  - " << w << '\n';
   }
+  if (!r.diagnostics.notes.empty()) {
+    out << "\nnotes\n";
+    for (const auto& n : r.diagnostics.notes) out << "  - " << n << '\n';
+  }
 
   std::vector<WorkLine> strongest = d.lines;
   std::sort(strongest.begin(), strongest.end(),
@@ -1217,11 +1247,19 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
                         r.time_step_error, r.unresolved_weight, double(r.warnings), r.failure.empty() ? 0.0 : 1.0};
     for (std::size_t k = 0; k < t.columns.size(); ++k) t.columns[k].values.push_back(v[k]);
   }
+  // Columns of a reference that no point has are empty (a failed point has NaN everywhere).
+  auto any = [&](double SweepRow::*member) {
+    return std::any_of(rows.begin(), rows.end(), [&](const SweepRow& r) { return std::isfinite(r.*member); });
+  };
+  t.columns[7].applies = any(&SweepRow::crooks_ratio_error);
+  t.columns[8].applies = any(&SweepRow::harmonic_mean);
+  t.columns[9].applies = any(&SweepRow::harmonic_sd);
   t.comments = {
       "trapwork sweep: " + (s.title.empty() ? s.file : s.title) + "; " + std::to_string(rows.size()) + " of " +
           std::to_string(points) + " points done",
       "swept " + w.parameter + " in " + (w.unit.empty() ? std::string("internal units") : w.unit) +
-          "; energies in " + d.e + "; nan where a value does not exist (no Gibbs state, no harmonic reference)",
+          "; energies in " + d.e + "; nan where a value does not exist at a point (no Gibbs state, no harmonic "
+          "reference, a failed point); crooks_ratio_error, harmonic_*: empty when no point has them",
       "warnings: number of warnings of that point's run (see trapwork work on the scenario at that value)",
       "failed: 1 where the point could not be computed (numbers nan; its message below; trapwork sweep --resume "
       "keeps it, --resume --retry-failed computes it again)",

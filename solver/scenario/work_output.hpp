@@ -4,7 +4,8 @@
 // Energies are in the scenario's display unit (column suffix "_h_kHz") and, where the
 // scenario has a reference frequency, also in units of hbar*omega_ref ("_hbar_omega");
 // times in us or ns, temperatures in uK, lengths in nm or um. CSV files follow output.hpp
-// (names on line 1, '#' comment lines, then numbers; "nan" where a value does not exist).
+// (names on line 1, '#' comment lines, then numbers; "nan" where a value does not exist, an
+// empty column where it does not apply to the run: the columns never change with the scenario).
 //
 // Each diagnostic is judged against a tolerance (work_checks): PASS at or below it, WARN above.
 #include <filesystem>
@@ -128,7 +129,19 @@ std::vector<WorkCheck> work_checks(const WorkRun& run);
 // each saying what to change.
 std::vector<std::string> work_warnings(const WorkRun& run);
 
-// The CSV tables (see the comments written into each file).
+// lines.csv and reverse_lines.csv leave out the lines whose probability is below this floor
+// (the table and every statistic keep them; a comment line and summary.json's
+// work.lines_file say how many and their total probability).
+constexpr double lines_file_probability_floor = 1e-15;
+struct LinesFileFloor {
+  double floor = 0;
+  std::size_t left_out = 0;         // lines below the floor
+  double left_out_probability = 0;  // their total probability
+};
+LinesFileFloor lines_file_floor(const WorkDistribution& d, double floor = lines_file_probability_floor);
+
+// The CSV tables (see the comments written into each file). Their columns are the same for
+// every scenario: one that does not apply is empty (CsvColumn::applies).
 CsvTable lines_table(const WorkRun& run, const WorkDistribution& d, const std::string& what);
 CsvTable histogram_table(const WorkRun& run);
 CsvTable density_table(const WorkRun& run);

@@ -51,7 +51,7 @@ void add_fit_command(CLI::App& app) {
   CLI::App* sub = app.add_subcommand(
       "fit",
       "Fits the coefficients of a polynomial trap (frequency, cubic, quartic, ...) to measured transition "
-      "frequencies (columns lower, upper, frequency_<unit>, uncertainty_<unit>, optional force_<unit>); prints "
+      "frequencies (columns lower, upper, frequency_<unit>, uncertainty_<unit>, optional linear_coefficient_<unit>: F of V + F x); prints "
       "them with uncertainties and correlations, and writes fitted.toml (the start scenario with the fitted "
       "trap), fit_lines.csv and fit_summary.json");
   sub->add_option("data", command->data, "transition lines file (CSV or whitespace columns, '#' comments)")

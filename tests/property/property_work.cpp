@@ -16,7 +16,8 @@
 //     as well: the reader must refuse it, naming protocol.change);
 //   - every file the report names exists, is not empty, and no temporary file is left beside it;
 //     every CSV row has as many fields as its names line;
-//   - the line probabilities (lines.csv) plus the reported unresolved weight sum to 1 within
+//   - the line probabilities (lines.csv, plus the total the summary reports for the lines left
+//     out below the file's probability floor) plus the reported unresolved weight sum to 1 within
 //     1e-9 (rounding; the probabilities are written as shortest round-trip text), and each lies
 //     in [0, 1]; the cumulative column ends at the resolved weight;
 //   - the Jarzynski residual is within its reported truncation bound, or a warning names it;
@@ -39,6 +40,7 @@
 #include <sys/wait.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <chrono>
 #include <cmath>
 #include <csignal>
@@ -224,11 +226,16 @@ Csv read_csv(const fs::path& p) {
   for (int number = 2; std::getline(in, line); ++number) {
     if (line.empty() || line[0] == '#') continue;
     std::vector<double> row;
-    std::istringstream fields(line);
-    for (std::string f; std::getline(fields, f, ',');) {
+    // Fields between commas; an empty one is a column that does not apply to the run (NaN).
+    for (std::size_t start = 0;;) {
+      const std::size_t comma = std::min(line.find(',', start), line.size());
+      const std::string f = line.substr(start, comma - start);
       char* end = nullptr;
-      row.push_back(std::strtod(f.c_str(), &end));
-      if (end == f.c_str() || *end != '\0') c.problem = "line " + std::to_string(number) + ": not a number: " + f;
+      row.push_back(f.empty() ? std::nan("") : std::strtod(f.c_str(), &end));
+      if (!f.empty() && (end == f.c_str() || *end != '\0'))
+        c.problem = "line " + std::to_string(number) + ": not a number: " + f;
+      if (comma == line.size()) break;
+      start = comma + 1;
     }
     if (row.size() != c.names.size())
       c.problem = "line " + std::to_string(number) + ": " + std::to_string(row.size()) + " fields for " +
@@ -322,10 +329,12 @@ std::vector<std::string> check_outputs(const fs::path& folder, const std::string
       sum += r[p_col];
     }
     const double unresolved = number(diagnostics["unresolved_weight"]);
+    // the lines below the file's probability floor (issue 16), left out and counted in the summary
+    sum += number(work["lines_file"]["left_out_probability"]);
     // rounding: lines x eps; 1e-9 is far above it and far below any physics
     if (!(std::abs(sum + unresolved - 1) <= 1e-9))
-      fail("line probabilities " + num(sum) + " + unresolved weight " + num(unresolved) + " != 1 (off by " +
-           num(sum + unresolved - 1) + ")");
+      fail("line probabilities " + num(sum) + " (with those left out below the floor) + unresolved weight " +
+           num(unresolved) + " != 1 (off by " + num(sum + unresolved - 1) + ")");
     if (cum_col < lines_csv.names.size() && !(std::abs(lines_csv.rows.back()[cum_col] - sum) <= 1e-9))
       fail("cumulative column ends at " + num(lines_csv.rows.back()[cum_col]) + ", the lines sum to " + num(sum));
   }

@@ -61,13 +61,30 @@ def cli_ok(*args, cwd=None):
 
 
 def read_csv(path):
-    """A CSV file of the command line: (column names, comment lines, {name: float array})."""
+    """A CSV file of the command line: (column names, comment lines, {name: float array}); an
+    empty cell (a column that does not apply to the run) reads as NaN."""
     lines = pathlib.Path(path).read_text().splitlines()
     names = lines[0].split(",")
     comments = [l[2:] if l.startswith("# ") else l[1:] for l in lines[1:] if l.startswith("#")]
     rows = [l.split(",") for l in lines[1:] if l and not l.startswith("#")]
-    values = np.array([[float(x) for x in r] for r in rows], dtype=float).reshape(len(rows), len(names))
+    values = np.array([[float(x) if x else np.nan for x in r] for r in rows], dtype=float).reshape(len(rows), len(names))
     return names, comments, {n: values[:, i] for i, n in enumerate(names)}
+
+
+_FLOOR = re.compile(r"^probability floor ([^:]+): (\d+) lines below it left out")
+
+
+def rows_in_file(table, comments):
+    """The rows of a module Table that its CSV file holds: every row, except in lines.csv and
+    reverse_lines.csv, which leave out the lines below the probability floor their comment
+    states (the module's table keeps them)."""
+    for c in comments:
+        m = _FLOOR.match(c)
+        if m:
+            keep = table["probability"] >= float(m.group(1))
+            assert int((~keep).sum()) == int(m.group(2)), f"{table.file}: the floor comment counts {m.group(2)} lines"
+            return keep
+    return np.ones(len(table), dtype=bool)
 
 
 def column_scale(name, values):
@@ -101,8 +118,9 @@ def assert_table_equals_csv(table, path):
     assert len(table.comments) == len(comments), f"{path.name}: comment lines differ"
     for a, b in zip(table.comments, comments):
         assert_text_close(a, b, f"{path.name} comment")
+    keep = rows_in_file(table, comments)
     for n in names:
-        assert_close(table[n], columns[n], column_scale(n, columns[n]), f"{path.name} column {n}")
+        assert_close(table[n][keep], columns[n], column_scale(n, columns[n]), f"{path.name} column {n}")
 
 
 def _largest(value):

@@ -198,13 +198,18 @@ def _scenario(s):
 
 # ---- tables and results --------------------------------------------------------------------------
 
+# spectrum.csv's energies in the internal unit hbar^2/(m L0^2) (output.hpp's internal_energy_column)
+_INTERNAL_ENERGY = "energy_hbar2_per_m_L0sq"
+
+
 class Table:
     """One CSV file of a result: its columns as numpy float64 arrays, in file order.
 
     ``table["energy_h_kHz"]`` is a column (units in the name, as in the file), ``table.columns``
     the names, ``table.comments`` the file's '#' lines (without '# '), ``len(table)`` the number
     of rows; ``table.to_pandas()`` a pandas DataFrame (pandas is optional). NaN marks a value
-    that does not exist, as "nan" does in the file."""
+    that does not exist, as "nan" does in the file, and fills a column that does not apply to
+    the run (empty cells in the file: the columns are the same for every scenario)."""
 
     __slots__ = ("file", "columns", "comments", "_data")
 
@@ -261,7 +266,7 @@ def _table_of_csv(file, text):
     names = lines[0].split(",") if lines else []
     comments = [l[2:] if l.startswith("# ") else l[1:] for l in lines[1:] if l.startswith("#")]
     rows = [l.split(",") for l in lines[1:] if l and not l.startswith("#")]
-    values = np.array([[float(x) for x in r] for r in rows], dtype=float).reshape(len(rows), len(names))
+    values = np.array([[float(x) if x else np.nan for x in r] for r in rows], dtype=float).reshape(len(rows), len(names))
     return Table(file, [(n, values[:, i]) for i, n in enumerate(names)], comments)
 
 
@@ -314,6 +319,12 @@ class Result:
         """The run's warnings (list of str), as in the summary file."""
         w = self.summary.get("warnings", [])
         return [x if isinstance(x, str) else json.dumps(x) for x in w]
+
+    @property
+    def notes(self):
+        """What the run did on its own that is worth knowing but is not a warning (list of str;
+        e.g. levels enlarged to bound the escape probability), as in the summary file."""
+        return list(self.summary.get("notes", []))
 
     @property
     def diagnostics(self):
@@ -385,14 +396,14 @@ class SpectrumResult(Result):
     @property
     def energy_unit(self):
         """Display unit of the energies ("h*kHz"): that of the spectrum table's energy column."""
-        col = next(c for c in self.tables["spectrum"].columns if c.startswith("energy_") and c != "energy_internal")
+        col = next(c for c in self.tables["spectrum"].columns if c.startswith("energy_") and c != _INTERNAL_ENERGY)
         return col[len("energy_"):].replace("_", "*", 1)
 
     @property
     def energies(self):
         """Level energies in ``energy_unit`` (the spectrum table's ``energy_<unit>`` column)."""
         t = self.tables["spectrum"]
-        return t[next(c for c in t.columns if c.startswith("energy_") and c != "energy_internal")]
+        return t[next(c for c in t.columns if c.startswith("energy_") and c != _INTERNAL_ENERGY)]
 
     @property
     def x_um(self):
@@ -424,7 +435,9 @@ class WorkResult(Result):
 
     @property
     def lines(self):
-        """The work lines (Table): work in the display unit, probability, initial and final level."""
+        """The work lines (Table): work in the display unit, probability, initial and final level.
+        Every line: the file lines.csv leaves out those below a probability floor (the
+        summary's ``work.lines_file`` says which floor, how many and their total probability)."""
         return self.tables["lines"]
 
     @property
@@ -439,7 +452,8 @@ class WorkResult(Result):
 
     @property
     def characteristic(self):
-        """The characteristic function G(u) = <exp(i u W)> (Table: u, re_G, im_G)."""
+        """The characteristic function G(u) = <exp(i u W)> (Table: conjugate_variable_per_<unit>
+        u, characteristic_function_real, characteristic_function_imaginary)."""
         return self.tables["characteristic"]
 
     @property
