@@ -565,7 +565,7 @@ def work_caption(f, r):
     """plot.cpp's work_caption: the caption lines (the densities' width and its source; the
     lines left out of the log panel)."""
     lines = []
-    if r["density_top"] > 0 and f.get("resolution") is not None:
+    if (r["density_top"] or 0) > 0 and f.get("resolution") is not None:
         text = "densities: the lines broadened by a Gaussian of width #gs = " + _number(float(f["resolution"]))
         label = f.get("work_label") or ""
         a, b = label.rfind("("), label.rfind(")")
