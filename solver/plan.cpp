@@ -31,13 +31,11 @@ double resolution_bias(double beta, double sigma, bool corrected) {
   return corrected ? 0.0 : -beta * beta * sigma * sigma / 2;
 }
 
-}  // namespace
-
-double delta_method_bias_kT(const std::vector<WorkLine>& model, int runs, double beta, double resolution,
-                            bool correct_resolution) {
+// var(X) / <X>^2 of X = exp(-beta (W + eta)).
+double relative_variance(const std::vector<WorkLine>& model, double beta, double resolution) {
   // Moments of X = exp(-beta W) exp(-beta eta), shifted by the smallest W (no overflow); the
   // shift cancels in var(X)/<X>^2. <exp(-k beta eta)> = exp(k^2 beta^2 sigma^2 / 2).
-  TRAPWORK_EXPECT(!model.empty() && runs > 0, "delta_method_bias_kT needs model lines and runs > 0");
+  TRAPWORK_EXPECT(!model.empty(), "delta method: needs model lines");
   double w_min = model.front().work, total = 0;
   for (const auto& l : model) w_min = std::min(w_min, l.work), total += l.probability;
   double m1 = 0, m2 = 0;
@@ -49,7 +47,22 @@ double delta_method_bias_kT(const std::vector<WorkLine>& model, int runs, double
   const double b2s2 = beta * beta * resolution * resolution;
   m1 *= std::exp(b2s2 / 2);
   m2 *= std::exp(2 * b2s2);
-  return (m2 - m1 * m1) / (2.0 * runs * m1 * m1) + resolution_bias(beta, resolution, correct_resolution);
+  return (m2 - m1 * m1) / (m1 * m1);
+}
+
+}  // namespace
+
+double delta_method_bias_kT(const std::vector<WorkLine>& model, int runs, double beta, double resolution,
+                            bool correct_resolution) {
+  TRAPWORK_EXPECT(runs > 0, "delta_method_bias_kT needs runs > 0");
+  return relative_variance(model, beta, resolution) / (2.0 * runs) + resolution_bias(beta, resolution, correct_resolution);
+}
+
+double delta_method_rms_kT(const std::vector<WorkLine>& model, int runs, double beta, double resolution,
+                           bool correct_resolution) {
+  TRAPWORK_EXPECT(runs > 0, "delta_method_rms_kT needs runs > 0");
+  const double bias = delta_method_bias_kT(model, runs, beta, resolution, correct_resolution);
+  return std::sqrt(relative_variance(model, beta, resolution) / runs + bias * bias);
 }
 
 EstimatorStatistics jarzynski_estimator_statistics(const std::vector<WorkLine>& model, int runs,

@@ -46,6 +46,11 @@ struct EstimatorStatistics {
 double delta_method_bias_kT(const std::vector<WorkLine>& model, int runs, double beta, double resolution,
                             bool correct_resolution = false);
 
+// The delta method's rms error (kT): sqrt(var(X) / (N <X>^2) + bias^2), the first-order variance
+// of -ln(mean X) plus the bias above squared (common practice; large N).
+double delta_method_rms_kT(const std::vector<WorkLine>& model, int runs, double beta, double resolution,
+                           bool correct_resolution = false);
+
 // Statistics of the estimator from `options.experiments` synthetic experiments of `runs` runs.
 // Throws InputError for runs < 1, experiments < 2, beta <= 0 or sigma < 0.
 EstimatorStatistics jarzynski_estimator_statistics(const std::vector<WorkLine>& model, int runs,

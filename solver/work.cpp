@@ -455,15 +455,17 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
   return run;
 }
 
-// The harmonic prediction for the trap's harmonic part (omega_h, centre): the same protocol
-// applied to (1/2) omega_h^2 (x - c)^2 alone, with the analytic transition probabilities,
-// harmonic energies and, for a Gibbs state, harmonic Boltzmann weights at the same beta.
-// Applies when the protocol moves every term rigidly (displaced oscillator), or changes only
-// the frequency of the one term that carries the harmonic part (parametric oscillator), with
-// omega > 0 at both ends. Otherwise nothing, with the reason in why_not.
-std::optional<HarmonicComparison> harmonic_comparison(const Potential& base, const Protocol& protocol,
-                                                      const WorkInput& forward, double merge_tolerance,
-                                                      std::string& why_not) {
+// The harmonic model of a protocol (see harmonic_comparison): the displaced oscillator of a
+// rigid translation (parameter |alpha|^2) or the parametric oscillator of a change of the one
+// harmonic frequency (parameter Q*), with the frequencies at both ends; nothing, with the
+// reason in why_not, otherwise.
+struct HarmonicModel {
+  std::string model;
+  bool displaced = false;
+  double w0 = 0, w1 = 0, parameter = 0;
+};
+
+std::optional<HarmonicModel> harmonic_model(const Potential& base, const Protocol& protocol, std::string& why_not) {
   const auto part = base.harmonic_part();
   if (!part) {
     why_not = "the trap has no harmonic or polynomial term with a frequency (or their centres differ)";
@@ -474,18 +476,17 @@ std::optional<HarmonicComparison> harmonic_comparison(const Potential& base, con
     return std::nullopt;
   }
   const double tau = protocol.duration();
-  const int rows = forward.transitions.initial_levels(), cols = forward.transitions.final_levels();
-  HarmonicComparison h;
-  double w0 = part->first, w1 = part->first;
+  HarmonicModel h;
+  h.w0 = h.w1 = part->first;
   const Term* carrier = nullptr;
   for (const auto& t : base.terms())
     if (t.harmonic_part()) carrier = carrier ? nullptr : &t;  // exactly one term with a harmonic part
   if (protocol.translation(base)) {
     const Schedule& centre = protocol.schedules().front();
-    const auto alpha = translation_alpha(w0, [&](double t) { return centre.evaluate(t, tau).value; }, tau);
+    const auto alpha = translation_alpha(h.w0, [&](double t) { return centre.evaluate(t, tau).value; }, tau);
     h.model = "displaced oscillator (Cahill & Glauber 1969)";
+    h.displaced = true;
     h.parameter = std::norm(alpha);
-    h.reference = {displaced_transition_matrix(rows, cols, h.parameter)};
   } else if (carrier && protocol.schedules().size() == 1 &&
              protocol.schedules().front().address() == carrier->name() + ".frequency") {
     if (carrier->shape() == Shape::polynomial && carrier->parameter("linear") != 0) {
@@ -494,22 +495,42 @@ std::optional<HarmonicComparison> harmonic_comparison(const Potential& base, con
       return std::nullopt;
     }
     const Schedule& s = protocol.schedules().front();
-    w0 = std::abs(s.initial_value(tau));
-    w1 = std::abs(s.final_value(tau));
-    if (!(w0 > 0 && w1 > 0)) {  // e.g. a polynomial trap ramped to a pure quartic
-      why_not = std::string("the harmonic frequency is 0 at the ") + (w0 > 0 ? "end" : "start") +
+    h.w0 = std::abs(s.initial_value(tau));
+    h.w1 = std::abs(s.final_value(tau));
+    if (!(h.w0 > 0 && h.w1 > 0)) {  // e.g. a polynomial trap ramped to a pure quartic
+      why_not = std::string("the harmonic frequency is 0 at the ") + (h.w0 > 0 ? "end" : "start") +
                 " of the protocol (no harmonic trap there): the parametric-oscillator model needs a frequency "
                 "above 0 at both ends";
       return std::nullopt;
     }
     h.model = "parametric oscillator (Husimi 1953)";
     h.parameter = tau > 0 ? parametric_q([&](double t) { double w = s.evaluate(t, tau).value; return w * w; }, tau)
-                          : sudden_q(w0, w1);
-    h.reference = {husimi_transition_matrix(rows, cols, h.parameter)};
+                          : sudden_q(h.w0, h.w1);
   } else {
     why_not = "the protocol is neither a rigid translation nor a change of the one harmonic frequency alone";
     return std::nullopt;
   }
+  return h;
+}
+
+// The harmonic prediction for the trap's harmonic part (omega_h, centre): the same protocol
+// applied to (1/2) omega_h^2 (x - c)^2 alone, with the analytic transition probabilities,
+// harmonic energies and, for a Gibbs state, harmonic Boltzmann weights at the same beta.
+// Applies when the protocol moves every term rigidly (displaced oscillator), or changes only
+// the frequency of the one term that carries the harmonic part (parametric oscillator), with
+// omega > 0 at both ends. Otherwise nothing, with the reason in why_not.
+std::optional<HarmonicComparison> harmonic_comparison(const Potential& base, const Protocol& protocol,
+                                                      const WorkInput& forward, double merge_tolerance,
+                                                      std::string& why_not) {
+  const auto model = harmonic_model(base, protocol, why_not);
+  if (!model) return std::nullopt;
+  const int rows = forward.transitions.initial_levels(), cols = forward.transitions.final_levels();
+  HarmonicComparison h;
+  const double w0 = model->w0, w1 = model->w1;
+  h.model = model->model;
+  h.parameter = model->parameter;
+  h.reference = {model->displaced ? displaced_transition_matrix(rows, cols, h.parameter)
+                                  : husimi_transition_matrix(rows, cols, h.parameter)};
   h.exact = base.terms().size() == 1 && base.terms().front().shape() == Shape::harmonic;
   WorkInput ref;
   ref.transitions = h.reference;
@@ -746,6 +767,34 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
 }
 
 }  // namespace
+
+std::optional<HarmonicMoments> harmonic_moments(const Potential& base, const Protocol& protocol,
+                                                const InitialState& initial, std::string& why_not) {
+  const auto h = harmonic_model(base, protocol, why_not);
+  if (!h) return std::nullopt;
+  double mean_occupation = 0;
+  switch (initial.kind()) {
+    case InitialState::Kind::thermal: mean_occupation = 1 / std::expm1(initial.parameter() * h->w0); break;
+    case InitialState::Kind::phonons: mean_occupation = initial.parameter(); break;
+    case InitialState::Kind::eigenstate: mean_occupation = initial.level(); break;
+    case InitialState::Kind::mixture: {
+      const auto& p = initial.mixture_weights();
+      double total = 0;
+      for (std::size_t m = 0; m < p.size(); ++m) mean_occupation += double(m) * p[m], total += p[m];
+      mean_occupation /= total;
+      break;
+    }
+  }
+  HarmonicMoments m;
+  m.model = h->model;
+  if (h->displaced) {  // <W> = omega |alpha|^2, var W = omega^2 |alpha|^2 (2 nbar + 1)
+    m.mean = h->w0 * h->parameter;
+    m.sd = h->w0 * std::sqrt(h->parameter * (2 * mean_occupation + 1));
+  } else {  // <W> = (omega1 Q* - omega0) (nbar + 1/2)
+    m.mean = (h->w1 * h->parameter - h->w0) * (mean_occupation + 0.5);
+  }
+  return m;
+}
 
 // Levels are kept until the left-out thermal weight, the unresolved final weight and the
 // chance p_R(>=K) that the reverse run leaves the kept initial levels are all small (the last

@@ -271,6 +271,22 @@ struct HarmonicComparison {
                                    // (distribution.mean, on the run's levels, otherwise)
 };
 
+// The harmonic prediction's <W> and sd W alone (no numerical run, cheap enough to evaluate
+// densely over a sweep), for the models of HarmonicComparison and the initial state taken in the
+// harmonic trap omega0, of mean occupation nbar (thermal: 1/(exp(beta omega0) - 1); phonons:
+// nbar; level n: n; a mixture: sum m p_m):
+// displaced oscillator <W> = omega |alpha|^2, var W = omega^2 |alpha|^2 (2 nbar + 1) (the
+// thermal form of displaced_thermal_variance with coth(beta omega/2) = 2 nbar + 1); parametric
+// oscillator <W> = (omega1 Q* - omega0)(nbar + 1/2) (parametric_mean_work), sd NaN (no closed
+// form used here). Nothing, with the reason in why_not, where no harmonic model applies.
+struct HarmonicMoments {
+  std::string model;
+  double mean = 0;
+  double sd = std::numeric_limits<double>::quiet_NaN();
+};
+std::optional<HarmonicMoments> harmonic_moments(const Potential& base, const Protocol& protocol,
+                                                const InitialState& initial, std::string& why_not);
+
 struct WorkResult {
   Grid grid = Grid::periodic(0, 1, 4);  // the forward propagation grid
   bool co_moving = false;

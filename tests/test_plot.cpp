@@ -242,3 +242,193 @@ TEST_CASE("inconsistent data is refused before any file is written", "[plot]") {
   CHECK_THROWS_WITH(plot_sweep(folder / "d", sweep), Catch::Contains("analytic curve"));
   CHECK(names_in(folder).empty());
 }
+
+// ---- issue 16: ranges of the work figure ----------------------------------------------------
+
+namespace {
+
+// Lines broadened by a Gaussian of width sigma on the grid work_output.cpp uses (the lines
+// holding all but 1e-6 of the largest, widened by 6 sigma, at sigma / 5).
+void broaden(WorkSeries& s, double sigma) {
+  double top = 0, lo = INFINITY, hi = -INFINITY;
+  for (double p : s.probability) top = std::max(top, p);
+  for (std::size_t i = 0; i < s.work.size(); ++i)
+    if (s.probability[i] >= 1e-6 * top) lo = std::min(lo, s.work[i]), hi = std::max(hi, s.work[i]);
+  lo -= 6 * sigma;
+  hi += 6 * sigma;
+  const int n = std::min(4001, static_cast<int>(std::ceil((hi - lo) / (sigma / 5))) + 1);
+  for (int i = 0; i < n; ++i) {
+    const double w = lo + (hi - lo) * i / (n - 1);
+    double d = 0;
+    for (std::size_t k = 0; k < s.work.size(); ++k)
+      d += s.probability[k] * std::exp(-0.5 * std::pow((w - s.work[k]) / sigma, 2));
+    s.density_work.push_back(w);
+    s.density.push_back(d / (sigma * std::sqrt(2 * M_PI)));
+  }
+}
+
+// Shaped like examples/tweezer_deform.toml's run (its lines.csv): the ground state followed
+// adiabatically, one line at -19.8939 kB*uK with P = 1 - 4.4e-7, then every other level.
+WorkFigure tweezer_like() {
+  WorkFigure f;
+  f.work_label = "work W (kB*uK)";
+  f.density_label = "density (1/kB*uK)";
+  const double w[] = {-19.8938620029266, -17.6054619346631, -15.350895517171, -13.1304788350937, -10.9445406843494};
+  const double p[] = {0.999999563378004, 4.3661670901728453e-07, 2.847451761827139e-12, 2.598e-16, 5.7e-20};
+  double mean = 0;
+  for (int k = 0; k < 5; ++k) {
+    f.result.work.push_back(w[k]);
+    f.result.probability.push_back(p[k]);
+    mean += w[k] * p[k];
+  }
+  for (int k = 0; k < 20; ++k) {  // the odd levels, forbidden by parity: P ~ 1e-29
+    f.result.work.push_back(-18.75 + k);
+    f.result.probability.push_back(3e-29);
+  }
+  f.resolution = 0.04681;
+  f.resolution_source = "default: 1/20 of the lowest spacing";
+  broaden(f.result, *f.resolution);
+  f.mean_work = mean;
+  return f;
+}
+
+// Shaped like examples/ion_translation.toml's run: a slow translation, the W = 0 lines carry all
+// but 1e-4, sidebands at multiples of the 1.5 MHz spacing (h*kHz), resolution 75 h*kHz.
+WorkFigure ion_translation_like() {
+  WorkFigure f;
+  f.work_label = "work W (h*kHz)";
+  for (int k = -2; k <= 3; ++k) {
+    const double top = k == 0 ? 0.9999 : std::pow(10.0, -3.0 - 3 * std::abs(k));
+    for (int m = 0; m < 5; ++m) {  // several initial levels per sideband
+      f.result.work.push_back(1500.0 * k + 0.01 * m * k);
+      f.result.probability.push_back(top * std::pow(0.1, m));
+    }
+  }
+  f.resolution = 75.12;
+  broaden(f.result, *f.resolution);
+  f.reference = f.result;
+  f.mean_work = 0.5395;
+  f.free_energy_change = 0;
+  return f;
+}
+
+// Tick labels as plot.cpp prints them ("%.6g" of W - offset) at about `ticks` even steps.
+std::vector<std::string> tick_labels(double lo, double hi, double offset, int ticks) {
+  std::vector<std::string> labels;
+  for (int i = 0; i <= ticks; ++i) {
+    char text[64];
+    std::snprintf(text, sizeof text, "%.6g", lo + (hi - lo) * i / ticks - offset);
+    labels.push_back(text);
+  }
+  return labels;
+}
+
+double density_peak_work(const WorkSeries& s) {
+  const auto peak = std::max_element(s.density.begin(), s.density.end());
+  return s.density_work[static_cast<std::size_t>(peak - s.density.begin())];
+}
+
+}  // namespace
+
+TEST_CASE("issue 16: the linear work panel shows one dominant line with its broadened density", "[plot]") {
+  for (const WorkFigure& f : {tweezer_like(), ion_translation_like()}) {
+    const WorkPanelRanges r = work_panel_ranges(f);
+    const double sigma = *f.resolution, line = f.result.work[f.result.work.size() == 25 ? 0 : 10];
+    INFO("dominant line " << line << ", range " << r.linear_lo << " .. " << r.linear_hi);
+    // The dominant line and the density's width (+-2 sigma) and peak inside the linear panel:
+    // the old rule (lines and markers only) gave a window 2e-5 kB*uK (tweezer) or 0.6 h*kHz
+    // (ion) wide, in which the density was flat.
+    CHECK(r.linear_lo < line - 2 * sigma);
+    CHECK(r.linear_hi > line + 2 * sigma);
+    CHECK(r.linear_hi - r.linear_lo < 10 * sigma);  // and not much more: the peak is resolved
+    const double peak = density_peak_work(f.result);
+    CHECK((peak > r.linear_lo && peak < r.linear_hi));
+    // The density on its own axis, from its own maximum, with headroom: never cut.
+    const double d_max = *std::max_element(f.result.density.begin(), f.result.density.end());
+    CHECK(r.density_top == Approx(1.3 * d_max));
+    CHECK(r.probability_top == Approx(1.3 * f.result.probability[f.result.work.size() == 25 ? 0 : 10]));
+    // Tick labels that differ (at 5 to 12 ticks, as the panel draws 5 to 10).
+    for (int ticks = 5; ticks <= 12; ++ticks) {
+      auto labels = tick_labels(r.linear_lo, r.linear_hi, r.linear_offset, ticks);
+      std::sort(labels.begin(), labels.end());
+      CHECK(std::adjacent_find(labels.begin(), labels.end()) == labels.end());
+    }
+    CHECK(r.own_range);  // the log panel keeps the far lines
+    CHECK(r.log_lo < f.result.work.front());
+  }
+}
+
+TEST_CASE("issue 16: a panel narrow against its |W| gets tick labels relative to an offset", "[plot]") {
+  WorkFigure f;
+  f.probability_axis = ProbabilityAxis::linear;
+  f.result.work = {2.5e6, 2.5e6 + 0.002, 2.5e6 + 0.004};  // lines 2 mJ apart at 2.5 kJ, say
+  f.result.probability = {0.2, 0.5, 0.3};
+  const WorkPanelRanges r = work_panel_ranges(f);
+  CHECK(r.linear_lo < 2.5e6);
+  CHECK(r.linear_hi > 2.5e6 + 0.004);
+  CHECK(r.linear_offset != 0);
+  CHECK(std::abs(r.linear_offset - 2.5e6) < r.linear_hi - r.linear_lo);
+  auto labels = tick_labels(r.linear_lo, r.linear_hi, r.linear_offset, 8);
+  std::sort(labels.begin(), labels.end());
+  CHECK(std::adjacent_find(labels.begin(), labels.end()) == labels.end());
+  // Without the offset the same ticks print alike: the check above can fail.
+  auto plain = tick_labels(r.linear_lo, r.linear_hi, 0, 8);
+  std::sort(plain.begin(), plain.end());
+  CHECK(std::adjacent_find(plain.begin(), plain.end()) != plain.end());
+  // A panel wide against its values keeps plain labels.
+  CHECK(work_panel_ranges(tweezer_like()).log_offset == 0);
+  const fs::path folder = fresh_folder("work_offset");
+  check_figure_files(folder / "work", plot_work(folder / "work", f));
+}
+
+TEST_CASE("issue 16: the log panel leaves out and counts lines below its floor, thins crowded stems", "[plot]") {
+  WorkFigure f = ion_translation_like();
+  f.log_decades = 12;
+  // The result crowded like the demo's: 3000 lines over 30 decades.
+  f.result.work.clear();
+  f.result.probability.clear();
+  for (int i = 0; i < 3000; ++i) {
+    f.result.work.push_back(i);
+    f.result.probability.push_back(std::pow(10.0, -30.0 * i / 2999));
+  }
+  f.reference->work.clear();  // and a reference of 30 lines
+  f.reference->probability.clear();
+  for (int k = 0; k < 30; ++k) {
+    f.reference->work.push_back(40.0 * k);
+    f.reference->probability.push_back(1.0 / 30);
+  }
+  const double p_max = 1, floor = p_max * 1e-12;
+  std::size_t below = 0;
+  for (const auto* s : {&f.result, &*f.reference})
+    for (double p : s->probability) below += p > floor ? 0 : 1;
+  const WorkPanelRanges r = work_panel_ranges(f);
+  CHECK(r.lines_below_floor == below);
+  CHECK(r.lines_drawn + r.lines_below_floor == f.result.work.size() + f.reference->work.size());
+  CHECK(r.log_floor == Approx(std::log10(floor)));
+  CHECK(r.marker_scale[0] == 0);              // 1200 lines: stems only, thin
+  CHECK(r.stem_width[0] == Approx(0.5));
+  CHECK(r.marker_scale[1] == Approx(0.8));    // the reference's 30 lines keep their markers
+  // The log panel's range is that of the lines drawn, not of those left out.
+  CHECK(r.log_hi < 2000);  // the lines left out reach W = 2999
+  const auto caption = work_caption(f, r);
+  REQUIRE(caption.size() == 2);
+  CHECK(caption[0].find("#gs = 75.12 h*kHz") != std::string::npos);
+  CHECK(caption[1] == std::to_string(below) + " lines below P = 1e-12 not drawn in the log panel");
+  const fs::path folder = fresh_folder("work_crowded");
+  check_figure_files(folder / "work", plot_work(folder / "work", f));
+  f.resolution = -1;
+  CHECK_THROWS_WITH(work_panel_ranges(f), Catch::Contains("resolution must be finite and > 0"));
+}
+
+TEST_CASE("issue 16: a sweep figure draws log y axes and further panels", "[plot]") {
+  SweepFigure f = sweep_figure();
+  f.departure = Departure::absolute;
+  f.log_y = true;
+  SweepPanel residual{"|residual| (dimensionless)", {{"grid", {1, 2, 3}, {1e-3, 1e-9, 1e-14}, {}}}, {}, true};
+  SweepPanel sd{"sd(W) (h*kHz)", {{"grid", {1, 2, 3}, {1, 2, -1}, {0.5, 0.5, 0.5}}}, {}, false};
+  f.panels = {sd, residual};
+  const fs::path folder = fresh_folder("sweep_panels");
+  check_figure_files(folder / "sweep", plot_sweep(folder / "sweep", f));
+  f.panels[0].curves = {{"bad", {2, 1}, {0, 0}}};
+  CHECK_THROWS_WITH(plot_sweep(folder / "bad", f), Catch::Contains("x must be ascending"));
+}

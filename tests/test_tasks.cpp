@@ -384,3 +384,113 @@ TEST_CASE("issue 15: plan_task gives the table, summary, figure and synthetic ru
   REQUIRE(notices.size() == 1);
   CHECK(notices[0].rfind("plan estimated ", 0) == 0);
 }
+
+TEST_CASE("issue 16: plan.png is the rms error against N on log-log axes, the target and the N found inside", "[tasks]") {
+  const Scenario s = read_scenario_text(work_text, "tasks.toml");
+  PlanSettings settings;
+  settings.runs = {10, 100};
+  settings.resolutions = {"20 h*kHz"};
+  settings.experiments = 100;
+  settings.target_kT = 0.05;
+  const PlanTaskOutcome o = plan_task(s, settings);
+  REQUIRE(o.needed.size() == 1);
+  REQUIRE(o.needed[0]);
+  const int n = o.needed[0]->runs;
+  const auto figures = task_figures(o);
+  REQUIRE(figures.size() == 1);
+  const auto& f = std::get<SweepFigure>(figures[0].figure);
+  CHECK(f.log_x);
+  CHECK(f.log_y);
+  CHECK(f.y_label == "rms error of #gb#gDF (kT)");
+  // The points are the rms errors of the table.
+  REQUIRE(f.points.size() == 2);
+  REQUIRE(f.points[0].y.size() == o.table.size());
+  for (std::size_t i = 0; i < o.table.size(); ++i) {
+    CHECK(f.points[0].x[i] == o.table[i].runs);
+    CHECK(f.points[0].y[i] == o.table[i].rms_error_kT);
+  }
+  // The N found, as a point and a vertical line at N, inside the x range the curves span.
+  CHECK(f.points[1].x == std::vector<double>{double(n)});
+  CHECK(f.points[1].y == std::vector<double>{o.needed[0]->at.rms_error_kT});
+  double x_lo = INFINITY, x_hi = 0;
+  for (const auto& c : f.curves) {
+    x_lo = std::min(x_lo, c.x.front());
+    x_hi = std::max(x_hi, c.x.back());
+  }
+  CHECK((n >= x_lo && n <= x_hi));
+  REQUIRE(f.curves.size() == 3);
+  CHECK(f.curves[1].label == "target rms error 0.05 kT");  // the target, a horizontal line on that axis
+  CHECK(f.curves[1].y == std::vector<double>{0.05, 0.05});
+  CHECK(f.curves[2].x == std::vector<double>{double(n), double(n)});
+  CHECK(f.curves[2].y.front() <= 0.05);
+  CHECK(f.curves[2].y.back() >= 0.05);
+  // The delta method's rms error, first order (common practice), against the synthetic
+  // experiments at N = 100: within their resampling scatter 1/sqrt(2 x 100 experiments) and the
+  // second-order terms the delta method leaves out (measured here: 0.0489 against 0.0470 kT, 4%
+  // apart; 25% allowed).
+  const auto& delta = f.curves[0];
+  const auto at_100 = std::find(delta.x.begin(), delta.x.end(), 100.0);
+  REQUIRE(at_100 != delta.x.end());
+  CHECK(delta.y[std::size_t(at_100 - delta.x.begin())] == Approx(o.table[1].rms_error_kT).epsilon(0.25));
+  const fs::path dir = trapwork_test::scratch_dir("test-tasks", "plan-figure");
+  CHECK(plot_sweep(dir / "plan", f).size() == 2);
+}
+
+TEST_CASE("issue 16: sweep.png: <W>, sd(W) and the residual, the harmonic curve evaluated densely", "[tasks]") {
+  const Scenario s = read_scenario_text(work_text + "[sweep]\nparameter = \"protocol.duration\"\n"
+                                                    "values = [\"0.5 us\", \"1.2 us\", \"3 us\"]\n",
+                                        "sweep.toml");
+  std::vector<SweepRow> rows;
+  for (std::size_t i = 0; i < 3; ++i) {
+    SweepRow r;
+    r.value = s.sweep->values[i];
+    r.mean = 0.01 * std::pow(100.0, double(i));  // spans 4 decades: a log axis
+    r.sd = 1 + double(i);                         // less than 2: linear
+    r.jarzynski_residual = -std::pow(10.0, -3.0 * double(i) - 3);
+    r.harmonic_mean = r.harmonic_sd = NAN;
+    rows.push_back(r);
+  }
+  SweepFigure f = sweep_figure(s, rows);
+  CHECK(f.x_label == "protocol.duration (us)");
+  CHECK(f.y_label == "mean work <W> (h*kHz)");
+  CHECK(f.log_y);
+  CHECK(!f.log_x);  // 0.5 .. 3 us
+  REQUIRE(f.curves.size() == 1);
+  const SweepCurve& c = f.curves[0];
+  // 200 points between the sweep's ends, not the 3 sweep points joined.
+  REQUIRE(c.x.size() == 200);
+  CHECK(c.x.front() == Approx(0.5));
+  CHECK(c.x.back() == Approx(3));
+  // <W> = 2 m v^2 sin^2(omega tau / 2) for a trap moved at constant speed v = D / tau (Husimi
+  // 1953; Talkner, Burada & Hanggi 2008, from memory), here 40 u, 1 MHz, D = 30 nm, in h*kHz
+  // (CODATA 2018: u = 1.66053906660e-27 kg, h = 6.62607015e-34 J s).
+  const double m = 40 * 1.66053906660e-27, omega = 2 * M_PI * 1e6, h_kHz = 6.62607015e-34 * 1e3;
+  for (std::size_t i = 0; i < c.x.size(); i += 37) {
+    const double tau = c.x[i] * 1e-6, v = 30e-9 / tau;
+    const double expected = 2 * m * v * v * std::pow(std::sin(omega * tau / 2), 2) / h_kHz;
+    CHECK(c.y[i] == Approx(expected).epsilon(1e-6).margin(1e-9));
+  }
+  // sd(W) with the harmonic sd (hbar omega |alpha| sqrt(2 nbar + 1), nbar = 0.5) as a dense
+  // curve, then |residual| on a log axis; every y axis names its unit.
+  REQUIRE(f.panels.size() == 2);
+  CHECK(f.panels[0].y_label == "sd(W) (h*kHz)");
+  CHECK(!f.panels[0].log_y);
+  REQUIRE(f.panels[0].curves.size() == 1);
+  const SweepCurve& sd = f.panels[0].curves[0];
+  REQUIRE(sd.x.size() == 200);
+  for (std::size_t i = 0; i < sd.x.size(); i += 41) {
+    const double tau = sd.x[i] * 1e-6, v = 30e-9 / tau;
+    // |alpha|^2 = m v^2 (1 - cos omega tau) / (hbar omega) in lab units
+    const double hbar = 6.62607015e-34 / (2 * M_PI);
+    const double alpha2 = m * v * v * (1 - std::cos(omega * tau)) / (hbar * omega);
+    CHECK(sd.y[i] == Approx(hbar * omega * std::sqrt(alpha2 * 2) / h_kHz).epsilon(1e-6).margin(1e-9));
+  }
+  CHECK(f.panels[1].y_label == "|Jarzynski residual| (dimensionless)");
+  CHECK(f.panels[1].log_y);
+  CHECK(f.panels[1].points[0].y == std::vector<double>{1e-3, 1e-6, 1e-9});
+  const fs::path dir = trapwork_test::scratch_dir("test-tasks", "sweep-figure");
+  CHECK(plot_sweep(dir / "sweep", f).size() == 2);
+  // Values within two decades stay on linear axes.
+  for (auto& r : rows) r.mean = 5 + r.value;
+  CHECK(!sweep_figure(s, rows).log_y);
+}

@@ -311,3 +311,32 @@ TEST_CASE("state_energies: the spread of H in a state is not lost under a large 
     CHECK(std::abs(e.energy_variance[0] - 0.5 * x0 * x0) < 1e-11);
   }
 }
+
+// The harmonic prediction's moments without a run (the sweep figure's dense curve): the
+// closed forms of solver/harmonic_reference.hpp for the same model harmonic_comparison picks.
+TEST_CASE("issue 16: harmonic_moments gives the harmonic <W> and sd W without a run", "[work][harmonic]") {
+  const Potential trap({Term("trap", Shape::harmonic, {{"frequency", 1.0}})});
+  std::string why;
+  // Displaced oscillator: constant speed v = 3 / 2.5 over tau = 2.5, thermal beta = 0.5.
+  const Protocol move(2.5, {Schedule::linear("trap.centre", 0, 3)});
+  const auto d = harmonic_moments(trap, move, InitialState::thermal(0.5), why);
+  REQUIRE(d);
+  const double alpha2 = constant_speed_alpha2(1, 3 / 2.5, 2.5);
+  CHECK(d->mean == Approx(constant_speed_mean_work(1, 3 / 2.5, 2.5)).epsilon(1e-9));
+  CHECK(d->sd * d->sd == Approx(displaced_thermal_variance(alpha2, 0.5, 1)).epsilon(1e-9));
+  // the same from a level: var W = omega^2 |alpha|^2 (2 n + 1)
+  const auto level = harmonic_moments(trap, move, InitialState::eigenstate(2), why);
+  REQUIRE(level);
+  CHECK(level->sd * level->sd == Approx(alpha2 * 5).epsilon(1e-9));
+  // Parametric oscillator: <W> = (omega1 Q* - omega0) coth(beta omega0 / 2) / 2, no sd.
+  const Protocol ramp(3, {Schedule::linear("trap.frequency", 1, 2.2)});
+  const auto p = harmonic_moments(trap, ramp, InitialState::thermal(0.5), why);
+  REQUIRE(p);
+  const double q = parametric_q([](double t) { const double w = 1 + 1.2 * t / 3; return w * w; }, 3);
+  CHECK(p->mean == Approx(parametric_mean_work(1, 2.2, q, 0.5)).epsilon(1e-9));
+  CHECK(std::isnan(p->sd));
+  // No harmonic part: nothing, with the reason.
+  const Potential tweezer({Term("trap", Shape::gaussian, {{"depth", 1.0}, {"waist", 1.0}})});
+  CHECK_FALSE(harmonic_moments(tweezer, move, InitialState::thermal(0.5), why));
+  CHECK(why.find("no harmonic") != std::string::npos);
+}

@@ -90,17 +90,16 @@ py::dict figure_dict(const WorkFigure& f) {
   d["free_energy_change"] = optional(f.free_energy_change);
   d["probability_axis"] = axis_name(f.probability_axis);
   d["log_decades"] = f.log_decades;
+  d["resolution"] = optional(f.resolution);
+  d["resolution_source"] = f.resolution_source;
   return d;
 }
 
-py::dict figure_dict(const SweepFigure& f) {
-  py::dict d;
-  d["kind"] = "sweep";
-  d["title"] = f.title;
-  d["x_label"] = f.x_label;
-  d["y_label"] = f.y_label;
+namespace {
+
+py::list sweep_points(const std::vector<SweepPoints>& all) {
   py::list points;
-  for (const auto& p : f.points) {
+  for (const auto& p : all) {
     py::dict e;
     e["label"] = p.label;
     e["x"] = array(p.x);
@@ -108,18 +107,44 @@ py::dict figure_dict(const SweepFigure& f) {
     e["spread"] = array(p.spread);
     points.append(e);
   }
-  d["points"] = points;
+  return points;
+}
+
+py::list sweep_curves(const std::vector<SweepCurve>& all) {
   py::list curves;
-  for (const auto& c : f.curves) {
+  for (const auto& c : all) {
     py::dict e;
     e["label"] = c.label;
     e["x"] = array(c.x);
     e["y"] = array(c.y);
     curves.append(e);
   }
-  d["curves"] = curves;
+  return curves;
+}
+
+}  // namespace
+
+py::dict figure_dict(const SweepFigure& f) {
+  py::dict d;
+  d["kind"] = "sweep";
+  d["title"] = f.title;
+  d["x_label"] = f.x_label;
+  d["y_label"] = f.y_label;
+  d["points"] = sweep_points(f.points);
+  d["curves"] = sweep_curves(f.curves);
+  py::list panels;
+  for (const auto& p : f.panels) {
+    py::dict e;
+    e["y_label"] = p.y_label;
+    e["points"] = sweep_points(p.points);
+    e["curves"] = sweep_curves(p.curves);
+    e["log_y"] = p.log_y;
+    panels.append(e);
+  }
+  d["panels"] = panels;
   d["spread_as_band"] = f.spread_as_band;
   d["log_x"] = f.log_x;
+  d["log_y"] = f.log_y;
   d["departure"] = departure_name(f.departure);
   d["departure_label"] = f.departure_label;
   return d;

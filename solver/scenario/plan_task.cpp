@@ -4,6 +4,7 @@
 #include <algorithm>
 #include <cmath>
 #include <cstdio>
+#include <limits>
 #include <random>
 #include <sstream>
 
@@ -168,41 +169,61 @@ std::vector<NamedText> task_texts(const PlanTaskOutcome& o) {
   return {{"synthetic_work.csv", synthetic_text(o.scenario, o.synthetic, o.resolutions.front(), o.settings.seed)}};
 }
 
+// plan.png: the rms error of the estimate against N on log-log axes, from the synthetic
+// experiments (points) and the delta method (curve), the target as a horizontal line and the N
+// found for it marked, all inside the axis range.
 std::vector<NamedFigure> task_figures(const PlanTaskOutcome& o) {
   const Display d = display(o.scenario);
   const WorkDistribution& dist = o.work.result().distribution;
   const PlanSettings& settings = o.settings;
   SweepFigure figure;
-  figure.title = "Jarzynski estimate of #gDF from N runs (" + std::to_string(settings.experiments) +
-                 " synthetic experiments per N)";
+  figure.title = "rms error of the Jarzynski #gDF from N runs (" + std::to_string(settings.experiments) +
+                 " synthetic experiments each)";
   figure.x_label = "runs N";
-  figure.y_label = "estimate - true #gb#gDF (kT)";
+  figure.y_label = "rms error of #gb#gDF (kT)";
   figure.log_x = true;
-  const int n_lo = *std::min_element(settings.runs.begin(), settings.runs.end());
-  const int n_hi = *std::max_element(settings.runs.begin(), settings.runs.end());
+  figure.log_y = true;
+  double n_lo = *std::min_element(settings.runs.begin(), settings.runs.end());
+  double n_hi = *std::max_element(settings.runs.begin(), settings.runs.end());
+  for (const auto& n : o.needed)
+    if (n) {
+      n_lo = std::min(n_lo, double(n->runs));
+      n_hi = std::max(n_hi, double(n->runs));
+    }
+  double y_lo = std::numeric_limits<double>::infinity(), y_hi = 0;  // positive values drawn
   for (double sigma : o.resolutions) {
-    SweepPoints p{"bias +- spread, resolution " + sigma_text(d, sigma), {}, {}, {}};
+    SweepPoints p{"rms error of the synthetic experiments, resolution " + sigma_text(d, sigma), {}, {}, {}};
     for (const auto& e : o.table)
       if (e.resolution == sigma) {
         p.x.push_back(e.runs);
-        p.y.push_back(e.bias_kT);
-        p.spread.push_back(e.spread_kT);
+        p.y.push_back(e.rms_error_kT);
+        if (e.rms_error_kT > 0) y_lo = std::min(y_lo, e.rms_error_kT), y_hi = std::max(y_hi, e.rms_error_kT);
       }
     figure.points.push_back(p);
     SweepCurve c{"delta method, resolution " + sigma_text(d, sigma), {}, {}};
     for (int i = 0; i <= 60; ++i) {
-      const double n = n_lo * std::pow(double(n_hi) / n_lo, i / 60.0);
-      const int runs = std::max(1, int(std::lround(n)));
+      const int runs = std::max(1, int(std::lround(n_lo * std::pow(n_hi / n_lo, i / 60.0))));
       if (!c.x.empty() && runs == c.x.back()) continue;
       c.x.push_back(runs);
-      c.y.push_back(delta_method_bias_kT(dist.lines, runs, dist.beta, sigma, settings.correct_resolution));
+      c.y.push_back(delta_method_rms_kT(dist.lines, runs, dist.beta, sigma, settings.correct_resolution));
+      if (c.y.back() > 0) y_lo = std::min(y_lo, c.y.back()), y_hi = std::max(y_hi, c.y.back());
     }
     figure.curves.push_back(c);
   }
-  if (settings.target_kT)  // the spread (and the rms error) must come down to this line
+  if (settings.target_kT) {  // the rms error must come down to this line
     figure.curves.push_back({"target rms error " + short_number(*settings.target_kT, 3) + " kT",
-                             {double(n_lo), double(n_hi)},
-                             {*settings.target_kT, *settings.target_kT}});
+                             {n_lo, n_hi}, {*settings.target_kT, *settings.target_kT}});
+    y_lo = std::min(y_lo, *settings.target_kT);
+    y_hi = std::max(y_hi, *settings.target_kT);
+    for (std::size_t i = 0; i < o.needed.size(); ++i) {
+      if (!o.needed[i]) continue;
+      const double n = o.needed[i]->runs;
+      figure.points.push_back({"needed: N = " + std::to_string(o.needed[i]->runs) + ", resolution " +
+                                   sigma_text(d, o.resolutions[i]),
+                               {n}, {o.needed[i]->at.rms_error_kT}, {}});
+      figure.curves.push_back({"", {n, n}, {y_lo, y_hi}});  // a vertical line at N across the data
+    }
+  }
   return {{"plan", figure}};
 }
 

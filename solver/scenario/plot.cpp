@@ -675,11 +675,13 @@ void validate_series(const std::string& name, const WorkSeries& s) {
                          " needs finite W and P >= 0");
 }
 
-// Vertical stems from the panel floor to P (or log10 P), with a marker on top.
+// Vertical stems from the panel floor to P (or log10 P), with a marker on top. Without markers
+// (marker_scale 0: too many lines for them) the stems are drawn light, each top a small dot.
 void draw_stems(const WorkSeries& s, bool log, double floor, double offset, PLINT colour,
-                const char* marker) {
+                const char* marker, double marker_scale, double stem_width) {
   Vec tx, ty;
-  pen(colour, 2.2);
+  const bool crowded = !(marker_scale > 0);
+  pen(crowded ? (colour == blue ? blue_fill : orange_fill) : colour, stem_width);
   for (std::size_t i = 0; i < s.work.size(); ++i) {
     const double y = log ? (s.probability[i] > 0 ? std::log10(s.probability[i]) : -INFINITY)
                          : s.probability[i];
@@ -689,9 +691,10 @@ void draw_stems(const WorkSeries& s, bool log, double floor, double offset, PLIN
     tx.push_back(x);
     ty.push_back(y);
   }
+  if (tx.empty()) return;
   pen(colour, 1);
-  plschr(0, 0.8);
-  if (!tx.empty()) plstring(static_cast<PLINT>(tx.size()), tx.data(), ty.data(), marker);
+  plschr(0, crowded ? 0.35 : marker_scale);
+  plstring(static_cast<PLINT>(tx.size()), tx.data(), ty.data(), crowded ? "•" : marker);
   plschr(0, text_scale);
 }
 
@@ -716,48 +719,154 @@ Range bulk_range(const std::vector<const WorkSeries*>& series, double tail) {
   return r;
 }
 
-std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
+void validate_work(const WorkFigure& f) {
   const std::string name = "plot_work";
   validate_series(name, f.result);
   if (f.reference) validate_series(name, *f.reference);
   if (f.result.work.empty() && f.result.density.empty()) bad_data(name, "no work values");
   if (!(f.log_decades > 0)) bad_data(name, "log_decades must be > 0");
+  if (f.resolution && !(*f.resolution > 0 && std::isfinite(*f.resolution)))
+    bad_data(name, "resolution must be finite and > 0, found " + number(*f.resolution));
+}
 
+// W0 subtracted from a panel's tick labels: 0, or where the panel is narrower than 1e-3 of its
+// largest |W| its centre rounded to 10 tick steps (so that %.6g labels still differ).
+double tick_offset(double lo, double hi) {
+  const double width = hi - lo, size = std::max(std::abs(lo), std::abs(hi));
+  if (!(width > 0) || width >= 1e-3 * size) return 0;
+  const double coarse = 10 * nice_step(width, 5);
+  return std::round(0.5 * (lo + hi) / coarse) * coarse;
+}
+
+}  // namespace
+
+// See plot.hpp; plot.py's work_panel_ranges is a port of this function: keep them identical.
+WorkPanelRanges work_panel_ranges(const WorkFigure& f) {
+  validate_work(f);
   std::vector<const WorkSeries*> series = {&f.result};
   if (f.reference) series.push_back(&*f.reference);
-  Range wr, dr;
-  double p_max = 0;
+  WorkPanelRanges r;
+  double p_max = 0, d_max = 0;
   for (const auto* s : series) {
-    wr.add(s->work);
-    wr.add(s->density_work);
-    dr.add(s->density);
     for (double p : s->probability) p_max = std::max(p_max, p);
+    for (double d : s->density)
+      if (std::isfinite(d)) d_max = std::max(d_max, d);
   }
-  if (f.mean_work) wr.add(*f.mean_work);
-  if (f.free_energy_change) wr.add(*f.free_energy_change);
-  if (!wr.valid()) bad_data(name, "no finite work values");
-  // The linear panel shows the bulk: lines beyond the central 1 - 2e-3 of the probability (and
-  // their density) are visible only in the log panel, which keeps the whole range. When the
-  // two ranges differ by more than a factor of 2, the linear panel carries its own numbers.
-  Range bulk = bulk_range(series, 1e-3);
-  if (f.mean_work) bulk.add(*f.mean_work);
-  if (f.free_energy_change) bulk.add(*f.free_energy_change);
-  const bool own_range = f.probability_axis == ProbabilityAxis::linear_and_log && bulk.valid() &&
-                         bulk.hi - bulk.lo < 0.5 * (wr.hi - wr.lo);
-  wr = wr.padded(0.04);
-  bulk = own_range ? bulk.padded(0.08) : wr;
-  // Densities need the linear panel's right-hand axis.
-  const bool has_density =
-      dr.valid() && dr.hi > 0 && f.probability_axis != ProbabilityAxis::log;
   const double headroom = 1.3;  // above the tallest stem: room for the marker labels
-  const double p_top = (p_max > 0 ? p_max : 1.0) * headroom;
-  const double d_top = (has_density ? dr.hi : 1.0) * headroom;
+  const bool has_density = d_max > 0 && f.probability_axis != ProbabilityAxis::log;
+  r.probability_top = (p_max > 0 ? p_max : 1.0) * headroom;
+  r.density_top = has_density ? d_max * headroom : 0;
   // A log panel alone carries the marker labels, so it gets headroom for them too.
-  const double log_headroom =
-      f.probability_axis == ProbabilityAxis::log ? 0.5 + 0.2 * f.log_decades : 0.5;
-  const double log_top = std::log10(p_max > 0 ? p_max : 1.0) + log_headroom;
-  const double log_floor = log_top - log_headroom - f.log_decades;
+  const double log_headroom = f.probability_axis == ProbabilityAxis::log ? 0.5 + 0.2 * f.log_decades : 0.5;
+  r.log_top = std::log10(p_max > 0 ? p_max : 1.0) + log_headroom;
+  r.log_floor = r.log_top - log_headroom - f.log_decades;
+
+  Range markers, drawn, all_lines;
+  if (f.mean_work) markers.add(*f.mean_work);
+  if (f.free_energy_change) markers.add(*f.free_energy_change);
+  const double floor = std::pow(10.0, r.log_floor);
+  std::array<std::size_t, 2> drawn_of = {0, 0};  // lines drawn per series
+  for (std::size_t k = 0; k < series.size(); ++k)
+    for (std::size_t i = 0; i < series[k]->work.size(); ++i) {
+      all_lines.add(series[k]->work[i]);
+      if (series[k]->probability[i] > floor) {
+        drawn.add(series[k]->work[i]);
+        ++drawn_of[k];
+      } else {
+        ++r.lines_below_floor;
+      }
+    }
+  r.lines_drawn = drawn_of[0] + drawn_of[1];
+  Range wr = drawn;
+  if (!wr.valid())
+    for (const auto* s : series) wr.add(s->density_work);
+  wr.add(markers.lo);
+  wr.add(markers.hi);
+  if (!wr.valid()) bad_data("plot_work", "no finite work values");
+
+  // Linear panel: the lines that carry the probability, widened by the broadening, the density's
+  // peak and the markers.
+  Range linear = bulk_range(series, 1e-3);
+  const double sigma = has_density && f.resolution ? *f.resolution : 0.0;
+  if (linear.valid()) linear = {linear.lo - 3 * sigma, linear.hi + 3 * sigma};
+  for (const auto* s : series) {
+    if (s->density.empty()) continue;
+    const auto peak = std::max_element(s->density.begin(), s->density.end());
+    if (has_density && std::isfinite(*peak) && *peak > 0)
+      linear.add(s->density_work[static_cast<std::size_t>(peak - s->density.begin())]);
+  }
+  linear.add(markers.lo);
+  linear.add(markers.hi);
+  if (f.probability_axis == ProbabilityAxis::linear) {
+    linear.add(all_lines.lo);
+    linear.add(all_lines.hi);
+  }
+  if (!linear.valid()) linear = wr;
+  wr = wr.padded(0.04);
+  linear = linear.padded(0.08);
+  r.own_range = f.probability_axis == ProbabilityAxis::linear_and_log &&
+                linear.hi - linear.lo < 0.5 * (wr.hi - wr.lo);
+  if (f.probability_axis == ProbabilityAxis::linear_and_log && !r.own_range) {
+    wr.add(linear.lo);
+    wr.add(linear.hi);
+    linear = wr;
+  }
+  r.linear_lo = linear.lo;
+  r.linear_hi = linear.hi;
+  r.log_lo = wr.lo;
+  r.log_hi = wr.hi;
+  r.linear_offset = tick_offset(r.linear_lo, r.linear_hi);
+  r.log_offset = tick_offset(r.log_lo, r.log_hi);
+
+  // Log-panel stems thinned with the number drawn, so that thousands of lines stay lines.
+  for (std::size_t k = 0; k < 2; ++k) {
+    const double n = static_cast<double>(drawn_of[k]);
+    const double crowd = n > 40 ? std::sqrt(40.0 / n) : 1.0;
+    r.marker_scale[k] = 0.8 * crowd >= 0.2 ? 0.8 * crowd : 0.0;
+    r.stem_width[k] = std::max(0.5, 2.2 * crowd);
+  }
+  return r;
+}
+
+std::vector<std::string> work_caption(const WorkFigure& f, const WorkPanelRanges& r) {
+  std::vector<std::string> lines;
+  if (r.density_top > 0 && f.resolution) {
+    std::string text = "densities: the lines broadened by a Gaussian of width #gs = " + number(*f.resolution);
+    const auto open = f.work_label.rfind('('), close = f.work_label.rfind(')');
+    if (open != std::string::npos && close != std::string::npos && close > open)
+      text += " " + f.work_label.substr(open + 1, close - open - 1);
+    if (!f.resolution_source.empty()) text += " (" + f.resolution_source + ")";
+    lines.push_back(text);
+  }
+  if (r.lines_below_floor > 0 && f.probability_axis != ProbabilityAxis::linear) {
+    char floor[32];
+    std::snprintf(floor, sizeof floor, "%.2g", std::pow(10.0, r.log_floor));
+    lines.push_back(std::to_string(r.lines_below_floor) + " line" + (r.lines_below_floor == 1 ? "" : "s") +
+                    " below P = " + floor + " not drawn in the log panel");
+  }
+  return lines;
+}
+
+namespace {
+
+// A tick-label axis title with the offset stated: "work W (h*kHz)" -> "W - W#d0#u ...".
+std::string offset_label(const std::string& label, double offset) {
+  if (offset == 0) return label;
+  char w0[40];
+  std::snprintf(w0, sizeof w0, "%.10g", offset);
+  return label + ",  ticks: W - W#d0#u, W#d0#u = " + w0;
+}
+
+std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
+  const WorkPanelRanges ranges = work_panel_ranges(f);
+  const bool has_density = ranges.density_top > 0;
+  std::vector<const WorkSeries*> series = {&f.result};
+  if (f.reference) series.push_back(&*f.reference);
+  const double p_top = ranges.probability_top, d_top = ranges.density_top;
+  const double log_top = ranges.log_top, log_floor = ranges.log_floor;
   const int log_step = static_cast<int>(std::max(1.0, std::ceil(f.log_decades / 4)));
+  const bool own_range = ranges.own_range;
+  const std::vector<std::string> caption = work_caption(f, ranges);
 
   // Legend, column by column: each series (lines above, density below), then the markers.
   std::vector<LegendEntry> by_column;
@@ -782,15 +891,19 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
   const std::vector<LegendEntry>& legend = by_column;
   const double legend_bottom = (f.title.empty() ? 0.93 : 0.89) - rows * legend_row_height;
   const double top_edge = legend_bottom - 0.02;
+  const double bottom = 0.11 + 0.028 * static_cast<double>(caption.size());  // room for the caption
   std::vector<Panel> panels;
+  std::vector<double> shifts;  // per panel: W0 subtracted from every x
   auto linear = [&](double y0, bool x_numbers) {
-    Panel p{{left, right, y0, top_edge}, bulk.lo, bulk.hi, 0, p_top};
+    Panel p{{left, right, y0, top_edge}, ranges.linear_lo - ranges.linear_offset,
+            ranges.linear_hi - ranges.linear_offset, 0, p_top};
     p.x_numbers = x_numbers;
     p.right_axis_free = has_density;
     return p;
   };
   auto logarithmic = [&](double y1) {
-    Panel p{{left, right, 0.11, y1}, wr.lo, wr.hi, log_floor, log_top};
+    Panel p{{left, right, bottom, y1}, ranges.log_lo - ranges.log_offset, ranges.log_hi - ranges.log_offset,
+            log_floor, log_top};
     p.log_y = true;
     p.log_step_y = log_step;
     return p;
@@ -799,16 +912,30 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
     case ProbabilityAxis::linear_and_log:
       panels = own_range ? std::vector<Panel>{linear(0.47, true), logarithmic(0.37)}
                          : std::vector<Panel>{linear(0.42, false), logarithmic(0.39)};
+      shifts = {ranges.linear_offset, ranges.log_offset};
       break;
-    case ProbabilityAxis::linear: panels = {linear(0.11, true)}; break;
-    case ProbabilityAxis::log: panels = {logarithmic(top_edge)}; break;
+    case ProbabilityAxis::linear:
+      panels = {linear(bottom, true)};
+      shifts = {ranges.linear_offset};
+      break;
+    case ProbabilityAxis::log:
+      panels = {logarithmic(top_edge)};
+      shifts = {ranges.log_offset};
+      break;
   }
+  auto shifted = [](const Vec& v, double by) {
+    Vec out(v);
+    for (double& x : out) x -= by;
+    return out;
+  };
 
   return write_png_and_svg(stem, [&] {
     figure_title(f.title);
-    for (const auto& panel : panels) {
+    for (std::size_t k = 0; k < panels.size(); ++k) {
+      const Panel& panel = panels[k];
+      const double shift = shifts[k];
       const double distance = draw_frame(panel);
-      if (panel.x_numbers) label_bottom(f.work_label);
+      if (panel.x_numbers) label_bottom(offset_label(f.work_label, shift));
       label_left(panel.log_y ? "P (log scale)" : "probability P", distance);
 
       // Markers first, so that stems are drawn over them. Labels at two heights so that
@@ -816,6 +943,7 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
       // <W> >= Delta F for a thermal start, common practice) unless it would leave the panel.
       auto marker = [&](double w, const std::string& text, PLINT colour, PLINT style,
                         bool prefer_left, double height) {
+        w -= shift;
         pen(colour, 2.0, style);
         pljoin(w, panel.y_lo, w, panel.y_hi);
         if (panel.log_y && panels.size() > 1) return;
@@ -836,21 +964,33 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
       if (f.mean_work)
         marker(*f.mean_work, "<W> = " + number(*f.mean_work), green, dashed, false, 0.92);
       const double offset = f.reference ? 0.004 * (panel.x_hi - panel.x_lo) : 0;
-      if (f.reference) draw_stems(*f.reference, panel.log_y, panel.y_lo, offset, orange, "○");
-      draw_stems(f.result, panel.log_y, panel.y_lo, 0, blue, "●");
+      auto scale = [&](std::size_t k) { return panel.log_y ? ranges.marker_scale[k] : 0.8; };
+      auto width = [&](std::size_t k) { return panel.log_y ? ranges.stem_width[k] : 2.2; };
+      if (f.reference)
+        draw_stems(*f.reference, panel.log_y, panel.y_lo, offset - shift, orange, "○", scale(1), width(1));
+      draw_stems(f.result, panel.log_y, panel.y_lo, -shift, blue, "●", scale(0), width(0));
 
       if (has_density && !panel.log_y) {
         label_right(f.density_label.empty() ? "density (right axis)" : f.density_label,
                     draw_right_axis(panel, d_top));
         if (f.reference && !f.reference->density.empty()) {
           pen(orange, 2.2, dashed);
-          draw_line(f.reference->density_work, f.reference->density);
+          draw_line(shifted(f.reference->density_work, shift), f.reference->density);
         }
         pen(blue, 2.2);
-        draw_line(f.result.density_work, f.result.density);
+        draw_line(shifted(f.result.density_work, shift), f.result.density);
       }
     }
-    draw_legend_above(legend, {left, right, 0.11, top_edge}, legend_bottom, rows);
+    plvpor(0, 1, 0, 1);
+    plwind(0, 1, 0, 1);
+    pen(ink, 1);
+    double caption_scale = 0.85;  // one size for all lines, the longest fitting the page
+    for (const auto& line : caption) caption_scale = std::min(caption_scale, fitting_scale(line, 0.96 * page_width_px, 0.85));
+    plschr(0, caption_scale);
+    for (std::size_t i = 0; i < caption.size(); ++i)  // the caption lines, the last at the bottom
+      plptex(0.5, 0.02 + 0.028 * static_cast<double>(caption.size() - 1 - i), 1, 0, 0.5, caption[i].c_str());
+    plschr(0, text_scale);
+    draw_legend_above(legend, {left, right, bottom, top_edge}, legend_bottom, rows);
   });
 }
 
@@ -897,39 +1037,100 @@ void draw_points(const DrawnPoints& p, bool band, std::size_t k) {
   plschr(0, text_scale);
 }
 
-std::vector<fs::path> draw_sweep(const fs::path& stem, const SweepFigure& f) {
-  const std::string name = "plot_sweep";
-  if (f.points.empty() && f.curves.empty()) bad_data(name, "nothing to draw");
-  for (const auto& p : f.points) {
+void validate_sweep_data(const std::string& name, const std::vector<SweepPoints>& points,
+                         const std::vector<SweepCurve>& curves) {
+  for (const auto& p : points) {
     check_same_size(name, "'" + p.label + "' x and y", p.x, p.y);
     if (!p.spread.empty()) check_same_size(name, "'" + p.label + "' y and spread", p.y, p.spread);
   }
-  for (const auto& c : f.curves) {
+  for (const auto& c : curves) {
     check_same_size(name, "curve '" + c.label + "' x and y", c.x, c.y);
     if (!std::is_sorted(c.x.begin(), c.x.end()))
       bad_data(name, "curve '" + c.label + "': x must be ascending");
   }
+}
+
+// One panel of a sweep figure as drawn: points and curves mapped to the axes (log10 where an
+// axis is logarithmic; values <= 0 there become NaN and are left out), and their y range.
+struct DrawnSweepPanel {
+  std::vector<DrawnPoints> points;
+  std::vector<std::pair<Vec, Vec>> curves;
+  Range y;
+};
+
+DrawnSweepPanel drawn_sweep_panel(const std::vector<SweepPoints>& points, const std::vector<SweepCurve>& curves,
+                                  bool log_y, const std::function<double(double)>& shown_x, Range& xr) {
+  const auto shown_y = [&](double y) { return log_y ? (y > 0 ? std::log10(y) : NAN) : y; };
+  DrawnSweepPanel out;
+  Range curve_y;
+  for (const auto& p : points) {
+    DrawnPoints d{{}, {}, {}, {}, !p.spread.empty()};
+    for (std::size_t i = 0; i < p.y.size(); ++i) {
+      const double s = p.spread.empty() ? 0 : std::abs(p.spread[i]);
+      const double x = shown_x(p.x[i]), y = shown_y(p.y[i]);
+      if (!std::isfinite(x) || !std::isfinite(y)) continue;
+      d.x.push_back(x);
+      d.y.push_back(y);
+      d.lo.push_back(shown_y(p.y[i] - s));  // NaN on a log axis: clamped to the floor below
+      d.hi.push_back(shown_y(p.y[i] + s));
+    }
+    xr.add(d.x);
+    out.y.add(d.y);
+    out.y.add(d.lo);
+    out.y.add(d.hi);
+    out.points.push_back(d);
+  }
+  for (const auto& c : curves) {
+    Vec x, y;
+    for (std::size_t i = 0; i < c.x.size(); ++i) {
+      x.push_back(shown_x(c.x[i]));
+      y.push_back(shown_y(c.y[i]));
+    }
+    xr.add(x);
+    curve_y.add(y);
+    out.curves.emplace_back(std::move(x), std::move(y));
+  }
+  // On a log axis a curve's zeros would stretch the range over many decades: the points set
+  // it there (the curves are clipped at the panel's edge), the curves only where there are none.
+  if (!log_y || !out.y.valid()) {
+    out.y.add(curve_y.lo);
+    out.y.add(curve_y.hi);
+  }
+  return out;
+}
+
+// A log axis (log10 lo .. hi) that holds fewer than two labelled decades is widened to whole
+// decades, so that its ticks carry numbers.
+Range whole_decades(Range r) {
+  if (std::floor(r.hi) - std::ceil(r.lo) >= 1) return r;
+  return {std::floor(r.lo), std::ceil(r.hi)};
+}
+
+// Every n-th decade labelled, so that labels about 30 px apart do not overlap.
+int decade_step(double decades, double height_px) {
+  return std::max(1, static_cast<int>(std::ceil(decades / std::max(1.0, height_px / 30))));
+}
+
+std::vector<fs::path> draw_sweep(const fs::path& stem, const SweepFigure& f) {
+  const std::string name = "plot_sweep";
+  if (f.points.empty() && f.curves.empty()) bad_data(name, "nothing to draw");
+  validate_sweep_data(name, f.points, f.curves);
+  for (const auto& panel : f.panels) validate_sweep_data(name, panel.points, panel.curves);
   if (f.departure != Departure::none && f.curves.empty())
     bad_data(name, "a departure panel needs an analytic curve");
-  const auto shown_x = [&](double x) { return f.log_x ? (x > 0 ? std::log10(x) : NAN) : x; };
-  auto map_x = [&](const Vec& xs) {
-    Vec out;
-    for (double x : xs) out.push_back(shown_x(x));
-    return out;
+  const std::function<double(double)> shown_x = [&](double x) {
+    return f.log_x ? (x > 0 ? std::log10(x) : NAN) : x;
   };
 
   const bool relative = f.departure == Departure::relative;
-  std::vector<DrawnPoints> drawn, departures;
-  Range xr, yr, dr;
+  Range xr, dr;
   dr.add(0.0);
+  DrawnSweepPanel main_data = drawn_sweep_panel(f.points, f.curves, f.log_y, shown_x, xr);
+  std::vector<DrawnPoints> departures;
   for (const auto& p : f.points) {
-    DrawnPoints d{map_x(p.x), p.y, {}, {}, !p.spread.empty()};
     DrawnPoints e{{}, {}, {}, {}, !p.spread.empty()};
-    for (std::size_t i = 0; i < p.y.size(); ++i) {
+    for (std::size_t i = 0; i < p.y.size() && f.departure != Departure::none; ++i) {
       const double s = p.spread.empty() ? 0 : std::abs(p.spread[i]);
-      d.lo.push_back(p.y[i] - s);
-      d.hi.push_back(p.y[i] + s);
-      if (f.departure == Departure::none) continue;
       const double c = interpolate(f.curves[0], p.x[i]);
       double dev = p.y[i] - c, err = s;
       if (relative) {
@@ -937,79 +1138,153 @@ std::vector<fs::path> draw_sweep(const fs::path& stem, const SweepFigure& f) {
         dev /= c;
         err /= std::abs(c);
       }
-      if (!std::isfinite(dev) || !std::isfinite(d.x[i])) continue;
-      e.x.push_back(d.x[i]);
+      if (!std::isfinite(dev) || !std::isfinite(shown_x(p.x[i]))) continue;
+      e.x.push_back(shown_x(p.x[i]));
       e.y.push_back(dev);
       e.lo.push_back(dev - err);
       e.hi.push_back(dev + err);
     }
-    xr.add(d.x);
-    yr.add(d.lo);
-    yr.add(d.hi);
     dr.add(e.lo);
     dr.add(e.hi);
-    drawn.push_back(d);
     departures.push_back(e);
   }
-  for (const auto& c : f.curves) {
-    xr.add(map_x(c.x));
-    yr.add(c.y);
-  }
-  if (!xr.valid() || !yr.valid()) bad_data(name, "no finite values");
+  std::vector<DrawnSweepPanel> more;
+  for (const auto& panel : f.panels) more.push_back(drawn_sweep_panel(panel.points, panel.curves, panel.log_y, shown_x, xr));
+  if (!xr.valid() || !main_data.y.valid()) bad_data(name, "no finite values");
   xr = xr.padded(0.03);
-  yr = yr.padded(0.06);
+  main_data.y = main_data.y.padded(0.06);
+  if (f.log_y) main_data.y = whole_decades(main_data.y);
   dr = dr.padded(0.1);
+  // Error bars reaching below 0 on a log axis end at the panel's floor.
+  auto clamp_to_floor = [](DrawnSweepPanel& d) {
+    for (auto& p : d.points)
+      for (double& v : p.lo)
+        if (!std::isfinite(v)) v = d.y.lo;
+  };
+  clamp_to_floor(main_data);
+  for (std::size_t i = 0; i < more.size(); ++i) {
+    DrawnSweepPanel& d = more[i];
+    if (!d.y.valid()) d.y = {0, 1};
+    d.y = d.y.padded(0.06);
+    if (f.panels[i].log_y) d.y = whole_decades(d.y);
+    clamp_to_floor(d);
+  }
 
   std::vector<LegendEntry> legend;
-  for (std::size_t k = 0; k < f.points.size(); ++k) {
-    LegendEntry e{f.points[k].label, PL_LEGEND_SYMBOL, point_colours[k % 3], solid, 1.6, "●", -1};
-    if (drawn[k].spread && f.spread_as_band) {
-      e.kind |= PL_LEGEND_COLOR_BOX;
-      e.fill_colour = point_fills[k % 3];
+  auto add_entries = [&](const std::vector<SweepPoints>& points, const std::vector<SweepCurve>& curves,
+                         const DrawnSweepPanel& d) {
+    auto known = [&](const std::string& text) {
+      return text.empty() ||  // an unlabelled curve (a marker line) stays out of the legend
+             std::any_of(legend.begin(), legend.end(), [&](const LegendEntry& e) { return e.text == text; });
+    };
+    for (std::size_t k = 0; k < points.size(); ++k) {
+      if (known(points[k].label)) continue;
+      LegendEntry e{points[k].label, PL_LEGEND_SYMBOL, point_colours[k % 3], solid, 1.6, "●", -1};
+      if (d.points[k].spread && f.spread_as_band) {
+        e.kind |= PL_LEGEND_COLOR_BOX;
+        e.fill_colour = point_fills[k % 3];
+      }
+      legend.push_back(e);
     }
-    legend.push_back(e);
-  }
-  for (std::size_t k = 0; k < f.curves.size(); ++k)
-    legend.push_back(
-        line_entry(f.curves[k].label, curve_colours[k % 3], k == 0 ? solid : dashed, 2.4));
+    for (std::size_t k = 0; k < curves.size(); ++k)
+      if (!known(curves[k].label))
+        legend.push_back(line_entry(curves[k].label, curve_colours[k % 3], k == 0 ? solid : dashed, 2.4));
+  };
+  add_entries(f.points, f.curves, main_data);
+  for (std::size_t i = 0; i < f.panels.size(); ++i) add_entries(f.panels[i].points, f.panels[i].curves, more[i]);
   const int rows = legend_rows(legend, 0.86, 1);
 
-  const bool two_panels = f.departure != Departure::none;
+  // Panels stacked from the top: the main one (weight 1.6), its departure panel and the further
+  // ones (weight 1 each). With more than two panels each is too short for a rotated y label:
+  // the labels stand above their panels (gaps leave room for them and the departure note).
+  const bool departure_panel = f.departure != Departure::none;
   const double legend_bottom = (f.title.empty() ? 0.93 : 0.89) - rows * legend_row_height;
-  const double top_edge = legend_bottom - 0.02;
-  Panel main{{0.11, 0.97, two_panels ? 0.42 : 0.11, top_edge}, xr.lo, xr.hi, yr.lo, yr.hi};
-  main.x_numbers = !two_panels;
+  const std::size_t below = (departure_panel ? 1 : 0) + f.panels.size();
+  const bool labels_on_top = below >= 2;
+  const double top_edge = legend_bottom - (labels_on_top ? 0.05 : 0.02);
+  const double gap = labels_on_top ? 0.065 : 0.06;
+  const double unit = (top_edge - 0.11 - gap * static_cast<double>(below)) / (1.6 + static_cast<double>(below));
+  double y_top = top_edge;
+  auto next_viewport = [&](double weight) {
+    const std::array<double, 4> v = {0.11, 0.97, y_top - weight * unit, y_top};
+    y_top -= weight * unit + gap;
+    return v;
+  };
+  auto log_step = [&](const Panel& p) {
+    return decade_step(p.y_hi - p.y_lo, (p.viewport[3] - p.viewport[2]) * page_height_px);
+  };
+  Panel main{next_viewport(1.6), xr.lo, xr.hi, main_data.y.lo, main_data.y.hi};
+  main.x_numbers = below == 0;
   main.log_x = f.log_x;
-  Panel lower{{0.11, 0.97, 0.11, 0.36}, xr.lo, xr.hi, dr.lo, dr.hi};
+  main.log_y = f.log_y;
+  main.log_step_y = log_step(main);
+  Panel lower{departure_panel ? next_viewport(1) : std::array<double, 4>{}, xr.lo, xr.hi, dr.lo, dr.hi};
   lower.log_x = f.log_x;
+  lower.x_numbers = f.panels.empty();
+  std::vector<Panel> further;
+  for (std::size_t i = 0; i < f.panels.size(); ++i) {
+    Panel p{next_viewport(1), xr.lo, xr.hi, more[i].y.lo, more[i].y.hi};
+    p.log_x = f.log_x;
+    p.log_y = f.panels[i].log_y;
+    p.log_step_y = log_step(p);
+    p.x_numbers = i + 1 == f.panels.size();
+    further.push_back(p);
+  }
+  // A panel's y label: rotated on the left, or above the panel on its left (labels_on_top).
+  auto y_label = [&](const std::string& text, double distance, const std::string& note) {
+    if (!labels_on_top) {
+      label_left(text, distance);
+      return;
+    }
+    pen(ink, 1);
+    const std::string line = note.empty() ? text : text + "     " + note;
+    PLFLT x0, x1, y0, y1;
+    plgvpd(&x0, &x1, &y0, &y1);
+    plschr(0, fitting_scale(line, (x1 - x0) * page_width_px, 0.9));
+    plmtex("t", 0.7, 0.0, 0.0, line.c_str());
+    plschr(0, text_scale);
+  };
+  auto draw_contents = [&](const DrawnSweepPanel& d) {
+    for (std::size_t k = 0; k < d.points.size(); ++k) draw_points(d.points[k], f.spread_as_band, k);
+    for (std::size_t k = 0; k < d.curves.size(); ++k) {
+      pen(curve_colours[k % 3], 2.4, k == 0 ? solid : dashed);
+      draw_line(d.curves[k].first, d.curves[k].second);
+    }
+  };
 
   return write_png_and_svg(stem, [&] {
     figure_title(f.title);
     const double distance = draw_frame(main);
-    if (!two_panels) label_bottom(f.x_label);
-    label_left(f.y_label, distance);
-    for (std::size_t k = 0; k < drawn.size(); ++k) draw_points(drawn[k], f.spread_as_band, k);
-    for (std::size_t k = 0; k < f.curves.size(); ++k) {
-      pen(curve_colours[k % 3], 2.4, k == 0 ? solid : dashed);
-      draw_line(map_x(f.curves[k].x), f.curves[k].y);
-    }
-    if (two_panels) {
+    if (main.x_numbers) label_bottom(f.x_label);
+    y_label(f.y_label, distance, "");
+    draw_contents(main_data);
+    if (departure_panel) {
       const double lower_distance = draw_frame(lower);
-      label_bottom(f.x_label);
-      label_left(!f.departure_label.empty() ? f.departure_label
-                 : relative                 ? "relative departure"
-                                            : "departure",
-                 lower_distance);
+      if (lower.x_numbers) label_bottom(f.x_label);
+      const std::string note =
+          (relative ? "below: (y - c) / c,  c = " : "below: y - c,  c = ") + f.curves[0].label;
+      const std::string label = !f.departure_label.empty() ? f.departure_label
+                                : relative                 ? "relative departure"
+                                                           : "departure";
+      if (labels_on_top) {
+        y_label(label, lower_distance, "(" + note.substr(7) + ")");
+      } else {
+        label_left(label, lower_distance);
+        pen(ink, 1);
+        plschr(0, 0.85);
+        plmtex("t", 0.9, 0.0, 0.0, note.c_str());
+        plschr(0, text_scale);
+      }
       pen(curve_colours[0], 1.8, dashed);
       pljoin(xr.lo, 0, xr.hi, 0);
       for (std::size_t k = 0; k < departures.size(); ++k)
         draw_points(departures[k], f.spread_as_band, k);
-      pen(ink, 1);
-      plschr(0, 0.85);
-      plmtex("t", 0.9, 0.0, 0.0,
-             ((relative ? "below: (y - c) / c,  c = " : "below: y - c,  c = ") + f.curves[0].label)
-                 .c_str());
-      plschr(0, text_scale);
+    }
+    for (std::size_t i = 0; i < further.size(); ++i) {
+      const double d = draw_frame(further[i]);
+      if (further[i].x_numbers) label_bottom(f.x_label);
+      y_label(f.panels[i].y_label, d, "");
+      draw_contents(more[i]);
     }
     draw_legend_above(legend, main.viewport, legend_bottom, rows);
   });

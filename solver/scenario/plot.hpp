@@ -16,6 +16,7 @@
 // Errors: std::invalid_argument for inconsistent data (sizes that differ, nothing to draw,
 // non-finite coordinates where a curve needs them); std::runtime_error naming the file when
 // a file cannot be written or PLplot reports an error.
+#include <array>
 #include <filesystem>
 #include <optional>
 #include <string>
@@ -81,7 +82,49 @@ struct WorkFigure {
   std::optional<double> free_energy_change;  // vertical marker "Delta F", work unit
   ProbabilityAxis probability_axis = ProbabilityAxis::linear_and_log;
   double log_decades = 12;            // log panel shows P down to max P * 10^-log_decades; > 0
+  // Gaussian width sigma (work unit) with which the densities were broadened, stated in the
+  // caption with where it came from (e.g. "default: 1/20 of the lowest spacing"); the linear
+  // panel widens the lines that carry the probability by 3 sigma on each side.
+  std::optional<double> resolution;
+  std::string resolution_source;
 };
+
+// The ranges plot_work draws with (pure; the Python module's plot.py ports it line by line as
+// work_panel_ranges, keep the two identical):
+// - log panel: lines with P >= the floor max P * 10^-log_decades (the others are left out and
+//   counted), and the markers, padded by 4%; y in log10 P from the floor to log10 max P + 0.5
+//   (+ 0.2 log_decades when it is alone and carries the marker labels);
+// - linear panel: the lines carrying all but 1e-3 of the probability at each end, widened by
+//   3 resolution (when densities are drawn) and by the density's peak and the markers, padded
+//   by 8%; a panel alone ("linear") also covers every drawn line; when that range is not
+//   narrower than half the log panel's, both panels share the union of the two;
+// - y: stems 0 .. 1.3 max P, density 0 .. 1.3 max density (room above the peaks for the
+//   marker labels, which sit at 83% and 92% of the height);
+// - x offset: where a panel's width is below 1e-3 of its largest |W| (a line dominating at a
+//   large W), its ticks show W - offset, the offset rounded to 10 ticks steps, so that tick
+//   labels differ; 0 otherwise;
+// - log-panel markers of a series at scale 0.8 up to 40 of its lines drawn, 0.8 sqrt(40 / n)
+//   above, none below 0.2 (light stems, each top a small dot), stems 2.2 px wide thinned alike
+//   down to 0.5.
+struct WorkPanelRanges {
+  bool own_range = false;             // linear and log panels have different x ranges
+  double linear_lo = 0, linear_hi = 1, linear_offset = 0;  // work unit
+  double log_lo = 0, log_hi = 1, log_offset = 0;           // work unit
+  double probability_top = 1;         // linear panel's P axis top
+  double density_top = 0;             // right axis top; 0: no density axis
+  double log_floor = -12, log_top = 0;  // log10 P
+  std::size_t lines_drawn = 0;        // lines (all series) at or above the floor
+  std::size_t lines_below_floor = 0;  // lines (all series) below it, left out of the log panel
+  // Log panel's stem markers (character scale; 0: none) and stem widths, of the result and the
+  // reference, each by the number of its own lines drawn.
+  std::array<double, 2> marker_scale = {0.8, 0.8};
+  std::array<double, 2> stem_width = {2.2, 2.2};
+};
+WorkPanelRanges work_panel_ranges(const WorkFigure& figure);
+
+// The caption lines under a work figure: the resolution of the densities and where it came
+// from; the lines left out of the log panel ("312 lines below P = 1e-13 not drawn").
+std::vector<std::string> work_caption(const WorkFigure& figure, const WorkPanelRanges& ranges);
 
 // Stems P_i at W_i on the left axis; the broadened density on a right-hand axis of its own.
 std::vector<std::filesystem::path> plot_work(const std::filesystem::path& stem,
@@ -107,6 +150,15 @@ enum class Departure {
   absolute,  // second panel: y - c(x)
 };
 
+// A further panel of a sweep figure, below the main one (and its departure panel), sharing
+// its x axis: e.g. sd(W) and the Jarzynski residual over a sweep.
+struct SweepPanel {
+  std::string y_label;                // with its unit
+  std::vector<SweepPoints> points;
+  std::vector<SweepCurve> curves;
+  bool log_y = false;                 // logarithmic y axis (values <= 0 left out)
+};
+
 struct SweepFigure {
   std::string title;
   std::string x_label;                // e.g. "duration tau (us)"
@@ -115,8 +167,10 @@ struct SweepFigure {
   std::vector<SweepCurve> curves;     // analytic curves as lines
   bool spread_as_band = false;        // shaded band instead of error bars
   bool log_x = false;                 // logarithmic x axis (x > 0)
+  bool log_y = false;                 // logarithmic y axis of the main panel (values <= 0 left out)
   Departure departure = Departure::none;  // needs at least one curve
   std::string departure_label;        // second panel's y label; empty: a default
+  std::vector<SweepPanel> panels;     // further panels, drawn below in this order
 };
 
 std::vector<std::filesystem::path> plot_sweep(const std::filesystem::path& stem,

@@ -202,26 +202,6 @@ double sd_error_of(const WorkDistribution& d, const MomentErrors& m) {
   return sd > 0 ? std::min(dv / sd, std::sqrt(dv)) : std::sqrt(dv);
 }
 
-// <W> = 2 m v^2 sin^2(omega tau / 2) of a constant-speed translation over `distance` in the
-// harmonic trap omega (internal units, m = 1); tau -> 0 gives the sudden value omega^2 D^2 / 2.
-double constant_speed_work(double omega, double distance, double tau) {
-  if (tau <= 0) return 0.5 * omega * omega * distance * distance;
-  return constant_speed_mean_work(omega, distance / tau, tau);
-}
-
-// The linear translation of a scenario's protocol: (omega_h, distance), when every term moves
-// rigidly at constant speed and the trap has a harmonic part.
-std::optional<std::pair<double, double>> constant_speed_translation(const Scenario& s) {
-  if (!s.protocol) return std::nullopt;
-  const Protocol p = build_protocol(s);
-  const auto part = s.potential.harmonic_part();
-  if (!part || !p.translation(s.potential)) return std::nullopt;
-  for (const auto& schedule : p.schedules())
-    if (schedule.form() != ScheduleForm::linear) return std::nullopt;
-  const Schedule& first = p.schedules().front();
-  return std::make_pair(part->first, first.final_value(p.duration()) - first.initial_value(p.duration()));
-}
-
 }  // namespace
 
 ScenarioWork compute_work(const Scenario& s, WorkRequest request) {
@@ -919,13 +899,10 @@ WorkSeries series(const std::string& label, const WorkDistribution& dist, double
                   const Display& d) {
   WorkSeries s;
   s.label = label;
-  double top = 0;
-  for (const auto& l : dist.lines) top = std::max(top, l.probability);
-  for (const auto& l : dist.lines)
-    if (l.probability >= 1e-14 * top) {  // below the log panel's 12 decades
-      s.work.push_back(d.energy(l.work));
-      s.probability.push_back(l.probability);
-    }
+  for (const auto& l : dist.lines) {  // all of them: the figure counts those below its floor
+    s.work.push_back(d.energy(l.work));
+    s.probability.push_back(l.probability);
+  }
   const auto rho = broadened_density(dist, sigma, w);
   for (std::size_t i = 0; i < w.size(); ++i) {
     s.density_work.push_back(d.energy(w[i]));
@@ -942,7 +919,11 @@ WorkFigure work_figure(const WorkRun& run) {
   const double sigma = resolution_of(run);
   const auto w = density_grid(r.distribution, sigma);
   WorkFigure f;
-  f.title = "work distribution (two-point measurement), resolution " + short_number(d.energy(sigma), 3) + " " + d.e;
+  f.title = "work distribution (two-point measurement)";
+  f.resolution = d.energy(sigma);
+  f.resolution_source = run.scenario.work && run.scenario.work->resolution
+                            ? "[work] resolution"
+                            : "default: 1/20 of the lowest spacing; [work] resolution sets it";
   f.work_label = "work W (" + d.e + ")";
   f.density_label = "density (1/" + d.e + ")";
   f.result = series("numerical (" + std::string(r.co_moving ? "co-moving grid" : "grid") + ")", r.distribution, sigma,
@@ -1268,6 +1249,62 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
   return t;
 }
 
+namespace {
+
+// Positive values spanning more than two decades: drawn on a log axis.
+bool spans_decades(const std::vector<double>& v) {
+  double lo = std::numeric_limits<double>::infinity(), hi = 0;
+  for (double x : v) {
+    if (!std::isfinite(x)) continue;
+    if (!(x > 0)) return false;
+    lo = std::min(lo, x);
+    hi = std::max(hi, x);
+  }
+  return hi > 100 * lo;
+}
+
+// The harmonic prediction's <W> and sd W at `count` values evenly spread between the sweep's
+// ends (log-spaced on a log axis): the analytic model of each point, without its numerical run.
+// Values where it does not apply (or the scenario cannot be built) are NaN.
+struct DenseHarmonic {
+  std::vector<double> x, mean, sd;
+  std::string model;
+};
+
+DenseHarmonic dense_harmonic(const Scenario& s, double lo, double hi, bool log_spaced, int count) {
+  DenseHarmonic h;
+  const SweepSpec& w = *s.sweep;
+  if (!s.work || !s.protocol || moves_walls(s)) return h;
+  for (int i = 0; i < count; ++i) {
+    const double t = double(i) / double(count - 1);
+    const double v = log_spaced ? lo * std::pow(hi / lo, t) : lo + (hi - lo) * t;
+    double mean = nan_value, sd = nan_value;
+    try {
+      Scenario one = s;
+      one.sweep->values = {v};
+      one.sweep->given = {""};
+      const Scenario point = at_sweep_point(one, 0);
+      std::string why_not;
+      if (const auto m = harmonic_moments(point.potential, build_protocol(point), point.work->request.initial, why_not)) {
+        mean = m->mean;
+        sd = m->sd;
+        h.model = m->model;
+      }
+    } catch (const std::exception&) {  // a value the scenario refuses: a gap in the curve
+    }
+    h.x.push_back(conversion_rounded(v / w.internal_per_unit));
+    h.mean.push_back(mean);
+    h.sd.push_back(sd);
+  }
+  return h;
+}
+
+bool any_finite(const std::vector<double>& v) {
+  return std::any_of(v.begin(), v.end(), [](double x) { return std::isfinite(x); });
+}
+
+}  // namespace
+
 SweepFigure sweep_figure(const Scenario& s, const std::vector<SweepRow>& input) {
   const SweepSpec& w = *s.sweep;
   const Display d = display(s);
@@ -1276,38 +1313,63 @@ SweepFigure sweep_figure(const Scenario& s, const std::vector<SweepRow>& input) 
     if (r.failure.empty()) rows.push_back(r);  // failed points have no numbers to draw
   std::sort(rows.begin(), rows.end(), [](const SweepRow& a, const SweepRow& b) { return a.value < b.value; });
   SweepFigure f;
-  f.title = "mean work over the sweep of " + w.parameter;
-  f.x_label = w.parameter + (w.unit.empty() ? std::string() : " (" + w.unit + ")");
+  f.title = "work statistics over the sweep of " + w.parameter;
+  const std::string x_unit = !w.unit.empty()                        ? w.unit
+                             : w.dimension == Dimension::none() ? std::string("dimensionless")
+                                                                : std::string("internal units");
+  f.x_label = w.parameter + " (" + x_unit + ")";
   f.y_label = "mean work <W> (" + d.e + ")";
   // No error bars: the spread of W (sd in sweep.csv) is far wider than the departure from
-  // the harmonic curve that the lower panel shows.
-  SweepPoints points{"<W> (numerical)", {}, {}, {}};
-  SweepCurve harmonic{"harmonic reference <W> at each point", {}, {}};
+  // the harmonic curve that the departure panel shows; sd W has a panel of its own.
+  SweepPoints mean{"numerical", {}, {}, {}};
+  SweepPoints sd{"numerical", {}, {}, {}};
+  SweepPoints residual{"numerical", {}, {}, {}};
+  SweepPoints harmonic_sd{"harmonic prediction at each point", {}, {}, {}};
+  std::vector<double> values;
   for (const auto& r : rows) {
-    points.x.push_back(conversion_rounded(r.value / w.internal_per_unit));
-    points.y.push_back(d.energy(r.mean));
-    if (std::isfinite(r.harmonic_mean)) {
-      harmonic.x.push_back(conversion_rounded(r.value / w.internal_per_unit));
-      harmonic.y.push_back(d.energy(r.harmonic_mean));
+    const double x = conversion_rounded(r.value / w.internal_per_unit);
+    values.push_back(x);
+    mean.x.push_back(x);
+    mean.y.push_back(d.energy(r.mean));
+    sd.x.push_back(x);
+    sd.y.push_back(d.energy(r.sd));
+    if (std::isfinite(r.jarzynski_residual)) {
+      residual.x.push_back(x);
+      residual.y.push_back(std::abs(r.jarzynski_residual));
+    }
+    if (std::isfinite(r.harmonic_sd)) {
+      harmonic_sd.x.push_back(x);
+      harmonic_sd.y.push_back(d.energy(r.harmonic_sd));
     }
   }
-  f.points.push_back(points);
-  const auto translation = constant_speed_translation(s);
-  if (w.target == SweepTarget::duration && translation && rows.size() >= 2) {
-    SweepCurve closed{"2 m v^2 sin^2(#gw#gt/2), v = distance/#gt", {}, {}};
-    const double lo = rows.front().value, hi = rows.back().value;
-    for (int i = 0; i <= 400; ++i) {
-      const double tau = lo + (hi - lo) * i / 400.0;
-      closed.x.push_back(conversion_rounded(tau / w.internal_per_unit));
-      closed.y.push_back(d.energy(constant_speed_work(translation->first, translation->second, tau)));
+  f.log_x = spans_decades(values);
+  f.points.push_back(mean);
+  // The harmonic prediction as a curve: 200 values between the sweep's ends, each the analytic
+  // model of the scenario at that value (harmonic_moments), not lines joining the sweep points.
+  if (rows.size() >= 2) {
+    const DenseHarmonic h = dense_harmonic(s, rows.front().value, rows.back().value, f.log_x, 200);
+    if (any_finite(h.mean)) {
+      SweepCurve c{"harmonic prediction, " + h.model, h.x, {}};
+      for (double m : h.mean) c.y.push_back(d.energy(m));
+      f.curves.push_back(c);
     }
-    f.curves.push_back(closed);
+    if (any_finite(h.sd)) {
+      SweepCurve c{"harmonic prediction, " + h.model, h.x, {}};
+      for (double m : h.sd) c.y.push_back(d.energy(m));
+      f.panels.push_back({"sd(W) (" + d.e + ")", {sd}, {c}, false});
+    }
   }
-  if (harmonic.x.size() >= 2) f.curves.push_back(harmonic);
+  if (f.panels.empty())  // no dense sd: the harmonic sd of each point, as points, where it exists
+    f.panels.push_back({"sd(W) (" + d.e + ")", {sd}, {}, false});
+  if (f.panels.back().curves.empty() && !harmonic_sd.x.empty()) f.panels.back().points.push_back(harmonic_sd);
   if (!f.curves.empty()) {
     f.departure = Departure::absolute;  // relative fails at the zeros of sin^2(omega tau / 2)
-    f.departure_label = "<W> - curve (" + d.e + ")";
+    f.departure_label = "<W> - harmonic <W> (" + d.e + ")";
   }
+  if (!residual.x.empty())
+    f.panels.push_back({"|Jarzynski residual| (dimensionless)", {residual}, {}, spans_decades(residual.y)});
+  f.log_y = spans_decades(mean.y);
+  f.panels.front().log_y = spans_decades(f.panels.front().points.front().y);
   return f;
 }
 

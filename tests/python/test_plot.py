@@ -266,7 +266,8 @@ def test_work_stems_density_markers_and_log_floor(runs):
     x, y0, y1 = stems(fig, "result_stems", log)
     assert len(x) == (p > floor).sum() and len(x) > 1000
     assert np.allclose(y0, floor) and np.allclose(np.sort(y1), np.sort(p[p > floor]))
-    assert log.get_xlim()[0] < w.min() and log.get_xlim()[1] > w.max()
+    drawn = w[p > floor]  # the lines below the floor are left out of the log panel's range too
+    assert log.get_xlim()[0] < drawn.min() and log.get_xlim()[1] > drawn.max()
     # Linear panel: the bulk of P, peaks not cut (top 1.3 x max P), stems from 0.
     x, y0, y1 = stems(fig, "result_stems", linear)
     assert linear.get_ylim() == pytest.approx((0, 1.3 * p.max()))
@@ -505,15 +506,21 @@ def test_module_sweep_figure_draws():
     result = trapwork.sweep(s)
     f = result.figures["sweep"]
     fig = tplot.plot(result, "sweep")
-    main, lower = [a for a in fig.axes if a.axison]
+    main, lower, sd, residual = [a for a in fig.axes if a.axison]
     (marks,) = by_gid(fig, "points_0")
     assert np.allclose(marks.get_xdata(), f["points"][0]["x"]) and len(marks.get_xdata()) == 3
     assert len(by_gid(fig, "curve_0")) == 1 and len(by_gid(fig, "curve_1")) == len(f["curves"]) - 1
     (dep,) = by_gid(fig, "departure_0")
     c = f["curves"][0]
     assert np.allclose(dep.get_ydata(), f["points"][0]["y"] - np.interp(f["points"][0]["x"], c["x"], c["y"]))
-    # The closed form's label "2 m v^2 sin^2(#gw#gt/2) ..." arrives with its Greek letters.
-    assert any("sin^2(ωτ/2)" in t.get_text() for t in fig.findobj(matplotlib.text.Text))
+    # issue 16: the harmonic prediction evaluated at 200 values between the sweep's ends, not
+    # the sweep points joined; sd(W) and |Jarzynski residual| in panels of their own.
+    (curve,) = by_gid(fig, "curve_0")
+    assert len(curve.get_xdata()) == 200 and curve.get_xdata()[0] == pytest.approx(f["points"][0]["x"].min())
+    assert "harmonic prediction" in c["label"]
+    assert sd.get_ylabel() == "sd(W) (h*kHz)" and len(by_gid(fig, "panel_0_curve_0")) == 1
+    assert residual.get_ylabel() == "|Jarzynski residual| (dimensionless)"
+    assert all("(" in a.get_ylabel() for a in (main, lower, sd, residual))  # every axis with its unit
 
 
 def test_module_comparison_figure_draws():
@@ -547,10 +554,152 @@ def test_module_plan_figure_draws():
     fig = tplot.plot(result, stem)
     (ax,) = [a for a in fig.axes if a.axison]
     table = result.tables["plan"]
-    assert ax.get_xscale() == "log"
+    # issue 16: the rms error against N on log-log axes.
+    assert ax.get_xscale() == "log" and ax.get_yscale() == "log"
     (marks,) = by_gid(fig, "points_0")
-    assert np.allclose(marks.get_xdata(), table["runs"]) and np.allclose(marks.get_ydata(), table["bias_kT"])
-    (bars,) = by_gid(fig, "points_0_errorbars")
-    lengths = [s[1][1] - s[0][1] for s in bars.lines[2][0].get_segments()]
-    assert np.allclose(lengths, 2 * np.asarray(table["spread_kT"]))
-    assert ax.get_ylabel() == "estimate - true βΔF (kT)"
+    assert np.allclose(marks.get_xdata(), table["runs"]) and np.allclose(marks.get_ydata(), table["rms_error_kT"])
+    lo, hi = ax.get_ylim()
+    assert lo < np.min(table["rms_error_kT"]) and hi > np.max(table["rms_error_kT"])
+    assert ax.get_ylabel() == "rms error of βΔF (kT)"
+
+
+# ---- issue 16: ranges of the work figure (the data of tests/test_plot.cpp) -----------------------
+
+def _broaden(s, sigma):
+    """tests/test_plot.cpp's broaden: the lines broadened on work_output.cpp's grid."""
+    w, p = np.asarray(s["work"], float), np.asarray(s["probability"], float)
+    keep = p >= 1e-6 * p.max()
+    lo, hi = w[keep].min() - 6 * sigma, w[keep].max() + 6 * sigma
+    n = min(4001, int(math.ceil((hi - lo) / (sigma / 5))) + 1)
+    grid = lo + (hi - lo) * np.arange(n) / (n - 1)
+    d = (p[None, :] * np.exp(-0.5 * ((grid[:, None] - w[None, :]) / sigma) ** 2)).sum(axis=1)
+    s["density_work"], s["density"] = grid, d / (sigma * math.sqrt(2 * math.pi))
+
+
+def tweezer_like():
+    """Shaped like examples/tweezer_deform.toml's lines.csv: one line carries 1 - 4.4e-7."""
+    w = [-19.8938620029266, -17.6054619346631, -15.350895517171, -13.1304788350937, -10.9445406843494]
+    p = [0.999999563378004, 4.3661670901728453e-07, 2.847451761827139e-12, 2.598e-16, 5.7e-20]
+    w += [-18.75 + k for k in range(20)]
+    p += [3e-29] * 20
+    s = {"label": "grid", "work": np.array(w), "probability": np.array(p)}
+    _broaden(s, 0.04681)
+    return {"kind": "work", "work_label": "work W (kB*uK)", "density_label": "density (1/kB*uK)",
+            "result": s, "reference": None, "mean_work": float(np.dot(w[:5], p[:5])),
+            "free_energy_change": None, "probability_axis": "linear_and_log", "log_decades": 12.0,
+            "resolution": 0.04681, "resolution_source": "default: 1/20 of the lowest spacing"}
+
+
+def ion_translation_like():
+    """Shaped like examples/ion_translation.toml's run: W = 0 carries all but 1e-4."""
+    w, p = [], []
+    for k in range(-2, 4):
+        top = 0.9999 if k == 0 else 10.0 ** (-3 - 3 * abs(k))
+        for m in range(5):
+            w.append(1500.0 * k + 0.01 * m * k)
+            p.append(top * 0.1 ** m)
+    s = {"label": "grid", "work": np.array(w), "probability": np.array(p)}
+    _broaden(s, 75.12)
+    return {"kind": "work", "work_label": "work W (h*kHz)", "result": s, "reference": dict(s, label="harmonic"),
+            "mean_work": 0.5395, "free_energy_change": 0.0, "probability_axis": "linear_and_log",
+            "log_decades": 12.0, "resolution": 75.12, "resolution_source": ""}
+
+
+def _tick_texts(fig, ax):
+    fig.canvas.draw()
+    return [t.get_text() for t in ax.get_xticklabels() if t.get_visible() and t.get_text()]
+
+
+@pytest.mark.parametrize("make, line", [(tweezer_like, -19.8938620029266), (ion_translation_like, 0.0)])
+def test_issue16_linear_work_panel_shows_a_dominant_line(make, line):
+    f = make()
+    r = tplot.work_panel_ranges(f)
+    sigma = f["resolution"]
+    fig = tplot.plot(f)
+    linear = [a for a in fig.axes if a.get_ylabel() == "probability P"][0]
+    lo, hi = linear.get_xlim()
+    assert (lo, hi) == pytest.approx(r["linear_range"])
+    # the rule plot.hpp states (the C++ test checks the same on the same data)
+    assert lo < line - 2 * sigma and hi > line + 2 * sigma and hi - lo < 10 * sigma
+    d = f["result"]["density"]
+    peak = f["result"]["density_work"][np.argmax(d)]
+    assert lo < peak < hi
+    right = by_gid(fig, "result_density")[0].axes
+    assert right.get_ylim() == pytest.approx((0, 1.3 * d.max()))
+    assert linear.get_ylim() == pytest.approx((0, 1.3 * f["result"]["probability"].max()))
+    texts = _tick_texts(fig, linear)
+    assert len(texts) >= 3 and len(set(texts)) == len(texts)
+    (caption,) = by_gid(fig, "caption")
+    assert "σ = " + "%.4g" % sigma in caption.get_text()
+    assert caption.get_text().count("\n") == 1 and "not drawn in the log panel" in caption.get_text()
+
+
+def test_issue16_offset_ticks_and_crowded_log_panel():
+    f = {"kind": "work", "work_label": "work W (h*kHz)", "probability_axis": "linear",
+         "result": {"work": np.array([2.5e6, 2.5e6 + 0.002, 2.5e6 + 0.004]), "probability": np.array([0.2, 0.5, 0.3])}}
+    r = tplot.work_panel_ranges(f)
+    assert r["linear_offset"] != 0 and abs(r["linear_offset"] - 2.5e6) < r["linear_range"][1] - r["linear_range"][0]
+    fig = tplot.plot(f)
+    (ax,) = [a for a in fig.axes if a.axison]
+    texts = _tick_texts(fig, ax)
+    assert len(texts) >= 3 and len(set(texts)) == len(texts)
+    assert "W#d0#u" not in ax.get_xlabel() and "W$_{\\mathregular{0}}$ = 2500000" in ax.get_xlabel()
+    # Crowded: 3000 lines over 30 decades (as the demo's), the floor 1e-12 below the largest.
+    g = ion_translation_like()
+    g["result"] = dict(g["result"], work=np.arange(3000.0), probability=10.0 ** (-30.0 * np.arange(3000) / 2999))
+    g["reference"] = dict(g["reference"], work=40.0 * np.arange(30), probability=np.full(30, 1 / 30))
+    r = tplot.work_panel_ranges(g)
+    assert r["lines_below_floor"] == 1800 and r["lines_drawn"] == 1230
+    assert r["marker_scale"] == [0.0, pytest.approx(0.8)] and r["stem_width"][0] == pytest.approx(0.5)
+    fig = tplot.plot(g)
+    log = [a for a in fig.axes if a.get_ylabel() == "P (log scale)"][0]
+    assert not [a for a in log.get_children() if a.get_gid() == "result_tops"]  # stems only
+    assert [a for a in log.get_children() if a.get_gid() == "reference_tops"]
+    (caption,) = by_gid(fig, "caption")
+    assert caption.get_text().endswith("1800 lines below P = 1e-12 not drawn in the log panel")
+
+
+def test_issue16_module_work_figure_states_its_resolution():
+    import trapwork
+    if not hasattr(trapwork, "work"):
+        pytest.skip("the compiled module is not built")
+    result = trapwork.work(trapwork.Scenario.from_file(EXAMPLES / "tweezer_deform.toml"))
+    f = result.figures["work"]
+    assert f["resolution"] > 0 and "1/20 of the lowest spacing" in f["resolution_source"]
+    r = tplot.work_panel_ranges(f)
+    p = np.asarray(f["result"]["probability"])
+    line = float(np.asarray(f["result"]["work"])[np.argmax(p)])
+    lo, hi = r["linear_range"]
+    assert lo < line - 2 * f["resolution"] and hi > line + 2 * f["resolution"]
+    assert r["lines_below_floor"] == int((p <= p.max() * 1e-12).sum()) > 0  # all lines reach the figure
+    fig = tplot.plot(result, "work")
+    linear = [a for a in fig.axes if a.get_ylabel() == "probability P"][0]
+    texts = _tick_texts(fig, linear)
+    assert len(set(texts)) == len(texts) >= 3
+
+
+def test_issue16_sweep_log_y_and_further_panels():
+    f = {"kind": "sweep", "x_label": "tau (us)", "y_label": "<W> (h*kHz)", "log_y": True,
+         "points": [{"label": "numerical", "x": np.array([1.0, 2.0, 3.0]), "y": np.array([1e-2, 1.0, 1e2]),
+                     "spread": np.array([0.5, 0.5, 0.5])}],
+         "curves": [{"label": "harmonic", "x": np.linspace(1, 3, 200), "y": np.linspace(0, 120, 200)}],
+         "panels": [{"y_label": "|residual| (dimensionless)", "log_y": True,
+                     "points": [{"label": "numerical", "x": np.array([1.0, 2.0, 3.0]), "y": np.array([1e-3, 1e-9, 1e-14])}],
+                     "curves": []}]}
+    lay = tplot.sweep_layout(f)
+    fig = tplot.plot(f)
+    main, residual = [a for a in fig.axes if a.axison]
+    assert main.get_yscale() == "log" and residual.get_yscale() == "log"
+    # The points and their bars set a log range (the curve's 0 at tau = 1 would stretch it),
+    # padded by 6% of log10 y: 1e-2 .. 100.5 (the bar below the first point ends at the floor).
+    lo, hi = -2.0, math.log10(100.5)
+    assert np.log10(main.get_ylim()) == pytest.approx((lo - 0.06 * (hi - lo), hi + 0.06 * (hi - lo)))
+    assert main.get_ylim() == pytest.approx(lay["y_range"])
+    # An error bar reaching below 0 ends at the floor.
+    assert lay["drawn"][0]["lo"][0] == pytest.approx(lay["y_range"][0])
+    assert residual.get_ylim() == pytest.approx(lay["panels"][0]["y_range"])
+    assert residual.get_ylabel() == "|residual| (dimensionless)"
+    # A log axis over less than two labelled decades is widened to whole decades.
+    f["points"][0]["y"] = np.array([0.2, 0.3, 0.5])
+    f["points"][0]["spread"] = np.zeros(0)
+    assert tplot.sweep_layout(f)["y_range"] == pytest.approx((0.1, 1.0))

@@ -466,11 +466,30 @@ def _bulk_range(series, tail):
     return float(w[lo]), float(w[hi])
 
 
-def work_layout(f):
-    """The ranges plot.cpp gives a work figure: a dict with 'panels' (list of 'linear' / 'log'),
-    'work_range' (log panel, and the linear one unless 'own_range'), 'linear_work_range',
-    'probability_top', 'log_floor' and 'log_top' (log10 P), 'density_top' (None without a
-    density axis)."""
+def _nice_step(span, max_ticks):
+    """plot.cpp's nice_step: 1, 2 or 5 x 10^k nearest (in ratio) to span / max_ticks."""
+    raw = span / max_ticks
+    decade = 10.0 ** math.floor(math.log10(raw))
+    best = decade
+    for m in (2.0, 5.0, 10.0):
+        if abs(math.log(m * decade / raw)) < abs(math.log(best / raw)):
+            best = m * decade
+    return best
+
+
+def _tick_offset(lo, hi):
+    """plot.cpp's tick_offset: W0 subtracted from a panel's tick labels where the panel is
+    narrower than 1e-3 of its largest |W| (its centre rounded to 10 tick steps), else 0."""
+    width, size = hi - lo, max(abs(lo), abs(hi))
+    if not width > 0 or width >= 1e-3 * size:
+        return 0.0
+    coarse = 10 * _nice_step(width, 5)
+    return round(0.5 * (lo + hi) / coarse) * coarse
+
+
+def work_panel_ranges(f):
+    """The ranges of a work figure: a port of plot.cpp's work_panel_ranges (plot.hpp states the
+    rule), kept identical to it. Returns a dict with the fields of WorkPanelRanges."""
     result, reference = _series(f, "result"), _series(f, "reference")
     if result["work"].size == 0 and result["density"].size == 0:
         _bad("work", "no work values")
@@ -480,34 +499,100 @@ def work_layout(f):
     axis = str(f.get("probability_axis") or "linear_and_log").lower()
     if axis not in ("linear_and_log", "linear", "log"):
         _bad("work", f"unknown probability_axis '{axis}' (linear_and_log, linear, log)")
+    resolution = f.get("resolution")
+    if resolution is not None and not (math.isfinite(float(resolution)) and float(resolution) > 0):
+        _bad("work", f"resolution must be finite and > 0, found {float(resolution):.4g}")
     series = [result] + ([reference] if reference else [])
-    markers = [float(f[k]) for k in ("mean_work", "free_energy_change") if f.get(k) is not None]
-    wr = _finite_range(*[s["work"] for s in series], *[s["density_work"] for s in series], markers)
-    if wr is None:
-        _bad("work", "no finite work values")
-    dr = _finite_range(*[s["density"] for s in series])
     p_max = max([float(np.max(s["probability"])) for s in series if s["probability"].size] + [0.0])
-    bulk = _bulk_range(series, 1e-3)
-    if bulk is not None and markers:
-        bulk = (min([bulk[0]] + markers), max([bulk[1]] + markers))
-    own_range = axis == "linear_and_log" and bulk is not None and bulk[1] - bulk[0] < 0.5 * (wr[1] - wr[0])
-    wr = _padded(*wr, 0.04)
-    linear_range = _padded(*bulk, 0.08) if own_range else wr
-    has_density = dr is not None and dr[1] > 0 and axis != "log"
+    d_max = max([float(np.max(d[np.isfinite(d)])) for d in (s["density"] for s in series)
+                 if np.isfinite(d).any()] + [0.0])
     headroom = 1.3  # above the tallest stem: room for the marker labels
+    has_density = d_max > 0 and axis != "log"
     log_headroom = 0.5 + 0.2 * decades if axis == "log" else 0.5
     log_top = math.log10(p_max if p_max > 0 else 1.0) + log_headroom
-    return {
+    r = {"probability_top": (p_max if p_max > 0 else 1.0) * headroom,
+         "density_top": d_max * headroom if has_density else 0.0,
+         "log_top": log_top, "log_floor": log_top - log_headroom - decades}
+
+    markers = [float(f[k]) for k in ("mean_work", "free_energy_change") if f.get(k) is not None]
+    floor = 10.0 ** r["log_floor"]
+    work = np.concatenate([s["work"] for s in series])
+    prob = np.concatenate([s["probability"] for s in series])
+    above = prob > floor
+    r["lines_drawn"], r["lines_below_floor"] = int(above.sum()), int((~above).sum())
+    drawn_of = [int((s["probability"] > floor).sum()) for s in series] + [0]
+    wr = _finite_range(work[above])
+    if wr is None:
+        wr = _finite_range(*[s["density_work"] for s in series])
+    wr = _finite_range(*([wr] if wr else []), markers)
+    if wr is None:
+        _bad("work", "no finite work values")
+
+    # Linear panel: the lines carrying the probability, widened by 3 resolution, the density's
+    # peak and the markers.
+    linear = _bulk_range(series, 1e-3)
+    sigma = float(resolution) if has_density and resolution is not None else 0.0
+    extra = list(markers)
+    if linear is not None:
+        linear = (linear[0] - 3 * sigma, linear[1] + 3 * sigma)
+    for s in series:
+        d = s["density"]
+        if d.size and has_density:
+            k = int(np.argmax(np.where(np.isnan(d), -np.inf, d)))
+            if math.isfinite(d[k]) and d[k] > 0:
+                extra.append(float(s["density_work"][k]))
+    if axis == "linear" and work.size:
+        extra += [float(work.min()), float(work.max())]
+    linear = _finite_range(*([linear] if linear else []), extra)
+    if linear is None:
+        linear = wr
+    wr = _padded(*wr, 0.04)
+    linear = _padded(*linear, 0.08)
+    r["own_range"] = axis == "linear_and_log" and linear[1] - linear[0] < 0.5 * (wr[1] - wr[0])
+    if axis == "linear_and_log" and not r["own_range"]:
+        wr = (min(wr[0], linear[0]), max(wr[1], linear[1]))
+        linear = wr
+    r["linear_range"], r["log_range"] = linear, wr
+    r["linear_offset"], r["log_offset"] = _tick_offset(*linear), _tick_offset(*wr)
+    # Log-panel stems thinned with the number of each series' lines drawn.
+    crowd = [math.sqrt(40.0 / n) if n > 40 else 1.0 for n in drawn_of[:2]]
+    r["marker_scale"] = [0.8 * c if 0.8 * c >= 0.2 else 0.0 for c in crowd]
+    r["stem_width"] = [max(0.5, 2.2 * c) for c in crowd]
+    return r
+
+
+def work_caption(f, r):
+    """plot.cpp's work_caption: the caption lines (the densities' width and its source; the
+    lines left out of the log panel)."""
+    lines = []
+    if (r["density_top"] or 0) > 0 and f.get("resolution") is not None:
+        text = "densities: the lines broadened by a Gaussian of width #gs = " + _number(float(f["resolution"]))
+        label = f.get("work_label") or ""
+        a, b = label.rfind("("), label.rfind(")")
+        if a >= 0 and b > a:
+            text += " " + label[a + 1:b]
+        if f.get("resolution_source"):
+            text += " (" + f["resolution_source"] + ")"
+        lines.append(text)
+    axis = str(f.get("probability_axis") or "linear_and_log").lower()
+    n = r["lines_below_floor"]
+    if n > 0 and axis != "linear":
+        lines.append(f"{n} line{'' if n == 1 else 's'} below P = {10.0 ** r['log_floor']:.2g} not drawn in the log panel")
+    return lines
+
+
+def work_layout(f):
+    """work_panel_ranges with the panels and series ('panels': list of 'linear' / 'log',
+    'work_range' (log panel) and 'linear_work_range' in W, 'series')."""
+    r = work_panel_ranges(f)
+    axis = str(f.get("probability_axis") or "linear_and_log").lower()
+    r.update({
         "panels": {"linear_and_log": ["linear", "log"], "linear": ["linear"], "log": ["log"]}[axis],
-        "own_range": own_range,
-        "work_range": wr,
-        "linear_work_range": linear_range,
-        "probability_top": (p_max if p_max > 0 else 1.0) * headroom,
-        "log_top": log_top,
-        "log_floor": log_top - log_headroom - decades,
-        "density_top": dr[1] * headroom if has_density else None,
-        "series": series,
-    }
+        "work_range": r["log_range"], "linear_work_range": r["linear_range"],
+        "density_top": r["density_top"] if r["density_top"] > 0 else None,
+        "series": [s for s in (_series(f, "result"), _series(f, "reference")) if s is not None],
+    })
+    return r
 
 
 def _number(v):
@@ -543,7 +628,11 @@ def _draw_work(plt, f, ax, style):
         a.set_ylim(floor, top)
         a.grid(True, color="0.88", linewidth=0.6)
         x_lo, x_hi = a.get_xlim()
-        a.set_xlabel(plplot_text(f.get("work_label")))
+        shift = lay["log_offset" if log else "linear_offset"]
+        a.set_xlabel(plplot_text(_offset_label(f.get("work_label") or "", shift)))
+        if shift != 0:  # ticks show W - W0 (plot.cpp draws in shifted coordinates)
+            from matplotlib.ticker import FuncFormatter
+            a.xaxis.set_major_formatter(FuncFormatter(lambda x, pos, w0=shift: f"{x - w0:.6g}"))
         if len(kinds) == 2 and kind == "linear" and not lay["own_range"]:
             a.set_xlabel("")
             a.tick_params(labelbottom=False)
@@ -581,12 +670,21 @@ def _draw_work(plt, f, ax, style):
             p = s["probability"]
             shown = p > floor
             x = s["work"][shown] + (offset if k == 1 else 0.0)
-            stems = a.vlines(x, floor, p[shown], colors=[colours[k]], linewidth=1.4)
+            # plot.cpp's sizes scaled to matplotlib's: stems 2.2 px -> 1.4 pt, markers 0.8 -> 5 pt
+            scale = lay["marker_scale"][k] if log else 0.8
+            width = lay["stem_width"][k] if log else 2.2
+            # too many lines for markers: light stems, each top a small dot (plot.cpp's draw_stems)
+            stems = a.vlines(x, floor, p[shown], colors=[colours[k]], linewidth=1.4 * width / 2.2,
+                             alpha=1.0 if scale > 0 else 0.3)
             stems.set_gid(("result" if k == 0 else "reference") + "_stems")
-            tops, = a.plot(x, p[shown], linestyle="none", marker="o", markersize=5,
-                           markerfacecolor=colours[k] if k == 0 else "none",
-                           markeredgecolor=colours[k])
-            tops.set_gid(("result" if k == 0 else "reference") + "_tops")
+            if scale == 0:
+                dots, = a.plot(x, p[shown], linestyle="none", marker=".", markersize=2, color=colours[k])
+                dots.set_gid(("result" if k == 0 else "reference") + "_dots")
+            else:
+                tops, = a.plot(x, p[shown], linestyle="none", marker="o", markersize=5 * scale / 0.8,
+                               markerfacecolor=colours[k] if k == 0 else "none",
+                               markeredgecolor=colours[k])
+                tops.set_gid(("result" if k == 0 else "reference") + "_tops")
         if has_density and not log:
             right = a.twinx()
             right.set_ylim(0, lay["density_top"])
@@ -608,19 +706,29 @@ def _draw_work(plt, f, ax, style):
             handles.append(Line2D([], [], color=colours[k], linestyle="-" if k == 0 else "--"))
             labels.append("broadened (right axis)")
     _legend(style, legend_ax, axes[0], handles, labels, 2)
+    caption = work_caption(f, lay)
+    if caption:
+        # below the bottom panel's tick labels and axis title; inside the constrained layout
+        axes[-1].annotate("\n".join(map(plplot_text, caption)), xy=(0.5, 0), xycoords="axes fraction", xytext=(0, -36),
+                          textcoords="offset points", ha="center", va="top", fontsize="small", gid="caption")
     style.figure_title(fig, f.get("title"))
     return fig
 
 
+def _offset_label(label, offset):
+    """plot.cpp's offset_label: the axis title with the offset its ticks leave out."""
+    if offset == 0:
+        return label
+    return label + ",  ticks: W - W#d0#u, W#d0#u = " + f"{offset:.10g}"
+
+
 # ---- (c) sweep --------------------------------------------------------------------------------
 
-def _sweep_data(f):
+def _sweep_points_curves(f):
     points = [{"label": p.get("label") or "", "x": _array(p.get("x")), "y": _array(p.get("y")),
                "spread": _array(p.get("spread"))} for p in (f.get("points") or [])]
     curves = [{"label": c.get("label") or "", "x": _array(c.get("x")), "y": _array(c.get("y"))}
               for c in (f.get("curves") or [])]
-    if not points and not curves:
-        _bad("sweep", "nothing to draw")
     for p in points:
         _same_size("sweep", f"'{p['label']}' x and y", p["x"], p["y"])
         if p["spread"].size:
@@ -629,25 +737,67 @@ def _sweep_data(f):
         _same_size("sweep", f"curve '{c['label']}' x and y", c["x"], c["y"])
         if np.any(np.diff(c["x"]) < 0):
             _bad("sweep", f"curve '{c['label']}': x must be ascending")
+    return points, curves
+
+
+def _sweep_data(f):
+    points, curves = _sweep_points_curves(f)
+    if not points and not curves:
+        _bad("sweep", "nothing to draw")
     departure = str(f.get("departure") or "none").lower()
     if departure not in ("none", "relative", "absolute"):
         _bad("sweep", f"unknown departure '{departure}' (none, relative, absolute)")
     if departure != "none" and not curves:
         _bad("sweep", "a departure panel needs an analytic curve")
-    return points, curves, departure
+    panels = []
+    for panel in f.get("panels") or []:
+        pp, pc = _sweep_points_curves(panel)
+        panels.append({"y_label": panel.get("y_label") or "", "points": pp, "curves": pc,
+                       "log_y": bool(panel.get("log_y"))})
+    return points, curves, departure, panels
+
+
+def _sweep_panel(points, curves, log_y, shown_x):
+    """plot.cpp's drawn_sweep_panel: points (finite on both axes; values <= 0 left out on a log
+    y axis) with y -+ spread, and the y range in axis units (log10 on a log axis)."""
+    shown_y = (lambda y: np.where(y > 0, np.log10(np.where(y > 0, y, 1.0)), np.nan)) if log_y else (lambda y: y)
+    drawn = []
+    for p in points:
+        s = np.abs(p["spread"]) if p["spread"].size else np.zeros_like(p["y"])
+        keep = np.isfinite(shown_x(p["x"])) & np.isfinite(shown_y(p["y"]))
+        d = {"x": p["x"][keep], "y": p["y"][keep], "lo": (p["y"] - s)[keep], "hi": (p["y"] + s)[keep],
+             "spread": p["spread"].size > 0}
+        drawn.append(d)
+    yr = _finite_range(*[shown_y(d["y"]) for d in drawn], *[shown_y(d["lo"]) for d in drawn],
+                       *[shown_y(d["hi"]) for d in drawn])
+    # On a log axis the points set the range (a curve's zeros would stretch it over many decades;
+    # the curves are clipped), the curves only where there are no points.
+    if not log_y or yr is None:
+        yr = _finite_range(*([yr] if yr else []), *[shown_y(c["y"]) for c in curves])
+    return drawn, yr
+
+
+def _whole_decades(lo, hi):
+    """plot.cpp's whole_decades: a log axis (log10 lo .. hi) with fewer than two labelled decades
+    widened to whole decades."""
+    if math.floor(hi) - math.ceil(lo) >= 1:
+        return lo, hi
+    return float(math.floor(lo)), float(math.ceil(hi))
 
 
 def sweep_layout(f):
     """Points, departures and ranges of a sweep figure as plot.cpp computes them: x padded by 3%
-    (of log10 x on a log axis), y by 6%, the departure panel (including 0) by 10%."""
-    points, curves, departure = _sweep_data(f)
+    (of log10 x on a log axis), y of each panel by 6% (of log10 y on a log axis), the departure
+    panel (including 0) by 10%; error bars reaching below 0 on a log axis end at the floor."""
+    points, curves, departure, panels = _sweep_data(f)
     log_x = bool(f.get("log_x"))
+    log_y = bool(f.get("log_y"))
     shown = (lambda x: np.where(x > 0, np.log10(np.where(x > 0, x, 1.0)), np.nan)) if log_x else (lambda x: x)
-    drawn, departures = [], []
+    drawn, yr = _sweep_panel(points, curves, log_y, shown)
+    departures = []
     for p in points:
         s = np.abs(p["spread"]) if p["spread"].size else np.zeros_like(p["y"])
-        d = {"x": p["x"], "y": p["y"], "lo": p["y"] - s, "hi": p["y"] + s, "spread": p["spread"].size > 0}
-        e = {"x": np.zeros(0), "y": np.zeros(0), "lo": np.zeros(0), "hi": np.zeros(0), "spread": d["spread"]}
+        e = {"x": np.zeros(0), "y": np.zeros(0), "lo": np.zeros(0), "hi": np.zeros(0), "spread": p["spread"].size > 0}
         if departure != "none":
             c = curves[0]
             ref = np.interp(p["x"], c["x"], c["y"], left=np.nan, right=np.nan) if c["x"].size else np.full(p["x"].shape, np.nan)
@@ -659,20 +809,40 @@ def sweep_layout(f):
                     dev, err = dev / ref, err / np.abs(ref)
             keep &= np.isfinite(dev)
             e = {"x": p["x"][keep], "y": dev[keep], "lo": (dev - err)[keep], "hi": (dev + err)[keep],
-                 "spread": d["spread"]}
-        drawn.append(d)
+                 "spread": e["spread"]}
         departures.append(e)
-    xr = _finite_range(*[shown(d["x"]) for d in drawn], *[shown(c["x"]) for c in curves])
-    yr = _finite_range(*[d["lo"] for d in drawn], *[d["hi"] for d in drawn], *[c["y"] for c in curves])
+    more = []
+    for panel in panels:
+        d, r = _sweep_panel(panel["points"], panel["curves"], panel["log_y"], shown)
+        more.append(dict(panel, drawn=d, y_range=r if r is not None else (0.0, 1.0)))
+    xr = _finite_range(*[shown(d["x"]) for d in drawn], *[shown(c["x"]) for c in curves],
+                       *[shown(d["x"]) for m in more for d in m["drawn"]],
+                       *[shown(c["x"]) for m in more for c in m["curves"]])
     if xr is None or yr is None:
         _bad("sweep", "no finite values")
     dr = _finite_range([0.0], *[e["lo"] for e in departures], *[e["hi"] for e in departures])
     xr = _padded(*xr, 0.03)
     if log_x:
         xr = (10.0 ** xr[0], 10.0 ** xr[1])
-    return {"points": points, "curves": curves, "departure": departure, "log_x": log_x,
-            "drawn": drawn, "departures": departures, "x_range": xr,
-            "y_range": _padded(*yr, 0.06), "departure_range": _padded(*dr, 0.1)}
+
+    def y_axis(r, log):
+        lo, hi = _padded(*r, 0.06)
+        if log:
+            lo, hi = _whole_decades(lo, hi)
+        return (10.0 ** lo, 10.0 ** hi) if log else (lo, hi)
+
+    y_range = y_axis(yr, log_y)
+    for d in drawn:
+        if log_y:
+            d["lo"] = np.where(d["lo"] > 0, d["lo"], y_range[0])
+    for m in more:
+        m["y_range"] = y_axis(m["y_range"], m["log_y"])
+        for d in m["drawn"]:
+            if m["log_y"]:
+                d["lo"] = np.where(d["lo"] > 0, d["lo"], m["y_range"][0])
+    return {"points": points, "curves": curves, "departure": departure, "log_x": log_x, "log_y": log_y,
+            "drawn": drawn, "departures": departures, "x_range": xr, "panels": more,
+            "y_range": y_range, "departure_range": _padded(*dr, 0.1)}
 
 
 def _draw_points(a, d, band, k, style, gid):
@@ -691,40 +861,46 @@ def _draw_points(a, d, band, k, style, gid):
     marks.set_gid(gid)
 
 
+def _draw_curves(a, curves, style, prefix):
+    for k, c in enumerate(curves):
+        line, = a.plot(c["x"], c["y"], color=style[_CURVE_ROLES[k % 3]],
+                       linestyle="-" if k == 0 else "--", linewidth=1.8)
+        line.set_gid(f"{prefix}curve_{k}")
+
+
 def _draw_sweep(plt, f, ax, style):
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
     lay = sweep_layout(f)
     two = lay["departure"] != "none"
+    more = lay["panels"]
     band = bool(f.get("spread_as_band"))
-    fig, axes, legend_ax = _layout(plt, style, ax, 2 if two else 1,
-                                   height_ratios=[0.6, 0.4] if two else None)
+    ratios = [1.6] + [1] * ((1 if two else 0) + len(more))
+    fig, axes, legend_ax = _layout(plt, style, ax, len(ratios), height_ratios=ratios)
     main = axes[0]
     lower = axes[1] if two and len(axes) > 1 else None
-    for a in [main] + ([lower] if lower is not None else []):
+    further = axes[(2 if two else 1):] if len(axes) == len(ratios) else []
+    for a in axes:
         if lay["log_x"]:
             a.set_xscale("log")
         a.set_xlim(*lay["x_range"])
         a.grid(True, color="0.88", linewidth=0.6)
-    if lower is not None:
-        lower.sharex(main)
+        if a is not main:
+            a.sharex(main)
+    for a in axes[:-1]:
+        a.tick_params(labelbottom=False)
+    axes[-1].set_xlabel(plplot_text(f.get("x_label")))
+    if lay["log_y"]:
+        main.set_yscale("log")
     main.set_ylim(*lay["y_range"])
     main.set_ylabel(plplot_text(f.get("y_label")))
-    if lower is None:
-        main.set_xlabel(plplot_text(f.get("x_label")))
-    else:
-        main.tick_params(labelbottom=False)
     for k, d in enumerate(lay["drawn"]):
         _draw_points(main, d, band, k, style, f"points_{k}")
-    for k, c in enumerate(lay["curves"]):
-        line, = main.plot(c["x"], c["y"], color=style[_CURVE_ROLES[k % 3]],
-                          linestyle="-" if k == 0 else "--", linewidth=1.8)
-        line.set_gid(f"curve_{k}")
+    _draw_curves(main, lay["curves"], style, "")
     if lower is not None:
         relative = lay["departure"] == "relative"
         lower.set_ylim(*lay["departure_range"])
-        lower.set_xlabel(plplot_text(f.get("x_label")))
         label = f.get("departure_label") or ("relative departure" if relative else "departure")
         lower.set_ylabel(plplot_text(label))
         zero = lower.axhline(0.0, color=style[_CURVE_ROLES[0]], linestyle="--", linewidth=1.3)
@@ -734,15 +910,41 @@ def _draw_sweep(plt, f, ax, style):
         lower.text(0.0, 1.02, plplot_text(("below: (y - c) / c,  c = " if relative else "below: y - c,  c = ")
                                            + lay["curves"][0]["label"]),
                    transform=lower.transAxes, fontsize="small", va="bottom")
+    for i, (a, m) in enumerate(zip(further, more)):
+        if m["log_y"]:
+            a.set_yscale("log")
+        a.set_ylim(*m["y_range"])
+        a.set_ylabel(plplot_text(m["y_label"]))
+        for k, d in enumerate(m["drawn"]):
+            _draw_points(a, d, band, k, style, f"panel_{i}_points_{k}")
+        _draw_curves(a, m["curves"], style, f"panel_{i}_")
     handles, labels = [], []
-    for k, p in enumerate(lay["points"]):
-        role = _POINT_ROLES[k % 3]
-        mark = Line2D([], [], linestyle="none", marker="o", color=style[role])
-        handles.append((Patch(facecolor=style.fill(role)), mark) if band and lay["drawn"][k]["spread"] else mark)
-        labels.append(plplot_text(p["label"]))
-    for k, c in enumerate(lay["curves"]):
-        handles.append(Line2D([], [], color=style[_CURVE_ROLES[k % 3]], linestyle="-" if k == 0 else "--"))
-        labels.append(plplot_text(c["label"]))
+
+    def add(points, curves, drawn):
+        for k, p in enumerate(points):
+            if p["label"] and plplot_text(p["label"]) in labels:
+                continue
+            role = _POINT_ROLES[k % 3]
+            mark = Line2D([], [], linestyle="none", marker="o", color=style[role])
+            handles.append((Patch(facecolor=style.fill(role)), mark) if band and drawn[k]["spread"] else mark)
+            labels.append(plplot_text(p["label"]))
+        for k, c in enumerate(curves):
+            if not c["label"] or plplot_text(c["label"]) in labels:
+                continue  # an unlabelled curve (a marker line) stays out of the legend
+            handles.append(Line2D([], [], color=style[_CURVE_ROLES[k % 3]], linestyle="-" if k == 0 else "--"))
+            labels.append(plplot_text(c["label"]))
+
+    add(lay["points"], lay["curves"], lay["drawn"])
+    for m in more:
+        add(m["points"], m["curves"], m["drawn"])
+    if len(axes) > 2:  # as plot.cpp: panels too short for a rotated label carry it above them
+        for a in axes:
+            a.set_title(a.get_ylabel(), loc="left", fontsize="medium")
+            a.yaxis.label.set_visible(False)
+        if lower is not None:
+            lower.texts[-1].set_visible(False)  # the departure note, now beside its title
+            lower.set_title(lower.get_ylabel() + "     (" + lower.texts[-1].get_text()[7:] + ")",
+                            loc="left", fontsize="medium")
     _legend(style, legend_ax, main, handles, labels, 2)
     style.figure_title(fig, f.get("title"))
     return fig
