@@ -218,7 +218,7 @@ struct Diagnostics {
 //
 // Averages over the propagated initial states psi_m(t) with their initial weights p_m (thermal
 // averages for a Gibbs state), in the lab frame, at observation points t_k (every k-th time
-// step, k = ceil(steps / (trace_points - 1)), and tau):
+// step, k = ceil(steps / (points - 1)), and tau; points: WorkRequest::trace_points):
 //   position_mean(t) = sum_m p_m <psi_m|x|psi_m>
 //   energy_mean(t)   = sum_m p_m <psi_m|H(t)|psi_m>,  H(t) = p^2/2 + V(x, t) with the grid's own
 //                      kinetic operator and V as the propagator samples it (not capped)
@@ -267,8 +267,10 @@ struct WorkRequest {
                                      // final states of H_B need more levels of H_A than L)
   int threads = 1;                   // propagator worker threads (results independent of it)
   int trace_points = 40;             // WorkTraces of the forward run: about this many points
-                                     // (0: none); each costs about one time step and, where the
-                                     // trap changes shape, one spectrum of trace_levels levels
+                                     // (< 2: none); each costs about one time step and, in the
+                                     // lab frame, one spectrum of trace_levels levels, whose
+                                     // estimated arithmetic (cost.hpp) is kept within 5% of the
+                                     // run's by taking fewer points (at least 9)
   int trace_levels = 5;              // instantaneous levels whose populations are traced
   std::function<void(double fraction)> progress;  // optional, called with 0..1
   // Optional: called with a new stage's name when the work restarts (run_work's enlargement of

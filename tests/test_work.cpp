@@ -327,11 +327,11 @@ std::vector<double> oscillator_weights(double omega, double beta, int levels) {
 TEST_CASE("issue 16: traces of a harmonic trap at rest stay at the centre and thermal", "[work][traces]") {
   const Potential base({Term("trap", Shape::harmonic, {{"frequency", 1.0}})});
   WorkRequest request;
-  request.initial = InitialState::thermal(1.0);
+  request.initial = InitialState::thermal(2.0);  // beta: about 12 levels kept
   request.time_step_check = false;
   request.reverse_run = false;
   request.spectrum.options.method = EigenMethod::dense;
-  const double tau = 2 * std::acos(-1.0);
+  const double tau = 3.0;
   // A centre held still is a translation (co-moving frame, its levels carried along); a
   // frequency held still is not (lab frame, a spectrum solved at each observation point).
   for (const auto& held : {Schedule::constant("trap.centre", 0), Schedule::constant("trap.frequency", 1)}) {
@@ -339,16 +339,18 @@ TEST_CASE("issue 16: traces of a harmonic trap at rest stay at the centre and th
     const WorkResult r = run_work(base, Protocol(tau, {held}), request);
     const WorkTraces& t = r.traces;
     CHECK(t.absent.empty());
-    REQUIRE(t.time.size() >= 21);
+    // 40 points asked for (about 40 in the co-moving frame; in the lab frame at least 9, fewer
+    // where the spectra would cost more than 5% of the run)
+    REQUIRE(t.time.size() >= (held.address() == "trap.centre" ? 21u : 9u));
     CHECK(t.time.size() <= 41);
     CHECK(t.time.front() == 0);
     CHECK(t.time.back() == tau);
     REQUIRE(t.populations.cols() == request.trace_levels);
-    const auto thermal = oscillator_weights(1.0, 1.0, request.trace_levels);
+    const auto thermal = oscillator_weights(1.0, 2.0, request.trace_levels);
     const double e0 = t.energy_mean.front();
     // The thermal energy of the oscillator, (1/2) coth(beta omega / 2) (textbook), to the left-out
     // thermal weight (1e-10) times the energies of the levels left out.
-    CHECK(std::abs(e0 - 0.5 / std::tanh(0.5)) < 1e-8);
+    CHECK(std::abs(e0 - 0.5 / std::tanh(1.0)) < 1e-8);
     for (std::size_t k = 0; k < t.time.size(); ++k) {
       // A stationary state stays stationary: the automatic step's line errors are ~1e-9
       // (work.cpp's choice of phase per step); 1e-7 leaves a margin of 100.
@@ -381,7 +383,7 @@ TEST_CASE("issue 16: <x>(t) and <H>(t) of a translated harmonic trap follow the 
     request.co_moving = co_moving;
     const WorkResult r = run_work(base, Protocol(tau, {Schedule::linear("trap.centre", 0, distance)}), request);
     const WorkTraces& t = r.traces;
-    REQUIRE(t.time.size() >= 21);
+    REQUIRE(t.time.size() >= 9);
     const double e0 = t.energy_mean.front();
     for (std::size_t k = 0; k < t.time.size(); ++k) {
       const double s = t.time[k], x = v * (s - std::sin(s)), rate = v * (1 - std::cos(s)), d = v * s;
@@ -401,13 +403,13 @@ TEST_CASE("issue 16: traces of a frequency ramp end on the final populations; ei
   const Potential base({Term("trap", Shape::harmonic, {{"frequency", 1.0}})});
   const Protocol ramp(3.0, {Schedule::linear("trap.frequency", 1, 1.6)});
   WorkRequest request;
-  request.initial = InitialState::thermal(1.0);
+  request.initial = InitialState::thermal(2.0);
   request.time_step_check = false;
   request.reverse_run = false;
   request.spectrum.options.method = EigenMethod::dense;
   const WorkResult r = run_work(base, ramp, request);
   const WorkTraces& t = r.traces;
-  REQUIRE(t.time.size() >= 21);
+  REQUIRE(t.time.size() >= 9);
   const auto final = final_populations(r.forward);
   const Eigen::Index last = t.populations.rows() - 1;
   for (int n = 0; n < request.trace_levels; ++n) {
@@ -421,7 +423,7 @@ TEST_CASE("issue 16: traces of a frequency ramp end on the final populations; ei
 
   request.integrator = Integrator::eigenbasis;
   const WorkResult e = run_work(base, ramp, request);
-  REQUIRE(e.traces.time.size() >= 21);
+  REQUIRE(e.traces.time.size() >= 9);
   CHECK(e.traces.time.back() == 3.0);
   for (int n = 0; n < request.trace_levels; ++n)  // two integrators, each accurate to ~1e-8
     CHECK(std::abs(e.traces.populations(e.traces.populations.rows() - 1, n) - t.populations(last, n)) < 1e-6);

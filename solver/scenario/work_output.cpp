@@ -954,7 +954,7 @@ LevelsFigure spectrum_figure(const Scenario& s, const SpectrumResult& result) {
   f.title = "potential, levels and |ψ#dn#u|#u2#d of the lowest four";
   f.x_label = "position x (" + lu.name + ")";
   f.energy_label = "energy E (" + d.e + ")";
-  f.panels.push_back(levels_panel(s, lu, "", s.potential, result.spectrum, 0, 20));
+  f.panels.push_back(levels_panel(s, lu, "", s.potential, result.spectrum, 0, 12));  // as potential.png
   return f;
 }
 
@@ -1057,7 +1057,8 @@ SweepFigure populations_figure(const WorkRun& run) {
   f.title = "level populations: final P(n) = Σ#dm#u p#dm#u P(m→n) and initial p#dn#u";
   // The three series side by side at each n (initial n - 0.25, harmonic n + 0.25), so that
   // markers of equal values do not hide each other.
-  f.x_label = "level n of H_B (final) or H_A (initial p#dn#u, drawn at n - 0.25; harmonic at n + 0.25)";
+  f.x_label = std::string("level n of H_B (final) or H_A (initial p#dn#u, drawn at n - 0.25") +
+              (reference.empty() ? ")" : "; harmonic at n + 0.25)");
   f.y_label = "population";
   SweepPoints numeric{"final P(n), numerical", {}, {}, {}}, initial{"initial p#dn#u", {}, {}, {}};
   for (std::size_t n = 0; n < shown; ++n) {

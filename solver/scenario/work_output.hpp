@@ -138,7 +138,7 @@ nlohmann::ordered_json work_summary(const WorkRun& run);
 // potential.png: the initial and final potentials with their levels; work.png: P(W) and its density.
 LevelsFigure levels_figure(const WorkRun& run);
 WorkFigure work_figure(const WorkRun& run);
-// spectrum.png of `trapwork spectrum`: the potential with its levels (up to 20), the densities
+// spectrum.png of `trapwork spectrum`: the potential with its levels (up to 12), the densities
 // of the lowest four and the hard walls of a [box].
 LevelsFigure spectrum_figure(const Scenario& scenario, const SpectrumResult& result);
 // protocol.png: each scheduled parameter (potential and walls) against t in lab units, one panel

@@ -595,5 +595,5 @@ def test_issue16_box_walls_are_drawn():
     fig = spectrum.plot("spectrum")
     walls = [ln for a in fig.axes for ln in a.lines if (ln.get_gid() or "").startswith("wall_")]
     assert sorted(w.get_xdata()[0] for w in walls) == pytest.approx([0.0, 10.0])
-    lo, hi = fig.axes[-1].get_xlim() if len(fig.axes) == 1 else [a for a in fig.axes if a.lines][0].get_xlim()
+    lo, hi = [a for a in fig.axes if a.lines][0].get_xlim()
     assert lo < 0.0 and hi > 10.0  # both walls inside the panel
