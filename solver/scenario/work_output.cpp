@@ -1123,8 +1123,10 @@ std::optional<StackedFigure> traces_figure(const WorkRun& run) {
   f.title = "time traces: averages over the propagated initial states with their weights";
   f.x_label = "time t (" + tu.name + ")";
   StackPanel x{"<x> (" + lu.name + ")", {}, true}, e{"<H(t)> (" + d.e + ")", {}, true}, p{"population", {}, true};
+  // <x> below 1e-9 of the grid's length is rounding (a centred state, ~1e-15 um), drawn as 0 so that
+  // the panel does not blow the noise up to full height (traces.csv keeps the numbers)
   SweepCurve xc{"<x>(t)", t, {}};
-  for (double v : tr.position_mean) xc.y.push_back(v / lu.internal_per_unit);
+  for (double v : tr.position_mean) xc.y.push_back(std::abs(v) < 1e-9 * run.result.grid.length() ? 0.0 : v / lu.internal_per_unit);
   x.curves.push_back(std::move(xc));
   if (const auto translation = run.protocol.translation(run.scenario.potential)) {
     const Schedule* centre = nullptr;
