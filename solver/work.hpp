@@ -218,6 +218,31 @@ struct Diagnostics {
   std::vector<std::string> notes;
 };
 
+// ---- time traces of the forward run ----------------------------------------------------------
+//
+// Averages over the propagated initial states psi_m(t) with their initial weights p_m (thermal
+// averages for a Gibbs state), in the lab frame, at observation points t_k (every k-th time
+// step, k = ceil(steps / (points - 1)), and tau; points: WorkRequest::trace_points):
+//   position_mean(t) = sum_m p_m <psi_m|x|psi_m>
+//   energy_mean(t)   = sum_m p_m <psi_m|H(t)|psi_m>,  H(t) = p^2/2 + V(x, t) with the grid's own
+//                      kinetic operator and V as the propagator samples it (not capped)
+//   populations(k, n) = sum_m p_m |<n(t_k)|psi_m(t_k)>|^2 for the lowest trace_levels
+//                      instantaneous eigenstates n(t) of H(t) on the same grid (solve_spectrum;
+//                      at t = 0 and tau the run's own H_A and H_B spectra; in a co-moving run
+//                      those of H_A carried with the trap, which are exact there).
+// Levels of a near-degenerate group (a tunnelling doublet) are listed one by one: how the
+// group's population splits between them depends on the basis chosen inside the group.
+struct WorkTraces {
+  std::vector<double> time;           // internal time
+  std::vector<double> position_mean;  // internal length, lab frame
+  std::vector<double> energy_mean;    // internal energy
+  Eigen::MatrixXd populations;        // one row per time, one column per level
+  std::string absent;                 // why nothing was recorded (empty when recorded)
+};
+
+// P(n) = sum_m p_m P(m -> n): the final level populations of a run (one per final level).
+std::vector<double> final_populations(const WorkInput& input);
+
 // ---- the driver ----------------------------------------------------------------------------
 
 enum class Integrator { strang, fourth_order, eigenbasis };
@@ -245,6 +270,12 @@ struct WorkRequest {
   int eigenbasis_levels = 0;         // eigenbasis basis size; 0: twice the final levels (the
                                      // final states of H_B need more levels of H_A than L)
   int threads = 1;                   // propagator worker threads (results independent of it)
+  int trace_points = 40;             // WorkTraces of the forward run: about this many points
+                                     // (< 2: none); each costs about one time step and, in the
+                                     // lab frame, one spectrum of trace_levels levels, whose
+                                     // estimated arithmetic (cost.hpp) is kept within 5% of the
+                                     // run's by taking fewer points (at least 9)
+  int trace_levels = 5;              // instantaneous levels whose populations are traced
   std::function<void(double fraction)> progress;  // optional, called with 0..1
   // Optional: called with a new stage's name when the work restarts (run_work's enlargement of
   // the levels); the progress then runs from 0 to 1 again for that stage.
@@ -265,6 +296,7 @@ struct HarmonicComparison {
   double parameter = 0;            // |alpha|^2 or Q*
   bool exact = false;              // the potential is one harmonic term: the reference is exact
   TransitionMatrix reference;      // analytic P(m->n), same shape as the numeric one
+  std::vector<double> initial_weights;  // p_m of the reference (harmonic Gibbs weights at the same beta)
   WorkDistribution distribution;   // harmonic energies, harmonic Gibbs weights at the same beta
   double max_line_difference = 0;  // max |P(m->n) - P_ref(m->n)| by level index
   double mean_work = 0;            // analytic <W>: closed form over all levels for a Gibbs state
@@ -301,6 +333,7 @@ struct WorkResult {
   std::optional<HarmonicComparison> harmonic;
   std::string harmonic_absent;  // why there is no harmonic reference (empty when there is one)
   Diagnostics diagnostics;
+  WorkTraces traces;            // of the forward run (absent says why when empty)
 };
 
 // The whole TPM calculation: grid (automatic or fixed; the lab-frame grid covers the initial,

@@ -432,3 +432,27 @@ TEST_CASE("issue 16: a sweep figure draws log y axes and further panels", "[plot
   f.panels[0].curves = {{"bad", {2, 1}, {0, 0}}};
   CHECK_THROWS_WITH(plot_sweep(folder / "bad", f), Catch::Contains("x must be ascending"));
 }
+
+TEST_CASE("issue 16: walls on a levels figure and stacked panels draw; bad ones are refused", "[plot]") {
+  const fs::path folder = fresh_folder("issue16_walls"), stacks = fresh_folder("issue16_stack");
+  LevelsFigure levels = levels_figure(1);
+  const double left = levels.panels[0].x.front(), right = levels.panels[0].x.back();
+  levels.panels[0].walls = {left, right};
+  check_figure_files(folder / "walls", plot_spectrum(folder / "walls", levels));
+  levels.panels[0].walls = {left, std::nan("")};
+  CHECK_THROWS_WITH(plot_spectrum(folder / "bad_walls", levels), Catch::Contains("wall positions must be finite"));
+
+  StackedFigure stack;
+  stack.title = "traces";
+  stack.x_label = "time t (us)";
+  StackPanel position{"<x> (nm)", {{"<x>(t)", {0, 1, 2, 3}, {0, 0.5, 1.5, 3}}, {"centre", {0, 3}, {0, 3}}}, true};
+  StackPanel step{"trap.frequency (MHz)", {{"sudden", {-1, 0, 0, 1}, {1, 1, 2, 2}}}, false};
+  stack.panels = {position, step};
+  check_figure_files(stacks / "stack", plot_stack(stacks / "stack", stack));
+  stack.panels[1].curves[0].x = {0, 1, 0.5, 2};
+  CHECK_THROWS_WITH(plot_stack(stacks / "bad_stack", stack), Catch::Contains("ascending"));
+  stack.panels.clear();
+  CHECK_THROWS_WITH(plot_stack(stacks / "empty_stack", stack), Catch::Contains("one to six panels"));
+  CHECK(names_in(folder) == std::vector<std::string>{"walls.png", "walls.svg"});  // nothing of the refused ones
+  CHECK(names_in(stacks) == std::vector<std::string>{"stack.png", "stack.svg"});
+}

@@ -100,6 +100,14 @@ TEST_CASE("issue 15: spectrum_task gives the tables and summary the command writ
   CHECK(tables[0].file == "spectrum.csv");
   CHECK(tables[0].table.columns[0].values.size() == 6);
   CHECK(task_summary(o)["levels"].size() == 6);
+  const auto figures = task_figures(o);  // issue 16: spectrum.png, the potential with its levels
+  REQUIRE(figures.size() == 1);
+  CHECK(figures[0].stem == "spectrum");
+  REQUIRE(std::holds_alternative<LevelsFigure>(figures[0].figure));
+  const auto& levels = std::get<LevelsFigure>(figures[0].figure);
+  REQUIRE(levels.panels.size() == 1);
+  CHECK(levels.panels[0].energies.size() == 6);
+  CHECK(levels.panels[0].walls.empty());  // no [box]
   check_files_are_the_outcome(o, "summary.json", "spectrum");
 
   const fs::path dir = trapwork_test::scratch_dir("test-tasks", "spectrum-cli");
@@ -139,11 +147,14 @@ TEST_CASE("issue 15: work_task gives the tables, summary and figures the command
   std::vector<std::string> names;
   for (const auto& t : tables) names.push_back(t.file);
   CHECK(names == std::vector<std::string>{"lines.csv", "histogram.csv", "density.csv", "transition.csv",
-                                          "reverse_lines.csv", "characteristic.csv"});
+                                          "reverse_lines.csv", "characteristic.csv", "traces.csv"});
   const auto figures = task_figures(o);
-  REQUIRE(figures.size() == 2);
+  REQUIRE(figures.size() == 5);
   CHECK(std::holds_alternative<LevelsFigure>(figures[0].figure));
   CHECK(std::holds_alternative<WorkFigure>(figures[1].figure));
+  std::vector<std::string> stems;
+  for (const auto& f : figures) stems.push_back(f.stem);
+  CHECK(stems == std::vector<std::string>{"potential", "work", "protocol", "populations", "traces"});
   CHECK(task_summary(o)["command"] == "trapwork work");
   check_files_are_the_outcome(o, "summary.json", "work");
 
@@ -157,6 +168,79 @@ TEST_CASE("issue 15: work_task gives the tables, summary and figures the command
   std::ostringstream task_report;
   print_task_report(task_report, o);
   CHECK(report.str().rfind(task_report.str(), 0) == 0);
+}
+
+TEST_CASE("issue 16: work's traces.csv, protocol, populations and traces figures on the small shuttle", "[tasks]") {
+  const Scenario s = read_scenario_text(work_text, "tasks.toml");
+  const WorkOutcome o = work_task(s, std::nullopt);
+  const WorkRun run = o.run();
+  const CsvTable t = traces_table(run);
+  std::vector<std::string> columns;
+  for (const auto& c : t.columns) columns.push_back(c.name);
+  CHECK(columns == std::vector<std::string>{"time_us", "position_mean_um", "energy_mean_h_kHz", "population_0",
+                                            "population_1", "population_2", "population_3", "population_4"});
+  const std::size_t rows = t.columns[0].values.size();
+  REQUIRE(rows >= 21);
+  CHECK(rows <= 41);
+  CHECK(t.columns[0].values.front() == 0);
+  CHECK(t.columns[0].values.back() == Approx(1.5));  // duration 1.5 us
+  // <x> starts near the trap centre (0; the quartic term is even) and ends near 30 nm: a
+  // linear ramp of 1.5 us in a 1 MHz trap leaves a lag of at most v / omega = 20 nm/us / (2 pi
+  // MHz) = 3.2 nm (the displaced oscillator, common practice)
+  CHECK(std::abs(t.columns[1].values.front()) < 1e-6);
+  CHECK(std::abs(t.columns[1].values.back() - 0.030) < 0.0035);
+  for (std::size_t i = 0; i < rows; ++i) {
+    double total = 0;
+    for (std::size_t n = 3; n < 8; ++n) {
+      CHECK(t.columns[n].values[i] >= 0);
+      total += t.columns[n].values[i];
+    }
+    CHECK(total <= 1 + 1e-9);
+  }
+  CHECK(task_summary(o)["traces"]["points"] == rows);
+  CHECK(task_summary(o)["traces"]["note"].is_null());
+
+  const auto protocol = protocol_figure(run);
+  REQUIRE(protocol);
+  REQUIRE(protocol->panels.size() == 1);
+  CHECK(protocol->panels[0].y_label == "trap.centre (nm)");
+  CHECK(protocol->x_label == "time t (us)");
+  CHECK(protocol->panels[0].curves[0].y.front() == Approx(0).margin(1e-12));
+  CHECK(protocol->panels[0].curves[0].y.back() == Approx(30));
+  CHECK(protocol->panels[0].curves[0].y[100] == Approx(7.5));  // linear: a quarter of the way at t = tau / 4
+
+  const SweepFigure pop = populations_figure(run);
+  REQUIRE(pop.points.size() == 3);  // numerical, harmonic prediction (displaced oscillator), initial
+  CHECK(pop.points[1].label.find("harmonic prediction") != std::string::npos);
+  const auto final = final_populations(run.result.forward);
+  for (std::size_t n = 0; n < pop.points[0].y.size(); ++n) CHECK(pop.points[0].y[n] == final[n]);
+
+  const auto traces = traces_figure(run);
+  REQUIRE(traces);
+  REQUIRE(traces->panels.size() == 3);
+  CHECK(traces->panels[0].curves.size() == 2);  // <x>(t) and the trap centre
+  CHECK(traces->panels[2].curves.size() == 5);  // five levels
+}
+
+TEST_CASE("issue 16: a sudden switch draws the protocol as a step and has no traces", "[tasks]") {
+  std::string text = work_text;
+  text.replace(text.find("duration = \"1.5 us\""), std::string("duration = \"1.5 us\"").size(), "duration = \"0 us\"");
+  const Scenario s = read_scenario_text(text, "tasks.toml");
+  const WorkOutcome o = work_task(s, std::nullopt);
+  const WorkRun run = o.run();
+  const auto protocol = protocol_figure(run);
+  REQUIRE(protocol);
+  CHECK(protocol->panels[0].curves[0].x == std::vector<double>{-1, 0, 0, 1});
+  CHECK(protocol->panels[0].curves[0].y.front() == Approx(0).margin(1e-12));
+  CHECK(protocol->panels[0].curves[0].y.back() == Approx(30));
+  CHECK_FALSE(traces_figure(run));
+  const CsvTable t = traces_table(run);
+  CHECK(t.columns.size() == 8);
+  CHECK(t.columns[0].values.empty());
+  CHECK(task_summary(o)["traces"]["note"].get<std::string>().find("sudden switch") != std::string::npos);
+  std::vector<std::string> stems;
+  for (const auto& f : task_figures(o)) stems.push_back(f.stem);
+  CHECK(stems == std::vector<std::string>{"potential", "work", "protocol", "populations"});
 }
 
 TEST_CASE("issue 15: work_task with a tolerance checks it and reports the choice", "[tasks]") {

@@ -254,3 +254,52 @@ TEST_CASE("moving walls with mean_phonons: the reverse run starts at the forward
   CHECK(r.crooks->max_ratio_error < 1e-6);
   CHECK(std::abs(r.diagnostics.jarzynski_residual) < 1e-6);
 }
+
+TEST_CASE("issue 16: moving walls: walls drawn, protocol and populations pictured, traces not computed",
+          "[walls][scenario][traces]") {
+  const Scenario s = read_scenario_text(box_scenario("4 ms", "11 um", "smooth"), "walls.toml");
+  const ScenarioWork w = compute_work(s, work_request(s));
+  const WorkRun run = w.run(s);
+  // potential.png: the hard walls at the start (0, 10 um) and at the end (0, 11 um)
+  const LevelsFigure levels = levels_figure(run);
+  REQUIRE(levels.panels.size() == 2);
+  REQUIRE(levels.panels[0].walls.size() == 2);
+  REQUIRE(levels.panels[1].walls.size() == 2);
+  CHECK(levels.panels[0].walls[0] == Approx(0).margin(1e-12));
+  CHECK(levels.panels[0].walls[1] == Approx(10));
+  CHECK(levels.panels[1].walls[1] == Approx(11));
+  // traces.csv: the fixed columns, no rows, and the note; no traces.png
+  const CsvTable t = traces_table(run);
+  REQUIRE(t.columns.size() == 8);
+  CHECK(t.columns[0].name == "time_us");
+  CHECK(t.columns[2].name == "energy_mean_kB_nK");
+  CHECK(t.columns[7].name == "population_4");
+  for (const auto& c : t.columns) CHECK(c.values.empty());
+  bool noted = false;
+  for (const auto& c : t.comments) noted |= c.find("not computed for this path") != std::string::npos;
+  CHECK(noted);
+  CHECK(work_summary(run)["traces"]["note"].get<std::string>().find("not computed for this path") != std::string::npos);
+  std::ostringstream report;
+  print_work_report(report, run);
+  CHECK_THAT(report.str(), Contains("time traces: not computed for this path"));
+  CHECK_FALSE(traces_figure(run));
+  // protocol.png: box.right from 10 to 11 um, smooth ramp over 4 ms
+  const auto protocol = protocol_figure(run);
+  REQUIRE(protocol);
+  REQUIRE(protocol->panels.size() == 1);
+  const SweepCurve& right = protocol->panels[0].curves.at(0);
+  CHECK(right.label == "box.right");
+  CHECK(protocol->panels[0].y_label == "box.right (um)");
+  CHECK(protocol->x_label == "time t (ms)");
+  CHECK(right.x.back() == Approx(4));
+  CHECK(right.y.front() == Approx(10));
+  CHECK(right.y.back() == Approx(11));
+  CHECK(right.y[200] == Approx(10.5));  // the smooth ramp's midpoint
+  // populations.png: the final populations shown sum to 1 up to the levels left out (each below
+  // 1e-4 of the largest population) and the unresolved weight
+  const SweepFigure pop = populations_figure(run);
+  double total = 0;
+  for (double p : pop.points.at(0).y) total += p;
+  CHECK(total == Approx(1).epsilon(1e-3));
+  CHECK(total <= 1 + 1e-12);
+}

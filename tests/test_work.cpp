@@ -340,3 +340,125 @@ TEST_CASE("issue 16: harmonic_moments gives the harmonic <W> and sd W without a 
   CHECK_FALSE(harmonic_moments(tweezer, move, InitialState::thermal(0.5), why));
   CHECK(why.find("no harmonic") != std::string::npos);
 }
+
+// ---- issue 16: time traces of the forward run --------------------------------------------------
+
+namespace {
+// Gibbs weights (1 - e^{-beta omega}) e^{-beta omega n} of the lowest `levels` oscillator levels
+// (textbook; normalised over all levels).
+std::vector<double> oscillator_weights(double omega, double beta, int levels) {
+  std::vector<double> p;
+  for (int n = 0; n < levels; ++n) p.push_back(-std::expm1(-beta * omega) * std::exp(-beta * omega * n));
+  return p;
+}
+}  // namespace
+
+TEST_CASE("issue 16: traces of a harmonic trap at rest stay at the centre and thermal", "[work][traces]") {
+  const Potential base({Term("trap", Shape::harmonic, {{"frequency", 1.0}})});
+  WorkRequest request;
+  request.initial = InitialState::thermal(2.0);  // beta: about 12 levels kept
+  request.time_step_check = false;
+  request.reverse_run = false;
+  request.spectrum.options.method = EigenMethod::dense;
+  const double tau = 3.0;
+  // A centre held still is a translation (co-moving frame, its levels carried along); a
+  // frequency held still is not (lab frame, a spectrum solved at each observation point).
+  for (const auto& held : {Schedule::constant("trap.centre", 0), Schedule::constant("trap.frequency", 1)}) {
+    INFO(held.address());
+    const WorkResult r = run_work(base, Protocol(tau, {held}), request);
+    const WorkTraces& t = r.traces;
+    CHECK(t.absent.empty());
+    // 40 points asked for (about 40 in the co-moving frame; in the lab frame at least 9, fewer
+    // where the spectra would cost more than 5% of the run)
+    REQUIRE(t.time.size() >= (held.address() == "trap.centre" ? 21u : 9u));
+    CHECK(t.time.size() <= 41);
+    CHECK(t.time.front() == 0);
+    CHECK(t.time.back() == tau);
+    REQUIRE(t.populations.cols() == request.trace_levels);
+    const auto thermal = oscillator_weights(1.0, 2.0, request.trace_levels);
+    const double e0 = t.energy_mean.front();
+    // The thermal energy of the oscillator, (1/2) coth(beta omega / 2) (textbook), to the left-out
+    // thermal weight (1e-10) times the energies of the levels left out.
+    CHECK(std::abs(e0 - 0.5 / std::tanh(1.0)) < 1e-8);
+    for (std::size_t k = 0; k < t.time.size(); ++k) {
+      // A stationary state stays stationary: the automatic step's line errors are ~1e-9
+      // (work.cpp's choice of phase per step); 1e-7 leaves a margin of 100.
+      CHECK(std::abs(t.position_mean[k]) < 1e-7);
+      CHECK(std::abs(t.energy_mean[k] - e0) < 1e-7 * e0);
+      for (int n = 0; n < request.trace_levels; ++n)
+        CHECK(std::abs(t.populations(Eigen::Index(k), n) - thermal[std::size_t(n)]) < 1e-7);
+    }
+  }
+}
+
+TEST_CASE("issue 16: <x>(t) and <H>(t) of a translated harmonic trap follow the displaced oscillator",
+          "[work][traces]") {
+  // Harmonic trap omega = 1 moved at constant speed v = D / tau. For a harmonic trap the mean
+  // position obeys the classical equation x'' = -omega^2 (x - d(t)) exactly (Ehrenfest; the
+  // displaced-oscillator dynamics, common practice), so with x(0) = x'(0) = 0:
+  //   x(t) = v (t - sin(omega t) / omega),  x'(t) = v (1 - cos(omega t)),
+  // the known lag x - d = -(v / omega) sin(omega t) behind the centre; and the energy is the
+  // thermal energy plus that of the centroid's motion relative to the trap:
+  //   <H(t)> = <H(0)> + x'^2 / 2 + omega^2 (x - d)^2 / 2.
+  const Potential base({Term("trap", Shape::harmonic, {{"frequency", 1.0}})});
+  const double tau = 5.0, distance = 3.0, v = distance / tau;
+  WorkRequest request;
+  request.initial = InitialState::thermal(2.0);
+  request.time_step_check = false;
+  request.reverse_run = false;
+  request.spectrum.options.method = EigenMethod::dense;
+  for (bool co_moving : {true, false}) {
+    INFO("co-moving frame: " << co_moving);
+    request.co_moving = co_moving;
+    const WorkResult r = run_work(base, Protocol(tau, {Schedule::linear("trap.centre", 0, distance)}), request);
+    const WorkTraces& t = r.traces;
+    REQUIRE(t.time.size() >= 9);
+    const double e0 = t.energy_mean.front();
+    for (std::size_t k = 0; k < t.time.size(); ++k) {
+      const double s = t.time[k], x = v * (s - std::sin(s)), rate = v * (1 - std::cos(s)), d = v * s;
+      CHECK(std::abs(t.position_mean[k] - x) < 1e-6 * distance);
+      CHECK(std::abs(t.energy_mean[k] - (e0 + 0.5 * rate * rate + 0.5 * (x - d) * (x - d))) < 1e-6 * e0);
+      const double total = t.populations.row(Eigen::Index(k)).sum();
+      CHECK(total <= 1 + 1e-9);
+    }
+    // at t = tau the populations are those of the final levels, P(n) = sum_m p_m P(m -> n)
+    const auto final = final_populations(r.forward);
+    for (int n = 0; n < request.trace_levels; ++n)
+      CHECK(std::abs(t.populations(t.populations.rows() - 1, n) - final[std::size_t(n)]) < 1e-9);
+  }
+}
+
+TEST_CASE("issue 16: traces of a frequency ramp end on the final populations; eigenbasis agrees", "[work][traces]") {
+  const Potential base({Term("trap", Shape::harmonic, {{"frequency", 1.0}})});
+  const Protocol ramp(3.0, {Schedule::linear("trap.frequency", 1, 1.6)});
+  WorkRequest request;
+  request.initial = InitialState::thermal(2.0);
+  request.time_step_check = false;
+  request.reverse_run = false;
+  request.spectrum.options.method = EigenMethod::dense;
+  const WorkResult r = run_work(base, ramp, request);
+  const WorkTraces& t = r.traces;
+  REQUIRE(t.time.size() >= 9);
+  const auto final = final_populations(r.forward);
+  const Eigen::Index last = t.populations.rows() - 1;
+  for (int n = 0; n < request.trace_levels; ++n) {
+    CHECK(std::abs(t.populations(last, n) - final[std::size_t(n)]) < 1e-12);  // the same projection
+    CHECK(std::abs(t.populations(0, n) - r.forward.initial_weights[std::size_t(n)]) < 1e-12);
+  }
+  // <H(tau)> - <H(0)> is the direct <W> (same states, same H_B; the cap on V far above the
+  // energy range does not touch these states)
+  CHECK(std::abs((t.energy_mean.back() - t.energy_mean.front()) - r.diagnostics.moments.mean_direct) < 1e-9);
+  for (double x : t.position_mean) CHECK(std::abs(x) < 1e-7);  // a symmetric trap stays centred
+
+  request.integrator = Integrator::eigenbasis;
+  const WorkResult e = run_work(base, ramp, request);
+  REQUIRE(e.traces.time.size() >= 9);
+  CHECK(e.traces.time.back() == 3.0);
+  for (int n = 0; n < request.trace_levels; ++n)  // two integrators, each accurate to ~1e-8
+    CHECK(std::abs(e.traces.populations(e.traces.populations.rows() - 1, n) - t.populations(last, n)) < 1e-6);
+  CHECK(std::abs(e.traces.energy_mean.back() - t.energy_mean.back()) < 1e-6);
+
+  const WorkResult sudden = run_work(base, Protocol(0, {Schedule::linear("trap.frequency", 1, 1.6)}), request);
+  CHECK(sudden.traces.time.empty());
+  CHECK(sudden.traces.absent.find("sudden") != std::string::npos);
+}

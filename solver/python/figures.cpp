@@ -67,6 +67,7 @@ py::dict figure_dict(const LevelsFigure& f) {
     py::list densities;
     for (const auto& rho : p.densities) densities.append(array(rho));
     panel["densities"] = densities;
+    panel["walls"] = array(p.walls);
     panels.append(panel);
   }
   d["panels"] = panels;
@@ -165,6 +166,31 @@ py::dict figure_dict(const ComparisonFigure& f) {
   d["curve"] = array(f.curve);
   d["model_mean"] = optional(f.model_mean);
   d["data_mean"] = optional(f.data_mean);
+  return d;
+}
+
+py::dict figure_dict(const StackedFigure& f) {
+  py::dict d;
+  d["kind"] = "stack";
+  d["title"] = f.title;
+  d["x_label"] = f.x_label;
+  py::list panels;
+  for (const auto& p : f.panels) {
+    py::dict panel;
+    panel["y_label"] = p.y_label;
+    py::list curves;
+    for (const auto& c : p.curves) {
+      py::dict e;
+      e["label"] = c.label;
+      e["x"] = array(c.x);
+      e["y"] = array(c.y);
+      curves.append(e);
+    }
+    panel["curves"] = curves;
+    panel["markers"] = p.markers;
+    panels.append(panel);
+  }
+  d["stack"] = panels;
   return d;
 }
 

@@ -12,5 +12,6 @@ pybind11::dict figure_dict(const trapwork::LevelsFigure& f);
 pybind11::dict figure_dict(const trapwork::WorkFigure& f);
 pybind11::dict figure_dict(const trapwork::SweepFigure& f);
 pybind11::dict figure_dict(const trapwork::ComparisonFigure& f);
+pybind11::dict figure_dict(const trapwork::StackedFigure& f);
 
 }  // namespace trapwork_python

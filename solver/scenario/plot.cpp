@@ -548,6 +548,8 @@ void validate_levels(const LevelsFigure& f) {
     if (p.densities.size() > p.energies.size())
       bad_data(name, where + ": more densities than energies");
     for (const auto& d : p.densities) check_same_size(name, where + " x and density", p.x, d);
+    for (double w : p.walls)
+      if (!std::isfinite(w)) bad_data(name, where + ": wall positions must be finite");
   }
 }
 
@@ -594,6 +596,8 @@ void draw_levels_panel(const LevelsPanel& p, const LevelsFigure& f, const Panel&
     for (auto [a, b] : allowed_intervals(p.x, p.potential, e)) pljoin(a, e, b, e);
   pen(ink, 2.6);
   draw_line(p.x, p.potential);
+  pen(ink, 6.0);
+  for (double w : p.walls) pljoin(w, frame.y_lo, w, frame.y_hi);
 }
 
 std::vector<fs::path> draw_levels(const fs::path& stem, const LevelsFigure& f) {
@@ -617,6 +621,13 @@ std::vector<fs::path> draw_levels(const fs::path& stem, const LevelsFigure& f) {
     Range xr = allowed.padded(0.3);
     xr.lo = std::max(xr.lo, p.x.front());
     xr.hi = std::min(xr.hi, p.x.back());
+    if (!p.walls.empty()) {  // the walls inside the panel, with a margin beyond them
+      Range walls;
+      walls.add(p.walls);
+      walls = walls.padded(0.04);
+      xr.lo = std::min(xr.lo, walls.lo);
+      xr.hi = std::max(xr.hi, walls.hi);
+    }
     if (f.x_min) xr.lo = *f.x_min;
     if (f.x_max) xr.hi = *f.x_max;
     if (!(xr.lo < xr.hi)) bad_data("plot_levels", "x range is empty");
@@ -638,6 +649,8 @@ std::vector<fs::path> draw_levels(const fs::path& stem, const LevelsFigure& f) {
   std::vector<LegendEntry> legend = {
       line_entry("potential V(x)", ink, solid, 2.6),
       line_entry("levels E#dn#u (where V < E#dn#u)", orange, solid, 2.0)};
+  if (std::any_of(f.panels.begin(), f.panels.end(), [](const LevelsPanel& p) { return !p.walls.empty(); }))
+    legend.push_back(line_entry("hard walls", ink, solid, 6.0));
   if (std::any_of(f.panels.begin(), f.panels.end(),
                   [](const LevelsPanel& p) { return !p.densities.empty(); }))
     legend.push_back({"|ψ#dn#u(x)|#u2#d (scaled)",
@@ -1290,7 +1303,83 @@ std::vector<fs::path> draw_sweep(const fs::path& stem, const SweepFigure& f) {
   });
 }
 
+// ---- (e) stacked panels over one x ---------------------------------------------------------
+
+constexpr std::array<PLINT, 7> stack_colours = {ink, blue, orange, green, red, purple, grey};
+
+std::vector<fs::path> draw_stack(const fs::path& stem, const StackedFigure& f) {
+  const std::string name = "plot_stack";
+  if (f.panels.empty() || f.panels.size() > 6) bad_data(name, "needs one to six panels");
+  Range xr;
+  std::vector<Range> yr(f.panels.size());
+  std::vector<std::vector<LegendEntry>> legends(f.panels.size());
+  std::vector<int> rows(f.panels.size());
+  double legend_height = 0;
+  for (std::size_t i = 0; i < f.panels.size(); ++i) {
+    const StackPanel& p = f.panels[i];
+    if (p.curves.empty()) bad_data(name, "panel '" + p.y_label + "': nothing to draw");
+    for (std::size_t k = 0; k < p.curves.size(); ++k) {
+      const SweepCurve& c = p.curves[k];
+      check_same_size(name, "curve '" + c.label + "' x and y", c.x, c.y);
+      if (!std::is_sorted(c.x.begin(), c.x.end())) bad_data(name, "curve '" + c.label + "': x must be ascending");
+      xr.add(c.x);
+      yr[i].add(c.y);
+      LegendEntry e = line_entry(c.label, stack_colours[k % 7], solid, 2.2);
+      if (p.markers) {
+        e.kind |= PL_LEGEND_SYMBOL;
+        e.symbol = "●";
+      }
+      legends[i].push_back(e);
+    }
+    if (!yr[i].valid()) yr[i] = {0, 1};  // a panel of NaN only (nothing computed): an empty frame
+    yr[i] = yr[i].padded(0.08);
+    rows[i] = legend_rows(legends[i], 0.86, 1);
+    legend_height += rows[i] * legend_row_height + 0.02;
+  }
+  if (!xr.valid()) bad_data(name, "no finite x values");
+  xr = xr.padded(0.02);
+  const double top = f.title.empty() ? 0.93 : 0.89, bottom = 0.09;
+  const double gap = 0.015, n = static_cast<double>(f.panels.size());
+  const double height = (top - bottom - legend_height - gap * (n - 1)) / n;
+  if (!(height > 0.05)) bad_data(name, "too many legend rows for the panels");
+  return write_png_and_svg(stem, [&] {
+    figure_title(f.title);
+    double y = top;
+    for (std::size_t i = 0; i < f.panels.size(); ++i) {
+      const StackPanel& p = f.panels[i];
+      const double legend_bottom = y - rows[i] * legend_row_height;
+      const double panel_top = legend_bottom - 0.02;
+      Panel frame{{0.11, 0.97, panel_top - height, panel_top}, xr.lo, xr.hi, yr[i].lo, yr[i].hi};
+      frame.x_numbers = i + 1 == f.panels.size();  // one x axis: numbers under the lowest panel
+      const double distance = draw_frame(frame);
+      label_left(p.y_label, distance);
+      if (i + 1 == f.panels.size()) label_bottom(f.x_label);
+      for (std::size_t k = 0; k < p.curves.size(); ++k) {
+        pen(stack_colours[k % 7], 2.2);
+        draw_line(p.curves[k].x, p.curves[k].y);
+        if (p.markers) {
+          plschr(0, 0.55);
+          Vec mx, my;
+          for (std::size_t j = 0; j < p.curves[k].x.size(); ++j)
+            if (std::isfinite(p.curves[k].y[j])) {
+              mx.push_back(p.curves[k].x[j]);
+              my.push_back(p.curves[k].y[j]);
+            }
+          if (!mx.empty()) plstring(static_cast<PLINT>(mx.size()), mx.data(), my.data(), "●");
+          plschr(0, text_scale);
+        }
+      }
+      draw_legend_above(legends[i], frame.viewport, legend_bottom, rows[i]);
+      y = panel_top - height - gap;
+    }
+  });
+}
+
 }  // namespace
+
+std::vector<fs::path> plot_stack(const fs::path& stem, const StackedFigure& figure) {
+  return draw_stack(stem, figure);
+}
 
 std::vector<fs::path> plot_levels(const fs::path& stem, const LevelsFigure& figure) {
   return draw_levels(stem, figure);

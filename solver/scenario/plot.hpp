@@ -36,6 +36,9 @@ struct LevelsPanel {
   // next level that is not near-degenerate with it (the gap below, for the highest level),
   // at most that times the mean level spacing, and drawn on its level line.
   std::vector<std::vector<double>> densities;
+  // Hard walls (a [box]) at these positions (x unit), drawn as thick vertical lines over the
+  // whole energy range; empty for none.
+  std::vector<double> walls;
 };
 
 struct LevelsFigure {
@@ -175,6 +178,23 @@ struct SweepFigure {
 
 std::vector<std::filesystem::path> plot_sweep(const std::filesystem::path& stem,
                                               const SweepFigure& figure);
+
+// ---- several quantities against one x (time traces, protocol schedules) ---------------------
+
+// One panel of a StackedFigure: curves (SweepCurve: ascending x, a vertical step where two
+// successive x are equal) in the colours ink, blue, orange, green, red, purple, grey in turn.
+struct StackPanel {
+  std::string y_label;               // with its unit, e.g. "<x> (nm)"
+  std::vector<SweepCurve> curves;
+  bool markers = false;              // a marker at every curve point (the observation points)
+};
+struct StackedFigure {
+  std::string title;
+  std::string x_label;               // shared x axis, e.g. "time t (us)"
+  std::vector<StackPanel> panels;    // 1 to 6, top to bottom; x range shared (union of curves)
+};
+// The panels stacked over one x axis, each with its legend above it.
+std::vector<std::filesystem::path> plot_stack(const std::filesystem::path& stem, const StackedFigure& figure);
 
 // ---- measured data against a model (trapwork compare) -----------------------------------------
 

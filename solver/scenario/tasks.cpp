@@ -26,6 +26,7 @@ std::vector<fs::path> write_figure(const fs::path& folder, const NamedFigure& fi
         if constexpr (std::is_same_v<F, LevelsFigure>) return plot_levels(stem, f);
         else if constexpr (std::is_same_v<F, WorkFigure>) return plot_work(stem, f);
         else if constexpr (std::is_same_v<F, SweepFigure>) return plot_sweep(stem, f);
+        else if constexpr (std::is_same_v<F, StackedFigure>) return plot_stack(stem, f);
         else return plot_comparison(stem, f);
       },
       figure.figure);
@@ -139,11 +140,15 @@ nlohmann::ordered_json task_summary(const SpectrumOutcome& o) {
   return with_provenance(spectrum_summary(o.scenario, o.result), o.scenario);
 }
 std::vector<NamedText> task_texts(const SpectrumOutcome&) { return {}; }
-std::vector<NamedFigure> task_figures(const SpectrumOutcome&) { return {}; }
+std::vector<NamedFigure> task_figures(const SpectrumOutcome& o) {
+  return {{"spectrum", spectrum_figure(o.scenario, o.result)}};
+}
 std::vector<fs::path> write_task_outputs(const fs::path& folder, const SpectrumOutcome& o) {
   return write_outputs(folder, task_tables(o), "summary.json", task_summary(o), task_texts(o), task_figures(o));
 }
-std::vector<std::string> spectrum_output_names() { return {"spectrum.csv", "states.csv", "summary.json"}; }
+std::vector<std::string> spectrum_output_names() {
+  return {"spectrum.csv", "states.csv", "summary.json", "spectrum.png", "spectrum.svg"};
+}
 void print_task_report(std::ostream& out, const SpectrumOutcome& o) { print_spectrum_report(out, o.scenario, o.result); }
 
 // ---- work ----------------------------------------------------------------------------------

@@ -43,7 +43,7 @@ struct NamedTable {
   std::string file;  // "lines.csv"
   CsvTable table;
 };
-using FigureData = std::variant<LevelsFigure, WorkFigure, SweepFigure, ComparisonFigure>;
+using FigureData = std::variant<LevelsFigure, WorkFigure, SweepFigure, ComparisonFigure, StackedFigure>;
 struct NamedFigure {
   std::string stem;  // "work": work.png and work.svg
   FigureData figure;
@@ -222,7 +222,7 @@ std::vector<std::string> plan_output_names();  // plan.csv, plan_summary.json, p
 // task_tables: the CSV files' tables, in file order; task_summary: the summary JSON file's
 // content (summary.json, fit_summary.json, compare_summary.json, plan_summary.json; the sweep's:
 // sweep_summary.json, a small summary the command line does not write); task_texts: other files; task_figures: the
-// figures' data (none for spectrum and fit). write_task_outputs writes exactly these into
+// figures' data (none for fit). write_task_outputs writes exactly these into
 // `folder` (created if missing; everything assembled before the first file is opened, each file
 // written atomically) and returns the paths in the order the command line reports them;
 // <command>_output_names(): every name it may write (for OutputRun). print_task_report: the

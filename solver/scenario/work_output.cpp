@@ -851,10 +851,42 @@ json work_summary(const WorkRun& run) {
         {"estimated_memory_bytes", g.estimated_bytes},        // before the propagation (solver/cost.hpp)
         {"estimated_operations", g.estimated_operations},
         {"checks", checks}}},
+      {"traces", {{"points", run.result.traces.time.size()},
+                  {"levels", run.result.traces.populations.cols()},
+                  {"note", traces_absent(run).empty() ? json(nullptr) : json(traces_absent(run))}}},
       {"warnings", work_warnings(run)},
       {"notes", r.diagnostics.notes},
   };
 }
+
+namespace {
+// One panel of potential.png / spectrum.png: V on the spectrum's grid shifted by `shift`, the
+// lowest `shown` levels, the densities of the lowest four and the walls of a hard-walled grid.
+LevelsPanel levels_panel(const Scenario& s, const LengthUnit& lu, const std::string& title, const Potential& v,
+                         const Spectrum& sp, double shift, int shown) {
+  const Display d = display(s);
+  LevelsPanel p;
+  p.title = title;
+  const auto x = sp.grid.points();
+  std::vector<double> xs(x);
+  for (double& xi : xs) xi += shift;
+  const auto values = v.evaluate(xs);
+  for (std::size_t j = 0; j < xs.size(); ++j) {
+    p.x.push_back(xs[j] / lu.internal_per_unit);
+    p.potential.push_back(d.energy(values[j]));
+  }
+  const int n = std::min<int>(shown, int(sp.energies.size()));
+  for (int k = 0; k < n; ++k) p.energies.push_back(d.energy(sp.energies[k]));
+  for (int k = 0; k < std::min(n, 4); ++k) {
+    std::vector<double> rho(xs.size());
+    for (std::size_t j = 0; j < xs.size(); ++j) rho[j] = sp.states(Eigen::Index(j), k) * sp.states(Eigen::Index(j), k);
+    p.densities.push_back(std::move(rho));
+  }
+  if (sp.grid.boundary() == Boundary::hard_wall)
+    p.walls = {(sp.grid.left() + shift) / lu.internal_per_unit, (sp.grid.right() + shift) / lu.internal_per_unit};
+  return p;
+}
+}  // namespace
 
 // potential.png: the initial and final potentials with their lowest levels and the first
 // densities, in the lab frame.
@@ -865,24 +897,7 @@ LevelsFigure levels_figure(const WorkRun& run) {
   const int kept = r.forward.transitions.initial_levels();
   const int shown = std::min<int>(12, std::max(kept + 2, 6));
   auto panel = [&](const std::string& title, const Potential& v, const Spectrum& sp, double shift) {
-    LevelsPanel p;
-    p.title = title;
-    const auto x = sp.grid.points();
-    std::vector<double> xs(x);
-    for (double& xi : xs) xi += shift;
-    const auto values = v.evaluate(xs);
-    for (std::size_t j = 0; j < xs.size(); ++j) {
-      p.x.push_back(xs[j] / lu.internal_per_unit);
-      p.potential.push_back(d.energy(values[j]));
-    }
-    const int n = std::min<int>(shown, int(sp.energies.size()));
-    for (int k = 0; k < n; ++k) p.energies.push_back(d.energy(sp.energies[k]));
-    for (int k = 0; k < std::min(n, 4); ++k) {
-      std::vector<double> rho(xs.size());
-      for (std::size_t j = 0; j < xs.size(); ++j) rho[j] = sp.states(Eigen::Index(j), k) * sp.states(Eigen::Index(j), k);
-      p.densities.push_back(std::move(rho));
-    }
-    return p;
+    return levels_panel(run.scenario, lu, title, v, sp, shift, shown);
   };
   LevelsFigure f;
   f.title = "potential, levels and |ψ#dn#u|#u2#d at the start and the end of the protocol";
@@ -939,10 +954,214 @@ WorkFigure work_figure(const WorkRun& run) {
   return f;
 }
 
+LevelsFigure spectrum_figure(const Scenario& s, const SpectrumResult& result) {
+  const Display d = display(s);
+  const LengthUnit lu = length_unit(s, result.spectrum.grid);
+  LevelsFigure f;
+  f.title = "potential, levels and |ψ#dn#u|#u2#d of the lowest four";
+  f.x_label = "position x (" + lu.name + ")";
+  f.energy_label = "energy E (" + d.e + ")";
+  f.panels.push_back(levels_panel(s, lu, "", s.potential, result.spectrum, 0, 12));  // as potential.png
+  return f;
+}
+
+namespace {
+// A scheduled value's display unit: name and the internal value of one unit.
+struct ShownUnit {
+  std::string name;
+  double internal_per_unit = 1;
+};
+ShownUnit shown_unit(const WorkRun& run, const Dimension& dim, double largest) {
+  const Scenario& s = run.scenario;
+  if (dim == Dimension::none()) return {"", 1};
+  if (dim == Dimension::energy()) return {display(s).e, display(s).energy_per};
+  if (dim == Dimension::length()) {
+    const LengthUnit lu = length_unit(s, run.result.grid);
+    return {lu.name, lu.internal_per_unit};
+  }
+  const double si_per_internal = s.units.to_si(1.0, dim);
+  if (dim == Dimension::time()) return {"us", 1e-6 / si_per_internal};
+  if (dim == Dimension::frequency()) {  // ordinary frequency
+    const double hz = std::abs(largest * si_per_internal);
+    return hz >= 1e6 ? ShownUnit{"MHz", 1e6 / si_per_internal} : ShownUnit{"kHz", 1e3 / si_per_internal};
+  }
+  return {si_unit(dim), 1 / si_per_internal};
+}
+
+// The time axis of a run's pictures: the unit protocol.duration was written in (us by default).
+ShownUnit time_unit(const WorkRun& run) {
+  const std::string u = duration_unit(run.scenario);
+  const double per = u == "ns" ? 1e-9 : u == "ms" ? 1e-3 : u == "s" ? 1.0 : 1e-6;
+  return {u == "ns" || u == "ms" || u == "s" ? u : "us", per / run.scenario.units.to_si(1.0, Dimension::time())};
+}
+}  // namespace
+
+std::optional<StackedFigure> protocol_figure(const WorkRun& run) {
+  const Scenario& s = run.scenario;
+  if (!s.protocol || s.protocol->changes.empty()) return std::nullopt;
+  const double tau = run.protocol.duration();
+  std::optional<WallProtocol> walls;
+  if (moves_walls(s)) walls = build_wall_protocol(s);
+  const ShownUnit tu = time_unit(run);
+  std::vector<double> times;  // internal
+  if (tau > 0)
+    for (int i = 0; i <= 400; ++i) times.push_back(tau * i / 400.0);
+  StackedFigure f;
+  f.title = tau > 0 ? "protocol: the scheduled parameters against time"
+                    : "protocol: a sudden switch at t = 0 (drawn as a step; the time axis has no scale)";
+  f.x_label = "time t (" + tu.name + ")";
+  std::vector<Dimension> dims;
+  for (const ChangeSpec& c : s.protocol->changes) {
+    const Schedule* schedule = nullptr;
+    for (const auto& sc : run.protocol.schedules())
+      if (sc.address() == c.parameter) schedule = &sc;
+    if (!schedule && walls) schedule = c.parameter == "box.left" ? &walls->left() : c.parameter == "box.right" ? &walls->right() : nullptr;
+    if (!schedule) continue;
+    SweepCurve curve;
+    curve.label = c.parameter;
+    std::vector<double> values;
+    if (tau > 0) {
+      for (double t : times) values.push_back(schedule->evaluate(t, tau).value);
+      for (double t : times) curve.x.push_back(t / tu.internal_per_unit);
+    } else {
+      const double a = schedule->initial_value(0), b = schedule->final_value(0);
+      values = {a, a, b, b};
+      curve.x = {-1, 0, 0, 1};
+    }
+    double largest = 0;
+    for (double v : values) largest = std::max(largest, std::abs(v));
+    const ShownUnit u = shown_unit(run, c.dimension, largest);
+    for (double v : values) curve.y.push_back(conversion_rounded(v / u.internal_per_unit));
+    std::size_t k = 0;
+    while (k < dims.size() && !(dims[k] == c.dimension)) ++k;
+    if (k == dims.size()) {
+      if (dims.size() == 6) continue;  // plot_stack draws at most six panels
+      dims.push_back(c.dimension);
+      f.panels.push_back({u.name.empty() ? "value" : "value (" + u.name + ")", {}, false});
+    }
+    if (f.panels[k].curves.empty()) f.panels[k].y_label = c.parameter + (u.name.empty() ? "" : " (" + u.name + ")");
+    else f.panels[k].y_label = "value (" + u.name + ")";
+    f.panels[k].curves.push_back(std::move(curve));
+  }
+  if (f.panels.empty()) return std::nullopt;
+  return f;
+}
+
+SweepFigure populations_figure(const WorkRun& run) {
+  const WorkResult& r = run.result;
+  const std::vector<double> final = final_populations(r.forward);
+  std::vector<double> reference;
+  if (r.harmonic && r.harmonic->initial_weights.size() == std::size_t(r.harmonic->reference.initial_levels()))
+    reference = final_populations({r.harmonic->reference, {}, {}, r.harmonic->initial_weights, {}, {}, std::nullopt});
+  // levels up to the last holding 1e-4 of the largest population (at least 5)
+  double top = 0;
+  for (double p : final) top = std::max(top, p);
+  for (double p : reference) top = std::max(top, p);
+  std::size_t shown = std::min<std::size_t>(5, final.size());
+  for (std::size_t n = 0; n < final.size(); ++n)
+    if (final[n] >= 1e-4 * top || (n < reference.size() && reference[n] >= 1e-4 * top)) shown = std::max(shown, n + 1);
+  SweepFigure f;
+  f.title = "level populations: final P(n) = Σ#dm#u p#dm#u P(m→n) and initial p#dn#u";
+  // The three series side by side at each n (initial n - 0.25, harmonic n + 0.25), so that
+  // markers of equal values do not hide each other.
+  f.x_label = std::string("level n of H_B (final) or H_A (initial p#dn#u, drawn at n - 0.25") +
+              (reference.empty() ? ")" : "; harmonic at n + 0.25)");
+  f.y_label = "population";
+  SweepPoints numeric{"final P(n), numerical", {}, {}, {}}, initial{"initial p#dn#u", {}, {}, {}};
+  for (std::size_t n = 0; n < shown; ++n) {
+    numeric.x.push_back(double(n));
+    numeric.y.push_back(final[n]);
+  }
+  for (std::size_t n = 0; n < std::min(shown, r.forward.initial_weights.size()); ++n) {
+    initial.x.push_back(double(n) - 0.25);
+    initial.y.push_back(r.forward.initial_weights[n]);
+  }
+  f.points.push_back(std::move(numeric));
+  if (!reference.empty()) {
+    SweepPoints h{"final P(n), harmonic prediction (" + r.harmonic->model + ")", {}, {}, {}};
+    for (std::size_t n = 0; n < std::min(shown, reference.size()); ++n) {
+      h.x.push_back(double(n) + 0.25);
+      h.y.push_back(reference[n]);
+    }
+    f.points.push_back(std::move(h));
+  }
+  f.points.push_back(std::move(initial));
+  return f;
+}
+
+std::string traces_absent(const WorkRun& run) {
+  if (!run.result.traces.time.empty()) return "";
+  if (run.walls) return "not computed for this path (moving walls: the run propagates on the dilated box)";
+  return run.result.traces.absent.empty() ? "not computed for this path" : run.result.traces.absent;
+}
+
+CsvTable traces_table(const WorkRun& run) {
+  const Display d = display(run.scenario);
+  const WorkTraces& tr = run.result.traces;
+  CsvTable t;
+  t.columns = {{"time_us", {}}, {"position_mean_um", {}}, {"energy_mean" + d.e_col, {}}};
+  for (int n = 0; n < trace_columns_levels; ++n) t.columns.push_back({"population_" + std::to_string(n), {}});
+  for (std::size_t i = 0; i < tr.time.size(); ++i) {
+    t.columns[0].values.push_back(duration_us(run.scenario, tr.time[i]));
+    t.columns[1].values.push_back(d.length(tr.position_mean[i]));
+    t.columns[2].values.push_back(d.energy(tr.energy_mean[i]));
+    for (int n = 0; n < trace_columns_levels; ++n)
+      t.columns[std::size_t(3 + n)].values.push_back(n < tr.populations.cols() ? tr.populations(Eigen::Index(i), n)
+                                                                               : nan_value);
+  }
+  t.comments = {"trapwork work: time traces of the forward run at its observation points, averages over the propagated "
+                "initial states with their initial weights p_m (thermal averages for a Gibbs state), lab frame",
+                "position_mean: sum_m p_m <psi_m|x|psi_m>; energy_mean: sum_m p_m <psi_m|H(t)|psi_m>; population_n: "
+                "sum_m p_m |<n(t)|psi_m(t)>|^2, n(t) the instantaneous eigenstates of H(t) on the grid (nan: the "
+                "spectrum holds fewer levels)"};
+  if (const std::string why = traces_absent(run); !why.empty()) t.comments.push_back("time traces " + why);
+  return t;
+}
+
+std::optional<StackedFigure> traces_figure(const WorkRun& run) {
+  const WorkTraces& tr = run.result.traces;
+  if (tr.time.empty()) return std::nullopt;
+  const Display d = display(run.scenario);
+  const LengthUnit lu = length_unit(run.scenario, run.result.grid);
+  const ShownUnit tu = time_unit(run);
+  std::vector<double> t;
+  for (double ti : tr.time) t.push_back(ti / tu.internal_per_unit);
+  StackedFigure f;
+  f.title = "time traces: averages over the propagated initial states with their weights";
+  f.x_label = "time t (" + tu.name + ")";
+  StackPanel x{"<x> (" + lu.name + ")", {}, true}, e{"<H(t)> (" + d.e + ")", {}, true}, p{"population", {}, true};
+  // <x> below 1e-9 of the grid's length is rounding (a centred state, ~1e-15 um), drawn as 0 so that
+  // the panel does not blow the noise up to full height (traces.csv keeps the numbers)
+  SweepCurve xc{"<x>(t)", t, {}};
+  for (double v : tr.position_mean) xc.y.push_back(std::abs(v) < 1e-9 * run.result.grid.length() ? 0.0 : v / lu.internal_per_unit);
+  x.curves.push_back(std::move(xc));
+  if (const auto translation = run.protocol.translation(run.scenario.potential)) {
+    const Schedule* centre = nullptr;
+    for (const auto& sc : run.protocol.schedules())
+      if (sc.address() == translation->addresses.front()) centre = &sc;
+    if (centre) {
+      SweepCurve c{"trap centre (" + centre->address() + ")", t, {}};
+      for (double ti : tr.time) c.y.push_back(centre->evaluate(ti, run.protocol.duration()).value / lu.internal_per_unit);
+      x.curves.push_back(std::move(c));
+    }
+  }
+  SweepCurve ec{"<H(t)>", t, {}};
+  for (double v : tr.energy_mean) ec.y.push_back(d.energy(v));
+  e.curves.push_back(std::move(ec));
+  for (Eigen::Index n = 0; n < tr.populations.cols(); ++n) {
+    SweepCurve c{"level " + std::to_string(n), t, {}};
+    for (Eigen::Index i = 0; i < tr.populations.rows(); ++i) c.y.push_back(tr.populations(i, n));
+    p.curves.push_back(std::move(c));
+  }
+  f.panels = {std::move(x), std::move(e), std::move(p)};
+  return f;
+}
+
 std::vector<std::string> work_output_names() {
   return {"lines.csv",      "histogram.csv", "density.csv",   "transition.csv", "reverse_lines.csv",
           "characteristic.csv", "summary.json", "potential.png", "potential.svg", "work.png",
-          "work.svg"};
+          "work.svg", "traces.csv", "protocol.png", "protocol.svg", "populations.png", "populations.svg",
+          "traces.png", "traces.svg"};
 }
 
 std::vector<NamedTable> work_tables(const WorkRun& run) {
@@ -955,11 +1174,16 @@ std::vector<NamedTable> work_tables(const WorkRun& run) {
   if (run.result.reverse_distribution)
     tables.push_back({"reverse_lines.csv", lines_table(run, *run.result.reverse_distribution, "reverse-run work lines")});
   tables.push_back({"characteristic.csv", characteristic_table(run)});
+  tables.push_back({"traces.csv", traces_table(run)});
   return tables;
 }
 
 std::vector<NamedFigure> work_figures(const WorkRun& run) {
-  return {{"potential", levels_figure(run)}, {"work", work_figure(run)}};
+  std::vector<NamedFigure> figures = {{"potential", levels_figure(run)}, {"work", work_figure(run)}};
+  if (auto f = protocol_figure(run)) figures.push_back({"protocol", std::move(*f)});
+  figures.push_back({"populations", populations_figure(run)});
+  if (auto f = traces_figure(run)) figures.push_back({"traces", std::move(*f)});
+  return figures;
 }
 
 std::vector<fs::path> write_work_outputs(const fs::path& folder, const WorkRun& run) {
@@ -1126,6 +1350,7 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
     out << "\nnotes\n";
     for (const auto& n : r.diagnostics.notes) out << "  - " << n << '\n';
   }
+  if (const std::string why = traces_absent(run); !why.empty()) out << "\ntime traces: " << why << "\n";
 
   std::vector<WorkLine> strongest = d.lines;
   std::sort(strongest.begin(), strongest.end(),

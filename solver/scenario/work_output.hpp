@@ -151,9 +151,29 @@ nlohmann::ordered_json work_summary(const WorkRun& run);
 // potential.png: the initial and final potentials with their levels; work.png: P(W) and its density.
 LevelsFigure levels_figure(const WorkRun& run);
 WorkFigure work_figure(const WorkRun& run);
+// spectrum.png of `trapwork spectrum`: the potential with its levels (up to 12), the densities
+// of the lowest four and the hard walls of a [box].
+LevelsFigure spectrum_figure(const Scenario& scenario, const SpectrumResult& result);
+// protocol.png: each scheduled parameter (potential and walls) against t in lab units, one panel
+// per unit, sampled at 401 times; a sudden switch (tau = 0) drawn as a step at t = 0. Nothing
+// when no parameter is scheduled.
+std::optional<StackedFigure> protocol_figure(const WorkRun& run);
+// populations.png: P(n) = sum_m p_m P(m -> n) of the final levels against n, beside the initial
+// p_n and the harmonic reference's (its own Gibbs weights and analytic P(m -> n)) where there is one.
+SweepFigure populations_figure(const WorkRun& run);
+// traces.csv: WorkResult::traces (time_us, position_mean_um, energy_mean_<unit>,
+// population_0 .. population_4); without traces the header and a comment saying why.
+// traces.png: <x>(t) (with the trap centre for a translation), <H>(t) and the populations;
+// nothing without traces.
+inline constexpr int trace_columns_levels = 5;  // population columns of traces.csv
+CsvTable traces_table(const WorkRun& run);
+std::optional<StackedFigure> traces_figure(const WorkRun& run);
+// Why a run has no traces (empty when it has them).
+std::string traces_absent(const WorkRun& run);
 
 // Writes lines.csv, histogram.csv, density.csv, transition.csv, reverse_lines.csv (reverse
-// run only), characteristic.csv, summary.json, potential.png/.svg and work.png/.svg into
+// run only), characteristic.csv, traces.csv, summary.json, potential.png/.svg, work.png/.svg,
+// protocol.png/.svg (when scheduled), populations.png/.svg and traces.png/.svg (with traces) into
 // `folder` (created if missing); returns their paths: work_tables, work_summary and work_figures
 // (solver/scenario/tasks.hpp) written by write_outputs.
 std::vector<std::filesystem::path> write_work_outputs(const std::filesystem::path& folder, const WorkRun& run);

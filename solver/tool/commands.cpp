@@ -90,7 +90,7 @@ void add_spectrum_command(CLI::App& app) {
   CLI::App* sub = app.add_subcommand(
       "spectrum",
       "Lowest energy levels and eigenstates of a scenario's potential; writes spectrum.csv, "
-      "states.csv and summary.json");
+      "states.csv, summary.json and spectrum.png/.svg");
   sub->add_option("scenario", command->scenario,
                   "scenario file (TOML); \"default\" or nothing: the built-in 40 u ion scenario");
   sub->add_option("-o,--output", command->output, "output folder (overrides [output] folder)");

@@ -284,7 +284,7 @@ def test_docstrings():
 def test_work_figures_are_plain_data(default_work):
     # the figure data the command line draws work.png and potential.png from, as dicts of numpy arrays
     r = default_work
-    assert set(r.figures) == {"potential", "work"}
+    assert set(r.figures) == {"potential", "work", "protocol", "populations", "traces"}  # issue 16: three more
     work = r.figures["work"]
     assert work["kind"] == "work" and isinstance(work["result"]["work"], np.ndarray)
     assert abs(work["result"]["probability"].sum() - r.lines["probability"].sum()) < 1e-12

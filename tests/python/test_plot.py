@@ -703,3 +703,48 @@ def test_issue16_sweep_log_y_and_further_panels():
     f["points"][0]["y"] = np.array([0.2, 0.3, 0.5])
     f["points"][0]["spread"] = np.zeros(0)
     assert tplot.sweep_layout(f)["y_range"] == pytest.approx((0.1, 1.0))
+
+
+# ---- issue 16: spectrum.png, protocol.png, populations.png, traces.png, walls ---------------------
+
+def test_issue16_new_figures_are_in_the_results_and_draw():
+    import trapwork
+    if not hasattr(trapwork, "work"):
+        pytest.skip("the compiled module is not built")
+    result = trapwork.work(trapwork.Scenario.default())
+    assert {"potential", "work", "protocol", "populations", "traces"} <= set(result.figures)
+    drawn = result.plot()
+    assert {"protocol", "populations", "traces"} <= set(drawn)
+    traces = result.figures["traces"]
+    assert traces["kind"] == "stack" and len(traces["stack"]) == 3
+    panels = [a for a in drawn["traces"].axes if a.lines]
+    assert len(panels) == 3
+    # the drawn <x>(t) is the traces.csv column, in the figure's time and length units
+    table = result.tables["traces"]
+    x_line = [ln for ln in panels[0].lines if ln.get_gid() == "stack_0_curve_0"][0]
+    assert len(x_line.get_xdata()) == len(table["time_us"]) > 10
+    # in nm; values below 1e-9 of the grid length (< 1e-6 nm here) are drawn as 0 (rounding noise)
+    assert np.asarray(x_line.get_ydata()) == pytest.approx(np.asarray(table["position_mean_um"]) * 1000, rel=1e-9,
+                                                           abs=1e-6)
+    populations = result.figures["populations"]
+    assert populations["kind"] == "sweep" and len(populations["points"]) == 3  # numerical, harmonic, initial
+    protocol = result.figures["protocol"]
+    assert protocol["kind"] == "stack" and protocol["stack"][0]["curves"][0]["label"] == "trap.centre"
+    spectrum = trapwork.spectrum(trapwork.Scenario.default())
+    assert "spectrum" in spectrum.figures and spectrum.figures["spectrum"]["kind"] == "levels"
+    fig = spectrum.plot("spectrum")
+    assert any(ln.get_gid() == "potential" for a in fig.axes for ln in a.lines)
+
+
+def test_issue16_box_walls_are_drawn():
+    import trapwork
+    if not hasattr(trapwork, "spectrum"):
+        pytest.skip("the compiled module is not built")
+    spectrum = trapwork.spectrum(trapwork.Scenario.from_file(str(EXAMPLES / "box_expansion.toml")))
+    panel = spectrum.figures["spectrum"]["panels"][0]
+    assert list(panel["walls"]) == pytest.approx([0.0, 10.0])  # [box] left and right, um
+    fig = spectrum.plot("spectrum")
+    walls = [ln for a in fig.axes for ln in a.lines if (ln.get_gid() or "").startswith("wall_")]
+    assert sorted(w.get_xdata()[0] for w in walls) == pytest.approx([0.0, 10.0])
+    lo, hi = [a for a in fig.axes if a.lines][0].get_xlim()
+    assert lo < 0.0 and hi > 10.0  # both walls inside the panel

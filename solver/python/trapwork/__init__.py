@@ -289,7 +289,7 @@ class Result:
     - ``diagnostics``: dict, the summary's diagnostics (accuracy of the run);
     - ``warnings``: list of str, what the run warns about (each with its diagnostic value);
     - ``figures``: dict stem -> dict of the figure data (numpy arrays, ``"kind"``: "levels",
-      "work", "sweep" or "comparison"), what :meth:`plot` draws;
+      "work", "sweep", "comparison" or "stack"), what :meth:`plot` draws;
     - ``report``: str, the command line's printed report;
     - :meth:`write` (the command line's files), :meth:`to_pandas`, :meth:`plot`.
     """
@@ -649,7 +649,7 @@ def work(scenario, tolerance=None, search_budget=2000, progress=None):
     hbar*omega_ref, probability, initial and final level), ``histogram``, ``density``,
     ``transitions`` (P[m, n]), ``characteristic``; ``summary`` equal to summary.json (work
     moments with their errors, Jarzynski, Crooks, harmonic reference, ``diagnostics``),
-    ``warnings``, ``figures`` ("potential", "work"), ``report``.
+    ``warnings``, ``figures`` ("potential", "work", "protocol", "populations", "traces"), ``report``.
 
     Raises InputError (no [protocol] or [initial], bad values), PhysicsError (what the physics
     or the memory cannot hold, naming the scenario), MemoryError; KeyboardInterrupt after

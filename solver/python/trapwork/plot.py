@@ -3,8 +3,8 @@
 The command line writes each figure with PLplot (solver/scenario/plot.cpp); the module gives
 the same figure data as plain dicts (``result.figures``: stem -> dict with the fields of the
 C++ figure struct by the same names, numpy arrays for vectors, ``None`` for absent optional
-values, enums as lower-case strings, and ``"kind"``: ``"levels"``, ``"work"``, ``"sweep"`` or
-``"comparison"``). :func:`plot` draws them with matplotlib, with the same panels, ranges and
+values, enums as lower-case strings, and ``"kind"``: ``"levels"``, ``"work"``, ``"sweep"``,
+``"comparison"`` or ``"stack"``). :func:`plot` draws them with matplotlib, with the same panels, ranges and
 markers, so that a notebook shows them inline and the user can restyle the returned Figure.
 
 matplotlib is imported when a figure is drawn, not when ``trapwork`` is imported.
@@ -18,7 +18,7 @@ import numpy as np
 
 __all__ = ["plot", "plplot_text", "figure_kinds"]
 
-figure_kinds = ("levels", "work", "sweep", "comparison")
+figure_kinds = ("levels", "work", "sweep", "comparison", "stack")
 
 # Colours of plot.cpp's colour map (role -> RGB 0..255), and its fill transparencies.
 _COLOURS = {
@@ -113,7 +113,7 @@ def _array(value):
 def _kind(figure):
     kind = figure.get("kind")
     if kind is None:  # a dict without "kind": recognise the struct by a field only it has
-        for key, name in (("panels", "levels"), ("result", "work"), ("edges", "comparison"),
+        for key, name in (("stack", "stack"), ("panels", "levels"), ("result", "work"), ("edges", "comparison"),
                           ("points", "sweep"), ("curves", "sweep")):
             if key in figure:
                 return name
@@ -127,7 +127,7 @@ def _kind(figure):
 
 def _is_figure(obj):
     return isinstance(obj, dict) and ("kind" in obj or "panels" in obj or "result" in obj
-                                      or "edges" in obj)
+                                      or "edges" in obj or "stack" in obj)
 
 
 def _bad(figure, what):
@@ -329,7 +329,11 @@ def _levels_panels(f):
             _bad("levels", where + ": more densities than energies")
         for rho in d:
             _same_size("levels", where + " x and density", x, rho)
-        out.append({"title": p.get("title") or "", "x": x, "potential": v, "energies": e, "densities": d})
+        walls = _array(p.get("walls"))
+        if not np.all(np.isfinite(walls)):
+            _bad("levels", where + ": wall positions must be finite")
+        out.append({"title": p.get("title") or "", "x": x, "potential": v, "energies": e, "densities": d,
+                    "walls": walls})
     return out, height
 
 
@@ -350,6 +354,9 @@ def levels_ranges(f):
         lo, hi = (min(ends), max(ends)) if ends else (x[0], x[-1])
         lo, hi = _padded(lo, hi, 0.3)
         lo, hi = max(lo, x[0]), min(hi, x[-1])
+        if p["walls"].size:  # the walls inside the panel, with a margin beyond them
+            w_lo, w_hi = _padded(float(p["walls"].min()), float(p["walls"].max()), 0.04)
+            lo, hi = min(lo, w_lo), max(hi, w_hi)
         if f.get("x_min") is not None:
             lo = float(f["x_min"])
         if f.get("x_max") is not None:
@@ -406,6 +413,9 @@ def _draw_levels(plt, f, ax, style):
         a.add_collection(levels)
         potential, = a.plot(x, v, color=style["ink"], linewidth=2.0)
         potential.set_gid("potential")
+        for j, w in enumerate(p["walls"]):
+            wall = a.axvline(w, color=style["ink"], linewidth=4.5)
+            wall.set_gid(f"wall_{j}")
         a.set_xlim(*x_ranges[k])
         a.set_ylim(e_lo, e_hi)
         a.set_xlabel(plplot_text(f.get("x_label")))
@@ -419,6 +429,9 @@ def _draw_levels(plt, f, ax, style):
     handles = [Line2D([], [], color=style["ink"], linewidth=2.0),
                Line2D([], [], color=style["orange"], linewidth=1.5)]
     labels = ["potential V(x)", plplot_text("levels E#dn#u (where V < E#dn#u)")]
+    if any(p["walls"].size for p in panels):
+        handles.append(Line2D([], [], color=style["ink"], linewidth=4.5))
+        labels.append("hard walls")
     if any_density:
         handles.append((Patch(facecolor=style.fill("blue")), Line2D([], [], color=style["blue"])))
         labels.append(plplot_text("|ψ#dn#u(x)|#u2#d (scaled)"))
@@ -1046,7 +1059,64 @@ def _draw_comparison(plt, f, ax, style):
     return fig
 
 
-_DRAW = {"levels": _draw_levels, "work": _draw_work, "sweep": _draw_sweep, "comparison": _draw_comparison}
+# ---- (e) stacked panels over one x ------------------------------------------------------------
+
+_STACK_ROLES = ("ink", "blue", "orange", "green", "red", "purple", "grey")
+
+
+def stack_layout(f):
+    """Panels and ranges of a stacked figure as plot.cpp computes them: x over every curve + 2%,
+    each panel's y over its curves + 8% (0..1 for a panel without finite values)."""
+    panels = f.get("stack") or []
+    if not 1 <= len(panels) <= 6:
+        _bad("stack", "needs one to six panels")
+    out, xs = [], []
+    for p in panels:
+        curves = [{"label": c.get("label") or "", "x": _array(c.get("x")), "y": _array(c.get("y"))}
+                  for c in (p.get("curves") or [])]
+        if not curves:
+            _bad("stack", f"panel '{p.get('y_label', '')}': nothing to draw")
+        for c in curves:
+            _same_size("stack", f"curve '{c['label']}' x and y", c["x"], c["y"])
+            if np.any(np.diff(c["x"]) < 0):
+                _bad("stack", f"curve '{c['label']}': x must be ascending")
+            xs.append(c["x"])
+        yr = _finite_range(*[c["y"] for c in curves]) or (0.0, 1.0)
+        out.append({"y_label": p.get("y_label") or "", "curves": curves, "markers": bool(p.get("markers")),
+                    "y_range": _padded(*yr, 0.08)})
+    xr = _finite_range(*xs)
+    if xr is None:
+        _bad("stack", "no finite x values")
+    return {"panels": out, "x_range": _padded(*xr, 0.02)}
+
+
+def _draw_stack(plt, f, ax, style):
+    lay = stack_layout(f)
+    n = len(lay["panels"])
+    if ax is not None:
+        fig, axes, _ = _layout(plt, style, ax, n)
+    else:
+        fig = plt.figure(figsize=style.figsize, dpi=style.dpi, layout="constrained")
+        axes = list(np.ravel(fig.subplots(n, 1, sharex=True, squeeze=False)))
+    for k, (p, a) in enumerate(zip(lay["panels"], axes)):
+        for j, c in enumerate(p["curves"]):
+            line, = a.plot(c["x"], c["y"], color=style[_STACK_ROLES[j % 7]], linewidth=1.6,
+                           marker="o" if p["markers"] else None, markersize=3,
+                           label=plplot_text(c["label"]))
+            line.set_gid(f"stack_{k}_curve_{j}")
+        a.set_xlim(*lay["x_range"])
+        a.set_ylim(*p["y_range"])
+        a.set_ylabel(plplot_text(p["y_label"]))
+        a.grid(True, color="0.88", linewidth=0.6)
+        if style.legend:
+            a.legend(loc="best", fontsize="small", ncol=min(len(p["curves"]), 5))
+    axes[len(lay["panels"]) - 1 if len(axes) >= n else 0].set_xlabel(plplot_text(f.get("x_label")))
+    style.figure_title(fig, f.get("title"))
+    return fig
+
+
+_DRAW = {"levels": _draw_levels, "work": _draw_work, "sweep": _draw_sweep, "comparison": _draw_comparison,
+         "stack": _draw_stack}
 
 
 def _draw(figure, ax, style):
