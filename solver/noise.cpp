@@ -7,9 +7,11 @@
 #include <cmath>
 #include <exception>
 #include <limits>
+#include <memory>
 #include <mutex>
 #include <random>
 #include <thread>
+#include <unordered_map>
 
 #include "solver/errors.hpp"
 #include "solver/grid.hpp"
@@ -148,31 +150,53 @@ NoiseTrace noise_trace(const NoiseSpectrum& spectrum, double tau, int intervals,
 
 namespace {
 
-// The noise term sum_p eps_p(t) dV/dp(x, t) at lab positions x, dV/dp by a central difference
-// of the potential in p (header comment). Holds its own copies, so one instance per thread.
+// dV/dp(x) of the potential `at` by a central difference in p (header comment), added to
+// `out` times `weight`. up and down are scratch.
+void add_derivative(const Potential& at, const std::string& address, const std::vector<double>& x, double weight,
+                    std::vector<double>& out, std::vector<double>& up, std::vector<double>& down) {
+  up.resize(x.size());
+  down.resize(x.size());
+  const double p = at.parameter(address);
+  double h = 1e-4 * std::max(std::abs(p), 1.0);
+  if (p > 0 && p - h <= 0) h = 1e-4 * p;  // a positive parameter near 0 (a depth, a waist)
+  at.with(address, p + h).evaluate(x.data(), up.data(), x.size());
+  at.with(address, p - h).evaluate(x.data(), down.data(), x.size());
+  const double factor = weight / (2 * h);
+  for (std::size_t j = 0; j < x.size(); ++j) out[j] += factor * (up[j] - down[j]);
+}
+
+// dV/dp at each time the propagation samples the potential: the same times in every
+// realisation (the same step subdivision), so computed once and shared read-only.
+struct DerivativeTable {
+  std::unordered_map<double, std::size_t> row;  // sample time -> first row (one row per source)
+  std::vector<std::vector<double>> values;
+};
+
+// The noise term sum_p eps_p(t) dV/dp(x, t) at lab positions x. dV/dp from the shared table
+// when it holds the time, else computed here. Holds its own copies, so one instance per thread.
 class ParameterNoise {
  public:
-  ParameterNoise(Potential base, Protocol protocol, std::vector<std::string> addresses, std::vector<NoiseTrace> traces)
+  ParameterNoise(Potential base, Protocol protocol, std::vector<std::string> addresses, std::vector<NoiseTrace> traces,
+                 std::shared_ptr<const DerivativeTable> table)
       : base_(std::move(base)), protocol_(std::move(protocol)), addresses_(std::move(addresses)),
-        traces_(std::move(traces)) {}
+        traces_(std::move(traces)), table_(std::move(table)) {}
   void operator()(double t, const std::vector<double>& x, std::vector<double>& v) {
     bool any = false;
     for (const auto& trace : traces_) any = any || trace(t) != 0;
     if (!any) return;  // zero noise leaves the potential bit for bit
-    const Potential at = protocol_.at(base_, t);
-    up_.resize(x.size());
-    down_.resize(x.size());
-    for (std::size_t k = 0; k < addresses_.size(); ++k) {
-      const double eps = traces_[k](t);
-      if (eps == 0) continue;
-      const double p = at.parameter(addresses_[k]);
-      double h = 1e-4 * std::max(std::abs(p), 1.0);
-      if (p > 0 && p - h <= 0) h = 1e-4 * p;  // a positive parameter near 0 (a depth, a waist)
-      at.with(addresses_[k], p + h).evaluate(x.data(), up_.data(), x.size());
-      at.with(addresses_[k], p - h).evaluate(x.data(), down_.data(), x.size());
-      const double factor = eps / (2 * h);
-      for (std::size_t j = 0; j < x.size(); ++j) v[j] += factor * (up_[j] - down_[j]);
+    if (table_) {
+      if (const auto it = table_->row.find(t); it != table_->row.end()) {
+        for (std::size_t k = 0; k < addresses_.size(); ++k) {
+          const double eps = traces_[k](t);
+          const std::vector<double>& d = table_->values[it->second + k];
+          for (std::size_t j = 0; j < x.size(); ++j) v[j] += eps * d[j];
+        }
+        return;
+      }
     }
+    const Potential at = protocol_.at(base_, t);
+    for (std::size_t k = 0; k < addresses_.size(); ++k)
+      if (const double eps = traces_[k](t); eps != 0) add_derivative(at, addresses_[k], x, eps, v, up_, down_);
   }
 
  private:
@@ -180,8 +204,12 @@ class ParameterNoise {
   Protocol protocol_;
   std::vector<std::string> addresses_;
   std::vector<NoiseTrace> traces_;
+  std::shared_ptr<const DerivativeTable> table_;
   std::vector<double> up_, down_;
 };
+
+// Samples of dV/dp kept at most (doubles, 64 MiB); a longer run computes them as it goes.
+constexpr std::size_t derivative_table_limit = std::size_t(8) << 20;
 
 // One realisation: transition matrix P(m, n) and the direct <W> = sum_m p_m (<H_B>_m - E_m^A).
 struct Realisation {
@@ -243,7 +271,7 @@ std::string text(double v) {
 }  // namespace
 
 NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, const WorkRequest& request,
-                               const NoiseRequest& noise) {
+                               const NoiseRequest& noise, const WorkResult* noiseless) {
   if (noise.sources.empty()) throw InputError("noise", "", "at least one noise source");
   if (noise.realisations < 2)
     throw InputError("noise_run.realisations", std::to_string(noise.realisations),
@@ -257,7 +285,7 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
                        "\"order4\" or \"strang\" (the eigenbasis route for white noise, Lindblad, is not there yet)");
 
   NoisyWorkResult out;
-  out.noiseless = run_work(base, protocol, request);
+  out.noiseless = noiseless ? *noiseless : run_work(base, protocol, request);
   const WorkResult& w = out.noiseless;
   const double tau = protocol.duration();
   out.steps = w.steps;
@@ -273,20 +301,41 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
   std::vector<std::string> addresses;
   for (const auto& s : noise.sources) addresses.push_back(s.address);
 
-  // realisation -1 is the noiseless baseline through the same code (the reference of the
-  // extra energy); 0 .. R-1 the noisy ones
+  // runs[0] is the noiseless baseline through the same code (the reference of the extra
+  // energy), recording the times the potential is sampled at; runs[1 .. R] the noisy ones
   const int total = noise.realisations + 1;
   std::vector<Realisation> runs(std::size_t(total), Realisation{});
+  auto times = std::make_shared<std::vector<double>>();
+  runs[0] = propagate_realisation(
+      path.with_perturbation([times](double t, const std::vector<double>&, std::vector<double>&) { times->push_back(t); }),
+      w, v_final, request);
+  std::sort(times->begin(), times->end());
+  times->erase(std::unique(times->begin(), times->end()), times->end());
+  std::shared_ptr<DerivativeTable> table;
+  if (times->size() * w.grid.size() * noise.sources.size() <= derivative_table_limit) {
+    table = std::make_shared<DerivativeTable>();
+    const std::vector<double> points = w.grid.points();
+    std::vector<double> x(points.size()), up, down;
+    for (double t : *times) {
+      const double d = path.displacement(t);
+      for (std::size_t j = 0; j < x.size(); ++j) x[j] = points[j] + d;  // as PotentialPath::sample
+      const Potential at = protocol.at(base, t);
+      table->row.emplace(t, table->values.size());
+      for (const auto& address : addresses) {
+        table->values.emplace_back(x.size(), 0.0);
+        add_derivative(at, address, x, 1.0, table->values.back(), up, down);
+      }
+    }
+  }
   auto run_one = [&](int index) {
     std::vector<NoiseTrace> traces;
     for (std::size_t k = 0; k < noise.sources.size(); ++k)
-      traces.push_back(index == 0 ? NoiseTrace{tau, std::vector<double>(std::size_t(w.steps) + 1, 0.0)}
-                                  : noise_trace(noise.sources[k].spectrum, tau, w.steps, noise.seed,
-                                                std::uint64_t(index - 1), k));
-    const PotentialPath noisy = path.with_perturbation(ParameterNoise(base, protocol, addresses, std::move(traces)));
+      traces.push_back(noise_trace(noise.sources[k].spectrum, tau, w.steps, noise.seed, std::uint64_t(index - 1), k));
+    const PotentialPath noisy =
+        path.with_perturbation(ParameterNoise(base, protocol, addresses, std::move(traces), table));
     runs[std::size_t(index)] = propagate_realisation(noisy, w, v_final, request);
   };
-  std::atomic<int> next{0}, done{0};
+  std::atomic<int> next{1}, done{0};
   std::exception_ptr failure;
   std::mutex failure_mutex;
   auto worker = [&] {

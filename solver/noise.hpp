@@ -131,10 +131,11 @@ struct NoisyWorkResult {
 // over request.threads worker threads (each realisation one batch of the kept initial
 // states, on one thread; results do not depend on the thread count). Throws InputError for
 // an address the potential does not have or an empty request, PhysicsError for the sudden
-// limit (tau = 0), the eigenbasis integrator (its Lindblad route is not there yet) or moving
-// walls.
+// limit (tau = 0) or the eigenbasis integrator (its Lindblad route is not there yet).
+// `noiseless`, when given, is run_work(base, protocol, request) already computed (the front
+// end's run), used instead of a second run.
 NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, const WorkRequest& request,
-                               const NoiseRequest& noise);
+                               const NoiseRequest& noise, const WorkResult* noiseless = nullptr);
 
 // The summary sentence of the PSD convention.
 std::string noise_psd_convention();

@@ -323,3 +323,110 @@ TEST_CASE("noise input errors", "[noise]") {
   CHECK_THROWS_AS(run_noisy_work(harmonic_trap(), sudden, quick_request(), white_noise("trap.centre", 0.1, 4)),
                   PhysicsError);
 }
+
+// ---- the scenario layer: [noise] keys ---------------------------------------------------------
+
+#include "solver/scenario/scenario.hpp"
+#include "solver/scenario/tasks.hpp"
+#include "scratch_files.hpp"
+
+namespace {
+const std::string noise_base = trapwork_test::small_shuttle_text;
+Scenario with_noise(const std::string& noise, const std::string& file = "noise_test.toml") {
+  return read_scenario_text(noise_base + noise, file);
+}
+}  // namespace
+
+TEST_CASE("[noise] keys: heating rate, white level, PSD file, errors naming the key", "[noise][scenario]") {
+  const Scenario s = with_noise(R"(
+[noise]
+realisations = 12
+seed = 99
+[[noise.source]]
+parameter = "trap.centre"
+heating_rate = "500 quanta/s"
+at_frequency = "1 MHz"
+[[noise.source]]
+parameter = "trap.frequency"
+white = "1e-3 Hz^2/Hz"
+)");
+  REQUIRE(s.noise);
+  const NoiseRequest& n = s.noise->request;
+  CHECK(n.realisations == 12);
+  CHECK(n.seed == 99);
+  REQUIRE(n.sources.size() == 2);
+  // 500 quanta/s at the trap's own frequency: S_x = 4 dn/dt / omega^3 in internal units (omega = 1)
+  CHECK(n.sources[0].spectrum.white_level() ==
+        Approx(position_psd_from_heating_rate(500 * s.units.time_s(), 1.0)).epsilon(1e-12));
+  // a frequency PSD in Hz^2/Hz: internal angular frequency (2 pi T0 per Hz), per cycles per T0
+  const double t0 = s.units.time_s();
+  CHECK(n.sources[1].spectrum.white_level() == Approx(1e-3 * std::pow(2 * si::pi * t0, 2) / t0).epsilon(1e-12));
+  CHECK(s.noise->given[0].find("500 quanta/s") != std::string::npos);
+
+  // a PSD table file: frequency in kHz, PSD in nm^2/Hz
+  const auto dir = trapwork_test::scratch_dir("noise", "psd_file");
+  {
+    std::ofstream f(dir / "psd.csv");
+    f << "frequency, psd\n0, 2e-6\n2000, 2e-6\n";
+  }
+  const Scenario t = with_noise(R"(
+[noise]
+[[noise.source]]
+parameter = "trap.centre"
+psd_file = "psd.csv"
+frequency_unit = "kHz"
+psd_unit = "nm^2/Hz"
+)",
+                                (dir / "noise_test.toml").string());
+  REQUIRE(t.noise);
+  const NoiseSpectrum& table = t.noise->request.sources[0].spectrum;
+  const double l0 = t.units.length_m;
+  CHECK(table.frequencies().back() == Approx(2e6 * t0).epsilon(1e-12));  // cycles per T0 (0.32 here)
+  CHECK(table(0.4) == 0);                                                 // 0 beyond the table
+  CHECK(table(0.1) == Approx(2e-6 * 1e-18 / (l0 * l0 * t0)).epsilon(1e-12));
+  CHECK(t.noise->request.realisations == 100);  // the defaults
+  CHECK(t.noise->request.seed == 1);
+
+  auto refused = [&](const std::string& noise, const std::string& words) {
+    INFO(noise);
+    CHECK_THROWS_WITH(with_noise(noise), Catch::Contains(words));
+  };
+  refused("[noise]\n[[noise.source]]\nparameter = \"trap.centre\"\nwhite = \"1e-20 m^2/Hz\"\nheat = 1\n",
+          "noise.source[1].heat");
+  refused("[noise]\n[[noise.source]]\nparameter = \"trap.frequency\"\nheating_rate = \"5 quanta/s\"\n"
+          "at_frequency = \"1 MHz\"\n",
+          "only on a centre");
+  refused("[noise]\n[[noise.source]]\nparameter = \"trap.centre\"\nwhite = \"1e-20 m^2/Hz\"\n"
+          "heating_rate = \"5 quanta/s\"\nat_frequency = \"1 MHz\"\n",
+          "exactly one of");
+  refused("[noise]\n[[noise.source]]\nparameter = \"trap.centre\"\nwhite = \"1e-20 m^2\"\n", "per Hz");
+  refused("[noise]\n[[noise.source]]\nparameter = \"trap.centre\"\nwhite = 1e-20\n", "with its unit");
+  refused("[noise]\n[[noise.source]]\nparameter = \"trap.centr\"\nwhite = \"1e-20 m^2/Hz\"\n", "trap.centre");
+  refused("[noise]\nrealisations = 1\n[[noise.source]]\nparameter = \"trap.centre\"\nwhite = \"1e-20 m^2/Hz\"\n",
+          "noise.realisations");
+  refused("[noise]\nseed = 3\n", "noise.source");
+}
+
+TEST_CASE("the work task runs the noise and reports it", "[noise][scenario]") {
+  const Scenario s = with_noise(R"(
+[noise]
+realisations = 6
+[[noise.source]]
+parameter = "trap.centre"
+heating_rate = "2000 quanta/s"
+at_frequency = "1 MHz"
+)");
+  const WorkOutcome o = work_task(s, std::nullopt);
+  REQUIRE(o.noise);
+  CHECK(o.noise->realisations == 6);
+  const auto summary = task_summary(o);
+  REQUIRE(summary.contains("noise"));
+  CHECK(summary["noise"]["psd_convention"].get<std::string>().find("one-sided") != std::string::npos);
+  CHECK(summary["noise"]["seed"] == 1);
+  bool table = false;
+  for (const auto& t : task_tables(o)) table = table || t.file == "noise_lines.csv";
+  CHECK(table);
+  std::ostringstream report;
+  print_task_report(report, o);
+  CHECK_THAT(report.str(), Catch::Contains("noise during the protocol") && Catch::Contains("quanta/s"));
+}

@@ -95,6 +95,7 @@ struct WorkOutcome {
   Scenario scenario;
   std::optional<ToleranceChoice> choice;  // with a tolerance: what the search chose
   std::optional<ScenarioWork> direct;     // without
+  std::optional<NoisyWorkResult> noise;   // [noise]: the noisy run beside the noiseless one
   // References into *this: keep the outcome in place while the run is used.
   WorkRun run() const;
 };

@@ -935,7 +935,7 @@ WorkFigure work_figure(const WorkRun& run) {
 std::vector<std::string> work_output_names() {
   return {"lines.csv",      "histogram.csv", "density.csv",   "transition.csv", "reverse_lines.csv",
           "characteristic.csv", "summary.json", "potential.png", "potential.svg", "work.png",
-          "work.svg"};
+          "work.svg", "noise_lines.csv"};
 }
 
 std::vector<NamedTable> work_tables(const WorkRun& run) {
