@@ -301,6 +301,17 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
   std::vector<std::string> addresses;
   for (const auto& s : noise.sources) addresses.push_back(s.address);
 
+  // the transition matrix of every realisation is kept (the jackknife of var W and of the
+  // Jarzynski average needs them): refuse a run whose matrices would not fit
+  const double matrix_bytes = double(noise.realisations + 1) * double(w.forward.transitions.initial_levels()) *
+                              double(w.forward.transitions.final_levels()) * sizeof(double);
+  const double limit = request.spectrum.options.memory_limit > 0 ? request.spectrum.options.memory_limit / 2 : 0x1.0p31;
+  if (matrix_bytes > limit)
+    throw PhysicsError("noise: " + std::to_string(noise.realisations) + " realisations of " +
+                       std::to_string(w.forward.transitions.initial_levels()) + " x " +
+                       std::to_string(w.forward.transitions.final_levels()) + " transition matrices need " +
+                       text(matrix_bytes / 1e9) + " GB, above " + text(limit / 1e9) +
+                       " GB: lower the realisations (the standard errors scale as 1/sqrt(realisations))");
   // runs[0] is the noiseless baseline through the same code (the reference of the extra
   // energy), recording the times the potential is sampled at; runs[1 .. R] the noisy ones
   const int total = noise.realisations + 1;

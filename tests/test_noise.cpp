@@ -319,6 +319,10 @@ TEST_CASE("noise input errors", "[noise]") {
   eigen.integrator = Integrator::eigenbasis;
   CHECK_THROWS_WITH(run_noisy_work(harmonic_trap(), hold, eigen, white_noise("trap.centre", 0.1, 4)),
                     Catch::Contains("split-operator"));
+  // realisations whose transition matrices would not fit (3e7 x 1 x 22 doubles, 5 GB > 2 GiB)
+  // are refused before any is run
+  CHECK_THROWS_WITH(run_noisy_work(harmonic_trap(), hold, quick_request(), white_noise("trap.centre", 0.1, 30000000)),
+                    Catch::Contains("transition matrices") && Catch::Contains("lower the realisations"));
   const Protocol sudden(0, {Schedule::linear("trap.frequency", 1, 2)});
   CHECK_THROWS_AS(run_noisy_work(harmonic_trap(), sudden, quick_request(), white_noise("trap.centre", 0.1, 4)),
                   PhysicsError);
