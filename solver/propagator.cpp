@@ -39,15 +39,30 @@ PotentialPath PotentialPath::co_moving(Grid grid, Potential base, Protocol proto
 
 void PotentialPath::sample(double t, std::vector<double>& v) const {
   v.resize(points_.size());
+  auto perturb = [&] {
+    if (!perturbation_) return;
+    std::vector<double> lab(points_);
+    const double d = displacement(t);
+    for (double& x : lab) x += d;
+    perturbation_(t, lab, v);
+  };
   if (!translation_) {
     protocol_.at(base_, t).evaluate(points_.data(), v.data(), points_.size());  // formulas at its time
+    perturb();
     check_potential_finite(v, points_, t, "x");
     return;
   }
   base_.evaluate(points_.data(), v.data(), points_.size());
   const double acceleration = protocol_.displacement(*translation_, t).acceleration;
   for (std::size_t j = 0; j < v.size(); ++j) v[j] += acceleration * points_[j];
+  perturb();
   check_potential_finite(v, points_, t, "y = x - d(t) (co-moving frame)");
+}
+
+PotentialPath PotentialPath::with_perturbation(Perturbation perturbation) const {
+  PotentialPath path = *this;
+  path.perturbation_ = std::move(perturbation);
+  return path;
 }
 
 std::vector<double> PotentialPath::sample(double t) const {

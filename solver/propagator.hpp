@@ -248,6 +248,12 @@ class PotentialPath {
   void from_lab(Eigen::MatrixXcd& states, double t) const;
   // Displacement d(t) of the frame (0 in the lab frame).
   double displacement(double t) const;
+  // An added potential term (noise during the protocol, solver/noise.hpp): sample() calls
+  // perturbation(t, x, v) with the lab positions x_j = (frame point j) + d(t) after filling v,
+  // and the term adds its values to v. Copied with the path; a path copy used on another
+  // thread needs a perturbation safe to call there.
+  using Perturbation = std::function<void(double t, const std::vector<double>& lab_points, std::vector<double>& v)>;
+  PotentialPath with_perturbation(Perturbation perturbation) const;
 
  private:
   PotentialPath(Grid grid, Potential base, Protocol protocol, std::optional<Translation> translation);
@@ -257,6 +263,7 @@ class PotentialPath {
   Protocol protocol_;
   std::optional<Translation> translation_;
   std::vector<double> points_;
+  Perturbation perturbation_;
 };
 
 enum class SplitOrder { strang = 2, fourth = 4 };

@@ -796,7 +796,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
       points = std::min(points, std::max(9, int(std::min(1e6, 0.05 * run / solve))));
     }
     trace.emplace(TraceRecorder{base, protocol, sa, sb, wa.weights, options, cutoff,
-                                std::max(1, (steps + points - 2) / (points - 1)), steps, {}});
+                                std::max(1, (steps + points - 2) / (points - 1)), steps, {}, {}});
   }
   Run fwd = propagate_run(forward_path, sa, sb, &basis_a, v_a, kept_a, steps, request, request.ode, progress(0, share),
                           &v_b, trace ? &*trace : nullptr);

@@ -120,9 +120,34 @@ std::string reader_error(const std::string& text) {
   return {};
 }
 
+// The trap with white position noise on its centre.
+const std::string noise_base = std::string(trap_base) + R"([noise]
+realisations = 10
+[[noise.source]]
+parameter = "trap.centre"
+white = "1e-24 m^2/Hz"
+)";
+
 // Which base scenario holds the table at `address` (keys of [box] need a box).
 std::string base_for(const std::string& address) {
+  if (address == "noise" || address == "noise.source") return noise_base;
   return address == "box" || address == "box.soft_walls" ? box_base : trap_base;
+}
+
+// A [[noise.source]] with the keys `key` is read with (white, psd_file, heating_rate exclude each
+// other; frequency_unit and psd_unit go with psd_file, at_frequency with heating_rate).
+std::string noise_source_base(const std::string& key) {
+  std::string source = "parameter = \"trap.centre\"\n";
+  if (key == "frequency_unit" || key == "psd_unit") source += "psd_file = \"psd.csv\"\n";
+  if (key == "psd_file" || key == "frequency_unit") source += "psd_unit = \"m^2/Hz\"\n";
+  if (key == "at_frequency") source += "heating_rate = \"500 quanta/s\"\n";
+  if (key == "parameter") source += "white = \"1e-24 m^2/Hz\"\n";
+  return std::string(trap_base) + "[noise]\n[[noise.source]]\n" + source;
+}
+
+// How the reader names the table at `address` in its messages (arrays of tables: the first).
+std::string dotted_table(const std::string& address) {
+  return address == "protocol.change" || address == "noise.source" ? address + "[1]" : address;
 }
 
 // Tables whose keys exclude each other: the test of one key clears the table first.
@@ -166,7 +191,7 @@ TEST_CASE("issue 16: the reader reads every key of the reference (a date value i
   for (const TableSpec& t : scenario_tables()) {
     if (t.address == "potential") continue;
     for (const KeySpec& k : t.keys) {
-      std::string base = base_for(t.address);
+      std::string base = t.address == "noise.source" ? noise_source_base(k.name) : base_for(t.address);
       if (t.address == "sweep" && k.name != "values" && k.name != "parameter") {  // from/to/points exclude values
         toml::table root = toml::parse(base);
         toml::table& sweep = *root["sweep"].as_table();
@@ -178,9 +203,7 @@ TEST_CASE("issue 16: the reader reads every key of the reference (a date value i
         out << toml::toml_formatter(root);
         base = out.str();
       }
-      const std::string dotted =
-          t.address == "top" ? k.name
-                             : (t.address == "protocol.change" ? "protocol.change[1]" : t.address) + "." + k.name;
+      const std::string dotted = t.address == "top" ? k.name : dotted_table(t.address) + "." + k.name;
       INFO(dotted);
       named(reader_error(with_key(base, t.address, k.name, "1979-05-27", exclusive(t.address))), dotted);
     }
@@ -208,9 +231,7 @@ TEST_CASE("issue 16: a key not in the reference is refused with file, line and k
   };
   for (const TableSpec& t : scenario_tables()) {
     if (t.address == "potential") continue;
-    const std::string dotted = t.address == "top" ? "not_a_key"
-                               : t.address == "protocol.change" ? "protocol.change[1].not_a_key"
-                                                                 : t.address + ".not_a_key";
+    const std::string dotted = t.address == "top" ? "not_a_key" : dotted_table(t.address) + ".not_a_key";
     refused(with_key(base_for(t.address), t.address, "not_a_key", "1"), dotted);
   }
   for (const ShapeSpec& s : shape_specs())

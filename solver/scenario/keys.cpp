@@ -178,7 +178,8 @@ const std::vector<TableSpec>& scenario_tables() {
                   sub("protocol", KeyType::table, "none", "[protocol] (trapwork work, sweep)"),
                   sub("initial", KeyType::table, "none", "[initial] (trapwork work, sweep)"),
                   sub("work", KeyType::table, "none", "[work] (trapwork work, sweep)"),
-                  sub("sweep", KeyType::table, "none", "[sweep] (trapwork sweep)")}});
+                  sub("sweep", KeyType::table, "none", "[sweep] (trapwork sweep)"),
+                  sub("noise", KeyType::table, "none", "[noise]: technical noise during the protocol (trapwork work)")}});
     t.push_back({"particle", "[particle]", "the trapped particle",
                  {quantity("mass", Dimension::mass(), "required",
                            "the particle's mass, always with its unit (u, Da, kg, g)", "\"40 u\"")}});
@@ -299,6 +300,29 @@ const std::vector<TableSpec>& scenario_tables() {
           {"to", KeyType::quantity, std::nullopt, "none (instead of values, with from and points)", {}, "last of evenly spaced values",
            "\"3 us\""},
           whole("points", "none (instead of values, with from and to)", "number of evenly spaced values (2 to 100000)", "3")}});
+    t.push_back(
+        {"noise", "[noise]",
+         "technical noise on trap parameters during the protocol, averaged over noise realisations (trapwork work)",
+         {whole("realisations", "100", "noise traces propagated and averaged (2 to 1000000)", "200"),
+          whole("seed", "1", "seed of the noise traces (the same seed gives the same traces)", "2026"),
+          sub("source", KeyType::tables, "required", "[[noise.source]], one per noisy parameter")}});
+    t.push_back(
+        {"noise.source", "[[noise.source]]",
+         "one noisy parameter, with exactly one of white, psd_file, heating_rate (one-sided PSD per Hz)",
+         {text("parameter", "required", "the noisy parameter of a [[potential]] term (\"trap.centre\")",
+               "\"trap.centre\""),
+          {"white", KeyType::quantity, std::nullopt, "one of white, psd_file, heating_rate", {},
+           "white noise: one-sided PSD, the parameter's unit squared per Hz", "\"1e-22 m^2/Hz\""},
+          text("psd_file", "one of white, psd_file, heating_rate", "table file of the one-sided PSD: rows of frequency and PSD",
+               "\"psd.csv\""),
+          text("frequency_unit", "Hz (with psd_file)", "unit of the PSD table's frequency column", "\"kHz\""),
+          text("psd_unit", "required with psd_file", "unit of the PSD table's PSD column", "\"m^2/Hz\""),
+          text("heating_rate", "one of white, psd_file, heating_rate",
+               "measured heating rate of a centre, in quanta per time; taken as white position noise "
+               "S_x = 4 hbar (dn/dt) / (m omega^3)",
+               "\"500 quanta/s\""),
+          quantity("at_frequency", Dimension::frequency(), "required with heating_rate",
+                   "trap frequency the heating rate was measured at", "\"1 MHz\"")}});
     return t;
   }();
   return tables;

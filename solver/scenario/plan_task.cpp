@@ -77,7 +77,7 @@ PlanTaskOutcome plan_task(const Scenario& scenario, const PlanSettings& settings
   if (!scenario.work || !scenario.work->request.initial.is_gibbs())
     throw InputError("initial", scenario.work ? scenario.work->initial_given : "", thermal, "", scenario.file);
   if (checked) checked();
-  ScenarioWork work = model_work(scenario, hooks);
+  ScenarioWork work = model_work(scenario, hooks, "plan");
   const WorkDistribution& dist = work.result().distribution;
   if (!std::isfinite(dist.beta))
     throw InputError("initial", scenario.work ? scenario.work->initial_given : "", thermal, "", scenario.file);

@@ -5,6 +5,7 @@
 
 #include <charconv>
 #include <cmath>
+#include <cstdio>
 #include <cstdlib>
 #include <map>
 #include <regex>
@@ -287,6 +288,7 @@ class Reader {
   void read_initial(const toml::table& root, Scenario& s) const;
   void read_work(const toml::table& root, Scenario& s) const;
   void read_sweep(const toml::table& root, Scenario& s) const;
+  void read_noise(const toml::table& root, Scenario& s) const;
 
   // A plain number (integer or floating point) without a unit.
   std::optional<Read> plain(const toml::table& t, std::string_view key, const std::string& dotted,
@@ -1170,6 +1172,138 @@ void Reader::read_sweep(const toml::table& root, Scenario& s) const {
   }
 }
 
+// ---- [noise] (solver/noise.hpp) ----------------------------------------------------------
+void Reader::read_noise(const toml::table& root, Scenario& s) const {
+  const toml::table* t = table(root, "noise");
+  if (!t) return;
+  check_keys(*t, "noise", table_keys("noise"));
+  const std::vector<std::string> source_keys = table_keys("noise.source");
+  NoiseSettings settings;
+  settings.request.realisations = int(integer(*t, "realisations", "noise.realisations", 2, 1000000).value_or(100));
+  settings.request.seed = std::uint64_t(integer(*t, "seed", "noise.seed", 0, std::numeric_limits<std::int64_t>::max()).value_or(1));
+  const toml::node* sources = t->get("source");
+  if (!sources || !sources->is_array_of_tables() || sources->as_array()->empty())
+    fail(sources ? *sources : *root.get("noise"), "noise.source",
+         "one or more [[noise.source]] tables, each with a parameter and one of white, psd_file, heating_rate");
+  const double t0 = units_.time_s();
+  int index = 0;
+  for (const auto& node : *sources->as_array()) {
+    const toml::table& src = *node.as_table();
+    const std::string prefix = "noise.source[" + std::to_string(++index) + "]";
+    check_keys(src, prefix, source_keys);
+    const auto address = string(src, "parameter", prefix + ".parameter");
+    if (!address) fail(node, prefix + ".parameter", "the parameter the noise acts on (\"trap.centre\")");
+    const auto slot = std::find_if(s.parameters.begin(), s.parameters.end(),
+                                   [&](const ParameterSlot& p) { return p.address == *address; });
+    if (slot == s.parameters.end() || address->rfind("box.", 0) == 0) {
+      std::vector<std::string> names;
+      for (const auto& p : s.parameters)
+        if (p.address.rfind("box.", 0) != 0) names.push_back(p.address);
+      fail(*src.get("parameter"), prefix + ".parameter", "a parameter of a [[potential]] term (\"term.parameter\")",
+           closest_name(*address, names));
+    }
+    // A PSD of this parameter: dimension (parameter)^2 per Hz; internal (parameter unit)^2 T0
+    // with the frequency ordinary (cycles per T0).
+    Dimension psd_dimension;
+    for (int i = 0; i < 4; ++i) psd_dimension.power[std::size_t(i)] = 2 * slot->dimension.power[std::size_t(i)];
+    psd_dimension.power[2] += 1;
+    const double unit = slot->dimension == Dimension::none() ? 1.0 : units_.to_si(1, slot->dimension);
+    auto psd_internal = [&](const toml::node& n, const std::string& dotted, const std::string& text) {
+      Quantity q;
+      try {
+        q = parse_quantity(text);
+      } catch (const InputError& e) {
+        fail(n, dotted, e.expected, e.suggestion);
+      }
+      if (q.plain) {
+        if (!natural_)
+          fail(n, dotted, "a one-sided PSD with its unit, (unit of " + *address + ")^2/Hz (e.g. \"1e-22 m^2/Hz\")");
+        return q.value_si * slot->plain_factor * slot->plain_factor;
+      }
+      if (!(q.dimension == psd_dimension))
+        fail(n, dotted, "a one-sided PSD of " + *address + ", its unit squared per Hz (" + psd_dimension.describe() +
+                            "), not " + with_article(q.dimension));
+      return q.value_si / (unit * unit * t0);
+    };
+    const bool white = src.get("white"), file = src.get("psd_file"), heating = src.get("heating_rate");
+    if (int(white) + int(file) + int(heating) != 1)
+      fail(node, prefix, "exactly one of white, psd_file, heating_rate");
+    NoiseSource source{*address, NoiseSpectrum::white(0)};
+    std::string given = *address + ": ";
+    if (white) {
+      const toml::node& n = *src.get("white");
+      const std::string text = n.is_string() ? n.as_string()->get() : found_text(n);
+      if (!n.is_string() && !n.is_number()) fail(n, prefix + ".white", "a one-sided PSD in quotes with its unit");
+      const double level = psd_internal(n, prefix + ".white", text);
+      if (!(level >= 0)) fail(n, prefix + ".white", "a PSD >= 0");
+      source.spectrum = NoiseSpectrum::white(level);
+      given += "white " + text;
+    } else if (file) {
+      const toml::node& n = *src.get("psd_file");
+      if (!n.is_string()) fail(n, prefix + ".psd_file", "a file name in quotes");
+      const auto f_unit = string(src, "frequency_unit", prefix + ".frequency_unit").value_or("Hz");
+      const auto p_unit = string(src, "psd_unit", prefix + ".psd_unit");
+      if (!p_unit) fail(n, prefix + ".psd_unit", "the unit of the PSD column (e.g. psd_unit = \"m^2/Hz\")");
+      Quantity fq;
+      try {
+        fq = parse_quantity("1 " + f_unit);
+      } catch (const InputError& e) {
+        fail(*src.get("frequency_unit"), prefix + ".frequency_unit", e.expected, e.suggestion);
+      }
+      if (!(fq.dimension == Dimension::frequency()))
+        fail(*src.get("frequency_unit"), prefix + ".frequency_unit", "a frequency unit (Hz, kHz, MHz)");
+      const double per_psd = psd_internal(*src.get("psd_unit"), prefix + ".psd_unit", "1 " + *p_unit);
+      PotentialTable data = read_table_file(n, prefix + ".psd_file", fq.value_si * t0, per_psd, {"frequency", "psd"});
+      try {
+        source.spectrum = NoiseSpectrum::table(std::move(data.x), std::move(data.v));
+      } catch (const InputError& e) {
+        fail(n, prefix + ".psd_file", e.expected + " (" + e.found + ")");
+      }
+      given += "PSD table " + n.as_string()->get() + " (" + f_unit + ", " + *p_unit + ")";
+    } else {
+      const toml::node& n = *src.get("heating_rate");
+      const std::string where = prefix + ".heating_rate";
+      if (!(slot->dimension == Dimension::length()) || address->size() < 7 ||
+          address->compare(address->size() - 7, 7, ".centre") != 0)
+        fail(n, where, "a heating rate only on a centre (position noise): parameter = \"term.centre\"");
+      if (!n.is_string()) fail(n, where, "a heating rate in quotes, e.g. \"500 quanta/s\"");
+      std::string text = n.as_string()->get();
+      const std::size_t q = text.find("quanta/");
+      if (q == std::string::npos) fail(n, where, "a heating rate in quanta per time, e.g. \"500 quanta/s\"");
+      // "N quanta/s" = N per second: parse "N s" and invert the unit
+      Quantity per;
+      try {
+        per = parse_quantity("1 " + text.substr(q + 7));
+      } catch (const InputError& e) {
+        fail(n, where, "a heating rate in quanta per time, e.g. \"500 quanta/s\" (" + e.expected + ")");
+      }
+      char* end = nullptr;
+      const std::string number = text.substr(0, q);
+      const double count = std::strtod(number.c_str(), &end);
+      if (end == number.c_str() || !(per.dimension == Dimension::time()) || !(count >= 0) || !std::isfinite(count))
+        fail(n, where, "a heating rate >= 0 in quanta per time, e.g. \"500 quanta/s\"");
+      const auto at = si(src, "at_frequency", prefix + ".at_frequency", Dimension::frequency(),
+                         "the trap frequency the heating rate was measured at");
+      if (!at) fail(n, prefix + ".at_frequency", "the trap frequency of the heating rate (at_frequency = \"1 MHz\")");
+      if (!(at->value > 0)) fail(*at->node, prefix + ".at_frequency", "a frequency > 0");
+      const double quanta_per_t0 = count / per.value_si * t0, omega = 2 * si::pi * at->value * t0;
+      source.spectrum = NoiseSpectrum::white(position_psd_from_heating_rate(quanta_per_t0, omega));
+      char psd[32];
+      std::snprintf(psd, sizeof psd, "%.4g", source.spectrum.white_level() * unit * unit * t0);
+      given += "heating rate " + text + " at " + at->given +
+               " (white position noise S_x = 4 hbar (dn/dt) / (m omega^3) = " + psd + " m^2/Hz)";
+    }
+    if (!heating && src.get("at_frequency"))
+      fail(*src.get("at_frequency"), prefix + ".at_frequency", "at_frequency only with heating_rate");
+    if (!file && (src.get("frequency_unit") || src.get("psd_unit")))
+      fail(src.get("frequency_unit") ? *src.get("frequency_unit") : *src.get("psd_unit"), prefix,
+           "frequency_unit and psd_unit only with psd_file");
+    settings.request.sources.push_back(std::move(source));
+    settings.given.push_back(given);
+  }
+  s.noise = std::move(settings);
+}
+
 Scenario Reader::read(const toml::table& root) {
   Scenario s;
   s.file = file_;
@@ -1190,13 +1324,14 @@ Scenario Reader::read(const toml::table& root) {
 
   read_box_and_grid(root, s);
   read_spectrum(root, s);
-  s.spectrum.message_units = {s.units, s.energy};  // library messages in lab units
+  s.spectrum.message_units = {s.units, s.energy, {}};  // library messages in lab units
   read_parameter_slots(s);
   read_protocol(root, s);
   s.spectrum.message_units.time_unit = duration_unit(s);
   read_initial(root, s);
   read_work(root, s);
   read_sweep(root, s);
+  read_noise(root, s);
   if (s.soft_walls && !moves_walls(s))
     fail(*root["box"]["soft_walls"].node(), "box.soft_walls",
          "a [protocol] that moves box.left or box.right (the comparison is of moving walls)");

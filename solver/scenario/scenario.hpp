@@ -35,6 +35,10 @@
 //   [work]       integrator, steps, frame, thermal_tolerance, max_initial_levels, final_margin,
 //                resolution, bin_width, reverse, time_step_check, threads
 //   [sweep]      parameter and either values = [...] or from, to, points
+//   [noise]      realisations, seed, and one or more [[noise.source]] tables: parameter
+//                ("term.parameter") and exactly one of white (a one-sided PSD with its unit,
+//                "1e-22 m^2/Hz"), psd_file (frequency, PSD rows; frequency_unit, psd_unit),
+//                heating_rate ("500 quanta/s", centre parameters only) with at_frequency
 #include <optional>
 #include <string>
 #include <string_view>
@@ -43,6 +47,7 @@
 #include "potentials/potential.hpp"
 #include "potentials/protocol.hpp"
 #include "solver/moving_wall.hpp"
+#include "solver/noise.hpp"
 #include "solver/spectrum.hpp"
 #include "solver/work.hpp"
 #include "solver/units.hpp"
@@ -121,6 +126,12 @@ struct SweepSpec {
   double internal_per_unit = 1;    // internal value of one display unit
 };
 
+// [noise] (solver/noise.hpp): the sources with their PSDs in internal units, and how each was
+// given, for the summary and the report.
+struct NoiseSettings {
+  NoiseRequest request;
+  std::vector<std::string> given;  // one per source: "trap.centre: heating_rate = 500 quanta/s at 1 MHz"
+};
 struct Scenario {
   std::string file;  // the scenario file as given ("default" for the built-in one)
   // How this run was asked for, recorded in every summary (provenance_json, output.hpp): the
@@ -142,6 +153,7 @@ struct Scenario {
   std::optional<ProtocolSpec> protocol;
   std::optional<WorkSettings> work;       // present when [initial] is
   std::optional<SweepSpec> sweep;
+  std::optional<NoiseSettings> noise;     // [noise]: `trapwork work` adds the noisy run
   // [box.soft_walls]: compare the hard-wall run with soft power-law walls of these widths
   // (compare_soft_walls, solver/moving_wall.hpp); only with moving walls.
   std::optional<SoftWallRequest> soft_walls;

@@ -1,5 +1,6 @@
 // The task layer (see tasks.hpp): the shared writers, spectrum and work.
 #include "solver/scenario/tasks.hpp"
+#include "solver/scenario/noise_output.hpp"
 
 #include <algorithm>
 #include <atomic>
@@ -96,9 +97,19 @@ void drop_hooks(WorkRequest& request) {
   request.on_estimate = nullptr;
 }
 
+// [noise] is applied by `work` alone so far: another command would give the noiseless answer
+// under a scenario that asks for noise.
+void refuse_noise(const Scenario& scenario, const std::string& command) {
+  if (scenario.noise)
+    throw InputError("noise", "a [noise] table",
+                     "no [noise] for `trapwork " + command + "`: only `trapwork work` adds the noise so far",
+                     "run `trapwork work` per point, or remove [noise] for the noiseless " + command, scenario.file);
+}
+
 }  // namespace
 
-ScenarioWork model_work(const Scenario& scenario, const TaskHooks& hooks) {
+ScenarioWork model_work(const Scenario& scenario, const TaskHooks& hooks, const std::string& command) {
+  refuse_noise(scenario, command);
   WorkRequest request = work_request(scenario);
   request.reverse_run = false;  // only the forward distribution is compared; the reverse run serves Crooks
   request.spectrum.options.interrupt = hooks.interrupt;
@@ -164,7 +175,7 @@ WorkOutcome work_task(const Scenario& scenario, std::optional<double> tolerance,
                       const TaskHooks& hooks) {
   WorkRequest request = work_request(scenario);
   request.spectrum.options.interrupt = hooks.interrupt;
-  WorkOutcome outcome{scenario, std::nullopt, std::nullopt};
+  WorkOutcome outcome{scenario, std::nullopt, std::nullopt, std::nullopt};
   if (tolerance) {
     if (!(*tolerance > 0 && *tolerance < 1))
       throw InputError("--tolerance", short_number(*tolerance), "a bound between 0 and 1 (e.g. 1e-4)");
@@ -183,17 +194,38 @@ WorkOutcome work_task(const Scenario& scenario, std::optional<double> tolerance,
     outcome.direct = naming_scenario(scenario.file, scenario, [&] { return compute_work(scenario, request); });
     drop_hooks(outcome.direct->request);
   }
+  if (scenario.noise) {  // [noise]: realisations on the chosen run's grid, frame and steps
+    const WorkRun run = outcome.run();
+    if (run.walls)
+      throw InputError("noise", "", "noise on a trap inside fixed walls; moving walls do not take noise yet", "",
+                       scenario.file);
+    if (hooks.stage) hooks.stage("noise realisations");
+    outcome.noise = naming_scenario(scenario.file, scenario, [&] {
+      return run_noisy_work(run.scenario.potential, run.protocol, run.request, scenario.noise->request, &run.result);
+    });
+  }
   return outcome;
 }
 
-std::vector<NamedTable> task_tables(const WorkOutcome& o) { return work_tables(o.run()); }
-nlohmann::ordered_json task_summary(const WorkOutcome& o) { return with_provenance(work_summary(o.run()), o.scenario); }
+std::vector<NamedTable> task_tables(const WorkOutcome& o) {
+  std::vector<NamedTable> tables = work_tables(o.run());
+  if (o.noise) tables.push_back({"noise_lines.csv", noise_lines_table(o.scenario, *o.noise)});
+  return tables;
+}
+nlohmann::ordered_json task_summary(const WorkOutcome& o) {
+  nlohmann::ordered_json summary = work_summary(o.run());
+  if (o.noise) summary["noise"] = noise_summary(o.scenario, *o.noise);
+  return with_provenance(summary, o.scenario);
+}
 std::vector<NamedText> task_texts(const WorkOutcome&) { return {}; }
 std::vector<NamedFigure> task_figures(const WorkOutcome& o) { return work_figures(o.run()); }
 std::vector<fs::path> write_task_outputs(const fs::path& folder, const WorkOutcome& o) {
   return write_outputs(folder, task_tables(o), "summary.json", task_summary(o), task_texts(o), task_figures(o));
 }
-void print_task_report(std::ostream& out, const WorkOutcome& o) { print_work_report(out, o.run()); }
+void print_task_report(std::ostream& out, const WorkOutcome& o) {
+  print_work_report(out, o.run());
+  if (o.noise) print_noise_report(out, o.scenario, *o.noise);
+}
 
 // ---- sweep ---------------------------------------------------------------------------------
 
@@ -203,6 +235,7 @@ SweepOutcome sweep_task(const Scenario& scenario, const SweepOptions& options, c
                      scenario.file);
   (void)build_protocol(scenario);  // the errors of a missing [protocol] or [initial] come first
   (void)work_request(scenario);
+  refuse_noise(scenario, "sweep");
   const SweepSpec& sweep = *scenario.sweep;
   const std::size_t points = sweep.values.size();
   std::vector<std::size_t> todo;

@@ -76,8 +76,9 @@ void watch_work(WorkRequest& request, const TaskHooks& hooks);
 
 // The work model of a scenario as `trapwork work` computes it (compute_work), without the
 // reverse run (compare and plan use the forward distribution only); stage "propagating".
-// PhysicsError names the scenario. The returned request holds no hooks.
-ScenarioWork model_work(const Scenario& scenario, const TaskHooks& hooks = {});
+// PhysicsError names the scenario; InputError for a [noise] table (`command` names the caller
+// in that message). The returned request holds no hooks.
+ScenarioWork model_work(const Scenario& scenario, const TaskHooks& hooks = {}, const std::string& command = "compare");
 
 // ---- spectrum ------------------------------------------------------------------------------
 struct SpectrumOutcome {
@@ -95,6 +96,7 @@ struct WorkOutcome {
   Scenario scenario;
   std::optional<ToleranceChoice> choice;  // with a tolerance: what the search chose
   std::optional<ScenarioWork> direct;     // without
+  std::optional<NoisyWorkResult> noise;   // [noise]: the noisy run beside the noiseless one
   // References into *this: keep the outcome in place while the run is used.
   WorkRun run() const;
 };

@@ -1,0 +1,418 @@
+#include "solver/noise.hpp"
+
+#include <fftw3.h>
+
+#include <algorithm>
+#include <atomic>
+#include <cmath>
+#include <exception>
+#include <limits>
+#include <memory>
+#include <mutex>
+#include <random>
+#include <thread>
+#include <unordered_map>
+
+#include "solver/errors.hpp"
+#include "solver/grid.hpp"
+#include "solver/hamiltonian.hpp"
+#include "solver/propagator.hpp"
+#include "solver/units.hpp"
+
+namespace trapwork {
+
+// ---- spectra and conversions ----------------------------------------------------------------
+
+NoiseSpectrum NoiseSpectrum::white(double level) {
+  if (!(level >= 0) || !std::isfinite(level))
+    throw InputError("noise", format_number(level), "a white noise level >= 0 and finite");
+  NoiseSpectrum s;
+  s.level_ = level;
+  return s;
+}
+
+NoiseSpectrum NoiseSpectrum::table(std::vector<double> frequency, std::vector<double> density) {
+  if (frequency.size() != density.size() || frequency.size() < 2)
+    throw InputError("noise", std::to_string(frequency.size()) + " rows",
+                     "a PSD table of at least 2 rows (frequency, density)");
+  for (std::size_t i = 0; i < frequency.size(); ++i) {
+    if (!std::isfinite(frequency[i]) || frequency[i] < 0 || (i > 0 && !(frequency[i] > frequency[i - 1])))
+      throw InputError("noise", "frequency " + format_number(frequency[i]) + " in row " + std::to_string(i + 1),
+                       "frequencies >= 0, strictly increasing");
+    if (!std::isfinite(density[i]) || density[i] < 0)
+      throw InputError("noise", "density " + format_number(density[i]) + " in row " + std::to_string(i + 1),
+                       "densities >= 0 and finite");
+  }
+  NoiseSpectrum s;
+  s.frequency_ = std::move(frequency);
+  s.density_ = std::move(density);
+  return s;
+}
+
+double NoiseSpectrum::operator()(double f) const {
+  if (frequency_.empty()) return level_;
+  if (f < frequency_.front() || f > frequency_.back()) return 0;
+  const auto hi = std::upper_bound(frequency_.begin(), frequency_.end(), f);
+  if (hi == frequency_.end()) return density_.back();
+  const std::size_t k = std::size_t(hi - frequency_.begin());
+  const double u = (f - frequency_[k - 1]) / (frequency_[k] - frequency_[k - 1]);
+  return density_[k - 1] + u * (density_[k] - density_[k - 1]);
+}
+
+// dn/dt = omega^3 S_x / 4 (m = hbar = 1; derived in tests/test_noise.cpp).
+double position_psd_from_heating_rate(double quanta_per_time, double omega) {
+  TRAPWORK_EXPECT(omega > 0, "position_psd_from_heating_rate: omega must be > 0");
+  return 4 * quanta_per_time / (omega * omega * omega);
+}
+
+double heating_rate_from_position_psd(double psd, double omega) { return omega * omega * omega * psd / 4; }
+
+std::string noise_psd_convention() {
+  return "one-sided power spectral density per ordinary frequency (Hz): the integral of S(f) over f >= 0 is "
+         "the variance; white noise S has <eps(t) eps(t')> = (S/2) delta(t - t')";
+}
+
+// ---- traces -------------------------------------------------------------------------------
+
+double NoiseTrace::operator()(double t) const {
+  const int n = int(values.size()) - 1;
+  if (n < 1) return values.empty() ? 0.0 : values.front();
+  const double u = t / tau * n;
+  const int i = std::clamp(int(std::floor(u)), 0, n - 1);  // end segments continued outside
+  const double s = u - i;
+  return values[std::size_t(i)] + s * (values[std::size_t(i) + 1] - values[std::size_t(i)]);
+}
+
+namespace {
+
+// Uniform on (0, 1) from the top 53 bits of one 64-bit draw (never 0, for the logarithm).
+double uniform_open(std::mt19937_64& engine) { return (double(engine() >> 11) + 0.5) * 0x1.0p-53; }
+
+// Box-Muller (common practice): two N(0, 1) samples from two uniforms, written out so that the
+// samples do not depend on the standard library's normal_distribution.
+void fill_gaussian(std::mt19937_64& engine, std::vector<double>& out) {
+  const double two_pi = 2 * si::pi;
+  for (std::size_t i = 0; i < out.size(); i += 2) {
+    const double r = std::sqrt(-2 * std::log(uniform_open(engine)));
+    const double phi = two_pi * uniform_open(engine);
+    out[i] = r * std::cos(phi);
+    if (i + 1 < out.size()) out[i + 1] = r * std::sin(phi);
+  }
+}
+
+}  // namespace
+
+NoiseTrace noise_trace(const NoiseSpectrum& spectrum, double tau, int intervals, std::uint64_t seed,
+                       std::uint64_t realisation, std::uint64_t source) {
+  TRAPWORK_EXPECT(tau > 0 && intervals >= 1, "noise_trace needs tau > 0 and intervals >= 1");
+  NoiseTrace trace;
+  trace.tau = tau;
+  trace.values.assign(std::size_t(intervals) + 1, 0.0);
+  const double dt = tau / intervals;
+  std::seed_seq sequence{std::uint32_t(seed), std::uint32_t(seed >> 32), std::uint32_t(realisation),
+                         std::uint32_t(realisation >> 32), std::uint32_t(source)};
+  std::mt19937_64 engine(sequence);
+  if (spectrum.is_white()) {  // the filter has a flat gain: the nodes are i.i.d. directly
+    if (spectrum.white_level() == 0) return trace;
+    fill_gaussian(engine, trace.values);
+    const double sigma = std::sqrt(spectrum.white_level() / (2 * dt));
+    for (double& v : trace.values) v *= sigma;
+    return trace;
+  }
+  const std::size_t m = fast_fft_size(2 * std::size_t(intervals) + 2);
+  std::vector<double> white(m);
+  fill_gaussian(engine, white);
+  std::vector<fftw_complex> modes(m / 2 + 1);
+  fftw_plan forward, backward;
+  {
+    std::lock_guard lock(fftw_planner_mutex());
+    forward = fftw_plan_dft_r2c_1d(int(m), white.data(), modes.data(), FFTW_ESTIMATE);
+    backward = fftw_plan_dft_c2r_1d(int(m), modes.data(), white.data(), FFTW_ESTIMATE);
+  }
+  fftw_execute(forward);
+  // gain sqrt(S(f_k) / (2 dt)) and FFTW's factor 1/m of the round trip
+  for (std::size_t k = 0; k < modes.size(); ++k) {
+    const double gain = std::sqrt(spectrum(double(k) / (double(m) * dt)) / (2 * dt)) / double(m);
+    modes[k][0] *= gain;
+    modes[k][1] *= gain;
+  }
+  fftw_execute(backward);
+  {
+    std::lock_guard lock(fftw_planner_mutex());
+    fftw_destroy_plan(forward);
+    fftw_destroy_plan(backward);
+  }
+  std::copy_n(white.begin(), trace.values.size(), trace.values.begin());
+  return trace;
+}
+
+// ---- realisations -------------------------------------------------------------------------
+
+namespace {
+
+// dV/dp(x) of the potential `at` by a central difference in p (header comment), added to
+// `out` times `weight`. up and down are scratch.
+void add_derivative(const Potential& at, const std::string& address, const std::vector<double>& x, double weight,
+                    std::vector<double>& out, std::vector<double>& up, std::vector<double>& down) {
+  up.resize(x.size());
+  down.resize(x.size());
+  const double p = at.parameter(address);
+  double h = 1e-4 * std::max(std::abs(p), 1.0);
+  if (p > 0 && p - h <= 0) h = 1e-4 * p;  // a positive parameter near 0 (a depth, a waist)
+  at.with(address, p + h).evaluate(x.data(), up.data(), x.size());
+  at.with(address, p - h).evaluate(x.data(), down.data(), x.size());
+  const double factor = weight / (2 * h);
+  for (std::size_t j = 0; j < x.size(); ++j) out[j] += factor * (up[j] - down[j]);
+}
+
+// dV/dp at each time the propagation samples the potential: the same times in every
+// realisation (the same step subdivision), so computed once and shared read-only.
+struct DerivativeTable {
+  std::unordered_map<double, std::size_t> row;  // sample time -> first row (one row per source)
+  std::vector<std::vector<double>> values;
+};
+
+// The noise term sum_p eps_p(t) dV/dp(x, t) at lab positions x. dV/dp from the shared table
+// when it holds the time, else computed here. Holds its own copies, so one instance per thread.
+class ParameterNoise {
+ public:
+  ParameterNoise(Potential base, Protocol protocol, std::vector<std::string> addresses, std::vector<NoiseTrace> traces,
+                 std::shared_ptr<const DerivativeTable> table)
+      : base_(std::move(base)), protocol_(std::move(protocol)), addresses_(std::move(addresses)),
+        traces_(std::move(traces)), table_(std::move(table)) {}
+  void operator()(double t, const std::vector<double>& x, std::vector<double>& v) {
+    bool any = false;
+    for (const auto& trace : traces_) any = any || trace(t) != 0;
+    if (!any) return;  // zero noise leaves the potential bit for bit
+    if (table_) {
+      if (const auto it = table_->row.find(t); it != table_->row.end()) {
+        for (std::size_t k = 0; k < addresses_.size(); ++k) {
+          const double eps = traces_[k](t);
+          const std::vector<double>& d = table_->values[it->second + k];
+          for (std::size_t j = 0; j < x.size(); ++j) v[j] += eps * d[j];
+        }
+        return;
+      }
+    }
+    const Potential at = protocol_.at(base_, t);
+    for (std::size_t k = 0; k < addresses_.size(); ++k)
+      if (const double eps = traces_[k](t); eps != 0) add_derivative(at, addresses_[k], x, eps, v, up_, down_);
+  }
+
+ private:
+  Potential base_;
+  Protocol protocol_;
+  std::vector<std::string> addresses_;
+  std::vector<NoiseTrace> traces_;
+  std::shared_ptr<const DerivativeTable> table_;
+  std::vector<double> up_, down_;
+};
+
+// Samples of dV/dp kept at most (doubles, 64 MiB); a longer run computes them as it goes.
+constexpr std::size_t derivative_table_limit = std::size_t(8) << 20;
+
+// One realisation: transition matrix P(m, n) and the direct <W> = sum_m p_m (<H_B>_m - E_m^A).
+struct Realisation {
+  Eigen::MatrixXd transitions;
+  double direct_mean = 0;
+};
+
+// Below this many substeps a run plans with FFTW_ESTIMATE, as run_work does (work.cpp).
+constexpr int planning_substeps = 4096;
+
+Realisation propagate_realisation(const PotentialPath& path, const WorkResult& w, const std::vector<double>& v_final,
+                                  const WorkRequest& request) {
+  const double tau = path.protocol().duration();
+  const int kept = w.forward.transitions.initial_levels();
+  Eigen::MatrixXcd psi = w.initial_spectrum.states.leftCols(kept).cast<std::complex<double>>();
+  path.from_lab(psi, 0);
+  const SplitOrder order = request.integrator == Integrator::strang ? SplitOrder::strang : SplitOrder::fourth;
+  const int substeps = w.steps * (order == SplitOrder::fourth ? 3 : 1);
+  SplitOperatorPropagator propagator(path, kept, order, 1,
+                                     substeps < planning_substeps ? FftPlanning::estimate : FftPlanning::measure);
+  propagate(propagator, psi, 0.0, tau, w.steps, observe_every(finite_check_interval, NoObserver{}));
+  path.to_lab(psi, tau);
+  Realisation r;
+  const Eigen::MatrixXcd amplitudes = project(w.final_spectrum, psi);
+  r.transitions = transition_matrix(amplitudes).probability;
+  const StateEnergies e = state_energies(path.grid(), v_final, psi);
+  for (int m = 0; m < kept; ++m)
+    r.direct_mean += w.forward.initial_weights[std::size_t(m)] * (e.energy[m] - w.forward.initial_energies[m]);
+  return r;
+}
+
+// Jackknife standard error of the values theta_r computed with realisation r left out.
+double jackknife_error(const std::vector<double>& leave_one_out) {
+  const double n = double(leave_one_out.size());
+  double mean = 0;
+  for (double v : leave_one_out) mean += v;
+  mean /= n;
+  double sum = 0;
+  for (double v : leave_one_out) sum += (v - mean) * (v - mean);
+  return std::sqrt((n - 1) / n * sum);
+}
+
+Estimate sample_mean(const std::vector<double>& values) {
+  const double n = double(values.size());
+  double mean = 0;
+  for (double v : values) mean += v;
+  mean /= n;
+  double sum = 0;
+  for (double v : values) sum += (v - mean) * (v - mean);
+  return {mean, std::sqrt(sum / (n - 1) / n)};
+}
+
+std::string text(double v) {
+  char buffer[32];
+  std::snprintf(buffer, sizeof buffer, "%.3g", v);
+  return buffer;
+}
+
+}  // namespace
+
+NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, const WorkRequest& request,
+                               const NoiseRequest& noise, const WorkResult* noiseless) {
+  if (noise.sources.empty()) throw InputError("noise", "", "at least one noise source");
+  if (noise.realisations < 2)
+    throw InputError("noise_run.realisations", std::to_string(noise.realisations),
+                     "at least 2 realisations (the standard errors need two)");
+  const Potential initial = protocol.initial(base);
+  for (const auto& s : noise.sources) (void)initial.parameter(s.address);  // InputError for an unknown address
+  if (!(protocol.duration() > 0))
+    throw PhysicsError("noise needs a protocol of finite duration: a sudden switch (tau = 0) leaves no time for it");
+  if (request.integrator == Integrator::eigenbasis)
+    throw PhysicsError("noise is propagated by realisations with the split-operator integrator: write integrator = "
+                       "\"order4\" or \"strang\" (the eigenbasis route for white noise, Lindblad, is not there yet)");
+
+  NoisyWorkResult out;
+  out.noiseless = noiseless ? *noiseless : run_work(base, protocol, request);
+  const WorkResult& w = out.noiseless;
+  const double tau = protocol.duration();
+  out.steps = w.steps;
+  out.realisations = noise.realisations;
+  out.seed = noise.seed;
+  out.psd_convention = noise_psd_convention();
+  out.route = "realisations: " + std::to_string(noise.realisations) + " noise traces, each propagated by the " + w.method;
+  const PotentialPath path = w.co_moving ? PotentialPath::co_moving(w.grid, base, protocol)
+                                         : PotentialPath::lab(w.grid, base, protocol);
+  std::vector<double> lab(w.grid.points());
+  for (double& x : lab) x += path.displacement(tau);
+  const std::vector<double> v_final = protocol.final(base).evaluate(lab);
+  std::vector<std::string> addresses;
+  for (const auto& s : noise.sources) addresses.push_back(s.address);
+
+  // the transition matrix of every realisation is kept (the jackknife of var W and of the
+  // Jarzynski average needs them): refuse a run whose matrices would not fit
+  const double matrix_bytes = double(noise.realisations + 1) * double(w.forward.transitions.initial_levels()) *
+                              double(w.forward.transitions.final_levels()) * sizeof(double);
+  const double limit = request.spectrum.options.memory_limit > 0 ? request.spectrum.options.memory_limit / 2 : 0x1.0p31;
+  if (matrix_bytes > limit)
+    throw PhysicsError("noise: " + std::to_string(noise.realisations) + " realisations of " +
+                       std::to_string(w.forward.transitions.initial_levels()) + " x " +
+                       std::to_string(w.forward.transitions.final_levels()) + " transition matrices need " +
+                       text(matrix_bytes / 1e9) + " GB, above " + text(limit / 1e9) +
+                       " GB: lower the realisations (the standard errors scale as 1/sqrt(realisations))");
+  // runs[0] is the noiseless baseline through the same code (the reference of the extra
+  // energy), recording the times the potential is sampled at; runs[1 .. R] the noisy ones
+  const int total = noise.realisations + 1;
+  std::vector<Realisation> runs(std::size_t(total), Realisation{});
+  auto times = std::make_shared<std::vector<double>>();
+  runs[0] = propagate_realisation(
+      path.with_perturbation([times](double t, const std::vector<double>&, std::vector<double>&) { times->push_back(t); }),
+      w, v_final, request);
+  std::sort(times->begin(), times->end());
+  times->erase(std::unique(times->begin(), times->end()), times->end());
+  std::shared_ptr<DerivativeTable> table;
+  if (times->size() * w.grid.size() * noise.sources.size() <= derivative_table_limit) {
+    table = std::make_shared<DerivativeTable>();
+    const std::vector<double> points = w.grid.points();
+    std::vector<double> x(points.size()), up, down;
+    for (double t : *times) {
+      const double d = path.displacement(t);
+      for (std::size_t j = 0; j < x.size(); ++j) x[j] = points[j] + d;  // as PotentialPath::sample
+      const Potential at = protocol.at(base, t);
+      table->row.emplace(t, table->values.size());
+      for (const auto& address : addresses) {
+        table->values.emplace_back(x.size(), 0.0);
+        add_derivative(at, address, x, 1.0, table->values.back(), up, down);
+      }
+    }
+  }
+  auto run_one = [&](int index) {
+    std::vector<NoiseTrace> traces;
+    for (std::size_t k = 0; k < noise.sources.size(); ++k)
+      traces.push_back(noise_trace(noise.sources[k].spectrum, tau, w.steps, noise.seed, std::uint64_t(index - 1), k));
+    const PotentialPath noisy =
+        path.with_perturbation(ParameterNoise(base, protocol, addresses, std::move(traces), table));
+    runs[std::size_t(index)] = propagate_realisation(noisy, w, v_final, request);
+  };
+  std::atomic<int> next{1}, done{0};
+  std::exception_ptr failure;
+  std::mutex failure_mutex;
+  auto worker = [&] {
+    for (int i; (i = next++) < total;) {
+      try {
+        run_one(i);
+      } catch (...) {
+        std::lock_guard lock(failure_mutex);
+        if (!failure) failure = std::current_exception();
+        next = total;
+      }
+      ++done;
+    }
+  };
+  const int threads = std::max(1, std::min(request.threads, total));
+  std::vector<std::thread> pool;
+  for (int t = 1; t < threads; ++t) {
+    try {
+      pool.emplace_back(worker);
+    } catch (const std::system_error&) {
+      break;  // fewer workers: the same results, more time
+    }
+  }
+  worker();
+  for (auto& t : pool) t.join();
+  if (failure) std::rethrow_exception(failure);
+
+  // averages and their errors
+  const int R = noise.realisations;
+  Eigen::MatrixXd sum = Eigen::MatrixXd::Zero(runs[1].transitions.rows(), runs[1].transitions.cols());
+  for (int r = 1; r <= R; ++r) sum += runs[std::size_t(r)].transitions;
+  WorkInput input = w.forward;
+  input.transitions.probability = sum / R;
+  out.distribution = work_distribution(input, request.merge_tolerance);
+  const std::size_t lines = out.distribution.lines.size();
+  std::vector<std::vector<double>> line_loo(lines, std::vector<double>(std::size_t(R)));
+  const std::size_t count = std::size_t(R);
+  std::vector<double> mean_loo(count), variance_loo(count), jarzynski_loo(count);
+  for (int r = 1; r <= R; ++r) {
+    input.transitions.probability = (sum - runs[std::size_t(r)].transitions) / (R - 1);
+    const WorkDistribution d = work_distribution(input, request.merge_tolerance);
+    TRAPWORK_EXPECT(d.lines.size() == lines, "run_noisy_work: the line structure depends on energies only");
+    for (std::size_t l = 0; l < lines; ++l) line_loo[l][std::size_t(r - 1)] = d.lines[l].probability;
+    mean_loo[std::size_t(r - 1)] = d.mean;
+    variance_loo[std::size_t(r - 1)] = d.variance;
+    jarzynski_loo[std::size_t(r - 1)] = d.jarzynski_average;
+  }
+  for (std::size_t l = 0; l < lines; ++l) out.line_error.push_back(jackknife_error(line_loo[l]));
+  out.mean = {out.distribution.mean, jackknife_error(mean_loo)};
+  out.variance = {out.distribution.variance, jackknife_error(variance_loo)};
+  const double nan = std::numeric_limits<double>::quiet_NaN();
+  out.jarzynski = w.forward.beta ? Estimate{out.distribution.jarzynski_average, jackknife_error(jarzynski_loo)}
+                                 : Estimate{nan, nan};
+  for (int r = 1; r <= R; ++r) out.realisation_direct_mean.push_back(runs[std::size_t(r)].direct_mean);
+  out.direct_mean = sample_mean(out.realisation_direct_mean);
+  out.extra_energy = {out.direct_mean.value - runs[0].direct_mean, out.direct_mean.error};
+  out.heating_rate = {out.extra_energy.value / tau, out.extra_energy.error / tau};
+  if (const auto h = initial.harmonic_part()) out.harmonic_omega = h->first;
+  out.heating_quanta_rate = out.harmonic_omega > 0 ? Estimate{out.heating_rate.value / out.harmonic_omega,
+                                                               out.heating_rate.error / out.harmonic_omega}
+                                                   : Estimate{nan, nan};
+  if (out.distribution.unresolved_weight > request.unresolved_tolerance)
+    out.warnings.push_back("with noise the unresolved final weight is " + text(out.distribution.unresolved_weight) +
+                           " (above " + text(request.unresolved_tolerance) +
+                           "): the noise heats beyond the final levels kept; raise final_margin");
+  return out;
+}
+
+}  // namespace trapwork

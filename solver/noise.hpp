@@ -1,0 +1,143 @@
+#pragma once
+// Technical noise on named parameters of the potential during a protocol: the realisations
+// route (design: DEVELOPERS.md, "Noise during the protocol").
+//
+// Model: H(t) = H_0(t) + sum_p eps_p(t) dH/dp(t), p a parameter address ("trap.centre",
+// "trap.frequency", "tweezer.depth", a formula parameter), dH/dp = dV/dp(x; parameters at t)
+// by a central difference of the potential in p (step h = 1e-4 max(|p|, 1), or 1e-4 |p| for a
+// positive parameter below 1e-4: error O(h^2 d^3V/dp^3), exact for V quadratic in p such as
+// the centre and frequency of a harmonic term). The noises of different parameters are
+// independent, stationary and Gaussian.
+//
+// PSD convention: one-sided, per ordinary frequency f (cycles per unit time), so that
+//   integral_0^inf S(f) df = <eps^2>,   and white noise S(f) = S has <eps(t) eps(t')> = (S/2) delta(t - t').
+// Internal units (solver/units.hpp): f in cycles per T0, S in (parameter unit)^2 T0.
+//
+// Heating of a harmonic trap (omega, m = hbar = 1 inside) from the golden rule, or from the
+// Lindblad equation of white noise (derivations in tests/test_noise.cpp):
+//   position noise on the centre  d<E>/dt = omega^4 S_x(f_trap) / 4, i.e. dn/dt = omega^3 S_x / 4
+//   (= S_F/(4 m hbar omega) with the force PSD S_F = m^2 omega^4 S_x; Turchette et al.,
+//   Phys. Rev. A 61, 063418 (2000), for the electric-field form; Savard, O'Hara and Thomas,
+//   Phys. Rev. A 56, R1095 (1997) write (pi/2) m omega^4 S_x(omega) with S per angular
+//   frequency, the same rate; from memory);
+//   spring-constant noise k(1 + eps)  d<E>/dt = Gamma <E>, Gamma = pi^2 f_trap^2 S_eps(2 f_trap)
+//   (Savard et al., same paper, from memory, with S per ordinary frequency).
+//
+// Realisations: each realisation draws one trace per noise from the PSD on the protocol's
+// time grid and propagates the kept initial states (one batch) with the split-operator
+// propagator of the noiseless run, on its grid and frame; the TPM transition matrices are
+// averaged. Every trace is a closed (unitary) evolution.
+#include <cstdint>
+#include <string>
+#include <vector>
+
+#include "solver/work.hpp"
+
+namespace trapwork {
+
+// A one-sided power spectral density (PSD convention above).
+class NoiseSpectrum {
+ public:
+  // S(f) = level for all f >= 0; level >= 0 and finite.
+  static NoiseSpectrum white(double level);
+  // Linear interpolation through (frequency_i, density_i); 0 outside [frequency_0,
+  // frequency_last]. Frequencies >= 0 strictly increasing, densities >= 0, all finite, >= 2
+  // rows. Throws InputError (key "noise") otherwise.
+  static NoiseSpectrum table(std::vector<double> frequency, std::vector<double> density);
+  double operator()(double frequency) const;
+  bool is_white() const { return frequency_.empty(); }
+  double white_level() const { return level_; }
+  const std::vector<double>& frequencies() const { return frequency_; }
+  const std::vector<double>& densities() const { return density_; }
+
+ private:
+  double level_ = 0;
+  std::vector<double> frequency_, density_;
+};
+
+// The centre-position PSD that heats a harmonic trap of angular frequency omega by
+// `quanta_per_time` quanta per unit time (internal units, m = hbar = 1):
+//   S_x = 4 (dn/dt) / omega^3   (inverse of dn/dt = omega^3 S_x / 4 above).
+double position_psd_from_heating_rate(double quanta_per_time, double omega);
+// The inverse: quanta per unit time from a centre-position PSD at omega.
+double heating_rate_from_position_psd(double psd, double omega);
+
+// Noise on one parameter of the potential.
+struct NoiseSource {
+  std::string address;  // "trap.centre"
+  NoiseSpectrum spectrum = NoiseSpectrum::white(0);
+};
+
+struct NoiseRequest {
+  std::vector<NoiseSource> sources;
+  int realisations = 100;   // >= 2 (the standard errors need two)
+  std::uint64_t seed = 1;   // traces depend on (seed, realisation, source index) only
+};
+
+// A noise trace eps(t) on the nodes t_i = i tau/N, i = 0..N, linearly interpolated between
+// them (the end segments continued slightly beyond [0, tau], where the fourth-order
+// composition samples).
+struct NoiseTrace {
+  double tau = 0;
+  std::vector<double> values;  // N + 1 node values
+  double operator()(double t) const;
+};
+
+// Draws a trace: N(0, 1) samples on M >= 2N nodes (M a fast FFT size: the trace is one
+// period of a circulant process, so its start and end are not correlated through the
+// wrap-around), filtered in frequency space with the gain sqrt(S(f_k) / (2 dt)) at
+// f_k = k / (M dt) (real FFT, FFTW), the first N + 1 nodes kept. For white S this is i.i.d.
+// nodes of variance S / (2 dt); in general the nodes have the PSD S(f) at the frequencies of
+// the long period (resolution 1/(M dt) <= 1/(2 tau)), with nothing above the node Nyquist
+// frequency 1/(2 dt). Gaussian amplitudes, not random phases with fixed amplitudes: a sum of
+// fixed-amplitude sinusoids is not Gaussian and understates the scatter between realisations.
+// The random numbers: std::mt19937_64 from std::seed_seq{seed low/high words, realisation,
+// source}, Gaussian by Box-Muller on 53-bit uniforms written out here, so that a trace is the
+// same with any standard library.
+NoiseTrace noise_trace(const NoiseSpectrum& spectrum, double tau, int intervals, std::uint64_t seed,
+                       std::uint64_t realisation, std::uint64_t source);
+
+// A quantity averaged over realisations with its standard error (jackknife over the
+// realisations: for averages of one realisation's values it is the usual sd / sqrt(R); for
+// the variance and the Jarzynski average, functions of the averaged transition matrix, the
+// leave-one-out estimate, Efron and Stein, Ann. Stat. 9, 586 (1981), common practice).
+struct Estimate {
+  double value = 0;
+  double error = 0;  // standard error
+};
+
+struct NoisyWorkResult {
+  WorkResult noiseless;            // run_work without noise: grid, frame, steps, spectra
+  WorkDistribution distribution;   // from the transition matrix averaged over the realisations
+  std::vector<double> line_error;  // standard error of each line probability (same order)
+  Estimate mean, variance;         // <W>, var W of the noisy distribution
+  Estimate jarzynski;              // <exp(-beta W)> (Gibbs initial state; NaN otherwise)
+  Estimate direct_mean;            // <W> from <psi_m|H_B|psi_m> - E_m^A (no final-level sum)
+  Estimate extra_energy;           // direct <W> with noise minus without: energy the noise added
+  Estimate heating_rate;           // extra_energy / tau (energy per time)
+  double harmonic_omega = 0;       // the initial potential's harmonic frequency (0: none)
+  Estimate heating_quanta_rate;    // heating_rate / omega_h (quanta per time; NaN without omega_h)
+  std::vector<double> realisation_direct_mean;  // direct <W> of each realisation
+  int realisations = 0;
+  std::uint64_t seed = 0;
+  int steps = 0;                   // the protocol's time steps = trace intervals
+  std::string route;               // "realisations (split-operator, ...)"
+  std::string psd_convention;      // the sentence for the summary
+  std::vector<std::string> warnings;
+};
+
+// The noisy TPM work statistics by realisations. Runs run_work (noiseless) first, then
+// request.realisations noisy propagations on its grid and frame with its time steps, spread
+// over request.threads worker threads (each realisation one batch of the kept initial
+// states, on one thread; results do not depend on the thread count). Throws InputError for
+// an address the potential does not have or an empty request, PhysicsError for the sudden
+// limit (tau = 0) or the eigenbasis integrator (its Lindblad route is not there yet).
+// `noiseless`, when given, is run_work(base, protocol, request) already computed (the front
+// end's run), used instead of a second run.
+NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, const WorkRequest& request,
+                               const NoiseRequest& noise, const WorkResult* noiseless = nullptr);
+
+// The summary sentence of the PSD convention.
+std::string noise_psd_convention();
+
+}  // namespace trapwork

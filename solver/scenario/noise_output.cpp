@@ -1,0 +1,102 @@
+#include "solver/scenario/noise_output.hpp"
+
+#include <cmath>
+#include <string>
+
+namespace trapwork {
+
+namespace {
+
+// "0.0123 +- 0.0004 h*kHz" (the value and its standard error in one unit)
+std::string with_error(const Estimate& e, double per_unit, const std::string& unit) {
+  return short_number(e.value / per_unit, 5) + " +- " + short_number(e.error / per_unit, 2) +
+         (unit.empty() ? std::string() : " " + unit);
+}
+
+// quanta per second from quanta per internal time
+double per_second(const Scenario& s, double per_internal_time) { return per_internal_time / s.units.time_s(); }
+
+}  // namespace
+
+CsvTable noise_lines_table(const Scenario& s, const NoisyWorkResult& r) {
+  const Display d = display(s);
+  const WorkDistribution& clean = r.noiseless.distribution;
+  CsvTable t;
+  t.columns = {{"work" + d.e_col, {}}, {"probability_noisy", {}}, {"probability_noisy_error", {}},
+               {"probability_noiseless", {}}, {"initial", {}}, {"final", {}}};
+  for (std::size_t l = 0; l < r.distribution.lines.size(); ++l) {
+    const WorkLine& line = r.distribution.lines[l];
+    t.columns[0].values.push_back(d.energy(line.work));
+    t.columns[1].values.push_back(line.probability);
+    t.columns[2].values.push_back(r.line_error[l]);
+    // the same line structure (it depends on the energies only)
+    t.columns[3].values.push_back(l < clean.lines.size() ? clean.lines[l].probability : std::nan(""));
+    t.columns[4].values.push_back(line.initial);
+    t.columns[5].values.push_back(line.final);
+  }
+  t.comments = {
+      "trapwork work: work lines with noise during the protocol (" + r.route + ", seed " + std::to_string(r.seed) + ")",
+      "probability_noisy: averaged over the realisations; probability_noisy_error: its standard error (jackknife)",
+      "PSD convention: " + r.psd_convention,
+  };
+  return t;
+}
+
+nlohmann::ordered_json noise_summary(const Scenario& s, const NoisyWorkResult& r) {
+  const Display d = display(s);
+  nlohmann::ordered_json j;
+  j["route"] = r.route;
+  j["psd_convention"] = r.psd_convention;
+  j["realisations"] = r.realisations;
+  j["seed"] = r.seed;
+  j["time_steps"] = r.steps;
+  if (s.noise) j["sources"] = s.noise->given;
+  auto estimate = [&](const Estimate& e, double per) {
+    nlohmann::ordered_json o;
+    o["value"] = std::isfinite(e.value) ? nlohmann::ordered_json(e.value / per) : nlohmann::ordered_json(nullptr);
+    o["standard_error"] = std::isfinite(e.error) ? nlohmann::ordered_json(e.error / per) : nlohmann::ordered_json(nullptr);
+    return o;
+  };
+  const std::string ec = d.e_col;
+  j["mean_work" + ec] = estimate(r.mean, d.energy_per);
+  j["mean_work_noiseless" + ec] = r.noiseless.distribution.mean / d.energy_per;
+  j["work_variance" + ec + "2"] = estimate(r.variance, d.energy_per * d.energy_per);
+  j["work_variance_noiseless" + ec + "2"] = r.noiseless.distribution.variance / (d.energy_per * d.energy_per);
+  j["jarzynski_average"] = estimate(r.jarzynski, 1);
+  j["partition_ratio"] = std::isfinite(r.distribution.partition_ratio) ? nlohmann::ordered_json(r.distribution.partition_ratio)
+                                                                         : nlohmann::ordered_json(nullptr);
+  j["extra_energy" + ec] = estimate(r.extra_energy, d.energy_per);
+  if (r.harmonic_omega > 0)
+    j["heating_rate_quanta_per_s"] = estimate({per_second(s, r.heating_quanta_rate.value),
+                                               per_second(s, r.heating_quanta_rate.error)}, 1);
+  j["unresolved_weight"] = r.distribution.unresolved_weight;
+  j["warnings"] = r.warnings;
+  return j;
+}
+
+void print_noise_report(std::ostream& out, const Scenario& s, const NoisyWorkResult& r) {
+  const Display d = display(s);
+  auto row = [&](const std::string& label, const std::string& text) { print_row(out, label, text); };
+  out << "\nnoise during the protocol\n";
+  if (s.noise)
+    for (std::size_t k = 0; k < s.noise->given.size(); ++k) row(k == 0 ? "sources" : "", s.noise->given[k]);
+  row("route", r.route + ", seed " + std::to_string(r.seed));
+  row("PSD", r.psd_convention);
+  row("<W>", with_error(r.mean, d.energy_per, d.e) + " (noiseless " +
+                 short_number(r.noiseless.distribution.mean / d.energy_per, 5) + " " + d.e + ")");
+  row("var W", with_error(r.variance, d.energy_per * d.energy_per, "(" + d.e + ")^2") + " (noiseless " +
+                   short_number(r.noiseless.distribution.variance / (d.energy_per * d.energy_per), 5) + ")");
+  row("extra E", with_error(r.extra_energy, d.energy_per, d.e) + " from the noise (direct <H_B>, all levels)");
+  if (r.harmonic_omega > 0)
+    row("heating", with_error({per_second(s, r.heating_quanta_rate.value), per_second(s, r.heating_quanta_rate.error)},
+                              1, "quanta/s") +
+                       " over the protocol, in quanta of the initial harmonic frequency");
+  if (std::isfinite(r.jarzynski.value))
+    row("Jarzynski", "<exp(-beta W)> = " + with_error(r.jarzynski, 1, "") + " against Z_B/Z_A = " +
+                         short_number(r.distribution.partition_ratio, 8) +
+                         " (each trace is unitary: it holds per trace up to truncation)");
+  row("lines", "noise_lines.csv: P(W) with and without noise, each noisy line with its standard error");
+  for (const auto& w : r.warnings) row("WARN", w);
+}
+
+}  // namespace trapwork
