@@ -41,6 +41,12 @@ class Grid {
   std::vector<double> kinetic_;
 };
 
+// The band-limited function that real samples on `g` represent (the one its kinetic energy
+// acts on), evaluated at `x`: the trigonometric interpolant of a periodic grid (the Nyquist
+// mode as a cosine) or the sine series of a box (0 at and beyond the walls). Direct sums,
+// O(n (n + x.size())): meant for drawing states of small grids smoothly.
+std::vector<double> band_limited_values(const Grid& g, const std::vector<double>& samples, const std::vector<double>& x);
+
 // Smallest n' >= n of the form 2^a 3^b 5^c, even (fast FFT sizes).
 std::size_t fast_fft_size(std::size_t n);
 

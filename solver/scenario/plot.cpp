@@ -340,14 +340,25 @@ int tick_count(double fraction, double page_px, double room) {
   return std::max(3, static_cast<int>(fraction * page_px / room));
 }
 
+double y_tick_step(const Panel& p) {
+  return p.log_y ? 0 : nice_step(p.y_hi - p.y_lo, tick_count(p.viewport[3] - p.viewport[2], page_height_px, y_tick_room_px));
+}
+
+// The panel's left edge (page fraction) moved right where its left axis label, beyond tick
+// labels as wide as "12000", would leave the page: a character at text_scale is about 19 px
+// high on the 1200 px page (measured on the rendered levels figure).
+void make_room_for_left_label(Panel& p) {
+  const double distance = label_distance(p.y_lo, p.y_hi, y_tick_step(p), p.log_y, p.log_step_y);
+  p.viewport[0] = std::max(p.viewport[0], (distance + 1.0) * 19.0 * text_scale / page_width_px);
+}
+
 // Draws the panel's frame; returns the distance for its left axis label.
 double draw_frame(const Panel& p) {
   plvpor(p.viewport[0], p.viewport[1], p.viewport[2], p.viewport[3]);
   plwind(p.x_lo, p.x_hi, p.y_lo, p.y_hi);
   const double x_tick = p.log_x ? 0
       : nice_step(p.x_hi - p.x_lo, tick_count(p.viewport[1] - p.viewport[0], page_width_px, x_tick_room_px));
-  const double y_tick = p.log_y ? 0
-      : nice_step(p.y_hi - p.y_lo, tick_count(p.viewport[3] - p.viewport[2], page_height_px, y_tick_room_px));
+  const double y_tick = y_tick_step(p);
   // Log axes over many decades get no minor ticks: they would merge into a black band.
   const auto minor = [](bool log, double span) {
     return log ? (span <= 6 ? "ls" : "l") : "s";
@@ -667,6 +678,7 @@ std::vector<fs::path> draw_levels(const fs::path& stem, const LevelsFigure& f) {
   };
   if (f.panels.size() == 1) frames = {frame(0, 0.11, 0.97, true)};
   else frames = {frame(0, 0.11, 0.535, true), frame(1, 0.55, 0.975, false)};
+  make_room_for_left_label(frames.front());
 
   return write_png_and_svg(stem, [&] {
     figure_title(f.title);

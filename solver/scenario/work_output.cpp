@@ -867,7 +867,16 @@ LevelsPanel levels_panel(const Scenario& s, const LengthUnit& lu, const std::str
   const Display d = display(s);
   LevelsPanel p;
   p.title = title;
-  const auto x = sp.grid.points();
+  // A small grid (a Hermite basis' few dozen points) is drawn at 400 points, each state by the
+  // band-limited function its samples represent, so that |psi|^2 is a smooth curve.
+  const std::size_t size = sp.grid.size();
+  std::vector<double> x = sp.grid.points();
+  if (size < 400) {
+    const double lo = sp.grid.boundary() == Boundary::periodic ? sp.grid.left() : sp.grid.x(0);
+    const double hi = sp.grid.x(size - 1);
+    x.resize(400);
+    for (std::size_t i = 0; i < x.size(); ++i) x[i] = lo + (hi - lo) * double(i) / double(x.size() - 1);
+  }
   std::vector<double> xs(x);
   for (double& xi : xs) xi += shift;
   const auto values = v.evaluate(xs);
@@ -878,8 +887,11 @@ LevelsPanel levels_panel(const Scenario& s, const LengthUnit& lu, const std::str
   const int n = std::min<int>(shown, int(sp.energies.size()));
   for (int k = 0; k < n; ++k) p.energies.push_back(d.energy(sp.energies[k]));
   for (int k = 0; k < std::min(n, 4); ++k) {
-    std::vector<double> rho(xs.size());
-    for (std::size_t j = 0; j < xs.size(); ++j) rho[j] = sp.states(Eigen::Index(j), k) * sp.states(Eigen::Index(j), k);
+    std::vector<double> psi(size);
+    for (std::size_t j = 0; j < size; ++j) psi[j] = sp.states(Eigen::Index(j), k);
+    if (size < 400) psi = band_limited_values(sp.grid, psi, x);
+    std::vector<double> rho(psi.size());
+    for (std::size_t j = 0; j < psi.size(); ++j) rho[j] = psi[j] * psi[j];
     p.densities.push_back(std::move(rho));
   }
   if (sp.grid.boundary() == Boundary::hard_wall)
@@ -1067,6 +1079,7 @@ SweepFigure populations_figure(const WorkRun& run) {
   f.x_label = std::string("level n of H_B (final) or H_A (initial p#dn#u, drawn at n - 0.25") +
               (reference.empty() ? ")" : "; harmonic at n + 0.25)");
   f.y_label = "population";
+  f.log_y = true;  // the tail (down to 1e-4 of the largest population) is read on a log axis
   SweepPoints numeric{"final P(n), numerical", {}, {}, {}}, initial{"initial p#dn#u", {}, {}, {}};
   for (std::size_t n = 0; n < shown; ++n) {
     numeric.x.push_back(double(n));
