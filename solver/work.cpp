@@ -887,16 +887,29 @@ std::optional<HarmonicMoments> harmonic_moments(const Potential& base, const Pro
                                                 const InitialState& initial, std::string& why_not) {
   const auto h = harmonic_model(base, protocol, why_not);
   if (!h) return std::nullopt;
-  double mean_occupation = 0;
+  // <m> and <m^2> of the initial level index m in the harmonic trap (thermal: <m^2> = 2 nbar^2 + nbar)
+  double mean_occupation = 0, second = 0;
   switch (initial.kind()) {
-    case InitialState::Kind::thermal: mean_occupation = 1 / std::expm1(initial.parameter() * h->w0); break;
-    case InitialState::Kind::phonons: mean_occupation = initial.parameter(); break;
-    case InitialState::Kind::eigenstate: mean_occupation = initial.level(); break;
+    case InitialState::Kind::thermal:
+    case InitialState::Kind::phonons:
+      mean_occupation = initial.kind() == InitialState::Kind::phonons ? initial.parameter()
+                                                                       : 1 / std::expm1(initial.parameter() * h->w0);
+      second = 2 * mean_occupation * mean_occupation + mean_occupation;
+      break;
+    case InitialState::Kind::eigenstate:
+      mean_occupation = initial.level();
+      second = mean_occupation * mean_occupation;
+      break;
     case InitialState::Kind::mixture: {
       const auto& p = initial.mixture_weights();
       double total = 0;
-      for (std::size_t m = 0; m < p.size(); ++m) mean_occupation += double(m) * p[m], total += p[m];
+      for (std::size_t m = 0; m < p.size(); ++m) {
+        mean_occupation += double(m) * p[m];
+        second += double(m) * double(m) * p[m];
+        total += p[m];
+      }
       mean_occupation /= total;
+      second /= total;
       break;
     }
   }
@@ -905,8 +918,17 @@ std::optional<HarmonicMoments> harmonic_moments(const Potential& base, const Pro
   if (h->displaced) {  // <W> = omega |alpha|^2, var W = omega^2 |alpha|^2 (2 nbar + 1)
     m.mean = h->w0 * h->parameter;
     m.sd = h->w0 * std::sqrt(h->parameter * (2 * mean_occupation + 1));
-  } else {  // <W> = (omega1 Q* - omega0) (nbar + 1/2)
-    m.mean = (h->w1 * h->parameter - h->w0) * (mean_occupation + 0.5);
+  } else {
+    // <W> = (omega1 Q* - omega0) (nbar + 1/2). var W: the evolution is a Bogoliubov map,
+    // U^+ a_1 U = u a_0 + v a_0^+ (|u|^2 - |v|^2 = 1, Q* = |u|^2 + |v|^2), so from level m the
+    // final energy has mean omega1 Q* (m + 1/2) and variance omega1^2 |u v|^2 <m|a^2 a^+2 + a^+2 a^2|m>
+    // = omega1^2 (Q*^2 - 1) (m^2 + m + 1) / 2; over the initial levels
+    // var W = omega1^2 (Q*^2 - 1) <m^2 + m + 1> / 2 + (omega1 Q* - omega0)^2 var m
+    // (derived here from Husimi's Q*; tested against the Husimi transition matrix).
+    const double q = h->parameter, slope = h->w1 * q - h->w0;
+    m.mean = slope * (mean_occupation + 0.5);
+    const double var_m = std::max(0.0, second - mean_occupation * mean_occupation);
+    m.sd = std::sqrt(h->w1 * h->w1 * (q * q - 1) * (second + mean_occupation + 1) / 2 + slope * slope * var_m);
   }
   return m;
 }

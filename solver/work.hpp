@@ -309,8 +309,9 @@ struct HarmonicComparison {
 // nbar; level n: n; a mixture: sum m p_m):
 // displaced oscillator <W> = omega |alpha|^2, var W = omega^2 |alpha|^2 (2 nbar + 1) (the
 // thermal form of displaced_thermal_variance with coth(beta omega/2) = 2 nbar + 1); parametric
-// oscillator <W> = (omega1 Q* - omega0)(nbar + 1/2) (parametric_mean_work), sd NaN (no closed
-// form used here). Nothing, with the reason in why_not, where no harmonic model applies.
+// oscillator <W> = (omega1 Q* - omega0)(nbar + 1/2) (parametric_mean_work), var W =
+// omega1^2 (Q*^2 - 1) <m^2 + m + 1> / 2 + (omega1 Q* - omega0)^2 var m over the initial level
+// index m (derived in work.cpp). Nothing, with the reason in why_not, where no harmonic model applies.
 struct HarmonicMoments {
   std::string model;
   double mean = 0;

@@ -328,13 +328,43 @@ TEST_CASE("issue 16: harmonic_moments gives the harmonic <W> and sd W without a 
   const auto level = harmonic_moments(trap, move, InitialState::eigenstate(2), why);
   REQUIRE(level);
   CHECK(level->sd * level->sd == Approx(alpha2 * 5).epsilon(1e-9));
-  // Parametric oscillator: <W> = (omega1 Q* - omega0) coth(beta omega0 / 2) / 2, no sd.
+  // Parametric oscillator: <W> = (omega1 Q* - omega0) coth(beta omega0 / 2) / 2; sd W against
+  // the variance of the TPM lines built from Husimi's transition probabilities
+  // (husimi_transition_matrix, validated separately), on enough levels that the tails are < 1e-12.
   const Protocol ramp(3, {Schedule::linear("trap.frequency", 1, 2.2)});
+  const double q = parametric_q([](double t) { const double w = 1 + 1.2 * t / 3; return w * w; }, 3);
+  REQUIRE(q > 1.01);  // far enough from adiabatic that the Q* term matters
+  const int rows = 80, cols = 160;
+  const Eigen::MatrixXd husimi = husimi_transition_matrix(rows, cols, q);
+  auto tpm_variance = [&](const std::vector<double>& p) {
+    double mean = 0, second = 0;
+    for (int m = 0; m < rows; ++m)
+      for (int n = 0; n < cols; ++n) {
+        const double w = 2.2 * (n + 0.5) - (m + 0.5);
+        mean += p[std::size_t(m)] * husimi(m, n) * w;
+        second += p[std::size_t(m)] * husimi(m, n) * w * w;
+      }
+    return std::pair{mean, second - mean * mean};
+  };
   const auto p = harmonic_moments(trap, ramp, InitialState::thermal(0.5), why);
   REQUIRE(p);
-  const double q = parametric_q([](double t) { const double w = 1 + 1.2 * t / 3; return w * w; }, 3);
   CHECK(p->mean == Approx(parametric_mean_work(1, 2.2, q, 0.5)).epsilon(1e-9));
-  CHECK(std::isnan(p->sd));
+  std::vector<double> gibbs(rows);
+  for (int m = 0; m < rows; ++m) gibbs[std::size_t(m)] = -std::expm1(-0.5) * std::exp(-0.5 * m);
+  const auto [thermal_mean, thermal_variance] = tpm_variance(gibbs);
+  CHECK(p->mean == Approx(thermal_mean).epsilon(1e-9));
+  CHECK(p->sd * p->sd == Approx(thermal_variance).epsilon(1e-9));
+  // a level and a mixture
+  const auto l3 = harmonic_moments(trap, ramp, InitialState::eigenstate(3), why);
+  std::vector<double> only3(rows, 0.0);
+  only3[3] = 1;
+  REQUIRE(l3);
+  CHECK(l3->sd * l3->sd == Approx(tpm_variance(only3).second).epsilon(1e-9));
+  const auto mix = harmonic_moments(trap, ramp, InitialState::mixture({0.5, 0, 0.25, 0.25}), why);
+  std::vector<double> weights(rows, 0.0);
+  weights[0] = 0.5, weights[2] = 0.25, weights[3] = 0.25;
+  REQUIRE(mix);
+  CHECK(mix->sd * mix->sd == Approx(tpm_variance(weights).second).epsilon(1e-9));
   // No harmonic part: nothing, with the reason.
   const Potential tweezer({Term("trap", Shape::gaussian, {{"depth", 1.0}, {"waist", 1.0}})});
   CHECK_FALSE(harmonic_moments(tweezer, move, InitialState::thermal(0.5), why));

@@ -1292,7 +1292,8 @@ std::vector<fs::path> draw_sweep(const fs::path& stem, const SweepFigure& f) {
                                 : relative                 ? "relative departure"
                                                            : "departure";
       if (labels_on_top) {
-        y_label(label, lower_distance, "(" + note.substr(7) + ")");
+        // a departure_label says what is subtracted already; the generic note would crowd it
+        y_label(label, lower_distance, f.departure_label.empty() ? "(" + note.substr(7) + ")" : "");
       } else {
         label_left(label, lower_distance);
         pen(ink, 1);
