@@ -287,6 +287,15 @@ std::optional<Translation> Protocol::translation(const Potential& base) const {
   return tr;
 }
 
+std::string Protocol::co_moving_obstacle(const Translation& translation) const {
+  for (const auto& a : translation.addresses)
+    if (find(a).form() == ScheduleForm::table)
+      return "the table ramp of " + a +
+             " is piecewise linear: its acceleration, which the co-moving frame needs, is a delta "
+             "function at each row, not represented";
+  return {};
+}
+
 ScheduleValue Protocol::displacement(const Translation& translation, double t) const {
   const Schedule& s = find(translation.addresses.front());
   ScheduleValue v = s.evaluate(t, tau_);

@@ -117,6 +117,10 @@ class Protocol {
   std::optional<Translation> translation(const Potential& base) const;
   // Displacement d(t) = lambda(t) - lambda(0) of a recognised translation, with derivatives.
   ScheduleValue displacement(const Translation& translation, double t) const;
+  // The co-moving frame needs the displacement's acceleration (the inertial force -m d''(t) x);
+  // a table schedule has none between its rows (its kinks are delta functions). Empty when the
+  // frame can be used; otherwise the reason, naming the schedule.
+  std::string co_moving_obstacle(const Translation& translation) const;
 
  private:
   const Schedule& find(const std::string& address) const;

@@ -33,6 +33,8 @@ PotentialPath PotentialPath::co_moving(Grid grid, Potential base, Protocol proto
   if (!translation)
     throw PhysicsError("co-moving frame: the protocol is not a rigid translation of every term "
                        "(schedule the centre of each term, identically, and nothing else)");
+  if (const std::string why = protocol.co_moving_obstacle(*translation); !why.empty())
+    throw PhysicsError("co-moving frame: " + why + "; use frame = \"lab\"");
   Potential initial = protocol.initial(base);
   return PotentialPath(std::move(grid), std::move(initial), std::move(protocol), std::move(translation));
 }

@@ -647,9 +647,12 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   protocol.check(base);
   const double tau = protocol.duration();
   const auto translation = protocol.translation(base);
-  const bool co_moving = request.co_moving.value_or(translation.has_value() && tau > 0);
+  const std::string obstacle = translation ? protocol.co_moving_obstacle(*translation) : "";
+  const bool co_moving = request.co_moving.value_or(translation.has_value() && obstacle.empty() && tau > 0);
   if (co_moving && !translation)
     throw PhysicsError("co-moving frame asked for, but the protocol is not a rigid translation of every term");
+  if (co_moving && !obstacle.empty())
+    throw PhysicsError("co-moving frame asked for, but " + obstacle + ": use frame = \"lab\"");
   if (co_moving && request.spectrum.box)
     throw PhysicsError("co-moving frame asked for on a hard-walled box: the walls do not move with the trap");
   const double displacement = co_moving ? protocol.displacement(*translation, tau).value : 0.0;

@@ -492,3 +492,30 @@ TEST_CASE("issue 16: traces of a frequency ramp end on the final populations; ei
   CHECK(sudden.traces.time.empty());
   CHECK(sudden.traces.absent.find("sudden") != std::string::npos);
 }
+
+// A table ramp is piecewise linear: its acceleration is a delta function at each row, which
+// the co-moving frame's inertial force cannot represent. The automatic frame is then the lab
+// frame, and the excitation is the displaced oscillator's (Cahill & Glauber 1969) for that
+// centre path; asking for the co-moving frame is refused (it gave P(0->0) = 1 - 1e-9 for a
+// designed ramp whose true value is 0.996).
+TEST_CASE("a table ramp of a trap centre runs in the lab frame, not the co-moving one", "[work][frame]") {
+  const Potential trap({Term("trap", Shape::harmonic, {{"frequency", 1.0}})});
+  const std::vector<double> times = {0, 1, 2, 3}, centres = {0, 1.5, 1.0, 2.0};
+  const Protocol ramp(3, {Schedule::table("trap.centre", times, centres)});
+  REQUIRE(ramp.translation(trap));
+  WorkRequest request;
+  request.initial = InitialState::eigenstate(0);
+  request.reverse_run = false;
+  const WorkResult r = run_work(trap, ramp, request);
+  CHECK_FALSE(r.co_moving);
+  const auto piecewise = [&](double t) {
+    std::size_t i = std::min<std::size_t>(2, std::size_t(t));
+    return centres[i] + (centres[i + 1] - centres[i]) * (t - times[i]);
+  };
+  const double alpha2 = std::norm(translation_alpha(1.0, piecewise, 3));
+  REQUIRE(alpha2 > 0.1);  // order-one excitation: the frames differ visibly
+  CHECK(r.forward.transitions.probability(0, 0) == Approx(std::exp(-alpha2)).margin(1e-6));
+  request.co_moving = true;
+  CHECK_THROWS_WITH(run_work(trap, ramp, request), Catch::Contains("table ramp of trap.centre") &&
+                                                       Catch::Contains("frame = \"lab\""));
+}
