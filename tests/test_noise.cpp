@@ -55,6 +55,7 @@ NoiseRequest white_noise(const std::string& address, double level, int realisati
   n.sources.push_back({address, NoiseSpectrum::white(level)});
   n.realisations = realisations;
   n.seed = seed;
+  n.route = NoiseRoute::realisations;  // these cases test the realisations route
   return n;
 }
 
