@@ -499,6 +499,7 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
                 " relative); deterministic, no statistical error";
     WorkInput input = w.forward;
     input.transitions.probability = run.transitions;
+    out.transitions = input.transitions;
     out.distribution = work_distribution(input, request.merge_tolerance);
     out.line_error.assign(out.distribution.lines.size(), 0.0);
     out.mean = {out.distribution.mean, 0};
@@ -608,6 +609,7 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
   for (int r = 1; r <= R; ++r) sum += runs[std::size_t(r)].transitions;
   WorkInput input = w.forward;
   input.transitions.probability = sum / R;
+  out.transitions = input.transitions;
   out.distribution = work_distribution(input, request.merge_tolerance);
   const std::size_t lines = out.distribution.lines.size();
   std::vector<std::vector<double>> line_loo(lines, std::vector<double>(std::size_t(R)));

@@ -119,6 +119,7 @@ struct Estimate {
 
 struct NoisyWorkResult {
   WorkResult noiseless;            // run_work without noise: grid, frame, steps, spectra
+  TransitionMatrix transitions;    // P(m -> n) with noise (averaged over the realisations)
   WorkDistribution distribution;   // from the transition matrix averaged over the realisations
   std::vector<double> line_error;  // standard error of each line probability (same order)
   Estimate mean, variance;         // <W>, var W of the noisy distribution
