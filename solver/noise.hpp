@@ -1,6 +1,7 @@
 #pragma once
 // Technical noise on named parameters of the potential during a protocol: the realisations
-// route (design: DEVELOPERS.md, "Noise during the protocol").
+// route and the Lindblad route of white noise (design: DEVELOPERS.md, "Noise during the
+// protocol").
 //
 // Model: H(t) = H_0(t) + sum_p eps_p(t) dH/dp(t), p a parameter address ("trap.centre",
 // "trap.frequency", "tweezer.depth", a formula parameter), dH/dp = dV/dp(x; parameters at t)
