@@ -270,29 +270,194 @@ std::string text(double v) {
 
 }  // namespace
 
+namespace {
+
+// The eigenbasis levels the Lindblad route would use on the run w (EigenbasisPropagator's
+// basis in run_work: request.eigenbasis_levels, default twice the levels of its spectra).
+int lindblad_levels(const WorkResult& w, const WorkRequest& request) {
+  const int levels = int(w.final_spectrum.energies.size());
+  return std::min<int>(request.eigenbasis_levels > 0 ? request.eigenbasis_levels : 2 * levels, int(w.grid.size()) / 2);
+}
+
+// ---- Lindblad route -------------------------------------------------------------------------
+//
+// Why gamma = S / 2. With H = H_0 + eps(t) D and white Gaussian eps, <eps(t) eps(t')> = c
+// delta(t - t'), c = S/2 (one-sided PSD convention, noise.hpp), the noise average of the
+// second-order Dyson term over a short interval h (time-ordered, i.e. Stratonovich: the delta
+// at the end of the ordered integral counts one half) is
+//   (-i)^2 int_0^h ds int_0^s ds' <eps(s) eps(s')> [D, [D, rho]] = -(c h / 2) [D, [D, rho]],
+// odd orders average to zero and higher even orders are O(h^2) for Gaussian white noise, so
+//   d rho/dt = -i [H_0, rho] - (c/2) [D, [D, rho]] = -i [H_0, rho] + gamma (D rho D - {D^2, rho}/2)
+// with gamma = c = S/2 (the double commutator is 2 (D^2 rho + rho D^2)/2 - 2 D rho D; common
+// practice, e.g. the averaged stochastic Liouville equation; with hbar: gamma = S / (2 hbar^2)).
+// Check against the harmonic heating rate (noise.hpp): D = -w^2 x for centre noise gives
+// d<H>/dt = -(gamma/2) <[D, [D, H]]> = gamma w^4 / 2 = w^4 S / 4, the rate of noise.hpp.
+//
+// The jump operators sqrt(gamma_p) D_p are Hermitian, so the map is unital (Lambda(1) = 1
+// in the truncated basis) as well as trace preserving.
+
+struct LindbladRun {
+  Eigen::MatrixXd transitions;                 // P(m, n), kept initial x final levels
+  std::vector<double> energy, closed_energy;   // Tr(H_B rho_m), and for the unitary run (same basis)
+  int basis = 0;
+  long evaluations = 0;
+};
+
+// One master-equation run (header comment) for every kept initial level of w, and the same
+// basis propagated without the dissipator (the reference of the extra energy, as runs[0] is
+// for the realisations). Interaction picture from each restart t0 (as EigenbasisPropagator):
+// rho = Q(s) o a, Q_kl = exp(-i (E_k - E_l) s), s = t - t0, and
+//   da/dt = conj(Q) o (-i [M, rho] + sum_p (L_p rho L_p - {L_p^2, rho}/2)),  L_p = sqrt(gamma_p) D_p,
+// with [M, rho] = X - X^dagger (X = M rho) and rho L^2 = (L^2 rho)^dagger for Hermitian rho.
+// These shortcuts hold for Hermitian rho only: applied to an anti-Hermitian part A they give
+// -(1/2)[L^2, A] - L A L, which grows A at rates up to gamma l^2 (l the eigenvalues of D),
+// so the right-hand side takes the Hermitian part of the state first (measured: without it
+// the rounding error grew to populations of +-50 in the top levels of a 96-level basis).
+LindbladRun propagate_lindblad(const PotentialPath& path, const Potential& base, const Protocol& protocol,
+                               const WorkResult& w, const std::vector<double>& v_final, const WorkRequest& request,
+                               const NoiseRequest& noise) {
+  using Complex = std::complex<double>;
+  const double tau = protocol.duration();
+  const Grid& grid = w.grid;
+  const std::vector<double> points = grid.points();
+  // the eigenbasis integrator's basis (work.cpp, run_work_once: H_A's levels on the run's grid,
+  // the potential capped as for its spectra) and reference potential
+  const std::vector<double> v_a = protocol.initial(base).evaluate(points);
+  std::vector<double> capped = v_a;
+  cap_potential(capped, *std::min_element(capped.begin(), capped.end()), w.energy_cutoff);
+  SpectrumOptions options = request.spectrum.options;
+  options.levels = lindblad_levels(w, request);
+  EigenbasisPropagator prop(path, solve_spectrum(grid, capped, options), v_a, request.ode, request.ode_arithmetic_limit);
+  const Eigen::Index k = prop.basis_size();
+  const int kept = w.forward.transitions.initial_levels();
+  const Eigen::VectorXd& energy = prop.energies();
+
+  Eigen::MatrixXcd psi = w.initial_spectrum.states.leftCols(kept).cast<Complex>();
+  path.from_lab(psi, 0);
+  Eigen::MatrixXcd closed = prop.coefficients(psi);  // K x kept
+  // stacked density matrices [rho_0 ... rho_kept-1], K x (K kept), rho_m = c_m c_m^dagger
+  std::vector<double> y(std::size_t(2 * k * k * kept));
+  Eigen::Map<Eigen::MatrixXcd> rho(reinterpret_cast<Complex*>(y.data()), k, k * kept);
+  for (int m = 0; m < kept; ++m) rho.middleCols(m * k, k) = closed.col(m) * closed.col(m).adjoint();
+
+  std::vector<double> gamma;
+  for (const auto& s : noise.sources) gamma.push_back(s.spectrum.white_level() / 2);
+  Eigen::MatrixXd coupling(k, k);
+  std::vector<Eigen::MatrixXd> jump(noise.sources.size()), jump_squared(noise.sources.size());
+  Eigen::MatrixXcd q(k, k), x(k, k * kept), l_rho(k, k * kept), l_rho_dagger(k, k * kept), product(k, k * kept);
+  std::vector<double> lab(points.size()), derivative, up, down;
+  LindbladRun run;
+  auto jumps_at = [&](double t) {  // L_p = sqrt(gamma_p) D_p at time t (dV/dp at lab positions, noise.cpp)
+    const double d = path.displacement(t);
+    for (std::size_t j = 0; j < lab.size(); ++j) lab[j] = points[j] + d;
+    const Potential at = protocol.at(base, t);
+    for (std::size_t p = 0; p < jump.size(); ++p) {
+      derivative.assign(lab.size(), 0.0);
+      add_derivative(at, noise.sources[p].address, lab, std::sqrt(gamma[p]), derivative, up, down);
+      jump[p] = prop.project_function(Eigen::Map<const Eigen::VectorXd>(derivative.data(), Eigen::Index(derivative.size())));
+      jump_squared[p].noalias() = jump[p] * jump[p];
+    }
+  };
+  double t0 = 0;
+  auto rhs = [&](const std::vector<double>& in, std::vector<double>& out, double t) {
+    ++run.evaluations;
+    const double s = t - t0;
+    for (Eigen::Index c = 0; c < k; ++c)
+      for (Eigen::Index r = 0; r < k; ++r) q(r, c) = std::polar(1.0, -(energy[r] - energy[c]) * s);
+    Eigen::Map<const Eigen::MatrixXcd> a(reinterpret_cast<const Complex*>(in.data()), k, k * kept);
+    Eigen::Map<Eigen::MatrixXcd> da(reinterpret_cast<Complex*>(out.data()), k, k * kept);
+    Eigen::MatrixXcd& r = product;  // rho in the Schroedinger picture
+    for (int m = 0; m < kept; ++m) {  // the Hermitian part (see above)
+      auto block = r.middleCols(m * k, k);
+      block = q.cwiseProduct(a.middleCols(m * k, k));
+      block = 0.5 * (block + block.adjoint()).eval();
+    }
+    prop.coupling(t, coupling);
+    jumps_at(t);
+    x.noalias() = coupling * r;
+    for (int m = 0; m < kept; ++m) {
+      auto block = x.middleCols(m * k, k);
+      da.middleCols(m * k, k) = Complex(0, -1) * (block - block.adjoint());
+    }
+    for (std::size_t p = 0; p < jump.size(); ++p) {
+      l_rho.noalias() = jump[p] * r;
+      for (int m = 0; m < kept; ++m) l_rho_dagger.middleCols(m * k, k) = l_rho.middleCols(m * k, k).adjoint();
+      x.noalias() = jump[p] * l_rho_dagger;  // L rho L = L (L rho)^dagger
+      da += x;
+      x.noalias() = jump_squared[p] * r;  // L^2 rho; rho L^2 its adjoint
+      for (int m = 0; m < kept; ++m) {
+        auto block = x.middleCols(m * k, k);
+        da.middleCols(m * k, k) -= 0.5 * (block + block.adjoint());
+      }
+    }
+    for (int m = 0; m < kept; ++m) da.middleCols(m * k, k) = q.conjugate().cwiseProduct(da.middleCols(m * k, k));
+  };
+  // restarts of the interaction picture: the eigenbasis integrator's observation steps
+  const int restarts = request.integrator == Integrator::eigenbasis ? w.steps : 64;
+  double hint = 0;
+  for (int i = 0; i < restarts; ++i) {
+    t0 = subdivision_time(0.0, tau, restarts, i);
+    const double t1 = subdivision_time(0.0, tau, restarts, i + 1);
+    integrate_controlled(rhs, y, t0, t1 - t0, request.ode, hint);
+    for (Eigen::Index c = 0; c < k; ++c)
+      for (Eigen::Index r = 0; r < k; ++r) q(r, c) = std::polar(1.0, -(energy[r] - energy[c]) * (t1 - t0));
+    for (int m = 0; m < kept; ++m) rho.middleCols(m * k, k) = q.cwiseProduct(rho.middleCols(m * k, k));
+    prop.step(closed, t0, t1 - t0);
+    if (request.progress) request.progress(double(i + 1) / restarts);
+  }
+  // the basis states at tau in the lab frame: their amplitudes on H_B's levels (T, L x K) and
+  // H_B between them (with the grid's kinetic operator, as state_energies)
+  Eigen::MatrixXcd basis_states = prop.grid_states(Eigen::MatrixXcd::Identity(k, k));
+  path.to_lab(basis_states, tau);
+  const Eigen::MatrixXcd amplitudes = project(w.final_spectrum, basis_states);
+  KineticOperator kinetic(grid, int(k));
+  Eigen::MatrixXd h_re, h_im;
+  apply_hamiltonian(kinetic, v_final, basis_states.real(), h_re);
+  apply_hamiltonian(kinetic, v_final, basis_states.imag(), h_im);
+  const Eigen::MatrixXcd h_b = basis_states.adjoint() * (h_re.cast<Complex>() + Complex(0, 1) * h_im.cast<Complex>()) *
+                               grid.spacing();
+  run.transitions.resize(kept, amplitudes.rows());
+  for (int m = 0; m < kept; ++m) {
+    const auto r = rho.middleCols(m * k, k);
+    run.transitions.row(m) = (amplitudes * r).cwiseProduct(amplitudes.conjugate()).rowwise().sum().real().transpose();
+    run.energy.push_back(h_b.transpose().cwiseProduct(r).sum().real());
+    run.closed_energy.push_back((closed.col(m).adjoint() * h_b * closed.col(m)).value().real());
+  }
+  run.basis = int(k);
+  return run;
+}
+
+}  // namespace
+
 NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, const WorkRequest& request,
                                const NoiseRequest& noise, const WorkResult* noiseless) {
   if (noise.sources.empty()) throw InputError("noise", "", "at least one noise source");
-  if (noise.realisations < 2)
-    throw InputError("noise_run.realisations", std::to_string(noise.realisations),
-                     "at least 2 realisations (the standard errors need two)");
   const Potential initial = protocol.initial(base);
   for (const auto& s : noise.sources) (void)initial.parameter(s.address);  // InputError for an unknown address
   if (!(protocol.duration() > 0))
     throw PhysicsError("noise needs a protocol of finite duration: a sudden switch (tau = 0) leaves no time for it");
-  if (request.integrator == Integrator::eigenbasis)
-    throw PhysicsError("noise is propagated by realisations with the split-operator integrator: write integrator = "
-                       "\"order4\" or \"strang\" (the eigenbasis route for white noise, Lindblad, is not there yet)");
+  bool white = true;
+  std::string coloured;
+  for (const auto& s : noise.sources)
+    if (!s.spectrum.is_white()) white = false, coloured = s.address;
+  if (noise.route == NoiseRoute::lindblad && !white)
+    throw InputError("noise.route", "\"lindblad\"",
+                     "\"realisations\" or \"auto\": the noise on " + coloured +
+                         " has a PSD table (coloured), and the Lindblad route holds for white noise only");
+  const bool eigenbasis = request.integrator == Integrator::eigenbasis;
+  const std::string split_only = "noise realisations are propagated with the split-operator integrator: write "
+                                 "integrator = \"order4\" or \"strang\"";
+  if (eigenbasis && (noise.route == NoiseRoute::realisations || !white))
+    throw PhysicsError(split_only + (white ? " (or noise.route = \"lindblad\" for this white noise)"
+                                           : " (the noise on " + coloured + " is coloured: realisations only)"));
 
   NoisyWorkResult out;
   out.noiseless = noiseless ? *noiseless : run_work(base, protocol, request);
   const WorkResult& w = out.noiseless;
   const double tau = protocol.duration();
   out.steps = w.steps;
-  out.realisations = noise.realisations;
   out.seed = noise.seed;
   out.psd_convention = noise_psd_convention();
-  out.route = "realisations: " + std::to_string(noise.realisations) + " noise traces, each propagated by the " + w.method;
   const PotentialPath path = w.co_moving ? PotentialPath::co_moving(w.grid, base, protocol)
                                          : PotentialPath::lab(w.grid, base, protocol);
   std::vector<double> lab(w.grid.points());
@@ -300,6 +465,70 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
   const std::vector<double> v_final = protocol.final(base).evaluate(lab);
   std::vector<std::string> addresses;
   for (const auto& s : noise.sources) addresses.push_back(s.address);
+  const double nan = std::numeric_limits<double>::quiet_NaN();
+  if (const auto h = initial.harmonic_part()) out.harmonic_omega = h->first;
+
+  // the route
+  const int basis_levels = lindblad_levels(w, request);
+  bool lindblad = noise.route == NoiseRoute::lindblad;
+  if (noise.route == NoiseRoute::lindblad)
+    out.route_reason = "asked for (noise.route = \"lindblad\")";
+  else if (noise.route == NoiseRoute::realisations)
+    out.route_reason = "asked for (noise.route = \"realisations\")";
+  else if (!white)
+    out.route_reason = "automatic: the noise on " + coloured + " is coloured (a PSD table), which needs realisations";
+  else if (basis_levels > lindblad_basis_limit)
+    out.route_reason = "automatic: all noise is white, but the eigenbasis of " + std::to_string(basis_levels) +
+                       " levels is above " + std::to_string(lindblad_basis_limit) +
+                       " (the master equation costs ~K^3 per level): realisations";
+  else {
+    lindblad = true;
+    out.route_reason = "automatic: all noise is white, so its exact average, the Lindblad equation, applies (basis of " +
+                       std::to_string(basis_levels) + " levels)";
+  }
+  if (!lindblad && eigenbasis) throw PhysicsError(split_only + " (" + out.route_reason + ")");
+
+  if (lindblad) {
+    const LindbladRun run = propagate_lindblad(path, base, protocol, w, v_final, request, noise);
+    out.route_name = "lindblad";
+    out.basis_levels = run.basis;
+    out.ode_evaluations = run.evaluations;
+    out.route = "lindblad: master equation with jump operators sqrt(S/2) dV/dp in the eigenbasis of " +
+                std::to_string(run.basis) + " levels of H_A (Dormand-Prince 5(4), tolerances " +
+                text(request.ode.absolute) + " absolute, " + text(request.ode.relative) +
+                " relative); deterministic, no statistical error";
+    WorkInput input = w.forward;
+    input.transitions.probability = run.transitions;
+    out.transitions = input.transitions;
+    out.distribution = work_distribution(input, request.merge_tolerance);
+    out.line_error.assign(out.distribution.lines.size(), 0.0);
+    out.mean = {out.distribution.mean, 0};
+    out.variance = {out.distribution.variance, 0};
+    out.jarzynski = w.forward.beta ? Estimate{out.distribution.jarzynski_average, 0} : Estimate{nan, nan};
+    double direct = 0, closed = 0;
+    for (int m = 0; m < int(run.energy.size()); ++m) {
+      const double p = w.forward.initial_weights[std::size_t(m)];
+      direct += p * (run.energy[std::size_t(m)] - w.forward.initial_energies[m]);
+      closed += p * (run.closed_energy[std::size_t(m)] - w.forward.initial_energies[m]);
+    }
+    out.direct_mean = {direct, 0};
+    out.extra_energy = {direct - closed, 0};
+    out.heating_rate = {out.extra_energy.value / tau, 0};
+    out.heating_quanta_rate = out.harmonic_omega > 0 ? Estimate{out.heating_rate.value / out.harmonic_omega, 0}
+                                                     : Estimate{nan, nan};
+    if (out.distribution.unresolved_weight > request.unresolved_tolerance)
+      out.warnings.push_back("with noise the unresolved final weight is " + text(out.distribution.unresolved_weight) +
+                             " (above " + text(request.unresolved_tolerance) +
+                             "): the noise heats beyond the final levels kept; raise final_margin");
+    return out;
+  }
+
+  if (noise.realisations < 2)
+    throw InputError("noise_run.realisations", std::to_string(noise.realisations),
+                     "at least 2 realisations (the standard errors need two)");
+  out.realisations = noise.realisations;
+  out.route_name = "realisations";
+  out.route = "realisations: " + std::to_string(noise.realisations) + " noise traces, each propagated by the " + w.method;
 
   // the transition matrix of every realisation is kept (the jackknife of var W and of the
   // Jarzynski average needs them): refuse a run whose matrices would not fit
@@ -380,6 +609,7 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
   for (int r = 1; r <= R; ++r) sum += runs[std::size_t(r)].transitions;
   WorkInput input = w.forward;
   input.transitions.probability = sum / R;
+  out.transitions = input.transitions;
   out.distribution = work_distribution(input, request.merge_tolerance);
   const std::size_t lines = out.distribution.lines.size();
   std::vector<std::vector<double>> line_loo(lines, std::vector<double>(std::size_t(R)));
@@ -397,14 +627,12 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
   for (std::size_t l = 0; l < lines; ++l) out.line_error.push_back(jackknife_error(line_loo[l]));
   out.mean = {out.distribution.mean, jackknife_error(mean_loo)};
   out.variance = {out.distribution.variance, jackknife_error(variance_loo)};
-  const double nan = std::numeric_limits<double>::quiet_NaN();
   out.jarzynski = w.forward.beta ? Estimate{out.distribution.jarzynski_average, jackknife_error(jarzynski_loo)}
                                  : Estimate{nan, nan};
   for (int r = 1; r <= R; ++r) out.realisation_direct_mean.push_back(runs[std::size_t(r)].direct_mean);
   out.direct_mean = sample_mean(out.realisation_direct_mean);
   out.extra_energy = {out.direct_mean.value - runs[0].direct_mean, out.direct_mean.error};
   out.heating_rate = {out.extra_energy.value / tau, out.extra_energy.error / tau};
-  if (const auto h = initial.harmonic_part()) out.harmonic_omega = h->first;
   out.heating_quanta_rate = out.harmonic_omega > 0 ? Estimate{out.heating_rate.value / out.harmonic_omega,
                                                                out.heating_rate.error / out.harmonic_omega}
                                                    : Estimate{nan, nan};

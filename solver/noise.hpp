@@ -1,6 +1,7 @@
 #pragma once
 // Technical noise on named parameters of the potential during a protocol: the realisations
-// route (design: DEVELOPERS.md, "Noise during the protocol").
+// route and the Lindblad route of white noise (design: DEVELOPERS.md, "Noise during the
+// protocol").
 //
 // Model: H(t) = H_0(t) + sum_p eps_p(t) dH/dp(t), p a parameter address ("trap.centre",
 // "trap.frequency", "tweezer.depth", a formula parameter), dH/dp = dV/dp(x; parameters at t)
@@ -68,11 +69,22 @@ struct NoiseSource {
   NoiseSpectrum spectrum = NoiseSpectrum::white(0);
 };
 
+// How the noise is averaged: noise traces propagated one by one (any PSD), or the Lindblad
+// master equation of white noise (white PSDs only); automatic: Lindblad when every source is
+// white and its basis fits (lindblad_basis_limit), realisations otherwise.
+enum class NoiseRoute { automatic, realisations, lindblad };
+
 struct NoiseRequest {
   std::vector<NoiseSource> sources;
-  int realisations = 100;   // >= 2 (the standard errors need two)
+  int realisations = 100;   // >= 2 (the standard errors need two); realisations route only
   std::uint64_t seed = 1;   // traces depend on (seed, realisation, source index) only
+  NoiseRoute route = NoiseRoute::automatic;
 };
+
+// The largest eigenbasis (levels K) the automatic choice takes the Lindblad route with: its
+// density matrices cost ~16 K^3 operations per kept level and right-hand side, against one
+// split-operator run per realisation (at K = 240 and 10 kept levels, ~2e9 per evaluation).
+constexpr int lindblad_basis_limit = 240;
 
 // A noise trace eps(t) on the nodes t_i = i tau/N, i = 0..N, linearly interpolated between
 // them (the end segments continued slightly beyond [0, tau], where the fourth-order
@@ -108,6 +120,7 @@ struct Estimate {
 
 struct NoisyWorkResult {
   WorkResult noiseless;            // run_work without noise: grid, frame, steps, spectra
+  TransitionMatrix transitions;    // P(m -> n) with noise (averaged over the realisations)
   WorkDistribution distribution;   // from the transition matrix averaged over the realisations
   std::vector<double> line_error;  // standard error of each line probability (same order)
   Estimate mean, variance;         // <W>, var W of the noisy distribution
@@ -121,17 +134,36 @@ struct NoisyWorkResult {
   int realisations = 0;
   std::uint64_t seed = 0;
   int steps = 0;                   // the protocol's time steps = trace intervals
-  std::string route;               // "realisations (split-operator, ...)"
+  std::string route;               // "realisations: ..." or "lindblad: ..." (what ran, in words)
+  std::string route_name;          // "realisations" or "lindblad"
+  std::string route_reason;        // why this route ran
+  int basis_levels = 0;            // Lindblad: levels of its eigenbasis (0: realisations)
+  long ode_evaluations = 0;        // Lindblad: right-hand-side evaluations of the master equation
   std::string psd_convention;      // the sentence for the summary
   std::vector<std::string> warnings;
 };
 
-// The noisy TPM work statistics by realisations. Runs run_work (noiseless) first, then
+// The noisy TPM work statistics. Route (NoiseRequest::route, the choice and its reason in the
+// result): realisations or Lindblad.
+//
+// Realisations: runs run_work (noiseless) first, then
 // request.realisations noisy propagations on its grid and frame with its time steps, spread
 // over request.threads worker threads (each realisation one batch of the kept initial
-// states, on one thread; results do not depend on the thread count). Throws InputError for
-// an address the potential does not have or an empty request, PhysicsError for the sudden
-// limit (tau = 0) or the eigenbasis integrator (its Lindblad route is not there yet).
+// states, on one thread; results do not depend on the thread count).
+//
+// Lindblad (white noise only): on the noiseless run's grid and frame, in the truncated
+// eigenbasis of the eigenbasis integrator (EigenbasisPropagator: the lowest
+// request.eigenbasis_levels levels of H_A, default twice the final levels; its coupling
+// M(t), interaction picture and request.ode tolerances), each kept initial level m is
+// propagated as rho_m = |m_A><m_A| under
+//   d rho/dt = -i [diag(E) + M(t), rho] + sum_p gamma_p (D_p rho D_p - (1/2) {D_p^2, rho}),
+//   D_p = Phi^T diag(dV/dp(x, t)) Phi dx,  gamma_p = S_p / 2  (derivation in noise.cpp),
+// and P(m -> n) = <n_B| rho_m(tau) |n_B>. Deterministic: the estimates carry error 0 (their
+// accuracy is the ODE tolerance and the basis truncation, as for the eigenbasis integrator).
+//
+// Throws InputError for an address the potential does not have, an empty request, or the
+// Lindblad route asked for with a coloured (table) PSD (key noise.route); PhysicsError for
+// the sudden limit (tau = 0) or the realisations route with the eigenbasis integrator.
 // `noiseless`, when given, is run_work(base, protocol, request) already computed (the front
 // end's run), used instead of a second run.
 NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, const WorkRequest& request,

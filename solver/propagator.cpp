@@ -607,7 +607,6 @@ void EigenbasisPropagator::step(State& state, double t, double dt) {
   const Eigen::Index k = basis_.cols(), cols = state.cols();
   TRAPWORK_EXPECT(state.rows() == k, "EigenbasisPropagator::step: state rows != basis size");
   if (dt == 0) return;
-  namespace odeint = boost::numeric::odeint;
   using Vector = std::vector<double>;
   using Complex = std::complex<double>;
   Vector x(std::size_t(2 * k * cols));
@@ -632,25 +631,37 @@ void EigenbasisPropagator::step(State& state, double t, double dt) {
       throw ArithmeticLimitReached("eigenbasis ODE: estimated arithmetic passed the limit of " +
                                    format_number(arithmetic_limit_) + " operations at t = " + format_number(time));
   };
-  auto stepper = odeint::make_controlled(tolerances_.absolute, tolerances_.relative, odeint::runge_kutta_dopri5<Vector>());
+  integrate_controlled(rhs, x, t, dt, tolerances_, step_hint_);
+  const double s = dt;
+  for (Eigen::Index i = 0; i < k; ++i) phase[i] = std::polar(1.0, -energies_[i] * s);
+  state = phase.asDiagonal() * Eigen::Map<Eigen::MatrixXcd>(reinterpret_cast<Complex*>(x.data()), k, cols);
+}
+
+Eigen::MatrixXd EigenbasisPropagator::project_function(const Eigen::VectorXd& w) const {
+  TRAPWORK_EXPECT(w.size() == basis_.rows(), "EigenbasisPropagator::project_function: w not on the grid");
+  return basis_.transpose() * (w.asDiagonal() * basis_);
+}
+
+void integrate_controlled(const OdeRhs& rhs, std::vector<double>& x, double t, double dt,
+                          const OdeTolerances& tolerances, double& step_hint) {
+  namespace odeint = boost::numeric::odeint;
+  auto stepper = odeint::make_controlled(tolerances.absolute, tolerances.relative,
+                                         odeint::runge_kutta_dopri5<std::vector<double>>());
   const double end = t + dt, sign = dt > 0 ? 1.0 : -1.0;
-  double time = t, h = sign * (step_hint_ > 0 ? step_hint_ : std::abs(dt) / 4);
+  double time = t, h = sign * (step_hint > 0 ? step_hint : std::abs(dt) / 4);
   for (int rejected = 0; sign * (end - time) > 0;) {
     const bool last = std::abs(h) >= std::abs(end - time);
     const double free = h;
     if (last) h = end - time;
     if (stepper.try_step(rhs, x, time, h) == odeint::success) {
       rejected = 0;
-      step_hint_ = last ? std::max(std::abs(free), std::abs(h)) : std::abs(h);
+      step_hint = last ? std::max(std::abs(free), std::abs(h)) : std::abs(h);
       if (last) time = end;
     } else if (++rejected > 200) {
       throw PhysicsError("eigenbasis ODE: 200 rejected steps in a row at t = " + format_number(time) +
                          " (step " + format_number(std::abs(h)) + "): the potential may be singular in time");
     }
   }
-  const double s = dt;
-  for (Eigen::Index i = 0; i < k; ++i) phase[i] = std::polar(1.0, -energies_[i] * s);
-  state = phase.asDiagonal() * Eigen::Map<Eigen::MatrixXcd>(reinterpret_cast<Complex*>(x.data()), k, cols);
 }
 
 // ---- projections -------------------------------------------------------------------------

@@ -530,6 +530,12 @@ class EigenbasisPropagator {
   // so that a neglected part adds at most 1/100 of the tolerance over the run (never below
   // 1000 eps times the same bound of V itself, the rounding of dV = V - V_ref).
   double shape_limit() const { return shape_limit_; }
+  // For an open-system integrator on the same basis (solver/noise.cpp, Lindblad route): the
+  // basis energies E_k, the coupling M(t) (as step() forms it, counted in arithmetic()), and
+  // Phi^T diag(w) Phi dx of another grid function w (n K^2, formed directly).
+  const Eigen::VectorXd& energies() const { return energies_; }
+  void coupling(double t, Eigen::MatrixXd& m) { matrix_at(t, m); }
+  Eigen::MatrixXd project_function(const Eigen::VectorXd& w) const;
 
  private:
   void matrix_at(double t, Eigen::MatrixXd& m);
@@ -546,6 +552,14 @@ class EigenbasisPropagator {
   double step_hint_ = 0, arithmetic_ = 0;
   long evaluations_ = 0, direct_evaluations_ = 0;
 };
+
+// Advances y from t to t + dt (dt may be negative) with Boost.Odeint's controlled
+// runge_kutta_dopri5 at the given tolerances, the steps chosen by its error control;
+// step_hint carries the last accepted step size between calls (0: start at |dt| / 4).
+// rhs(y, dydt, time). Throws PhysicsError after 200 rejected steps in a row.
+using OdeRhs = std::function<void(const std::vector<double>& y, std::vector<double>& dydt, double time)>;
+void integrate_controlled(const OdeRhs& rhs, std::vector<double>& y, double t, double dt,
+                          const OdeTolerances& tolerances, double& step_hint);
 
 // Amplitudes A(n, m) = <n|psi_m> = sum_j phi_n(x_j) psi_m(x_j) dx of grid states (columns) on
 // the (real) eigenstates of a spectrum on the same grid.

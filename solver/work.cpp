@@ -732,6 +732,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
     levels = std::min(2 * levels, request.max_initial_levels + request.final_margin);
   }
   result.grid = grid;
+  result.energy_cutoff = cutoff;
   const int kept_a = int(wa.weights.size());
   if (wa.gibbs && !wa.choice.reached)
     result.diagnostics.warnings.push_back("left-out thermal weight " + fmt(wa.choice.left_out) + " with " +

@@ -325,6 +325,7 @@ struct WorkResult {
   bool co_moving = false;
   int steps = 0;
   std::string method;
+  double energy_cutoff = 0;     // the cap of the potential samples its spectra saw (cap_potential)
   Spectrum initial_spectrum, final_spectrum;  // H_A, H_B (forward run's grid/frame)
   WorkInput forward;
   std::optional<WorkInput> reverse;

@@ -55,6 +55,7 @@ NoiseRequest white_noise(const std::string& address, double level, int realisati
   n.sources.push_back({address, NoiseSpectrum::white(level)});
   n.realisations = realisations;
   n.seed = seed;
+  n.route = NoiseRoute::realisations;  // these cases test the realisations route
   return n;
 }
 
@@ -390,6 +391,19 @@ psd_unit = "nm^2/Hz"
   CHECK(table(0.1) == Approx(2e-6 * 1e-18 / (l0 * l0 * t0)).epsilon(1e-12));
   CHECK(t.noise->request.realisations == 100);  // the defaults
   CHECK(t.noise->request.seed == 1);
+  CHECK(t.noise->request.route == NoiseRoute::automatic);
+  // the Lindblad route with a PSD table: refused, naming the key and its line
+  CHECK_THROWS_WITH(with_noise(R"(
+[noise]
+route = "lindblad"
+[[noise.source]]
+parameter = "trap.centre"
+psd_file = "psd.csv"
+psd_unit = "nm^2/Hz"
+)",
+                               (dir / "noise_test.toml").string()),
+                    Catch::Contains("noise_test.toml:") && Catch::Contains("noise.route = \"lindblad\"") &&
+                        Catch::Contains("white noise only"));
 
   auto refused = [&](const std::string& noise, const std::string& words) {
     INFO(noise);
@@ -409,12 +423,15 @@ psd_unit = "nm^2/Hz"
   refused("[noise]\nrealisations = 1\n[[noise.source]]\nparameter = \"trap.centre\"\nwhite = \"1e-20 m^2/Hz\"\n",
           "noise.realisations");
   refused("[noise]\nseed = 3\n", "noise.source");
+  refused("[noise]\nroute = \"lindbald\"\n[[noise.source]]\nparameter = \"trap.centre\"\nwhite = \"1e-20 m^2/Hz\"\n",
+          "lindblad");
 }
 
 TEST_CASE("the work task runs the noise and reports it", "[noise][scenario]") {
   const Scenario s = with_noise(R"(
 [noise]
 realisations = 6
+route = "realisations"
 [[noise.source]]
 parameter = "trap.centre"
 heating_rate = "2000 quanta/s"
@@ -423,6 +440,7 @@ at_frequency = "1 MHz"
   const WorkOutcome o = work_task(s, std::nullopt);
   REQUIRE(o.noise);
   CHECK(o.noise->realisations == 6);
+  CHECK(o.noise->route_name == "realisations");
   const auto summary = task_summary(o);
   REQUIRE(summary.contains("noise"));
   CHECK(summary["noise"]["psd_convention"].get<std::string>().find("one-sided") != std::string::npos);
@@ -433,6 +451,23 @@ at_frequency = "1 MHz"
   std::ostringstream report;
   print_task_report(report, o);
   CHECK_THAT(report.str(), Catch::Contains("noise during the protocol") && Catch::Contains("quanta/s"));
+
+  // white noise under route = "auto" takes the Lindblad route, and says so and why
+  const Scenario l = with_noise(R"(
+[noise]
+[[noise.source]]
+parameter = "trap.centre"
+heating_rate = "2000 quanta/s"
+at_frequency = "1 MHz"
+)");
+  const WorkOutcome ol = work_task(l, std::nullopt);
+  REQUIRE(ol.noise);
+  const auto sl = task_summary(ol);
+  CHECK(sl["noise"]["route"] == "lindblad");
+  CHECK(sl["noise"]["route_reason"].get<std::string>().find("white") != std::string::npos);
+  std::ostringstream rl;
+  print_task_report(rl, ol);
+  CHECK_THAT(rl.str(), Catch::Contains("lindblad: master equation") && Catch::Contains("automatic: all noise is white"));
 }
 
 TEST_CASE("sweep, plan and compare refuse a scenario with [noise] instead of giving the noiseless answer",

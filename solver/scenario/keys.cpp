@@ -302,8 +302,12 @@ const std::vector<TableSpec>& scenario_tables() {
           whole("points", "none (instead of values, with from and to)", "number of evenly spaced values (2 to 100000)", "3")}});
     t.push_back(
         {"noise", "[noise]",
-         "technical noise on trap parameters during the protocol, averaged over noise realisations (trapwork work)",
-         {whole("realisations", "100", "noise traces propagated and averaged (2 to 1000000)", "200"),
+         "technical noise on trap parameters during the protocol, averaged over noise realisations or by the "
+         "Lindblad equation of white noise (trapwork work)",
+         {choice("route", {"auto", "realisations", "lindblad"}, "auto",
+                 "how the noise is averaged: noise traces one by one (any PSD), or the Lindblad master equation "
+                 "(white noise only); auto: lindblad when all noise is white"),
+          whole("realisations", "100", "noise traces propagated and averaged (2 to 1000000; realisations route)", "200"),
           whole("seed", "1", "seed of the noise traces (the same seed gives the same traces)", "2026"),
           sub("source", KeyType::tables, "required", "[[noise.source]], one per noisy parameter")}});
     t.push_back(

@@ -36,7 +36,10 @@ CsvTable noise_lines_table(const Scenario& s, const NoisyWorkResult& r) {
   }
   t.comments = {
       "trapwork work: work lines with noise during the protocol (" + r.route + ", seed " + std::to_string(r.seed) + ")",
-      "probability_noisy: averaged over the realisations; probability_noisy_error: its standard error (jackknife)",
+      r.route_name == "lindblad"
+          ? "probability_noisy: from the Lindblad equation (the exact white-noise average); probability_noisy_error: "
+            "0, no statistical error (the accuracy is the ODE tolerance and the basis)"
+          : "probability_noisy: averaged over the realisations; probability_noisy_error: its standard error (jackknife)",
       "PSD convention: " + r.psd_convention,
   };
   return t;
@@ -45,7 +48,9 @@ CsvTable noise_lines_table(const Scenario& s, const NoisyWorkResult& r) {
 nlohmann::ordered_json noise_summary(const Scenario& s, const NoisyWorkResult& r) {
   const Display d = display(s);
   nlohmann::ordered_json j;
-  j["route"] = r.route;
+  j["route"] = r.route_name;
+  j["route_method"] = r.route;
+  j["route_reason"] = r.route_reason;
   j["psd_convention"] = r.psd_convention;
   j["realisations"] = r.realisations;
   j["seed"] = r.seed;
@@ -80,7 +85,8 @@ void print_noise_report(std::ostream& out, const Scenario& s, const NoisyWorkRes
   out << "\nnoise during the protocol\n";
   if (s.noise)
     for (std::size_t k = 0; k < s.noise->given.size(); ++k) row(k == 0 ? "sources" : "", s.noise->given[k]);
-  row("route", r.route + ", seed " + std::to_string(r.seed));
+  row("route", r.route_name == "lindblad" ? r.route : r.route + ", seed " + std::to_string(r.seed));
+  row("why", r.route_reason);
   row("PSD", r.psd_convention);
   row("<W>", with_error(r.mean, d.energy_per, d.e) + " (noiseless " +
                  short_number(r.noiseless.distribution.mean / d.energy_per, 5) + " " + d.e + ")");
@@ -94,7 +100,9 @@ void print_noise_report(std::ostream& out, const Scenario& s, const NoisyWorkRes
   if (std::isfinite(r.jarzynski.value))
     row("Jarzynski", "<exp(-beta W)> = " + with_error(r.jarzynski, 1, "") + " against Z_B/Z_A = " +
                          short_number(r.distribution.partition_ratio, 8) +
-                         " (each trace is unitary: it holds per trace up to truncation)");
+                         (r.route_name == "lindblad"
+                              ? " (Hermitian jump operators: a unital map, it holds up to truncation)"
+                              : " (each trace is unitary: it holds per trace up to truncation)"));
   row("lines", "noise_lines.csv: P(W) with and without noise, each noisy line with its standard error");
   for (const auto& w : r.warnings) row("WARN", w);
 }

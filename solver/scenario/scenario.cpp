@@ -1181,6 +1181,11 @@ void Reader::read_noise(const toml::table& root, Scenario& s) const {
   NoiseSettings settings;
   settings.request.realisations = int(integer(*t, "realisations", "noise.realisations", 2, 1000000).value_or(100));
   settings.request.seed = std::uint64_t(integer(*t, "seed", "noise.seed", 0, std::numeric_limits<std::int64_t>::max()).value_or(1));
+  settings.request.route = choice<NoiseRoute>(*t, "route", "noise.route",
+                                              {{"auto", NoiseRoute::automatic},
+                                               {"realisations", NoiseRoute::realisations},
+                                               {"lindblad", NoiseRoute::lindblad}})
+                               .value_or(NoiseRoute::automatic);
   const toml::node* sources = t->get("source");
   if (!sources || !sources->is_array_of_tables() || sources->as_array()->empty())
     fail(sources ? *sources : *root.get("noise"), "noise.source",
@@ -1298,6 +1303,10 @@ void Reader::read_noise(const toml::table& root, Scenario& s) const {
     if (!file && (src.get("frequency_unit") || src.get("psd_unit")))
       fail(src.get("frequency_unit") ? *src.get("frequency_unit") : *src.get("psd_unit"), prefix,
            "frequency_unit and psd_unit only with psd_file");
+    if (file && settings.request.route == NoiseRoute::lindblad)
+      fail(*t->get("route"), "noise.route",
+           "\"auto\" or \"realisations\": " + prefix + " has a PSD table (coloured noise), and the Lindblad "
+           "route holds for white noise only");
     settings.request.sources.push_back(std::move(source));
     settings.given.push_back(given);
   }
