@@ -185,6 +185,9 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
     throw InputError("evaluations", std::to_string(options.max_evaluations),
                      "at least one evaluation per start (" + std::to_string(options.starts) + ")");
   const int n = family.dimension();
+  if (!options.first_start.empty() && int(options.first_start.size()) != n)
+    throw InputError("first_start", std::to_string(options.first_start.size()) + " amplitudes",
+                     std::to_string(n) + " amplitudes (modes times designed parameters)");
   if (options.method == DesignMethod::bobyqa && n < 2)
     throw InputError("modes", std::to_string(options.modes), "at least 2 amplitudes for bobyqa (NLopt); more modes or another method");
 
@@ -222,6 +225,10 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
   std::uniform_real_distribution<double> uniform(-0.5 * options.amplitude_bound, 0.5 * options.amplitude_bound);
   for (int start = 0; start < options.starts && !bound_hit; ++start) {
     std::vector<double> x(std::size_t(n), 0.0);
+    if (start == 0 && !options.first_start.empty()) {
+      x = options.first_start;
+      for (auto& v : x) v = std::clamp(v, -options.amplitude_bound, options.amplitude_bound);
+    }
     if (start > 0)
       for (auto& v : x) v = uniform(random);
     const int left = options.max_evaluations - int(result.history.size());

@@ -63,6 +63,9 @@ struct DesignOptions {
   DesignObjective objective = DesignObjective::excitation;
   DesignMethod method = DesignMethod::bobyqa;
   std::uint64_t seed = 1;
+  // Where the first start begins (empty: c = 0, the smooth ramp); e.g. a design made in the
+  // harmonic approximation. The smooth ramp is evaluated first in any case (objective_before).
+  std::vector<double> first_start;
 };
 
 // One designed parameter of the family.

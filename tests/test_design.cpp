@@ -72,3 +72,64 @@ TEST_CASE("design: harmonic transport below one period reaches 1 - P(0->0) < 1e-
   const auto centre = [&](double t) { return family.value(0, r.amplitudes, t / tau); };
   CHECK(std::norm(translation_alpha(1, centre, tau)) < 1e-8);
 }
+
+// Harmonic frequency change omega 1 -> 2 in tau = 2 (a third of the initial period, below the
+// final one). At tau = 1 this family stops near 1 - P(0->0) = 6e-3 (measured, 85 evaluations):
+// there the shortcut needs omega^2 < 0 for part of the ramp (from memory, as Chen et al. note
+// for short times), which a family of schedules of omega itself cannot represent. Shortcut
+// ramps with Husimi's Q* = 1 exist for any duration (Chen et al., PRL 104, 063002 (2010), from
+// memory); Husimi's P(0 -> 0) = sqrt(2 / (1 + Q*)) (Husimi 1953, from memory), so 1 - P(0->0)
+// = (Q* - 1)/4 to first order. The designed ramp is checked by parametric_q (classical solutions).
+TEST_CASE("design: harmonic frequency change reaches Husimi's Q* - 1 < 1e-8 in a short time", "[design][validation]") {
+  const Potential trap({Term("trap", Shape::harmonic, {{"frequency", 1.0}})});
+  const double tau = 2;
+  const Protocol squeeze(tau, {Schedule::smooth_step("trap.frequency", 1, 2)});
+  const DesignFamily family(squeeze, 3, false);
+  DesignOptions options;
+  options.starts = 1;
+  options.max_evaluations = 120;
+  options.stop_below = 1e-11;
+  const DesignResult r = design_protocol(family, work_evaluator(trap, level_request(), DesignObjective::excitation), options);
+  INFO("frequency: " << r.history.size() << " evaluations, before " << r.objective_before << ", after "
+       << r.objective_after << ", " << r.start_results[0]);
+  const auto q_of = [&](const std::vector<double>& c) {
+    return parametric_q([&](double t) { return std::pow(family.value(0, c, t / tau), 2); }, tau);
+  };
+  const double q_before = q_of(std::vector<double>(3, 0.0));
+  CHECK(q_before - 1 > 0.01);  // the smooth ramp is far from adiabatic here
+  CHECK(std::abs(r.objective_before - (1 - std::sqrt(2 / (1 + q_before)))) < 1e-6);
+  CHECK(r.objective_after < 1e-9);
+  CHECK(q_of(r.amplitudes) - 1 < 1e-8);
+}
+
+// Anharmonic trap V = x^2/2 + 0.01 x^3 + 0.002 x^4 (internal units; one minimum at 0), moved by
+// 3 in tau = 4 as above. The harmonic design (nulling the displaced-oscillator excitation)
+// leaves excitation behind here; designing in the anharmonic trap itself beats it and the
+// smooth ramp (the first start begins at the harmonic design). Factors measured below.
+TEST_CASE("design: in an anharmonic trap the design beats the harmonic design and the smooth ramp", "[design][validation]") {
+  const Potential harmonic({Term("trap", Shape::harmonic, {{"frequency", 1.0}})});
+  const Potential anharmonic({Term("trap", Shape::polynomial, {{"frequency", 1.0}, {"cubic", 0.01}, {"quartic", 0.002}})});
+  const double tau = 4;
+  const Protocol move(tau, {Schedule::smooth_step("trap.centre", 0, 3)});
+  const DesignFamily family(move, 3, false);
+  DesignOptions options;
+  options.starts = 1;
+  options.max_evaluations = 80;
+  options.stop_below = 1e-10;
+  const DesignResult in_harmonic = design_protocol(family, work_evaluator(harmonic, level_request(), DesignObjective::excitation), options);
+  REQUIRE(in_harmonic.objective_after < 1e-8);
+  const auto in_anharmonic = work_evaluator(anharmonic, level_request(), DesignObjective::excitation);
+  const double harmonic_design = in_anharmonic(family.protocol(in_harmonic.amplitudes));
+  options.first_start = in_harmonic.amplitudes;  // refine the harmonic design
+  const DesignResult r = design_protocol(family, in_anharmonic, options);
+  WARN("anharmonic transport: smooth ramp " << r.objective_before << ", harmonic design " << harmonic_design
+       << ", anharmonic design " << r.objective_after << " (" << r.history.size() << " evaluations); factors "
+       << harmonic_design / r.objective_after << " over the harmonic design, " << r.objective_before / r.objective_after
+       << " over the smooth ramp");
+  CHECK(harmonic_design > 1e-6);  // the harmonic design is not good enough here
+  // Measured (3 modes, 80 evaluations each): smooth ramp 0.85, harmonic design 1.2e-2, anharmonic
+  // design 3.0e-3: factors 4.1 and 280. With 6 modes and 250 evaluations: 1.6e-4, factors 86 and
+  // 5400 (the bound still ended it). The checks leave room for other rounding and NLopt builds.
+  CHECK(r.objective_after < harmonic_design / 2);
+  CHECK(r.objective_after < r.objective_before / 100);
+}
