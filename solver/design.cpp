@@ -236,23 +236,31 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
     nlopt::opt opt(nlopt_algorithm(options.method), unsigned(n));
     opt.set_lower_bounds(std::vector<double>(std::size_t(n), -options.amplitude_bound));
     opt.set_upper_bounds(std::vector<double>(std::size_t(n), options.amplitude_bound));
-    opt.set_maxeval(share);
     opt.set_stopval(options.stop_below);
     opt.set_xtol_abs(1e-12 * options.amplitude_bound);
     opt.set_initial_step(0.1 * options.amplitude_bound);
+    // Evaluations are counted here, not by NLopt: a point asked again costs no run.
     struct Context {
       decltype(run_one)* run;
       int start;
       std::exception_ptr* failure;
       bool* bound_hit;
-      int bound;
+      bool share_used = false;
+      int bound, share, begin;
       const std::vector<DesignEvaluation>* history;
-    } context{&run_one, start, &failure, &bound_hit, options.max_evaluations, &result.history};
+    } context{&run_one, start, &failure, &bound_hit, false, options.max_evaluations, share,
+              int(result.history.size()), &result.history};
     opt.set_min_objective(
         [](const std::vector<double>& c, std::vector<double>&, void* data) -> double {
           auto& ctx = *static_cast<Context*>(data);
+          for (const auto& e : *ctx.history)
+            if (e.amplitudes == c) return e.objective;
           if (int(ctx.history->size()) >= ctx.bound) {
             *ctx.bound_hit = true;
+            throw nlopt::forced_stop();
+          }
+          if (int(ctx.history->size()) - ctx.begin >= ctx.share) {
+            ctx.share_used = true;
             throw nlopt::forced_stop();
           }
           try {
@@ -276,8 +284,9 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
       throw PhysicsError(std::string("the optimiser (NLopt) failed: ") + e.what());
     }
     if (failure) std::rethrow_exception(failure);
-    if (result.history.size() >= std::size_t(options.max_evaluations) && r != nlopt::STOPVAL_REACHED) bound_hit = true;
-    result.start_results.push_back(bound_hit && r == nlopt::FORCED_STOP ? "stopped at the evaluation bound" : ending(r));
+    result.start_results.push_back(r != nlopt::FORCED_STOP ? ending(r)
+                                   : bound_hit         ? "stopped at the evaluation bound"
+                                                       : "used its share of the evaluations");
   }
 
   // The smooth ramp is the first evaluation of the first start (x = 0 is feasible: s stays in [0, 1]).
