@@ -10,6 +10,7 @@
 #include "solver/harmonic_reference.hpp"
 
 using namespace trapwork;
+using Catch::Matchers::Contains;
 
 namespace {
 WorkRequest level_request() {
@@ -132,4 +133,58 @@ TEST_CASE("design: in an anharmonic trap the design beats the harmonic design an
   // 5400 (the bound still ended it). The checks leave room for other rounding and NLopt builds.
   CHECK(r.objective_after < harmonic_design / 2);
   CHECK(r.objective_after < r.objective_before / 100);
+}
+
+// The search's bookkeeping on a cheap objective of the schedule itself (no work run): the
+// bound, the starts, the history, the progress and interrupt hooks, the overshoot penalty.
+TEST_CASE("design: bound, starts, history, hooks and overshoot on a cheap objective", "[design]") {
+  const double tau = 2;
+  const DesignFamily family(Protocol(tau, {Schedule::smooth_step("trap.centre", 0, 1)}), 3, false);
+  // Minimum 0 where x(tau/2) = 0.8 and x(tau/4) = 0.1 (reachable inside the band: the ramp is
+  // 0.5 and 0.156 there).
+  const DesignEvaluator cheap = [&](const Protocol& p) {
+    const double a = p.schedules()[0].evaluate(tau / 2, tau).value - 0.8;
+    const double b = p.schedules()[0].evaluate(tau / 4, tau).value - 0.1;
+    return a * a + b * b;
+  };
+  DesignOptions options;
+  options.starts = 3;
+  options.max_evaluations = 40;
+  int calls = 0, last_done = 0;
+  DesignHooks hooks;
+  hooks.progress = [&](const DesignEvaluation& e, int done, int bound) {
+    ++calls;
+    CHECK(done == e.index + 1);
+    CHECK(bound == 40);
+    last_done = done;
+  };
+  const DesignResult r = design_protocol(family, cheap, options, hooks);
+  CHECK(r.history.size() == 40);
+  CHECK(calls == 40);
+  CHECK(last_done == 40);
+  CHECK(r.start_results.size() == 3);
+  CHECK(r.history.back().start == 2);
+  CHECK(r.history.front().amplitudes == std::vector<double>(3, 0.0));
+  CHECK(r.objective_before == Approx(0.09 + std::pow(0.15625 - 0.1, 2)));
+  CHECK(r.objective_after < r.objective_before / 1000);  // 3 starts of ~13 evaluations: measured 1.5e-5
+  CHECK(r.bound_reached);
+  for (const auto& e : r.history)
+    if (e.feasible) CHECK(e.objective >= r.objective_after);
+  // Overshoot 0: the band is [0, 1]; every member the search keeps stays inside it.
+  options.overshoot = 0;
+  const DesignResult inside = design_protocol(family, cheap, options);
+  CHECK(family.overshoot_excess(inside.amplitudes, 0) == 0);
+  // Interrupt: the third evaluation stops the search; the exception passes through.
+  int seen = 0;
+  hooks.progress = {};
+  hooks.interrupt = [&] {
+    if (++seen == 3) throw Interrupted("stop");
+  };
+  CHECK_THROWS_AS(design_protocol(family, cheap, options, hooks), Interrupted);
+  CHECK(seen == 3);
+  // An evaluator failing stops the search with its own error.
+  const DesignEvaluator failing = [](const Protocol&) -> double { throw PhysicsError("grid too small"); };
+  CHECK_THROWS_WITH(design_protocol(family, failing, options), Contains("grid too small"));
+  options.max_evaluations = 2;  // fewer than the starts
+  CHECK_THROWS_AS(design_protocol(family, cheap, options), InputError);
 }
