@@ -10,7 +10,7 @@ set -euo pipefail
 cd "$(dirname "$0")"
 
 packages=(cmake make g++ pkg-config libeigen3-dev libspectra-dev libfftw3-dev libboost-dev
-          libcli11-dev catch2 libtomlplusplus-dev libmuparser-dev nlohmann-json3-dev
+          libcli11-dev catch2 libtomlplusplus-dev libmuparser-dev nlohmann-json3-dev libnlopt-cxx-dev
           libplplot-dev plplot-driver-cairo
           pybind11-dev python3-dev python3-numpy python3-pytest python3-matplotlib)
 # clang 14 and its runtimes (ASan, UBSan, libFuzzer) only for the sanitizer stage

@@ -191,4 +191,28 @@ struct PlanOutcome {
 void add_plan_command(CLI::App& app);
 PlanOutcome run_plan_command(const PlanCommand& command, std::ostream& out, std::ostream& progress);
 
+// trapwork design SCENARIO [--modes K] [--starts S] [--evaluations N] [--objective excitation|
+// dissipated_work] [--method bobyqa|...] [--amplitude-bound B] [--overshoot O] [--smoother]
+// [--seed S] [--stop-below V] [-o DIR] [--set A=V] [--quiet]: design_task
+// (solver/scenario/design_task.hpp); writes designed.toml with its table files, design_history.csv,
+// design_summary.json, design_schedule.png/.svg and design_convergence.png/.svg.
+struct DesignCommand {
+  std::vector<std::string> set;
+  std::string scenario, output;
+  int modes = 3, starts = 1, evaluations = 80;  // random later starts mostly land where the excitation is ~1
+  std::string objective = "excitation", method = "bobyqa";
+  double amplitude_bound = 1, overshoot = 0.5, stop_below = 1e-10;
+  bool smoother = false;
+  std::uint64_t seed = 1;
+  bool quiet = false;
+  bool show_progress = false;
+};
+struct DesignCommandOutcome {
+  double objective_before = 0, objective_after = 0;  // internal units (probability or energy)
+  int evaluations = 0;
+  std::vector<std::filesystem::path> files;
+};
+void add_design_command(CLI::App& app);
+DesignCommandOutcome run_design_command(const DesignCommand& command, std::ostream& out, std::ostream& progress);
+
 }  // namespace trapwork

@@ -15,6 +15,7 @@ int main(int argc, char** argv) {
   trapwork::add_fit_command(app);
   trapwork::add_compare_command(app);
   trapwork::add_plan_command(app);
+  trapwork::add_design_command(app);
   trapwork::add_keys_command(app);
   return trapwork::run_command_line(app, argc, argv);
 }

@@ -1,0 +1,309 @@
+#include "solver/design.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <cstdio>
+#include <exception>
+#include <limits>
+#include <nlopt.hpp>
+#include <random>
+
+#include "solver/errors.hpp"
+
+namespace trapwork {
+
+namespace {
+constexpr double pi = 3.14159265358979323846;
+
+std::string exact(double x) {
+  char buffer[40];
+  std::snprintf(buffer, sizeof buffer, "%.17g", x);
+  return buffer;
+}
+
+double base_ramp(double u, bool smoother) {
+  return smoother ? u * u * u * (10 + u * (-15 + 6 * u)) : u * u * (3 - 2 * u);
+}
+
+double mode(int k, double u) {
+  const double s = std::sin(pi * u);
+  return s * s * std::sin(k * pi * u);
+}
+
+nlopt::algorithm nlopt_algorithm(DesignMethod method) {
+  switch (method) {
+    case DesignMethod::bobyqa: return nlopt::LN_BOBYQA;
+    case DesignMethod::cobyla: return nlopt::LN_COBYLA;
+    case DesignMethod::nelder_mead: return nlopt::LN_NELDERMEAD;
+    case DesignMethod::sbplx: return nlopt::LN_SBPLX;
+  }
+  return nlopt::LN_BOBYQA;
+}
+
+std::string ending(nlopt::result r) {
+  switch (r) {
+    case nlopt::STOPVAL_REACHED: return "reached the stop value";
+    case nlopt::FTOL_REACHED: return "objective converged";
+    case nlopt::XTOL_REACHED: return "amplitudes converged";
+    case nlopt::MAXEVAL_REACHED: return "used its share of the evaluations";
+    case nlopt::ROUNDOFF_LIMITED: return "limited by rounding";
+    case nlopt::FORCED_STOP: return "stopped";
+    default: return "ended (NLopt code " + std::to_string(int(r)) + ")";
+  }
+}
+}  // namespace
+
+DesignObjective design_objective_from_name(const std::string& name) {
+  if (name == "excitation") return DesignObjective::excitation;
+  if (name == "dissipated_work") return DesignObjective::dissipated_work;
+  throw InputError("objective", name, "excitation or dissipated_work");
+}
+std::string design_objective_name(DesignObjective objective) {
+  return objective == DesignObjective::excitation ? "excitation" : "dissipated_work";
+}
+DesignMethod design_method_from_name(const std::string& name) {
+  if (name == "bobyqa") return DesignMethod::bobyqa;
+  if (name == "cobyla") return DesignMethod::cobyla;
+  if (name == "nelder_mead") return DesignMethod::nelder_mead;
+  if (name == "sbplx") return DesignMethod::sbplx;
+  throw InputError("method", name, "bobyqa, cobyla, nelder_mead or sbplx");
+}
+std::string design_method_name(DesignMethod method) {
+  switch (method) {
+    case DesignMethod::bobyqa: return "bobyqa";
+    case DesignMethod::cobyla: return "cobyla";
+    case DesignMethod::nelder_mead: return "nelder_mead";
+    case DesignMethod::sbplx: return "sbplx";
+  }
+  return "bobyqa";
+}
+
+DesignFamily::DesignFamily(const Protocol& protocol, int modes, bool zero_end_acceleration)
+    : protocol_(protocol), modes_(modes), smoother_(zero_end_acceleration) {
+  const double tau = protocol.duration();
+  if (!(tau > 0)) throw InputError("protocol.duration", exact(tau), "a duration > 0 to design a ramp over");
+  if (protocol.is_time_reversed()) throw ContractViolation("DesignFamily: a reversed protocol");
+  if (modes < 1 || modes > 20) throw InputError("modes", std::to_string(modes), "1 to 20 modes");
+  for (const auto& s : protocol.schedules()) {
+    const double a = s.initial_value(tau), b = s.final_value(tau);
+    if (s.form() != ScheduleForm::constant && a != b) parameters_.push_back({s.address(), a, b});
+  }
+  if (parameters_.empty())
+    throw InputError("protocol.change", "no parameter whose end values differ",
+                     "a change with different end values (from and to) to design");
+}
+
+double DesignFamily::value(std::size_t p, const std::vector<double>& c, double u) const {
+  const auto& d = parameters_.at(p);
+  double shape = base_ramp(u, smoother_);
+  for (int k = 1; k <= modes_; ++k) shape += c.at(p * modes_ + k - 1) * mode(k, u);
+  return d.from + (d.to - d.from) * shape;
+}
+
+double DesignFamily::overshoot_excess(const std::vector<double>& c, double overshoot) const {
+  double worst = 0;
+  for (std::size_t p = 0; p < parameters_.size(); ++p) {
+    const auto& d = parameters_[p];
+    const double span = std::abs(d.to - d.from);
+    const double lo = std::min(d.from, d.to) - overshoot * span, hi = std::max(d.from, d.to) + overshoot * span;
+    for (int i = 0; i <= 512; ++i) {
+      const double v = value(p, c, i / 512.0);
+      worst = std::max(worst, std::max(lo - v, v - hi) / span);
+    }
+  }
+  return worst;
+}
+
+Protocol DesignFamily::protocol(const std::vector<double>& c) const {
+  if (int(c.size()) != dimension()) throw ContractViolation("DesignFamily::protocol: wrong number of amplitudes");
+  std::vector<Schedule> schedules;
+  for (const auto& s : protocol_.schedules()) {
+    auto it = std::find_if(parameters_.begin(), parameters_.end(),
+                           [&](const DesignedParameter& d) { return d.address == s.address(); });
+    if (it == parameters_.end()) {
+      schedules.push_back(s);
+      continue;
+    }
+    const std::size_t p = std::size_t(it - parameters_.begin());
+    const std::string u = "(t/tau)";
+    std::string shape = smoother_ ? u + "^3*(10+" + u + "*(-15+6*" + u + "))" : u + "^2*(3-2*" + u + ")";
+    const std::string w = "sin(" + exact(pi) + "*" + u + ")^2";
+    for (int k = 1; k <= modes_; ++k) {
+      const double a = c[p * modes_ + k - 1];
+      if (a == 0) continue;
+      shape += "+(" + exact(a) + ")*" + w + "*sin(" + std::to_string(k) + "*" + exact(pi) + "*" + u + ")";
+    }
+    const std::string expression = "(" + exact(it->from) + ")+(" + exact(it->to - it->from) + ")*(" + shape + ")";
+    schedules.push_back(Schedule::formula(s.address(), expression));
+  }
+  return Protocol(protocol_.duration(), std::move(schedules));
+}
+
+std::string DesignFamily::description() const {
+  return std::string(smoother_ ? "smoother step 10u^3 - 15u^4 + 6u^5" : "smooth step 3u^2 - 2u^3") +
+         " plus sum_k c_k sin^2(pi u) sin(k pi u), k = 1.." + std::to_string(modes_) +
+         ", in units of the change";
+}
+
+double design_objective(const WorkResult& result, DesignObjective objective) {
+  const WorkInput& in = result.forward;
+  if (objective == DesignObjective::dissipated_work) {
+    if (!in.beta) throw PhysicsError("the dissipated work <W> - Delta F needs a thermal initial state (temperature or mean phonon number); use the objective excitation");
+    return result.distribution.dissipated_work;
+  }
+  const auto& P = in.transitions.probability;
+  double stay = 0;
+  for (int m = 0; m < in.transitions.initial_levels(); ++m) {
+    const double p = in.initial_weights.at(std::size_t(m));
+    if (p == 0) continue;
+    if (m >= in.transitions.final_levels())
+      throw PhysicsError("the excitation needs the final level " + std::to_string(m) + ", which the run did not compute");
+    stay += p * P(m, m);
+  }
+  return 1 - stay;
+}
+
+DesignEvaluator work_evaluator(Potential base, WorkRequest request, DesignObjective objective) {
+  request.reverse_run = false;
+  request.time_step_check = false;
+  request.grid_check = false;
+  request.spectrum.convergence_check = false;
+  request.trace_points = 0;
+  return [base = std::move(base), request = std::move(request), objective](const Protocol& protocol) {
+    return design_objective(run_work(base, protocol, request), objective);
+  };
+}
+
+DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& evaluate,
+                             const DesignOptions& options, const DesignHooks& hooks) {
+  if (!(options.amplitude_bound > 0) || !std::isfinite(options.amplitude_bound))
+    throw InputError("amplitude_bound", exact(options.amplitude_bound), "a bound > 0 on the mode amplitudes");
+  if (!(options.overshoot >= 0) || !std::isfinite(options.overshoot))
+    throw InputError("overshoot", exact(options.overshoot), "an overshoot >= 0 (units of the change)");
+  if (options.starts < 1) throw InputError("starts", std::to_string(options.starts), "at least 1 start");
+  if (options.max_evaluations < options.starts)
+    throw InputError("evaluations", std::to_string(options.max_evaluations),
+                     "at least one evaluation per start (" + std::to_string(options.starts) + ")");
+  const int n = family.dimension();
+  if (!options.first_start.empty() && int(options.first_start.size()) != n)
+    throw InputError("first_start", std::to_string(options.first_start.size()) + " amplitudes",
+                     std::to_string(n) + " amplitudes (modes times designed parameters)");
+  if (options.method == DesignMethod::bobyqa && n < 2)
+    throw InputError("modes", std::to_string(options.modes), "at least 2 amplitudes for bobyqa (NLopt); more modes or another method");
+
+  DesignResult result;
+  result.parameters = family.parameters();
+  result.modes = family.modes();
+  double largest = 1;  // largest feasible objective so far (penalties stay above it)
+  std::exception_ptr failure;
+  bool bound_hit = false;
+
+  auto run_one = [&](const std::vector<double>& c, int start) {
+    for (const auto& e : result.history)  // a point asked again (NLopt's first is the start) costs no run
+      if (e.amplitudes == c) return e.objective;
+    if (hooks.interrupt) hooks.interrupt();
+    DesignEvaluation e;
+    e.index = int(result.history.size());
+    e.start = start;
+    e.amplitudes = c;
+    e.excess = family.overshoot_excess(c, options.overshoot);
+    e.feasible = e.excess <= 0;
+    if (e.feasible) {
+      e.objective = evaluate(family.protocol(c));
+      if (!std::isfinite(e.objective)) throw PhysicsError("the objective is not finite for amplitudes " + exact(c.empty() ? 0 : c[0]) + "...");
+      largest = std::max(largest, e.objective);
+    } else {
+      e.objective = largest + 1 + e.excess;
+    }
+    result.history.push_back(e);
+    if (hooks.progress) hooks.progress(result.history.back(), int(result.history.size()), options.max_evaluations);
+    return e.objective;
+  };
+
+  run_one(std::vector<double>(std::size_t(n), 0.0), 0);  // the smooth ramp, objective_before
+  std::mt19937_64 random(options.seed);
+  std::uniform_real_distribution<double> uniform(-0.5 * options.amplitude_bound, 0.5 * options.amplitude_bound);
+  for (int start = 0; start < options.starts && !bound_hit; ++start) {
+    std::vector<double> x(std::size_t(n), 0.0);
+    if (start == 0 && !options.first_start.empty()) {
+      x = options.first_start;
+      for (auto& v : x) v = std::clamp(v, -options.amplitude_bound, options.amplitude_bound);
+    }
+    if (start > 0)
+      for (auto& v : x) v = uniform(random);
+    const int left = options.max_evaluations - int(result.history.size());
+    const int share = std::max(1, left / (options.starts - start));
+    nlopt::opt opt(nlopt_algorithm(options.method), unsigned(n));
+    opt.set_lower_bounds(std::vector<double>(std::size_t(n), -options.amplitude_bound));
+    opt.set_upper_bounds(std::vector<double>(std::size_t(n), options.amplitude_bound));
+    opt.set_stopval(options.stop_below);
+    opt.set_xtol_abs(1e-12 * options.amplitude_bound);
+    opt.set_initial_step(0.1 * options.amplitude_bound);
+    // Evaluations are counted here, not by NLopt: a point asked again costs no run.
+    struct Context {
+      decltype(run_one)* run;
+      int start;
+      std::exception_ptr* failure;
+      bool* bound_hit;
+      bool share_used = false;
+      int bound, share, begin;
+      const std::vector<DesignEvaluation>* history;
+    } context{&run_one, start, &failure, &bound_hit, false, options.max_evaluations, share,
+              int(result.history.size()), &result.history};
+    opt.set_min_objective(
+        [](const std::vector<double>& c, std::vector<double>&, void* data) -> double {
+          auto& ctx = *static_cast<Context*>(data);
+          for (const auto& e : *ctx.history)
+            if (e.amplitudes == c) return e.objective;
+          if (int(ctx.history->size()) >= ctx.bound) {
+            *ctx.bound_hit = true;
+            throw nlopt::forced_stop();
+          }
+          if (int(ctx.history->size()) - ctx.begin >= ctx.share) {
+            ctx.share_used = true;
+            throw nlopt::forced_stop();
+          }
+          try {
+            return (*ctx.run)(c, ctx.start);
+          } catch (...) {
+            *ctx.failure = std::current_exception();
+            throw nlopt::forced_stop();
+          }
+        },
+        &context);
+    double value = 0;
+    nlopt::result r = nlopt::FAILURE;
+    try {
+      r = opt.optimize(x, value);
+    } catch (const nlopt::forced_stop&) {
+      r = nlopt::FORCED_STOP;
+    } catch (const nlopt::roundoff_limited&) {
+      r = nlopt::ROUNDOFF_LIMITED;
+    } catch (const std::runtime_error& e) {
+      if (failure) std::rethrow_exception(failure);
+      throw PhysicsError(std::string("the optimiser (NLopt) failed: ") + e.what());
+    }
+    if (failure) std::rethrow_exception(failure);
+    result.start_results.push_back(r != nlopt::FORCED_STOP ? ending(r)
+                                   : bound_hit         ? "stopped at the evaluation bound"
+                                                       : "used its share of the evaluations");
+  }
+
+  // The smooth ramp is the first evaluation of the first start (x = 0 is feasible: s stays in [0, 1]).
+  result.objective_before = result.history.front().objective;
+  const DesignEvaluation* best = &result.history.front();
+  for (const auto& e : result.history)
+    if (e.feasible && e.objective < best->objective) best = &e;
+  result.amplitudes = best->amplitudes;
+  result.objective_after = best->objective;
+  result.bound_reached = bound_hit;
+  if (bound_hit && !(result.objective_after < options.stop_below))
+    result.warnings.push_back("the evaluation bound (" + std::to_string(options.max_evaluations) +
+                              ") ended the search at objective " + exact(result.objective_after) +
+                              ": more evaluations may lower it");
+  if (!(result.objective_after < result.objective_before))
+    result.warnings.push_back("no member beat the smooth ramp (objective " + exact(result.objective_before) + ")");
+  return result;
+}
+
+}  // namespace trapwork

@@ -1,0 +1,149 @@
+#pragma once
+// Protocol design: a family of schedules for the changed parameters of a protocol, and a
+// search (NLopt, derivative-free) for the member that leaves the particle least excited.
+//
+// The family. Each schedule of the protocol whose end values differ (a "designed" parameter,
+// from a to b over [0, tau], u = t / tau) becomes
+//   lambda(u) = a + (b - a) [ s(u) + sum_{k=1..K} c_k sin^2(pi u) sin(k pi u) ]
+// with s the smooth step 3u^2 - 2u^3 (zero end velocity), or the smoother step
+// 10u^3 - 15u^4 + 6u^5 (zero end velocity and acceleration). Why these modes:
+// sin^2(pi u) sin(k pi u) has zero value, first and second derivative at u = 0 and 1 (the
+// product of a double zero of sin^2 and a simple zero of sin), so every member keeps the
+// protocol's end values with zero end velocity, and zero end acceleration where s has it; the
+// modes are smooth, bounded by 1, and for k = 1..K linearly independent (a sine series times a
+// fixed positive weight inside (0, 1)). The amplitudes c_k are in units of the change b - a, so
+// one bound |c_k| <= amplitude_bound serves every parameter. Schedules held constant, or whose
+// end values are equal, are kept as they are.
+//
+// Overshoot: a member is feasible when lambda stays inside [min(a, b) - o |b - a|,
+// max(a, b) + o |b - a|] (o = overshoot) at 513 points of u. An infeasible member is not
+// simulated; its objective is the penalty 1 + (excess / |b - a|) above the largest objective
+// found so far (at least 1), so the search is pushed back inside and never picks it.
+//
+// Objectives (each from one work run of the protocol built from the member):
+//   excitation       1 - sum_m p_m P(m -> m): the probability of leaving the initial level's
+//                    adiabatic partner (the level of H_B with the same index; no crossings),
+//                    averaged over the initial state (for a level start, 1 - P(m -> m))
+//   dissipated_work  <W> - Delta F (a Gibbs initial state only), in internal energy units
+//
+// Search: NLopt's local derivative-free methods (LN_BOBYQA by default, LN_COBYLA,
+// LN_NELDERMEAD, LN_SBPLX) from several starts: the first at c = 0 (the smooth ramp), the
+// others at points drawn uniformly in half the amplitude box (std::mt19937_64 from `seed`, so a
+// run is repeatable). The evaluation bound counts every work run of all starts together; each
+// start gets an equal share of what is left. A start stops early when the objective falls
+// below stop_below. No I/O, no clock: progress and interruption go through hooks.
+#include <cstdint>
+#include <functional>
+#include <string>
+#include <vector>
+
+#include "potentials/potential.hpp"
+#include "potentials/protocol.hpp"
+#include "solver/work.hpp"
+
+namespace trapwork {
+
+enum class DesignObjective { excitation, dissipated_work };
+enum class DesignMethod { bobyqa, cobyla, nelder_mead, sbplx };
+
+// Throw InputError (key "objective" / "method") naming the choices on an unknown name.
+DesignObjective design_objective_from_name(const std::string& name);
+std::string design_objective_name(DesignObjective objective);
+DesignMethod design_method_from_name(const std::string& name);
+std::string design_method_name(DesignMethod method);
+
+struct DesignOptions {
+  int modes = 3;                        // K free modes per designed parameter (1..20)
+  bool zero_end_acceleration = false;   // smoother step as the base ramp
+  double amplitude_bound = 1;           // |c_k| <= amplitude_bound (units of b - a), > 0
+  double overshoot = 0.5;               // o >= 0, see above
+  int starts = 3;                       // >= 1
+  int max_evaluations = 200;            // work runs in all, >= starts
+  double stop_below = 0;                // a start ends once the objective is below this
+  DesignObjective objective = DesignObjective::excitation;
+  DesignMethod method = DesignMethod::bobyqa;
+  std::uint64_t seed = 1;
+  // Where the first start begins (empty: c = 0, the smooth ramp); e.g. a design made in the
+  // harmonic approximation. The smooth ramp is evaluated first in any case (objective_before).
+  std::vector<double> first_start;
+};
+
+// One designed parameter of the family.
+struct DesignedParameter {
+  std::string address;
+  double from = 0, to = 0;  // end values (internal units)
+};
+
+class DesignFamily {
+ public:
+  // The designed parameters of `protocol` (schedules with different end values); the others
+  // are kept. Throws InputError (key "protocol") when tau <= 0 or nothing changes.
+  DesignFamily(const Protocol& protocol, int modes, bool zero_end_acceleration);
+  const std::vector<DesignedParameter>& parameters() const { return parameters_; }
+  int modes() const { return modes_; }
+  int dimension() const { return modes_ * int(parameters_.size()); }
+  double duration() const { return protocol_.duration(); }
+  // Member with amplitudes c (parameter-major: c[p * modes + k - 1]); designed schedules are
+  // formula schedules of t and tau (exact values; derivatives as for any formula schedule).
+  Protocol protocol(const std::vector<double>& c) const;
+  // lambda_p(u) of parameter p at 0 <= u <= 1 for amplitudes c.
+  double value(std::size_t p, const std::vector<double>& c, double u) const;
+  // Largest excess of the member over the overshoot band, in units of |b - a| (0: feasible).
+  double overshoot_excess(const std::vector<double>& c, double overshoot) const;
+  // The base ramp's name ("smooth step 3u^2 - 2u^3" or the smoother one) and the mode formula.
+  std::string description() const;
+
+ private:
+  Protocol protocol_;
+  std::vector<DesignedParameter> parameters_;
+  int modes_ = 0;
+  bool smoother_ = false;
+};
+
+// One work run of the search.
+struct DesignEvaluation {
+  int index = 0;        // 0, 1, ... in the order run
+  int start = 0;        // which start it belongs to
+  std::vector<double> amplitudes;
+  double objective = 0;     // the penalty when infeasible
+  bool feasible = true;
+  double excess = 0;        // overshoot excess (units of |b - a|) when infeasible
+};
+
+struct DesignResult {
+  std::vector<DesignedParameter> parameters;
+  int modes = 0;
+  std::vector<double> amplitudes;       // best feasible member
+  double objective_before = 0;          // smooth ramp (c = 0)
+  double objective_after = 0;           // best member
+  std::vector<DesignEvaluation> history;
+  std::vector<std::string> start_results;  // NLopt's ending of each start ("reached stop_below")
+  bool bound_reached = false;           // the evaluation bound ended the search
+  std::vector<std::string> warnings;    // with the value: bound reached, no improvement, ...
+};
+
+// The objective of one member: a work run of its protocol.
+using DesignEvaluator = std::function<double(const Protocol&)>;
+
+// The objective from a finished work run. Throws PhysicsError for dissipated_work without a
+// Gibbs initial state (no Delta F), or when the final levels do not include a kept initial level.
+double design_objective(const WorkResult& result, DesignObjective objective);
+
+// run_work of `base` with the member's protocol, with only what the objective needs: no
+// reverse run, time-step check, grid check or traces (the design's final run is for the caller
+// to check as any work run).
+DesignEvaluator work_evaluator(Potential base, WorkRequest request, DesignObjective objective);
+
+struct DesignHooks {
+  // After each evaluation: it, the evaluations done and the bound.
+  std::function<void(const DesignEvaluation&, int done, int bound)> progress;
+  // Before each evaluation; may throw (Interrupted) to stop the search, which it lets through.
+  std::function<void()> interrupt;
+};
+
+// Searches the family for the least objective. InputError for options out of range;
+// the evaluator's exceptions pass through (a member that cannot be computed stops the search).
+DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& evaluate,
+                             const DesignOptions& options, const DesignHooks& hooks = {});
+
+}  // namespace trapwork

@@ -1,0 +1,325 @@
+// The design task (design_task.hpp): solver/design.hpp on a scenario, and its files.
+#include "solver/scenario/design_task.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <sstream>
+#include <toml++/toml.h>
+
+#include "solver/errors.hpp"
+#include "solver/scenario/machine.hpp"
+#include "solver/scenario/output.hpp"
+
+namespace trapwork {
+
+namespace fs = std::filesystem;
+
+namespace {
+constexpr int table_rows = 2001;  // rows of each designed table (piecewise linear between them)
+
+std::string table_file(const std::string& address) {
+  std::string name = address;
+  std::replace(name.begin(), name.end(), '.', '_');
+  return "designed_" + name + ".csv";
+}
+
+// Internal value of "1 <unit>" of dimension d.
+double per_unit(const Scenario& s, const std::string& unit, Dimension d, const std::string& key) {
+  return s.units.to_internal(parse_quantity("1 " + unit), d, key, unit);
+}
+
+// designed.toml: the scenario's text with each designed change read from its table; relative
+// data files made absolute (designed.toml lives in the output folder); no [output] (its own
+// default folder); frame "lab" for a translation, because the co-moving frame takes the trap's
+// acceleration from the schedule and a piecewise-linear table has none between its rows.
+std::string designed_scenario_text(const Scenario& s, const std::string& text, const std::vector<DesignTable>& tables,
+                                   bool translation, const std::string& family) {
+  toml::table root = toml::parse(text, s.file);
+  const fs::path folder = s.file == "default" ? fs::current_path() : fs::absolute(fs::path(s.file)).parent_path();
+  auto absolute_file = [&](toml::table& t) {
+    if (auto* f = t.get_as<std::string>("file"); f && fs::path(f->get()).is_relative())
+      t.insert_or_assign("file", (folder / f->get()).lexically_normal().string());
+  };
+  if (auto* potentials = root["potential"].as_array())
+    for (auto& p : *potentials)
+      if (auto* t = p.as_table()) absolute_file(*t);
+  if (auto* noise = root["noise"].as_table())
+    if (auto* sources = (*noise)["source"].as_array())
+      for (auto& n : *sources)
+        if (auto* t = n.as_table())
+          if (auto* f = t->get_as<std::string>("psd_file"); f && fs::path(f->get()).is_relative())
+            t->insert_or_assign("psd_file", (folder / f->get()).lexically_normal().string());
+  root.erase("output");
+  if (auto* changes = root["protocol"]["change"].as_array())
+    for (auto& c : *changes) {
+      auto* t = c.as_table();
+      if (!t) continue;
+      absolute_file(*t);
+      const auto* parameter = t->get_as<std::string>("parameter");
+      if (!parameter) continue;
+      for (const auto& d : tables) {
+        if (d.address != parameter->get()) continue;
+        for (const char* key : {"ramp", "from", "to", "formula", "file", "time_unit", "value_unit"}) t->erase(key);
+        t->insert_or_assign("ramp", "table");
+        t->insert_or_assign("file", d.file);
+        t->insert_or_assign("time_unit", d.time_unit);
+        if (!d.value_unit.empty()) t->insert_or_assign("value_unit", d.value_unit);
+      }
+    }
+  if (translation) {
+    if (!root["work"].as_table()) root.insert_or_assign("work", toml::table{});
+    root["work"].as_table()->insert_or_assign("frame", "lab");
+  }
+  if (auto* title = root.get_as<std::string>("title")) title->get() += " (designed ramp)";
+  std::ostringstream out;
+  out << "# Made by `" << (s.invocation.empty() ? std::string("trapwork design") : s.invocation) << "` from "
+      << s.file << ".\n# The designed ramp (" << family << ") is read from the table files beside this one.\n";
+  if (translation)
+    out << "# frame = \"lab\": the co-moving frame would take the trap's acceleration from the table, which\n"
+           "# has none between its rows (piecewise linear); the lab frame samples the potential itself.\n";
+  out << root << '\n';
+  return out.str();
+}
+}  // namespace
+
+std::vector<std::string> design_output_names(const Scenario& scenario) {
+  std::vector<std::string> names = {"design_history.csv", "design_summary.json",    "design_schedule.png",
+                                    "design_schedule.svg", "design_convergence.png", "design_convergence.svg",
+                                    "designed.toml"};
+  if (scenario.protocol)
+    for (const auto& c : scenario.protocol->changes) names.push_back(table_file(c.parameter));
+  return names;
+}
+
+DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& settings, const TaskHooks& hooks,
+                              const std::function<void()>& checked) {
+  if (!scenario.protocol) throw InputError("protocol", "", "a [protocol] whose ramp to design", "", scenario.file);
+  if (scenario.noise)
+    throw InputError("noise", "[noise]", "no [noise]: the design runs without technical noise",
+                     "remove [noise] (or design first, then add it to designed.toml)", scenario.file);
+  if (scenario.natural_units)
+    throw InputError("units.natural", "true", "lab units: the designed table is written in the scenario's lab units",
+                     "", scenario.file);
+  for (const auto& c : scenario.protocol->changes)
+    if (c.parameter.rfind("box.", 0) == 0)
+      throw InputError("protocol.change.parameter", c.parameter,
+                       "a parameter of the potential: moving walls are not designed yet", "", scenario.file);
+  const Protocol protocol = build_protocol(scenario);
+  const DesignFamily family(protocol, settings.options.modes, settings.options.zero_end_acceleration);
+  WorkRequest request = work_request(scenario);
+  if (settings.options.objective == DesignObjective::dissipated_work && !request.initial.is_gibbs())
+    throw InputError("objective", "dissipated_work", "a thermal [initial] (temperature or mean_phonons) for the dissipated work",
+                     "use the objective excitation", scenario.file);
+  if (!(request.spectrum.options.memory_limit > 0)) request.spectrum.options.memory_limit = available_memory_bytes();
+  request.spectrum.options.interrupt = hooks.interrupt;
+  if (checked) checked();
+
+  DesignTaskOutcome o{scenario, settings, family.description(), {}, {}, {}, {}, 1};
+  const DesignEvaluator evaluate = work_evaluator(scenario.potential, request, settings.options.objective);
+  DesignHooks design_hooks;
+  design_hooks.interrupt = hooks.interrupt;
+  if (hooks.progress)
+    design_hooks.progress = [&](const DesignEvaluation&, int done, int bound) { hooks.progress(double(done) / bound); };
+  if (hooks.stage) hooks.stage("design");
+  try {
+    o.result = design_protocol(family, [&](const Protocol& p) { return evaluate(p); }, settings.options, design_hooks);
+  } catch (const PhysicsError& e) {
+    throw PhysicsError(scenario.file + ": " + e.what());
+  }
+  if (settings.options.objective == DesignObjective::dissipated_work) {
+    const Display d = display(scenario);
+    o.objective_unit = d.e;
+    o.objective_per_unit = d.energy_per;
+  }
+
+  const std::string time_unit = duration_unit(scenario);
+  const double tau = protocol.duration();
+  const std::vector<double> zero(o.result.amplitudes.size(), 0.0);
+  for (std::size_t p = 0; p < family.parameters().size(); ++p) {
+    const auto& d = family.parameters()[p];
+    DesignTable t;
+    t.address = d.address;
+    t.file = table_file(d.address);
+    t.time_unit = time_unit;
+    t.time_per_unit = per_unit(scenario, time_unit, Dimension::time(), "protocol.duration");
+    const auto change = std::find_if(scenario.protocol->changes.begin(), scenario.protocol->changes.end(),
+                                     [&](const ChangeSpec& c) { return c.parameter == d.address; });
+    const auto slot = std::find_if(scenario.parameters.begin(), scenario.parameters.end(),
+                                   [&](const ParameterSlot& s) { return s.address == d.address; });
+    if (slot != scenario.parameters.end() && slot->dimension == Dimension::none()) {
+      t.value_per_unit = slot->plain_factor;
+    } else {
+      std::string given = change == scenario.protocol->changes.end() ? "" : change->to_given;
+      given.erase(std::remove(given.begin(), given.end(), '"'), given.end());  // as written, with its quotes
+      t.value_unit = unit_text(given);
+      if (t.value_unit.empty() && change != scenario.protocol->changes.end()) t.value_unit = change->value_unit;
+      if (t.value_unit.empty())
+        throw InputError("protocol.change.to", change == scenario.protocol->changes.end() ? "" : change->to_given,
+                         "an end value with its unit (the designed table is written in it)", "", scenario.file);
+      t.value_per_unit = per_unit(scenario, t.value_unit, change->dimension, "protocol.change.to");
+    }
+    for (int i = 0; i < table_rows; ++i) {
+      const double u = double(i) / (table_rows - 1);
+      t.times.push_back(u * tau);
+      t.before.push_back(family.value(p, zero, u));
+      t.after.push_back(family.value(p, o.result.amplitudes, u));
+    }
+    o.tables.push_back(std::move(t));
+  }
+  o.designed_text = designed_scenario_text(scenario, settings.scenario_text, o.tables,
+                                           protocol.translation(scenario.potential).has_value(), o.family);
+  return o;
+}
+
+std::vector<NamedTable> task_tables(const DesignTaskOutcome& o) {
+  const auto& h = o.result.history;
+  const std::string unit = o.objective_unit.empty() ? "" : "_" + column_unit(o.objective_unit);
+  CsvTable history;
+  std::vector<CsvColumn> cols(5);
+  cols[0].name = "evaluation";
+  cols[1].name = "start";
+  cols[2].name = design_objective_name(o.settings.options.objective) + unit;
+  cols[3].name = "feasible";
+  cols[4].name = "overshoot_excess";
+  for (const auto& e : h) {
+    cols[0].values.push_back(e.index);
+    cols[1].values.push_back(e.start);
+    cols[2].values.push_back(e.objective / o.objective_per_unit);
+    cols[3].values.push_back(e.feasible ? 1 : 0);
+    cols[4].values.push_back(e.excess);
+  }
+  for (std::size_t p = 0; p < o.result.parameters.size(); ++p)
+    for (int k = 1; k <= o.result.modes; ++k) {
+      CsvColumn c{"c_" + o.result.parameters[p].address + "_" + std::to_string(k), {}, true};
+      for (const auto& e : h) c.values.push_back(e.amplitudes[p * o.result.modes + k - 1]);
+      cols.push_back(std::move(c));
+    }
+  history.columns = std::move(cols);
+  history.comments = {"every work run of the search in the order run; amplitudes c_k in units of the change (" +
+                          o.family + ")",
+                      "infeasible rows (overshoot) were not simulated: their objective is the search's penalty"};
+  return {{"design_history.csv", history}};
+}
+
+nlohmann::ordered_json task_summary(const DesignTaskOutcome& o) {
+  using json = nlohmann::ordered_json;
+  const auto& r = o.result;
+  json parameters = json::array();
+  for (std::size_t p = 0; p < r.parameters.size(); ++p) {
+    json c = json::array();
+    for (int k = 0; k < r.modes; ++k) c.push_back(r.amplitudes[p * r.modes + k]);
+    const auto& t = o.tables[p];
+    parameters.push_back({{"address", r.parameters[p].address},
+                          {"from", conversion_rounded(r.parameters[p].from / t.value_per_unit)},
+                          {"to", conversion_rounded(r.parameters[p].to / t.value_per_unit)},
+                          {"unit", t.value_unit},
+                          {"amplitudes", c},
+                          {"table", t.file}});
+  }
+  int feasible = 0;
+  for (const auto& e : r.history) feasible += e.feasible;
+  return with_provenance(
+      {{"command", "design"},
+       {"scenario", o.scenario.file},
+       {"family", o.family},
+       {"objective", design_objective_name(o.settings.options.objective)},
+       {"objective_unit", o.objective_unit.empty() ? "probability" : o.objective_unit},
+       {"objective_before", r.objective_before / o.objective_per_unit},
+       {"objective_after", r.objective_after / o.objective_per_unit},
+       {"improvement_factor", r.objective_after > 0 ? json(r.objective_before / r.objective_after) : json(nullptr)},
+       {"method", design_method_name(o.settings.options.method)},
+       {"modes", r.modes},
+       {"starts", o.settings.options.starts},
+       {"evaluation_bound", o.settings.options.max_evaluations},
+       {"evaluations", r.history.size()},
+       {"feasible_evaluations", feasible},
+       {"bound_reached", r.bound_reached},
+       {"start_results", r.start_results},
+       {"amplitude_bound", o.settings.options.amplitude_bound},
+       {"overshoot", o.settings.options.overshoot},
+       {"parameters", parameters},
+       {"designed_scenario", "designed.toml"},
+       {"warnings", r.warnings}},
+      o.scenario);
+}
+
+std::vector<NamedText> task_texts(const DesignTaskOutcome& o) {
+  std::vector<NamedText> texts;
+  for (const auto& t : o.tables) {
+    std::ostringstream out;
+    out.precision(17);
+    out << "t_" << column_unit(t.time_unit) << ",value" << (t.value_unit.empty() ? "" : "_" + column_unit(t.value_unit))
+        << "\n";
+    for (std::size_t i = 0; i < t.times.size(); ++i)
+      out << t.times[i] / t.time_per_unit << ',' << t.after[i] / t.value_per_unit << '\n';
+    texts.push_back({t.file, out.str()});
+  }
+  texts.push_back({"designed.toml", o.designed_text});
+  return texts;
+}
+
+std::vector<NamedFigure> task_figures(const DesignTaskOutcome& o) {
+  StackedFigure schedule;
+  schedule.title = "designed ramp against the smooth ramp";
+  schedule.x_label = "time t (" + (o.tables.empty() ? std::string() : o.tables.front().time_unit) + ")";
+  for (const auto& t : o.tables) {
+    StackPanel panel;
+    panel.y_label = t.address + (t.value_unit.empty() ? "" : " (" + t.value_unit + ")");
+    SweepCurve before{"smooth ramp", {}, {}}, after{"designed", {}, {}};
+    for (std::size_t i = 0; i < t.times.size(); ++i) {
+      before.x.push_back(t.times[i] / t.time_per_unit);
+      after.x.push_back(t.times[i] / t.time_per_unit);
+      before.y.push_back(t.before[i] / t.value_per_unit);
+      after.y.push_back(t.after[i] / t.value_per_unit);
+    }
+    panel.curves = {before, after};
+    schedule.panels.push_back(std::move(panel));
+  }
+  SweepFigure convergence;
+  convergence.title = "design search: objective of every evaluation";
+  convergence.x_label = "evaluation";
+  convergence.y_label = design_objective_name(o.settings.options.objective) +
+                        (o.objective_unit.empty() ? "" : " (" + o.objective_unit + ")");
+  convergence.log_y = true;
+  SweepPoints points{"evaluations (feasible)", {}, {}, {}};
+  SweepCurve best{"best so far", {}, {}};
+  double lowest = std::numeric_limits<double>::infinity();
+  for (const auto& e : o.result.history) {
+    if (!e.feasible) continue;
+    points.x.push_back(e.index);
+    points.y.push_back(e.objective / o.objective_per_unit);
+    lowest = std::min(lowest, e.objective / o.objective_per_unit);
+    best.x.push_back(e.index);
+    best.y.push_back(lowest);
+  }
+  convergence.points = {points};
+  convergence.curves = {best};
+  return {{"design_schedule", schedule}, {"design_convergence", convergence}};
+}
+
+std::vector<fs::path> write_task_outputs(const fs::path& folder, const DesignTaskOutcome& o) {
+  return write_outputs(folder, task_tables(o), "design_summary.json", task_summary(o), task_texts(o), task_figures(o));
+}
+
+void print_task_report(std::ostream& out, const DesignTaskOutcome& o) {
+  const auto& r = o.result;
+  const std::string unit = o.objective_unit.empty() ? "" : " " + o.objective_unit;
+  out << "design of " << o.scenario.file << ": " << o.family << "\n";
+  out << "objective " << design_objective_name(o.settings.options.objective) << ": smooth ramp "
+      << number_text(r.objective_before / o.objective_per_unit) << unit << ", designed "
+      << number_text(r.objective_after / o.objective_per_unit) << unit;
+  if (r.objective_after > 0) out << " (factor " << number_text(r.objective_before / r.objective_after) << ")";
+  out << "\n" << r.history.size() << " evaluations (bound " << o.settings.options.max_evaluations << "), "
+      << design_method_name(o.settings.options.method) << " from " << r.start_results.size() << " start(s):";
+  for (std::size_t i = 0; i < r.start_results.size(); ++i) out << (i ? "; " : " ") << r.start_results[i];
+  out << "\n";
+  for (std::size_t p = 0; p < r.parameters.size(); ++p) {
+    out << "  " << r.parameters[p].address << " amplitudes:";
+    for (int k = 0; k < r.modes; ++k) out << ' ' << number_text(r.amplitudes[p * r.modes + k]);
+    out << "\n";
+  }
+  for (const auto& w : r.warnings) out << "warning: " << w << "\n";
+  out << "run `trapwork work designed.toml` in the output folder for the designed ramp's full work statistics\n";
+}
+
+}  // namespace trapwork

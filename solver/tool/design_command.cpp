@@ -1,0 +1,88 @@
+// `trapwork design` (see commands.hpp): the command line of design_task (solver/scenario/design_task.cpp).
+#include <iostream>
+#include <memory>
+#include <optional>
+
+#include "solver/scenario/design_task.hpp"
+#include "solver/scenario/progress.hpp"
+#include "solver/tool/commands.hpp"
+
+namespace trapwork {
+
+DesignCommandOutcome run_design_command(const DesignCommand& command, std::ostream& out, std::ostream& progress) {
+  DesignSettings settings;
+  settings.scenario_text = set_scenario_text(command.scenario, command.set);
+  Scenario scenario = load_scenario(command.scenario, command.set);
+  if (!command.output.empty()) scenario.output_folder = command.output;
+  DesignOptions& o = settings.options;
+  o.modes = command.modes;
+  o.starts = command.starts;
+  o.max_evaluations = command.evaluations;
+  o.objective = design_objective_from_name(command.objective);
+  o.method = design_method_from_name(command.method);
+  o.amplitude_bound = command.amplitude_bound;
+  o.overshoot = command.overshoot;
+  o.stop_below = command.stop_below;
+  o.zero_end_acceleration = command.smoother;
+  o.seed = command.seed;
+  std::optional<OutputRun> output;
+  TaskBar bar(progress, command.show_progress);
+  const TaskHooks hooks = bar.hooks(command.quiet ? std::function<void(const std::string&)>() : notice_to(progress));
+  const DesignTaskOutcome task = design_task(scenario, settings, hooks, [&] {
+    output.emplace(scenario.output_folder, design_output_names(scenario), scenario_inputs(scenario),
+                   "trapwork design " + scenario.file);
+  });
+  bar.finish();
+  DesignCommandOutcome outcome{task.result.objective_before, task.result.objective_after,
+                               int(task.result.history.size()), {}};
+  outcome.files = output->commit(write_task_outputs(output->staging(), task));
+  if (command.quiet) return outcome;
+  print_task_report(out, task);
+  out << '\n';
+  for (const auto& f : outcome.files) out << "wrote " << f.string() << '\n';
+  return outcome;
+}
+
+void add_design_command(CLI::App& app) {
+  auto command = std::make_shared<DesignCommand>();
+  CLI::App* sub = app.add_subcommand(
+      "design",
+      "Designs the protocol's ramp: the smooth ramp plus free modes sin^2(pi u) sin(k pi u) (end values kept, zero "
+      "end velocity), searched (NLopt) for the least excitation or dissipated work; writes designed.toml with its "
+      "table files, design_history.csv, design_summary.json and the pictures of the schedule and the convergence");
+  sub->add_option("scenario", command->scenario, "scenario file (TOML) with [protocol] and [initial]")->required();
+  sub->add_option("--modes", command->modes, "free modes per changed parameter")
+      ->capture_default_str()
+      ->check(CLI::Range(1, 20));
+  sub->add_option("--starts", command->starts, "starts of the local search (the first from the smooth ramp)")
+      ->capture_default_str()
+      ->check(CLI::Range(1, 1000));
+  sub->add_option("--evaluations", command->evaluations, "bound on the work runs of all starts together")
+      ->capture_default_str()
+      ->check(CLI::Range(1, 1000000));
+  sub->add_option("--objective", command->objective,
+                  "excitation (probability of leaving the initial level's adiabatic partner) or dissipated_work "
+                  "(<W> - Delta F, thermal start)")
+      ->capture_default_str();
+  sub->add_option("--method", command->method, "NLopt local method: bobyqa, cobyla, nelder_mead or sbplx")
+      ->capture_default_str();
+  sub->add_option("--amplitude-bound", command->amplitude_bound, "bound on each mode amplitude, in units of the change")
+      ->capture_default_str();
+  sub->add_option("--overshoot", command->overshoot,
+                  "how far the ramp may leave the range of its end values, in units of the change")
+      ->capture_default_str();
+  sub->add_option("--stop-below", command->stop_below, "a start ends once the objective is below this")
+      ->capture_default_str();
+  sub->add_flag("--smoother", command->smoother, "base ramp 10u^3 - 15u^4 + 6u^5: zero end acceleration too");
+  sub->add_option("--seed", command->seed, "seed of the starts after the first")->capture_default_str();
+  sub->add_option("-o,--output", command->output, "output folder (overrides [output] folder)");
+  sub->add_flag("--quiet", command->quiet, "print nothing but errors");
+  add_set_option(sub, command->set);
+  sub->callback([command] {
+    DesignCommand c = *command;
+    c.show_progress = !c.quiet && ProgressBar::terminal_allows();
+    run_design_command(c, std::cout, std::cerr);
+  });
+}
+
+}  // namespace trapwork
