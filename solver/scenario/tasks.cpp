@@ -194,12 +194,12 @@ WorkOutcome work_task(const Scenario& scenario, std::optional<double> tolerance,
     outcome.direct = naming_scenario(scenario.file, scenario, [&] { return compute_work(scenario, request); });
     drop_hooks(outcome.direct->request);
   }
-  if (scenario.noise) {  // [noise]: realisations on the chosen run's grid, frame and steps
+  if (scenario.noise) {  // [noise]: its route on the chosen run's grid, frame and steps
     const WorkRun run = outcome.run();
     if (run.walls)
       throw InputError("noise", "", "noise on a trap inside fixed walls; moving walls do not take noise yet", "",
                        scenario.file);
-    if (hooks.stage) hooks.stage("noise realisations");
+    if (hooks.stage) hooks.stage("noise (Lindblad or realisations)");
     outcome.noise = naming_scenario(scenario.file, scenario, [&] {
       return run_noisy_work(run.scenario.potential, run.protocol, run.request, scenario.noise->request, &run.result);
     });
