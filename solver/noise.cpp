@@ -358,6 +358,42 @@ LindbladRun propagate_lindblad(const PotentialPath& path, const Potential& base,
       jump_squared[p].noalias() = jump[p] * jump[p];
     }
   };
+  // Refused before the run: noise that scatters a kept level more often during the protocol
+  // than the basis has levels (sum_p <m|L_p^2|m> - <m|L_p|m>^2, the rate out of m, times tau)
+  // cannot be held by the truncated basis, and makes the equation stiff (an hour for nothing).
+  jumps_at(0.0);
+  double scatterings = 0;
+  for (int m = 0; m < kept; ++m) {
+    double rate = 0;
+    for (std::size_t p = 0; p < jump.size(); ++p) {
+      const Eigen::VectorXcd c = closed.col(m);
+      rate += (c.adjoint() * jump_squared[p].cast<Complex>() * c).value().real() -
+              std::norm((c.adjoint() * jump[p].cast<Complex>() * c).value());
+    }
+    scatterings = std::max(scatterings, rate * tau);
+  }
+  if (scatterings > double(k))
+    throw PhysicsError("noise: a kept level would be scattered about " + format_number(scatterings) +
+                       " times between levels during the protocol (gamma (<D^2> - <D>^2) tau), more than the " +
+                       std::to_string(k) +
+                       " levels of the eigenbasis can hold: the noise is too strong for a truncated basis (check "
+                       "the PSD's unit and size; weaker noise, a shorter protocol or a larger final_margin)");
+  // Refused before the run as well: an explicit Runge-Kutta step must stay below about 3.3 /
+  // (gamma l_max^2) (l_max the largest |eigenvalue| of D_p in the basis: the dephasing rate of
+  // the top levels), so the steps, and the arithmetic (about 8 (1 + 2 sources) K^3 per kept level
+  // and evaluation, 6 evaluations a step), follow before any is taken. Above 1e12 operations
+  // (some minutes) the realisations route is the practical one.
+  double stiffness = 0;
+  for (const auto& l : jump) {
+    const Eigen::VectorXd eig = Eigen::SelfAdjointEigenSolver<Eigen::MatrixXd>(l, Eigen::EigenvaluesOnly).eigenvalues();
+    stiffness += std::max(eig.cwiseAbs2().maxCoeff(), 0.0) * tau;
+  }
+  const double operations = 6 * (stiffness / 3.3) * 8 * double(1 + 2 * jump.size()) * double(k * k * k) * kept;
+  if (operations > 1e12)
+    throw PhysicsError("noise: the Lindblad equation is stiff here (largest dephasing rate x duration " +
+                       format_number(stiffness) + "): about " + format_number(operations) +
+                       " operations, more than the 1e12 this route allows; use [noise] route = \"realisations\", "
+                       "or check the PSD's unit and size");
   double t0 = 0;
   auto rhs = [&](const std::vector<double>& in, std::vector<double>& out, double t) {
     ++run.evaluations;

@@ -491,3 +491,31 @@ values = ["1 us", "2 us"]
   refused([&] { return plan_task(s, PlanSettings{}); }, "plan");
   refused([&] { return model_work(s); }, "compare");
 }
+
+TEST_CASE("a Lindblad run too stiff to finish is refused before it starts, naming the other route",
+          "[noise][scenario]") {
+  // Frequency noise of 1e6 Hz^2/Hz on a 1 MHz trap (1 MHz rms over a 1 MHz band: a unit
+  // mistake): the top levels dephase so fast that the explicit integrator would take hours.
+  const Scenario s = read_scenario_text(R"([particle]
+mass = "40 u"
+[[potential]]
+name = "trap"
+shape = "harmonic"
+frequency = "1 MHz"
+[protocol]
+duration = "2 us"
+[[protocol.change]]
+parameter = "trap.centre"
+to = "50 nm"
+[initial]
+level = 0
+[noise]
+route = "lindblad"
+[[noise.source]]
+parameter = "trap.frequency"
+white = "1e6 Hz^2/Hz"
+)",
+                                        "stiff.toml");
+  CHECK_THROWS_WITH(work_task(s, std::nullopt), Catch::Contains("stiff.toml") && Catch::Contains("stiff") &&
+                                                    Catch::Contains("route = \"realisations\""));
+}

@@ -108,8 +108,8 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
   const DesignFamily family(protocol, settings.options.modes, settings.options.zero_end_acceleration);
   WorkRequest request = work_request(scenario);
   if (settings.options.objective == DesignObjective::dissipated_work && !request.initial.is_gibbs())
-    throw InputError("objective", "dissipated_work", "a thermal [initial] (temperature or mean_phonons) for the dissipated work",
-                     "use the objective excitation", scenario.file);
+    throw InputError("objective", "dissipated_work", "a thermal [initial] (temperature or mean_phonons) for the dissipated work, "
+                     "or --objective excitation for this start", "", scenario.file);
   if (!(request.spectrum.options.memory_limit > 0)) request.spectrum.options.memory_limit = available_memory_bytes();
   request.spectrum.options.interrupt = hooks.interrupt;
   if (checked) checked();
