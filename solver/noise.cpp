@@ -9,6 +9,7 @@
 #include <limits>
 #include <memory>
 #include <mutex>
+#include <optional>
 #include <random>
 #include <thread>
 #include <unordered_map>
@@ -296,6 +297,12 @@ int lindblad_levels(const WorkResult& w, const WorkRequest& request) {
 // The jump operators sqrt(gamma_p) D_p are Hermitian, so the map is unital (Lambda(1) = 1
 // in the truncated basis) as well as trace preserving.
 
+// The Lindblad route refused as hopeless for this noise (propagate_lindblad): with route = "auto"
+// the realisations take over.
+struct TooStiff : PhysicsError {
+  using PhysicsError::PhysicsError;
+};
+
 struct LindbladRun {
   Eigen::MatrixXd transitions;                 // P(m, n), kept initial x final levels
   std::vector<double> energy, closed_energy;   // Tr(H_B rho_m), and for the unitary run (same basis)
@@ -373,7 +380,7 @@ LindbladRun propagate_lindblad(const PotentialPath& path, const Potential& base,
     scatterings = std::max(scatterings, rate * tau);
   }
   if (scatterings > double(k))
-    throw PhysicsError("noise: a kept level would be scattered about " + format_number(scatterings) +
+    throw TooStiff("noise: a kept level would be scattered about " + format_number(scatterings) +
                        " times between levels during the protocol (gamma (<D^2> - <D>^2) tau), more than the " +
                        std::to_string(k) +
                        " levels of the eigenbasis can hold: the noise is too strong for a truncated basis (check "
@@ -390,7 +397,7 @@ LindbladRun propagate_lindblad(const PotentialPath& path, const Potential& base,
   }
   const double operations = 6 * (stiffness / 3.3) * 8 * double(1 + 2 * jump.size()) * double(k * k * k) * kept;
   if (operations > 1e12)
-    throw PhysicsError("noise: the Lindblad equation is stiff here (largest dephasing rate x duration " +
+    throw TooStiff("noise: the Lindblad equation is stiff here (largest dephasing rate x duration " +
                        format_number(stiffness) + "): about " + format_number(operations) +
                        " operations, more than the 1e12 this route allows; use [noise] route = \"realisations\", "
                        "or check the PSD's unit and size");
@@ -524,8 +531,19 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
   }
   if (!lindblad && eigenbasis) throw PhysicsError(split_only + " (" + out.route_reason + ")");
 
+  std::optional<LindbladRun> solved;
   if (lindblad) {
-    const LindbladRun run = propagate_lindblad(path, base, protocol, w, v_final, request, noise);
+    try {
+      solved = propagate_lindblad(path, base, protocol, w, v_final, request, noise);
+    } catch (const TooStiff& e) {
+      if (noise.route == NoiseRoute::lindblad || eigenbasis) throw;
+      lindblad = false;
+      out.route_reason = "automatic: all noise is white, but the Lindblad route is refused (" + std::string(e.what()) +
+                         "): realisations";
+    }
+  }
+  if (lindblad) {
+    const LindbladRun& run = *solved;
     out.route_name = "lindblad";
     out.basis_levels = run.basis;
     out.ode_evaluations = run.evaluations;

@@ -518,4 +518,15 @@ white = "1e6 Hz^2/Hz"
                                         "stiff.toml");
   CHECK_THROWS_WITH(work_task(s, std::nullopt), Catch::Contains("stiff.toml") && Catch::Contains("stiff") &&
                                                     Catch::Contains("route = \"realisations\""));
+  // with route = "auto" the realisations take over, and the report says why; the noise heats
+  // beyond the kept levels, which its warning says
+  Scenario automatic = s;
+  automatic.noise->request.route = NoiseRoute::automatic;
+  automatic.noise->request.realisations = 4;
+  const WorkOutcome o = work_task(automatic, std::nullopt);
+  REQUIRE(o.noise);
+  CHECK(o.noise->route_name == "realisations");
+  CHECK_THAT(o.noise->route_reason, Catch::Contains("Lindblad route is refused") && Catch::Contains("stiff"));
+  REQUIRE_FALSE(o.noise->warnings.empty());
+  CHECK_THAT(o.noise->warnings.front(), Catch::Contains("unresolved final weight"));
 }
