@@ -270,7 +270,9 @@ SweepOutcome sweep_task(const Scenario& scenario, const SweepOptions& options, c
     partial_sum += (done ? 0.0 : fraction) - partial[k];
     partial[k] = done ? 0.0 : fraction;
     finished += done;
-    if (hooks.progress) hooks.progress(std::min(1.0, (double(finished) + partial_sum) / double(todo.size())));
+    // partial_sum is a running sum of differences, exact only to rounding: the end is 1 exactly
+    const double f = finished == todo.size() ? 1.0 : (double(finished) + partial_sum) / double(todo.size());
+    if (hooks.progress) hooks.progress(std::clamp(f, 0.0, 1.0));
   };
   // Each of the points run at once may use its share of the memory available now.
   const double memory_per_point = available_memory_bytes() / double(std::max<std::size_t>(1, jobs));
