@@ -107,11 +107,7 @@ void run_spectrum(const SpectrumCommand& command, std::ostream& out) {
   OutputRun output(scenario.output_folder, spectrum_output_names(), scenario_inputs(scenario),
                    "trapwork spectrum " + scenario.file);
   const SpectrumOutcome outcome = spectrum_task(std::move(scenario), command.levels);
-  const auto files = output.commit(write_task_outputs(output.staging(), outcome));
-  if (command.quiet) return;
-  print_task_report(out, outcome);
-  out << '\n';
-  for (const auto& f : files) out << "wrote " << f.string() << '\n';
+  commit_and_report(output, outcome, out, command.quiet);
 }
 
 TaskHooks TaskBar::hooks(std::function<void(const std::string&)> notice) {

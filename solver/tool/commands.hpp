@@ -12,12 +12,26 @@
 
 #include "solver/compare.hpp"
 #include "solver/plan.hpp"
+#include "solver/scenario/output.hpp"
 #include "solver/scenario/progress.hpp"
 #include "solver/scenario/scenario.hpp"
 #include "solver/scenario/tasks.hpp"
 #include "solver/scenario/work_output.hpp"
 
 namespace trapwork {
+
+// The end of every command that writes files: the task's files committed into `output` and,
+// unless quiet, the task's report and the list of files written. Returns the files.
+template <class Outcome>
+std::vector<std::filesystem::path> commit_and_report(OutputRun& output, const Outcome& task, std::ostream& out,
+                                                     bool quiet) {
+  auto files = output.commit(write_task_outputs(output.staging(), task));
+  if (quiet) return files;
+  print_task_report(out, task);
+  out << '\n';
+  for (const auto& f : files) out << "wrote " << f.string() << '\n';
+  return files;
+}
 
 // Parses the command line and runs the chosen command. Exit codes: 0 success; 2 bad input
 // (InputError, a command-line error) or unusable physics (PhysicsError); 1 anything else.

@@ -37,11 +37,7 @@ CompareOutcome run_compare_command(const CompareCommand& command, std::ostream& 
       });
   bar.finish();
   CompareOutcome outcome{task.comparison, task.verdict, {}};
-  outcome.files = output->commit(write_task_outputs(output->staging(), task));
-  if (command.quiet) return outcome;
-  print_task_report(out, task);
-  out << '\n';
-  for (const auto& f : outcome.files) out << "wrote " << f.string() << '\n';
+  outcome.files = commit_and_report(*output, task, out, command.quiet);
   return outcome;
 }
 

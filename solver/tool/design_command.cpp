@@ -35,11 +35,7 @@ DesignCommandOutcome run_design_command(const DesignCommand& command, std::ostre
   bar.finish();
   DesignCommandOutcome outcome{task.result.objective_before, task.result.objective_after,
                                int(task.result.history.size()), {}};
-  outcome.files = output->commit(write_task_outputs(output->staging(), task));
-  if (command.quiet) return outcome;
-  print_task_report(out, task);
-  out << '\n';
-  for (const auto& f : outcome.files) out << "wrote " << f.string() << '\n';
+  outcome.files = commit_and_report(*output, task, out, command.quiet);
   return outcome;
 }
 

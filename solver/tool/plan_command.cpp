@@ -39,11 +39,7 @@ PlanOutcome run_plan_command(const PlanCommand& command, std::ostream& out, std:
   });
   bar.finish();
   PlanOutcome outcome{task.table, task.needed, task.refusals, {}};
-  outcome.files = output->commit(write_task_outputs(output->staging(), task));
-  if (command.quiet) return outcome;
-  print_task_report(out, task);
-  out << '\n';
-  for (const auto& f : outcome.files) out << "wrote " << f.string() << '\n';
+  outcome.files = commit_and_report(*output, task, out, command.quiet);
   return outcome;
 }
 
