@@ -180,6 +180,8 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
     throw InputError("amplitude_bound", exact(options.amplitude_bound), "a bound > 0 on the mode amplitudes");
   if (!(options.overshoot >= 0) || !std::isfinite(options.overshoot))
     throw InputError("overshoot", exact(options.overshoot), "an overshoot >= 0 (units of the change)");
+  if (std::isnan(options.stop_below))  // NaN would never stop a start, silently
+    throw InputError("stop_below", exact(options.stop_below), "a number (the objective at which a start ends)");
   if (options.starts < 1) throw InputError("starts", std::to_string(options.starts), "at least 1 start");
   if (options.max_evaluations < options.starts)
     throw InputError("evaluations", std::to_string(options.max_evaluations),

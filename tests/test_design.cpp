@@ -187,4 +187,7 @@ TEST_CASE("design: bound, starts, history, hooks and overshoot on a cheap object
   CHECK_THROWS_WITH(design_protocol(family, failing, options), Contains("grid too small"));
   options.max_evaluations = 2;  // fewer than the starts
   CHECK_THROWS_AS(design_protocol(family, cheap, options), InputError);
+  DesignOptions no_stop;
+  no_stop.stop_below = std::nan("");  // would never end a start: refused, naming the key
+  CHECK_THROWS_WITH(design_protocol(family, cheap, no_stop), Contains("stop_below"));
 }
