@@ -311,7 +311,7 @@ TEST_CASE("trapwork sweep writes one row per point", "[cli][work]") {
   CHECK(fs::file_size(dir / "out" / "sweep.png") > 1000);
 }
 
-TEST_CASE("each example runs through work or sweep", "[cli][work][examples]") {
+TEST_CASE("each example runs through work or sweep", "[cli][work][examples][heavy]") {
   int count = 0;
   for (const auto& entry : fs::directory_iterator(examples)) {
     if (entry.path().extension() != ".toml") continue;

@@ -81,7 +81,7 @@ TEST_CASE("design: harmonic transport below one period reaches 1 - P(0->0) < 1e-
 // ramps with Husimi's Q* = 1 exist for any duration (Chen et al., PRL 104, 063002 (2010), from
 // memory); Husimi's P(0 -> 0) = sqrt(2 / (1 + Q*)) (Husimi 1953, from memory), so 1 - P(0->0)
 // = (Q* - 1)/4 to first order. The designed ramp is checked by parametric_q (classical solutions).
-TEST_CASE("design: harmonic frequency change reaches Husimi's Q* - 1 < 1e-8 in a short time", "[design][validation]") {
+TEST_CASE("design: harmonic frequency change reaches Husimi's Q* - 1 < 1e-8 in a short time", "[design][validation][heavy]") {
   const Potential trap({Term("trap", Shape::harmonic, {{"frequency", 1.0}})});
   const double tau = 2;
   const Protocol squeeze(tau, {Schedule::smooth_step("trap.frequency", 1, 2)});
@@ -107,7 +107,7 @@ TEST_CASE("design: harmonic frequency change reaches Husimi's Q* - 1 < 1e-8 in a
 // 3 in tau = 4 as above. The harmonic design (nulling the displaced-oscillator excitation)
 // leaves excitation behind here; designing in the anharmonic trap itself beats it and the
 // smooth ramp (the first start begins at the harmonic design). Factors measured below.
-TEST_CASE("design: in an anharmonic trap the design beats the harmonic design and the smooth ramp", "[design][validation]") {
+TEST_CASE("design: in an anharmonic trap the design beats the harmonic design and the smooth ramp", "[design][validation][heavy]") {
   const Potential harmonic({Term("trap", Shape::harmonic, {{"frequency", 1.0}})});
   const Potential anharmonic({Term("trap", Shape::polynomial, {{"frequency", 1.0}, {"cubic", 0.01}, {"quartic", 0.002}})});
   const double tau = 4;

@@ -81,7 +81,7 @@ TEST_CASE("Lindblad: white position noise heats a harmonic trap at w^3 S_x / 4 q
 }
 
 TEST_CASE("Lindblad: the Jarzynski equality holds for the unital map up to the levels left out",
-          "[noise][lindblad][validation]") {
+          "[noise][lindblad][validation][heavy]") {
   // Hermitian jump operators give a unital map (Lambda(1) = 1), for which <exp(-beta W)> =
   // Z_B / Z_A holds in the TPM scheme: Rastegin, J. Stat. Mech. (2013) P06016; Albash, Lidar,
   // Marvian and Zanardi, PRE 88, 032146 (2013) (both from memory). With K initial levels kept
@@ -142,7 +142,7 @@ TEST_CASE("Lindblad: the Jarzynski equality holds for the unital map up to the l
 }
 
 TEST_CASE("Lindblad and realisations agree within the statistical error on an anharmonic shuttle",
-          "[noise][lindblad][validation]") {
+          "[noise][lindblad][validation][heavy]") {
   // The two routes are independent computations of the same average (DEVELOPERS.md, "Noise
   // during the protocol"): split-operator realisations of white traces on the grid, and the
   // master equation in the eigenbasis. A polynomial trap with a quartic term, white position

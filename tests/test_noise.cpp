@@ -257,7 +257,7 @@ TEST_CASE("white spring-constant noise heats exponentially at Gamma = pi^2 f^2 S
   CHECK(r.extra_energy.error < 0.2 * lindblad);  // the check has teeth
 }
 
-TEST_CASE("the reported standard errors match the scatter between seeds", "[noise]") {
+TEST_CASE("the reported standard errors match the scatter between seeds", "[noise][heavy]") {
   // 20 independent seeds of R realisations each: the scatter of <W>, var W and the most
   // probable line between seeds against the mean reported error. The sd of 20 values is itself
   // uncertain by ~1/sqrt(38) = 16 %, so a factor 1.5 is about 3 sd. The Jarzynski average is
@@ -427,7 +427,7 @@ psd_unit = "nm^2/Hz"
           "lindblad");
 }
 
-TEST_CASE("the work task runs the noise and reports it", "[noise][scenario]") {
+TEST_CASE("the work task runs the noise and reports it", "[noise][scenario][heavy]") {
   const Scenario s = with_noise(R"(
 [noise]
 realisations = 6

@@ -43,7 +43,7 @@ double distance_to_exact(const WorkResult& r) {
 }
 }  // namespace
 
-TEST_CASE("--tolerance: the estimate bounds the true distance to the exact Husimi result", "[work][tolerance]") {
+TEST_CASE("--tolerance: the estimate bounds the true distance to the exact Husimi result", "[work][tolerance][heavy]") {
   const Scenario s = read_scenario_text(squeeze, "squeeze.toml");
   const ToleranceChoice loose = compute_work_to_tolerance(s, work_request(s), 1e-3);
   const ToleranceChoice tight = compute_work_to_tolerance(s, work_request(s), 1e-7);
@@ -72,7 +72,7 @@ TEST_CASE("--tolerance: the estimate bounds the true distance to the exact Husim
 
 
 TEST_CASE("--tolerance on the built-in anharmonic translation: coarser runs kept, the ODE chosen where cheaper",
-          "[work][tolerance]") {
+          "[work][tolerance][heavy]") {
   // No exact answer for the quartic trap: the reference is the order-4 split-operator run at
   // 4096 steps on 288 points (its distance to 2048 steps, measured 2e-10, bounds its own error
   // by order 4: about 1/15 of that).

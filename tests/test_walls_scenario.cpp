@@ -140,7 +140,7 @@ TEST_CASE("unusable wall protocols are errors with file, line and key", "[walls]
   CHECK(error_of(open).key == "protocol.change[1].parameter");
 }
 
-TEST_CASE("a sweep over the wall's end position", "[walls][scenario]") {
+TEST_CASE("a sweep over the wall's end position", "[walls][scenario][heavy]") {
   const Scenario s = read_scenario_text(
       box_scenario("2 ms", "11 um", "smooth", "[sweep]\nparameter = \"change[1].to\"\nvalues = [\"11 um\", \"12 um\"]\n"),
       "walls.toml");
@@ -166,7 +166,7 @@ TEST_CASE("a sweep over the wall's end position", "[walls][scenario]") {
   }
 }
 
-TEST_CASE("[box.soft_walls]: soft walls of narrowing width against the hard walls", "[walls][scenario]") {
+TEST_CASE("[box.soft_walls]: soft walls of narrowing width against the hard walls", "[walls][scenario][heavy]") {
   const std::string soft = "[box.soft_walls]\nwidths = [\"0.4 um\", \"0.2 um\"]\nheight = \"100 kB*nK\"\n";
   const Scenario s = read_scenario_text(box_scenario("4 ms", "11 um", "smooth", soft), "walls.toml");
   REQUIRE(s.soft_walls);
