@@ -161,8 +161,10 @@ StateEnergies state_energies(const Grid& grid, const std::vector<double>& v, con
   return out;
 }
 
-bool MomentErrors::mean_met() const { return mean_error <= tolerance * scale_mean; }
-bool MomentErrors::variance_met() const { return variance_error <= tolerance * scale_variance; }
+bool MomentErrors::mean_met() const { return mean_error <= std::max(tolerance * scale_mean, rounding_mean); }
+bool MomentErrors::variance_met() const {
+  return variance_error <= std::max(tolerance * scale_variance, rounding_variance);
+}
 
 std::string MomentErrors::dominant() const {
   if (mean_met() && variance_met()) return {};
@@ -219,6 +221,10 @@ MomentErrors moment_errors(const WorkInput& in, const WorkDistribution& d, const
   e.scale_mean = std::max(std::abs(d.mean), std::sqrt(std::max(0.0, d.variance)));
   // a (near-)deterministic W: the variance is judged against rounding of the W^2 sums instead
   e.scale_variance = std::max(d.variance, 1e-8 * mean * mean);
+  double largest = 0;
+  for (int m = 0; m < rows; ++m) largest = std::max(largest, std::abs(in.initial_energies[m]));
+  e.rounding_mean = 1e-11 * largest;
+  e.rounding_variance = e.rounding_mean * (e.rounding_mean + 2 * std::sqrt(std::max(0.0, d.variance)));
   total_moment_errors(e);
   return e;
 }

@@ -373,6 +373,26 @@ TEST_CASE("issue 16: harmonic_moments gives the harmonic <W> and sd W without a 
 
 // ---- issue 16: time traces of the forward run --------------------------------------------------
 
+TEST_CASE("moments of a protocol that changes nothing meet their tolerance at the rounding floor", "[work][moments]") {
+  // W = 0 exactly: the relative tolerance has nothing to be relative to, and the direct
+  // moments carry the propagation's rounding (about 1e-13 of the energies). Before the floor,
+  // this run warned "moments miss their relative tolerance" with a relative var W error of 13.
+  const Potential trap({Term("trap", Shape::polynomial, {{"frequency", 1.0}, {"quartic", 5e-4}})});
+  WorkRequest request;
+  request.initial = InitialState::thermal(10.0);
+  const WorkResult r = run_work(trap, Protocol(2 * std::numbers::pi, {Schedule::linear("trap.centre", 0, 0)}), request);
+  const MomentErrors& m = r.diagnostics.moments;
+  INFO("<W> " << r.distribution.mean << " +- " << m.mean_error << ", var W " << r.distribution.variance << " +- "
+              << m.variance_error << ", floors " << m.rounding_mean << ", " << m.rounding_variance);
+  CHECK(std::abs(r.distribution.mean) < 1e-12);
+  CHECK(m.rounding_mean > 0);
+  CHECK(m.rounding_mean < 1e-10);  // 1e-11 of the largest kept |E| (a few hbar omega at beta = 10)
+  CHECK(m.mean_met());
+  CHECK(m.variance_met());
+  CHECK_FALSE(has_warning(r.diagnostics, "moments miss"));
+  // the floor does not hide a real miss: the truncated sudden switch above still warns
+}
+
 namespace {
 // Gibbs weights (1 - e^{-beta omega}) e^{-beta omega n} of the lowest `levels` oscillator levels
 // (textbook; normalised over all levels).

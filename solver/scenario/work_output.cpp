@@ -727,6 +727,7 @@ json moments_json(const MomentErrors& m, const Energy& energy) {
           {"mean_error_known", std::isfinite(m.mean_error)},
           {"variance_error_known", std::isfinite(m.variance_error)},
           {"relative_tolerance", number_or_null(m.tolerance)},
+          {"mean_rounding_floor", energy(m.rounding_mean)},
           {"mean_met", m.mean_met()},
           {"variance_met", m.variance_met()}};
 }
