@@ -674,6 +674,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   const SpectrumOptions base_options = request.spectrum.options;
   const bool fixed_grid = request.spectrum.extent || request.spectrum.box;
   int levels = std::max(base_options.levels, std::min(request.max_initial_levels, 20) + request.final_margin);
+  levels = std::max(levels, request.min_initial_levels + request.final_margin);
   // The sizes of the run on a grid (cost.hpp), for its memory check and its estimate.
   auto run_sizes = [&](const Grid& g, int spectrum_levels, int steps) {
     WorkSizes z;
@@ -733,6 +734,11 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
     sa = spectrum_on(grid, samples(va, x), sr.options, cutoff);
     sb = spectrum_on(grid, samples(vb, x, displacement), sr.options, cutoff);
     wa = initial_weights(request.initial, sa.energies, request.thermal_tolerance, request.max_initial_levels);
+    if (wa.gibbs && int(wa.weights.size()) < request.min_initial_levels && request.min_initial_levels <= levels) {
+      // more levels than the thermal tail needs: the reverse run leaves the first ones (p_R(>=K))
+      wa = initial_weights(request.initial, sa.energies, 0.0, request.min_initial_levels);
+      wa.choice.reached = wa.choice.left_out < request.thermal_tolerance;
+    }
     const bool enough = wa.choice.reached && wa.choice.kept + request.final_margin <= levels;
     if (enough || attempt >= 3 || levels >= request.max_initial_levels + request.final_margin) break;
     levels = std::min(2 * levels, request.max_initial_levels + request.final_margin);
@@ -966,6 +972,12 @@ WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkR
     r.final_margin *= 2;
     r.thermal_tolerance /= 1e3;
     r.max_initial_levels *= 2;
+    // the reverse run says how many initial levels bound p_R(>=K): keep those (and a few more)
+    if (d.truncation.reverse_tail > r.unresolved_tolerance && result.reverse)
+      r.min_initial_levels = std::min(r.max_initial_levels,
+                                      levels_for_reverse_tail(result.reverse->transitions.probability,
+                                                              result.reverse->initial_weights, r.unresolved_tolerance / 2) +
+                                          4);
     // the whole work runs again: a new stage, so that progress does not sit at 100 % meanwhile
     if (r.stage)
       r.stage("more levels (escape probability " + fmt(escape) + "), run " + std::to_string(attempt + 2) + " of at most 3");

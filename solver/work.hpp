@@ -258,6 +258,8 @@ struct WorkRequest {
   InitialState initial = InitialState::thermal(1);
   double thermal_tolerance = 1e-10;  // eps_K: left-out thermal weight of the initial levels
   int max_initial_levels = 80;
+  int min_initial_levels = 0;        // Gibbs states: keep at least these (run_work raises it when
+                                     // the reverse run leaves the kept levels, p_R(>=K))
   int final_margin = 20;             // final levels computed = kept initial levels + margin
   SpectrumRequest spectrum;          // grid choice (extent/points fixed or automatic), eigensolver
   Integrator integrator = Integrator::fourth_order;

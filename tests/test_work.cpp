@@ -393,6 +393,26 @@ TEST_CASE("moments of a protocol that changes nothing meet their tolerance at th
   // the floor does not hide a real miss: the truncated sudden switch above still warns
 }
 
+TEST_CASE("a strong fast move keeps the initial levels the reverse run needs for the Jarzynski check", "[work][levels]") {
+  // Half a period, 5 oscillator lengths, from nbar = 0.1: |alpha|^2 ~ 5, so the reverse run
+  // from H_B's Gibbs state ends above the ~14 levels the thermal tail alone asks for with
+  // p_R(>=K) ~ 1e-3, which bounds (and here made) the Jarzynski residual. run_work now reads
+  // the levels it needs from the reverse run; before, its two retries tightened only the
+  // thermal tail, and the residual stayed at its bound (examples/ion_sweep.toml at 0.5 us: 2.4e-3).
+  const Potential trap({Term("trap", Shape::polynomial, {{"frequency", 1.0}, {"quartic", 2e-3}})});
+  WorkRequest request;
+  request.initial = InitialState::phonons(0.1);
+  request.thermal_tolerance = 1e-8;
+  const WorkResult r = run_work(trap, Protocol(std::numbers::pi, {Schedule::linear("trap.centre", 0, 5)}), request);
+  const Diagnostics& d = r.diagnostics;
+  INFO("residual " << d.jarzynski_residual << ", bound " << d.truncation.bound << " (p_R(>=K) " << d.truncation.reverse_tail
+                   << "), kept " << r.forward.transitions.initial_levels());
+  CHECK(r.distribution.mean > 4);  // strongly excited: mean work above 4 quanta
+  CHECK(d.truncation.bound < 1e-8);
+  CHECK(std::abs(d.jarzynski_residual) < 1e-9);
+  CHECK(r.forward.transitions.initial_levels() > 20);
+}
+
 namespace {
 // Gibbs weights (1 - e^{-beta omega}) e^{-beta omega n} of the lowest `levels` oscillator levels
 // (textbook; normalised over all levels).
