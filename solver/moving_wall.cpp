@@ -83,6 +83,16 @@ WallProtocol::WallProtocol(double tau, Schedule left, Schedule right, Potential 
                      "wall schedules addressed \"<name>.left\" and \"<name>.right\" with one name (say walls.left, walls.right)");
   left_.check(tau_);
   right_.check(tau_);
+  // The dilated frame of the wall route carries the walls' accelerations (the terms
+  // (m/2) L L'' y^2 and m L a'' y); a table ramp is piecewise linear, its acceleration a delta
+  // function at each row that those terms cannot represent (they would see 0 between rows:
+  // a box_expansion ramp given as a 4001-row table gave <W> -0.72 where the ramp gives -0.26).
+  for (const Schedule* s : {&left_, &right_})
+    if (tau_ > 0 && s->form() == ScheduleForm::table)
+      throw InputError(s->address(), "ramp = \"table\"",
+                       "a wall ramp with an acceleration: linear, smooth, smoother or formula (a moving "
+                       "wall's table ramp is piecewise linear, and the wall route needs its acceleration, a delta "
+                       "function at each row); write the table's motion as a formula ramp");
   inner_protocol_.check(inner_);
   for (const auto& term : inner_.terms())
     if (term.name() == name_)

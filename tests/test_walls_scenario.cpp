@@ -3,12 +3,14 @@
 // and the errors of unusable wall protocols.
 #include <catch2/catch.hpp>
 #include <cmath>
+#include <fstream>
 #include <sstream>
 #include <string>
 
 #include "solver/errors.hpp"
 #include "solver/scenario/scenario.hpp"
 #include "solver/scenario/work_output.hpp"
+#include "scratch_files.hpp"
 
 using namespace trapwork;
 using Catch::Matchers::Contains;
@@ -302,4 +304,26 @@ TEST_CASE("issue 16: moving walls: walls drawn, protocol and populations picture
   for (double p : pop.points.at(0).y) total += p;
   CHECK(total == Approx(1).epsilon(1e-3));
   CHECK(total <= 1 + 1e-12);
+}
+
+TEST_CASE("a wall moved by a table ramp is refused, naming the key and a ramp that works", "[walls][scenario]") {
+  // The wall route needs the walls' acceleration (the dilation terms); a table ramp is
+  // piecewise linear, so it would see none between rows: examples/box_expansion.toml's smooth
+  // ramp written as a 4001-row table gave <W> = -0.72 kB*nK against -0.26 for the ramp itself,
+  // with no warning. Now refused before computing.
+  const auto dir = trapwork_test::scratch_dir("walls", "table_ramp");
+  {
+    std::ofstream csv(dir / "wall.csv");
+    csv << "0,10\n2,10.5\n4,11\n";
+  }
+  std::string text = box_scenario("4 ms", "11 um", "table");
+  const std::string to = "to = \"11 um\"\n";
+  text.replace(text.find(to), to.size(), "file = \"wall.csv\"\ntime_unit = \"ms\"\nvalue_unit = \"um\"\n");
+  try {
+    read_scenario_text(text, (dir / "walls.toml").string());
+    FAIL("a table wall ramp was accepted");
+  } catch (const InputError& e) {
+    CHECK(e.line > 0);  // the file's [[protocol.change]] line
+    CHECK_THAT(std::string(e.what()), Contains("walls.toml") && Contains("box.right") && Contains("formula"));
+  }
 }
