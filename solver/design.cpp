@@ -30,6 +30,16 @@ double mode(int k, double u) {
   return s * s * std::sin(k * pi * u);
 }
 
+// d/du of base_ramp and of mode.
+double base_ramp_slope(double u, bool smoother) {
+  return smoother ? 30 * u * u * (1 - u) * (1 - u) : 6 * u * (1 - u);
+}
+double mode_slope(int k, double u) {
+  const double s = std::sin(pi * u), c = std::cos(pi * u);
+  return 2 * pi * s * c * std::sin(k * pi * u) + s * s * k * pi * std::cos(k * pi * u);
+}
+constexpr int bound_points = 512;  // the bounds are checked at u = i / 512
+
 nlopt::algorithm nlopt_algorithm(DesignMethod method) {
   switch (method) {
     case DesignMethod::bobyqa: return nlopt::LN_BOBYQA;
@@ -56,10 +66,16 @@ std::string ending(nlopt::result r) {
 DesignObjective design_objective_from_name(const std::string& name) {
   if (name == "excitation") return DesignObjective::excitation;
   if (name == "dissipated_work") return DesignObjective::dissipated_work;
-  throw InputError("objective", name, "excitation or dissipated_work");
+  if (name == "quanta") return DesignObjective::quanta;
+  throw InputError("objective", name, "excitation, dissipated_work or quanta");
 }
 std::string design_objective_name(DesignObjective objective) {
-  return objective == DesignObjective::excitation ? "excitation" : "dissipated_work";
+  switch (objective) {
+    case DesignObjective::excitation: return "excitation";
+    case DesignObjective::dissipated_work: return "dissipated_work";
+    case DesignObjective::quanta: return "quanta";
+  }
+  return "excitation";
 }
 DesignMethod design_method_from_name(const std::string& name) {
   if (name == "bobyqa") return DesignMethod::bobyqa;
@@ -98,6 +114,48 @@ double DesignFamily::value(std::size_t p, const std::vector<double>& c, double u
   double shape = base_ramp(u, smoother_);
   for (int k = 1; k <= modes_; ++k) shape += c.at(p * modes_ + k - 1) * mode(k, u);
   return d.from + (d.to - d.from) * shape;
+}
+
+double DesignFamily::rate(std::size_t p, const std::vector<double>& c, double u) const {
+  const auto& d = parameters_.at(p);
+  double slope = base_ramp_slope(u, smoother_);
+  for (int k = 1; k <= modes_; ++k) slope += c.at(p * modes_ + k - 1) * mode_slope(k, u);
+  return (d.to - d.from) * slope / protocol_.duration();
+}
+
+double DesignFamily::max_speed(std::size_t p, const std::vector<double>& c) const {
+  double top = 0;
+  for (int i = 0; i <= bound_points; ++i) top = std::max(top, std::abs(rate(p, c, double(i) / bound_points)));
+  return top;
+}
+
+double DesignFamily::max_overshoot(std::size_t p, const std::vector<double>& c) const {
+  const auto& d = parameters_.at(p);
+  const double lo = std::min(d.from, d.to), hi = std::max(d.from, d.to);
+  double top = 0;
+  for (int i = 0; i <= bound_points; ++i) {
+    const double v = value(p, c, double(i) / bound_points);
+    top = std::max(top, std::max(lo - v, v - hi));
+  }
+  return top;
+}
+
+double DesignFamily::bound_excess(const std::vector<double>& c, double overshoot,
+                                  const std::vector<DesignBound>& bounds) const {
+  double worst = 0;
+  for (std::size_t p = 0; p < parameters_.size(); ++p) {
+    const auto& d = parameters_[p];
+    const double span = std::abs(d.to - d.from);
+    double band = overshoot * span, speed = std::numeric_limits<double>::infinity();
+    for (const auto& b : bounds)
+      if (b.address == d.address) {
+        band = std::min(band, b.max_overshoot);
+        speed = std::min(speed, b.max_speed);
+      }
+    worst = std::max(worst, (max_overshoot(p, c) - band) / span);
+    if (std::isfinite(speed)) worst = std::max(worst, max_speed(p, c) / speed - 1);
+  }
+  return worst;
 }
 
 double DesignFamily::overshoot_excess(const std::vector<double>& c, double overshoot) const {
@@ -152,6 +210,21 @@ double design_objective(const WorkResult& result, DesignObjective objective) {
     return result.distribution.dissipated_work;
   }
   const auto& P = in.transitions.probability;
+  if (objective == DesignObjective::quanta) {
+    const int kept = in.transitions.final_levels();
+    double quanta = 0;
+    for (int m = 0; m < in.transitions.initial_levels(); ++m) {
+      const double p = in.initial_weights.at(std::size_t(m));
+      if (p == 0) continue;
+      double found = 0;
+      for (int n = 0; n < kept; ++n) {
+        quanta += p * P(m, n) * (n - m);
+        found += P(m, n);
+      }
+      quanta += p * std::max(0.0, 1 - found) * (kept - m);  // unresolved: at level >= kept
+    }
+    return quanta;
+  }
   double stay = 0;
   for (int m = 0; m < in.transitions.initial_levels(); ++m) {
     const double p = in.initial_weights.at(std::size_t(m));
@@ -180,6 +253,20 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
     throw InputError("amplitude_bound", exact(options.amplitude_bound), "a bound > 0 on the mode amplitudes");
   if (!(options.overshoot >= 0) || !std::isfinite(options.overshoot))
     throw InputError("overshoot", exact(options.overshoot), "an overshoot >= 0 (units of the change)");
+  for (const auto& b : options.bounds) {
+    const auto& ps = family.parameters();
+    const auto it = std::find_if(ps.begin(), ps.end(), [&](const DesignedParameter& d) { return d.address == b.address; });
+    if (it == ps.end()) throw InputError("max_speed", b.address, "a designed parameter (one whose end values differ)");
+    if (!(b.max_speed > 0)) throw InputError("max_speed", exact(b.max_speed), "a speed bound > 0");
+    if (!(b.max_overshoot >= 0)) throw InputError("max_overshoot", exact(b.max_overshoot), "an overshoot bound >= 0");
+    // Mean value theorem: some point of any member moves at |b - a| / tau at least.
+    const double least = std::abs(it->to - it->from) / family.duration();
+    if (b.max_speed < least)
+      throw InputError("max_speed", exact(b.max_speed) + " (internal units) for " + b.address,
+                       "at least the mean speed |to - from| / duration = " + exact(least) +
+                           " (internal units): no ramp of this duration is slower everywhere",
+                       "a larger bound or a longer duration");
+  }
   if (std::isnan(options.stop_below))  // NaN would never stop a start, silently
     throw InputError("stop_below", exact(options.stop_below), "a number (the objective at which a start ends)");
   if (options.starts < 1) throw InputError("starts", std::to_string(options.starts), "at least 1 start");
@@ -208,12 +295,14 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
     e.index = int(result.history.size());
     e.start = start;
     e.amplitudes = c;
-    e.excess = family.overshoot_excess(c, options.overshoot);
+    e.excess = family.bound_excess(c, options.overshoot, options.bounds);
     e.feasible = e.excess <= 0;
-    if (e.feasible) {
+    if (e.feasible || e.index == 0) {  // the smooth ramp is simulated in any case (objective_before)
       e.objective = evaluate(family.protocol(c));
       if (!std::isfinite(e.objective)) throw PhysicsError("the objective is not finite for amplitudes " + exact(c.empty() ? 0 : c[0]) + "...");
       largest = std::max(largest, e.objective);
+      if (e.index == 0) result.objective_before = e.objective;
+      if (!e.feasible) e.objective = largest + 1 + e.excess;  // the search sees the penalty
     } else {
       e.objective = largest + 1 + e.excess;
     }
@@ -291,11 +380,19 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
                                                        : "used its share of the evaluations");
   }
 
-  // The smooth ramp is the first evaluation of the first start (x = 0 is feasible: s stays in [0, 1]).
-  result.objective_before = result.history.front().objective;
-  const DesignEvaluation* best = &result.history.front();
+  // The smooth ramp is the first evaluation (objective_before, simulated even when it breaks a bound).
+  result.before_feasible = result.history.front().feasible;
+  const DesignEvaluation* best = nullptr;
   for (const auto& e : result.history)
-    if (e.feasible && e.objective < best->objective) best = &e;
+    if (e.feasible && (!best || e.objective < best->objective)) best = &e;
+  if (!best)
+    throw PhysicsError("no member of the " + std::to_string(result.history.size()) +
+                       " evaluated met the bounds on speed and overshoot (least excess " +
+                       exact(std::min_element(result.history.begin(), result.history.end(),
+                                              [](const DesignEvaluation& a, const DesignEvaluation& b) {
+                                                return a.excess < b.excess;
+                                              })->excess) +
+                       "); loosen the bounds, lengthen the duration or allow more evaluations");
   result.amplitudes = best->amplitudes;
   result.objective_after = best->objective;
   result.bound_reached = bound_hit;
@@ -303,6 +400,9 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
     result.warnings.push_back("the evaluation bound (" + std::to_string(options.max_evaluations) +
                               ") ended the search at objective " + exact(result.objective_after) +
                               ": more evaluations may lower it");
+  if (!result.before_feasible)
+    result.warnings.push_back("the smooth ramp breaks the bounds (excess " + exact(result.history.front().excess) +
+                              "); its objective is given for comparison only");
   if (!(result.objective_after < result.objective_before))
     result.warnings.push_back("no member beat the smooth ramp (objective " + exact(result.objective_before) + ")");
   return result;
