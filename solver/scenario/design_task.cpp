@@ -80,6 +80,45 @@ std::string designed_scenario_text(const Scenario& s, const std::string& text, c
   out << root << '\n';
   return out.str();
 }
+
+// "trap.centre=0.5 m/s" or "0.5 m/s" (one designed parameter) -> address, quantity text.
+std::pair<std::string, std::string> bound_text(const std::string& text, const DesignFamily& family,
+                                               const std::string& key, const std::string& file) {
+  const auto eq = text.find('=');
+  if (eq != std::string::npos) return {text.substr(0, eq), text.substr(eq + 1)};
+  if (family.parameters().size() != 1)
+    throw InputError(key, text, "PARAMETER=VALUE (" + std::to_string(family.parameters().size()) +
+                     " parameters are designed)", "", file);
+  return {family.parameters().front().address, text};
+}
+
+// The lab-unit bounds of the settings in internal units (DesignBound per address).
+std::vector<DesignBound> lab_bounds(const Scenario& s, const DesignSettings& settings, const DesignFamily& family) {
+  std::vector<DesignBound> bounds;
+  auto convert = [&](const std::string& text, const std::string& key, bool speed) {
+    const auto [address, given] = bound_text(text, family, key, s.file);
+    const auto change = std::find_if(s.protocol->changes.begin(), s.protocol->changes.end(),
+                                     [&](const ChangeSpec& c) { return c.parameter == address; });
+    const auto& ps = family.parameters();
+    if (change == s.protocol->changes.end() ||
+        std::none_of(ps.begin(), ps.end(), [&](const DesignedParameter& d) { return d.address == address; }))
+      throw InputError(key, address, "a designed parameter (a [[protocol.change]] whose end values differ)", "", s.file);
+    const Quantity q = parse_quantity(given);
+    if (q.plain) throw InputError(key, given, "a value with its unit, e.g. \"0.5 m/s\" or \"20 nm\"", "", s.file);
+    const auto slot = std::find_if(s.parameters.begin(), s.parameters.end(),
+                                   [&](const ParameterSlot& p) { return p.address == address; });
+    const bool plain = slot != s.parameters.end() && slot->dimension == Dimension::none();
+    Dimension d = plain ? Dimension::none() : change->dimension;
+    if (speed) d.power[2] -= 1;
+    const double value = s.units.to_internal(q, d, key, given) * (plain ? slot->plain_factor : 1);
+    auto it = std::find_if(bounds.begin(), bounds.end(), [&](const DesignBound& b) { return b.address == address; });
+    if (it == bounds.end()) it = bounds.insert(bounds.end(), DesignBound{address});
+    (speed ? it->max_speed : it->max_overshoot) = value;
+  };
+  for (const auto& t : settings.max_speed) convert(t, "max_speed", true);
+  for (const auto& t : settings.max_overshoot) convert(t, "max_overshoot", false);
+  return bounds;
+}
 }  // namespace
 
 std::vector<std::string> design_output_names(const Scenario& scenario) {
@@ -106,6 +145,8 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
                        "a parameter of the potential: moving walls are not designed yet", "", scenario.file);
   const Protocol protocol = build_protocol(scenario);
   const DesignFamily family(protocol, settings.options.modes, settings.options.zero_end_acceleration);
+  DesignSettings used = settings;
+  used.options.bounds = lab_bounds(scenario, settings, family);
   WorkRequest request = work_request(scenario);
   if (settings.options.objective == DesignObjective::dissipated_work && !request.initial.is_gibbs())
     throw InputError("objective", "dissipated_work", "a thermal [initial] (temperature or mean_phonons) for the dissipated work, "
@@ -114,7 +155,7 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
   request.spectrum.options.interrupt = hooks.interrupt;
   if (checked) checked();
 
-  DesignTaskOutcome o{scenario, settings, family.description(), {}, {}, {}, {}, 1};
+  DesignTaskOutcome o{scenario, used, family.description(), {}, {}, {}, {}, 1};
   const DesignEvaluator evaluate = work_evaluator(scenario.potential, request, settings.options.objective);
   DesignHooks design_hooks;
   design_hooks.interrupt = hooks.interrupt;
@@ -122,7 +163,7 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
     design_hooks.progress = [&](const DesignEvaluation&, int done, int bound) { hooks.progress(double(done) / bound); };
   if (hooks.stage) hooks.stage("design");
   try {
-    o.result = design_protocol(family, [&](const Protocol& p) { return evaluate(p); }, settings.options, design_hooks);
+    o.result = design_protocol(family, [&](const Protocol& p) { return evaluate(p); }, used.options, design_hooks);
   } catch (const PhysicsError& e) {
     throw PhysicsError(scenario.file + ": " + e.what());
   }
@@ -158,6 +199,16 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
                          "an end value with its unit (the designed table is written in it)", "", scenario.file);
       t.value_per_unit = per_unit(scenario, t.value_unit, change->dimension, "protocol.change.to");
     }
+    t.speed_before = family.max_speed(p, zero);
+    t.speed_after = family.max_speed(p, o.result.amplitudes);
+    t.overshoot_before = family.max_overshoot(p, zero);
+    t.overshoot_after = family.max_overshoot(p, o.result.amplitudes);
+    t.overshoot_limit = used.options.overshoot * std::abs(d.to - d.from);
+    for (const auto& b : used.options.bounds)
+      if (b.address == d.address) {
+        t.speed_limit = std::min(t.speed_limit, b.max_speed);
+        t.overshoot_limit = std::min(t.overshoot_limit, b.max_overshoot);
+      }
     for (int i = 0; i < table_rows; ++i) {
       const double u = double(i) / (table_rows - 1);
       t.times.push_back(u * tau);
@@ -214,7 +265,17 @@ nlohmann::ordered_json task_summary(const DesignTaskOutcome& o) {
                           {"to", conversion_rounded(r.parameters[p].to / t.value_per_unit)},
                           {"unit", t.value_unit},
                           {"amplitudes", c},
-                          {"table", t.file}});
+                          {"table", t.file},
+                          {"max_speed",
+                           {{"unit", t.speed_unit()},
+                            {"smooth_ramp", t.speed_before / t.speed_per_unit()},
+                            {"designed", t.speed_after / t.speed_per_unit()},
+                            {"limit", std::isfinite(t.speed_limit) ? json(t.speed_limit / t.speed_per_unit()) : json(nullptr)}}},
+                          {"max_overshoot",
+                           {{"unit", t.value_unit},
+                            {"smooth_ramp", t.overshoot_before / t.value_per_unit},
+                            {"designed", t.overshoot_after / t.value_per_unit},
+                            {"limit", t.overshoot_limit / t.value_per_unit}}}});
   }
   int feasible = 0;
   for (const auto& e : r.history) feasible += e.feasible;
@@ -223,7 +284,9 @@ nlohmann::ordered_json task_summary(const DesignTaskOutcome& o) {
        {"scenario", o.scenario.file},
        {"family", o.family},
        {"objective", design_objective_name(o.settings.options.objective)},
-       {"objective_unit", o.objective_unit.empty() ? "probability" : o.objective_unit},
+       {"objective_unit", !o.objective_unit.empty()                                        ? o.objective_unit
+                          : o.settings.options.objective == DesignObjective::quanta ? "quanta"
+                                                                                    : "probability"},
        {"objective_before", r.objective_before / o.objective_per_unit},
        {"objective_after", r.objective_after / o.objective_per_unit},
        {"improvement_factor", r.objective_after > 0 ? json(r.objective_before / r.objective_after) : json(nullptr)},
@@ -314,9 +377,14 @@ void print_task_report(std::ostream& out, const DesignTaskOutcome& o) {
   for (std::size_t i = 0; i < r.start_results.size(); ++i) out << (i ? "; " : " ") << r.start_results[i];
   out << "\n";
   for (std::size_t p = 0; p < r.parameters.size(); ++p) {
+    const auto& t = o.tables[p];
     out << "  " << r.parameters[p].address << " amplitudes:";
     for (int k = 0; k < r.modes; ++k) out << ' ' << number_text(r.amplitudes[p * r.modes + k]);
-    out << "\n";
+    out << "\n    largest speed " << number_text(t.speed_after / t.speed_per_unit()) << " " << t.speed_unit()
+        << " (smooth ramp " << number_text(t.speed_before / t.speed_per_unit()) << ", limit "
+        << (std::isfinite(t.speed_limit) ? number_text(t.speed_limit / t.speed_per_unit()) : std::string("none"))
+        << "); overshoot " << number_text(t.overshoot_after / t.value_per_unit) << " " << t.value_unit << " (limit "
+        << number_text(t.overshoot_limit / t.value_per_unit) << ")\n";
   }
   for (const auto& w : r.warnings) out << "warning: " << w << "\n";
   out << "run `trapwork work designed.toml` in the output folder for the designed ramp's full work statistics\n";

@@ -6,6 +6,7 @@
 // prints nothing and writes no file itself.
 #include <filesystem>
 #include <functional>
+#include <limits>
 #include <ostream>
 #include <string>
 #include <vector>
@@ -17,7 +18,10 @@ namespace trapwork {
 
 struct DesignSettings {
   std::string scenario_text;  // the scenario's text as read (with --set applied): designed.toml is made from it
-  DesignOptions options;
+  DesignOptions options;  // options.bounds are filled from the texts below
+  // Lab-unit bounds, "trap.centre=0.5 m/s" or, with one designed parameter, "0.5 m/s": speed in
+  // the parameter's unit per time; overshoot beyond the end values in the parameter's unit.
+  std::vector<std::string> max_speed, max_overshoot;
 };
 
 struct DesignTable {
@@ -27,6 +31,13 @@ struct DesignTable {
   std::string value_unit; // of the second ("" for a plain parameter)
   double time_per_unit = 1, value_per_unit = 1;  // internal value of one unit
   std::vector<double> times, before, after;      // internal
+  // Largest |speed| and excursion beyond the end values (internal), of the smooth ramp and the
+  // design, and the limits the search kept (the overshoot band as used: min(overshoot |b - a|,
+  // max_overshoot); speed: infinity when not bounded).
+  double speed_before = 0, speed_after = 0, overshoot_before = 0, overshoot_after = 0;
+  double speed_limit = std::numeric_limits<double>::infinity(), overshoot_limit = 0;
+  std::string speed_unit() const { return (value_unit.empty() ? "1" : value_unit) + "/" + time_unit; }
+  double speed_per_unit() const { return value_per_unit / time_per_unit; }
 };
 
 struct DesignTaskOutcome {

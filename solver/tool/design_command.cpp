@@ -25,6 +25,8 @@ DesignCommandOutcome run_design_command(const DesignCommand& command, std::ostre
   o.stop_below = command.stop_below;
   o.zero_end_acceleration = command.smoother;
   o.seed = command.seed;
+  settings.max_speed = command.max_speed;
+  settings.max_overshoot = command.max_overshoot;
   std::optional<OutputRun> output;
   TaskBar bar(progress, command.show_progress);
   const TaskHooks hooks = bar.hooks(command.quiet ? std::function<void(const std::string&)>() : notice_to(progress));
@@ -57,8 +59,9 @@ void add_design_command(CLI::App& app) {
       ->capture_default_str()
       ->check(CLI::Range(1, 1000000));
   sub->add_option("--objective", command->objective,
-                  "excitation (probability of leaving the initial level's adiabatic partner) or dissipated_work "
-                  "(<W> - Delta F, thermal start)")
+                  "excitation (probability of leaving the initial level's adiabatic partner), dissipated_work "
+                  "(<W> - Delta F, thermal start) or quanta (mean excitation in quanta: levels climbed above the "
+                  "adiabatic partner)")
       ->capture_default_str();
   sub->add_option("--method", command->method, "NLopt local method: bobyqa, cobyla, nelder_mead or sbplx")
       ->capture_default_str();
@@ -67,6 +70,12 @@ void add_design_command(CLI::App& app) {
   sub->add_option("--overshoot", command->overshoot,
                   "how far the ramp may leave the range of its end values, in units of the change")
       ->capture_default_str();
+  sub->add_option("--max-speed", command->max_speed,
+                  "bound on the ramp's speed in lab units, PARAMETER=VALUE (e.g. trap.centre=0.5m/s) or VALUE "
+                  "with one designed parameter; repeatable");
+  sub->add_option("--max-overshoot", command->max_overshoot,
+                  "bound on how far the ramp leaves its end values, in lab units (e.g. trap.centre=20nm); "
+                  "the tighter of this and --overshoot applies; repeatable");
   sub->add_option("--stop-below", command->stop_below, "a start ends once the objective is below this")
       ->capture_default_str();
   sub->add_flag("--smoother", command->smoother, "base ramp 10u^3 - 15u^4 + 6u^5: zero end acceleration too");
