@@ -48,6 +48,73 @@ TEST_CASE("trapwork design: the example with a small budget, its files and desig
   const WorkOutcome w = work_task(designed, std::nullopt);
   const double stay = w.run().result.forward.transitions.probability(0, 0);
   CHECK(std::abs((1 - stay) - o.objective_after) < 1e-4 * o.objective_after + 1e-9);
+  // Issue 18, outputs: the final run is designed.toml's run through the work pipeline (the same
+  // objective as `trapwork work designed.toml`, up to the table file's 17 digits), with its checks
+  // and summary; P(W) before and after beside the harmonic prediction.
+  for (const char* f : {"design_work_lines.csv", "designed_work_summary.json", "design_work_before.png",
+                        "design_work_after.svg"})
+    CHECK(fs::exists(dir / "out" / f));
+  const auto& final_run = summary.at("final_run");
+  CHECK(std::abs(final_run.at("objective_designed").get<double>() - (1 - stay)) < 1e-9 * (1 - stay));
+  CHECK(final_run.at("objective_smooth").get<double>() == Approx(o.objective_before).epsilon(1e-9));
+  CHECK(final_run.at("checks").size() >= 5);
+  const auto designed_summary = nlohmann::json::parse(trapwork_test::read_all(dir / "out" / "designed_work_summary.json"));
+  CHECK(designed_summary.at("command") == "trapwork work");
+  CHECK(designed_summary.at("harmonic").at("model").get<std::string>().find("displaced oscillator") != std::string::npos);
+  const auto lines = trapwork_test::csv_rows(trapwork_test::read_all(dir / "out" / "design_work_lines.csv"));
+  REQUIRE(lines.size() > 3);
+  double smooth = 0, designed_sum = 0, harmonic = 0;
+  for (const auto& row : lines) {
+    smooth += row[3];
+    designed_sum += row[4];
+    harmonic += row[6];
+  }
+  CHECK(std::abs(smooth - 1) < 1e-6);  // every line of a resolved run (unresolved ~1e-12)
+  CHECK(std::abs(designed_sum - 1) < 1e-6);
+  CHECK(std::abs(harmonic - 1) < 1e-3);  // the harmonic reference on the run's levels
+  CHECK(lines[0][4] == Approx(stay).epsilon(1e-9));  // row 0 -> 0
+  CHECK(report.str().find("computed checks pass") != std::string::npos);
+}
+
+// Issue 18: bounds in lab units on speed and overshoot, reported in the summary; the mean
+// excitation in quanta as the objective; refusals of a bound without a unit or of the wrong kind.
+TEST_CASE("trapwork design: lab-unit bounds on speed and overshoot, and the quanta objective", "[design][cli]") {
+  const fs::path dir = trapwork_test::scratch_dir("design", "bounds");
+  DesignCommand c;
+  c.scenario = (fs::path(TRAPWORK_SOURCE_DIR) / "examples" / "ion_design.toml").string();
+  c.output = (dir / "out").string();
+  c.evaluations = 12;
+  c.quiet = true;
+  c.objective = "quanta";
+  c.max_speed = {"trap.centre=0.42 m/s"};  // the smooth ramp peaks at 1.5 x 300 nm / 1 us = 0.45 m/s
+  c.max_overshoot = {"10 nm"};
+  std::ostringstream report;
+  const DesignCommandOutcome o = run_design_command(c, report, report);
+  const auto summary = nlohmann::json::parse(trapwork_test::read_all(dir / "out" / "design_summary.json"));
+  CHECK(summary.at("objective") == "quanta");
+  CHECK(summary.at("objective_unit") == "quanta");
+  const auto& speed = summary.at("parameters").at(0).at("max_speed");
+  CHECK(speed.at("unit") == "nm/us");
+  CHECK(speed.at("limit").get<double>() == Approx(420).epsilon(1e-12));
+  CHECK(speed.at("smooth_ramp").get<double>() == Approx(450).epsilon(1e-9));
+  CHECK(speed.at("designed").get<double>() <= 420 * (1 + 1e-12));
+  const auto& overshoot = summary.at("parameters").at(0).at("max_overshoot");
+  CHECK(overshoot.at("limit").get<double>() == Approx(10).epsilon(1e-12));
+  CHECK(overshoot.at("designed").get<double>() <= 10 * (1 + 1e-12));
+  CHECK(o.objective_after < o.objective_before);
+  CHECK(summary.at("warnings").dump().find("the smooth ramp breaks the bounds") != std::string::npos);
+  for (const std::vector<std::string>& bad : {std::vector<std::string>{"0.5"}, {"trap.centre=20 nm"},
+                                                {"trap.frequency=1 m/s"}}) {
+    c.max_speed = bad;
+    c.output = (dir / "refused").string();
+    try {
+      run_design_command(c, report, report);
+      FAIL("no error for " << bad[0]);
+    } catch (const InputError& e) {
+      CHECK(e.key == "max_speed");
+    }
+  }
+  CHECK_FALSE(fs::exists(dir / "refused" / "design_summary.json"));
 }
 
 TEST_CASE("trapwork design refuses what it cannot design, naming the key", "[design][cli]") {

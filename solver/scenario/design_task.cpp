@@ -9,6 +9,7 @@
 #include "solver/errors.hpp"
 #include "solver/scenario/machine.hpp"
 #include "solver/scenario/output.hpp"
+#include "solver/scenario/work_output.hpp"
 
 namespace trapwork {
 
@@ -121,10 +122,100 @@ std::vector<DesignBound> lab_bounds(const Scenario& s, const DesignSettings& set
 }
 }  // namespace
 
+namespace {
+// The designed scenario as designed.toml describes it: each designed change a table of the
+// designed values (internal, as written to the table files), the lab frame for a translation.
+Scenario designed_scenario(const Scenario& s, const std::vector<DesignTable>& tables, bool translation) {
+  Scenario d = s;
+  for (auto& c : d.protocol->changes)
+    for (const auto& t : tables)
+      if (t.address == c.parameter) {
+        c.form = ScheduleForm::table;
+        c.ramp = "table";
+        c.times = t.times;
+        c.values = t.after;
+        c.file = t.file;
+        c.formula.clear();
+        c.internal_formula.clear();
+      }
+  if (translation && d.work) d.work->frame = "lab";
+  if (!d.title.empty()) d.title += " (designed ramp)";
+  return d;
+}
+
+// Runs the scenario and the designed scenario through work_task (all checks) and compares the
+// designed run's objective with the search's.
+void final_runs(DesignTaskOutcome& o, bool translation, const TaskHooks& hooks) {
+  TaskHooks quiet;
+  quiet.interrupt = hooks.interrupt;
+  if (hooks.stage) hooks.stage("final runs (smooth and designed ramp, with all checks)");
+  o.before_run.emplace(work_task(o.scenario, std::nullopt, default_search_budget, quiet));
+  o.after_run.emplace(work_task(designed_scenario(o.scenario, o.tables, translation), std::nullopt,
+                                default_search_budget, quiet));
+  const WorkRun after = o.after_run->run();
+  o.final_objective = design_objective(after.result, o.settings.options.objective);
+  const double scale = std::max(std::abs(o.result.objective_after), 1e-12);
+  if (std::abs(o.final_objective - o.result.objective_after) > 1e-3 * scale)
+    o.final_warnings.push_back("the designed table's run gives objective " + number_text(o.final_objective / o.objective_per_unit) +
+                               ", the search's formula ramp " + number_text(o.result.objective_after / o.objective_per_unit) +
+                               " (relative difference above 1e-3: the table's interpolation or the search's "
+                               "cheaper numerics; trust the table's run, whose checks follow)");
+  for (const auto& c : work_checks(after))
+    if (!c.pass())
+      o.final_warnings.push_back("designed run: " + c.name + " " + number_text(c.value) + " above its tolerance " +
+                                 number_text(c.tolerance) + " (designed_work_summary.json)");
+}
+
+// P(m -> n) of both runs with the harmonic prediction of each (same end potentials, so the same
+// work value per (m, n)).
+CsvTable work_lines_table(const DesignTaskOutcome& o) {
+  const WorkRun before = o.before_run->run(), after = o.after_run->run();
+  const Display d = display(o.scenario);
+  const std::string e = column_unit(d.e);
+  CsvTable t;
+  t.columns = {{"initial", {}}, {"final", {}}, {"work_" + e, {}}, {"probability_smooth", {}},
+               {"probability_designed", {}}, {"harmonic_smooth", {}, bool(before.result.harmonic)},
+               {"harmonic_designed", {}, bool(after.result.harmonic)}};
+  const WorkInput& a = after.result.forward;
+  const WorkInput& b = before.result.forward;
+  const int rows = std::min(a.transitions.initial_levels(), b.transitions.initial_levels());
+  const int cols = std::min(a.transitions.final_levels(), b.transitions.final_levels());
+  auto harmonic = [](const WorkResult& r, int m, int n) {
+    if (!r.harmonic || m >= r.harmonic->reference.initial_levels() || n >= r.harmonic->reference.final_levels())
+      return std::numeric_limits<double>::quiet_NaN();
+    return r.harmonic->initial_weights.at(std::size_t(m)) * r.harmonic->reference.probability(m, n);
+  };
+  for (int m = 0; m < rows; ++m)
+    for (int n = 0; n < cols; ++n) {
+      const double pa = a.initial_weights[std::size_t(m)] * a.transitions.probability(m, n);
+      const double pb = b.initial_weights[std::size_t(m)] * b.transitions.probability(m, n);
+      const double ha = harmonic(after.result, m, n), hb = harmonic(before.result, m, n);
+      if (!(std::max({pa, pb, std::isnan(ha) ? 0 : ha, std::isnan(hb) ? 0 : hb}) >= lines_file_probability_floor)) continue;
+      const double w = after.result.final_spectrum.energies[n] - after.result.initial_spectrum.energies[m];
+      t.columns[0].values.push_back(m);
+      t.columns[1].values.push_back(n);
+      t.columns[2].values.push_back(w / d.energy_per);
+      t.columns[3].values.push_back(pb);
+      t.columns[4].values.push_back(pa);
+      t.columns[5].values.push_back(hb);
+      t.columns[6].values.push_back(ha);
+    }
+  t.comments = {"work lines p_m P(m -> n) of the smooth ramp (the scenario as given) and of the designed ramp "
+                "(designed.toml), each run by the work pipeline with its checks",
+                "W = E_n(final) - E_m(initial) of the run's levels (the same end potentials for both); harmonic_*: "
+                "the harmonic prediction by level index (" +
+                    (after.result.harmonic ? after.result.harmonic->model : "none: " + after.result.harmonic_absent) +
+                    "); rows below P = 1e-15 in all four left out"};
+  return t;
+}
+}  // namespace
+
 std::vector<std::string> design_output_names(const Scenario& scenario) {
   std::vector<std::string> names = {"design_history.csv", "design_summary.json",    "design_schedule.png",
                                     "design_schedule.svg", "design_convergence.png", "design_convergence.svg",
-                                    "designed.toml"};
+                                    "designed.toml",     "design_work_lines.csv",  "design_work_before.png",
+                                    "design_work_before.svg", "design_work_after.png", "design_work_after.svg",
+                                    "designed_work_summary.json"};
   if (scenario.protocol)
     for (const auto& c : scenario.protocol->changes) names.push_back(table_file(c.parameter));
   return names;
@@ -217,8 +308,9 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
     }
     o.tables.push_back(std::move(t));
   }
-  o.designed_text = designed_scenario_text(scenario, settings.scenario_text, o.tables,
-                                           protocol.translation(scenario.potential).has_value(), o.family);
+  const bool translation = protocol.translation(scenario.potential).has_value();
+  o.designed_text = designed_scenario_text(scenario, settings.scenario_text, o.tables, translation, o.family);
+  final_runs(o, translation, hooks);
   return o;
 }
 
@@ -249,8 +341,35 @@ std::vector<NamedTable> task_tables(const DesignTaskOutcome& o) {
   history.comments = {"every work run of the search in the order run; amplitudes c_k in units of the change (" +
                           o.family + ")",
                       "infeasible rows (overshoot) were not simulated: their objective is the search's penalty"};
-  return {{"design_history.csv", history}};
+  std::vector<NamedTable> tables = {{"design_history.csv", history}};
+  if (o.before_run && o.after_run) tables.push_back({"design_work_lines.csv", work_lines_table(o)});
+  return tables;
 }
+
+namespace {
+std::vector<std::string> all_warnings(const DesignTaskOutcome& o) {
+  std::vector<std::string> w = o.result.warnings;
+  w.insert(w.end(), o.final_warnings.begin(), o.final_warnings.end());
+  return w;
+}
+
+nlohmann::ordered_json final_run_summary(const DesignTaskOutcome& o) {
+  using json = nlohmann::ordered_json;
+  if (!o.after_run) return nullptr;
+  json checks = json::array();
+  for (const auto& c : work_checks(o.after_run->run()))
+    checks.push_back({{"name", c.name},
+                      {"value", std::isnan(c.value) ? json(nullptr) : json(c.value)},
+                      {"tolerance", c.tolerance},
+                      {"pass", std::isnan(c.value) ? json(nullptr) : json(c.pass())}});  // null: not computed
+  const WorkRun before = o.before_run->run(), after = o.after_run->run();
+  return {{"objective_smooth", design_objective(before.result, o.settings.options.objective) / o.objective_per_unit},
+          {"objective_designed", o.final_objective / o.objective_per_unit},
+          {"summary", "designed_work_summary.json"},
+          {"lines", "design_work_lines.csv"},
+          {"checks", checks}};
+}
+}  // namespace
 
 nlohmann::ordered_json task_summary(const DesignTaskOutcome& o) {
   using json = nlohmann::ordered_json;
@@ -302,7 +421,8 @@ nlohmann::ordered_json task_summary(const DesignTaskOutcome& o) {
        {"overshoot", o.settings.options.overshoot},
        {"parameters", parameters},
        {"designed_scenario", "designed.toml"},
-       {"warnings", r.warnings}},
+       {"final_run", final_run_summary(o)},
+       {"warnings", all_warnings(o)}},
       o.scenario);
 }
 
@@ -318,6 +438,7 @@ std::vector<NamedText> task_texts(const DesignTaskOutcome& o) {
     texts.push_back({t.file, out.str()});
   }
   texts.push_back({"designed.toml", o.designed_text});
+  if (o.after_run) texts.push_back({"designed_work_summary.json", task_summary(*o.after_run).dump(2) + "\n"});
   return texts;
 }
 
@@ -357,7 +478,18 @@ std::vector<NamedFigure> task_figures(const DesignTaskOutcome& o) {
   }
   convergence.points = {points};
   convergence.curves = {best};
-  return {{"design_schedule", schedule}, {"design_convergence", convergence}};
+  std::vector<NamedFigure> figures = {{"design_schedule", schedule}, {"design_convergence", convergence}};
+  auto work_figure = [](const WorkOutcome& w, const std::string& stem, const std::string& title) {
+    for (auto& f : work_figures(w.run()))
+      if (f.stem == "work") {
+        if (auto* wf = std::get_if<WorkFigure>(&f.figure)) wf->title = title;
+        return NamedFigure{stem, std::move(f.figure)};
+      }
+    throw ContractViolation("design: the work run has no work figure");
+  };
+  if (o.before_run) figures.push_back(work_figure(*o.before_run, "design_work_before", "P(W) of the smooth ramp"));
+  if (o.after_run) figures.push_back(work_figure(*o.after_run, "design_work_after", "P(W) of the designed ramp"));
+  return figures;
 }
 
 std::vector<fs::path> write_task_outputs(const fs::path& folder, const DesignTaskOutcome& o) {
@@ -386,8 +518,17 @@ void print_task_report(std::ostream& out, const DesignTaskOutcome& o) {
         << "); overshoot " << number_text(t.overshoot_after / t.value_per_unit) << " " << t.value_unit << " (limit "
         << number_text(t.overshoot_limit / t.value_per_unit) << ")\n";
   }
-  for (const auto& w : r.warnings) out << "warning: " << w << "\n";
-  out << "run `trapwork work designed.toml` in the output folder for the designed ramp's full work statistics\n";
+  if (o.after_run) {
+    const auto checks = work_checks(o.after_run->run());
+    const auto failed = std::count_if(checks.begin(), checks.end(), [](const WorkCheck& c) { return !c.pass(); });
+    const auto computed = std::count_if(checks.begin(), checks.end(), [](const WorkCheck& c) { return !std::isnan(c.value); });
+    out << "final run of designed.toml (work pipeline, all checks): objective "
+        << number_text(o.final_objective / o.objective_per_unit) << unit << "; " << computed - failed << " of "
+        << computed << " computed checks pass (designed_work_summary.json); P(W) before and after beside the harmonic "
+        << "prediction: design_work_lines.csv, design_work_before/after.png\n";
+  }
+  for (const auto& w : all_warnings(o)) out << "warning: " << w << "\n";
+  out << "run `trapwork work designed.toml` in the output folder for the designed ramp's full outputs\n";
 }
 
 }  // namespace trapwork

@@ -7,6 +7,7 @@
 #include <filesystem>
 #include <functional>
 #include <limits>
+#include <optional>
 #include <ostream>
 #include <string>
 #include <vector>
@@ -49,6 +50,13 @@ struct DesignTaskOutcome {
   std::string designed_text;        // designed.toml
   std::string objective_unit;       // "" (probability) or the energy unit of the report
   double objective_per_unit = 1;    // internal value of one objective unit
+  // The final runs, each through the work pipeline with all its checks (work_task): the
+  // scenario as given (the smooth ramp) and the designed scenario (designed.toml's content: the
+  // designed tables, lab frame for a translation). final_objective is the objective of the
+  // designed table run (it differs from objective_after by the table's interpolation).
+  std::optional<WorkOutcome> before_run, after_run;
+  double final_objective = 0;
+  std::vector<std::string> final_warnings;  // objective not reproduced, failed checks
 };
 
 // Reads the protocol's changes, refuses what the design cannot do (moving walls, [noise],
@@ -58,7 +66,9 @@ struct DesignTaskOutcome {
 DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& settings, const TaskHooks& hooks = {},
                               const std::function<void()>& checked = {});
 // designed.toml, the table files (designed_*.csv), design_history.csv, design_summary.json,
-// design_schedule.png/.svg, design_convergence.png/.svg.
+// design_schedule.png/.svg, design_convergence.png/.svg; of the final runs design_work_lines.csv
+// (P(m -> n) before and after beside the harmonic prediction), design_work_before/after.png/.svg
+// (the work figure of each run) and designed_work_summary.json (the designed run's summary.json).
 std::vector<std::string> design_output_names(const Scenario& scenario);
 
 std::vector<NamedTable> task_tables(const DesignTaskOutcome& outcome);
