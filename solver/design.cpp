@@ -408,4 +408,66 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
   return result;
 }
 
+ShortestDurationResult design_shortest_duration(const Protocol& protocol, const DesignEvaluator& evaluate,
+                                                const DesignOptions& options, double target, double shortest,
+                                                int bisections, const DesignHooks& hooks) {
+  const double longest = protocol.duration();
+  if (!std::isfinite(target)) throw InputError("target", exact(target), "a finite objective value to meet");
+  if (!(shortest > 0 && shortest < longest))
+    throw InputError("shortest", exact(shortest), "a duration > 0 and below the protocol's duration " + exact(longest));
+  if (bisections < 0 || bisections > 30) throw InputError("bisections", std::to_string(bisections), "0 to 30 bisection steps");
+  const DesignFamily reference(protocol, options.modes, options.zero_end_acceleration);
+  for (const auto& s : protocol.schedules()) {
+    const bool designed = std::any_of(reference.parameters().begin(), reference.parameters().end(),
+                                      [&](const DesignedParameter& d) { return d.address == s.address(); });
+    if (!designed && s.form() != ScheduleForm::constant)
+      throw InputError("protocol.change", s.address(),
+                       "designed or constant schedules only: the search over the duration rescales the protocol");
+  }
+  ShortestDurationResult out;
+  std::vector<double> warm;  // amplitudes of the shortest duration met so far
+  auto trial = [&](double tau) {
+    DurationTrial t;
+    t.duration = tau;
+    bool too_fast = false;
+    for (const auto& b : options.bounds)
+      for (const auto& d : reference.parameters())
+        if (b.address == d.address && std::abs(d.to - d.from) / tau > b.max_speed) too_fast = true;
+    if (!too_fast) {
+      const DesignFamily family(Protocol(tau, protocol.schedules()), options.modes, options.zero_end_acceleration);
+      DesignOptions o = options;
+      o.stop_below = target;
+      if (!warm.empty()) o.first_start = warm;
+      t.design = design_protocol(family, evaluate, o, hooks);
+      t.ran = true;
+      t.met = t.design.objective_after <= target;
+      if (t.met) warm = t.design.amplitudes;
+    }
+    out.trials.push_back(std::move(t));
+    if (out.trials.back().met) out.best = int(out.trials.size()) - 1;
+    return out.trials.back().met;
+  };
+  if (!trial(longest)) {
+    out.warnings.push_back("the target " + exact(target) + " is not met at the protocol's duration " + exact(longest) +
+                           " (objective " + exact(out.trials.back().design.objective_after) +
+                           "): lengthen the duration, or allow more modes or evaluations");
+    out.lower = out.upper = longest;
+    return out;
+  }
+  double lo = shortest, hi = longest;
+  if (trial(shortest)) {
+    out.warnings.push_back("the target is met already at the shortest duration tried (" + exact(shortest) +
+                           "): a shorter one may meet it too");
+    out.lower = out.upper = shortest;
+    return out;
+  }
+  for (int i = 0; i < bisections; ++i) {
+    const double mid = 0.5 * (lo + hi);
+    (trial(mid) ? hi : lo) = mid;
+  }
+  out.lower = lo;
+  out.upper = hi;
+  return out;
+}
+
 }  // namespace trapwork

@@ -179,4 +179,30 @@ struct DesignHooks {
 DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& evaluate,
                              const DesignOptions& options, const DesignHooks& hooks = {});
 
+// The shortest duration whose design meets a target (objective <= target): an outer search over
+// tau with a design at each duration (the protocol's schedules other than the designed ones must
+// be constant, since tau rescales the family; InputError otherwise). First a design at the
+// protocol's duration (the longest; when it misses the target the search ends there with a
+// warning), then at `shortest` (when that meets it, it is the answer, with a warning that a
+// shorter one may too), then `bisections` bisection steps of the bracket, each design starting
+// from the amplitudes of the shortest duration met so far, with stop_below = target. A duration
+// whose mean speed |b - a| / tau breaks a speed bound is not met (no design run). Cost bound:
+// (bisections + 2) designs of options.max_evaluations work runs each. A local search may miss a
+// target it could meet, so "met" is monotone only in practice: the trials are all reported.
+struct DurationTrial {
+  double duration = 0;
+  bool met = false;
+  bool ran = false;       // false: refused by the mean speed (no design)
+  DesignResult design;    // when ran
+};
+struct ShortestDurationResult {
+  std::vector<DurationTrial> trials;  // in the order run
+  int best = -1;                      // index of the shortest trial that met the target (-1: none)
+  double lower = 0, upper = 0;        // the last bracket: not met at lower, met at upper
+  std::vector<std::string> warnings;
+};
+ShortestDurationResult design_shortest_duration(const Protocol& protocol, const DesignEvaluator& evaluate,
+                                                const DesignOptions& options, double target, double shortest,
+                                                int bisections, const DesignHooks& hooks = {});
+
 }  // namespace trapwork

@@ -264,3 +264,49 @@ TEST_CASE("design: bounds on speed and overshoot are enforced", "[design]") {
   options.bounds = {{"trap.frequency", 1, 1}};
   CHECK_THROWS_AS(design_protocol(family, cheap, options), InputError);
 }
+
+// The shortest duration meeting a target (issue 18), in a harmonic trap: each trial's objective
+// is checked against the classical excitation 1 - exp(-|alpha|^2) of its designed ramp
+// (displaced oscillator, translation_alpha in harmonic_reference.hpp), so every verdict "met" is
+// independent of the run's own numbers; the bracket halves per bisection and ends at a met trial.
+TEST_CASE("design: the shortest duration that meets a target", "[design]") {
+  const Potential trap({Term("trap", Shape::harmonic, {{"frequency", 1.0}})});
+  const Protocol move(8, {Schedule::smooth_step("trap.centre", 0, 3), Schedule::constant("trap.frequency", 1)});
+  DesignOptions options;
+  options.starts = 1;
+  options.modes = 2;
+  options.max_evaluations = 25;
+  const double target = 1e-6;
+  const auto r = design_shortest_duration(move, work_evaluator(trap, level_request(), DesignObjective::excitation),
+                                          options, target, 0.5, 3);
+  REQUIRE(r.trials.size() == 5);  // longest, shortest, 3 bisections
+  CHECK(r.trials[0].met);         // 8 > one period: easy
+  CHECK_FALSE(r.trials[1].met);   // 0.5: a shift by 3 in a twelfth of a period is not found in 25 runs
+  REQUIRE(r.best >= 0);
+  const auto& best = r.trials[std::size_t(r.best)];
+  CHECK(best.duration == r.upper);
+  CHECK(r.upper - r.lower == Approx((8 - 0.5) / 8));
+  for (const auto& t : r.trials) {
+    REQUIRE(t.ran);
+    const DesignFamily family(Protocol(t.duration, move.schedules()), 2, false);
+    const auto centre = [&](double time) { return family.value(0, t.design.amplitudes, time / t.duration); };
+    const double classical = 1 - std::exp(-std::norm(translation_alpha(1, centre, t.duration)));
+    CHECK(std::abs(classical - t.design.objective_after) < 1e-6 * t.design.objective_after + 1e-9);
+    CHECK(t.met == (t.design.objective_after <= target));
+  }
+  // Refusals: a schedule that is neither designed nor constant; a shortest at or above tau.
+  const Protocol wobble(8, {Schedule::smooth_step("trap.centre", 0, 3), Schedule::formula("trap.frequency", "1+0.1*sin((t/tau)*(1-t/tau))")});
+  CHECK_THROWS_AS(design_shortest_duration(wobble, work_evaluator(trap, level_request(), DesignObjective::excitation),
+                                           options, target, 0.5, 4),
+                  InputError);
+  CHECK_THROWS_AS(design_shortest_duration(move, work_evaluator(trap, level_request(), DesignObjective::excitation),
+                                           options, target, 8, 4),
+                  InputError);
+  // A speed bound makes durations below |b - a| / v_max not met without a run.
+  options.bounds = {{"trap.centre", 1.0, 1e9}};  // 3 / 1.0 = 3 time units at least
+  const auto fast = design_shortest_duration(move, work_evaluator(trap, level_request(), DesignObjective::excitation),
+                                             options, target, 0.5, 1);
+  REQUIRE(fast.trials.size() == 3);
+  CHECK_FALSE(fast.trials[1].ran);
+  CHECK_FALSE(fast.trials[1].met);
+}
