@@ -139,3 +139,43 @@ TEST_CASE("trapwork design refuses what it cannot design, naming the key", "[des
   CHECK_THROWS_AS(run_design_command(c, std::cout, std::cout), InputError);
   CHECK_FALSE(fs::exists(dir / "out" / "design_summary.json"));  // nothing written
 }
+
+// Issue 18: the shortest duration meeting a target, end to end: the trials in the summary, the
+// designed scenario at the shortest duration met, its final run meeting the target.
+TEST_CASE("trapwork design --target: the shortest duration meeting it", "[design][cli]") {
+  const fs::path dir = trapwork_test::scratch_dir("design", "shortest");
+  DesignCommand c;
+  c.scenario = (fs::path(TRAPWORK_SOURCE_DIR) / "examples" / "ion_design.toml").string();
+  c.output = (dir / "out").string();
+  c.evaluations = 10;
+  c.quiet = true;
+  c.target = "0.3";
+  c.shortest = "0.5 us";
+  c.bisections = 1;
+  std::ostringstream report;
+  const DesignCommandOutcome o = run_design_command(c, report, report);
+  const auto summary = nlohmann::json::parse(trapwork_test::read_all(dir / "out" / "design_summary.json"));
+  const auto& search = summary.at("duration_search");
+  REQUIRE(search.at("trials").size() == 3);  // 1 us, 0.5 us, 0.75 us
+  CHECK(search.at("trials").at(0).at("duration").get<double>() == Approx(1));
+  CHECK(search.at("trials").at(1).at("duration").get<double>() == Approx(0.5));
+  CHECK(search.at("trials").at(2).at("duration").get<double>() == Approx(0.75));
+  CHECK(search.at("evaluation_bound") == 30);
+  REQUIRE(search.at("shortest_met").is_number());
+  const double shortest = search.at("shortest_met").get<double>();
+  for (const auto& t : search.at("trials"))
+    if (t.at("met").get<bool>()) CHECK(t.at("duration").get<double>() >= shortest);
+  CHECK(o.objective_after <= 0.3);
+  const Scenario designed = read_scenario((dir / "out" / "designed.toml").string());
+  CHECK(duration_unit(designed) == "us");
+  CHECK(std::stod(designed.protocol->duration_given) == Approx(shortest).epsilon(1e-12));
+  CHECK(summary.at("final_run").at("objective_designed").get<double>() <= 0.3 * (1 + 1e-3));
+  c.target = "0.1 h*kHz";  // an energy for a probability objective
+  c.output = (dir / "refused").string();
+  try {
+    run_design_command(c, report, report);
+    FAIL("no error");
+  } catch (const InputError& e) {
+    CHECK(e.key == "target");
+  }
+}

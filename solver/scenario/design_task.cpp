@@ -3,6 +3,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstdio>
 #include <sstream>
 #include <toml++/toml.h>
 
@@ -34,7 +35,8 @@ double per_unit(const Scenario& s, const std::string& unit, Dimension d, const s
 // default folder); frame "lab" for a translation, because the co-moving frame takes the trap's
 // acceleration from the schedule and a piecewise-linear table has none between its rows.
 std::string designed_scenario_text(const Scenario& s, const std::string& text, const std::vector<DesignTable>& tables,
-                                   bool translation, const std::string& family) {
+                                   bool translation, const std::string& family,
+                                   const std::optional<std::string>& duration) {
   toml::table root = toml::parse(text, s.file);
   const fs::path folder = s.file == "default" ? fs::current_path() : fs::absolute(fs::path(s.file)).parent_path();
   auto absolute_file = [&](toml::table& t) {
@@ -51,6 +53,7 @@ std::string designed_scenario_text(const Scenario& s, const std::string& text, c
           if (auto* f = t->get_as<std::string>("psd_file"); f && fs::path(f->get()).is_relative())
             t->insert_or_assign("psd_file", (folder / f->get()).lexically_normal().string());
   root.erase("output");
+  if (duration) root["protocol"].as_table()->insert_or_assign("duration", *duration);
   if (auto* changes = root["protocol"]["change"].as_array())
     for (auto& c : *changes) {
       auto* t = c.as_table();
@@ -80,6 +83,25 @@ std::string designed_scenario_text(const Scenario& s, const std::string& text, c
            "# has none between its rows (piecewise linear); the lab frame samples the potential itself.\n";
   out << root << '\n';
   return out.str();
+}
+
+// A duration in lab units ("0.3 us"), internal.
+double duration_value(const Scenario& s, const std::string& text, const std::string& key) {
+  const Quantity q = parse_quantity(text);
+  if (q.plain) throw InputError(key, text, "a duration with its unit, e.g. \"0.3 us\"", "", s.file);
+  return s.units.to_internal(q, Dimension::time(), key, text);
+}
+
+// The target of the duration search in internal units: plain for a probability or quanta, an
+// energy with its unit for the dissipated work.
+double target_value(const DesignTaskOutcome& o, const std::string& text) {
+  const Quantity q = parse_quantity(text);
+  if (o.settings.options.objective == DesignObjective::dissipated_work) {
+    if (q.plain) throw InputError("target", text, "a dissipated work with its unit, e.g. \"0.1 h*kHz\"", "", o.scenario.file);
+    return o.scenario.units.to_internal(q, Dimension::energy(), "target", text);
+  }
+  if (!q.plain) throw InputError("target", text, "a plain number (the objective is a probability or a number of quanta)", "", o.scenario.file);
+  return q.value_si;
 }
 
 // "trap.centre=0.5 m/s" or "0.5 m/s" (one designed parameter) -> address, quantity text.
@@ -248,52 +270,73 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
 
   DesignTaskOutcome o{scenario, used, family.description(), {}, {}, {}, {}, 1};
   const DesignEvaluator evaluate = work_evaluator(scenario.potential, request, settings.options.objective);
-  DesignHooks design_hooks;
-  design_hooks.interrupt = hooks.interrupt;
-  if (hooks.progress)
-    design_hooks.progress = [&](const DesignEvaluation&, int done, int bound) { hooks.progress(double(done) / bound); };
-  if (hooks.stage) hooks.stage("design");
-  try {
-    o.result = design_protocol(family, [&](const Protocol& p) { return evaluate(p); }, used.options, design_hooks);
-  } catch (const PhysicsError& e) {
-    throw PhysicsError(scenario.file + ": " + e.what());
-  }
   if (settings.options.objective == DesignObjective::dissipated_work) {
     const Display d = display(scenario);
     o.objective_unit = d.e;
     o.objective_per_unit = d.energy_per;
   }
+  DesignHooks design_hooks;
+  design_hooks.interrupt = hooks.interrupt;
+  if (hooks.progress)
+    design_hooks.progress = [&](const DesignEvaluation&, int done, int bound) { hooks.progress(double(done) / bound); };
+  if (hooks.stage) hooks.stage(settings.target ? "design at each duration" : "design");
+  try {
+    if (settings.target) {  // the shortest duration meeting the target
+      int done = 0;
+      const int bound = (settings.bisections + 2) * used.options.max_evaluations;
+      if (hooks.progress) design_hooks.progress = [&](const DesignEvaluation&, int, int) { hooks.progress(double(++done) / bound); };
+      const double tau = protocol.duration();
+      const double shortest = settings.shortest.empty() ? tau / 4 : duration_value(scenario, settings.shortest, "shortest");
+      o.duration_search = design_shortest_duration(protocol, evaluate, used.options, target_value(o, *settings.target),
+                                                   shortest, settings.bisections, design_hooks);
+      const auto& trials = o.duration_search->trials;
+      const auto& chosen = trials.at(std::size_t(std::max(0, o.duration_search->best)));
+      o.result = chosen.design;
+      o.result.warnings.insert(o.result.warnings.begin(), o.duration_search->warnings.begin(), o.duration_search->warnings.end());
+      const std::string unit = duration_unit(scenario);
+      o.scenario.protocol->duration = chosen.duration;
+      char given[48];
+      std::snprintf(given, sizeof given, "%.17g", chosen.duration / per_unit(scenario, unit, Dimension::time(), "protocol.duration"));
+      o.scenario.protocol->duration_given = std::string(given) + " " + unit;
+    } else {
+      o.result = design_protocol(family, [&](const Protocol& p) { return evaluate(p); }, used.options, design_hooks);
+    }
+  } catch (const PhysicsError& e) {
+    throw PhysicsError(scenario.file + ": " + e.what());
+  }
+  const Protocol at_protocol = build_protocol(o.scenario);
+  const DesignFamily at_family(at_protocol, settings.options.modes, settings.options.zero_end_acceleration);
 
-  const std::string time_unit = duration_unit(scenario);
-  const double tau = protocol.duration();
+  const std::string time_unit = duration_unit(o.scenario);
+  const double tau = at_protocol.duration();
   const std::vector<double> zero(o.result.amplitudes.size(), 0.0);
-  for (std::size_t p = 0; p < family.parameters().size(); ++p) {
-    const auto& d = family.parameters()[p];
+  for (std::size_t p = 0; p < at_family.parameters().size(); ++p) {
+    const auto& d = at_family.parameters()[p];
     DesignTable t;
     t.address = d.address;
     t.file = table_file(d.address);
     t.time_unit = time_unit;
-    t.time_per_unit = per_unit(scenario, time_unit, Dimension::time(), "protocol.duration");
-    const auto change = std::find_if(scenario.protocol->changes.begin(), scenario.protocol->changes.end(),
+    t.time_per_unit = per_unit(o.scenario, time_unit, Dimension::time(), "protocol.duration");
+    const auto change = std::find_if(o.scenario.protocol->changes.begin(), o.scenario.protocol->changes.end(),
                                      [&](const ChangeSpec& c) { return c.parameter == d.address; });
-    const auto slot = std::find_if(scenario.parameters.begin(), scenario.parameters.end(),
+    const auto slot = std::find_if(o.scenario.parameters.begin(), o.scenario.parameters.end(),
                                    [&](const ParameterSlot& s) { return s.address == d.address; });
-    if (slot != scenario.parameters.end() && slot->dimension == Dimension::none()) {
+    if (slot != o.scenario.parameters.end() && slot->dimension == Dimension::none()) {
       t.value_per_unit = slot->plain_factor;
     } else {
-      std::string given = change == scenario.protocol->changes.end() ? "" : change->to_given;
+      std::string given = change == o.scenario.protocol->changes.end() ? "" : change->to_given;
       given.erase(std::remove(given.begin(), given.end(), '"'), given.end());  // as written, with its quotes
       t.value_unit = unit_text(given);
-      if (t.value_unit.empty() && change != scenario.protocol->changes.end()) t.value_unit = change->value_unit;
+      if (t.value_unit.empty() && change != o.scenario.protocol->changes.end()) t.value_unit = change->value_unit;
       if (t.value_unit.empty())
-        throw InputError("protocol.change.to", change == scenario.protocol->changes.end() ? "" : change->to_given,
-                         "an end value with its unit (the designed table is written in it)", "", scenario.file);
-      t.value_per_unit = per_unit(scenario, t.value_unit, change->dimension, "protocol.change.to");
+        throw InputError("protocol.change.to", change == o.scenario.protocol->changes.end() ? "" : change->to_given,
+                         "an end value with its unit (the designed table is written in it)", "", o.scenario.file);
+      t.value_per_unit = per_unit(o.scenario, t.value_unit, change->dimension, "protocol.change.to");
     }
-    t.speed_before = family.max_speed(p, zero);
-    t.speed_after = family.max_speed(p, o.result.amplitudes);
-    t.overshoot_before = family.max_overshoot(p, zero);
-    t.overshoot_after = family.max_overshoot(p, o.result.amplitudes);
+    t.speed_before = at_family.max_speed(p, zero);
+    t.speed_after = at_family.max_speed(p, o.result.amplitudes);
+    t.overshoot_before = at_family.max_overshoot(p, zero);
+    t.overshoot_after = at_family.max_overshoot(p, o.result.amplitudes);
     t.overshoot_limit = used.options.overshoot * std::abs(d.to - d.from);
     for (const auto& b : used.options.bounds)
       if (b.address == d.address) {
@@ -303,13 +346,14 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
     for (int i = 0; i < table_rows; ++i) {
       const double u = double(i) / (table_rows - 1);
       t.times.push_back(u * tau);
-      t.before.push_back(family.value(p, zero, u));
-      t.after.push_back(family.value(p, o.result.amplitudes, u));
+      t.before.push_back(at_family.value(p, zero, u));
+      t.after.push_back(at_family.value(p, o.result.amplitudes, u));
     }
     o.tables.push_back(std::move(t));
   }
-  const bool translation = protocol.translation(scenario.potential).has_value();
-  o.designed_text = designed_scenario_text(scenario, settings.scenario_text, o.tables, translation, o.family);
+  const bool translation = at_protocol.translation(o.scenario.potential).has_value();
+  o.designed_text = designed_scenario_text(o.scenario, settings.scenario_text, o.tables, translation, o.family,
+                                           settings.target ? std::optional(o.scenario.protocol->duration_given) : std::nullopt);
   final_runs(o, translation, hooks);
   return o;
 }
@@ -351,6 +395,28 @@ std::vector<std::string> all_warnings(const DesignTaskOutcome& o) {
   std::vector<std::string> w = o.result.warnings;
   w.insert(w.end(), o.final_warnings.begin(), o.final_warnings.end());
   return w;
+}
+
+nlohmann::ordered_json duration_search_summary(const DesignTaskOutcome& o) {
+  using json = nlohmann::ordered_json;
+  if (!o.duration_search) return nullptr;
+  const std::string unit = duration_unit(o.scenario);
+  const double per = o.scenario.units.to_internal(parse_quantity("1 " + unit), Dimension::time());
+  const auto& d = *o.duration_search;
+  json trials = json::array();
+  for (const auto& t : d.trials)
+    trials.push_back({{"duration", t.duration / per},
+                      {"met", t.met},
+                      {"designed", t.ran},
+                      {"objective_after", t.ran ? json(t.design.objective_after / o.objective_per_unit) : json(nullptr)},
+                      {"evaluations", t.ran ? t.design.history.size() : 0}});
+  return {{"target", *o.settings.target},
+          {"duration_unit", unit},
+          {"bisections", o.settings.bisections},
+          {"evaluation_bound", (o.settings.bisections + 2) * o.settings.options.max_evaluations},
+          {"shortest_met", d.best >= 0 ? json(d.trials[std::size_t(d.best)].duration / per) : json(nullptr)},
+          {"bracket", {d.lower / per, d.upper / per}},
+          {"trials", trials}};
 }
 
 nlohmann::ordered_json final_run_summary(const DesignTaskOutcome& o) {
@@ -422,6 +488,7 @@ nlohmann::ordered_json task_summary(const DesignTaskOutcome& o) {
        {"parameters", parameters},
        {"designed_scenario", "designed.toml"},
        {"final_run", final_run_summary(o)},
+       {"duration_search", duration_search_summary(o)},
        {"warnings", all_warnings(o)}},
       o.scenario);
 }
@@ -500,6 +567,20 @@ void print_task_report(std::ostream& out, const DesignTaskOutcome& o) {
   const auto& r = o.result;
   const std::string unit = o.objective_unit.empty() ? "" : " " + o.objective_unit;
   out << "design of " << o.scenario.file << ": " << o.family << "\n";
+  if (o.duration_search) {
+    const auto& d = *o.duration_search;
+    const std::string unit = duration_unit(o.scenario);
+    const double per = o.scenario.units.to_internal(parse_quantity("1 " + unit), Dimension::time());
+    out << "shortest duration meeting " << design_objective_name(o.settings.options.objective) << " <= "
+        << *o.settings.target << ":";
+    for (const auto& t : d.trials)
+      out << " " << number_text(t.duration / per) << " " << unit << " "
+          << (!t.ran ? "(too fast for the speed bound)" : t.met ? "met" : "missed") << ";";
+    if (d.best >= 0)
+      out << " shortest met " << number_text(d.trials[std::size_t(d.best)].duration / per) << " " << unit
+          << " (bracket " << number_text(d.lower / per) << " to " << number_text(d.upper / per) << " " << unit << ")";
+    out << "\n";
+  }
   out << "objective " << design_objective_name(o.settings.options.objective) << ": smooth ramp "
       << number_text(r.objective_before / o.objective_per_unit) << unit << ", designed "
       << number_text(r.objective_after / o.objective_per_unit) << unit;

@@ -23,6 +23,12 @@ struct DesignSettings {
   // Lab-unit bounds, "trap.centre=0.5 m/s" or, with one designed parameter, "0.5 m/s": speed in
   // the parameter's unit per time; overshoot beyond the end values in the parameter's unit.
   std::vector<std::string> max_speed, max_overshoot;
+  // The shortest duration whose design meets `target` (design_shortest_duration): a probability
+  // or number of quanta as a plain number, a dissipated work with its energy unit ("0.5 h*kHz");
+  // `shortest` the lower end of the search ("0.3 us"; default a quarter of the duration).
+  std::optional<std::string> target;
+  std::string shortest;
+  int bisections = 5;
 };
 
 struct DesignTable {
@@ -55,6 +61,9 @@ struct DesignTaskOutcome {
   // designed tables, lab frame for a translation). final_objective is the objective of the
   // designed table run (it differs from objective_after by the table's interpolation).
   std::optional<WorkOutcome> before_run, after_run;
+  // With a target: every duration tried; scenario and result are then the shortest that met it
+  // (or the scenario's own duration, with a warning, when none did).
+  std::optional<ShortestDurationResult> duration_search;
   double final_objective = 0;
   std::vector<std::string> final_warnings;  // objective not reproduced, failed checks
 };

@@ -213,6 +213,8 @@ PlanOutcome run_plan_command(const PlanCommand& command, std::ostream& out, std:
 struct DesignCommand {
   std::vector<std::string> set;
   std::vector<std::string> max_speed, max_overshoot;  // "trap.centre=0.5 m/s" (DesignSettings)
+  std::string target, shortest;                       // shortest duration meeting target ("" : off)
+  int bisections = 5;
   std::string scenario, output;
   int modes = 3, starts = 1, evaluations = 80;  // random later starts mostly land where the excitation is ~1
   std::string objective = "excitation", method = "bobyqa";

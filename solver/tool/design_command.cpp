@@ -27,6 +27,9 @@ DesignCommandOutcome run_design_command(const DesignCommand& command, std::ostre
   o.seed = command.seed;
   settings.max_speed = command.max_speed;
   settings.max_overshoot = command.max_overshoot;
+  if (!command.target.empty()) settings.target = command.target;
+  settings.shortest = command.shortest;
+  settings.bisections = command.bisections;
   std::optional<OutputRun> output;
   TaskBar bar(progress, command.show_progress);
   const TaskHooks hooks = bar.hooks(command.quiet ? std::function<void(const std::string&)>() : notice_to(progress));
@@ -76,6 +79,14 @@ void add_design_command(CLI::App& app) {
   sub->add_option("--max-overshoot", command->max_overshoot,
                   "bound on how far the ramp leaves its end values, in lab units (e.g. trap.centre=20nm); "
                   "the tighter of this and --overshoot applies; repeatable");
+  sub->add_option("--target", command->target,
+                  "search for the shortest duration whose design meets this objective value (a number; for "
+                  "dissipated_work an energy such as 0.1h*kHz): a design at the scenario's duration, at --shortest, "
+                  "then --bisections halvings, each at most --evaluations work runs");
+  sub->add_option("--shortest", command->shortest, "lower end of the duration search (default: a quarter of the duration)");
+  sub->add_option("--bisections", command->bisections, "halvings of the duration bracket")
+      ->capture_default_str()
+      ->check(CLI::Range(0, 30));
   sub->add_option("--stop-below", command->stop_below, "a start ends once the objective is below this")
       ->capture_default_str();
   sub->add_flag("--smoother", command->smoother, "base ramp 10u^3 - 15u^4 + 6u^5: zero end acceleration too");
