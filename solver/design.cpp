@@ -5,6 +5,7 @@
 #include <cstdio>
 #include <exception>
 #include <limits>
+#include <Eigen/Dense>
 #include <nlopt.hpp>
 #include <random>
 
@@ -406,6 +407,55 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
   if (!(result.objective_after < result.objective_before))
     result.warnings.push_back("no member beat the smooth ramp (objective " + exact(result.objective_before) + ")");
   return result;
+}
+
+DesignEvaluator averaged_evaluator(std::vector<DesignEvaluator> members) {
+  if (members.empty()) throw ContractViolation("averaged_evaluator: no members");
+  return [members = std::move(members)](const Protocol& protocol) {
+    double sum = 0;
+    for (const auto& m : members) sum += m(protocol);
+    return sum / double(members.size());
+  };
+}
+
+std::vector<std::vector<double>> gaussian_samples(const std::vector<double>& mean,
+                                                  const std::vector<std::vector<double>>& covariance, int count,
+                                                  std::uint64_t seed) {
+  const std::size_t n = mean.size();
+  if (covariance.size() != n) throw InputError("covariance", std::to_string(covariance.size()) + " rows", std::to_string(n) + " rows");
+  Eigen::MatrixXd c{Eigen::Index(n), Eigen::Index(n)};
+  double largest = 0;
+  for (std::size_t i = 0; i < n; ++i) {
+    if (covariance[i].size() != n) throw InputError("covariance", "a row of " + std::to_string(covariance[i].size()), "a square matrix");
+    for (std::size_t j = 0; j < n; ++j) c(Eigen::Index(i), Eigen::Index(j)) = covariance[i][j];
+    largest = std::max(largest, std::abs(covariance[i][i]));
+  }
+  if (!c.allFinite() || (c - c.transpose()).cwiseAbs().maxCoeff() > 1e-12 * std::max(largest, 1e-300))
+    throw InputError("covariance", "a matrix that is not symmetric or not finite", "a symmetric covariance");
+  const Eigen::LDLT<Eigen::MatrixXd> ldlt(c);
+  Eigen::VectorXd d = ldlt.vectorD();
+  if (d.size() && d.minCoeff() < -1e-12 * largest)
+    throw InputError("covariance", "a pivot " + exact(d.minCoeff()), "a positive semi-definite covariance");
+  for (Eigen::Index i = 0; i < d.size(); ++i)  // pivots within rounding of 0 are 0 (exact correlations)
+    d(i) = d(i) > 1e-12 * largest ? std::sqrt(d(i)) : 0.0;
+  // c = P^T L D L^T P, so x = P^T L sqrt(D) z has covariance c.
+  const Eigen::MatrixXd l = ldlt.transpositionsP().transpose() * Eigen::MatrixXd(ldlt.matrixL()) * d.asDiagonal();
+  std::mt19937_64 engine(seed);
+  auto uniform_open = [&] { return (double(engine() >> 11) + 0.5) * 0x1.0p-53; };  // (0, 1), never 0
+  std::vector<std::vector<double>> out;
+  for (int k = 0; k < count; ++k) {
+    Eigen::VectorXd z{Eigen::Index(n)};
+    for (Eigen::Index i = 0; i < z.size(); i += 2) {
+      const double r = std::sqrt(-2 * std::log(uniform_open())), phi = 2 * pi * uniform_open();
+      z(i) = r * std::cos(phi);
+      if (i + 1 < z.size()) z(i + 1) = r * std::sin(phi);
+    }
+    const Eigen::VectorXd x = l * z;
+    std::vector<double> sample(mean);
+    for (std::size_t i = 0; i < n; ++i) sample[i] += x(Eigen::Index(i));
+    out.push_back(std::move(sample));
+  }
+  return out;
 }
 
 ShortestDurationResult design_shortest_duration(const Protocol& protocol, const DesignEvaluator& evaluate,

@@ -174,6 +174,20 @@ struct DesignHooks {
   std::function<void()> interrupt;
 };
 
+// Robust design over an uncertain trap: the mean of the members' objectives, equally weighted
+// (each evaluation costs one work run per member). Members' exceptions pass through.
+DesignEvaluator averaged_evaluator(std::vector<DesignEvaluator> members);
+
+// `count` samples of a multivariate normal N(mean, covariance): mean + L z with L the Cholesky
+// factor of the covariance (Eigen's LDLT, so a semi-definite covariance from a fit with an exact
+// correlation works; pivots within 1e-12 of the largest diagonal, which rounding leaves, are taken as 0) and z standard
+// normal by Box-Muller (common practice) from std::mt19937_64(seed), written out so the samples do
+// not depend on the standard library. InputError (key "covariance") when not square, not
+// symmetric to 1e-12 relative, or with a pivot below -1e-12 of the largest diagonal.
+std::vector<std::vector<double>> gaussian_samples(const std::vector<double>& mean,
+                                                  const std::vector<std::vector<double>>& covariance, int count,
+                                                  std::uint64_t seed);
+
 // Searches the family for the least objective. InputError for options out of range;
 // the evaluator's exceptions pass through (a member that cannot be computed stops the search).
 DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& evaluate,

@@ -310,3 +310,36 @@ TEST_CASE("design: the shortest duration that meets a target", "[design]") {
   CHECK_FALSE(fast.trials[1].ran);
   CHECK_FALSE(fast.trials[1].met);
 }
+
+// Robust design (issue 18): the averaged evaluator is the mean of its members; samples from a
+// covariance have that mean and covariance (sample moments within their statistical error,
+// 5 standard errors for 20000 samples), the same seed gives the same samples, and a matrix that
+// is not a covariance is refused.
+TEST_CASE("design: averaged objective and samples from a covariance", "[design]") {
+  const Protocol p(1, {Schedule::smooth_step("trap.centre", 0, 1)});
+  const DesignEvaluator averaged = averaged_evaluator({[](const Protocol&) { return 1.0; }, [](const Protocol&) { return 4.0; }});
+  CHECK(averaged(p) == 2.5);
+  const std::vector<double> mean = {1.0, -2.0};
+  const std::vector<std::vector<double>> cov = {{0.04, 0.018}, {0.018, 0.09}};  // correlation 0.3
+  const int n = 20000;
+  const auto s = gaussian_samples(mean, cov, n, 7);
+  REQUIRE(s.size() == std::size_t(n));
+  double m0 = 0, m1 = 0;
+  for (const auto& x : s) { m0 += x[0] / n; m1 += x[1] / n; }
+  double c00 = 0, c01 = 0, c11 = 0;
+  for (const auto& x : s) {
+    c00 += (x[0] - m0) * (x[0] - m0) / n;
+    c01 += (x[0] - m0) * (x[1] - m1) / n;
+    c11 += (x[1] - m1) * (x[1] - m1) / n;
+  }
+  CHECK(std::abs(m0 - 1) < 5 * 0.2 / std::sqrt(n));
+  CHECK(std::abs(m1 + 2) < 5 * 0.3 / std::sqrt(n));
+  CHECK(std::abs(c00 - 0.04) < 5 * 0.04 * std::sqrt(2.0 / n));
+  CHECK(std::abs(c11 - 0.09) < 5 * 0.09 * std::sqrt(2.0 / n));
+  CHECK(std::abs(c01 - 0.018) < 5 * std::sqrt((0.04 * 0.09 + 0.018 * 0.018) / n));
+  CHECK(gaussian_samples(mean, cov, 3, 7) == std::vector<std::vector<double>>(s.begin(), s.begin() + 3));
+  // Exactly correlated (semi-definite): the samples lie on the line x1 = -2 + 1.5 (x0 - 1).
+  for (const auto& x : gaussian_samples(mean, {{0.04, 0.06}, {0.06, 0.09}}, 5, 1)) CHECK(std::abs(x[1] + 2 - 1.5 * (x[0] - 1)) < 1e-12);
+  CHECK_THROWS_AS(gaussian_samples(mean, {{0.04, 0.1}, {0.1, 0.09}}, 5, 1), InputError);  // not semi-definite
+  CHECK_THROWS_AS(gaussian_samples(mean, {{0.04, 0.0}, {0.01, 0.09}}, 5, 1), InputError);  // not symmetric
+}
