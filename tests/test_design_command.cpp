@@ -179,3 +179,60 @@ TEST_CASE("trapwork design --target: the shortest duration meeting it", "[design
     CHECK(e.key == "target");
   }
 }
+
+// Issue 18: robust design over variants of the trap and over samples of a fit's covariance
+// (fit_summary.json as `trapwork fit` writes it: coefficients with value, unit, uncertainty, and
+// the correlation matrix): the objective searched is the mean over the members.
+TEST_CASE("trapwork design --robust and --robust-fit: the objective averaged over an uncertain trap", "[design][cli]") {
+  const fs::path dir = trapwork_test::scratch_dir("design", "robust");
+  std::ofstream(dir / "fit_summary.json")
+      << R"({"command": "fit", "coefficients": [
+             {"name": "cubic", "unit": "h*Hz/nm^3", "value": -0.5, "uncertainty": 0.02},
+             {"name": "quartic", "unit": "h*Hz/nm^4", "value": 0.01, "uncertainty": 0.001}],
+           "correlation": [[1, -0.5], [-0.5, 1]]})";
+  DesignCommand c;
+  c.scenario = (fs::path(TRAPWORK_SOURCE_DIR) / "examples" / "ion_design.toml").string();
+  c.output = (dir / "out").string();
+  c.evaluations = 4;
+  c.quiet = true;
+  c.robust = {"trap.quartic=0.012 h*Hz/nm^4", "trap.cubic=-0.4 h*Hz/nm^3;trap.frequency=1.01 MHz"};
+  c.robust_fit = (dir / "fit_summary.json").string();
+  c.robust_samples = 2;
+  std::ostringstream report;
+  const DesignCommandOutcome o = run_design_command(c, report, report);
+  const auto summary = nlohmann::json::parse(trapwork_test::read_all(dir / "out" / "design_summary.json"));
+  const auto& members = summary.at("robust").at("members");
+  REQUIRE(members.size() == 5);  // nominal, 2 variants, 2 samples
+  CHECK(members.at(0).at("member") == "nominal");
+  double mean_before = 0, mean_after = 0;
+  for (const auto& m : members) {
+    mean_before += m.at("objective_smooth").get<double>() / 5;
+    mean_after += m.at("objective_designed").get<double>() / 5;
+  }
+  CHECK(o.objective_before == Approx(mean_before).epsilon(1e-12));
+  CHECK(o.objective_after == Approx(mean_after).epsilon(1e-12));
+  // The members differ: the variants and samples change the objective of the same ramp.
+  CHECK(members.at(2).at("objective_designed").get<double>() != members.at(0).at("objective_designed").get<double>());
+  CHECK(members.at(3).at("member").get<std::string>().find("fit sample 1: trap.cubic=") == 0);
+  CHECK(members.at(3).at("objective_designed").get<double>() != members.at(4).at("objective_designed").get<double>());
+  // The nominal member is what the designed scenario's final run reproduces.
+  CHECK(summary.at("final_run").at("objective_designed").get<double>() ==
+        Approx(members.at(0).at("objective_designed").get<double>()).epsilon(1e-3));
+  c.output = (dir / "refused").string();
+  c.robust = {"trap.spring=1 MHz"};
+  try {
+    run_design_command(c, report, report);
+    FAIL("no error");
+  } catch (const InputError& e) {
+    CHECK(e.key == "robust");
+  }
+  c.robust.clear();
+  std::ofstream(dir / "not_fit.json") << R"({"command": "work"})";
+  c.robust_fit = (dir / "not_fit.json").string();
+  try {
+    run_design_command(c, report, report);
+    FAIL("no error");
+  } catch (const InputError& e) {
+    CHECK(e.key == "robust_fit");
+  }
+}

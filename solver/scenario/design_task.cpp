@@ -8,6 +8,7 @@
 #include <toml++/toml.h>
 
 #include "solver/errors.hpp"
+#include "solver/scenario/data_files.hpp"
 #include "solver/scenario/machine.hpp"
 #include "solver/scenario/output.hpp"
 #include "solver/scenario/work_output.hpp"
@@ -104,6 +105,90 @@ double target_value(const DesignTaskOutcome& o, const std::string& text) {
   return q.value_si;
 }
 
+// The robust design's members: the nominal potential, the variants, the fit's samples.
+std::vector<RobustMember> robust_members(const Scenario& s, const DesignSettings& settings) {
+  std::vector<RobustMember> members;
+  if (settings.robust_variants.empty() && settings.robust_fit.empty()) return members;
+  members.push_back({"nominal", s.potential});
+  auto set_value = [&](Potential& p, const std::string& address, const std::string& text, const std::string& key) {
+    const auto slot = std::find_if(s.parameters.begin(), s.parameters.end(),
+                                   [&](const ParameterSlot& q) { return q.address == address; });
+    if (slot == s.parameters.end()) throw InputError(key, address, "a parameter of the scenario's potential", "", s.file);
+    const Quantity q = parse_quantity(text);
+    if (q.plain && !(slot->dimension == Dimension::none()))
+      throw InputError(key, text, "a value with its unit for " + address, "", s.file);
+    p.set_parameter(address, slot->dimension == Dimension::none() ? q.value_si * slot->plain_factor
+                                                                   : s.units.to_internal(q, slot->dimension, key, text));
+  };
+  for (const auto& variant : settings.robust_variants) {
+    RobustMember m{variant, s.potential};
+    std::stringstream in(variant);
+    for (std::string edit; std::getline(in, edit, ';');) {
+      const auto eq = edit.find('=');
+      if (eq == std::string::npos) throw InputError("robust", edit, "ADDRESS=VALUE (e.g. trap.quartic=0.012 h*Hz/nm^4)", "", s.file);
+      std::string address = edit.substr(0, eq);
+      address.erase(0, address.find_first_not_of(' '));
+      address.erase(address.find_last_not_of(' ') + 1);
+      set_value(m.potential, address, edit.substr(eq + 1), "robust");
+    }
+    members.push_back(std::move(m));
+  }
+  if (!settings.robust_fit.empty()) {
+    if (settings.robust_samples < 1) throw InputError("robust_samples", std::to_string(settings.robust_samples), "at least 1 sample");
+    nlohmann::json fit;
+    try {
+      fit = nlohmann::json::parse(read_text_file(settings.robust_fit, "the fit summary"));
+    } catch (const nlohmann::json::exception& e) {
+      throw InputError("robust_fit", settings.robust_fit, std::string("a fit_summary.json of trapwork fit (") + e.what() + ")");
+    }
+    if (!fit.is_object() || fit.value("command", "") != "fit" || !fit.contains("coefficients") || !fit.contains("correlation"))
+      throw InputError("robust_fit", settings.robust_fit, "a fit_summary.json of trapwork fit (coefficients, correlation)");
+    std::vector<std::string> names, units;
+    std::vector<double> mean, sd;
+    try {
+      for (const auto& c : fit.at("coefficients")) {
+        names.push_back(c.at("name").get<std::string>());
+        units.push_back(c.at("unit").get<std::string>());
+        mean.push_back(c.at("value").get<double>());
+        sd.push_back(c.at("uncertainty").get<double>());
+      }
+      std::vector<std::vector<double>> cov(names.size(), std::vector<double>(names.size()));
+      const auto& r = fit.at("correlation");
+      for (std::size_t i = 0; i < names.size(); ++i)
+        for (std::size_t j = 0; j < names.size(); ++j) cov[i][j] = sd[i] * sd[j] * r.at(i).at(j).get<double>();
+      std::string term = settings.robust_term;
+      if (term.empty()) {
+        std::vector<std::string> candidates;
+        for (const auto& t : s.potential.terms()) {
+          const auto addresses = s.potential.parameter_addresses();
+          if (std::all_of(names.begin(), names.end(), [&](const std::string& n) {
+                return std::find(addresses.begin(), addresses.end(), t.name() + "." + n) != addresses.end();
+              }))
+            candidates.push_back(t.name());
+        }
+        if (candidates.size() != 1)
+          throw InputError("robust_term", std::to_string(candidates.size()) + " terms with the fitted coefficients",
+                           "the name of the term the fit describes", "", s.file);
+        term = candidates.front();
+      }
+      const auto samples = gaussian_samples(mean, cov, settings.robust_samples, settings.options.seed);
+      for (std::size_t k = 0; k < samples.size(); ++k) {
+        RobustMember m{"fit sample " + std::to_string(k + 1) + ":", s.potential};
+        for (std::size_t i = 0; i < names.size(); ++i) {
+          char text[64];
+          std::snprintf(text, sizeof text, "%.17g ", samples[k][i]);
+          set_value(m.potential, term + "." + names[i], text + units[i], "robust_fit");
+          m.label += " " + term + "." + names[i] + "=" + number_text(samples[k][i]) + " " + units[i];
+        }
+        members.push_back(std::move(m));
+      }
+    } catch (const nlohmann::json::exception& e) {
+      throw InputError("robust_fit", settings.robust_fit, std::string("a fit_summary.json of trapwork fit (") + e.what() + ")");
+    }
+  }
+  return members;
+}
+
 // "trap.centre=0.5 m/s" or "0.5 m/s" (one designed parameter) -> address, quantity text.
 std::pair<std::string, std::string> bound_text(const std::string& text, const DesignFamily& family,
                                                const std::string& key, const std::string& file) {
@@ -176,10 +261,12 @@ void final_runs(DesignTaskOutcome& o, bool translation, const TaskHooks& hooks) 
                                 default_search_budget, quiet));
   const WorkRun after = o.after_run->run();
   o.final_objective = design_objective(after.result, o.settings.options.objective);
-  const double scale = std::max(std::abs(o.result.objective_after), 1e-12);
-  if (std::abs(o.final_objective - o.result.objective_after) > 1e-3 * scale)
+  // The search's value in the nominal scenario (a robust design's objective is a mean).
+  const double searched = o.robust.empty() ? o.result.objective_after : o.robust.front().objective_after;
+  const double scale = std::max(std::abs(searched), 1e-12);
+  if (std::abs(o.final_objective - searched) > 1e-3 * scale)
     o.final_warnings.push_back("the designed table's run gives objective " + number_text(o.final_objective / o.objective_per_unit) +
-                               ", the search's formula ramp " + number_text(o.result.objective_after / o.objective_per_unit) +
+                               ", the search's formula ramp " + number_text(searched / o.objective_per_unit) +
                                " (relative difference above 1e-3: the table's interpolation or the search's "
                                "cheaper numerics; trust the table's run, whose checks follow)");
   for (const auto& c : work_checks(after))
@@ -269,7 +356,13 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
   if (checked) checked();
 
   DesignTaskOutcome o{scenario, used, family.description(), {}, {}, {}, {}, 1};
-  const DesignEvaluator evaluate = work_evaluator(scenario.potential, request, settings.options.objective);
+  o.robust = robust_members(scenario, settings);
+  DesignEvaluator evaluate = work_evaluator(scenario.potential, request, settings.options.objective);
+  if (!o.robust.empty()) {
+    std::vector<DesignEvaluator> members;
+    for (const auto& m : o.robust) members.push_back(work_evaluator(m.potential, request, settings.options.objective));
+    evaluate = averaged_evaluator(std::move(members));
+  }
   if (settings.options.objective == DesignObjective::dissipated_work) {
     const Display d = display(scenario);
     o.objective_unit = d.e;
@@ -351,6 +444,11 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
     }
     o.tables.push_back(std::move(t));
   }
+  for (auto& m : o.robust) {  // each member's objective, smooth ramp and design (2 runs each)
+    const DesignEvaluator one = work_evaluator(m.potential, request, settings.options.objective);
+    m.objective_before = one(at_family.protocol(zero));
+    m.objective_after = one(at_family.protocol(o.result.amplitudes));
+  }
   const bool translation = at_protocol.translation(o.scenario.potential).has_value();
   o.designed_text = designed_scenario_text(o.scenario, settings.scenario_text, o.tables, translation, o.family,
                                            settings.target ? std::optional(o.scenario.protocol->duration_given) : std::nullopt);
@@ -395,6 +493,22 @@ std::vector<std::string> all_warnings(const DesignTaskOutcome& o) {
   std::vector<std::string> w = o.result.warnings;
   w.insert(w.end(), o.final_warnings.begin(), o.final_warnings.end());
   return w;
+}
+
+nlohmann::ordered_json robust_summary(const DesignTaskOutcome& o) {
+  using json = nlohmann::ordered_json;
+  if (o.robust.empty()) return nullptr;
+  json members = json::array();
+  for (const auto& m : o.robust)
+    members.push_back({{"member", m.label},
+                       {"objective_smooth", m.objective_before / o.objective_per_unit},
+                       {"objective_designed", m.objective_after / o.objective_per_unit}});
+  return {{"objective", "mean over the members, equally weighted (objective_before/after above are that mean)"},
+          {"variants", o.settings.robust_variants},
+          {"fit_summary", o.settings.robust_fit.empty() ? json(nullptr) : json(o.settings.robust_fit)},
+          {"fit_samples", o.settings.robust_fit.empty() ? 0 : o.settings.robust_samples},
+          {"seed", o.settings.options.seed},
+          {"members", members}};
 }
 
 nlohmann::ordered_json duration_search_summary(const DesignTaskOutcome& o) {
@@ -489,6 +603,7 @@ nlohmann::ordered_json task_summary(const DesignTaskOutcome& o) {
        {"designed_scenario", "designed.toml"},
        {"final_run", final_run_summary(o)},
        {"duration_search", duration_search_summary(o)},
+       {"robust", robust_summary(o)},
        {"warnings", all_warnings(o)}},
       o.scenario);
 }
@@ -598,6 +713,12 @@ void print_task_report(std::ostream& out, const DesignTaskOutcome& o) {
         << (std::isfinite(t.speed_limit) ? number_text(t.speed_limit / t.speed_per_unit()) : std::string("none"))
         << "); overshoot " << number_text(t.overshoot_after / t.value_per_unit) << " " << t.value_unit << " (limit "
         << number_text(t.overshoot_limit / t.value_per_unit) << ")\n";
+  }
+  if (!o.robust.empty()) {
+    out << "robust: the objective averaged over " << o.robust.size() << " members (smooth ramp -> designed):\n";
+    for (const auto& m : o.robust)
+      out << "  " << m.label << ": " << number_text(m.objective_before / o.objective_per_unit) << " -> "
+          << number_text(m.objective_after / o.objective_per_unit) << unit << "\n";
   }
   if (o.after_run) {
     const auto checks = work_checks(o.after_run->run());

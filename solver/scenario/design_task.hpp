@@ -29,6 +29,23 @@ struct DesignSettings {
   std::optional<std::string> target;
   std::string shortest;
   int bisections = 5;
+  // Robust design: the objective averaged over the nominal scenario and variants of its
+  // potential, equally weighted. Each variant is "ADDRESS=VALUE[;ADDRESS=VALUE...]" in lab units
+  // ("trap.quartic=0.012 h*Hz/nm^4"); `robust_fit` a fit_summary.json of `trapwork fit`, from
+  // whose coefficients (value, unit, uncertainty) and correlation robust_samples variants are drawn
+  // (gaussian_samples, seed options.seed) for the term robust_term (default: the one term having
+  // every fitted coefficient).
+  std::vector<std::string> robust_variants;
+  std::string robust_fit, robust_term;
+  int robust_samples = 8;
+};
+
+// One member of a robust design: its label, its potential (internal units of the scenario) and
+// the objective of the smooth ramp and of the design in it.
+struct RobustMember {
+  std::string label;  // "nominal", the variant as given, "fit sample 3: trap.cubic=..."
+  Potential potential;
+  double objective_before = 0, objective_after = 0;
 };
 
 struct DesignTable {
@@ -64,6 +81,7 @@ struct DesignTaskOutcome {
   // With a target: every duration tried; scenario and result are then the shortest that met it
   // (or the scenario's own duration, with a warning, when none did).
   std::optional<ShortestDurationResult> duration_search;
+  std::vector<RobustMember> robust;  // empty: designed in the nominal scenario only
   double final_objective = 0;
   std::vector<std::string> final_warnings;  // objective not reproduced, failed checks
 };

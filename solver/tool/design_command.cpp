@@ -30,6 +30,10 @@ DesignCommandOutcome run_design_command(const DesignCommand& command, std::ostre
   if (!command.target.empty()) settings.target = command.target;
   settings.shortest = command.shortest;
   settings.bisections = command.bisections;
+  settings.robust_variants = command.robust;
+  settings.robust_fit = command.robust_fit;
+  settings.robust_term = command.robust_term;
+  settings.robust_samples = command.robust_samples;
   std::optional<OutputRun> output;
   TaskBar bar(progress, command.show_progress);
   const TaskHooks hooks = bar.hooks(command.quiet ? std::function<void(const std::string&)>() : notice_to(progress));
@@ -87,6 +91,18 @@ void add_design_command(CLI::App& app) {
   sub->add_option("--bisections", command->bisections, "halvings of the duration bracket")
       ->capture_default_str()
       ->check(CLI::Range(0, 30));
+  sub->add_option("--robust", command->robust,
+                  "robust design: a variant of the potential, ADDRESS=VALUE[;ADDRESS=VALUE] in lab units (e.g. "
+                  "\"trap.quartic=0.012 h*Hz/nm^4\"); the objective is averaged over the scenario and its variants; "
+                  "repeatable");
+  sub->add_option("--robust-fit", command->robust_fit,
+                  "robust design over samples of a fit: the fit_summary.json of `trapwork fit` (coefficients, "
+                  "uncertainties, correlation); --robust-samples samples drawn with --seed");
+  sub->add_option("--robust-samples", command->robust_samples, "samples drawn from --robust-fit")
+      ->capture_default_str()
+      ->check(CLI::Range(1, 1000));
+  sub->add_option("--robust-term", command->robust_term,
+                  "the term the fitted coefficients belong to (default: the one term that has them all)");
   sub->add_option("--stop-below", command->stop_below, "a start ends once the objective is below this")
       ->capture_default_str();
   sub->add_flag("--smoother", command->smoother, "base ramp 10u^3 - 15u^4 + 6u^5: zero end acceleration too");
