@@ -236,3 +236,22 @@ TEST_CASE("trapwork design --robust and --robust-fit: the objective averaged ove
     CHECK(e.key == "robust_fit");
   }
 }
+
+// Issue 18, moving walls: refused with the reason (the wall route needs the wall's acceleration,
+// which a table schedule lacks; measured on examples/box_expansion.toml: a 4001-row table of its
+// smooth ramp gives <W> = -0.717 kB*nK against -0.256 kB*nK for the ramp itself), nothing written.
+TEST_CASE("trapwork design refuses a moving wall with the reason", "[design][cli]") {
+  const fs::path dir = trapwork_test::scratch_dir("design", "wall");
+  DesignCommand c;
+  c.scenario = (fs::path(TRAPWORK_SOURCE_DIR) / "examples" / "box_expansion.toml").string();
+  c.output = (dir / "out").string();
+  c.quiet = true;
+  try {
+    run_design_command(c, std::cout, std::cout);
+    FAIL("no error");
+  } catch (const InputError& e) {
+    CHECK(e.key == "protocol.change.parameter");
+    CHECK_THAT(e.what(), Catch::Matchers::Contains("acceleration"));
+  }
+  CHECK_FALSE(fs::exists(dir / "out"));
+}

@@ -342,7 +342,10 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
   for (const auto& c : scenario.protocol->changes)
     if (c.parameter.rfind("box.", 0) == 0)
       throw InputError("protocol.change.parameter", c.parameter,
-                       "a parameter of the potential: moving walls are not designed yet", "", scenario.file);
+                       "a parameter of the potential: moving walls are not designed, because the wall route "
+                       "takes the wall's acceleration from its schedule and a designed table has none between its "
+                       "rows (a table of the smooth ramp gives another <W> than the ramp itself)",
+                       "design the trap parameters; move the wall with ramp = \"smooth\" or a formula", scenario.file);
   const Protocol protocol = build_protocol(scenario);
   const DesignFamily family(protocol, settings.options.modes, settings.options.zero_end_acceleration);
   DesignSettings used = settings;
