@@ -5,6 +5,7 @@
 #include <cstdio>
 #include <exception>
 #include <limits>
+#include <Eigen/Dense>
 #include <nlopt.hpp>
 #include <random>
 
@@ -29,6 +30,16 @@ double mode(int k, double u) {
   const double s = std::sin(pi * u);
   return s * s * std::sin(k * pi * u);
 }
+
+// d/du of base_ramp and of mode.
+double base_ramp_slope(double u, bool smoother) {
+  return smoother ? 30 * u * u * (1 - u) * (1 - u) : 6 * u * (1 - u);
+}
+double mode_slope(int k, double u) {
+  const double s = std::sin(pi * u), c = std::cos(pi * u);
+  return 2 * pi * s * c * std::sin(k * pi * u) + s * s * k * pi * std::cos(k * pi * u);
+}
+constexpr int bound_points = 512;  // the bounds are checked at u = i / 512
 
 nlopt::algorithm nlopt_algorithm(DesignMethod method) {
   switch (method) {
@@ -56,10 +67,16 @@ std::string ending(nlopt::result r) {
 DesignObjective design_objective_from_name(const std::string& name) {
   if (name == "excitation") return DesignObjective::excitation;
   if (name == "dissipated_work") return DesignObjective::dissipated_work;
-  throw InputError("objective", name, "excitation or dissipated_work");
+  if (name == "quanta") return DesignObjective::quanta;
+  throw InputError("objective", name, "excitation, dissipated_work or quanta");
 }
 std::string design_objective_name(DesignObjective objective) {
-  return objective == DesignObjective::excitation ? "excitation" : "dissipated_work";
+  switch (objective) {
+    case DesignObjective::excitation: return "excitation";
+    case DesignObjective::dissipated_work: return "dissipated_work";
+    case DesignObjective::quanta: return "quanta";
+  }
+  return "excitation";
 }
 DesignMethod design_method_from_name(const std::string& name) {
   if (name == "bobyqa") return DesignMethod::bobyqa;
@@ -98,6 +115,48 @@ double DesignFamily::value(std::size_t p, const std::vector<double>& c, double u
   double shape = base_ramp(u, smoother_);
   for (int k = 1; k <= modes_; ++k) shape += c.at(p * modes_ + k - 1) * mode(k, u);
   return d.from + (d.to - d.from) * shape;
+}
+
+double DesignFamily::rate(std::size_t p, const std::vector<double>& c, double u) const {
+  const auto& d = parameters_.at(p);
+  double slope = base_ramp_slope(u, smoother_);
+  for (int k = 1; k <= modes_; ++k) slope += c.at(p * modes_ + k - 1) * mode_slope(k, u);
+  return (d.to - d.from) * slope / protocol_.duration();
+}
+
+double DesignFamily::max_speed(std::size_t p, const std::vector<double>& c) const {
+  double top = 0;
+  for (int i = 0; i <= bound_points; ++i) top = std::max(top, std::abs(rate(p, c, double(i) / bound_points)));
+  return top;
+}
+
+double DesignFamily::max_overshoot(std::size_t p, const std::vector<double>& c) const {
+  const auto& d = parameters_.at(p);
+  const double lo = std::min(d.from, d.to), hi = std::max(d.from, d.to);
+  double top = 0;
+  for (int i = 0; i <= bound_points; ++i) {
+    const double v = value(p, c, double(i) / bound_points);
+    top = std::max(top, std::max(lo - v, v - hi));
+  }
+  return top;
+}
+
+double DesignFamily::bound_excess(const std::vector<double>& c, double overshoot,
+                                  const std::vector<DesignBound>& bounds) const {
+  double worst = 0;
+  for (std::size_t p = 0; p < parameters_.size(); ++p) {
+    const auto& d = parameters_[p];
+    const double span = std::abs(d.to - d.from);
+    double band = overshoot * span, speed = std::numeric_limits<double>::infinity();
+    for (const auto& b : bounds)
+      if (b.address == d.address) {
+        band = std::min(band, b.max_overshoot);
+        speed = std::min(speed, b.max_speed);
+      }
+    worst = std::max(worst, (max_overshoot(p, c) - band) / span);
+    if (std::isfinite(speed)) worst = std::max(worst, max_speed(p, c) / speed - 1);
+  }
+  return worst;
 }
 
 double DesignFamily::overshoot_excess(const std::vector<double>& c, double overshoot) const {
@@ -152,6 +211,21 @@ double design_objective(const WorkResult& result, DesignObjective objective) {
     return result.distribution.dissipated_work;
   }
   const auto& P = in.transitions.probability;
+  if (objective == DesignObjective::quanta) {
+    const int kept = in.transitions.final_levels();
+    double quanta = 0;
+    for (int m = 0; m < in.transitions.initial_levels(); ++m) {
+      const double p = in.initial_weights.at(std::size_t(m));
+      if (p == 0) continue;
+      double found = 0;
+      for (int n = 0; n < kept; ++n) {
+        quanta += p * P(m, n) * (n - m);
+        found += P(m, n);
+      }
+      quanta += p * std::max(0.0, 1 - found) * (kept - m);  // unresolved: at level >= kept
+    }
+    return quanta;
+  }
   double stay = 0;
   for (int m = 0; m < in.transitions.initial_levels(); ++m) {
     const double p = in.initial_weights.at(std::size_t(m));
@@ -180,6 +254,20 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
     throw InputError("amplitude_bound", exact(options.amplitude_bound), "a bound > 0 on the mode amplitudes");
   if (!(options.overshoot >= 0) || !std::isfinite(options.overshoot))
     throw InputError("overshoot", exact(options.overshoot), "an overshoot >= 0 (units of the change)");
+  for (const auto& b : options.bounds) {
+    const auto& ps = family.parameters();
+    const auto it = std::find_if(ps.begin(), ps.end(), [&](const DesignedParameter& d) { return d.address == b.address; });
+    if (it == ps.end()) throw InputError("max_speed", b.address, "a designed parameter (one whose end values differ)");
+    if (!(b.max_speed > 0)) throw InputError("max_speed", exact(b.max_speed), "a speed bound > 0");
+    if (!(b.max_overshoot >= 0)) throw InputError("max_overshoot", exact(b.max_overshoot), "an overshoot bound >= 0");
+    // Mean value theorem: some point of any member moves at |b - a| / tau at least.
+    const double least = std::abs(it->to - it->from) / family.duration();
+    if (b.max_speed < least)
+      throw InputError("max_speed", exact(b.max_speed) + " (internal units) for " + b.address,
+                       "at least the mean speed |to - from| / duration = " + exact(least) +
+                           " (internal units): no ramp of this duration is slower everywhere",
+                       "a larger bound or a longer duration");
+  }
   if (std::isnan(options.stop_below))  // NaN would never stop a start, silently
     throw InputError("stop_below", exact(options.stop_below), "a number (the objective at which a start ends)");
   if (options.starts < 1) throw InputError("starts", std::to_string(options.starts), "at least 1 start");
@@ -208,12 +296,14 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
     e.index = int(result.history.size());
     e.start = start;
     e.amplitudes = c;
-    e.excess = family.overshoot_excess(c, options.overshoot);
+    e.excess = family.bound_excess(c, options.overshoot, options.bounds);
     e.feasible = e.excess <= 0;
-    if (e.feasible) {
+    if (e.feasible || e.index == 0) {  // the smooth ramp is simulated in any case (objective_before)
       e.objective = evaluate(family.protocol(c));
       if (!std::isfinite(e.objective)) throw PhysicsError("the objective is not finite for amplitudes " + exact(c.empty() ? 0 : c[0]) + "...");
       largest = std::max(largest, e.objective);
+      if (e.index == 0) result.objective_before = e.objective;
+      if (!e.feasible) e.objective = largest + 1 + e.excess;  // the search sees the penalty
     } else {
       e.objective = largest + 1 + e.excess;
     }
@@ -291,11 +381,19 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
                                                        : "used its share of the evaluations");
   }
 
-  // The smooth ramp is the first evaluation of the first start (x = 0 is feasible: s stays in [0, 1]).
-  result.objective_before = result.history.front().objective;
-  const DesignEvaluation* best = &result.history.front();
+  // The smooth ramp is the first evaluation (objective_before, simulated even when it breaks a bound).
+  result.before_feasible = result.history.front().feasible;
+  const DesignEvaluation* best = nullptr;
   for (const auto& e : result.history)
-    if (e.feasible && e.objective < best->objective) best = &e;
+    if (e.feasible && (!best || e.objective < best->objective)) best = &e;
+  if (!best)
+    throw PhysicsError("no member of the " + std::to_string(result.history.size()) +
+                       " evaluated met the bounds on speed and overshoot (least excess " +
+                       exact(std::min_element(result.history.begin(), result.history.end(),
+                                              [](const DesignEvaluation& a, const DesignEvaluation& b) {
+                                                return a.excess < b.excess;
+                                              })->excess) +
+                       "); loosen the bounds, lengthen the duration or allow more evaluations");
   result.amplitudes = best->amplitudes;
   result.objective_after = best->objective;
   result.bound_reached = bound_hit;
@@ -303,9 +401,123 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
     result.warnings.push_back("the evaluation bound (" + std::to_string(options.max_evaluations) +
                               ") ended the search at objective " + exact(result.objective_after) +
                               ": more evaluations may lower it");
+  if (!result.before_feasible)
+    result.warnings.push_back("the smooth ramp breaks the bounds (excess " + exact(result.history.front().excess) +
+                              "); its objective is given for comparison only");
   if (!(result.objective_after < result.objective_before))
     result.warnings.push_back("no member beat the smooth ramp (objective " + exact(result.objective_before) + ")");
   return result;
+}
+
+DesignEvaluator averaged_evaluator(std::vector<DesignEvaluator> members) {
+  if (members.empty()) throw ContractViolation("averaged_evaluator: no members");
+  return [members = std::move(members)](const Protocol& protocol) {
+    double sum = 0;
+    for (const auto& m : members) sum += m(protocol);
+    return sum / double(members.size());
+  };
+}
+
+std::vector<std::vector<double>> gaussian_samples(const std::vector<double>& mean,
+                                                  const std::vector<std::vector<double>>& covariance, int count,
+                                                  std::uint64_t seed) {
+  const std::size_t n = mean.size();
+  if (covariance.size() != n) throw InputError("covariance", std::to_string(covariance.size()) + " rows", std::to_string(n) + " rows");
+  Eigen::MatrixXd c{Eigen::Index(n), Eigen::Index(n)};
+  double largest = 0;
+  for (std::size_t i = 0; i < n; ++i) {
+    if (covariance[i].size() != n) throw InputError("covariance", "a row of " + std::to_string(covariance[i].size()), "a square matrix");
+    for (std::size_t j = 0; j < n; ++j) c(Eigen::Index(i), Eigen::Index(j)) = covariance[i][j];
+    largest = std::max(largest, std::abs(covariance[i][i]));
+  }
+  if (!c.allFinite() || (c - c.transpose()).cwiseAbs().maxCoeff() > 1e-12 * std::max(largest, 1e-300))
+    throw InputError("covariance", "a matrix that is not symmetric or not finite", "a symmetric covariance");
+  const Eigen::LDLT<Eigen::MatrixXd> ldlt(c);
+  Eigen::VectorXd d = ldlt.vectorD();
+  if (d.size() && d.minCoeff() < -1e-12 * largest)
+    throw InputError("covariance", "a pivot " + exact(d.minCoeff()), "a positive semi-definite covariance");
+  for (Eigen::Index i = 0; i < d.size(); ++i)  // pivots within rounding of 0 are 0 (exact correlations)
+    d(i) = d(i) > 1e-12 * largest ? std::sqrt(d(i)) : 0.0;
+  // c = P^T L D L^T P, so x = P^T L sqrt(D) z has covariance c.
+  const Eigen::MatrixXd l = ldlt.transpositionsP().transpose() * Eigen::MatrixXd(ldlt.matrixL()) * d.asDiagonal();
+  std::mt19937_64 engine(seed);
+  auto uniform_open = [&] { return (double(engine() >> 11) + 0.5) * 0x1.0p-53; };  // (0, 1), never 0
+  std::vector<std::vector<double>> out;
+  for (int k = 0; k < count; ++k) {
+    Eigen::VectorXd z{Eigen::Index(n)};
+    for (Eigen::Index i = 0; i < z.size(); i += 2) {
+      const double r = std::sqrt(-2 * std::log(uniform_open())), phi = 2 * pi * uniform_open();
+      z(i) = r * std::cos(phi);
+      if (i + 1 < z.size()) z(i + 1) = r * std::sin(phi);
+    }
+    const Eigen::VectorXd x = l * z;
+    std::vector<double> sample(mean);
+    for (std::size_t i = 0; i < n; ++i) sample[i] += x(Eigen::Index(i));
+    out.push_back(std::move(sample));
+  }
+  return out;
+}
+
+ShortestDurationResult design_shortest_duration(const Protocol& protocol, const DesignEvaluator& evaluate,
+                                                const DesignOptions& options, double target, double shortest,
+                                                int bisections, const DesignHooks& hooks) {
+  const double longest = protocol.duration();
+  if (!std::isfinite(target)) throw InputError("target", exact(target), "a finite objective value to meet");
+  if (!(shortest > 0 && shortest < longest))
+    throw InputError("shortest", exact(shortest), "a duration > 0 and below the protocol's duration " + exact(longest));
+  if (bisections < 0 || bisections > 30) throw InputError("bisections", std::to_string(bisections), "0 to 30 bisection steps");
+  const DesignFamily reference(protocol, options.modes, options.zero_end_acceleration);
+  for (const auto& s : protocol.schedules()) {
+    const bool designed = std::any_of(reference.parameters().begin(), reference.parameters().end(),
+                                      [&](const DesignedParameter& d) { return d.address == s.address(); });
+    if (!designed && s.form() != ScheduleForm::constant)
+      throw InputError("protocol.change", s.address(),
+                       "designed or constant schedules only: the search over the duration rescales the protocol");
+  }
+  ShortestDurationResult out;
+  std::vector<double> warm;  // amplitudes of the shortest duration met so far
+  auto trial = [&](double tau) {
+    DurationTrial t;
+    t.duration = tau;
+    bool too_fast = false;
+    for (const auto& b : options.bounds)
+      for (const auto& d : reference.parameters())
+        if (b.address == d.address && std::abs(d.to - d.from) / tau > b.max_speed) too_fast = true;
+    if (!too_fast) {
+      const DesignFamily family(Protocol(tau, protocol.schedules()), options.modes, options.zero_end_acceleration);
+      DesignOptions o = options;
+      o.stop_below = target;
+      if (!warm.empty()) o.first_start = warm;
+      t.design = design_protocol(family, evaluate, o, hooks);
+      t.ran = true;
+      t.met = t.design.objective_after <= target;
+      if (t.met) warm = t.design.amplitudes;
+    }
+    out.trials.push_back(std::move(t));
+    if (out.trials.back().met) out.best = int(out.trials.size()) - 1;
+    return out.trials.back().met;
+  };
+  if (!trial(longest)) {
+    out.warnings.push_back("the target " + exact(target) + " is not met at the protocol's duration " + exact(longest) +
+                           " (objective " + exact(out.trials.back().design.objective_after) +
+                           "): lengthen the duration, or allow more modes or evaluations");
+    out.lower = out.upper = longest;
+    return out;
+  }
+  double lo = shortest, hi = longest;
+  if (trial(shortest)) {
+    out.warnings.push_back("the target is met already at the shortest duration tried (" + exact(shortest) +
+                           "): a shorter one may meet it too");
+    out.lower = out.upper = shortest;
+    return out;
+  }
+  for (int i = 0; i < bisections; ++i) {
+    const double mid = 0.5 * (lo + hi);
+    (trial(mid) ? hi : lo) = mid;
+  }
+  out.lower = lo;
+  out.upper = hi;
+  return out;
 }
 
 }  // namespace trapwork

@@ -15,16 +15,31 @@
 // one bound |c_k| <= amplitude_bound serves every parameter. Schedules held constant, or whose
 // end values are equal, are kept as they are.
 //
-// Overshoot: a member is feasible when lambda stays inside [min(a, b) - o |b - a|,
-// max(a, b) + o |b - a|] (o = overshoot) at 513 points of u. An infeasible member is not
-// simulated; its objective is the penalty 1 + (excess / |b - a|) above the largest objective
-// found so far (at least 1), so the search is pushed back inside and never picks it.
+// Bounds: a member is feasible when lambda stays inside [min(a, b) - o, max(a, b) + o] with
+// o = min(overshoot |b - a|, max_overshoot of its DesignBound) and |d lambda/dt| stays at or
+// below the bound's max_speed, both checked at 513 points of u (lab-unit bounds are converted
+// to internal units by the caller). An infeasible member is not simulated; its objective is the
+// penalty 1 + excess above the largest objective found so far (at least 1), so the search is
+// pushed back inside and never picks it. The excess is the largest of: the overshoot beyond
+// the band in units of |b - a|, and (speed / max_speed - 1). Why a penalty and not NLopt's
+// constraints: of the local derivative-free methods only COBYLA takes nonlinear inequality
+// constraints (BOBYQA, Nelder-Mead and Sbplx take bounds only; NLopt manual, "NLopt
+// Algorithms", from memory), and a penalty serves every method alike; a member that breaks a
+// bound costs no work run. The smooth ramp (c = 0) is simulated even when it breaks a bound
+// (objective_before), but only feasible members are returned.
 //
 // Objectives (each from one work run of the protocol built from the member):
 //   excitation       1 - sum_m p_m P(m -> m): the probability of leaving the initial level's
 //                    adiabatic partner (the level of H_B with the same index; no crossings),
 //                    averaged over the initial state (for a level start, 1 - P(m -> m))
 //   dissipated_work  <W> - Delta F (a Gibbs initial state only), in internal energy units
+//   quanta           mean excitation in quanta: sum_m p_m sum_n P(m -> n) (n - m), the mean
+//                    number of levels climbed above the adiabatic partner (level index n of H_B).
+//                    In a harmonic trap it is the mean phonon number gained: |alpha|^2 for a
+//                    transport from the ground state (coherent state, common practice), (Q* - 1)/2
+//                    for a frequency change from it (Husimi 1953, from memory). Probability not
+//                    captured by the N final levels kept counts as ending at level N, so with an
+//                    unresolved weight the value is a lower bound (the final run reports it).
 //
 // Search: NLopt's local derivative-free methods (LN_BOBYQA by default, LN_COBYLA,
 // LN_NELDERMEAD, LN_SBPLX) from several starts: the first at c = 0 (the smooth ramp), the
@@ -34,6 +49,7 @@
 // below stop_below. No I/O, no clock: progress and interruption go through hooks.
 #include <cstdint>
 #include <functional>
+#include <limits>
 #include <string>
 #include <vector>
 
@@ -43,7 +59,7 @@
 
 namespace trapwork {
 
-enum class DesignObjective { excitation, dissipated_work };
+enum class DesignObjective { excitation, dissipated_work, quanta };
 enum class DesignMethod { bobyqa, cobyla, nelder_mead, sbplx };
 
 // Throw InputError (key "objective" / "method") naming the choices on an unknown name.
@@ -52,11 +68,19 @@ std::string design_objective_name(DesignObjective objective);
 DesignMethod design_method_from_name(const std::string& name);
 std::string design_method_name(DesignMethod method);
 
+// Lab-unit bounds on one designed parameter (internal units; infinity: none).
+struct DesignBound {
+  std::string address;
+  double max_speed = std::numeric_limits<double>::infinity();      // |d lambda/dt|, > 0
+  double max_overshoot = std::numeric_limits<double>::infinity();  // beyond [min(a,b), max(a,b)], >= 0
+};
+
 struct DesignOptions {
   int modes = 3;                        // K free modes per designed parameter (1..20)
   bool zero_end_acceleration = false;   // smoother step as the base ramp
   double amplitude_bound = 1;           // |c_k| <= amplitude_bound (units of b - a), > 0
   double overshoot = 0.5;               // o >= 0, see above
+  std::vector<DesignBound> bounds;      // per designed parameter (addresses of the family)
   int starts = 3;                       // >= 1
   int max_evaluations = 200;            // work runs in all, >= starts
   double stop_below = 0;                // a start ends once the objective is below this
@@ -88,8 +112,16 @@ class DesignFamily {
   Protocol protocol(const std::vector<double>& c) const;
   // lambda_p(u) of parameter p at 0 <= u <= 1 for amplitudes c.
   double value(std::size_t p, const std::vector<double>& c, double u) const;
+  // d lambda_p/dt (internal units) at 0 <= u <= 1 for amplitudes c.
+  double rate(std::size_t p, const std::vector<double>& c, double u) const;
   // Largest excess of the member over the overshoot band, in units of |b - a| (0: feasible).
   double overshoot_excess(const std::vector<double>& c, double overshoot) const;
+  // Largest excess over the relative overshoot and the lab-unit bounds (see above; 0: feasible).
+  double bound_excess(const std::vector<double>& c, double overshoot, const std::vector<DesignBound>& bounds) const;
+  // Largest |d lambda_p/dt| and largest excursion beyond [min(a,b), max(a,b)] (internal units),
+  // at 513 points of u.
+  double max_speed(std::size_t p, const std::vector<double>& c) const;
+  double max_overshoot(std::size_t p, const std::vector<double>& c) const;
   // The base ramp's name ("smooth step 3u^2 - 2u^3" or the smoother one) and the mode formula.
   std::string description() const;
 
@@ -115,6 +147,7 @@ struct DesignResult {
   int modes = 0;
   std::vector<double> amplitudes;       // best feasible member
   double objective_before = 0;          // smooth ramp (c = 0)
+  bool before_feasible = true;          // the smooth ramp meets the bounds
   double objective_after = 0;           // best member
   std::vector<DesignEvaluation> history;
   std::vector<std::string> start_results;  // NLopt's ending of each start ("reached stop_below")
@@ -141,9 +174,49 @@ struct DesignHooks {
   std::function<void()> interrupt;
 };
 
+// Robust design over an uncertain trap: the mean of the members' objectives, equally weighted
+// (each evaluation costs one work run per member). Members' exceptions pass through.
+DesignEvaluator averaged_evaluator(std::vector<DesignEvaluator> members);
+
+// `count` samples of a multivariate normal N(mean, covariance): mean + L z with L the Cholesky
+// factor of the covariance (Eigen's LDLT, so a semi-definite covariance from a fit with an exact
+// correlation works; pivots within 1e-12 of the largest diagonal, which rounding leaves, are taken as 0) and z standard
+// normal by Box-Muller (common practice) from std::mt19937_64(seed), written out so the samples do
+// not depend on the standard library. InputError (key "covariance") when not square, not
+// symmetric to 1e-12 relative, or with a pivot below -1e-12 of the largest diagonal.
+std::vector<std::vector<double>> gaussian_samples(const std::vector<double>& mean,
+                                                  const std::vector<std::vector<double>>& covariance, int count,
+                                                  std::uint64_t seed);
+
 // Searches the family for the least objective. InputError for options out of range;
 // the evaluator's exceptions pass through (a member that cannot be computed stops the search).
 DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& evaluate,
                              const DesignOptions& options, const DesignHooks& hooks = {});
+
+// The shortest duration whose design meets a target (objective <= target): an outer search over
+// tau with a design at each duration (the protocol's schedules other than the designed ones must
+// be constant, since tau rescales the family; InputError otherwise). First a design at the
+// protocol's duration (the longest; when it misses the target the search ends there with a
+// warning), then at `shortest` (when that meets it, it is the answer, with a warning that a
+// shorter one may too), then `bisections` bisection steps of the bracket, each design starting
+// from the amplitudes of the shortest duration met so far, with stop_below = target. A duration
+// whose mean speed |b - a| / tau breaks a speed bound is not met (no design run). Cost bound:
+// (bisections + 2) designs of options.max_evaluations work runs each. A local search may miss a
+// target it could meet, so "met" is monotone only in practice: the trials are all reported.
+struct DurationTrial {
+  double duration = 0;
+  bool met = false;
+  bool ran = false;       // false: refused by the mean speed (no design)
+  DesignResult design;    // when ran
+};
+struct ShortestDurationResult {
+  std::vector<DurationTrial> trials;  // in the order run
+  int best = -1;                      // index of the shortest trial that met the target (-1: none)
+  double lower = 0, upper = 0;        // the last bracket: not met at lower, met at upper
+  std::vector<std::string> warnings;
+};
+ShortestDurationResult design_shortest_duration(const Protocol& protocol, const DesignEvaluator& evaluate,
+                                                const DesignOptions& options, double target, double shortest,
+                                                int bisections, const DesignHooks& hooks = {});
 
 }  // namespace trapwork

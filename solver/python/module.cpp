@@ -23,6 +23,7 @@
 #include "solver/python/figures.hpp"
 #include "solver/python/native_result.hpp"
 #include "solver/python/run.hpp"
+#include "solver/scenario/design_task.hpp"
 #include "solver/scenario/output.hpp"
 #include "solver/scenario/scenario.hpp"
 #include "solver/scenario/scenario_edit.hpp"
@@ -185,6 +186,38 @@ std::shared_ptr<NativeResult> module_plan(const std::string& text, const std::st
   return native_of(outcome, "plan", scenario_inputs(outcome->scenario));
 }
 
+// `trapwork design`: the options of the command line, by name (design_task.hpp).
+std::shared_ptr<NativeResult> module_design(const std::string& text, const std::string& name, const py::dict& o,
+                                            py::object progress, py::object notice, const Provenance& provenance) {
+  DesignSettings settings;
+  settings.scenario_text = text;
+  DesignOptions& d = settings.options;
+  d.modes = o["modes"].cast<int>();
+  d.starts = o["starts"].cast<int>();
+  d.max_evaluations = o["evaluations"].cast<int>();
+  d.objective = design_objective_from_name(o["objective"].cast<std::string>());
+  d.method = design_method_from_name(o["method"].cast<std::string>());
+  d.amplitude_bound = o["amplitude_bound"].cast<double>();
+  d.overshoot = o["overshoot"].cast<double>();
+  d.stop_below = o["stop_below"].cast<double>();
+  d.zero_end_acceleration = o["smoother"].cast<bool>();
+  d.seed = o["seed"].cast<std::uint64_t>();
+  settings.max_speed = o["max_speed"].cast<std::vector<std::string>>();
+  settings.max_overshoot = o["max_overshoot"].cast<std::vector<std::string>>();
+  settings.target = o["target"].cast<std::optional<std::string>>();
+  settings.shortest = o["shortest"].cast<std::string>();
+  settings.bisections = o["bisections"].cast<int>();
+  settings.robust_variants = o["robust"].cast<std::vector<std::string>>();
+  settings.robust_fit = o["robust_fit"].cast<std::string>();
+  settings.robust_term = o["robust_term"].cast<std::string>();
+  settings.robust_samples = o["robust_samples"].cast<int>();
+  std::function<DesignTaskOutcome(const TaskHooks&)> task = [&, settings](const TaskHooks& hooks) {
+    return design_task(read_for(text, name, provenance), settings, hooks);
+  };
+  auto outcome = compute(task, progress, notice, "design");
+  return native_of(outcome, "design", scenario_inputs(outcome->scenario));
+}
+
 // ---- scenarios --------------------------------------------------------------------------------
 
 // Reads a scenario file as the CLI does (same errors) and returns its text.
@@ -260,6 +293,8 @@ PYBIND11_MODULE(_trapwork, m) {
   m.def("plan", &module_plan, py::arg("text"), py::arg("name"), py::arg("runs"), py::arg("resolutions"),
         py::arg("target"), py::arg("experiments"), py::arg("seed"), py::arg("correct_resolution"),
         py::arg("synthetic_runs"), py::arg("progress"), py::arg("notice"), py::arg("provenance"));
+  m.def("design", &module_design, py::arg("text"), py::arg("name"), py::arg("options"), py::arg("progress"),
+        py::arg("notice"), py::arg("provenance"));
   m.def("work", &module_work, py::arg("text"), py::arg("name"), py::arg("tolerance"), py::arg("search_budget"),
         py::arg("progress"), py::arg("notice"), py::arg("provenance"));
 }

@@ -3,12 +3,15 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstdio>
 #include <sstream>
 #include <toml++/toml.h>
 
 #include "solver/errors.hpp"
+#include "solver/scenario/data_files.hpp"
 #include "solver/scenario/machine.hpp"
 #include "solver/scenario/output.hpp"
+#include "solver/scenario/work_output.hpp"
 
 namespace trapwork {
 
@@ -33,7 +36,8 @@ double per_unit(const Scenario& s, const std::string& unit, Dimension d, const s
 // default folder); frame "lab" for a translation, because the co-moving frame takes the trap's
 // acceleration from the schedule and a piecewise-linear table has none between its rows.
 std::string designed_scenario_text(const Scenario& s, const std::string& text, const std::vector<DesignTable>& tables,
-                                   bool translation, const std::string& family) {
+                                   bool translation, const std::string& family,
+                                   const std::optional<std::string>& duration) {
   toml::table root = toml::parse(text, s.file);
   const fs::path folder = s.file == "default" ? fs::current_path() : fs::absolute(fs::path(s.file)).parent_path();
   auto absolute_file = [&](toml::table& t) {
@@ -50,6 +54,7 @@ std::string designed_scenario_text(const Scenario& s, const std::string& text, c
           if (auto* f = t->get_as<std::string>("psd_file"); f && fs::path(f->get()).is_relative())
             t->insert_or_assign("psd_file", (folder / f->get()).lexically_normal().string());
   root.erase("output");
+  if (duration) root["protocol"].as_table()->insert_or_assign("duration", *duration);
   if (auto* changes = root["protocol"]["change"].as_array())
     for (auto& c : *changes) {
       auto* t = c.as_table();
@@ -80,12 +85,246 @@ std::string designed_scenario_text(const Scenario& s, const std::string& text, c
   out << root << '\n';
   return out.str();
 }
+
+// A duration in lab units ("0.3 us"), internal.
+double duration_value(const Scenario& s, const std::string& text, const std::string& key) {
+  const Quantity q = parse_quantity(text);
+  if (q.plain) throw InputError(key, text, "a duration with its unit, e.g. \"0.3 us\"", "", s.file);
+  return s.units.to_internal(q, Dimension::time(), key, text);
+}
+
+// The target of the duration search in internal units: plain for a probability or quanta, an
+// energy with its unit for the dissipated work.
+double target_value(const DesignTaskOutcome& o, const std::string& text) {
+  const Quantity q = parse_quantity(text);
+  if (o.settings.options.objective == DesignObjective::dissipated_work) {
+    if (q.plain) throw InputError("target", text, "a dissipated work with its unit, e.g. \"0.1 h*kHz\"", "", o.scenario.file);
+    return o.scenario.units.to_internal(q, Dimension::energy(), "target", text);
+  }
+  if (!q.plain) throw InputError("target", text, "a plain number (the objective is a probability or a number of quanta)", "", o.scenario.file);
+  return q.value_si;
+}
+
+// The robust design's members: the nominal potential, the variants, the fit's samples.
+std::vector<RobustMember> robust_members(const Scenario& s, const DesignSettings& settings) {
+  std::vector<RobustMember> members;
+  if (settings.robust_variants.empty() && settings.robust_fit.empty()) return members;
+  members.push_back({"nominal", s.potential});
+  auto set_value = [&](Potential& p, const std::string& address, const std::string& text, const std::string& key) {
+    const auto slot = std::find_if(s.parameters.begin(), s.parameters.end(),
+                                   [&](const ParameterSlot& q) { return q.address == address; });
+    if (slot == s.parameters.end()) throw InputError(key, address, "a parameter of the scenario's potential", "", s.file);
+    const Quantity q = parse_quantity(text);
+    if (q.plain && !(slot->dimension == Dimension::none()))
+      throw InputError(key, text, "a value with its unit for " + address, "", s.file);
+    p.set_parameter(address, slot->dimension == Dimension::none() ? q.value_si * slot->plain_factor
+                                                                   : s.units.to_internal(q, slot->dimension, key, text));
+  };
+  for (const auto& variant : settings.robust_variants) {
+    RobustMember m{variant, s.potential};
+    std::stringstream in(variant);
+    for (std::string edit; std::getline(in, edit, ';');) {
+      const auto eq = edit.find('=');
+      if (eq == std::string::npos) throw InputError("robust", edit, "ADDRESS=VALUE (e.g. trap.quartic=0.012 h*Hz/nm^4)", "", s.file);
+      std::string address = edit.substr(0, eq);
+      address.erase(0, address.find_first_not_of(' '));
+      address.erase(address.find_last_not_of(' ') + 1);
+      set_value(m.potential, address, edit.substr(eq + 1), "robust");
+    }
+    members.push_back(std::move(m));
+  }
+  if (!settings.robust_fit.empty()) {
+    if (settings.robust_samples < 1) throw InputError("robust_samples", std::to_string(settings.robust_samples), "at least 1 sample");
+    nlohmann::json fit;
+    try {
+      fit = nlohmann::json::parse(read_text_file(settings.robust_fit, "the fit summary"));
+    } catch (const nlohmann::json::exception& e) {
+      throw InputError("robust_fit", settings.robust_fit, std::string("a fit_summary.json of trapwork fit (") + e.what() + ")");
+    }
+    if (!fit.is_object() || fit.value("command", "") != "fit" || !fit.contains("coefficients") || !fit.contains("correlation"))
+      throw InputError("robust_fit", settings.robust_fit, "a fit_summary.json of trapwork fit (coefficients, correlation)");
+    std::vector<std::string> names, units;
+    std::vector<double> mean, sd;
+    try {
+      for (const auto& c : fit.at("coefficients")) {
+        names.push_back(c.at("name").get<std::string>());
+        units.push_back(c.at("unit").get<std::string>());
+        mean.push_back(c.at("value").get<double>());
+        sd.push_back(c.at("uncertainty").get<double>());
+      }
+      std::vector<std::vector<double>> cov(names.size(), std::vector<double>(names.size()));
+      const auto& r = fit.at("correlation");
+      for (std::size_t i = 0; i < names.size(); ++i)
+        for (std::size_t j = 0; j < names.size(); ++j) cov[i][j] = sd[i] * sd[j] * r.at(i).at(j).get<double>();
+      std::string term = settings.robust_term;
+      if (term.empty()) {
+        std::vector<std::string> candidates;
+        for (const auto& t : s.potential.terms()) {
+          const auto addresses = s.potential.parameter_addresses();
+          if (std::all_of(names.begin(), names.end(), [&](const std::string& n) {
+                return std::find(addresses.begin(), addresses.end(), t.name() + "." + n) != addresses.end();
+              }))
+            candidates.push_back(t.name());
+        }
+        if (candidates.size() != 1)
+          throw InputError("robust_term", std::to_string(candidates.size()) + " terms with the fitted coefficients",
+                           "the name of the term the fit describes", "", s.file);
+        term = candidates.front();
+      }
+      const auto samples = gaussian_samples(mean, cov, settings.robust_samples, settings.options.seed);
+      for (std::size_t k = 0; k < samples.size(); ++k) {
+        RobustMember m{"fit sample " + std::to_string(k + 1) + ":", s.potential};
+        for (std::size_t i = 0; i < names.size(); ++i) {
+          char text[64];
+          std::snprintf(text, sizeof text, "%.17g ", samples[k][i]);
+          set_value(m.potential, term + "." + names[i], text + units[i], "robust_fit");
+          m.label += " " + term + "." + names[i] + "=" + number_text(samples[k][i]) + " " + units[i];
+        }
+        members.push_back(std::move(m));
+      }
+    } catch (const nlohmann::json::exception& e) {
+      throw InputError("robust_fit", settings.robust_fit, std::string("a fit_summary.json of trapwork fit (") + e.what() + ")");
+    }
+  }
+  return members;
+}
+
+// "trap.centre=0.5 m/s" or "0.5 m/s" (one designed parameter) -> address, quantity text.
+std::pair<std::string, std::string> bound_text(const std::string& text, const DesignFamily& family,
+                                               const std::string& key, const std::string& file) {
+  const auto eq = text.find('=');
+  if (eq != std::string::npos) return {text.substr(0, eq), text.substr(eq + 1)};
+  if (family.parameters().size() != 1)
+    throw InputError(key, text, "PARAMETER=VALUE (" + std::to_string(family.parameters().size()) +
+                     " parameters are designed)", "", file);
+  return {family.parameters().front().address, text};
+}
+
+// The lab-unit bounds of the settings in internal units (DesignBound per address).
+std::vector<DesignBound> lab_bounds(const Scenario& s, const DesignSettings& settings, const DesignFamily& family) {
+  std::vector<DesignBound> bounds;
+  auto convert = [&](const std::string& text, const std::string& key, bool speed) {
+    const auto [address, given] = bound_text(text, family, key, s.file);
+    const auto change = std::find_if(s.protocol->changes.begin(), s.protocol->changes.end(),
+                                     [&](const ChangeSpec& c) { return c.parameter == address; });
+    const auto& ps = family.parameters();
+    if (change == s.protocol->changes.end() ||
+        std::none_of(ps.begin(), ps.end(), [&](const DesignedParameter& d) { return d.address == address; }))
+      throw InputError(key, address, "a designed parameter (a [[protocol.change]] whose end values differ)", "", s.file);
+    const Quantity q = parse_quantity(given);
+    if (q.plain) throw InputError(key, given, "a value with its unit, e.g. \"0.5 m/s\" or \"20 nm\"", "", s.file);
+    const auto slot = std::find_if(s.parameters.begin(), s.parameters.end(),
+                                   [&](const ParameterSlot& p) { return p.address == address; });
+    const bool plain = slot != s.parameters.end() && slot->dimension == Dimension::none();
+    Dimension d = plain ? Dimension::none() : change->dimension;
+    if (speed) d.power[2] -= 1;
+    const double value = s.units.to_internal(q, d, key, given) * (plain ? slot->plain_factor : 1);
+    auto it = std::find_if(bounds.begin(), bounds.end(), [&](const DesignBound& b) { return b.address == address; });
+    if (it == bounds.end()) it = bounds.insert(bounds.end(), DesignBound{address});
+    (speed ? it->max_speed : it->max_overshoot) = value;
+  };
+  for (const auto& t : settings.max_speed) convert(t, "max_speed", true);
+  for (const auto& t : settings.max_overshoot) convert(t, "max_overshoot", false);
+  return bounds;
+}
+}  // namespace
+
+namespace {
+// The designed scenario as designed.toml describes it: each designed change a table of the
+// designed values (internal, as written to the table files), the lab frame for a translation.
+Scenario designed_scenario(const Scenario& s, const std::vector<DesignTable>& tables, bool translation) {
+  Scenario d = s;
+  for (auto& c : d.protocol->changes)
+    for (const auto& t : tables)
+      if (t.address == c.parameter) {
+        c.form = ScheduleForm::table;
+        c.ramp = "table";
+        c.times = t.times;
+        c.values = t.after;
+        c.file = t.file;
+        c.formula.clear();
+        c.internal_formula.clear();
+      }
+  if (translation && d.work) d.work->frame = "lab";
+  if (!d.title.empty()) d.title += " (designed ramp)";
+  return d;
+}
+
+// Runs the scenario and the designed scenario through work_task (all checks) and compares the
+// designed run's objective with the search's.
+void final_runs(DesignTaskOutcome& o, bool translation, const TaskHooks& hooks) {
+  TaskHooks quiet;
+  quiet.interrupt = hooks.interrupt;
+  if (hooks.stage) hooks.stage("final runs (smooth and designed ramp, with all checks)");
+  o.before_run.emplace(work_task(o.scenario, std::nullopt, default_search_budget, quiet));
+  o.after_run.emplace(work_task(designed_scenario(o.scenario, o.tables, translation), std::nullopt,
+                                default_search_budget, quiet));
+  const WorkRun after = o.after_run->run();
+  o.final_objective = design_objective(after.result, o.settings.options.objective);
+  // The search's value in the nominal scenario (a robust design's objective is a mean).
+  const double searched = o.robust.empty() ? o.result.objective_after : o.robust.front().objective_after;
+  const double scale = std::max(std::abs(searched), 1e-12);
+  if (std::abs(o.final_objective - searched) > 1e-3 * scale)
+    o.final_warnings.push_back("the designed table's run gives objective " + number_text(o.final_objective / o.objective_per_unit) +
+                               ", the search's formula ramp " + number_text(searched / o.objective_per_unit) +
+                               " (relative difference above 1e-3: the table's interpolation or the search's "
+                               "cheaper numerics; trust the table's run, whose checks follow)");
+  for (const auto& c : work_checks(after))
+    if (!c.pass())
+      o.final_warnings.push_back("designed run: " + c.name + " " + number_text(c.value) + " above its tolerance " +
+                                 number_text(c.tolerance) + " (designed_work_summary.json)");
+}
+
+// P(m -> n) of both runs with the harmonic prediction of each (same end potentials, so the same
+// work value per (m, n)).
+CsvTable work_lines_table(const DesignTaskOutcome& o) {
+  const WorkRun before = o.before_run->run(), after = o.after_run->run();
+  const Display d = display(o.scenario);
+  const std::string e = column_unit(d.e);
+  CsvTable t;
+  t.columns = {{"initial", {}}, {"final", {}}, {"work_" + e, {}}, {"probability_smooth", {}},
+               {"probability_designed", {}}, {"harmonic_smooth", {}, bool(before.result.harmonic)},
+               {"harmonic_designed", {}, bool(after.result.harmonic)}};
+  const WorkInput& a = after.result.forward;
+  const WorkInput& b = before.result.forward;
+  const int rows = std::min(a.transitions.initial_levels(), b.transitions.initial_levels());
+  const int cols = std::min(a.transitions.final_levels(), b.transitions.final_levels());
+  auto harmonic = [](const WorkResult& r, int m, int n) {
+    if (!r.harmonic || m >= r.harmonic->reference.initial_levels() || n >= r.harmonic->reference.final_levels())
+      return std::numeric_limits<double>::quiet_NaN();
+    return r.harmonic->initial_weights.at(std::size_t(m)) * r.harmonic->reference.probability(m, n);
+  };
+  for (int m = 0; m < rows; ++m)
+    for (int n = 0; n < cols; ++n) {
+      const double pa = a.initial_weights[std::size_t(m)] * a.transitions.probability(m, n);
+      const double pb = b.initial_weights[std::size_t(m)] * b.transitions.probability(m, n);
+      const double ha = harmonic(after.result, m, n), hb = harmonic(before.result, m, n);
+      if (!(std::max({pa, pb, std::isnan(ha) ? 0 : ha, std::isnan(hb) ? 0 : hb}) >= lines_file_probability_floor)) continue;
+      const double w = after.result.final_spectrum.energies[n] - after.result.initial_spectrum.energies[m];
+      t.columns[0].values.push_back(m);
+      t.columns[1].values.push_back(n);
+      t.columns[2].values.push_back(w / d.energy_per);
+      t.columns[3].values.push_back(pb);
+      t.columns[4].values.push_back(pa);
+      t.columns[5].values.push_back(hb);
+      t.columns[6].values.push_back(ha);
+    }
+  t.comments = {"work lines p_m P(m -> n) of the smooth ramp (the scenario as given) and of the designed ramp "
+                "(designed.toml), each run by the work pipeline with its checks",
+                "W = E_n(final) - E_m(initial) of the run's levels (the same end potentials for both); harmonic_*: "
+                "the harmonic prediction by level index (" +
+                    (after.result.harmonic ? after.result.harmonic->model : "none: " + after.result.harmonic_absent) +
+                    "); rows below P = 1e-15 in all four left out"};
+  return t;
+}
 }  // namespace
 
 std::vector<std::string> design_output_names(const Scenario& scenario) {
   std::vector<std::string> names = {"design_history.csv", "design_summary.json",    "design_schedule.png",
                                     "design_schedule.svg", "design_convergence.png", "design_convergence.svg",
-                                    "designed.toml"};
+                                    "designed.toml",     "design_work_lines.csv",  "design_work_before.png",
+                                    "design_work_before.svg", "design_work_after.png", "design_work_after.svg",
+                                    "designed_work_summary.json"};
   if (scenario.protocol)
     for (const auto& c : scenario.protocol->changes) names.push_back(table_file(c.parameter));
   return names;
@@ -103,9 +342,14 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
   for (const auto& c : scenario.protocol->changes)
     if (c.parameter.rfind("box.", 0) == 0)
       throw InputError("protocol.change.parameter", c.parameter,
-                       "a parameter of the potential: moving walls are not designed yet", "", scenario.file);
+                       "a parameter of the potential: moving walls are not designed, because the wall route "
+                       "takes the wall's acceleration from its schedule and a designed table has none between its "
+                       "rows (a table of the smooth ramp gives another <W> than the ramp itself)",
+                       "design the trap parameters; move the wall with ramp = \"smooth\" or a formula", scenario.file);
   const Protocol protocol = build_protocol(scenario);
   const DesignFamily family(protocol, settings.options.modes, settings.options.zero_end_acceleration);
+  DesignSettings used = settings;
+  used.options.bounds = lab_bounds(scenario, settings, family);
   WorkRequest request = work_request(scenario);
   if (settings.options.objective == DesignObjective::dissipated_work && !request.initial.is_gibbs())
     throw InputError("objective", "dissipated_work", "a thermal [initial] (temperature or mean_phonons) for the dissipated work, "
@@ -114,60 +358,104 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
   request.spectrum.options.interrupt = hooks.interrupt;
   if (checked) checked();
 
-  DesignTaskOutcome o{scenario, settings, family.description(), {}, {}, {}, {}, 1};
-  const DesignEvaluator evaluate = work_evaluator(scenario.potential, request, settings.options.objective);
-  DesignHooks design_hooks;
-  design_hooks.interrupt = hooks.interrupt;
-  if (hooks.progress)
-    design_hooks.progress = [&](const DesignEvaluation&, int done, int bound) { hooks.progress(double(done) / bound); };
-  if (hooks.stage) hooks.stage("design");
-  try {
-    o.result = design_protocol(family, [&](const Protocol& p) { return evaluate(p); }, settings.options, design_hooks);
-  } catch (const PhysicsError& e) {
-    throw PhysicsError(scenario.file + ": " + e.what());
+  DesignTaskOutcome o{scenario, used, family.description(), {}, {}, {}, {}, 1};
+  o.robust = robust_members(scenario, settings);
+  DesignEvaluator evaluate = work_evaluator(scenario.potential, request, settings.options.objective);
+  if (!o.robust.empty()) {
+    std::vector<DesignEvaluator> members;
+    for (const auto& m : o.robust) members.push_back(work_evaluator(m.potential, request, settings.options.objective));
+    evaluate = averaged_evaluator(std::move(members));
   }
   if (settings.options.objective == DesignObjective::dissipated_work) {
     const Display d = display(scenario);
     o.objective_unit = d.e;
     o.objective_per_unit = d.energy_per;
   }
+  DesignHooks design_hooks;
+  design_hooks.interrupt = hooks.interrupt;
+  if (hooks.progress)
+    design_hooks.progress = [&](const DesignEvaluation&, int done, int bound) { hooks.progress(double(done) / bound); };
+  if (hooks.stage) hooks.stage(settings.target ? "design at each duration" : "design");
+  try {
+    if (settings.target) {  // the shortest duration meeting the target
+      int done = 0;
+      const int bound = (settings.bisections + 2) * used.options.max_evaluations;
+      if (hooks.progress) design_hooks.progress = [&](const DesignEvaluation&, int, int) { hooks.progress(double(++done) / bound); };
+      const double tau = protocol.duration();
+      const double shortest = settings.shortest.empty() ? tau / 4 : duration_value(scenario, settings.shortest, "shortest");
+      o.duration_search = design_shortest_duration(protocol, evaluate, used.options, target_value(o, *settings.target),
+                                                   shortest, settings.bisections, design_hooks);
+      const auto& trials = o.duration_search->trials;
+      const auto& chosen = trials.at(std::size_t(std::max(0, o.duration_search->best)));
+      o.result = chosen.design;
+      o.result.warnings.insert(o.result.warnings.begin(), o.duration_search->warnings.begin(), o.duration_search->warnings.end());
+      const std::string unit = duration_unit(scenario);
+      o.scenario.protocol->duration = chosen.duration;
+      char given[48];
+      std::snprintf(given, sizeof given, "%.17g", chosen.duration / per_unit(scenario, unit, Dimension::time(), "protocol.duration"));
+      o.scenario.protocol->duration_given = std::string(given) + " " + unit;
+    } else {
+      o.result = design_protocol(family, [&](const Protocol& p) { return evaluate(p); }, used.options, design_hooks);
+    }
+  } catch (const PhysicsError& e) {
+    throw PhysicsError(scenario.file + ": " + e.what());
+  }
+  const Protocol at_protocol = build_protocol(o.scenario);
+  const DesignFamily at_family(at_protocol, settings.options.modes, settings.options.zero_end_acceleration);
 
-  const std::string time_unit = duration_unit(scenario);
-  const double tau = protocol.duration();
+  const std::string time_unit = duration_unit(o.scenario);
+  const double tau = at_protocol.duration();
   const std::vector<double> zero(o.result.amplitudes.size(), 0.0);
-  for (std::size_t p = 0; p < family.parameters().size(); ++p) {
-    const auto& d = family.parameters()[p];
+  for (std::size_t p = 0; p < at_family.parameters().size(); ++p) {
+    const auto& d = at_family.parameters()[p];
     DesignTable t;
     t.address = d.address;
     t.file = table_file(d.address);
     t.time_unit = time_unit;
-    t.time_per_unit = per_unit(scenario, time_unit, Dimension::time(), "protocol.duration");
-    const auto change = std::find_if(scenario.protocol->changes.begin(), scenario.protocol->changes.end(),
+    t.time_per_unit = per_unit(o.scenario, time_unit, Dimension::time(), "protocol.duration");
+    const auto change = std::find_if(o.scenario.protocol->changes.begin(), o.scenario.protocol->changes.end(),
                                      [&](const ChangeSpec& c) { return c.parameter == d.address; });
-    const auto slot = std::find_if(scenario.parameters.begin(), scenario.parameters.end(),
+    const auto slot = std::find_if(o.scenario.parameters.begin(), o.scenario.parameters.end(),
                                    [&](const ParameterSlot& s) { return s.address == d.address; });
-    if (slot != scenario.parameters.end() && slot->dimension == Dimension::none()) {
+    if (slot != o.scenario.parameters.end() && slot->dimension == Dimension::none()) {
       t.value_per_unit = slot->plain_factor;
     } else {
-      std::string given = change == scenario.protocol->changes.end() ? "" : change->to_given;
+      std::string given = change == o.scenario.protocol->changes.end() ? "" : change->to_given;
       given.erase(std::remove(given.begin(), given.end(), '"'), given.end());  // as written, with its quotes
       t.value_unit = unit_text(given);
-      if (t.value_unit.empty() && change != scenario.protocol->changes.end()) t.value_unit = change->value_unit;
+      if (t.value_unit.empty() && change != o.scenario.protocol->changes.end()) t.value_unit = change->value_unit;
       if (t.value_unit.empty())
-        throw InputError("protocol.change.to", change == scenario.protocol->changes.end() ? "" : change->to_given,
-                         "an end value with its unit (the designed table is written in it)", "", scenario.file);
-      t.value_per_unit = per_unit(scenario, t.value_unit, change->dimension, "protocol.change.to");
+        throw InputError("protocol.change.to", change == o.scenario.protocol->changes.end() ? "" : change->to_given,
+                         "an end value with its unit (the designed table is written in it)", "", o.scenario.file);
+      t.value_per_unit = per_unit(o.scenario, t.value_unit, change->dimension, "protocol.change.to");
     }
+    t.speed_before = at_family.max_speed(p, zero);
+    t.speed_after = at_family.max_speed(p, o.result.amplitudes);
+    t.overshoot_before = at_family.max_overshoot(p, zero);
+    t.overshoot_after = at_family.max_overshoot(p, o.result.amplitudes);
+    t.overshoot_limit = used.options.overshoot * std::abs(d.to - d.from);
+    for (const auto& b : used.options.bounds)
+      if (b.address == d.address) {
+        t.speed_limit = std::min(t.speed_limit, b.max_speed);
+        t.overshoot_limit = std::min(t.overshoot_limit, b.max_overshoot);
+      }
     for (int i = 0; i < table_rows; ++i) {
       const double u = double(i) / (table_rows - 1);
       t.times.push_back(u * tau);
-      t.before.push_back(family.value(p, zero, u));
-      t.after.push_back(family.value(p, o.result.amplitudes, u));
+      t.before.push_back(at_family.value(p, zero, u));
+      t.after.push_back(at_family.value(p, o.result.amplitudes, u));
     }
     o.tables.push_back(std::move(t));
   }
-  o.designed_text = designed_scenario_text(scenario, settings.scenario_text, o.tables,
-                                           protocol.translation(scenario.potential).has_value(), o.family);
+  for (auto& m : o.robust) {  // each member's objective, smooth ramp and design (2 runs each)
+    const DesignEvaluator one = work_evaluator(m.potential, request, settings.options.objective);
+    m.objective_before = one(at_family.protocol(zero));
+    m.objective_after = one(at_family.protocol(o.result.amplitudes));
+  }
+  const bool translation = at_protocol.translation(o.scenario.potential).has_value();
+  o.designed_text = designed_scenario_text(o.scenario, settings.scenario_text, o.tables, translation, o.family,
+                                           settings.target ? std::optional(o.scenario.protocol->duration_given) : std::nullopt);
+  final_runs(o, translation, hooks);
   return o;
 }
 
@@ -198,8 +486,73 @@ std::vector<NamedTable> task_tables(const DesignTaskOutcome& o) {
   history.comments = {"every work run of the search in the order run; amplitudes c_k in units of the change (" +
                           o.family + ")",
                       "infeasible rows (overshoot) were not simulated: their objective is the search's penalty"};
-  return {{"design_history.csv", history}};
+  std::vector<NamedTable> tables = {{"design_history.csv", history}};
+  if (o.before_run && o.after_run) tables.push_back({"design_work_lines.csv", work_lines_table(o)});
+  return tables;
 }
+
+namespace {
+std::vector<std::string> all_warnings(const DesignTaskOutcome& o) {
+  std::vector<std::string> w = o.result.warnings;
+  w.insert(w.end(), o.final_warnings.begin(), o.final_warnings.end());
+  return w;
+}
+
+nlohmann::ordered_json robust_summary(const DesignTaskOutcome& o) {
+  using json = nlohmann::ordered_json;
+  if (o.robust.empty()) return nullptr;
+  json members = json::array();
+  for (const auto& m : o.robust)
+    members.push_back({{"member", m.label},
+                       {"objective_smooth", m.objective_before / o.objective_per_unit},
+                       {"objective_designed", m.objective_after / o.objective_per_unit}});
+  return {{"objective", "mean over the members, equally weighted (objective_before/after above are that mean)"},
+          {"variants", o.settings.robust_variants},
+          {"fit_summary", o.settings.robust_fit.empty() ? json(nullptr) : json(o.settings.robust_fit)},
+          {"fit_samples", o.settings.robust_fit.empty() ? 0 : o.settings.robust_samples},
+          {"seed", o.settings.options.seed},
+          {"members", members}};
+}
+
+nlohmann::ordered_json duration_search_summary(const DesignTaskOutcome& o) {
+  using json = nlohmann::ordered_json;
+  if (!o.duration_search) return nullptr;
+  const std::string unit = duration_unit(o.scenario);
+  const double per = o.scenario.units.to_internal(parse_quantity("1 " + unit), Dimension::time());
+  const auto& d = *o.duration_search;
+  json trials = json::array();
+  for (const auto& t : d.trials)
+    trials.push_back({{"duration", t.duration / per},
+                      {"met", t.met},
+                      {"designed", t.ran},
+                      {"objective_after", t.ran ? json(t.design.objective_after / o.objective_per_unit) : json(nullptr)},
+                      {"evaluations", t.ran ? t.design.history.size() : 0}});
+  return {{"target", *o.settings.target},
+          {"duration_unit", unit},
+          {"bisections", o.settings.bisections},
+          {"evaluation_bound", (o.settings.bisections + 2) * o.settings.options.max_evaluations},
+          {"shortest_met", d.best >= 0 ? json(d.trials[std::size_t(d.best)].duration / per) : json(nullptr)},
+          {"bracket", {d.lower / per, d.upper / per}},
+          {"trials", trials}};
+}
+
+nlohmann::ordered_json final_run_summary(const DesignTaskOutcome& o) {
+  using json = nlohmann::ordered_json;
+  if (!o.after_run) return nullptr;
+  json checks = json::array();
+  for (const auto& c : work_checks(o.after_run->run()))
+    checks.push_back({{"name", c.name},
+                      {"value", std::isnan(c.value) ? json(nullptr) : json(c.value)},
+                      {"tolerance", c.tolerance},
+                      {"pass", std::isnan(c.value) ? json(nullptr) : json(c.pass())}});  // null: not computed
+  const WorkRun before = o.before_run->run(), after = o.after_run->run();
+  return {{"objective_smooth", design_objective(before.result, o.settings.options.objective) / o.objective_per_unit},
+          {"objective_designed", o.final_objective / o.objective_per_unit},
+          {"summary", "designed_work_summary.json"},
+          {"lines", "design_work_lines.csv"},
+          {"checks", checks}};
+}
+}  // namespace
 
 nlohmann::ordered_json task_summary(const DesignTaskOutcome& o) {
   using json = nlohmann::ordered_json;
@@ -214,7 +567,17 @@ nlohmann::ordered_json task_summary(const DesignTaskOutcome& o) {
                           {"to", conversion_rounded(r.parameters[p].to / t.value_per_unit)},
                           {"unit", t.value_unit},
                           {"amplitudes", c},
-                          {"table", t.file}});
+                          {"table", t.file},
+                          {"max_speed",
+                           {{"unit", t.speed_unit()},
+                            {"smooth_ramp", t.speed_before / t.speed_per_unit()},
+                            {"designed", t.speed_after / t.speed_per_unit()},
+                            {"limit", std::isfinite(t.speed_limit) ? json(t.speed_limit / t.speed_per_unit()) : json(nullptr)}}},
+                          {"max_overshoot",
+                           {{"unit", t.value_unit},
+                            {"smooth_ramp", t.overshoot_before / t.value_per_unit},
+                            {"designed", t.overshoot_after / t.value_per_unit},
+                            {"limit", t.overshoot_limit / t.value_per_unit}}}});
   }
   int feasible = 0;
   for (const auto& e : r.history) feasible += e.feasible;
@@ -223,7 +586,9 @@ nlohmann::ordered_json task_summary(const DesignTaskOutcome& o) {
        {"scenario", o.scenario.file},
        {"family", o.family},
        {"objective", design_objective_name(o.settings.options.objective)},
-       {"objective_unit", o.objective_unit.empty() ? "probability" : o.objective_unit},
+       {"objective_unit", !o.objective_unit.empty()                                        ? o.objective_unit
+                          : o.settings.options.objective == DesignObjective::quanta ? "quanta"
+                                                                                    : "probability"},
        {"objective_before", r.objective_before / o.objective_per_unit},
        {"objective_after", r.objective_after / o.objective_per_unit},
        {"improvement_factor", r.objective_after > 0 ? json(r.objective_before / r.objective_after) : json(nullptr)},
@@ -239,7 +604,10 @@ nlohmann::ordered_json task_summary(const DesignTaskOutcome& o) {
        {"overshoot", o.settings.options.overshoot},
        {"parameters", parameters},
        {"designed_scenario", "designed.toml"},
-       {"warnings", r.warnings}},
+       {"final_run", final_run_summary(o)},
+       {"duration_search", duration_search_summary(o)},
+       {"robust", robust_summary(o)},
+       {"warnings", all_warnings(o)}},
       o.scenario);
 }
 
@@ -255,6 +623,7 @@ std::vector<NamedText> task_texts(const DesignTaskOutcome& o) {
     texts.push_back({t.file, out.str()});
   }
   texts.push_back({"designed.toml", o.designed_text});
+  if (o.after_run) texts.push_back({"designed_work_summary.json", task_summary(*o.after_run).dump(2) + "\n"});
   return texts;
 }
 
@@ -294,7 +663,18 @@ std::vector<NamedFigure> task_figures(const DesignTaskOutcome& o) {
   }
   convergence.points = {points};
   convergence.curves = {best};
-  return {{"design_schedule", schedule}, {"design_convergence", convergence}};
+  std::vector<NamedFigure> figures = {{"design_schedule", schedule}, {"design_convergence", convergence}};
+  auto work_figure = [](const WorkOutcome& w, const std::string& stem, const std::string& title) {
+    for (auto& f : work_figures(w.run()))
+      if (f.stem == "work") {
+        if (auto* wf = std::get_if<WorkFigure>(&f.figure)) wf->title = title;
+        return NamedFigure{stem, std::move(f.figure)};
+      }
+    throw ContractViolation("design: the work run has no work figure");
+  };
+  if (o.before_run) figures.push_back(work_figure(*o.before_run, "design_work_before", "P(W) of the smooth ramp"));
+  if (o.after_run) figures.push_back(work_figure(*o.after_run, "design_work_after", "P(W) of the designed ramp"));
+  return figures;
 }
 
 std::vector<fs::path> write_task_outputs(const fs::path& folder, const DesignTaskOutcome& o) {
@@ -305,6 +685,20 @@ void print_task_report(std::ostream& out, const DesignTaskOutcome& o) {
   const auto& r = o.result;
   const std::string unit = o.objective_unit.empty() ? "" : " " + o.objective_unit;
   out << "design of " << o.scenario.file << ": " << o.family << "\n";
+  if (o.duration_search) {
+    const auto& d = *o.duration_search;
+    const std::string unit = duration_unit(o.scenario);
+    const double per = o.scenario.units.to_internal(parse_quantity("1 " + unit), Dimension::time());
+    out << "shortest duration meeting " << design_objective_name(o.settings.options.objective) << " <= "
+        << *o.settings.target << ":";
+    for (const auto& t : d.trials)
+      out << " " << number_text(t.duration / per) << " " << unit << " "
+          << (!t.ran ? "(too fast for the speed bound)" : t.met ? "met" : "missed") << ";";
+    if (d.best >= 0)
+      out << " shortest met " << number_text(d.trials[std::size_t(d.best)].duration / per) << " " << unit
+          << " (bracket " << number_text(d.lower / per) << " to " << number_text(d.upper / per) << " " << unit << ")";
+    out << "\n";
+  }
   out << "objective " << design_objective_name(o.settings.options.objective) << ": smooth ramp "
       << number_text(r.objective_before / o.objective_per_unit) << unit << ", designed "
       << number_text(r.objective_after / o.objective_per_unit) << unit;
@@ -314,12 +708,32 @@ void print_task_report(std::ostream& out, const DesignTaskOutcome& o) {
   for (std::size_t i = 0; i < r.start_results.size(); ++i) out << (i ? "; " : " ") << r.start_results[i];
   out << "\n";
   for (std::size_t p = 0; p < r.parameters.size(); ++p) {
+    const auto& t = o.tables[p];
     out << "  " << r.parameters[p].address << " amplitudes:";
     for (int k = 0; k < r.modes; ++k) out << ' ' << number_text(r.amplitudes[p * r.modes + k]);
-    out << "\n";
+    out << "\n    largest speed " << number_text(t.speed_after / t.speed_per_unit()) << " " << t.speed_unit()
+        << " (smooth ramp " << number_text(t.speed_before / t.speed_per_unit()) << ", limit "
+        << (std::isfinite(t.speed_limit) ? number_text(t.speed_limit / t.speed_per_unit()) : std::string("none"))
+        << "); overshoot " << number_text(t.overshoot_after / t.value_per_unit) << " " << t.value_unit << " (limit "
+        << number_text(t.overshoot_limit / t.value_per_unit) << ")\n";
   }
-  for (const auto& w : r.warnings) out << "warning: " << w << "\n";
-  out << "run `trapwork work designed.toml` in the output folder for the designed ramp's full work statistics\n";
+  if (!o.robust.empty()) {
+    out << "robust: the objective averaged over " << o.robust.size() << " members (smooth ramp -> designed):\n";
+    for (const auto& m : o.robust)
+      out << "  " << m.label << ": " << number_text(m.objective_before / o.objective_per_unit) << " -> "
+          << number_text(m.objective_after / o.objective_per_unit) << unit << "\n";
+  }
+  if (o.after_run) {
+    const auto checks = work_checks(o.after_run->run());
+    const auto failed = std::count_if(checks.begin(), checks.end(), [](const WorkCheck& c) { return !c.pass(); });
+    const auto computed = std::count_if(checks.begin(), checks.end(), [](const WorkCheck& c) { return !std::isnan(c.value); });
+    out << "final run of designed.toml (work pipeline, all checks): objective "
+        << number_text(o.final_objective / o.objective_per_unit) << unit << "; " << computed - failed << " of "
+        << computed << " computed checks pass (designed_work_summary.json); P(W) before and after beside the harmonic "
+        << "prediction: design_work_lines.csv, design_work_before/after.png\n";
+  }
+  for (const auto& w : all_warnings(o)) out << "warning: " << w << "\n";
+  out << "run `trapwork work designed.toml` in the output folder for the designed ramp's full outputs\n";
 }
 
 }  // namespace trapwork

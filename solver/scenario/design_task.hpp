@@ -6,6 +6,8 @@
 // prints nothing and writes no file itself.
 #include <filesystem>
 #include <functional>
+#include <limits>
+#include <optional>
 #include <ostream>
 #include <string>
 #include <vector>
@@ -17,7 +19,33 @@ namespace trapwork {
 
 struct DesignSettings {
   std::string scenario_text;  // the scenario's text as read (with --set applied): designed.toml is made from it
-  DesignOptions options;
+  DesignOptions options;  // options.bounds are filled from the texts below
+  // Lab-unit bounds, "trap.centre=0.5 m/s" or, with one designed parameter, "0.5 m/s": speed in
+  // the parameter's unit per time; overshoot beyond the end values in the parameter's unit.
+  std::vector<std::string> max_speed, max_overshoot;
+  // The shortest duration whose design meets `target` (design_shortest_duration): a probability
+  // or number of quanta as a plain number, a dissipated work with its energy unit ("0.5 h*kHz");
+  // `shortest` the lower end of the search ("0.3 us"; default a quarter of the duration).
+  std::optional<std::string> target;
+  std::string shortest;
+  int bisections = 5;
+  // Robust design: the objective averaged over the nominal scenario and variants of its
+  // potential, equally weighted. Each variant is "ADDRESS=VALUE[;ADDRESS=VALUE...]" in lab units
+  // ("trap.quartic=0.012 h*Hz/nm^4"); `robust_fit` a fit_summary.json of `trapwork fit`, from
+  // whose coefficients (value, unit, uncertainty) and correlation robust_samples variants are drawn
+  // (gaussian_samples, seed options.seed) for the term robust_term (default: the one term having
+  // every fitted coefficient).
+  std::vector<std::string> robust_variants;
+  std::string robust_fit, robust_term;
+  int robust_samples = 8;
+};
+
+// One member of a robust design: its label, its potential (internal units of the scenario) and
+// the objective of the smooth ramp and of the design in it.
+struct RobustMember {
+  std::string label;  // "nominal", the variant as given, "fit sample 3: trap.cubic=..."
+  Potential potential;
+  double objective_before = 0, objective_after = 0;
 };
 
 struct DesignTable {
@@ -27,6 +55,13 @@ struct DesignTable {
   std::string value_unit; // of the second ("" for a plain parameter)
   double time_per_unit = 1, value_per_unit = 1;  // internal value of one unit
   std::vector<double> times, before, after;      // internal
+  // Largest |speed| and excursion beyond the end values (internal), of the smooth ramp and the
+  // design, and the limits the search kept (the overshoot band as used: min(overshoot |b - a|,
+  // max_overshoot); speed: infinity when not bounded).
+  double speed_before = 0, speed_after = 0, overshoot_before = 0, overshoot_after = 0;
+  double speed_limit = std::numeric_limits<double>::infinity(), overshoot_limit = 0;
+  std::string speed_unit() const { return (value_unit.empty() ? "1" : value_unit) + "/" + time_unit; }
+  double speed_per_unit() const { return value_per_unit / time_per_unit; }
 };
 
 struct DesignTaskOutcome {
@@ -38,6 +73,17 @@ struct DesignTaskOutcome {
   std::string designed_text;        // designed.toml
   std::string objective_unit;       // "" (probability) or the energy unit of the report
   double objective_per_unit = 1;    // internal value of one objective unit
+  // The final runs, each through the work pipeline with all its checks (work_task): the
+  // scenario as given (the smooth ramp) and the designed scenario (designed.toml's content: the
+  // designed tables, lab frame for a translation). final_objective is the objective of the
+  // designed table run (it differs from objective_after by the table's interpolation).
+  std::optional<WorkOutcome> before_run, after_run;
+  // With a target: every duration tried; scenario and result are then the shortest that met it
+  // (or the scenario's own duration, with a warning, when none did).
+  std::optional<ShortestDurationResult> duration_search;
+  std::vector<RobustMember> robust;  // empty: designed in the nominal scenario only
+  double final_objective = 0;
+  std::vector<std::string> final_warnings;  // objective not reproduced, failed checks
 };
 
 // Reads the protocol's changes, refuses what the design cannot do (moving walls, [noise],
@@ -47,7 +93,9 @@ struct DesignTaskOutcome {
 DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& settings, const TaskHooks& hooks = {},
                               const std::function<void()>& checked = {});
 // designed.toml, the table files (designed_*.csv), design_history.csv, design_summary.json,
-// design_schedule.png/.svg, design_convergence.png/.svg.
+// design_schedule.png/.svg, design_convergence.png/.svg; of the final runs design_work_lines.csv
+// (P(m -> n) before and after beside the harmonic prediction), design_work_before/after.png/.svg
+// (the work figure of each run) and designed_work_summary.json (the designed run's summary.json).
 std::vector<std::string> design_output_names(const Scenario& scenario);
 
 std::vector<NamedTable> task_tables(const DesignTaskOutcome& outcome);

@@ -212,6 +212,12 @@ PlanOutcome run_plan_command(const PlanCommand& command, std::ostream& out, std:
 // design_summary.json, design_schedule.png/.svg and design_convergence.png/.svg.
 struct DesignCommand {
   std::vector<std::string> set;
+  std::vector<std::string> max_speed, max_overshoot;  // "trap.centre=0.5 m/s" (DesignSettings)
+  std::string target, shortest;                       // shortest duration meeting target ("" : off)
+  int bisections = 5;
+  std::vector<std::string> robust;                    // variants "trap.quartic=0.012 h*Hz/nm^4;..."
+  std::string robust_fit, robust_term;                // fit_summary.json and its term
+  int robust_samples = 8;
   std::string scenario, output;
   int modes = 3, starts = 1, evaluations = 80;  // random later starts mostly land where the excitation is ~1
   std::string objective = "excitation", method = "bobyqa";

@@ -25,6 +25,15 @@ DesignCommandOutcome run_design_command(const DesignCommand& command, std::ostre
   o.stop_below = command.stop_below;
   o.zero_end_acceleration = command.smoother;
   o.seed = command.seed;
+  settings.max_speed = command.max_speed;
+  settings.max_overshoot = command.max_overshoot;
+  if (!command.target.empty()) settings.target = command.target;
+  settings.shortest = command.shortest;
+  settings.bisections = command.bisections;
+  settings.robust_variants = command.robust;
+  settings.robust_fit = command.robust_fit;
+  settings.robust_term = command.robust_term;
+  settings.robust_samples = command.robust_samples;
   std::optional<OutputRun> output;
   TaskBar bar(progress, command.show_progress);
   const TaskHooks hooks = bar.hooks(command.quiet ? std::function<void(const std::string&)>() : notice_to(progress));
@@ -57,8 +66,9 @@ void add_design_command(CLI::App& app) {
       ->capture_default_str()
       ->check(CLI::Range(1, 1000000));
   sub->add_option("--objective", command->objective,
-                  "excitation (probability of leaving the initial level's adiabatic partner) or dissipated_work "
-                  "(<W> - Delta F, thermal start)")
+                  "excitation (probability of leaving the initial level's adiabatic partner), dissipated_work "
+                  "(<W> - Delta F, thermal start) or quanta (mean excitation in quanta: levels climbed above the "
+                  "adiabatic partner)")
       ->capture_default_str();
   sub->add_option("--method", command->method, "NLopt local method: bobyqa, cobyla, nelder_mead or sbplx")
       ->capture_default_str();
@@ -67,6 +77,32 @@ void add_design_command(CLI::App& app) {
   sub->add_option("--overshoot", command->overshoot,
                   "how far the ramp may leave the range of its end values, in units of the change")
       ->capture_default_str();
+  sub->add_option("--max-speed", command->max_speed,
+                  "bound on the ramp's speed in lab units, PARAMETER=VALUE (e.g. trap.centre=0.5m/s) or VALUE "
+                  "with one designed parameter; repeatable");
+  sub->add_option("--max-overshoot", command->max_overshoot,
+                  "bound on how far the ramp leaves its end values, in lab units (e.g. trap.centre=20nm); "
+                  "the tighter of this and --overshoot applies; repeatable");
+  sub->add_option("--target", command->target,
+                  "search for the shortest duration whose design meets this objective value (a number; for "
+                  "dissipated_work an energy such as 0.1h*kHz): a design at the scenario's duration, at --shortest, "
+                  "then --bisections halvings, each at most --evaluations work runs");
+  sub->add_option("--shortest", command->shortest, "lower end of the duration search (default: a quarter of the duration)");
+  sub->add_option("--bisections", command->bisections, "halvings of the duration bracket")
+      ->capture_default_str()
+      ->check(CLI::Range(0, 30));
+  sub->add_option("--robust", command->robust,
+                  "robust design: a variant of the potential, ADDRESS=VALUE[;ADDRESS=VALUE] in lab units (e.g. "
+                  "\"trap.quartic=0.012 h*Hz/nm^4\"); the objective is averaged over the scenario and its variants; "
+                  "repeatable");
+  sub->add_option("--robust-fit", command->robust_fit,
+                  "robust design over samples of a fit: the fit_summary.json of `trapwork fit` (coefficients, "
+                  "uncertainties, correlation); --robust-samples samples drawn with --seed");
+  sub->add_option("--robust-samples", command->robust_samples, "samples drawn from --robust-fit")
+      ->capture_default_str()
+      ->check(CLI::Range(1, 1000));
+  sub->add_option("--robust-term", command->robust_term,
+                  "the term the fitted coefficients belong to (default: the one term that has them all)");
   sub->add_option("--stop-below", command->stop_below, "a start ends once the objective is below this")
       ->capture_default_str();
   sub->add_flag("--smoother", command->smoother, "base ramp 10u^3 - 15u^4 + 6u^5: zero end acceleration too");

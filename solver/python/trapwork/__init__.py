@@ -33,8 +33,8 @@ from . import _trapwork
 
 __all__ = [
     "InputError", "PhysicsError", "Scenario", "Table", "Result", "SpectrumResult", "WorkResult",
-    "SweepResult", "FitResult", "CompareResult", "PlanResult",
-    "spectrum", "work", "sweep", "fit", "compare", "plan",
+    "SweepResult", "FitResult", "CompareResult", "PlanResult", "DesignResult",
+    "spectrum", "work", "sweep", "fit", "compare", "plan", "design",
 ]
 
 __version__ = _trapwork.version()
@@ -761,6 +761,64 @@ def plan(scenario, runs=(10, 30, 100, 300, 1000), resolutions=None, target=None,
                                                                      resolutions=resolutions, target=target)), s)
 
 
-for _f in (spectrum, work, sweep, fit, compare, plan):
+class DesignResult(Result):
+    """Result of :func:`design`: tables ``design_history`` (every evaluation) and
+    ``design_work_lines`` (P(m -> n) of the smooth and the designed ramp beside the harmonic
+    prediction), the designed tables (``designed_trap_centre``, ...); ``summary`` is
+    design_summary.json; ``objective_before``/``objective_after``; ``designed_text`` the text of
+    designed.toml (it reads its table files from its folder: :meth:`write` the result, then
+    ``Scenario.from_file(folder / "designed.toml")``)."""
+
+    _command = "design"
+    _main_table = "design_history"
+
+    @property
+    def objective_before(self):
+        """The objective of the smooth ramp (float, in the summary's objective_unit)."""
+        return self.summary["objective_before"]
+
+    @property
+    def objective_after(self):
+        """The objective of the design (float, in the summary's objective_unit)."""
+        return self.summary["objective_after"]
+
+    @property
+    def designed_text(self):
+        """The text of designed.toml (str)."""
+        return self.texts["designed.toml"]
+
+
+def design(scenario, objective="excitation", modes=3, starts=1, evaluations=80, method="bobyqa",
+           amplitude_bound=1.0, overshoot=0.5, stop_below=1e-10, smoother=False, seed=1, max_speed=(),
+           max_overshoot=(), target=None, shortest=None, bisections=5, robust=(), robust_fit=None,
+           robust_samples=8, robust_term=None, progress=None):
+    """Designs the protocol's ramp (``trapwork design``; the options are the command line's).
+
+    scenario: a :class:`Scenario` with [protocol] and [initial].
+    objective: "excitation", "dissipated_work" or "quanta"; modes, starts, evaluations, method,
+    amplitude_bound, overshoot, stop_below, smoother, seed: the search (``--help`` of the command).
+    max_speed, max_overshoot: lab-unit bounds, e.g. ["trap.centre=0.5 m/s"], ["20 nm"].
+    target, shortest, bisections: the shortest duration whose design meets ``target`` (str, e.g.
+    "1e-3", or "0.1 h*kHz" for the dissipated work).
+    robust, robust_fit, robust_samples, robust_term: robust design over variants
+    (["trap.quartic=0.012 h*Hz/nm^4"]) or samples of a fit_summary.json.
+    {progress}
+
+    Returns a :class:`DesignResult`. Raises InputError, PhysicsError; KeyboardInterrupt after Ctrl-C.
+    """
+    s = _scenario(scenario)
+    options = dict(objective=str(objective), modes=int(modes), starts=int(starts), evaluations=int(evaluations),
+                   method=str(method), amplitude_bound=float(amplitude_bound), overshoot=float(overshoot),
+                   stop_below=float(stop_below), smoother=bool(smoother), seed=int(seed),
+                   max_speed=[str(x) for x in max_speed], max_overshoot=[str(x) for x in max_overshoot],
+                   target=None if target is None else str(target), shortest="" if shortest is None else str(shortest),
+                   bisections=int(bisections), robust=[str(x) for x in robust],
+                   robust_fit="" if robust_fit is None else os.fspath(robust_fit),
+                   robust_term="" if robust_term is None else str(robust_term), robust_samples=int(robust_samples))
+    return DesignResult(_run(_trapwork.design, s.text, s.name, options, progress=progress,
+                             provenance=_provenance("design", s, objective=objective, evaluations=evaluations)), s)
+
+
+for _f in (spectrum, work, sweep, fit, compare, plan, design):
     _f.__doc__ = _f.__doc__.replace("{progress}", _PROGRESS_DOC)
 del _f
