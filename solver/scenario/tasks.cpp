@@ -200,8 +200,13 @@ WorkOutcome work_task(const Scenario& scenario, std::optional<double> tolerance,
       throw InputError("noise", "", "noise on a trap inside fixed walls; moving walls do not take noise yet", "",
                        scenario.file);
     if (hooks.stage) hooks.stage("noise (Lindblad or realisations)");
+    NoiseRequest noise = scenario.noise->request;
+    if (tolerance) {  // the statistical (or Lindblad truncation) error of the lines within it too
+      noise.line_error_target = *tolerance;
+      noise.max_realisations = std::max(noise.max_realisations, noise.realisations);
+    }
     outcome.noise = naming_scenario(scenario.file, scenario, [&] {
-      return run_noisy_work(run.scenario.potential, run.protocol, run.request, scenario.noise->request, &run.result);
+      return run_noisy_work(run.scenario.potential, run.protocol, run.request, noise, &run.result);
     });
   }
   return outcome;
