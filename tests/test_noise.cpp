@@ -645,6 +645,15 @@ final_margin = 12
   std::ostringstream report;
   print_task_report(report, o);
   CHECK_THAT(report.str(), Catch::Contains("standard error of <W> <= 8 h*kHz") && Catch::Contains("line error"));
+  // work.png: the noisy P(W) with its standard errors beside the noiseless one and the harmonic prediction
+  bool figure = false;
+  for (const auto& f : task_figures(o))
+    if (f.stem == "work") {
+      const auto& wf = std::get<WorkFigure>(f.figure);
+      figure = wf.noisy && wf.reference && wf.noisy->error == o.noise->line_error &&
+               wf.noisy->probability.size() == o.noise->distribution.lines.size();
+    }
+  CHECK(figure);
 
   // --tolerance: the realisations grow until the line error is within it (or warn)
   const Scenario t = with_noise("[noise]\nroute = \"realisations\"\nrealisations = 4\nmax_realisations = 200\n" + source);

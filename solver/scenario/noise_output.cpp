@@ -126,4 +126,19 @@ void print_noise_report(std::ostream& out, const Scenario& s, const NoisyWorkRes
   for (const auto& w : r.warnings) row("WARN", w);
 }
 
+WorkFigure noisy_work_figure(const WorkRun& run, const NoisyWorkResult& r) {
+  WorkFigure f = work_figure(run);
+  f.title = "work distribution without and with noise" +
+            std::string(r.route_name == "lindblad" ? " (Lindblad)" : " (" + std::to_string(r.realisations) + " realisations)");
+  f.result.label = "without noise";
+  f.noisy = work_series(run, "with noise", r.distribution);
+  if (r.route_name == "realisations") f.noisy->error = r.line_error;  // probabilities: no unit
+  const Display d = display(run.scenario);
+  f.notes.push_back("the <W> marker is without noise; with noise <W> = " +
+                    (r.route_name == "lindblad"
+                         ? short_number(r.mean.value / d.energy_per, 5) + " " + d.e + " (Lindblad: no statistical error)"
+                         : with_error(r.mean, d.energy_per, d.e) + " (standard error)"));
+  return f;
+}
+
 }  // namespace trapwork

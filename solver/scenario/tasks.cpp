@@ -223,7 +223,14 @@ nlohmann::ordered_json task_summary(const WorkOutcome& o) {
   return with_provenance(summary, o.scenario);
 }
 std::vector<NamedText> task_texts(const WorkOutcome&) { return {}; }
-std::vector<NamedFigure> task_figures(const WorkOutcome& o) { return work_figures(o.run()); }
+std::vector<NamedFigure> task_figures(const WorkOutcome& o) {
+  const WorkRun run = o.run();
+  std::vector<NamedFigure> figures = work_figures(run);
+  if (o.noise)  // work.png: the noisy P(W) beside the noiseless one
+    for (auto& f : figures)
+      if (f.stem == "work") f.figure = noisy_work_figure(run, *o.noise);
+  return figures;
+}
 std::vector<fs::path> write_task_outputs(const fs::path& folder, const WorkOutcome& o) {
   return write_outputs(folder, task_tables(o), "summary.json", task_summary(o), task_texts(o), task_figures(o));
 }
