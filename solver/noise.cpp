@@ -345,7 +345,8 @@ LindbladRun propagate_lindblad(const PotentialPath& path, const Potential& base,
   const double memory_limit =
       request.spectrum.options.memory_limit > 0 ? request.spectrum.options.memory_limit / 2 : 0x1.0p31;
   if (15 * stack_bytes > memory_limit)
-    throw TooStiff("the master equation of " + std::to_string(kept) + " kept levels in a basis of " +
+    throw TooStiff("the master equation of " + std::to_string(kept) + (kept == 1 ? " kept level" : " kept levels") +
+                   " in a basis of " +
                    std::to_string(k) + " levels needs about " + text(15 * stack_bytes / 1e9) + " GB, above " +
                    text(memory_limit / 1e9) + " GB: keep fewer initial levels (work.max_initial_levels) or use "
                    "noise.route = \"realisations\"");

@@ -273,3 +273,25 @@ TEST_CASE("translated harmonic trap, white position noise: <W> gains w^4 S tau /
     CHECK(std::abs(r.distribution.lines[std::size_t(n)].probability - expected) < 4 * r.line_error[std::size_t(n)]);
   }
 }
+
+TEST_CASE("Lindblad: a master equation too large for memory is refused before it starts; auto takes realisations",
+          "[noise][lindblad]") {
+  // the ground state in a basis of 96 levels: about 15 stacks of 16 K^2 bytes = 2.2 MB, above
+  // half of a 2 MB memory limit
+  const Protocol hold(2, {Schedule::constant("trap.centre", 0)});
+  WorkRequest request = quick_request();
+  request.spectrum.options.memory_limit = 2e6;
+  CHECK_THROWS_WITH(
+      run_noisy_work(harmonic_trap(), hold, request, white_noise("trap.centre", 0.01, NoiseRoute::lindblad)),
+      Catch::Contains("master equation of 1 kept level in a basis of 96") && Catch::Contains("GB, above") &&
+          Catch::Contains("noise.route = \"realisations\""));
+  const NoisyWorkResult r =
+      run_noisy_work(harmonic_trap(), hold, request, white_noise("trap.centre", 0.01, NoiseRoute::automatic, 4));
+  INFO(r.route_reason);
+  CHECK(r.route_name == "realisations");
+  CHECK(r.route_reason.find("needs about") != std::string::npos);
+  // with the default limit the same run takes the Lindblad route
+  WorkRequest roomy = quick_request();
+  CHECK(run_noisy_work(harmonic_trap(), hold, roomy, white_noise("trap.centre", 0.01, NoiseRoute::automatic))
+            .route_name == "lindblad");
+}
