@@ -338,6 +338,18 @@ LindbladRun propagate_lindblad(const PotentialPath& path, const Potential& base,
   const Eigen::Index k = prop.basis_size();
   const int kept = w.forward.transitions.initial_levels();
   const Eigen::VectorXd& energy = prop.energies();
+  // Memory, refused before it is allocated: the stacked density matrices (16 K^2 kept bytes),
+  // four scratch stacks of the right-hand side and the Dormand-Prince stepper's ~10 copies of
+  // the state (stages, error, the controlled step's trial): about 15 stacks.
+  const double stack_bytes = 16.0 * double(k) * double(k) * kept;
+  const double memory_limit =
+      request.spectrum.options.memory_limit > 0 ? request.spectrum.options.memory_limit / 2 : 0x1.0p31;
+  if (15 * stack_bytes > memory_limit)
+    throw TooStiff("the master equation of " + std::to_string(kept) + (kept == 1 ? " kept level" : " kept levels") +
+                   " in a basis of " +
+                   std::to_string(k) + " levels needs about " + text(15 * stack_bytes / 1e9) + " GB, above " +
+                   text(memory_limit / 1e9) + " GB: keep fewer initial levels (work.max_initial_levels) or use "
+                   "noise.route = \"realisations\"");
 
   Eigen::MatrixXcd psi = w.initial_spectrum.states.leftCols(kept).cast<Complex>();
   path.from_lab(psi, 0);
@@ -542,6 +554,39 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
                          "): realisations";
     }
   }
+  OdeTolerances used_ode = request.ode;
+  if (lindblad && noise.line_error_target > 0) {
+    // A line error asked for (--tolerance): the run is repeated on a basis of 3/2 the levels
+    // with ODE tolerances ten times tighter; the finer run is kept and its distance to the
+    // coarser (line_distance, the form of --tolerance) is its error estimate, as the
+    // --tolerance search does for the grid (an over-estimate where the error falls fast).
+    WorkRequest finer = request;
+    finer.eigenbasis_levels = std::min<int>((3 * solved->basis + 1) / 2, int(w.grid.size()) / 2);
+    finer.ode.absolute /= 10;
+    finer.ode.relative /= 10;
+    out.line_error_target = noise.line_error_target;
+    try {
+      LindbladRun check = propagate_lindblad(path, base, protocol, w, v_final, finer, noise);
+      WorkInput a = w.forward, b = w.forward;
+      a.transitions.probability = solved->transitions;
+      b.transitions.probability = check.transitions;
+      out.line_error_total = line_distance(a, b).distance;
+      check.evaluations += solved->evaluations;
+      out.realisation_choice = "basis " + std::to_string(solved->basis) + " -> " + std::to_string(check.basis) +
+                               " levels, ODE tolerances / 10: line distance " + text(out.line_error_total) +
+                               (check.basis == solved->basis ? " (the grid allows no larger basis: ODE only)" : "");
+      solved = std::move(check);
+      used_ode = finer.ode;
+    } catch (const TooStiff& e) {
+      out.line_error_total = nan;
+      out.realisation_choice = std::string("not checked: the finer master equation is refused (") + e.what() + ")";
+    }
+    out.targets_met = out.line_error_total <= noise.line_error_target;
+    if (!out.targets_met)
+      out.warnings.push_back("the Lindblad route's truncation and ODE error is not shown below the tolerance " +
+                             text(noise.line_error_target) + ": " + out.realisation_choice +
+                             "; raise work.final_margin or the eigenbasis levels, or tighten the ODE tolerances");
+  }
   if (lindblad) {
     const LindbladRun& run = *solved;
     out.route_name = "lindblad";
@@ -549,7 +594,7 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
     out.ode_evaluations = run.evaluations;
     out.route = "lindblad: master equation with jump operators sqrt(S/2) dV/dp in the eigenbasis of " +
                 std::to_string(run.basis) + " levels of H_A (Dormand-Prince 5(4), tolerances " +
-                text(request.ode.absolute) + " absolute, " + text(request.ode.relative) +
+                text(used_ode.absolute) + " absolute, " + text(used_ode.relative) +
                 " relative); deterministic, no statistical error";
     WorkInput input = w.forward;
     input.transitions.probability = run.transitions;
@@ -580,25 +625,32 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
   if (noise.realisations < 2)
     throw InputError("noise_run.realisations", std::to_string(noise.realisations),
                      "at least 2 realisations (the standard errors need two)");
-  out.realisations = noise.realisations;
+  const bool targeted = noise.mean_error_target > 0 || noise.line_error_target > 0;
+  if (targeted && noise.max_realisations < noise.realisations)
+    throw InputError("noise.max_realisations", std::to_string(noise.max_realisations),
+                     "at least realisations (" + std::to_string(noise.realisations) + ")");
   out.route_name = "realisations";
-  out.route = "realisations: " + std::to_string(noise.realisations) + " noise traces, each propagated by the " + w.method;
+  out.mean_error_target = noise.mean_error_target;
+  out.line_error_target = noise.line_error_target;
 
   // the transition matrix of every realisation is kept (the jackknife of var W and of the
-  // Jarzynski average needs them): refuse a run whose matrices would not fit
-  const double matrix_bytes = double(noise.realisations + 1) * double(w.forward.transitions.initial_levels()) *
-                              double(w.forward.transitions.final_levels()) * sizeof(double);
+  // Jarzynski average needs them): refuse a run whose matrices would not fit, and grow a
+  // targeted run no further than they fit
+  const double matrix_bytes =
+      double(w.forward.transitions.initial_levels()) * double(w.forward.transitions.final_levels()) * sizeof(double);
   const double limit = request.spectrum.options.memory_limit > 0 ? request.spectrum.options.memory_limit / 2 : 0x1.0p31;
-  if (matrix_bytes > limit)
+  const auto fitting = [&](int realisations) { return double(realisations + 1) * matrix_bytes <= limit; };
+  if (!fitting(noise.realisations))
     throw PhysicsError("noise: " + std::to_string(noise.realisations) + " realisations of " +
                        std::to_string(w.forward.transitions.initial_levels()) + " x " +
                        std::to_string(w.forward.transitions.final_levels()) + " transition matrices need " +
-                       text(matrix_bytes / 1e9) + " GB, above " + text(limit / 1e9) +
+                       text(double(noise.realisations + 1) * matrix_bytes / 1e9) + " GB, above " + text(limit / 1e9) +
                        " GB: lower the realisations (the standard errors scale as 1/sqrt(realisations))");
+  const int memory_cap = int(std::min(1e9, std::floor(limit / matrix_bytes) - 1));
+  const int cap = targeted ? std::min(noise.max_realisations, memory_cap) : noise.realisations;
   // runs[0] is the noiseless baseline through the same code (the reference of the extra
   // energy), recording the times the potential is sampled at; runs[1 .. R] the noisy ones
-  const int total = noise.realisations + 1;
-  std::vector<Realisation> runs(std::size_t(total), Realisation{});
+  std::vector<Realisation> runs(1);
   auto times = std::make_shared<std::vector<double>>();
   runs[0] = propagate_realisation(
       path.with_perturbation([times](double t, const std::vector<double>&, std::vector<double>&) { times->push_back(t); }),
@@ -629,60 +681,120 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
         path.with_perturbation(ParameterNoise(base, protocol, addresses, std::move(traces), table));
     runs[std::size_t(index)] = propagate_realisation(noisy, w, v_final, request);
   };
-  std::atomic<int> next{1}, done{0};
-  std::exception_ptr failure;
-  std::mutex failure_mutex;
-  auto worker = [&] {
-    for (int i; (i = next++) < total;) {
-      try {
-        run_one(i);
-      } catch (...) {
-        std::lock_guard lock(failure_mutex);
-        if (!failure) failure = std::current_exception();
-        next = total;
+  // realisations first .. last - 1, spread over the threads
+  auto run_batch = [&](int first, int last) {
+    runs.resize(std::size_t(last));
+    std::atomic<int> next{first};
+    std::exception_ptr failure;
+    std::mutex failure_mutex;
+    auto worker = [&] {
+      for (int i; (i = next++) < last;) {
+        try {
+          run_one(i);
+        } catch (...) {
+          std::lock_guard lock(failure_mutex);
+          if (!failure) failure = std::current_exception();
+          next = last;
+        }
       }
-      ++done;
+    };
+    const int threads = std::max(1, std::min(request.threads, last - first));
+    std::vector<std::thread> pool;
+    for (int t = 1; t < threads; ++t) {
+      try {
+        pool.emplace_back(worker);
+      } catch (const std::system_error&) {
+        break;  // fewer workers: the same results, more time
+      }
     }
+    worker();
+    for (auto& t : pool) t.join();
+    if (failure) std::rethrow_exception(failure);
   };
-  const int threads = std::max(1, std::min(request.threads, total));
-  std::vector<std::thread> pool;
-  for (int t = 1; t < threads; ++t) {
-    try {
-      pool.emplace_back(worker);
-    } catch (const std::system_error&) {
-      break;  // fewer workers: the same results, more time
+
+  // averages and their errors over runs[1 .. R]
+  auto summarise = [&](int R) {
+    Eigen::MatrixXd sum = Eigen::MatrixXd::Zero(runs[1].transitions.rows(), runs[1].transitions.cols());
+    for (int r = 1; r <= R; ++r) sum += runs[std::size_t(r)].transitions;
+    WorkInput input = w.forward;
+    input.transitions.probability = sum / R;
+    out.transitions = input.transitions;
+    out.distribution = work_distribution(input, request.merge_tolerance);
+    const std::size_t lines = out.distribution.lines.size();
+    std::vector<std::vector<double>> line_loo(lines, std::vector<double>(std::size_t(R)));
+    const std::size_t count = std::size_t(R);
+    std::vector<double> mean_loo(count), variance_loo(count), jarzynski_loo(count);
+    for (int r = 1; r <= R; ++r) {
+      input.transitions.probability = (sum - runs[std::size_t(r)].transitions) / (R - 1);
+      const WorkDistribution d = work_distribution(input, request.merge_tolerance);
+      TRAPWORK_EXPECT(d.lines.size() == lines, "run_noisy_work: the line structure depends on energies only");
+      for (std::size_t l = 0; l < lines; ++l) line_loo[l][std::size_t(r - 1)] = d.lines[l].probability;
+      mean_loo[std::size_t(r - 1)] = d.mean;
+      variance_loo[std::size_t(r - 1)] = d.variance;
+      jarzynski_loo[std::size_t(r - 1)] = d.jarzynski_average;
+    }
+    out.line_error.clear();
+    out.line_error_total = 0;
+    for (std::size_t l = 0; l < lines; ++l) {
+      out.line_error.push_back(jackknife_error(line_loo[l]));
+      out.line_error_total += 0.5 * out.line_error.back();
+    }
+    out.mean = {out.distribution.mean, jackknife_error(mean_loo)};
+    out.variance = {out.distribution.variance, jackknife_error(variance_loo)};
+    out.jarzynski = w.forward.beta ? Estimate{out.distribution.jarzynski_average, jackknife_error(jarzynski_loo)}
+                                   : Estimate{nan, nan};
+  };
+  // the factor by which R must grow for every target (errors fall as 1/sqrt(R)); <= 1: met
+  auto growth = [&] {
+    double f = 0;
+    if (noise.mean_error_target > 0) f = std::max(f, std::pow(out.mean.error / noise.mean_error_target, 2));
+    if (noise.line_error_target > 0) f = std::max(f, std::pow(out.line_error_total / noise.line_error_target, 2));
+    return f;
+  };
+
+  int R = noise.realisations, batches = 1;
+  run_batch(1, R + 1);
+  summarise(R);
+  // Grow: 1.2 times the predicted R (the error estimate of a small run scatters), at least a
+  // quarter more, at most the cap; 20 batches bound the loop where the errors do not fall.
+  for (double f = growth(); targeted && f > 1 && R < cap && batches < 20; f = growth()) {
+    const double wanted = std::max(1.2 * f * R, 1.25 * R + 1);
+    const int next = int(std::min(double(cap), std::ceil(wanted)));
+    run_batch(R + 1, next + 1);
+    R = next;
+    ++batches;
+    summarise(R);
+  }
+  out.realisations = R;
+  out.route = "realisations: " + std::to_string(R) + " noise traces, each propagated by the " + w.method;
+  std::string targets;
+  if (noise.mean_error_target > 0) targets += "the standard error of <W> asked for";
+  if (noise.line_error_target > 0) targets += std::string(targets.empty() ? "" : " and ") + "the line error asked for";
+  if (!targeted) {
+    out.realisation_choice = "as given (noise.realisations)";
+  } else {
+    out.targets_met = growth() <= 1;
+    out.realisation_choice = "grown in " + std::to_string(batches) + (batches == 1 ? " batch" : " batches") +
+                             " for " + targets + (out.targets_met ? " (met)" : " (NOT met)");
+    if (!out.targets_met) {
+      const std::string stop = R >= cap ? (cap == noise.max_realisations
+                                               ? "noise.max_realisations = " + std::to_string(cap)
+                                               : "the memory of the transition matrices (" + std::to_string(cap) +
+                                                     " realisations)")
+                                        : "20 batches";
+      // relative to the targets: the library knows no display unit
+      std::string reached;
+      if (noise.mean_error_target > 0)
+        reached += "the standard error of <W> is " + text(out.mean.error / noise.mean_error_target) + " times";
+      if (noise.line_error_target > 0)
+        reached += std::string(reached.empty() ? "" : ", ") + "the line error " + text(out.line_error_total) +
+                   " is " + text(out.line_error_total / noise.line_error_target) + " times";
+      out.warnings.push_back("the requested statistical error is not reached: after " + std::to_string(R) +
+                             " realisations (stopped by " + stop + ") " + reached +
+                             " the one asked for; about " + text(std::ceil(growth() * R)) +
+                             " realisations would reach it");
     }
   }
-  worker();
-  for (auto& t : pool) t.join();
-  if (failure) std::rethrow_exception(failure);
-
-  // averages and their errors
-  const int R = noise.realisations;
-  Eigen::MatrixXd sum = Eigen::MatrixXd::Zero(runs[1].transitions.rows(), runs[1].transitions.cols());
-  for (int r = 1; r <= R; ++r) sum += runs[std::size_t(r)].transitions;
-  WorkInput input = w.forward;
-  input.transitions.probability = sum / R;
-  out.transitions = input.transitions;
-  out.distribution = work_distribution(input, request.merge_tolerance);
-  const std::size_t lines = out.distribution.lines.size();
-  std::vector<std::vector<double>> line_loo(lines, std::vector<double>(std::size_t(R)));
-  const std::size_t count = std::size_t(R);
-  std::vector<double> mean_loo(count), variance_loo(count), jarzynski_loo(count);
-  for (int r = 1; r <= R; ++r) {
-    input.transitions.probability = (sum - runs[std::size_t(r)].transitions) / (R - 1);
-    const WorkDistribution d = work_distribution(input, request.merge_tolerance);
-    TRAPWORK_EXPECT(d.lines.size() == lines, "run_noisy_work: the line structure depends on energies only");
-    for (std::size_t l = 0; l < lines; ++l) line_loo[l][std::size_t(r - 1)] = d.lines[l].probability;
-    mean_loo[std::size_t(r - 1)] = d.mean;
-    variance_loo[std::size_t(r - 1)] = d.variance;
-    jarzynski_loo[std::size_t(r - 1)] = d.jarzynski_average;
-  }
-  for (std::size_t l = 0; l < lines; ++l) out.line_error.push_back(jackknife_error(line_loo[l]));
-  out.mean = {out.distribution.mean, jackknife_error(mean_loo)};
-  out.variance = {out.distribution.variance, jackknife_error(variance_loo)};
-  out.jarzynski = w.forward.beta ? Estimate{out.distribution.jarzynski_average, jackknife_error(jarzynski_loo)}
-                                 : Estimate{nan, nan};
   for (int r = 1; r <= R; ++r) out.realisation_direct_mean.push_back(runs[std::size_t(r)].direct_mean);
   out.direct_mean = sample_mean(out.realisation_direct_mean);
   out.extra_energy = {out.direct_mean.value - runs[0].direct_mean, out.direct_mean.error};

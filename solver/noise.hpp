@@ -79,6 +79,14 @@ struct NoiseRequest {
   int realisations = 100;   // >= 2 (the standard errors need two); realisations route only
   std::uint64_t seed = 1;   // traces depend on (seed, realisation, source index) only
   NoiseRoute route = NoiseRoute::automatic;
+  // Realisations chosen for a requested statistical error (realisations route; 0: no target).
+  // `realisations` is then the first batch; more are run in batches (the next size from the
+  // errors so far, which fall as 1/sqrt(R)) until every target is met or max_realisations
+  // (or the memory of the transition matrices) stops it, with a warning giving the errors
+  // reached. Realisation r is the same trace in every batch, so a grown run is a longer run.
+  double mean_error_target = 0;  // standard error of <W> (internal energy)
+  double line_error_target = 0;  // statistical line error (NoisyWorkResult::line_error_total)
+  int max_realisations = 10000;  // >= realisations
 };
 
 // The largest eigenbasis (levels K) the automatic choice takes the Lindblad route with: its
@@ -132,6 +140,13 @@ struct NoisyWorkResult {
   Estimate heating_quanta_rate;    // heating_rate / omega_h (quanta per time; NaN without omega_h)
   std::vector<double> realisation_direct_mean;  // direct <W> of each realisation
   int realisations = 0;
+  // Half the sum of the line standard errors: the statistical error of P(W) in the total-
+  // variation form of --tolerance (line_distance, work.hpp; an upper estimate: the expected
+  // |error| of a Gaussian line is 0.8 of its standard error). 0 on the Lindblad route.
+  double line_error_total = 0;
+  double mean_error_target = 0, line_error_target = 0;  // as requested (0: none)
+  bool targets_met = true;         // every requested target met (true without targets)
+  std::string realisation_choice;  // how R came about ("as given", "grown in 3 batches ...")
   std::uint64_t seed = 0;
   int steps = 0;                   // the protocol's time steps = trace intervals
   std::string route;               // "realisations: ..." or "lindblad: ..." (what ran, in words)

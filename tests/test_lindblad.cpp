@@ -179,3 +179,119 @@ TEST_CASE("Lindblad and realisations agree within the statistical error on an an
   // the agreement has teeth: the noise moves <W> by many of its standard errors
   CHECK(l.mean.value - l.noiseless.distribution.mean > 5 * r.mean.error);
 }
+
+namespace {
+
+// P(n) of the coherent state |alpha> smoothed by a circular Gaussian kernel of mean |beta|^2 =
+// nbar: int d^2 beta exp(-|beta|^2 / nbar) / (pi nbar) Poisson_n(|alpha + beta|^2), by the
+// trapezoidal rule in Cartesian coordinates (+-12 sd, 481 x 481 nodes): for a smooth integrand
+// decaying as a Gaussian it converges faster than any power (common practice; measured: 241
+// nodes per axis give the same values to 1e-12), unlike the midpoint rule in polar
+// coordinates, whose O(dr^2) error at r = 0 was 8e-6 at 1200 radii.
+double smoothed_poisson(int n, double alpha, double nbar) {
+  const int nodes = 481;
+  const double sd = std::sqrt(nbar / 2), h = 24 * sd / (nodes - 1);
+  double sum = 0;
+  for (int i = 0; i < nodes; ++i)
+    for (int j = 0; j < nodes; ++j) {
+      const double u = -12 * sd + i * h, v = -12 * sd + j * h;
+      const double mean = (alpha + u) * (alpha + u) + v * v;
+      sum += std::exp(-(u * u + v * v) / nbar) / (M_PI * nbar) *
+             std::exp(n * std::log(mean) - mean - std::lgamma(n + 1.0));
+    }
+  return sum * h * h;
+}
+
+}  // namespace
+
+TEST_CASE("translated harmonic trap, white position noise: <W> gains w^4 S tau / 4 exactly and P(W) is "
+          "the noiseless one smoothed by the noise kernel",
+          "[noise][lindblad][validation]") {
+  // Reasoning (linear forces; m = hbar = w = 1). H = p^2/2 + (x - c(t) - eps(t))^2 / 2 moves
+  // the ground state to a coherent state |alpha_c + beta>, alpha_c from the translation c(t)
+  // alone, beta = (i/sqrt 2) int eps(t) e^{it} dt from the noise alone (a linearly forced
+  // oscillator; Glauber, Phys. Rev. 131, 2766 (1963), from memory). beta is Gaussian with zero
+  // mean and independent of c, so
+  //   <W> = <|alpha_c + beta|^2> = |alpha_c|^2 + <|beta|^2> = <W>_noiseless + S tau / 4
+  // exactly (the cross term averages to zero; S tau / 4 is the heating of
+  // Savard, O'Hara and Thomas, PRA 56, R1095 (1997), from memory, derived in test_noise.cpp),
+  // and P(n) is the noiseless Poisson line set at alpha_c + beta averaged over beta's kernel,
+  // circular with <|beta|^2> = S tau / 4 when tau is a whole number of half periods
+  // (<beta^2> ~ int e^{2it} dt = 0).
+  const double tau = 4 * M_PI, s_x = 0.004, distance = 1.0;
+  const Protocol move(tau, {Schedule::smooth_step("trap.centre", 0, distance)});
+  WorkRequest request = quick_request();
+  request.max_initial_levels = 1;
+  request.final_margin = 24;
+  request.co_moving = true;
+  const double heating = s_x * tau / 4;  // = nbar, 0.0126
+
+  // Lindblad: exact for white noise up to the ODE tolerance and the basis (50 levels here)
+  const NoisyWorkResult l =
+      run_noisy_work(harmonic_trap(), move, request, white_noise("trap.centre", s_x, NoiseRoute::lindblad));
+  const double alpha = std::sqrt(l.noiseless.distribution.mean);  // |alpha_c|, from the noiseless run
+  INFO("noiseless <W> " << l.noiseless.distribution.mean << ", noisy " << l.mean.value << ", difference "
+                        << l.mean.value - l.noiseless.distribution.mean << " against S tau / 4 = " << heating);
+  CHECK(std::abs(l.mean.value - l.noiseless.distribution.mean - heating) < 1e-7);
+  REQUIRE(l.distribution.lines.size() >= 8);
+  for (int n = 0; n < 8; ++n) {
+    const double expected = smoothed_poisson(n, alpha, heating);
+    INFO("line " << n << ": " << l.distribution.lines[std::size_t(n)].probability << " against " << expected
+                 << " (noiseless " << l.noiseless.distribution.lines[std::size_t(n)].probability << ")");
+    CHECK(std::abs(l.distribution.lines[std::size_t(n)].probability - expected) < 1e-6);
+  }
+  // the smoothing matters at this size (else the line checks above would not test it)
+  CHECK(std::abs(l.distribution.lines[0].probability - l.noiseless.distribution.lines[0].probability) > 1e-3);
+
+  // The same Lindblad run in the lab frame agrees with the co-moving one (the noise term is
+  // evaluated at lab positions in both)
+  WorkRequest lab = request;
+  lab.co_moving = false;
+  const NoisyWorkResult ll =
+      run_noisy_work(harmonic_trap(), move, lab, white_noise("trap.centre", s_x, NoiseRoute::lindblad));
+  REQUIRE(!ll.noiseless.co_moving);
+  REQUIRE(l.noiseless.co_moving);
+  INFO("lab-frame noisy <W> " << ll.mean.value << ", co-moving " << l.mean.value);
+  CHECK(std::abs(ll.mean.value - l.mean.value) < 1e-6);
+  for (int n = 0; n < 8; ++n)
+    CHECK(std::abs(ll.distribution.lines[std::size_t(n)].probability - l.distribution.lines[std::size_t(n)].probability) <
+          1e-6);
+
+  // Realisations: the same within their statistical error (4 standard errors; traces of linear
+  // interpolation between nodes heat by the discrete formula of test_noise.cpp, within 2e-3 of
+  // S tau / 4 at these steps, far below the error)
+  const NoisyWorkResult r =
+      run_noisy_work(harmonic_trap(), move, request, white_noise("trap.centre", s_x, NoiseRoute::realisations, 200));
+  INFO("realisations: noisy - noiseless <W> = " << r.mean.value - r.noiseless.distribution.mean << " +- "
+                                                << r.mean.error);
+  CHECK(std::abs(r.mean.value - r.noiseless.distribution.mean - heating) < 4 * r.mean.error);
+  CHECK(r.mean.error < heating / 3);  // the check above can fail
+  for (int n = 0; n < 4; ++n) {
+    const double expected = smoothed_poisson(n, alpha, heating);
+    INFO("line " << n << ": " << r.distribution.lines[std::size_t(n)].probability << " +- "
+                 << r.line_error[std::size_t(n)] << " against " << expected);
+    CHECK(std::abs(r.distribution.lines[std::size_t(n)].probability - expected) < 4 * r.line_error[std::size_t(n)]);
+  }
+}
+
+TEST_CASE("Lindblad: a master equation too large for memory is refused before it starts; auto takes realisations",
+          "[noise][lindblad]") {
+  // the ground state in a basis of 96 levels: about 15 stacks of 16 K^2 bytes = 2.2 MB, above
+  // half of a 2 MB memory limit
+  const Protocol hold(2, {Schedule::constant("trap.centre", 0)});
+  WorkRequest request = quick_request();
+  request.spectrum.options.memory_limit = 2e6;
+  CHECK_THROWS_WITH(
+      run_noisy_work(harmonic_trap(), hold, request, white_noise("trap.centre", 0.01, NoiseRoute::lindblad)),
+      Catch::Contains("master equation of 1 kept level in a basis of 96") && Catch::Contains("GB, above") &&
+          Catch::Contains("noise.route = \"realisations\""));
+  const NoisyWorkResult r =
+      run_noisy_work(harmonic_trap(), hold, request, white_noise("trap.centre", 0.01, NoiseRoute::automatic, 4));
+  INFO(r.route_reason);
+  CHECK(r.route_name == "realisations");
+  CHECK(r.route_reason.find("needs about") != std::string::npos);
+  // with the default limit the same run takes the Lindblad route
+  WorkRequest roomy = quick_request();
+  CHECK(run_noisy_work(harmonic_trap(), hold, roomy, white_noise("trap.centre", 0.01, NoiseRoute::automatic))
+            .route_name == "lindblad");
+}

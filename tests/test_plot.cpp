@@ -180,6 +180,15 @@ TEST_CASE("each figure writes a PNG and an SVG and nothing else", "[plot]") {
     f.free_energy_change.reset();
     check_figure_files(folder / "work", plot_work(folder / "work", f));
   }
+  SECTION("work distribution with a noisy series and its error bars (issue 17)") {
+    WorkFigure f = work_figure();
+    f.noisy = f.result;
+    for (double& p : f.noisy->probability) p *= 0.9;
+    f.noisy->error.assign(f.noisy->work.size(), 0.01);
+    f.noisy->label = "with noise";
+    f.notes = {"a further caption line"};
+    check_figure_files(folder / "work", plot_work(folder / "work", f));
+  }
   SECTION("sweep: relative departure, absolute with a band on a log axis, single panel") {
     SweepFigure f = sweep_figure();
     check_figure_files(folder / "sweep", plot_sweep(folder / "sweep", f));
@@ -455,4 +464,27 @@ TEST_CASE("issue 16: walls on a levels figure and stacked panels draw; bad ones 
   CHECK_THROWS_WITH(plot_stack(stacks / "empty_stack", stack), Catch::Contains("one to six panels"));
   CHECK(names_in(folder) == std::vector<std::string>{"walls.png", "walls.svg"});  // nothing of the refused ones
   CHECK(names_in(stacks) == std::vector<std::string>{"stack.png", "stack.svg"});
+}
+
+TEST_CASE("issue 17: a noisy series counts in the ranges, names the curves in the caption, refuses bad errors",
+          "[plot]") {
+  WorkFigure f = work_figure();
+  const WorkPanelRanges without = work_panel_ranges(f);
+  f.noisy = f.result;
+  f.noisy->label = "with noise";
+  f.noisy->work.push_back(f.result.work.back() + 500);  // heated beyond the noiseless lines
+  f.noisy->probability.push_back(1e-4);
+  f.noisy->error.assign(f.noisy->work.size(), 1e-3);
+  const WorkPanelRanges with = work_panel_ranges(f);
+  CHECK(with.log_hi > without.log_hi);  // the noisy line is drawn
+  CHECK(with.lines_drawn + with.lines_below_floor ==
+        without.lines_drawn + without.lines_below_floor + f.noisy->work.size());
+  CHECK(with.lines_drawn > without.lines_drawn);
+  CHECK(with.marker_scale[2] > 0);
+  const auto caption = work_caption(f, with);
+  bool curves = false;
+  for (const auto& line : caption) curves = curves || line.find("dotted with noise") != std::string::npos;
+  CHECK(curves);
+  f.noisy->error.pop_back();
+  CHECK_THROWS_WITH(work_panel_ranges(f), Catch::Contains("one standard error per noisy line"));
 }

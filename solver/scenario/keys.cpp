@@ -309,6 +309,12 @@ const std::vector<TableSpec>& scenario_tables() {
                  "(white noise only); auto: lindblad when all noise is white"),
           whole("realisations", "100", "noise traces propagated and averaged (2 to 1000000; realisations route)", "200"),
           whole("seed", "1", "seed of the noise traces (the same seed gives the same traces)", "2026"),
+          quantity("standard_error", Dimension::energy(), "none (realisations as given)",
+                   "statistical error asked for on <W>: realisations are added in batches (realisations the "
+                   "first) until its standard error is at most this (realisations route)",
+                   "\"0.5 h*kHz\""),
+          whole("max_realisations", "10000", "most realisations standard_error or --tolerance may grow to (a "
+                "warning gives the error reached when it stops them)", "2000"),
           sub("source", KeyType::tables, "required", "[[noise.source]], one per noisy parameter")}});
     t.push_back(
         {"noise.source", "[[noise.source]]",

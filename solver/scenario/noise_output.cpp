@@ -53,6 +53,7 @@ nlohmann::ordered_json noise_summary(const Scenario& s, const NoisyWorkResult& r
   j["route_reason"] = r.route_reason;
   j["psd_convention"] = r.psd_convention;
   j["realisations"] = r.realisations;
+  if (!r.realisation_choice.empty()) j["realisations_chosen"] = r.realisation_choice;
   j["seed"] = r.seed;
   j["time_steps"] = r.steps;
   if (s.noise) j["sources"] = s.noise->given;
@@ -74,6 +75,13 @@ nlohmann::ordered_json noise_summary(const Scenario& s, const NoisyWorkResult& r
   if (r.harmonic_omega > 0)
     j["heating_rate_quanta_per_s"] = estimate({per_second(s, r.heating_quanta_rate.value),
                                                per_second(s, r.heating_quanta_rate.error)}, 1);
+  // the statistical error of P(W) (realisations) or the Lindblad check's line distance, in the
+  // total-variation form of --tolerance, with what was asked for
+  j["line_error"] = std::isfinite(r.line_error_total) ? nlohmann::ordered_json(r.line_error_total)
+                                                      : nlohmann::ordered_json(nullptr);
+  if (r.mean_error_target > 0) j["standard_error_requested" + ec] = r.mean_error_target / d.energy_per;
+  if (r.line_error_target > 0) j["line_error_requested"] = r.line_error_target;
+  if (r.mean_error_target > 0 || r.line_error_target > 0) j["requested_error_met"] = r.targets_met;
   j["unresolved_weight"] = r.distribution.unresolved_weight;
   j["warnings"] = r.warnings;
   return j;
@@ -87,6 +95,17 @@ void print_noise_report(std::ostream& out, const Scenario& s, const NoisyWorkRes
     for (std::size_t k = 0; k < s.noise->given.size(); ++k) row(k == 0 ? "sources" : "", s.noise->given[k]);
   row("route", r.route_name == "lindblad" ? r.route : r.route + ", seed " + std::to_string(r.seed));
   row("why", r.route_reason);
+  if (r.route_name == "realisations" || r.line_error_target > 0)
+    row(r.route_name == "lindblad" ? "check" : "R", r.route_name == "lindblad" ? r.realisation_choice
+                                                    : std::to_string(r.realisations) + " realisations, " + r.realisation_choice);
+  if (r.mean_error_target > 0 && r.route_name == "realisations")
+    row("asked", "standard error of <W> <= " + short_number(r.mean_error_target / d.energy_per, 3) + " " + d.e +
+                     " (noise.standard_error)");
+  if (r.route_name == "realisations" || r.line_error_target > 0)
+    row("line error", (std::isfinite(r.line_error_total) ? short_number(r.line_error_total, 3) : std::string("not computed")) +
+                          (r.route_name == "lindblad" ? " (distance to the finer master equation)"
+                                                      : " (half the sum of the line standard errors)") +
+                          (r.line_error_target > 0 ? ", tolerance " + short_number(r.line_error_target, 3) : ""));
   row("PSD", r.psd_convention);
   row("<W>", with_error(r.mean, d.energy_per, d.e) + " (noiseless " +
                  short_number(r.noiseless.distribution.mean / d.energy_per, 5) + " " + d.e + ")");
@@ -105,6 +124,21 @@ void print_noise_report(std::ostream& out, const Scenario& s, const NoisyWorkRes
                               : " (each trace is unitary: it holds per trace up to truncation)"));
   row("lines", "noise_lines.csv: P(W) with and without noise, each noisy line with its standard error");
   for (const auto& w : r.warnings) row("WARN", w);
+}
+
+WorkFigure noisy_work_figure(const WorkRun& run, const NoisyWorkResult& r) {
+  WorkFigure f = work_figure(run);
+  f.title = "work distribution without and with noise" +
+            std::string(r.route_name == "lindblad" ? " (Lindblad)" : " (" + std::to_string(r.realisations) + " realisations)");
+  f.result.label = "without noise";
+  f.noisy = work_series(run, "with noise", r.distribution);
+  if (r.route_name == "realisations") f.noisy->error = r.line_error;  // probabilities: no unit
+  const Display d = display(run.scenario);
+  f.notes.push_back("the <W> marker is without noise; with noise <W> = " +
+                    (r.route_name == "lindblad"
+                         ? short_number(r.mean.value / d.energy_per, 5) + " " + d.e + " (Lindblad: no statistical error)"
+                         : with_error(r.mean, d.energy_per, d.e) + " (standard error)"));
+  return f;
 }
 
 }  // namespace trapwork

@@ -723,6 +723,31 @@ void draw_stems(const WorkSeries& s, bool log, double floor, double offset, PLIN
   plschr(0, text_scale);
 }
 
+// +-1 standard error bars on a series' stems (red), in log10 P on a log panel, clipped at its
+// floor.
+void draw_error_bars(const WorkSeries& s, bool log, double floor, double offset) {
+  if (s.error.empty()) return;
+  Vec x, lo, hi;
+  for (std::size_t i = 0; i < s.work.size(); ++i) {
+    const double p = s.probability[i], e = s.error[i];
+    if (!(e > 0)) continue;
+    double a = p - e, b = p + e;
+    if (log) {
+      if (!(std::log10(std::max(p, 1e-300)) > floor)) continue;
+      a = a > 0 ? std::max(std::log10(a), floor) : floor;
+      b = std::log10(b);
+    } else {
+      a = std::max(a, floor);
+    }
+    x.push_back(s.work[i] + offset);
+    lo.push_back(a);
+    hi.push_back(b);
+  }
+  if (x.empty()) return;
+  pen(red, 1.6);
+  plerry(static_cast<PLINT>(x.size()), x.data(), lo.data(), hi.data());
+}
+
 // Work range of the lines left after dropping, from each end, lines that together carry at most
 // `tail` of the probability (all series together); invalid when there are no lines.
 Range bulk_range(const std::vector<const WorkSeries*>& series, double tail) {
@@ -748,6 +773,11 @@ void validate_work(const WorkFigure& f) {
   const std::string name = "plot_work";
   validate_series(name, f.result);
   if (f.reference) validate_series(name, *f.reference);
+  if (f.noisy) {
+    validate_series(name, *f.noisy);
+    if (!f.noisy->error.empty() && f.noisy->error.size() != f.noisy->work.size())
+      bad_data(name, "one standard error per noisy line");
+  }
   if (f.result.work.empty() && f.result.density.empty()) bad_data(name, "no work values");
   if (!(f.log_decades > 0)) bad_data(name, "log_decades must be > 0");
   if (f.resolution && !(*f.resolution > 0 && std::isfinite(*f.resolution)))
@@ -769,7 +799,9 @@ double tick_offset(double lo, double hi) {
 WorkPanelRanges work_panel_ranges(const WorkFigure& f) {
   validate_work(f);
   std::vector<const WorkSeries*> series = {&f.result};
-  if (f.reference) series.push_back(&*f.reference);
+  std::vector<std::size_t> slot = {0};  // index of marker_scale and stem_width
+  if (f.reference) series.push_back(&*f.reference), slot.push_back(1);
+  if (f.noisy) series.push_back(&*f.noisy), slot.push_back(2);
   WorkPanelRanges r;
   double p_max = 0, d_max = 0;
   for (const auto* s : series) {
@@ -790,18 +822,18 @@ WorkPanelRanges work_panel_ranges(const WorkFigure& f) {
   if (f.mean_work) markers.add(*f.mean_work);
   if (f.free_energy_change) markers.add(*f.free_energy_change);
   const double floor = std::pow(10.0, r.log_floor);
-  std::array<std::size_t, 2> drawn_of = {0, 0};  // lines drawn per series
+  std::array<std::size_t, 3> drawn_of = {0, 0, 0};  // lines drawn per slot
   for (std::size_t k = 0; k < series.size(); ++k)
     for (std::size_t i = 0; i < series[k]->work.size(); ++i) {
       all_lines.add(series[k]->work[i]);
       if (series[k]->probability[i] > floor) {
         drawn.add(series[k]->work[i]);
-        ++drawn_of[k];
+        ++drawn_of[slot[k]];
       } else {
         ++r.lines_below_floor;
       }
     }
-  r.lines_drawn = drawn_of[0] + drawn_of[1];
+  r.lines_drawn = drawn_of[0] + drawn_of[1] + drawn_of[2];
   Range wr = drawn;
   if (!wr.valid())
     for (const auto* s : series) wr.add(s->density_work);
@@ -844,7 +876,7 @@ WorkPanelRanges work_panel_ranges(const WorkFigure& f) {
   r.log_offset = tick_offset(r.log_lo, r.log_hi);
 
   // Log-panel stems thinned with the number drawn, so that thousands of lines stay lines.
-  for (std::size_t k = 0; k < 2; ++k) {
+  for (std::size_t k = 0; k < 3; ++k) {
     const double n = static_cast<double>(drawn_of[k]);
     const double crowd = n > 40 ? std::sqrt(40.0 / n) : 1.0;
     r.marker_scale[k] = 0.8 * crowd >= 0.2 ? 0.8 * crowd : 0.0;
@@ -863,6 +895,12 @@ std::vector<std::string> work_caption(const WorkFigure& f, const WorkPanelRanges
     if (!f.resolution_source.empty()) text += " (" + f.resolution_source + ")";
     lines.push_back(text);
   }
+  if (f.noisy && r.density_top > 0) {  // the legend leaves the curves out (draw_work)
+    std::string curves = "curves (right axis): solid " + f.result.label;
+    if (f.reference) curves += ", dashed " + f.reference->label;
+    lines.push_back(curves + ", dotted " + f.noisy->label);
+  }
+  lines.insert(lines.end(), f.notes.begin(), f.notes.end());
   if (r.lines_below_floor > 0 && f.probability_axis != ProbabilityAxis::linear) {
     char floor[32];
     std::snprintf(floor, sizeof floor, "%.2g", std::pow(10.0, r.log_floor));
@@ -886,7 +924,9 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
   const WorkPanelRanges ranges = work_panel_ranges(f);
   const bool has_density = ranges.density_top > 0;
   std::vector<const WorkSeries*> series = {&f.result};
-  if (f.reference) series.push_back(&*f.reference);
+  std::vector<std::size_t> slot = {0};  // 0 result, 1 reference, 2 noisy
+  if (f.reference) series.push_back(&*f.reference), slot.push_back(1);
+  if (f.noisy) series.push_back(&*f.noisy), slot.push_back(2);
   const double p_top = ranges.probability_top, d_top = ranges.density_top;
   const double log_top = ranges.log_top, log_floor = ranges.log_floor;
   const int log_step = static_cast<int>(std::max(1.0, std::ceil(f.log_decades / 4)));
@@ -897,16 +937,20 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
   std::vector<LegendEntry> by_column;
   for (std::size_t k = 0; k < series.size(); ++k) {
     const WorkSeries& s = *series[k];
-    const PLINT colour = k == 0 ? blue : orange;
-    by_column.push_back({(s.label.empty() ? std::string("lines") : s.label) + ": P#di#u",
+    const std::size_t c = slot[k];
+    const PLINT colour = c == 0 ? blue : c == 1 ? orange : red;
+    by_column.push_back({(s.label.empty() ? std::string("lines") : s.label) + ": P#di#u" +
+                             (s.error.empty() ? "" : " ± s.e."),
                          PL_LEGEND_LINE | PL_LEGEND_SYMBOL, colour, solid, 2.2,
-                         k == 0 ? "●" : "○", -1});
-    by_column.push_back(has_density && !s.density.empty()
+                         c == 0 ? "●" : c == 1 ? "○" : "◆", -1});
+    // with a noisy series the curves' styles are named in the caption instead (work_caption),
+    // so that three series keep a legend of two rows
+    by_column.push_back(has_density && !s.density.empty() && !f.noisy
                             ? line_entry("broadened (right axis)", colour,
-                                         k == 0 ? solid : dashed, 2.2)
+                                         c == 0 ? solid : c == 1 ? dashed : dotted, 2.2)
                             : LegendEntry{"", PL_LEGEND_NONE, ink, solid, 1, "", -1});
   }
-  if (!has_density)  // no densities: drop the empty places kept for them
+  if (!has_density || f.noisy)  // no density entries: drop the empty places kept for them
     by_column.erase(std::remove_if(by_column.begin(), by_column.end(),
                                    [](const LegendEntry& e) { return e.kind == PL_LEGEND_NONE; }),
                     by_column.end());
@@ -994,6 +1038,11 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
       if (f.reference)
         draw_stems(*f.reference, panel.log_y, panel.y_lo, offset - shift, orange, "○", scale(1), width(1));
       draw_stems(f.result, panel.log_y, panel.y_lo, -shift, blue, "●", scale(0), width(0));
+      if (f.noisy) {
+        const double left_of = -0.004 * (panel.x_hi - panel.x_lo) - shift;
+        draw_stems(*f.noisy, panel.log_y, panel.y_lo, left_of, red, "◆", scale(2), width(2));
+        draw_error_bars(*f.noisy, panel.log_y, panel.y_lo, left_of);
+      }
 
       if (has_density && !panel.log_y) {
         label_right(f.density_label.empty() ? "density (right axis)" : f.density_label,
@@ -1004,6 +1053,10 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
         }
         pen(blue, 2.2);
         draw_line(shifted(f.result.density_work, shift), f.result.density);
+        if (f.noisy && !f.noisy->density.empty()) {
+          pen(red, 2.2, dotted);
+          draw_line(shifted(f.noisy->density_work, shift), f.noisy->density);
+        }
       }
     }
     plvpor(0, 1, 0, 1);

@@ -67,6 +67,7 @@ struct WorkSeries {
   std::vector<double> probability;    // P_i, one per W_i, >= 0
   std::vector<double> density_work;   // grid of the broadened density, ascending; may be empty
   std::vector<double> density;        // density per work unit, one per density_work
+  std::vector<double> error;          // standard error of each P_i, drawn as +-1 bars; empty: none
 };
 
 enum class ProbabilityAxis {
@@ -81,6 +82,10 @@ struct WorkFigure {
   std::string density_label;          // right-hand axis, e.g. "density (1/(h*kHz))"
   WorkSeries result;                  // drawn as filled stems and a solid curve
   std::optional<WorkSeries> reference;  // e.g. harmonic prediction: hollow stems, dashed curve
+  // e.g. with noise during the protocol: red stems with diamonds and their error bars, a dotted
+  // curve, drawn a little left of the result's stems
+  std::optional<WorkSeries> noisy;
+  std::vector<std::string> notes;     // further caption lines (after the densities' line)
   std::optional<double> mean_work;      // vertical marker "<W>", work unit
   std::optional<double> free_energy_change;  // vertical marker "Delta F", work unit
   ProbabilityAxis probability_axis = ProbabilityAxis::linear_and_log;
@@ -118,10 +123,10 @@ struct WorkPanelRanges {
   double log_floor = -12, log_top = 0;  // log10 P
   std::size_t lines_drawn = 0;        // lines (all series) at or above the floor
   std::size_t lines_below_floor = 0;  // lines (all series) below it, left out of the log panel
-  // Log panel's stem markers (character scale; 0: none) and stem widths, of the result and the
-  // reference, each by the number of its own lines drawn.
-  std::array<double, 2> marker_scale = {0.8, 0.8};
-  std::array<double, 2> stem_width = {2.2, 2.2};
+  // Log panel's stem markers (character scale; 0: none) and stem widths, of the result, the
+  // reference and the noisy series, each by the number of its own lines drawn.
+  std::array<double, 3> marker_scale = {0.8, 0.8, 0.8};
+  std::array<double, 3> stem_width = {2.2, 2.2, 2.2};
 };
 WorkPanelRanges work_panel_ranges(const WorkFigure& figure);
 

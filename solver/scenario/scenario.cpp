@@ -1186,6 +1186,15 @@ void Reader::read_noise(const toml::table& root, Scenario& s) const {
                                                {"realisations", NoiseRoute::realisations},
                                                {"lindblad", NoiseRoute::lindblad}})
                                .value_or(NoiseRoute::automatic);
+  if (const auto e = internal(*t, "standard_error", "noise.standard_error", Dimension::energy())) {
+    require(e->value > 0, *e, "noise.standard_error", "an energy > 0 (the standard error asked for on <W>)");
+    settings.request.mean_error_target = e->value;
+  }
+  settings.request.max_realisations =
+      int(integer(*t, "max_realisations", "noise.max_realisations", 2, 1000000).value_or(10000));
+  if (settings.request.mean_error_target > 0 && settings.request.max_realisations < settings.request.realisations)
+    fail(*t->get(t->get("max_realisations") ? "max_realisations" : "realisations"), "noise.max_realisations",
+         "max_realisations >= realisations (" + std::to_string(settings.request.realisations) + ")");
   const toml::node* sources = t->get("source");
   if (!sources || !sources->is_array_of_tables() || sources->as_array()->empty())
     fail(sources ? *sources : *root.get("noise"), "noise.source",

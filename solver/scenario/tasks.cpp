@@ -200,8 +200,13 @@ WorkOutcome work_task(const Scenario& scenario, std::optional<double> tolerance,
       throw InputError("noise", "", "noise on a trap inside fixed walls; moving walls do not take noise yet", "",
                        scenario.file);
     if (hooks.stage) hooks.stage("noise (Lindblad or realisations)");
+    NoiseRequest noise = scenario.noise->request;
+    if (tolerance) {  // the statistical (or Lindblad truncation) error of the lines within it too
+      noise.line_error_target = *tolerance;
+      noise.max_realisations = std::max(noise.max_realisations, noise.realisations);
+    }
     outcome.noise = naming_scenario(scenario.file, scenario, [&] {
-      return run_noisy_work(run.scenario.potential, run.protocol, run.request, scenario.noise->request, &run.result);
+      return run_noisy_work(run.scenario.potential, run.protocol, run.request, noise, &run.result);
     });
   }
   return outcome;
@@ -218,7 +223,14 @@ nlohmann::ordered_json task_summary(const WorkOutcome& o) {
   return with_provenance(summary, o.scenario);
 }
 std::vector<NamedText> task_texts(const WorkOutcome&) { return {}; }
-std::vector<NamedFigure> task_figures(const WorkOutcome& o) { return work_figures(o.run()); }
+std::vector<NamedFigure> task_figures(const WorkOutcome& o) {
+  const WorkRun run = o.run();
+  std::vector<NamedFigure> figures = work_figures(run);
+  if (o.noise)  // work.png: the noisy P(W) beside the noiseless one
+    for (auto& f : figures)
+      if (f.stem == "work") f.figure = noisy_work_figure(run, *o.noise);
+  return figures;
+}
 std::vector<fs::path> write_task_outputs(const fs::path& folder, const WorkOutcome& o) {
   return write_outputs(folder, task_tables(o), "summary.json", task_summary(o), task_texts(o), task_figures(o));
 }

@@ -941,6 +941,11 @@ WorkSeries series(const std::string& label, const WorkDistribution& dist, double
 
 }  // namespace
 
+WorkSeries work_series(const WorkRun& run, const std::string& label, const WorkDistribution& distribution) {
+  const double sigma = resolution_of(run);
+  return series(label, distribution, sigma, density_grid(distribution, sigma), display(run.scenario));
+}
+
 WorkFigure work_figure(const WorkRun& run) {
   const WorkResult& r = run.result;
   const Display d = display(run.scenario);

@@ -150,6 +150,9 @@ CsvTable characteristic_table(const WorkRun& run);
 nlohmann::ordered_json work_summary(const WorkRun& run);
 // potential.png: the initial and final potentials with their levels; work.png: P(W) and its density.
 LevelsFigure levels_figure(const WorkRun& run);
+// A series of another distribution on the run's axes (energy unit, broadening), e.g. the
+// noisy P(W) drawn beside the run's own in work.png.
+WorkSeries work_series(const WorkRun& run, const std::string& label, const WorkDistribution& distribution);
 WorkFigure work_figure(const WorkRun& run);
 // spectrum.png of `trapwork spectrum`: the potential with its levels (up to 12), the densities
 // of the lowest four and the hard walls of a [box].
