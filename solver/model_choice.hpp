@@ -155,9 +155,10 @@ DecisionPoint decision_power(const CandidateModels& models, int a, int b, std::i
 double normal_runs_to_decide(const CandidateModels& models, int a, int b, double power, double confidence,
                              std::uint64_t seed = 1);
 
-// Smallest N (to 2 %) with power_a and power_b >= `power`: N doubled from `start` until both
-// are met, then bisection; common random numbers at every N. `reached` false when max_runs
-// does not suffice (the last evaluation returned).
+// Smallest N with power_a and power_b >= `power`: N doubled from `start` until both are met,
+// then bisection to 2 % of N. Each N has its own random streams, so the powers carry their
+// resampling error (sqrt(p(1-p)/experiments)) and N is found to that precision. `reached`
+// false when max_runs does not suffice (the last evaluation returned).
 struct RunsToDecide {
   std::int64_t runs = 0;
   DecisionPoint at;

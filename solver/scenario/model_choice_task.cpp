@@ -94,8 +94,9 @@ std::string verdict_text(const PairTest& t, const std::vector<std::string>& name
   auto confidence_text = [&](double p) {
     return (p <= floor ? ">= " : "") + percent(1 - p) + " confidence";
   };
-  const std::string ps = "(p = " + short_number(t.p_b, 3) + " under " + b + ", " + short_number(t.p_a, 3) +
-                         " under " + a + ", from " + std::to_string(t.sets) + " synthetic data sets each)";
+  auto p_text = [&](double p) { return (p <= floor ? "p <= " : "p = ") + short_number(p, 3); };
+  const std::string ps = "(" + p_text(t.p_b) + " under " + b + ", " + p_text(t.p_a) + " under " + a + ", from " +
+                         std::to_string(t.sets) + " synthetic data sets each)";
   switch (t.decision) {
     case Decision::favours_a:
       return "the data favour " + a + " over " + b + " at " + confidence_text(t.p_b) + " " + ps;
