@@ -170,6 +170,7 @@ void print_compare_report(std::ostream& out, const WorkRun& run, const WorkData&
   const DataFileInfo& info = data.info();
   const char* kinds[] = {"work samples", "level pairs", "histogram"};
   row("data", info.file + ": " + kinds[int(data.kind)] + ", " + std::to_string(c.runs) + " runs" +
+                  (data.pairs.origin.empty() ? std::string() : " (" + data.pairs.origin + ")") +
                   (info.skipped_rows ? ", " + std::to_string(info.skipped_rows) + " row(s) skipped (keep = 0)"
                                      : std::string()));
   row("resolution", data.kind == WorkDataKind::level_pairs
@@ -342,6 +343,7 @@ nlohmann::ordered_json task_summary(const CompareTaskOutcome& o) {
                         : data.kind == WorkDataKind::level_pairs ? "level pairs"
                                                                  : "histogram"},
           {"skipped_rows", data.info().skipped_rows},
+          {"data_origin", data.pairs.origin.empty() ? "one row per run" : data.pairs.origin},
           {"resolution", d.energy(o.sigma)},
           {"resolution_source", o.sigma_source},
           {"energy_unit", d.e},
