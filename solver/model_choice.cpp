@@ -353,11 +353,19 @@ ModelChoice choose_model(const CandidateModels& models, const MeasuredRuns& data
         double(std::upper_bound(t.synthetic_a.begin(), t.synthetic_a.end(), t.statistic) - t.synthetic_a.begin());
     t.p_b = (1 + above_b) / (t.sets + 1);
     t.p_a = (1 + below_a) / (t.sets + 1);
+    const double above_a =
+        double(t.synthetic_a.end() - std::lower_bound(t.synthetic_a.begin(), t.synthetic_a.end(), t.statistic));
+    const double below_b =
+        double(std::upper_bound(t.synthetic_b.begin(), t.synthetic_b.end(), t.statistic) - t.synthetic_b.begin());
+    t.p_a_beyond = (1 + above_a) / (t.sets + 1);
+    t.p_b_beyond = (1 + below_b) / (t.sets + 1);
     const bool reject_b = t.p_b <= alpha, reject_a = t.p_a <= alpha;
     t.decision = reject_b && reject_a ? Decision::rejects_both
                  : reject_b           ? Decision::favours_a
                  : reject_a           ? Decision::favours_b
                                       : Decision::cannot_tell;
+    t.atypical = (t.decision == Decision::favours_a && t.p_a_beyond <= alpha) ||
+                 (t.decision == Decision::favours_b && t.p_b_beyond <= alpha);
     r.tests.push_back(std::move(t));
   }
   return r;

@@ -87,8 +87,13 @@ struct PairTest {
   int sets = 0;          // M
   double p_b = 1;        // (1 + #{T_b >= T}) / (M + 1): small when the data disfavour b
   double p_a = 1;        // (1 + #{T_a <= T}) / (M + 1): small when the data disfavour a
+  // The other tails: a ratio beyond what even the favoured model gives (small: the data are
+  // atypical of that model as well, and may fit neither).
+  double p_a_beyond = 1;  // (1 + #{T_a >= T}) / (M + 1)
+  double p_b_beyond = 1;  // (1 + #{T_b <= T}) / (M + 1)
   std::vector<double> synthetic_a, synthetic_b;  // T of the synthetic sets under a and under b, sorted
   Decision decision = Decision::cannot_tell;     // at the options' confidence
+  bool atypical = false;  // favours a with p_a_beyond <= 1 - confidence, or b with p_b_beyond <= 1 - confidence
 };
 
 struct ModelChoice {

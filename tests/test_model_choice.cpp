@@ -196,6 +196,7 @@ TEST_CASE("issue 19: posterior odds, information criteria and the verdict's deci
   // T = 20 ln 2.5 = 18.3 nats: no synthetic set from B reaches it, so p_b is 1/1000.
   CHECK(c.tests[0].p_b == Approx(1.0 / 1000));
   CHECK(c.tests[0].decision == Decision::favours_a);
+  CHECK_FALSE(c.tests[0].atypical);  // T = 18.3 is typical of A: 50 x 0.275 +- sqrt(50) x 0.716
   // The per-run mean of ln(p_a/p_b) under each model is an exact sum; the draws agree with it.
   const SyntheticRatio ratio(models, 0, 1);
   const auto [mean_a, sd_a] = ratio.per_run(0, 1);

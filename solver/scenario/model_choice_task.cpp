@@ -97,11 +97,18 @@ std::string verdict_text(const PairTest& t, const std::vector<std::string>& name
   auto p_text = [&](double p) { return (p <= floor ? "p <= " : "p = ") + short_number(p, 3); };
   const std::string ps = "(" + p_text(t.p_b) + " under " + b + ", " + p_text(t.p_a) + " under " + a + ", from " +
                          std::to_string(t.sets) + " synthetic data sets each)";
+  auto atypical = [&](const std::string& m, double p) {
+    return t.atypical ? ", BUT the ratio lies beyond what " + m + " gives too (" + p_text(p) + " of a ratio this far out " +
+                            "under " + m + "): the data may fit neither model; check each one's goodness of fit"
+                      : std::string();
+  };
   switch (t.decision) {
     case Decision::favours_a:
-      return "the data favour " + a + " over " + b + " at " + confidence_text(t.p_b) + " " + ps;
+      return "the data favour " + a + " over " + b + " at " + confidence_text(t.p_b) + " " + ps +
+             atypical(a, t.p_a_beyond);
     case Decision::favours_b:
-      return "the data favour " + b + " over " + a + " at " + confidence_text(t.p_a) + " " + ps;
+      return "the data favour " + b + " over " + a + " at " + confidence_text(t.p_a) + " " + ps +
+             atypical(b, t.p_b_beyond);
     case Decision::rejects_both:
       return "the data fit neither " + a + " nor " + b + " at " + percent(confidence) + " confidence " + ps;
     case Decision::cannot_tell:
@@ -284,6 +291,9 @@ nlohmann::ordered_json model_choice_json(const ModelChoiceOutcome& o) {
                      {"synthetic_sets", t.sets},
                      {"p_under_b", num(t.p_b)},
                      {"p_under_a", num(t.p_a)},
+                     {"p_beyond_under_a", num(t.p_a_beyond)},
+                     {"p_beyond_under_b", num(t.p_b_beyond)},
+                     {"atypical", t.atypical},
                      {"posterior_odds_a_to_b", num(c.posterior[std::size_t(t.a)] / c.posterior[std::size_t(t.b)])},
                      {"prior_odds_a_to_b", c.prior[std::size_t(t.a)] / c.prior[std::size_t(t.b)]},
                      {"decision", decisions[int(t.decision)]},
