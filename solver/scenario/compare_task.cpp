@@ -170,6 +170,7 @@ void print_compare_report(std::ostream& out, const WorkRun& run, const WorkData&
   const DataFileInfo& info = data.info();
   const char* kinds[] = {"work samples", "level pairs", "histogram"};
   row("data", info.file + ": " + kinds[int(data.kind)] + ", " + std::to_string(c.runs) + " runs" +
+                  (data.pairs.origin.empty() ? std::string() : " (" + data.pairs.origin + ")") +
                   (info.skipped_rows ? ", " + std::to_string(info.skipped_rows) + " row(s) skipped (keep = 0)"
                                      : std::string()));
   row("resolution", data.kind == WorkDataKind::level_pairs
@@ -226,7 +227,8 @@ void print_compare_report(std::ostream& out, const WorkRun& run, const WorkData&
 }  // namespace
 
 std::vector<std::string> compare_output_names() {
-  return {"compare.csv", "compare_summary.json", "compare.png", "compare.svg"};
+  return {"compare.csv",        "compare_summary.json", "compare.png", "compare.svg",
+          "compare_models.csv", "compare_models.png",   "compare_models.svg"};
 }
 
 CompareTaskOutcome compare_task(const Scenario& scenario, const CompareSettings& settings, const TaskHooks& hooks,
@@ -296,6 +298,8 @@ CompareTaskOutcome compare_task(const Scenario& scenario, const CompareSettings&
   if (data.kind != WorkDataKind::histogram)
     view = bin_samples(run_work, lines, sigma, display_edges(run_work, lines, sigma, lowest_spacing(r)));
   std::string verdict = verdict_of(comparison);
+  std::optional<ModelChoiceOutcome> choice;
+  if (!settings.models.against.empty()) choice = choose_between(run, data, sigma, settings.models, hooks);
   return {scenario,
           std::move(work),
           std::move(data),
@@ -305,7 +309,8 @@ CompareTaskOutcome compare_task(const Scenario& scenario, const CompareSettings&
           std::move(verdict),
           std::move(view.edges),
           std::move(view.observed),
-          std::move(view.expected)};
+          std::move(view.expected),
+          std::move(choice)};
 }
 
 std::vector<NamedTable> task_tables(const CompareTaskOutcome& o) {
@@ -324,24 +329,28 @@ std::vector<NamedTable> task_tables(const CompareTaskOutcome& o) {
                     "expected_runs: the model with resolution " + short_number(d.energy(o.sigma), 4) + " " + d.e +
                         "; pull = (observed - expected) / sqrt(expected)",
                     "the chi-square test uses its own bins (merged to >= 5 expected runs): see compare_summary.json"};
+  if (o.choice) return {{"compare.csv", table}, {"compare_models.csv", model_choice_table(*o.choice)}};
   return {{"compare.csv", table}};
 }
 
 nlohmann::ordered_json task_summary(const CompareTaskOutcome& o) {
   const Display d = display(o.scenario);
   const WorkData& data = o.data;
-  return with_provenance({{"command", "compare"},
+  nlohmann::ordered_json summary = {{"command", "compare"},
           {"scenario", o.scenario.file},
           {"data", data.info().file},
           {"data_kind", data.kind == WorkDataKind::samples       ? "work samples"
                         : data.kind == WorkDataKind::level_pairs ? "level pairs"
                                                                  : "histogram"},
           {"skipped_rows", data.info().skipped_rows},
+          {"data_origin", data.pairs.origin.empty() ? "one row per run" : data.pairs.origin},
           {"resolution", d.energy(o.sigma)},
           {"resolution_source", o.sigma_source},
           {"energy_unit", d.e},
           {"comparison", comparison_json(o.comparison, d, o.work.result().distribution.beta)},
-          {"verdict", o.verdict}}, o.scenario);
+          {"verdict", o.verdict}};
+  if (o.choice) summary["model_choice"] = model_choice_json(*o.choice);
+  return with_provenance(summary, o.scenario);
 }
 
 std::vector<NamedText> task_texts(const CompareTaskOutcome&) { return {}; }
@@ -374,6 +383,8 @@ std::vector<NamedFigure> task_figures(const CompareTaskOutcome& o) {
     figure.model_mean = d.energy(o.comparison.moments->model_mean);
     figure.data_mean = d.energy(o.comparison.moments->mean);
   }
+  if (o.choice && !model_choice_figure(*o.choice).curves.empty())
+    return {{"compare", figure}, {"compare_models", model_choice_figure(*o.choice)}};
   return {{"compare", figure}};
 }
 
@@ -383,6 +394,7 @@ std::vector<fs::path> write_task_outputs(const fs::path& folder, const CompareTa
 
 void print_task_report(std::ostream& out, const CompareTaskOutcome& o) {
   print_compare_report(out, o.run(), o.data, o.comparison, o.sigma, o.sigma_source, o.verdict);
+  if (o.choice) print_model_choice(out, *o.choice);
 }
 
 }  // namespace trapwork

@@ -13,6 +13,7 @@
 #include <sstream>
 
 #include "solver/errors.hpp"
+#include "solver/scenario/output.hpp"
 #include "solver/units.hpp"
 
 namespace trapwork {
@@ -135,7 +136,8 @@ TextTable split_table(std::string_view text, const std::string& file, std::size_
         t.comment_lines.push_back(line_number);
         const std::string_view comment = line.substr(hash + 1);
         const int offset = int(hash) + 1;
-        for (auto [word, slot] : {std::pair{"unit", &t.unit}, std::pair{"resolution", &t.resolution}}) {
+        for (auto [word, slot] :
+             {std::pair{"unit", &t.unit}, std::pair{"resolution", &t.resolution}, std::pair{"runs", &t.runs}}) {
           auto d = header_required ? directive(comment, word, line_number, offset) : std::nullopt;
           if (!d) continue;
           if (*slot)
@@ -474,6 +476,81 @@ LevelPairsData pairs_from(const Table& t) {
   return d;
 }
 
+// Populations become one level pair per run (compare's form): at most 2^24 runs (134 MB).
+constexpr std::int64_t most_population_runs = std::int64_t(1) << 24;
+
+LevelPairsData populations_from(const Table& t) {
+  static const std::vector<ColumnSpec> specs = {{"initial", ColumnType::integer, {}, true, false, "initial"},
+                                                {"final", ColumnType::integer, {}, true, false, "final"},
+                                                {"population", ColumnType::number, {}, true, false, "population"},
+                                                {"uncertainty", ColumnType::number, {}, true, false, "uncertainty"}};
+  const auto columns = bind_columns(t, specs, "populations");
+  LevelPairsData d;
+  d.info = info_of(t, columns, "");
+  const std::string expected = "a level index: a whole number >= 0 (0 is the ground level)";
+  struct Cell {
+    LevelPair pair;
+    double population, uncertainty;
+    int line;
+  };
+  std::vector<Cell> cells;
+  std::map<std::pair<int, int>, int> seen;
+  double sum = 0, variance = 0, information = 0;
+  for (const Row& r : t.rows) {
+    const LevelPair p{integer_field(t, r, columns.at("initial"), expected),
+                      integer_field(t, r, columns.at("final"), expected)};
+    const double population = number_field(t, r, columns.at("population"));
+    if (!(population >= 0 && population <= 1))
+      bad_field(t, r, columns.at("population"), "a population between 0 and 1 (the share of runs in this pair)");
+    const double u = number_field(t, r, columns.at("uncertainty"));
+    if (!(u > 0)) bad_field(t, r, columns.at("uncertainty"), "a standard uncertainty > 0");
+    const auto [at, fresh] = seen.insert({{p.initial, p.final}, r.line});
+    if (!fresh)
+      throw InputError("initial", std::to_string(p.initial) + ", " + std::to_string(p.final),
+                       "one row per level pair (this pair is also on line " + std::to_string(at->second) + ")", "",
+                       t.file, r.line, r.fields[std::size_t(columns.at("initial").index)].column);
+    cells.push_back({p, population, u, r.line});
+    sum += population;
+    variance += u * u;
+    information += population * (1 - population);
+  }
+  // The populations are shares of one set of runs: their sum is 1 within the uncertainties (3 sigma).
+  if (!(std::abs(sum - 1) <= 3 * std::sqrt(variance) + 1e-9))
+    throw InputError("population", short_number(sum),
+                     "populations summing to 1 within 3 x their combined uncertainty (" +
+                         short_number(3 * std::sqrt(variance)) + "): every (initial, final) pair measured, as shares "
+                         "of all runs",
+                     "", t.file, t.header_line, t.names[std::size_t(columns.at("population").index)].column);
+  // Runs: "# runs: N", else the effective number of binomial trials the uncertainties imply,
+  // N = sum p(1-p) / sum u^2 (u^2 = p(1-p)/N for a share of N runs; common practice).
+  double runs = 0;
+  if (t.runs) {
+    const auto n = exact_count(t.runs->text);
+    if (!n || *n < 1 || *n > most_population_runs)
+      throw InputError("runs", t.runs->text, "a whole number of runs, 1 to 2^24", "", t.file, t.runs->line,
+                       t.runs->column);
+    runs = double(*n);
+    d.origin = "populations of " + t.runs->text + " runs ('# runs:' line)";
+  } else {
+    runs = std::round(information / variance);
+    if (!(runs >= 1) || runs > double(most_population_runs))
+      throw InputError("uncertainty", short_number(runs),
+                       "uncertainties that imply between 1 and 2^24 runs (sum p(1-p) / sum u^2); or give '# runs: N'",
+                       "", t.file, t.header_line, t.names[std::size_t(columns.at("uncertainty").index)].column);
+    d.origin = "populations; " + short_number(runs) + " runs implied by the uncertainties (sum p(1-p) / sum u^2)";
+  }
+  for (const Cell& c : cells) {
+    const auto count = std::int64_t(std::llround(c.population * runs));
+    for (std::int64_t k = 0; k < count; ++k) {
+      d.runs.push_back(c.pair);
+      d.lines.push_back(c.line);
+    }
+  }
+  d.info.rows = int(cells.size());
+  if (d.runs.empty()) throw InputError("population", "0", "populations that give at least one run", "", t.file);
+  return d;
+}
+
 WorkHistogramData histogram_from(const Table& t) {
   // No keep column: a binned run cannot be rejected any more.
   static const std::vector<ColumnSpec> specs = {energy_column("lower"), energy_column("upper"),
@@ -601,23 +678,25 @@ const DataFileInfo& WorkData::info() const {
 
 WorkData read_work_data_text(std::string_view text, const std::string& file_name) {
   const Table t = split_table(text, file_name);
-  bool work = false, pairs = false, bins = false;
+  bool work = false, pairs = false, bins = false, populations = false;
   for (const auto& n : t.names) {
     work = work || n.text == "work" || n.text.rfind("work_", 0) == 0;
     pairs = pairs || n.text == "initial" || n.text == "final";
     bins = bins || n.text == "count";
+    populations = populations || n.text == "population";
   }
   WorkData d;
   if (int(work) + int(pairs) + int(bins) != 1)
     throw InputError("", "", "a header that fits no kind of work data: expected work samples (work_<unit>), "
-                             "level pairs (initial, final) or a histogram (lower_<unit>, upper_<unit>, count)",
+                             "level pairs (initial, final), populations (initial, final, population, uncertainty) "
+                             "or a histogram (lower_<unit>, upper_<unit>, count)",
                      "", file_name, t.header_line, 1);
   if (work) {
     d.kind = WorkDataKind::samples;
     d.samples = samples_from(t);
   } else if (pairs) {
     d.kind = WorkDataKind::level_pairs;
-    d.pairs = pairs_from(t);
+    d.pairs = populations ? populations_from(t) : pairs_from(t);
   } else {
     d.kind = WorkDataKind::histogram;
     d.histogram = histogram_from(t);

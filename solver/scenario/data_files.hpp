@@ -19,6 +19,12 @@
 // rows with keep = 0 are skipped, and the number skipped is reported, never hidden):
 //   work samples     work_<energy unit>                            one work value per run
 //   level pairs      initial, final                                level indices (>= 0) per run
+//   populations      initial, final, population, uncertainty       the share of all runs found in
+//                    each (initial, final) pair, as sideband analysis gives it, with its standard
+//                    uncertainty; one row per pair, shares summing to 1 within 3 x their combined
+//                    uncertainty. Read as level pairs: round(population x N) runs per pair, N from
+//                    a comment line "# runs: 2000" or else N = sum p(1-p) / sum u^2 (binomial
+//                    shares, common practice); LevelPairsData::origin says which.
 //   histogram        lower_<energy unit>, upper_<energy unit>, count
 //                    contiguous ascending bins [lower, upper), counts >= 0
 //   transition lines lower, upper, frequency_<unit>, uncertainty_<unit>[, linear_coefficient_<unit>]
@@ -80,7 +86,7 @@ struct TextTable {
   std::vector<TableField> names;
   std::vector<TableRow> rows;
   std::vector<int> comment_lines;  // whole-line comments, for the report
-  std::optional<TableDirective> unit, resolution;  // only read where a header is required
+  std::optional<TableDirective> unit, resolution, runs;  // only read where a header is required
   // "header line 1 (x, V), comment lines 2, 5": what was read but is not data ("" if nothing)
   std::string skipped() const;
 };
@@ -114,6 +120,7 @@ struct LevelPairsData {
   DataFileInfo info;
   std::vector<LevelPair> runs;
   std::vector<int> lines;
+  std::string origin;  // populations: where the runs come from ("" for one row per run)
 };
 LevelPairsData read_level_pairs_text(std::string_view text, const std::string& file_name);
 LevelPairsData read_level_pairs(const std::string& path);

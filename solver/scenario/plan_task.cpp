@@ -43,7 +43,8 @@ std::string sigma_text(const Display& d, double sigma) {
 }  // namespace
 
 std::vector<std::string> plan_output_names() {
-  return {"plan.csv", "plan_summary.json", "plan.png", "plan.svg", "synthetic_work.csv"};
+  return {"plan.csv",          "plan_summary.json", "plan.png", "plan.svg", "synthetic_work.csv",
+          "plan_decision.csv", "plan_decision.png", "plan_decision.svg"};
 }
 
 PlanTaskOutcome plan_task(const Scenario& scenario, const PlanSettings& settings, const TaskHooks& hooks,
@@ -51,6 +52,26 @@ PlanTaskOutcome plan_task(const Scenario& scenario, const PlanSettings& settings
   std::vector<double> resolutions;
   for (const auto& text : settings.resolutions) resolutions.push_back(energy_option(scenario, "--resolution", text));
   if (resolutions.empty()) resolutions.push_back(0);
+  if (settings.against) {  // how many runs tell the scenario from settings.against
+    if (resolutions.size() > 1)
+      throw InputError("--resolution", std::to_string(resolutions.size()) + " values", "one resolution with --against");
+    if (settings.synthetic_runs > 0)
+      throw InputError("--synthetic-runs", std::to_string(settings.synthetic_runs), "0 with --against");
+    if (checked) checked();
+    ScenarioWork work = model_work(scenario, hooks, "plan");
+    DecisionPlanSettings d;
+    d.against = *settings.against;
+    d.runs.assign(settings.runs.begin(), settings.runs.end());
+    d.resolution = resolutions.front();
+    d.confidence = settings.decision_confidence;
+    d.power = settings.power;
+    d.experiments = settings.experiments;
+    d.seed = settings.seed;
+    std::optional<DecisionPlanOutcome> decision = decision_plan(work.run(scenario), d, hooks);
+    PlanTaskOutcome o{scenario, settings, std::move(resolutions), std::move(work), {}, {}, {}, {}, {}, false};
+    o.decision = std::move(decision);
+    return o;
+  }
   if (settings.runs.empty()) throw InputError("--runs", "", "at least one number of runs");
   for (int n : settings.runs)
     if (n < 1) throw InputError("--runs", std::to_string(n), "numbers of runs >= 1");
@@ -111,6 +132,7 @@ PlanTaskOutcome plan_task(const Scenario& scenario, const PlanSettings& settings
 }
 
 std::vector<NamedTable> task_tables(const PlanTaskOutcome& o) {
+  if (o.decision) return {{"plan_decision.csv", decision_plan_table(*o.decision)}};
   const Display d = display(o.scenario);
   const WorkDistribution& dist = o.work.result().distribution;
   CsvTable table;
@@ -137,6 +159,9 @@ std::vector<NamedTable> task_tables(const PlanTaskOutcome& o) {
 
 nlohmann::ordered_json task_summary(const PlanTaskOutcome& o) {
   using json = nlohmann::ordered_json;
+  if (o.decision)
+    return with_provenance({{"command", "plan"}, {"scenario", o.scenario.file}, {"decision", decision_plan_json(*o.decision)}},
+                           o.scenario);
   const Display d = display(o.scenario);
   const WorkDistribution& dist = o.work.result().distribution;
   json needed = json::array();
@@ -173,6 +198,7 @@ std::vector<NamedText> task_texts(const PlanTaskOutcome& o) {
 // experiments (points) and the delta method (curve), the target as a horizontal line and the N
 // found for it marked, all inside the axis range.
 std::vector<NamedFigure> task_figures(const PlanTaskOutcome& o) {
+  if (o.decision) return {{"plan_decision", decision_plan_figure(*o.decision)}};
   const Display d = display(o.scenario);
   const WorkDistribution& dist = o.work.result().distribution;
   const PlanSettings& settings = o.settings;
@@ -236,6 +262,11 @@ void print_task_report(std::ostream& out, const PlanTaskOutcome& o) {
   const WorkDistribution& dist = o.work.result().distribution;
   const PlanSettings& settings = o.settings;
   print_scenario_header(out, "plan", o.scenario);
+  if (o.decision) {
+    for (const auto& w : work_warnings(o.work.run(o.scenario))) out << "  warning: model: " << w << '\n';
+    print_decision_plan(out, *o.decision);
+    return;
+  }
   print_row(out, "model", "beta Delta F = " + short_number(o.table.front().true_kT, 6) + " kT, kT = " +
                               short_number(d.energy(1 / dist.beta), 5) + " " + d.e + ", " +
                               std::to_string(dist.lines.size()) + " work lines");

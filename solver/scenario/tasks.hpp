@@ -22,6 +22,7 @@
 #include "solver/fit.hpp"
 #include "solver/plan.hpp"
 #include "solver/scenario/data_files.hpp"
+#include "solver/scenario/model_choice_task.hpp"
 #include "solver/scenario/output.hpp"
 #include "solver/scenario/plot.hpp"
 #include "solver/scenario/scenario.hpp"
@@ -172,6 +173,7 @@ struct CompareSettings {
   int resamples = 2000;
   std::uint64_t seed = 1;
   double confidence = 0.9;
+  ModelChoiceSettings models;  // --against: other scenarios to choose between (model_choice_task.hpp)
 };
 struct CompareTaskOutcome {
   Scenario scenario;
@@ -182,6 +184,7 @@ struct CompareTaskOutcome {
   WorkComparison comparison;
   std::string verdict;
   std::vector<double> edges, observed, expected;  // the table's and figure's bins (internal energy), runs
+  std::optional<ModelChoiceOutcome> choice;       // with --against
   // References into *this: keep the outcome in place while the run is used.
   WorkRun run() const { return work.run(scenario); }
 };
@@ -190,7 +193,9 @@ struct CompareTaskOutcome {
 // computes the model and the comparison.
 CompareTaskOutcome compare_task(const Scenario& scenario, const CompareSettings& settings,
                                 const TaskHooks& hooks = {}, const std::function<void()>& checked = {});
-std::vector<std::string> compare_output_names();  // compare.csv, compare_summary.json, compare.png, compare.svg
+// compare.csv, compare_summary.json, compare.png, compare.svg; with --against also compare_models.csv
+// and compare_models.png/.svg.
+std::vector<std::string> compare_output_names();
 
 // ---- plan ----------------------------------------------------------------------------------
 struct PlanSettings {
@@ -201,6 +206,10 @@ struct PlanSettings {
   std::uint64_t seed = 1;
   bool correct_resolution = false;
   int synthetic_runs = 0;
+  // --against: how many runs tell the scenario from this one (model_choice_task.hpp), instead of
+  // the Jarzynski plan; one resolution (0: level pairs are measured).
+  std::optional<Scenario> against;
+  double power = 0.9, decision_confidence = 0.95;
 };
 struct PlanTaskOutcome {
   Scenario scenario;
@@ -213,12 +222,15 @@ struct PlanTaskOutcome {
   std::vector<double> synthetic;                  // synthetic runs' work (internal energy)
   CostEstimate cost;                              // of the synthetic experiments
   bool long_plan = false;                         // estimated above long_run_seconds (said in a notice)
+  std::optional<DecisionPlanOutcome> decision;    // with --against (then table, needed are empty)
 };
 // Checks the settings and the thermal initial state, says the cost of a long plan (notice),
 // calls `checked` (if set), then computes the model, the estimator table and runs_needed.
 PlanTaskOutcome plan_task(const Scenario& scenario, const PlanSettings& settings, const TaskHooks& hooks = {},
                           const std::function<void()>& checked = {});
-std::vector<std::string> plan_output_names();  // plan.csv, plan_summary.json, plan.png/.svg, synthetic_work.csv
+// plan.csv, plan_summary.json, plan.png/.svg, synthetic_work.csv; with --against plan_decision.csv,
+// plan_summary.json and plan_decision.png/.svg instead.
+std::vector<std::string> plan_output_names();
 
 // ---- outputs of every outcome ----------------------------------------------------------------
 // task_tables: the CSV files' tables, in file order; task_summary: the summary JSON file's

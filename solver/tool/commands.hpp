@@ -167,6 +167,13 @@ struct CompareCommand {
   int resamples = 2000;
   std::uint64_t seed = 1;
   double confidence = 0.9;
+  // --against: other scenarios to choose between, with the options of ModelChoiceSettings
+  // (solver/scenario/model_choice_task.hpp).
+  std::vector<std::string> against;
+  int calibration = 1000;
+  double decision_confidence = 0.95;
+  std::vector<int> fitted_parameters;
+  std::vector<double> prior;
   bool quiet = false;
   bool show_progress = false;
 };
@@ -174,6 +181,7 @@ struct CompareOutcome {
   WorkComparison comparison;
   std::string verdict;
   std::vector<std::filesystem::path> files;
+  std::optional<ModelChoiceOutcome> choice;  // with --against
 };
 void add_compare_command(CLI::App& app);
 CompareOutcome run_compare_command(const CompareCommand& command, std::ostream& out, std::ostream& progress);
@@ -193,6 +201,8 @@ struct PlanCommand {
   std::uint64_t seed = 1;
   bool correct_resolution = false;
   int synthetic_runs = 0;
+  std::string against;  // --against SCENARIO: runs needed to tell the two apart (PlanSettings::against)
+  double power = 0.9, decision_confidence = 0.95;
   bool quiet = false;
   bool show_progress = false;
 };
@@ -201,6 +211,7 @@ struct PlanOutcome {
   std::vector<std::optional<RunsNeeded>> needed;  // per resolution, with --target
   std::vector<std::string> refusals;              // why a target is not reachable ("" if it is)
   std::vector<std::filesystem::path> files;
+  std::optional<DecisionPlanOutcome> decision;    // with --against
 };
 void add_plan_command(CLI::App& app);
 PlanOutcome run_plan_command(const PlanCommand& command, std::ostream& out, std::ostream& progress);

@@ -26,17 +26,25 @@ CompareOutcome run_compare_command(const CompareCommand& command, std::ostream& 
   settings.resamples = command.resamples;
   settings.seed = command.seed;
   settings.confidence = command.confidence;
+  for (const auto& file : command.against) settings.models.against.push_back(load_scenario(file));
+  settings.models.calibration = command.calibration;
+  settings.models.seed = command.seed;
+  settings.models.confidence = command.decision_confidence;
+  settings.models.fitted_parameters = command.fitted_parameters;
+  settings.models.prior = command.prior;
   std::optional<OutputRun> output;
   TaskBar bar(progress, command.show_progress);
   const CompareTaskOutcome task =
       compare_task(scenario, settings, bar.hooks(command.show_progress ? notice_to(progress) : nullptr), [&] {
         std::vector<OutputRun::Input> inputs = scenario_inputs(scenario);
         inputs.push_back({command.data, "the data file"});
+        for (const auto& other : settings.models.against)
+          for (const auto& input : scenario_inputs(other)) inputs.push_back(input);
         output.emplace(scenario.output_folder, compare_output_names(), inputs,
                        "trapwork compare " + scenario.file + " " + command.data);
       });
   bar.finish();
-  CompareOutcome outcome{task.comparison, task.verdict, {}};
+  CompareOutcome outcome{task.comparison, task.verdict, {}, task.choice};
   outcome.files = commit_and_report(*output, task, out, command.quiet);
   return outcome;
 }
@@ -64,6 +72,27 @@ void add_compare_command(CLI::App& app) {
   sub->add_option("--confidence", command->confidence, "confidence level of the bootstrap interval")
       ->capture_default_str()
       ->check(CLI::Range(0.5, 0.9999));
+  sub->add_option("--against", command->against,
+                  "another scenario to choose between (repeatable): log-likelihoods, AIC/BIC, posterior odds, the "
+                  "likelihood-ratio test calibrated by synthetic data sets, a verdict; writes compare_models.csv "
+                  "and compare_models.png/.svg");
+  sub->add_option("--calibration", command->calibration,
+                  "with --against: synthetic data sets per model for the likelihood-ratio p-values (0: none)")
+      ->capture_default_str()
+      ->check(CLI::Range(0, 10000000));
+  sub->add_option("--decision-confidence", command->decision_confidence,
+                  "with --against: confidence of the verdict")
+      ->capture_default_str()
+      ->check(CLI::Range(0.5, 0.999999));
+  sub->add_option("--fitted-parameters", command->fitted_parameters,
+                  "with --against: parameters of each model fitted to these very data, the scenario first "
+                  "(comma-separated; default 0: the models are fixed)")
+      ->delimiter(',')
+      ->check(CLI::Range(0, 1000));
+  sub->add_option("--prior", command->prior,
+                  "with --against: prior weights of the models, the scenario first (comma-separated, e.g. 1,3; "
+                  "default equal)")
+      ->delimiter(',');
   sub->add_option("-o,--output", command->output, "output folder (overrides [output] folder)");
   sub->add_flag("--quiet", command->quiet, "print nothing but errors");
   add_set_option(sub, command->set);

@@ -22,6 +22,9 @@ PlanOutcome run_plan_command(const PlanCommand& command, std::ostream& out, std:
   settings.seed = command.seed;
   settings.correct_resolution = command.correct_resolution;
   settings.synthetic_runs = command.synthetic_runs;
+  if (!command.against.empty()) settings.against = load_scenario(command.against);
+  settings.power = command.power;
+  settings.decision_confidence = command.decision_confidence;
   std::optional<OutputRun> output;
   TaskBar bar(progress, command.show_progress);
   // The plan's cost estimate is said unless --quiet, the model run's only with the progress bar.
@@ -34,11 +37,13 @@ PlanOutcome run_plan_command(const PlanCommand& command, std::ostream& out, std:
     stage(name);
   };
   const PlanTaskOutcome task = plan_task(scenario, settings, hooks, [&] {
-    output.emplace(scenario.output_folder, plan_output_names(), scenario_inputs(scenario),
-                   "trapwork plan " + scenario.file);
+    std::vector<OutputRun::Input> inputs = scenario_inputs(scenario);
+    if (settings.against)
+      for (const auto& input : scenario_inputs(*settings.against)) inputs.push_back(input);
+    output.emplace(scenario.output_folder, plan_output_names(), inputs, "trapwork plan " + scenario.file);
   });
   bar.finish();
-  PlanOutcome outcome{task.table, task.needed, task.refusals, {}};
+  PlanOutcome outcome{task.table, task.needed, task.refusals, {}, task.decision};
   outcome.files = commit_and_report(*output, task, out, command.quiet);
   return outcome;
 }
@@ -78,6 +83,16 @@ void add_plan_command(CLI::App& app) {
                   "also write synthetic_work.csv: this many runs drawn from the model with the first resolution, "
                   "in the layout `trapwork compare` reads")
       ->check(CLI::Range(0, 100000000));
+  sub->add_option("--against", command->against,
+                  "another scenario: instead of the Delta F plan, how many runs N tell the two apart (likelihood-ratio "
+                  "test, synthetic experiments from each; one --resolution, 0 meaning level pairs are measured); "
+                  "writes plan_decision.csv, plan_summary.json and plan_decision.png/.svg");
+  sub->add_option("--power", command->power, "with --against: probability of rejecting the wrong model asked for")
+      ->capture_default_str()
+      ->check(CLI::Range(0.5, 0.9999));
+  sub->add_option("--decision-confidence", command->decision_confidence, "with --against: confidence of the test")
+      ->capture_default_str()
+      ->check(CLI::Range(0.5, 0.999999));
   sub->add_option("-o,--output", command->output, "output folder (overrides [output] folder)");
   sub->add_flag("--quiet", command->quiet, "print nothing but errors");
   add_set_option(sub, command->set);
