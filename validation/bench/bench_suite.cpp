@@ -738,7 +738,8 @@ int main(int argc, char** argv) {
       r.floor_s = floor.wall_s;
       if (threads == 1) job_1 = r.m.wall_s;
       r.note = text("whole process; floor: %.0f kept columns x %.0f", kept, points) +
-               text(" pts x %.0f Strang substeps (%.2f s)", steps, floor.wall_s);
+               text(" pts x %.0f Strang substeps (%.2f s)", steps, floor.wall_s) +
+               text("; CPU time this/floor = %.2f (steadier on a shared machine)", r.m.cpu_s / floor.cpu_s);
       if (threads == 2) r.note += text("; 1 thread / 2 threads = %.2f", job_1 / r.m.wall_s);
       if (tools.size() > 1) r.note += "; tool " + tool;
       print_row(r);
