@@ -541,6 +541,9 @@ bool same_numerics(const Propagated& p, const Grid& g, int steps) {
 // residual tolerance, so that the result is a fresh propagation's to rounding; a state that
 // moved more is propagated again.
 constexpr double carried_state_tolerance = 1e-11;
+// At most this much is carried per run (states at tau and initial states): memory beside the
+// propagation's own, as much as SpectrumMemo keeps by default.
+constexpr double carried_bytes = 256.0 * (1 << 20);
 
 // basis: the eigenbasis integrator's reference spectrum (of the same Hamiltonian as
 // `initial`, possibly with more levels); null for the split-operator integrators.
@@ -648,7 +651,10 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
       }
     }
   }
-  if (carry && tau > 0 && request.integrator != Integrator::eigenbasis)
+  // kept only up to carried_bytes (a retry then propagates everything again, as before)
+  if (carry) carry->reset();
+  if (carry && tau > 0 && request.integrator != Integrator::eigenbasis &&
+      double(psi.size() + start.size()) * sizeof(std::complex<double>) <= carried_bytes)
     *carry = Propagated{path.grid(), steps, start, psi, run.max_phase,
                         trace ? std::optional<TraceColumns>(trace->data) : std::nullopt};
   const Eigen::Index n = psi.rows(), edge = std::max<Eigen::Index>(1, n / 50);
