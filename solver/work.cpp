@@ -408,29 +408,46 @@ struct Run {
   Eigen::MatrixXcd amplitudes;  // A(n, m)
   StateEnergies energies;       // of the final states under H_B (v_final given)
   double norm_drift = 0, edge_amplitude = 0, max_phase = 0, arithmetic = 0;
+  int carried = 0;  // states taken from an earlier attempt (Propagated), not propagated
   std::string thread_shortfall;  // the threads the system refused to start, with its reason
 };
 
-// Records WorkTraces of one run at every `interval`-th step and at the last (see work.hpp).
+// What TraceRecorder records (see there), kept apart so that run_work's next attempt can carry it.
+struct TraceColumns {
+  int interval = 1;
+  std::vector<double> time;
+  // per recorded time: rows sum_j x_j |psi_j|^2, sum_j |psi_j|^2, energy, populations of the
+  // lowest trace levels (NaN where not computed); one column per propagated state
+  std::vector<Eigen::MatrixXd> columns;
+  // per recorded time, the instantaneous spectrum solved there (empty where H_A or H_B served or
+  // the solve failed); a later attempt measures its states against the same ones
+  std::vector<std::optional<Spectrum>> solved;
+  std::string failure;  // the first instantaneous spectrum that could not be solved (empty: none)
+};
+
+// Records WorkTraces of one run at every `interval`-th step and at the last (see work.hpp): per
+// recorded time, each propagated state's position, energy and populations (TraceColumns),
+// summed with the thermal weights by traces() at the end, so that a later attempt of run_work
+// (more levels) can carry the states it does not propagate again (see Carried).
 struct TraceRecorder {
   const Potential& base;
   const Protocol& protocol;
   const Spectrum& initial;  // H_A on the run's grid (frame)
   const Spectrum& final;    // H_B on the run's grid (frame)
-  const std::vector<double>& weights;
   SpectrumOptions options;  // levels = trace_levels
   double cutoff = 0;
-  int interval = 1, steps = 1;
-  WorkTraces traces;
-  std::string failure;  // the first instantaneous spectrum that could not be solved (empty: none)
+  int steps = 1;
+  TraceColumns data;                     // data.interval: record every that many steps
+  const TraceColumns* earlier = nullptr;  // its solved spectra are used instead of solving again
 
   bool due(double t, double tau) const {
     const long i = std::lround(t / tau * steps);
-    return i % interval == 0 || i == steps;
+    return i % data.interval == 0 || i == steps;
   }
-  // frame_states: the run's states at t (columns = kept initial levels) on path.grid().
+  // frame_states: the run's states at t (columns = the propagated initial levels) on path.grid().
   void record(const PotentialPath& path, const Eigen::MatrixXcd& frame_states, double t) {
     const double tau = protocol.duration();
+    const std::size_t k = data.time.size();
     Eigen::MatrixXcd lab = frame_states;
     path.to_lab(lab, t);
     const Grid& grid = path.grid();
@@ -441,19 +458,23 @@ struct TraceRecorder {
     const StateEnergies e = state_energies(grid, v, lab);
     // The instantaneous eigenstates: a co-moving run's H(t) is H_A carried along (same samples
     // on the frame grid); otherwise H_A, H_B at the ends and a spectrum of its own in between.
-    Spectrum solved;
+    std::optional<Spectrum> here;
     const Spectrum* now = &initial;
     if (!path.is_co_moving() && t > 0) {
       if (t == tau) {
         now = &final;
+      } else if (earlier && k < earlier->time.size() && earlier->time[k] == t) {
+        here = earlier->solved[k];  // nullopt where its solve failed
+        now = here ? &*here : nullptr;
+        if (!here && data.failure.empty()) data.failure = earlier->failure;
       } else {
         std::vector<double> capped = v;
         cap_potential(capped, *std::min_element(capped.begin(), capped.end()), cutoff);
         try {
-          solved = solve_spectrum(grid, capped, options);
-          now = &solved;
+          here = solve_spectrum(grid, capped, options);
+          now = &*here;
         } catch (const PhysicsError& e) {  // the traces never stop the run: this point's populations stay NaN
-          if (failure.empty()) failure = e.what();
+          if (data.failure.empty()) data.failure = e.what();
           now = nullptr;
         }
       }
@@ -461,26 +482,74 @@ struct TraceRecorder {
     const int levels = now ? std::min<int>(options.levels, int(now->energies.size())) : 0;
     const Eigen::MatrixXd a2 =
         now ? Eigen::MatrixXd(project(*now, lab).topRows(levels).cwiseAbs2()) : Eigen::MatrixXd(0, lab.cols());
-    double xm = 0, em = 0;
-    Eigen::RowVectorXd pop = Eigen::RowVectorXd::Zero(options.levels);
+    Eigen::MatrixXd c = Eigen::MatrixXd::Constant(3 + options.levels, lab.cols(), std::numeric_limits<double>::quiet_NaN());
     for (Eigen::Index m = 0; m < lab.cols(); ++m) {
-      const double p = weights[std::size_t(m)];
       const Eigen::VectorXd rho = lab.col(m).cwiseAbs2();
-      const double norm = rho.sum();
       double first = 0;
       for (Eigen::Index j = 0; j < rho.size(); ++j) first += x[std::size_t(j)] * rho[j];
-      xm += p * first / norm;
-      em += p * e.energy[m];
-      pop.head(levels) += p * a2.col(m).transpose();
+      c(0, m) = first;
+      c(1, m) = rho.sum();
+      c(2, m) = e.energy[m];
+      c.col(m).segment(3, levels) = a2.col(m);
     }
-    for (int n = levels; n < options.levels; ++n) pop[n] = std::numeric_limits<double>::quiet_NaN();
-    traces.time.push_back(t);
-    traces.position_mean.push_back(xm);
-    traces.energy_mean.push_back(em);
-    traces.populations.conservativeResize(traces.populations.rows() + 1, options.levels);
-    traces.populations.row(traces.populations.rows() - 1) = pop;
+    data.time.push_back(t);
+    data.columns.push_back(std::move(c));
+    data.solved.push_back(std::move(here));
+  }
+  // The traces of the initial state: the recorded columns summed with its weights.
+  WorkTraces traces(const std::vector<double>& weights) const {
+    WorkTraces out;
+    out.time = data.time;
+    out.populations.resize(Eigen::Index(data.time.size()), options.levels);
+    for (std::size_t k = 0; k < data.time.size(); ++k) {
+      const Eigen::MatrixXd& c = data.columns[k];
+      TRAPWORK_EXPECT(std::size_t(c.cols()) == weights.size(), "TraceRecorder: one column per weight");
+      double xm = 0, em = 0;
+      Eigen::RowVectorXd pop = Eigen::RowVectorXd::Zero(options.levels);
+      for (Eigen::Index m = 0; m < c.cols(); ++m) {
+        const double p = weights[std::size_t(m)];
+        xm += p * c(0, m) / c(1, m);
+        em += p * c(2, m);
+        pop += p * c.col(m).tail(options.levels).transpose();
+      }
+      out.position_mean.push_back(xm);
+      out.energy_mean.push_back(em);
+      out.populations.row(Eigen::Index(k)) = pop;
+    }
+    return out;
   }
 };
+
+// What an attempt of run_work propagated in one run (forward, half-step or reverse), kept for
+// its next attempt, which asks for more levels with the same numerics: the initial states
+// propagated, their states at tau (lab frame) and, for the forward run, their traces. The next
+// attempt propagates only the states that are new or whose eigenvector moved (propagate_run).
+struct Propagated {
+  Grid grid = Grid::periodic(0, 1, 4);
+  int steps = 0;
+  Eigen::MatrixXd initial;  // one column per initial state propagated
+  Eigen::MatrixXcd final;   // its state at tau, lab frame
+  double max_phase = 0;
+  std::optional<TraceColumns> trace;  // the forward run's, when it recorded traces
+};
+struct Carried {
+  std::optional<Propagated> forward, half, reverse;
+};
+
+// Whether a carried run was made on this grid with this many steps.
+bool same_numerics(const Propagated& p, const Grid& g, int steps) {
+  return p.grid.boundary() == g.boundary() && p.grid.left() == g.left() && p.grid.right() == g.right() &&
+         p.grid.size() == g.size() && p.steps == steps;
+}
+
+// A carried state is used again when the eigenvector solved now equals the carried one to this
+// distance (sqrt(dx) ||psi_now -+ psi_carried||, unit-norm states), far below the eigensolver's
+// residual tolerance, so that the result is a fresh propagation's to rounding; a state that
+// moved more is propagated again.
+constexpr double carried_state_tolerance = 1e-11;
+// At most this much is carried per run (states at tau and initial states): memory beside the
+// propagation's own, as much as SpectrumMemo keeps by default.
+constexpr double carried_bytes = 256.0 * (1 << 20);
 
 // basis: the eigenbasis integrator's reference spectrum (of the same Hamiltonian as
 // `initial`, possibly with more levels); null for the split-operator integrators.
@@ -490,11 +559,39 @@ constexpr int planning_substeps = 4096;
 Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spectrum& final, const Spectrum* basis,
                   const std::vector<double>& v_initial, int kept, int steps, const WorkRequest& request,
                   const OdeTolerances& ode, const std::function<void(double)>& progress,
-                  const std::vector<double>* v_final = nullptr, TraceRecorder* trace = nullptr) {
+                  const std::vector<double>* v_final = nullptr, TraceRecorder* trace = nullptr,
+                  std::optional<Propagated>* carry = nullptr) {
   const double tau = path.protocol().duration();
-  Eigen::MatrixXcd psi = initial.states.leftCols(kept).cast<std::complex<double>>();
+  const Eigen::MatrixXd start = initial.states.leftCols(kept);
+  const double dx = path.grid().spacing();
+  // An earlier attempt's run of the same numerics (carry, see Propagated): its states at tau
+  // serve again where the eigenvector is the same to carried_state_tolerance (up to its sign,
+  // which the state at tau takes along); the others are propagated now.
+  const Propagated* earlier = nullptr;
+  if (carry && *carry && tau > 0 && request.integrator != Integrator::eigenbasis) {
+    const Propagated& e = **carry;
+    if (same_numerics(e, path.grid(), steps) && bool(e.trace) == bool(trace) &&
+        (!trace || e.trace->interval == trace->data.interval))
+      earlier = &e;
+
+  }
   Run run;
-  if (tau > 0) {
+  std::vector<double> sign(std::size_t(kept), 0.0);  // +-1: carried, 0: propagated now
+  std::vector<Eigen::Index> now;                      // the states propagated now
+  for (int m = 0; m < kept; ++m) {
+    if (earlier && m < earlier->initial.cols()) {
+      const double s = earlier->initial.col(m).dot(start.col(m)) < 0 ? -1.0 : 1.0;
+      if (std::sqrt(dx) * (start.col(m) - s * earlier->initial.col(m)).norm() <= carried_state_tolerance) {
+        sign[std::size_t(m)] = s;
+        ++run.carried;
+        continue;
+      }
+    }
+    now.push_back(m);
+  }
+  Eigen::MatrixXcd psi(start.rows(), Eigen::Index(now.size()));
+  for (std::size_t i = 0; i < now.size(); ++i) psi.col(Eigen::Index(i)) = start.col(now[i]).cast<std::complex<double>>();
+  if (tau > 0 && !now.empty()) {
     path.from_lab(psi, 0);
     auto observer = [&](const Eigen::MatrixXcd&, double t) {
       if (progress) progress(t / tau);
@@ -515,7 +612,7 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
       // per shape, more than it saves below ~4096 substeps (measured: the --tolerance search on
       // the built-in scenario, 53..3440 order-4 steps, ran in about 0.6 of the time).
       const int substeps = steps * (order == SplitOrder::fourth ? 3 : 1);
-      SplitOperatorPropagator prop(path, kept, order, request.threads,
+      SplitOperatorPropagator prop(path, int(now.size()), order, request.threads,
                                    substeps < planning_substeps ? FftPlanning::estimate : FftPlanning::measure);
       if (prop.threads() < request.threads)
         run.thread_shortfall = "propagated with " + std::to_string(prop.threads()) + " of " +
@@ -525,15 +622,47 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
       // path between observations (max_phase() covers all steps since the last call).
       // With traces, observed at their points instead (max_phase() is then taken over fewer steps).
       propagate(prop, psi, 0.0, tau, steps,
-                observe_every(trace ? trace->interval : finite_check_interval, [&](const Eigen::MatrixXcd& s, double t) {
-                  run.max_phase = std::max(run.max_phase, prop.max_phase());
-                  if (trace && trace->due(t, tau)) trace->record(path, s, t);
-                  observer(s, t);
-                }));
+                observe_every(trace ? trace->data.interval : finite_check_interval,
+                              [&](const Eigen::MatrixXcd& s, double t) {
+                                run.max_phase = std::max(run.max_phase, prop.max_phase());
+                                if (trace && trace->due(t, tau)) trace->record(path, s, t);
+                                observer(s, t);
+                              }));
     }
     path.to_lab(psi, tau);
   }
-  const double dx = path.grid().spacing();
+  if (earlier) {  // the carried states, in their places
+    Eigen::MatrixXcd all(start.rows(), kept);
+    for (std::size_t m = 0, i = 0; m < sign.size(); ++m)
+      all.col(Eigen::Index(m)) = sign[m] != 0 ? (sign[m] * earlier->final.col(Eigen::Index(m))).eval()
+                                              : psi.col(Eigen::Index(i++));
+    psi = std::move(all);
+    run.max_phase = std::max(run.max_phase, earlier->max_phase);
+    if (trace) {
+      const TraceColumns& old = *earlier->trace;
+      TraceColumns& t = trace->data;
+      if (t.time.empty()) {  // nothing propagated now
+        t.time = old.time;
+        t.solved = old.solved;
+        t.failure = old.failure;
+        t.columns.assign(old.time.size(), Eigen::MatrixXd(3 + trace->options.levels, 0));
+      }
+      TRAPWORK_EXPECT(t.time == old.time, "propagate_run: the carried traces were recorded at other times");
+      for (std::size_t k = 0; k < t.time.size(); ++k) {
+        Eigen::MatrixXd full(t.columns[k].rows(), kept);
+        for (std::size_t m = 0, i = 0; m < sign.size(); ++m)
+          full.col(Eigen::Index(m)) = sign[m] != 0 ? old.columns[k].col(Eigen::Index(m)).eval()
+                                                   : t.columns[k].col(Eigen::Index(i++)).eval();
+        t.columns[k] = std::move(full);
+      }
+    }
+  }
+  // kept only up to carried_bytes (a retry then propagates everything again, as before)
+  if (carry) carry->reset();
+  if (carry && tau > 0 && request.integrator != Integrator::eigenbasis &&
+      double(psi.size() + start.size()) * sizeof(std::complex<double>) <= carried_bytes)
+    *carry = Propagated{path.grid(), steps, start, psi, run.max_phase,
+                        trace ? std::optional<TraceColumns>(trace->data) : std::nullopt};
   const Eigen::Index n = psi.rows(), edge = std::max<Eigen::Index>(1, n / 50);
   for (Eigen::Index c = 0; c < psi.cols(); ++c) {
     run.norm_drift = std::max(run.norm_drift, std::abs(psi.col(c).squaredNorm() * dx - 1));
@@ -649,7 +778,8 @@ std::optional<HarmonicComparison> harmonic_comparison(const Potential& base, con
   return h;
 }
 
-WorkResult run_work_once(const Potential& base, const Protocol& protocol, const WorkRequest& request) {
+// carried: what the previous attempt propagated (run_work), updated with this attempt's runs.
+WorkResult run_work_once(const Potential& base, const Protocol& protocol, const WorkRequest& request, Carried& carried) {
   protocol.check(base);
   const double tau = protocol.duration();
   const auto translation = protocol.translation(base);
@@ -811,15 +941,21 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
       const double solve = spectrum_cost(grid.size(), options.levels, options.method == EigenMethod::dense).operations;
       points = std::min(points, std::max(9, int(std::min(1e6, 0.05 * run / solve))));
     }
-    trace.emplace(TraceRecorder{base, protocol, sa, sb, wa.weights, options, cutoff,
-                                std::max(1, (steps + points - 2) / (points - 1)), steps, {}, {}});
+    trace.emplace(TraceRecorder{base, protocol, sa, sb, options, cutoff, steps, {}, nullptr});
+    trace->data.interval = std::max(1, (steps + points - 2) / (points - 1));
+    // A later attempt records where the earlier one did (the point count above follows the
+    // run's cost, which grows with the levels), so that the states it carries have their traces.
+    if (carried.forward && carried.forward->trace && same_numerics(*carried.forward, grid, steps)) {
+      trace->earlier = &*carried.forward->trace;
+      trace->data.interval = trace->earlier->interval;
+    }
   }
   Run fwd = propagate_run(forward_path, sa, sb, &basis_a, v_a, kept_a, steps, request, request.ode, progress(0, share),
-                          &v_b, trace ? &*trace : nullptr);
-  if (trace && !trace->failure.empty())
+                          &v_b, trace ? &*trace : nullptr, &carried.forward);
+  if (trace && !trace->data.failure.empty())
     result.diagnostics.warnings.push_back("time traces: an instantaneous spectrum could not be solved (" +
-                                          trace->failure + "); the populations are left empty (nan) there");
-  if (trace) result.traces = std::move(trace->traces);
+                                          trace->data.failure + "); the populations are left empty (nan) there");
+  if (trace) result.traces = trace->traces(wa.weights);
   else result.traces.absent = tau == 0 ? "not computed for a sudden switch (tau = 0: no time evolution)"
                                        : "not asked for (trace_points < 2 or trace_levels < 1)";
 
@@ -834,6 +970,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   diag.max_phase_per_step = fwd.max_phase;
   diag.ode_arithmetic = fwd.arithmetic;
   diag.ode_basis_levels = int(basis_a.energies.size());
+  diag.carried_states = fwd.carried;
   if (!fwd.thread_shortfall.empty()) diag.warnings.push_back(fwd.thread_shortfall);
   diag.unresolved_weight = result.distribution.unresolved_weight;
   diag.jarzynski_residual = result.distribution.jarzynski_residual;
@@ -842,7 +979,8 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
 
   if (request.time_step_check && tau > 0) {
     OdeTolerances tighter{request.ode.absolute / 100, request.ode.relative / 100};
-    Run half = propagate_run(forward_path, sa, sb, &basis_a, v_a, kept_a, 2 * steps, request, tighter, progress(share, 3 * share));
+    Run half = propagate_run(forward_path, sa, sb, &basis_a, v_a, kept_a, 2 * steps, request, tighter,
+                             progress(share, 3 * share), nullptr, nullptr, &carried.half);
     diag.time_step_error =
         (transition_matrix(half.amplitudes).probability - result.forward.transitions.probability).cwiseAbs().maxCoeff();
   }
@@ -862,7 +1000,8 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
     const double from = 1.0 - share;
     const auto v_b = samples(vb, x);
     const Spectrum basis_b = eigenbasis ? basis_for(grid_r, v_b) : Spectrum{};
-    Run rev = propagate_run(path, rb, ra, &basis_b, v_b, kept_b, steps, request, request.ode, progress(from, 1));
+    Run rev = propagate_run(path, rb, ra, &basis_b, v_b, kept_b, steps, request, request.ode, progress(from, 1),
+                            nullptr, nullptr, &carried.reverse);
     result.reverse = WorkInput{transition_matrix(rev.amplitudes), rb.energies, ra.energies, wb.weights, rb.group, ra.group,
                                wa.beta};
     result.reverse_distribution = work_distribution(*result.reverse, request.merge_tolerance);
@@ -958,15 +1097,23 @@ std::optional<HarmonicMoments> harmonic_moments(const Potential& base, const Pro
 // most twice (the cost bound); moments still missing then are a warning naming the cause.
 WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkRequest& request) {
   WorkRequest r = request;
+  Carried carried;  // an attempt propagates only the states the previous one did not
+  // Spectra asked for twice (the preliminary spectrum of a fixed grid is the run's own when its
+  // capped samples agree) are solved once; a caller's memo serves instead when it gives one.
+  if (!r.spectrum.options.memo) r.spectrum.options.memo = std::make_shared<SpectrumMemo>();
   for (int attempt = 0;; ++attempt) {
-    WorkResult result = run_work_once(base, protocol, r);
+    WorkResult result = run_work_once(base, protocol, r, carried);
     const Diagnostics& d = result.diagnostics;
     const double escape = std::max(d.unresolved_weight, d.truncation.reverse_tail);
     const bool moments = d.moments.mean_met() && d.moments.variance_met();
     if ((!(escape > r.unresolved_tolerance) && moments) || attempt == 2) {
       if (attempt > 0)
         result.diagnostics.notes.push_back(
-            enlargement_note(attempt, escape, d.moments, r.final_margin, r.thermal_tolerance));
+            enlargement_note(attempt, escape, d.moments, r.final_margin, r.thermal_tolerance) +
+            (d.carried_states > 0 ? "; " + std::to_string(d.carried_states) + " of " +
+                                        std::to_string(result.forward.transitions.initial_levels()) +
+                                        " initial states carried over from the previous run, not propagated again"
+                                  : ""));
       return result;
     }
     r.final_margin *= 2;

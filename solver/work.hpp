@@ -215,6 +215,9 @@ struct Diagnostics {
   double crooks_ratio_error = std::numeric_limits<double>::quiet_NaN();
   double ode_arithmetic = 0;      // eigenbasis: estimated operations of the forward run (0: split)
   int ode_basis_levels = 0;       // eigenbasis: levels of its basis (0: split)
+  // Forward initial states not propagated again after run_work enlarged the levels: the
+  // previous attempt's states at tau, whose eigenvectors agree to 1e-11 (0: none carried).
+  int carried_states = 0;
   MomentErrors moments;           // direct moments and the error of the line moments
   // Cost estimated before the propagation (solver/cost.hpp, work_cost) from the sizes chosen:
   // peak memory of the large arrays (bytes) and the propagations' floating-point operations.

@@ -559,3 +559,52 @@ TEST_CASE("a table ramp of a trap centre runs in the lab frame, not the co-movin
   CHECK_THROWS_WITH(run_work(trap, ramp, request), Catch::Contains("table ramp of trap.centre") &&
                                                        Catch::Contains("frame = \"lab\""));
 }
+
+// Issue 21: when run_work repeats a run with more levels (the escape probability was above its
+// tolerance), the states the previous attempt propagated on the same grid and steps are
+// carried over instead of propagated again; the result is the one-attempt run at the enlarged
+// settings, to rounding.
+TEST_CASE("issue 21: an enlarged run carries the states already propagated", "[work][issue21]") {
+  const Potential trap({Term("trap", Shape::polynomial, {{"frequency", 1.0}, {"quartic", 0.05}})});
+  const Protocol move(4, {Schedule::linear("trap.centre", 0.0, 2.0)});
+  WorkRequest request;
+  request.initial = InitialState::thermal(0.5);
+  request.spectrum.extent = std::pair{-7.0, 9.0};  // a fixed grid: the same in every attempt
+  request.spectrum.points = 256;
+  request.integrator = Integrator::strang;
+  request.steps = 400;
+  request.co_moving = false;
+  request.reverse_run = false;
+  request.time_step_check = false;
+  request.final_margin = 2;  // far too few final levels: the run is repeated with more
+  const WorkResult enlarged = run_work(trap, move, request);
+  REQUIRE(enlarged.diagnostics.notes.size() == 1);
+  CHECK_THAT(enlarged.diagnostics.notes[0], Catch::Contains("levels enlarged 1 time") &&
+                                                Catch::Contains("initial states carried over"));
+  const int kept = enlarged.forward.transitions.initial_levels();
+  CHECK(enlarged.diagnostics.carried_states > 0);
+  CHECK(enlarged.diagnostics.carried_states < kept);  // the tighter thermal cut added states
+
+  // the same run in one attempt at the enlarged settings (run_work doubles the margin and the
+  // initial levels and tightens the thermal cut 1000 times)
+  WorkRequest direct = request;
+  direct.final_margin *= 2;
+  direct.max_initial_levels *= 2;
+  direct.thermal_tolerance /= 1e3;
+  const WorkResult once = run_work(trap, move, direct);
+  CHECK(once.diagnostics.notes.empty());
+  CHECK(once.diagnostics.carried_states == 0);
+  REQUIRE(once.forward.transitions.initial_levels() == kept);
+  REQUIRE(once.forward.transitions.final_levels() == enlarged.forward.transitions.final_levels());
+  // Carried states agree with the ones solved now to 1e-11 in norm (carried_state_tolerance),
+  // so each probability moves by at most about 2e-11; the rest is rounding of the propagation.
+  const double line = (once.forward.transitions.probability - enlarged.forward.transitions.probability).cwiseAbs().maxCoeff();
+  CHECK(line < 1e-10);
+  CHECK(std::abs(once.distribution.mean - enlarged.distribution.mean) < 1e-10);
+  CHECK(enlarged.diagnostics.norm_drift == Approx(once.diagnostics.norm_drift).margin(1e-12));
+  // traces: the carried states' traces are kept too (every state has its column at tau)
+  REQUIRE(!enlarged.traces.time.empty());
+  CHECK(enlarged.traces.time.back() == once.traces.time.back());
+  CHECK(std::abs(enlarged.traces.position_mean.back() - once.traces.position_mean.back()) < 1e-10);
+  CHECK(std::abs(enlarged.traces.energy_mean.back() - once.traces.energy_mean.back()) < 1e-9);
+}

@@ -26,11 +26,25 @@
 //       eigenbasis ODE at T/10 and T/100 where it applies) whose true error is within T; true
 //       errors (line_distance of P(W)) against a reference at 4x the chosen steps and 9/4 the
 //       points. Ratios in the note column: true error / T, final run / best, search / best.
+//   (f) the reference job through the command line: `trapwork work` on
+//       validation/bench/quartic_translation.toml (a quartic trap moved in the lab frame, 2048
+//       points, 2*10^4 Strang steps, thermal, no reverse run, no half-step check) as a process
+//       of its own, 1 and 2 threads (--set work.threads=N), everything included (reading,
+//       spectra, propagation, projections, files, pictures); floor: the FFTs of the columns
+//       the run kept (read from its summary.json), 2*10^4 substeps, same threads.
 // Naive runs are measured on a part of the job (stated in the table) and scaled linearly in
 // state-steps, which is how their cost grows.
 //
-//   build/validation/bench_suite [--full] [--cases=abcde]
+//   build/validation/bench_suite [--full] [--cases=abcdef] [--tool=PATH ...]
+// (--tool: case (f) times these trapwork executables one after another, e.g. two builds side by side)
 #include <fftw3.h>
+#include <fcntl.h>
+#include <spawn.h>
+
+#include <chrono>
+#include <filesystem>
+#include <fstream>
+#include <sstream>
 
 #include <atomic>
 #include <cmath>
@@ -371,18 +385,63 @@ JobResult tolerance_target(double tolerance) {
   return r;
 }
 
+
+// ---- (f) the command line as a process of its own -------------------------------------------
+
+extern "C" char** environ;
+
+// Runs `command` (argv, argv[0] the executable) as a child process with its standard output
+// and error sent to /dev/null; wall time and the CPU time of the child (all its threads, from
+// wait4). Throws when it cannot start or fails.
+JobResult run_process(const std::vector<std::string>& command) {
+  std::vector<char*> argv;
+  for (const auto& a : command) argv.push_back(const_cast<char*>(a.c_str()));
+  argv.push_back(nullptr);
+  posix_spawn_file_actions_t files;
+  posix_spawn_file_actions_init(&files);
+  posix_spawn_file_actions_addopen(&files, 1, "/dev/null", O_WRONLY, 0);
+  posix_spawn_file_actions_addopen(&files, 2, "/dev/null", O_WRONLY, 0);
+  const auto start = std::chrono::steady_clock::now();
+  pid_t child = 0;
+  const int spawned = posix_spawn(&child, argv[0], &files, nullptr, argv.data(), environ);
+  posix_spawn_file_actions_destroy(&files);
+  if (spawned != 0) throw std::runtime_error("cannot start " + command[0]);
+  int status = 0;
+  rusage usage{};
+  wait4(child, &status, 0, &usage);
+  JobResult r;
+  r.wall_s = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  r.cpu_s = double(usage.ru_utime.tv_sec + usage.ru_stime.tv_sec) +
+            1e-6 * double(usage.ru_utime.tv_usec + usage.ru_stime.tv_usec);
+  if (!WIFEXITED(status) || WEXITSTATUS(status) != 0) throw std::runtime_error(command[0] + " failed");
+  return r;
+}
+
+// The number after "key": in a JSON file (the first occurrence; NaN when absent).
+double json_number(const std::string& file, const std::string& key) {
+  std::ifstream in(file);
+  std::stringstream text;
+  text << in.rdbuf();
+  const std::string s = text.str(), quoted = "\"" + key + "\":";
+  const auto at = s.find(quoted);
+  return at == std::string::npos ? NAN : std::strtod(s.c_str() + at + quoted.size(), nullptr);
+}
+
 }  // namespace
 
 int main(int argc, char** argv) {
   bool full = false;
-  std::string cases = "abcde";
+  std::string cases = "abcdef";
+  std::vector<std::string> tools;  // case (f): the executables to time, one after another
   for (int i = 1; i < argc; ++i) {
     if (!std::strcmp(argv[i], "--full"))
       full = true;
     else if (!std::strncmp(argv[i], "--cases=", 8))
       cases = argv[i] + 8;
+    else if (!std::strncmp(argv[i], "--tool=", 7))  // (f): this trapwork executable (repeatable)
+      tools.push_back(argv[i] + 7);
     else {
-      std::fprintf(stderr, "usage: bench_suite [--full] [--cases=abcde]\n");
+      std::fprintf(stderr, "usage: bench_suite [--full] [--cases=abcdef] [--tool=PATH ...]\n");
       return 1;
     }
   }
@@ -647,6 +706,44 @@ int main(int argc, char** argv) {
                             " at " + numerics(v[target::split_steps], v[target::split_points], 0) +
                             text("; reference %.0f st x %.0f pts", v[target::reference_steps], v[target::reference_points]);
       print_row(best);
+    }
+  }
+
+  // ---- (f) the reference job through `trapwork work` ----
+  if (wanted('f')) {
+    const std::string folder = "/tmp/trapwork-bench-f-" + std::to_string(getpid());
+    if (tools.empty()) tools.push_back(TRAPWORK_BENCH_TOOL);
+    for (std::size_t k = 0; k < tools.size(); ++k) {
+    const std::string tool = tools[k];
+    double job_1 = NAN;
+    for (int threads : {1, 2}) {
+      const std::string out = folder + "-" + std::to_string(threads);
+      Row r{text("(f) trapwork work, %.0f thread(s)", threads) + (tools.size() > 1 ? text(", tool %.0f", double(k + 1)) : ""),
+            "quartic_translation.toml, 2e4 st"};
+      r.m = in_child([&] {
+        return run_process({tool, "work", TRAPWORK_BENCH_DIR "/quartic_translation.toml", "--quiet", "-o",
+                            out, "--set", "work.threads=" + std::to_string(threads)});
+      });
+      const double kept = json_number(out + "/summary.json", "initial_kept");
+      const double points = json_number(out + "/summary.json", "points");
+      const double steps = json_number(out + "/summary.json", "steps");
+      std::filesystem::remove_all(out);
+      if (std::isnan(kept) || std::isnan(points) || std::isnan(steps)) {
+        r.note = "failed (no summary.json)";
+        print_row(r);
+        continue;
+      }
+      const Measurement floor =
+          best_of(2, [&] { return fft_floor(std::size_t(points), int(kept), long(steps), false, threads); });
+      r.floor_s = floor.wall_s;
+      if (threads == 1) job_1 = r.m.wall_s;
+      r.note = text("whole process; floor: %.0f kept columns x %.0f", kept, points) +
+               text(" pts x %.0f Strang substeps (%.2f s)", steps, floor.wall_s) +
+               text("; CPU time this/floor = %.2f (steadier on a shared machine)", r.m.cpu_s / floor.cpu_s);
+      if (threads == 2) r.note += text("; 1 thread / 2 threads = %.2f", job_1 / r.m.wall_s);
+      if (tools.size() > 1) r.note += "; tool " + tool;
+      print_row(r);
+    }
     }
   }
   std::printf("# naive/this: speed-up over the straightforward implementation; this/floor: time over the FFTs alone\n");
