@@ -276,14 +276,14 @@ TEST_CASE("translated harmonic trap, white position noise: <W> gains w^4 S tau /
 
 TEST_CASE("Lindblad: a master equation too large for memory is refused before it starts; auto takes realisations",
           "[noise][lindblad]") {
-  // the ground state in a basis of 96 levels: about 15 stacks of 16 K^2 bytes = 2.2 MB, above
-  // half of a 2 MB memory limit
+  // the ground state in a basis of 40 levels: about 15 stacks of 16 K^2 bytes = 0.38 MB, above
+  // half of a 0.6 MB memory limit (the noiseless run fits in it)
   const Protocol hold(2, {Schedule::constant("trap.centre", 0)});
   WorkRequest request = quick_request();
-  request.spectrum.options.memory_limit = 2e6;
+  request.spectrum.options.memory_limit = 6e5;
   CHECK_THROWS_WITH(
       run_noisy_work(harmonic_trap(), hold, request, white_noise("trap.centre", 0.01, NoiseRoute::lindblad)),
-      Catch::Contains("master equation of 1 kept level in a basis of 96") && Catch::Contains("GB, above") &&
+      Catch::Contains("master equation of 1 kept level in a basis of 40") && Catch::Contains("GB, above") &&
           Catch::Contains("noise.route = \"realisations\""));
   const NoisyWorkResult r =
       run_noisy_work(harmonic_trap(), hold, request, white_noise("trap.centre", 0.01, NoiseRoute::automatic, 4));

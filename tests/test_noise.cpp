@@ -680,3 +680,30 @@ final_margin = 12
   print_task_report(rl, ol);
   CHECK_THAT(rl.str(), Catch::Contains("distance to the finer master equation"));
 }
+
+TEST_CASE("examples/tweezer_intensity_noise.toml: parametric heating against Gamma = pi^2 nu^2 S_RIN(2 nu)",
+          "[noise][scenario][validation][heavy]") {
+  // Savard, O'Hara and Thomas, PRA 56, R1095 (1997) (from memory): intensity noise of relative
+  // PSD S_RIN heats a harmonic trap as d<E>/dt = Gamma <E>, Gamma = pi^2 nu^2 S_RIN(2 nu), so a
+  // ground-state start (<E> = hbar omega / 2 above the bottom) gains hbar omega / 2 (e^{Gamma tau}
+  // - 1). The Gaussian tweezer is anharmonic (its first two spacings differ by 0.6 %) and its PSD
+  // table is interpolated, so the check allows 10 % beside three standard errors of the 50
+  // realisations.
+  const Scenario s = read_scenario(std::string(TRAPWORK_SOURCE_DIR) + "/examples/tweezer_intensity_noise.toml");
+  const WorkOutcome o = work_task(s, std::nullopt);
+  REQUIRE(o.noise);
+  const NoisyWorkResult& r = *o.noise;
+  const Eigen::VectorXd& e = r.noiseless.forward.final_energies;
+  const double omega = e[1] - e[0];                                 // internal units (hbar = 1)
+  const double nu = omega / (2 * std::numbers::pi) / s.units.time_s();  // Hz
+  REQUIRE(nu > 13e3);
+  REQUIRE(nu < 14.5e3);                // 2 nu inside the table's flat bump (15 to 48 kHz)
+  const double rin = 8e-4 / 400;       // the bump: depth PSD 8e-4 (kB uK)^2/Hz over depth^2 = 400 (kB uK)^2
+  const double gamma = std::pow(std::numbers::pi * nu, 2) * rin;    // 1/s
+  const double tau = s.protocol->duration * s.units.time_s();  // the hold, s
+  const double predicted = omega / 2 * std::expm1(gamma * tau);
+  INFO("extra energy " << r.extra_energy.value << " +- " << r.extra_energy.error << " against " << predicted
+                       << " (internal), Gamma " << gamma << " /s, nu " << nu << " Hz");
+  CHECK(std::abs(r.extra_energy.value - predicted) < 3 * r.extra_energy.error + 0.1 * predicted);
+  CHECK(r.extra_energy.error < 0.5 * predicted);  // the statistics resolve the heating
+}
