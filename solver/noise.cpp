@@ -802,10 +802,15 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
   out.heating_quanta_rate = out.harmonic_omega > 0 ? Estimate{out.heating_rate.value / out.harmonic_omega,
                                                                out.heating_rate.error / out.harmonic_omega}
                                                    : Estimate{nan, nan};
-  if (out.distribution.unresolved_weight > request.unresolved_tolerance)
+  // Probability beyond the final levels matters only where the realisations resolve it: below a
+  // tenth of their statistical line error it changes no line beyond that error (the extra energy
+  // and the direct <W> count all levels anyway).
+  const double resolved = std::max(request.unresolved_tolerance, 0.1 * out.line_error_total);
+  if (out.distribution.unresolved_weight > resolved)
     out.warnings.push_back("with noise the unresolved final weight is " + text(out.distribution.unresolved_weight) +
-                           " (above " + text(request.unresolved_tolerance) +
-                           "): the noise heats beyond the final levels kept; raise final_margin");
+                           " (above " + text(resolved) +
+                           ", the larger of the tolerance and a tenth of the statistical line error): the noise "
+                           "heats beyond the final levels kept; raise final_margin");
   return out;
 }
 
