@@ -692,17 +692,17 @@ void print_task_report(std::ostream& out, const DesignTaskOutcome& o) {
     out << "shortest duration meeting " << design_objective_name(o.settings.options.objective) << " <= "
         << *o.settings.target << ":";
     for (const auto& t : d.trials)
-      out << " " << number_text(t.duration / per) << " " << unit << " "
+      out << " " << short_number(t.duration / per, 10) << " " << unit << " "
           << (!t.ran ? "(too fast for the speed bound)" : t.met ? "met" : "missed") << ";";
     if (d.best >= 0)
-      out << " shortest met " << number_text(d.trials[std::size_t(d.best)].duration / per) << " " << unit
-          << " (bracket " << number_text(d.lower / per) << " to " << number_text(d.upper / per) << " " << unit << ")";
+      out << " shortest met " << short_number(d.trials[std::size_t(d.best)].duration / per, 10) << " " << unit
+          << " (bracket " << short_number(d.lower / per, 10) << " to " << short_number(d.upper / per, 10) << " " << unit << ")";
     out << "\n";
   }
   out << "objective " << design_objective_name(o.settings.options.objective) << ": smooth ramp "
-      << number_text(r.objective_before / o.objective_per_unit) << unit << ", designed "
-      << number_text(r.objective_after / o.objective_per_unit) << unit;
-  if (r.objective_after > 0) out << " (factor " << number_text(r.objective_before / r.objective_after) << ")";
+      << short_number(r.objective_before / o.objective_per_unit, 10) << unit << ", designed "
+      << short_number(r.objective_after / o.objective_per_unit, 10) << unit;
+  if (r.objective_after > 0) out << " (factor " << short_number(r.objective_before / r.objective_after, 10) << ")";
   out << "\n" << r.history.size() << " evaluations (bound " << o.settings.options.max_evaluations << "), "
       << design_method_name(o.settings.options.method) << " from " << r.start_results.size() << " start(s):";
   for (std::size_t i = 0; i < r.start_results.size(); ++i) out << (i ? "; " : " ") << r.start_results[i];
@@ -710,25 +710,25 @@ void print_task_report(std::ostream& out, const DesignTaskOutcome& o) {
   for (std::size_t p = 0; p < r.parameters.size(); ++p) {
     const auto& t = o.tables[p];
     out << "  " << r.parameters[p].address << " amplitudes:";
-    for (int k = 0; k < r.modes; ++k) out << ' ' << number_text(r.amplitudes[p * r.modes + k]);
-    out << "\n    largest speed " << number_text(t.speed_after / t.speed_per_unit()) << " " << t.speed_unit()
-        << " (smooth ramp " << number_text(t.speed_before / t.speed_per_unit()) << ", limit "
-        << (std::isfinite(t.speed_limit) ? number_text(t.speed_limit / t.speed_per_unit()) : std::string("none"))
-        << "); overshoot " << number_text(t.overshoot_after / t.value_per_unit) << " " << t.value_unit << " (limit "
-        << number_text(t.overshoot_limit / t.value_per_unit) << ")\n";
+    for (int k = 0; k < r.modes; ++k) out << ' ' << short_number(r.amplitudes[p * r.modes + k], 10);
+    out << "\n    largest speed " << short_number(t.speed_after / t.speed_per_unit(), 10) << " " << t.speed_unit()
+        << " (smooth ramp " << short_number(t.speed_before / t.speed_per_unit(), 10) << ", limit "
+        << (std::isfinite(t.speed_limit) ? short_number(t.speed_limit / t.speed_per_unit(), 10) : std::string("none"))
+        << "); overshoot " << short_number(t.overshoot_after / t.value_per_unit, 10) << " " << t.value_unit << " (limit "
+        << short_number(t.overshoot_limit / t.value_per_unit, 10) << ")\n";
   }
   if (!o.robust.empty()) {
     out << "robust: the objective averaged over " << o.robust.size() << " members (smooth ramp -> designed):\n";
     for (const auto& m : o.robust)
-      out << "  " << m.label << ": " << number_text(m.objective_before / o.objective_per_unit) << " -> "
-          << number_text(m.objective_after / o.objective_per_unit) << unit << "\n";
+      out << "  " << m.label << ": " << short_number(m.objective_before / o.objective_per_unit, 10) << " -> "
+          << short_number(m.objective_after / o.objective_per_unit, 10) << unit << "\n";
   }
   if (o.after_run) {
     const auto checks = work_checks(o.after_run->run());
     const auto failed = std::count_if(checks.begin(), checks.end(), [](const WorkCheck& c) { return !c.pass(); });
     const auto computed = std::count_if(checks.begin(), checks.end(), [](const WorkCheck& c) { return !std::isnan(c.value); });
     out << "final run of designed.toml (work pipeline, all checks): objective "
-        << number_text(o.final_objective / o.objective_per_unit) << unit << "; " << computed - failed << " of "
+        << short_number(o.final_objective / o.objective_per_unit, 10) << unit << "; " << computed - failed << " of "
         << computed << " computed checks pass (designed_work_summary.json); P(W) before and after beside the harmonic "
         << "prediction: design_work_lines.csv, design_work_before/after.png\n";
   }
