@@ -21,6 +21,11 @@ std::string exact(double x) {
   std::snprintf(buffer, sizeof buffer, "%.17g", x);
   return buffer;
 }
+std::string digits10(double x) {  // for messages: exact() is for formulas that must round-trip
+  char buffer[40];
+  std::snprintf(buffer, sizeof buffer, "%.10g", x);
+  return buffer;
+}
 
 double base_ramp(double u, bool smoother) {
   return smoother ? u * u * u * (10 + u * (-15 + 6 * u)) : u * u * (3 - 2 * u);
@@ -399,7 +404,7 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
   result.bound_reached = bound_hit;
   if (bound_hit && !(result.objective_after < options.stop_below))
     result.warnings.push_back("the evaluation bound (" + std::to_string(options.max_evaluations) +
-                              ") ended the search at objective " + exact(result.objective_after) +
+                              ") ended the search at objective " + digits10(result.objective_after) +
                               ": more evaluations may lower it");
   if (!result.before_feasible)
     result.warnings.push_back("the smooth ramp breaks the bounds (excess " + exact(result.history.front().excess) +

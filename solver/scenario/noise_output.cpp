@@ -8,9 +8,12 @@ namespace trapwork {
 namespace {
 
 // "0.0123 +- 0.0004 h*kHz" (the value and its standard error in one unit)
+// The Lindblad route's estimates have no statistical error (error 0): it is not printed as
+// "+- 0", which would read as an exact result; its numerical error is the line error row.
 std::string with_error(const Estimate& e, double per_unit, const std::string& unit) {
-  return short_number(e.value / per_unit, 5) + " +- " + short_number(e.error / per_unit, 2) +
-         (unit.empty() ? std::string() : " " + unit);
+  const std::string u = unit.empty() ? std::string() : " " + unit;
+  if (e.error == 0) return short_number(e.value / per_unit, 8) + u + " (master equation: no statistical error)";
+  return short_number(e.value / per_unit, 5) + " +- " + short_number(e.error / per_unit, 2) + u;
 }
 
 // quanta per second from quanta per internal time
