@@ -1379,7 +1379,11 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
   std::vector<WorkLine> strongest = d.lines;
   std::sort(strongest.begin(), strongest.end(),
             [](const WorkLine& a, const WorkLine& b) { return a.probability > b.probability; });
-  strongest.resize(std::min<std::size_t>(strongest.size(), 8));
+  // at most 8, and none at the rounding level (a hold's 0 -> 2 line of 3e-21 is no line)
+  constexpr double shown_floor = 1e-12;
+  const std::size_t above = std::size_t(std::count_if(strongest.begin(), strongest.end(),
+                                                      [](const WorkLine& l) { return l.probability >= shown_floor; }));
+  strongest.resize(std::min<std::size_t>(above, 8));
   // The pair (m, n) carrying most of each line, and how many more pairs were merged into it.
   auto pairs_of = [&](const WorkLine& l) {
     const auto& f = r.forward;
@@ -1413,6 +1417,9 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
                   short_number(l.probability, 4).c_str(), pairs_of(l).c_str());
     out << line;
   }
+  if (above < 8 && above < d.lines.size())
+    out << "  (" << d.lines.size() - above << " more line" << (d.lines.size() - above == 1 ? "" : "s")
+        << " below P = 1e-12 not shown: the rounding level)\n";
 }
 
 // ---- sweeps ----------------------------------------------------------------------------------
