@@ -52,34 +52,37 @@ ScenarioWork compute_work(const Scenario& s, WorkRequest request);
 
 // `trapwork work --tolerance T`: numerics chosen for a bound T on the distance of P(W) from
 // its converged value (line_distance, solver/work.hpp; a total-variation bound over the lines).
-// From 1/16 of the automatic step count (or the scenario's [work] steps), each parameter is
-// varied with the other held. The grid first, at those steps: refined by 3/2 in points over the
-// same extent until two runs differ by at most T/2 (at most 3 refinements). Then the steps on
-// that grid: halved while the halved run stays within T/2 of the current one, or else doubled
-// until two runs differ by at most T/2 (at most 8 doublings). In each search the coarser run
-// of the agreeing pair is kept (its distance to the finer one is its error estimate), the
-// finest when none agree; the error estimate is the sum of the two distances. Runs on one grid
-// share their spectra (SpectrumMemo). The scenario's [grid] and [work] steps are the starting
-// point when given.
+// From 1/16 of the automatic step count (the scenario's [work] steps are replaced), the grid
+// first, at those steps: refined by 3/2 in points over the same extent until two runs differ by
+// at most T/2 (at most 3 refinements; the coarser of the agreeing pair is kept, their distance
+// its estimate). Then the steps on that grid by Richardson's rule: twice the steps, then the
+// steps predicted for T/4 from the last pair, until a pair's finer run is within T/2 (its
+// distance to the coarser run, or its Richardson estimate where the pairs show the error
+// falling as N^-p); the finer run is kept. Only the step runs run the reverse protocol. Runs on
+// one grid share their spectra (SpectrumMemo). The eigenbasis ODE is then tried within what
+// keeps the whole call at 1.5 times the chosen run with its usual checks (below).
 struct ToleranceChoice {
   double tolerance = 0;
   Scenario scenario;  // with the chosen [grid] points/extent
   std::optional<ScenarioWork> work;  // the chosen run
   int steps = 0;
   std::size_t points = 0;
-  double time_step_part = 0, grid_part = 0;  // the last differences (line_distance)
+  double time_step_part = 0, grid_part = 0;  // the chosen run's estimates (line_distance)
+  std::string time_step_rule;                // how time_step_part was obtained
+  // Estimated arithmetic of the chosen run alone with its usual checks (the half-step run: 2
+  // more forward runs), in the units of cost_spent: what the call's cost is measured against.
+  double chosen_cost = 0;
   double max_work_shift = 0;                 // of the last grid refinement (internal energy)
   std::vector<std::string> trail;            // one line per run: steps, points, difference
   // Method: after the grid and step search, the eigenbasis ODE is tried on the chosen grid
   // where it applies (tau > 0, walls standing): at ODE tolerances T/50 and, with twice the
   // restart points and 3/2 the basis, T/500; their distance is its own error (ode_part, NaN if
-  // not tried). The first ODE run stops once its estimated arithmetic passes 3 times the
-  // split-operator run's, the check at 6 times the first ODE run's, which bounds the time
-  // spent trying. It is chosen when its estimate ode_part + grid_part is within T, it
-  // agrees with the split-operator run to T, and it is faster: its estimated arithmetic is
-  // below half the split-operator run's, or else its run took less wall time (both timed
-  // here, one after the other on the same machine: in that band the choice can differ between
-  // machines).
+  // not tried). Its two runs together may use what is left of 1.5 times chosen_cost (a third
+  // for the first, at most half the split-operator run's arithmetic; the rest, at most 6 times
+  // the first's, for the check); with less than a twentieth of the split-operator run's
+  // arithmetic left it is not tried (said in the trail). It is chosen when it finished within
+  // its budget (so it needs at most half the split-operator run's estimated arithmetic), its
+  // estimate ode_part + grid_part is within T and it agrees with the split-operator run to T.
   std::string method;                        // of the returned run (WorkResult::method)
   double ode_part = std::numeric_limits<double>::quiet_NaN();
   double split_seconds = 0, eigenbasis_seconds = std::numeric_limits<double>::quiet_NaN();
