@@ -253,6 +253,27 @@ DesignEvaluator work_evaluator(Potential base, WorkRequest request, DesignObject
   };
 }
 
+DesignEvaluator wall_evaluator(WallProtocol walls, WallWorkRequest request, DesignObjective objective) {
+  request.reverse_run = false;
+  request.time_step_check = false;
+  request.grid_check = false;
+  request.progress = nullptr;
+  return [walls = std::move(walls), request = std::move(request), objective](const Protocol& protocol) {
+    Schedule left = walls.left(), right = walls.right();
+    std::vector<Schedule> inner;
+    for (const auto& s : protocol.schedules()) {
+      if (s.address() == walls.left().address())
+        left = s;
+      else if (s.address() == walls.right().address())
+        right = s;
+      else
+        inner.push_back(s);
+    }
+    const WallProtocol member(protocol.duration(), std::move(left), std::move(right), walls.inner(), std::move(inner));
+    return design_objective(run_wall_work(member, request).work, objective);
+  };
+}
+
 DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& evaluate,
                              const DesignOptions& options, const DesignHooks& hooks) {
   if (!(options.amplitude_bound > 0) || !std::isfinite(options.amplitude_bound))

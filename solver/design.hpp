@@ -55,6 +55,7 @@
 
 #include "potentials/potential.hpp"
 #include "potentials/protocol.hpp"
+#include "solver/moving_wall.hpp"
 #include "solver/work.hpp"
 
 namespace trapwork {
@@ -166,6 +167,14 @@ double design_objective(const WorkResult& result, DesignObjective objective);
 // reverse run, time-step check, grid check or traces (the design's final run is for the caller
 // to check as any work run).
 DesignEvaluator work_evaluator(Potential base, WorkRequest request, DesignObjective objective);
+
+// Moving walls: run_wall_work (solver/moving_wall.hpp) of the member, with only what the
+// objective needs (as work_evaluator). The member's schedules addressed "<name>.left" and
+// "<name>.right" (name of `walls`) move the walls, a wall without one keeps the schedule of
+// `walls`, and every other schedule is the inner potential's. Design the walls in the family of
+// walls.as_protocol(): its members are formula schedules, whose acceleration (5-point
+// differences) the dilated frame needs; a table ramp has none and WallProtocol refuses it.
+DesignEvaluator wall_evaluator(WallProtocol walls, WallWorkRequest request, DesignObjective objective);
 
 struct DesignHooks {
   // After each evaluation: it, the evaluations done and the bound.
