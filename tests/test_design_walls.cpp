@@ -116,3 +116,20 @@ TEST_CASE("wall design: compression lowers the dissipated work to near the adiab
   CHECK(r.objective_before - floor > 1e-3 * floor);
   CHECK(r.objective_after - floor < (r.objective_before - floor) / 3);
 }
+
+// The wall route takes the wall's acceleration from its formula ramp (5-point differences). A
+// box's durations are short in its units m L0^2/hbar (examples/box_expansion.toml: tau = 0.029),
+// so the difference step follows tau: with the former h = 1e-3 max(tau, 1) the acceleration of a
+// designed mode sin(3 pi t/tau) was off by 3e-4 of itself at tau = 0.03 (5-point error
+// h^4 f^(6)/90, common practice); with h = 1e-3 tau it is ~1e-10.
+TEST_CASE("wall design: a formula ramp's acceleration is accurate at a box's short duration", "[design][walls]") {
+  const double tau = 0.03, w = 3 * pi / tau;
+  const Schedule s = Schedule::formula("box.right", "1+0.2*sin(3*3.14159265358979323846*t/tau)");
+  for (double u : {0.1, 0.25, 0.6}) {
+    const ScheduleValue v = s.evaluate(u * tau, tau);
+    const double exact = -0.2 * w * w * std::sin(w * u * tau);
+    INFO("u = " << u << ": acceleration " << v.acceleration << ", exact " << exact);
+    CHECK(std::abs(v.acceleration - exact) < 1e-7 * 0.2 * w * w);
+    CHECK(std::abs(v.rate - 0.2 * w * std::cos(w * u * tau)) < 1e-9 * 0.2 * w);
+  }
+}
