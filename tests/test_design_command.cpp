@@ -298,8 +298,8 @@ level = 0
   const WorkOutcome w = work_task(designed, std::nullopt);
   const double stay = w.run().result.forward.transitions.probability(0, 0);
   // Tolerance: the search's runs leave out the checks (grid, time step, reverse) but use the same
-  // steps and sine modes; the formula's 17 digits agree to rounding. Measured difference ~1e-7
-  // relative on the example (dissipated work).
+  // sine modes; the formula's 17 digits agree to rounding. Measured relative difference 2.8e-6
+  // for this scenario after 40 evaluations (1.6e-7 on examples/box_expansion.toml, dissipated work).
   CHECK(std::abs((1 - stay) - o.objective_after) < 1e-5 * o.objective_after);
   const auto summary = nlohmann::json::parse(trapwork_test::read_all(dir / "out" / "design_summary.json"));
   CHECK(std::abs(summary.at("final_run").at("objective_designed").get<double>() - (1 - stay)) < 1e-9 * (1 - stay));
