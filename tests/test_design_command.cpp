@@ -180,6 +180,36 @@ TEST_CASE("trapwork design --target: the shortest duration meeting it", "[design
   }
 }
 
+// Issue 18: with --target, a duration at which no member meets the bounds is reported as missed
+// and the bisection goes on (before, the whole command stopped with an error). 300 nm under a
+// speed bound of 0.62 m/s: at 0.5 us the mean speed 0.6 m/s passes the quick check, but every
+// member with zero end velocity peaks above its mean, so none is feasible there.
+TEST_CASE("trapwork design --target goes on past a duration with no member within the bounds", "[design][cli]") {
+  const fs::path dir = trapwork_test::scratch_dir("design", "shortest_infeasible");
+  DesignCommand c;
+  c.scenario = (fs::path(TRAPWORK_SOURCE_DIR) / "examples" / "ion_design.toml").string();
+  c.output = (dir / "out").string();
+  c.evaluations = 6;
+  c.target = "0.99";  // met at 1 us within 6 runs (measured 0.962; the smooth ramp leaves 1 - 8e-8)
+  c.shortest = "0.5 us";
+  c.bisections = 1;
+  c.max_speed = {"0.62 m/s"};
+  std::ostringstream report;
+  run_design_command(c, report, report);
+  INFO(report.str());
+  const auto summary = nlohmann::json::parse(trapwork_test::read_all(dir / "out" / "design_summary.json"));
+  const auto& trials = summary.at("duration_search").at("trials");
+  REQUIRE(trials.size() == 3);  // 1 us, 0.5 us, 0.75 us
+  CHECK(trials.at(1).at("designed") == true);
+  CHECK(trials.at(1).at("feasible") == false);
+  CHECK(trials.at(1).at("met") == false);
+  CHECK(trials.at(1).at("objective_after").is_null());
+  CHECK(trials.at(2).at("duration").get<double>() == Approx(0.75));
+  CHECK(trials.at(2).at("feasible") == true);
+  CHECK(report.str().find("0.5 us missed (no member within the bounds)") != std::string::npos);
+  CHECK(report.str().find("no member of the family met the bounds on speed and overshoot at 0.5 us") != std::string::npos);
+}
+
 // Issue 18: robust design over variants of the trap and over samples of a fit's covariance
 // (fit_summary.json as `trapwork fit` writes it: coefficients with value, unit, uncertainty, and
 // the correlation matrix): the objective searched is the mean over the members.
