@@ -145,7 +145,11 @@ ScheduleValue Schedule::evaluate_forward(double t, double tau, bool at_end) cons
     case ScheduleForm::formula: {
       const double time = at_end ? tau : t;
       auto& f = *formula_;
-      const double h = 1e-3 * std::max(tau, 1.0);
+      // The step follows the protocol's own time scale: with h = 1e-3 max(tau, 1) a box's
+      // duration (tau ~ 0.03 in units m L0^2/hbar) got h = tau/30, and a designed wall ramp's
+      // acceleration, which the wall route needs, was off by 3e-4 (measured). Rounding error
+      // ~ eps |f| / (h^2 |f''|) ~ 1e-10 |f| / |change| stays small.
+      const double h = 1e-3 * (tau > 0 ? tau : 1.0);
       const double f0 = f(time, tau), fp = f(time + h, tau), fm = f(time - h, tau);
       const double fp2 = f(time + 2 * h, tau), fm2 = f(time - 2 * h, tau);
       return {f0, (fm2 - 8 * fm + 8 * fp - fp2) / (12 * h),

@@ -13,7 +13,7 @@
 //                  [0, tau]; derivative = segment slope, second derivative 0 (delta functions
 //                  at the kinks are not represented)
 //   formula        lambda = f(t), a muParser expression in t (internal time) and tau; derivatives
-//                  by 5-point central differences, error O(h^4) with h = 1e-3 max(tau, 1)
+//                  by 5-point central differences, error O(h^4) with h = 1e-3 tau (1e-3 for tau = 0)
 //                  (common practice), about 1e-10 relative for smooth f
 // Each schedule gives value, first and second time derivative (needed by the co-moving frame).
 // Slightly outside [0, tau] every form continues its own formula (ramps their polynomial,

@@ -46,6 +46,13 @@ double mode_slope(int k, double u) {
 }
 constexpr int bound_points = 512;  // the bounds are checked at u = i / 512
 
+// An objective value for a warning: an energy for the dissipated work (in the scenario's unit
+// where options.message_units has it), else the plain number.
+std::string objective_text(double v, const DesignOptions& options) {
+  return options.objective == DesignObjective::dissipated_work ? options.message_units(v, Dimension::energy())
+                                                               : digits10(v);
+}
+
 nlopt::algorithm nlopt_algorithm(DesignMethod method) {
   switch (method) {
     case DesignMethod::bobyqa: return nlopt::LN_BOBYQA;
@@ -189,18 +196,25 @@ Protocol DesignFamily::protocol(const std::vector<double>& c) const {
       continue;
     }
     const std::size_t p = std::size_t(it - parameters_.begin());
-    const std::string u = "(t/tau)";
-    std::string shape = smoother_ ? u + "^3*(10+" + u + "*(-15+6*" + u + "))" : u + "^2*(3-2*" + u + ")";
-    const std::string w = "sin(" + exact(pi) + "*" + u + ")^2";
-    for (int k = 1; k <= modes_; ++k) {
-      const double a = c[p * modes_ + k - 1];
-      if (a == 0) continue;
-      shape += "+(" + exact(a) + ")*" + w + "*sin(" + std::to_string(k) + "*" + exact(pi) + "*" + u + ")";
-    }
-    const std::string expression = "(" + exact(it->from) + ")+(" + exact(it->to - it->from) + ")*(" + shape + ")";
+    const std::string expression =
+        "(" + exact(it->from) + ")+(" + exact(it->to - it->from) + ")*(" + shape_expression(p, c) + ")";
     schedules.push_back(Schedule::formula(s.address(), expression));
   }
   return Protocol(protocol_.duration(), std::move(schedules));
+}
+
+std::string DesignFamily::shape_expression(std::size_t p, const std::vector<double>& c) const {
+  if (int(c.size()) != dimension() || p >= parameters_.size())
+    throw ContractViolation("DesignFamily::shape_expression: wrong parameter or number of amplitudes");
+  const std::string u = "(t/tau)";
+  std::string shape = smoother_ ? u + "^3*(10+" + u + "*(-15+6*" + u + "))" : u + "^2*(3-2*" + u + ")";
+  const std::string w = "sin(" + exact(pi) + "*" + u + ")^2";
+  for (int k = 1; k <= modes_; ++k) {
+    const double a = c[p * std::size_t(modes_) + std::size_t(k) - 1];
+    if (a == 0) continue;
+    shape += "+(" + exact(a) + ")*" + w + "*sin(" + std::to_string(k) + "*" + exact(pi) + "*" + u + ")";
+  }
+  return shape;
 }
 
 std::string DesignFamily::description() const {
@@ -253,6 +267,27 @@ DesignEvaluator work_evaluator(Potential base, WorkRequest request, DesignObject
   };
 }
 
+DesignEvaluator wall_evaluator(WallProtocol walls, WallWorkRequest request, DesignObjective objective) {
+  request.reverse_run = false;
+  request.time_step_check = false;
+  request.grid_check = false;
+  request.progress = nullptr;
+  return [walls = std::move(walls), request = std::move(request), objective](const Protocol& protocol) {
+    Schedule left = walls.left(), right = walls.right();
+    std::vector<Schedule> inner;
+    for (const auto& s : protocol.schedules()) {
+      if (s.address() == walls.left().address())
+        left = s;
+      else if (s.address() == walls.right().address())
+        right = s;
+      else
+        inner.push_back(s);
+    }
+    const WallProtocol member(protocol.duration(), std::move(left), std::move(right), walls.inner(), std::move(inner));
+    return design_objective(run_wall_work(member, request).work, objective);
+  };
+}
+
 DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& evaluate,
                              const DesignOptions& options, const DesignHooks& hooks) {
   if (!(options.amplitude_bound > 0) || !std::isfinite(options.amplitude_bound))
@@ -276,9 +311,14 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
   if (std::isnan(options.stop_below))  // NaN would never stop a start, silently
     throw InputError("stop_below", exact(options.stop_below), "a number (the objective at which a start ends)");
   if (options.starts < 1) throw InputError("starts", std::to_string(options.starts), "at least 1 start");
-  if (options.max_evaluations < options.starts)
+  if (options.runs_per_evaluation < 1)
+    throw InputError("runs_per_evaluation", std::to_string(options.runs_per_evaluation), "at least 1 work run per evaluation");
+  const int cost = options.runs_per_evaluation;  // work runs charged per evaluation
+  if (options.max_evaluations < options.starts * cost)
     throw InputError("evaluations", std::to_string(options.max_evaluations),
-                     "at least one evaluation per start (" + std::to_string(options.starts) + ")");
+                     "at least one evaluation per start: " + std::to_string(options.starts) + " start(s) of " +
+                         std::to_string(cost) + " work run(s) each" +
+                         (cost > 1 ? " (one per member of the robust design)" : ""));
   const int n = family.dimension();
   if (!options.first_start.empty() && int(options.first_start.size()) != n)
     throw InputError("first_start", std::to_string(options.first_start.size()) + " amplitudes",
@@ -313,7 +353,8 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
       e.objective = largest + 1 + e.excess;
     }
     result.history.push_back(e);
-    if (hooks.progress) hooks.progress(result.history.back(), int(result.history.size()), options.max_evaluations);
+    result.work_runs = int(result.history.size()) * cost;
+    if (hooks.progress) hooks.progress(result.history.back(), result.work_runs, options.max_evaluations);
     return e.objective;
   };
 
@@ -328,8 +369,8 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
     }
     if (start > 0)
       for (auto& v : x) v = uniform(random);
-    const int left = options.max_evaluations - int(result.history.size());
-    const int share = std::max(1, left / (options.starts - start));
+    const int left = options.max_evaluations - int(result.history.size()) * cost;  // work runs
+    const int share = std::max(cost, left / (options.starts - start));
     nlopt::opt opt(nlopt_algorithm(options.method), unsigned(n));
     opt.set_lower_bounds(std::vector<double>(std::size_t(n), -options.amplitude_bound));
     opt.set_upper_bounds(std::vector<double>(std::size_t(n), options.amplitude_bound));
@@ -343,20 +384,20 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
       std::exception_ptr* failure;
       bool* bound_hit;
       bool share_used = false;
-      int bound, share, begin;
+      int bound, share, begin, cost;
       const std::vector<DesignEvaluation>* history;
     } context{&run_one, start, &failure, &bound_hit, false, options.max_evaluations, share,
-              int(result.history.size()), &result.history};
+              int(result.history.size()), cost, &result.history};
     opt.set_min_objective(
         [](const std::vector<double>& c, std::vector<double>&, void* data) -> double {
           auto& ctx = *static_cast<Context*>(data);
           for (const auto& e : *ctx.history)
             if (e.amplitudes == c) return e.objective;
-          if (int(ctx.history->size()) >= ctx.bound) {
+          if ((int(ctx.history->size()) + 1) * ctx.cost > ctx.bound) {  // the next one would pass it
             *ctx.bound_hit = true;
             throw nlopt::forced_stop();
           }
-          if (int(ctx.history->size()) - ctx.begin >= ctx.share) {
+          if ((int(ctx.history->size()) - ctx.begin + 1) * ctx.cost > ctx.share) {
             ctx.share_used = true;
             throw nlopt::forced_stop();
           }
@@ -392,25 +433,27 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
   for (const auto& e : result.history)
     if (e.feasible && (!best || e.objective < best->objective)) best = &e;
   if (!best)
-    throw PhysicsError("no member of the " + std::to_string(result.history.size()) +
+    throw NoFeasibleDesign("no member of the " + std::to_string(result.history.size()) +
                        " evaluated met the bounds on speed and overshoot (least excess " +
                        exact(std::min_element(result.history.begin(), result.history.end(),
                                               [](const DesignEvaluation& a, const DesignEvaluation& b) {
                                                 return a.excess < b.excess;
                                               })->excess) +
-                       "); loosen the bounds, lengthen the duration or allow more evaluations");
+                       "); loosen the bounds, lengthen the duration or allow more evaluations",
+                       result);
   result.amplitudes = best->amplitudes;
   result.objective_after = best->objective;
   result.bound_reached = bound_hit;
   if (bound_hit && !(result.objective_after < options.stop_below))
-    result.warnings.push_back("the evaluation bound (" + std::to_string(options.max_evaluations) +
-                              ") ended the search at objective " + digits10(result.objective_after) +
+    result.warnings.push_back("the evaluation bound (" + std::to_string(options.max_evaluations) + " work runs" +
+                              ") ended the search at objective " + objective_text(result.objective_after, options) +
                               ": more evaluations may lower it");
   if (!result.before_feasible)
     result.warnings.push_back("the smooth ramp breaks the bounds (excess " + exact(result.history.front().excess) +
                               "); its objective is given for comparison only");
   if (!(result.objective_after < result.objective_before))
-    result.warnings.push_back("no member beat the smooth ramp (objective " + exact(result.objective_before) + ")");
+    result.warnings.push_back("no member beat the smooth ramp (objective " +
+                              objective_text(result.objective_before, options) + ")");
   return result;
 }
 
@@ -493,25 +536,44 @@ ShortestDurationResult design_shortest_duration(const Protocol& protocol, const 
       DesignOptions o = options;
       o.stop_below = target;
       if (!warm.empty()) o.first_start = warm;
-      t.design = design_protocol(family, evaluate, o, hooks);
       t.ran = true;
-      t.met = t.design.objective_after <= target;
+      try {
+        t.design = design_protocol(family, evaluate, o, hooks);
+        t.met = t.design.objective_after <= target;
+      } catch (const NoFeasibleDesign& e) {  // not met at this duration; the search goes on
+        t.feasible = false;
+        t.note = e.what();
+        t.design = e.partial;
+      }
       if (t.met) warm = t.design.amplitudes;
     }
     out.trials.push_back(std::move(t));
     if (out.trials.back().met) out.best = int(out.trials.size()) - 1;
     return out.trials.back().met;
   };
+  const auto time = [&](double t) { return options.message_units(t, Dimension::time()); };
+  // Durations without a member inside the bounds: not met, listed in one warning at the end.
+  const auto infeasible_warning = [&] {
+    std::string list;
+    for (const auto& t : out.trials)
+      if (!t.feasible) list += (list.empty() ? "" : ", ") + time(t.duration);
+    if (!list.empty())
+      out.warnings.push_back("no member of the family met the bounds on speed and overshoot at " + list +
+                             " (counted as not met; the search went on): loosen the bounds or allow more evaluations");
+  };
   if (!trial(longest)) {
-    out.warnings.push_back("the target " + exact(target) + " is not met at the protocol's duration " + exact(longest) +
-                           " (objective " + exact(out.trials.back().design.objective_after) +
-                           "): lengthen the duration, or allow more modes or evaluations");
+    const DurationTrial& t = out.trials.back();
+    const std::string why = !t.ran        ? "its mean speed breaks a speed bound"
+                            : !t.feasible ? "no member met the bounds on speed and overshoot"
+                                          : "objective " + objective_text(t.design.objective_after, options);
+    out.warnings.push_back("the target " + objective_text(target, options) + " is not met at the protocol's duration " +
+                           time(longest) + " (" + why + "): lengthen the duration, or allow more modes or evaluations");
     out.lower = out.upper = longest;
     return out;
   }
   double lo = shortest, hi = longest;
   if (trial(shortest)) {
-    out.warnings.push_back("the target is met already at the shortest duration tried (" + exact(shortest) +
+    out.warnings.push_back("the target is met already at the shortest duration tried (" + time(shortest) +
                            "): a shorter one may meet it too");
     out.lower = out.upper = shortest;
     return out;
@@ -522,6 +584,7 @@ ShortestDurationResult design_shortest_duration(const Protocol& protocol, const 
   }
   out.lower = lo;
   out.upper = hi;
+  infeasible_warning();
   return out;
 }
 

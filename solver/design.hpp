@@ -44,8 +44,11 @@
 // Search: NLopt's local derivative-free methods (LN_BOBYQA by default, LN_COBYLA,
 // LN_NELDERMEAD, LN_SBPLX) from several starts: the first at c = 0 (the smooth ramp), the
 // others at points drawn uniformly in half the amplitude box (std::mt19937_64 from `seed`, so a
-// run is repeatable). The evaluation bound counts every work run of all starts together; each
-// start gets an equal share of what is left. A start stops early when the objective falls
+// run is repeatable). The evaluation bound counts every work run of all starts together: an
+// evaluation costs runs_per_evaluation runs (a robust design runs each member of the uncertain
+// trap: one run per member), and a member refused by the bounds, not simulated, is charged the
+// same, so the bound also bounds the search's length; each start gets an equal share of what is
+// left, and the search stops before an evaluation that would pass the bound. A start stops early when the objective falls
 // below stop_below. No I/O, no clock: progress and interruption go through hooks.
 #include <cstdint>
 #include <functional>
@@ -55,6 +58,7 @@
 
 #include "potentials/potential.hpp"
 #include "potentials/protocol.hpp"
+#include "solver/moving_wall.hpp"
 #include "solver/work.hpp"
 
 namespace trapwork {
@@ -82,7 +86,8 @@ struct DesignOptions {
   double overshoot = 0.5;               // o >= 0, see above
   std::vector<DesignBound> bounds;      // per designed parameter (addresses of the family)
   int starts = 3;                       // >= 1
-  int max_evaluations = 200;            // work runs in all, >= starts
+  int max_evaluations = 200;            // work runs in all, >= starts * runs_per_evaluation
+  int runs_per_evaluation = 1;          // work runs of one evaluation (members of a robust design), >= 1
   double stop_below = 0;                // a start ends once the objective is below this
   DesignObjective objective = DesignObjective::excitation;
   DesignMethod method = DesignMethod::bobyqa;
@@ -90,6 +95,9 @@ struct DesignOptions {
   // Where the first start begins (empty: c = 0, the smooth ramp); e.g. a design made in the
   // harmonic approximation. The smooth ramp is evaluated first in any case (objective_before).
   std::vector<double> first_start;
+  // How warnings write durations and (for dissipated_work) objectives; the scenario fills it
+  // (SpectrumRequest::message_units). Without units: T0, E0.
+  MessageUnits message_units;
 };
 
 // One designed parameter of the family.
@@ -110,6 +118,10 @@ class DesignFamily {
   // Member with amplitudes c (parameter-major: c[p * modes + k - 1]); designed schedules are
   // formula schedules of t and tau (exact values; derivatives as for any formula schedule).
   Protocol protocol(const std::vector<double>& c) const;
+  // The unit-free shape s(u) + sum_k c_k sin^2(pi u) sin(k pi u) of parameter p as a muParser
+  // expression of (t/tau) (17 digits): lambda_p = from + (to - from) * shape in any units, so
+  // the scenario layer writes it with lab-unit end values (a wall's formula ramp).
+  std::string shape_expression(std::size_t p, const std::vector<double>& c) const;
   // lambda_p(u) of parameter p at 0 <= u <= 1 for amplitudes c.
   double value(std::size_t p, const std::vector<double>& c, double u) const;
   // d lambda_p/dt (internal units) at 0 <= u <= 1 for amplitudes c.
@@ -150,6 +162,7 @@ struct DesignResult {
   bool before_feasible = true;          // the smooth ramp meets the bounds
   double objective_after = 0;           // best member
   std::vector<DesignEvaluation> history;
+  int work_runs = 0;                    // charged to the bound: history.size() * runs_per_evaluation
   std::vector<std::string> start_results;  // NLopt's ending of each start ("reached stop_below")
   bool bound_reached = false;           // the evaluation bound ended the search
   std::vector<std::string> warnings;    // with the value: bound reached, no improvement, ...
@@ -166,6 +179,14 @@ double design_objective(const WorkResult& result, DesignObjective objective);
 // reverse run, time-step check, grid check or traces (the design's final run is for the caller
 // to check as any work run).
 DesignEvaluator work_evaluator(Potential base, WorkRequest request, DesignObjective objective);
+
+// Moving walls: run_wall_work (solver/moving_wall.hpp) of the member, with only what the
+// objective needs (as work_evaluator). The member's schedules addressed "<name>.left" and
+// "<name>.right" (name of `walls`) move the walls, a wall without one keeps the schedule of
+// `walls`, and every other schedule is the inner potential's. Design the walls in the family of
+// walls.as_protocol(): its members are formula schedules, whose acceleration (5-point
+// differences) the dilated frame needs; a table ramp has none and WallProtocol refuses it.
+DesignEvaluator wall_evaluator(WallProtocol walls, WallWorkRequest request, DesignObjective objective);
 
 struct DesignHooks {
   // After each evaluation: it, the evaluations done and the bound.
@@ -188,7 +209,15 @@ std::vector<std::vector<double>> gaussian_samples(const std::vector<double>& mea
                                                   const std::vector<std::vector<double>>& covariance, int count,
                                                   std::uint64_t seed);
 
+// No member evaluated met the bounds on speed and overshoot: the message says the least excess
+// and what to change; `partial` holds the search's history (amplitudes and objective empty).
+struct NoFeasibleDesign : PhysicsError {
+  DesignResult partial;
+  NoFeasibleDesign(const std::string& what, DesignResult partial_) : PhysicsError(what), partial(std::move(partial_)) {}
+};
+
 // Searches the family for the least objective. InputError for options out of range;
+// NoFeasibleDesign when no member evaluated meets the bounds;
 // the evaluator's exceptions pass through (a member that cannot be computed stops the search).
 DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& evaluate,
                              const DesignOptions& options, const DesignHooks& hooks = {});
@@ -200,14 +229,18 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
 // warning), then at `shortest` (when that meets it, it is the answer, with a warning that a
 // shorter one may too), then `bisections` bisection steps of the bracket, each design starting
 // from the amplitudes of the shortest duration met so far, with stop_below = target. A duration
-// whose mean speed |b - a| / tau breaks a speed bound is not met (no design run). Cost bound:
+// whose mean speed |b - a| / tau breaks a speed bound is not met (no design run); a duration
+// whose search finds no member within the bounds (NoFeasibleDesign) is not met either, and the
+// search goes on (a warning lists those durations). Cost bound:
 // (bisections + 2) designs of options.max_evaluations work runs each. A local search may miss a
 // target it could meet, so "met" is monotone only in practice: the trials are all reported.
 struct DurationTrial {
   double duration = 0;
   bool met = false;
   bool ran = false;       // false: refused by the mean speed (no design)
-  DesignResult design;    // when ran
+  bool feasible = true;   // false: the search ran but no member met the bounds (not met)
+  std::string note;       // why not feasible (the search's message)
+  DesignResult design;    // when ran (when not feasible: the history only)
 };
 struct ShortestDurationResult {
   std::vector<DurationTrial> trials;  // in the order run

@@ -343,3 +343,81 @@ TEST_CASE("design: averaged objective and samples from a covariance", "[design]"
   CHECK_THROWS_AS(gaussian_samples(mean, {{0.04, 0.1}, {0.1, 0.09}}, 5, 1), InputError);  // not semi-definite
   CHECK_THROWS_AS(gaussian_samples(mean, {{0.04, 0.0}, {0.01, 0.09}}, 5, 1), InputError);  // not symmetric
 }
+
+// Issue 18: a robust design runs every member for each evaluation, and every one of those work
+// runs counts against the evaluation bound (runs_per_evaluation); before, only the evaluations
+// were counted, so 30 evaluations of 3 members made 90 runs under a bound of 30.
+TEST_CASE("design: every member run of a robust design counts against the evaluation bound", "[design]") {
+  const double tau = 2;
+  const DesignFamily family(Protocol(tau, {Schedule::smooth_step("trap.centre", 0, 1)}), 3, false);
+  int runs = 0;
+  const auto member = [&](double goal) -> DesignEvaluator {
+    return [&runs, goal, tau](const Protocol& p) {
+      ++runs;
+      const double a = p.schedules()[0].evaluate(tau / 2, tau).value - goal;
+      return a * a;
+    };
+  };
+  DesignOptions options;
+  options.starts = 2;
+  options.max_evaluations = 30;
+  options.runs_per_evaluation = 3;
+  int last_done = 0;
+  DesignHooks hooks;
+  hooks.progress = [&](const DesignEvaluation&, int done, int bound) {
+    CHECK(done <= bound);
+    last_done = done;
+  };
+  const DesignResult r =
+      design_protocol(family, averaged_evaluator({member(0.8), member(0.85), member(0.9)}), options, hooks);
+  INFO(r.history.size() << " evaluations, " << runs << " runs");
+  CHECK(r.bound_reached);
+  CHECK(r.history.size() == 10);
+  CHECK(r.work_runs == 30);
+  CHECK(last_done == 30);
+  CHECK(runs <= 30);  // members refused by the overshoot band are charged but not run
+  CHECK(r.start_results.size() == 2);
+  CHECK(r.objective_after < r.objective_before);
+  // The bound must allow one evaluation of every member per start.
+  options.max_evaluations = 5;
+  CHECK_THROWS_WITH(design_protocol(family, averaged_evaluator({member(0.8), member(0.9)}), options),
+                    Contains("evaluations") && Contains("work run"));
+  options.runs_per_evaluation = 0;
+  CHECK_THROWS_AS(design_protocol(family, member(0.8), options), InputError);
+}
+
+// Issue 18: a duration at which no member of the family meets the bounds is "not met", and the
+// outer search goes on (before, design_protocol's error ended the whole search). Speed bound 1.01
+// for a change of 1: at tau = 1 the mean speed 1 passes the quick check, but every member with
+// zero end velocity peaks well above its mean (the smooth ramp at 1.5), so none is feasible. The
+// cheap objective 1/tau meets the target 0.5 from tau = 2 on.
+TEST_CASE("design: the shortest-duration search goes on past a duration with no feasible member", "[design]") {
+  const Protocol move(4, {Schedule::smooth_step("trap.centre", 0, 1)});
+  const DesignEvaluator cheap = [](const Protocol& p) {
+    return 1 / p.duration() + 1e-3 * std::abs(p.schedules()[0].evaluate(p.duration() / 2, p.duration()).value - 0.5);
+  };
+  DesignOptions options;
+  options.starts = 1;
+  options.max_evaluations = 20;
+  options.bounds = {{"trap.centre", 1.01, 1e9}};
+  // The duration alone: design_protocol finds no member within the bound and says so.
+  const DesignFamily at_one(Protocol(1, move.schedules()), 3, false);
+  CHECK_THROWS_AS(design_protocol(at_one, cheap, options), NoFeasibleDesign);
+  const auto r = design_shortest_duration(move, cheap, options, 0.5, 1, 3);
+  REQUIRE(r.trials.size() == 5);  // 4, 1, then 2.5, 1.75, 2.125: the bisection went on
+  CHECK(r.trials[0].met);
+  CHECK(r.trials[1].ran);
+  CHECK_FALSE(r.trials[1].feasible);
+  CHECK_FALSE(r.trials[1].met);
+  CHECK(r.trials[1].note.find("no member") != std::string::npos);
+  CHECK_FALSE(r.trials[1].design.history.empty());  // its evaluations are reported
+  CHECK(r.trials[2].duration == Approx(2.5));
+  CHECK(r.trials[3].duration == Approx(1.75));
+  CHECK(r.trials[4].duration == Approx(2.125));
+  REQUIRE(r.best == 4);
+  CHECK(r.lower == Approx(1.75));
+  CHECK(r.upper == Approx(2.125));
+  bool warned = false;
+  for (const auto& w : r.warnings) warned = warned || w.find("no member of the family met the bounds") != std::string::npos;
+  CHECK(warned);
+}

@@ -20,6 +20,12 @@ namespace fs = std::filesystem;
 namespace {
 constexpr int table_rows = 2001;  // rows of each designed table (piecewise linear between them)
 
+std::string exact_number(double x) {  // 17 digits: a formula that must round-trip
+  char buffer[40];
+  std::snprintf(buffer, sizeof buffer, "%.17g", x);
+  return buffer;
+}
+
 std::string table_file(const std::string& address) {
   std::string name = address;
   std::replace(name.begin(), name.end(), '.', '_');
@@ -65,8 +71,13 @@ std::string designed_scenario_text(const Scenario& s, const std::string& text, c
       for (const auto& d : tables) {
         if (d.address != parameter->get()) continue;
         for (const char* key : {"ramp", "from", "to", "formula", "file", "time_unit", "value_unit"}) t->erase(key);
-        t->insert_or_assign("ramp", "table");
-        t->insert_or_assign("file", d.file);
+        if (!d.formula.empty()) {
+          t->insert_or_assign("ramp", "formula");
+          t->insert_or_assign("formula", d.formula);
+        } else {
+          t->insert_or_assign("ramp", "table");
+          t->insert_or_assign("file", d.file);
+        }
         t->insert_or_assign("time_unit", d.time_unit);
         if (!d.value_unit.empty()) t->insert_or_assign("value_unit", d.value_unit);
       }
@@ -77,8 +88,15 @@ std::string designed_scenario_text(const Scenario& s, const std::string& text, c
   }
   if (auto* title = root.get_as<std::string>("title")) title->get() += " (designed ramp)";
   std::ostringstream out;
+  const bool wall = std::any_of(tables.begin(), tables.end(), [](const DesignTable& d) { return !d.formula.empty(); });
+  const bool table = std::any_of(tables.begin(), tables.end(), [](const DesignTable& d) { return d.formula.empty(); });
   out << "# Made by `" << (s.invocation.empty() ? std::string("trapwork design") : s.invocation) << "` from "
-      << s.file << ".\n# The designed ramp (" << family << ") is read from the table files beside this one.\n";
+      << s.file << ".\n# The designed ramp (" << family << ")";
+  if (table) out << " is read from the table files beside this one";
+  if (wall)
+    out << (table ? ";\n# a" : "\n# for a") << " moving wall it is a formula ramp of t/tau: the wall route needs the wall's "
+        << "acceleration,\n# which a table (piecewise linear) lacks. The designed_box_*.csv files tabulate it for plotting";
+  out << ".\n";
   if (translation)
     out << "# frame = \"lab\": the co-moving frame would take the trap's acceleration from the table, which\n"
            "# has none between its rows (piecewise linear); the lab frame samples the potential itself.\n";
@@ -236,7 +254,17 @@ Scenario designed_scenario(const Scenario& s, const std::vector<DesignTable>& ta
   Scenario d = s;
   for (auto& c : d.protocol->changes)
     for (const auto& t : tables)
-      if (t.address == c.parameter) {
+      if (t.address == c.parameter && !t.formula.empty()) {  // a wall: designed.toml's formula ramp
+        c.form = ScheduleForm::formula;
+        c.ramp = "formula";
+        c.times.clear();
+        c.values.clear();
+        c.file.clear();
+        c.formula = t.formula;
+        c.internal_formula = t.internal_formula;
+        c.time_unit = t.time_unit;
+        c.value_unit = t.value_unit;
+      } else if (t.address == c.parameter) {
         c.form = ScheduleForm::table;
         c.ramp = "table";
         c.times = t.times;
@@ -265,10 +293,10 @@ void final_runs(DesignTaskOutcome& o, bool translation, const TaskHooks& hooks) 
   const double searched = o.robust.empty() ? o.result.objective_after : o.robust.front().objective_after;
   const double scale = std::max(std::abs(searched), 1e-12);
   if (std::abs(o.final_objective - searched) > 1e-3 * scale)
-    o.final_warnings.push_back("the designed table's run gives objective " + number_text(o.final_objective / o.objective_per_unit) +
+    o.final_warnings.push_back("the designed scenario's run gives objective " + number_text(o.final_objective / o.objective_per_unit) +
                                ", the search's formula ramp " + number_text(searched / o.objective_per_unit) +
-                               " (relative difference above 1e-3: the table's interpolation or the search's "
-                               "cheaper numerics; trust the table's run, whose checks follow)");
+                               " (relative difference above 1e-3: a table's interpolation or the search's "
+                               "cheaper numerics; trust designed.toml's run, whose checks follow)");
   for (const auto& c : work_checks(after))
     if (!c.pass())
       o.final_warnings.push_back("designed run: " + c.name + " " + number_text(c.value) + " above its tolerance " +
@@ -339,17 +367,15 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
   if (scenario.natural_units)
     throw InputError("units.natural", "true", "lab units: the designed table is written in the scenario's lab units",
                      "", scenario.file);
-  for (const auto& c : scenario.protocol->changes)
-    if (c.parameter.rfind("box.", 0) == 0)
-      throw InputError("protocol.change.parameter", c.parameter,
-                       "a parameter of the potential: moving walls are not designed, because the wall route "
-                       "takes the wall's acceleration from its schedule and a designed table has none between its "
-                       "rows (a table of the smooth ramp gives another <W> than the ramp itself)",
-                       "design the trap parameters; move the wall with ramp = \"smooth\" or a formula", scenario.file);
-  const Protocol protocol = build_protocol(scenario);
+  // Moving walls: the family of the walls' and the inner potential's schedules, each member run
+  // through the wall route (wall_evaluator); the designed wall ramp is written as a formula.
+  const bool walls = moves_walls(scenario);
+  const auto protocol_of = [walls](const Scenario& s) { return walls ? build_wall_protocol(s).as_protocol() : build_protocol(s); };
+  const Protocol protocol = protocol_of(scenario);
   const DesignFamily family(protocol, settings.options.modes, settings.options.zero_end_acceleration);
   DesignSettings used = settings;
   used.options.bounds = lab_bounds(scenario, settings, family);
+  used.options.message_units = scenario.spectrum.message_units;
   WorkRequest request = work_request(scenario);
   if (settings.options.objective == DesignObjective::dissipated_work && !request.initial.is_gibbs())
     throw InputError("objective", "dissipated_work", "a thermal [initial] (temperature or mean_phonons) for the dissipated work, "
@@ -358,12 +384,21 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
   request.spectrum.options.interrupt = hooks.interrupt;
   if (checked) checked();
 
+  std::vector<RobustMember> robust = robust_members(scenario, settings);
+  // Every work run counts against the bound: one per member of a robust design.
+  used.options.runs_per_evaluation = std::max<int>(1, int(robust.size()));
   DesignTaskOutcome o{scenario, used, family.description(), {}, {}, {}, {}, 1};
-  o.robust = robust_members(scenario, settings);
-  DesignEvaluator evaluate = work_evaluator(scenario.potential, request, settings.options.objective);
+  o.robust = std::move(robust);
+  const auto evaluator_for = [&](const Potential& potential) -> DesignEvaluator {
+    if (!walls) return work_evaluator(potential, request, settings.options.objective);
+    const WallProtocol w = build_wall_protocol(scenario);
+    return wall_evaluator(WallProtocol(w.duration(), w.left(), w.right(), potential, w.inner_schedules()),
+                          wall_work_request(scenario, request), settings.options.objective);
+  };
+  DesignEvaluator evaluate = evaluator_for(scenario.potential);
   if (!o.robust.empty()) {
     std::vector<DesignEvaluator> members;
-    for (const auto& m : o.robust) members.push_back(work_evaluator(m.potential, request, settings.options.objective));
+    for (const auto& m : o.robust) members.push_back(evaluator_for(m.potential));
     evaluate = averaged_evaluator(std::move(members));
   }
   if (settings.options.objective == DesignObjective::dissipated_work) {
@@ -380,13 +415,16 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
     if (settings.target) {  // the shortest duration meeting the target
       int done = 0;
       const int bound = (settings.bisections + 2) * used.options.max_evaluations;
-      if (hooks.progress) design_hooks.progress = [&](const DesignEvaluation&, int, int) { hooks.progress(double(++done) / bound); };
+      if (hooks.progress) design_hooks.progress = [&](const DesignEvaluation&, int, int) { hooks.progress(double(done += used.options.runs_per_evaluation) / bound); };
       const double tau = protocol.duration();
       const double shortest = settings.shortest.empty() ? tau / 4 : duration_value(scenario, settings.shortest, "shortest");
       o.duration_search = design_shortest_duration(protocol, evaluate, used.options, target_value(o, *settings.target),
                                                    shortest, settings.bisections, design_hooks);
       const auto& trials = o.duration_search->trials;
       const auto& chosen = trials.at(std::size_t(std::max(0, o.duration_search->best)));
+      if (!chosen.ran || !chosen.feasible)  // nothing met and no design at the scenario's duration
+        throw PhysicsError(o.duration_search->warnings.empty() ? std::string("no design at the scenario's duration")
+                                                               : o.duration_search->warnings.front());
       o.result = chosen.design;
       o.result.warnings.insert(o.result.warnings.begin(), o.duration_search->warnings.begin(), o.duration_search->warnings.end());
       const std::string unit = duration_unit(scenario);
@@ -400,7 +438,7 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
   } catch (const PhysicsError& e) {
     throw PhysicsError(scenario.file + ": " + e.what());
   }
-  const Protocol at_protocol = build_protocol(o.scenario);
+  const Protocol at_protocol = protocol_of(o.scenario);
   const DesignFamily at_family(at_protocol, settings.options.modes, settings.options.zero_end_acceleration);
 
   const std::string time_unit = duration_unit(o.scenario);
@@ -439,6 +477,12 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
         t.speed_limit = std::min(t.speed_limit, b.max_speed);
         t.overshoot_limit = std::min(t.overshoot_limit, b.max_overshoot);
       }
+    if (d.address == "box.left" || d.address == "box.right") {  // lab units as the reader takes them: value_unit, t and tau in time_unit
+      const std::string shape = at_family.shape_expression(p, o.result.amplitudes);
+      t.formula = "(" + exact_number(d.from / t.value_per_unit) + ")+(" + exact_number((d.to - d.from) / t.value_per_unit) +
+                  ")*(" + shape + ")";
+      t.internal_formula = "(" + exact_number(d.from) + ")+(" + exact_number(d.to - d.from) + ")*(" + shape + ")";
+    }
     for (int i = 0; i < table_rows; ++i) {
       const double u = double(i) / (table_rows - 1);
       t.times.push_back(u * tau);
@@ -448,11 +492,11 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
     o.tables.push_back(std::move(t));
   }
   for (auto& m : o.robust) {  // each member's objective, smooth ramp and design (2 runs each)
-    const DesignEvaluator one = work_evaluator(m.potential, request, settings.options.objective);
+    const DesignEvaluator one = evaluator_for(m.potential);
     m.objective_before = one(at_family.protocol(zero));
     m.objective_after = one(at_family.protocol(o.result.amplitudes));
   }
-  const bool translation = at_protocol.translation(o.scenario.potential).has_value();
+  const bool translation = !walls && at_protocol.translation(o.scenario.potential).has_value();
   o.designed_text = designed_scenario_text(o.scenario, settings.scenario_text, o.tables, translation, o.family,
                                            settings.target ? std::optional(o.scenario.protocol->duration_given) : std::nullopt);
   final_runs(o, translation, hooks);
@@ -525,8 +569,10 @@ nlohmann::ordered_json duration_search_summary(const DesignTaskOutcome& o) {
     trials.push_back({{"duration", t.duration / per},
                       {"met", t.met},
                       {"designed", t.ran},
-                      {"objective_after", t.ran ? json(t.design.objective_after / o.objective_per_unit) : json(nullptr)},
-                      {"evaluations", t.ran ? t.design.history.size() : 0}});
+                      {"feasible", t.ran ? json(t.feasible) : json(nullptr)},  // false: no member within the bounds
+                      {"objective_after", t.ran && t.feasible ? json(t.design.objective_after / o.objective_per_unit) : json(nullptr)},
+                      {"evaluations", t.ran ? t.design.history.size() : 0},
+                      {"work_runs", t.ran ? t.design.work_runs : 0}});
   return {{"target", *o.settings.target},
           {"duration_unit", unit},
           {"bisections", o.settings.bisections},
@@ -597,6 +643,8 @@ nlohmann::ordered_json task_summary(const DesignTaskOutcome& o) {
        {"starts", o.settings.options.starts},
        {"evaluation_bound", o.settings.options.max_evaluations},
        {"evaluations", r.history.size()},
+       {"runs_per_evaluation", o.settings.options.runs_per_evaluation},
+       {"work_runs", r.work_runs},
        {"feasible_evaluations", feasible},
        {"bound_reached", r.bound_reached},
        {"start_results", r.start_results},
@@ -693,7 +741,7 @@ void print_task_report(std::ostream& out, const DesignTaskOutcome& o) {
         << *o.settings.target << ":";
     for (const auto& t : d.trials)
       out << " " << short_number(t.duration / per, 10) << " " << unit << " "
-          << (!t.ran ? "(too fast for the speed bound)" : t.met ? "met" : "missed") << ";";
+          << (!t.ran ? "(too fast for the speed bound)" : !t.feasible ? "missed (no member within the bounds)" : t.met ? "met" : "missed") << ";";
     if (d.best >= 0)
       out << " shortest met " << short_number(d.trials[std::size_t(d.best)].duration / per, 10) << " " << unit
           << " (bracket " << short_number(d.lower / per, 10) << " to " << short_number(d.upper / per, 10) << " " << unit << ")";
@@ -703,7 +751,12 @@ void print_task_report(std::ostream& out, const DesignTaskOutcome& o) {
       << short_number(r.objective_before / o.objective_per_unit, 10) << unit << ", designed "
       << short_number(r.objective_after / o.objective_per_unit, 10) << unit;
   if (r.objective_after > 0) out << " (factor " << short_number(r.objective_before / r.objective_after, 10) << ")";
-  out << "\n" << r.history.size() << " evaluations (bound " << o.settings.options.max_evaluations << "), "
+  const int members = o.settings.options.runs_per_evaluation;
+  out << "\n" << r.history.size() << " evaluations";
+  if (members > 1) out << " x " << members << " members = " << r.work_runs << " work runs";
+  out << " (bound " << o.settings.options.max_evaluations << " work runs, every run counted";
+  if (members > 1) out << "; after the search " << 2 * members << " member runs and 2 final runs";
+  out << "), "
       << design_method_name(o.settings.options.method) << " from " << r.start_results.size() << " start(s):";
   for (std::size_t i = 0; i < r.start_results.size(); ++i) out << (i ? "; " : " ") << r.start_results[i];
   out << "\n";

@@ -55,6 +55,11 @@ struct DesignTable {
   std::string value_unit; // of the second ("" for a plain parameter)
   double time_per_unit = 1, value_per_unit = 1;  // internal value of one unit
   std::vector<double> times, before, after;      // internal
+  // A moving wall (box.left, box.right): the designed ramp as a formula ramp of t/tau, in
+  // value_unit (`formula`, as designed.toml writes it) and internal (`internal_formula`, as the
+  // scenario reader makes it), because the wall route refuses a table (it needs the wall's
+  // acceleration); the table above is then for the pictures and the csv only. Empty otherwise.
+  std::string formula, internal_formula;
   // Largest |speed| and excursion beyond the end values (internal), of the smooth ramp and the
   // design, and the limits the search kept (the overshoot band as used: min(overshoot |b - a|,
   // max_overshoot); speed: infinity when not bounded).
@@ -86,7 +91,7 @@ struct DesignTaskOutcome {
   std::vector<std::string> final_warnings;  // objective not reproduced, failed checks
 };
 
-// Reads the protocol's changes, refuses what the design cannot do (moving walls, [noise],
+// Reads the protocol's changes, refuses what the design cannot do ([noise],
 // natural units: InputError naming the key), calls `checked` (the command line takes its output
 // folder there), then searches (stage "design"; progress: evaluations done over the bound;
 // hooks.interrupt before every evaluation and inside the spectra) and makes the files' content.

@@ -62,7 +62,7 @@ void add_design_command(CLI::App& app) {
   sub->add_option("--starts", command->starts, "starts of the local search (the first from the smooth ramp)")
       ->capture_default_str()
       ->check(CLI::Range(1, 1000));
-  sub->add_option("--evaluations", command->evaluations, "bound on the work runs of all starts together")
+  sub->add_option("--evaluations", command->evaluations, "bound on the work runs of all starts together (a robust design runs every member at each evaluation: each run counts)")
       ->capture_default_str()
       ->check(CLI::Range(1, 1000000));
   sub->add_option("--objective", command->objective,
