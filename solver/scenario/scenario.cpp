@@ -1338,23 +1338,6 @@ void Reader::read_bath(const toml::table& root, Scenario& s) const {
   if (!t) return;
   check_keys(*t, "bath", table_keys("bath"));
   BathRequest bath;
-  const toml::node* temperature = t->get("temperature");
-  const toml::node* phonons = t->get("mean_phonons");
-  if (bool(temperature) == bool(phonons))
-    fail(temperature ? *temperature : static_cast<const toml::node&>(*t), "bath",
-         "exactly one of temperature, mean_phonons");
-  std::string given;
-  if (temperature) {
-    const auto r = internal(*t, "temperature", "bath.temperature", Dimension::temperature());
-    require(r->value >= 0, *r, "bath.temperature", "a temperature >= 0");
-    bath.temperature = r->value;
-    given = "temperature = " + found_text(*temperature);
-  } else {
-    const auto r = plain(*t, "mean_phonons", "bath.mean_phonons", "a mean phonon number");
-    require(r->value >= 0, *r, "bath.mean_phonons", "a mean phonon number >= 0");
-    bath.mean_phonons = r->value;
-    given = "mean_phonons = " + found_text(*phonons);
-  }
   // the rate as events per time, "200 /s" or "0.2 /ms" (as heating_rate's "quanta/s": a time
   // unit inverted, never Hz, which would leave open whether 2 pi is in it); a bare number in
   // natural units
@@ -1380,13 +1363,31 @@ void Reader::read_bath(const toml::table& root, Scenario& s) const {
     }
     char* end = nullptr;
     const double count = std::strtod(number.c_str(), &end);
-    if (end == number.c_str() || *end != '\0' && !std::isspace(static_cast<unsigned char>(*end)) ||
+    if (end == number.c_str() || (*end != '\0' && !std::isspace(static_cast<unsigned char>(*end))) ||
         !(per.dimension == Dimension::time()))
       fail(*rate, "bath.rate", expected);
     bath.rate = count / per.value_si * units_.time_s();  // per second (not angular) -> per T0
   }
   if (!(bath.rate > 0) || !std::isfinite(bath.rate)) fail(*rate, "bath.rate", expected);
-  given += ", rate = " + found_text(*rate);
+  const std::string rate_given = ", rate = " + found_text(*rate);
+  const toml::node* temperature = t->get("temperature");
+  const toml::node* phonons = t->get("mean_phonons");
+  if (bool(temperature) == bool(phonons))
+    fail(temperature ? *temperature : static_cast<const toml::node&>(*t), "bath",
+         "exactly one of temperature, mean_phonons");
+  std::string given;
+  if (temperature) {
+    const auto r = internal(*t, "temperature", "bath.temperature", Dimension::temperature());
+    require(r->value >= 0, *r, "bath.temperature", "a temperature >= 0");
+    bath.temperature = r->value;
+    given = "temperature = " + found_text(*temperature);
+  } else {
+    const auto r = plain(*t, "mean_phonons", "bath.mean_phonons", "a mean phonon number");
+    require(r->value >= 0, *r, "bath.mean_phonons", "a mean phonon number >= 0");
+    bath.mean_phonons = r->value;
+    given = "mean_phonons = " + found_text(*phonons);
+  }
+  given += rate_given;
   if (!s.noise) {  // a bath alone: the noise run with no sources
     s.noise.emplace();
     s.noise->request.route = NoiseRoute::automatic;
