@@ -18,6 +18,7 @@
 #include "solver/grid.hpp"
 #include "solver/hamiltonian.hpp"
 #include "solver/propagator.hpp"
+#include "solver/thermal.hpp"
 #include "solver/units.hpp"
 
 namespace trapwork {
@@ -166,6 +167,12 @@ void add_derivative(const Potential& at, const std::string& address, const std::
   for (std::size_t j = 0; j < x.size(); ++j) out[j] += factor * (up[j] - down[j]);
 }
 
+// The factor of a source's noise at the potential `at`: p(t) for relative noise (eps = p eps_rel,
+// noise.hpp), 1 otherwise.
+double noise_scale(const Potential& at, const NoiseSource& source) {
+  return source.relative ? at.parameter(source.address) : 1.0;
+}
+
 // dV/dp at each time the propagation samples the potential: the same times in every
 // realisation (the same step subdivision), so computed once and shared read-only.
 struct DerivativeTable {
@@ -177,9 +184,10 @@ struct DerivativeTable {
 // when it holds the time, else computed here. Holds its own copies, so one instance per thread.
 class ParameterNoise {
  public:
-  ParameterNoise(Potential base, Protocol protocol, std::vector<std::string> addresses, std::vector<NoiseTrace> traces,
+  // The table's rows include the factor noise_scale.
+  ParameterNoise(Potential base, Protocol protocol, std::vector<NoiseSource> sources, std::vector<NoiseTrace> traces,
                  std::shared_ptr<const DerivativeTable> table)
-      : base_(std::move(base)), protocol_(std::move(protocol)), addresses_(std::move(addresses)),
+      : base_(std::move(base)), protocol_(std::move(protocol)), sources_(std::move(sources)),
         traces_(std::move(traces)), table_(std::move(table)) {}
   void operator()(double t, const std::vector<double>& x, std::vector<double>& v) {
     bool any = false;
@@ -187,7 +195,7 @@ class ParameterNoise {
     if (!any) return;  // zero noise leaves the potential bit for bit
     if (table_) {
       if (const auto it = table_->row.find(t); it != table_->row.end()) {
-        for (std::size_t k = 0; k < addresses_.size(); ++k) {
+        for (std::size_t k = 0; k < sources_.size(); ++k) {
           const double eps = traces_[k](t);
           const std::vector<double>& d = table_->values[it->second + k];
           for (std::size_t j = 0; j < x.size(); ++j) v[j] += eps * d[j];
@@ -196,14 +204,15 @@ class ParameterNoise {
       }
     }
     const Potential at = protocol_.at(base_, t);
-    for (std::size_t k = 0; k < addresses_.size(); ++k)
-      if (const double eps = traces_[k](t); eps != 0) add_derivative(at, addresses_[k], x, eps, v, up_, down_);
+    for (std::size_t k = 0; k < sources_.size(); ++k)
+      if (const double eps = traces_[k](t); eps != 0)
+        add_derivative(at, sources_[k].address, x, eps * noise_scale(at, sources_[k]), v, up_, down_);
   }
 
  private:
   Potential base_;
   Protocol protocol_;
-  std::vector<std::string> addresses_;
+  std::vector<NoiseSource> sources_;
   std::vector<NoiseTrace> traces_;
   std::shared_ptr<const DerivativeTable> table_;
   std::vector<double> up_, down_;
@@ -322,7 +331,7 @@ struct LindbladRun {
 // the rounding error grew to populations of +-50 in the top levels of a 96-level basis).
 LindbladRun propagate_lindblad(const PotentialPath& path, const Potential& base, const Protocol& protocol,
                                const WorkResult& w, const std::vector<double>& v_final, const WorkRequest& request,
-                               const NoiseRequest& noise) {
+                               const NoiseRequest& noise, double bath_beta) {
   using Complex = std::complex<double>;
   const double tau = protocol.duration();
   const Grid& grid = w.grid;
@@ -372,10 +381,56 @@ LindbladRun propagate_lindblad(const PotentialPath& path, const Potential& base,
     const Potential at = protocol.at(base, t);
     for (std::size_t p = 0; p < jump.size(); ++p) {
       derivative.assign(lab.size(), 0.0);
-      add_derivative(at, noise.sources[p].address, lab, std::sqrt(gamma[p]), derivative, up, down);
+      add_derivative(at, noise.sources[p].address, lab, std::sqrt(gamma[p]) * noise_scale(at, noise.sources[p]),
+                     derivative, up, down);
       jump[p] = prop.project_function(Eigen::Map<const Eigen::VectorXd>(derivative.data(), Eigen::Index(derivative.size())));
       jump_squared[p].noalias() = jump[p] * jump[p];
     }
+  };
+  // The bath (BathRequest, noise.hpp): the instantaneous levels of H(t) = diag(E) + M(t) in the
+  // basis (eigenvectors u), the rates g(j, n) from n to j between them and the total rate out of
+  // each. The position's matrix in the basis: its off-diagonal elements, all the rates use, do
+  // not depend on the origin of x (the frame's displacement).
+  const bool bath = noise.bath.has_value();
+  Eigen::MatrixXd position, hamiltonian(k, k), u(k, k), bath_rate(k, k);
+  Eigen::VectorXd rate_out(k);
+  Eigen::MatrixXcd uc(k, k), turned(k, k * kept), block(k, k);
+  if (bath) position = prop.project_function(Eigen::Map<const Eigen::VectorXd>(points.data(), Eigen::Index(points.size())));
+  // M(t) = 0 (a hold): the basis is the instantaneous eigenbasis (u = 1), the rates computed once
+  bool bath_identity = false, bath_static = false;
+  auto bath_at = [&](const Eigen::MatrixXd& m) {  // m = M(t)
+    bath_identity = m.cwiseAbs().maxCoeff() == 0;
+    if (bath_identity && bath_static) return;
+    bath_static = bath_identity;
+    hamiltonian = m;
+    hamiltonian.diagonal() += energy;
+    Eigen::VectorXd level = energy;
+    if (bath_identity) {
+      u.setIdentity();
+    } else {
+      const Eigen::SelfAdjointEigenSolver<Eigen::MatrixXd> solver(hamiltonian);
+      u = solver.eigenvectors();
+      level = solver.eigenvalues();
+    }
+    const Eigen::MatrixXd x = u.transpose() * position * u;
+    const double x01 = x(0, 1) * x(0, 1);
+    if (!(x01 > 1e-12 * x.cwiseAbs2().maxCoeff()))
+      throw PhysicsError("bath: the position has no matrix element between the two lowest instantaneous levels "
+                         "(|<0|x|1>|^2 = " + format_number(x01) + "), which sets the bath's rate; the bath needs a "
+                         "trap whose lowest transition is dipole-allowed");
+    const double gap = 1e-9 * (level[k - 1] - level[0]);
+    for (Eigen::Index n = 0; n < k; ++n)
+      for (Eigen::Index j = 0; j < k; ++j) {
+        const double spacing = level[n] - level[j];  // > 0: down from n to j
+        if (j == n || std::abs(spacing) <= gap) {
+          bath_rate(j, n) = 0;
+          continue;
+        }
+        const double occupation = std::isinf(bath_beta) ? 0.0 : 1 / std::expm1(bath_beta * std::abs(spacing));
+        bath_rate(j, n) = noise.bath->rate * x(j, n) * x(j, n) / x01 * (spacing > 0 ? occupation + 1 : occupation);
+      }
+    rate_out = bath_rate.colwise().sum().transpose();
+    uc = u.cast<Complex>();
   };
   // Refused before the run: noise that scatters a kept level more often during the protocol
   // than the basis has levels (sum_p <m|L_p^2|m> - <m|L_p|m>^2, the rate out of m, times tau)
@@ -407,7 +462,13 @@ LindbladRun propagate_lindblad(const PotentialPath& path, const Potential& base,
     const Eigen::VectorXd eig = Eigen::SelfAdjointEigenSolver<Eigen::MatrixXd>(l, Eigen::EigenvaluesOnly).eigenvalues();
     stiffness += std::max(eig.cwiseAbs2().maxCoeff(), 0.0) * tau;
   }
-  const double operations = 6 * (stiffness / 3.3) * 8 * double(1 + 2 * jump.size()) * double(k * k * k) * kept;
+  if (bath) {  // the fastest decay, of the top level
+    prop.coupling(0.0, coupling);
+    bath_at(coupling);
+    stiffness += rate_out.maxCoeff() * tau;
+  }
+  const double operations =
+      6 * (stiffness / 3.3) * 8 * double(1 + 2 * jump.size() + (bath ? 4 : 0)) * double(k * k * k) * kept;
   if (operations > 1e12)
     throw TooStiff("noise: the Lindblad equation is stiff here (largest dephasing rate x duration " +
                        format_number(stiffness) + "): about " + format_number(operations) +
@@ -443,6 +504,24 @@ LindbladRun propagate_lindblad(const PotentialPath& path, const Potential& base,
       for (int m = 0; m < kept; ++m) {
         auto block = x.middleCols(m * k, k);
         da.middleCols(m * k, k) -= 0.5 * (block + block.adjoint());
+      }
+    }
+    if (bath) {  // in the instantaneous levels: rho' = u^T rho u, D' = gains on the diagonal - (G_k + G_l)/2 rho'_kl
+      bath_at(coupling);
+      if (!bath_identity) turned.noalias() = uc.adjoint() * r;
+      for (int m = 0; m < kept; ++m) {
+        if (bath_identity)
+          block = r.middleCols(m * k, k);
+        else
+          block.noalias() = turned.middleCols(m * k, k) * uc;
+        const Eigen::VectorXd population = block.diagonal().real();
+        for (Eigen::Index c = 0; c < k; ++c)
+          for (Eigen::Index l = 0; l < k; ++l) block(l, c) *= -0.5 * (rate_out[l] + rate_out[c]);
+        block.diagonal() += (bath_rate * population).cast<Complex>();
+        if (bath_identity)
+          da.middleCols(m * k, k) += block;
+        else
+          da.middleCols(m * k, k).noalias() += uc * block * uc.adjoint();
       }
     }
     for (int m = 0; m < kept; ++m) da.middleCols(m * k, k) = q.conjugate().cwiseProduct(da.middleCols(m * k, k));
@@ -486,7 +565,17 @@ LindbladRun propagate_lindblad(const PotentialPath& path, const Potential& base,
 
 NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, const WorkRequest& request,
                                const NoiseRequest& noise, const WorkResult* noiseless) {
-  if (noise.sources.empty()) throw InputError("noise", "", "at least one noise source");
+  if (noise.sources.empty() && !noise.bath) throw InputError("noise", "", "at least one noise source or a bath");
+  if (const auto& b = noise.bath) {
+    if (!(b->rate > 0) || !std::isfinite(b->rate)) throw InputError("bath.rate", format_number(b->rate), "a rate > 0");
+    if (b->mean_phonons < 0 && !(b->temperature >= 0 && std::isfinite(b->temperature)))
+      throw InputError("bath.temperature", format_number(b->temperature), "a temperature >= 0");
+    if (!std::isfinite(b->mean_phonons))
+      throw InputError("bath.mean_phonons", format_number(b->mean_phonons), "a mean phonon number >= 0");
+    if (noise.route == NoiseRoute::realisations)
+      throw InputError("noise.route", "\"realisations\"",
+                       "\"lindblad\" or \"auto\": damping toward a bath is a master equation (Lindblad route only)");
+  }
   const Potential initial = protocol.initial(base);
   for (const auto& s : noise.sources) (void)initial.parameter(s.address);  // InputError for an unknown address
   if (!(protocol.duration() > 0))
@@ -495,6 +584,9 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
   std::string coloured;
   for (const auto& s : noise.sources)
     if (!s.spectrum.is_white()) white = false, coloured = s.address;
+  if (noise.bath && !white)
+    throw InputError("bath", "a bath with the coloured noise on " + coloured,
+                     "white noise only beside a bath: the bath needs the Lindblad route, which holds for white noise");
   if (noise.route == NoiseRoute::lindblad && !white)
     throw InputError("noise.route", "\"lindblad\"",
                      "\"realisations\" or \"auto\": the noise on " + coloured +
@@ -502,7 +594,7 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
   const bool eigenbasis = request.integrator == Integrator::eigenbasis;
   const std::string split_only = "noise realisations are propagated with the split-operator integrator: write "
                                  "integrator = \"order4\" or \"strang\"";
-  if (eigenbasis && (noise.route == NoiseRoute::realisations || !white))
+  if (eigenbasis && !noise.bath && (noise.route == NoiseRoute::realisations || !white))
     throw PhysicsError(split_only + (white ? " (or noise.route = \"lindblad\" for this white noise)"
                                            : " (the noise on " + coloured + " is coloured: realisations only)"));
 
@@ -518,10 +610,23 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
   std::vector<double> lab(w.grid.points());
   for (double& x : lab) x += path.displacement(tau);
   const std::vector<double> v_final = protocol.final(base).evaluate(lab);
-  std::vector<std::string> addresses;
-  for (const auto& s : noise.sources) addresses.push_back(s.address);
   const double nan = std::numeric_limits<double>::quiet_NaN();
   if (const auto h = initial.harmonic_part()) out.harmonic_omega = h->first;
+  if (const auto& b = noise.bath) {
+    // the co-moving frame of a trap that does not move (a constant centre) is the lab frame
+    bool moves = false;
+    for (int i = 0; i <= 256 && w.co_moving; ++i) moves = moves || path.displacement(tau * i / 256) != 0;
+    if (moves)
+      throw PhysicsError("bath: the levels it relaxes toward are those of the lab frame, and this run propagates in the "
+                         "co-moving frame of the translation: write work.frame = \"lab\"");
+    out.bath = true;
+    out.bath_rate = b->rate;
+    const Eigen::VectorXd& e = w.initial_spectrum.energies;
+    out.bath_beta = b->mean_phonons >= 0
+                        ? (b->mean_phonons == 0 ? std::numeric_limits<double>::infinity()
+                                                : beta_from_phonons(b->mean_phonons, e.size() > 1 ? e[1] - e[0] : 0.0))
+                        : (b->temperature > 0 ? 1 / b->temperature : std::numeric_limits<double>::infinity());
+  }
 
   // the route
   const int basis_levels = lindblad_levels(w, request);
@@ -530,6 +635,11 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
     out.route_reason = "asked for (noise.route = \"lindblad\")";
   else if (noise.route == NoiseRoute::realisations)
     out.route_reason = "asked for (noise.route = \"realisations\")";
+  else if (noise.bath) {
+    lindblad = true;
+    out.route_reason = "automatic: damping toward a bath is a master equation, the Lindblad route (basis of " +
+                       std::to_string(basis_levels) + " levels)";
+  }
   else if (!white)
     out.route_reason = "automatic: the noise on " + coloured + " is coloured (a PSD table), which needs realisations";
   else if (basis_levels > lindblad_basis_limit)
@@ -546,9 +656,9 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
   std::optional<LindbladRun> solved;
   if (lindblad) {
     try {
-      solved = propagate_lindblad(path, base, protocol, w, v_final, request, noise);
+      solved = propagate_lindblad(path, base, protocol, w, v_final, request, noise, out.bath_beta);
     } catch (const TooStiff& e) {
-      if (noise.route == NoiseRoute::lindblad || eigenbasis) throw;
+      if (noise.route == NoiseRoute::lindblad || eigenbasis || noise.bath) throw;
       lindblad = false;
       out.route_reason = "automatic: all noise is white, but the Lindblad route is refused (" + std::string(e.what()) +
                          "): realisations";
@@ -566,7 +676,7 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
     finer.ode.relative /= 10;
     out.line_error_target = noise.line_error_target;
     try {
-      LindbladRun check = propagate_lindblad(path, base, protocol, w, v_final, finer, noise);
+      LindbladRun check = propagate_lindblad(path, base, protocol, w, v_final, finer, noise, out.bath_beta);
       WorkInput a = w.forward, b = w.forward;
       a.transitions.probability = solved->transitions;
       b.transitions.probability = check.transitions;
@@ -592,8 +702,12 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
     out.route_name = "lindblad";
     out.basis_levels = run.basis;
     out.ode_evaluations = run.evaluations;
-    out.route = "lindblad: master equation with jump operators sqrt(S/2) dV/dp in the eigenbasis of " +
-                std::to_string(run.basis) + " levels of H_A (Dormand-Prince 5(4), tolerances " +
+    out.route = std::string("lindblad: master equation with ") +
+                (noise.sources.empty() ? "" : "jump operators sqrt(S/2) dV/dp ") +
+                (noise.bath ? std::string(noise.sources.empty() ? "" : "and ") +
+                                  "thermalising jumps between the instantaneous levels (bath) "
+                            : "") +
+                "in the eigenbasis of " + std::to_string(run.basis) + " levels of H_A (Dormand-Prince 5(4), tolerances " +
                 text(used_ode.absolute) + " absolute, " + text(used_ode.relative) +
                 " relative); deterministic, no statistical error";
     WorkInput input = w.forward;
@@ -615,6 +729,9 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
     out.heating_rate = {out.extra_energy.value / tau, 0};
     out.heating_quanta_rate = out.harmonic_omega > 0 ? Estimate{out.heating_rate.value / out.harmonic_omega, 0}
                                                      : Estimate{nan, nan};
+    if (noise.mean_error_target > 0)
+      out.notes.push_back("noise.standard_error does not apply to the Lindblad route: the master equation is the exact "
+                          "average, with no statistical error (its numerical error is checked with --tolerance)");
     if (out.distribution.unresolved_weight > request.unresolved_tolerance)
       out.warnings.push_back("with noise the unresolved final weight is " + text(out.distribution.unresolved_weight) +
                              " (above " + text(request.unresolved_tolerance) +
@@ -667,9 +784,9 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
       for (std::size_t j = 0; j < x.size(); ++j) x[j] = points[j] + d;  // as PotentialPath::sample
       const Potential at = protocol.at(base, t);
       table->row.emplace(t, table->values.size());
-      for (const auto& address : addresses) {
+      for (const auto& source : noise.sources) {
         table->values.emplace_back(x.size(), 0.0);
-        add_derivative(at, address, x, 1.0, table->values.back(), up, down);
+        add_derivative(at, source.address, x, noise_scale(at, source), table->values.back(), up, down);
       }
     }
   }
@@ -678,7 +795,7 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
     for (std::size_t k = 0; k < noise.sources.size(); ++k)
       traces.push_back(noise_trace(noise.sources[k].spectrum, tau, w.steps, noise.seed, std::uint64_t(index - 1), k));
     const PotentialPath noisy =
-        path.with_perturbation(ParameterNoise(base, protocol, addresses, std::move(traces), table));
+        path.with_perturbation(ParameterNoise(base, protocol, noise.sources, std::move(traces), table));
     runs[std::size_t(index)] = propagate_realisation(noisy, w, v_final, request);
   };
   // realisations first .. last - 1, spread over the threads

@@ -29,6 +29,7 @@
 // propagator of the noiseless run, on its grid and frame; the TPM transition matrices are
 // averaged. Every trace is a closed (unitary) evolution.
 #include <cstdint>
+#include <optional>
 #include <string>
 #include <vector>
 
@@ -67,6 +68,35 @@ double heating_rate_from_position_psd(double psd, double omega);
 struct NoiseSource {
   std::string address;  // "trap.centre"
   NoiseSpectrum spectrum = NoiseSpectrum::white(0);
+  // Relative (fractional) noise, e.g. intensity noise given as RIN: the spectrum is that of
+  // eps/p (per unit time, no parameter unit) and the noise term is p(t) eps_rel(t) dV/dp, with
+  // p(t) the parameter's value at each time of the protocol (ramped or not); i.e. the absolute
+  // PSD is S_p(f, t) = S_rel(f) p(t)^2. For a constant p identical to the absolute source of
+  // level S_rel p^2.
+  bool relative = false;
+};
+
+// Damping toward a thermal bath (Lindblad route only): jump operators between the
+// instantaneous eigenstates |k(t)> of the frame's Hamiltonian in the truncated basis,
+//   L_{n->k} = sqrt(g_{n->k}) |k(t)><n(t)|,  for E_n > E_k (w = E_n - E_k):
+//   g_{n->k} = rate |x_kn|^2 / |x_01|^2 (N(w) + 1),  g_{k->n} = rate |x_kn|^2 / |x_01|^2 N(w),
+//   N(w) = 1 / (exp(beta_bath w) - 1) (0 for a bath at zero temperature),
+// x_kn = <k(t)|x|n(t)> and x_01 that of the two lowest instantaneous levels. Detailed balance
+// g_{k->n} / g_{n->k} = exp(-beta_bath w) holds for every pair, so a held Hamiltonian relaxes to
+// the Gibbs state at the bath temperature. For a harmonic trap |x_{n-1,n}|^2 / |x_01|^2 = n and
+// the populations follow the rate equations of the standard damped-oscillator master equation
+//   d rho/dt = gamma (N + 1) (a rho a^+ - {a^+ a, rho}/2) + gamma N (a^+ rho a - {a a^+, rho}/2)
+// (Breuer and Petruccione, The Theory of Open Quantum Systems (2002), section 3.4.6, from
+// memory), so d<n>/dt = -rate (<n> - N(omega)): `rate` is the energy damping rate gamma, and in
+// any trap the decay rate of the first excited level into the ground level at zero temperature.
+// One jump per pair of levels is the secular (Davies) form for distinct Bohr frequencies: the
+// coherences between levels decay at half the sum of their total rates out, without the
+// transfer of coherence along the ladder that the harmonic form has (populations identical).
+// Pairs closer than 1e-9 of the basis' energy range (degenerate levels) are not coupled.
+struct BathRequest {
+  double temperature = 0;    // k_B T_bath (internal energy), >= 0; used when mean_phonons < 0
+  double mean_phonons = -1;  // >= 0: the bath given by its mean occupation N at H_A's lowest spacing
+  double rate = 0;           // gamma > 0, per internal time
 };
 
 // How the noise is averaged: noise traces propagated one by one (any PSD), or the Lindblad
@@ -87,6 +117,8 @@ struct NoiseRequest {
   double mean_error_target = 0;  // standard error of <W> (internal energy)
   double line_error_target = 0;  // statistical line error (NoisyWorkResult::line_error_total)
   int max_realisations = 10000;  // >= realisations
+  // Damping toward a bath (Lindblad route only; sources may then be empty).
+  std::optional<BathRequest> bath;
 };
 
 // The largest eigenbasis (levels K) the automatic choice takes the Lindblad route with: its
@@ -155,7 +187,13 @@ struct NoisyWorkResult {
   int basis_levels = 0;            // Lindblad: levels of its eigenbasis (0: realisations)
   long ode_evaluations = 0;        // Lindblad: right-hand-side evaluations of the master equation
   std::string psd_convention;      // the sentence for the summary
+  // With a bath: the lines are energy changes E_n^B - E_m^A (work + heat), not work, and the
+  // Jarzynski average is not expected to equal Z_B/Z_A.
+  bool bath = false;
+  double bath_beta = 0;            // 1 / (k_B T_bath), internal; infinity for a zero-temperature bath
+  double bath_rate = 0;            // gamma, per internal time
   std::vector<std::string> warnings;
+  std::vector<std::string> notes;  // what the run did not apply, and why (not a warning)
 };
 
 // The noisy TPM work statistics. Route (NoiseRequest::route, the choice and its reason in the

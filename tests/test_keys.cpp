@@ -131,6 +131,8 @@ white = "1e-24 m^2/Hz"
 // Which base scenario holds the table at `address` (keys of [box] need a box).
 std::string base_for(const std::string& address) {
   if (address == "noise" || address == "noise.source") return noise_base;
+  // [bath]: the rate; temperature or mean_phonons (exactly one) is the key tested
+  if (address == "bath") return std::string(trap_base) + "[bath]\nrate = \"200 /s\"\n";
   return address == "box" || address == "box.soft_walls" ? box_base : trap_base;
 }
 

@@ -179,7 +179,8 @@ const std::vector<TableSpec>& scenario_tables() {
                   sub("initial", KeyType::table, "none", "[initial] (trapwork work, sweep)"),
                   sub("work", KeyType::table, "none", "[work] (trapwork work, sweep)"),
                   sub("sweep", KeyType::table, "none", "[sweep] (trapwork sweep)"),
-                  sub("noise", KeyType::table, "none", "[noise]: technical noise during the protocol (trapwork work)")}});
+                  sub("noise", KeyType::table, "none", "[noise]: technical noise during the protocol (trapwork work)"),
+                  sub("bath", KeyType::table, "none", "[bath]: damping toward a thermal bath during the protocol (trapwork work)")}});
     t.push_back({"particle", "[particle]", "the trapped particle",
                  {quantity("mass", Dimension::mass(), "required",
                            "the particle's mass, always with its unit (u, Da, kg, g)", "\"40 u\"")}});
@@ -332,7 +333,24 @@ const std::vector<TableSpec>& scenario_tables() {
                "S_x = 4 hbar (dn/dt) / (m omega^3)",
                "\"500 quanta/s\""),
           quantity("at_frequency", Dimension::frequency(), "required with heating_rate",
-                   "trap frequency the heating rate was measured at", "\"1 MHz\"")}});
+                   "trap frequency the heating rate was measured at", "\"1 MHz\""),
+          flag("relative", "false",
+               "white or psd_file is relative noise, eps/p in 1/Hz (intensity noise as RIN): the noise is p(t) eps_rel(t), "
+               "p(t) the parameter's value at each time (absolute PSD S_rel p(t)^2)",
+               "true")}});
+    t.push_back(
+        {"bath", "[bath]",
+         "damping toward a thermal bath (e.g. laser cooling) during the protocol, Lindblad route only: jumps between "
+         "the instantaneous levels n -> k at rate * |<k|x|n>|^2 / |<0|x|1>|^2 * (N + 1) down and * N up, "
+         "N = 1/(exp((E_n - E_k)/kT) - 1) (detailed balance); the work lines become energy changes (work + heat)",
+         {quantity("temperature", Dimension::temperature(), "one of temperature, mean_phonons",
+                   "the bath's temperature (>= 0)", "\"0.5 mK\""),
+          plain("mean_phonons", "one of temperature, mean_phonons",
+                "the bath as its mean occupation (>= 0) at the initial lowest level spacing", "0.05"),
+          text("rate", "required",
+               "damping rate gamma per time (\"200 /s\", \"0.2 /ms\"; not Hz): for a harmonic trap "
+               "d<n>/dt = -gamma (<n> - N); in any trap the zero-temperature decay rate of level 1 to level 0",
+               "\"200 /s\"")}});
     return t;
   }();
   return tables;

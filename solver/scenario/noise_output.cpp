@@ -19,6 +19,17 @@ std::string with_error(const Estimate& e, double per_unit, const std::string& un
 // quanta per second from quanta per internal time
 double per_second(const Scenario& s, double per_internal_time) { return per_internal_time / s.units.time_s(); }
 
+// With a bath the TPM lines are energy changes, and the Jarzynski average is no test of the equality.
+const char* energy_change_words = "energy change (work + heat), not work";
+
+// "<exp(-beta dE)> = 0.52 against Z_B/Z_A = 1: residual -0.48, expected to fail with a bath ..."
+std::string bath_jarzynski(const NoisyWorkResult& r) {
+  const double ratio = r.distribution.partition_ratio;
+  return "<exp(-beta dE)> = " + short_number(r.jarzynski.value, 8) + " against Z_B/Z_A = " + short_number(ratio, 8) +
+         ": residual <exp(-beta dE)> / (Z_B/Z_A) - 1 = " + short_number(r.jarzynski.value / ratio - 1, 4) +
+         ", expected to fail: the bath exchanges heat, so this is not a test of the equality";
+}
+
 }  // namespace
 
 CsvTable noise_lines_table(const Scenario& s, const NoisyWorkResult& r) {
@@ -39,6 +50,9 @@ CsvTable noise_lines_table(const Scenario& s, const NoisyWorkResult& r) {
   }
   t.comments = {
       "trapwork work: work lines with noise during the protocol (" + r.route + ", seed " + std::to_string(r.seed) + ")",
+      r.bath ? std::string("with a bath: probability_noisy is the distribution of the ") + energy_change_words +
+                   "; probability_noiseless that of the work"
+             : std::string("probability_noisy and probability_noiseless: distributions of the work"),
       r.route_name == "lindblad"
           ? "probability_noisy: from the Lindblad equation (the exact white-noise average); probability_noisy_error: "
             "0, no statistical error (the accuracy is the ODE tolerance and the basis)"
@@ -60,6 +74,19 @@ nlohmann::ordered_json noise_summary(const Scenario& s, const NoisyWorkResult& r
   j["seed"] = r.seed;
   j["time_steps"] = r.steps;
   if (s.noise) j["sources"] = s.noise->given;
+  if (r.bath) {
+    nlohmann::ordered_json b;
+    if (s.noise) b["given"] = s.noise->bath_given;
+    b["rate_per_s"] = per_second(s, r.bath_rate);
+    b["inverse_temperature_per_" + d.e_col.substr(1)] =
+        std::isfinite(r.bath_beta) ? nlohmann::ordered_json(r.bath_beta * d.energy_per) : nlohmann::ordered_json(nullptr);
+    b["model"] = "jumps between instantaneous levels n -> k at rate |<k|x|n>|^2/|<0|x|1>|^2 (N+1) down, N up, "
+                 "N = 1/(exp((E_n - E_k)/kT) - 1)";
+    j["bath"] = b;
+    j["quantity"] = energy_change_words;
+  } else {
+    j["quantity"] = "work";
+  }
   auto estimate = [&](const Estimate& e, double per) {
     nlohmann::ordered_json o;
     o["value"] = std::isfinite(e.value) ? nlohmann::ordered_json(e.value / per) : nlohmann::ordered_json(nullptr);
@@ -72,6 +99,10 @@ nlohmann::ordered_json noise_summary(const Scenario& s, const NoisyWorkResult& r
   j["work_variance" + ec + "2"] = estimate(r.variance, d.energy_per * d.energy_per);
   j["work_variance_noiseless" + ec + "2"] = r.noiseless.distribution.variance / (d.energy_per * d.energy_per);
   j["jarzynski_average"] = estimate(r.jarzynski, 1);
+  if (r.bath && std::isfinite(r.jarzynski.value)) {
+    j["jarzynski_residual"] = r.jarzynski.value / r.distribution.partition_ratio - 1;
+    j["jarzynski_note"] = "expected to fail with a bath (heat exchanged): not a test of the equality";
+  }
   j["partition_ratio"] = std::isfinite(r.distribution.partition_ratio) ? nlohmann::ordered_json(r.distribution.partition_ratio)
                                                                          : nlohmann::ordered_json(nullptr);
   j["extra_energy" + ec] = estimate(r.extra_energy, d.energy_per);
@@ -87,15 +118,22 @@ nlohmann::ordered_json noise_summary(const Scenario& s, const NoisyWorkResult& r
   if (r.mean_error_target > 0 || r.line_error_target > 0) j["requested_error_met"] = r.targets_met;
   j["unresolved_weight"] = r.distribution.unresolved_weight;
   j["warnings"] = r.warnings;
+  j["notes"] = r.notes;
   return j;
 }
 
 void print_noise_report(std::ostream& out, const Scenario& s, const NoisyWorkResult& r) {
   const Display d = display(s);
   auto row = [&](const std::string& label, const std::string& text) { print_row(out, label, text); };
-  out << "\nnoise during the protocol\n";
+  out << (r.bath ? "\nnoise and damping toward a bath during the protocol\n" : "\nnoise during the protocol\n");
   if (s.noise)
     for (std::size_t k = 0; k < s.noise->given.size(); ++k) row(k == 0 ? "sources" : "", s.noise->given[k]);
+  if (r.bath) {
+    row("bath", (s.noise ? s.noise->bath_given + "; " : std::string()) +
+                    "jumps between instantaneous levels with detailed balance");
+    row("quantity", std::string(energy_change_words) +
+                        ": with a bath the TPM lines below and in noise_lines.csv are energy changes E_n^B - E_m^A");
+  }
   row("route", r.route_name == "lindblad" ? r.route : r.route + ", seed " + std::to_string(r.seed));
   row("why", r.route_reason);
   if (r.route_name == "realisations" || r.line_error_target > 0)
@@ -109,35 +147,43 @@ void print_noise_report(std::ostream& out, const Scenario& s, const NoisyWorkRes
                           (r.route_name == "lindblad" ? " (distance to the finer master equation)"
                                                       : " (half the sum of the line standard errors)") +
                           (r.line_error_target > 0 ? ", tolerance " + short_number(r.line_error_target, 3) : ""));
-  row("PSD", r.psd_convention);
-  row("<W>", with_error(r.mean, d.energy_per, d.e) + " (noiseless " +
+  if (!s.noise || !s.noise->request.sources.empty()) row("PSD", r.psd_convention);
+  row(r.bath ? "<dE>" : "<W>", with_error(r.mean, d.energy_per, d.e) + " (noiseless " +
                  short_number(r.noiseless.distribution.mean / d.energy_per, 5) + " " + d.e + ")");
-  row("var W", with_error(r.variance, d.energy_per * d.energy_per, "(" + d.e + ")^2") + " (noiseless " +
+  row(r.bath ? "var dE" : "var W", with_error(r.variance, d.energy_per * d.energy_per, "(" + d.e + ")^2") + " (noiseless " +
                    short_number(r.noiseless.distribution.variance / (d.energy_per * d.energy_per), 5) + ")");
-  row("extra E", with_error(r.extra_energy, d.energy_per, d.e) + " from the noise (direct <H_B>, all levels)");
+  row("extra E", with_error(r.extra_energy, d.energy_per, d.e) +
+                     (r.bath ? " from the noise and the bath (direct <H_B>, all levels; negative: net cooling)"
+                             : " from the noise (direct <H_B>, all levels)"));
   if (r.harmonic_omega > 0)
-    row("heating", with_error({per_second(s, r.heating_quanta_rate.value), per_second(s, r.heating_quanta_rate.error)},
-                              1, "quanta/s") +
-                       " over the protocol, in quanta of the initial harmonic frequency");
-  if (std::isfinite(r.jarzynski.value))
+    row(r.bath ? "net heating" : "heating",
+        with_error({per_second(s, r.heating_quanta_rate.value), per_second(s, r.heating_quanta_rate.error)}, 1,
+                   "quanta/s") +
+            " over the protocol, in quanta of the initial harmonic frequency");
+  if (r.bath && std::isfinite(r.jarzynski.value))
+    row("Jarzynski", bath_jarzynski(r));
+  else if (std::isfinite(r.jarzynski.value))
     row("Jarzynski", "<exp(-beta W)> = " + with_error(r.jarzynski, 1, "") + " against Z_B/Z_A = " +
                          short_number(r.distribution.partition_ratio, 8) +
                          (r.route_name == "lindblad"
                               ? " (Hermitian jump operators: a unital map, it holds up to truncation)"
                               : " (each trace is unitary: it holds per trace up to truncation)"));
-  row("lines", "noise_lines.csv: P(W) with and without noise, each noisy line with its standard error");
+  row("lines", r.bath ? "noise_lines.csv: P(dE) with noise and bath, P(W) without, each noisy line with its standard error"
+                      : "noise_lines.csv: P(W) with and without noise, each noisy line with its standard error");
+  for (const auto& n : r.notes) row("note", n);
   for (const auto& w : r.warnings) row("WARN", w);
 }
 
 WorkFigure noisy_work_figure(const WorkRun& run, const NoisyWorkResult& r) {
   WorkFigure f = work_figure(run);
-  f.title = "work distribution without and with noise" +
+  f.title = (r.bath ? "work without, energy change with noise and bath" : "work distribution without and with noise") +
             std::string(r.route_name == "lindblad" ? " (Lindblad)" : " (" + std::to_string(r.realisations) + " realisations)");
   f.result.label = "without noise";
-  f.noisy = work_series(run, "with noise", r.distribution);
+  f.noisy = work_series(run, r.bath ? "with noise and bath: energy change (work + heat)" : "with noise", r.distribution);
   if (r.route_name == "realisations") f.noisy->error = r.line_error;  // probabilities: no unit
   const Display d = display(run.scenario);
-  f.notes.push_back("the <W> marker is without noise; with noise <W> = " +
+  f.notes.push_back(std::string(r.bath ? "the <W> marker is without noise; with noise and bath <dE> = "
+                                        : "the <W> marker is without noise; with noise <W> = ") +
                     (r.route_name == "lindblad"
                          ? short_number(r.mean.value / d.energy_per, 5) + " " + d.e + " (Lindblad: no statistical error)"
                          : with_error(r.mean, d.energy_per, d.e) + " (standard error)"));

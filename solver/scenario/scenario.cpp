@@ -289,6 +289,7 @@ class Reader {
   void read_work(const toml::table& root, Scenario& s) const;
   void read_sweep(const toml::table& root, Scenario& s) const;
   void read_noise(const toml::table& root, Scenario& s) const;
+  void read_bath(const toml::table& root, Scenario& s) const;
 
   // A plain number (integer or floating point) without a unit.
   std::optional<Read> plain(const toml::table& t, std::string_view key, const std::string& dotted,
@@ -1222,6 +1223,9 @@ void Reader::read_noise(const toml::table& root, Scenario& s) const {
     for (int i = 0; i < 4; ++i) psd_dimension.power[std::size_t(i)] = 2 * slot->dimension.power[std::size_t(i)];
     psd_dimension.power[2] += 1;
     const double unit = slot->dimension == Dimension::none() ? 1.0 : units_.to_si(1, slot->dimension);
+    // relative = true: the PSD of eps/p (RIN), per Hz only (NoiseSource::relative)
+    const bool relative = boolean(src, "relative", prefix + ".relative").value_or(false);
+    if (relative) psd_dimension = Dimension::time();
     auto psd_internal = [&](const toml::node& n, const std::string& dotted, const std::string& text) {
       Quantity q;
       try {
@@ -1231,19 +1235,25 @@ void Reader::read_noise(const toml::table& root, Scenario& s) const {
       }
       if (q.plain) {
         if (!natural_)
-          fail(n, dotted, "a one-sided PSD with its unit, (unit of " + *address + ")^2/Hz (e.g. \"1e-22 m^2/Hz\")");
-        return q.value_si * slot->plain_factor * slot->plain_factor;
+          fail(n, dotted, relative ? "a one-sided relative PSD with its unit, 1/Hz (e.g. \"1e-12 /Hz\")"
+                                   : "a one-sided PSD with its unit, (unit of " + *address + ")^2/Hz (e.g. \"1e-22 m^2/Hz\")");
+        return relative ? q.value_si : q.value_si * slot->plain_factor * slot->plain_factor;
       }
       if (!(q.dimension == psd_dimension))
-        fail(n, dotted, "a one-sided PSD of " + *address + ", its unit squared per Hz (" + psd_dimension.describe() +
-                            "), not " + with_article(q.dimension));
-      return q.value_si / (unit * unit * t0);
+        fail(n, dotted, relative ? "a one-sided relative PSD of " + *address + " (relative = true), per Hz (1/Hz), not " +
+                                       with_article(q.dimension)
+                                 : "a one-sided PSD of " + *address + ", its unit squared per Hz (" +
+                                       psd_dimension.describe() + "), not " + with_article(q.dimension));
+      return relative ? q.value_si / t0 : q.value_si / (unit * unit * t0);
     };
     const bool white = src.get("white"), file = src.get("psd_file"), heating = src.get("heating_rate");
     if (int(white) + int(file) + int(heating) != 1)
       fail(node, prefix, "exactly one of white, psd_file, heating_rate");
-    NoiseSource source{*address, NoiseSpectrum::white(0)};
-    std::string given = *address + ": ";
+    if (relative && heating)
+      fail(*src.get("relative"), prefix + ".relative", "relative = true only with white or psd_file (a heating rate is "
+                                                       "absolute)");
+    NoiseSource source{*address, NoiseSpectrum::white(0), relative};
+    std::string given = *address + (relative ? " (relative, times its value at each time): " : ": ");
     if (white) {
       const toml::node& n = *src.get("white");
       const std::string text = n.is_string() ? n.as_string()->get() : found_text(n);
@@ -1322,6 +1332,77 @@ void Reader::read_noise(const toml::table& root, Scenario& s) const {
   s.noise = std::move(settings);
 }
 
+// ---- [bath] (solver/noise.hpp, BathRequest): the noise run's master equation with damping ----
+void Reader::read_bath(const toml::table& root, Scenario& s) const {
+  const toml::table* t = table(root, "bath");
+  if (!t) return;
+  check_keys(*t, "bath", table_keys("bath"));
+  BathRequest bath;
+  // the rate as events per time, "200 /s" or "0.2 /ms" (as heating_rate's "quanta/s": a time
+  // unit inverted, never Hz, which would leave open whether 2 pi is in it); a bare number in
+  // natural units
+  const toml::node* rate = t->get("rate");
+  if (!rate) fail(*t, "bath.rate", "the damping rate (rate = \"200 /s\")");
+  const std::string expected = "a damping rate > 0 per time, e.g. \"200 /s\"";
+  if (rate->is_number() && natural_) {
+    bath.rate = rate->value<double>().value();
+  } else {
+    if (!rate->is_string()) fail(*rate, "bath.rate", expected + " (in quotes)");
+    const std::string text = rate->as_string()->get();
+    const std::size_t slash = text.find('/');
+    if (slash == std::string::npos) fail(*rate, "bath.rate", expected + " (a time unit after '/')");
+    std::string number = text.substr(0, slash);
+    while (!number.empty() && std::isspace(static_cast<unsigned char>(number.back()))) number.pop_back();
+    if (number.size() >= 2 && number.back() == '1' && std::isspace(static_cast<unsigned char>(number[number.size() - 2])))
+      number.pop_back();  // "200 1/s"
+    Quantity per;
+    try {
+      per = parse_quantity("1 " + text.substr(slash + 1));
+    } catch (const InputError& e) {
+      fail(*rate, "bath.rate", expected + " (" + e.expected + ")");
+    }
+    char* end = nullptr;
+    const double count = std::strtod(number.c_str(), &end);
+    if (end == number.c_str() || (*end != '\0' && !std::isspace(static_cast<unsigned char>(*end))) ||
+        !(per.dimension == Dimension::time()))
+      fail(*rate, "bath.rate", expected);
+    bath.rate = count / per.value_si * units_.time_s();  // per second (not angular) -> per T0
+  }
+  if (!(bath.rate > 0) || !std::isfinite(bath.rate)) fail(*rate, "bath.rate", expected);
+  const std::string rate_given = ", rate = " + found_text(*rate);
+  const toml::node* temperature = t->get("temperature");
+  const toml::node* phonons = t->get("mean_phonons");
+  if (bool(temperature) == bool(phonons))
+    fail(temperature ? *temperature : static_cast<const toml::node&>(*t), "bath",
+         "exactly one of temperature, mean_phonons");
+  std::string given;
+  if (temperature) {
+    const auto r = internal(*t, "temperature", "bath.temperature", Dimension::temperature());
+    require(r->value >= 0, *r, "bath.temperature", "a temperature >= 0");
+    bath.temperature = r->value;
+    given = "temperature = " + found_text(*temperature);
+  } else {
+    const auto r = plain(*t, "mean_phonons", "bath.mean_phonons", "a mean phonon number");
+    require(r->value >= 0, *r, "bath.mean_phonons", "a mean phonon number >= 0");
+    bath.mean_phonons = r->value;
+    given = "mean_phonons = " + found_text(*phonons);
+  }
+  given += rate_given;
+  if (!s.noise) {  // a bath alone: the noise run with no sources
+    s.noise.emplace();
+    s.noise->request.route = NoiseRoute::automatic;
+  }
+  if (s.noise->request.route == NoiseRoute::realisations)
+    fail(*root.get_as<toml::table>("noise")->get("route"), "noise.route",
+         "\"lindblad\" or \"auto\": a [bath] is a master equation (Lindblad route only)");
+  for (std::size_t i = 0; i < s.noise->request.sources.size(); ++i)
+    if (!s.noise->request.sources[i].spectrum.is_white())
+      fail(*t, "bath", "white noise beside a bath: noise.source[" + std::to_string(i + 1) +
+                           "] has a PSD table (coloured), which needs the realisations route, and a bath the Lindblad route");
+  s.noise->request.bath = bath;
+  s.noise->bath_given = given;
+}
+
 Scenario Reader::read(const toml::table& root) {
   Scenario s;
   s.file = file_;
@@ -1350,6 +1431,7 @@ Scenario Reader::read(const toml::table& root) {
   read_work(root, s);
   read_sweep(root, s);
   read_noise(root, s);
+  read_bath(root, s);
   if (s.soft_walls && !moves_walls(s))
     fail(*root["box"]["soft_walls"].node(), "box.soft_walls",
          "a [protocol] that moves box.left or box.right (the comparison is of moving walls)");

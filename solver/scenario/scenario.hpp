@@ -38,7 +38,10 @@
 //   [noise]      realisations, seed, and one or more [[noise.source]] tables: parameter
 //                ("term.parameter") and exactly one of white (a one-sided PSD with its unit,
 //                "1e-22 m^2/Hz"), psd_file (frequency, PSD rows; frequency_unit, psd_unit),
-//                heating_rate ("500 quanta/s", centre parameters only) with at_frequency
+//                heating_rate ("500 quanta/s", centre parameters only) with at_frequency;
+//                relative = true: white or psd_file in 1/Hz, relative to the parameter's value
+//   [bath]       exactly one of temperature, mean_phonons, and rate ("200 /s"): damping toward
+//                a thermal bath (Lindblad route; adds a noise run without sources if no [noise])
 #include <optional>
 #include <string>
 #include <string_view>
@@ -131,6 +134,7 @@ struct SweepSpec {
 struct NoiseSettings {
   NoiseRequest request;
   std::vector<std::string> given;  // one per source: "trap.centre: heating_rate = 500 quanta/s at 1 MHz"
+  std::string bath_given;          // [bath] as written ("" without): "temperature = 0.5 mK, rate = 200 /s"
 };
 struct Scenario {
   std::string file;  // the scenario file as given ("default" for the built-in one)
