@@ -12,7 +12,8 @@ cd "$(dirname "$0")"
 packages=(cmake make g++ pkg-config libeigen3-dev libspectra-dev libfftw3-dev libboost-dev
           libcli11-dev catch2 libtomlplusplus-dev libmuparser-dev nlohmann-json3-dev libnlopt-cxx-dev
           libplplot-dev plplot-driver-cairo
-          pybind11-dev python3-dev python3-numpy python3-pytest python3-matplotlib)
+          pybind11-dev python3-dev python3-numpy python3-pytest python3-matplotlib
+          libopenmpi-dev openmpi-bin)
 # clang 14 and its runtimes (ASan, UBSan, libFuzzer) only for the sanitizer stage
 [ "${1:-build}" = sanitize ] && packages+=(clang-14 libclang-rt-14-dev)
 missing=()

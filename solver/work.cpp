@@ -613,7 +613,9 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
       // the built-in scenario, 53..3440 order-4 steps, ran in about 0.6 of the time).
       const int substeps = steps * (order == SplitOrder::fourth ? 3 : 1);
       SplitOperatorPropagator prop(path, int(now.size()), order, request.threads,
-                                   substeps < planning_substeps ? FftPlanning::estimate : FftPlanning::measure);
+                                   substeps < planning_substeps || request.repeatable_transforms
+                                       ? FftPlanning::estimate
+                                       : FftPlanning::measure);
       if (prop.threads() < request.threads)
         run.thread_shortfall = "propagated with " + std::to_string(prop.threads()) + " of " +
                                std::to_string(request.threads) + " threads: the system refused to start more (" +

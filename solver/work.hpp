@@ -282,6 +282,10 @@ struct WorkRequest {
   int eigenbasis_levels = 0;         // eigenbasis basis size; 0: twice the final levels (the
                                      // final states of H_B need more levels of H_A than L)
   int threads = 1;                   // propagator worker threads (results independent of it)
+  // FFTW plans of the split-operator runs: FFTW_MEASURE for long runs (fastest, but its choice
+  // depends on timing, so two runs may differ at rounding level), or always FFTW_ESTIMATE
+  // (the same transforms in every run: sweeps, whose tables must not depend on how they ran).
+  bool repeatable_transforms = false;
   int trace_points = 40;             // WorkTraces of the forward run: about this many points
                                      // (< 2: none); each costs about one time step and, in the
                                      // lab frame, one spectrum of trace_levels levels, whose

@@ -228,5 +228,8 @@ time_step_check = false
   CHECK(contains(report.str(), "\nnotes\n  - levels enlarged"));
   // the enlarged run meets its tolerances: nothing else to warn about, so the sweep point is not warned
   CHECK(work_warnings(run).empty());
-  CHECK(sweep_row(run, 1.0).warnings == 0);
+  SweepSpec one;
+  one.axes.push_back({});
+  one.axes[0].values = {1.0};
+  CHECK(sweep_row(run, one, 0).warnings == 0);
 }

@@ -128,11 +128,25 @@ parameter = "trap.centre"
 white = "1e-24 m^2/Hz"
 )";
 
+// The trap swept over a grid ([[sweep.axis]]) or a list of points (parameters), issue 20.
+const std::string grid_base = std::string(trap_base).substr(0, std::string(trap_base).find("[sweep]")) + R"([[sweep.axis]]
+parameter = "protocol.duration"
+values = ["1 us", "2 us"]
+[[sweep.axis]]
+parameter = "initial.mean_phonons"
+values = [1, 2]
+)";
+const std::string list_base = std::string(trap_base).substr(0, std::string(trap_base).find("[sweep]")) + R"([sweep]
+parameters = ["protocol.duration", "initial.mean_phonons"]
+values = [["1 us", 1], ["2 us", 2]]
+)";
+
 // Which base scenario holds the table at `address` (keys of [box] need a box).
 std::string base_for(const std::string& address) {
   if (address == "noise" || address == "noise.source") return noise_base;
   // [bath]: the rate; temperature or mean_phonons (exactly one) is the key tested
   if (address == "bath") return std::string(trap_base) + "[bath]\nrate = \"200 /s\"\n";
+  if (address == "sweep.axis") return grid_base;
   return address == "box" || address == "box.soft_walls" ? box_base : trap_base;
 }
 
@@ -149,7 +163,8 @@ std::string noise_source_base(const std::string& key) {
 
 // How the reader names the table at `address` in its messages (arrays of tables: the first).
 std::string dotted_table(const std::string& address) {
-  return address == "protocol.change" || address == "noise.source" ? address + "[1]" : address;
+  return address == "protocol.change" || address == "noise.source" || address == "sweep.axis" ? address + "[1]"
+                                                                                                 : address;
 }
 
 // Tables whose keys exclude each other: the test of one key clears the table first.
@@ -194,9 +209,12 @@ TEST_CASE("issue 16: the reader reads every key of the reference (a date value i
     if (t.address == "potential") continue;
     for (const KeySpec& k : t.keys) {
       std::string base = t.address == "noise.source" ? noise_source_base(k.name) : base_for(t.address);
-      if (t.address == "sweep" && k.name != "values" && k.name != "parameter") {  // from/to/points exclude values
+      if (t.address == "sweep" && k.name == "parameters") base = list_base;  // the forms exclude each other
+      if (t.address == "sweep" && k.name == "axis") base = grid_base;
+      if ((t.address == "sweep" || t.address == "sweep.axis") && k.name != "values" && k.name != "parameter" &&
+          k.name != "parameters" && k.name != "axis") {  // from/to/points exclude values
         toml::table root = toml::parse(base);
-        toml::table& sweep = *root["sweep"].as_table();
+        toml::table& sweep = *table_at(root, t.address);
         sweep.erase("values");
         sweep.insert_or_assign("from", "1 us");
         sweep.insert_or_assign("to", "2 us");

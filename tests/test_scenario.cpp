@@ -515,11 +515,11 @@ values = ["100 nm", "0.2 um"]
   CHECK(close(*s.work->resolution, 2e3 * codata_h / E0));
   CHECK(close(*s.work->bin_width, 1e4 * codata_h / E0));
   REQUIRE(s.sweep);
-  CHECK(s.sweep->target == SweepTarget::change_to);
-  CHECK(s.sweep->unit == "nm");
-  REQUIRE(s.sweep->values.size() == 2);
-  CHECK(close(s.sweep->values[1], 200e-9 / L));
-  CHECK(close(s.sweep->values[1] / s.sweep->internal_per_unit, 200));
+  CHECK(s.sweep->axes[0].target == SweepTarget::change_to);
+  CHECK(s.sweep->axes[0].unit == "nm");
+  REQUIRE(s.sweep->axes[0].values.size() == 2);
+  CHECK(close(s.sweep->axes[0].values[1], 200e-9 / L));
+  CHECK(close(s.sweep->axes[0].values[1] / s.sweep->axes[0].internal_per_unit, 200));
   const Scenario second = at_sweep_point(s, 1);
   CHECK(close(second.protocol->changes[0].to, 200e-9 / L));
 }
@@ -553,9 +553,9 @@ points = 3
   CHECK(close(p.schedules()[0].evaluate(1.5e-6 / T0, p.duration()).value, 1.1));
   CHECK(close(p.schedules()[0].final_value(p.duration()), 1.2));
   CHECK(s.work->request.initial.kind() == InitialState::Kind::mixture);
-  CHECK(s.sweep->values.size() == 3);
-  CHECK(close(s.sweep->values[1], 2e-6 / T0));
-  CHECK(s.sweep->unit == "us");
+  CHECK(s.sweep->axes[0].values.size() == 3);
+  CHECK(close(s.sweep->axes[0].values[1], 2e-6 / T0));
+  CHECK(s.sweep->axes[0].unit == "us");
   // what the ramp table held besides data is kept for the report (issue 14: nothing silent)
   CHECK(s.protocol->changes[0].file_skipped == "header line 1 (t, value)");
 

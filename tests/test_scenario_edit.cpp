@@ -174,8 +174,8 @@ TEST_CASE("issue 15: the examples' box walls, sweep values and exclusive [initia
           std::vector<std::string>{"values = [\"1 us\", \"2.5 us\"]", "", ""});
     const Scenario s = read_scenario_text(edited, "ion_sweep.toml");
     REQUIRE(s.sweep);
-    REQUIRE(s.sweep->values.size() == 2);
-    CHECK(s.sweep->values[1] == Approx(2.5e-6 / s.units.time_s()).epsilon(1e-12));
+    REQUIRE(s.sweep->axes[0].values.size() == 2);
+    CHECK(s.sweep->axes[0].values[1] == Approx(2.5e-6 / s.units.time_s()).epsilon(1e-12));
   }
   SECTION("initial.mean_phonons replaces temperature on its line") {
     const std::string text = example("ion_translation.toml");

@@ -527,7 +527,8 @@ TEST_CASE("issue 16: sweep.png: <W>, sd(W) and the residual, the harmonic curve 
   std::vector<SweepRow> rows;
   for (std::size_t i = 0; i < 3; ++i) {
     SweepRow r;
-    r.value = s.sweep->values[i];
+    r.point = i;
+    r.values = s.sweep->point_values(i);
     r.mean = 0.01 * std::pow(100.0, double(i));  // spans 4 decades: a log axis
     r.sd = 1 + double(i);                         // less than 2: linear
     r.jarzynski_residual = -std::pow(10.0, -3.0 * double(i) - 3);
@@ -575,6 +576,6 @@ TEST_CASE("issue 16: sweep.png: <W>, sd(W) and the residual, the harmonic curve 
   const fs::path dir = trapwork_test::scratch_dir("test-tasks", "sweep-figure");
   CHECK(plot_sweep(dir / "sweep", f).size() == 2);
   // Values within two decades stay on linear axes.
-  for (auto& r : rows) r.mean = 5 + r.value;
+  for (auto& r : rows) r.mean = 5 + r.values[0];
   CHECK(!sweep_figure(s, rows).log_y);
 }

@@ -289,13 +289,30 @@ const std::vector<TableSpec>& scenario_tables() {
                "false"),
           whole("threads", "the machine's cores", "worker threads (results do not depend on it)", "2")}});
     t.push_back(
-        {"sweep", "[sweep]", "one work run per value of one parameter (trapwork sweep)",
-         {text("parameter", "required",
+        {"sweep", "[sweep]",
+         "one work run per value of one parameter, per point of a grid over several ([[sweep.axis]]) or per point "
+         "of a list (parameters with values = [[...], ...]) (trapwork sweep)",
+         {text("parameter", "one of parameter, [[sweep.axis]], parameters",
                "protocol.duration, initial.temperature, initial.mean_phonons, a potential parameter "
                "(\"trap.quartic\"), box.left / box.right, or change[N].to",
                "\"protocol.duration\""),
           array("values", std::nullopt, "required unless from, to and points",
-                "the values, in the parameter's dimension, in the order run", "[\"1 us\", \"2 us\"]"),
+                "the values, in the parameter's dimension, in the order run; with parameters: one array per point, "
+                "one value per parameter", "[\"1 us\", \"2 us\"]"),
+          {"from", KeyType::quantity, std::nullopt, "none (instead of values, with to and points)", {}, "first of evenly spaced values",
+           "\"1 us\""},
+          {"to", KeyType::quantity, std::nullopt, "none (instead of values, with from and points)", {}, "last of evenly spaced values",
+           "\"3 us\""},
+          whole("points", "none (instead of values, with from and to)", "number of evenly spaced values (2 to 100000)", "3"),
+          array("parameters", std::nullopt, "none (a list of points: with values = [[...], ...])",
+                "the parameters of a list of points, each named as in parameter", "[\"protocol.duration\", \"trap.quartic\"]"),
+          sub("axis", KeyType::tables, "none (a grid: one table per parameter)",
+              "[[sweep.axis]]: a full grid over the axes, the first axis varying slowest")}});
+    t.push_back(
+        {"sweep.axis", "[[sweep.axis]]", "one parameter of a grid sweep: its values as in the one-parameter [sweep]",
+         {text("parameter", "required", "as [sweep] parameter", "\"initial.temperature\""),
+          array("values", std::nullopt, "required unless from, to and points", "the axis's values, in the order run",
+                "[\"1 uK\", \"2 uK\"]"),
           {"from", KeyType::quantity, std::nullopt, "none (instead of values, with to and points)", {}, "first of evenly spaced values",
            "\"1 us\""},
           {"to", KeyType::quantity, std::nullopt, "none (instead of values, with from and points)", {}, "last of evenly spaced values",

@@ -1576,4 +1576,108 @@ std::vector<fs::path> plot_comparison(const fs::path& stem, const ComparisonFigu
   return draw_comparison(stem, figure);
 }
 
+// ---- a map over two swept parameters --------------------------------------------------------
+
+namespace {
+
+// Cell edges around ascending centres: half way between neighbours, half a spacing beyond the
+// ends (a single centre gets a unit-scale width).
+Vec cell_edges(const Vec& c) {
+  Vec e(c.size() + 1);
+  if (c.size() == 1) {
+    const double h = 0.1 * std::max(std::abs(c[0]), 1.0);
+    return {c[0] - h, c[0] + h};
+  }
+  for (std::size_t i = 1; i < c.size(); ++i) e[i] = 0.5 * (c[i - 1] + c[i]);
+  e.front() = c.front() - (e[1] - c.front());
+  e.back() = c.back() + (c.back() - e[c.size() - 1]);
+  return e;
+}
+
+// Colour map 1: dark blue through teal and green to yellow (a perceptually ordered ramp).
+void map_colours() {
+  const std::array<PLFLT, 4> at = {0, 0.35, 0.7, 1};
+  const std::array<PLFLT, 4> r = {0.27, 0.13, 0.45, 0.99}, g = {0.0, 0.56, 0.82, 0.91}, b = {0.33, 0.55, 0.33, 0.14};
+  plscmap1n(256);
+  plscmap1l(1, 4, at.data(), r.data(), g.data(), b.data(), nullptr);
+}
+
+}  // namespace
+
+std::vector<fs::path> plot_sweep_map(const fs::path& stem, const SweepMapFigure& f) {
+  const std::string name = "sweep map " + f.stem;
+  if (f.x.empty() || f.y.empty()) bad_data(name, "no cells");
+  if (f.z.size() != f.x.size()) bad_data(name, "z has " + std::to_string(f.z.size()) + " rows for " + std::to_string(f.x.size()) + " x values");
+  for (const auto& row : f.z)
+    if (row.size() != f.y.size()) bad_data(name, "a row of z differs in length from y");
+  Range zr;
+  for (const auto& row : f.z) zr.add(row);
+  if (!zr.valid()) bad_data(name, "no finite value to colour");
+  const bool contours = !f.contour_x.empty() && !f.contour_y.empty();
+  if (contours) {
+    if (f.contour_z.size() != f.contour_x.size()) bad_data(name, "contour_z rows differ from contour_x");
+    for (const auto& row : f.contour_z) {
+      if (row.size() != f.contour_y.size()) bad_data(name, "a row of contour_z differs in length from contour_y");
+      for (double v : row)
+        if (!std::isfinite(v)) bad_data(name, "contour values must be finite");
+    }
+  }
+  const Vec xe = cell_edges(f.x), ye = cell_edges(f.y);
+  const double z_lo = zr.lo, z_span = zr.hi > zr.lo ? zr.hi - zr.lo : 1.0;
+  return write_png_and_svg(stem, [&] {
+    figure_title(f.title);
+    map_colours();
+    Panel p{{0.1, 0.8, 0.12, 0.84}, xe.front(), xe.back(), ye.front(), ye.back()};
+    make_room_for_left_label(p);
+    plvpor(p.viewport[0], p.viewport[1], p.viewport[2], p.viewport[3]);
+    plwind(p.x_lo, p.x_hi, p.y_lo, p.y_hi);
+    for (std::size_t i = 0; i < f.x.size(); ++i)
+      for (std::size_t j = 0; j < f.y.size(); ++j) {
+        if (!std::isfinite(f.z[i][j])) continue;  // a blank cell
+        plcol1((f.z[i][j] - z_lo) / z_span);
+        PLFLT cx[4] = {xe[i], xe[i + 1], xe[i + 1], xe[i]}, cy[4] = {ye[j], ye[j], ye[j + 1], ye[j + 1]};
+        plfill(4, cx, cy);
+      }
+    if (contours) {
+      Range cr;
+      for (const auto& row : f.contour_z) cr.add(row);
+      if (cr.hi > cr.lo) {
+        const double step = nice_step(cr.hi - cr.lo, 7);
+        Vec levels;
+        for (double v = std::ceil(cr.lo / step) * step; v <= cr.hi; v += step) levels.push_back(v);
+        std::vector<const PLFLT*> rows;
+        for (const auto& row : f.contour_z) rows.push_back(row.data());
+        Vec xg = f.contour_x, yg = f.contour_y;
+        PLcGrid grid{xg.data(), yg.data(), nullptr, static_cast<PLINT>(xg.size()), static_cast<PLINT>(yg.size()), 0};
+        pen(white, 2.5);
+        pl_setcontlabelformat(4, 3);
+        pl_setcontlabelparam(0.006, 0.55, 0.35, 1);
+        plcont(rows.data(), static_cast<PLINT>(xg.size()), static_cast<PLINT>(yg.size()), 1,
+               static_cast<PLINT>(xg.size()), 1, static_cast<PLINT>(yg.size()), levels.data(),
+               static_cast<PLINT>(levels.size()), pltr1, &grid);
+        pl_setcontlabelparam(0.006, 0.3, 0.1, 0);
+      }
+    }
+    const double distance = draw_frame(p);
+    label_bottom(f.x_label);
+    label_left(f.y_label, distance);
+    if (contours) label_top("contours: " + f.contour_label);
+    // The colour bar: a column of cells from the smallest to the largest value, its axis on the right.
+    Panel bar{{0.86, 0.89, 0.12, 0.84}, 0, 1, z_lo, z_lo + z_span};
+    plvpor(bar.viewport[0], bar.viewport[1], bar.viewport[2], bar.viewport[3]);
+    plwind(0, 1, bar.y_lo, bar.y_hi);
+    constexpr int steps = 100;
+    for (int k = 0; k < steps; ++k) {
+      plcol1((k + 0.5) / steps);
+      const double a = z_lo + z_span * k / steps, b = z_lo + z_span * (k + 1) / steps;
+      PLFLT cx[4] = {0, 1, 1, 0}, cy[4] = {a, a, b, b};
+      plfill(4, cx, cy);
+    }
+    pen(ink, 1.5);
+    const double tick = nice_step(z_span, 6);
+    box("bc", "bcmstv", 1, z_span, 1, 0, tick);
+    label_right(f.colour_label, label_distance(bar.y_lo, bar.y_hi, tick, false, 1) + 0.5);
+  });
+}
+
 }  // namespace trapwork

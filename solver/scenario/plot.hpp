@@ -224,4 +224,23 @@ struct ComparisonFigure {
 std::vector<std::filesystem::path> plot_comparison(const std::filesystem::path& stem,
                                                    const ComparisonFigure& figure);
 
+// ---- a map over two swept parameters (trapwork sweep with a two-axis grid) ---------------------
+
+// One coloured cell per point of a grid of (x, y) values, a colour bar, and optionally contour
+// lines of another quantity on its own grid (e.g. an analytic prediction), labelled with their
+// values in the colour quantity's unit.
+struct SweepMapFigure {
+  std::string stem;                    // file stem, e.g. "sweep_map_mean" (the caller adds the folder)
+  std::string title, x_label, y_label;
+  std::string colour_label;            // e.g. "<W> (h*kHz)"
+  std::vector<double> x, y;            // cell centres, ascending, at least one each
+  std::vector<std::vector<double>> z;  // z[i][j] at (x[i], y[j]); NaN: a blank cell (a failed point)
+  std::vector<double> contour_x, contour_y;       // contour grid, ascending (empty: no contours)
+  std::vector<std::vector<double>> contour_z;     // contour_z[i][j] at (contour_x[i], contour_y[j]), finite
+  std::string contour_label;                      // what the contours show, written above the map
+};
+// The map: cells coloured on a blue-to-yellow scale between the smallest and largest finite z
+// (one colour if they are equal), edges half way between neighbouring centres.
+std::vector<std::filesystem::path> plot_sweep_map(const std::filesystem::path& stem, const SweepMapFigure& figure);
+
 }  // namespace trapwork

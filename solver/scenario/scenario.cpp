@@ -62,6 +62,12 @@ struct Read {
   const toml::node* node = nullptr;
 };
 
+// One swept parameter: what it changes, its dimension and the slot that reads its values.
+struct SweepTargetInfo {
+  SweepAxis axis;
+  std::optional<ParameterSlot> slot;  // a potential parameter, box wall or change's end value
+};
+
 class Reader {
  public:
   Reader(std::string file, fs::path base) : file_(std::move(file)), base_(std::move(base)) {}
@@ -288,6 +294,12 @@ class Reader {
   void read_initial(const toml::table& root, Scenario& s) const;
   void read_work(const toml::table& root, Scenario& s) const;
   void read_sweep(const toml::table& root, Scenario& s) const;
+  SweepTargetInfo sweep_target(const Scenario& s, const toml::node& parameter_node, const std::string& parameter,
+                               const std::string& key) const;
+  double sweep_value(const SweepTargetInfo& info, const toml::node& n, const std::string& key) const;
+  void sweep_unit(SweepTargetInfo& info, const std::string& first_text) const;
+  SweepAxis read_sweep_axis(const toml::table& t, const std::string& prefix, const Scenario& s,
+                            std::vector<const toml::node*>& nodes) const;
   void read_noise(const toml::table& root, Scenario& s) const;
   void read_bath(const toml::table& root, Scenario& s) const;
 
@@ -1042,18 +1054,12 @@ void Reader::read_work(const toml::table& root, Scenario& s) const {
   }
 }
 
-void Reader::read_sweep(const toml::table& root, Scenario& s) const {
-  const toml::table* t = table(root, "sweep");
-  if (!t) return;
-  check_keys(*t, "sweep", table_keys("sweep"));
-  const auto parameter = string(*t, "parameter", "sweep.parameter");
-  if (!parameter) fail(t->source(), "sweep.parameter", "", "the parameter to sweep, e.g. \"protocol.duration\"");
-  const toml::node& parameter_node = *t->get("parameter");
-  SweepSpec w;
-  w.parameter = *parameter;
+SweepTargetInfo Reader::sweep_target(const Scenario& s, const toml::node& parameter_node, const std::string& parameter,
+                                     const std::string& key) const {
+  SweepTargetInfo info;
+  SweepAxis& w = info.axis;
+  w.parameter = parameter;
   std::vector<std::string> known = {"protocol.duration", "initial.temperature", "initial.mean_phonons"};
-  const ParameterSlot* slot = nullptr;
-  ParameterSlot change_slot;
   if (s.protocol)
     for (std::size_t k = 0; k < s.protocol->changes.size(); ++k) {
       const ChangeSpec& c = s.protocol->changes[k];
@@ -1063,9 +1069,9 @@ void Reader::read_sweep(const toml::table& root, Scenario& s) const {
       if (name == w.parameter) {
         w.target = SweepTarget::change_to;
         w.change = k;
+        info.slot = ParameterSlot{};
         for (const auto& p : s.parameters)
-          if (p.address == c.parameter) change_slot = p;
-        slot = &change_slot;
+          if (p.address == c.parameter) info.slot = p;
       }
     }
   for (const auto& p : s.parameters) {
@@ -1073,7 +1079,7 @@ void Reader::read_sweep(const toml::table& root, Scenario& s) const {
     if (p.address == w.parameter) {
       w.target = SweepTarget::parameter;
       w.address = p.address;
-      slot = &p;
+      info.slot = p;
     }
   }
   if (w.parameter == "protocol.duration") {
@@ -1085,61 +1091,83 @@ void Reader::read_sweep(const toml::table& root, Scenario& s) const {
   } else if (w.parameter == "initial.mean_phonons") {
     w.target = SweepTarget::mean_phonons;
     w.dimension = Dimension::none();
-  } else if (slot) {
-    w.dimension = slot->dimension;
+  } else if (info.slot) {
+    w.dimension = info.slot->dimension;
   } else {
     std::string list;
     for (const auto& k : known) list += (list.empty() ? "" : ", ") + k;
-    fail(parameter_node, "sweep.parameter", "one of " + list, closest_name(w.parameter, known, 3));
+    fail(parameter_node, key, "one of " + list, closest_name(w.parameter, known, 3));
   }
-  if (w.target == SweepTarget::duration && !s.protocol)
-    fail(parameter_node, "sweep.parameter", "a [protocol] to take the duration from");
+  if (w.target == SweepTarget::duration && !s.protocol) fail(parameter_node, key, "a [protocol] to take the duration from");
   if ((w.target == SweepTarget::temperature || w.target == SweepTarget::mean_phonons) &&
-      s.work->initial_given.empty())
-    fail(parameter_node, "sweep.parameter", "an [initial] table (the other settings of the initial state)");
+      (!s.work || s.work->initial_given.empty()))
+    fail(parameter_node, key, "an [initial] table (the other settings of the initial state)");
+  return info;
+}
 
-  // One value: converted, range-checked, its text kept.
-  auto value_at = [&](const toml::node& n, const std::string& key) {
-    double v = 0;
-    if (slot) {
-      v = slot_value(n, key, *slot);
-    } else if (w.target == SweepTarget::mean_phonons) {
-      if (!n.is_number()) fail(n, key, "a mean phonon number, a plain number without quotes or unit");
-      v = n.value<double>().value();
-      if (!(v > 0)) fail(n, key, "a mean phonon number > 0");
-    } else {
-      const Quantity q = quantity(n, key, w.dimension);
-      try {
-        v = units_.to_internal(q, w.dimension, key, found_text(n));
-      } catch (const InputError& e) {
-        fail(n, key, e.expected + " (the dimension of " + w.parameter + ")", e.suggestion);
-      }
-      if (w.target == SweepTarget::duration && !(v >= 0)) fail(n, key, "a duration >= 0");
-      if (w.target == SweepTarget::temperature && !(v > 0)) fail(n, key, "a temperature > 0");
+// One value of a swept parameter: converted, range-checked.
+double Reader::sweep_value(const SweepTargetInfo& info, const toml::node& n, const std::string& key) const {
+  const SweepAxis& w = info.axis;
+  double v = 0;
+  if (info.slot) {
+    v = slot_value(n, key, *info.slot);
+  } else if (w.target == SweepTarget::mean_phonons) {
+    if (!n.is_number()) fail(n, key, "a mean phonon number, a plain number without quotes or unit");
+    v = n.value<double>().value();
+    if (!(v > 0)) fail(n, key, "a mean phonon number > 0");
+  } else {
+    const Quantity q = quantity(n, key, w.dimension);
+    try {
+      v = units_.to_internal(q, w.dimension, key, found_text(n));
+    } catch (const InputError& e) {
+      fail(n, key, e.expected + " (the dimension of " + w.parameter + ")", e.suggestion);
     }
-    return v;
-  };
-  std::vector<const toml::node*> nodes;  // where each value came from (for errors)
-  const toml::node* values = t->get("values");
-  const toml::node* from = t->get("from");
-  if (values && (from || t->get("to") || t->get("points")))
-    fail(*values, "sweep.values", "either values = [...] or from, to and points, not both");
+    if (w.target == SweepTarget::duration && !(v >= 0)) fail(n, key, "a duration >= 0");
+    if (w.target == SweepTarget::temperature && !(v > 0)) fail(n, key, "a temperature > 0");
+  }
+  return v;
+}
+
+// Display unit of an axis: the unit of its first value as written ("1 us" -> us); plain
+// numbers stay plain (internal values times the slot's plain factor).
+void Reader::sweep_unit(SweepTargetInfo& info, const std::string& first_text) const {
+  SweepAxis& w = info.axis;
+  if (first_text.size() > 2 && first_text.front() == '"') {
+    w.unit = unit_text(first_text.substr(1, first_text.size() - 2));  // "MHz" for "2pi*1.5 MHz" too
+    w.internal_per_unit = units_.to_internal(parse_quantity("1 " + w.unit), w.dimension);
+  } else {
+    w.internal_per_unit = info.slot ? info.slot->plain_factor : 1;
+  }
+}
+
+// One axis in the one-parameter form: parameter, and values = [...] or from, to, points.
+// `nodes` receives where each value came from (for errors).
+SweepAxis Reader::read_sweep_axis(const toml::table& t, const std::string& prefix, const Scenario& s,
+                                  std::vector<const toml::node*>& nodes) const {
+  const auto parameter = string(t, "parameter", prefix + ".parameter");
+  if (!parameter) fail(t.source(), prefix + ".parameter", "", "the parameter to sweep, e.g. \"protocol.duration\"");
+  SweepTargetInfo info = sweep_target(s, *t.get("parameter"), *parameter, prefix + ".parameter");
+  SweepAxis& w = info.axis;
+  const toml::node* values = t.get("values");
+  const toml::node* from = t.get("from");
+  if (values && (from || t.get("to") || t.get("points")))
+    fail(*values, prefix + ".values", "either values = [...] or from, to and points, not both");
   if (values) {
     const toml::array* a = values->as_array();
-    if (!a || a->empty()) fail(*values, "sweep.values", "an array of values, e.g. [\"1 us\", \"2 us\"]");
+    if (!a || a->empty()) fail(*values, prefix + ".values", "an array of values, e.g. [\"1 us\", \"2 us\"]");
     for (const auto& v : *a) {
-      const std::string key = "sweep.values[" + std::to_string(w.values.size() + 1) + "]";
-      w.values.push_back(value_at(v, key));
+      const std::string key = prefix + ".values[" + std::to_string(w.values.size() + 1) + "]";
+      w.values.push_back(sweep_value(info, v, key));
       w.given.push_back(found_text(v));
       nodes.push_back(&v);
     }
   } else {
-    const toml::node* to = t->get("to");
-    const auto points = integer(*t, "points", "sweep.points", 2, 100000);
+    const toml::node* to = t.get("to");
+    const auto points = integer(t, "points", prefix + ".points", 2, 100000);
     if (!from || !to || !points)
-      fail(t->source(), !from ? "sweep.from" : !to ? "sweep.to" : "sweep.points", "",
+      fail(t.source(), !from ? prefix + ".from" : !to ? prefix + ".to" : prefix + ".points", "",
            "values = [...], or from, to and points (evenly spaced)");
-    const double a = value_at(*from, "sweep.from"), b = value_at(*to, "sweep.to");
+    const double a = sweep_value(info, *from, prefix + ".from"), b = sweep_value(info, *to, prefix + ".to");
     for (std::int64_t i = 0; i < *points; ++i) {
       w.values.push_back(a + (b - a) * double(i) / double(*points - 1));
       w.given.push_back(exact_text(w.values.back()) + " (internal)");
@@ -1147,28 +1175,110 @@ void Reader::read_sweep(const toml::table& root, Scenario& s) const {
     }
     values = from;
   }
-  // Display unit: the unit of the first value as written ("1 us" -> us); plain numbers stay.
-  const std::string first = values->is_array() ? w.given.front() : found_text(*values);
-  if (first.size() > 2 && first.front() == '"') {
-    const std::string unit = unit_text(first.substr(1, first.size() - 2));  // "MHz" for "2pi*1.5 MHz" too
-    w.unit = unit;
-    w.internal_per_unit = units_.to_internal(parse_quantity("1 " + unit), w.dimension);
-  } else {
-    w.internal_per_unit = slot ? slot->plain_factor : 1;
-  }
+  sweep_unit(info, values->is_array() ? w.given.front() : found_text(*values));
   if (!values->is_array() && !w.unit.empty())
     for (std::size_t i = 0; i < w.values.size(); ++i)
       w.given[i] = exact_text(conversion_rounded(w.values[i] / w.internal_per_unit)) + " " + w.unit;
-  s.sweep = std::move(w);
+  return w;
+}
+
+void Reader::read_sweep(const toml::table& root, Scenario& s) const {
+  const toml::table* t = table(root, "sweep");
+  if (!t) return;
+  check_keys(*t, "sweep", table_keys("sweep"));
+  const int forms = bool(t->get("parameter")) + bool(t->get("axis")) + bool(t->get("parameters"));
+  if (forms != 1)
+    fail(t->source(), "sweep", "",
+         forms == 0 ? "parameter (one swept parameter), [[sweep.axis]] tables (a grid over several) or parameters "
+                      "with values = [[...], ...] (a list of points)"
+                    : "only one of parameter, [[sweep.axis]] and parameters");
+  SweepSpec spec;
+  // Where each point's values came from, and the key to name (for the check of every point).
+  std::vector<const toml::node*> point_nodes;
+  std::vector<std::string> point_keys;
+  if (t->get("parameter")) {
+    std::vector<const toml::node*> nodes;
+    spec.axes.push_back(read_sweep_axis(*t, "sweep", s, nodes));
+    const bool listed = t->get("values") != nullptr;
+    for (std::size_t i = 0; i < nodes.size(); ++i) {
+      point_nodes.push_back(nodes[i]);
+      point_keys.push_back(listed ? "sweep.values[" + std::to_string(i + 1) + "]" : "sweep");
+    }
+  } else if (const toml::node* axes = t->get("axis")) {
+    if (!axes->is_array_of_tables() || axes->as_array()->empty())
+      fail(*axes, "sweep.axis", "one or more [[sweep.axis]] tables, each with parameter and values or from, to, points");
+    const std::vector<std::string> axis_keys = table_keys("sweep.axis");
+    std::vector<std::vector<const toml::node*>> nodes;
+    for (const auto& node : *axes->as_array()) {
+      const std::string prefix = "sweep.axis[" + std::to_string(spec.axes.size() + 1) + "]";
+      check_keys(*node.as_table(), prefix, axis_keys);
+      nodes.emplace_back();
+      spec.axes.push_back(read_sweep_axis(*node.as_table(), prefix, s, nodes.back()));
+      for (std::size_t k = 0; k + 1 < spec.axes.size(); ++k)
+        if (spec.axes[k].parameter == spec.axes.back().parameter)
+          fail(*node.as_table()->get("parameter"), prefix + ".parameter",
+               "a parameter not swept by another axis (axis " + std::to_string(k + 1) + " sweeps it)");
+    }
+    double total = 1;
+    for (const auto& a : spec.axes) total *= double(a.values.size());
+    if (total > 1e6) fail(*axes, "sweep.axis", "at most 1000000 grid points (the axes give " + exact_text(total) + ")");
+    spec.grid = true;
+    for (std::size_t i = 0; i < spec.points(); ++i) {
+      // a point is named by its value on the fastest axis whose value is not its first
+      std::size_t k = spec.axes.size() - 1;
+      while (k > 0 && spec.value_index(i, k) == 0) --k;
+      point_nodes.push_back(nodes[k][spec.value_index(i, k)]);
+      point_keys.push_back("sweep.axis[" + std::to_string(k + 1) + "]");
+    }
+  } else {
+    const toml::node* names = t->get("parameters");
+    const toml::array* list = names->as_array();
+    if (!list || list->empty()) fail(*names, "sweep.parameters", "an array of parameter names, e.g. [\"protocol.duration\", \"trap.quartic\"]");
+    std::vector<SweepTargetInfo> infos;
+    for (const auto& n : *list) {
+      const std::string key = "sweep.parameters[" + std::to_string(infos.size() + 1) + "]";
+      if (!n.is_string()) fail(n, key, "a parameter name in quotes");
+      infos.push_back(sweep_target(s, n, n.as_string()->get(), key));
+      for (std::size_t k = 0; k + 1 < infos.size(); ++k)
+        if (infos[k].axis.parameter == infos.back().axis.parameter) fail(n, key, "a parameter named once");
+    }
+    const toml::node* values = t->get("values");
+    if (!values || !values->is_array() || values->as_array()->empty())
+      fail(values ? *values : *names, "sweep.values",
+           "with parameters: values = [[...], ...], one array per point with one value per parameter");
+    if (t->get("from") || t->get("to") || t->get("points"))
+      fail(*names, "sweep.parameters", "values = [[...], ...] with parameters (from, to and points are for one parameter)");
+    if (values->as_array()->size() > 1000000) fail(*values, "sweep.values", "at most 1000000 points");
+    std::size_t index = 0;
+    for (const auto& row : *values->as_array()) {
+      const std::string key = "sweep.values[" + std::to_string(++index) + "]";
+      const toml::array* a = row.as_array();
+      if (!a || a->size() != infos.size())
+        fail(row, key, "an array of " + std::to_string(infos.size()) + " values, one per parameter in the order of "
+                       "sweep.parameters");
+      for (std::size_t k = 0; k < infos.size(); ++k) {
+        const toml::node& v = *a->get(k);
+        infos[k].axis.values.push_back(sweep_value(infos[k], v, key + "[" + std::to_string(k + 1) + "]"));
+        infos[k].axis.given.push_back(found_text(v));
+      }
+      point_nodes.push_back(&row);
+      point_keys.push_back(key);
+    }
+    for (auto& info : infos) {
+      sweep_unit(info, info.axis.given.front());
+      spec.axes.push_back(std::move(info.axis));
+    }
+    spec.grid = false;
+  }
+  s.sweep = std::move(spec);
   // Every point must give a usable protocol and potential.
-  for (std::size_t i = 0; i < s.sweep->values.size(); ++i) {
-    const std::string key = values->is_array() ? "sweep.values[" + std::to_string(i + 1) + "]" : "sweep";
+  for (std::size_t i = 0; i < s.sweep->points(); ++i) {
     try {
       const Scenario point = at_sweep_point(s, i);
-      if (point.protocol) check_protocol(point, *nodes[i], key);
+      if (point.protocol) check_protocol(point, *point_nodes[i], point_keys[i]);
     } catch (const InputError& e) {
       if (!e.file.empty()) throw;
-      fail(*nodes[i], key, e.key + ": " + e.expected);
+      fail(*point_nodes[i], point_keys[i], e.key + ": " + e.expected);
     }
   }
 }
@@ -1573,28 +1683,59 @@ WorkRequest work_request(const Scenario& s) {
   return r;
 }
 
+std::size_t SweepSpec::points() const {
+  if (axes.empty()) return 0;
+  if (!grid) return axes.front().values.size();
+  std::size_t n = 1;
+  for (const auto& a : axes) n *= a.values.size();
+  return n;
+}
+
+std::size_t SweepSpec::value_index(std::size_t point, std::size_t axis) const {
+  if (!grid) return point;
+  std::size_t stride = 1;  // the last axis varies fastest
+  for (std::size_t k = axis + 1; k < axes.size(); ++k) stride *= axes[k].values.size();
+  return (point / stride) % axes[axis].values.size();
+}
+
+std::vector<double> SweepSpec::point_values(std::size_t point) const {
+  std::vector<double> v;
+  for (std::size_t k = 0; k < axes.size(); ++k) v.push_back(value(point, k));
+  return v;
+}
+
+std::string SweepSpec::point_text(std::size_t point) const {
+  std::string text;
+  for (std::size_t k = 0; k < axes.size(); ++k)
+    text += (k ? ", " : "") + axes[k].parameter + " = " + axes[k].given[value_index(point, k)];
+  return text;
+}
+
 Scenario at_sweep_point(const Scenario& s, std::size_t index) {
-  TRAPWORK_EXPECT(s.sweep && index < s.sweep->values.size(), "at_sweep_point: no such sweep point");
+  TRAPWORK_EXPECT(s.sweep && index < s.sweep->points(), "at_sweep_point: no such sweep point");
   Scenario r = s;
-  const SweepSpec& w = *s.sweep;
-  const double v = w.values[index];
-  switch (w.target) {
-    case SweepTarget::duration: r.protocol->duration = v; break;
-    case SweepTarget::temperature:
-      r.work->request.initial = InitialState::thermal(1 / v);
-      r.work->initial_given = "temperature = " + w.given[index];
-      break;
-    case SweepTarget::mean_phonons:
-      r.work->request.initial = InitialState::phonons(v);
-      r.work->initial_given = "mean_phonons = " + w.given[index];
-      break;
-    case SweepTarget::parameter:
-      if (is_wall(w.address))
-        (w.address == "box.left" ? r.spectrum.box->first : r.spectrum.box->second) = v;
-      else
-        r.potential.set_parameter(w.address, v);
-      break;
-    case SweepTarget::change_to: r.protocol->changes[w.change].to = v; break;
+  for (std::size_t k = 0; k < s.sweep->axes.size(); ++k) {
+    const SweepAxis& w = s.sweep->axes[k];
+    const std::size_t j = s.sweep->value_index(index, k);
+    const double v = w.values[j];
+    switch (w.target) {
+      case SweepTarget::duration: r.protocol->duration = v; break;
+      case SweepTarget::temperature:
+        r.work->request.initial = InitialState::thermal(1 / v);
+        r.work->initial_given = "temperature = " + w.given[j];
+        break;
+      case SweepTarget::mean_phonons:
+        r.work->request.initial = InitialState::phonons(v);
+        r.work->initial_given = "mean_phonons = " + w.given[j];
+        break;
+      case SweepTarget::parameter:
+        if (is_wall(w.address))
+          (w.address == "box.left" ? r.spectrum.box->first : r.spectrum.box->second) = v;
+        else
+          r.potential.set_parameter(w.address, v);
+        break;
+      case SweepTarget::change_to: r.protocol->changes[w.change].to = v; break;
+    }
   }
   return r;
 }

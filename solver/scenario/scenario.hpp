@@ -34,7 +34,8 @@
 //   [initial]    exactly one of temperature, mean_phonons, level, weights
 //   [work]       integrator, steps, frame, thermal_tolerance, max_initial_levels, final_margin,
 //                resolution, bin_width, reverse, time_step_check, threads
-//   [sweep]      parameter and either values = [...] or from, to, points
+//   [sweep]      parameter and either values = [...] or from, to, points; or [[sweep.axis]]
+//                tables (a grid); or parameters = [...] with values = [[...], ...] (a list)
 //   [noise]      realisations, seed, and one or more [[noise.source]] tables: parameter
 //                ("term.parameter") and exactly one of white (a one-sided PSD with its unit,
 //                "1e-22 m^2/Hz"), psd_file (frequency, PSD rows; frequency_unit, psd_unit),
@@ -117,16 +118,36 @@ struct WorkSettings {
 
 enum class SweepTarget { duration, temperature, mean_phonons, parameter, change_to };
 
-struct SweepSpec {
+// One swept parameter.
+struct SweepAxis {
   std::string parameter;  // as written: "protocol.duration", "trap.quartic", "change[1].to"
   SweepTarget target = SweepTarget::duration;
   std::size_t change = 0;  // change_to: index into protocol.changes (0-based)
   std::string address;     // parameter: "term.parameter"
   Dimension dimension;
-  std::vector<double> values;      // internal, in the order given
+  // internal: the axis's values in the order given (a grid axis, the one-parameter form), or
+  // for a list of points the value of each point
+  std::vector<double> values;
   std::vector<std::string> given;  // text of each value
   std::string unit;                // display unit of the values (that of the first one; "" plain)
   double internal_per_unit = 1;    // internal value of one display unit
+};
+
+// [sweep]: one parameter (parameter with values or from, to, points), a full grid over several
+// ([[sweep.axis]] tables, each like the one-parameter form), or a list of points (parameters =
+// [...], values = [[...], ...]). Points are numbered 0, 1, ... in a fixed order, whoever runs
+// them: a grid in the order of nested loops over the axes as written (the first axis slowest,
+// the last fastest), a list in the order written.
+struct SweepSpec {
+  std::vector<SweepAxis> axes;  // one per swept parameter, in the order written
+  bool grid = true;             // false: a list of points, axes[k].values[i] belongs to point i
+  std::size_t points() const;
+  // Index into axes[axis].values (and given) of point `point`'s value on that axis.
+  std::size_t value_index(std::size_t point, std::size_t axis) const;
+  double value(std::size_t point, std::size_t axis) const { return axes[axis].values[value_index(point, axis)]; }
+  std::vector<double> point_values(std::size_t point) const;  // one per axis, internal
+  // "protocol.duration = 1 us, initial.temperature = 2 uK" (the values as written)
+  std::string point_text(std::size_t point) const;
 };
 
 // [noise] (solver/noise.hpp): the sources with their PSDs in internal units, and how each was
@@ -197,8 +218,8 @@ WallWorkRequest wall_work_request(const Scenario& s, const WorkRequest& request)
 // The WorkRequest of a scenario: its [initial] and [work] settings and its grid/spectrum
 // request. Throws InputError naming the file when the scenario has no [initial].
 WorkRequest work_request(const Scenario& s);
-// The scenario with sweep value `index` applied (duration, temperature, mean phonon number, a
-// potential parameter or a change's end value). Requires s.sweep.
+// The scenario with sweep point `index` applied (on each axis: duration, temperature, mean
+// phonon number, a potential parameter or a change's end value). Requires s.sweep.
 Scenario at_sweep_point(const Scenario& s, std::size_t index);
 
 // The time unit protocol.duration was written in ("ms" for "4 ms"); "" without a protocol or

@@ -249,7 +249,7 @@ SweepOutcome sweep_task(const Scenario& scenario, const SweepOptions& options, c
   (void)work_request(scenario);
   refuse_noise(scenario, "sweep");
   const SweepSpec& sweep = *scenario.sweep;
-  const std::size_t points = sweep.values.size();
+  const std::size_t points = sweep.points();
   std::vector<std::size_t> todo;
   if (options.todo) {
     todo = *options.todo;
@@ -290,10 +290,28 @@ SweepOutcome sweep_task(const Scenario& scenario, const SweepOptions& options, c
   const double memory_per_point = available_memory_bytes() / double(std::max<std::size_t>(1, jobs));
   // Points share their spectra where they have the same H_A or H_B (a duration sweep: all).
   const auto memo = std::make_shared<SpectrumMemo>();
+  std::mutex source_mutex;  // one call of options.next at a time
+  // The next point to compute: (position in todo, point), or nothing when all are taken.
+  auto take = [&]() -> std::optional<std::pair<std::size_t, std::size_t>> {
+    if (stop) return std::nullopt;
+    if (options.next) {
+      std::lock_guard lock(source_mutex);
+      const std::optional<std::size_t> i = options.next();
+      if (!i) return std::nullopt;
+      TRAPWORK_EXPECT(*i < points, "sweep_task: SweepOptions::next gave a point beyond the sweep");
+      return std::pair{std::size_t(0), *i};
+    }
+    const std::size_t k = next++;
+    if (k >= todo.size()) return std::nullopt;
+    return std::pair{k, todo[k]};
+  };
+  const bool show_progress = hooks.progress && !options.next;  // progress over `todo` only
   auto worker = [&] {
-    for (std::size_t k; !stop && (k = next++) < todo.size();) {
-      const std::size_t i = todo[k];
+    for (;;) {
       try {
+        const auto taken = take();
+        if (!taken) break;
+        const auto [k, i] = *taken;
         // Each point has its own potential, protocol and request (one FFTW thread each). A
         // point that cannot be computed (bad value for that point, physics refused, a bug
         // caught by a contract check) is recorded as failed and the sweep goes on; an
@@ -303,45 +321,47 @@ SweepOutcome sweep_task(const Scenario& scenario, const SweepOptions& options, c
           const Scenario point = at_sweep_point(scenario, i);
           WorkRequest request = work_request(point);
           request.threads = 1;
+          request.repeatable_transforms = true;  // the table must not depend on how the points ran
           request.spectrum.options.memo = memo;
           request.spectrum.options.interrupt = hooks.interrupt;
           request.spectrum.options.memory_limit = memory_per_point;
-          if (hooks.progress)
+          if (show_progress)
             request.progress = [&, k](double fraction) {
               if (interrupted) throw Interrupted("sweep interrupted");  // another point was interrupted
               report(k, fraction, false);
             };
-          const ScenarioWork work = naming_scenario(
-              scenario.file + ": sweep point " + sweep.parameter + " = " + sweep.given[i], point,
-              [&] { return compute_work(point, request); });
-          row = sweep_row(work.run(point), sweep.values[i]);
+          const ScenarioWork work = naming_scenario(scenario.file + ": sweep point " + sweep.point_text(i), point,
+                                                    [&] { return compute_work(point, request); });
+          row = sweep_row(work.run(point), sweep, i);
         } catch (const std::bad_alloc&) {
           throw;
         } catch (const Interrupted&) {
           throw;
         } catch (const std::exception& e) {
-          row = failed_sweep_row(sweep.values[i], e.what());
+          row = failed_sweep_row(sweep, i, e.what());
         }
         std::lock_guard lock(mutex);
         outcome.rows.push_back({i, row});
         if (options.on_point) options.on_point(i, row);
-        report(k, 1.0, true);
+        if (show_progress) report(k, 1.0, true);
       } catch (const Interrupted&) {
         std::lock_guard lock(mutex);
         if (!error) error = std::current_exception();
         interrupted = true;
         stop = true;
+        break;
       } catch (...) {
         std::lock_guard lock(mutex);
         if (!error) error = std::current_exception();
         stop = true;
+        break;
       }
     }
   };
   // Points run on the threads the system lets us start; with none, on this one (said in the
   // report: the sweep is slower, its results the same).
   std::vector<std::thread> threads;
-  for (std::size_t j = 0; j < std::min(jobs, todo.size()); ++j) {
+  for (std::size_t j = 0; j < (options.next ? jobs : std::min(jobs, todo.size())); ++j) {
     try {
       threads.emplace_back(worker);
     } catch (const std::system_error& e) {
@@ -349,7 +369,7 @@ SweepOutcome sweep_task(const Scenario& scenario, const SweepOptions& options, c
       break;
     }
   }
-  if (threads.empty() && !todo.empty()) worker();
+  if (threads.empty() && (!todo.empty() || options.next)) worker();
   for (auto& t : threads) t.join();
   if (error) std::rethrow_exception(error);
   outcome.started_threads = threads.size();
@@ -367,17 +387,22 @@ std::vector<SweepRow> rows_of(const SweepOutcome& o) {
 std::vector<std::string> sweep_output_names() { return {"sweep.csv", "sweep_summary.json", "sweep.png", "sweep.svg"}; }
 
 std::vector<NamedTable> task_tables(const SweepOutcome& o) {
-  return {{"sweep.csv", sweep_table(o.scenario, rows_of(o), o.scenario.sweep->values.size())}};
+  return {{"sweep.csv", sweep_table(o.scenario, rows_of(o), o.scenario.sweep->points())}};
 }
 
 nlohmann::ordered_json task_summary(const SweepOutcome& o) {
   const SweepSpec& w = *o.scenario.sweep;
   const auto failed = std::count_if(o.rows.begin(), o.rows.end(), [](const auto& r) { return !r.second.failure.empty(); });
+  std::vector<std::string> parameters, units;  // several swept parameters: lists
+  for (const auto& a : w.axes) {
+    parameters.push_back(a.parameter);
+    units.push_back(a.unit);
+  }
   return with_provenance({{"command", "sweep"},
           {"scenario", o.scenario.file},
-          {"parameter", w.parameter},
-          {"unit", w.unit},
-          {"points", w.values.size()},
+          {"parameter", w.axes.size() == 1 ? nlohmann::ordered_json(w.axes[0].parameter) : nlohmann::ordered_json(parameters)},
+          {"unit", w.axes.size() == 1 ? nlohmann::ordered_json(w.axes[0].unit) : nlohmann::ordered_json(units)},
+          {"points", w.points()},
           {"computed", o.rows.size()},
           {"failed", failed},
           {"jobs", o.jobs},
@@ -385,60 +410,90 @@ nlohmann::ordered_json task_summary(const SweepOutcome& o) {
 }
 
 std::vector<NamedText> task_texts(const SweepOutcome&) { return {}; }
-std::vector<NamedFigure> task_figures(const SweepOutcome& o) { return {{"sweep", sweep_figure(o.scenario, rows_of(o))}}; }
+// Several swept parameters: no sweep figure (a grid of two has the maps of sweep_map_figures,
+// which write_task_outputs draws).
+std::vector<NamedFigure> task_figures(const SweepOutcome& o) {
+  if (o.scenario.sweep->axes.size() != 1) return {};
+  return {{"sweep", sweep_figure(o.scenario, rows_of(o))}};
+}
 std::vector<fs::path> write_task_outputs(const fs::path& folder, const SweepOutcome& o) {
-  return write_outputs(folder, task_tables(o), "sweep_summary.json", task_summary(o), task_texts(o), task_figures(o));
+  auto files = write_outputs(folder, task_tables(o), "sweep_summary.json", task_summary(o), task_texts(o), task_figures(o));
+  for (const auto& p : plot_sweep_maps(folder, o.scenario, rows_of(o))) files.push_back(p);
+  return files;
 }
 
 void print_sweep_report(std::ostream& out, const SweepOutcome& run, std::vector<SweepRow> rows,
                         const std::string& resumed) {
   const Scenario& scenario = run.scenario;
   const SweepSpec& sweep = *scenario.sweep;
-  const std::size_t points = sweep.values.size(), jobs = run.jobs, computed = run.rows.size();
+  const std::size_t points = sweep.points(), jobs = run.jobs, computed = run.rows.size();
   print_scenario_header(out, "sweep", scenario);
   const std::size_t started = run.refusal.empty() ? jobs : std::max<std::size_t>(1, run.started_threads);
-  print_row(out, "sweep", sweep.parameter + ", " + std::to_string(points) + " points, " + std::to_string(started) +
+  std::string parameters;
+  for (const auto& a : sweep.axes) parameters += (parameters.empty() ? "" : " x ") + a.parameter;
+  if (sweep.axes.size() > 1) parameters += sweep.grid ? " (a grid)" : " (a list)";
+  print_row(out, "sweep", parameters + ", " + std::to_string(points) + " points, " + std::to_string(started) +
                               " at a time" +
                               (run.refusal.empty() ? std::string()
                                                    : " (of " + std::to_string(std::min(jobs, computed)) +
                                                          " asked for: the system refused to start more threads: " +
                                                          run.refusal + ")"));
   if (!resumed.empty()) print_row(out, "resumed", resumed);
-  std::sort(rows.begin(), rows.end(), [](const SweepRow& a, const SweepRow& b) { return a.value < b.value; });
+  if (sweep.axes.size() == 1)
+    std::sort(rows.begin(), rows.end(), [](const SweepRow& a, const SweepRow& b) { return a.values[0] < b.values[0]; });
+  else
+    std::sort(rows.begin(), rows.end(), [](const SweepRow& a, const SweepRow& b) { return a.point < b.point; });
   const Display d = display(scenario);
+  auto swept = [&](const SweepRow& r) {
+    std::string text;
+    for (std::size_t k = 0; k < sweep.axes.size(); ++k) {
+      char cell[40];
+      std::snprintf(cell, sizeof cell, " %14s", short_number(r.values[k] / sweep.axes[k].internal_per_unit, 6).c_str());
+      text += cell;
+    }
+    return text;
+  };
   char line[220];
   const std::string e = "[" + d.e + "]";
-  std::snprintf(line, sizeof line, "\n  %14s %14s %14s %16s %14s %10s %8s\n",
-                (sweep.unit.empty() ? std::string("value") : "[" + sweep.unit + "]").c_str(), ("<W> " + e).c_str(),
-                ("sd " + e).c_str(), ("harm. <W> " + e).c_str(), "<W> - harm.", "Jarzynski", "warnings");
+  out << "\n ";
+  for (const auto& a : sweep.axes) {
+    std::snprintf(line, sizeof line, " %14s",
+                  (sweep.axes.size() == 1 ? (a.unit.empty() ? std::string("value") : "[" + a.unit + "]")
+                                          : a.parameter.substr(a.parameter.rfind('.') + 1) +
+                                                (a.unit.empty() ? std::string() : " [" + a.unit + "]"))
+                      .c_str());
+    out << line;
+  }
+  std::snprintf(line, sizeof line, " %14s %14s %16s %14s %10s %8s\n", ("<W> " + e).c_str(), ("sd " + e).c_str(),
+                ("harm. <W> " + e).c_str(), "<W> - harm.", "Jarzynski", "warnings");
   out << line;
   int warned = 0;
   for (const auto& r : rows) {
     if (!r.failure.empty()) {
-      out << "  " << short_number(r.value / sweep.internal_per_unit, 6) << ": failed: " << r.failure << '\n';
+      out << " " << swept(r) << ": failed: " << r.failure << '\n';
       continue;
     }
-    std::snprintf(line, sizeof line, "  %14s %14s %14s %16s %14s %10s %8d\n",
-                  short_number(r.value / sweep.internal_per_unit, 6).c_str(), short_number(d.energy(r.mean), 7).c_str(),
+    std::snprintf(line, sizeof line, " %14s %14s %16s %14s %10s %8d\n", short_number(d.energy(r.mean), 7).c_str(),
                   short_number(d.energy(r.sd), 5).c_str(), short_number(d.energy(r.harmonic_mean), 7).c_str(),
                   short_number(d.energy(r.mean - r.harmonic_mean), 4).c_str(),
                   short_number(r.jarzynski_residual, 2).c_str(), r.warnings);
-    out << line;
+    out << " " << swept(r) << line;
     warned += r.warnings > 0;
   }
   if (warned > 0) {
     out << "\n" << warned << " point(s) have warnings; to read them, run the point alone:\n";
-    // The command that reruns a point: the sweep's scenario, its own changed values, the point's value.
+    // The command that reruns a point: the sweep's scenario, its own changed values, the point's values.
     std::string base = "trapwork work " + scenario.file;
     for (const auto& c : scenario.changed_values)
       if (c.rfind("sweep.", 0) != 0) base += " --set '" + c + "'";  // [sweep] plays no part in `work`
     for (const auto& r : rows)
-      if (r.failure.empty() && r.warnings > 0)
-        for (std::size_t i = 0; i < sweep.values.size(); ++i)
-          if (sweep.values[i] == r.value) {
-            out << "  " << base << " --set '" << sweep.parameter << "=" << sweep.given[i] << "'\n";
-            break;
-          }
+      if (r.failure.empty() && r.warnings > 0) {
+        out << "  " << base;
+        for (std::size_t k = 0; k < sweep.axes.size(); ++k)
+          out << " --set '" << sweep.axes[k].parameter << "=" << sweep.axes[k].given[sweep.value_index(r.point, k)]
+              << "'";
+        out << '\n';
+      }
   }
 }
 

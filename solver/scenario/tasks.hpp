@@ -115,8 +115,12 @@ std::vector<NamedFigure> work_figures(const WorkRun& run);
 // ---- sweep ---------------------------------------------------------------------------------
 struct SweepOptions {
   int jobs = 0;  // points at a time; 0: std::thread::hardware_concurrency()
-  // Indices into [sweep] values to compute, each once; not set: every point.
+  // Points of [sweep] (SweepSpec numbering) to compute, each once; not set: every point.
   std::optional<std::vector<std::size_t>> todo;
+  // When set, the points come from it instead (called from the point threads, one call at a
+  // time) until it returns nothing: a source shared with other processes (MPI). todo and the
+  // progress hook are then unused; `jobs` threads are started.
+  std::function<std::optional<std::size_t>()> next;
   // Called (under a lock, one call at a time, from the point threads) as each point finishes,
   // with its index and row; an exception from it stops the sweep like a failed worker.
   std::function<void(std::size_t index, const SweepRow&)> on_point;
@@ -137,7 +141,7 @@ struct SweepOutcome {
 SweepOutcome sweep_task(const Scenario& scenario, const SweepOptions& options = {}, const TaskHooks& hooks = {});
 std::vector<std::string> sweep_output_names();  // sweep.csv, sweep_summary.json, sweep.png, sweep.svg
 // The sweep report: header, the points and threads of `run` (its rows are the points computed
-// now), the `resumed` line if not empty (--resume), then `rows` sorted by value.
+// now), the `resumed` line if not empty (--resume), then `rows` in table order (sweep_table).
 void print_sweep_report(std::ostream& out, const SweepOutcome& run, std::vector<SweepRow> rows,
                         const std::string& resumed);
 

@@ -1465,9 +1465,10 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
 
 // ---- sweeps ----------------------------------------------------------------------------------
 
-SweepRow failed_sweep_row(double value, const std::string& message) {
+SweepRow failed_sweep_row(const SweepSpec& sweep, std::size_t point, const std::string& message) {
   SweepRow r;
-  r.value = value;
+  r.point = point;
+  r.values = sweep.point_values(point);
   for (double* x : {&r.mean, &r.sd, &r.skewness, &r.free_energy_change, &r.dissipated_work, &r.jarzynski_residual,
                     &r.crooks_ratio_error, &r.harmonic_mean, &r.harmonic_sd, &r.time_step_error, &r.unresolved_weight})
     *x = nan_value;
@@ -1477,11 +1478,12 @@ SweepRow failed_sweep_row(double value, const std::string& message) {
   return r;
 }
 
-SweepRow sweep_row(const WorkRun& run, double value) {
+SweepRow sweep_row(const WorkRun& run, const SweepSpec& sweep, std::size_t point) {
   const WorkResult& r = run.result;
   const auto& d = r.distribution;
   SweepRow row;
-  row.value = value;
+  row.point = point;
+  row.values = sweep.point_values(point);
   row.mean = d.mean;
   row.sd = sd_of(d);
   row.skewness = defined_skewness(d);
@@ -1498,45 +1500,72 @@ SweepRow sweep_row(const WorkRun& run, double value) {
 }
 
 namespace {
-std::string sweep_column(const SweepSpec& w) {
+std::string sweep_column(const SweepAxis& w) {
   return column_unit(w.parameter) + "_" + (w.unit.empty() ? std::string("internal") : column_unit(w.unit));
+}
+
+// The rows in table order: by value for one swept parameter (as given, the values may be in any
+// order), else by point number.
+void sort_sweep_rows(const SweepSpec& w, std::vector<SweepRow>& rows) {
+  if (w.axes.size() == 1)
+    std::sort(rows.begin(), rows.end(), [](const SweepRow& a, const SweepRow& b) { return a.values[0] < b.values[0]; });
+  else
+    std::sort(rows.begin(), rows.end(), [](const SweepRow& a, const SweepRow& b) { return a.point < b.point; });
 }
 }  // namespace
 
 CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t points) {
   const SweepSpec& w = *s.sweep;
   const Display d = display(s);
-  std::sort(rows.begin(), rows.end(), [](const SweepRow& a, const SweepRow& b) { return a.value < b.value; });
+  sort_sweep_rows(w, rows);
   CsvTable t;
   const std::string ec = d.e_col;
-  t.columns = {{sweep_column(w), {}},           {"mean_work" + ec, {}},          {"sd_work" + ec, {}},
-               {"skewness", {}},                {"free_energy_change" + ec, {}}, {"dissipated_work" + ec, {}},
-               {"jarzynski_residual", {}},      {"crooks_ratio_error", {}},      {"harmonic_mean_work" + ec, {}},
-               {"harmonic_sd_work" + ec, {}},   {"time_step_error", {}},         {"unresolved_weight", {}},
-               {"warnings", {}},                {"failed", {}}};
+  const bool several = w.axes.size() > 1;
+  if (several) t.columns.push_back({"point", {}});
+  for (const auto& a : w.axes) t.columns.push_back({sweep_column(a), {}});
+  const std::size_t first = t.columns.size();  // the first column after the swept values
+  const std::vector<std::string> names = {"mean_work" + ec, "sd_work" + ec, "skewness", "free_energy_change" + ec,
+      "dissipated_work" + ec, "jarzynski_residual", "crooks_ratio_error", "harmonic_mean_work" + ec,
+      "harmonic_sd_work" + ec, "time_step_error", "unresolved_weight", "warnings", "failed"};
+  for (const auto& n : names) t.columns.push_back({n, {}});
   std::vector<std::string> failures;
   for (const auto& r : rows) {
-    if (!r.failure.empty())
-      failures.push_back("failed: " + w.parameter + " = " + short_number(r.value / w.internal_per_unit, 10) +
-                         (w.unit.empty() ? "" : " " + w.unit) + ": " + r.failure);
-    const double v[] = {conversion_rounded(r.value / w.internal_per_unit), d.energy(r.mean), d.energy(r.sd), r.skewness,
-                        d.energy(r.free_energy_change), d.energy(r.dissipated_work), r.jarzynski_residual,
-                        r.crooks_ratio_error, d.energy(r.harmonic_mean), d.energy(r.harmonic_sd),
-                        r.time_step_error, r.unresolved_weight, double(r.warnings), r.failure.empty() ? 0.0 : 1.0};
+    if (!r.failure.empty()) {
+      std::string where;
+      for (std::size_t k = 0; k < w.axes.size(); ++k)
+        where += (k ? ", " : "") + w.axes[k].parameter + " = " +
+                 short_number(r.values[k] / w.axes[k].internal_per_unit, 10) +
+                 (w.axes[k].unit.empty() ? "" : " " + w.axes[k].unit);
+      failures.push_back("failed: " + (several ? "point " + std::to_string(r.point + 1) + ": " : std::string()) +
+                         where + ": " + r.failure);
+    }
+    std::vector<double> v;
+    if (several) v.push_back(double(r.point + 1));
+    for (std::size_t k = 0; k < w.axes.size(); ++k)
+      v.push_back(conversion_rounded(r.values[k] / w.axes[k].internal_per_unit));
+    for (double x : {d.energy(r.mean), d.energy(r.sd), r.skewness, d.energy(r.free_energy_change),
+                     d.energy(r.dissipated_work), r.jarzynski_residual, r.crooks_ratio_error,
+                     d.energy(r.harmonic_mean), d.energy(r.harmonic_sd), r.time_step_error, r.unresolved_weight,
+                     double(r.warnings), r.failure.empty() ? 0.0 : 1.0})
+      v.push_back(x);
     for (std::size_t k = 0; k < t.columns.size(); ++k) t.columns[k].values.push_back(v[k]);
   }
   // Columns of a reference that no point has are empty (a failed point has NaN everywhere).
   auto any = [&](double SweepRow::*member) {
     return std::any_of(rows.begin(), rows.end(), [&](const SweepRow& r) { return std::isfinite(r.*member); });
   };
-  t.columns[7].applies = any(&SweepRow::crooks_ratio_error);
-  t.columns[8].applies = any(&SweepRow::harmonic_mean);
-  t.columns[9].applies = any(&SweepRow::harmonic_sd);
+  t.columns[first + 6].applies = any(&SweepRow::crooks_ratio_error);
+  t.columns[first + 7].applies = any(&SweepRow::harmonic_mean);
+  t.columns[first + 8].applies = any(&SweepRow::harmonic_sd);
+  std::string swept;
+  for (const auto& a : w.axes)
+    swept += (swept.empty() ? "" : ", ") + a.parameter + " in " + (a.unit.empty() ? std::string("internal units") : a.unit);
   t.comments = {
       "trapwork sweep: " + (s.title.empty() ? s.file : s.title) + "; " + std::to_string(rows.size()) + " of " +
           std::to_string(points) + " points done",
-      "swept " + w.parameter + " in " + (w.unit.empty() ? std::string("internal units") : w.unit) +
-          "; energies in " + d.e + "; nan where a value does not exist at a point (no Gibbs state, no harmonic "
+      "swept " + swept + (several ? (w.grid ? " (a grid, the first parameter varying slowest; point: the point's "
+                                                          "number, 1-based)" : " (a list of points; point: its number, 1-based)")
+                                    : std::string()) + "; energies in " + d.e + "; nan where a value does not exist at a point (no Gibbs state, no harmonic "
           "reference, a failed point); crooks_ratio_error, harmonic_*: empty when no point has them",
       "warnings: number of warnings of that point's run (see trapwork work on the scenario at that value)",
       "failed: 1 where the point could not be computed (numbers nan; its message below; trapwork sweep --resume "
@@ -1568,27 +1597,37 @@ struct DenseHarmonic {
   std::string model;
 };
 
+// The harmonic prediction's <W> and sd W at the one point whose swept values are `values`
+// (internal, one per axis); NaN where it does not apply. `model` receives its name.
+std::pair<double, double> harmonic_at(const Scenario& s, const std::vector<double>& values, std::string& model) {
+  double mean = nan_value, sd = nan_value;
+  try {
+    Scenario one = s;
+    one.sweep->grid = true;
+    for (std::size_t k = 0; k < values.size(); ++k) {
+      one.sweep->axes[k].values = {values[k]};
+      one.sweep->axes[k].given = {""};
+    }
+    const Scenario point = at_sweep_point(one, 0);
+    std::string why_not;
+    if (const auto m = harmonic_moments(point.potential, build_protocol(point), point.work->request.initial, why_not)) {
+      mean = m->mean;
+      sd = m->sd;
+      model = m->model;
+    }
+  } catch (const std::exception&) {  // a value the scenario refuses: a gap in the curve
+  }
+  return {mean, sd};
+}
+
 DenseHarmonic dense_harmonic(const Scenario& s, double lo, double hi, bool log_spaced, int count) {
   DenseHarmonic h;
-  const SweepSpec& w = *s.sweep;
+  const SweepAxis& w = s.sweep->axes[0];
   if (!s.work || !s.protocol || moves_walls(s)) return h;
   for (int i = 0; i < count; ++i) {
     const double t = double(i) / double(count - 1);
     const double v = log_spaced ? lo * std::pow(hi / lo, t) : lo + (hi - lo) * t;
-    double mean = nan_value, sd = nan_value;
-    try {
-      Scenario one = s;
-      one.sweep->values = {v};
-      one.sweep->given = {""};
-      const Scenario point = at_sweep_point(one, 0);
-      std::string why_not;
-      if (const auto m = harmonic_moments(point.potential, build_protocol(point), point.work->request.initial, why_not)) {
-        mean = m->mean;
-        sd = m->sd;
-        h.model = m->model;
-      }
-    } catch (const std::exception&) {  // a value the scenario refuses: a gap in the curve
-    }
+    const auto [mean, sd] = harmonic_at(s, {v}, h.model);
     h.x.push_back(conversion_rounded(v / w.internal_per_unit));
     h.mean.push_back(mean);
     h.sd.push_back(sd);
@@ -1603,12 +1642,13 @@ bool any_finite(const std::vector<double>& v) {
 }  // namespace
 
 SweepFigure sweep_figure(const Scenario& s, const std::vector<SweepRow>& input) {
-  const SweepSpec& w = *s.sweep;
+  TRAPWORK_EXPECT(s.sweep->axes.size() == 1, "sweep_figure: a sweep of one parameter (several: sweep_map_figures)");
+  const SweepAxis& w = s.sweep->axes[0];
   const Display d = display(s);
   std::vector<SweepRow> rows;
   for (const auto& r : input)
     if (r.failure.empty()) rows.push_back(r);  // failed points have no numbers to draw
-  std::sort(rows.begin(), rows.end(), [](const SweepRow& a, const SweepRow& b) { return a.value < b.value; });
+  sort_sweep_rows(*s.sweep, rows);
   SweepFigure f;
   f.title = "work statistics over the sweep of " + w.parameter;
   const std::string x_unit = !w.unit.empty()                        ? w.unit
@@ -1624,7 +1664,7 @@ SweepFigure sweep_figure(const Scenario& s, const std::vector<SweepRow>& input) 
   SweepPoints harmonic_sd{"harmonic prediction at each point", {}, {}, {}};
   std::vector<double> values;
   for (const auto& r : rows) {
-    const double x = conversion_rounded(r.value / w.internal_per_unit);
+    const double x = conversion_rounded(r.values[0] / w.internal_per_unit);
     values.push_back(x);
     mean.x.push_back(x);
     mean.y.push_back(d.energy(r.mean));
@@ -1644,7 +1684,7 @@ SweepFigure sweep_figure(const Scenario& s, const std::vector<SweepRow>& input) 
   // The harmonic prediction as a curve: 200 values between the sweep's ends, each the analytic
   // model of the scenario at that value (harmonic_moments), not lines joining the sweep points.
   if (rows.size() >= 2) {
-    const DenseHarmonic h = dense_harmonic(s, rows.front().value, rows.back().value, f.log_x, 200);
+    const DenseHarmonic h = dense_harmonic(s, rows.front().values[0], rows.back().values[0], f.log_x, 200);
     if (any_finite(h.mean)) {
       SweepCurve c{"harmonic prediction, " + h.model, h.x, {}};
       for (double m : h.mean) c.y.push_back(d.energy(m));
@@ -1671,7 +1711,105 @@ SweepFigure sweep_figure(const Scenario& s, const std::vector<SweepRow>& input) 
 }
 
 std::vector<fs::path> plot_sweep_figure(const fs::path& folder, const Scenario& s, const std::vector<SweepRow>& rows) {
+  if (s.sweep->axes.size() != 1) return plot_sweep_maps(folder, s, rows);
   return plot_sweep(folder / "sweep", sweep_figure(s, rows));
+}
+
+std::vector<std::string> sweep_map_names() {
+  std::vector<std::string> names;
+  for (const char* stem : {"sweep_map_mean", "sweep_map_sd", "sweep_map_jarzynski"})
+    for (const char* ext : {".png", ".svg"}) names.push_back(std::string(stem) + ext);
+  return names;
+}
+
+std::vector<SweepMapFigure> sweep_map_figures(const Scenario& s, const std::vector<SweepRow>& rows) {
+  const SweepSpec& w = *s.sweep;
+  if (w.axes.size() != 2 || !w.grid) return {};
+  const Display d = display(s);
+  const SweepAxis &a = w.axes[0], &b = w.axes[1];
+  // The axes' values in display units, ascending, and where each point's cell is.
+  auto ascending = [](const SweepAxis& axis, std::vector<std::size_t>& order) {
+    order.resize(axis.values.size());
+    for (std::size_t i = 0; i < order.size(); ++i) order[i] = i;
+    std::sort(order.begin(), order.end(), [&](std::size_t i, std::size_t j) { return axis.values[i] < axis.values[j]; });
+    std::vector<double> v;
+    for (std::size_t i : order) v.push_back(conversion_rounded(axis.values[i] / axis.internal_per_unit));
+    std::vector<std::size_t> cell(order.size());
+    for (std::size_t k = 0; k < order.size(); ++k) cell[order[k]] = k;
+    order = cell;
+    return v;
+  };
+  std::vector<std::size_t> cell_a, cell_b;
+  const std::vector<double> x = ascending(a, cell_a), y = ascending(b, cell_b);
+  for (std::size_t i = 1; i < x.size(); ++i)
+    if (!(x[i] > x[i - 1])) return {};  // repeated values: no map
+  for (std::size_t i = 1; i < y.size(); ++i)
+    if (!(y[i] > y[i - 1])) return {};
+  auto unit_label = [](const SweepAxis& axis) {
+    return axis.parameter + " (" + (!axis.unit.empty() ? axis.unit : axis.dimension == Dimension::none() ? "dimensionless" : "internal units") + ")";
+  };
+  const std::vector<std::vector<double>> blank(x.size(), std::vector<double>(y.size(), nan_value));
+  SweepMapFigure mean{"sweep_map_mean", "mean work <W> over " + a.parameter + " and " + b.parameter, unit_label(a), unit_label(b),
+                      "<W> (" + d.e + ")", x, y, blank, {}, {}, {}, ""};
+  SweepMapFigure sd = mean, jarzynski = mean;
+  sd.stem = "sweep_map_sd";
+  sd.title = "spread of the work sd(W) over " + a.parameter + " and " + b.parameter;
+  sd.colour_label = "sd(W) (" + d.e + ")";
+  jarzynski.stem = "sweep_map_jarzynski";
+  jarzynski.title = "Jarzynski residual over " + a.parameter + " and " + b.parameter;
+  jarzynski.colour_label = "|Jarzynski residual| (dimensionless)";
+  bool any = false;
+  for (const auto& r : rows) {
+    if (!r.failure.empty()) continue;
+    const std::size_t i = cell_a[w.value_index(r.point, 0)], j = cell_b[w.value_index(r.point, 1)];
+    mean.z[i][j] = d.energy(r.mean);
+    sd.z[i][j] = d.energy(r.sd);
+    jarzynski.z[i][j] = std::abs(r.jarzynski_residual);
+    any = true;
+  }
+  if (!any) return {};
+  // The harmonic prediction on a 40 x 40 grid over the axes' ranges, as contours where it
+  // exists at every node (a partial prediction is not drawn).
+  if (x.size() >= 2 && y.size() >= 2) {
+    constexpr int n = 40;
+    std::vector<double> cx, cy;
+    for (int i = 0; i < n; ++i) {
+      cx.push_back(x.front() + (x.back() - x.front()) * i / (n - 1));
+      cy.push_back(y.front() + (y.back() - y.front()) * i / (n - 1));
+    }
+    std::vector<std::vector<double>> hm(n, std::vector<double>(n)), hs = hm;
+    std::string model;
+    bool complete = true;
+    for (int i = 0; i < n && complete; ++i)
+      for (int j = 0; j < n && complete; ++j) {
+        const auto [m, sdv] = harmonic_at(s, {cx[i] * a.internal_per_unit, cy[j] * b.internal_per_unit}, model);
+        hm[i][j] = d.energy(m);
+        hs[i][j] = d.energy(sdv);
+        complete = std::isfinite(hm[i][j]) && std::isfinite(hs[i][j]);
+      }
+    if (complete) {
+      mean.contour_x = sd.contour_x = cx;
+      mean.contour_y = sd.contour_y = cy;
+      mean.contour_z = hm;
+      sd.contour_z = hs;
+      mean.contour_label = "harmonic prediction of <W>, " + model;
+      sd.contour_label = "harmonic prediction of sd(W), " + model;
+    }
+  }
+  std::vector<SweepMapFigure> maps = {mean, sd};
+  for (const auto& row : jarzynski.z)
+    if (any_finite(row)) {
+      maps.push_back(jarzynski);
+      break;
+    }
+  return maps;
+}
+
+std::vector<fs::path> plot_sweep_maps(const fs::path& folder, const Scenario& s, const std::vector<SweepRow>& rows) {
+  std::vector<fs::path> files;
+  for (const auto& m : sweep_map_figures(s, rows))
+    for (const auto& p : plot_sweep_map(folder / m.stem, m)) files.push_back(p);
+  return files;
 }
 
 }  // namespace trapwork

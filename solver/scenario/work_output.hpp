@@ -195,7 +195,8 @@ void print_work_report(std::ostream& out, const WorkRun& run);
 
 // One sweep point's numbers (internal units; NaN where they do not exist).
 struct SweepRow {
-  double value = 0;  // the swept value, internal
+  std::size_t point = 0;       // the point's number in [sweep] (0-based, SweepSpec)
+  std::vector<double> values;  // its swept values, one per axis, internal
   double mean = 0, sd = 0, skewness = 0;
   double free_energy_change = 0, dissipated_work = 0, jarzynski_residual = 0, crooks_ratio_error = 0;
   double harmonic_mean = 0, harmonic_sd = 0;
@@ -204,10 +205,12 @@ struct SweepRow {
   std::string failure;  // a point that could not be computed: its error message (numbers NaN)
 };
 // The row of a point that failed with `message`: every number NaN.
-SweepRow failed_sweep_row(double value, const std::string& message);
-SweepRow sweep_row(const WorkRun& run, double value);
-// sweep.csv: one row per finished point, sorted by value; a failed point has NaN numbers,
-// failed = 1 and its message in a comment line.
+SweepRow failed_sweep_row(const SweepSpec& sweep, std::size_t point, const std::string& message);
+SweepRow sweep_row(const WorkRun& run, const SweepSpec& sweep, std::size_t point);
+// sweep.csv: one row per finished point; a failed point has NaN numbers, failed = 1 and its
+// message in a comment line. One swept parameter: the rows sorted by value, its column first.
+// Several: the rows in point order, a column `point` (1-based) and then one column per axis.
+// Each swept column is named parameter_unit ("protocol_duration_us").
 CsvTable sweep_table(const Scenario& scenario, std::vector<SweepRow> rows, std::size_t points);
 // sweep.png/.svg: <W> +- sd against the swept value, the harmonic <W> of each point as a
 // curve and, for the duration of a constant-speed translation, the closed form
@@ -215,5 +218,16 @@ CsvTable sweep_table(const Scenario& scenario, std::vector<SweepRow> rows, std::
 SweepFigure sweep_figure(const Scenario& scenario, const std::vector<SweepRow>& rows);
 std::vector<std::filesystem::path> plot_sweep_figure(const std::filesystem::path& folder, const Scenario& scenario,
                                                      const std::vector<SweepRow>& rows);
+// A sweep over a grid of two parameters: the maps of <W>, sd(W) and |Jarzynski residual| over
+// the two axes (colour, one cell per point; a failed point is a blank cell), with the harmonic
+// prediction's <W> and sd(W) as contours where it exists (harmonic_moments on a 40 x 40 grid
+// spanning the axes). Empty for other sweeps (one parameter, three or more, a list of points).
+std::vector<SweepMapFigure> sweep_map_figures(const Scenario& scenario, const std::vector<SweepRow>& rows);
+// Writes sweep_map_mean, sweep_map_sd and sweep_map_jarzynski (.png/.svg) into `folder`;
+// none for a sweep without maps. Returns the paths written.
+std::vector<std::filesystem::path> plot_sweep_maps(const std::filesystem::path& folder, const Scenario& scenario,
+                                                   const std::vector<SweepRow>& rows);
+// The file stems plot_sweep_maps writes (for OutputRun's list of outputs).
+std::vector<std::string> sweep_map_names();
 
 }  // namespace trapwork

@@ -116,9 +116,27 @@ struct SweepCommand {
   int jobs = 0;  // 0: std::thread::hardware_concurrency()
   bool resume = false;  // keep the finished points of an earlier run of the same scenario
   bool retry_failed = false;  // --retry-failed: with --resume, compute the failed points again
+  std::string shard;          // --shard I/N: only the points p with p = I mod N (1-based), own folder
 };
 void add_sweep_command(CLI::App& app);
+// Under mpirun (a build with MPI) rank 0 runs this with the points shared among the ranks
+// (sweep_points.hpp); the other ranks compute and print nothing.
 void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostream& progress);
+class SweepWorld;
+void run_sweep_in_world(const SweepCommand& command, const SweepWorld& world, std::ostream& out,
+                        std::ostream& progress);
+
+// trapwork merge OUT SHARD_FOLDER...: the shards' points (sweep --shard) joined into OUT's
+// sweep.csv and sweep-points.txt (the table of a single run of the sweep, rows in point order)
+// and figures. InputError when the shards belong to different scenarios or shard counts, when
+// two hold the same point, or when points are missing (listed).
+struct MergeCommand {
+  std::string output;
+  std::vector<std::string> shards;
+  bool quiet = false;
+};
+void add_merge_command(CLI::App& app);
+void run_merge_command(const MergeCommand& command, std::ostream& out);
 
 // trapwork keys [TABLE] [--markdown]: the key reference of scenario files (keys_text,
 // solver/scenario/keys.hpp); an unknown TABLE is an InputError listing the known ones.

@@ -11,6 +11,7 @@ int main(int argc, char** argv) {
   trapwork::add_spectrum_command(app);
   trapwork::add_work_command(app);
   trapwork::add_sweep_command(app);
+  trapwork::add_merge_command(app);
   trapwork::add_demo_command(app);
   trapwork::add_fit_command(app);
   trapwork::add_compare_command(app);

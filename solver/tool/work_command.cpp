@@ -14,6 +14,7 @@
 #include "solver/scenario/machine.hpp"
 #include "solver/scenario/progress.hpp"
 #include "solver/scenario/work_output.hpp"
+#include "solver/tool/sweep_points.hpp"
 
 namespace trapwork {
 
@@ -30,21 +31,23 @@ void add_work_options(CLI::App* sub, std::string& output, bool& quiet, std::vect
   sub->add_flag("--quiet", quiet, "print nothing but errors (no report, no progress bar)");
 }
 
-// ---- sweep points kept for --resume ------------------------------------------------------
+}  // namespace
+
+// ---- sweep points kept for --resume (solver/tool/sweep_points.hpp) -------------------------
 // sweep-points.txt beside sweep.csv holds every finished point in internal units, each number
 // in the shortest text that reads back to the same double, so a resumed sweep writes the same
 // sweep.csv as an uninterrupted one. Line 1: "trapwork sweep points <fingerprint>"; then one
-// line per point: its index in [sweep], the swept value and the other SweepRow numbers; or, for
-// a point that failed, its index, the value, the word "failed" and the message (one line).
+// line per point: its number in [sweep] (0-based), its swept values (one per parameter) and
+// the other SweepRow numbers; or, for a point that failed, its number, its values, the word
+// "failed" and the message (one line).
 
 // FNV-1a, 64 bit (Fowler, Noll and Vo; common practice for a non-cryptographic fingerprint)
-// of the scenario file's text and of the sweep values as read.
-std::string sweep_fingerprint(const Scenario& scenario) {
-  std::ifstream in(scenario.file, std::ios::binary);
-  std::ostringstream file_text;
-  file_text << in.rdbuf();
-  std::string text = file_text.str();
-  for (double v : scenario.sweep->values) text += "\n" + number_text(v);
+// of the resolved scenario text (the file with the --set changes) and of the sweep points as read.
+std::string sweep_fingerprint(const std::string& resolved_text, const Scenario& scenario) {
+  std::string text = resolved_text;
+  const SweepSpec& w = *scenario.sweep;
+  for (std::size_t i = 0; i < w.points(); ++i)
+    for (double v : w.point_values(i)) text += "\n" + number_text(v);
   std::uint64_t h = 14695981039346656037ull;
   for (unsigned char c : text) h = (h ^ c) * 1099511628211ull;
   char hex[17];
@@ -52,27 +55,65 @@ std::string sweep_fingerprint(const Scenario& scenario) {
   return hex;
 }
 
+namespace {
 constexpr const char* points_header = "trapwork sweep points ";
+}  // namespace
+
+std::string sweep_point_line(std::size_t i, const SweepRow& r) {
+  std::string line = std::to_string(i);
+  for (double v : r.values) line += ' ' + number_text(v);
+  if (!r.failure.empty()) return line + " failed " + r.failure;
+  for (double v : {r.mean, r.sd, r.skewness, r.free_energy_change, r.dissipated_work, r.jarzynski_residual,
+                   r.crooks_ratio_error, r.harmonic_mean, r.harmonic_sd, r.time_step_error, r.unresolved_weight,
+                   double(r.warnings)})
+    line += ' ' + number_text(v);
+  return line;
+}
+
+std::optional<std::pair<std::size_t, SweepRow>> parse_sweep_point(const std::string& line, const SweepSpec& sweep) {
+  std::istringstream fields(line);
+  std::size_t i = 0;
+  if (!(fields >> i) || i >= sweep.points()) return std::nullopt;
+  auto number = [](const std::string& text, double& x) {
+    char* end = nullptr;
+    x = std::strtod(text.c_str(), &end);  // reads nan and inf as number_text writes them
+    return !text.empty() && *end == '\0';
+  };
+  SweepRow row;
+  row.point = i;
+  // the values must be those of that point, bit for bit (they were written as their exact text)
+  for (std::size_t k = 0; k < sweep.axes.size(); ++k) {
+    std::string f;
+    double x = 0;
+    if (!(fields >> f) || !number(f, x) || !(x == sweep.value(i, k))) return std::nullopt;
+    row.values.push_back(x);
+  }
+  std::string word;
+  if (!(fields >> word)) return std::nullopt;
+  if (word == "failed") {  // a failed point: its message follows
+    std::string message;
+    std::getline(fields >> std::ws, message);
+    row = failed_sweep_row(sweep, i, message);
+    return std::pair{i, row};
+  }
+  double x[12];
+  for (int k = 0; k < 12; ++k)
+    if ((k > 0 && !(fields >> word)) || !number(word, x[k])) return std::nullopt;
+  if (fields >> word) return std::nullopt;  // more than the numbers of a point
+  // the warning count a whole number (converting nan or a huge double to int is undefined)
+  if (!(x[11] >= 0 && x[11] <= 1e6 && x[11] == std::floor(x[11]))) return std::nullopt;
+  row.mean = x[0], row.sd = x[1], row.skewness = x[2], row.free_energy_change = x[3], row.dissipated_work = x[4];
+  row.jarzynski_residual = x[5], row.crooks_ratio_error = x[6], row.harmonic_mean = x[7], row.harmonic_sd = x[8];
+  row.time_step_error = x[9], row.unresolved_weight = x[10], row.warnings = int(x[11]);
+  return std::pair{i, row};
+}
 
 void write_sweep_points(std::ostream& out, const std::string& fingerprint,
                         const std::vector<std::pair<std::size_t, SweepRow>>& done) {
   out << points_header << fingerprint << '\n';
-  for (const auto& [i, r] : done) {
-    out << i;
-    if (!r.failure.empty()) {
-      out << ' ' << number_text(r.value) << " failed " << r.failure << '\n';
-      continue;
-    }
-    for (double v : {r.value, r.mean, r.sd, r.skewness, r.free_energy_change, r.dissipated_work,
-                     r.jarzynski_residual, r.crooks_ratio_error, r.harmonic_mean, r.harmonic_sd, r.time_step_error,
-                     r.unresolved_weight, double(r.warnings)})
-      out << ' ' << number_text(v);
-    out << '\n';
-  }
+  for (const auto& [i, r] : done) out << sweep_point_line(i, r) << '\n';
 }
 
-// The finished points of an earlier run of the same scenario. Throws InputError naming the file
-// when it belongs to another scenario or is damaged.
 std::vector<std::pair<std::size_t, SweepRow>> read_sweep_points(const std::filesystem::path& file,
                                                                 const std::string& fingerprint,
                                                                 const SweepSpec& sweep) {
@@ -88,48 +129,34 @@ std::vector<std::pair<std::size_t, SweepRow>> read_sweep_points(const std::files
                      found + ", this scenario " + fingerprint + "): use another output folder, or run without --resume",
                      "", file.string(), 1);
   std::vector<std::pair<std::size_t, SweepRow>> done;
-  std::vector<bool> seen(sweep.values.size(), false);
+  std::vector<bool> seen(sweep.points(), false);
   for (int number = 2; std::getline(in, line); ++number) {
-    std::istringstream fields(line);
-    std::size_t i = 0;
-    std::string v[13];
-    bool ok = bool(fields >> i);
-    {  // a failed point: index, value, "failed", message
-      std::istringstream probe(line);
-      std::string index, value, word;
-      if (probe >> index >> value >> word && word == "failed") {
-        std::string message;
-        std::getline(probe >> std::ws, message);
-        char* end = nullptr;
-        const double x = std::strtod(value.c_str(), &end);
-        if (!ok || *end != '\0' || i >= sweep.values.size() || seen[i] || !(x == sweep.values[i]))
-          throw InputError("", line, "a failed sweep point (index, value, failed, message) of this scenario: remove "
-                           "the file, or run without --resume", "", file.string(), number);
-        seen[i] = true;
-        done.push_back({i, failed_sweep_row(x, message)});
-        continue;
-      }
-    }
-    for (auto& f : v) ok = ok && bool(fields >> f);
-    double x[13];
-    for (int k = 0; ok && k < 13; ++k) {
-      char* end = nullptr;
-      x[k] = std::strtod(v[k].c_str(), &end);  // reads nan and inf as number_text writes them
-      ok = *end == '\0';
-    }
-    // the value must be the one of that index, bit for bit (it was written as its exact text);
-    // the warning count a whole number (converting nan or a huge double to int is undefined)
-    ok = ok && x[12] >= 0 && x[12] <= 1e6 && x[12] == std::floor(x[12]);
-    if (!ok || i >= sweep.values.size() || seen[i] || !(x[0] == sweep.values[i]))
-      throw InputError("", line, "a finished sweep point (index, value and 12 numbers) of this scenario: remove the "
-                       "file, or run without --resume", "", file.string(), number);
-    seen[i] = true;
-    done.push_back({i, SweepRow{x[0], x[1], x[2], x[3], x[4], x[5], x[6], x[7], x[8], x[9], x[10], x[11],
-                                int(x[12]), {}}});
+    const auto point = parse_sweep_point(line, sweep);
+    if (!point || seen[point->first])
+      throw InputError("", line, "a finished sweep point (number, the swept values, and 12 numbers or \"failed\" and "
+                       "a message) of this scenario, each once: remove the file, or run without --resume", "",
+                       file.string(), number);
+    seen[point->first] = true;
+    done.push_back(*point);
   }
   return done;
 }
 
+void write_sweep_table(const std::filesystem::path& folder, const Scenario& scenario, const std::string& fingerprint,
+                       const std::vector<std::pair<std::size_t, SweepRow>>& done) {
+  // The points first (the record --resume reads), then sweep.csv made from them: a kill
+  // between the two leaves sweep.csv one point behind, which the resumed run rewrites.
+  write_file_atomically(folder / "sweep-points.txt", [&](std::ostream& o) { write_sweep_points(o, fingerprint, done); });
+  std::vector<SweepRow> finished_rows;
+  for (const auto& d : done) finished_rows.push_back(d.second);
+  CsvTable table = sweep_table(scenario, finished_rows, scenario.sweep->points());
+  table.comments.push_back("scenario fingerprint " + fingerprint +
+                           " (FNV-1a of the scenario text and the sweep values); sweep-points.txt keeps the "
+                           "finished points for trapwork sweep --resume");
+  write_file_atomically(folder / "sweep.csv", [&](std::ostream& o) { write_csv(o, table); });
+}
+
+namespace {
 }  // namespace
 
 void run_work_command(const WorkCommand& command, std::ostream& out, std::ostream& progress) {
@@ -193,7 +220,50 @@ void add_demo_command(CLI::App& app) {
   });
 }
 
+namespace {
+
+// --shard I/N: (I, N) with 1 <= I <= N; InputError otherwise.
+std::pair<std::size_t, std::size_t> parse_shard(const std::string& text) {
+  const auto slash = text.find('/');
+  std::size_t i = 0, n = 0;
+  try {
+    std::size_t used = 0;
+    if (slash != std::string::npos) {
+      i = std::stoul(text.substr(0, slash), &used);
+      if (used != slash) i = 0;
+      n = std::stoul(text.substr(slash + 1), &used);
+      if (used != text.size() - slash - 1) n = 0;
+    }
+  } catch (const std::exception&) {
+    i = n = 0;
+  }
+  if (!(i >= 1 && n >= 1 && i <= n && n <= 1000000))
+    throw InputError("--shard", text, "I/N with 1 <= I <= N (shard I of N runs the points p = I, I + N, I + 2N, ... "
+                     "numbered from 1), e.g. --shard 2/8");
+  return {i, n};
+}
+
+constexpr const char* shard_record = "sweep-shard.txt";
+constexpr const char* shard_scenario = "sweep-scenario.toml";
+
+}  // namespace
+
 void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostream& progress) {
+  SweepWorld world;
+  try {
+    run_sweep_in_world(command, world, out, progress);
+  } catch (const std::exception& e) {
+    if (world.size() > 1) {  // the other ranks wait for messages that will not come: end them all
+      progress << "trapwork: error: rank " << world.rank() << ": " << e.what() << std::endl;
+      world.abort(2);
+    }
+    throw;
+  }
+}
+
+void run_sweep_in_world(const SweepCommand& command, const SweepWorld& world, std::ostream& out,
+                        std::ostream& progress) {
+  const std::string resolved = set_scenario_text(command.scenario, command.set);
   Scenario scenario = load_scenario(command.scenario, command.set);
   if (!command.output.empty()) scenario.output_folder = command.output;
   if (!scenario.sweep)
@@ -202,21 +272,43 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
   if (command.retry_failed && !command.resume)
     throw InputError("--retry-failed", "without --resume", "--resume --retry-failed (it retries the failed points "
                      "of the earlier run kept in sweep-points.txt)");
+  std::optional<std::pair<std::size_t, std::size_t>> shard;
+  if (!command.shard.empty()) shard = parse_shard(command.shard);
+  if (shard && world.size() > 1)
+    throw InputError("--shard", command.shard, "either --shard or mpirun with more than one rank, not both");
   (void)build_protocol(scenario);  // the errors of a missing [protocol] or [initial] come first
   (void)work_request(scenario);
+  if (world.rank() > 0) {  // an MPI worker: rank 0 keeps the records and writes the files
+    serve_sweep(world, scenario, command.jobs);
+    return;
+  }
   const SweepSpec& sweep = *scenario.sweep;
-  const std::size_t points = sweep.values.size();
+  const std::size_t points = sweep.points();
+  // A shard writes into its own folder: -o, or shard-I-of-N inside the scenario's output folder.
+  if (shard && command.output.empty())
+    scenario.output_folder = (std::filesystem::path(scenario.output_folder) /
+                              ("shard-" + std::to_string(shard->first) + "-of-" + std::to_string(shard->second)))
+                                 .string();
   // sweep.csv and sweep-points.txt are written in the folder itself as points finish (the
   // record --resume reads); the figures go through the staging folder.
-  OutputRun output(scenario.output_folder, {"sweep.csv", "sweep-points.txt", "sweep.png", "sweep.svg"},
-                   scenario_inputs(scenario), "trapwork sweep " + scenario.file);
+  std::vector<std::string> names = {"sweep.csv", "sweep-points.txt", "sweep.png", "sweep.svg", shard_record,
+                                    shard_scenario};
+  for (const auto& n : sweep_map_names()) names.push_back(n);
+  if (const auto parent = std::filesystem::path(scenario.output_folder).parent_path(); shard && !parent.empty())
+    std::filesystem::create_directories(parent);
+  OutputRun output(scenario.output_folder, names, scenario_inputs(scenario), "trapwork sweep " + scenario.file);
   const std::filesystem::path folder = scenario.output_folder;
 
   // --resume: the points an earlier run of the same scenario finished are kept, the rest run.
-  const std::string fingerprint = sweep_fingerprint(scenario);
+  const std::string fingerprint = sweep_fingerprint(resolved, scenario);
   const std::filesystem::path points_file = folder / "sweep-points.txt";
-  std::vector<std::pair<std::size_t, SweepRow>> done;  // (index in [sweep], row), guarded by sweep_task's lock
+  std::vector<std::pair<std::size_t, SweepRow>> done;  // (point, row), guarded by sweep_task's lock
   if (command.resume && std::filesystem::exists(points_file)) done = read_sweep_points(points_file, fingerprint, sweep);
+  auto in_shard = [&](std::size_t i) { return !shard || i % shard->second == shard->first - 1; };
+  for (const auto& d : done)
+    if (!in_shard(d.first))
+      throw InputError("", std::to_string(d.first + 1), "points of shard " + command.shard + " only (point " +
+                       std::to_string(d.first + 1) + " is not): use the shard's own folder", "", points_file.string());
   // Failed points are kept as failed (not tried again on every --resume) unless asked.
   const std::size_t retried = command.retry_failed ? std::size_t(std::count_if(done.begin(), done.end(), [](const auto& d) {
     return !d.second.failure.empty();
@@ -224,28 +316,28 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
   if (command.retry_failed)
     std::erase_if(done, [](const auto& d) { return !d.second.failure.empty(); });
   const std::size_t resumed = done.size();
-  std::vector<std::size_t> todo;  // unfinished indices, in [sweep] order
+  std::vector<std::size_t> todo;  // unfinished points of this run (its shard), in [sweep] order
+  std::size_t mine = 0;           // points of this run (its shard)
   {
     std::vector<bool> finished(points, false);
     for (const auto& d : done) finished[d.first] = true;
-    for (std::size_t i = 0; i < points; ++i)
+    for (std::size_t i = 0; i < points; ++i) {
+      if (!in_shard(i)) continue;
+      ++mine;
       if (!finished[i]) todo.push_back(i);
+    }
   }
-  // The points first (the record --resume reads), then sweep.csv made from them: a kill
-  // between the two leaves sweep.csv one point behind, which the resumed run rewrites.
-  auto write_done = [&] {
-    write_file_atomically(points_file, [&](std::ostream& o) { write_sweep_points(o, fingerprint, done); });
-    std::vector<SweepRow> finished_rows;
-    for (const auto& d : done) finished_rows.push_back(d.second);
-    CsvTable table = sweep_table(scenario, finished_rows, points);
-    table.comments.push_back("scenario fingerprint " + fingerprint +
-                             " (FNV-1a of the scenario file and the sweep values); sweep-points.txt keeps the "
-                             "finished points for trapwork sweep --resume");
-    write_file_atomically(folder / "sweep.csv", [&](std::ostream& o) { write_csv(o, table); });
-  };
+  if (shard) {  // the shard's record: which points, of which scenario, for trapwork merge
+    write_file_atomically(folder / shard_scenario, [&](std::ostream& o) { o << resolved; });
+    write_file_atomically(folder / shard_record, [&](std::ostream& o) {
+      o << "trapwork sweep shard\nshard " << shard->first << "/" << shard->second << "\nfingerprint " << fingerprint
+        << "\npoints " << points << "\nscenario " << scenario.file << '\n';
+    });
+  }
+  auto write_done = [&] { write_sweep_table(folder, scenario, fingerprint, done); };
   if (resumed > 0) write_done();
 
-  ProgressBar bar("sweep points", points, progress, command.show_progress);
+  ProgressBar bar("sweep points", mine, progress, command.show_progress);
   bar.update(resumed);
   SweepOptions options;
   options.jobs = command.jobs;
@@ -255,28 +347,53 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
     write_done();
     bar.update(done.size());
   };
-  const SweepOutcome run = sweep_task(scenario, options);
+  std::optional<ClusterSweepOutcome> cluster;
+  if (world.size() > 1) cluster = coordinate_sweep(world, scenario, options);
+  const SweepOutcome run = cluster ? cluster->run : sweep_task(scenario, options);
   bar.finish();
   std::vector<SweepRow> rows;
   for (const auto& d : done) rows.push_back(d.second);
   const auto failed = std::count_if(rows.begin(), rows.end(), [](const SweepRow& r) { return !r.failure.empty(); });
   if (failed > 0)  // an error, so printed even with --quiet
-    progress << "trapwork sweep: " << failed << " of " << points << " point(s) failed (failed = 1 in "
+    progress << "trapwork sweep: " << failed << " of " << mine << " point(s) failed (failed = 1 in "
              << (folder / "sweep.csv").string() << ", each with its message; --resume --retry-failed computes them "
              << "again)\n";
 
   std::vector<std::filesystem::path> files = {folder / "sweep.csv", points_file};
-  for (const auto& p : plot_sweep_figure(output.staging(), scenario, rows)) files.push_back(p);
+  if (shard) files.insert(files.end(), {folder / shard_record, folder / shard_scenario});
+  // A shard draws no figure: its points are scattered over the sweep (trapwork merge draws them).
+  if (!shard)
+    for (const auto& p : plot_sweep_figure(output.staging(), scenario, rows)) files.push_back(p);
   files = output.commit(files);
   if (command.quiet) return;
 
-  print_sweep_report(out, run, rows,
-                     command.resume ? std::to_string(resumed) + " of " + std::to_string(points) + " points from " +
-                                          points_file.string() + ", " + std::to_string(todo.size()) +
-                                          " computed now" +
-                                          (retried > 0 ? " (" + std::to_string(retried) + " failed before, tried again)"
-                                                       : "")
-                                    : std::string());
+  std::string resumed_text = command.resume ? std::to_string(resumed) + " of " + std::to_string(mine) + " points from " +
+                                                  points_file.string() + ", " + std::to_string(todo.size()) +
+                                                  " computed now" +
+                                                  (retried > 0 ? " (" + std::to_string(retried) +
+                                                                     " failed before, tried again)"
+                                                               : "")
+                                            : std::string();
+  print_sweep_report(out, run, rows, resumed_text);
+  if (shard)
+    out << "\nshard " << command.shard << ": " << mine << " of " << points << " points (p = " << shard->first
+        << ", " << shard->first << " + " << shard->second << ", ... numbered from 1); join the shards with "
+        << "trapwork merge OUT " << folder.string() << " ...\n";
+  if (cluster) {  // who computed what: the load balance (mean over max of the ranks' busy seconds)
+    out << "\nMPI: " << world.size() << " ranks (rank 0 hands out the points, ranks 1 to " << world.size() - 1
+        << " compute them, " << run.jobs << " at a time each)\n";
+    double total = 0, most = 0;
+    for (int r = 1; r < world.size(); ++r) {
+      const double b = cluster->busy_seconds[std::size_t(r)];
+      out << "  rank " << r << ": " << cluster->points_per_rank[std::size_t(r)] << " points, busy "
+          << short_number(b, 4) << " s\n";
+      total += b;
+      most = std::max(most, b);
+    }
+    if (most > 0)
+      out << "  load balance (mean / largest busy time of the computing ranks): "
+          << short_number(total / double(world.size() - 1) / most, 3) << '\n';
+  }
   print_files(out, files);
 }
 
@@ -296,6 +413,10 @@ void add_sweep_command(CLI::App& app) {
                 "folder) and compute only the rest; points that failed stay failed");
   sub->add_flag("--retry-failed", command->retry_failed,
                 "with --resume: compute the points recorded as failed again");
+  sub->add_option("--shard", command->shard,
+                  "I/N: compute only the points p = I, I + N, I + 2N, ... (numbered from 1 in [sweep] order) into "
+                  "the shard's own folder (-o, or shard-I-of-N inside the output folder), for batch systems "
+                  "without MPI; trapwork merge joins the shards' folders into one sweep.csv");
   sub->callback([command] {
     SweepCommand c = *command;
     c.show_progress = !c.quiet && ProgressBar::terminal_allows();

@@ -23,7 +23,7 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
     if (s.protocol) (void)trapwork::build_protocol(s);
     if (s.work) (void)trapwork::work_request(s);
     if (s.sweep && s.protocol && s.work)
-      for (std::size_t i = 0; i < s.sweep->values.size() && i < 16; ++i) {
+      for (std::size_t i = 0; i < s.sweep->points() && i < 16; ++i) {
         const trapwork::Scenario point = trapwork::at_sweep_point(s, i);
         (void)trapwork::build_protocol(point);
       }

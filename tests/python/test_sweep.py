@@ -36,6 +36,51 @@ def test_sweep_equals_cli(in_tmp):
     assert "sweep" in r.figures and r.figures["sweep"]["kind"] == "sweep"
 
 
+GRID = """title = "grid sweep"
+[particle]
+mass = "40 u"
+[[potential]]
+name = "trap"
+shape = "harmonic"
+frequency = "1 MHz"
+[protocol]
+duration = "1.5 us"
+[[protocol.change]]
+parameter = "trap.centre"
+to = "30 nm"
+[initial]
+mean_phonons = 0.3
+[work]
+time_step_check = false
+[[sweep.axis]]
+parameter = "protocol.duration"
+values = ["1.3 us", "0.7 us"]
+[[sweep.axis]]
+parameter = "initial.mean_phonons"
+values = [0.1, 0.5]
+"""
+
+
+def test_grid_sweep_equals_cli(in_tmp):
+    # issue 20: a two-parameter grid (the same scenario layer as the command line): the table
+    # in point order with a column per swept parameter, equal to sweep.csv; the maps are written
+    path = in_tmp / "grid.toml"
+    path.write_text(GRID)
+    cli_ok("sweep", path, "--jobs", "2", "-o", in_tmp / "cli")
+    r = trapwork.sweep(trapwork.Scenario.from_file(path), jobs=2)
+    names, comments, columns = read_csv(in_tmp / "cli" / "sweep.csv")
+    t = r.table
+    assert t.columns == names and len(t) == 4
+    assert names[:3] == ["point", "protocol_duration_us", "initial_mean_phonons_internal"]
+    np.testing.assert_array_equal(t["point"], [1, 2, 3, 4])
+    np.testing.assert_array_equal(t["protocol_duration_us"], [1.3, 1.3, 0.7, 0.7])
+    np.testing.assert_array_equal(t["initial_mean_phonons_internal"], [0.1, 0.5, 0.1, 0.5])
+    assert_table_equals_csv_columns(t, columns)
+    assert r.summary["parameter"] == ["protocol.duration", "initial.mean_phonons"] and r.summary["points"] == 4
+    names = sorted(pathlib.Path(p).name for p in r.write(in_tmp / "module"))
+    assert "sweep_map_mean.png" in names and "sweep.csv" in names
+
+
 def assert_table_equals_csv_columns(table, columns):
     from conftest import assert_close, column_scale
     for n, v in columns.items():

@@ -469,7 +469,8 @@ class WorkResult(Result):
 
 class SweepResult(Result):
     """Result of :func:`sweep`: the table ``sweep`` (one row per point, sorted by the swept
-    value); named array ``table``."""
+    value; with several swept parameters in point order, with columns ``point`` and one per
+    parameter); named array ``table``."""
 
     _command = "sweep"
     _main_table = "sweep"
@@ -664,7 +665,8 @@ def work(scenario, tolerance=None, search_budget=2000, progress=None):
 
 
 def sweep(scenario, jobs=None, progress=None):
-    """Work statistics over the values of the scenario's [sweep] parameter (``trapwork sweep``).
+    """Work statistics over the points of the scenario's [sweep]: one parameter's values, a grid
+    of [[sweep.axis]] tables, or a list of points (``trapwork sweep``).
 
     scenario: a :class:`Scenario` with [protocol], [initial] and [sweep].
     jobs: points computed at the same time (threads; None: the number of cores).
