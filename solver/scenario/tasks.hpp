@@ -26,6 +26,7 @@
 #include "solver/scenario/output.hpp"
 #include "solver/scenario/plot.hpp"
 #include "solver/scenario/scenario.hpp"
+#include "solver/scenario/uncertainty_task.hpp"
 #include "solver/scenario/work_output.hpp"
 
 namespace trapwork {
@@ -98,6 +99,7 @@ struct WorkOutcome {
   std::optional<ToleranceChoice> choice;  // with a tolerance: what the search chose
   std::optional<ScenarioWork> direct;     // without
   std::optional<NoisyWorkResult> noise;   // [noise]: the noisy run beside the noiseless one
+  std::optional<WorkUncertainty> uncertainty;  // --uncertainty: the calibration's spread (add_work_uncertainty)
   // References into *this: keep the outcome in place while the run is used.
   WorkRun run() const;
 };
