@@ -55,6 +55,35 @@ TEST_CASE("trapwork work --uncertainty: a fit carried into the work statistics",
   CHECK(std::isfinite(sd));
 }
 
+TEST_CASE("trapwork compare --against --uncertainty: the calibrated model's likelihood averaged over its draws",
+          "[cli][uncertainty]") {
+  const fs::path dir = trapwork_test::scratch_dir("test-cli-uncertainty", "compare");
+  REQUIRE(run("fit '" + (examples / "ion_spectroscopy_lines.csv").string() + "' --start '" +
+                  (examples / "ion_spectroscopy_start.toml").string() + "' --terms frequency,cubic,quartic -o fit",
+              dir)
+              .exit_code == 0);
+  const Run compare = run("compare fit/fitted.toml '" + (examples / "ion_work_samples_fine.csv").string() +
+                              "' --against '" + (examples / "ion_shuttle_harmonic.toml").string() +
+                              "' --calibration 50 --uncertainty fit --uncertainty-samples 8 -o compare",
+                          dir);
+  INFO(compare.err);
+  REQUIRE(compare.exit_code == 0);
+  CHECK_THAT(compare.out, Contains("the trap's calibration folded in"));
+  const auto summary = nlohmann::json::parse(trapwork_test::read_all(dir / "compare" / "compare_summary.json"));
+  const auto& models = summary.at("calibration_uncertainty").at("models");
+  REQUIRE(models.size() == 2);
+  // the fitted model is folded: its marginal ln L is finite and differs from the nominal one
+  CHECK(models[0].at("not_folded").is_null());
+  const double nominal = models[0].at("log_likelihood_nominal"), marginal = models[0].at("log_likelihood_marginal");
+  CHECK(std::isfinite(marginal));
+  CHECK(marginal != nominal);
+  CHECK(models[0].at("log_likelihood_sd_over_draws").get<double>() > 0);
+  // the harmonic model is another hypothesis (quartic 0, not the fitted value): not folded, said so
+  CHECK(models[1].at("not_folded").is_string());
+  CHECK(models[1].at("log_likelihood_marginal").is_null());
+  CHECK(models[0].at("posterior").get<double>() + models[1].at("posterior").get<double>() == Approx(1.0));
+}
+
 TEST_CASE("trapwork work --uncertainty refuses a calibration that does not fit the scenario", "[cli][uncertainty]") {
   const fs::path dir = trapwork_test::scratch_dir("test-cli-uncertainty", "bad");
   std::ofstream(dir / "fit_summary.json") << "{\n  \"command\": \"fit\",\n  \"coefficients\": [\n    {\n"

@@ -176,6 +176,7 @@ struct CompareSettings {
   std::uint64_t seed = 1;
   double confidence = 0.9;
   ModelChoiceSettings models;  // --against: other scenarios to choose between (model_choice_task.hpp)
+  UncertaintySettings uncertainty;  // --uncertainty: the trap's calibration folded in (calibrated_likelihood)
 };
 struct CompareTaskOutcome {
   Scenario scenario;
@@ -187,6 +188,7 @@ struct CompareTaskOutcome {
   std::string verdict;
   std::vector<double> edges, observed, expected;  // the table's and figure's bins (internal energy), runs
   std::optional<ModelChoiceOutcome> choice;       // with --against
+  std::optional<CalibratedLikelihood> calibrated;  // with --uncertainty
   // References into *this: keep the outcome in place while the run is used.
   WorkRun run() const { return work.run(scenario); }
 };

@@ -8,6 +8,7 @@
 #include <limits>
 #include <sstream>
 
+#include "solver/design.hpp"
 #include "solver/errors.hpp"
 #include "solver/scenario/data_files.hpp"
 #include "solver/scenario/tasks.hpp"
@@ -560,6 +561,121 @@ void print_uncertainty_report(std::ostream& out, const Scenario& s, const WorkUn
   print_row(out, "lines", "lines_uncertainty.csv: the strong lines with their sd (P >= " +
                               short_number(strong_line_probability) + ")");
   for (const auto& w : u.warnings) print_row(out, "WARN", w);
+}
+
+// ---- compare -----------------------------------------------------------------------------------
+
+CalibratedLikelihood calibrated_likelihood(const WorkRun& main_run, const WorkData& data, double sigma,
+                                           const ModelChoiceSettings& models, const UncertaintySettings& settings,
+                                           const TaskHooks& hooks) {
+  if (settings.samples < 2) throw InputError("--uncertainty-samples", std::to_string(settings.samples), "at least 2 draws");
+  CalibratedLikelihood c;
+  c.samples = settings.samples;
+  c.seed = settings.seed;
+  std::vector<const Scenario*> scenarios{&main_run.scenario};
+  for (const auto& s : models.against) scenarios.push_back(&s);
+  const Calibration main_calibration = read_calibration(settings.calibration, main_run.scenario);  // errors: the user's
+  c.file = main_calibration.file;
+  c.notes = main_calibration.notes;
+  ModelChoiceSettings quiet;  // likelihoods only: no synthetic sets
+  quiet.calibration = 0;
+  for (std::size_t j = 0; j < scenarios.size(); ++j) {
+    const Scenario& model = *scenarios[j];
+    c.names.push_back(fs::path(model.file).stem().string());
+    std::optional<Calibration> cal;
+    try {
+      cal = j == 0 ? main_calibration : read_calibration(settings.calibration, model);
+      if (j > 0 && !cal->notes.empty()) {  // another model than the one calibrated: not its spread
+        c.not_folded.push_back("the calibration describes other values (" + cal->notes.front() + ")");
+        cal.reset();
+      }
+    } catch (const InputError& e) {
+      c.not_folded.push_back(std::string("its potential does not take the calibration: ") + e.what());
+    }
+    std::optional<ScenarioWork> own;
+    if (j > 0) own = model_work(model, hooks, "compare --against");
+    const WorkRun run = j == 0 ? main_run : own->run(model);
+    quiet.against.clear();
+    if (cal) {
+      c.not_folded.push_back("");
+      std::vector<std::vector<double>> cov(std::size_t(cal->mean.size()), std::vector<double>(std::size_t(cal->mean.size())));
+      for (Eigen::Index a = 0; a < cal->mean.size(); ++a)
+        for (Eigen::Index b = 0; b < cal->mean.size(); ++b) cov[std::size_t(a)][std::size_t(b)] = cal->covariance(a, b);
+      const auto draws = gaussian_samples(std::vector<double>(cal->mean.data(), cal->mean.data() + cal->mean.size()), cov,
+                                          settings.samples, settings.seed);
+      for (const auto& p : draws) {
+        Scenario drawn = model;
+        for (std::size_t i = 0; i < p.size(); ++i) drawn.potential.set_parameter(cal->addresses[i], p[i]);
+        quiet.against.push_back(std::move(drawn));
+      }
+    } else {
+      quiet.against.push_back(model);  // choose_between needs two models: the nominal one again
+    }
+    if (hooks.stage) hooks.stage("calibration folded into " + c.names.back() + " (" + std::to_string(quiet.against.size()) + " runs)");
+    const ModelChoiceOutcome o = choose_between(run, data, sigma, quiet, hooks);
+    const double shift = o.choice.runs * o.display_shift;
+    const auto& ll = o.choice.log_likelihood;
+    c.nominal.push_back(ll[0] + shift);
+    if (!cal) {
+      c.marginal.push_back(ll[0] + shift);
+      c.spread.push_back(nan);
+      continue;
+    }
+    double top = -std::numeric_limits<double>::infinity(), sum = 0, squares = 0;
+    for (std::size_t k = 1; k < ll.size(); ++k) top = std::max(top, ll[k]);
+    for (std::size_t k = 1; k < ll.size(); ++k) sum += std::exp(ll[k] - top), squares += ll[k];
+    const double n = double(ll.size() - 1), mean_ll = squares / n;
+    double var = 0;
+    for (std::size_t k = 1; k < ll.size(); ++k) var += (ll[k] - mean_ll) * (ll[k] - mean_ll);
+    c.marginal.push_back(std::isfinite(top) ? top + std::log(sum / n) + shift : top);
+    c.spread.push_back(std::sqrt(var / (n - 1)));
+  }
+  std::vector<double> prior = models.prior.empty() ? std::vector<double>(scenarios.size(), 1.0) : models.prior;
+  double top = -std::numeric_limits<double>::infinity(), total = 0;
+  for (double m : c.marginal) top = std::max(top, m);
+  for (std::size_t j = 0; j < c.marginal.size(); ++j) total += prior[j] * std::exp(c.marginal[j] - top);
+  for (std::size_t j = 0; j < c.marginal.size(); ++j) c.posterior.push_back(prior[j] * std::exp(c.marginal[j] - top) / total);
+  return c;
+}
+
+json calibrated_likelihood_json(const CalibratedLikelihood& c) {
+  json models = json::array();
+  for (std::size_t j = 0; j < c.names.size(); ++j)
+    models.push_back({{"model", c.names[j]},
+                      {"log_likelihood_nominal", number_or_null(c.nominal[j])},
+                      {"log_likelihood_marginal", c.not_folded[j].empty() ? number_or_null(c.marginal[j]) : json(nullptr)},
+                      {"log_likelihood_sd_over_draws", number_or_null(c.spread[j])},
+                      {"posterior", number_or_null(c.posterior[j])},
+                      {"not_folded", c.not_folded[j].empty() ? json(nullptr) : json(c.not_folded[j])}});
+  return {{"file", c.file},
+          {"method", "marginal likelihood: ln of the mean of L over draws of the trap's parameters from the calibration"},
+          {"draws", c.samples},
+          {"seed", c.seed},
+          {"models", models},
+          {"warnings", c.notes}};
+}
+
+void print_calibrated_likelihood(std::ostream& out, const CalibratedLikelihood& c) {
+  out << "\nthe trap's calibration folded in (" << c.file << ")\n";
+  print_row(out, "method", "ln L averaged over " + std::to_string(c.samples) + " draws of the trap's parameters (seed " +
+                               std::to_string(c.seed) + "): ln mean_k L_k, a marginal likelihood");
+  char line[256];
+  std::snprintf(line, sizeof line, "  %-22s %16s %16s %12s %10s\n", "model", "ln L nominal", "ln L marginal",
+                "sd over draws", "posterior");
+  out << line;
+  for (std::size_t j = 0; j < c.names.size(); ++j) {
+    const bool folded = c.not_folded[j].empty();
+    std::snprintf(line, sizeof line, "  %-22s %16s %16s %12s %10s\n", c.names[j].c_str(),
+                  short_number(c.nominal[j], 8).c_str(), folded ? short_number(c.marginal[j], 8).c_str() : "not folded",
+                  folded ? short_number(c.spread[j], 3).c_str() : "not computed", short_number(c.posterior[j], 4).c_str());
+    out << line;
+  }
+  for (const auto& n : c.notes) print_row(out, "WARN", n);
+  for (std::size_t j = 0; j < c.names.size(); ++j)
+    if (!c.not_folded[j].empty()) print_row(out, "note", c.names[j] + ": " + c.not_folded[j] + " (its nominal ln L is used)");
+  if (c.names.size() > 1)
+    print_row(out, "note", "posterior from the marginal likelihoods and the prior weights; the test's p-values above are "
+                           "the nominal models'");
 }
 
 }  // namespace trapwork

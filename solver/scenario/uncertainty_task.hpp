@@ -18,6 +18,8 @@
 #include <string>
 #include <vector>
 
+#include "solver/scenario/data_files.hpp"
+#include "solver/scenario/model_choice_task.hpp"
 #include "solver/scenario/output.hpp"
 #include "solver/scenario/plot.hpp"
 #include "solver/scenario/scenario.hpp"
@@ -106,5 +108,32 @@ nlohmann::ordered_json uncertainty_summary(const Scenario& scenario, const WorkU
 void add_uncertainty_bars(WorkFigure& figure, const Scenario& scenario, const WorkDistribution& distribution,
                           const WorkUncertainty& u);
 void print_uncertainty_report(std::ostream& out, const Scenario& scenario, const WorkUncertainty& u);
+
+// ---- compare: the model's own uncertainty folded into its likelihood ----------------------
+// A marginal likelihood over the calibration: L_marg = (1/K) sum_k L(data | model at the k-th
+// parameter set drawn from the calibration), K draws (seeded), each model run through
+// model_work (the automatic path of compare) and its ln L from choose_between's likelihoods
+// (the same data form and resolution as compare --against). A model whose potential lacks the
+// calibration's parameters, or whose values differ from the calibration's by more than 0.1 sd
+// (another hypothesis, e.g. the harmonic model with its quartic term 0), keeps its nominal ln L
+// (said so). Posterior probabilities from the
+// marginal likelihoods and the prior weights (equal when none are given). The calibrated
+// likelihood-ratio test's p-values stay those of the nominal models.
+struct CalibratedLikelihood {
+  std::string file;
+  int samples = 0;
+  std::uint64_t seed = 0;
+  std::vector<std::string> names;            // models, the compared scenario first
+  std::vector<double> nominal, marginal;     // ln L (densities per display unit for work values)
+  std::vector<double> spread;                // sd of ln L over the draws (NaN: not folded)
+  std::vector<double> posterior;             // from the marginal likelihoods
+  std::vector<std::string> not_folded;       // per model: why not ("" when folded)
+  std::vector<std::string> notes;            // the compared scenario's values against the calibration's
+};
+CalibratedLikelihood calibrated_likelihood(const WorkRun& main_run, const WorkData& data, double sigma,
+                                           const ModelChoiceSettings& models, const UncertaintySettings& settings,
+                                           const TaskHooks& hooks);
+nlohmann::ordered_json calibrated_likelihood_json(const CalibratedLikelihood& c);
+void print_calibrated_likelihood(std::ostream& out, const CalibratedLikelihood& c);
 
 }  // namespace trapwork

@@ -175,6 +175,7 @@ struct CompareCommand {
   double decision_confidence = 0.95;
   std::vector<int> fitted_parameters;
   std::vector<double> prior;
+  UncertaintySettings uncertainty;  // --uncertainty FILE: the trap's calibration folded in
   bool quiet = false;
   bool show_progress = false;
 };
