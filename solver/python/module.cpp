@@ -95,11 +95,15 @@ std::shared_ptr<NativeResult> module_spectrum(const std::string& text, const std
 
 std::shared_ptr<NativeResult> module_work(const std::string& text, const std::string& name,
                                           std::optional<double> tolerance, double search_budget, py::object progress,
-                                          py::object notice, const Provenance& provenance) {
+                                          py::object notice, const Provenance& provenance,
+                                          const UncertaintySettings& uncertainty) {
   std::function<WorkOutcome(const TaskHooks&)> task = [&](const TaskHooks& hooks) {
     const Scenario scenario = read_for(text, name, provenance);
     (void)build_protocol(scenario);  // as the command line: a missing [protocol] before a missing [initial]
-    return work_task(scenario, tolerance, search_budget, hooks);
+    if (!uncertainty.calibration.empty()) (void)read_calibration(uncertainty.calibration, scenario);
+    WorkOutcome o = work_task(scenario, tolerance, search_budget, hooks);
+    add_work_uncertainty(o, uncertainty, hooks);
+    return o;
   };
   auto outcome = compute(task, progress, notice, tolerance ? "--tolerance search (share of its cost bound)" : "propagating");
   return native_of(outcome, "work", scenario_inputs(outcome->scenario));
@@ -295,6 +299,20 @@ PYBIND11_MODULE(_trapwork, m) {
         py::arg("synthetic_runs"), py::arg("progress"), py::arg("notice"), py::arg("provenance"));
   m.def("design", &module_design, py::arg("text"), py::arg("name"), py::arg("options"), py::arg("progress"),
         py::arg("notice"), py::arg("provenance"));
-  m.def("work", &module_work, py::arg("text"), py::arg("name"), py::arg("tolerance"), py::arg("search_budget"),
-        py::arg("progress"), py::arg("notice"), py::arg("provenance"));
+  m.def(
+      "work",
+      [](const std::string& text, const std::string& name, std::optional<double> tolerance, double search_budget,
+         py::object progress, py::object notice, const Provenance& provenance, const std::string& calibration,
+         const std::string& method, int samples, std::uint64_t seed) {
+        UncertaintySettings u;
+        u.calibration = calibration;
+        u.method = method;
+        u.samples = samples;
+        u.seed = seed;
+        return module_work(text, name, tolerance, search_budget, progress, notice, provenance, u);
+      },
+      py::arg("text"), py::arg("name"), py::arg("tolerance"), py::arg("search_budget"), py::arg("progress"),
+      py::arg("notice"), py::arg("provenance"), py::arg("uncertainty") = std::string(),
+      py::arg("uncertainty_method") = std::string("auto"), py::arg("uncertainty_samples") = 100,
+      py::arg("uncertainty_seed") = 1);
 }

@@ -300,6 +300,9 @@ CompareTaskOutcome compare_task(const Scenario& scenario, const CompareSettings&
   std::string verdict = verdict_of(comparison);
   std::optional<ModelChoiceOutcome> choice;
   if (!settings.models.against.empty()) choice = choose_between(run, data, sigma, settings.models, hooks);
+  std::optional<CalibratedLikelihood> calibrated;
+  if (!settings.uncertainty.calibration.empty())
+    calibrated = calibrated_likelihood(run, data, sigma, settings.models, settings.uncertainty, hooks);
   return {scenario,
           std::move(work),
           std::move(data),
@@ -310,7 +313,8 @@ CompareTaskOutcome compare_task(const Scenario& scenario, const CompareSettings&
           std::move(view.edges),
           std::move(view.observed),
           std::move(view.expected),
-          std::move(choice)};
+          std::move(choice),
+          std::move(calibrated)};
 }
 
 std::vector<NamedTable> task_tables(const CompareTaskOutcome& o) {
@@ -350,6 +354,7 @@ nlohmann::ordered_json task_summary(const CompareTaskOutcome& o) {
           {"comparison", comparison_json(o.comparison, d, o.work.result().distribution.beta)},
           {"verdict", o.verdict}};
   if (o.choice) summary["model_choice"] = model_choice_json(*o.choice);
+  if (o.calibrated) summary["calibration_uncertainty"] = calibrated_likelihood_json(*o.calibrated);
   return with_provenance(summary, o.scenario);
 }
 
@@ -395,6 +400,7 @@ std::vector<fs::path> write_task_outputs(const fs::path& folder, const CompareTa
 void print_task_report(std::ostream& out, const CompareTaskOutcome& o) {
   print_compare_report(out, o.run(), o.data, o.comparison, o.sigma, o.sigma_source, o.verdict);
   if (o.choice) print_model_choice(out, *o.choice);
+  if (o.calibrated) print_calibrated_likelihood(out, *o.calibrated);
 }
 
 }  // namespace trapwork

@@ -772,6 +772,8 @@ Range bulk_range(const std::vector<const WorkSeries*>& series, double tail) {
 void validate_work(const WorkFigure& f) {
   const std::string name = "plot_work";
   validate_series(name, f.result);
+  if (!f.result.error.empty() && f.result.error.size() != f.result.work.size())
+    bad_data(name, "one standard deviation per line of the result");
   if (f.reference) validate_series(name, *f.reference);
   if (f.noisy) {
     validate_series(name, *f.noisy);
@@ -1038,6 +1040,7 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
       if (f.reference)
         draw_stems(*f.reference, panel.log_y, panel.y_lo, offset - shift, orange, "○", scale(1), width(1));
       draw_stems(f.result, panel.log_y, panel.y_lo, -shift, blue, "●", scale(0), width(0));
+      draw_error_bars(f.result, panel.log_y, panel.y_lo, -shift);  // e.g. the calibration's spread
       if (f.noisy) {
         const double left_of = -0.004 * (panel.x_hi - panel.x_lo) - shift;
         draw_stems(*f.noisy, panel.log_y, panel.y_lo, left_of, red, "◆", scale(2), width(2));

@@ -175,7 +175,7 @@ WorkOutcome work_task(const Scenario& scenario, std::optional<double> tolerance,
                       const TaskHooks& hooks) {
   WorkRequest request = work_request(scenario);
   request.spectrum.options.interrupt = hooks.interrupt;
-  WorkOutcome outcome{scenario, std::nullopt, std::nullopt, std::nullopt};
+  WorkOutcome outcome{scenario, std::nullopt, std::nullopt, std::nullopt, std::nullopt};
   if (tolerance) {
     if (!(*tolerance > 0 && *tolerance < 1))
       throw InputError("--tolerance", short_number(*tolerance), "a bound between 0 and 1 (e.g. 1e-4)");
@@ -215,11 +215,13 @@ WorkOutcome work_task(const Scenario& scenario, std::optional<double> tolerance,
 std::vector<NamedTable> task_tables(const WorkOutcome& o) {
   std::vector<NamedTable> tables = work_tables(o.run());
   if (o.noise) tables.push_back({"noise_lines.csv", noise_lines_table(o.scenario, *o.noise)});
+  if (o.uncertainty) tables.push_back({"lines_uncertainty.csv", uncertainty_lines_table(o.scenario, *o.uncertainty)});
   return tables;
 }
 nlohmann::ordered_json task_summary(const WorkOutcome& o) {
   nlohmann::ordered_json summary = work_summary(o.run());
   if (o.noise) summary["noise"] = noise_summary(o.scenario, *o.noise);
+  if (o.uncertainty) summary["calibration_uncertainty"] = uncertainty_summary(o.scenario, *o.uncertainty);
   return with_provenance(summary, o.scenario);
 }
 std::vector<NamedText> task_texts(const WorkOutcome&) { return {}; }
@@ -229,6 +231,10 @@ std::vector<NamedFigure> task_figures(const WorkOutcome& o) {
   if (o.noise)  // work.png: the noisy P(W) beside the noiseless one
     for (auto& f : figures)
       if (f.stem == "work") f.figure = noisy_work_figure(run, *o.noise);
+  if (o.uncertainty)  // work.png: +-1 sd bars on the strong lines
+    for (auto& f : figures)
+      if (auto* w = std::get_if<WorkFigure>(&f.figure); w && f.stem == "work")
+        add_uncertainty_bars(*w, o.scenario, run.result.distribution, *o.uncertainty);
   return figures;
 }
 std::vector<fs::path> write_task_outputs(const fs::path& folder, const WorkOutcome& o) {
@@ -237,6 +243,7 @@ std::vector<fs::path> write_task_outputs(const fs::path& folder, const WorkOutco
 void print_task_report(std::ostream& out, const WorkOutcome& o) {
   print_work_report(out, o.run());
   if (o.noise) print_noise_report(out, o.scenario, *o.noise);
+  if (o.uncertainty) print_uncertainty_report(out, o.scenario, *o.uncertainty);
 }
 
 // ---- sweep ---------------------------------------------------------------------------------

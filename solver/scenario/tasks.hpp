@@ -26,6 +26,7 @@
 #include "solver/scenario/output.hpp"
 #include "solver/scenario/plot.hpp"
 #include "solver/scenario/scenario.hpp"
+#include "solver/scenario/uncertainty_task.hpp"
 #include "solver/scenario/work_output.hpp"
 
 namespace trapwork {
@@ -98,6 +99,7 @@ struct WorkOutcome {
   std::optional<ToleranceChoice> choice;  // with a tolerance: what the search chose
   std::optional<ScenarioWork> direct;     // without
   std::optional<NoisyWorkResult> noise;   // [noise]: the noisy run beside the noiseless one
+  std::optional<WorkUncertainty> uncertainty;  // --uncertainty: the calibration's spread (add_work_uncertainty)
   // References into *this: keep the outcome in place while the run is used.
   WorkRun run() const;
 };
@@ -178,6 +180,7 @@ struct CompareSettings {
   std::uint64_t seed = 1;
   double confidence = 0.9;
   ModelChoiceSettings models;  // --against: other scenarios to choose between (model_choice_task.hpp)
+  UncertaintySettings uncertainty;  // --uncertainty: the trap's calibration folded in (calibrated_likelihood)
 };
 struct CompareTaskOutcome {
   Scenario scenario;
@@ -189,6 +192,7 @@ struct CompareTaskOutcome {
   std::string verdict;
   std::vector<double> edges, observed, expected;  // the table's and figure's bins (internal energy), runs
   std::optional<ModelChoiceOutcome> choice;       // with --against
+  std::optional<CalibratedLikelihood> calibrated;  // with --uncertainty
   // References into *this: keep the outcome in place while the run is used.
   WorkRun run() const { return work.run(scenario); }
 };

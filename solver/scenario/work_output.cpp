@@ -1218,7 +1218,7 @@ std::vector<std::string> work_output_names() {
   return {"lines.csv",      "histogram.csv", "density.csv",   "transition.csv", "reverse_lines.csv",
           "characteristic.csv", "summary.json", "potential.png", "potential.svg", "work.png",
           "work.svg", "traces.csv", "protocol.png", "protocol.svg", "populations.png", "populations.svg",
-          "traces.png", "traces.svg", "noise_lines.csv"};
+          "traces.png", "traces.svg", "noise_lines.csv", "lines_uncertainty.csv"};
 }
 
 std::vector<NamedTable> work_tables(const WorkRun& run) {

@@ -95,6 +95,7 @@ struct WorkCommand {
   bool show_progress = false;
   std::optional<double> tolerance;  // --tolerance: numerics chosen for this bound (work_output.hpp)
   double search_budget = default_search_budget;  // --search-budget: the search's cost bound
+  UncertaintySettings uncertainty;  // --uncertainty FILE and its method options (uncertainty_task.hpp)
 };
 void add_work_command(CLI::App& app);
 void run_work_command(const WorkCommand& command, std::ostream& out, std::ostream& progress);
@@ -192,6 +193,7 @@ struct CompareCommand {
   double decision_confidence = 0.95;
   std::vector<int> fitted_parameters;
   std::vector<double> prior;
+  UncertaintySettings uncertainty;  // --uncertainty FILE: the trap's calibration folded in
   bool quiet = false;
   bool show_progress = false;
 };

@@ -32,6 +32,8 @@ CompareOutcome run_compare_command(const CompareCommand& command, std::ostream& 
   settings.models.confidence = command.decision_confidence;
   settings.models.fitted_parameters = command.fitted_parameters;
   settings.models.prior = command.prior;
+  settings.uncertainty = command.uncertainty;
+  if (!settings.uncertainty.calibration.empty()) (void)read_calibration(settings.uncertainty.calibration, scenario);
   std::optional<OutputRun> output;
   TaskBar bar(progress, command.show_progress);
   const CompareTaskOutcome task =
@@ -80,6 +82,13 @@ void add_compare_command(CLI::App& app) {
                   "with --against: synthetic data sets per model for the likelihood-ratio p-values (0: none)")
       ->capture_default_str()
       ->check(CLI::Range(0, 10000000));
+  command->uncertainty.samples = 20;
+  sub->add_option("--uncertainty", command->uncertainty.calibration,
+                  "fold the trap's calibration uncertainty in: the fit_summary.json of `trapwork fit` (or its folder); "
+                  "each model that takes its parameters gets a marginal likelihood, L averaged over draws of the "
+                  "parameters, and the posterior is computed from those");
+  sub->add_option("--uncertainty-samples", command->uncertainty.samples,
+                  "draws of the parameters per model for --uncertainty (default 20; each is one work run)");
   sub->add_option("--decision-confidence", command->decision_confidence,
                   "with --against: confidence of the verdict")
       ->capture_default_str()

@@ -167,8 +167,10 @@ void run_work_command(const WorkCommand& command, std::ostream& out, std::ostrea
   OutputRun output(scenario.output_folder, work_output_names(), scenario_inputs(scenario),
                    "trapwork work " + scenario.file);
   TaskBar bar(progress, command.show_progress);
-  const WorkOutcome outcome = work_task(scenario, command.tolerance, command.search_budget,
-                                        bar.hooks(command.quiet ? nullptr : notice_to(progress)));
+  const TaskHooks hooks = bar.hooks(command.quiet ? nullptr : notice_to(progress));
+  if (!command.uncertainty.calibration.empty()) (void)read_calibration(command.uncertainty.calibration, scenario);
+  WorkOutcome outcome = work_task(scenario, command.tolerance, command.search_budget, hooks);
+  add_work_uncertainty(outcome, command.uncertainty, hooks);
   bar.finish();
   const auto files = output.commit(write_task_outputs(output.staging(), outcome));
   if (command.quiet) return;
@@ -196,6 +198,18 @@ void add_work_command(CLI::App& app) {
                   "cost bound of the --tolerance search: its runs' estimated arithmetic, summed, in units of its "
                   "first run's (default " + short_number(default_search_budget) + "); at the bound it stops and "
                   "reports the accuracy it verified");
+  sub->add_option("--uncertainty", command->uncertainty.calibration,
+                  "carry the trap's calibration uncertainty forward: the fit_summary.json of `trapwork fit` (or its "
+                  "folder), whose coefficients name parameters of the scenario's potential; <W>, sd(W), Delta F and "
+                  "the strong lines' probabilities get the standard deviation it gives them (lines_uncertainty.csv, "
+                  "summary.json, bars in work.png)");
+  sub->add_option("--uncertainty-method", command->uncertainty.method,
+                  "auto (linear propagation by central differences where its second-order terms are below 0.1 of "
+                  "the sd, else sampling; a small case is also checked against sampling), linear, sampling, or both "
+                  "(each, with their disagreement)");
+  sub->add_option("--uncertainty-samples", command->uncertainty.samples,
+                  "parameter sets drawn from the covariance for sampling (default 100)");
+  sub->add_option("--uncertainty-seed", command->uncertainty.seed, "seed of the parameter draws (default 1)");
   sub->callback([command] {
     WorkCommand c = *command;
     c.show_progress = !c.quiet && ProgressBar::terminal_allows();

@@ -441,6 +441,13 @@ class WorkResult(Result):
         return self.tables["lines"]
 
     @property
+    def spread(self):
+        """The calibration's spread (summary.json's ``calibration_uncertainty``: method, reason,
+        and per result its value, sd, sd_linear, sd_sampled; None where not computed), or None
+        when :func:`work` was called without ``uncertainty``."""
+        return self.summary.get("calibration_uncertainty")
+
+    @property
     def histogram(self):
         """P(W) on bins (Table): bin_start, bin_end, probability."""
         return self.tables["histogram"]
@@ -578,8 +585,9 @@ def _provenance(call, scenario, **arguments):
     return (f"trapwork.{call}({', '.join(words)}) (Python, trapwork {_trapwork.version()})", changed)
 
 
-def _run(function, *args, progress=None, provenance=("", [])):
-    """Calls a compiled function with the progress callback and notices it takes."""
+def _run(function, *args, progress=None, provenance=("", []), **keywords):
+    """Calls a compiled function with the progress callback and notices it takes (and the
+    function's further keyword arguments)."""
     bar = None
     if progress is True:
         bar = _TextProgress()
@@ -594,7 +602,7 @@ def _run(function, *args, progress=None, provenance=("", [])):
         print(line, file=sys.stderr, flush=True)
 
     try:
-        return function(*args, callback, notice, provenance)
+        return function(*args, callback, notice, provenance, **keywords)
     finally:
         if bar is not None:
             bar.close()
@@ -633,7 +641,8 @@ def spectrum(scenario, levels=None, progress=None):
                                provenance=_provenance("spectrum", s, levels=levels)), s)
 
 
-def work(scenario, tolerance=None, search_budget=2000, progress=None):
+def work(scenario, tolerance=None, search_budget=2000, progress=None, uncertainty=None,
+         uncertainty_method="auto", uncertainty_samples=100, uncertainty_seed=1):
     """Work statistics of the scenario's [protocol] in the two-point energy-measurement scheme
     (``trapwork work``), with the harmonic prediction and the Jarzynski and Crooks checks.
 
@@ -644,6 +653,13 @@ def work(scenario, tolerance=None, search_budget=2000, progress=None):
         ``trapwork work --tolerance``.
     search_budget: cost bound of that search, in units of its first run's estimated arithmetic
         (default 2000, as ``--search-budget``); at the bound the search returns what it verified.
+    uncertainty: None, or the fit_summary.json of :func:`fit` / ``trapwork fit`` (or its folder):
+        the trap's calibration uncertainty carried forward, as ``trapwork work --uncertainty``;
+        ``result.spread`` then holds <W>, sd(W), Delta F and the strong lines' probabilities
+        with their standard deviations (None where not computed), and the table
+        ``lines_uncertainty`` the lines with theirs.
+    uncertainty_method: "auto", "linear", "sampling" or "both" (``--uncertainty-method``).
+    uncertainty_samples, uncertainty_seed: parameter sets drawn for sampling, and their seed.
     {progress}
 
     Returns a :class:`WorkResult`: ``lines`` (work in the scenario's energy unit and in
@@ -659,9 +675,14 @@ def work(scenario, tolerance=None, search_budget=2000, progress=None):
     s = _scenario(scenario)
     if tolerance is not None:
         tolerance = float(tolerance)
+    extra = {}
+    if uncertainty is not None:
+        extra = dict(uncertainty=os.fspath(uncertainty), uncertainty_method=str(uncertainty_method),
+                     uncertainty_samples=int(uncertainty_samples), uncertainty_seed=int(uncertainty_seed))
     return WorkResult(_run(_trapwork.work, s.text, s.name, tolerance, float(search_budget), progress=progress,
                            provenance=_provenance("work", s, tolerance=tolerance,
-                                                  search_budget=None if search_budget == 2000 else search_budget)), s)
+                                                  search_budget=None if search_budget == 2000 else search_budget,
+                                                  **extra), **extra), s)
 
 
 def sweep(scenario, jobs=None, progress=None):
