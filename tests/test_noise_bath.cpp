@@ -219,6 +219,12 @@ TEST_CASE("[bath] keys; invalid baths refused naming file, line and key", "[nois
           "noise.route");
 }
 
+TEST_CASE("model_work (plan, compare) refuses a [bath]-only scenario naming [bath], not [noise]", "[noise][bath]") {
+  const Scenario s = with_bath("[bath]\nmean_phonons = 0.05\nrate = \"2 /ms\"\n");
+  CHECK_THROWS_WITH(model_work(s, {}, "plan"), Catch::Contains("no [bath] for `trapwork plan`") &&
+                                                  !Catch::Contains("[noise]"));
+}
+
 TEST_CASE("the work task with a bath reports an energy change, not work, and a Jarzynski failure it expects",
           "[noise][bath][scenario]") {
   const Scenario s = with_bath("[noise]\nstandard_error = \"1 h*kHz\"\n[[noise.source]]\nparameter = \"trap.centre\"\n"

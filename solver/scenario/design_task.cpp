@@ -361,9 +361,11 @@ std::vector<std::string> design_output_names(const Scenario& scenario) {
 DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& settings, const TaskHooks& hooks,
                               const std::function<void()>& checked) {
   if (!scenario.protocol) throw InputError("protocol", "", "a [protocol] whose ramp to design", "", scenario.file);
-  if (scenario.noise)
-    throw InputError("noise", "[noise]", "no [noise]: the design runs without technical noise",
-                     "remove [noise] (or design first, then add it to designed.toml)", scenario.file);
+  if (scenario.noise) {
+    const std::string t = scenario.noise->table();
+    throw InputError(t, "[" + t + "]", "no [" + t + "]: the design runs the closed system (no noise or damping)",
+                     "remove [" + t + "] (or design first, then add it to designed.toml)", scenario.file);
+  }
   if (scenario.natural_units)
     throw InputError("units.natural", "true", "lab units: the designed table is written in the scenario's lab units",
                      "", scenario.file);

@@ -156,6 +156,8 @@ struct NoiseSettings {
   NoiseRequest request;
   std::vector<std::string> given;  // one per source: "trap.centre: heating_rate = 500 quanta/s at 1 MHz"
   std::string bath_given;          // [bath] as written ("" without): "temperature = 0.5 mK, rate = 200 /s"
+  // The table a refusal names: "bath" for a [bath] without noise sources, else "noise".
+  std::string table() const { return request.sources.empty() && !bath_given.empty() ? "bath" : "noise"; }
 };
 struct Scenario {
   std::string file;  // the scenario file as given ("default" for the built-in one)

@@ -100,10 +100,11 @@ void drop_hooks(WorkRequest& request) {
 // [noise] is applied by `work` alone so far: another command would give the noiseless answer
 // under a scenario that asks for noise.
 void refuse_noise(const Scenario& scenario, const std::string& command) {
-  if (scenario.noise)
-    throw InputError("noise", "a [noise] table",
-                     "no [noise] for `trapwork " + command + "`: only `trapwork work` adds the noise so far",
-                     "run `trapwork work` per point, or remove [noise] for the noiseless " + command, scenario.file);
+  if (!scenario.noise) return;
+  const std::string t = scenario.noise->table();
+  throw InputError(t, "a [" + t + "] table",
+                   "no [" + t + "] for `trapwork " + command + "`: only `trapwork work` adds noise and damping so far",
+                   "run `trapwork work` per point, or remove [" + t + "] for the closed-system " + command, scenario.file);
 }
 
 }  // namespace

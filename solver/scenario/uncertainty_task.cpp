@@ -234,7 +234,8 @@ WorkUncertainty work_uncertainty(const Scenario& s, const ScenarioWork& nominal,
   if (!(settings.step_in_sd > 0) || !(settings.step_in_sd <= 5))
     throw InputError("--uncertainty-step", short_number(settings.step_in_sd), "a step in (0, 5] standard deviations");
   if (nominal.walls) throw InputError("--uncertainty", settings.calibration, "a trap without moving walls (not supported yet)");
-  if (s.noise) throw InputError("--uncertainty", settings.calibration, "a scenario without [noise] (not supported yet)");
+  if (s.noise)
+    throw InputError("--uncertainty", settings.calibration, "a scenario without [" + s.noise->table() + "] (not supported yet)");
   WorkUncertainty u;
   u.settings = settings;
   u.calibration = read_calibration(settings.calibration, s);
