@@ -393,11 +393,14 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
     c.chosen_cost = all + (r.steps > 0 ? 2 * forward : 0);
   }
   // The eigenbasis ODE, where it applies, within what is left of 1.5 times chosen_cost: a third
-  // for its first run, and at most half the split-operator run's arithmetic (steps x substeps x
-  // columns x (two FFTs, 5 n log2 n each, and 30 n for the phases)): it is chosen only below
-  // that, as its dense products run at fewer operations per second than the transforms (33 s
-  // against 3.4 s for an estimated ratio of 2.3 on the benchmark job, measured here); the rest
-  // for its check. Limits are per direction (forward, reverse), in operations.
+  // for its first run, the rest for its check. Its estimated operations take about
+  // ode_operation_cost times as long as the split-operator run's (steps x substeps x columns x
+  // (two FFTs, 5 n log2 n each, and 30 n for the phases)): measured here 2.2 (built-in scenario
+  // at T = 1e-8: 0.35 s against 0.94 s at 0.17 of the arithmetic), 3 (at 1e-5) and 4.2 (the
+  // benchmark job: 33 s against 3.4 s at 2.3); so it is charged at that factor, and its first run
+  // stops at half the split-operator run's time so estimated: it is chosen only where it is
+  // clearly faster. Limits are per direction (forward, reverse), in operations.
+  constexpr double ode_operation_cost = 2.5;
   const WorkResult& split = coarse.result();
   const double left = (1.5 * c.chosen_cost - c.cost_spent) * unit;  // operations
   const double directions = split.reverse ? 2 : 1;
@@ -409,8 +412,8 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
     e.integrator = Integrator::eigenbasis;
     e.steps = 0;
     e.ode = {tolerance / 50, tolerance / 50};
-    e.ode_arithmetic_limit = std::min(split_arithmetic / 2, left / 3 / directions);
-    if (e.ode_arithmetic_limit < split_arithmetic / 20) {
+    e.ode_arithmetic_limit = std::min(split_arithmetic / 2, left / 3 / directions) / ode_operation_cost;
+    if (e.ode_arithmetic_limit * ode_operation_cost < split_arithmetic / 20) {
       c.trail.push_back("eigenbasis ODE not tried: " + short_number(std::max(0.0, left / unit), 2) +
                         " units of arithmetic left within 1.5 times the chosen run with its checks");
     } else
@@ -425,7 +428,8 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       e.steps = 2 * basis.result().steps;
       e.eigenbasis_levels = 3 * basis.result().diagnostics.ode_basis_levels / 2;
       e.ode_arithmetic_limit = std::min(6 * basis.result().diagnostics.ode_arithmetic,
-                                        (left - run_arithmetic(basis.result())) / directions);
+                                        (left - ode_operation_cost * run_arithmetic(basis.result())) /
+                                            (ode_operation_cost * directions));
       const ScenarioWork finer = run(c.scenario, e);
       c.ode_part = line_distance(basis.result().forward, finer.result().forward).distance;
       const double agreement = line_distance(basis.result().forward, coarse.result().forward).distance;
@@ -434,7 +438,7 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       if (finer.result().diagnostics.ode_basis_levels == basis.result().diagnostics.ode_basis_levels)
         c.trail.back() += " (basis not enlarged: at most half the grid points)";
       c.eigenbasis_seconds = seconds;
-      // faster: it finished within half the split-operator run's estimated arithmetic
+      // faster: it finished within half the split-operator run's time (estimated, above)
       if (c.ode_part + c.grid_part <= tolerance && agreement <= tolerance) {
         c.method = basis.result().method;
         coarse = std::move(basis);
@@ -445,7 +449,7 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       c.trail.push_back("eigenbasis ODE (tolerance " + short_number(e.ode.absolute, 2) +
                         "): stopped when its estimated arithmetic passed " +
                         (check ? "its share of 1.5 times the chosen run (at most 6 times the first ODE run's)"
-                               : "its share of 1.5 times the chosen run (at most half the split-operator run's)"));
+                               : "its share of 1.5 times the chosen run (at most half the split-operator run's time)"));
     }
   }
   c.work = std::move(coarse);
