@@ -320,13 +320,14 @@ TEST_CASE("each example runs through work or sweep", "[cli][work][examples][heav
     const std::string name = entry.path().stem().string();
     INFO(name);
     const fs::path dir = scratch_dir("work-" + name);
-    const bool sweep = text.find("[sweep]") != std::string::npos;
+    const bool sweep = text.find("[sweep") != std::string::npos;  // [sweep] or [[sweep.axis]]
     const Run r = run(std::string(sweep ? "sweep '" : "work '") + entry.path().string() + "' -o out --quiet", dir);
     CHECK(r.exit_code == 0);
     CHECK(r.err.empty());
     if (sweep)
-      CHECK(check_csv(dir / "out" / "sweep.csv",
-                      text.find("\"1 ms\"") != std::string::npos ? "protocol_duration_ms" : "protocol_duration_us") > 1);
+      CHECK(check_csv(dir / "out" / "sweep.csv", text.find("[[sweep.axis]]") != std::string::npos ? "point"
+                                                 : text.find("\"1 ms\"") != std::string::npos ? "protocol_duration_ms"
+                                                                                               : "protocol_duration_us") > 1);
     else
       check_work_outputs(dir / "out", text.find("temperature") != std::string::npos);
     ++count;

@@ -942,7 +942,7 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
     const std::size_t c = slot[k];
     const PLINT colour = c == 0 ? blue : c == 1 ? orange : red;
     by_column.push_back({(s.label.empty() ? std::string("lines") : s.label) + ": P#di#u" +
-                             (s.error.empty() ? "" : " ± s.e."),
+                             (s.error.empty() ? "" : " ± " + s.error_name),
                          PL_LEGEND_LINE | PL_LEGEND_SYMBOL, colour, solid, 2.2,
                          c == 0 ? "●" : c == 1 ? "○" : "◆", -1});
     // with a noisy series the curves' styles are named in the caption instead (work_caption),

@@ -68,6 +68,7 @@ struct WorkSeries {
   std::vector<double> density_work;   // grid of the broadened density, ascending; may be empty
   std::vector<double> density;        // density per work unit, one per density_work
   std::vector<double> error;          // standard error of each P_i, drawn as +-1 bars; empty: none
+  std::string error_name = "s.e.";    // what the bars are, for the legend ("sd (calibration)")
 };
 
 enum class ProbabilityAxis {

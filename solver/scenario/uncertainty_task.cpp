@@ -484,6 +484,7 @@ json uncertainty_summary(const Scenario& s, const WorkUncertainty& u) {
 
 void add_uncertainty_bars(WorkFigure& f, const Scenario& s, const WorkDistribution& dist, const WorkUncertainty& u) {
   f.result.error.assign(dist.lines.size(), nan);  // NaN: not computed, no bar
+  f.result.error_name = "sd (calibration)";
   for (std::size_t l = 0; l < dist.lines.size(); ++l)
     for (std::size_t k = 0; k < u.lines.size(); ++k)
       if (dist.lines[l].initial == u.lines[k].initial && dist.lines[l].final == u.lines[k].final)
