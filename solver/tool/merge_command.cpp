@@ -101,6 +101,7 @@ void run_merge_command(const MergeCommand& command, std::ostream& out) {
       done.push_back(std::move(d));
     }
   }
+  std::sort(overlap.begin(), overlap.end());  // shards are read in the order given
   if (!overlap.empty())
     throw InputError("", "", "each point in one shard only: point(s) " + point_list(overlap) + " are in two (the "
                      "same folder given twice, or shards of the same number)");
