@@ -346,6 +346,8 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
     const double order = coarse.result().method.find("order 4") != std::string::npos ? 4 : 2;
     c.time_step_part = nan_value;  // not verified until two step counts were compared
     double predicted_distance = nan_value;  // of the next pair, from the last one
+    double last_distance = nan_value;
+    bool verified = false;
     for (int k = 0; k < 8; ++k) {
       const int base = coarse.result().steps;
       if (k == 0) {
@@ -365,21 +367,30 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       c.trail.back() += ": distance to " + std::to_string(base) + " steps " + short_number(d, 3);
       coarse = std::move(fine);
       coarse_seconds = last_seconds;
+      last_distance = d;
       if (d <= tolerance / 2) {
         c.time_step_part = d;
         c.time_step_rule = "the distance to the coarser run";
+        verified = true;
         break;
       }
       c.time_step_part = richardson;
       c.time_step_rule = "Richardson's rule, order " + std::to_string(int(order));
-      if (asymptotic && richardson <= tolerance / 2) break;
+      if (asymptotic && richardson <= tolerance / 2) {
+        verified = true;
+        break;
+      }
       // what the next pair should show if the error falls as N^-p: the current run's error less
       // the next run's (predicted below from the same estimate)
       const double next_grow = std::clamp(std::pow(richardson / (tolerance / 4), 1 / order), 1.5, 16.0);
       predicted_distance = richardson * (1 - std::pow(next_grow, -order));
-      if (k == 7 || !std::isfinite(richardson)) c.time_step_part = std::max(d, richardson);
     }
-    if (!(c.time_step_part <= tolerance / 2)) c.time_step_rule += " (not verified within T/2)";
+    // stopped unverified (8 pairs, or the cost bound): the last pair's distance, which bounds
+    // the coarser run's error, stands in for an estimate the pairs did not confirm
+    if (!verified && std::isfinite(last_distance)) {
+      c.time_step_part = std::max(last_distance, c.time_step_part);
+      c.time_step_rule = "the distance to the coarser run (not verified within T/2)";
+    }
     request.steps = coarse.result().steps;
   }
   c.split_seconds = coarse_seconds;
