@@ -222,7 +222,9 @@ std::pair<std::string, std::string> bound_text(const std::string& text, const De
 std::vector<DesignBound> lab_bounds(const Scenario& s, const DesignSettings& settings, const DesignFamily& family) {
   std::vector<DesignBound> bounds;
   auto convert = [&](const std::string& text, const std::string& key, bool speed) {
-    const auto [address, given] = bound_text(text, family, key, s.file);
+    // named copies, not a structured binding: lambdas cannot capture those before C++20 (clang refuses)
+    const auto bound = bound_text(text, family, key, s.file);
+    const std::string address = bound.first, given = bound.second;
     const auto change = std::find_if(s.protocol->changes.begin(), s.protocol->changes.end(),
                                      [&](const ChangeSpec& c) { return c.parameter == address; });
     const auto& ps = family.parameters();
@@ -306,7 +308,7 @@ void final_runs(DesignTaskOutcome& o, bool translation, const TaskHooks& hooks) 
 // P(m -> n) of both runs with the harmonic prediction of each (same end potentials, so the same
 // work value per (m, n)).
 CsvTable work_lines_table(const DesignTaskOutcome& o) {
-  const WorkRun before = o.before_run->run(), after = o.after_run->run();
+  const WorkRun before = o.before_run->run();
   const Display d = display(o.scenario);
   const std::string e = column_unit(d.e);
   CsvTable t;
@@ -389,7 +391,7 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
   std::vector<RobustMember> robust = robust_members(scenario, settings);
   // Every work run counts against the bound: one per member of a robust design.
   used.options.runs_per_evaluation = std::max<int>(1, int(robust.size()));
-  DesignTaskOutcome o{scenario, used, family.description(), {}, {}, {}, {}, 1};
+  DesignTaskOutcome o{scenario, used, family.description()};
   o.robust = std::move(robust);
   const auto evaluator_for = [&](const Potential& potential) -> DesignEvaluator {
     if (!walls) return work_evaluator(potential, request, settings.options.objective);
@@ -593,7 +595,7 @@ nlohmann::ordered_json final_run_summary(const DesignTaskOutcome& o) {
                       {"value", std::isnan(c.value) ? json(nullptr) : json(c.value)},
                       {"tolerance", c.tolerance},
                       {"pass", std::isnan(c.value) ? json(nullptr) : json(c.pass())}});  // null: not computed
-  const WorkRun before = o.before_run->run(), after = o.after_run->run();
+  const WorkRun before = o.before_run->run();
   return {{"objective_smooth", design_objective(before.result, o.settings.options.objective) / o.objective_per_unit},
           {"objective_designed", o.final_objective / o.objective_per_unit},
           {"summary", "designed_work_summary.json"},

@@ -68,9 +68,8 @@ PlanTaskOutcome plan_task(const Scenario& scenario, const PlanSettings& settings
     d.experiments = settings.experiments;
     d.seed = settings.seed;
     std::optional<DecisionPlanOutcome> decision = decision_plan(work.run(scenario), d, hooks);
-    PlanTaskOutcome o{scenario, settings, std::move(resolutions), std::move(work), {}, {}, {}, {}, {}, false};
-    o.decision = std::move(decision);
-    return o;
+    return {scenario, settings, std::move(resolutions), std::move(work), {}, {}, {}, {}, {}, false,
+            std::move(decision)};
   }
   if (settings.runs.empty()) throw InputError("--runs", "", "at least one number of runs");
   for (int n : settings.runs)
@@ -128,7 +127,7 @@ PlanTaskOutcome plan_task(const Scenario& scenario, const PlanSettings& settings
     synthetic = sample_work(dist.lines, settings.synthetic_runs, resolutions.front(), engine);
   }
   return {scenario,        settings,         std::move(resolutions), std::move(work), std::move(table),
-          std::move(needed), std::move(refusals), std::move(synthetic), cost,        long_plan};
+          std::move(needed), std::move(refusals), std::move(synthetic), cost,        long_plan, std::nullopt};
 }
 
 std::vector<NamedTable> task_tables(const PlanTaskOutcome& o) {
