@@ -32,6 +32,24 @@ mean_phonons = 0.5
 time_step_check = false
 )";
 
+// A purely harmonic 40 u ion at 1 MHz moved by 30 nm at constant speed in 1.5 us, nearly in its
+// ground state: few levels, a run of a few seconds (the command-line, sweep and resume tests).
+inline const std::string harmonic_move_text = R"(title = "harmonic move"
+[particle]
+mass = "40 u"
+[[potential]]
+name = "trap"
+shape = "harmonic"
+frequency = "1 MHz"
+[protocol]
+duration = "1.5 us"
+[[protocol.change]]
+parameter = "trap.centre"
+to = "30 nm"
+[initial]
+mean_phonons = 0.3
+)";
+
 // An empty folder TRAPWORK_BINARY_DIR/<area>/<name>, removed and re-created each call.
 inline std::filesystem::path scratch_dir(const std::string& area, const std::string& name) {
   const auto dir = std::filesystem::path(TRAPWORK_BINARY_DIR) / area / name;

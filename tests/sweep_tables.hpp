@@ -17,21 +17,7 @@ namespace trapwork_test {
 // A harmonic 40 u ion at 1 MHz moved by 30 nm over a 2 x 2 grid of duration and mean phonon
 // number: about half a second per point. No duration is a whole number of trap periods (where
 // <W> = 0 and the skewness is rounding noise).
-inline const std::string grid_sweep_text = R"(title = "grid sweep"
-[particle]
-mass = "40 u"
-[[potential]]
-name = "trap"
-shape = "harmonic"
-frequency = "1 MHz"
-[protocol]
-duration = "1.5 us"
-[[protocol.change]]
-parameter = "trap.centre"
-to = "30 nm"
-[initial]
-mean_phonons = 0.3
-[work]
+inline const std::string grid_sweep_text = harmonic_move_text + R"([work]
 time_step_check = false
 [[sweep.axis]]
 parameter = "protocol.duration"

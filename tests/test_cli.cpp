@@ -166,23 +166,7 @@ TEST_CASE("--help on the tool and on each command", "[cli]") {
 // ---- trapwork work, sweep, demo ------------------------------------------------------------
 
 namespace {
-// A purely harmonic 40 u ion at 1 MHz moved by 30 nm at constant speed in 1.5 us, nearly in
-// its ground state: few levels, a run of a few seconds.
-const std::string harmonic_move = R"(title = "harmonic move"
-[particle]
-mass = "40 u"
-[[potential]]
-name = "trap"
-shape = "harmonic"
-frequency = "1 MHz"
-[protocol]
-duration = "1.5 us"
-[[protocol.change]]
-parameter = "trap.centre"
-to = "30 nm"
-[initial]
-mean_phonons = 0.3
-)";
+const std::string& harmonic_move = trapwork_test::harmonic_move_text;
 
 void write_text(const fs::path& file, const std::string& text) {
   std::ofstream out(file);

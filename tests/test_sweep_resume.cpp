@@ -34,21 +34,7 @@ const fs::path binary = fs::path(TRAPWORK_BINARY_DIR) / "trapwork";
 // A harmonic 40 u ion at 1 MHz moved by 30 nm, nearly cold, over six durations: about a
 // second per point, one point at a time, so the kill lands between points. No duration is a
 // whole number of trap periods, where <W> = 0 and the skewness is rounding noise.
-const std::string sweep_scenario = R"(title = "resume test"
-[particle]
-mass = "40 u"
-[[potential]]
-name = "trap"
-shape = "harmonic"
-frequency = "1 MHz"
-[protocol]
-duration = "1.5 us"
-[[protocol.change]]
-parameter = "trap.centre"
-to = "30 nm"
-[initial]
-mean_phonons = 0.3
-[work]
+const std::string sweep_scenario = trapwork_test::harmonic_move_text + R"([work]
 time_step_check = false
 [sweep]
 parameter = "protocol.duration"
