@@ -147,7 +147,7 @@ time_step_check = false
 "trap.frequency" = "1 kHz"
 [sweep]
 parameter = "protocol.duration"
-values = ["1 us", "1.3 us"]
+values = ["1.2 us", "1.3 us"]
 )";
 }  // namespace
 
@@ -170,6 +170,8 @@ TEST_CASE("issue 19: trapwork sweep with [uncertainty]: the calibration's sd per
   }
   CHECK(csv_column(csv, "sd_work_calibration_sd_h_kHz")[0] > 0);
   CHECK_THAT(trapwork_test::read_all(csv), Contains("calibration_method: 1 linear propagation"));
+  CHECK_THAT(sweep.out, Contains("calibration sd of <W>"));
+  CHECK_THAT(sweep.out, Contains("(linear)"));
   CHECK(fs::file_size(dir / "sweep" / "sweep.png") > 0);
   // The point at 1.3 us is `trapwork work` on the scenario at that duration: the same sd, up to
   // the FFTW plans of two processes (rounding, lifted by the difference quotient to ~1e-10).

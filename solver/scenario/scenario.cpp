@@ -1541,7 +1541,8 @@ void Reader::read_uncertainty(const toml::table& root, Scenario& s) const {
         fail(pair, key, "each pair once (" + u.addresses[ij[0]] + " and " + u.addresses[ij[1]] + " are given before)");
       u.correlation[ij[0]][ij[1]] = u.correlation[ij[1]][ij[0]] = r;
     }
-    Eigen::MatrixXd m(Eigen::Index(n), Eigen::Index(n));
+    const auto size = Eigen::Index(n);
+    Eigen::MatrixXd m(size, size);
     for (std::size_t i = 0; i < n; ++i)
       for (std::size_t j = 0; j < n; ++j) m(Eigen::Index(i), Eigen::Index(j)) = u.correlation[i][j];
     const double lowest = Eigen::SelfAdjointEigenSolver<Eigen::MatrixXd>(m).eigenvalues().minCoeff();

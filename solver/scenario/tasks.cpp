@@ -498,8 +498,11 @@ void print_sweep_report(std::ostream& out, const SweepOutcome& run, std::vector<
                       .c_str());
     out << line;
   }
-  std::snprintf(line, sizeof line, " %14s %14s %16s %14s %10s %8s\n", ("<W> " + e).c_str(), ("sd " + e).c_str(),
-                ("harm. <W> " + e).c_str(), "<W> - harm.", "Jarzynski", "warnings");
+  // With a calibration: its sd of <W> and the method (lin: linear, samp: sampling) per point.
+  const bool calibrated = std::any_of(rows.begin(), rows.end(), [](const SweepRow& r) { return r.calibration_method != 0; });
+  std::snprintf(line, sizeof line, " %14s %14s %16s %14s %10s %8s%s\n", ("<W> " + e).c_str(), ("sd " + e).c_str(),
+                ("harm. <W> " + e).c_str(), "<W> - harm.", "Jarzynski", "warnings",
+                calibrated ? ("   calibration sd of <W> " + e).c_str() : "");
   out << line;
   int warned = 0;
   for (const auto& r : rows) {
@@ -507,10 +510,18 @@ void print_sweep_report(std::ostream& out, const SweepOutcome& run, std::vector<
       out << " " << swept(r) << ": failed: " << r.failure << '\n';
       continue;
     }
-    std::snprintf(line, sizeof line, " %14s %14s %16s %14s %10s %8d\n", short_number(d.energy(r.mean), 7).c_str(),
+    const std::string spread =
+        !calibrated ? std::string()
+                    : "   " + (std::isfinite(r.calibration_mean_sd) ? short_number(d.energy(r.calibration_mean_sd), 3)
+                                                                      : std::string("not computed")) +
+                          (r.calibration_method == 1 ? " (linear)" : r.calibration_method == 2 ? " (sampling)" : "") +
+                          (std::isfinite(r.calibration_check)
+                               ? ", linear-sampled " + short_number(r.calibration_check, 2) + " se"
+                               : std::string());
+    std::snprintf(line, sizeof line, " %14s %14s %16s %14s %10s %8d%s\n", short_number(d.energy(r.mean), 7).c_str(),
                   short_number(d.energy(r.sd), 5).c_str(), short_number(d.energy(r.harmonic_mean), 7).c_str(),
                   short_number(d.energy(r.mean - r.harmonic_mean), 4).c_str(),
-                  short_number(r.jarzynski_residual, 2).c_str(), r.warnings);
+                  short_number(r.jarzynski_residual, 2).c_str(), r.warnings, spread.c_str());
     out << " " << swept(r) << line;
     warned += r.warnings > 0;
   }

@@ -532,6 +532,7 @@ json uncertainty_summary(const Scenario& s, const WorkUncertainty& u) {
 void add_uncertainty_bars(WorkFigure& f, const Scenario& s, const WorkDistribution& dist, const WorkUncertainty& u) {
   f.result.error.assign(dist.lines.size(), nan);  // NaN: not computed, no bar
   f.result.error_name = "sd (calibration)";
+  f.result.error_as_band = true;  // light boxes where visible, counted in the caption (plot.hpp)
   for (std::size_t l = 0; l < dist.lines.size(); ++l)
     for (std::size_t k = 0; k < u.lines.size(); ++k)
       if (dist.lines[l].initial == u.lines[k].initial && dist.lines[l].final == u.lines[k].final)
@@ -542,8 +543,9 @@ void add_uncertainty_bars(WorkFigure& f, const Scenario& s, const WorkDistributi
     return std::isfinite(r.sd) ? short_number(r.value / d.energy_per, 6) + " +- " + short_number(r.sd / d.energy_per, 2) + " " + d.e
                                : std::string("not computed");
   };
-  f.notes.push_back("bars: +-1 sd of P due to the trap's calibration (" + u.method + ", lines with P >= " +
-                    short_number(strong_line_probability) + "); <W> = " + pm(0) + ", sd(W) = " + pm(1));
+  f.notes.push_back("+-1 sd of P due to the trap's calibration (" + u.method + ", lines with P >= " +
+                    short_number(strong_line_probability) + ", each in lines_uncertainty.csv); <W> = " + pm(0) +
+                    ", sd(W) = " + pm(1));
 }
 
 void print_uncertainty_report(std::ostream& out, const Scenario& s, const WorkUncertainty& u) {

@@ -1726,8 +1726,9 @@ SweepFigure sweep_figure(const Scenario& s, const std::vector<SweepRow>& input) 
   if (calibrated) {
     const bool any_linear = std::any_of(rows.begin(), rows.end(), [](const SweepRow& r) { return r.calibration_method == 1; });
     const bool any_sampled = std::any_of(rows.begin(), rows.end(), [](const SweepRow& r) { return r.calibration_method == 2; });
-    mean.label = std::string("numerical; band: +-1 sd due to the calibration (") +
+    mean.label = std::string("numerical; band around <W>: +-1 sd due to the calibration (") +
                  (any_linear && any_sampled ? "linear or sampling, see sweep.csv" : any_linear ? "linear" : "sampling") + ")";
+    sd.label = residual.label = mean.label;  // one series, one legend entry (the other panels draw no band)
     f.spread_as_band = true;
   }
   f.points.push_back(mean);
