@@ -741,8 +741,9 @@ bool error_extent(double p, double e, bool log, double floor, double& a, double&
 }
 
 // Share of a panel's height (y_lo..y_hi, panel units) below which an error_as_band series draws
-// no box: narrower boxes show as a line or a dot on the marker and only crowd the panel.
-constexpr double band_visible_share = 0.01;
+// no box: a marker is about 12 px across, 6 % of a 200 px panel, and a shorter box hides behind
+// it (or shows as a dash that only crowds the panel).
+constexpr double band_visible_share = 0.06;
 
 // Lines of an error_as_band series whose box is drawn on a panel spanning y_lo..y_hi.
 std::size_t drawn_error_boxes(const WorkSeries& s, bool log, double y_lo, double y_hi) {
@@ -754,6 +755,8 @@ std::size_t drawn_error_boxes(const WorkSeries& s, bool log, double y_lo, double
   return n;
 }
 
+// +-error of each line: red bars with caps, or for error_as_band the light boxes (drawn before
+// the stems, so that the markers stand on them).
 void draw_error_bars(const WorkSeries& s, bool log, double floor, double offset, double y_hi, double box_width) {
   if (s.error.empty()) return;
   Vec x, lo, hi;
@@ -943,14 +946,14 @@ std::vector<std::string> work_caption(const WorkFigure& f, const WorkPanelRanges
     std::string shown;
     if (f.probability_axis != ProbabilityAxis::log)
       shown += std::to_string(drawn_error_boxes(f.result, false, 0, r.probability_top)) + " of " + std::to_string(with) +
-               " in the linear panel";
+               " lines in the linear panel";
     if (f.probability_axis != ProbabilityAxis::linear)
       shown += (shown.empty() ? "" : ", ") + std::to_string(drawn_error_boxes(f.result, true, r.log_floor, r.log_top)) +
                " in the log panel";
     char ratio[32];
     std::snprintf(ratio, sizeof ratio, "%.2g", largest);
-    lines.push_back("red boxes: " + f.result.error_name + " where at least 1 % of the panel's height (" + shown +
-                    "; largest sd/P " + ratio + ")");
+    lines.push_back("red boxes: ±" + f.result.error_name + " where taller than 6 % of the panel: " + shown +
+                    "; largest sd/P " + ratio);
   }
   if (r.lines_below_floor > 0 && f.probability_axis != ProbabilityAxis::linear) {
     char floor[32];
@@ -1086,11 +1089,14 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
       const double offset = f.reference ? 0.004 * (panel.x_hi - panel.x_lo) : 0;
       auto scale = [&](std::size_t k) { return panel.log_y ? ranges.marker_scale[k] : 0.8; };
       auto width = [&](std::size_t k) { return panel.log_y ? ranges.stem_width[k] : 2.2; };
+      const double box_width = 0.014 * (panel.x_hi - panel.x_lo);  // about 12 px, a marker's width
+      if (f.result.error_as_band)  // boxes first: the markers stand on them
+        draw_error_bars(f.result, panel.log_y, panel.y_lo, -shift, panel.y_hi, box_width);
       if (f.reference)
         draw_stems(*f.reference, panel.log_y, panel.y_lo, offset - shift, orange, "○", scale(1), width(1));
       draw_stems(f.result, panel.log_y, panel.y_lo, -shift, blue, "●", scale(0), width(0));
-      const double box_width = 0.008 * (panel.x_hi - panel.x_lo);  // about 7 px
-      draw_error_bars(f.result, panel.log_y, panel.y_lo, -shift, panel.y_hi, box_width);  // e.g. the calibration's spread
+      if (!f.result.error_as_band)  // bars with caps over the stems (e.g. standard errors)
+        draw_error_bars(f.result, panel.log_y, panel.y_lo, -shift, panel.y_hi, box_width);
       if (f.noisy) {
         const double left_of = -0.004 * (panel.x_hi - panel.x_lo) - shift;
         draw_stems(*f.noisy, panel.log_y, panel.y_lo, left_of, red, "◆", scale(2), width(2));

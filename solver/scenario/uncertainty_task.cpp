@@ -543,9 +543,8 @@ void add_uncertainty_bars(WorkFigure& f, const Scenario& s, const WorkDistributi
     return std::isfinite(r.sd) ? short_number(r.value / d.energy_per, 6) + " +- " + short_number(r.sd / d.energy_per, 2) + " " + d.e
                                : std::string("not computed");
   };
-  f.notes.push_back("+-1 sd of P due to the trap's calibration (" + u.method + ", lines with P >= " +
-                    short_number(strong_line_probability) + ", each in lines_uncertainty.csv); <W> = " + pm(0) +
-                    ", sd(W) = " + pm(1));
+  f.notes.push_back("sd due to the trap's calibration (" + u.method + ", P >= " + short_number(strong_line_probability) +
+                    ", each in lines_uncertainty.csv): <W> = " + pm(0) + ", sd(W) = " + pm(1));
 }
 
 void print_uncertainty_report(std::ostream& out, const Scenario& s, const WorkUncertainty& u) {
