@@ -741,8 +741,8 @@ bool error_extent(double p, double e, bool log, double floor, double& a, double&
 }
 
 // Share of a panel's height (y_lo..y_hi, panel units) below which an error_as_band series draws
-// no box: a marker is about 12 px across, 6 % of a 200 px panel, and a shorter box hides behind
-// it (or shows as a dash that only crowds the panel).
+// no box: 6 % is 9 to 15 px on the work figure's panels, which a box twice as wide as the marker
+// shows beside it; a shorter one would be a dash that only crowds the panel.
 constexpr double band_visible_share = 0.06;
 
 // Lines of an error_as_band series whose box is drawn on a panel spanning y_lo..y_hi.
@@ -1089,7 +1089,8 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
       const double offset = f.reference ? 0.004 * (panel.x_hi - panel.x_lo) : 0;
       auto scale = [&](std::size_t k) { return panel.log_y ? ranges.marker_scale[k] : 0.8; };
       auto width = [&](std::size_t k) { return panel.log_y ? ranges.stem_width[k] : 2.2; };
-      const double box_width = 0.014 * (panel.x_hi - panel.x_lo);  // about 12 px, a marker's width
+      // about 26 px, twice a marker's width: a box shorter than the marker shows beside it
+      const double box_width = 0.03 * (panel.x_hi - panel.x_lo);
       if (f.result.error_as_band)  // boxes first: the markers stand on them
         draw_error_bars(f.result, panel.log_y, panel.y_lo, -shift, panel.y_hi, box_width);
       if (f.reference)

@@ -498,7 +498,7 @@ void print_sweep_report(std::ostream& out, const SweepOutcome& run, std::vector<
                       .c_str());
     out << line;
   }
-  // With a calibration: its sd of <W> and the method (lin: linear, samp: sampling) per point.
+  // With a calibration: its sd of <W> per point, the method, and the check where both ran.
   const bool calibrated = std::any_of(rows.begin(), rows.end(), [](const SweepRow& r) { return r.calibration_method != 0; });
   std::snprintf(line, sizeof line, " %14s %14s %16s %14s %10s %8s%s\n", ("<W> " + e).c_str(), ("sd " + e).c_str(),
                 ("harm. <W> " + e).c_str(), "<W> - harm.", "Jarzynski", "warnings",

@@ -1608,7 +1608,9 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
         "linear propagation (2 runs per parameter), 2 sampling (--uncertainty-samples runs); " +
         std::to_string(linear) + " point(s) linear, " + std::to_string(sampled) + " sampling; "
         "calibration_linear_minus_sampled_se: the largest difference of the linear sd from the sampled one in "
-        "standard errors of the sampled sd, where both ran (" + std::to_string(checked) + " point(s)), else nan");
+        "standard errors of the sampled sd, where both ran (" + std::to_string(checked) + " point(s)), else nan; an "
+        "sd near 1e-10 of the lowest level spacing is the runs' rounding noise, not a spread (e.g. Delta F of a "
+        "translation, 0 at any trap frequency)");
   }
   t.comments.insert(t.comments.end(), failures.begin(), failures.end());
   return t;

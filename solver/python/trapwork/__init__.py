@@ -657,7 +657,8 @@ def work(scenario, tolerance=None, search_budget=2000, progress=None, uncertaint
         the trap's calibration uncertainty carried forward, as ``trapwork work --uncertainty``;
         ``result.spread`` then holds <W>, sd(W), Delta F and the strong lines' probabilities
         with their standard deviations (None where not computed), and the table
-        ``lines_uncertainty`` the lines with theirs.
+        ``lines_uncertainty`` the lines with theirs. None with a scenario that has an
+        [uncertainty] table: that table is carried forward the same way; "none": no spread.
     uncertainty_method: "auto", "linear", "sampling" or "both" (``--uncertainty-method``).
     uncertainty_samples, uncertainty_seed: parameter sets drawn for sampling, and their seed.
     {progress}
