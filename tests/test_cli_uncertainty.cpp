@@ -169,6 +169,16 @@ TEST_CASE("issue 19: trapwork sweep with [uncertainty]: the calibration's sd per
     CHECK(std::isnan(check[i]));    // no sampling check in a sweep unless asked: nan, not 0
   }
   CHECK(csv_column(csv, "sd_work_calibration_sd_h_kHz")[0] > 0);
+  // Against the displaced oscillator's closed form (Husimi 1953, from memory; test_uncertainty.cpp):
+  // <W> = 2 m v^2 sin^2(omega tau / 2), so sd<W> = m v^2 tau |sin(omega tau)| sd(omega), with m v^2
+  // from each point's own <W>; omega = 2 pi rad/us, sd(omega) = 2 pi 1e-3 rad/us. Tolerance 2e-3 as
+  // there (the central difference over +-1 sd).
+  const auto tau = csv_column(csv, "protocol_duration_us"), mean = csv_column(csv, "mean_work_h_kHz");
+  const double omega = 2 * M_PI, sd_omega = 2 * M_PI * 1e-3;
+  for (std::size_t i = 0; i < 2; ++i) {
+    const double m_v2 = mean[i] / (2 * std::pow(std::sin(omega * tau[i] / 2), 2));
+    CHECK(sd_mean[i] == Approx(m_v2 * tau[i] * std::abs(std::sin(omega * tau[i])) * sd_omega).epsilon(2e-3));
+  }
   CHECK_THAT(trapwork_test::read_all(csv), Contains("calibration_method: 1 linear propagation"));
   CHECK_THAT(sweep.out, Contains("calibration sd of <W>"));
   CHECK_THAT(sweep.out, Contains("(linear)"));
