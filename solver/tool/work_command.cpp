@@ -323,8 +323,12 @@ void run_sweep_in_world(const SweepCommand& command, const SweepWorld& world, st
     throw InputError("--uncertainty", command.uncertainty.calibration,
                      "no --uncertainty FILE with --shard or mpirun: write the calibration into the scenario as an "
                      "[uncertainty] table, which every shard and rank reads");
-  if (!command.uncertainty.calibration.empty() && world.size() > 1)
-    throw InputError("--uncertainty", command.uncertainty.calibration, "no --uncertainty option with mpirun");
+  const UncertaintySettings defaults;  // the ranks compute with these: other method options would not reach them
+  if (world.size() > 1 && (!command.uncertainty.calibration.empty() || command.uncertainty.method != defaults.method ||
+                           command.uncertainty.samples != defaults.samples || command.uncertainty.seed != defaults.seed))
+    throw InputError("--uncertainty", command.uncertainty.calibration,
+                     "no --uncertainty options with mpirun (the ranks use the scenario's [uncertainty] with the "
+                     "default method, auto, 100 samples, seed 1)");
   if (has_calibration(scenario, command.uncertainty)) {  // its errors before any file is made
     check_uncertainty_settings(command.uncertainty);
     (void)calibration_of(scenario, command.uncertainty);
