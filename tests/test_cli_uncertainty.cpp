@@ -4,11 +4,14 @@
 #include <sys/wait.h>
 
 #include <catch2/catch.hpp>
+#include <algorithm>
 #include <cmath>
 #include <cstdlib>
 #include <filesystem>
 #include <fstream>
 #include <nlohmann/json.hpp>
+#include <sstream>
+#include <vector>
 
 #include "scratch_files.hpp"
 
@@ -99,4 +102,104 @@ TEST_CASE("trapwork work --uncertainty refuses a calibration that does not fit t
   const Run missing = run("work " + scenario + " --uncertainty nothing.json -o out", dir);
   CHECK(missing.exit_code == 2);
   CHECK_THAT(missing.err, Contains("nothing.json"));
+}
+
+namespace {
+// A CSV file's column `name` (header on line 1, '#' comment lines skipped).
+std::vector<double> csv_column(const fs::path& file, const std::string& name) {
+  std::istringstream in(trapwork_test::read_all(file));
+  std::string line;
+  std::getline(in, line);
+  std::vector<std::string> header;
+  std::stringstream h(line);
+  for (std::string cell; std::getline(h, cell, ',');) header.push_back(cell);
+  const auto at = std::find(header.begin(), header.end(), name);
+  REQUIRE(at != header.end());
+  std::vector<double> out;
+  while (std::getline(in, line)) {
+    if (line.empty() || line[0] == '#') continue;
+    std::stringstream cells(line);
+    std::string cell;
+    for (auto k = header.begin(); k <= at; ++k) std::getline(cells, cell, ',');
+    out.push_back(std::strtod(cell.c_str(), nullptr));
+  }
+  return out;
+}
+
+// The harmonic shuttle of test_uncertainty.cpp, its frequency known to 1 kHz, over two durations.
+const std::string calibrated_sweep_text = R"(title = "calibrated sweep"
+[particle]
+mass = "40 u"
+[[potential]]
+name = "trap"
+shape = "harmonic"
+frequency = "1 MHz"
+[protocol]
+duration = "1.3 us"
+[[protocol.change]]
+parameter = "trap.centre"
+to = "30 nm"
+[initial]
+mean_phonons = 0.5
+[work]
+time_step_check = false
+[uncertainty.sd]
+"trap.frequency" = "1 kHz"
+[sweep]
+parameter = "protocol.duration"
+values = ["1.2 us", "1.3 us"]
+)";
+}  // namespace
+
+TEST_CASE("issue 19: trapwork sweep with [uncertainty]: the calibration's sd per point and a band in sweep.png",
+          "[cli][uncertainty][sweep]") {
+  const fs::path dir = trapwork_test::scratch_dir("test-cli-uncertainty", "sweep");
+  std::ofstream(dir / "s.toml") << calibrated_sweep_text;
+  const Run sweep = run("sweep s.toml --jobs 1 -o sweep", dir);
+  INFO(sweep.err);
+  REQUIRE(sweep.exit_code == 0);
+  const fs::path csv = dir / "sweep" / "sweep.csv";
+  const auto sd_mean = csv_column(csv, "mean_work_calibration_sd_h_kHz");
+  const auto method = csv_column(csv, "calibration_method");
+  const auto check = csv_column(csv, "calibration_linear_minus_sampled_se");
+  REQUIRE(sd_mean.size() == 2);
+  for (std::size_t i = 0; i < 2; ++i) {
+    CHECK(sd_mean[i] > 0);
+    CHECK(method[i] == 1);          // linear (2 runs per point for one parameter)
+    CHECK(std::isnan(check[i]));    // no sampling check in a sweep unless asked: nan, not 0
+  }
+  CHECK(csv_column(csv, "sd_work_calibration_sd_h_kHz")[0] > 0);
+  // Against the displaced oscillator's closed form (Husimi 1953, from memory; test_uncertainty.cpp):
+  // <W> = 2 m v^2 sin^2(omega tau / 2), so sd<W> = m v^2 tau |sin(omega tau)| sd(omega), with m v^2
+  // from each point's own <W>; omega = 2 pi rad/us, sd(omega) = 2 pi 1e-3 rad/us. Tolerance 2e-3 as
+  // there (the central difference over +-1 sd).
+  const auto tau = csv_column(csv, "protocol_duration_us"), mean = csv_column(csv, "mean_work_h_kHz");
+  const double omega = 2 * M_PI, sd_omega = 2 * M_PI * 1e-3;
+  for (std::size_t i = 0; i < 2; ++i) {
+    const double m_v2 = mean[i] / (2 * std::pow(std::sin(omega * tau[i] / 2), 2));
+    CHECK(sd_mean[i] == Approx(m_v2 * tau[i] * std::abs(std::sin(omega * tau[i])) * sd_omega).epsilon(2e-3));
+  }
+  CHECK_THAT(trapwork_test::read_all(csv), Contains("calibration_method: 1 linear propagation"));
+  CHECK_THAT(sweep.out, Contains("calibration sd of <W>"));
+  CHECK_THAT(sweep.out, Contains("(linear)"));
+  CHECK(fs::file_size(dir / "sweep" / "sweep.png") > 0);
+  // The point at 1.3 us is `trapwork work` on the scenario at that duration: the same sd, up to
+  // the FFTW plans of two processes (rounding, lifted by the difference quotient to ~1e-10).
+  std::string work_text = calibrated_sweep_text.substr(0, calibrated_sweep_text.find("[sweep]"));
+  std::ofstream(dir / "w.toml") << work_text;
+  const Run work = run("work w.toml -o work", dir);
+  REQUIRE(work.exit_code == 0);
+  const auto summary = nlohmann::json::parse(trapwork_test::read_all(dir / "work" / "summary.json"));
+  const auto& u = summary.at("calibration_uncertainty");
+  CHECK(u.at("method") == "linear");
+  CHECK(u.at("file") == "w.toml [uncertainty]");
+  CHECK(u.at("results").at(0).at("sd").get<double>() == Approx(sd_mean[1]).epsilon(1e-6));
+  // --uncertainty FILE beside the table: refused, nothing computed.
+  std::ofstream(dir / "fit_summary.json") << "{\"command\": \"fit\", \"coefficients\": [{\"name\": \"frequency\", "
+                                             "\"unit\": \"MHz\", \"value\": 1, \"uncertainty\": 0.001}], "
+                                             "\"correlation\": [[1]]}";
+  const Run both = run("sweep s.toml --uncertainty fit_summary.json -o both", dir);
+  CHECK(both.exit_code == 2);
+  CHECK_THAT(both.err, Contains("[uncertainty] table"));
+  CHECK_FALSE(fs::exists(dir / "both" / "sweep.csv"));
 }

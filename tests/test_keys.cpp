@@ -147,6 +147,8 @@ std::string base_for(const std::string& address) {
   // [bath]: the rate; temperature or mean_phonons (exactly one) is the key tested
   if (address == "bath") return std::string(trap_base) + "[bath]\nrate = \"200 /s\"\n";
   if (address == "sweep.axis") return grid_base;
+  // [uncertainty]: the sd of the trap's frequency (the protocol changes its centre)
+  if (address == "uncertainty") return std::string(trap_base) + "[uncertainty.sd]\n\"trap.frequency\" = \"0.4 kHz\"\n";
   return address == "box" || address == "box.soft_walls" ? box_base : trap_base;
 }
 

@@ -488,3 +488,29 @@ TEST_CASE("issue 17: a noisy series counts in the ranges, names the curves in th
   f.noisy->error.pop_back();
   CHECK_THROWS_WITH(work_panel_ranges(f), Catch::Contains("one standard error per noisy line"));
 }
+
+TEST_CASE("issue 19: calibration spreads as boxes only where a panel can show them, counted in the caption",
+          "[plot]") {
+  WorkFigure f = work_figure();
+  f.result.error.assign(f.result.work.size(), 0.0);  // 0: no spread computed for that line
+  f.result.error[1] = 0.04;   // P = 0.33: 20 % of the linear panel, 0.8 % of the 12-decade log panel
+  f.result.error[10] = 3e-6;  // P = 3.5e-6: invisible on the linear panel, 1.1 decades (8 %) on the log one
+  f.result.error[2] = 1e-9;   // visible on neither
+  f.result.error_name = "sd (calibration)";
+  const WorkPanelRanges r = work_panel_ranges(f);
+  auto boxes_line = [&] {
+    for (const auto& line : work_caption(f, r))
+      if (line.rfind("red boxes:", 0) == 0) return line;
+    return std::string();
+  };
+  CHECK(boxes_line().empty());  // capped bars (error_as_band false): no such caption line
+  f.result.error_as_band = true;
+  const std::string line = boxes_line();
+  INFO(line);
+  CHECK_THAT(line, Catch::Contains("1 of 3 lines in the linear panel, 1 in the log panel"));
+  char ratio[32];
+  std::snprintf(ratio, sizeof ratio, "%.2g", 3e-6 / f.result.probability[10]);
+  CHECK_THAT(line, Catch::Contains(std::string("largest sd/P ") + ratio));
+  const fs::path folder = fresh_folder("work_calibration_boxes");
+  check_figure_files(folder / "work", plot_work(folder / "work", f));
+}

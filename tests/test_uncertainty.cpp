@@ -310,3 +310,131 @@ TEST_CASE("a calibration file that does not fit the scenario names file, line an
     CHECK_THROWS_WITH(read_calibration(f.string(), two), Contains("each coefficient once"));
   }
 }
+
+namespace {
+// The error `text` (a scenario) is refused with ("" when it reads).
+InputError scenario_refusal(const std::string& text) {
+  try {
+    (void)read_scenario_text(text, "table.toml");
+  } catch (const InputError& e) {
+    return e;
+  }
+  FAIL("no error for\n" << text);
+  return InputError("", "", "");
+}
+}  // namespace
+
+TEST_CASE("issue 19: [uncertainty] in the scenario gives the spread the same calibration as a fit file gives",
+          "[uncertainty]") {
+  // The harmonic shuttle's frequency known to 1 kHz: written in the scenario, and as a fit file.
+  const Scenario table = read_scenario_text(harmonic_text + "[uncertainty.sd]\n\"trap.frequency\" = \"1 kHz\"\n",
+                                            "harmonic.toml");
+  REQUIRE(table.uncertainty);
+  CHECK(table.uncertainty->units == std::vector<std::string>{"kHz"});
+  UncertaintySettings settings;
+  settings.method = "linear";
+  CHECK(has_calibration(table, settings));
+  WorkOutcome o = work_task(table, std::nullopt);
+  add_work_uncertainty(o, settings, {});
+  REQUIRE(o.uncertainty);
+  const WorkUncertainty& u = *o.uncertainty;
+  CHECK(u.runs == 3);
+  CHECK(u.method == "linear");
+  CHECK(u.calibration.file == "harmonic.toml [uncertainty]");
+  CHECK(u.results[0].sd == Approx(harmonic_sd(table, 1e-3)).epsilon(2e-3));  // tolerance as in the fit-file case above
+
+  const Scenario plain = read_scenario_text(harmonic_text, "harmonic.toml");
+  WorkOutcome f = work_task(plain, std::nullopt);
+  UncertaintySettings from_file = settings;
+  from_file.calibration = write_file("table", summary_text(coefficient("frequency", "MHz", 1.0, 1e-3), "[[1.0]]")).string();
+  add_work_uncertainty(f, from_file, {});
+  REQUIRE(f.uncertainty);
+  // The same runs up to the rounding of 1 kHz in internal units (1e-16 relative), which the
+  // runs' difference quotient lifts to ~1e-10 of the sd: equal to 1e-8.
+  for (std::size_t i = 0; i < u.results.size(); ++i) {
+    INFO(u.results[i].name);
+    if (u.results[i].sd > u.results[i].floor) CHECK(u.results[i].sd == Approx(f.uncertainty->results[i].sd).epsilon(1e-8));
+  }
+  // The summary says where the calibration came from.
+  CHECK(task_summary(o)["calibration_uncertainty"]["file"] == "harmonic.toml [uncertainty]");
+  CHECK(task_summary(o)["calibration_uncertainty"]["parameters"][0]["unit"] == "kHz");
+  CHECK(task_summary(o)["calibration_uncertainty"]["parameters"][0]["sd"].get<double>() == Approx(1.0));
+
+  // Both given: refused, naming the table's line; "none" leaves the table out.
+  try {
+    (void)calibration_of(table, from_file);
+    FAIL("no error");
+  } catch (const InputError& e) {
+    CHECK(e.key == "--uncertainty");
+    CHECK_THAT(std::string(e.what()), Contains("harmonic.toml has an [uncertainty] table"));
+  }
+  settings.calibration = "none";
+  CHECK_FALSE(has_calibration(table, settings));
+  WorkOutcome off = work_task(table, std::nullopt);
+  add_work_uncertainty(off, settings, {});
+  CHECK_FALSE(off.uncertainty);
+}
+
+TEST_CASE("issue 19: a bad [uncertainty] table names file, line and key", "[uncertainty]") {
+  const std::string base = trapwork_test::small_shuttle_text + "[uncertainty]\n";
+  {  // a parameter the trap does not have, with a suggestion
+    const InputError e = scenario_refusal(base + "[uncertainty.sd]\n\"trap.quartc\" = \"1e-4 h*Hz/nm^4\"\n");
+    CHECK(e.file == "table.toml");
+    CHECK(e.line == 20);  // 17 lines of the shuttle, [uncertainty], [uncertainty.sd], the entry
+    CHECK(e.key == "uncertainty.sd.\"trap.quartc\"");
+    CHECK(e.suggestion == "trap.quartic");
+  }
+  {  // a bare number: no unit
+    const InputError e = scenario_refusal(base + "[uncertainty.sd]\n\"trap.frequency\" = 400\n");
+    CHECK(e.key == "uncertainty.sd.\"trap.frequency\"");
+    CHECK_THAT(std::string(e.what()), Contains("with its unit"));
+  }
+  {  // a negative standard deviation
+    const InputError e = scenario_refusal(base + "[uncertainty.sd]\n\"trap.frequency\" = \"-0.4 kHz\"\n");
+    CHECK_THAT(std::string(e.what()), Contains("a standard deviation > 0"));
+  }
+  {  // the protocol changes the centre: its schedule's uncertainty is not carried
+    const InputError e = scenario_refusal(base + "[uncertainty.sd]\n\"trap.centre\" = \"1 nm\"\n");
+    CHECK_THAT(std::string(e.what()), Contains("holds fixed"));
+  }
+  {  // no sd at all
+    const InputError e = scenario_refusal(base);
+    CHECK(e.key == "uncertainty.sd");
+  }
+  const std::string two = base + "correlation = CORR\n[uncertainty.sd]\n\"trap.frequency\" = \"0.4 kHz\"\n"
+                                 "\"trap.quartic\" = \"1e-4 h*Hz/nm^4\"\n\"trap.cubic\" = \"1e-3 h*Hz/nm^3\"\n";
+  auto with = [&](const std::string& correlation) {
+    std::string t = two;
+    t.replace(t.find("CORR"), 4, correlation);
+    return t;
+  };
+  {  // |r| > 1
+    const InputError e = scenario_refusal(with("[[\"trap.frequency\", \"trap.quartic\", 1.5]]"));
+    CHECK(e.key == "uncertainty.correlation[1]");
+    CHECK(e.line == 19);  // correlation = ... after [uncertainty]
+  }
+  {  // a name not in [uncertainty.sd]
+    const InputError e = scenario_refusal(with("[[\"trap.frequency\", \"trap.quartik\", 0.5]]"));
+    CHECK(e.suggestion == "trap.quartic");
+  }
+  {  // each |r| <= 1, but together no covariance (an eigenvalue < 0)
+    const InputError e = scenario_refusal(with("[[\"trap.frequency\", \"trap.quartic\", 0.9], "
+                                               "[\"trap.frequency\", \"trap.cubic\", 0.9], "
+                                               "[\"trap.quartic\", \"trap.cubic\", -0.9]]"));
+    CHECK(e.key == "uncertainty.correlation");
+    CHECK_THAT(std::string(e.what()), Contains("positive semi-definite"));
+  }
+  {  // a valid table, the unquoted (nested) form, in file order, with its correlations
+    const Scenario s = read_scenario_text(with("[[\"trap.quartic\", \"trap.frequency\", -0.6]]"), "table.toml");
+    REQUIRE(s.uncertainty);
+    CHECK(s.uncertainty->addresses == std::vector<std::string>{"trap.frequency", "trap.quartic", "trap.cubic"});
+    CHECK(s.uncertainty->correlation[0][1] == -0.6);
+    CHECK(s.uncertainty->correlation[1][0] == -0.6);
+    CHECK(s.uncertainty->correlation[0][2] == 0);
+    const Scenario nested = read_scenario_text(base + "[uncertainty.sd]\ntrap.frequency = \"0.4 kHz\"\n", "table.toml");
+    REQUIRE(nested.uncertainty);
+    CHECK(nested.uncertainty->addresses == std::vector<std::string>{"trap.frequency"});
+    // 0.4 kHz of a 1 MHz trap: 4e-4 of its angular frequency, which is 1 in trap units
+    CHECK(nested.uncertainty->sd[0] == Approx(4e-4).epsilon(1e-12));
+  }
+}

@@ -100,7 +100,7 @@ std::shared_ptr<NativeResult> module_work(const std::string& text, const std::st
   std::function<WorkOutcome(const TaskHooks&)> task = [&](const TaskHooks& hooks) {
     const Scenario scenario = read_for(text, name, provenance);
     (void)build_protocol(scenario);  // as the command line: a missing [protocol] before a missing [initial]
-    if (!uncertainty.calibration.empty()) (void)read_calibration(uncertainty.calibration, scenario);
+    if (has_calibration(scenario, uncertainty)) (void)calibration_of(scenario, uncertainty);
     WorkOutcome o = work_task(scenario, tolerance, search_budget, hooks);
     add_work_uncertainty(o, uncertainty, hooks);
     return o;
@@ -153,9 +153,14 @@ std::shared_ptr<NativeResult> module_fit(const std::string& data, const std::str
   return native_of(outcome, "fit", inputs);
 }
 
+// Other models (--against) as (text, name) pairs of their scenarios.
+using ScenarioTexts = std::vector<std::pair<std::string, std::string>>;
+
 std::shared_ptr<NativeResult> module_compare(const std::string& text, const std::string& name, const std::string& data,
                                              const std::string& resolution, int resamples, std::uint64_t seed,
-                                             double confidence, py::object progress, py::object notice, const Provenance& provenance) {
+                                             double confidence, py::object progress, py::object notice,
+                                             const Provenance& provenance, const ScenarioTexts& against,
+                                             const ModelChoiceSettings& models, const UncertaintySettings& uncertainty) {
   std::function<CompareTaskOutcome(const TaskHooks&)> task = [&](const TaskHooks& hooks) {
     CompareSettings settings;
     settings.data = data;
@@ -163,20 +168,35 @@ std::shared_ptr<NativeResult> module_compare(const std::string& text, const std:
     settings.resamples = resamples;
     settings.seed = seed;
     settings.confidence = confidence;
-    return compare_task(read_for(text, name, provenance), settings, hooks);
+    // as compare_command.cpp: --against, --calibration, --decision-confidence, --fitted-parameters, --prior
+    settings.models = models;
+    for (const auto& other : against) settings.models.against.push_back(read_scenario_text(other.first, other.second));
+    settings.models.seed = seed;
+    settings.uncertainty = uncertainty;
+    const Scenario scenario = read_for(text, name, provenance);
+    if (!settings.uncertainty.calibration.empty()) (void)read_calibration(settings.uncertainty.calibration, scenario);
+    return compare_task(scenario, settings, hooks);
   };
   auto outcome = compute(task, progress, notice, "propagating");
   auto inputs = scenario_inputs(outcome->scenario);
   inputs.push_back({data, "the data file"});
+  if (outcome->choice)
+    for (std::size_t j = 1; j < outcome->choice->files.size(); ++j)
+      inputs.push_back({outcome->choice->files[j], "a model compared against"});
   return native_of(outcome, "compare", inputs);
 }
 
 std::shared_ptr<NativeResult> module_plan(const std::string& text, const std::string& name, const std::vector<int>& runs,
                                           const std::vector<std::string>& resolutions, std::optional<double> target,
                                           int experiments, std::uint64_t seed, bool correct_resolution,
-                                          int synthetic_runs, py::object progress, py::object notice, const Provenance& provenance) {
+                                          int synthetic_runs, py::object progress, py::object notice, const Provenance& provenance,
+                                          const ScenarioTexts& against, double power, double decision_confidence) {
   std::function<PlanTaskOutcome(const TaskHooks&)> task = [&](const TaskHooks& hooks) {
     PlanSettings settings;
+    // as plan_command.cpp: --against (one model), --power, --decision-confidence
+    if (!against.empty()) settings.against = read_scenario_text(against.front().first, against.front().second);
+    settings.power = power;
+    settings.decision_confidence = decision_confidence;
     settings.runs = runs;
     settings.resolutions = resolutions;
     settings.target_kT = target;
@@ -292,11 +312,35 @@ PYBIND11_MODULE(_trapwork, m) {
         py::arg("notice"), py::arg("provenance"));
   m.def("fit", &module_fit, py::arg("data"), py::arg("start_text"), py::arg("start_name"), py::arg("mass"),
         py::arg("frequency"), py::arg("terms"), py::arg("progress"), py::arg("notice"), py::arg("provenance"));
-  m.def("compare", &module_compare, py::arg("text"), py::arg("name"), py::arg("data"), py::arg("resolution"),
-        py::arg("resamples"), py::arg("seed"), py::arg("confidence"), py::arg("progress"), py::arg("notice"), py::arg("provenance"));
+  m.def(
+      "compare",
+      [](const std::string& text, const std::string& name, const std::string& data, const std::string& resolution,
+         int resamples, std::uint64_t seed, double confidence, py::object progress, py::object notice,
+         const Provenance& provenance, const ScenarioTexts& against, int calibration_sets,
+         double decision_confidence, const std::vector<int>& fitted_parameters, const std::vector<double>& prior,
+         const std::string& calibration, int samples, std::uint64_t uncertainty_seed) {
+        ModelChoiceSettings models;  // read here, with the GIL held
+        models.calibration = calibration_sets;
+        models.confidence = decision_confidence;
+        models.fitted_parameters = fitted_parameters;
+        models.prior = prior;
+        UncertaintySettings u;
+        u.calibration = calibration;
+        u.samples = samples;
+        u.seed = uncertainty_seed;
+        return module_compare(text, name, data, resolution, resamples, seed, confidence, progress, notice, provenance,
+                              against, models, u);
+      },
+      py::arg("text"), py::arg("name"), py::arg("data"), py::arg("resolution"), py::arg("resamples"), py::arg("seed"),
+      py::arg("confidence"), py::arg("progress"), py::arg("notice"), py::arg("provenance"),
+      py::arg("against") = ScenarioTexts(), py::arg("calibration") = 1000, py::arg("decision_confidence") = 0.95,
+      py::arg("fitted_parameters") = std::vector<int>(), py::arg("prior") = std::vector<double>(),
+      py::arg("uncertainty") = std::string(),
+      py::arg("uncertainty_samples") = 20, py::arg("uncertainty_seed") = 1);
   m.def("plan", &module_plan, py::arg("text"), py::arg("name"), py::arg("runs"), py::arg("resolutions"),
         py::arg("target"), py::arg("experiments"), py::arg("seed"), py::arg("correct_resolution"),
-        py::arg("synthetic_runs"), py::arg("progress"), py::arg("notice"), py::arg("provenance"));
+        py::arg("synthetic_runs"), py::arg("progress"), py::arg("notice"), py::arg("provenance"),
+        py::arg("against") = ScenarioTexts(), py::arg("power") = 0.9, py::arg("decision_confidence") = 0.95);
   m.def("design", &module_design, py::arg("text"), py::arg("name"), py::arg("options"), py::arg("progress"),
         py::arg("notice"), py::arg("provenance"));
   m.def(

@@ -10,6 +10,7 @@
 #include "solver/errors.hpp"
 #include "solver/scenario/data_files.hpp"
 #include "solver/scenario/machine.hpp"
+#include "solver/scenario/uncertainty_task.hpp"
 #include "solver/scenario/output.hpp"
 #include "solver/scenario/work_output.hpp"
 
@@ -153,55 +154,25 @@ std::vector<RobustMember> robust_members(const Scenario& s, const DesignSettings
   }
   if (!settings.robust_fit.empty()) {
     if (settings.robust_samples < 1) throw InputError("robust_samples", std::to_string(settings.robust_samples), "at least 1 sample");
-    nlohmann::json fit;
-    try {
-      fit = nlohmann::json::parse(read_text_file(settings.robust_fit, "the fit summary"));
-    } catch (const nlohmann::json::exception& e) {
+    Calibration c;
+    try {  // the one reader of fit_summary.json (uncertainty_task.hpp); its message names the file's line and key
+      c = read_calibration(settings.robust_fit, s, settings.robust_term);
+    } catch (const InputError& e) {
       throw InputError("robust_fit", settings.robust_fit, std::string("a fit_summary.json of trapwork fit (") + e.what() + ")");
     }
-    if (!fit.is_object() || fit.value("command", "") != "fit" || !fit.contains("coefficients") || !fit.contains("correlation"))
-      throw InputError("robust_fit", settings.robust_fit, "a fit_summary.json of trapwork fit (coefficients, correlation)");
-    std::vector<std::string> names, units;
-    std::vector<double> mean, sd;
-    try {
-      for (const auto& c : fit.at("coefficients")) {
-        names.push_back(c.at("name").get<std::string>());
-        units.push_back(c.at("unit").get<std::string>());
-        mean.push_back(c.at("value").get<double>());
-        sd.push_back(c.at("uncertainty").get<double>());
+    // Drawn about the fit's values (not the scenario's, should they differ), in internal units.
+    std::vector<std::vector<double>> cov(c.addresses.size(), std::vector<double>(c.addresses.size()));
+    for (std::size_t i = 0; i < cov.size(); ++i)
+      for (std::size_t j = 0; j < cov.size(); ++j) cov[i][j] = c.covariance(Eigen::Index(i), Eigen::Index(j));
+    const auto samples = gaussian_samples(std::vector<double>(c.fitted.data(), c.fitted.data() + c.fitted.size()), cov,
+                                          settings.robust_samples, settings.options.seed);
+    for (std::size_t k = 0; k < samples.size(); ++k) {
+      RobustMember m{"fit sample " + std::to_string(k + 1) + ":", s.potential};
+      for (std::size_t i = 0; i < c.addresses.size(); ++i) {
+        m.potential.set_parameter(c.addresses[i], samples[k][i]);
+        m.label += " " + c.addresses[i] + "=" + number_text(samples[k][i] / c.per_unit[i]) + " " + c.units[i];
       }
-      std::vector<std::vector<double>> cov(names.size(), std::vector<double>(names.size()));
-      const auto& r = fit.at("correlation");
-      for (std::size_t i = 0; i < names.size(); ++i)
-        for (std::size_t j = 0; j < names.size(); ++j) cov[i][j] = sd[i] * sd[j] * r.at(i).at(j).get<double>();
-      std::string term = settings.robust_term;
-      if (term.empty()) {
-        std::vector<std::string> candidates;
-        for (const auto& t : s.potential.terms()) {
-          const auto addresses = s.potential.parameter_addresses();
-          if (std::all_of(names.begin(), names.end(), [&](const std::string& n) {
-                return std::find(addresses.begin(), addresses.end(), t.name() + "." + n) != addresses.end();
-              }))
-            candidates.push_back(t.name());
-        }
-        if (candidates.size() != 1)
-          throw InputError("robust_term", std::to_string(candidates.size()) + " terms with the fitted coefficients",
-                           "the name of the term the fit describes", "", s.file);
-        term = candidates.front();
-      }
-      const auto samples = gaussian_samples(mean, cov, settings.robust_samples, settings.options.seed);
-      for (std::size_t k = 0; k < samples.size(); ++k) {
-        RobustMember m{"fit sample " + std::to_string(k + 1) + ":", s.potential};
-        for (std::size_t i = 0; i < names.size(); ++i) {
-          char text[64];
-          std::snprintf(text, sizeof text, "%.17g ", samples[k][i]);
-          set_value(m.potential, term + "." + names[i], text + units[i], "robust_fit");
-          m.label += " " + term + "." + names[i] + "=" + number_text(samples[k][i]) + " " + units[i];
-        }
-        members.push_back(std::move(m));
-      }
-    } catch (const nlohmann::json::exception& e) {
-      throw InputError("robust_fit", settings.robust_fit, std::string("a fit_summary.json of trapwork fit (") + e.what() + ")");
+      members.push_back(std::move(m));
     }
   }
   return members;
@@ -391,7 +362,10 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
   std::vector<RobustMember> robust = robust_members(scenario, settings);
   // Every work run counts against the bound: one per member of a robust design.
   used.options.runs_per_evaluation = std::max<int>(1, int(robust.size()));
-  DesignTaskOutcome o{scenario, used, family.description(), {}, {}, {}, {}, 1, {}, {}, {}, {}, 0, {}};
+  DesignTaskOutcome o;  // member by member: a brace list naming three would leave the rest unnamed (g++ -Wextra warns)
+  o.scenario = scenario;
+  o.settings = used;
+  o.family = family.description();
   o.robust = std::move(robust);
   const auto evaluator_for = [&](const Potential& potential) -> DesignEvaluator {
     if (!walls) return work_evaluator(potential, request, settings.options.objective);

@@ -180,7 +180,9 @@ const std::vector<TableSpec>& scenario_tables() {
                   sub("work", KeyType::table, "none", "[work] (trapwork work, sweep)"),
                   sub("sweep", KeyType::table, "none", "[sweep] (trapwork sweep)"),
                   sub("noise", KeyType::table, "none", "[noise]: technical noise during the protocol (trapwork work)"),
-                  sub("bath", KeyType::table, "none", "[bath]: damping toward a thermal bath during the protocol (trapwork work)")}});
+                  sub("bath", KeyType::table, "none", "[bath]: damping toward a thermal bath during the protocol (trapwork work)"),
+                  sub("uncertainty", KeyType::table, "none",
+                      "[uncertainty]: the trap's calibration uncertainty, carried into work and sweep")}});
     t.push_back({"particle", "[particle]", "the trapped particle",
                  {quantity("mass", Dimension::mass(), "required",
                            "the particle's mass, always with its unit (u, Da, kg, g)", "\"40 u\"")}});
@@ -368,6 +370,19 @@ const std::vector<TableSpec>& scenario_tables() {
                "damping rate gamma per time (\"200 /s\", \"0.2 /ms\"; not Hz): for a harmonic trap "
                "d<n>/dt = -gamma (<n> - N); in any trap the zero-temperature decay rate of level 1 to level 0",
                "\"200 /s\"")}});
+    t.push_back(
+        {"uncertainty", "[uncertainty]",
+         "the trap's calibration uncertainty, carried into `trapwork work` and `trapwork sweep` as a fit's covariance "
+         "is (--uncertainty FILE; not both): <W>, sd(W), Delta F and the strong lines get the standard deviation it "
+         "gives them; --uncertainty-method chooses linear propagation or sampling",
+         {sub("sd", KeyType::table, "required",
+              "one standard deviation per parameter, keyed by its address as protocols name it, in the parameter's "
+              "lab unit (\"trap.frequency\" = \"0.4 kHz\"); the protocol must hold these parameters fixed",
+              "{ \"trap.frequency\" = \"0.4 kHz\" }"),
+          array("correlation", std::nullopt, "0 between every pair",
+                "correlation coefficients of pairs of those parameters, [\"parameter\", \"parameter\", r] with "
+                "-1 <= r <= 1; together a positive semi-definite matrix",
+                "[[\"trap.frequency\", \"trap.quartic\", -0.6]]")}});
     return t;
   }();
   return tables;

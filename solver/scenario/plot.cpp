@@ -31,13 +31,13 @@ constexpr double char_px = 13.8;     // mean advance of one character at scale 1
 // Colour map 0 of every figure (index: role). Index 0 is the background.
 enum Colour : PLINT {
   white = 0, ink = 1, blue = 2, orange = 3, green = 4, red = 5, purple = 6, grey = 7,
-  blue_fill = 8, orange_fill = 9, grid_grey = 10, green_fill = 11, purple_fill = 12,
+  blue_fill = 8, orange_fill = 9, grid_grey = 10, green_fill = 11, purple_fill = 12, red_fill = 13,
 };
-constexpr int colour_count = 13;
-constexpr std::array<PLINT, colour_count> colour_r = {255, 0, 31, 230, 44, 200, 120, 110, 31, 230, 225, 44, 120};
-constexpr std::array<PLINT, colour_count> colour_g = {255, 0, 100, 120, 150, 30, 60, 110, 100, 120, 225, 150, 60};
-constexpr std::array<PLINT, colour_count> colour_b = {255, 0, 180, 20, 60, 40, 160, 110, 180, 20, 225, 60, 160};
-constexpr std::array<PLFLT, colour_count> colour_a = {1, 1, 1, 1, 1, 1, 1, 1, 0.25, 0.3, 1, 0.25, 0.25};
+constexpr int colour_count = 14;
+constexpr std::array<PLINT, colour_count> colour_r = {255, 0, 31, 230, 44, 200, 120, 110, 31, 230, 225, 44, 120, 200};
+constexpr std::array<PLINT, colour_count> colour_g = {255, 0, 100, 120, 150, 30, 60, 110, 100, 120, 225, 150, 60, 30};
+constexpr std::array<PLINT, colour_count> colour_b = {255, 0, 180, 20, 60, 40, 160, 110, 180, 20, 225, 60, 160, 40};
+constexpr std::array<PLFLT, colour_count> colour_a = {1, 1, 1, 1, 1, 1, 1, 1, 0.25, 0.3, 1, 0.25, 0.25, 0.45};
 
 // Solid, and the two PLplot dash patterns used here (pllsty numbers).
 constexpr PLINT solid = 1, dashed = 3, dotted = 2;
@@ -725,25 +725,57 @@ void draw_stems(const WorkSeries& s, bool log, double floor, double offset, PLIN
 
 // +-1 standard error bars on a series' stems (red), in log10 P on a log panel, clipped at its
 // floor.
-void draw_error_bars(const WorkSeries& s, bool log, double floor, double offset) {
+// The drawn extent [a, b] of p -+ e in panel units (log10 on a log panel, cut at the floor);
+// false where nothing is drawn (e not > 0, p at or below a log panel's floor).
+bool error_extent(double p, double e, bool log, double floor, double& a, double& b) {
+  if (!(e > 0)) return false;
+  a = p - e, b = p + e;
+  if (log) {
+    if (!(std::log10(std::max(p, 1e-300)) > floor)) return false;
+    a = a > 0 ? std::max(std::log10(a), floor) : floor;
+    b = std::log10(b);
+  } else {
+    a = std::max(a, floor);
+  }
+  return true;
+}
+
+// Share of a panel's height (y_lo..y_hi, panel units) below which an error_as_band series draws
+// no box: 6 % is 9 to 15 px on the work figure's panels, which a box twice as wide as the marker
+// shows beside it; a shorter one would be a dash that only crowds the panel.
+constexpr double band_visible_share = 0.06;
+
+// Lines of an error_as_band series whose box is drawn on a panel spanning y_lo..y_hi.
+std::size_t drawn_error_boxes(const WorkSeries& s, bool log, double y_lo, double y_hi) {
+  std::size_t n = 0;
+  for (std::size_t i = 0; i < s.error.size() && i < s.probability.size(); ++i) {
+    double a = 0, b = 0;
+    if (error_extent(s.probability[i], s.error[i], log, y_lo, a, b) && b - a >= band_visible_share * (y_hi - y_lo)) ++n;
+  }
+  return n;
+}
+
+// +-error of each line: red bars with caps, or for error_as_band the light boxes (drawn before
+// the stems, so that the markers stand on them).
+void draw_error_bars(const WorkSeries& s, bool log, double floor, double offset, double y_hi, double box_width) {
   if (s.error.empty()) return;
   Vec x, lo, hi;
   for (std::size_t i = 0; i < s.work.size(); ++i) {
-    const double p = s.probability[i], e = s.error[i];
-    if (!(e > 0)) continue;
-    double a = p - e, b = p + e;
-    if (log) {
-      if (!(std::log10(std::max(p, 1e-300)) > floor)) continue;
-      a = a > 0 ? std::max(std::log10(a), floor) : floor;
-      b = std::log10(b);
-    } else {
-      a = std::max(a, floor);
-    }
+    double a = 0, b = 0;
+    if (!error_extent(s.probability[i], s.error[i], log, floor, a, b)) continue;
+    if (s.error_as_band && b - a < band_visible_share * (y_hi - floor)) continue;
     x.push_back(s.work[i] + offset);
     lo.push_back(a);
     hi.push_back(b);
   }
   if (x.empty()) return;
+  if (s.error_as_band) {  // a light box on the stem, no caps
+    pen(red_fill, 1);
+    for (std::size_t i = 0; i < x.size(); ++i)
+      fill_polygon({x[i] - box_width / 2, x[i] + box_width / 2, x[i] + box_width / 2, x[i] - box_width / 2},
+                   {lo[i], lo[i], hi[i], hi[i]});
+    return;
+  }
   pen(red, 1.6);
   plerry(static_cast<PLINT>(x.size()), x.data(), lo.data(), hi.data());
 }
@@ -903,6 +935,26 @@ std::vector<std::string> work_caption(const WorkFigure& f, const WorkPanelRanges
     lines.push_back(curves + ", dotted " + f.noisy->label);
   }
   lines.insert(lines.end(), f.notes.begin(), f.notes.end());
+  if (f.result.error_as_band) {  // which boxes the panels show; the rest are below their resolution
+    std::size_t with = 0;
+    double largest = 0;
+    for (std::size_t i = 0; i < f.result.error.size() && i < f.result.probability.size(); ++i)
+      if (f.result.error[i] > 0) {
+        ++with;
+        if (f.result.probability[i] > 0) largest = std::max(largest, f.result.error[i] / f.result.probability[i]);
+      }
+    std::string shown;
+    if (f.probability_axis != ProbabilityAxis::log)
+      shown += std::to_string(drawn_error_boxes(f.result, false, 0, r.probability_top)) + " of " + std::to_string(with) +
+               " lines in the linear panel";
+    if (f.probability_axis != ProbabilityAxis::linear)
+      shown += (shown.empty() ? "" : ", ") + std::to_string(drawn_error_boxes(f.result, true, r.log_floor, r.log_top)) +
+               " in the log panel";
+    char ratio[32];
+    std::snprintf(ratio, sizeof ratio, "%.2g", largest);
+    lines.push_back("red boxes: ±" + f.result.error_name + " where taller than 6 % of the panel: " + shown +
+                    "; largest sd/P " + ratio);
+  }
   if (r.lines_below_floor > 0 && f.probability_axis != ProbabilityAxis::linear) {
     char floor[32];
     std::snprintf(floor, sizeof floor, "%.2g", std::pow(10.0, r.log_floor));
@@ -1037,14 +1089,19 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
       const double offset = f.reference ? 0.004 * (panel.x_hi - panel.x_lo) : 0;
       auto scale = [&](std::size_t k) { return panel.log_y ? ranges.marker_scale[k] : 0.8; };
       auto width = [&](std::size_t k) { return panel.log_y ? ranges.stem_width[k] : 2.2; };
+      // about 26 px, twice a marker's width: a box shorter than the marker shows beside it
+      const double box_width = 0.03 * (panel.x_hi - panel.x_lo);
+      if (f.result.error_as_band)  // boxes first: the markers stand on them
+        draw_error_bars(f.result, panel.log_y, panel.y_lo, -shift, panel.y_hi, box_width);
       if (f.reference)
         draw_stems(*f.reference, panel.log_y, panel.y_lo, offset - shift, orange, "○", scale(1), width(1));
       draw_stems(f.result, panel.log_y, panel.y_lo, -shift, blue, "●", scale(0), width(0));
-      draw_error_bars(f.result, panel.log_y, panel.y_lo, -shift);  // e.g. the calibration's spread
+      if (!f.result.error_as_band)  // bars with caps over the stems (e.g. standard errors)
+        draw_error_bars(f.result, panel.log_y, panel.y_lo, -shift, panel.y_hi, box_width);
       if (f.noisy) {
         const double left_of = -0.004 * (panel.x_hi - panel.x_lo) - shift;
         draw_stems(*f.noisy, panel.log_y, panel.y_lo, left_of, red, "◆", scale(2), width(2));
-        draw_error_bars(*f.noisy, panel.log_y, panel.y_lo, left_of);
+        draw_error_bars(*f.noisy, panel.log_y, panel.y_lo, left_of, panel.y_hi, box_width);
       }
 
       if (has_density && !panel.log_y) {

@@ -69,6 +69,10 @@ struct WorkSeries {
   std::vector<double> density;        // density per work unit, one per density_work
   std::vector<double> error;          // standard error of each P_i, drawn as +-1 bars; empty: none
   std::string error_name = "s.e.";    // what the bars are, for the legend ("sd (calibration)")
+  // true: each +-error drawn as a light red box behind its marker, twice its width, without caps,
+  // and only where taller than 6 % of its panel; the caption counts the boxes drawn
+  // per panel and states the largest error / P; false: red bars with caps wherever error > 0
+  bool error_as_band = false;
 };
 
 enum class ProbabilityAxis {

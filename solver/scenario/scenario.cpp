@@ -3,7 +3,9 @@
 
 #include <toml++/toml.h>
 
+#include <Eigen/Dense>
 #include <charconv>
+#include <functional>
 #include <cmath>
 #include <cstdio>
 #include <cstdlib>
@@ -302,6 +304,7 @@ class Reader {
                             std::vector<const toml::node*>& nodes) const;
   void read_noise(const toml::table& root, Scenario& s) const;
   void read_bath(const toml::table& root, Scenario& s) const;
+  void read_uncertainty(const toml::table& root, Scenario& s) const;
 
   // A plain number (integer or floating point) without a unit.
   std::optional<Read> plain(const toml::table& t, std::string_view key, const std::string& dotted,
@@ -1442,6 +1445,118 @@ void Reader::read_noise(const toml::table& root, Scenario& s) const {
   s.noise = std::move(settings);
 }
 
+// ---- [uncertainty]: the calibration's standard deviations and correlations --------------------
+void Reader::read_uncertainty(const toml::table& root, Scenario& s) const {
+  const toml::table* t = table(root, "uncertainty");
+  if (!t) return;
+  check_keys(*t, "uncertainty", table_keys("uncertainty"));
+  const toml::node* sd_node = t->get("sd");
+  if (!sd_node)
+    fail(t->source(), "uncertainty.sd", "",
+         "[uncertainty.sd] with one standard deviation per parameter, e.g. \"trap.frequency\" = \"0.4 kHz\"");
+  if (!sd_node->is_table()) fail(*sd_node, "uncertainty.sd", "a table of parameter = standard deviation");
+  UncertaintySpec u;
+  u.line = int(t->source().begin.line);
+  std::vector<std::string> known;
+  for (const auto& p : s.parameters) known.push_back(p.address);
+  // The entries: "trap.frequency" = ... (a quoted key) or trap.frequency = ... (a nested table),
+  // in file order.
+  std::vector<std::pair<std::string, const toml::node*>> entries;
+  std::function<void(const toml::table&, const std::string&)> collect = [&](const toml::table& table,
+                                                                             const std::string& prefix) {
+    for (const auto& [k, v] : table) {
+      const std::string address = prefix.empty() ? std::string(k.str()) : prefix + "." + std::string(k.str());
+      if (v.is_table())
+        collect(*v.as_table(), address);
+      else
+        entries.emplace_back(address, &v);
+    }
+  };
+  collect(*sd_node->as_table(), "");
+  std::stable_sort(entries.begin(), entries.end(), [](const auto& a, const auto& b) {
+    return std::pair(a.second->source().begin.line, a.second->source().begin.column) <
+           std::pair(b.second->source().begin.line, b.second->source().begin.column);
+  });
+  if (entries.empty())
+    fail(*sd_node, "uncertainty.sd", "at least one parameter with its standard deviation (\"trap.frequency\" = \"0.4 kHz\")");
+  for (const auto& entry : entries) {
+    // named copies, not a structured binding: clang 14 refuses a lambda capturing one
+    const std::string address = entry.first;
+    const toml::node* node = entry.second;
+    const std::string key = "uncertainty.sd.\"" + address + "\"";
+    const auto slot = std::find_if(s.parameters.begin(), s.parameters.end(),
+                                   [&](const ParameterSlot& p) { return p.address == address; });
+    if (slot == s.parameters.end()) {
+      std::string list;
+      for (const auto& a : known) list += (list.empty() ? "" : ", ") + a;
+      fail(*node, key, "a parameter of the potential: " + list, closest_name(address, known, 3));
+    }
+    if (s.protocol)
+      for (const auto& change : s.protocol->changes)
+        if (change.parameter == address)
+          fail(*node, key,
+               "a parameter the protocol holds fixed ([[protocol.change]] changes " + address +
+                   "; a schedule's uncertainty is not propagated)");
+    const double sd = slot_value(*node, key, *slot);
+    if (node->is_string() && parse_quantity(node->as_string()->get()).angular)
+      fail(*node, key, "an ordinary frequency (\"0.4 kHz\", not an angular one)");
+    if (!(sd > 0)) fail(*node, key, "a standard deviation > 0 (leave a known parameter out)");
+    // the number and the unit as written (for the report and the summary)
+    const std::string given = node->is_string() ? node->as_string()->get() : found_text(*node);
+    const char* begin = given.c_str();
+    char* end = nullptr;
+    const double number = std::strtod(begin, &end);
+    std::string unit(end);
+    unit.erase(0, unit.find_first_not_of(" \t"));
+    u.addresses.push_back(address);
+    u.given.push_back(given);
+    u.lab_sd.push_back(end != begin && number > 0 ? number : sd);
+    u.units.push_back(end != begin && number > 0 ? unit : std::string());
+    u.sd.push_back(sd);
+  }
+  const std::size_t n = u.addresses.size();
+  u.correlation.assign(n, std::vector<double>(n, 0.0));
+  for (std::size_t i = 0; i < n; ++i) u.correlation[i][i] = 1;
+  if (const toml::node* c = t->get("correlation")) {
+    const std::string expected =
+        "a list of [\"parameter\", \"parameter\", r] with two parameters of [uncertainty.sd] and -1 <= r <= 1, e.g. "
+        "[[\"trap.frequency\", \"trap.quartic\", -0.6]]";
+    if (!c->is_array()) fail(*c, "uncertainty.correlation", expected);
+    std::size_t index = 0;
+    for (const auto& pair : *c->as_array()) {
+      const std::string key = "uncertainty.correlation[" + std::to_string(++index) + "]";
+      const toml::array* a = pair.as_array();
+      if (!a || a->size() != 3 || !(*a)[0].is_string() || !(*a)[1].is_string() || !(*a)[2].is_number())
+        fail(pair, key, expected);
+      std::size_t ij[2] = {n, n};
+      for (int k = 0; k < 2; ++k) {
+        const std::string name = (*a)[std::size_t(k)].as_string()->get();
+        ij[k] = std::size_t(std::find(u.addresses.begin(), u.addresses.end(), name) - u.addresses.begin());
+        if (ij[k] == n) fail((*a)[std::size_t(k)], key, "a parameter of [uncertainty.sd]", closest_name(name, u.addresses, 3));
+      }
+      const double r = (*a)[2].is_integer() ? double((*a)[2].as_integer()->get()) : (*a)[2].as_floating_point()->get();
+      if (ij[0] == ij[1]) fail(pair, key, "two different parameters (a parameter's correlation with itself is 1)");
+      if (!(std::abs(r) <= 1)) fail((*a)[2], key, "a correlation r with -1 <= r <= 1");
+      if (u.correlation[ij[0]][ij[1]] != 0)
+        fail(pair, key, "each pair once (" + u.addresses[ij[0]] + " and " + u.addresses[ij[1]] + " are given before)");
+      u.correlation[ij[0]][ij[1]] = u.correlation[ij[1]][ij[0]] = r;
+    }
+    const auto size = Eigen::Index(n);
+    Eigen::MatrixXd m(size, size);
+    for (std::size_t i = 0; i < n; ++i)
+      for (std::size_t j = 0; j < n; ++j) m(Eigen::Index(i), Eigen::Index(j)) = u.correlation[i][j];
+    const double lowest = Eigen::SelfAdjointEigenSolver<Eigen::MatrixXd>(m).eigenvalues().minCoeff();
+    if (lowest < -1e-9) {
+      char text[32];
+      std::snprintf(text, sizeof text, "%.3g", lowest);
+      fail(*c, "uncertainty.correlation",
+           std::string("correlations that a covariance can have (a positive semi-definite matrix; these give an "
+                       "eigenvalue ") + text + ")");
+    }
+  }
+  s.uncertainty = std::move(u);
+}
+
 // ---- [bath] (solver/noise.hpp, BathRequest): the noise run's master equation with damping ----
 void Reader::read_bath(const toml::table& root, Scenario& s) const {
   const toml::table* t = table(root, "bath");
@@ -1542,6 +1657,7 @@ Scenario Reader::read(const toml::table& root) {
   read_sweep(root, s);
   read_noise(root, s);
   read_bath(root, s);
+  read_uncertainty(root, s);
   if (s.soft_walls && !moves_walls(s))
     fail(*root["box"]["soft_walls"].node(), "box.soft_walls",
          "a [protocol] that moves box.left or box.right (the comparison is of moving walls)");

@@ -43,6 +43,9 @@
 //                relative = true: white or psd_file in 1/Hz, relative to the parameter's value
 //   [bath]       exactly one of temperature, mean_phonons, and rate ("200 /s"): damping toward
 //                a thermal bath (Lindblad route; adds a noise run without sources if no [noise])
+//   [uncertainty] the trap's calibration uncertainty: [uncertainty.sd] with one standard
+//                deviation per parameter address ("trap.frequency" = "0.4 kHz"), and
+//                correlation = [["trap.frequency", "trap.quartic", -0.6], ...] (pairs not listed: 0)
 #include <optional>
 #include <string>
 #include <string_view>
@@ -159,6 +162,20 @@ struct NoiseSettings {
   // The table a refusal names: "bath" for a [bath] without noise sources, else "noise".
   std::string table() const { return request.sources.empty() && !bath_given.empty() ? "bath" : "noise"; }
 };
+// [uncertainty]: the calibration's standard deviations and correlations written in the scenario
+// (carried into work and sweep as a fit's covariance is: uncertainty_task.hpp, calibration_of).
+// Checked when read: known parameters the protocol holds fixed, sd > 0 with its unit, a
+// correlation matrix with |r| <= 1 that is positive semi-definite.
+struct UncertaintySpec {
+  std::vector<std::string> addresses;  // "trap.frequency", in the order of the file's keys
+  std::vector<std::string> given;      // as written: "0.4 kHz"
+  std::vector<std::string> units;      // the unit as written ("kHz"; "" for a plain parameter)
+  std::vector<double> lab_sd;          // the number as written (0.4)
+  std::vector<double> sd;              // internal
+  std::vector<std::vector<double>> correlation;  // addresses x addresses, unit diagonal
+  int line = 0;                        // of the [uncertainty] table, for messages
+};
+
 struct Scenario {
   std::string file;  // the scenario file as given ("default" for the built-in one)
   // How this run was asked for, recorded in every summary (provenance_json, output.hpp): the
@@ -181,6 +198,7 @@ struct Scenario {
   std::optional<WorkSettings> work;       // present when [initial] is
   std::optional<SweepSpec> sweep;
   std::optional<NoiseSettings> noise;     // [noise]: `trapwork work` adds the noisy run
+  std::optional<UncertaintySpec> uncertainty;  // [uncertainty]: work and sweep add the calibration's spread
   // [box.soft_walls]: compare the hard-wall run with soft power-law walls of these widths
   // (compare_soft_walls, solver/moving_wall.hpp); only with moving walls.
   std::optional<SoftWallRequest> soft_walls;

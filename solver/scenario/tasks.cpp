@@ -256,6 +256,16 @@ SweepOutcome sweep_task(const Scenario& scenario, const SweepOptions& options, c
   (void)build_protocol(scenario);  // the errors of a missing [protocol] or [initial] come first
   (void)work_request(scenario);
   refuse_noise(scenario, "sweep");
+  // The calibration's spread: its errors (file, table, settings) before the first point.
+  const bool calibrated = has_calibration(scenario, options.uncertainty);
+  UncertaintySettings uncertainty = options.uncertainty;
+  if (calibrated) {
+    check_uncertainty_settings(uncertainty);
+    if (moves_walls(scenario))
+      throw InputError("--uncertainty", scenario.file, "a trap without moving walls (not supported yet)");
+    (void)calibration_of(scenario, uncertainty);
+    uncertainty.check_seconds = 0;  // no automatic check against sampling per point (see SweepOptions)
+  }
   const SweepSpec& sweep = *scenario.sweep;
   const std::size_t points = sweep.points();
   std::vector<std::size_t> todo;
@@ -341,6 +351,22 @@ SweepOutcome sweep_task(const Scenario& scenario, const SweepOptions& options, c
           const ScenarioWork work = naming_scenario(scenario.file + ": sweep point " + sweep.point_text(i), point,
                                                     [&] { return compute_work(point, request); });
           row = sweep_row(work.run(point), sweep, i);
+          if (calibrated) {
+            TaskHooks point_hooks;  // the perturbed runs stop when another point was interrupted
+            point_hooks.interrupt = hooks.interrupt;
+            point_hooks.progress = [&](double) {
+              if (interrupted) throw Interrupted("sweep interrupted");
+            };
+            const WorkUncertainty u = naming_scenario(scenario.file + ": sweep point " + sweep.point_text(i), point, [&] {
+              return work_uncertainty(point, work, uncertainty, point_hooks);
+            });
+            row.calibration_mean_sd = u.results[0].sd;
+            row.calibration_sd_sd = u.results[1].sd;
+            row.calibration_free_energy_sd = u.results[2].sd;
+            row.calibration_method = u.method == "linear" ? 1 : 2;
+            row.calibration_check = u.agreement ? u.agreement->largest_in_standard_errors : std::nan("");
+            row.warnings += int(u.warnings.size());
+          }
         } catch (const std::bad_alloc&) {
           throw;
         } catch (const Interrupted&) {
@@ -472,8 +498,11 @@ void print_sweep_report(std::ostream& out, const SweepOutcome& run, std::vector<
                       .c_str());
     out << line;
   }
-  std::snprintf(line, sizeof line, " %14s %14s %16s %14s %10s %8s\n", ("<W> " + e).c_str(), ("sd " + e).c_str(),
-                ("harm. <W> " + e).c_str(), "<W> - harm.", "Jarzynski", "warnings");
+  // With a calibration: its sd of <W> per point, the method, and the check where both ran.
+  const bool calibrated = std::any_of(rows.begin(), rows.end(), [](const SweepRow& r) { return r.calibration_method != 0; });
+  std::snprintf(line, sizeof line, " %14s %14s %16s %14s %10s %8s%s\n", ("<W> " + e).c_str(), ("sd " + e).c_str(),
+                ("harm. <W> " + e).c_str(), "<W> - harm.", "Jarzynski", "warnings",
+                calibrated ? ("   calibration sd of <W> " + e).c_str() : "");
   out << line;
   int warned = 0;
   for (const auto& r : rows) {
@@ -481,10 +510,18 @@ void print_sweep_report(std::ostream& out, const SweepOutcome& run, std::vector<
       out << " " << swept(r) << ": failed: " << r.failure << '\n';
       continue;
     }
-    std::snprintf(line, sizeof line, " %14s %14s %16s %14s %10s %8d\n", short_number(d.energy(r.mean), 7).c_str(),
+    const std::string spread =
+        !calibrated ? std::string()
+                    : "   " + (std::isfinite(r.calibration_mean_sd) ? short_number(d.energy(r.calibration_mean_sd), 3)
+                                                                      : std::string("not computed")) +
+                          (r.calibration_method == 1 ? " (linear)" : r.calibration_method == 2 ? " (sampling)" : "") +
+                          (std::isfinite(r.calibration_check)
+                               ? ", linear-sampled " + short_number(r.calibration_check, 2) + " se"
+                               : std::string());
+    std::snprintf(line, sizeof line, " %14s %14s %16s %14s %10s %8d%s\n", short_number(d.energy(r.mean), 7).c_str(),
                   short_number(d.energy(r.sd), 5).c_str(), short_number(d.energy(r.harmonic_mean), 7).c_str(),
                   short_number(d.energy(r.mean - r.harmonic_mean), 4).c_str(),
-                  short_number(r.jarzynski_residual, 2).c_str(), r.warnings);
+                  short_number(r.jarzynski_residual, 2).c_str(), r.warnings, spread.c_str());
     out << " " << swept(r) << line;
     warned += r.warnings > 0;
   }

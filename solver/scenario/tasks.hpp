@@ -126,6 +126,11 @@ struct SweepOptions {
   // Called (under a lock, one call at a time, from the point threads) as each point finishes,
   // with its index and row; an exception from it stops the sweep like a failed worker.
   std::function<void(std::size_t index, const SweepRow&)> on_point;
+  // The calibration's spread at every point (--uncertainty FILE or the scenario's [uncertainty]):
+  // work_uncertainty after each point's run, its sd of <W>, sd(W) and Delta F in the row. In a
+  // sweep, auto does not add the check against sampling (it would cost `samples` runs per
+  // point): check_seconds is set to 0 unless the method is "both".
+  UncertaintySettings uncertainty;
 };
 struct SweepOutcome {
   Scenario scenario;

@@ -62,7 +62,7 @@ std::string term_of(const Scenario& s, const std::vector<std::string>& names, co
 
 }  // namespace
 
-Calibration read_calibration(const std::string& path, const Scenario& s) {
+Calibration read_calibration(const std::string& path, const Scenario& s, const std::string& given_term) {
   Calibration c;
   c.file = fs::is_directory(path) ? (fs::path(path) / "fit_summary.json").string() : path;
   const std::string text = read_text_file(c.file, "the calibration (fit_summary.json of trapwork fit)");
@@ -108,7 +108,7 @@ Calibration read_calibration(const std::string& path, const Scenario& s) {
                        "a standard uncertainty > 0 (a fixed coefficient is left out of the fit's list)", "", c.file,
                        line_of(text, "\"uncertainty\"", std::max(from, 1)));
   }
-  const std::string term = term_of(s, names, c.file, line_of(text, "\"coefficients\""));
+  const std::string term = given_term.empty() ? term_of(s, names, c.file, line_of(text, "\"coefficients\"")) : given_term;
   std::vector<std::string> known;
   for (const auto& p : s.parameters) known.push_back(p.address);
   for (std::size_t i = 0; i < n; ++i) {
@@ -174,10 +174,12 @@ Calibration read_calibration(const std::string& path, const Scenario& s) {
     throw InputError("correlation", "a smallest eigenvalue " + short_number(eigen.eigenvalues().minCoeff(), 3),
                      "a positive semi-definite correlation matrix (a covariance)", "", c.file, rline);
   c.mean.resize(Eigen::Index(n));
+  c.fitted.resize(Eigen::Index(n));
   c.covariance.resize(Eigen::Index(n), Eigen::Index(n));
   for (std::size_t i = 0; i < n; ++i) {
     const auto a = Eigen::Index(i);
     c.mean(a) = s.potential.parameter(c.addresses[i]);
+    c.fitted(a) = values[i] * c.per_unit[i];
     const double sd_i = c.lab_sd[i] * std::abs(c.per_unit[i]);
     for (std::size_t j = 0; j < n; ++j)
       c.covariance(a, Eigen::Index(j)) = c.correlation(a, Eigen::Index(j)) * sd_i * c.lab_sd[j] * std::abs(c.per_unit[j]);
@@ -188,6 +190,46 @@ Calibration read_calibration(const std::string& path, const Scenario& s) {
                         " standard deviations; the spread is taken about the scenario's value");
   }
   return c;
+}
+
+Calibration scenario_calibration(const Scenario& s) {
+  TRAPWORK_EXPECT(s.uncertainty.has_value(), "scenario_calibration: a scenario with [uncertainty]");
+  const UncertaintySpec& u = *s.uncertainty;
+  Calibration c;
+  c.file = s.file + " [uncertainty]";
+  c.addresses = u.addresses;
+  c.units = u.units;
+  c.lab_sd = u.lab_sd;
+  const auto n = Eigen::Index(u.addresses.size());
+  c.mean.resize(n);
+  c.covariance.resize(n, n);
+  c.correlation.resize(n, n);
+  for (Eigen::Index i = 0; i < n; ++i) {
+    const auto a = std::size_t(i);
+    c.per_unit.push_back(u.sd[a] / u.lab_sd[a]);
+    c.mean(i) = s.potential.parameter(u.addresses[a]);
+    for (Eigen::Index j = 0; j < n; ++j) {
+      c.correlation(i, j) = u.correlation[a][std::size_t(j)];
+      c.covariance(i, j) = c.correlation(i, j) * u.sd[a] * u.sd[std::size_t(j)];
+    }
+  }
+  c.fitted = c.mean;
+  return c;
+}
+
+bool has_calibration(const Scenario& s, const UncertaintySettings& settings) {
+  if (settings.calibration == "none") return false;
+  return !settings.calibration.empty() || s.uncertainty.has_value();
+}
+
+Calibration calibration_of(const Scenario& s, const UncertaintySettings& settings) {
+  TRAPWORK_EXPECT(has_calibration(s, settings), "calibration_of: a run with a calibration");
+  if (!settings.calibration.empty() && s.uncertainty)
+    throw InputError("--uncertainty", settings.calibration,
+                     "one statement of the trap's calibration: " + s.file + " has an [uncertainty] table (line " +
+                         std::to_string(s.uncertainty->line) +
+                         "); remove it to use the fit's covariance, or leave out --uncertainty to use the table");
+  return settings.calibration.empty() ? scenario_calibration(s) : read_calibration(settings.calibration, s);
 }
 
 namespace {
@@ -224,8 +266,7 @@ std::string line_name(const WorkLine& l) {
 
 }  // namespace
 
-WorkUncertainty work_uncertainty(const Scenario& s, const ScenarioWork& nominal, const UncertaintySettings& settings,
-                                 const TaskHooks& hooks) {
+void check_uncertainty_settings(const UncertaintySettings& settings) {
   if (settings.method != "auto" && settings.method != "linear" && settings.method != "sampling" &&
       settings.method != "both")
     throw InputError("--uncertainty-method", settings.method, "auto, linear, sampling or both");
@@ -233,12 +274,18 @@ WorkUncertainty work_uncertainty(const Scenario& s, const ScenarioWork& nominal,
     throw InputError("--uncertainty-samples", std::to_string(settings.samples), "at least 2 parameter sets");
   if (!(settings.step_in_sd > 0) || !(settings.step_in_sd <= 5))
     throw InputError("--uncertainty-step", short_number(settings.step_in_sd), "a step in (0, 5] standard deviations");
-  if (nominal.walls) throw InputError("--uncertainty", settings.calibration, "a trap without moving walls (not supported yet)");
+}
+
+WorkUncertainty work_uncertainty(const Scenario& s, const ScenarioWork& nominal, const UncertaintySettings& settings,
+                                 const TaskHooks& hooks) {
+  check_uncertainty_settings(settings);
+  const std::string source = settings.calibration.empty() ? s.file + " [uncertainty]" : settings.calibration;
+  if (nominal.walls) throw InputError("--uncertainty", source, "a trap without moving walls (not supported yet)");
   if (s.noise)
-    throw InputError("--uncertainty", settings.calibration, "a scenario without [" + s.noise->table() + "] (not supported yet)");
+    throw InputError("--uncertainty", source, "a scenario without [" + s.noise->table() + "] (not supported yet)");
   WorkUncertainty u;
   u.settings = settings;
-  u.calibration = read_calibration(settings.calibration, s);
+  u.calibration = calibration_of(s, settings);
   for (const auto& n : u.calibration.notes) u.warnings.push_back(n);
   const WorkDistribution& d = nominal.result().distribution;
 
@@ -381,7 +428,7 @@ WorkUncertainty work_uncertainty(const Scenario& s, const ScenarioWork& nominal,
 }
 
 void add_work_uncertainty(WorkOutcome& o, const UncertaintySettings& settings, const TaskHooks& hooks) {
-  if (settings.calibration.empty()) return;
+  if (!has_calibration(o.scenario, settings)) return;
   const WorkRun run = o.run();
   const ScenarioWork& nominal = o.choice ? *o.choice->work : *o.direct;
   o.uncertainty = work_uncertainty(run.scenario, nominal, settings, hooks);
@@ -413,7 +460,7 @@ CsvTable uncertainty_lines_table(const Scenario& s, const WorkUncertainty& u) {
         double(u.lines[k].final)};
     for (std::size_t c = 0; c < row.size(); ++c) t.columns[c].values.push_back(row[c]);
   }
-  t.comments = {"trapwork work --uncertainty " + u.calibration.file +
+  t.comments = {"trapwork work, calibration " + u.calibration.file +
                     ": the strong work lines (P >= " + short_number(strong_line_probability) +
                     ") with the standard deviation the trap's calibration gives them",
                 "probability_sd: of the method used (" + u.method + "); the _linear and _sampled columns: each method's "
@@ -485,6 +532,7 @@ json uncertainty_summary(const Scenario& s, const WorkUncertainty& u) {
 void add_uncertainty_bars(WorkFigure& f, const Scenario& s, const WorkDistribution& dist, const WorkUncertainty& u) {
   f.result.error.assign(dist.lines.size(), nan);  // NaN: not computed, no bar
   f.result.error_name = "sd (calibration)";
+  f.result.error_as_band = true;  // light boxes where visible, counted in the caption (plot.hpp)
   for (std::size_t l = 0; l < dist.lines.size(); ++l)
     for (std::size_t k = 0; k < u.lines.size(); ++k)
       if (dist.lines[l].initial == u.lines[k].initial && dist.lines[l].final == u.lines[k].final)
@@ -495,8 +543,8 @@ void add_uncertainty_bars(WorkFigure& f, const Scenario& s, const WorkDistributi
     return std::isfinite(r.sd) ? short_number(r.value / d.energy_per, 6) + " +- " + short_number(r.sd / d.energy_per, 2) + " " + d.e
                                : std::string("not computed");
   };
-  f.notes.push_back("bars: +-1 sd of P due to the trap's calibration (" + u.method + ", lines with P >= " +
-                    short_number(strong_line_probability) + "); <W> = " + pm(0) + ", sd(W) = " + pm(1));
+  f.notes.push_back("sd due to the trap's calibration (" + u.method + ", P >= " + short_number(strong_line_probability) +
+                    ", each in lines_uncertainty.csv): <W> = " + pm(0) + ", sd(W) = " + pm(1));
 }
 
 void print_uncertainty_report(std::ostream& out, const Scenario& s, const WorkUncertainty& u) {

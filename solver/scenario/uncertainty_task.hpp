@@ -40,6 +40,7 @@ struct Calibration {
   std::vector<double> lab_sd;          // the file's uncertainties, lab units
   std::vector<double> per_unit;        // internal value of one lab unit, per parameter
   Eigen::VectorXd mean;                // the scenario's values (the centre of the spread), internal
+  Eigen::VectorXd fitted;              // the file's values, internal (the scenario's for [uncertainty])
   Eigen::MatrixXd covariance;          // internal units
   Eigen::MatrixXd correlation;
   std::vector<std::string> notes;      // e.g. the scenario's value differs from the fit's
@@ -51,10 +52,26 @@ struct Calibration {
 // for a missing or unreadable file, a coefficient the scenario does not have, a parameter that
 // the protocol changes, an uncertainty that is not > 0, a correlation matrix of the wrong size,
 // not symmetric, with |r| > 1 or a diagonal other than 1, or not positive semi-definite.
-Calibration read_calibration(const std::string& path, const Scenario& scenario);
+// `term`: the term whose parameters bare coefficient names are (empty: the one term holding all).
+Calibration read_calibration(const std::string& path, const Scenario& scenario, const std::string& term = {});
+
+// The scenario's [uncertainty] (checked when it was read) as a calibration about the scenario's
+// current values (a sweep point's, for a swept parameter); `file` is "<scenario> [uncertainty]".
+Calibration scenario_calibration(const Scenario& scenario);
+
+struct UncertaintySettings;
+// Whether a run carries a calibration forward: --uncertainty FILE, or the scenario's
+// [uncertainty] (unless --uncertainty none).
+bool has_calibration(const Scenario& scenario, const UncertaintySettings& settings);
+// That calibration: read_calibration of the file, or scenario_calibration. InputError when both
+// are given (two statements of one trap's calibration: the user says which, by removing one or
+// by --uncertainty none, which leaves the table out).
+Calibration calibration_of(const Scenario& scenario, const UncertaintySettings& settings);
 
 struct UncertaintySettings {
-  std::string calibration;      // fit_summary.json or its folder; empty: no propagation
+  // fit_summary.json or its folder; empty: the scenario's [uncertainty] if it has one, else no
+  // propagation; "none": no propagation even with [uncertainty]
+  std::string calibration;
   std::string method = "auto";  // auto | linear | sampling | both
   int samples = 100;            // parameter sets drawn for sampling
   std::uint64_t seed = 1;
@@ -89,6 +106,9 @@ struct WorkUncertainty {
 };
 inline constexpr double strong_line_probability = 1e-3;
 inline constexpr int strong_lines_at_most = 40;
+
+// InputError for settings out of range (method, samples, step), before any run.
+void check_uncertainty_settings(const UncertaintySettings& settings);
 
 // Propagates the calibration through work runs about `nominal` (the scenario's run). InputError
 // for settings out of range, a run with moving walls or [noise] (not supported: said so);

@@ -1485,7 +1485,8 @@ SweepRow failed_sweep_row(const SweepSpec& sweep, std::size_t point, const std::
   r.point = point;
   r.values = sweep.point_values(point);
   for (double* x : {&r.mean, &r.sd, &r.skewness, &r.free_energy_change, &r.dissipated_work, &r.jarzynski_residual,
-                    &r.crooks_ratio_error, &r.harmonic_mean, &r.harmonic_sd, &r.time_step_error, &r.unresolved_weight})
+                    &r.crooks_ratio_error, &r.harmonic_mean, &r.harmonic_sd, &r.time_step_error, &r.unresolved_weight,
+                    &r.calibration_mean_sd, &r.calibration_sd_sd, &r.calibration_free_energy_sd, &r.calibration_check})
     *x = nan_value;
   r.failure = message.empty() ? std::string("failed") : message;
   for (char& ch : r.failure)
@@ -1543,6 +1544,13 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
       "dissipated_work" + ec, "jarzynski_residual", "crooks_ratio_error", "harmonic_mean_work" + ec,
       "harmonic_sd_work" + ec, "time_step_error", "unresolved_weight", "warnings", "failed"};
   for (const auto& n : names) t.columns.push_back({n, {}});
+  // With a calibration: its spread of <W>, sd(W) and Delta F, the method and the check.
+  const bool calibrated = std::any_of(rows.begin(), rows.end(), [](const SweepRow& r) { return r.calibration_method != 0; });
+  if (calibrated)
+    for (const auto& n : {"mean_work_calibration_sd" + ec, "sd_work_calibration_sd" + ec,
+                          "free_energy_change_calibration_sd" + ec, std::string("calibration_method"),
+                          std::string("calibration_linear_minus_sampled_se")})
+      t.columns.push_back({n, {}});
   std::vector<std::string> failures;
   for (const auto& r : rows) {
     if (!r.failure.empty()) {
@@ -1563,6 +1571,11 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
                      d.energy(r.harmonic_mean), d.energy(r.harmonic_sd), r.time_step_error, r.unresolved_weight,
                      double(r.warnings), r.failure.empty() ? 0.0 : 1.0})
       v.push_back(x);
+    if (calibrated)
+      for (double x : {d.energy(r.calibration_mean_sd), d.energy(r.calibration_sd_sd),
+                       d.energy(r.calibration_free_energy_sd),
+                       r.calibration_method == 0 ? nan_value : double(r.calibration_method), r.calibration_check})
+        v.push_back(x);
     for (std::size_t k = 0; k < t.columns.size(); ++k) t.columns[k].values.push_back(v[k]);
   }
   // Columns of a reference that no point has are empty (a failed point has NaN everywhere).
@@ -1586,6 +1599,19 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
       "failed: 1 where the point could not be computed (numbers nan; its message below; trapwork sweep --resume "
       "keeps it, --resume --retry-failed computes it again)",
   };
+  if (calibrated) {
+    const auto linear = std::count_if(rows.begin(), rows.end(), [](const SweepRow& r) { return r.calibration_method == 1; });
+    const auto sampled = std::count_if(rows.begin(), rows.end(), [](const SweepRow& r) { return r.calibration_method == 2; });
+    const auto checked = std::count_if(rows.begin(), rows.end(), [](const SweepRow& r) { return std::isfinite(r.calibration_check); });
+    t.comments.push_back(
+        "*_calibration_sd: one standard deviation due to the trap's calibration at that point; calibration_method: 1 "
+        "linear propagation (2 runs per parameter), 2 sampling (--uncertainty-samples runs); " +
+        std::to_string(linear) + " point(s) linear, " + std::to_string(sampled) + " sampling; "
+        "calibration_linear_minus_sampled_se: the largest difference of the linear sd from the sampled one in "
+        "standard errors of the sampled sd, where both ran (" + std::to_string(checked) + " point(s)), else nan; an "
+        "sd near 1e-10 of the lowest level spacing is the runs' rounding noise, not a spread (e.g. Delta F of a "
+        "translation, 0 at any trap frequency)");
+  }
   t.comments.insert(t.comments.end(), failures.begin(), failures.end());
   return t;
 }
@@ -1678,11 +1704,15 @@ SweepFigure sweep_figure(const Scenario& s, const std::vector<SweepRow>& input) 
   SweepPoints residual{"numerical", {}, {}, {}};
   SweepPoints harmonic_sd{"harmonic prediction at each point", {}, {}, {}};
   std::vector<double> values;
+  // With a calibration: a band of +-1 calibration sd around <W> (NaN where not computed: no band there).
+  const bool calibrated = std::any_of(rows.begin(), rows.end(), [](const SweepRow& r) { return r.calibration_method != 0; });
   for (const auto& r : rows) {
     const double x = conversion_rounded(r.values[0] / w.internal_per_unit);
     values.push_back(x);
     mean.x.push_back(x);
     mean.y.push_back(d.energy(r.mean));
+    // a spread not computed (its runs failed; nan in sweep.csv) draws no width there
+    if (calibrated) mean.spread.push_back(std::isfinite(r.calibration_mean_sd) ? d.energy(r.calibration_mean_sd) : 0.0);
     sd.x.push_back(x);
     sd.y.push_back(d.energy(r.sd));
     if (std::isfinite(r.jarzynski_residual)) {
@@ -1695,6 +1725,14 @@ SweepFigure sweep_figure(const Scenario& s, const std::vector<SweepRow>& input) 
     }
   }
   f.log_x = spans_decades(values);
+  if (calibrated) {
+    const bool any_linear = std::any_of(rows.begin(), rows.end(), [](const SweepRow& r) { return r.calibration_method == 1; });
+    const bool any_sampled = std::any_of(rows.begin(), rows.end(), [](const SweepRow& r) { return r.calibration_method == 2; });
+    mean.label = std::string("numerical; band around <W>: +-1 sd due to the calibration (") +
+                 (any_linear && any_sampled ? "linear or sampling, see sweep.csv" : any_linear ? "linear" : "sampling") + ")";
+    sd.label = residual.label = mean.label;  // one series, one legend entry (the other panels draw no band)
+    f.spread_as_band = true;
+  }
   f.points.push_back(mean);
   // The harmonic prediction as a curve: 200 values between the sweep's ends, each the analytic
   // model of the scenario at that value (harmonic_moments), not lines joining the sweep points.

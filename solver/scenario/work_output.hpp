@@ -204,16 +204,25 @@ struct SweepRow {
   double time_step_error = 0, unresolved_weight = 0;
   int warnings = 0;
   std::string failure;  // a point that could not be computed: its error message (numbers NaN)
+  // With a calibration (sweep --uncertainty FILE or [uncertainty]): the standard deviation the
+  // calibration gives <W>, sd(W) and Delta F at this point (NaN: not computed), whose method
+  // (1 linear, 2 sampling; 0: no calibration), and the linear-against-sampling check when both
+  // ran (largest difference in standard errors of the sampled sd; NaN: not run).
+  double calibration_mean_sd = 0, calibration_sd_sd = 0, calibration_free_energy_sd = 0;
+  int calibration_method = 0;
+  double calibration_check = 0;
 };
 // The row of a point that failed with `message`: every number NaN.
 SweepRow failed_sweep_row(const SweepSpec& sweep, std::size_t point, const std::string& message);
 SweepRow sweep_row(const WorkRun& run, const SweepSpec& sweep, std::size_t point);
 // sweep.csv: one row per finished point; a failed point has NaN numbers, failed = 1 and its
-// message in a comment line. One swept parameter: the rows sorted by value, its column first.
+// message in a comment line. With a calibration, five columns after `failed`: the calibration sd
+// of <W>, sd(W) and Delta F, the method (1 linear, 2 sampling) and the linear-sampling check. One swept parameter: the rows sorted by value, its column first.
 // Several: the rows in point order, a column `point` (1-based) and then one column per axis.
 // Each swept column is named parameter_unit ("protocol_duration_us").
 CsvTable sweep_table(const Scenario& scenario, std::vector<SweepRow> rows, std::size_t points);
-// sweep.png/.svg: <W> +- sd against the swept value, the harmonic <W> of each point as a
+// sweep.png/.svg: <W> against the swept value (with a calibration, a band of +-1 calibration
+// sd around it), the harmonic <W> of each point as a
 // curve and, for the duration of a constant-speed translation, the closed form
 // 2 m v^2 sin^2(omega tau / 2) on a fine grid of tau. Returns the paths written.
 SweepFigure sweep_figure(const Scenario& scenario, const std::vector<SweepRow>& rows);

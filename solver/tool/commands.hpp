@@ -118,6 +118,7 @@ struct SweepCommand {
   bool resume = false;  // keep the finished points of an earlier run of the same scenario
   bool retry_failed = false;  // --retry-failed: with --resume, compute the failed points again
   std::string shard;          // --shard I/N: only the points p with p = I mod N (1-based), own folder
+  UncertaintySettings uncertainty;  // --uncertainty FILE (or [uncertainty]): the calibration's spread per point
 };
 void add_sweep_command(CLI::App& app);
 // Under mpirun (a build with MPI) rank 0 runs this with the points shared among the ranks

@@ -31,6 +31,22 @@ void add_work_options(CLI::App* sub, std::string& output, bool& quiet, std::vect
   sub->add_flag("--quiet", quiet, "print nothing but errors (no report, no progress bar)");
 }
 
+// --uncertainty and its method options, for work and sweep.
+void add_uncertainty_options(CLI::App* sub, UncertaintySettings& u, const std::string& what) {
+  sub->add_option("--uncertainty", u.calibration,
+                  "carry the trap's calibration uncertainty forward: the fit_summary.json of `trapwork fit` (or its "
+                  "folder), whose coefficients name parameters of the scenario's potential; " + what +
+                  "; without it, the scenario's [uncertainty] table if it has one (not both); \"none\": no "
+                  "propagation");
+  sub->add_option("--uncertainty-method", u.method,
+                  "auto (linear propagation by central differences, 2 runs per parameter, where its second-order "
+                  "terms are below 0.1 of the sd, else sampling; `work` also checks a small case against sampling), "
+                  "linear, sampling, or both (each, with their disagreement)");
+  sub->add_option("--uncertainty-samples", u.samples,
+                  "parameter sets drawn from the covariance for sampling (default 100)");
+  sub->add_option("--uncertainty-seed", u.seed, "seed of the parameter draws (default 1)");
+}
+
 }  // namespace
 
 // ---- sweep points kept for --resume (solver/tool/sweep_points.hpp) -------------------------
@@ -47,7 +63,10 @@ std::string sweep_fingerprint(const std::string& resolved_text, const Scenario& 
   std::string text = resolved_text;
   const SweepSpec& w = *scenario.sweep;
   for (std::size_t i = 0; i < w.points(); ++i)
-    for (double v : w.point_values(i)) text += "\n" + number_text(v);
+    for (double v : w.point_values(i)) {
+      text += '\n';  // two appends: "\n" + number_text(v) draws g++ 12's false -Wrestrict warning
+      text += number_text(v);
+    }
   std::uint64_t h = 14695981039346656037ull;
   for (unsigned char c : text) h = (h ^ c) * 1099511628211ull;
   char hex[17];
@@ -67,6 +86,10 @@ std::string sweep_point_line(std::size_t i, const SweepRow& r) {
                    r.crooks_ratio_error, r.harmonic_mean, r.harmonic_sd, r.time_step_error, r.unresolved_weight,
                    double(r.warnings)})
     line += ' ' + number_text(v);
+  if (r.calibration_method != 0)  // the calibration's spread: 5 more numbers
+    for (double v : {r.calibration_mean_sd, r.calibration_sd_sd, r.calibration_free_energy_sd,
+                     double(r.calibration_method), r.calibration_check})
+      line += ' ' + number_text(v);
   return line;
 }
 
@@ -96,10 +119,20 @@ std::optional<std::pair<std::size_t, SweepRow>> parse_sweep_point(const std::str
     row = failed_sweep_row(sweep, i, message);
     return std::pair{i, row};
   }
-  double x[12];
+  double x[17];
   for (int k = 0; k < 12; ++k)
     if ((k > 0 && !(fields >> word)) || !number(word, x[k])) return std::nullopt;
-  if (fields >> word) return std::nullopt;  // more than the numbers of a point
+  int count = 12;  // 17 with the calibration's spread
+  while (fields >> word) {
+    if (count == 17 || !number(word, x[count])) return std::nullopt;  // more than the numbers of a point
+    ++count;
+  }
+  if (count != 12 && count != 17) return std::nullopt;
+  if (count == 17) {
+    if (!(x[15] == 1 || x[15] == 2)) return std::nullopt;
+    row.calibration_mean_sd = x[12], row.calibration_sd_sd = x[13], row.calibration_free_energy_sd = x[14];
+    row.calibration_method = int(x[15]), row.calibration_check = x[16];
+  }
   // the warning count a whole number (converting nan or a huge double to int is undefined)
   if (!(x[11] >= 0 && x[11] <= 1e6 && x[11] == std::floor(x[11]))) return std::nullopt;
   row.mean = x[0], row.sd = x[1], row.skewness = x[2], row.free_energy_change = x[3], row.dissipated_work = x[4];
@@ -168,7 +201,7 @@ void run_work_command(const WorkCommand& command, std::ostream& out, std::ostrea
                    "trapwork work " + scenario.file);
   TaskBar bar(progress, command.show_progress);
   const TaskHooks hooks = bar.hooks(command.quiet ? nullptr : notice_to(progress));
-  if (!command.uncertainty.calibration.empty()) (void)read_calibration(command.uncertainty.calibration, scenario);
+  if (has_calibration(scenario, command.uncertainty)) (void)calibration_of(scenario, command.uncertainty);
   WorkOutcome outcome = work_task(scenario, command.tolerance, command.search_budget, hooks);
   add_work_uncertainty(outcome, command.uncertainty, hooks);
   bar.finish();
@@ -198,18 +231,9 @@ void add_work_command(CLI::App& app) {
                   "cost bound of the --tolerance search: its runs' estimated arithmetic, summed, in units of its "
                   "first run's (default " + short_number(default_search_budget) + "); at the bound it stops and "
                   "reports the accuracy it verified");
-  sub->add_option("--uncertainty", command->uncertainty.calibration,
-                  "carry the trap's calibration uncertainty forward: the fit_summary.json of `trapwork fit` (or its "
-                  "folder), whose coefficients name parameters of the scenario's potential; <W>, sd(W), Delta F and "
-                  "the strong lines' probabilities get the standard deviation it gives them (lines_uncertainty.csv, "
-                  "summary.json, bars in work.png)");
-  sub->add_option("--uncertainty-method", command->uncertainty.method,
-                  "auto (linear propagation by central differences where its second-order terms are below 0.1 of "
-                  "the sd, else sampling; a small case is also checked against sampling), linear, sampling, or both "
-                  "(each, with their disagreement)");
-  sub->add_option("--uncertainty-samples", command->uncertainty.samples,
-                  "parameter sets drawn from the covariance for sampling (default 100)");
-  sub->add_option("--uncertainty-seed", command->uncertainty.seed, "seed of the parameter draws (default 1)");
+  add_uncertainty_options(sub, command->uncertainty,
+                          "<W>, sd(W), Delta F and the strong lines' probabilities get the standard deviation it "
+                          "gives them (lines_uncertainty.csv, summary.json, bars in work.png)");
   sub->callback([command] {
     WorkCommand c = *command;
     c.show_progress = !c.quiet && ProgressBar::terminal_allows();
@@ -292,6 +316,23 @@ void run_sweep_in_world(const SweepCommand& command, const SweepWorld& world, st
     throw InputError("--shard", command.shard, "either --shard or mpirun with more than one rank, not both");
   (void)build_protocol(scenario);  // the errors of a missing [protocol] or [initial] come first
   (void)work_request(scenario);
+  // --uncertainty FILE is no part of the scenario text that shards, merge and the MPI ranks share:
+  // there the calibration is written in the scenario ([uncertainty]).
+  const bool calibration_file = !command.uncertainty.calibration.empty() && command.uncertainty.calibration != "none";
+  if (calibration_file && (shard || world.size() > 1))
+    throw InputError("--uncertainty", command.uncertainty.calibration,
+                     "no --uncertainty FILE with --shard or mpirun: write the calibration into the scenario as an "
+                     "[uncertainty] table, which every shard and rank reads");
+  const UncertaintySettings defaults;  // the ranks compute with these: other method options would not reach them
+  if (world.size() > 1 && (!command.uncertainty.calibration.empty() || command.uncertainty.method != defaults.method ||
+                           command.uncertainty.samples != defaults.samples || command.uncertainty.seed != defaults.seed))
+    throw InputError("--uncertainty", command.uncertainty.calibration,
+                     "no --uncertainty options with mpirun (the ranks use the scenario's [uncertainty] with the "
+                     "default method, auto, 100 samples, seed 1)");
+  if (has_calibration(scenario, command.uncertainty)) {  // its errors before any file is made
+    check_uncertainty_settings(command.uncertainty);
+    (void)calibration_of(scenario, command.uncertainty);
+  }
   if (world.rank() > 0) {  // an MPI worker: rank 0 keeps the records and writes the files
     serve_sweep(world, scenario, command.jobs);
     return;
@@ -314,10 +355,23 @@ void run_sweep_in_world(const SweepCommand& command, const SweepWorld& world, st
   const std::filesystem::path folder = scenario.output_folder;
 
   // --resume: the points an earlier run of the same scenario finished are kept, the rest run.
-  const std::string fingerprint = sweep_fingerprint(resolved, scenario);
+  // With --uncertainty FILE, the file's text and the method settings join the fingerprint.
+  const auto& u = command.uncertainty;
+  const std::string fingerprint = sweep_fingerprint(
+      calibration_file ? resolved + "\n--uncertainty " + read_text_file(calibration_of(scenario, u).file, "the calibration") +
+                             "\n" + u.method + " " + std::to_string(u.samples) + " " + std::to_string(u.seed)
+                       : resolved,
+      scenario);
   const std::filesystem::path points_file = folder / "sweep-points.txt";
   std::vector<std::pair<std::size_t, SweepRow>> done;  // (point, row), guarded by sweep_task's lock
   if (command.resume && std::filesystem::exists(points_file)) done = read_sweep_points(points_file, fingerprint, sweep);
+  const bool calibrated = has_calibration(scenario, command.uncertainty);
+  for (const auto& d : done)
+    if (d.second.failure.empty() && (d.second.calibration_method != 0) != calibrated)
+      throw InputError("--resume", points_file.string(),
+                       std::string("points computed ") + (calibrated ? "with" : "without") +
+                           " the calibration's spread, as this run is (the earlier run was made " +
+                           (calibrated ? "without" : "with") + " it): use another output folder, or run without --resume");
   auto in_shard = [&](std::size_t i) { return !shard || i % shard->second == shard->first - 1; };
   for (const auto& d : done)
     if (!in_shard(d.first))
@@ -356,6 +410,7 @@ void run_sweep_in_world(const SweepCommand& command, const SweepWorld& world, st
   SweepOptions options;
   options.jobs = command.jobs;
   options.todo = todo;
+  options.uncertainty = command.uncertainty;
   options.on_point = [&](std::size_t i, const SweepRow& row) {
     done.push_back({i, row});
     write_done();
@@ -431,6 +486,10 @@ void add_sweep_command(CLI::App& app) {
                   "I/N: compute only the points p = I, I + N, I + 2N, ... (numbered from 1 in [sweep] order) into "
                   "the shard's own folder (-o, or shard-I-of-N inside the output folder), for batch systems "
                   "without MPI; trapwork merge joins the shards' folders into one sweep.csv");
+  add_uncertainty_options(sub, command->uncertainty,
+                          "each point's <W>, sd(W) and Delta F get the standard deviation it gives them (columns "
+                          "*_calibration_sd of sweep.csv, a band in sweep.png); linear propagation costs 2 work runs "
+                          "per parameter per point");
   sub->callback([command] {
     SweepCommand c = *command;
     c.show_progress = !c.quiet && ProgressBar::terminal_allows();

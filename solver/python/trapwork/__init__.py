@@ -657,7 +657,8 @@ def work(scenario, tolerance=None, search_budget=2000, progress=None, uncertaint
         the trap's calibration uncertainty carried forward, as ``trapwork work --uncertainty``;
         ``result.spread`` then holds <W>, sd(W), Delta F and the strong lines' probabilities
         with their standard deviations (None where not computed), and the table
-        ``lines_uncertainty`` the lines with theirs.
+        ``lines_uncertainty`` the lines with theirs. None with a scenario that has an
+        [uncertainty] table: that table is carried forward the same way; "none": no spread.
     uncertainty_method: "auto", "linear", "sampling" or "both" (``--uncertainty-method``).
     uncertainty_samples, uncertainty_seed: parameter sets drawn for sampling, and their seed.
     {progress}
@@ -735,7 +736,9 @@ def fit(data, start=None, mass=None, frequency=None, terms="frequency,quartic", 
                           provenance=(invocation, changed)))
 
 
-def compare(scenario, data, resolution=None, resamples=2000, seed=1, confidence=0.9, progress=None):
+def compare(scenario, data, resolution=None, resamples=2000, seed=1, confidence=0.9, progress=None, against=(),
+            calibration=1000, decision_confidence=0.95, fitted_parameters=None, prior=None, uncertainty=None,
+            uncertainty_samples=20, uncertainty_seed=1):
     """Measured work data against the scenario's work distribution (``trapwork compare``).
 
     scenario: a :class:`Scenario` with [protocol] and [initial].
@@ -744,6 +747,15 @@ def compare(scenario, data, resolution=None, resamples=2000, seed=1, confidence=
         file's "# resolution:" line or the scenario's [work] resolution.
     resamples, seed, confidence: the bootstrap's resamples (int), seed (int) and confidence
         level (0..1).
+    against: other models to decide between (``--against``, repeatable): Scenarios or scenario
+        files; then also table ``compare_models`` and figure "compare_models".
+    calibration: synthetic data sets per model for the likelihood-ratio p-values
+        (``--calibration``, 0: none); decision_confidence: confidence of the verdict;
+        fitted_parameters: parameters of each model fitted to these data, the scenario first
+        (``--fitted-parameters``); prior: prior weights of the models, the scenario first.
+    uncertainty: None, or the fit_summary.json of :func:`fit` (or its folder): the calibration
+        folded into each model's likelihood (``--uncertainty``), with uncertainty_samples draws
+        per model (default 20) and uncertainty_seed.
     {progress}
 
     Returns a :class:`CompareResult`: ``verdict``, table ``compare``, ``summary`` equal to
@@ -752,14 +764,26 @@ def compare(scenario, data, resolution=None, resamples=2000, seed=1, confidence=
     Raises InputError, PhysicsError; KeyboardInterrupt after Ctrl-C.
     """
     s = _scenario(scenario)
+    if isinstance(against, (str, os.PathLike, Scenario)):
+        against = [against]
+    others = [_scenario(a) for a in against]
     return CompareResult(_run(_trapwork.compare, s.text, s.name, os.fspath(data),
                               "" if resolution is None else str(resolution), int(resamples), int(seed),
                               float(confidence), progress=progress,
-                              provenance=_provenance("compare", s, data=os.fspath(data), resolution=resolution)), s)
+                              provenance=_provenance("compare", s, data=os.fspath(data), resolution=resolution,
+                                                     against=[o.name for o in others] or None,
+                                                     uncertainty=None if uncertainty is None else os.fspath(uncertainty)),
+                              against=[(o.text, o.name) for o in others], calibration=int(calibration),
+                              decision_confidence=float(decision_confidence),
+                              fitted_parameters=[int(k) for k in (fitted_parameters or [])],
+                              prior=[float(p) for p in (prior or [])],
+                              uncertainty="" if uncertainty is None else os.fspath(uncertainty),
+                              uncertainty_samples=int(uncertainty_samples), uncertainty_seed=int(uncertainty_seed)), s)
 
 
 def plan(scenario, runs=(10, 30, 100, 300, 1000), resolutions=None, target=None, experiments=1000, seed=1,
-         correct_resolution=False, synthetic_runs=0, progress=None):
+         correct_resolution=False, synthetic_runs=0, progress=None, against=None, power=0.9,
+         decision_confidence=0.95):
     """How many repetitions an experiment needs for the Jarzynski estimate (``trapwork plan``).
 
     scenario: a :class:`Scenario` with [protocol] and [initial].
@@ -769,6 +793,9 @@ def plan(scenario, runs=(10, 30, 100, 300, 1000), resolutions=None, target=None,
     experiments, seed: simulated experiments per cell and the seed.
     correct_resolution: correct the estimator for the resolution (bool).
     synthetic_runs: > 0: also draw that many runs from the model (table ``synthetic_work``).
+    against: None, or another model (a Scenario or scenario file; ``--against``): instead of the
+        Jarzynski plan, how many runs tell the two models apart (table ``plan_decision``), with
+        power (``--power``) and decision_confidence (``--decision-confidence``); one resolution.
     {progress}
 
     Returns a :class:`PlanResult`: table ``plan``, ``runs_needed`` (with ``target``), ``summary``
@@ -777,11 +804,15 @@ def plan(scenario, runs=(10, 30, 100, 300, 1000), resolutions=None, target=None,
     Raises InputError, PhysicsError; KeyboardInterrupt after Ctrl-C.
     """
     s = _scenario(scenario)
+    other = None if against is None else _scenario(against)
     return PlanResult(_run(_trapwork.plan, s.text, s.name, [int(r) for r in runs],
                            [str(r) for r in (resolutions or [])], None if target is None else float(target),
                            int(experiments), int(seed), bool(correct_resolution), int(synthetic_runs),
                            progress=progress, provenance=_provenance("plan", s, runs=tuple(runs),
-                                                                     resolutions=resolutions, target=target)), s)
+                                                                     resolutions=resolutions, target=target,
+                                                                     against=None if other is None else other.name),
+                           against=[] if other is None else [(other.text, other.name)], power=float(power),
+                           decision_confidence=float(decision_confidence)), s)
 
 
 class DesignResult(Result):
