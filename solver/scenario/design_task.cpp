@@ -308,7 +308,7 @@ void final_runs(DesignTaskOutcome& o, bool translation, const TaskHooks& hooks) 
 // P(m -> n) of both runs with the harmonic prediction of each (same end potentials, so the same
 // work value per (m, n)).
 CsvTable work_lines_table(const DesignTaskOutcome& o) {
-  const WorkRun before = o.before_run->run();
+  const WorkRun before = o.before_run->run(), after = o.after_run->run();
   const Display d = display(o.scenario);
   const std::string e = column_unit(d.e);
   CsvTable t;
