@@ -448,19 +448,27 @@ std::vector<double> wkb_level_energies(const Potential& potential, int count, do
   };
   const double v_min = v.front(), top = action(threshold);
   std::vector<double> energies;
-  double a = v_min;  // below the next level: the previous one
+  double a = v_min;           // below the next level: the previous one
+  double step = 1e-12 * (1 + std::abs(v_min));  // then the last spacing, doubled until above
   for (int level = 0; level < count; ++level) {
     const double target = si::pi * (level + 0.5);
     if (top < target) {
       energies.push_back(threshold);
       continue;
     }
-    double b = a;  // widen above the previous level until the action passes the target
-    while (action(b) < target) b = std::min(threshold, v_min + 2 * (b - v_min) + 1e-12 * (1 + std::abs(b)));
-    for (int i = 0; i < 200 && b - a > 1e-12 * (1 + std::abs(b)); ++i) {
+    step = std::max(step, 1e-12 * (1 + std::abs(a)));
+    double b = std::min(threshold, a + step);
+    while (action(b) < target) {
+      a = b;
+      step = std::max(2 * step, 1e-12 * (1 + std::abs(b)));
+      b = std::min(threshold, b + step);
+    }
+    // to 1e-9 of the energy scale: a prediction needs no more (fewer passes over the samples)
+    for (int i = 0; i < 200 && b - a > 1e-9 * (1 + std::abs(b)); ++i) {
       const double mid = 0.5 * (a + b);
       (action(mid) < target ? a : b) = mid;
     }
+    step = energies.empty() ? b - v_min : b - energies.back();
     energies.push_back(b);
     a = b;
   }

@@ -286,11 +286,24 @@ std::vector<double> broadened_density(const WorkDistribution& d, double sigma, c
   if (!(sigma > 0)) throw InputError("resolution", fmt(sigma), "an energy resolution sigma > 0");
   std::vector<double> rho(w.size(), 0.0);
   const double norm = 1 / (sigma * std::sqrt(2 * std::numbers::pi));
-  for (std::size_t i = 0; i < w.size(); ++i)
-    for (const auto& l : d.lines) {
-      const double z = (w[i] - l.work) / sigma;
-      rho[i] += l.probability * norm * std::exp(-0.5 * z * z);
+  // A line further than 40 sigma adds exactly 0 (exp(-800) underflows to 0 in double): over
+  // lines in ascending work (as work_distribution makes them) only those within 40 sigma are
+  // summed, in the same order, which gives the same numbers bit for bit.
+  const auto by_work = [](const WorkLine& a, const WorkLine& b) { return a.work < b.work; };
+  const bool sorted = std::is_sorted(d.lines.begin(), d.lines.end(), by_work);
+  for (std::size_t i = 0; i < w.size(); ++i) {
+    auto first = d.lines.begin(), last = d.lines.end();
+    if (sorted) {
+      first = std::lower_bound(first, last, w[i] - 40 * sigma,
+                               [](const WorkLine& l, double x) { return l.work < x; });
+      last = std::upper_bound(first, last, w[i] + 40 * sigma,
+                              [](double x, const WorkLine& l) { return x < l.work; });
     }
+    for (auto l = first; l != last; ++l) {
+      const double z = (w[i] - l->work) / sigma;
+      rho[i] += l->probability * norm * std::exp(-0.5 * z * z);
+    }
+  }
   return rho;
 }
 
@@ -431,12 +444,15 @@ int first_levels(const WorkRequest& request) {
 // plus the final margin), predicted from WKB energies of H_A before any level is solved; 0 (no
 // prediction) for other initial states and for hard-walled boxes. The loop itself still decides
 // from the solved energies: a prediction only says how many levels to solve at once.
-int predicted_levels(const Potential& va, const WorkRequest& request, int first) {
+// `wkb` holds the WKB energies of H_A computed so far (one run_work call's attempts share them).
+int predicted_levels(const Potential& va, const WorkRequest& request, int first, std::vector<double>& wkb) {
   if (!request.initial.is_gibbs() || request.spectrum.box) return 0;
   const int cap = request.max_initial_levels + request.final_margin;
   const double centre = request.spectrum.search_centre, half = request.spectrum.search_half_width;
-  const std::vector<double> wkb = wkb_level_energies(va, std::max(first, cap), centre - half, centre + half);
-  const Eigen::VectorXd energies = Eigen::Map<const Eigen::VectorXd>(wkb.data(), Eigen::Index(wkb.size()));
+  if (int(wkb.size()) < std::max(first, cap))
+    wkb = wkb_level_energies(va, std::max(first, cap), centre - half, centre + half);
+  const Eigen::VectorXd energies =
+      Eigen::Map<const Eigen::VectorXd>(wkb.data(), Eigen::Index(std::max(first, cap)));
   if (!(energies(energies.size() - 1) > energies(0))) return 0;  // no bound levels above the lowest
   int levels = first;
   for (int attempt = 0;; ++attempt) {
@@ -594,6 +610,7 @@ struct Propagated {
 };
 struct Carried {
   std::optional<Propagated> forward, half, reverse;
+  std::vector<double> wkb;  // WKB energies of H_A (predicted_levels)
 };
 
 // Whether a carried run was made on this grid with this many steps.
@@ -888,7 +905,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   double cutoff = 0;
   // Each Hamiltonian is solved once: the memo (run_work gives one) solves the level count the
   // loop below is predicted to settle on, and serves the smaller counts it tries first from it.
-  const int solve_levels = std::max(base_options.memo_levels, predicted_levels(va, request, levels));
+  const int solve_levels = std::max(base_options.memo_levels, predicted_levels(va, request, levels, carried.wkb));
   for (int attempt = 0;; ++attempt) {
     SpectrumRequest sr = request.spectrum;
     sr.options.levels = levels;
@@ -1183,13 +1200,13 @@ WorkRequest enlarged(WorkRequest r) {
 // when the extra arithmetic of the four solves (H_A and H_B, on the grid and on the check grid
 // of 1.5 times the points) is within 5% of the run's estimated arithmetic (cost.hpp). An
 // enlarged attempt then finds every spectrum it needs solved; the first one is served from them.
-int insured_levels(const Potential& base, const Protocol& protocol, const WorkRequest& r) {
+int insured_levels(const Potential& base, const Protocol& protocol, const WorkRequest& r, std::vector<double>& wkb) {
   const SpectrumOptions& o = r.spectrum.options;
   if (o.method == EigenMethod::hermite || o.method == EigenMethod::finite_difference) return 0;
   const Potential va = protocol.initial(base);
-  const int now = predicted_levels(va, r, first_levels(r));
+  const int now = predicted_levels(va, r, first_levels(r), wkb);
   const WorkRequest next = enlarged(r);
-  const int later = predicted_levels(va, next, first_levels(next));
+  const int later = predicted_levels(va, next, first_levels(next), wkb);
   if (now == 0 || later <= now) return 0;
   const bool known = r.spectrum.points.has_value();
   const std::size_t n = known ? *r.spectrum.points : 0;
@@ -1217,7 +1234,7 @@ WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkR
   // Spectra asked for twice (the preliminary spectrum of a fixed grid is the run's own when its
   // capped samples agree) are solved once; a caller's memo serves instead when it gives one.
   if (!r.spectrum.options.memo) r.spectrum.options.memo = std::make_shared<SpectrumMemo>();
-  r.spectrum.options.memo_levels = std::max(r.spectrum.options.memo_levels, insured_levels(base, protocol, r));
+  r.spectrum.options.memo_levels = std::max(r.spectrum.options.memo_levels, insured_levels(base, protocol, r, carried.wkb));
   for (int attempt = 0;; ++attempt) {
     WorkResult result = run_work_once(base, protocol, r, carried);
     const Diagnostics& d = result.diagnostics;
