@@ -206,8 +206,9 @@ std::vector<int> degenerate_groups(const Eigen::VectorXd& energies, double toler
 }
 
 namespace {
+// Equal but for the level count (a spectrum of more levels serves fewer).
 bool same_options(const SpectrumOptions& a, const SpectrumOptions& b) {
-  return a.levels == b.levels && a.method == b.method && a.fd_order == b.fd_order && a.dense_limit == b.dense_limit &&
+  return a.method == b.method && a.fd_order == b.fd_order && a.dense_limit == b.dense_limit &&
          a.residual_tolerance == b.residual_tolerance && a.refinement_sweeps == b.refinement_sweeps &&
          a.degeneracy_tolerance == b.degeneracy_tolerance;
 }
@@ -219,13 +220,31 @@ std::size_t bytes_of(const Spectrum& s) {
 }
 }  // namespace
 
+Spectrum lowest_levels(const Spectrum& s, int k) {
+  TRAPWORK_EXPECT(k >= 1 && k <= s.energies.size(), "lowest_levels: 1 <= k <= levels held");
+  if (k == s.energies.size()) return s;
+  Spectrum out;
+  out.grid = s.grid;
+  out.energies = s.energies.head(k);
+  out.states = s.states.leftCols(k);
+  out.residuals.assign(s.residuals.begin(), s.residuals.begin() + k);
+  out.group.assign(s.group.begin(), s.group.begin() + k);
+  out.residual_tolerance = s.residual_tolerance;
+  out.converged = int(std::count_if(out.residuals.begin(), out.residuals.end(),
+                                    [&](double x) { return x < out.residual_tolerance; }));
+  out.method = s.method;
+  out.iterations = s.iterations;
+  return out;
+}
+
 std::optional<Spectrum> SpectrumMemo::find(const Grid& grid, const std::vector<double>& v,
                                            const SpectrumOptions& options) const {
   const std::lock_guard<std::mutex> lock(mutex_);
   for (const Entry& e : entries_)
-    if (same_grid(e.grid, grid) && same_options(e.options, options) && e.v == v) {
+    if (same_grid(e.grid, grid) && same_options(e.options, options) && e.spectrum.energies.size() >= options.levels &&
+        e.v == v) {
       ++reused_;
-      return e.spectrum;
+      return lowest_levels(e.spectrum, options.levels);
     }
   return std::nullopt;
 }
@@ -233,8 +252,18 @@ std::optional<Spectrum> SpectrumMemo::find(const Grid& grid, const std::vector<d
 void SpectrumMemo::keep(const Grid& grid, const std::vector<double>& v, const SpectrumOptions& options,
                         const Spectrum& s) {
   const std::size_t bytes = bytes_of(s);
-  if (bytes > budget_) return;
   const std::lock_guard<std::mutex> lock(mutex_);
+  ++solved_;
+  if (bytes > budget_) return;
+  // an entry of fewer levels for the same problem is served by this one from now on
+  for (auto e = entries_.begin(); e != entries_.end();)
+    if (same_grid(e->grid, grid) && same_options(e->options, options) &&
+        e->spectrum.energies.size() <= s.energies.size() && e->v == v) {
+      held_ -= bytes_of(e->spectrum);
+      e = entries_.erase(e);
+    } else {
+      ++e;
+    }
   while (held_ + bytes > budget_) {
     held_ -= bytes_of(entries_.front().spectrum);
     entries_.erase(entries_.begin());
@@ -243,6 +272,11 @@ void SpectrumMemo::keep(const Grid& grid, const std::vector<double>& v, const Sp
   o.memo.reset();
   entries_.push_back({grid, v, std::move(o), s});
   held_ += bytes;
+}
+
+std::size_t SpectrumMemo::solved() const {
+  const std::lock_guard<std::mutex> lock(mutex_);
+  return solved_;
 }
 
 std::size_t SpectrumMemo::reused() const {
@@ -255,9 +289,11 @@ Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const Sp
     if (auto found = options.memo->find(grid, v, options)) return std::move(*found);
     SpectrumOptions plain = options;
     plain.memo.reset();
+    // more levels at once when asked for (at most half the points: what the grid resolves)
+    plain.levels = std::max(options.levels, std::min(options.memo_levels, int(grid.size()) / 2));
     Spectrum s = solve_spectrum(grid, v, plain);
-    options.memo->keep(grid, v, options, s);
-    return s;
+    options.memo->keep(grid, v, plain, s);
+    return lowest_levels(s, options.levels);
   }
   const int n = int(grid.size()), k = options.levels;
   TRAPWORK_EXPECT(int(v.size()) == n, "solve_spectrum: potential samples do not match the grid");
@@ -393,6 +429,50 @@ double wkb_level_energy(const Potential& potential, int level, double lo, double
     (wkb_action(s, mid) < target ? a : b) = mid;
   }
   return b;
+}
+
+std::vector<double> wkb_level_energies(const Potential& potential, int count, double lo, double hi) {
+  const double t = potential.time();  // formulas using t at the potential's own time
+  const Scan s = scan_potential(potential, lo, hi, t);
+  const double threshold = std::min(s.v.front(), s.v.back());
+  // the action sums the samples below E (as wkb_action): sorted, a sum stops at the first above
+  std::vector<double> v = s.v;
+  std::sort(v.begin(), v.end());
+  auto action = [&](double energy) {
+    double sum = 0;
+    for (double x : v) {
+      if (x >= energy) break;
+      sum += std::sqrt(2 * (energy - x));
+    }
+    return sum * s.step;
+  };
+  const double v_min = v.front(), top = action(threshold);
+  std::vector<double> energies;
+  double a = v_min;           // below the next level: the previous one
+  double step = 1e-12 * (1 + std::abs(v_min));  // then the last spacing, doubled until above
+  for (int level = 0; level < count; ++level) {
+    const double target = si::pi * (level + 0.5);
+    if (top < target) {
+      energies.push_back(threshold);
+      continue;
+    }
+    step = std::max(step, 1e-12 * (1 + std::abs(a)));
+    double b = std::min(threshold, a + step);
+    while (action(b) < target) {
+      a = b;
+      step = std::max(2 * step, 1e-12 * (1 + std::abs(b)));
+      b = std::min(threshold, b + step);
+    }
+    // to 1e-9 of the energy scale: a prediction needs no more (fewer passes over the samples)
+    for (int i = 0; i < 200 && b - a > 1e-9 * (1 + std::abs(b)); ++i) {
+      const double mid = 0.5 * (a + b);
+      (action(mid) < target ? a : b) = mid;
+    }
+    step = energies.empty() ? b - v_min : b - energies.back();
+    energies.push_back(b);
+    a = b;
+  }
+  return energies;
 }
 
 Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRequest& request) {

@@ -44,9 +44,17 @@ struct SpectrumOptions {
   // exceeds it throws PhysicsError before allocating, with the estimate and what to change.
   // The tool passes the machine's available memory; it does not change any result.
   double memory_limit = 0;
-  // Optional: spectra solved before from equal inputs (grid, samples, the options above) are
-  // returned from here instead of solved again; the results are the same either way.
+  // Optional: spectra solved before from equal inputs (grid, samples, the options above but
+  // `levels`) with at least `levels` levels are returned from here (their lowest `levels` pairs)
+  // instead of solved again. A dense solve gives the same pairs either way; a Lanczos solve of
+  // more levels gives pairs equal within the residual tolerance (measured: energies to 1e-13,
+  // states to 1e-12).
   std::shared_ptr<SpectrumMemo> memo;
+  // With a memo: solve at least this many levels (at most half the points) when a spectrum is
+  // not found, keep them, and serve this and later requests for fewer levels from them. A
+  // caller that expects to ask for more levels later (run_work enlarging its levels) asks for
+  // them at once, so that each Hamiltonian is solved once. Ignored without a memo.
+  int memo_levels = 0;
   // Optional: called at every step of the sparse eigensolver (each shift-invert application) and
   // of its refinement, so that a front end can stop a long solve (its Ctrl-C) by throwing from
   // it; the exception passes through unchanged. Not called by the dense solvers (at most
@@ -73,16 +81,19 @@ struct Spectrum {
 Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const SpectrumOptions& options);
 
 // Spectra kept for reuse by a caller that solves the same problems again: `trapwork work
-// --tolerance` repeats a run at other step counts on the same grid, and a duration sweep has
-// the same H_A and H_B at every point. A spectrum is found by exact equality of the grid, the
-// potential samples and the options. Safe to share between threads; it keeps at most `bytes`
-// of states, dropping the oldest first. Owned by the caller: the library keeps no state.
+// --tolerance` repeats a run at other step counts on the same grid, a duration sweep has the
+// same H_A and H_B at every point, and run_work's enlarged levels ask again for more. A
+// spectrum is found by exact equality of the grid, the potential samples and the options but
+// the level count, which may be larger (the lowest levels asked for are returned). Safe to share
+// between threads; it keeps at most `bytes` of states, dropping the oldest first. Owned by the
+// caller: the library keeps no state.
 class SpectrumMemo {
  public:
   explicit SpectrumMemo(std::size_t bytes = std::size_t(256) << 20) : budget_(bytes) {}
   std::optional<Spectrum> find(const Grid& grid, const std::vector<double>& v, const SpectrumOptions& options) const;
   void keep(const Grid& grid, const std::vector<double>& v, const SpectrumOptions& options, const Spectrum& s);
   std::size_t reused() const;  // spectra returned by find
+  std::size_t solved() const;  // spectra solved through the memo (kept unless above its budget)
 
  private:
   struct Entry {
@@ -93,6 +104,7 @@ class SpectrumMemo {
   };
   std::size_t budget_, held_ = 0;
   mutable std::size_t reused_ = 0;
+  std::size_t solved_ = 0;
   std::vector<Entry> entries_;  // oldest first
   mutable std::mutex mutex_;
 };
@@ -101,6 +113,9 @@ class SpectrumMemo {
 // the rounding floor of applying H in double precision (a backward-stable residual is
 // ~ eps ||H||; common practice), whichever is larger. Very fine grids raise the floor.
 double effective_tolerance(const Grid& grid, const std::vector<double>& v, double requested);
+
+// The lowest k pairs of s (1 <= k <= its levels), with their residuals, groups and converged count.
+Spectrum lowest_levels(const Spectrum& s, int k);
 
 // Groups levels whose neighbouring spacing is below tol (relative to 1 energy unit).
 std::vector<int> degenerate_groups(const Eigen::VectorXd& energies, double tolerance);
@@ -174,6 +189,9 @@ Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRe
 
 // WKB estimate of the energy of level K (sum p dx = pi (K + 1/2)), capped at the threshold.
 double wkb_level_energy(const Potential& potential, int level, double lo, double hi);
+// The same for levels 0 .. count - 1 from one scan of V, each to 1e-9 (1 + |E|) rather than
+// 1e-12 (for predictions: how many levels a thermal state needs before any is solved).
+std::vector<double> wkb_level_energies(const Potential& potential, int count, double lo, double hi);
 
 // Full pipeline: grid (automatic or fixed), eigenpairs, level table, convergence estimate,
 // warnings (unbound states asked for, states touching the grid edge, unconverged residuals).

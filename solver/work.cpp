@@ -2,10 +2,14 @@
 
 #include <algorithm>
 #include <cmath>
+#include <future>
 #include <limits>
 #include <map>
 #include <numbers>
 #include <sstream>
+#include <system_error>
+#include <tuple>
+#include <utility>
 
 #include "solver/errors.hpp"
 #include "solver/hamiltonian.hpp"
@@ -282,11 +286,24 @@ std::vector<double> broadened_density(const WorkDistribution& d, double sigma, c
   if (!(sigma > 0)) throw InputError("resolution", fmt(sigma), "an energy resolution sigma > 0");
   std::vector<double> rho(w.size(), 0.0);
   const double norm = 1 / (sigma * std::sqrt(2 * std::numbers::pi));
-  for (std::size_t i = 0; i < w.size(); ++i)
-    for (const auto& l : d.lines) {
-      const double z = (w[i] - l.work) / sigma;
-      rho[i] += l.probability * norm * std::exp(-0.5 * z * z);
+  // A line further than 40 sigma adds exactly 0 (exp(-800) underflows to 0 in double): over
+  // lines in ascending work (as work_distribution makes them) only those within 40 sigma are
+  // summed, in the same order, which gives the same numbers bit for bit.
+  const auto by_work = [](const WorkLine& a, const WorkLine& b) { return a.work < b.work; };
+  const bool sorted = std::is_sorted(d.lines.begin(), d.lines.end(), by_work);
+  for (std::size_t i = 0; i < w.size(); ++i) {
+    auto first = d.lines.begin(), last = d.lines.end();
+    if (sorted) {
+      first = std::lower_bound(first, last, w[i] - 40 * sigma,
+                               [](const WorkLine& l, double x) { return l.work < x; });
+      last = std::upper_bound(first, last, w[i] + 40 * sigma,
+                              [](double x, const WorkLine& l) { return x < l.work; });
     }
+    for (auto l = first; l != last; ++l) {
+      const double z = (w[i] - l->work) / sigma;
+      rho[i] += l->probability * norm * std::exp(-0.5 * z * z);
+    }
+  }
   return rho;
 }
 
@@ -390,6 +407,65 @@ std::vector<double> samples(const Potential& v, const std::vector<double>& x, do
   std::vector<double> xs(x);
   for (double& xi : xs) xi += shift;
   return v.evaluate(xs);
+}
+
+// first() and second() (two independent solves), at once on a thread of their own for second()
+// when threads > 1 (one after the other when 1, or when the system refuses a thread). Each
+// computes what it would alone, so results do not depend on `threads`. An exception from
+// either passes through (first()'s when both throw, after second() has ended).
+template <class First, class Second>
+auto concurrently(int threads, const First& first, const Second& second) {
+  using A = decltype(first());
+  using B = decltype(second());
+  std::future<B> later;
+  if (threads > 1) {
+    try {
+      later = std::async(std::launch::async, second);
+    } catch (const std::system_error&) {  // no thread to be had: one after the other
+    }
+  }
+  if (!later.valid()) {
+    A a = first();
+    return std::pair<A, B>(std::move(a), second());
+  }
+  A a = first();
+  return std::pair<A, B>(std::move(a), later.get());
+}
+
+// The level count run_work_once's loop tries first.
+int first_levels(const WorkRequest& request) {
+  const int levels = std::max(request.spectrum.options.levels,
+                              std::min(request.max_initial_levels, 20) + request.final_margin);
+  return std::max(levels, request.min_initial_levels + request.final_margin);
+}
+
+// The level count run_work_once's loop settles on for a Gibbs state (first, 2 first, ... up to
+// max_initial_levels + final_margin, the first that holds the levels the thermal tolerance keeps
+// plus the final margin), predicted from WKB energies of H_A before any level is solved; 0 (no
+// prediction) for other initial states and for hard-walled boxes. The loop itself still decides
+// from the solved energies: a prediction only says how many levels to solve at once.
+// `wkb` holds the WKB energies of H_A computed so far (one run_work call's attempts share them).
+int predicted_levels(const Potential& va, const WorkRequest& request, int first, std::vector<double>& wkb) {
+  if (!request.initial.is_gibbs() || request.spectrum.box) return 0;
+  const int cap = request.max_initial_levels + request.final_margin;
+  const double centre = request.spectrum.search_centre, half = request.spectrum.search_half_width;
+  if (int(wkb.size()) < std::max(first, cap))
+    wkb = wkb_level_energies(va, std::max(first, cap), centre - half, centre + half);
+  const Eigen::VectorXd energies =
+      Eigen::Map<const Eigen::VectorXd>(wkb.data(), Eigen::Index(std::max(first, cap)));
+  if (!(energies(energies.size() - 1) > energies(0))) return 0;  // no bound levels above the lowest
+  int levels = first;
+  for (int attempt = 0;; ++attempt) {
+    const Eigen::VectorXd held = energies.head(std::min<Eigen::Index>(levels, energies.size()));
+    InitialWeights w = initial_weights(request.initial, held, request.thermal_tolerance, request.max_initial_levels);
+    if (int(w.weights.size()) < request.min_initial_levels && request.min_initial_levels <= levels) {
+      w = initial_weights(request.initial, held, 0.0, request.min_initial_levels);
+      w.choice.reached = w.choice.left_out < request.thermal_tolerance;
+    }
+    const bool enough = w.choice.reached && w.choice.kept + request.final_margin <= levels;
+    if (enough || attempt >= 3 || levels >= cap) return levels;
+    levels = std::min(2 * levels, cap);
+  }
 }
 
 Spectrum spectrum_on(const Grid& grid, std::vector<double> v, const SpectrumOptions& options, double cutoff) {
@@ -534,6 +610,7 @@ struct Propagated {
 };
 struct Carried {
   std::optional<Propagated> forward, half, reverse;
+  std::vector<double> wkb;  // WKB energies of H_A (predicted_levels)
 };
 
 // Whether a carried run was made on this grid with this many steps.
@@ -805,8 +882,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   result.co_moving = co_moving;
   const SpectrumOptions base_options = request.spectrum.options;
   const bool fixed_grid = request.spectrum.extent || request.spectrum.box;
-  int levels = std::max(base_options.levels, std::min(request.max_initial_levels, 20) + request.final_margin);
-  levels = std::max(levels, request.min_initial_levels + request.final_margin);
+  int levels = first_levels(request);
   // The sizes of the run on a grid (cost.hpp), for its memory check and its estimate.
   auto run_sizes = [&](const Grid& g, int spectrum_levels, int steps) {
     WorkSizes z;
@@ -827,13 +903,20 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   InitialWeights wa;
   Grid grid = Grid::periodic(0, 1, 4);
   double cutoff = 0;
+  // Each Hamiltonian is solved once: the memo (run_work gives one) solves the level count the
+  // loop below is predicted to settle on, and serves the smaller counts it tries first from it.
+  const int solve_levels = std::max(base_options.memo_levels, predicted_levels(va, request, levels, carried.wkb));
   for (int attempt = 0;; ++attempt) {
     SpectrumRequest sr = request.spectrum;
     sr.options.levels = levels;
-    const SpectrumResult ra = compute_spectrum(va, sr);
+    sr.options.memo_levels = solve_levels;
     SpectrumRequest sr_b = sr;  // a fixed extent is the frame's: V_B sits displaced in the lab
     if (co_moving && sr_b.extent) sr_b.extent = std::make_pair(sr_b.extent->first + displacement, sr_b.extent->second + displacement);
-    const SpectrumResult rb = compute_spectrum(vb, sr_b);
+    // H_A and H_B (each on its grid and its finer check grid) at once on the threads given
+    const auto spectra = concurrently(
+        request.threads, [&] { return compute_spectrum(va, sr); }, [&] { return compute_spectrum(vb, sr_b); });
+    const SpectrumResult& ra = spectra.first;
+    const SpectrumResult& rb = spectra.second;
     cutoff = std::max(ra.energy_cutoff, rb.energy_cutoff);
     result.diagnostics.grid_convergence =  // NaN: not checked ([grid] convergence_check = false)
         ra.convergence.done && rb.convergence.done
@@ -863,8 +946,9 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
                  "refused before computing");
     const auto x = grid.points();
     sr.options.levels = levels;
-    sa = spectrum_on(grid, samples(va, x), sr.options, cutoff);
-    sb = spectrum_on(grid, samples(vb, x, displacement), sr.options, cutoff);
+    std::tie(sa, sb) = concurrently(
+        request.threads, [&] { return spectrum_on(grid, samples(va, x), sr.options, cutoff); },
+        [&] { return spectrum_on(grid, samples(vb, x, displacement), sr.options, cutoff); });
     wa = initial_weights(request.initial, sa.energies, request.thermal_tolerance, request.max_initial_levels);
     if (wa.gibbs && int(wa.weights.size()) < request.min_initial_levels && request.min_initial_levels <= levels) {
       // more levels than the thermal tail needs: the reverse run leaves the first ones (p_R(>=K))
@@ -993,6 +1077,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
     const auto x = grid_r.points();
     SpectrumOptions options = base_options;
     options.levels = levels;
+    options.memo_levels = solve_levels;
     const Spectrum rb = co_moving ? spectrum_on(grid_r, samples(vb, x), options, cutoff) : sb;
     const Spectrum ra = co_moving ? spectrum_on(grid_r, samples(va, x, -displacement), options, cutoff) : sa;
     const InitialWeights wb = initial_weights(InitialState::thermal(wa.beta), rb.energies, request.thermal_tolerance,
@@ -1097,12 +1182,59 @@ std::optional<HarmonicMoments> harmonic_moments(const Potential& base, const Pro
 // probability exceeds unresolved_tolerance, or the moments miss it, the run is repeated with
 // twice the final margin and max_initial_levels and a 1000 times tighter thermal tolerance, at
 // most twice (the cost bound); moments still missing then are a warning naming the cause.
+namespace {
+// The settings of run_work's next attempt (see run_work): twice the final margin and
+// max_initial_levels, a 1000 times tighter thermal tolerance.
+WorkRequest enlarged(WorkRequest r) {
+  r.final_margin *= 2;
+  r.thermal_tolerance /= 1e3;
+  r.max_initial_levels *= 2;
+  return r;
+}
+
+// Levels to solve at once in case run_work enlarges its levels (0: none beyond the first
+// attempt's). Whether it will cannot be told before the run (the escape probabilities and the
+// moments' error come from the propagation), so the enlarged count (predicted_levels at the
+// enlarged settings) is solved at once only where that costs nothing or little: a dense solver
+// finds every level at once anyway; a Lanczos solve of a fixed grid at given steps takes it
+// when the extra arithmetic of the four solves (H_A and H_B, on the grid and on the check grid
+// of 1.5 times the points) is within 5% of the run's estimated arithmetic (cost.hpp). An
+// enlarged attempt then finds every spectrum it needs solved; the first one is served from them.
+int insured_levels(const Potential& base, const Protocol& protocol, const WorkRequest& r, std::vector<double>& wkb) {
+  const SpectrumOptions& o = r.spectrum.options;
+  if (o.method == EigenMethod::hermite || o.method == EigenMethod::finite_difference) return 0;
+  const Potential va = protocol.initial(base);
+  const int now = predicted_levels(va, r, first_levels(r), wkb);
+  const WorkRequest next = enlarged(r);
+  const int later = predicted_levels(va, next, first_levels(next), wkb);
+  if (now == 0 || later <= now) return 0;
+  const bool known = r.spectrum.points.has_value();
+  const std::size_t n = known ? *r.spectrum.points : 0;
+  if (o.method == EigenMethod::dense || (o.method == EigenMethod::automatic && known && n <= o.dense_limit))
+    return later;
+  if (!known || r.steps <= 0 || r.integrator == Integrator::eigenbasis) return 0;
+  const auto n_check = std::size_t(1.5 * double(n));
+  const double extra = 2 * (spectrum_cost(n, later, false).operations - spectrum_cost(n, now, false).operations +
+                            spectrum_cost(n_check, later, false).operations -
+                            spectrum_cost(n_check, now, false).operations);
+  WorkSizes run;
+  run.points = n;
+  run.levels = now;
+  run.kept = std::max(1, now - r.final_margin);
+  run.steps = r.steps;
+  run.substeps = r.integrator == Integrator::fourth_order ? 3 : 1;
+  run.runs = 1 + (r.time_step_check ? 2 : 0) + (r.reverse_run ? 1 : 0);
+  return extra <= 0.05 * work_cost(run).operations ? later : 0;
+}
+}  // namespace
+
 WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkRequest& request) {
   WorkRequest r = request;
   Carried carried;  // an attempt propagates only the states the previous one did not
   // Spectra asked for twice (the preliminary spectrum of a fixed grid is the run's own when its
   // capped samples agree) are solved once; a caller's memo serves instead when it gives one.
   if (!r.spectrum.options.memo) r.spectrum.options.memo = std::make_shared<SpectrumMemo>();
+  r.spectrum.options.memo_levels = std::max(r.spectrum.options.memo_levels, insured_levels(base, protocol, r, carried.wkb));
   for (int attempt = 0;; ++attempt) {
     WorkResult result = run_work_once(base, protocol, r, carried);
     const Diagnostics& d = result.diagnostics;
@@ -1118,9 +1250,7 @@ WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkR
                                   : ""));
       return result;
     }
-    r.final_margin *= 2;
-    r.thermal_tolerance /= 1e3;
-    r.max_initial_levels *= 2;
+    r = enlarged(r);
     // the reverse run says how many initial levels bound p_R(>=K): keep those (and a few more)
     if (d.truncation.reverse_tail > r.unresolved_tolerance && result.reverse)
       r.min_initial_levels = std::min(r.max_initial_levels,

@@ -165,3 +165,55 @@ TEST_CASE("a spectrum memo returns what solving again gives, and only for equal 
   solve_spectrum(g, v, o);
   CHECK(o.memo->reused() == 1);
 }
+
+TEST_CASE("a memo serves fewer levels from a spectrum of more, and solves memo_levels at once", "[spectrum]") {
+  const Grid g = Grid::periodic(-9, 9, 256);
+  const auto v = oscillator(1.0, 0.02).evaluate(g.points());
+  for (const EigenMethod method : {EigenMethod::dense, EigenMethod::lanczos}) {
+    SpectrumOptions o;
+    o.method = method;
+    o.levels = 12;
+    const Spectrum alone = solve_spectrum(g, v, o);  // no memo: 12 levels solved as asked
+    o.memo = std::make_shared<SpectrumMemo>();
+    o.memo_levels = 30;
+    const Spectrum first = solve_spectrum(g, v, o);  // solves 30, returns the lowest 12
+    CHECK(o.memo->reused() == 0);
+    REQUIRE(first.energies.size() == 12);
+    REQUIRE(first.states.cols() == 12);
+    CHECK(first.residuals.size() == 12);
+    CHECK(first.group.size() == 12);
+    CHECK(first.converged == 12);
+    SpectrumOptions more = o;
+    more.levels = 30;
+    more.memo_levels = 0;
+    const Spectrum all = solve_spectrum(g, v, more);  // found: the 30 solved before
+    CHECK(o.memo->reused() == 1);
+    REQUIRE(all.energies.size() == 30);
+    CHECK(all.converged == 30);
+    more.levels = 31;  // more than held: solved
+    CHECK(solve_spectrum(g, v, more).energies.size() == 31);
+    CHECK(o.memo->reused() == 1);
+    for (int k = 0; k < 12; ++k) {
+      if (method == EigenMethod::dense) {
+        // the dense solver finds every pair at once and keeps the lowest: the same numbers
+        CHECK(first.energies(k) == alone.energies(k));
+        CHECK(first.states.col(k) == alone.states.col(k));
+      } else {
+        // Lanczos in a wider subspace: both are refined eigenpairs to the residual tolerance
+        // (1e-9), so energies agree to its square and states to it over the gap (~1 here); the
+        // bounds are the ones "dense and Lanczos solvers agree" uses
+        CHECK(std::abs(first.energies(k) - alone.energies(k)) < 1e-10);
+        CHECK((first.states.col(k) - alone.states.col(k)).cwiseAbs().maxCoeff() < 1e-7);
+      }
+      CHECK(first.residuals[std::size_t(k)] < o.residual_tolerance);
+      CHECK(first.group[std::size_t(k)] == alone.group[std::size_t(k)]);
+    }
+  }
+  // memo_levels above half the points: capped there (what the grid resolves), not refused
+  SpectrumOptions o;
+  o.levels = 4;
+  o.memo = std::make_shared<SpectrumMemo>();
+  o.memo_levels = 1000;
+  CHECK(solve_spectrum(Grid::periodic(-9, 9, 64), oscillator(1.0).evaluate(Grid::periodic(-9, 9, 64).points()), o)
+            .energies.size() == 4);
+}

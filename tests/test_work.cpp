@@ -608,3 +608,47 @@ TEST_CASE("issue 21: an enlarged run carries the states already propagated", "[w
   CHECK(std::abs(enlarged.traces.position_mean.back() - once.traces.position_mean.back()) < 1e-10);
   CHECK(std::abs(enlarged.traces.energy_mean.back() - once.traces.energy_mean.back()) < 1e-9);
 }
+
+// run_work asks for the levels its loops settle on at once (predicted from WKB energies), and
+// for an enlarged attempt's levels where that costs nothing (a dense solver finds every level at
+// once): an enlarged run solves each Hamiltonian once. With two threads H_A and H_B are solved
+// at the same time, each as it would be alone: the same numbers bit for bit.
+TEST_CASE("run_work solves each spectrum once, and on two threads gives the same numbers", "[work][spectra]") {
+  const Potential trap({Term("trap", Shape::polynomial, {{"frequency", 1.0}, {"quartic", 0.05}})});
+  const Protocol move(4, {Schedule::linear("trap.centre", 0.0, 2.0)});
+  WorkRequest request;
+  request.initial = InitialState::thermal(0.5);
+  request.spectrum.extent = std::pair{-7.0, 9.0};
+  request.spectrum.points = 256;  // dense
+  request.integrator = Integrator::strang;
+  request.steps = 400;
+  request.co_moving = false;
+  request.reverse_run = false;
+  request.time_step_check = false;
+  request.final_margin = 2;  // far too few final levels: the run is repeated with more (issue 21)
+  request.spectrum.options.memo = std::make_shared<SpectrumMemo>();
+  const WorkResult one = run_work(trap, move, request);
+  REQUIRE(one.diagnostics.notes.size() == 1);
+  CHECK_THAT(one.diagnostics.notes[0], Catch::Contains("levels enlarged 1 time"));
+  // H_A and H_B, each on the grid and on the finer check grid: four solves for two attempts
+  // (each attempt's loop tries 22 levels first; 16 solves before)
+  CHECK(request.spectrum.options.memo->solved() == 4);
+
+  for (const EigenMethod method : {EigenMethod::dense, EigenMethod::lanczos}) {
+    WorkRequest r = request;
+    r.spectrum.options.method = method;
+    r.spectrum.options.memo = nullptr;
+    r.threads = 1;
+    const WorkResult a = run_work(trap, move, r);
+    r.threads = 2;
+    const WorkResult b = run_work(trap, move, r);
+    CHECK(a.initial_spectrum.energies == b.initial_spectrum.energies);
+    CHECK(a.initial_spectrum.states == b.initial_spectrum.states);
+    CHECK(a.final_spectrum.energies == b.final_spectrum.energies);
+    CHECK(a.final_spectrum.states == b.final_spectrum.states);
+    CHECK(a.diagnostics.grid_convergence == b.diagnostics.grid_convergence);
+    CHECK(a.forward.transitions.probability == b.forward.transitions.probability);
+    CHECK(a.distribution.mean == b.distribution.mean);
+    if (method == EigenMethod::dense) CHECK(a.forward.transitions.probability == one.forward.transitions.probability);
+  }
+}
