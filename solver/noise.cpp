@@ -239,7 +239,9 @@ Realisation propagate_realisation(const PotentialPath& path, const WorkResult& w
   const SplitOrder order = request.integrator == Integrator::strang ? SplitOrder::strang : SplitOrder::fourth;
   const int substeps = w.steps * (order == SplitOrder::fourth ? 3 : 1);
   SplitOperatorPropagator propagator(path, kept, order, 1,
-                                     substeps < planning_substeps ? FftPlanning::estimate : FftPlanning::measure);
+                                     substeps < planning_substeps || request.repeatable_transforms
+                                         ? FftPlanning::estimate
+                                         : FftPlanning::measure);
   propagate(propagator, psi, 0.0, tau, w.steps, observe_every(finite_check_interval, NoObserver{}));
   path.to_lab(psi, tau);
   Realisation r;

@@ -308,7 +308,7 @@ void final_runs(DesignTaskOutcome& o, bool translation, const TaskHooks& hooks) 
 // P(m -> n) of both runs with the harmonic prediction of each (same end potentials, so the same
 // work value per (m, n)).
 CsvTable work_lines_table(const DesignTaskOutcome& o) {
-  const WorkRun before = o.before_run->run();
+  const WorkRun before = o.before_run->run(), after = o.after_run->run();
   const Display d = display(o.scenario);
   const std::string e = column_unit(d.e);
   CsvTable t;
@@ -391,7 +391,10 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
   std::vector<RobustMember> robust = robust_members(scenario, settings);
   // Every work run counts against the bound: one per member of a robust design.
   used.options.runs_per_evaluation = std::max<int>(1, int(robust.size()));
-  DesignTaskOutcome o{scenario, used, family.description()};
+  DesignTaskOutcome o;  // named members: no partial aggregate initialiser (g++ warns of the others)
+  o.scenario = scenario;
+  o.settings = used;
+  o.family = family.description();
   o.robust = std::move(robust);
   const auto evaluator_for = [&](const Potential& potential) -> DesignEvaluator {
     if (!walls) return work_evaluator(potential, request, settings.options.objective);

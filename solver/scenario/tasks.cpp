@@ -176,6 +176,10 @@ WorkOutcome work_task(const Scenario& scenario, std::optional<double> tolerance,
                       const TaskHooks& hooks) {
   WorkRequest request = work_request(scenario);
   request.spectrum.options.interrupt = hooks.interrupt;
+  // With noise, the same transforms in every run (FFTW_ESTIMATE, as sweeps): the noiseless run
+  // and each realisation are then the same to the last digit wherever they run (another thread,
+  // another MPI rank: NoiseRequest::sharing), and so is a repeated run.
+  if (scenario.noise) request.repeatable_transforms = true;
   WorkOutcome outcome{scenario, std::nullopt, std::nullopt, std::nullopt, std::nullopt};
   if (tolerance) {
     if (!(*tolerance > 0 && *tolerance < 1))
