@@ -252,9 +252,9 @@ TEST_CASE("sweep maps of a two-parameter list (markers) and a three-parameter gr
   CHECK(maps[0].stem == "sweep_map_mean_trap.frequency_1_MHz");
   CHECK(maps[3].stem == "sweep_map_mean_trap.frequency_1.1_MHz");
   CHECK_THAT(maps[3].title, Catch::Contains("at trap.frequency = 1.1 MHz"));
-  // point p = 4 i + 2 j + k (duration i, phonons j, frequency k): point 5 is (1.3 us, 0.5, 1.1 MHz),
-  // cell x 1 (durations ascend: 0.7, 1.3), y 1; <W> 6e-3 h*MHz = 6 h*kHz
-  CHECK(std::abs(maps[3].z[1][1] - 6.0) < 1e-12);
+  // point p = 4 i + 2 j + k (duration i, phonons j, frequency k): point 3 is (1.3 us, 0.5, 1.1 MHz),
+  // cell x 1 (durations ascend: 0.7, 1.3), y 1; <W> 4e-3 h*MHz = 4 h*kHz
+  CHECK(std::abs(maps[3].z[1][1] - 4.0) < 1e-12);
   CHECK(std::abs(maps[0].z[1][1] - 3.0) < 1e-12);  // point 2: (1.3 us, 0.5, 1 MHz)
   // The contours of the 1.1 MHz maps: <W> = 2 m v^2 sin^2(omega tau / 2), v = 30 nm / tau
   // (Husimi 1953, from memory), at omega = 2 pi 1.1 MHz, in h*kHz (CODATA 2018).

@@ -1654,7 +1654,34 @@ std::vector<fs::path> plot_sweep_map(const fs::path& stem, const SweepMapFigure&
     make_room_for_left_label(p);
     plvpor(p.viewport[0], p.viewport[1], p.viewport[2], p.viewport[3]);
     plwind(p.x_lo, p.x_hi, p.y_lo, p.y_hi);
-    if (scatter) {  // markers: a disc of radius 1.4 % of the frame's width (round on the page)
+    for (std::size_t i = 0; i < (scatter ? 0 : f.x.size()); ++i)
+      for (std::size_t j = 0; j < f.y.size(); ++j) {
+        if (!std::isfinite(f.z[i][j])) continue;  // a blank cell
+        plcol1((f.z[i][j] - z_lo) / z_span);
+        PLFLT cx[4] = {xe[i], xe[i + 1], xe[i + 1], xe[i]}, cy[4] = {ye[j], ye[j], ye[j + 1], ye[j + 1]};
+        plfill(4, cx, cy);
+      }
+    if (contours) {
+      Range cr;
+      for (const auto& row : f.contour_z) cr.add(row);
+      if (cr.hi > cr.lo) {
+        const double step = nice_step(cr.hi - cr.lo, 7);
+        Vec levels;
+        for (double v = std::ceil(cr.lo / step) * step; v <= cr.hi; v += step) levels.push_back(v);
+        std::vector<const PLFLT*> rows;
+        for (const auto& row : f.contour_z) rows.push_back(row.data());
+        Vec xg = f.contour_x, yg = f.contour_y;
+        PLcGrid grid{xg.data(), yg.data(), nullptr, static_cast<PLINT>(xg.size()), static_cast<PLINT>(yg.size()), 0};
+        pen(scatter ? grey : white, scatter ? 1.5 : 2.5);  // white over cells, grey between markers
+        pl_setcontlabelformat(4, 3);
+        pl_setcontlabelparam(0.006, 0.55, 0.35, 1);
+        plcont(rows.data(), static_cast<PLINT>(xg.size()), static_cast<PLINT>(yg.size()), 1,
+               static_cast<PLINT>(xg.size()), 1, static_cast<PLINT>(yg.size()), levels.data(),
+               static_cast<PLINT>(levels.size()), pltr1, &grid);
+        pl_setcontlabelparam(0.006, 0.3, 0.1, 0);
+      }
+    }
+    if (scatter) {  // markers over the contours: a disc of radius 1.4 % of the frame's width (round on the page)
       PLFLT vx0, vx1, vy0, vy1;
       plgvpd(&vx0, &vx1, &vy0, &vy1);  // the viewport in page fractions
       PLFLT xmin_mm, xmax_mm, ymin_mm, ymax_mm;
@@ -1676,33 +1703,6 @@ std::vector<fs::path> plot_sweep_map(const fs::path& stem, const SweepMapFigure&
         }
         pen(ink, 1.0);
         plline(sides + 1, cx, cy);
-      }
-    }
-    for (std::size_t i = 0; i < (scatter ? 0 : f.x.size()); ++i)
-      for (std::size_t j = 0; j < f.y.size(); ++j) {
-        if (!std::isfinite(f.z[i][j])) continue;  // a blank cell
-        plcol1((f.z[i][j] - z_lo) / z_span);
-        PLFLT cx[4] = {xe[i], xe[i + 1], xe[i + 1], xe[i]}, cy[4] = {ye[j], ye[j], ye[j + 1], ye[j + 1]};
-        plfill(4, cx, cy);
-      }
-    if (contours) {
-      Range cr;
-      for (const auto& row : f.contour_z) cr.add(row);
-      if (cr.hi > cr.lo) {
-        const double step = nice_step(cr.hi - cr.lo, 7);
-        Vec levels;
-        for (double v = std::ceil(cr.lo / step) * step; v <= cr.hi; v += step) levels.push_back(v);
-        std::vector<const PLFLT*> rows;
-        for (const auto& row : f.contour_z) rows.push_back(row.data());
-        Vec xg = f.contour_x, yg = f.contour_y;
-        PLcGrid grid{xg.data(), yg.data(), nullptr, static_cast<PLINT>(xg.size()), static_cast<PLINT>(yg.size()), 0};
-        pen(white, 2.5);
-        pl_setcontlabelformat(4, 3);
-        pl_setcontlabelparam(0.006, 0.55, 0.35, 1);
-        plcont(rows.data(), static_cast<PLINT>(xg.size()), static_cast<PLINT>(yg.size()), 1,
-               static_cast<PLINT>(xg.size()), 1, static_cast<PLINT>(yg.size()), levels.data(),
-               static_cast<PLINT>(levels.size()), pltr1, &grid);
-        pl_setcontlabelparam(0.006, 0.3, 0.1, 0);
       }
     }
     const double distance = draw_frame(p);

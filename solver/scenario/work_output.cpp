@@ -1845,7 +1845,9 @@ std::vector<SweepMapFigure> grid_maps(const Scenario& s, const std::vector<Sweep
   std::vector<double> rest;
   if (slice) {
     const SweepAxis& third = w.axes[2];
-    over += " at " + third.parameter + " = " + third.given[*slice];
+    std::string value = third.given[*slice];
+    value.erase(std::remove(value.begin(), value.end(), '"'), value.end());  // as written, without its quotes
+    over = "at " + third.parameter + " = " + value;  // the axes name the other two
     suffix = slice_suffix(third, *slice);
     rest = {third.values[*slice]};
   }
