@@ -323,7 +323,9 @@ SweepOutcome sweep_task(const Scenario& scenario, const SweepOptions& options, c
       try {
         const auto taken = take();
         if (!taken) break;
-        const auto [k, i] = *taken;
+        // named copies, not a structured binding: the progress lambda captures k (clang 14 refuses a binding)
+        const auto k = taken->first;
+        const auto i = taken->second;
         // Each point has its own potential, protocol and request (one FFTW thread each). A
         // point that cannot be computed (bad value for that point, physics refused, a bug
         // caught by a contract check) is recorded as failed and the sweep goes on; an
