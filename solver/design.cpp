@@ -457,11 +457,17 @@ DesignResult design_protocol(const DesignFamily& family, const DesignEvaluator& 
   return result;
 }
 
-DesignEvaluator averaged_evaluator(std::vector<DesignEvaluator> members) {
+DesignEvaluator averaged_evaluator(std::vector<DesignEvaluator> members, PartSharing sharing) {
   if (members.empty()) throw ContractViolation("averaged_evaluator: no members");
-  return [members = std::move(members)](const Protocol& protocol) {
+  return [members = std::move(members), sharing = std::move(sharing)](const Protocol& protocol) {
     double sum = 0;
-    for (const auto& m : members) sum += m(protocol);
+    if (!sharing.shared()) {
+      for (const auto& m : members) sum += m(protocol);
+    } else {
+      const auto parts = shared_parts(sharing, 0, members.size(), 1,
+                                      [&](std::size_t i) { return std::vector<double>{members[i](protocol)}; });
+      for (const auto& part : parts) sum += part[0];  // the members' order, as above
+    }
     return sum / double(members.size());
   };
 }

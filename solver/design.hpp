@@ -59,6 +59,7 @@
 #include "potentials/potential.hpp"
 #include "potentials/protocol.hpp"
 #include "solver/moving_wall.hpp"
+#include "solver/sharing.hpp"
 #include "solver/work.hpp"
 
 namespace trapwork {
@@ -196,8 +197,11 @@ struct DesignHooks {
 };
 
 // Robust design over an uncertain trap: the mean of the members' objectives, equally weighted
-// (each evaluation costs one work run per member). Members' exceptions pass through.
-DesignEvaluator averaged_evaluator(std::vector<DesignEvaluator> members);
+// (each evaluation costs one work run per member), summed in the members' order. Members'
+// exceptions pass through. With `sharing` (solver/sharing.hpp) member i is run by its owner
+// process only and the objectives are exchanged at each evaluation: every process runs the
+// same search and gets the same mean, bit for bit.
+DesignEvaluator averaged_evaluator(std::vector<DesignEvaluator> members, PartSharing sharing = {});
 
 // `count` samples of a multivariate normal N(mean, covariance): mean + L z with L the Cholesky
 // factor of the covariance (Eigen's LDLT, so a semi-definite covariance from a fit with an exact

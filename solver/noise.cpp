@@ -239,7 +239,9 @@ Realisation propagate_realisation(const PotentialPath& path, const WorkResult& w
   const SplitOrder order = request.integrator == Integrator::strang ? SplitOrder::strang : SplitOrder::fourth;
   const int substeps = w.steps * (order == SplitOrder::fourth ? 3 : 1);
   SplitOperatorPropagator propagator(path, kept, order, 1,
-                                     substeps < planning_substeps ? FftPlanning::estimate : FftPlanning::measure);
+                                     substeps < planning_substeps || request.repeatable_transforms
+                                         ? FftPlanning::estimate
+                                         : FftPlanning::measure);
   propagate(propagator, psi, 0.0, tau, w.steps, observe_every(finite_check_interval, NoObserver{}));
   path.to_lab(psi, tau);
   Realisation r;
@@ -763,7 +765,14 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
                        std::to_string(w.forward.transitions.final_levels()) + " transition matrices need " +
                        text(double(noise.realisations + 1) * matrix_bytes / 1e9) + " GB, above " + text(limit / 1e9) +
                        " GB: lower the realisations (the standard errors scale as 1/sqrt(realisations))");
-  const int memory_cap = int(std::min(1e9, std::floor(limit / matrix_bytes) - 1));
+  int memory_cap = int(std::min(1e9, std::floor(limit / matrix_bytes) - 1));
+  if (targeted && noise.sharing.shared()) {  // the processes' memories differ: all grow to the least cap
+    const std::size_t processes = std::size_t(noise.sharing.processes);
+    for (const auto& c : shared_parts(noise.sharing, 0, processes, 1, [&](std::size_t) {
+           return std::vector<double>{double(memory_cap)};
+         }))
+      memory_cap = std::min(memory_cap, int(c[0]));
+  }
   const int cap = targeted ? std::min(noise.max_realisations, memory_cap) : noise.realisations;
   // runs[0] is the noiseless baseline through the same code (the reference of the extra
   // energy), recording the times the potential is sampled at; runs[1 .. R] the noisy ones
@@ -798,14 +807,14 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
         path.with_perturbation(ParameterNoise(base, protocol, noise.sources, std::move(traces), table));
     runs[std::size_t(index)] = propagate_realisation(noisy, w, v_final, request);
   };
-  // realisations first .. last - 1, spread over the threads
-  auto run_batch = [&](int first, int last) {
-    runs.resize(std::size_t(last));
+  // realisations first .. last - 1 of this process, spread over its threads
+  auto compute_batch = [&](int first, int last) {
     std::atomic<int> next{first};
     std::exception_ptr failure;
     std::mutex failure_mutex;
     auto worker = [&] {
       for (int i; (i = next++) < last;) {
+        if (!noise.sharing.mine(std::size_t(i - 1))) continue;  // another process's realisation
         try {
           run_one(i);
         } catch (...) {
@@ -827,6 +836,31 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
     worker();
     for (auto& t : pool) t.join();
     if (failure) std::rethrow_exception(failure);
+  };
+  // realisations first .. last - 1, spread over the threads (of this process: its share)
+  const Eigen::Index rows = w.forward.transitions.initial_levels(), cols = w.forward.transitions.final_levels();
+  const std::size_t width = std::size_t(rows * cols) + 1;  // a realisation as a part: P(m, n), then the direct <W>
+  auto run_batch = [&](int first, int last) {
+    runs.resize(std::size_t(last));
+    std::vector<std::vector<double>> parts(std::size_t(last - first));
+    exchange_parts(noise.sharing, parts, std::size_t(first - 1), width, [&] {
+      compute_batch(first, last);
+      if (!noise.sharing.shared()) return;
+      for (int i = first; i < last; ++i)
+        if (noise.sharing.mine(std::size_t(i - 1))) {
+          const Realisation& r = runs[std::size_t(i)];
+          std::vector<double>& part = parts[std::size_t(i - first)];
+          part.assign(r.transitions.data(), r.transitions.data() + r.transitions.size());
+          part.push_back(r.direct_mean);
+        }
+    });
+    if (!noise.sharing.shared()) return;
+    for (int i = first; i < last; ++i)
+      if (!noise.sharing.mine(std::size_t(i - 1))) {
+        const std::vector<double>& part = parts[std::size_t(i - first)];
+        runs[std::size_t(i)].transitions = Eigen::Map<const Eigen::MatrixXd>(part.data(), rows, cols);
+        runs[std::size_t(i)].direct_mean = part.back();
+      }
   };
 
   // averages and their errors over runs[1 .. R]

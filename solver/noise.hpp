@@ -33,6 +33,7 @@
 #include <string>
 #include <vector>
 
+#include "solver/sharing.hpp"
 #include "solver/work.hpp"
 
 namespace trapwork {
@@ -119,6 +120,11 @@ struct NoiseRequest {
   int max_realisations = 10000;  // >= realisations
   // Damping toward a bath (Lindblad route only; sources may then be empty).
   std::optional<BathRequest> bath;
+  // Realisations route: the realisations shared among processes (solver/sharing.hpp; part i is
+  // realisation i + 1, so process k of P runs realisations k + 1, k + 1 + P, ...). Every process
+  // runs run_noisy_work with the same inputs and ends with the same result, bit for bit that of
+  // one process. Default: one process.
+  PartSharing sharing;
 };
 
 // The largest eigenbasis (levels K) the automatic choice takes the Lindblad route with: its

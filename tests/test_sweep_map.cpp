@@ -4,10 +4,12 @@
 #include <cmath>
 #include <filesystem>
 #include <fstream>
+#include <sstream>
 #include <string>
 
 #include "solver/errors.hpp"
 #include "solver/scenario/scenario.hpp"
+#include "solver/scenario/tasks.hpp"
 #include "solver/scenario/work_output.hpp"
 #include "sweep_tables.hpp"
 
@@ -198,4 +200,100 @@ TEST_CASE("issue 20: a two-parameter sweep's table, and --shard I/N joined by tr
   // A bad shard argument.
   CHECK(run_in(dir, trapwork + " sweep grid.toml --shard 4/3 -o bad") == 2);
   CHECK_THAT(read_all(dir / "stderr.txt"), Catch::Contains("--shard") && Catch::Contains("1 <= I <= N"));
+}
+
+namespace {
+// Rows for every point of `s`: <W> = 1e-3 (p + 1) h*MHz (internal energy unit here), point `failed` failed.
+std::vector<SweepRow> fake_rows(const Scenario& s, std::size_t failed) {
+  const SweepSpec& w = *s.sweep;
+  std::vector<SweepRow> rows;
+  for (std::size_t p = 0; p < w.points(); ++p) {
+    SweepRow r = p == failed ? failed_sweep_row(w, p, "refused") : SweepRow{};
+    r.point = p;
+    r.values = w.point_values(p);
+    if (p != failed) {
+      r.mean = 1e-3 * double(p + 1);
+      r.sd = 2e-3;
+      r.jarzynski_residual = -1e-9;
+    }
+    rows.push_back(r);
+  }
+  return rows;
+}
+}  // namespace
+
+TEST_CASE("sweep maps of a two-parameter list (markers) and a three-parameter grid (one map per value of the third)",
+          "[sweep][issue20]") {
+  const fs::path dir = trapwork_test::scratch_dir("test-sweep-map", "scatter");
+  const Scenario list = read_scenario_text(base + "[sweep]\nparameters = [\"protocol.duration\", \"initial.mean_phonons\"]\n"
+                                                  "values = [[\"1 us\", 0.1], [\"2 us\", 0.2], [\"1.5 us\", 0.4]]\n", "s.toml");
+  CHECK(sweep_map_refusal(list).empty());
+  auto maps = sweep_map_figures(list, fake_rows(list, 1));
+  REQUIRE(maps.size() == 3);
+  CHECK(maps[0].stem == "sweep_map_mean");
+  CHECK(maps[0].point_x == std::vector<double>{1, 2, 1.5});
+  CHECK(maps[0].point_y == std::vector<double>{0.1, 0.2, 0.4});
+  CHECK(std::abs(maps[0].point_z[2] - 3.0) < 1e-12);  // point 2: 3e-3 h*MHz = 3 h*kHz
+  CHECK(std::isnan(maps[0].point_z[1]));             // the failed point: an open marker
+  CHECK(maps[0].contour_x.size() == 40);              // the harmonic prediction over the points' range
+  CHECK(maps[0].contour_x.front() == Approx(1.0));
+  CHECK(maps[0].contour_y.back() == Approx(0.4));
+  CHECK(plot_sweep_maps(dir, list, fake_rows(list, 1)).size() == 6);
+  CHECK(fs::file_size(dir / "sweep_map_mean.png") > 1000);
+
+  // A 2 x 2 x 2 grid: the maps over duration and phonons at each trap frequency.
+  const Scenario grid = read_scenario_text(trapwork_test::grid_sweep_text +
+                                               "[[sweep.axis]]\nparameter = \"trap.frequency\"\nvalues = [\"1 MHz\", \"1.1 MHz\"]\n",
+                                           "s.toml");
+  REQUIRE(grid.sweep->points() == 8);
+  CHECK(sweep_map_names(grid).size() == 12);  // 3 maps x 2 frequencies x png/svg
+  maps = sweep_map_figures(grid, fake_rows(grid, 8));
+  REQUIRE(maps.size() == 6);
+  CHECK(maps[0].stem == "sweep_map_mean_trap.frequency_1_MHz");
+  CHECK(maps[3].stem == "sweep_map_mean_trap.frequency_1.1_MHz");
+  CHECK_THAT(maps[3].title, Catch::Contains("at trap.frequency = 1.1 MHz"));
+  // point p = 4 i + 2 j + k (duration i, phonons j, frequency k): point 3 is (1.3 us, 0.5, 1.1 MHz),
+  // cell x 1 (durations ascend: 0.7, 1.3), y 1; <W> 4e-3 h*MHz = 4 h*kHz
+  CHECK(std::abs(maps[3].z[1][1] - 4.0) < 1e-12);
+  CHECK(std::abs(maps[0].z[1][1] - 3.0) < 1e-12);  // point 2: (1.3 us, 0.5, 1 MHz)
+  // The contours of the 1.1 MHz maps: <W> = 2 m v^2 sin^2(omega tau / 2), v = 30 nm / tau
+  // (Husimi 1953, from memory), at omega = 2 pi 1.1 MHz, in h*kHz (CODATA 2018).
+  REQUIRE(maps[3].contour_x.size() == 40);
+  const double m = 40 * 1.66053906660e-27, omega = 2 * M_PI * 1.1e6, h_kHz = 6.62607015e-34 * 1e3;
+  for (std::size_t i = 0; i < 40; i += 13) {
+    const double tau = maps[3].contour_x[i] * 1e-6, v = 30e-9 / tau;
+    CHECK(maps[3].contour_z[i][7] == Approx(2 * m * v * v * std::pow(std::sin(omega * tau / 2), 2) / h_kHz).epsilon(1e-6));
+  }
+  const fs::path slices = trapwork_test::scratch_dir("test-sweep-map", "slices");
+  CHECK(plot_sweep_maps(slices, grid, fake_rows(grid, 8)).size() == 12);
+  CHECK(fs::exists(slices / "sweep_map_sd_trap.frequency_1.1_MHz.png"));
+  CHECK(fs::exists(slices / "sweep_map_jarzynski_trap.frequency_1_MHz.svg"));
+
+  // No map, with the reason: a list over three parameters, four parameters, a list with two
+  // points at the same values; the report says so.
+  const Scenario list3 = read_scenario_text(
+      base + "[sweep]\nparameters = [\"protocol.duration\", \"initial.mean_phonons\", \"trap.frequency\"]\n"
+             "values = [[\"1 us\", 0.1, \"1 MHz\"], [\"2 us\", 0.2, \"1.1 MHz\"]]\n", "s.toml");
+  CHECK_THAT(sweep_map_refusal(list3), Catch::Contains("a list of points over three parameters"));
+  CHECK(sweep_map_figures(list3, fake_rows(list3, 9)).empty());
+  CHECK(sweep_map_names(list3).empty());
+  const Scenario four = read_scenario_text(trapwork_test::grid_sweep_text +
+                                               "[[sweep.axis]]\nparameter = \"trap.frequency\"\nvalues = [\"1 MHz\"]\n"
+                                               "[[sweep.axis]]\nparameter = \"trap.centre\"\nvalues = [\"0 nm\"]\n",
+                                           "s.toml");
+  CHECK_THAT(sweep_map_refusal(four), Catch::Contains("4 parameters"));
+  CHECK(sweep_map_figures(four, fake_rows(four, 9)).empty());
+  const Scenario twice = read_scenario_text(base + "[sweep]\nparameters = [\"protocol.duration\", \"initial.mean_phonons\"]\n"
+                                                   "values = [[\"1 us\", 0.1], [\"1 us\", 0.1]]\n", "s.toml");
+  CHECK_THAT(sweep_map_refusal(twice), Catch::Contains("two points of the list at the same values"));
+  CHECK(sweep_map_figures(twice, fake_rows(twice, 9)).empty());
+  SweepOutcome outcome;
+  outcome.scenario = list3;
+  std::ostringstream report;
+  print_sweep_report(report, outcome, {}, "");
+  CHECK_THAT(report.str(), Catch::Contains("no map: a list of points over three parameters"));
+  outcome.scenario = grid;
+  report.str("");
+  print_sweep_report(report, outcome, {}, "");
+  CHECK_THAT(report.str(), Catch::Contains("one map per value of trap.frequency"));
 }

@@ -377,7 +377,7 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
   if (!o.robust.empty()) {
     std::vector<DesignEvaluator> members;
     for (const auto& m : o.robust) members.push_back(evaluator_for(m.potential));
-    evaluate = averaged_evaluator(std::move(members));
+    evaluate = averaged_evaluator(std::move(members), settings.member_sharing);
   }
   if (settings.options.objective == DesignObjective::dissipated_work) {
     const Display d = display(scenario);
@@ -469,10 +469,15 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
     }
     o.tables.push_back(std::move(t));
   }
-  for (auto& m : o.robust) {  // each member's objective, smooth ramp and design (2 runs each)
-    const DesignEvaluator one = evaluator_for(m.potential);
-    m.objective_before = one(at_family.protocol(zero));
-    m.objective_after = one(at_family.protocol(o.result.amplitudes));
+  {  // each member's objective, smooth ramp and design (2 runs each), by its owner process
+    const auto objectives = shared_parts(settings.member_sharing, 0, o.robust.size(), 2, [&](std::size_t i) {
+      const DesignEvaluator one = evaluator_for(o.robust[i].potential);
+      return std::vector<double>{one(at_family.protocol(zero)), one(at_family.protocol(o.result.amplitudes))};
+    });
+    for (std::size_t i = 0; i < o.robust.size(); ++i) {
+      o.robust[i].objective_before = objectives[i][0];
+      o.robust[i].objective_after = objectives[i][1];
+    }
   }
   const bool translation = !walls && at_protocol.translation(o.scenario.potential).has_value();
   o.designed_text = designed_scenario_text(o.scenario, settings.scenario_text, o.tables, translation, o.family,

@@ -38,6 +38,11 @@ struct DesignSettings {
   std::vector<std::string> robust_variants;
   std::string robust_fit, robust_term;
   int robust_samples = 8;
+  // A robust design's members shared among processes (the command line's MPI layer;
+  // solver/sharing.hpp): at each evaluation and for the members' final objectives each process
+  // runs its own members. Every process runs the whole task and gets the same outcome. A design
+  // without members has nothing to share.
+  PartSharing member_sharing;
 };
 
 // One member of a robust design: its label, its potential (internal units of the scenario) and

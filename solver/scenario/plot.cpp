@@ -1666,12 +1666,21 @@ void map_colours() {
 
 std::vector<fs::path> plot_sweep_map(const fs::path& stem, const SweepMapFigure& f) {
   const std::string name = "sweep map " + f.stem;
-  if (f.x.empty() || f.y.empty()) bad_data(name, "no cells");
-  if (f.z.size() != f.x.size()) bad_data(name, "z has " + std::to_string(f.z.size()) + " rows for " + std::to_string(f.x.size()) + " x values");
-  for (const auto& row : f.z)
-    if (row.size() != f.y.size()) bad_data(name, "a row of z differs in length from y");
+  const bool scatter = !f.point_x.empty();
   Range zr;
-  for (const auto& row : f.z) zr.add(row);
+  if (scatter) {
+    if (f.point_y.size() != f.point_x.size() || f.point_z.size() != f.point_x.size())
+      bad_data(name, "point_x, point_y and point_z differ in length");
+    for (std::size_t i = 0; i < f.point_x.size(); ++i)
+      if (!std::isfinite(f.point_x[i]) || !std::isfinite(f.point_y[i])) bad_data(name, "a point off the axes (not finite)");
+    zr.add(f.point_z);
+  } else {
+    if (f.x.empty() || f.y.empty()) bad_data(name, "no cells");
+    if (f.z.size() != f.x.size()) bad_data(name, "z has " + std::to_string(f.z.size()) + " rows for " + std::to_string(f.x.size()) + " x values");
+    for (const auto& row : f.z)
+      if (row.size() != f.y.size()) bad_data(name, "a row of z differs in length from y");
+    for (const auto& row : f.z) zr.add(row);
+  }
   if (!zr.valid()) bad_data(name, "no finite value to colour");
   const bool contours = !f.contour_x.empty() && !f.contour_y.empty();
   if (contours) {
@@ -1682,7 +1691,18 @@ std::vector<fs::path> plot_sweep_map(const fs::path& stem, const SweepMapFigure&
         if (!std::isfinite(v)) bad_data(name, "contour values must be finite");
     }
   }
-  const Vec xe = cell_edges(f.x), ye = cell_edges(f.y);
+  Vec xe, ye;  // the axes' ends: cell edges, or for a scatter map the points' range with a margin
+  if (scatter) {
+    Range xr, yr;
+    xr.add(f.point_x);
+    yr.add(f.point_y);
+    const Range xp = xr.padded(0.08), yp = yr.padded(0.08);
+    xe = {xp.lo, xp.hi};
+    ye = {yp.lo, yp.hi};
+  } else {
+    xe = cell_edges(f.x);
+    ye = cell_edges(f.y);
+  }
   const double z_lo = zr.lo, z_span = zr.hi > zr.lo ? zr.hi - zr.lo : 1.0;
   return write_png_and_svg(stem, [&] {
     figure_title(f.title);
@@ -1691,7 +1711,7 @@ std::vector<fs::path> plot_sweep_map(const fs::path& stem, const SweepMapFigure&
     make_room_for_left_label(p);
     plvpor(p.viewport[0], p.viewport[1], p.viewport[2], p.viewport[3]);
     plwind(p.x_lo, p.x_hi, p.y_lo, p.y_hi);
-    for (std::size_t i = 0; i < f.x.size(); ++i)
+    for (std::size_t i = 0; i < (scatter ? 0 : f.x.size()); ++i)
       for (std::size_t j = 0; j < f.y.size(); ++j) {
         if (!std::isfinite(f.z[i][j])) continue;  // a blank cell
         plcol1((f.z[i][j] - z_lo) / z_span);
@@ -1709,13 +1729,37 @@ std::vector<fs::path> plot_sweep_map(const fs::path& stem, const SweepMapFigure&
         for (const auto& row : f.contour_z) rows.push_back(row.data());
         Vec xg = f.contour_x, yg = f.contour_y;
         PLcGrid grid{xg.data(), yg.data(), nullptr, static_cast<PLINT>(xg.size()), static_cast<PLINT>(yg.size()), 0};
-        pen(white, 2.5);
+        pen(scatter ? grey : white, scatter ? 1.5 : 2.5);  // white over cells, grey between markers
         pl_setcontlabelformat(4, 3);
         pl_setcontlabelparam(0.006, 0.55, 0.35, 1);
         plcont(rows.data(), static_cast<PLINT>(xg.size()), static_cast<PLINT>(yg.size()), 1,
                static_cast<PLINT>(xg.size()), 1, static_cast<PLINT>(yg.size()), levels.data(),
                static_cast<PLINT>(levels.size()), pltr1, &grid);
         pl_setcontlabelparam(0.006, 0.3, 0.1, 0);
+      }
+    }
+    if (scatter) {  // markers over the contours: a disc of radius 1.4 % of the frame's width (round on the page)
+      PLFLT vx0, vx1, vy0, vy1;
+      plgvpd(&vx0, &vx1, &vy0, &vy1);  // the viewport in page fractions
+      PLFLT xmin_mm, xmax_mm, ymin_mm, ymax_mm;
+      plgspa(&xmin_mm, &xmax_mm, &ymin_mm, &ymax_mm);  // the subpage in mm: its aspect
+      const double page_w = xmax_mm - xmin_mm, page_h = ymax_mm - ymin_mm;
+      const double radius_mm = 0.014 * (vx1 - vx0) * page_w;
+      const double rx = radius_mm / ((vx1 - vx0) * page_w) * (p.x_hi - p.x_lo);
+      const double ry = radius_mm / ((vy1 - vy0) * page_h) * (p.y_hi - p.y_lo);
+      constexpr int sides = 24;
+      for (std::size_t i = 0; i < f.point_x.size(); ++i) {
+        PLFLT cx[sides + 1], cy[sides + 1];
+        for (int k = 0; k <= sides; ++k) {
+          cx[k] = f.point_x[i] + rx * std::cos(2 * M_PI * k / sides);
+          cy[k] = f.point_y[i] + ry * std::sin(2 * M_PI * k / sides);
+        }
+        if (std::isfinite(f.point_z[i])) {
+          plcol1((f.point_z[i] - z_lo) / z_span);
+          plfill(sides, cx, cy);
+        }
+        pen(ink, 1.0);
+        plline(sides + 1, cx, cy);
       }
     }
     const double distance = draw_frame(p);

@@ -243,9 +243,14 @@ struct SweepMapFigure {
   std::vector<double> contour_x, contour_y;       // contour grid, ascending (empty: no contours)
   std::vector<std::vector<double>> contour_z;     // contour_z[i][j] at (contour_x[i], contour_y[j]), finite
   std::string contour_label;                      // what the contours show, written above the map
+  // A scatter map (a list of points, not a grid): when point_x is not empty, one coloured
+  // marker per point (point_z; NaN: an open marker, a failed point) instead of the cells; x, y
+  // and z are then unused.
+  std::vector<double> point_x, point_y, point_z;
 };
 // The map: cells coloured on a blue-to-yellow scale between the smallest and largest finite z
-// (one colour if they are equal), edges half way between neighbouring centres.
+// (one colour if they are equal), edges half way between neighbouring centres; or, for a
+// scatter map, markers on the same scale, the axes spanning the points with a margin.
 std::vector<std::filesystem::path> plot_sweep_map(const std::filesystem::path& stem, const SweepMapFigure& figure);
 
 }  // namespace trapwork

@@ -176,6 +176,10 @@ WorkOutcome work_task(const Scenario& scenario, std::optional<double> tolerance,
                       const TaskHooks& hooks) {
   WorkRequest request = work_request(scenario);
   request.spectrum.options.interrupt = hooks.interrupt;
+  // With noise, the same transforms in every run (FFTW_ESTIMATE, as sweeps): the noiseless run
+  // and each realisation are then the same to the last digit wherever they run (another thread,
+  // another MPI rank: NoiseRequest::sharing), and so is a repeated run.
+  if (scenario.noise) request.repeatable_transforms = true;
   WorkOutcome outcome{scenario, std::nullopt, std::nullopt, std::nullopt, std::nullopt};
   if (tolerance) {
     if (!(*tolerance > 0 && *tolerance < 1))
@@ -473,6 +477,14 @@ void print_sweep_report(std::ostream& out, const SweepOutcome& run, std::vector<
                                                          " asked for: the system refused to start more threads: " +
                                                          run.refusal + ")"));
   if (!resumed.empty()) print_row(out, "resumed", resumed);
+  if (sweep.axes.size() > 1) {
+    const std::string refusal = sweep_map_refusal(scenario);
+    print_row(out, "maps", !refusal.empty() ? "no map: " + refusal
+                           : !sweep.grid       ? "scatter maps at the listed points (sweep_map_*)"
+                           : sweep.axes.size() == 3 ? "one map per value of " + sweep.axes[2].parameter +
+                                                          " (sweep_map_*_<parameter>_<value>)"
+                                                    : "grid maps (sweep_map_*)");
+  }
   if (sweep.axes.size() == 1)
     std::sort(rows.begin(), rows.end(), [](const SweepRow& a, const SweepRow& b) { return a.values[0] < b.values[0]; });
   else

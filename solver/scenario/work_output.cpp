@@ -2,12 +2,14 @@
 #include "solver/scenario/work_output.hpp"
 
 #include <algorithm>
+#include <cctype>
 #include <chrono>
 #include <cmath>
 #include <cstdio>
 #include <cstdlib>
 #include <limits>
 #include <numeric>
+#include <optional>
 
 #include "solver/errors.hpp"
 #include "solver/harmonic_reference.hpp"
@@ -23,6 +25,7 @@ using json = nlohmann::ordered_json;
 namespace {
 
 constexpr double nan_value = std::numeric_limits<double>::quiet_NaN();
+constexpr double inf_value = std::numeric_limits<double>::infinity();
 
 json number_or_null(double v) {
   return std::isfinite(v) ? json(v) : json(nullptr);
@@ -1768,16 +1771,93 @@ std::vector<fs::path> plot_sweep_figure(const fs::path& folder, const Scenario& 
   return plot_sweep(folder / "sweep", sweep_figure(s, rows));
 }
 
-std::vector<std::string> sweep_map_names() {
-  std::vector<std::string> names;
-  for (const char* stem : {"sweep_map_mean", "sweep_map_sd", "sweep_map_jarzynski"})
-    for (const char* ext : {".png", ".svg"}) names.push_back(std::string(stem) + ext);
-  return names;
+namespace {
+
+// A piece of a file name from a parameter or a value as written: letters, digits, '.' and '-'
+// kept, every run of other characters one '_' ("0.01 h*Hz/nm^4" -> "0.01_h_Hz_nm_4").
+std::string file_piece(const std::string& text) {
+  std::string out;
+  for (char c : text) {
+    if (std::isalnum(static_cast<unsigned char>(c)) || c == '.' || c == '-')
+      out += c;
+    else if (!out.empty() && out.back() != '_')
+      out += '_';
+  }
+  while (!out.empty() && out.back() == '_') out.pop_back();
+  return out;
 }
 
-std::vector<SweepMapFigure> sweep_map_figures(const Scenario& s, const std::vector<SweepRow>& rows) {
+std::string axis_label(const SweepAxis& axis) {
+  return axis.parameter + " (" +
+         (!axis.unit.empty() ? axis.unit : axis.dimension == Dimension::none() ? "dimensionless" : "internal units") + ")";
+}
+
+// The harmonic prediction of <W> and sd(W) on a 40 x 40 grid over [x0, x1] x [y0, y1] (display
+// units of the axes a and b), with the values `rest` (internal) of the further axes, as the
+// contours of `mean` and `sd` where it exists at every node (a partial prediction is not drawn).
+void add_harmonic_contours(const Scenario& s, const SweepAxis& a, const SweepAxis& b, const std::vector<double>& rest,
+                           double x0, double x1, double y0, double y1, SweepMapFigure& mean, SweepMapFigure& sd) {
+  if (!(x1 > x0 && y1 > y0)) return;
+  const Display d = display(s);
+  constexpr int n = 40;
+  std::vector<double> cx, cy;
+  for (int i = 0; i < n; ++i) {
+    cx.push_back(x0 + (x1 - x0) * i / (n - 1));
+    cy.push_back(y0 + (y1 - y0) * i / (n - 1));
+  }
+  std::vector<std::vector<double>> hm(n, std::vector<double>(n)), hs = hm;
+  std::string model;
+  bool complete = true;
+  for (int i = 0; i < n && complete; ++i)
+    for (int j = 0; j < n && complete; ++j) {
+      std::vector<double> values = {cx[i] * a.internal_per_unit, cy[j] * b.internal_per_unit};
+      values.insert(values.end(), rest.begin(), rest.end());
+      const auto [m, sdv] = harmonic_at(s, values, model);
+      hm[i][j] = d.energy(m);
+      hs[i][j] = d.energy(sdv);
+      complete = std::isfinite(hm[i][j]) && std::isfinite(hs[i][j]);
+    }
+  if (!complete) return;
+  mean.contour_x = sd.contour_x = cx;
+  mean.contour_y = sd.contour_y = cy;
+  mean.contour_z = hm;
+  sd.contour_z = hs;
+  mean.contour_label = "harmonic prediction of <W>, " + model;
+  sd.contour_label = "harmonic prediction of sd(W), " + model;
+}
+
+// The three figures of a map (mean, sd, Jarzynski) named and titled alike: the Jarzynski map
+// only where a residual is finite.
+std::vector<SweepMapFigure> map_triple(const Scenario& s, const std::string& suffix, const std::string& over,
+                                       SweepMapFigure mean) {
+  const Display d = display(s);
+  mean.stem = "sweep_map_mean" + suffix;
+  mean.title = "mean work <W> " + over;
+  mean.colour_label = "<W> (" + d.e + ")";
+  SweepMapFigure sd = mean, jarzynski = mean;
+  sd.stem = "sweep_map_sd" + suffix;
+  sd.title = "spread of the work sd(W) " + over;
+  sd.colour_label = "sd(W) (" + d.e + ")";
+  jarzynski.stem = "sweep_map_jarzynski" + suffix;
+  jarzynski.title = "Jarzynski residual " + over;
+  jarzynski.colour_label = "|Jarzynski residual| (dimensionless)";
+  jarzynski.contour_x.clear();
+  jarzynski.contour_y.clear();
+  jarzynski.contour_z.clear();
+  jarzynski.contour_label.clear();
+  return {mean, sd, jarzynski};
+}
+
+// The file-name suffix and title words of value k of the third axis of a three-parameter grid.
+std::string slice_suffix(const SweepAxis& third, std::size_t k) {
+  return "_" + file_piece(third.parameter) + "_" + file_piece(third.given[k]);
+}
+
+// The grid maps over axes 0 and 1 of the rows given (all of a two-parameter grid, or those of
+// value `slice` of the third axis).
+std::vector<SweepMapFigure> grid_maps(const Scenario& s, const std::vector<SweepRow>& rows,
+                                      std::optional<std::size_t> slice) {
   const SweepSpec& w = *s.sweep;
-  if (w.axes.size() != 2 || !w.grid) return {};
   const Display d = display(s);
   const SweepAxis &a = w.axes[0], &b = w.axes[1];
   // The axes' values in display units, ascending, and where each point's cell is.
@@ -1798,63 +1878,122 @@ std::vector<SweepMapFigure> sweep_map_figures(const Scenario& s, const std::vect
     if (!(x[i] > x[i - 1])) return {};  // repeated values: no map
   for (std::size_t i = 1; i < y.size(); ++i)
     if (!(y[i] > y[i - 1])) return {};
-  auto unit_label = [](const SweepAxis& axis) {
-    return axis.parameter + " (" + (!axis.unit.empty() ? axis.unit : axis.dimension == Dimension::none() ? "dimensionless" : "internal units") + ")";
-  };
   const std::vector<std::vector<double>> blank(x.size(), std::vector<double>(y.size(), nan_value));
-  SweepMapFigure mean{"sweep_map_mean", "mean work <W> over " + a.parameter + " and " + b.parameter, unit_label(a), unit_label(b),
-                      "<W> (" + d.e + ")", x, y, blank, {}, {}, {}, ""};
-  SweepMapFigure sd = mean, jarzynski = mean;
-  sd.stem = "sweep_map_sd";
-  sd.title = "spread of the work sd(W) over " + a.parameter + " and " + b.parameter;
-  sd.colour_label = "sd(W) (" + d.e + ")";
-  jarzynski.stem = "sweep_map_jarzynski";
-  jarzynski.title = "Jarzynski residual over " + a.parameter + " and " + b.parameter;
-  jarzynski.colour_label = "|Jarzynski residual| (dimensionless)";
-  bool any = false;
+  std::string over = "over " + a.parameter + " and " + b.parameter, suffix;
+  std::vector<double> rest;
+  if (slice) {
+    const SweepAxis& third = w.axes[2];
+    std::string value = third.given[*slice];
+    value.erase(std::remove(value.begin(), value.end(), '"'), value.end());  // as written, without its quotes
+    over = "at " + third.parameter + " = " + value;  // the axes name the other two
+    suffix = slice_suffix(third, *slice);
+    rest = {third.values[*slice]};
+  }
+  SweepMapFigure base{"", "", axis_label(a), axis_label(b), "", x, y, blank, {}, {}, {}, "", {}, {}, {}};
+  auto maps = map_triple(s, suffix, over, base);
+  if (x.size() >= 2 && y.size() >= 2)
+    add_harmonic_contours(s, a, b, rest, x.front(), x.back(), y.front(), y.back(), maps[0], maps[1]);
+  bool any = false, jarzynski = false;
   for (const auto& r : rows) {
     if (!r.failure.empty()) continue;
+    if (slice && w.value_index(r.point, 2) != *slice) continue;
     const std::size_t i = cell_a[w.value_index(r.point, 0)], j = cell_b[w.value_index(r.point, 1)];
-    mean.z[i][j] = d.energy(r.mean);
-    sd.z[i][j] = d.energy(r.sd);
-    jarzynski.z[i][j] = std::abs(r.jarzynski_residual);
+    maps[0].z[i][j] = d.energy(r.mean);
+    maps[1].z[i][j] = d.energy(r.sd);
+    maps[2].z[i][j] = std::abs(r.jarzynski_residual);
     any = true;
+    jarzynski = jarzynski || std::isfinite(maps[2].z[i][j]);
   }
   if (!any) return {};
-  // The harmonic prediction on a 40 x 40 grid over the axes' ranges, as contours where it
-  // exists at every node (a partial prediction is not drawn).
-  if (x.size() >= 2 && y.size() >= 2) {
-    constexpr int n = 40;
-    std::vector<double> cx, cy;
-    for (int i = 0; i < n; ++i) {
-      cx.push_back(x.front() + (x.back() - x.front()) * i / (n - 1));
-      cy.push_back(y.front() + (y.back() - y.front()) * i / (n - 1));
+  if (!jarzynski) maps.pop_back();
+  return maps;
+}
+
+// The scatter maps of a two-parameter list of points: a marker per computed point.
+std::vector<SweepMapFigure> scatter_maps(const Scenario& s, const std::vector<SweepRow>& rows) {
+  const SweepSpec& w = *s.sweep;
+  const Display d = display(s);
+  const SweepAxis &a = w.axes[0], &b = w.axes[1];
+  SweepMapFigure base{"", "", axis_label(a), axis_label(b), "", {}, {}, {}, {}, {}, {}, "", {}, {}, {}};
+  auto maps = map_triple(s, "", "at the listed points of " + a.parameter + " and " + b.parameter, base);
+  bool any = false, jarzynski = false;
+  double x0 = inf_value, x1 = -inf_value, y0 = inf_value, y1 = -inf_value;
+  for (const auto& r : rows) {
+    const double x = conversion_rounded(w.value(r.point, 0) / a.internal_per_unit);
+    const double y = conversion_rounded(w.value(r.point, 1) / b.internal_per_unit);
+    const bool ok = r.failure.empty();
+    const double z[3] = {ok ? d.energy(r.mean) : nan_value, ok ? d.energy(r.sd) : nan_value,
+                         ok ? std::abs(r.jarzynski_residual) : nan_value};
+    for (int k = 0; k < 3; ++k) {
+      maps[std::size_t(k)].point_x.push_back(x);
+      maps[std::size_t(k)].point_y.push_back(y);
+      maps[std::size_t(k)].point_z.push_back(z[k]);
     }
-    std::vector<std::vector<double>> hm(n, std::vector<double>(n)), hs = hm;
-    std::string model;
-    bool complete = true;
-    for (int i = 0; i < n && complete; ++i)
-      for (int j = 0; j < n && complete; ++j) {
-        const auto [m, sdv] = harmonic_at(s, {cx[i] * a.internal_per_unit, cy[j] * b.internal_per_unit}, model);
-        hm[i][j] = d.energy(m);
-        hs[i][j] = d.energy(sdv);
-        complete = std::isfinite(hm[i][j]) && std::isfinite(hs[i][j]);
-      }
-    if (complete) {
-      mean.contour_x = sd.contour_x = cx;
-      mean.contour_y = sd.contour_y = cy;
-      mean.contour_z = hm;
-      sd.contour_z = hs;
-      mean.contour_label = "harmonic prediction of <W>, " + model;
-      sd.contour_label = "harmonic prediction of sd(W), " + model;
-    }
+    any = any || ok;
+    jarzynski = jarzynski || std::isfinite(z[2]);
+    x0 = std::min(x0, x), x1 = std::max(x1, x), y0 = std::min(y0, y), y1 = std::max(y1, y);
   }
-  std::vector<SweepMapFigure> maps = {mean, sd};
-  for (const auto& row : jarzynski.z)
-    if (any_finite(row)) {
-      maps.push_back(jarzynski);
-      break;
+  if (!any) return {};
+  add_harmonic_contours(s, a, b, {}, x0, x1, y0, y1, maps[0], maps[1]);
+  if (!jarzynski) maps.pop_back();
+  return maps;
+}
+
+}  // namespace
+
+std::string sweep_map_refusal(const Scenario& s) {
+  const SweepSpec& w = *s.sweep;
+  const std::size_t n = w.axes.size();
+  if (n == 1) return "one parameter (sweep.png instead)";
+  if (n > 3) return std::to_string(n) + " parameters (maps are drawn for two parameters, or a grid of three)";
+  if (n == 3 && !w.grid)
+    return "a list of points over three parameters (maps are drawn for two parameters, or a grid of three: one map "
+           "per value of the third)";
+  if (w.grid) {
+    for (std::size_t k = 0; k < n; ++k) {
+      std::vector<double> v = w.axes[k].values;
+      std::sort(v.begin(), v.end());
+      if (std::adjacent_find(v.begin(), v.end()) != v.end())
+        return "a value of " + w.axes[k].parameter + " repeated on the grid";
     }
+    if (n == 3)
+      for (std::size_t i = 0; i < w.axes[2].given.size(); ++i)
+        for (std::size_t j = 0; j < i; ++j)
+          if (slice_suffix(w.axes[2], i) == slice_suffix(w.axes[2], j))
+            return "the values " + w.axes[2].given[j] + " and " + w.axes[2].given[i] + " of " + w.axes[2].parameter +
+                   " give one file name";
+    return "";
+  }
+  std::vector<std::pair<double, double>> at;
+  for (std::size_t p = 0; p < w.points(); ++p) at.emplace_back(w.value(p, 0), w.value(p, 1));
+  std::sort(at.begin(), at.end());
+  if (std::adjacent_find(at.begin(), at.end()) != at.end())
+    return "two points of the list at the same values of " + w.axes[0].parameter + " and " + w.axes[1].parameter;
+  return "";
+}
+
+std::vector<std::string> sweep_map_names(const Scenario& s) {
+  std::vector<std::string> names;
+  if (!s.sweep || !sweep_map_refusal(s).empty()) return names;
+  std::vector<std::string> suffixes = {""};
+  if (s.sweep->axes.size() == 3) {
+    suffixes.clear();
+    for (std::size_t k = 0; k < s.sweep->axes[2].values.size(); ++k) suffixes.push_back(slice_suffix(s.sweep->axes[2], k));
+  }
+  for (const char* stem : {"sweep_map_mean", "sweep_map_sd", "sweep_map_jarzynski"})
+    for (const auto& suffix : suffixes)
+      for (const char* ext : {".png", ".svg"}) names.push_back(std::string(stem) + suffix + ext);
+  return names;
+}
+
+std::vector<SweepMapFigure> sweep_map_figures(const Scenario& s, const std::vector<SweepRow>& rows) {
+  const SweepSpec& w = *s.sweep;
+  if (!sweep_map_refusal(s).empty()) return {};
+  if (!w.grid) return scatter_maps(s, rows);
+  if (w.axes.size() == 2) return grid_maps(s, rows, std::nullopt);
+  std::vector<SweepMapFigure> maps;
+  for (std::size_t k = 0; k < w.axes[2].values.size(); ++k)
+    for (auto& m : grid_maps(s, rows, k)) maps.push_back(std::move(m));
   return maps;
 }
 

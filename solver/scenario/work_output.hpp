@@ -228,16 +228,26 @@ CsvTable sweep_table(const Scenario& scenario, std::vector<SweepRow> rows, std::
 SweepFigure sweep_figure(const Scenario& scenario, const std::vector<SweepRow>& rows);
 std::vector<std::filesystem::path> plot_sweep_figure(const std::filesystem::path& folder, const Scenario& scenario,
                                                      const std::vector<SweepRow>& rows);
-// A sweep over a grid of two parameters: the maps of <W>, sd(W) and |Jarzynski residual| over
-// the two axes (colour, one cell per point; a failed point is a blank cell), with the harmonic
-// prediction's <W> and sd(W) as contours where it exists (harmonic_moments on a 40 x 40 grid
-// spanning the axes). Empty for other sweeps (one parameter, three or more, a list of points).
+// The maps of a sweep over several parameters: <W>, sd(W) and |Jarzynski residual| (the last
+// only where a residual is finite), with the harmonic prediction's <W> and sd(W) as contours
+// where it exists (harmonic_moments on a 40 x 40 grid spanning the axes, drawn only when it
+// exists at every node).
+// - a grid of two parameters: sweep_map_mean/sd/jarzynski, one coloured cell per point (a
+//   failed point is a blank cell);
+// - a list of points over two parameters: the same files as scatter maps, one coloured marker
+//   per computed point (a failed point an open marker);
+// - a grid of three: those maps over the first two for each value of the third, in files named
+//   by it, sweep_map_mean_<parameter>_<value as written> (file_piece: "trap.quartic_0.01_h_Hz_nm_4").
+// Empty for other sweeps (sweep_map_refusal says why) or when no point is computed.
 std::vector<SweepMapFigure> sweep_map_figures(const Scenario& scenario, const std::vector<SweepRow>& rows);
-// Writes sweep_map_mean, sweep_map_sd and sweep_map_jarzynski (.png/.svg) into `folder`;
-// none for a sweep without maps. Returns the paths written.
+// Why a sweep has no maps ("" when it has them): one parameter, four or more, a list over
+// three, a value repeated on a grid, two points of a list at the same values, two values of a
+// third axis that give one file name.
+std::string sweep_map_refusal(const Scenario& scenario);
+// Writes the maps (.png/.svg) into `folder`; none for a sweep without maps. Returns the paths written.
 std::vector<std::filesystem::path> plot_sweep_maps(const std::filesystem::path& folder, const Scenario& scenario,
                                                    const std::vector<SweepRow>& rows);
-// The file stems plot_sweep_maps writes (for OutputRun's list of outputs).
-std::vector<std::string> sweep_map_names();
+// The file names plot_sweep_maps may write for this scenario (for OutputRun's list of outputs).
+std::vector<std::string> sweep_map_names(const Scenario& scenario);
 
 }  // namespace trapwork

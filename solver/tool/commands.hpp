@@ -124,8 +124,8 @@ void add_sweep_command(CLI::App& app);
 // Under mpirun (a build with MPI) rank 0 runs this with the points shared among the ranks
 // (sweep_points.hpp); the other ranks compute and print nothing.
 void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostream& progress);
-class SweepWorld;
-void run_sweep_in_world(const SweepCommand& command, const SweepWorld& world, std::ostream& out,
+class MpiWorld;
+void run_sweep_in_world(const SweepCommand& command, const MpiWorld& world, std::ostream& out,
                         std::ostream& progress);
 
 // trapwork merge OUT SHARD_FOLDER...: the shards' points (sweep --shard) joined into OUT's

@@ -6,10 +6,17 @@
 #include "solver/scenario/design_task.hpp"
 #include "solver/scenario/progress.hpp"
 #include "solver/tool/commands.hpp"
+#include "solver/tool/sweep_points.hpp"
 
 namespace trapwork {
 
-DesignCommandOutcome run_design_command(const DesignCommand& command, std::ostream& out, std::ostream& progress) {
+namespace {
+
+// Under `mpirun -n P` (P > 1) a robust design's members are shared among the ranks
+// (mpi_part_sharing): every rank runs the same search, rank 0 alone writes and reports. A
+// design without members has nothing to share: rank 0 runs it and the others end at once.
+DesignCommandOutcome run_design_in_world(const DesignCommand& command, const MpiWorld& world, std::ostream& out,
+                                         std::ostream& progress) {
   DesignSettings settings;
   settings.scenario_text = set_scenario_text(command.scenario, command.set);
   Scenario scenario = load_scenario(command.scenario, command.set);
@@ -34,6 +41,12 @@ DesignCommandOutcome run_design_command(const DesignCommand& command, std::ostre
   settings.robust_fit = command.robust_fit;
   settings.robust_term = command.robust_term;
   settings.robust_samples = command.robust_samples;
+  const bool members = !settings.robust_variants.empty() || !settings.robust_fit.empty();
+  if (world.size() > 1 && members) settings.member_sharing = mpi_part_sharing(world);
+  if (world.rank() > 0) {  // an MPI rank other than 0: its share of the members, no files
+    if (members) (void)design_task(scenario, settings);
+    return {};
+  }
   std::optional<OutputRun> output;
   TaskBar bar(progress, command.show_progress);
   const TaskHooks hooks = bar.hooks(command.quiet ? std::function<void(const std::string&)>() : notice_to(progress));
@@ -45,7 +58,34 @@ DesignCommandOutcome run_design_command(const DesignCommand& command, std::ostre
   DesignCommandOutcome outcome{task.result.objective_before, task.result.objective_after,
                                int(task.result.history.size()), {}};
   outcome.files = commit_and_report(*output, task, out, command.quiet);
+  if (world.size() > 1 && !command.quiet) {
+    out << "\nMPI: " << world.size() << " ranks; ";
+    if (task.robust.empty()) {
+      out << "a design without robust members has nothing to share: rank 0 computed it alone\n";
+    } else {
+      const int M = int(task.robust.size()), P = world.size();
+      out << "the " << M << " robust members shared at every evaluation (rank k ran members k + 1, k + 1 + " << P
+          << ", ...:";
+      for (int k = 0; k < P; ++k) out << (k == 0 ? " " : ", ") << (M - k + P - 1) / P;
+      out << "), the search and the final runs computed by every rank\n";
+    }
+  }
   return outcome;
+}
+
+}  // namespace
+
+DesignCommandOutcome run_design_command(const DesignCommand& command, std::ostream& out, std::ostream& progress) {
+  MpiWorld world;
+  try {
+    return run_design_in_world(command, world, out, progress);
+  } catch (const std::exception& e) {
+    if (world.size() > 1) {  // the other ranks may wait in an exchange: end them all (the folder is released)
+      progress << "trapwork: error: rank " << world.rank() << ": " << e.what() << std::endl;
+      world.abort(2);
+    }
+    throw;
+  }
 }
 
 void add_design_command(CLI::App& app) {

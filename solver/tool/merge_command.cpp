@@ -122,7 +122,7 @@ void run_merge_command(const MergeCommand& command, std::ostream& out) {
   std::sort(done.begin(), done.end(), [](const auto& a, const auto& b) { return a.first < b.first; });
 
   std::vector<std::string> names = {"sweep.csv", "sweep-points.txt", "sweep.png", "sweep.svg"};
-  for (const auto& n : sweep_map_names()) names.push_back(n);
+  for (const auto& n : sweep_map_names(scenario)) names.push_back(n);
   OutputRun output(command.output, names, scenario_inputs(scenario), "trapwork merge " + command.output);
   write_sweep_table(output.staging(), scenario, first.fingerprint, done);
   std::vector<SweepRow> rows;

@@ -12,6 +12,7 @@
 #include <vector>
 
 #include "solver/scenario/scenario.hpp"
+#include "solver/sharing.hpp"
 #include "solver/scenario/tasks.hpp"
 #include "solver/scenario/work_output.hpp"
 
@@ -43,12 +44,12 @@ void write_sweep_table(const std::filesystem::path& folder, const Scenario& scen
 // The MPI world of this process: started (MPI_Init_thread) when the build has MPI and the
 // process was launched by mpirun/mpiexec (its environment says so), else rank 0 of 1.
 // Ended (MPI_Finalize) by the destructor.
-class SweepWorld {
+class MpiWorld {
  public:
-  SweepWorld();
-  ~SweepWorld();
-  SweepWorld(const SweepWorld&) = delete;
-  SweepWorld& operator=(const SweepWorld&) = delete;
+  MpiWorld();
+  ~MpiWorld();
+  MpiWorld(const MpiWorld&) = delete;
+  MpiWorld& operator=(const MpiWorld&) = delete;
   int rank() const { return rank_; }
   int size() const { return size_; }
   // Ends every process of the world after an error on one of them (MPI_Abort with `code`).
@@ -59,20 +60,29 @@ class SweepWorld {
   bool started_ = false;
 };
 // What rank 0 saw of an MPI sweep: the outcome (rows in arrival order; jobs: the threads of
-// each rank as asked) and, per rank (index 0 is rank 0, which computes nothing), the points it
-// computed and the seconds its threads spent computing them (summed over its threads).
+// each rank as asked) and, per rank (index 0 is rank 0), the points it computed and the
+// seconds its threads spent computing them (summed over its threads).
 struct ClusterSweepOutcome {
   SweepOutcome run;
   std::vector<std::size_t> points_per_rank;
   std::vector<double> busy_seconds;
 };
 // Rank 0 of a world of two or more: hands out the points of options.todo one at a time to the
-// ranks that ask (dynamic load balancing), calls options.on_point as their rows arrive, and
-// returns when every point is done and every rank has ended. Computes no point itself.
-ClusterSweepOutcome coordinate_sweep(const SweepWorld& world, const Scenario& scenario, const SweepOptions& options);
+// ranks that ask (dynamic load balancing) and to its own options.jobs point threads, calls
+// options.on_point (one call at a time) as the rows arrive, and returns when every point is
+// done and every rank has ended. TRAPWORK_TEST_ABORT_AT_POINT (below) applies to its threads too.
+ClusterSweepOutcome coordinate_sweep(const MpiWorld& world, const Scenario& scenario, const SweepOptions& options);
+// `trapwork work` with noise realisations and `trapwork design` with a robust design's members:
+// every rank runs the same task, and the parts (solver/sharing.hpp) are exchanged over
+// MPI_COMM_WORLD, each rank broadcasting its own in turn (a collective: every rank calls it for
+// the same parts). A rank whose parts failed sends its message; every rank then throws
+// "rank K of P failed: ...". TRAPWORK_TEST_FAIL_RANK=K (for tests only) makes rank K report a
+// failure at its first exchange. One rank: no exchange.
+PartSharing mpi_part_sharing(const MpiWorld& world);
+
 // Every other rank: sweep_task on `jobs` threads, each asking rank 0 for its next point and
 // sending back its row. TRAPWORK_TEST_ABORT_AT_POINT=N (for tests only) aborts the process
 // (std::abort) when it is given point N (0-based), as a killed rank would end.
-void serve_sweep(const SweepWorld& world, const Scenario& scenario, int jobs);
+void serve_sweep(const MpiWorld& world, const Scenario& scenario, int jobs);
 
 }  // namespace trapwork

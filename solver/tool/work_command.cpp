@@ -190,13 +190,20 @@ void write_sweep_table(const std::filesystem::path& folder, const Scenario& scen
 }
 
 namespace {
-}  // namespace
 
-void run_work_command(const WorkCommand& command, std::ostream& out, std::ostream& progress) {
+// Under `mpirun -n P` (P > 1) the noise realisations are shared among the ranks
+// (mpi_part_sharing): every rank runs the same task, rank 0 alone writes and reports. A run
+// without [noise] has nothing to share: rank 0 computes it and the others end at once.
+void run_work_in_world(const WorkCommand& command, const MpiWorld& world, std::ostream& out, std::ostream& progress) {
   Scenario scenario = load_scenario(command.scenario, command.set);
   if (!command.output.empty()) scenario.output_folder = command.output;
   (void)build_protocol(scenario);  // a missing [protocol] is reported before a missing [initial]
   (void)work_request(scenario);
+  if (world.size() > 1 && scenario.noise) scenario.noise->request.sharing = mpi_part_sharing(world);
+  if (world.rank() > 0) {  // an MPI rank other than 0: its share of the realisations, no files
+    if (scenario.noise) (void)work_task(scenario, command.tolerance, command.search_budget, {});
+    return;
+  }
   OutputRun output(scenario.output_folder, work_output_names(), scenario_inputs(scenario),
                    "trapwork work " + scenario.file);
   TaskBar bar(progress, command.show_progress);
@@ -208,7 +215,36 @@ void run_work_command(const WorkCommand& command, std::ostream& out, std::ostrea
   const auto files = output.commit(write_task_outputs(output.staging(), outcome));
   if (command.quiet) return;
   print_task_report(out, outcome);
+  if (world.size() > 1) {
+    out << "\nMPI: " << world.size() << " ranks; ";
+    if (!outcome.noise) {
+      out << "no noise realisations to share: rank 0 computed the run alone\n";
+    } else if (outcome.noise->route_name != "realisations") {
+      out << "the " << outcome.noise->route_name << " route has no realisations to share: every rank computed it\n";
+    } else {
+      const int R = outcome.noise->realisations, P = world.size();
+      out << "the " << R << " noise realisations shared (rank k computed realisations k + 1, k + 1 + " << P
+          << ", ...:";
+      for (int k = 0; k < P; ++k) out << (k == 0 ? " " : ", ") << (R - k + P - 1) / P;
+      out << "), everything else computed by every rank\n";
+    }
+  }
   print_files(out, files);
+}
+
+}  // namespace
+
+void run_work_command(const WorkCommand& command, std::ostream& out, std::ostream& progress) {
+  MpiWorld world;
+  try {
+    run_work_in_world(command, world, out, progress);
+  } catch (const std::exception& e) {
+    if (world.size() > 1) {  // the other ranks may wait in an exchange: end them all (the folder is released)
+      progress << "trapwork: error: rank " << world.rank() << ": " << e.what() << std::endl;
+      world.abort(2);
+    }
+    throw;
+  }
 }
 
 void add_work_command(CLI::App& app) {
@@ -287,7 +323,7 @@ constexpr const char* shard_scenario = "sweep-scenario.toml";
 }  // namespace
 
 void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostream& progress) {
-  SweepWorld world;
+  MpiWorld world;
   try {
     run_sweep_in_world(command, world, out, progress);
   } catch (const std::exception& e) {
@@ -299,7 +335,7 @@ void run_sweep_command(const SweepCommand& command, std::ostream& out, std::ostr
   }
 }
 
-void run_sweep_in_world(const SweepCommand& command, const SweepWorld& world, std::ostream& out,
+void run_sweep_in_world(const SweepCommand& command, const MpiWorld& world, std::ostream& out,
                         std::ostream& progress) {
   const std::string resolved = set_scenario_text(command.scenario, command.set);
   Scenario scenario = load_scenario(command.scenario, command.set);
@@ -348,7 +384,7 @@ void run_sweep_in_world(const SweepCommand& command, const SweepWorld& world, st
   // record --resume reads); the figures go through the staging folder.
   std::vector<std::string> names = {"sweep.csv", "sweep-points.txt", "sweep.png", "sweep.svg", shard_record,
                                     shard_scenario};
-  for (const auto& n : sweep_map_names()) names.push_back(n);
+  for (const auto& n : sweep_map_names(scenario)) names.push_back(n);
   if (const auto parent = std::filesystem::path(scenario.output_folder).parent_path(); shard && !parent.empty())
     std::filesystem::create_directories(parent);
   OutputRun output(scenario.output_folder, names, scenario_inputs(scenario), "trapwork sweep " + scenario.file);
@@ -449,10 +485,10 @@ void run_sweep_in_world(const SweepCommand& command, const SweepWorld& world, st
         << ", " << shard->first << " + " << shard->second << ", ... numbered from 1); join the shards with "
         << "trapwork merge OUT " << folder.string() << " ...\n";
   if (cluster) {  // who computed what: the load balance (mean over max of the ranks' busy seconds)
-    out << "\nMPI: " << world.size() << " ranks (rank 0 hands out the points, ranks 1 to " << world.size() - 1
-        << " compute them, " << run.jobs << " at a time each)\n";
+    out << "\nMPI: " << world.size() << " ranks (rank 0 hands out the points; every rank computes them, " << run.jobs
+        << " at a time each)\n";
     double total = 0, most = 0;
-    for (int r = 1; r < world.size(); ++r) {
+    for (int r = 0; r < world.size(); ++r) {
       const double b = cluster->busy_seconds[std::size_t(r)];
       out << "  rank " << r << ": " << cluster->points_per_rank[std::size_t(r)] << " points, busy "
           << short_number(b, 4) << " s\n";
@@ -461,7 +497,7 @@ void run_sweep_in_world(const SweepCommand& command, const SweepWorld& world, st
     }
     if (most > 0)
       out << "  load balance (mean / largest busy time of the computing ranks): "
-          << short_number(total / double(world.size() - 1) / most, 3) << '\n';
+          << short_number(total / double(world.size()) / most, 3) << '\n';
   }
   print_files(out, files);
 }

@@ -51,9 +51,17 @@ TEST_CASE("issue 20: mpirun -n 1, 2 and 3 give the single-process sweep table", 
     CHECK(fs::exists(dir / out / "sweep_map_mean.png"));
     const std::string report = read_all(dir / "stdout.txt");
     if (ranks > 1) {
-      // rank 0 hands out the points; the workers computed all of them between them
+      // rank 0 hands out the points and computes some too; the ranks computed all of them between them
       CHECK_THAT(report, Catch::Contains("MPI: " + std::to_string(ranks) + " ranks") &&
-                             Catch::Contains("load balance"));
+                             Catch::Contains("every rank computes them") && Catch::Contains("load balance"));
+      std::size_t computed = 0;
+      for (int r = 0; r < ranks; ++r) {
+        const std::string label = "  rank " + std::to_string(r) + ": ";
+        const auto at = report.find(label);
+        REQUIRE(at != std::string::npos);
+        computed += std::stoul(report.substr(at + label.size()));
+      }
+      CHECK(computed == grid_points);
     } else {
       CHECK_THAT(report, !Catch::Contains("MPI:"));  // one rank runs the sweep itself
     }
@@ -68,7 +76,8 @@ TEST_CASE("issue 20: a rank killed mid-sweep leaves a table that --resume with o
   REQUIRE(run_in(dir, trapwork + " sweep grid.toml -o single --jobs 1 --quiet") == 0);
   const std::string single = read_all(dir / "single" / "sweep.csv");
   // TRAPWORK_TEST_ABORT_AT_POINT (sweep_mpi.cpp, for tests only): the rank handed point 4
-  // (0-based) aborts, as a killed process ends; mpirun then ends the job.
+  // (0-based) aborts, as a killed process ends (rank 0 too, whose threads compute points);
+  // mpirun then ends the job.
   CHECK(run_in(dir, "TRAPWORK_TEST_ABORT_AT_POINT=4 " + mpirun(3) + " sweep grid.toml -o cut --jobs 1") != 0);
   const std::size_t before = points_recorded(dir / "cut" / "sweep-points.txt");
   INFO("points recorded before the abort: " << before);

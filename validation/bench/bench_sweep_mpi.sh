@@ -6,9 +6,10 @@
 # balance (mean over largest busy time of the computing ranks, from the sweep's report), and
 # checks that every run wrote the same sweep.csv as P = 1 (to the last digit).
 #
-# Rank 0 hands out the points and computes none, so P ranks compute on P - 1 workers (P = 1:
-# rank 0 computes everything itself). Rows with more ranks than cores are marked
-# "oversubscribed" (rank 0 mostly sleeps: it polls every millisecond).
+# Rank 0 hands out the points (polling every millisecond) and computes points on its own
+# thread too, so P ranks compute on P. Rows with more ranks than cores are marked
+# "oversubscribed". The machine may be shared: each row also gives the CPU seconds of the run
+# (user + system, all ranks: /usr/bin/time) and the load average before it starts.
 #
 # usage: validation/bench/bench_sweep_mpi.sh [BUILD_DIR] [WORK_DIR]
 # As root, Open MPI needs --allow-run-as-root and these two variables (harmless otherwise).
@@ -27,13 +28,16 @@ base=""
 # One row: label, output folder, then the command (its report goes to <folder>.log).
 row() {
   label=$1; out=$2; shift 2
+  load=$(cut -d' ' -f1 /proc/loadavg)
   start=$(date +%s.%N)
-  "$@" > "$out.log" 2>&1 || { echo "$label: failed (see $work/$out.log)"; cat "$out.log"; exit 1; }
+  /usr/bin/time -f '%U %S' -o "$out.cpu" "$@" > "$out.log" 2>&1 || { echo "$label: failed (see $work/$out.log)"; cat "$out.log"; exit 1; }
   end=$(date +%s.%N)
   t=$(echo "$end - $start" | bc -l)
+  cpu=$(awk '{print $1 + $2}' "$out.cpu")
   [ -z "$base" ] && base=$t
   same=$(cmp -s "$out/sweep.csv" p1/sweep.csv && echo "same table as P = 1" || echo "TABLE DIFFERS")
-  printf '%-52s %7.1f s  speed-up %5.2f  %s\n' "$label" "$t" "$(echo "$base / $t" | bc -l)" "$same"
+  printf '%-52s %7.1f s  speed-up %5.2f  CPU %6.1f s  load before %s  %s\n' "$label" "$t" "$(echo "$base / $t" | bc -l)" \
+    "$cpu" "$load" "$same"
   sed -n '/^MPI:/,/load balance/p' "$out.log" | sed 's/^/    /'
 }
 for p in 1 2 3 4; do
