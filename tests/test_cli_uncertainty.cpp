@@ -87,6 +87,33 @@ TEST_CASE("trapwork compare --against --uncertainty: the calibrated model's like
   CHECK(models[0].at("posterior").get<double>() + models[1].at("posterior").get<double>() == Approx(1.0));
 }
 
+TEST_CASE("issue 19: trapwork compare folds in each model's own [uncertainty] table", "[cli][uncertainty]") {
+  const fs::path dir = trapwork_test::scratch_dir("test-cli-uncertainty", "compare-table");
+  std::ofstream(dir / "model.toml") << trapwork_test::read_all(examples / "ion_shuttle_model.toml")
+                                    << "\n[uncertainty.sd]\n\"trap.frequency\" = \"0.4 kHz\"\n";
+  const std::string data = "'" + (examples / "ion_work_samples_fine.csv").string() + "'";
+  const std::string against = " --against '" + (examples / "ion_shuttle_harmonic.toml").string() + "'";
+  const Run compare = run("compare model.toml " + data + against + " --calibration 0 --uncertainty-samples 4 -o c", dir);
+  INFO(compare.err);
+  REQUIRE(compare.exit_code == 0);
+  const auto summary = nlohmann::json::parse(trapwork_test::read_all(dir / "c" / "compare_summary.json"));
+  const auto& models = summary.at("calibration_uncertainty").at("models");
+  REQUIRE(models.size() == 2);
+  CHECK(models[0].at("not_folded").is_null());  // the table's frequency spread, folded
+  CHECK(std::isfinite(models[0].at("log_likelihood_marginal").get<double>()));
+  CHECK(models[0].at("log_likelihood_sd_over_draws").get<double>() > 0);
+  // the harmonic model has no table: not folded, and the reason says so
+  CHECK_THAT(models[1].at("not_folded").get<std::string>(), Contains("no [uncertainty] table"));
+  // --uncertainty none leaves the table out; a fit's file beside the table is refused
+  REQUIRE(run("compare model.toml " + data + " --uncertainty none -o none", dir).exit_code == 0);
+  CHECK_FALSE(nlohmann::json::parse(trapwork_test::read_all(dir / "none" / "compare_summary.json"))
+                  .contains("calibration_uncertainty"));
+  const Run both = run("compare model.toml " + data + " --uncertainty fit_summary.json -o both", dir);
+  CHECK(both.exit_code == 2);
+  CHECK_THAT(both.err, Contains("[uncertainty]"));
+  CHECK_FALSE(fs::exists(dir / "both"));
+}
+
 TEST_CASE("trapwork work --uncertainty refuses a calibration that does not fit the scenario", "[cli][uncertainty]") {
   const fs::path dir = trapwork_test::scratch_dir("test-cli-uncertainty", "bad");
   std::ofstream(dir / "fit_summary.json") << "{\n  \"command\": \"fit\",\n  \"coefficients\": [\n    {\n"

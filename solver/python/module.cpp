@@ -174,7 +174,7 @@ std::shared_ptr<NativeResult> module_compare(const std::string& text, const std:
     settings.models.seed = seed;
     settings.uncertainty = uncertainty;
     const Scenario scenario = read_for(text, name, provenance);
-    if (!settings.uncertainty.calibration.empty()) (void)read_calibration(settings.uncertainty.calibration, scenario);
+    if (has_calibration(scenario, settings.uncertainty)) (void)calibration_of(scenario, settings.uncertainty);
     return compare_task(scenario, settings, hooks);
   };
   auto outcome = compute(task, progress, notice, "propagating");

@@ -301,7 +301,7 @@ CompareTaskOutcome compare_task(const Scenario& scenario, const CompareSettings&
   std::optional<ModelChoiceOutcome> choice;
   if (!settings.models.against.empty()) choice = choose_between(run, data, sigma, settings.models, hooks);
   std::optional<CalibratedLikelihood> calibrated;
-  if (!settings.uncertainty.calibration.empty())
+  if (has_calibration(scenario, settings.uncertainty))  // a fit's file, or the scenario's [uncertainty]
     calibrated = calibrated_likelihood(run, data, sigma, settings.models, settings.uncertainty, hooks);
   return {scenario,
           std::move(work),

@@ -624,7 +624,7 @@ CalibratedLikelihood calibrated_likelihood(const WorkRun& main_run, const WorkDa
   c.seed = settings.seed;
   std::vector<const Scenario*> scenarios{&main_run.scenario};
   for (const auto& s : models.against) scenarios.push_back(&s);
-  const Calibration main_calibration = read_calibration(settings.calibration, main_run.scenario);  // errors: the user's
+  const Calibration main_calibration = calibration_of(main_run.scenario, settings);  // errors: the user's
   c.file = main_calibration.file;
   c.notes = main_calibration.notes;
   ModelChoiceSettings quiet;  // likelihoods only: no synthetic sets
@@ -634,8 +634,20 @@ CalibratedLikelihood calibrated_likelihood(const WorkRun& main_run, const WorkDa
     c.names.push_back(fs::path(model.file).stem().string());
     std::optional<Calibration> cal;
     try {
-      cal = j == 0 ? main_calibration : read_calibration(settings.calibration, model);
-      if (j > 0 && !cal->notes.empty()) {  // another model than the one calibrated: not its spread
+      // With a fit's file every model is tried against it; without, each model carries its own
+      // [uncertainty] table (or none: not folded).
+      if (j == 0)
+        cal = main_calibration;
+      else if (!settings.calibration.empty() && model.uncertainty)
+        c.not_folded.push_back("it has an [uncertainty] table (line " + std::to_string(model.uncertainty->line) +
+                               ") besides the fit's file: two statements of one calibration");
+      else if (!settings.calibration.empty())
+        cal = read_calibration(settings.calibration, model);
+      else if (model.uncertainty)
+        cal = scenario_calibration(model);
+      else
+        c.not_folded.push_back("it has no [uncertainty] table");
+      if (j > 0 && cal && !cal->notes.empty()) {  // another model than the one calibrated: not its spread
         c.not_folded.push_back("the calibration describes other values (" + cal->notes.front() + ")");
         cal.reset();
       }

@@ -33,7 +33,7 @@ CompareOutcome run_compare_command(const CompareCommand& command, std::ostream& 
   settings.models.fitted_parameters = command.fitted_parameters;
   settings.models.prior = command.prior;
   settings.uncertainty = command.uncertainty;
-  if (!settings.uncertainty.calibration.empty()) (void)read_calibration(settings.uncertainty.calibration, scenario);
+  if (has_calibration(scenario, settings.uncertainty)) (void)calibration_of(scenario, settings.uncertainty);
   std::optional<OutputRun> output;
   TaskBar bar(progress, command.show_progress);
   const CompareTaskOutcome task =
