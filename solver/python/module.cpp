@@ -110,7 +110,8 @@ std::shared_ptr<NativeResult> module_work(const std::string& text, const std::st
 }
 
 std::shared_ptr<NativeResult> module_sweep(const std::string& text, const std::string& name, int jobs,
-                                           py::object progress, py::object notice, const Provenance& provenance) {
+                                           py::object progress, py::object notice, const Provenance& provenance,
+                                           const UncertaintySettings& uncertainty) {
   std::function<SweepOutcome(const TaskHooks&)> task = [&](const TaskHooks& hooks) {
     const Scenario scenario = read_for(text, name, provenance);
     if (!scenario.sweep)
@@ -122,6 +123,7 @@ std::shared_ptr<NativeResult> module_sweep(const std::string& text, const std::s
     (void)work_request(scenario);
     SweepOptions options;
     options.jobs = jobs;
+    options.uncertainty = uncertainty;
     return sweep_task(scenario, options, hooks);
   };
   auto outcome = compute(task, progress, notice, "sweep points");
@@ -308,8 +310,27 @@ PYBIND11_MODULE(_trapwork, m) {
   m.def("scenario_text_from_json", &text_from_json, py::arg("scenario"), py::arg("name"));
   m.def("spectrum", &module_spectrum, py::arg("text"), py::arg("name"), py::arg("levels"), py::arg("progress"),
         py::arg("notice"), py::arg("provenance"));
-  m.def("sweep", &module_sweep, py::arg("text"), py::arg("name"), py::arg("jobs"), py::arg("progress"),
-        py::arg("notice"), py::arg("provenance"));
+  // the calibration's settings as for work (below): a fit's file, or "" for the scenario's table
+  const auto uncertainty_of = [](const std::string& calibration, const std::string& method, int samples,
+                                 std::uint64_t seed) {
+    UncertaintySettings u;
+    u.calibration = calibration;
+    u.method = method;
+    u.samples = samples;
+    u.seed = seed;
+    return u;
+  };
+  m.def(
+      "sweep",
+      [uncertainty_of](const std::string& text, const std::string& name, int jobs, py::object progress,
+                       py::object notice, const Provenance& provenance, const std::string& calibration,
+                       const std::string& method, int samples, std::uint64_t seed) {
+        return module_sweep(text, name, jobs, progress, notice, provenance,
+                            uncertainty_of(calibration, method, samples, seed));
+      },
+      py::arg("text"), py::arg("name"), py::arg("jobs"), py::arg("progress"), py::arg("notice"),
+      py::arg("provenance"), py::arg("uncertainty") = std::string(), py::arg("uncertainty_method") = std::string("auto"),
+      py::arg("uncertainty_samples") = 100, py::arg("uncertainty_seed") = 1);
   m.def("fit", &module_fit, py::arg("data"), py::arg("start_text"), py::arg("start_name"), py::arg("mass"),
         py::arg("frequency"), py::arg("terms"), py::arg("progress"), py::arg("notice"), py::arg("provenance"));
   m.def(
@@ -345,15 +366,11 @@ PYBIND11_MODULE(_trapwork, m) {
         py::arg("notice"), py::arg("provenance"));
   m.def(
       "work",
-      [](const std::string& text, const std::string& name, std::optional<double> tolerance, double search_budget,
-         py::object progress, py::object notice, const Provenance& provenance, const std::string& calibration,
-         const std::string& method, int samples, std::uint64_t seed) {
-        UncertaintySettings u;
-        u.calibration = calibration;
-        u.method = method;
-        u.samples = samples;
-        u.seed = seed;
-        return module_work(text, name, tolerance, search_budget, progress, notice, provenance, u);
+      [uncertainty_of](const std::string& text, const std::string& name, std::optional<double> tolerance,
+                       double search_budget, py::object progress, py::object notice, const Provenance& provenance,
+                       const std::string& calibration, const std::string& method, int samples, std::uint64_t seed) {
+        return module_work(text, name, tolerance, search_budget, progress, notice, provenance,
+                           uncertainty_of(calibration, method, samples, seed));
       },
       py::arg("text"), py::arg("name"), py::arg("tolerance"), py::arg("search_budget"), py::arg("progress"),
       py::arg("notice"), py::arg("provenance"), py::arg("uncertainty") = std::string(),

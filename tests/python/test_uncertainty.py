@@ -91,6 +91,23 @@ def test_scenario_uncertainty_table_equals_cli(in_tmp):
     assert "[uncertainty] table" in str(caught.value)
 
 
+def test_sweep_uncertainty_keywords(in_tmp):
+    """trapwork.sweep takes the calibration as work does: the scenario's table by default, "none"
+    to leave it out, and a fit's file beside the table is refused."""
+    path = in_tmp / "calibrated_sweep.toml"
+    path.write_text(TABLE_SCENARIO + '[sweep]\nparameter = "protocol.duration"\nvalues = ["1.2 us"]\n')
+    scenario = trapwork.Scenario.from_file(path)
+    cli_ok("sweep", path, "--uncertainty-method", "linear", "-o", in_tmp / "cli")
+    with_table = trapwork.sweep(scenario, uncertainty_method="linear")
+    assert_table_equals_csv(with_table.table, in_tmp / "cli" / "sweep.csv")
+    assert with_table.table["mean_work_calibration_sd_h_kHz"][0] > 0
+    without = trapwork.sweep(scenario, uncertainty="none")
+    assert "mean_work_calibration_sd_h_kHz" not in without.table.columns
+    with pytest.raises(trapwork.InputError) as caught:
+        trapwork.sweep(scenario, uncertainty=in_tmp / "fit_summary.json")
+    assert "[uncertainty] table" in str(caught.value)
+
+
 def test_compare_against_equals_cli(in_tmp):
     model, other = EXAMPLES / "ion_shuttle_model.toml", EXAMPLES / "ion_shuttle_harmonic.toml"
     data = EXAMPLES / "ion_work_samples_fine.csv"

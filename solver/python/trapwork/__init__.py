@@ -676,17 +676,28 @@ def work(scenario, tolerance=None, search_budget=2000, progress=None, uncertaint
     s = _scenario(scenario)
     if tolerance is not None:
         tolerance = float(tolerance)
-    extra = {}
-    if uncertainty is not None:
-        extra = dict(uncertainty=os.fspath(uncertainty), uncertainty_method=str(uncertainty_method),
-                     uncertainty_samples=int(uncertainty_samples), uncertainty_seed=int(uncertainty_seed))
+    extra = _uncertainty_keywords(uncertainty, uncertainty_method, uncertainty_samples, uncertainty_seed)
     return WorkResult(_run(_trapwork.work, s.text, s.name, tolerance, float(search_budget), progress=progress,
                            provenance=_provenance("work", s, tolerance=tolerance,
                                                   search_budget=None if search_budget == 2000 else search_budget,
                                                   **extra), **extra), s)
 
 
-def sweep(scenario, jobs=None, progress=None):
+def _uncertainty_keywords(uncertainty, method, samples, seed):
+    """The calibration keywords of work and sweep as the native module takes them: the fit's file
+    when given, and the method, samples and seed when given or not the defaults (they apply to a
+    scenario's [uncertainty] table too)."""
+    extra = {} if uncertainty is None else dict(uncertainty=os.fspath(uncertainty))
+    chosen = dict(uncertainty_method=str(method), uncertainty_samples=int(samples), uncertainty_seed=int(seed))
+    defaults = dict(uncertainty_method="auto", uncertainty_samples=100, uncertainty_seed=1)
+    for key, value in chosen.items():
+        if uncertainty is not None or value != defaults[key]:
+            extra[key] = value
+    return extra
+
+
+def sweep(scenario, jobs=None, progress=None, uncertainty=None, uncertainty_method="auto", uncertainty_samples=100,
+          uncertainty_seed=1):
     """Work statistics over the points of the scenario's [sweep]: one parameter's values, a grid
     of [[sweep.axis]] tables, or a list of points (``trapwork sweep``).
 
@@ -698,12 +709,18 @@ def sweep(scenario, jobs=None, progress=None):
     value, <W>, sd, harmonic <W>, Jarzynski residual, ..., failed = 1 for a point that could not
     be computed, with its message in ``table.comments``).
 
+    uncertainty: None, or a fit's fit_summary.json (or its folder): each point gets the calibration's
+        sd of <W>, sd(W) and Delta F as columns, as ``trapwork sweep --uncertainty``; None with a
+        scenario that has an [uncertainty] table: that table; "none": no spread.
+    uncertainty_method, uncertainty_samples, uncertainty_seed: as for :func:`work`.
+
     Raises InputError (no [sweep], bad values), MemoryError; KeyboardInterrupt after Ctrl-C (the
     workers are stopped and joined first).
     """
     s = _scenario(scenario)
+    extra = _uncertainty_keywords(uncertainty, uncertainty_method, uncertainty_samples, uncertainty_seed)
     return SweepResult(_run(_trapwork.sweep, s.text, s.name, 0 if jobs is None else int(jobs), progress=progress,
-                            provenance=_provenance("sweep", s, jobs=jobs)), s)
+                            provenance=_provenance("sweep", s, jobs=jobs, **extra), **extra), s)
 
 
 def fit(data, start=None, mass=None, frequency=None, terms="frequency,quartic", progress=None):
