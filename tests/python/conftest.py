@@ -128,6 +128,12 @@ def assert_close(a, b, scale, what):
     assert bad.size == 0, f"{what}: {bad.size} values differ, first at row {bad[0]}: {a[bad[0]]!r} vs {b[bad[0]]!r}"
 
 
+def assert_table_equals_csv_columns(table, columns):
+    """Module Table against the columns of a CSV file (read_csv), each equal to RELATIVE."""
+    for n, v in columns.items():
+        assert_close(table[n], v, column_scale(n, v), n)
+
+
 def assert_table_equals_csv(table, path):
     """Module Table against the command line's CSV file: same columns in the same order, the
     same comment lines (assert_text_close), each column equal to RELATIVE (see above)."""

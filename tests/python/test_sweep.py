@@ -6,7 +6,8 @@ import numpy as np
 import pytest
 
 import trapwork
-from conftest import (REPORT_RELATIVE, EXAMPLES, assert_summary_equals_json, assert_table_equals_csv, assert_text_close, cli_ok,
+from conftest import (REPORT_RELATIVE, EXAMPLES, assert_summary_equals_json, assert_table_equals_csv,
+                      assert_table_equals_csv_columns, assert_text_close, cli_ok,
                       read_csv)
 
 
@@ -80,11 +81,6 @@ def test_grid_sweep_equals_cli(in_tmp):
     names = sorted(pathlib.Path(p).name for p in r.write(in_tmp / "module"))
     assert "sweep_map_mean.png" in names and "sweep.csv" in names
 
-
-def assert_table_equals_csv_columns(table, columns):
-    from conftest import assert_close, column_scale
-    for n, v in columns.items():
-        assert_close(table[n], v, column_scale(n, v), n)
 
 
 
