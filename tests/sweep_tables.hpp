@@ -37,6 +37,15 @@ inline int run_in(const std::filesystem::path& dir, const std::string& command) 
 
 inline std::string trapwork_binary() { return "'" + (std::filesystem::path(TRAPWORK_BINARY_DIR) / "trapwork").string() + "'"; }
 
+#ifdef TRAPWORK_MPIEXEC
+// `mpirun -n RANKS trapwork` for the MPI tests: as root, Open MPI needs --allow-run-as-root and
+// these two variables; --oversubscribe lets more ranks than cores run (the CI machine has 2).
+inline std::string mpirun(int ranks) {
+  return std::string("OMPI_ALLOW_RUN_AS_ROOT=1 OMPI_ALLOW_RUN_AS_ROOT_CONFIRM=1 '") + TRAPWORK_MPIEXEC +
+         "' --allow-run-as-root --oversubscribe -n " + std::to_string(ranks) + " " + trapwork_binary();
+}
+#endif
+
 // The names line and the comment lines of a trapwork CSV.
 inline std::string csv_head(const std::string& csv) {
   std::string head;

@@ -14,13 +14,10 @@
 
 namespace fs = std::filesystem;
 using trapwork_test::read_all;
+using trapwork_test::mpirun;
 using trapwork_test::run_in;
 
 namespace {
-std::string mpirun(int ranks) {
-  return std::string("OMPI_ALLOW_RUN_AS_ROOT=1 OMPI_ALLOW_RUN_AS_ROOT_CONFIRM=1 '") + TRAPWORK_MPIEXEC +
-         "' --allow-run-as-root --oversubscribe -n " + std::to_string(ranks) + " " + trapwork_test::trapwork_binary();
-}
 
 // The harmonic move of the sweep tests with white centre noise, 7 realisations propagated one
 // by one (route "realisations"): 7 is not a multiple of 2 or 3, so the ranks' shares differ.

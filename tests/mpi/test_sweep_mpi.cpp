@@ -15,13 +15,10 @@
 
 namespace fs = std::filesystem;
 using trapwork_test::read_all;
+using trapwork_test::mpirun;
 using trapwork_test::run_in;
 
 namespace {
-std::string mpirun(int ranks) {
-  return std::string("OMPI_ALLOW_RUN_AS_ROOT=1 OMPI_ALLOW_RUN_AS_ROOT_CONFIRM=1 '") + TRAPWORK_MPIEXEC +
-         "' --allow-run-as-root --oversubscribe -n " + std::to_string(ranks) + " " + trapwork_test::trapwork_binary();
-}
 
 // A 2 x 3 grid of the cheap harmonic move: six points of about half a second.
 const std::string grid_text = trapwork_test::grid_sweep_text.substr(0, trapwork_test::grid_sweep_text.rfind("values =")) +
