@@ -183,11 +183,17 @@ double momentum_margin(double p0, double force, double decay) {
 }
 
 Grid with_points(const Grid& shape, double left, double right, double spacing) {
+  // A count past 2^31 (or not finite) is no grid to solve on, and converting it to an integer is
+  // undefined: a potential far too steep for its window (e.g. an absurd parameter value) ends here.
+  const double count = std::ceil((right - left) / spacing);
+  if (!(count >= 1 && count <= 2147483648.0))
+    throw PhysicsError("the grid would need " + fmt(count) +
+                       " points: the potential is far too steep for its window; check the trap's parameters");
   if (shape.boundary() == Boundary::hard_wall) {
-    const auto n = fast_fft_size(std::size_t(std::ceil((right - left) / spacing))) - 1;
+    const auto n = fast_fft_size(std::size_t(count)) - 1;
     return Grid::box(left, right, n);
   }
-  return Grid::periodic(left, right, fast_fft_size(std::size_t(std::ceil((right - left) / spacing))));
+  return Grid::periodic(left, right, fast_fft_size(std::size_t(count)));
 }
 
 }  // namespace
