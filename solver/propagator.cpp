@@ -1,6 +1,9 @@
 #include "solver/propagator.hpp"
 
 #include <fftw3.h>
+#if defined(__x86_64__)
+#include <immintrin.h>
+#endif
 
 #include <algorithm>
 #include <atomic>
@@ -187,6 +190,68 @@ __attribute__((target_clones("avx512f", "avx2", "default"))) void multiply(const
       z[i + 1] = ar * ki + ai * kr;
     }
   }
+}
+
+// row[j] = exp(-i v[j] w), j < n: the potential kick of a split-operator substep. Where the
+// processor has AVX-512 or AVX2, the cosines and sines come from glibc's vector math library
+// (libmvec, which g++ links through libm; its documented maximum error is 4 ulp, against 1 ulp
+// for the scalar ones: measured on 2048 kicks, the rows differ from std::polar by at most
+// 3.3e-16 and |row[j]| - 1 by 3.3e-16), 8 or 4 at a time: 9.5 and 5.4 times faster than
+// std::polar measured here, where these rows took 5 % of a 2048-point job's CPU time. The
+// version is chosen once per process, so every thread and every run of a process computes the
+// same numbers.
+#if defined(__x86_64__) && defined(__GLIBC__)
+extern "C" __m512d _ZGVeN8v_cos(__m512d);
+extern "C" __m512d _ZGVeN8v_sin(__m512d);
+extern "C" __m256d _ZGVdN4v_cos(__m256d);
+extern "C" __m256d _ZGVdN4v_sin(__m256d);
+
+__attribute__((target("avx512f"))) void phase_row_avx512(const double* v, double w, complex* row, std::size_t n) {
+  double* z = reinterpret_cast<double*>(row);
+  const __m512d scale = _mm512_set1_pd(-w);
+  std::size_t j = 0;
+  for (; j + 8 <= n; j += 8) {
+    const __m512d p = _mm512_mul_pd(_mm512_loadu_pd(v + j), scale);
+    alignas(64) double c[8], s[8];
+    _mm512_store_pd(c, _ZGVeN8v_cos(p));
+    _mm512_store_pd(s, _ZGVeN8v_sin(p));
+    for (int q = 0; q < 8; ++q) z[2 * (j + q)] = c[q], z[2 * (j + q) + 1] = s[q];
+  }
+  for (; j < n; ++j) row[j] = std::polar(1.0, -v[j] * w);
+}
+
+__attribute__((target("avx2"))) void phase_row_avx2(const double* v, double w, complex* row, std::size_t n) {
+  double* z = reinterpret_cast<double*>(row);
+  const __m256d scale = _mm256_set1_pd(-w);
+  std::size_t j = 0;
+  for (; j + 4 <= n; j += 4) {
+    const __m256d p = _mm256_mul_pd(_mm256_loadu_pd(v + j), scale);
+    alignas(32) double c[4], s[4];
+    _mm256_store_pd(c, _ZGVdN4v_cos(p));
+    _mm256_store_pd(s, _ZGVdN4v_sin(p));
+    for (int q = 0; q < 4; ++q) z[2 * (j + q)] = c[q], z[2 * (j + q) + 1] = s[q];
+  }
+  for (; j < n; ++j) row[j] = std::polar(1.0, -v[j] * w);
+}
+#endif
+
+void phase_row_scalar(const double* v, double w, complex* row, std::size_t n) {
+  for (std::size_t j = 0; j < n; ++j) row[j] = std::polar(1.0, -v[j] * w);
+}
+
+using PhaseRow = void (*)(const double*, double, complex*, std::size_t);
+PhaseRow chosen_phase_row() {
+#if defined(__x86_64__) && defined(__GLIBC__)
+  __builtin_cpu_init();
+  if (__builtin_cpu_supports("avx512f")) return phase_row_avx512;
+  if (__builtin_cpu_supports("avx2")) return phase_row_avx2;
+#endif
+  return phase_row_scalar;
+}
+
+void phase_row(const double* v, double w, complex* row, std::size_t n) {
+  static const PhaseRow chosen = chosen_phase_row();
+  chosen(v, w, row, n);
 }
 
 // threads - 1 persistent worker threads plus the calling thread. run(blocks, task) calls
@@ -444,11 +509,11 @@ const std::vector<std::complex<double>>& SplitOperatorPropagator::kinetic_phase(
 
 double potential_kick(const std::vector<double>& v, double dt, std::vector<std::complex<double>>& kick) {
   kick.resize(v.size());
+  phase_row(v.data(), dt / 2, kick.data(), v.size());
   double lo = v[0], hi = v[0];
-  for (std::size_t j = 0; j < v.size(); ++j) {
-    kick[j] = std::polar(1.0, -v[j] * dt / 2);
-    lo = std::min(lo, v[j]);
-    hi = std::max(hi, v[j]);
+  for (const double x : v) {
+    lo = std::min(lo, x);
+    hi = std::max(hi, x);
   }
   return (hi - lo) * std::abs(dt) / 2;
 }
@@ -502,10 +567,9 @@ void SplitOperatorPropagator::steps(State& state, double t_begin, double t_end, 
       }
       complex* row = chunk_kicks_.data() + std::size_t(b) * n;
       const double w = (before + after) / 2;
+      phase_row(chunk_samples_.data(), w, row, n);
       double lo = chunk_samples_[0], hi = chunk_samples_[0];
-      for (std::size_t j = 0; j < n; ++j) {
-        const double v = chunk_samples_[j];
-        row[j] = std::polar(1.0, -v * w);
+      for (const double v : chunk_samples_) {
         lo = std::min(lo, v);
         hi = std::max(hi, v);
       }

@@ -65,7 +65,10 @@ TEST_CASE("--tolerance: the estimate bounds the true distance to the exact Husim
     // check (estimated arithmetic: a deterministic count, not a timing)
     CHECK(c->cost_spent <= 1.5 * c->chosen_cost);
     // the scenario's 2000 steps are not the start: the search chooses the steps
-    CHECK(c->trail.front().find("the scenario's 2000 steps are replaced") != std::string::npos);
+    // (the first line may be the eigenbasis ODE's first try, stopped by its budget here)
+    CHECK(std::any_of(c->trail.begin(), c->trail.end(), [](const std::string& line) {
+      return line.find("the scenario's 2000 steps are replaced") != std::string::npos;
+    }));
   }
   // the estimate: Richardson's from a pair in the range where the error falls as dt^2 (Strang),
   // or the pair's distance
@@ -97,7 +100,7 @@ TEST_CASE("--tolerance on the built-in anharmonic translation: the ODE chosen wh
     CHECK(c->reached());
     CHECK(line_distance(c->work->result().forward, reference.result().forward).distance <= c->tolerance);
     // the grid search keeps the coarser grid of the agreeing pair: no finer [grid] fixed
-    CHECK(c->grid_part <= c->tolerance / 2);
+    if (!c->ode_first) CHECK(c->grid_part <= c->tolerance / 2);
     CHECK(!c->scenario.spectrum.extent);
     // a fixed extent on the frame's grid must not spoil the finer-grid check of H_B (which
     // sits displaced in the lab): the chosen run passes it
@@ -113,11 +116,23 @@ TEST_CASE("--tolerance on the built-in anharmonic translation: the ODE chosen wh
   // split-operator run to T (part of its choice)
   Scenario slow = s;
   slow.protocol->duration *= 10;
+  Scenario slow_fine = slow;  // its reference as above (the order-4 error falls as tau steps^-4)
+  slow_fine.spectrum.points = 288;
+  WorkRequest slow_request = work_request(slow_fine);
+  slow_request.steps = 40960;
+  slow_request.time_step_check = false;
+  const ScenarioWork reference_slow = compute_work(slow_fine, slow_request);
   const ToleranceChoice ode = compute_work_to_tolerance(slow, work_request(slow), 1e-8);
   INFO("slow move: " << ode.method << ", ODE cost ratio " << ode.ode_cost_ratio);
   CHECK(ode.method.rfind("eigenbasis", 0) == 0);
   CHECK(ode.ode_cost_ratio <= 0.2);
   CHECK(ode.reached());
+  // issue 21: tried first, it wins there, so the call is its run and its check alone (on 3/2 the
+  // points at T/500), and that check's distance, the estimate, bounds the true error
+  CHECK(ode.ode_first);
+  CHECK(ode.trail.size() == 2);
+  CHECK(ode.cost_spent <= 1.5 * ode.chosen_cost);
+  CHECK(line_distance(ode.work->result().forward, reference_slow.result().forward).distance <= ode.tolerance);
   // issue 21: each whole call within 1.5 times the chosen split-operator run with its usual
   // half-step check (estimated arithmetic)
   for (const ToleranceChoice* c : {&loose, &tight}) CHECK(c->cost_spent <= 1.5 * c->chosen_cost);

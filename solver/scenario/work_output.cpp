@@ -299,6 +299,86 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
   if (request.phase_per_step == 0) request.phase_per_step = request.integrator == Integrator::strang ? 0.32 : 3.2;
   const bool reverse = request.reverse_run;
   request.reverse_run = false;
+  // The eigenbasis ODE first (ode_first, see work_output.hpp), where it applies; a win returns here.
+  double ode_first_limit = 0;  // its first run's budget (operations per direction; 0: not tried)
+  std::size_t ode_first_points = 0;  // the grid of its first run, when it ran to the end
+  constexpr double ode_operation_cost = 2.5;  // see the eigenbasis ODE after the search, below
+  if (s.protocol && s.protocol->duration > 0 && !moves_walls(s)) {
+    // The coarse split-operator run's estimated operations, from run_work's estimate before it
+    // propagates (its spectra, solved by then, stay in the memo for the runs below).
+    struct Sized {};
+    double coarse_operations = 0;
+    WorkRequest dry = request;
+    dry.spectrum = work_request(c.scenario).spectrum;
+    dry.spectrum.options.memo = memo;
+    dry.on_estimate = [&coarse_operations](const CostEstimate& e) {
+      coarse_operations = e.operations;
+      throw Sized{};
+    };
+    try {
+      (void)compute_work(c.scenario, dry);
+    } catch (const Sized&) {
+    }
+    if (coarse_operations > 0) {
+      unit = coarse_operations;  // cost units: the coarse split-operator run, as when it runs first
+      WorkRequest e = request;
+      e.reverse_run = reverse;
+      e.integrator = Integrator::eigenbasis;
+      e.steps = 0;
+      e.ode = {tolerance / 50, tolerance / 50};
+      e.ode_arithmetic_limit = ode_first_limit = coarse_operations / ode_operation_cost;
+      try {
+        ScenarioWork basis = run(c.scenario, e);
+        const double seconds = last_seconds;
+        ode_first_points = basis.result().grid.size();
+        // The check: 3/2 the points over the same extent, T/500, twice the restart points and 3/2
+        // the basis, so that its distance bounds the grid's and the ODE's parts of the first run's
+        // error together.
+        const Grid& g = basis.result().grid;
+        Scenario finer = c.scenario;
+        if (g.boundary() == Boundary::hard_wall) {
+          finer.spectrum.points = fast_fft_size(3 * (g.size() + 1) / 2) - 1;
+        } else {
+          finer.spectrum.points = fast_fft_size(3 * g.size() / 2);
+          if (!finer.spectrum.box) finer.spectrum.extent = std::make_pair(g.left(), g.right());
+        }
+        e.ode = {tolerance / 500, tolerance / 500};
+        e.steps = 2 * basis.result().steps;
+        e.eigenbasis_levels = 3 * basis.result().diagnostics.ode_basis_levels / 2;
+        e.ode_arithmetic_limit = 6 * basis.result().diagnostics.ode_arithmetic;
+        const ScenarioWork check = run(finer, e, false);
+        const LineDistance distance = line_distance(basis.result().forward, check.result().forward);
+        const double d = distance.distance;
+        c.trail.back() += ": distance to the first ODE run " + short_number(d, 3);
+        if (d <= tolerance) {
+          c.max_work_shift = distance.max_work_shift;
+          c.ode_first = true;
+          c.ode_part = d;
+          c.grid_part = c.time_step_part = nan_value;
+          c.time_step_rule = "not measured: the eigenbasis ODE was chosen first";
+          c.eigenbasis_seconds = seconds;
+          c.split_seconds = nan_value;
+          c.ode_cost_ratio = basis.result().diagnostics.ode_arithmetic / coarse_operations;
+          c.steps = basis.result().steps;
+          c.points = g.size();
+          c.method = basis.result().method;
+          c.chosen_cost = c.cost_spent;  // the chosen run and its check are the whole search
+          if (given_steps > 0)
+            c.trail.front() += " (the scenario's " + std::to_string(given_steps) + " steps do not apply: the ODE "
+                               "chooses its own)";
+          c.work = std::move(basis);
+          c.work->request.spectrum.options.memo.reset();  // the returned request solves afresh
+          c.scenario.spectrum.points = c.points;
+          return c;
+        }
+      } catch (const ArithmeticLimitReached&) {
+        c.ode_stopped = true;
+        c.cost_spent += ode_first_limit / unit;  // what it used before it stopped
+        c.trail.push_back("eigenbasis ODE first (tolerance " + short_number(tolerance / 50, 2) +
+                          "): stopped when its estimated arithmetic passed the coarse split-operator run's");
+      }
+    }
+  }
   ScenarioWork coarse = run(c.scenario, request);
   if (given_steps > 0)
     c.trail.back() += " (the scenario's " + std::to_string(given_steps) + " steps are replaced: the search chooses them)";
@@ -414,7 +494,6 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
   // benchmark job: 33 s against 3.4 s at 2.3); so it is charged at that factor, and its first run
   // stops at half the split-operator run's time so estimated: it is chosen only where it is
   // clearly faster. Limits are per direction (forward, reverse), in operations.
-  constexpr double ode_operation_cost = 2.5;
   const WorkResult& split = coarse.result();
   const double left = (1.5 * c.chosen_cost - c.cost_spent) * unit;  // operations
   const double directions = split.reverse ? 2 : 1;
@@ -427,7 +506,11 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
     e.steps = 0;
     e.ode = {tolerance / 50, tolerance / 50};
     e.ode_arithmetic_limit = std::min(split_arithmetic / 2, left / 3 / directions) / ode_operation_cost;
-    if (e.ode_arithmetic_limit * ode_operation_cost < split_arithmetic / 20) {
+    if (c.ode_stopped && e.ode_arithmetic_limit <= ode_first_limit) {
+      c.trail.push_back("eigenbasis ODE not tried again: its first try stopped at a larger budget");
+    } else if (ode_first_points == split.grid.size()) {
+      c.trail.push_back("eigenbasis ODE not tried again: its first try on this grid missed the tolerance");
+    } else if (e.ode_arithmetic_limit * ode_operation_cost < split_arithmetic / 20) {
       c.trail.push_back("eigenbasis ODE not tried: " + short_number(std::max(0.0, left / unit), 2) +
                         " units of arithmetic left within 1.5 times the chosen run with its checks");
     } else
@@ -459,6 +542,7 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       }
     } catch (const ArithmeticLimitReached&) {
       c.ode_stopped = true;
+      c.cost_spent += e.ode_arithmetic_limit / unit;  // what the stopped run used
       const bool check = e.steps > 0;
       c.trail.push_back("eigenbasis ODE (tolerance " + short_number(e.ode.absolute, 2) +
                         "): stopped when its estimated arithmetic passed " +
@@ -704,11 +788,12 @@ nlohmann::ordered_json tolerance_json(const WorkRun& run) {
   if (!run.tolerance) return nullptr;
   const ToleranceChoice& t = *run.tolerance;
   return {{"requested", t.tolerance},  {"estimate", t.estimate()}, {"reached", t.reached()},
-          {"time_step_part", t.time_step_part}, {"grid_part", t.grid_part},
+          {"time_step_part", number_or_null(t.time_step_part)}, {"grid_part", number_or_null(t.grid_part)},
           {"max_work_shift", display(run.scenario).energy(t.max_work_shift)},
           {"steps", t.steps}, {"points", t.points}, {"method", t.method},
-          {"ode_part", number_or_null(t.ode_part)}, {"ode_cost_ratio", number_or_null(t.ode_cost_ratio)}, {"split_seconds", t.split_seconds},
+          {"ode_part", number_or_null(t.ode_part)}, {"ode_cost_ratio", number_or_null(t.ode_cost_ratio)}, {"split_seconds", number_or_null(t.split_seconds)},
           {"eigenbasis_seconds", number_or_null(t.eigenbasis_seconds)}, {"ode_stopped", t.ode_stopped},
+          {"ode_first", t.ode_first},
           {"time_step_rule", t.time_step_rule},
           {"cost_bound", t.cost_bound}, {"cost_spent", t.cost_spent}, {"cost_bound_reached", t.bound_reached},
           {"cost_over_chosen_run", t.chosen_cost > 0 ? nlohmann::ordered_json(t.cost_spent / t.chosen_cost) : nullptr},
@@ -1335,18 +1420,29 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
     const bool ode = t.method.rfind("eigenbasis", 0) == 0;
     row("chosen", t.method + ", " + (ode ? std::string() : std::to_string(t.steps) + " steps, ") +
                       std::to_string(t.points) + " points");
-    if (!std::isnan(t.eigenbasis_seconds))
+    if (t.ode_first)
+      row("cost", "eigenbasis ODE run " + short_number(t.eigenbasis_seconds, 2) +
+                      " s (wall time here; estimated arithmetic " + short_number(t.ode_cost_ratio, 2) +
+                      " times the coarse split-operator run's, which did not run)");
+    else if (!std::isnan(t.eigenbasis_seconds))
       row("cost", "split-operator run " + short_number(t.split_seconds, 2) + " s, eigenbasis ODE run " +
                       short_number(t.eigenbasis_seconds, 2) + " s (wall time here; estimated arithmetic ratio " +
                       short_number(t.ode_cost_ratio, 2) + ")");
     else if (t.ode_stopped)
-      row("method", "eigenbasis ODE stopped by its arithmetic budget (the last run line above says which)");
+      row("method", "eigenbasis ODE stopped by its arithmetic budget (the run lines above say which)");
     row("cost", short_number(t.cost_spent, 3) + " times the first run's estimated arithmetic, bound " +
                     short_number(t.cost_bound, 3) + (t.bound_reached ? ": the bound stopped the search" : ""));
-    if (t.chosen_cost > 0)
+    if (t.ode_first)
+      row("", "the chosen ODE run and its check are the whole search (estimated arithmetic; the spectra not counted)");
+    else if (t.chosen_cost > 0)
       row("", short_number(t.cost_spent / t.chosen_cost, 3) +
                   " times the chosen split-operator run alone with its usual half-step check (estimated arithmetic)");
-    row("estimate", short_number(t.estimate(), 3) + " = " + short_number(ode ? t.ode_part : t.time_step_part, 3) +
+    if (t.ode_first)
+      row("estimate", short_number(t.estimate(), 3) + " (the distance to a run on 3/2 the points at T/500 with 3/2 "
+                      "the basis: grid, ODE tolerance and basis together); lines move by up to " +
+                      e.text(t.max_work_shift, 3) + (t.reached() ? "" : ": the tolerance is NOT reached"));
+    else
+      row("estimate", short_number(t.estimate(), 3) + " = " + short_number(ode ? t.ode_part : t.time_step_part, 3) +
                         (ode ? " (ODE tolerance and basis)" : " (time step: " + t.time_step_rule + ")") + " + " + short_number(t.grid_part, 3) +
                         " (grid); lines move by up to " + e.text(t.max_work_shift, 3) +
                         (t.reached() ? "" : ": the tolerance is NOT reached"));
@@ -1600,7 +1696,8 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
           "reference, a failed point); crooks_ratio_error, harmonic_*: empty when no point has them",
       "warnings: number of warnings of that point's run (see trapwork work on the scenario at that value)",
       "failed: 1 where the point could not be computed (numbers nan; its message below; trapwork sweep --resume "
-      "keeps it, --resume --retry-failed computes it again)",
+      "keeps it, --resume --retry-failed computes it again; give them with this run's other options, "
+      "--uncertainty FILE included)",
   };
   if (calibrated) {
     const auto linear = std::count_if(rows.begin(), rows.end(), [](const SweepRow& r) { return r.calibration_method == 1; });

@@ -84,6 +84,15 @@ struct ToleranceChoice {
   // is not tried (said in the trail). It is chosen when it finished within its budget (so it
   // takes at most about half the split-operator run's time), its estimate ode_part + grid_part
   // is within T and it agrees with the split-operator run to T.
+  // ode_first: the ODE was tried before the search, where it applies (tau > 0, walls standing)
+  // and won: at T/50 on the automatic grid, its estimated arithmetic per direction limited to
+  // the coarse split-operator run's (read from run_work's estimate before that run propagates),
+  // charged at 2.5 times; checked by one run on 3/2 the points at T/500 with twice the restart
+  // points and 3/2 the basis, whose distance (ode_part) bounds the grid's and the ODE's parts
+  // together (grid_part and time_step_part are then NaN), and chosen when that is within T. A
+  // slow move then costs its two ODE runs instead of the search (the built-in move at 25 us,
+  // T = 1e-8, measured). A try stopped by its budget costs the search at most one coarse run.
+  bool ode_first = false;
   std::string method;                        // of the returned run (WorkResult::method)
   double ode_part = std::numeric_limits<double>::quiet_NaN();
   double split_seconds = 0, eigenbasis_seconds = std::numeric_limits<double>::quiet_NaN();
@@ -98,7 +107,10 @@ struct ToleranceChoice {
   // false). request.progress, if set, is called with the share of the bound used.
   double cost_bound = 0, cost_spent = 0;
   bool bound_reached = false;
-  double estimate() const { return (method.rfind("eigenbasis", 0) == 0 ? ode_part : time_step_part) + grid_part; }
+  double estimate() const {
+    if (ode_first) return ode_part;
+    return (method.rfind("eigenbasis", 0) == 0 ? ode_part : time_step_part) + grid_part;
+  }
   bool reached() const { return estimate() <= tolerance; }
 };
 constexpr double default_search_budget = 2000;  // about 40 automatic runs with their checks
