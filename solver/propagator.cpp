@@ -194,12 +194,12 @@ __attribute__((target_clones("avx512f", "avx2", "default"))) void multiply(const
 
 // row[j] = exp(-i v[j] w), j < n: the potential kick of a split-operator substep. Where the
 // processor has AVX-512 or AVX2, the cosines and sines come from glibc's vector math library
-// (libmvec, which g++ links through libm; its documented maximum error is 4 ulp, against 1 ulp
-// for the scalar ones: measured on 2048 kicks, the rows differ from std::polar by at most
-// 3.3e-16 and |row[j]| - 1 by 3.3e-16), 8 or 4 at a time: 9.5 and 5.4 times faster than
-// std::polar measured here, where these rows took 5 % of a 2048-point job's CPU time. The
-// version is chosen once per process, so every thread and every run of a process computes the
-// same numbers.
+// (libmvec, which g++ links through libm), 8 or 4 at a time: 9.5 and 5.4 times faster than
+// std::polar (measured here; these rows took 5 % of a 2048-point job's CPU time). Its
+// documented maximum error is 4 ulp (glibc manual, from memory) against 1 ulp for the scalar
+// functions; measured on 2048 kicks, the rows differ from std::polar by at most 3.3e-16 and
+// |row[j]| from 1 by 3.3e-16. The version is chosen once per process, so every thread and every
+// run of a process computes the same numbers.
 #if defined(__x86_64__) && defined(__GLIBC__)
 extern "C" __m512d _ZGVeN8v_cos(__m512d);
 extern "C" __m512d _ZGVeN8v_sin(__m512d);
@@ -345,12 +345,15 @@ class WorkerPool {
 };
 
 // Columns per block: the block's scratch near 256 KiB (it and the transform's work arrays stay
-// in a core's L2 cache), and at least 8 blocks when there are 8 columns or more, so that two or
-// more threads share the work evenly. Depends on points and columns only.
+// in a core's L2 cache), and at least 16 blocks when there are 16 columns or more, so that two
+// or more threads share the work evenly (with 8 blocks of 9 columns of the benchmark's reference
+// job, the calling thread, which also samples the potential between the passes, ran 1.4 times
+// the other's transforms: 2 threads took 9.6 s against 8.4 s with 16, measured). Depends on
+// points and columns only, so that results do not depend on the thread count.
 int block_columns_for(std::size_t points, int columns) {
   const std::size_t scratch_bytes = 256 * 1024;
   const int by_cache = int(std::max<std::size_t>(1, scratch_bytes / (points * sizeof(complex))));
-  const int by_balance = std::max(1, (columns + 7) / 8);
+  const int by_balance = std::max(1, (columns + 15) / 16);
   return std::min({by_cache, by_balance, columns});
 }
 
