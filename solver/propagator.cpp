@@ -201,10 +201,12 @@ __attribute__((target_clones("avx512f", "avx2", "default"))) void multiply(const
 // |row[j]| from 1 by 3.3e-16. The version is chosen once per process, so every thread and every
 // run of a process computes the same numbers.
 #if defined(__x86_64__) && defined(__GLIBC__)
-extern "C" __m512d _ZGVeN8v_cos(__m512d);
-extern "C" __m512d _ZGVeN8v_sin(__m512d);
-extern "C" __m256d _ZGVdN4v_cos(__m256d);
-extern "C" __m256d _ZGVdN4v_sin(__m256d);
+// (declared with their instruction sets: clang refuses vector arguments whose ABI the caller's
+// and callee's targets would disagree on)
+extern "C" __attribute__((target("avx512f"))) __m512d _ZGVeN8v_cos(__m512d);
+extern "C" __attribute__((target("avx512f"))) __m512d _ZGVeN8v_sin(__m512d);
+extern "C" __attribute__((target("avx2"))) __m256d _ZGVdN4v_cos(__m256d);
+extern "C" __attribute__((target("avx2"))) __m256d _ZGVdN4v_sin(__m256d);
 
 __attribute__((target("avx512f"))) void phase_row_avx512(const double* v, double w, complex* row, std::size_t n) {
   double* z = reinterpret_cast<double*>(row);
