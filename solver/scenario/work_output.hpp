@@ -86,12 +86,13 @@ struct ToleranceChoice {
   // is within T and it agrees with the split-operator run to T.
   // ode_first: the ODE was tried before the search, where it applies (tau > 0, walls standing)
   // and won: at T/50 on the automatic grid, its estimated arithmetic per direction limited to
-  // the coarse split-operator run's (read from run_work's estimate before that run propagates),
-  // charged at 2.5 times; checked by one run on 3/2 the points at T/500 with twice the restart
+  // a quarter of the coarse split-operator run's (read from run_work's estimate before that run
+  // propagates), charged at 2.5 times; checked by one run on 3/2 the points at T/500 with twice the restart
   // points and 3/2 the basis, whose distance (ode_part) bounds the grid's and the ODE's parts
   // together (grid_part and time_step_part are then NaN), and chosen when that is within T. A
   // slow move then costs its two ODE runs instead of the search (the built-in move at 25 us,
-  // T = 1e-8, measured). A try stopped by its budget costs the search at most one coarse run.
+  // T = 1e-8, measured). A try stopped by its budget costs the search most of a coarse run, and
+  // the ODE is then not tried again after the search (nor where it missed T on the same grid).
   bool ode_first = false;
   std::string method;                        // of the returned run (WorkResult::method)
   double ode_part = std::numeric_limits<double>::quiet_NaN();
