@@ -352,6 +352,10 @@ DesignTaskOutcome design_task(const Scenario& scenario, const DesignSettings& se
   used.options.bounds = lab_bounds(scenario, settings, family);
   used.options.message_units = scenario.spectrum.message_units;
   WorkRequest request = work_request(scenario);
+  // The design must not depend on how its runs ran (one process, or robust members shared among
+  // MPI ranks): FFTW_MEASURE may pick other transforms under another load, and so other last
+  // digits, which the optimiser then follows.
+  request.repeatable_transforms = true;
   if (settings.options.objective == DesignObjective::dissipated_work && !request.initial.is_gibbs())
     throw InputError("objective", "dissipated_work", "a thermal [initial] (temperature or mean_phonons) for the dissipated work, "
                      "or --objective excitation for this start", "", scenario.file);

@@ -242,6 +242,20 @@ double run_arithmetic(const WorkResult& r) {
 }
 }  // namespace
 
+namespace {
+// The scenario on 3/2 the points of the grid g, over the same extent (a box keeps its walls).
+Scenario on_finer_grid(const Scenario& s, const Grid& g) {
+  Scenario finer = s;
+  if (g.boundary() == Boundary::hard_wall) {
+    finer.spectrum.points = fast_fft_size(3 * (g.size() + 1) / 2) - 1;
+  } else {
+    finer.spectrum.points = fast_fft_size(3 * g.size() / 2);
+    if (!finer.spectrum.box) finer.spectrum.extent = std::make_pair(g.left(), g.right());
+  }
+  return finer;
+}
+}  // namespace
+
 ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request, double tolerance,
                                           double cost_bound) {
   ToleranceChoice c;
@@ -304,7 +318,8 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
   double ode_first_limit = 0;  // its first run's budget (operations per direction; 0: not tried)
   std::size_t ode_first_points = 0;  // the grid of its first run, when it ran to the end
   constexpr double ode_operation_cost = 2.5;  // see the eigenbasis ODE after the search, below
-  if (s.protocol && s.protocol->duration > 0 && !moves_walls(s)) {
+  // (Not with a cost bound below 4 units: its two runs may take up to about 1.4 of them.)
+  if (s.protocol && s.protocol->duration > 0 && !moves_walls(s) && cost_bound >= 4) {
     // The coarse split-operator run's estimated operations, from run_work's estimate before it
     // propagates (its spectra, solved by then, stay in the memo for the runs below).
     struct Sized {};
@@ -344,13 +359,7 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
         // the basis, so that its distance bounds the grid's and the ODE's parts of the first run's
         // error together.
         const Grid& g = basis.result().grid;
-        Scenario finer = c.scenario;
-        if (g.boundary() == Boundary::hard_wall) {
-          finer.spectrum.points = fast_fft_size(3 * (g.size() + 1) / 2) - 1;
-        } else {
-          finer.spectrum.points = fast_fft_size(3 * g.size() / 2);
-          if (!finer.spectrum.box) finer.spectrum.extent = std::make_pair(g.left(), g.right());
-        }
+        const Scenario finer = on_finer_grid(c.scenario, g);
         e.ode = {tolerance / 500, tolerance / 500};
         e.steps = 2 * basis.result().steps;
         e.eigenbasis_levels = 3 * basis.result().diagnostics.ode_basis_levels / 2;
@@ -400,14 +409,7 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
   // Measured at the coarse steps: the grid's part of the error hardly depends on the step.
   c.grid_part = nan_value;  // not verified until two grids were compared
   for (int k = 0; k < 3; ++k) {
-    const Grid& g = coarse.result().grid;
-    Scenario finer = c.scenario;
-    if (g.boundary() == Boundary::hard_wall) {
-      finer.spectrum.points = fast_fft_size(3 * (g.size() + 1) / 2) - 1;
-    } else {
-      finer.spectrum.points = fast_fft_size(3 * g.size() / 2);
-      if (!finer.spectrum.box) finer.spectrum.extent = std::make_pair(g.left(), g.right());
-    }
+    Scenario finer = on_finer_grid(c.scenario, coarse.result().grid);
     if (!fits(coarse.result(), coarse.result().steps, *finer.spectrum.points)) break;
     ScenarioWork fine = run(finer, request, false);
     const LineDistance d = line_distance(coarse.result().forward, fine.result().forward);

@@ -84,8 +84,8 @@ struct ToleranceChoice {
   // is not tried (said in the trail). It is chosen when it finished within its budget (so it
   // takes at most about half the split-operator run's time), its estimate ode_part + grid_part
   // is within T and it agrees with the split-operator run to T.
-  // ode_first: the ODE was tried before the search, where it applies (tau > 0, walls standing)
-  // and won: at T/50 on the automatic grid, its estimated arithmetic per direction limited to
+  // ode_first: the ODE was tried before the search, where it applies (tau > 0, walls standing,
+  // a cost bound of at least 4) and won: at T/50 on the automatic grid, its estimated arithmetic per direction limited to
   // a quarter of the coarse split-operator run's (read from run_work's estimate before that run
   // propagates), charged at 2.5 times; checked by one run on 3/2 the points at T/500 with twice the restart
   // points and 3/2 the basis, whose distance (ode_part) bounds the grid's and the ODE's parts
