@@ -186,7 +186,7 @@ WorkOutcome work_task(const Scenario& scenario, std::optional<double> tolerance,
       throw InputError("--tolerance", short_number(*tolerance), "a bound between 0 and 1 (e.g. 1e-4)");
     if (!(search_budget >= 1))
       throw InputError("--search-budget", short_number(search_budget),
-                       "a cost bound >= 1 (in units of the search's first run)");
+                       "a cost bound >= 1 (in units of the search's first split-operator run)");
     if (hooks.stage) hooks.stage("--tolerance search (share of its cost bound)");
     request.progress = hooks.progress;
     outcome.choice = naming_scenario(scenario.file, scenario, [&] {

@@ -336,7 +336,8 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
     } catch (const Sized&) {
     }
     if (coarse_operations > 0) {
-      unit = coarse_operations;  // cost units: the coarse split-operator run, as when it runs first
+      // cost units until the coarse split-operator run has run: its estimate (then its own arithmetic)
+      unit = coarse_operations;
       WorkRequest e = request;
       e.reverse_run = reverse;
       e.integrator = Integrator::eigenbasis;
@@ -400,6 +401,11 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
     }
   }
   ScenarioWork coarse = run(c.scenario, request);
+  if (ode_first_limit > 0) {  // the ODE's try was counted in units of the estimate: now the run's own
+    const double actual = run_arithmetic(coarse.result());
+    c.cost_spent *= unit / actual;
+    unit = actual;
+  }
   if (given_steps > 0)
     c.trail.back() += " (the scenario's " + std::to_string(given_steps) + " steps are replaced: the search chooses them)";
   double coarse_seconds = last_seconds;
@@ -646,7 +652,7 @@ std::vector<std::string> work_warnings(const WorkRun& run) {
     const ToleranceChoice& t = *run.tolerance;
     auto verified = [](double v) { return std::isnan(v) ? std::string("not verified") : short_number(v, 3); };
     w.push_back("the --tolerance search stopped at its cost bound (" + short_number(t.cost_bound, 3) +
-                " times its first run's estimated arithmetic; next run not started): the result is its finest "
+                " times its first split-operator run's estimated arithmetic; next run not started): the result is its finest "
                 "verified run, time-step part " + verified(t.time_step_part) + ", grid part " + verified(t.grid_part) +
                 (t.reached() ? " (within " : " (NOT within ") + short_number(t.tolerance, 3) +
                 "): loosen --tolerance or raise --search-budget");
@@ -1444,7 +1450,9 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
                       short_number(t.ode_cost_ratio, 2) + ")");
     else if (t.ode_stopped)
       row("method", "eigenbasis ODE stopped by its arithmetic budget (the run lines above say which)");
-    row("cost", short_number(t.cost_spent, 3) + " times the first run's estimated arithmetic, bound " +
+    row("cost", short_number(t.cost_spent, 3) +
+                    (t.ode_first ? " times the estimated arithmetic of the coarse split-operator run (not run), bound "
+                                 : " times the first split-operator run's estimated arithmetic, bound ") +
                     short_number(t.cost_bound, 3) + (t.bound_reached ? ": the bound stopped the search" : ""));
     if (t.ode_first)
       row("", "the chosen ODE run and its check are the whole search (estimated arithmetic; the spectra not counted)");

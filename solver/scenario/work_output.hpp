@@ -102,7 +102,8 @@ struct ToleranceChoice {
   double ode_cost_ratio = std::numeric_limits<double>::quiet_NaN();
   bool ode_stopped = false;
   // Cost bound: the runs' estimated arithmetic (steps x substeps x columns x transform cost,
-  // the reverse run included), summed in units of the first run's; a run that would take the
+  // the reverse run included), summed in units of the first split-operator run's (of its
+  // estimate, before it runs: the eigenbasis ODE's first try); a run that would take the
   // sum past cost_bound is not started, and the search returns what it has verified
   // (bound_reached; the parts not yet measured are NaN, so estimate() is NaN and reached()
   // false). request.progress, if set, is called with the share of the bound used.

@@ -265,7 +265,7 @@ void add_work_command(CLI::App& app) {
                   "lower; the report says what was chosen, why, and the error estimate");
   sub->add_option("--search-budget", command->search_budget,
                   "cost bound of the --tolerance search: its runs' estimated arithmetic, summed, in units of its "
-                  "first run's (default " + short_number(default_search_budget) + "); at the bound it stops and "
+                  "first split-operator run's (default " + short_number(default_search_budget) + "); at the bound it stops and "
                   "reports the accuracy it verified");
   add_uncertainty_options(sub, command->uncertainty,
                           "<W>, sd(W), Delta F and the strong lines' probabilities get the standard deviation it "

@@ -651,7 +651,7 @@ def work(scenario, tolerance=None, search_budget=2000, progress=None, uncertaint
         converged value (a total-variation bound over the work lines, between 0 and 1, e.g.
         1e-4): time step and grid are searched until two runs agree to half of it, as
         ``trapwork work --tolerance``.
-    search_budget: cost bound of that search, in units of its first run's estimated arithmetic
+    search_budget: cost bound of that search, in units of its first split-operator run's estimated arithmetic
         (default 2000, as ``--search-budget``); at the bound the search returns what it verified.
     uncertainty: None, or the fit_summary.json of :func:`fit` / ``trapwork fit`` (or its folder):
         the trap's calibration uncertainty carried forward, as ``trapwork work --uncertainty``;
