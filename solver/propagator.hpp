@@ -320,15 +320,17 @@ void triple_jump(Strang&& strang, double t, double dt) {
 // its own inverse, on the real and imaginary parts for a hard-walled box); `kinetic` carries
 // exp(-i T dt) and the transform normalisation. Cache blocking (common practice): columns go
 // in blocks of block_columns(), each copied (times `before`) into a worker's own aligned
-// scratch, transformed, multiplied and transformed back while in cache, and written back
+// scratch, transformed (out of place into a second scratch, for the Fourier grid), multiplied
+// and transformed back while in cache, and written back
 // (times `after`): one pass over the states per call, however many substeps. Plans (FFTW_MEASURE, one block shape and
 // the remainder's, made once on the scratch before any data is written) are executed with
 // new-array execution, which FFTW allows from several threads at once.
 // The block split depends only on (points, columns), never on the thread count, and a block's
 // arithmetic is the same whichever worker runs it, so the result does not depend on the
 // number of threads (bit for bit, as long as FFTW measures the same plans; within one process
-// it reuses what it measured). Memory: the scratch, threads x block_columns() x points
-// complex samples (about 256 KiB per thread), beside the states.
+// it reuses what it measured). Memory: the scratch, 2 x threads x block_columns() x points
+// complex samples (about 512 KiB per thread; half that for the sine transform), beside the
+// states.
 class BatchedSplitStep {
  public:
   // points >= 1, columns >= 1, threads >= 1 (threads - 1 worker threads are started; the
@@ -349,8 +351,10 @@ class BatchedSplitStep {
   // substeps - 1, psi_c <- B^-1[ kinetic[s] .* B[ kicks[s] .* psi_c ] ], then
   // psi_c <- kicks[substeps] .* psi_c. kicks: substeps + 1 arrays, kinetic: substeps arrays, of
   // `points` factors each. apply() is the case substeps = 1.
+  // meanwhile (may be empty) runs on the calling thread while the other workers start on the
+  // blocks (with one thread: before them); it must not throw and must not touch `state`.
   void apply_many(Eigen::MatrixXcd& state, int substeps, const std::complex<double>* const* kicks,
-                  const std::complex<double>* const* kinetic);
+                  const std::complex<double>* const* kinetic, const std::function<void()>& meanwhile = {});
   std::size_t points() const;
   int columns() const;
   int threads() const;
@@ -414,8 +418,10 @@ class StrangKicks {
 // every column block through the whole chunk while it is in cache (BatchedSplitStep::
 // apply_many): one pass over the states per chunk, one kick and one kinetic multiplication per
 // point and substep. It uses the nominal lengths (dt, or g1 dt and g0 dt) for kicks and kinetic
-// phases, so its results agree with step() to rounding, not bit for bit. Memory: the kicks of
-// one chunk, (chunk_substeps() + 1) x points complex samples (about 1 MiB). Chunks depend only
+// phases, so its results agree with step() to rounding, not bit for bit. While the blocks go
+// through one chunk, the calling thread computes the next chunk's kicks (then joins the other
+// workers), so that sampling the potential does not hold the other threads up. Memory: the
+// kicks of two chunks, 2 x (chunk_substeps() + 1) x points complex samples (about 2 MiB). Chunks depend only
 // on the sizes and the step range, so results do not depend on `threads`. Move-only.
 class SplitOperatorPropagator {
  public:

@@ -339,6 +339,21 @@ TEST_CASE("a NaN or infinite potential or state stops the propagation, naming st
     CHECK_THROWS_WITH(propagate(prop, psi, 0.0, 1.0, 10),
                       Contains("step 5 of 10 (t = 0.5 T0)") && Contains("potential at x = -10 L0 is NaN at t = 0.535121 T0"));
   }
+  // In a later chunk (128 points: chunks of 64 Strang substeps; 200 steps, the first NaN sample
+  // at step 101, in the chunk of steps 64 .. 127, whose kicks are computed while steps 0 .. 63
+  // run): the error names its step, and the state is left at the start of that chunk, equal to
+  // a run of the first 64 steps alone, at one and at two threads.
+  for (const int threads : {1, 2}) {
+    SplitOperatorPropagator prop(PotentialPath::lab(grid, root, through_zero), 2, SplitOrder::strang, threads);
+    REQUIRE(prop.chunk_substeps() == 64);
+    auto psi = oscillator_states(grid);
+    CHECK_THROWS_WITH(prop.steps(psi, 0.0, 1.0, 200, 0, 200), Contains("step 101 of 200"));
+    SplitOperatorPropagator alone(PotentialPath::lab(grid, root, through_zero), 2, SplitOrder::strang, threads);
+    auto reference = oscillator_states(grid);
+    alone.steps(reference, 0.0, 1.0, 200, 0, 64);
+    CHECK((psi - reference).cwiseAbs().maxCoeff() == 0.0);
+    CHECK((psi - oscillator_states(grid)).cwiseAbs().maxCoeff() > 0.1);  // it did run
+  }
   // log(g) with g from 1 to 0: -infinity at t = tau exactly (the schedule's end value), step 4 of 4
   const Potential logarithm({Term::formula("trap", "0.5*x^2 + log(g)", {{"g", 1.0}})});
   const Protocol to_zero(1, {Schedule::linear("trap.g", 1, 0)});
