@@ -216,6 +216,61 @@ void fill_polygon(const Vec& x, const Vec& y) {
   if (x.size() >= 3) plfill(static_cast<PLINT>(x.size()), x.data(), y.data());
 }
 
+// A disc of radius radius_mm on the page, round whatever the axes' scales, centred at (x, y) in
+// the current viewport and window: its outline as `sides` + 1 points (closed), in world units.
+// Drawn as polygons, many markers cost far less than as text glyphs (plstring lays out each
+// glyph through the font renderer: 12 % of a whole `trapwork work` call's CPU time for the
+// 1300 lines of a quartic trap's work figure, measured).
+struct Disc {
+  static constexpr int max_sides = 24;  // the maps' large markers
+  int sides = max_sides;  // fewer for small dots: smaller SVG files, no visible difference
+  double rx = 0, ry = 0;
+  explicit Disc(double radius_mm) {
+    PLFLT vx0, vx1, vy0, vy1, wx0, wx1, wy0, wy1, xmin_mm, xmax_mm, ymin_mm, ymax_mm;
+    plgvpd(&vx0, &vx1, &vy0, &vy1);                   // the viewport in page fractions
+    plgvpw(&wx0, &wx1, &wy0, &wy1);                   // its world window
+    plgspa(&xmin_mm, &xmax_mm, &ymin_mm, &ymax_mm);  // the subpage in mm: its aspect
+    rx = radius_mm / ((vx1 - vx0) * (xmax_mm - xmin_mm)) * (wx1 - wx0);
+    ry = radius_mm / ((vy1 - vy0) * (ymax_mm - ymin_mm)) * (wy1 - wy0);
+    if (radius_mm < 3) sides = radius_mm < 1 ? 8 : 16;
+  }
+  void outline(double x, double y, PLFLT* cx, PLFLT* cy) const {  // sides + 1 points
+    for (int k = 0; k <= sides; ++k) {
+      cx[k] = x + rx * std::cos(2 * M_PI * k / sides);
+      cy[k] = y + ry * std::sin(2 * M_PI * k / sides);
+    }
+  }
+  void fill(double x, double y) const {
+    PLFLT cx[max_sides + 1], cy[max_sides + 1];
+    outline(x, y, cx, cy);
+    plfill(sides, cx, cy);
+  }
+};
+
+// The markers of the work figure's stems, drawn as polygons (Disc) in the size of the legend's
+// glyphs ●, ○ and ◆ at the same character scale.
+enum class Marker { disc, ring, diamond };
+
+void draw_markers(const Vec& x, const Vec& y, Marker marker, double scale) {
+  PLFLT default_mm, height_mm;
+  plgchr(&default_mm, &height_mm);
+  const Disc disc(0.5 * scale * height_mm / text_scale);
+  for (std::size_t i = 0; i < x.size(); ++i) {
+    if (marker == Marker::diamond) {
+      const double r = 1.15;  // the glyph's diamond reaches a little beyond the disc
+      PLFLT cx[5] = {x[i] + r * disc.rx, x[i], x[i] - r * disc.rx, x[i], x[i] + r * disc.rx};
+      PLFLT cy[5] = {y[i], y[i] + r * disc.ry, y[i], y[i] - r * disc.ry, y[i]};
+      plfill(4, cx, cy);
+    } else if (marker == Marker::ring) {
+      PLFLT cx[Disc::max_sides + 1], cy[Disc::max_sides + 1];
+      disc.outline(x[i], y[i], cx, cy);
+      plline(disc.sides + 1, cx, cy);
+    } else {
+      disc.fill(x[i], y[i]);
+    }
+  }
+}
+
 // Width of PLplot text in characters: escapes "#u", "#d" take no room, "#gX" is one glyph,
 // characters raised or lowered from the baseline count 0.6 (PLplot draws them smaller).
 double visible_length(const std::string& text) {
@@ -702,8 +757,8 @@ void validate_series(const std::string& name, const WorkSeries& s) {
 
 // Vertical stems from the panel floor to P (or log10 P), with a marker on top. Without markers
 // (marker_scale 0: too many lines for them) the stems are drawn light, each top a small dot.
-void draw_stems(const WorkSeries& s, bool log, double floor, double offset, PLINT colour,
-                const char* marker, double marker_scale, double stem_width) {
+void draw_stems(const WorkSeries& s, bool log, double floor, double offset, PLINT colour, Marker marker,
+                double marker_scale, double stem_width) {
   Vec tx, ty;
   const bool crowded = !(marker_scale > 0);
   pen(crowded ? (colour == blue ? blue_fill : orange_fill) : colour, stem_width);
@@ -717,10 +772,11 @@ void draw_stems(const WorkSeries& s, bool log, double floor, double offset, PLIN
     ty.push_back(y);
   }
   if (tx.empty()) return;
-  pen(colour, 1);
-  plschr(0, crowded ? 0.35 : marker_scale);
-  plstring(static_cast<PLINT>(tx.size()), tx.data(), ty.data(), crowded ? "•" : marker);
-  plschr(0, text_scale);
+  pen(colour, 1.5);
+  if (crowded)
+    draw_markers(tx, ty, Marker::disc, 0.1);  // small dots
+  else
+    draw_markers(tx, ty, marker, marker_scale);
 }
 
 // +-1 standard error bars on a series' stems (red), in log10 P on a log panel, clipped at its
@@ -1094,13 +1150,13 @@ std::vector<fs::path> draw_work(const fs::path& stem, const WorkFigure& f) {
       if (f.result.error_as_band)  // boxes first: the markers stand on them
         draw_error_bars(f.result, panel.log_y, panel.y_lo, -shift, panel.y_hi, box_width);
       if (f.reference)
-        draw_stems(*f.reference, panel.log_y, panel.y_lo, offset - shift, orange, "○", scale(1), width(1));
-      draw_stems(f.result, panel.log_y, panel.y_lo, -shift, blue, "●", scale(0), width(0));
+        draw_stems(*f.reference, panel.log_y, panel.y_lo, offset - shift, orange, Marker::ring, scale(1), width(1));
+      draw_stems(f.result, panel.log_y, panel.y_lo, -shift, blue, Marker::disc, scale(0), width(0));
       if (!f.result.error_as_band)  // bars with caps over the stems (e.g. standard errors)
         draw_error_bars(f.result, panel.log_y, panel.y_lo, -shift, panel.y_hi, box_width);
       if (f.noisy) {
         const double left_of = -0.004 * (panel.x_hi - panel.x_lo) - shift;
-        draw_stems(*f.noisy, panel.log_y, panel.y_lo, left_of, red, "◆", scale(2), width(2));
+        draw_stems(*f.noisy, panel.log_y, panel.y_lo, left_of, red, Marker::diamond, scale(2), width(2));
         draw_error_bars(*f.noisy, panel.log_y, panel.y_lo, left_of, panel.y_hi, box_width);
       }
 
@@ -1739,27 +1795,19 @@ std::vector<fs::path> plot_sweep_map(const fs::path& stem, const SweepMapFigure&
       }
     }
     if (scatter) {  // markers over the contours: a disc of radius 1.4 % of the frame's width (round on the page)
-      PLFLT vx0, vx1, vy0, vy1;
-      plgvpd(&vx0, &vx1, &vy0, &vy1);  // the viewport in page fractions
-      PLFLT xmin_mm, xmax_mm, ymin_mm, ymax_mm;
-      plgspa(&xmin_mm, &xmax_mm, &ymin_mm, &ymax_mm);  // the subpage in mm: its aspect
-      const double page_w = xmax_mm - xmin_mm, page_h = ymax_mm - ymin_mm;
-      const double radius_mm = 0.014 * (vx1 - vx0) * page_w;
-      const double rx = radius_mm / ((vx1 - vx0) * page_w) * (p.x_hi - p.x_lo);
-      const double ry = radius_mm / ((vy1 - vy0) * page_h) * (p.y_hi - p.y_lo);
-      constexpr int sides = 24;
+      PLFLT vx0, vx1, vy0, vy1, xmin_mm, xmax_mm, ymin_mm, ymax_mm;
+      plgvpd(&vx0, &vx1, &vy0, &vy1);
+      plgspa(&xmin_mm, &xmax_mm, &ymin_mm, &ymax_mm);
+      const Disc disc(0.014 * (vx1 - vx0) * (xmax_mm - xmin_mm));
       for (std::size_t i = 0; i < f.point_x.size(); ++i) {
-        PLFLT cx[sides + 1], cy[sides + 1];
-        for (int k = 0; k <= sides; ++k) {
-          cx[k] = f.point_x[i] + rx * std::cos(2 * M_PI * k / sides);
-          cy[k] = f.point_y[i] + ry * std::sin(2 * M_PI * k / sides);
-        }
+        PLFLT cx[Disc::max_sides + 1], cy[Disc::max_sides + 1];
+        disc.outline(f.point_x[i], f.point_y[i], cx, cy);
         if (std::isfinite(f.point_z[i])) {
           plcol1((f.point_z[i] - z_lo) / z_span);
-          plfill(sides, cx, cy);
+          plfill(disc.sides, cx, cy);
         }
         pen(ink, 1.0);
-        plline(sides + 1, cx, cy);
+        plline(disc.sides + 1, cx, cy);
       }
     }
     const double distance = draw_frame(p);
