@@ -153,11 +153,81 @@ Scan scan_potential(const Potential& potential, double lo, double hi, double t, 
   return s;
 }
 
-double wkb_action(const Scan& s, double energy) {
-  double sum = 0;
-  for (double v : s.v)
-    if (v < energy) sum += std::sqrt(2 * (energy - v));
-  return sum * s.step;
+// The WKB action S(E) = step sum_{V_i < E} sqrt(2 (E - V_i)) (hbar = m = 1) over samples of V,
+// with its derivative S'(E) = step sum 1 / sqrt(2 (E - V_i)) from the same pass; on sorted
+// samples a pass stops at the first sample above E.
+struct WkbAction {
+  std::vector<double> v;
+  double step = 0;
+  bool sorted = false;
+  double operator()(double energy, double& slope) const {
+    double sum = 0, derivative = 0;
+    for (double x : v) {
+      if (x >= energy) {
+        if (sorted) break;
+        continue;
+      }
+      const double p = std::sqrt(2 * (energy - x));
+      sum += p;
+      derivative += 1 / p;
+    }
+    slope = derivative * step;
+    return sum * step;
+  }
+};
+
+// The energy E in [a, b] with S(E) = pi (level + 1/2), S(a) < target <= S(b), to
+// 1e-12 (1 + |E|): safeguarded Newton steps from `guess`, bisecting where a step leaves the
+// bracket (Press et al., Numerical Recipes, rtsafe; from memory): about 5 passes over the
+// samples where bisection took 35.
+double wkb_solve(const WkbAction& action, int level, double a, double b, double guess) {
+  const double target = si::pi * (level + 0.5);
+  double x = std::clamp(guess, a, b);
+  for (int i = 0; i < 200; ++i) {
+    double slope = 0;
+    const double f = action(x, slope) - target;
+    (f < 0 ? a : b) = x;
+    if (b - a <= 1e-12 * (1 + std::abs(b))) break;
+    const double newton = slope > 0 ? x - f / slope : NAN;
+    const double next = newton > a && newton < b ? newton : 0.5 * (a + b);
+    const bool converged = std::abs(next - x) <= 1e-12 * (1 + std::abs(x));
+    x = next;
+    if (converged) break;
+  }
+  return std::clamp(x, a, b);
+}
+
+// WKB energies of levels 0 .. count - 1 (sum p dx = pi (K + 1/2)) from one scan of V, each
+// capped at the threshold (the lower end of the window). The highest is solved first on the
+// unsorted samples; the others (unless only_highest: left at the threshold) on the samples
+// below it, sorted once.
+std::vector<double> wkb_energies(const Scan& s, int count, bool only_highest = false) {
+  const double threshold = std::min(s.v.front(), s.v.back());
+  const double v_min = *std::min_element(s.v.begin(), s.v.end());
+  WkbAction all{s.v, s.step, false};
+  double slope = 0;
+  const double top = all(threshold, slope);
+  std::vector<double> energies(std::size_t(std::max(count, 0)), threshold);
+  if (count <= 0) return energies;
+  // levels with pi (level + 1/2) > S(threshold) are not bound: they stay at the threshold
+  const int bound = std::min(count, int(std::ceil(top / si::pi - 0.5)));
+  if (bound <= 0) return energies;
+  const double highest = wkb_solve(all, bound - 1, v_min, threshold, 0.5 * (v_min + threshold));
+  energies[std::size_t(bound - 1)] = highest;
+  if (only_highest) return energies;
+  WkbAction below{{}, s.step, true};
+  for (double x : s.v)
+    if (x < highest) below.v.push_back(x);
+  std::sort(below.v.begin(), below.v.end());
+  double a = v_min, spacing = 0;
+  for (int level = 0; level + 1 < bound; ++level) {
+    const double guess = spacing > 0 ? a + spacing : 0.5 * (a + highest);
+    const double e = wkb_solve(below, level, a, highest, guess);
+    spacing = level == 0 ? e - v_min : e - energies[std::size_t(level - 1)];
+    energies[std::size_t(level)] = e;
+    a = e;
+  }
+  return energies;
 }
 
 std::pair<double, double> search_window(const SpectrumRequest& r) {
@@ -422,63 +492,9 @@ HarmonicApproximation harmonic_approximation(const Potential& potential, double 
   return harmonic_from_scan(potential, scan_potential(potential, lo, hi, t), t);
 }
 
-double wkb_level_energy(const Potential& potential, int level, double lo, double hi) {
-  const double t = potential.time();  // formulas using t at the potential's own time
-  const Scan s = scan_potential(potential, lo, hi, t);
-  const double v_min = *std::min_element(s.v.begin(), s.v.end());
-  const double threshold = std::min(s.v.front(), s.v.back());
-  const double target = si::pi * (level + 0.5);
-  if (wkb_action(s, threshold) < target) return threshold;
-  double a = v_min, b = threshold;
-  for (int i = 0; i < 200 && b - a > 1e-12 * (1 + std::abs(b)); ++i) {
-    const double mid = 0.5 * (a + b);
-    (wkb_action(s, mid) < target ? a : b) = mid;
-  }
-  return b;
-}
-
 std::vector<double> wkb_level_energies(const Potential& potential, int count, double lo, double hi) {
   const double t = potential.time();  // formulas using t at the potential's own time
-  const Scan s = scan_potential(potential, lo, hi, t);
-  const double threshold = std::min(s.v.front(), s.v.back());
-  // the action sums the samples below E (as wkb_action): sorted, a sum stops at the first above
-  std::vector<double> v = s.v;
-  std::sort(v.begin(), v.end());
-  auto action = [&](double energy) {
-    double sum = 0;
-    for (double x : v) {
-      if (x >= energy) break;
-      sum += std::sqrt(2 * (energy - x));
-    }
-    return sum * s.step;
-  };
-  const double v_min = v.front(), top = action(threshold);
-  std::vector<double> energies;
-  double a = v_min;           // below the next level: the previous one
-  double step = 1e-12 * (1 + std::abs(v_min));  // then the last spacing, doubled until above
-  for (int level = 0; level < count; ++level) {
-    const double target = si::pi * (level + 0.5);
-    if (top < target) {
-      energies.push_back(threshold);
-      continue;
-    }
-    step = std::max(step, 1e-12 * (1 + std::abs(a)));
-    double b = std::min(threshold, a + step);
-    while (action(b) < target) {
-      a = b;
-      step = std::max(2 * step, 1e-12 * (1 + std::abs(b)));
-      b = std::min(threshold, b + step);
-    }
-    // to 1e-9 of the energy scale: a prediction needs no more (fewer passes over the samples)
-    for (int i = 0; i < 200 && b - a > 1e-9 * (1 + std::abs(b)); ++i) {
-      const double mid = 0.5 * (a + b);
-      (action(mid) < target ? a : b) = mid;
-    }
-    step = energies.empty() ? b - v_min : b - energies.back();
-    energies.push_back(b);
-    a = b;
-  }
-  return energies;
+  return wkb_energies(scan_potential(potential, lo, hi, t), count);
 }
 
 Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRequest& request) {
@@ -648,7 +664,7 @@ SpectrumResult compute_spectrum(const Potential& potential, const SpectrumReques
   const double edge_min = std::min(s.v.front(), s.v.back());
   const int k = request.options.levels;
   // A level is bound below the lower asymptote; for a box or a confining trap there is none.
-  const double top_estimate = wkb_level_energy(potential, k - 1, lo, hi);
+  const double top_estimate = wkb_energies(s, k, true).back();
   result.finite_depth = !request.box && top_estimate >= edge_min;
   result.threshold = result.finite_depth ? edge_min : inf;
   double cutoff = result.harmonic.v_min + 1.25 * (top_estimate - result.harmonic.v_min) + 1e-12;

@@ -187,10 +187,9 @@ void cap_potential(std::vector<double>& v, double v_min, double cutoff);
 // Throws PhysicsError if V is nowhere below energy_max in the search window.
 Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRequest& request);
 
-// WKB estimate of the energy of level K (sum p dx = pi (K + 1/2)), capped at the threshold.
-double wkb_level_energy(const Potential& potential, int level, double lo, double hi);
-// The same for levels 0 .. count - 1 from one scan of V, each to 1e-9 (1 + |E|) rather than
-// 1e-12 (for predictions: how many levels a thermal state needs before any is solved).
+// WKB estimates of the energies of levels 0 .. count - 1 (sum p dx = pi (K + 1/2)) from one
+// scan of V over [lo, hi], each capped at the threshold and found to 1e-12 (1 + |E|) (for
+// predictions: how many levels a thermal state needs before any is solved).
 std::vector<double> wkb_level_energies(const Potential& potential, int count, double lo, double hi);
 
 // Full pipeline: grid (automatic or fixed), eigenpairs, level table, convergence estimate,

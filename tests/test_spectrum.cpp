@@ -113,6 +113,34 @@ TEST_CASE("finite wells: bound states are told from the continuum", "[spectrum]"
   CHECK_THAT(res.warnings.front(), Contains("not bound"));
 }
 
+TEST_CASE("WKB level energies: exact for an oscillator, capped at a finite well's threshold", "[spectrum]") {
+  // The WKB quantisation sum p dx = pi (n + 1/2) gives the oscillator's levels omega (n + 1/2)
+  // exactly (textbook result, from memory); what is left is the scan's Riemann sum over
+  // 200001 samples, a few 1e-7 of E here.
+  const double w = 1.3;
+  const std::vector<double> e = wkb_level_energies(oscillator(w), 30, -12, 12);
+  REQUIRE(e.size() == 30);
+  for (int n = 0; n < 30; ++n) CHECK(e[std::size_t(n)] == Approx(w * (n + 0.5)).epsilon(2e-6));
+  // a Gaussian well of depth 6 (threshold 0): the bound levels ascend below 0, the rest sit at 0
+  const Potential tweezer({Term("tw", Shape::gaussian, {{"depth", 6.0}, {"waist", 2.0}})});
+  const std::vector<double> g = wkb_level_energies(tweezer, 40, -60, 60);
+  REQUIRE(g.size() == 40);
+  // V = -6 exp(-2 x^2 / waist^2): curvature omega = sqrt(6), the lowest level near -6 + omega / 2
+  CHECK(g.front() > -6);
+  CHECK(g.front() < -6 + std::sqrt(6.0) / 2);
+  int bound = 0;
+  for (std::size_t n = 0; n < g.size(); ++n) {
+    if (g[n] < 0) {
+      ++bound;
+      if (n > 0) CHECK(g[n] > g[n - 1]);
+    } else {
+      CHECK(g[n] == 0.0);
+    }
+  }
+  CHECK(bound >= 3);
+  CHECK(bound < 40);
+}
+
 TEST_CASE("bad requests fail with a reason", "[spectrum]") {
   const Grid g = Grid::periodic(-5, 5, 16);
   SpectrumOptions o;
