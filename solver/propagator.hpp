@@ -508,14 +508,19 @@ struct OdeTolerances {
 // Not a PhysicsError (nothing is wrong with the input; the caller set a budget), so it passes
 // through propagate() unchanged.
 struct ArithmeticLimitReached : std::runtime_error {
-  using std::runtime_error::runtime_error;
+  ArithmeticLimitReached(const std::string& what, double spent_, bool projected_)
+      : std::runtime_error(what), spent(spent_), projected(projected_) {}
+  double spent;    // the estimated arithmetic used when it stopped
+  bool projected;  // stopped by the projection (below the limit), not past the limit
 };
 
 class EigenbasisPropagator {
  public:
   using State = Eigen::MatrixXcd;  // basis coefficients x columns
   // reference.grid must equal path.grid() in size; v_reference = V_ref on the grid.
-  // arithmetic_limit > 0: throw ArithmeticLimitReached once arithmetic() passes it.
+  // arithmetic_limit > 0: throw ArithmeticLimitReached once arithmetic() passes it, or once,
+  // from a tenth of the protocol's duration on (the run starting at t = 0), the arithmetic so
+  // far projected to the whole duration passes twice the limit.
   EigenbasisPropagator(PotentialPath path, Spectrum reference, std::vector<double> v_reference,
                        OdeTolerances tolerances = {}, double arithmetic_limit = 0);
   void step(State& state, double t, double dt);

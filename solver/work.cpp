@@ -449,14 +449,18 @@ int predicted_levels(const Potential& va, const WorkRequest& request, int first,
   if (!request.initial.is_gibbs() || request.spectrum.box) return 0;
   const int cap = request.max_initial_levels + request.final_margin;
   const double centre = request.spectrum.search_centre, half = request.spectrum.search_half_width;
-  if (int(wkb.size()) < std::max(first, cap))
-    wkb = wkb_level_energies(va, std::max(first, cap), centre - half, centre + half);
-  const Eigen::VectorXd energies =
-      Eigen::Map<const Eigen::VectorXd>(wkb.data(), Eigen::Index(std::max(first, cap)));
-  if (!(energies(energies.size() - 1) > energies(0))) return 0;  // no bound levels above the lowest
+  // WKB energies only as far as an attempt looks (the higher levels cost the longest passes)
+  auto energies_of = [&](int count) {
+    if (int(wkb.size()) < count) wkb = wkb_level_energies(va, count, centre - half, centre + half);
+    return Eigen::Map<const Eigen::VectorXd>(wkb.data(), Eigen::Index(count));
+  };
   int levels = first;
+  {
+    const Eigen::VectorXd energies = energies_of(std::max(first, 2));
+    if (!(energies(energies.size() - 1) > energies(0))) return 0;  // no bound levels above the lowest
+  }
   for (int attempt = 0;; ++attempt) {
-    const Eigen::VectorXd held = energies.head(std::min<Eigen::Index>(levels, energies.size()));
+    const Eigen::VectorXd held = energies_of(levels);
     InitialWeights w = initial_weights(request.initial, held, request.thermal_tolerance, request.max_initial_levels);
     if (int(w.weights.size()) < request.min_initial_levels && request.min_initial_levels <= levels) {
       w = initial_weights(request.initial, held, 0.0, request.min_initial_levels);

@@ -259,11 +259,30 @@ TEST_CASE("eigenbasis ODE: potential shapes, steps set by the coupling, arithmet
     options.method = EigenMethod::dense;
     const auto va = harmonic_trap().evaluate(grid.points());
     const Spectrum sa = solve_spectrum(grid, va, options);
-    EigenbasisPropagator ode(path, sa, va, {1e-10, 1e-10}, 1e5);
-    auto c = ode.coefficients(sa.states.leftCols(2).cast<std::complex<double>>());
-    CHECK_THROWS_AS(propagate(ode, c, 0.0, 1.0, 4), ArithmeticLimitReached);
-    CHECK(ode.arithmetic() > 1e5);
-    CHECK(ode.arithmetic() < 2e5);  // stopped at the first evaluation past the limit
+    const auto start = sa.states.leftCols(2).cast<std::complex<double>>();
+    EigenbasisPropagator free_run(path, sa, va, {1e-10, 1e-10});
+    auto c = free_run.coefficients(start);
+    propagate(free_run, c, 0.0, 1.0, 4);
+    const double whole = free_run.arithmetic();
+    // a limit of 0.6 of the whole: the projection (about the whole) stays below twice the limit,
+    // so the run stops at the first evaluation past the limit
+    EigenbasisPropagator late(path, sa, va, {1e-10, 1e-10}, 0.6 * whole);
+    c = late.coefficients(start);
+    CHECK_THROWS_AS(propagate(late, c, 0.0, 1.0, 4), ArithmeticLimitReached);
+    CHECK(late.arithmetic() > 0.6 * whole);
+    CHECK(late.arithmetic() < 0.7 * whole);
+    // a limit of a fifth: projected past twice the limit at a tenth of the duration, the run
+    // stops there, before spending the limit
+    EigenbasisPropagator early(path, sa, va, {1e-10, 1e-10}, 0.2 * whole);
+    c = early.coefficients(start);
+    CHECK_THROWS_WITH(propagate(early, c, 0.0, 1.0, 4), Catch::Matchers::Contains("projected to pass twice"));
+    CHECK(early.arithmetic() < 0.2 * whole);
+    CHECK(early.arithmetic() > 0.05 * whole);
+    // a limit of 1.5 times the whole: the run finishes, with the same arithmetic
+    EigenbasisPropagator enough(path, sa, va, {1e-10, 1e-10}, 1.5 * whole);
+    c = enough.coefficients(start);
+    CHECK_NOTHROW(propagate(enough, c, 0.0, 1.0, 4));
+    CHECK(enough.arithmetic() == whole);
   }
 }
 

@@ -139,6 +139,13 @@ TEST_CASE("WKB level energies: exact for an oscillator, capped at a finite well'
   }
   CHECK(bound >= 3);
   CHECK(bound < 40);
+  // a window so wide that the action at its edge holds more levels than an int counts (V at the
+  // edge near 8e13): the levels are still solved, not left at the threshold
+  const std::vector<double> wide = wkb_level_energies(oscillator(1, 1), 5, -3000, 3000);
+  REQUIRE(wide.size() == 5);
+  CHECK(wide.front() > 0);
+  for (std::size_t n = 1; n < wide.size(); ++n) CHECK(wide[n] > wide[n - 1]);
+  CHECK(wide.back() < 100);
 }
 
 TEST_CASE("bad requests fail with a reason", "[spectrum]") {

@@ -390,11 +390,14 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
           c.scenario.spectrum.points = c.points;
           return c;
         }
-      } catch (const ArithmeticLimitReached&) {
+      } catch (const ArithmeticLimitReached& stop) {
         c.ode_stopped = true;
-        c.cost_spent += ode_first_limit / unit;  // what it used before it stopped
-        c.trail.push_back("eigenbasis ODE first (tolerance " + short_number(tolerance / 50, 2) +
-                          "): stopped when its estimated arithmetic passed a quarter of the coarse split-operator run's (" +
+        c.cost_spent += stop.spent / unit;  // what it used before it stopped
+        c.trail.push_back("eigenbasis ODE first (tolerance " + short_number(tolerance / 50, 2) + "): stopped when its " +
+                          (stop.projected ? "estimated arithmetic, projected from the protocol's first part, passed "
+                                            "twice "
+                                          : "estimated arithmetic passed ") +
+                          "a quarter of the coarse split-operator run's (" +
                           short_number(std::chrono::duration<double>(std::chrono::steady_clock::now() - tried).count(), 2) +
                           " s)");
       }
@@ -559,12 +562,13 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
         c.method = basis.result().method;
         coarse = std::move(basis);
       }
-    } catch (const ArithmeticLimitReached&) {
+    } catch (const ArithmeticLimitReached& stop) {
       c.ode_stopped = true;
-      c.cost_spent += e.ode_arithmetic_limit / unit;  // what the stopped run used
+      c.cost_spent += stop.spent / unit;  // what the stopped run used
       const bool check = e.steps > 0;
-      c.trail.push_back("eigenbasis ODE (tolerance " + short_number(e.ode.absolute, 2) +
-                        "): stopped when its estimated arithmetic passed " +
+      c.trail.push_back("eigenbasis ODE (tolerance " + short_number(e.ode.absolute, 2) + "): stopped when its " +
+                        (stop.projected ? "estimated arithmetic, projected from the protocol's first part, passed twice "
+                                        : "estimated arithmetic passed ") +
                         (check ? "its share of 1.5 times the chosen run (at most 6 times the first ODE run's)"
                                : "its share of 1.5 times the chosen run (at most half the split-operator run's time)") +
                         " (" + short_number(std::chrono::duration<double>(std::chrono::steady_clock::now() - tried).count(), 2) + " s)");
