@@ -107,12 +107,14 @@ def column_scale(name, values):
         # FFTW_MEASURE picked different transforms under load); 1e-14 is far below any population
         # the tool resolves (the lines floor is 1e-15 of a total of 1, rounding about 1e-16 per step)
         return SCALE_RELATIVE * scale + 1e-14
-    if name.endswith("_sd"):
-        # a spread due to the calibration (lines_uncertainty.csv probability_sd, the sweep's
-        # *_calibration_sd): a difference of runs at the parameters +- h over 2h, which amplifies
-        # the runs' rounding by about 1/h; probability_sd of ion_sweep_calibrated.toml differed by
-        # 3e-11 of itself (8.822909508562674e-05 vs 8.82290950829371e-05) between the module and
-        # the command line when FFTW_MEASURE picked different transforms under load
+    if name.endswith("_sd") or "_sd_" in name:
+        # a spread due to the calibration (lines_uncertainty.csv probability_sd and
+        # probability_sd_linear, the sweep's *_calibration_sd): a difference of runs at the
+        # parameters +- h over 2h, which amplifies the runs' rounding by about 1/h; probability_sd
+        # of ion_sweep_calibrated.toml differed by 3e-11 of itself (8.822909508562674e-05 vs
+        # 8.82290950829371e-05) between the module and the command line when FFTW_MEASURE picked
+        # different transforms under load, and probability_sd_linear by 2.6e-11
+        # (8.822909509007295e-05 vs 8.822909508776166e-05)
         return NOISE_SCALE_RELATIVE * scale
     if name.startswith("characteristic_function"):
         # G(u) = <exp(i u W)> has |G| <= 1 and G(0) = 1, so 1 is its scale, not the column's
