@@ -421,8 +421,9 @@ class StrangKicks {
 // phases, so its results agree with step() to rounding, not bit for bit. While the blocks go
 // through one chunk, the calling thread computes the next chunk's kicks (then joins the other
 // workers), so that sampling the potential does not hold the other threads up. Memory: the
-// kicks of two chunks, 2 x (chunk_substeps() + 1) x points complex samples (about 2 MiB). Chunks depend only
-// on the sizes and the step range, so results do not depend on `threads`. Move-only.
+// kicks of two chunks, 2 x (chunk_substeps() + 1) x points complex samples (about 2 MiB).
+// Chunks depend only on the sizes and the step range, so results do not depend on `threads`.
+// Move-only.
 class SplitOperatorPropagator {
  public:
   using State = Eigen::MatrixXcd;  // grid points x columns, samples psi(x_j)

@@ -7,6 +7,7 @@
 #include <algorithm>
 #include <cmath>
 #include <limits>
+#include <span>
 #include <tuple>
 
 #include "solver/cost.hpp"
@@ -157,7 +158,7 @@ Scan scan_potential(const Potential& potential, double lo, double hi, double t, 
 // The WKB action S(E) = step sum_{V_i < E} sqrt(2 (E - V_i)) (hbar = m = 1) over samples of V; on
 // sorted samples a pass stops at the first sample above E.
 struct WkbAction {
-  std::vector<double> v;
+  std::span<const double> v;
   double step = 0;
   bool sorted = false;
   double operator()(double energy) const {
@@ -204,10 +205,11 @@ std::vector<double> wkb_energies(const Scan& s, int count, bool only_highest = f
   const double highest = wkb_solve(all, bound - 1, v_min, threshold, -target(bound - 1), top - target(bound - 1));
   energies[std::size_t(bound - 1)] = highest;
   if (only_highest) return energies;
-  WkbAction below{{}, s.step, true};
+  std::vector<double> lower;  // the samples below the highest level, sorted
   for (double x : s.v)
-    if (x < highest) below.v.push_back(x);
-  std::sort(below.v.begin(), below.v.end());
+    if (x < highest) lower.push_back(x);
+  std::sort(lower.begin(), lower.end());
+  const WkbAction below{lower, s.step, true};
   double a = v_min, spacing = 0;
   for (int level = 0; level + 1 < bound; ++level) {
     // S(highest) = target(bound - 1) to the solver's tolerance: above this level's target

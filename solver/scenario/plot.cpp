@@ -773,10 +773,7 @@ void draw_stems(const WorkSeries& s, bool log, double floor, double offset, PLIN
   }
   if (tx.empty()) return;
   pen(colour, 1.5);
-  if (crowded)
-    draw_markers(tx, ty, Marker::disc, 0.1);  // small dots
-  else
-    draw_markers(tx, ty, marker, marker_scale);
+  draw_markers(tx, ty, crowded ? Marker::disc : marker, crowded ? 0.1 : marker_scale);  // crowded: small dots
 }
 
 // +-1 standard error bars on a series' stems (red), in log10 P on a log panel, clipped at its

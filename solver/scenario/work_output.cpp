@@ -256,6 +256,14 @@ Scenario on_finer_grid(const Scenario& s, const Grid& g) {
 }
 }  // namespace
 
+namespace {
+// How a stopped eigenbasis ODE run passed its budget, for the search's trail.
+std::string what_passed(const ArithmeticLimitReached& stop) {
+  return stop.projected ? "estimated arithmetic, projected from the protocol's first part, passed twice "
+                        : "estimated arithmetic passed ";
+}
+}  // namespace
+
 ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request, double tolerance,
                                           double cost_bound) {
   ToleranceChoice c;
@@ -394,10 +402,7 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
         c.ode_stopped = true;
         c.cost_spent += stop.spent / unit;  // what it used before it stopped
         c.trail.push_back("eigenbasis ODE first (tolerance " + short_number(tolerance / 50, 2) + "): stopped when its " +
-                          (stop.projected ? "estimated arithmetic, projected from the protocol's first part, passed "
-                                            "twice "
-                                          : "estimated arithmetic passed ") +
-                          "a quarter of the coarse split-operator run's (" +
+                          what_passed(stop) + "a quarter of the coarse split-operator run's (" +
                           short_number(std::chrono::duration<double>(std::chrono::steady_clock::now() - tried).count(), 2) +
                           " s)");
       }
@@ -567,8 +572,7 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       c.cost_spent += stop.spent / unit;  // what the stopped run used
       const bool check = e.steps > 0;
       c.trail.push_back("eigenbasis ODE (tolerance " + short_number(e.ode.absolute, 2) + "): stopped when its " +
-                        (stop.projected ? "estimated arithmetic, projected from the protocol's first part, passed twice "
-                                        : "estimated arithmetic passed ") +
+                        what_passed(stop) +
                         (check ? "its share of 1.5 times the chosen run (at most 6 times the first ODE run's)"
                                : "its share of 1.5 times the chosen run (at most half the split-operator run's time)") +
                         " (" + short_number(std::chrono::duration<double>(std::chrono::steady_clock::now() - tried).count(), 2) + " s)");
