@@ -234,6 +234,46 @@ TEST_CASE("work --uncertainty on a harmonic shuttle: the linear sd of <W> is the
   CHECK_THAT(report.str(), Contains("not run"));
 }
 
+TEST_CASE("work --uncertainty auto: the check against sampling is chosen by counted arithmetic, not by time",
+          "[uncertainty]") {
+  // The choice must not depend on the machine's load: the command line and the Python module
+  // (or two runs under different load) must write the same files.
+  const Scenario s = read_scenario_text(harmonic_text, "harmonic.toml");
+  const fs::path file = write_file("auto", summary_text(coefficient("frequency", "MHz", 1.0, 1e-3), "[[1.0]]"));
+  const WorkOutcome nominal = work_task(s, std::nullopt);
+  UncertaintySettings settings;
+  settings.calibration = file.string();
+  settings.samples = 6;
+  auto with_limit = [&](double limit) {
+    WorkOutcome o = nominal;
+    settings.check_operations = limit;
+    add_work_uncertainty(o, settings, {});
+    REQUIRE(o.uncertainty);
+    return *o.uncertainty;
+  };
+  const WorkUncertainty first = with_limit(0);
+  REQUIRE(first.linear);
+  REQUIRE(first.linear->accurate);
+  CHECK_FALSE(first.sampled);
+  CHECK(first.runs == 3);
+  CHECK_THAT(first.reason, Contains("not checked against sampling (6 runs of about"));
+  // the estimate: 6 forward runs at the nominal steps, points and kept states, each at least its
+  // propagation's arithmetic (steps x columns x two transforms)
+  const WorkResult& r = nominal.direct ? nominal.direct->result() : nominal.choice->work->result();
+  const double n = double(r.grid.size());
+  REQUIRE(std::isfinite(first.check_estimate));
+  CHECK(first.check_estimate >= 6 * double(r.steps) * double(r.forward.initial_weights.size()) * 10 * n * std::log2(n));
+  // at exactly the estimate the check runs; just below, it does not (the same estimate both times)
+  const WorkUncertainty at = with_limit(first.check_estimate);
+  CHECK(at.check_estimate == first.check_estimate);
+  REQUIRE(at.sampled);
+  CHECK(at.runs == 3 + 6);
+  CHECK_THAT(at.reason, Contains("checked against sampling (a small case: 6 runs of about"));
+  const WorkUncertainty below = with_limit(first.check_estimate * (1 - 1e-9));
+  CHECK_FALSE(below.sampled);
+  CHECK(below.check_estimate == first.check_estimate);
+}
+
 TEST_CASE("work --uncertainty: linear against sampling through whole runs where both are accurate",
           "[uncertainty][heavy]") {
   const Scenario s = read_scenario_text(harmonic_text, "harmonic.toml");

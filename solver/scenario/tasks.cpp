@@ -268,7 +268,7 @@ SweepOutcome sweep_task(const Scenario& scenario, const SweepOptions& options, c
     if (moves_walls(scenario))
       throw InputError("--uncertainty", scenario.file, "a trap without moving walls (not supported yet)");
     (void)calibration_of(scenario, uncertainty);
-    uncertainty.check_seconds = 0;  // no automatic check against sampling per point (see SweepOptions)
+    uncertainty.check_operations = 0;  // no automatic check against sampling per point (see SweepOptions)
   }
   const SweepSpec& sweep = *scenario.sweep;
   const std::size_t points = sweep.points();

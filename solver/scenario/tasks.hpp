@@ -129,7 +129,7 @@ struct SweepOptions {
   // The calibration's spread at every point (--uncertainty FILE or the scenario's [uncertainty]):
   // work_uncertainty after each point's run, its sd of <W>, sd(W) and Delta F in the row. In a
   // sweep, auto does not add the check against sampling (it would cost `samples` runs per
-  // point): check_seconds is set to 0 unless the method is "both".
+  // point): check_operations is set to 0 unless the method is "both".
   UncertaintySettings uncertainty;
 };
 struct SweepOutcome {

@@ -8,6 +8,7 @@
 #include <limits>
 #include <sstream>
 
+#include "solver/cost.hpp"
 #include "solver/design.hpp"
 #include "solver/errors.hpp"
 #include "solver/scenario/data_files.hpp"
@@ -276,6 +277,21 @@ void check_uncertainty_settings(const UncertaintySettings& settings) {
     throw InputError("--uncertainty-step", short_number(settings.step_in_sd), "a step in (0, 5] standard deviations");
 }
 
+namespace {
+// The estimated arithmetic of one perturbed run (perturbed_request: the forward run on the
+// nominal grid and steps, no checks) with its two spectra (spectrum_cost's estimate).
+double perturbed_run_arithmetic(const WorkResult& r) {
+  double spectra = 0;
+  for (const Spectrum* s : {&r.initial_spectrum, &r.final_spectrum}) {
+    const int levels = int(s->energies.size());
+    const bool hermite = s->method.rfind("Hermite", 0) == 0;
+    const std::size_t size = hermite ? std::size_t(std::max(4 * levels + 60, 120)) : s->grid.size();
+    spectra += spectrum_cost(size, levels, hermite || s->method.rfind("dense", 0) == 0).operations;
+  }
+  return run_arithmetic(r) / (r.reverse ? 2 : 1) + spectra;
+}
+}  // namespace
+
 WorkUncertainty work_uncertainty(const Scenario& s, const ScenarioWork& nominal, const UncertaintySettings& settings,
                                  const TaskHooks& hooks) {
   check_uncertainty_settings(settings);
@@ -375,8 +391,6 @@ WorkUncertainty work_uncertainty(const Scenario& s, const ScenarioWork& nominal,
     const Eigen::Index w = worst();
     const std::string second = "second-order terms at most " + short_number(u.linear->nonlinearity(w), 2) +
                                " of the linear sd (" + u.results[std::size_t(w)].name + "; limit " + limit + ")";
-    const double per_run = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count() /
-                           std::max(1, u.runs);
     if (settings.method == "linear") {
       u.method = "linear";
       u.reason = "asked for (--uncertainty-method linear); " + second;
@@ -393,15 +407,16 @@ WorkUncertainty work_uncertainty(const Scenario& s, const ScenarioWork& nominal,
     } else {
       u.method = "linear";
       u.reason = "linear: " + second;
-      const double estimate = per_run * settings.samples;
-      if (estimate <= settings.check_seconds) {
+      const double estimate = u.check_estimate = settings.samples * perturbed_run_arithmetic(nominal.result());
+      const std::string cost = std::to_string(settings.samples) + " runs of about " +
+                               short_number(estimate / settings.samples, 2) + " operations";
+      if (estimate <= settings.check_operations) {
         run_sampling();
         u.agreement = compare_spreads(*u.linear, *u.sampled);
-        u.reason += "; checked against sampling (a small case: " + std::to_string(settings.samples) + " runs, about " +
-                    short_number(estimate, 2) + " s)";
+        u.reason += "; checked against sampling (a small case: " + cost + ")";
       } else {
-        u.reason += "; not checked against sampling (about " + short_number(estimate, 2) +
-                    " s for " + std::to_string(settings.samples) + " runs; --uncertainty-method both runs it)";
+        u.reason += "; not checked against sampling (" + cost + ", more than " +
+                    short_number(settings.check_operations, 2) + "; --uncertainty-method both runs it)";
       }
     }
   }

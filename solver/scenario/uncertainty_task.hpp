@@ -76,9 +76,12 @@ struct UncertaintySettings {
   int samples = 100;            // parameter sets drawn for sampling
   std::uint64_t seed = 1;
   double step_in_sd = 1;        // finite-difference step along each principal axis
-  // auto: check the linear result against sampling when that is estimated to take at most this
-  // long (from the linear runs' time; the scenario layer's clock, as --tolerance times its runs).
-  double check_seconds = 20;
+  // auto: check the linear result against sampling when its runs' estimated arithmetic (each
+  // run's propagation as --tolerance counts it, and its two spectra as spectrum_cost estimates
+  // them) is at most this. Counted, not timed, so that the choice does not depend on the
+  // machine's load (the command line and the Python module write the same files). About 20 s
+  // on the 2-core test machine, which did 2.3 to 2.9e10 such operations per second.
+  double check_operations = 5e11;
 };
 
 // One result with its spread.
@@ -103,6 +106,9 @@ struct WorkUncertainty {
   std::vector<std::string> warnings;
   int runs = 0;                       // perturbed work runs made
   double seconds = 0;                 // their wall time
+  // auto with an accurate linear result: the estimated arithmetic of the check against
+  // sampling (samples x one perturbed run), compared with settings.check_operations; else NaN
+  double check_estimate = std::numeric_limits<double>::quiet_NaN();
 };
 inline constexpr double strong_line_probability = 1e-3;
 inline constexpr int strong_lines_at_most = 40;

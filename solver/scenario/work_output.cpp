@@ -229,10 +229,9 @@ ScenarioWork compute_work(const Scenario& s, WorkRequest request) {
 }
 
 namespace {
-// Estimated arithmetic of a split-operator run (steps x substeps x columns x (two FFTs,
-// 5 n log2 n each, and 30 n for the phases), the reverse run as much again; a sudden switch
-// counts as one step): the unit of the --tolerance search's cost bound.
 double transform_arithmetic(double n) { return 10 * n * std::log2(std::max(2.0, n)) + 30 * n; }
+}  // namespace
+
 double run_arithmetic(const WorkResult& r) {
   if (r.diagnostics.ode_arithmetic > 0) return r.diagnostics.ode_arithmetic * (r.reverse ? 2 : 1);
   const double substeps = r.method.find("order 4") != std::string::npos ? 3 : 1;
@@ -240,7 +239,6 @@ double run_arithmetic(const WorkResult& r) {
   return double(std::max(1, r.steps)) * substeps * columns * transform_arithmetic(double(r.grid.size())) *
          (r.reverse ? 2 : 1);
 }
-}  // namespace
 
 namespace {
 // The scenario on 3/2 the points of the grid g, over the same extent (a box keeps its walls).

@@ -115,6 +115,11 @@ struct ToleranceChoice {
   }
   bool reached() const { return estimate() <= tolerance; }
 };
+// Estimated arithmetic of a run (a split-operator run: steps x substeps x columns x (two FFTs,
+// 5 n log2 n each, and 30 n for the phases); the eigenbasis ODE: its counted operations; the
+// reverse run as much again; a sudden switch counts as one step). Deterministic: the unit of
+// the --tolerance search's cost bound and of the calibration check's cost (uncertainty_task).
+double run_arithmetic(const WorkResult& r);
 constexpr double default_search_budget = 2000;  // about 40 automatic runs with their checks
 ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request, double tolerance,
                                           double cost_bound = default_search_budget);
