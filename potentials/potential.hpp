@@ -81,6 +81,8 @@ class Term {
   void set_parameter(std::string_view p, double value);  // throws InputError if unknown/invalid
 
   double value(double x, double t = 0) const;
+  // v[j] += value(x[j], t) for j < n (the same numbers; the shape is chosen once, not per point).
+  void add_values(const double* x, double* v, std::size_t n, double t) const;
   // True for a formula whose expression uses t (explicitly time-dependent).
   bool depends_on_time() const;
   // Harmonic part (1/2) omega^2 (x - c)^2 of harmonic and polynomial terms, if any; c is the

@@ -793,9 +793,16 @@ void integrate_controlled(const OdeRhs& rhs, std::vector<double>& x, double t, d
 
 // ---- projections -------------------------------------------------------------------------
 
-Eigen::MatrixXcd project(const Spectrum& onto, const Eigen::MatrixXcd& states) {
+Eigen::MatrixXcd project(const Spectrum& onto, const Eigen::MatrixXcd& states, Eigen::Index levels) {
   TRAPWORK_EXPECT(onto.states.rows() == states.rows(), "project: state size != spectrum grid size");
-  return onto.states.transpose().cast<std::complex<double>>() * states * onto.grid.spacing();
+  const Eigen::Index rows = levels < 0 ? onto.states.cols() : std::min(levels, onto.states.cols());
+  // two real products (half the arithmetic of casting the real states to complex)
+  const auto s = onto.states.leftCols(rows).transpose();
+  const Eigen::MatrixXd re = s * states.real(), im = s * states.imag();
+  Eigen::MatrixXcd out(rows, states.cols());
+  out.real() = re * onto.grid.spacing();
+  out.imag() = im * onto.grid.spacing();
+  return out;
 }
 
 Eigen::MatrixXcd sudden_amplitudes(const Spectrum& initial, const Spectrum& final) {

@@ -574,8 +574,9 @@ void integrate_controlled(const OdeRhs& rhs, std::vector<double>& y, double t, d
                           const OdeTolerances& tolerances, double& step_hint);
 
 // Amplitudes A(n, m) = <n|psi_m> = sum_j phi_n(x_j) psi_m(x_j) dx of grid states (columns) on
-// the (real) eigenstates of a spectrum on the same grid.
-Eigen::MatrixXcd project(const Spectrum& onto, const Eigen::MatrixXcd& states);
+// the (real) eigenstates of a spectrum on the same grid; levels >= 0: only on its lowest levels
+// (rows 0 to levels - 1).
+Eigen::MatrixXcd project(const Spectrum& onto, const Eigen::MatrixXcd& states, Eigen::Index levels = -1);
 
 // Sudden limit (tau = 0, U = 1): A(n, m) = <n_B|m_A>, overlaps of the eigenstates.
 Eigen::MatrixXcd sudden_amplitudes(const Spectrum& initial, const Spectrum& final);

@@ -561,7 +561,7 @@ struct TraceRecorder {
     }
     const int levels = now ? std::min<int>(options.levels, int(now->energies.size())) : 0;
     const Eigen::MatrixXd a2 =
-        now ? Eigen::MatrixXd(project(*now, lab).topRows(levels).cwiseAbs2()) : Eigen::MatrixXd(0, lab.cols());
+        now ? Eigen::MatrixXd(project(*now, lab, levels).cwiseAbs2()) : Eigen::MatrixXd(0, lab.cols());
     Eigen::MatrixXd c = Eigen::MatrixXd::Constant(3 + options.levels, lab.cols(), std::numeric_limits<double>::quiet_NaN());
     for (Eigen::Index m = 0; m < lab.cols(); ++m) {
       const Eigen::VectorXd rho = lab.col(m).cwiseAbs2();

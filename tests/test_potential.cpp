@@ -2,6 +2,7 @@
 #include <catch2/catch.hpp>
 
 #include <cmath>
+#include <vector>
 
 #include "potentials/potential.hpp"
 #include "solver/errors.hpp"
@@ -30,6 +31,24 @@ TEST_CASE("shapes evaluate their defining formulas", "[potential]") {
   const Term pt("p", Shape::poschl_teller, {{"depth", 4.0}, {"width", 1.5}});
   CHECK(pt.value(0.0) == Approx(-4.0));
   CHECK(pt.value(1.5) == Approx(-4.0 / std::pow(std::cosh(1.0), 2)));
+}
+
+TEST_CASE("sampling a potential on many points gives exactly its pointwise values", "[potential]") {
+  // Potential::evaluate takes each term's shape once for all points (the hot path of every
+  // substep and scan); the numbers must be the same as operator()'s, bit for bit.
+  const Potential v({Term("trap", Shape::polynomial,
+                          {{"frequency", 2.0}, {"centre", 0.5}, {"linear", -0.3}, {"cubic", 0.1}, {"quartic", 0.01},
+                           {"quintic", -2e-3}, {"sextic", 3e-4}, {"septic", -1e-5}, {"octic", 1e-6}}),
+                     Term("h", Shape::harmonic, {{"frequency", 0.7}, {"centre", -1.1}}),
+                     Term("tw", Shape::gaussian, {{"depth", 5.0}, {"waist", 2.0}}),
+                     Term("m", Shape::morse, {{"depth", 10.0}, {"range", 1.25}})});
+  std::vector<double> x;
+  for (int j = -700; j <= 700; ++j) x.push_back(0.0137 * j + 1e-3 * std::sin(j));
+  const std::vector<double> sampled = v.evaluate(x, 0.25);
+  REQUIRE(sampled.size() == x.size());
+  int differing = 0;
+  for (std::size_t j = 0; j < x.size(); ++j) differing += sampled[j] != v(x[j], 0.25);
+  CHECK(differing == 0);
 }
 
 TEST_CASE("a soft square well tends to the sharp one", "[potential]") {
