@@ -233,6 +233,16 @@ std::vector<double> wkb_energies(const Scan& s, int count, bool only_highest = f
   return energies;
 }
 
+// wkb_energies through a memo, when there is one.
+std::vector<double> memo_wkb(const Scan& s, int count, bool only_highest, SpectrumMemo* memo) {
+  if (!memo) return wkb_energies(s, count, only_highest);
+  const double lo = s.x.empty() ? 0.0 : s.x.front();
+  if (auto found = memo->find_wkb(s.v, lo, s.step, count, only_highest)) return std::move(*found);
+  std::vector<double> energies = wkb_energies(s, count, only_highest);
+  memo->keep_wkb(s.v, lo, s.step, count, only_highest, energies);
+  return energies;
+}
+
 std::pair<double, double> search_window(const SpectrumRequest& r) {
   if (r.box) return *r.box;
   return {r.search_centre - r.search_half_width, r.search_centre + r.search_half_width};
@@ -351,6 +361,29 @@ void SpectrumMemo::keep(const Grid& grid, const std::vector<double>& v, const Sp
   o.memo.reset();
   entries_.push_back({grid, v, std::move(o), s});
   held_ += bytes;
+}
+
+std::optional<std::vector<double>> SpectrumMemo::find_wkb(const std::vector<double>& scan, double lo, double step,
+                                                          int count, bool only_highest) const {
+  const std::lock_guard<std::mutex> lock(mutex_);
+  for (const WkbEntry& e : wkb_)
+    if (e.lo == lo && e.step == step && e.scan == scan)
+      for (const auto& [key, energies] : e.energies)
+        if (key == std::make_pair(count, only_highest)) return energies;
+  return std::nullopt;
+}
+
+void SpectrumMemo::keep_wkb(const std::vector<double>& scan, double lo, double step, int count, bool only_highest,
+                            const std::vector<double>& energies) {
+  const std::lock_guard<std::mutex> lock(mutex_);
+  auto e = std::find_if(wkb_.begin(), wkb_.end(),
+                        [&](const WkbEntry& w) { return w.lo == lo && w.step == step && w.scan == scan; });
+  if (e == wkb_.end()) {
+    if (wkb_.size() >= 8) wkb_.erase(wkb_.begin());
+    wkb_.push_back({scan, lo, step, {}});
+    e = std::prev(wkb_.end());
+  }
+  e->energies.push_back({{count, only_highest}, energies});
 }
 
 std::size_t SpectrumMemo::solved() const {
@@ -495,16 +528,16 @@ HarmonicApproximation harmonic_approximation(const Potential& potential, double 
   return harmonic_from_scan(potential, scan_potential(potential, lo, hi, t), t);
 }
 
-std::vector<double> wkb_level_energies(const Potential& potential, int count, double lo, double hi) {
+std::vector<double> wkb_level_energies(const Potential& potential, int count, double lo, double hi,
+                                       const std::shared_ptr<SpectrumMemo>& memo) {
   const double t = potential.time();  // formulas using t at the potential's own time
-  return wkb_energies(scan_potential(potential, lo, hi, t), count);
+  return memo_wkb(scan_potential(potential, lo, hi, t), count, false, memo.get());
 }
 
-Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRequest& request) {
-  const double t = potential.time();  // formulas using t at the potential's own time
-  const auto [lo, hi] = search_window(request);
+namespace {
+// choose_grid on the potential's scan over the search window (compute_spectrum has it already).
+Grid grid_from_scan(const Scan& s, double energy_max, const SpectrumRequest& request) {
   const MessageUnits& units = request.message_units;
-  const Scan s = scan_potential(potential, lo, hi, t, units);
   const double v_min = *std::min_element(s.v.begin(), s.v.end());
   if (!(energy_max > v_min))
     throw PhysicsError("no states below E = " + units(energy_max, Dimension::energy()) +
@@ -545,6 +578,13 @@ Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRe
   const double spacing = si::pi / k_needed;
   Grid shape = request.box ? Grid::box(left, right, 4) : Grid::periodic(left, right, 4);
   return with_points(shape, left, right, spacing);
+}
+}  // namespace
+
+Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRequest& request) {
+  const double t = potential.time();  // formulas using t at the potential's own time
+  const auto [lo, hi] = search_window(request);
+  return grid_from_scan(scan_potential(potential, lo, hi, t, request.message_units), energy_max, request);
 }
 
 std::vector<Level> analyse_levels(const Spectrum& s, const HarmonicApproximation& harmonic, double threshold) {
@@ -667,7 +707,7 @@ SpectrumResult compute_spectrum(const Potential& potential, const SpectrumReques
   const double edge_min = std::min(s.v.front(), s.v.back());
   const int k = request.options.levels;
   // A level is bound below the lower asymptote; for a box or a confining trap there is none.
-  const double top_estimate = wkb_energies(s, k, true).back();
+  const double top_estimate = memo_wkb(s, k, true, request.options.memo.get()).back();
   result.finite_depth = !request.box && top_estimate >= edge_min;
   result.threshold = result.finite_depth ? edge_min : inf;
   double cutoff = result.harmonic.v_min + 1.25 * (top_estimate - result.harmonic.v_min) + 1e-12;
@@ -680,7 +720,7 @@ SpectrumResult compute_spectrum(const Potential& potential, const SpectrumReques
   // keep their number; the rest is chosen here and adapted below.
   const bool auto_spacing = !request.points, auto_extent = !request.extent && !request.box;
   auto make_grid = [&](double energy_max) {
-    Grid g = choose_grid(potential, energy_max, request);
+    Grid g = grid_from_scan(s, energy_max, request);
     if (request.extent) g = with_points(g, request.extent->first, request.extent->second, g.spacing());
     if (request.points)
       g = request.box ? Grid::box(g.left(), g.right(), *request.points) : Grid::periodic(g.left(), g.right(), *request.points);

@@ -95,7 +95,21 @@ class SpectrumMemo {
   std::size_t reused() const;  // spectra returned by find
   std::size_t solved() const;  // spectra solved through the memo (kept unless above its budget)
 
+  // WKB level energies (wkb_level_energies, compute_spectrum's top-level estimate) of a scan of
+  // V, found by exact equality of the scan's samples and the same request (count, only the
+  // highest): the same numbers as solving again. The last 8 scans are kept (1.6 MB each).
+  std::optional<std::vector<double>> find_wkb(const std::vector<double>& scan, double lo, double step, int count,
+                                              bool only_highest) const;
+  void keep_wkb(const std::vector<double>& scan, double lo, double step, int count, bool only_highest,
+                const std::vector<double>& energies);
+
  private:
+  struct WkbEntry {
+    std::vector<double> scan;
+    double lo = 0, step = 0;
+    std::vector<std::pair<std::pair<int, bool>, std::vector<double>>> energies;  // (count, only highest)
+  };
+  std::vector<WkbEntry> wkb_;  // oldest first
   struct Entry {
     Grid grid;
     std::vector<double> v;
@@ -190,7 +204,9 @@ Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRe
 // WKB estimates of the energies of levels 0 .. count - 1 (sum p dx = pi (K + 1/2)) from one
 // scan of V over [lo, hi], each capped at the threshold and found to 1e-12 (1 + |E|) (for
 // predictions: how many levels a thermal state needs before any is solved).
-std::vector<double> wkb_level_energies(const Potential& potential, int count, double lo, double hi);
+// With a memo: served from (and kept in) it (SpectrumMemo::find_wkb).
+std::vector<double> wkb_level_energies(const Potential& potential, int count, double lo, double hi,
+                                       const std::shared_ptr<SpectrumMemo>& memo = nullptr);
 
 // Full pipeline: grid (automatic or fixed), eigenpairs, level table, convergence estimate,
 // warnings (unbound states asked for, states touching the grid edge, unconverged residuals).

@@ -451,7 +451,8 @@ int predicted_levels(const Potential& va, const WorkRequest& request, int first,
   const double centre = request.spectrum.search_centre, half = request.spectrum.search_half_width;
   // WKB energies only as far as an attempt looks (the higher levels cost the longest passes)
   auto energies_of = [&](int count) {
-    if (int(wkb.size()) < count) wkb = wkb_level_energies(va, count, centre - half, centre + half);
+    if (int(wkb.size()) < count)
+      wkb = wkb_level_energies(va, count, centre - half, centre + half, request.spectrum.options.memo);
     return Eigen::Map<const Eigen::VectorXd>(wkb.data(), Eigen::Index(count));
   };
   int levels = first;

@@ -148,6 +148,25 @@ TEST_CASE("WKB level energies: exact for an oscillator, capped at a finite well'
   CHECK(wide.back() < 100);
 }
 
+TEST_CASE("WKB level energies through a memo: the same numbers, and never another potential's", "[spectrum]") {
+  // A --tolerance search asks for the same WKB energies in every run; the memo must give exactly
+  // what a fresh solve gives, and a different potential (or window) must not be served from it.
+  const auto memo = std::make_shared<SpectrumMemo>();
+  const Potential a = oscillator(1.3), b = oscillator(1.3 * (1 + 1e-9));
+  for (int round = 0; round < 2; ++round) {  // the second round is served from the memo
+    CHECK(wkb_level_energies(a, 30, -12, 12, memo) == wkb_level_energies(a, 30, -12, 12));
+    CHECK(wkb_level_energies(a, 12, -12, 12, memo) == wkb_level_energies(a, 12, -12, 12));
+    CHECK(wkb_level_energies(b, 30, -12, 12, memo) == wkb_level_energies(b, 30, -12, 12));
+    CHECK(wkb_level_energies(a, 30, -11, 12, memo) == wkb_level_energies(a, 30, -11, 12));
+  }
+  CHECK(wkb_level_energies(a, 30, -12, 12, memo) != wkb_level_energies(b, 30, -12, 12, memo));
+  // more scans than it keeps: the oldest are dropped, answers stay right
+  for (int k = 0; k < 12; ++k) {
+    const Potential c = oscillator(1 + 0.01 * k);
+    CHECK(wkb_level_energies(c, 5, -12, 12, memo) == wkb_level_energies(c, 5, -12, 12));
+  }
+}
+
 TEST_CASE("bad requests fail with a reason", "[spectrum]") {
   const Grid g = Grid::periodic(-5, 5, 16);
   SpectrumOptions o;
