@@ -309,6 +309,8 @@ std::size_t bytes_of(const Spectrum& s) {
 }
 }  // namespace
 
+int hermite_basis_size(int levels) { return std::max(4 * levels + 60, 120); }
+
 Spectrum lowest_levels(const Spectrum& s, int k) {
   TRAPWORK_EXPECT(k >= 1 && k <= s.energies.size(), "lowest_levels: 1 <= k <= levels held");
   if (k == s.energies.size()) return s;
@@ -646,7 +648,7 @@ Spectrum hermite_spectrum(const Potential& potential, const HarmonicApproximatio
     throw PhysicsError("method = \"hermite\" needs a potential made only of harmonic and polynomial terms");
   if ((*coefficients)[8] < 0 || ((*coefficients)[8] == 0 && (*coefficients)[7] == 0 && (*coefficients)[6] < 0))
     throw PhysicsError("method = \"hermite\": the polynomial does not confine (negative leading coefficient)");
-  HermiteBasis basis{harmonic.omega > 0 ? harmonic.omega : 1.0, harmonic.x_min, std::max(4 * options.levels + 60, 120)};
+  HermiteBasis basis{harmonic.omega > 0 ? harmonic.omega : 1.0, harmonic.x_min, hermite_basis_size(options.levels)};
   // Cost before commitment: a dense eigensolve of the basis, and the basis functions and states
   // sampled on the grid.
   CostEstimate cost = spectrum_cost(std::size_t(basis.size), options.levels, true);

@@ -128,6 +128,9 @@ class SpectrumMemo {
 // ~ eps ||H||; common practice), whichever is larger. Very fine grids raise the floor.
 double effective_tolerance(const Grid& grid, const std::vector<double>& v, double requested);
 
+// Hermite functions in the basis of a method = "hermite" spectrum of `levels` levels.
+int hermite_basis_size(int levels);
+
 // The lowest k pairs of s (1 <= k <= its levels), with their residuals, groups and converged count.
 Spectrum lowest_levels(const Spectrum& s, int k);
 

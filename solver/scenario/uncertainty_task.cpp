@@ -285,7 +285,7 @@ double perturbed_run_arithmetic(const WorkResult& r) {
   for (const Spectrum* s : {&r.initial_spectrum, &r.final_spectrum}) {
     const int levels = int(s->energies.size());
     const bool hermite = s->method.rfind("Hermite", 0) == 0;
-    const std::size_t size = hermite ? std::size_t(std::max(4 * levels + 60, 120)) : s->grid.size();
+    const std::size_t size = hermite ? std::size_t(hermite_basis_size(levels)) : s->grid.size();
     spectra += spectrum_cost(size, levels, hermite || s->method.rfind("dense", 0) == 0).operations;
   }
   return run_arithmetic(r) / (r.reverse ? 2 : 1) + spectra;
