@@ -675,6 +675,9 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
   diag.jarzynski_residual = result.distribution.jarzynski_residual;
   diag.moments = moment_errors(result.forward, result.distribution, fwd.energies, weights_a.choice.left_out,
                                request.unresolved_tolerance);
+  diag.truncation.thermal_tail = weights_a.choice.left_out;  // the reverse run adds its parts below
+  diag.final_margin = request.final_margin;
+  diag.thermal_tolerance = request.thermal_tolerance;
   if (grid_check) {
     // Twice the sine modes: the end chirp of a wall already moving (and an inner potential's
     // levels) are represented on the grid only to a finite number of modes.

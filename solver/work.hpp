@@ -218,6 +218,10 @@ struct Diagnostics {
   // Forward initial states not propagated again after run_work enlarged the levels: the
   // previous attempt's states at tau, whose eigenvectors agree to 1e-11 (0: none carried).
   int carried_states = 0;
+  // The level settings the result was computed with: the request's, or what run_work's
+  // enlargement raised them to (0 and NaN: not set).
+  int final_margin = 0;
+  double thermal_tolerance = std::numeric_limits<double>::quiet_NaN();
   MomentErrors moments;           // direct moments and the error of the line moments
   // Cost estimated before the propagation (solver/cost.hpp, work_cost) from the sizes chosen:
   // peak memory of the large arrays (bytes) and the propagations' floating-point operations.

@@ -147,8 +147,15 @@ TEST_CASE("zero noise gives the noiseless result; seeds reproduce", "[noise]") {
   const NoisyWorkResult c = run_noisy_work(trap, move, request, other);
   CHECK(c.realisation_direct_mean != a.realisation_direct_mean);
   CHECK(std::abs(c.mean.value - a.mean.value) > 1e-6);
-  // noise that does heat: the extra energy is positive beyond its error
-  CHECK(a.extra_energy.value > 0);
+  // Noise that heats: 4 realisations only estimate the extra energy to +-0.3 here, against the
+  // w^3 S_x tau / 4 = 0.05 of the harmonic rate derived at the top (the case with 400
+  // realisations below is the strict test). So the check is the estimate's consistency with
+  // that rate, and an error that the realisations' spread gives (a sign test, "> 0", passed or
+  // failed with the noise traces drawn: 0.017 +- 0.29 and -0.11 +- 0.27 at two step counts).
+  CAPTURE(a.extra_energy.value, a.extra_energy.error, a.steps);
+  CHECK(a.extra_energy.error > 0);
+  const double expected = 0.05 * 4 / 4;  // w^3 S_x tau / 4 at w = 1, S_x = 0.05, tau = 4
+  CHECK(std::abs(a.extra_energy.value - expected) < 4 * a.extra_energy.error);
   CHECK(a.route.find("realisations") != std::string::npos);
   CHECK(a.psd_convention.find("one-sided") != std::string::npos);
 }
