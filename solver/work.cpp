@@ -1194,38 +1194,10 @@ namespace {
 // What insured_levels expects of run_work's next attempt where everything missed: twice the
 // final margin and max_initial_levels, a 1000 times tighter thermal tolerance (the attempt
 // itself asks for more where the thermal part missed by over 100 times, and less where only
-// some parts missed: enlarged(r, d) below).
+// some parts missed: enlarged_request).
 WorkRequest enlarged(WorkRequest r) {
   r.final_margin *= 2;
   r.thermal_tolerance /= 1e3;
-  r.max_initial_levels *= 2;
-  return r;
-}
-
-// The settings of run_work's next attempt after one with diagnostics d, enlarged only where it
-// missed. Escaping probability, or a moments' miss with a final-level or basis part of at least
-// a third of the tolerance (or the largest part), doubles the final margin. A thermal part of
-// that size tightens the thermal tolerance ten times beyond the factor by which that part
-// alone missed, at least ten times: the part is proportional to the left-out weight, and the
-// ten covers the larger work of the levels kept next (a fixed 1000 times added 12 states
-// where 5 did, on the benchmark's quartic move; the rest of its run is the same). The cap
-// max_initial_levels doubles.
-WorkRequest enlarged(WorkRequest r, const Diagnostics& d) {
-  const MomentErrors& e = d.moments;
-  auto need = [&](double mean_part, double variance_part) {  // the part over the tolerance, relative
-    const double n = std::max(std::abs(mean_part) / (e.tolerance * e.scale_mean),
-                              std::abs(variance_part) / (e.tolerance * e.scale_variance));
-    return std::isnan(n) ? std::numeric_limits<double>::infinity() : n;
-  };
-  const bool missed = !(e.mean_met() && e.variance_met());
-  const std::string dominant = e.dominant();
-  const double thermal = need(e.mean_thermal, e.variance_thermal);
-  const bool more_final = d.unresolved_weight > r.unresolved_tolerance ||
-                          (missed && (dominant != "thermal" || need(e.mean_final, e.variance_final) >= 1.0 / 3 ||
-                                      need(e.mean_basis, e.variance_basis) >= 1.0 / 3));
-  if (more_final) r.final_margin *= 2;
-  if (missed && (dominant == "thermal" || thermal >= 1.0 / 3))
-    r.thermal_tolerance /= std::min(1e6, std::max(10.0, 10 * thermal));
   r.max_initial_levels *= 2;
   return r;
 }
@@ -1266,6 +1238,27 @@ int insured_levels(const Potential& base, const Protocol& protocol, const WorkRe
 }
 }  // namespace
 
+WorkRequest enlarged_request(WorkRequest r, const Diagnostics& d) {
+  const MomentErrors& e = d.moments;
+  auto need = [&](double mean_part, double variance_part) {  // the part over the tolerance, relative
+    const double n = std::max(std::abs(mean_part) / (e.tolerance * e.scale_mean),
+                              std::abs(variance_part) / (e.tolerance * e.scale_variance));
+    return std::isnan(n) ? std::numeric_limits<double>::infinity() : n;
+  };
+  const bool missed = !(e.mean_met() && e.variance_met());
+  const std::string dominant = e.dominant();
+  const double thermal = need(e.mean_thermal, e.variance_thermal);
+  const bool more_final = d.unresolved_weight > r.unresolved_tolerance ||
+                          (missed && (dominant != "thermal" || need(e.mean_final, e.variance_final) >= 1.0 / 3 ||
+                                      need(e.mean_basis, e.variance_basis) >= 1.0 / 3));
+  if (more_final) r.final_margin *= 2;
+  if (missed && (dominant == "thermal" || thermal >= 1.0 / 3))
+    r.thermal_tolerance /= std::min(1e6, std::max(10.0, 10 * thermal));
+  r.max_initial_levels *= 2;
+  return r;
+}
+
+
 WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkRequest& request) {
   WorkRequest r = request;
   Carried carried;  // an attempt propagates only the states the previous one did not
@@ -1288,7 +1281,7 @@ WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkR
                                   : ""));
       return result;
     }
-    r = enlarged(r, d);
+    r = enlarged_request(r, d);
     // the reverse run says how many initial levels bound p_R(>=K): keep those (and a few more)
     if (d.truncation.reverse_tail > r.unresolved_tolerance && result.reverse)
       r.min_initial_levels = std::min(r.max_initial_levels,

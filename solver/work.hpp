@@ -367,5 +367,17 @@ struct WorkResult {
 // tau = 0 is the sudden limit (U = 1). Throws PhysicsError when the spectra cannot hold the
 // levels needed; InputError for protocol addresses the potential does not have.
 WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkRequest& request);
+// The settings of run_work's next attempt after an attempt with request r and diagnostics d,
+// enlarged only where it missed:
+// - probability escaping the final levels (d.unresolved_weight above r.unresolved_tolerance),
+//   or moments that miss with the final-level or basis part the largest, or either at a third
+//   of the tolerance or more: twice the final margin;
+// - moments that miss with the thermal part the largest, or at a third of the tolerance or
+//   more: the thermal tolerance divided by ten times the factor by which that part alone missed
+//   (at least 10, at most 1e6). The part is proportional to the left-out weight; the ten covers
+//   the larger work of the levels kept next. (A fixed 1000 kept 66 states on the benchmark's
+//   quartic move where 58 meet the tolerance.)
+// - max_initial_levels, a cap, doubles.
+WorkRequest enlarged_request(WorkRequest r, const Diagnostics& d);
 
 }  // namespace trapwork

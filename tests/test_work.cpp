@@ -564,6 +564,59 @@ TEST_CASE("a table ramp of a trap centre runs in the lab frame, not the co-movin
 // tolerance), the states the previous attempt propagated on the same grid and steps are
 // carried over instead of propagated again; the result is the one-attempt run at the enlarged
 // settings, to rounding.
+// The retry rule alone (enlarged_request), on diagnostics made up for each case: only what
+// missed is enlarged, by what it needs.
+TEST_CASE("a retry enlarges only what missed, by what it needs", "[work]") {
+  WorkRequest r;
+  r.final_margin = 20;
+  r.thermal_tolerance = 1e-10;
+  r.max_initial_levels = 80;
+  r.unresolved_tolerance = 1e-8;
+  auto diagnostics = [&](double unresolved, double mean_final, double mean_thermal) {
+    Diagnostics d;
+    d.unresolved_weight = unresolved;
+    MomentErrors& e = d.moments;
+    e.tolerance = 1e-8;
+    e.scale_mean = e.scale_variance = 1;
+    e.mean_final = mean_final;
+    e.mean_thermal = mean_thermal;
+    e.variance_final = e.variance_thermal = 0;
+    total_moment_errors(e);
+    return d;
+  };
+  // escaping probability only: twice the margin, the thermal cut as it was
+  const WorkRequest escape = enlarged_request(r, diagnostics(1e-6, 0, 0));
+  CHECK(escape.final_margin == 40);
+  CHECK(escape.thermal_tolerance == r.thermal_tolerance);
+  CHECK(escape.max_initial_levels == 160);
+  // the thermal part 3 times its tolerance: a cut 30 times tighter, the margin kept
+  const WorkRequest thermal = enlarged_request(r, diagnostics(0, 1e-10, 3e-8));
+  CHECK(thermal.final_margin == 20);
+  CHECK(thermal.thermal_tolerance == Approx(1e-10 / 30).epsilon(1e-12));
+  // just over (1.2 times): at least 10 times tighter
+  CHECK(enlarged_request(r, diagnostics(0, 0, 1.2e-8)).thermal_tolerance == Approx(1e-11 / 1.2).epsilon(1e-12));
+  CHECK(enlarged_request(r, diagnostics(0, 0, 1.01e-8)).thermal_tolerance <= 1e-11);
+  // the final levels' part the larger: the margin doubles; a thermal part at a third or more
+  // of the tolerance is tightened as well
+  const WorkRequest both = enlarged_request(r, diagnostics(0, 8e-9, 4e-9));
+  CHECK(both.final_margin == 40);
+  CHECK(both.thermal_tolerance == Approx(1e-10 / 10).epsilon(1e-12));
+  const WorkRequest final_only = enlarged_request(r, diagnostics(0, 1.5e-8, 1e-10));
+  CHECK(final_only.final_margin == 40);
+  CHECK(final_only.thermal_tolerance == r.thermal_tolerance);
+  // a part not known (NaN) counts as missed by far: an unknown final part doubles the margin,
+  // an unknown thermal part tightens the cut the most, 1e6 times
+  const double nan = std::numeric_limits<double>::quiet_NaN();
+  const WorkRequest unknown_final = enlarged_request(r, diagnostics(0, nan, 0));
+  CHECK(unknown_final.final_margin == 40);
+  CHECK(unknown_final.thermal_tolerance == r.thermal_tolerance);
+  CHECK(enlarged_request(r, diagnostics(0, 0, nan)).thermal_tolerance == Approx(1e-16).epsilon(1e-12));
+  // met: nothing but the cap changes (run_work does not retry then; the rule stays quiet)
+  const WorkRequest met = enlarged_request(r, diagnostics(0, 1e-9, 1e-9));
+  CHECK(met.final_margin == 20);
+  CHECK(met.thermal_tolerance == r.thermal_tolerance);
+}
+
 TEST_CASE("issue 21: an enlarged run carries the states already propagated", "[work][issue21]") {
   const Potential trap({Term("trap", Shape::polynomial, {{"frequency", 1.0}, {"quartic", 0.05}})});
   const Protocol move(4, {Schedule::linear("trap.centre", 0.0, 2.0)});
