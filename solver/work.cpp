@@ -1258,7 +1258,6 @@ WorkRequest enlarged_request(WorkRequest r, const Diagnostics& d) {
   return r;
 }
 
-
 WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkRequest& request) {
   WorkRequest r = request;
   Carried carried;  // an attempt propagates only the states the previous one did not

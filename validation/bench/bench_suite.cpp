@@ -745,7 +745,7 @@ int main(int argc, char** argv) {
   {
     for (const auto& [label, tolerance, duration, file] : targets) {
       const Measurement m = in_child([&] { return tolerance_target(tolerance, duration, file); });
-      const std::string t = text("(%c) T = ", label) + text("%.0e", tolerance) +
+      const std::string t = std::string("(") + label + ") T = " + text("%.0e", tolerance) +
                             (duration.empty() ? ": " : ", " + duration + " move: ");
       const std::string job = file.empty() ? "default scenario" : "quartic_translation.toml";
       if (m.values.size() != std::size_t(target::count)) {
