@@ -70,10 +70,16 @@ TEST_CASE("--tolerance: the estimate bounds the true distance to the exact Husim
       return line.find("the scenario's 2000 steps are replaced") != std::string::npos;
     }));
   }
-  // the estimate: Richardson's from a pair in the range where the error falls as dt^2 (Strang),
-  // or the pair's distance
+  // the estimate: Richardson's from a pair in the range where the error falls as dt^4 (the
+  // search replaced the scenario's Strang by order 4, and says so), or the pair's distance
   CHECK(tight.time_step_part <= tight.tolerance / 2);
   CHECK(!tight.time_step_rule.empty());
+  for (const ToleranceChoice* c : {&loose, &tight}) {
+    CHECK(c->method.find("order 4") != std::string::npos);
+    CHECK(std::any_of(c->trail.begin(), c->trail.end(), [](const std::string& line) {
+      return line.find("order 4 instead of the scenario's Strang") != std::string::npos;
+    }));
+  }
 }
 
 TEST_CASE("--tolerance on the built-in anharmonic translation: the ODE chosen where cheaper, the call within 1.5 times its run",
