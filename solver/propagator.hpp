@@ -508,11 +508,14 @@ struct OdeTolerances {
 // Thrown by EigenbasisPropagator when its estimated arithmetic passes the limit it was given.
 // Not a PhysicsError (nothing is wrong with the input; the caller set a budget), so it passes
 // through propagate() unchanged.
+// (run_work throws it too, before an eigenbasis run whose basis spectrum alone would pass the
+// limit: basis = true, nothing spent.)
 struct ArithmeticLimitReached : std::runtime_error {
-  ArithmeticLimitReached(const std::string& what, double spent_, bool projected_)
-      : std::runtime_error(what), spent(spent_), projected(projected_) {}
+  ArithmeticLimitReached(const std::string& what, double spent_, bool projected_, bool basis_ = false)
+      : std::runtime_error(what), spent(spent_), projected(projected_), basis(basis_) {}
   double spent;    // the estimated arithmetic used when it stopped
   bool projected;  // stopped by the projection (below the limit), not past the limit
+  bool basis;      // stopped before solving its basis, whose estimate alone passes the limit
 };
 
 class EigenbasisPropagator {

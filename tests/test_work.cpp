@@ -617,6 +617,33 @@ TEST_CASE("a retry enlarges only what missed, by what it needs", "[work]") {
   CHECK(met.thermal_tolerance == r.thermal_tolerance);
 }
 
+// An eigenbasis run with an arithmetic budget its basis spectrum alone would pass stops before
+// solving it (the --tolerance search's ODE try on a large grid), saying so; with a budget
+// above that estimate it solves the basis and goes on.
+TEST_CASE("an eigenbasis run stops before a basis its budget cannot pay for", "[work][issue21]") {
+  const Potential trap({Term("trap", Shape::polynomial, {{"frequency", 1.0}, {"quartic", 0.05}})});
+  const Protocol move(4, {Schedule::linear("trap.centre", 0.0, 2.0)});
+  WorkRequest request;
+  request.initial = InitialState::thermal(0.5);
+  request.spectrum.extent = std::pair{-7.0, 9.0};
+  request.spectrum.points = 256;  // dense: 9 n^3 = 1.5e8 estimated operations per basis
+  request.integrator = Integrator::eigenbasis;
+  request.reverse_run = false;
+  request.time_step_check = false;
+  request.ode_arithmetic_limit = 1e7;
+  try {
+    (void)run_work(trap, move, request);
+    FAIL("no ArithmeticLimitReached");
+  } catch (const ArithmeticLimitReached& stop) {
+    CHECK(stop.basis);
+    CHECK(stop.spent == 0);
+    CHECK_THAT(std::string(stop.what()), Catch::Contains("basis of") && Catch::Contains("passes the limit"));
+  }
+  request.ode_arithmetic_limit = 1e12;
+  const WorkResult paid = run_work(trap, move, request);
+  CHECK(paid.diagnostics.ode_basis_levels > 0);
+}
+
 TEST_CASE("issue 21: an enlarged run carries the states already propagated", "[work][issue21]") {
   const Potential trap({Term("trap", Shape::polynomial, {{"frequency", 1.0}, {"quartic", 0.05}})});
   const Protocol move(4, {Schedule::linear("trap.centre", 0.0, 2.0)});

@@ -257,6 +257,7 @@ Scenario on_finer_grid(const Scenario& s, const Grid& g) {
 namespace {
 // How a stopped eigenbasis ODE run passed its budget, for the search's trail.
 std::string what_passed(const ArithmeticLimitReached& stop) {
+  if (stop.basis) return "basis spectrum's estimated arithmetic alone would pass ";
   return stop.projected ? "estimated arithmetic, projected from the protocol's first part, passed twice "
                         : "estimated arithmetic passed ";
 }
