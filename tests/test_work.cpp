@@ -560,10 +560,22 @@ TEST_CASE("a table ramp of a trap centre runs in the lab frame, not the co-movin
                                                        Catch::Contains("frame = \"lab\""));
 }
 
-// Issue 21: when run_work repeats a run with more levels (the escape probability was above its
-// tolerance), the states the previous attempt propagated on the same grid and steps are
-// carried over instead of propagated again; the result is the one-attempt run at the enlarged
-// settings, to rounding.
+namespace {
+// The quartic trap moved by 2 in tau = 4 (oscillator units) on a fixed dense grid, thermal,
+// forward only: the runs of run_work's retries and budgets below.
+Potential quartic_trap() { return Potential({Term("trap", Shape::polynomial, {{"frequency", 1.0}, {"quartic", 0.05}})}); }
+Protocol quartic_move() { return Protocol(4, {Schedule::linear("trap.centre", 0.0, 2.0)}); }
+WorkRequest quartic_request() {
+  WorkRequest request;
+  request.initial = InitialState::thermal(0.5);
+  request.spectrum.extent = std::pair{-7.0, 9.0};
+  request.spectrum.points = 256;  // dense
+  request.reverse_run = false;
+  request.time_step_check = false;
+  return request;
+}
+}  // namespace
+
 // The retry rule alone (enlarged_request), on diagnostics made up for each case: only what
 // missed is enlarged, by what it needs.
 TEST_CASE("a retry enlarges only what missed, by what it needs", "[work]") {
@@ -621,15 +633,10 @@ TEST_CASE("a retry enlarges only what missed, by what it needs", "[work]") {
 // solving it (the --tolerance search's ODE try on a large grid), saying so; with a budget
 // above that estimate it solves the basis and goes on.
 TEST_CASE("an eigenbasis run stops before a basis its budget cannot pay for", "[work][issue21]") {
-  const Potential trap({Term("trap", Shape::polynomial, {{"frequency", 1.0}, {"quartic", 0.05}})});
-  const Protocol move(4, {Schedule::linear("trap.centre", 0.0, 2.0)});
-  WorkRequest request;
-  request.initial = InitialState::thermal(0.5);
-  request.spectrum.extent = std::pair{-7.0, 9.0};
-  request.spectrum.points = 256;  // dense: 9 n^3 = 1.5e8 estimated operations per basis
+  const Potential trap = quartic_trap();
+  const Protocol move = quartic_move();
+  WorkRequest request = quartic_request();  // dense: 9 n^3 = 1.5e8 estimated operations per basis
   request.integrator = Integrator::eigenbasis;
-  request.reverse_run = false;
-  request.time_step_check = false;
   request.ode_arithmetic_limit = 1e7;
   try {
     (void)run_work(trap, move, request);
@@ -644,18 +651,17 @@ TEST_CASE("an eigenbasis run stops before a basis its budget cannot pay for", "[
   CHECK(paid.diagnostics.ode_basis_levels > 0);
 }
 
+// Issue 21: when run_work repeats a run with more levels (the escape probability was above its
+// tolerance), the states the previous attempt propagated on the same grid and steps are
+// carried over instead of propagated again; the result is the one-attempt run at the enlarged
+// settings, to rounding.
 TEST_CASE("issue 21: an enlarged run carries the states already propagated", "[work][issue21]") {
-  const Potential trap({Term("trap", Shape::polynomial, {{"frequency", 1.0}, {"quartic", 0.05}})});
-  const Protocol move(4, {Schedule::linear("trap.centre", 0.0, 2.0)});
-  WorkRequest request;
-  request.initial = InitialState::thermal(0.5);
-  request.spectrum.extent = std::pair{-7.0, 9.0};  // a fixed grid: the same in every attempt
-  request.spectrum.points = 256;
+  const Potential trap = quartic_trap();
+  const Protocol move = quartic_move();
+  WorkRequest request = quartic_request();  // a fixed grid: the same in every attempt
   request.integrator = Integrator::strang;
   request.steps = 400;
   request.co_moving = false;
-  request.reverse_run = false;
-  request.time_step_check = false;
   request.final_margin = 2;  // few final levels: the run is repeated with more
   const WorkResult enlarged = run_work(trap, move, request);
   REQUIRE(enlarged.diagnostics.notes.size() == 1);
@@ -700,18 +706,13 @@ TEST_CASE("issue 21: an enlarged run carries the states already propagated", "[w
 // once): an enlarged run solves each Hamiltonian once. With two threads H_A and H_B are solved
 // at the same time, each as it would be alone: the same numbers bit for bit.
 TEST_CASE("run_work solves each spectrum once, and on two threads gives the same numbers", "[work][spectra]") {
-  const Potential trap({Term("trap", Shape::polynomial, {{"frequency", 1.0}, {"quartic", 0.05}})});
-  const Protocol move(4, {Schedule::linear("trap.centre", 0.0, 2.0)});
-  WorkRequest request;
-  request.initial = InitialState::thermal(0.5);
-  request.spectrum.extent = std::pair{-7.0, 9.0};
-  request.spectrum.points = 256;  // dense
+  const Potential trap = quartic_trap();
+  const Protocol move = quartic_move();
+  WorkRequest request = quartic_request();
   request.integrator = Integrator::strang;
   request.steps = 400;
   request.co_moving = false;
-  request.reverse_run = false;
-  request.time_step_check = false;
-  request.final_margin = 2;  // far too few final levels: the run is repeated with more (issue 21)
+  request.final_margin = 2;  // few final levels: the run is repeated with more (issue 21)
   request.spectrum.options.memo = std::make_shared<SpectrumMemo>();
   const WorkResult one = run_work(trap, move, request);
   REQUIRE(one.diagnostics.notes.size() == 1);
