@@ -355,8 +355,8 @@ class WorkerPool {
 // are 16 columns or more, so that two or more threads share the work evenly (with 8 blocks of
 // 9 columns of the benchmark's reference job, the calling thread, which also samples the
 // potential between the passes, ran 1.4 times the other's transforms: 2 threads took 9.6 s
-// against 8.4 s with 16, measured). Depends on
-// points and columns only, so that results do not depend on the thread count.
+// against 8.4 s with 16, measured). Depends on points and columns only, so that results do
+// not depend on the thread count.
 int block_columns_for(std::size_t points, int columns) {
   const std::size_t scratch_bytes = 256 * 1024;
   const int by_cache = int(std::max<std::size_t>(1, scratch_bytes / (points * sizeof(complex))));

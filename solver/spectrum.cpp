@@ -311,6 +311,11 @@ std::size_t bytes_of(const Spectrum& s) {
 
 int hermite_basis_size(int levels) { return std::max(4 * levels + 60, 120); }
 
+bool solves_dense(const SpectrumOptions& options, std::size_t points) {
+  return options.method == EigenMethod::dense ||
+         (options.method == EigenMethod::automatic && points <= options.dense_limit);
+}
+
 Spectrum lowest_levels(const Spectrum& s, int k) {
   TRAPWORK_EXPECT(k >= 1 && k <= s.energies.size(), "lowest_levels: 1 <= k <= levels held");
   if (k == s.energies.size()) return s;
@@ -416,7 +421,7 @@ Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const Sp
                        " points: at most half the points can be resolved levels; use more points");
   EigenMethod method = options.method;
   if (method == EigenMethod::automatic)
-    method = std::size_t(n) <= options.dense_limit ? EigenMethod::dense : EigenMethod::lanczos;
+    method = solves_dense(options, grid.size()) ? EigenMethod::dense : EigenMethod::lanczos;
   if (method == EigenMethod::hermite)
     throw ContractViolation("solve_spectrum: the Hermite basis is handled by compute_spectrum");
   check_memory(spectrum_cost(grid.size(), k, method == EigenMethod::dense, options.fd_order), options.memory_limit,

@@ -131,6 +131,9 @@ double effective_tolerance(const Grid& grid, const std::vector<double>& v, doubl
 // Hermite functions in the basis of a method = "hermite" spectrum of `levels` levels.
 int hermite_basis_size(int levels);
 
+// Whether solve_spectrum solves a grid of `points` points densely with these options.
+bool solves_dense(const SpectrumOptions& options, std::size_t points);
+
 // The lowest k pairs of s (1 <= k <= its levels), with their residuals, groups and converged count.
 Spectrum lowest_levels(const Spectrum& s, int k);
 

@@ -900,8 +900,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
     z.runs = 1 + (request.time_step_check ? 2 : 0) + (request.reverse_run ? 1 : 0);
     if (request.integrator == Integrator::eigenbasis)
       z.basis_levels = request.eigenbasis_levels > 0 ? request.eigenbasis_levels : 2 * spectrum_levels;
-    z.dense = base_options.method == EigenMethod::dense ||
-              (base_options.method == EigenMethod::automatic && g.size() <= base_options.dense_limit);
+    z.dense = solves_dense(base_options, g.size());
     return z;
   };
   Spectrum sa, sb;  // forward grid: H_A and H_B (in the frame)
@@ -1008,9 +1007,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
     // operations (cost.hpp) against the ODE's limit (the two ran at about the same rate here:
     // 240 levels on 2048 points, 8.6e9 estimated, in 0.6 s).
     if (request.ode_arithmetic_limit > 0) {
-      const bool dense = options.method == EigenMethod::dense ||
-                         (options.method == EigenMethod::automatic && g.size() <= options.dense_limit);
-      const double solve = spectrum_cost(g.size(), options.levels, dense).operations;
+      const double solve = spectrum_cost(g.size(), options.levels, solves_dense(options, g.size())).operations;
       if (solve > request.ode_arithmetic_limit)
         throw ArithmeticLimitReached("eigenbasis ODE: its basis of " + std::to_string(options.levels) +
                                          " levels alone (estimated " + fmt(solve) + " operations) passes the limit of " +
@@ -1233,8 +1230,7 @@ int insured_levels(const Potential& base, const Protocol& protocol, const WorkRe
   if (now == 0 || later <= now) return 0;
   const bool known = r.spectrum.points.has_value();
   const std::size_t n = known ? *r.spectrum.points : 0;
-  if (o.method == EigenMethod::dense || (o.method == EigenMethod::automatic && known && n <= o.dense_limit))
-    return later;
+  if (o.method == EigenMethod::dense || (known && solves_dense(o, n))) return later;
   if (!known || r.steps <= 0 || r.integrator == Integrator::eigenbasis) return 0;
   const auto n_check = std::size_t(1.5 * double(n));
   const double extra = 2 * (spectrum_cost(n, later, false).operations - spectrum_cost(n, now, false).operations +

@@ -310,10 +310,10 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       c.trail.push_back(std::to_string(w.result().steps) + " steps, " + points);
     return w;
   };
-  // The start: 1/16 of the automatic count (phases of 3.2 rad per order-4 step, 0.32 per Strang
-  // step: the automatic step aims at accuracy everywhere, far beyond a loose T), whatever the
-  // scenario's [work] steps: the search chooses the steps. The grid is varied first at these
-  // steps, then the steps on the chosen grid. Only the runs that may be chosen run the reverse
+  // The start: 1/16 of the automatic count (phases of 3.2 rad per order-4 step: the automatic
+  // step aims at accuracy everywhere, far beyond a loose T), whatever the scenario's [work]
+  // steps: the search chooses the steps. The grid is varied first at these steps, then the
+  // steps on the chosen grid. Only the runs that may be chosen run the reverse
   // protocol (line_distance compares the forward runs).
   const int given_steps = request.steps;
   request.steps = 0;
@@ -323,7 +323,7 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
   // substeps of the Strang runs the search chose (README, case (g)).
   const bool strang_replaced = request.integrator == Integrator::strang;
   if (strang_replaced) request.integrator = Integrator::fourth_order;
-  if (request.phase_per_step == 0) request.phase_per_step = request.integrator == Integrator::strang ? 0.32 : 3.2;
+  if (request.phase_per_step == 0) request.phase_per_step = 3.2;  // per order-4 step (the ODE ignores it)
   const bool reverse = request.reverse_run;
   request.reverse_run = false;
   // The eigenbasis ODE first (ode_first, see work_output.hpp), where it applies; a win returns here.
