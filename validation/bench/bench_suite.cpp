@@ -742,47 +742,45 @@ int main(int argc, char** argv) {
   if (wanted('g'))
     for (const double tolerance : {1e-6, 1e-8})
       targets.push_back({'g', tolerance, "", TRAPWORK_BENCH_DIR "/quartic_translation.toml"});
-  {
-    for (const auto& [label, tolerance, duration, file] : targets) {
-      const Measurement m = in_child([&] { return tolerance_target(tolerance, duration, file); });
-      const std::string t = std::string("(") + label + ") T = " + text("%.0e", tolerance) +
-                            (duration.empty() ? ": " : ", " + duration + " move: ");
-      const std::string job = file.empty() ? "default scenario" : "quartic_translation.toml";
-      if (m.values.size() != std::size_t(target::count)) {
-        print_row({t + "failed", job, m});
-        continue;
-      }
-      const auto& v = m.values;
-      auto numerics = [](double steps, double points, double ode) {
-        return ode > 0 ? text("ODE tol %.0e, %.0f pts", ode, points) : text("%.0f st x %.0f pts", steps, points);
-      };
-      Row search{t + "--tolerance search", "whole call, " + job, m};
-      search.note = "chose " + numerics(v[target::steps], v[target::points], v[target::ode]) +
-                    text(" in %.0f runs; estimate %.2g", v[target::search_runs], v[target::estimate]) +
-                    text(", true error / T = %.2g; search / best hand-tuned = %.2f", v[target::error] / tolerance,
-                         m.wall_s / v[target::best_s]) +
-                    text("; search / its choice with its usual check = %.2f (%.2f s", m.wall_s / v[target::checked_s],
-                         v[target::checked_s]) +
-                    text("; estimated arithmetic %.2f)", v[target::cost_ratio]) +
-                    (v[target::ode_stopped] > 0 ? "; its ODE try stopped by the arithmetic budget" : "");
-      print_row(search);
-      Row final_run{t + "its final choice alone", numerics(v[target::steps], v[target::points], v[target::ode]),
-                    {v[target::final_s], v[target::final_cpu], NAN, {}, true}};
-      final_run.note = text("final / best hand-tuned = %.2f; the search timed it at %.2f s", v[target::final_s] / v[target::best_s],
-                            v[target::recorded_s]) +
-                       text(", rerun vs returned: distance %.1e", v[target::rerun_distance]);
-      print_row(final_run);
-      Row best{t + "best hand-tuned choice", numerics(v[target::best_steps], v[target::best_points], v[target::best_ode]),
-               {v[target::best_s], v[target::best_cpu], NAN, {}, true}};
-      best.note = std::isnan(v[target::best_s])
-                      ? "no scanned run within T"
-                      : text("true error / T = %.2g; fastest within T of %.0f runs", v[target::best_error] / tolerance,
-                             v[target::tried]) +
-                            text(" (%.0f failed); best split-operator: %.2f s", v[target::failed], v[target::split_s]) +
-                            " at " + numerics(v[target::split_steps], v[target::split_points], 0) +
-                            text("; reference %.0f st x %.0f pts", v[target::reference_steps], v[target::reference_points]);
-      print_row(best);
+  for (const auto& [label, tolerance, duration, file] : targets) {
+    const Measurement m = in_child([&] { return tolerance_target(tolerance, duration, file); });
+    const std::string t = std::string("(") + label + ") T = " + text("%.0e", tolerance) +
+                          (duration.empty() ? ": " : ", " + duration + " move: ");
+    const std::string job = file.empty() ? "default scenario" : "quartic_translation.toml";
+    if (m.values.size() != std::size_t(target::count)) {
+      print_row({t + "failed", job, m});
+      continue;
     }
+    const auto& v = m.values;
+    auto numerics = [](double steps, double points, double ode) {
+      return ode > 0 ? text("ODE tol %.0e, %.0f pts", ode, points) : text("%.0f st x %.0f pts", steps, points);
+    };
+    Row search{t + "--tolerance search", "whole call, " + job, m};
+    search.note = "chose " + numerics(v[target::steps], v[target::points], v[target::ode]) +
+                  text(" in %.0f runs; estimate %.2g", v[target::search_runs], v[target::estimate]) +
+                  text(", true error / T = %.2g; search / best hand-tuned = %.2f", v[target::error] / tolerance,
+                       m.wall_s / v[target::best_s]) +
+                  text("; search / its choice with its usual check = %.2f (%.2f s", m.wall_s / v[target::checked_s],
+                       v[target::checked_s]) +
+                  text("; estimated arithmetic %.2f)", v[target::cost_ratio]) +
+                  (v[target::ode_stopped] > 0 ? "; its ODE try stopped by the arithmetic budget" : "");
+    print_row(search);
+    Row final_run{t + "its final choice alone", numerics(v[target::steps], v[target::points], v[target::ode]),
+                  {v[target::final_s], v[target::final_cpu], NAN, {}, true}};
+    final_run.note = text("final / best hand-tuned = %.2f; the search timed it at %.2f s", v[target::final_s] / v[target::best_s],
+                          v[target::recorded_s]) +
+                     text(", rerun vs returned: distance %.1e", v[target::rerun_distance]);
+    print_row(final_run);
+    Row best{t + "best hand-tuned choice", numerics(v[target::best_steps], v[target::best_points], v[target::best_ode]),
+             {v[target::best_s], v[target::best_cpu], NAN, {}, true}};
+    best.note = std::isnan(v[target::best_s])
+                    ? "no scanned run within T"
+                    : text("true error / T = %.2g; fastest within T of %.0f runs", v[target::best_error] / tolerance,
+                           v[target::tried]) +
+                          text(" (%.0f failed); best split-operator: %.2f s", v[target::failed], v[target::split_s]) +
+                          " at " + numerics(v[target::split_steps], v[target::split_points], 0) +
+                          text("; reference %.0f st x %.0f pts", v[target::reference_steps], v[target::reference_points]);
+    print_row(best);
   }
 
   // ---- (f) the reference job through `trapwork work` ----
