@@ -134,7 +134,9 @@ TEST_CASE("--tolerance on the built-in anharmonic translation: the ODE chosen wh
   CHECK(ode.ode_cost_ratio <= 0.2);
   CHECK(ode.reached());
   // issue 21: tried first, it wins there, so the call is its run and its check alone (on 3/2 the
-  // points at T/500), and that check's distance, the estimate, bounds the true error
+  // points at T/500 with 2/3 the basis), within 1.5 times the chosen run with its usual check
+  // (estimated arithmetic; the check on 3/2 the basis took 2.7 times), and that check's
+  // distance, the estimate, bounds the true error
   CHECK(ode.ode_first);
   CHECK(ode.trail.size() == 2);
   CHECK(ode.cost_spent <= 1.5 * ode.chosen_cost);
@@ -142,4 +144,38 @@ TEST_CASE("--tolerance on the built-in anharmonic translation: the ODE chosen wh
   // issue 21: each whole call within 1.5 times the chosen split-operator run with its usual
   // half-step check (estimated arithmetic)
   for (const ToleranceChoice* c : {&loose, &tight}) CHECK(c->cost_spent <= 1.5 * c->chosen_cost);
+}
+
+TEST_CASE("--tolerance: the ODE check on 2/3 the basis over-estimates a truncated basis's error",
+          "[work][tolerance][heavy]") {
+  // The built-in move (2.5 us, fast enough to climb some tens of levels), forward only, with a
+  // basis too small on purpose. Reference: the same ODE on 120 levels at tighter tolerances
+  // (its own basis error is checked below against 90 levels).
+  const Scenario s = read_scenario_text(default_scenario_text(), "default");
+  WorkRequest e = work_request(s);
+  e.integrator = Integrator::eigenbasis;
+  e.steps = 0;
+  e.time_step_check = false;
+  e.reverse_run = false;
+  auto with_basis = [&](int levels, double ode) {
+    WorkRequest r = e;
+    r.eigenbasis_levels = levels;
+    r.ode = {ode, ode};
+    return compute_work(s, r);
+  };
+  const ScenarioWork reference = with_basis(120, 1e-13);
+  REQUIRE(line_distance(with_basis(90, 1e-13).result().forward, reference.result().forward).distance < 1e-12);
+  const double tolerance = 1e-8;  // the search's first run is at T/50
+  for (const int levels : {40, 50}) {
+    const ScenarioWork first = with_basis(levels, tolerance / 50);
+    const WorkRequest c = ode_check_request(first.request, first.result(), tolerance);
+    CHECK(c.eigenbasis_levels == (2 * levels + 2) / 3);
+    CHECK(!c.reverse_run);
+    const ScenarioWork check = compute_work(s, c);
+    const double truth = line_distance(first.result().forward, reference.result().forward).distance;
+    const double estimate = line_distance(first.result().forward, check.result().forward).distance;
+    INFO(levels << " levels: true error " << truth << ", distance to the check " << estimate);
+    CHECK(truth > 1e-10);  // the basis is too small: there is an error to find
+    CHECK(estimate >= truth);
+  }
 }

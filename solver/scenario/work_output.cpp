@@ -254,6 +254,14 @@ Scenario on_finer_grid(const Scenario& s, const Grid& g) {
 }
 }  // namespace
 
+WorkRequest ode_check_request(WorkRequest e, const WorkResult& first, double tolerance) {
+  e.reverse_run = false;
+  e.ode = {tolerance / 500, tolerance / 500};
+  e.steps = 2 * first.steps;
+  e.eigenbasis_levels = std::max(1, (2 * first.diagnostics.ode_basis_levels + 2) / 3);
+  return e;
+}
+
 namespace {
 // How a stopped eigenbasis ODE run passed its budget, for the search's trail.
 std::string what_passed(const ArithmeticLimitReached& stop) {
@@ -369,14 +377,11 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
         ScenarioWork basis = run(c.scenario, e);
         const double seconds = last_seconds;
         ode_first_points = basis.result().grid.size();
-        // The check: 3/2 the points over the same extent, T/500, twice the restart points and 3/2
-        // the basis, so that its distance bounds the grid's and the ODE's parts of the first run's
-        // error together.
+        // The check (ode_check_request) on 3/2 the points over the same extent, so that its distance
+        // bounds the grid's, the ODE's and the basis's parts of the first run's error together.
         const Grid& g = basis.result().grid;
         const Scenario finer = on_finer_grid(c.scenario, g);
-        e.ode = {tolerance / 500, tolerance / 500};
-        e.steps = 2 * basis.result().steps;
-        e.eigenbasis_levels = 3 * basis.result().diagnostics.ode_basis_levels / 2;
+        e = ode_check_request(e, basis.result(), tolerance);
         e.ode_arithmetic_limit = 6 * basis.result().diagnostics.ode_arithmetic;
         const ScenarioWork check = run(finer, e, false);
         const LineDistance distance = line_distance(basis.result().forward, check.result().forward);
@@ -394,7 +399,10 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
           c.steps = basis.result().steps;
           c.points = g.size();
           c.method = basis.result().method;
-          c.chosen_cost = c.cost_spent;  // the chosen run and its check are the whole search
+          // The chosen run alone with its usual check (run_work's time_step_check: the forward
+          // run again at twice the restart points and 1/100 the tolerances), that check counted
+          // at the forward run's arithmetic, which it takes at least
+          c.chosen_cost = run_arithmetic(basis.result()) * (1 + (basis.result().reverse ? 0.5 : 1.0)) / unit;
           if (given_steps > 0)
             c.trail.front() += " (the scenario's " + std::to_string(given_steps) + " steps do not apply: the ODE "
                                "chooses its own)";
@@ -552,12 +560,7 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       ScenarioWork basis = run(c.scenario, e);
       const double seconds = last_seconds;
       c.ode_cost_ratio = basis.result().diagnostics.ode_arithmetic / split_arithmetic;
-      // The check: a tighter tolerance, twice the restart points (so that its steps differ even
-      // where the coupling is weak enough for every step to pass both tolerances) and 3/2 the
-      // basis.
-      e.ode = {tolerance / 500, tolerance / 500};
-      e.steps = 2 * basis.result().steps;
-      e.eigenbasis_levels = 3 * basis.result().diagnostics.ode_basis_levels / 2;
+      e = ode_check_request(e, basis.result(), tolerance);
       e.ode_arithmetic_limit = std::min(6 * basis.result().diagnostics.ode_arithmetic,
                                         (left - ode_operation_cost * run_arithmetic(basis.result())) /
                                             (ode_operation_cost * directions));
@@ -566,8 +569,6 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       const double agreement = line_distance(basis.result().forward, coarse.result().forward).distance;
       c.trail.back() += ": distance to the coarser ODE run " + short_number(c.ode_part, 3) + ", to the split-operator run " +
                         short_number(agreement, 3);
-      if (finer.result().diagnostics.ode_basis_levels == basis.result().diagnostics.ode_basis_levels)
-        c.trail.back() += " (basis not enlarged: at most half the grid points)";
       c.eigenbasis_seconds = seconds;
       // faster: it finished within half the split-operator run's time (estimated, above)
       if (c.ode_part + c.grid_part <= tolerance && agreement <= tolerance) {
@@ -1471,13 +1472,15 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
                     (t.ode_first ? " times the estimated arithmetic of the coarse split-operator run (not run), bound "
                                  : " times the first split-operator run's estimated arithmetic, bound ") +
                     short_number(t.cost_bound, 3) + (t.bound_reached ? ": the bound stopped the search" : ""));
-    if (t.ode_first)
-      row("", "the chosen ODE run and its check are the whole search (estimated arithmetic; the spectra not counted)");
+    if (t.ode_first && t.chosen_cost > 0)
+      row("", short_number(t.cost_spent / t.chosen_cost, 3) +
+                  " times the chosen ODE run alone with its usual check at 1/100 the tolerances (estimated "
+                  "arithmetic, that check counted at the forward run's; the spectra not counted)");
     else if (t.chosen_cost > 0)
       row("", short_number(t.cost_spent / t.chosen_cost, 3) +
                   " times the chosen split-operator run alone with its usual half-step check (estimated arithmetic)");
     if (t.ode_first)
-      row("estimate", short_number(t.estimate(), 3) + " (the distance to a run on 3/2 the points at T/500 with 3/2 "
+      row("estimate", short_number(t.estimate(), 3) + " (the distance to a run on 3/2 the points at T/500 with 2/3 "
                       "the basis: grid, ODE tolerance and basis together); lines move by up to " +
                       e.text(t.max_work_shift, 3) + (t.reached() ? "" : ": the tolerance is NOT reached"));
     else
