@@ -50,6 +50,8 @@ TEST_CASE("parse_quantity reads numbers with lab units into SI", "[units]") {
       {"87 Da", 87 * codata_u, Dimension::mass()},
       {"1.2 MHz", 1.2e6, Dimension::frequency()},
       {"15 nm", 15e-9, Dimension::length()},
+      {"0.1 cm", 1e-3, Dimension::length()},
+      {"2 THz", 2e12, Dimension::frequency()},
       {"2.5 \xC2\xB5m", 2.5e-6, Dimension::length()},  // micro sign
       {"3 us", 3e-6, Dimension::time()},
       {"2 uK", 2e-6, Dimension::temperature()},
