@@ -329,7 +329,7 @@ ScenarioWork fixed_work(Scenario s, WorkRequest q, std::size_t points, int steps
   return compute_work(s, q);
 }
 
-// Case (e) at one tolerance: the whole compute_work_to_tolerance call, its final choice alone,
+// Case (e) or (g) (`label`, for messages) at one tolerance: the whole compute_work_to_tolerance call, its final choice alone,
 // a reference (4x the chosen steps, 9/4 the points, order 4) giving true errors, and the
 // hand-tuned scan: for points 2/3, 1 and 3/2 of the chosen, order-4 split-operator runs at
 // chosen/8 .. chosen*2 steps and, where the ODE applies, eigenbasis runs at ODE tolerances
@@ -338,7 +338,7 @@ ScenarioWork fixed_work(Scenario s, WorkRequest q, std::size_t points, int steps
 // `duration`: the built-in scenario's move duration, replaced when not empty (the slow move,
 // where the eigenbasis ODE wins).
 // `file`: a scenario file instead of the built-in one (case (g): the reference job of (f)).
-JobResult tolerance_target(double tolerance, const std::string& duration = "", const std::string& file = "") {
+JobResult tolerance_target(char label, double tolerance, const std::string& duration = "", const std::string& file = "") {
   std::string scenario_text(default_scenario_text());
   if (!duration.empty()) {
     const std::string key = "duration = \"2.5 us\"";
@@ -431,7 +431,7 @@ JobResult tolerance_target(double tolerance, const std::string& duration = "", c
         return;
       } catch (const std::exception& e) {  // e.g. a grid too coarse for the levels needed
         ++v[target::failed];
-        std::fprintf(stderr, "(e) T = %.0e: %zu points, %s failed: %s\n", tolerance, points,
+        std::fprintf(stderr, "(%c) T = %.0e: %zu points, %s failed: %s\n", label, tolerance, points,
                      (ode > 0 ? text("ODE tolerance %.0e", ode) : text("%.0f steps", steps)).c_str(), e.what());
       }
     }
@@ -743,7 +743,7 @@ int main(int argc, char** argv) {
     for (const double tolerance : {1e-6, 1e-8})
       targets.push_back({'g', tolerance, "", TRAPWORK_BENCH_DIR "/quartic_translation.toml"});
   for (const auto& [label, tolerance, duration, file] : targets) {
-    const Measurement m = in_child([&] { return tolerance_target(tolerance, duration, file); });
+    const Measurement m = in_child([&] { return tolerance_target(label, tolerance, duration, file); });
     const std::string t = std::string("(") + label + ") T = " + text("%.0e", tolerance) +
                           (duration.empty() ? ": " : ", " + duration + " move: ");
     const std::string job = file.empty() ? "default scenario" : "quartic_translation.toml";
