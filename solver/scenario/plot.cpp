@@ -356,6 +356,7 @@ struct Panel {
   bool log_x = false, log_y = false;
   bool right_axis_free = false;    // leave the right edge for a second y axis
   int log_step_y = 1;              // label every n-th decade of a log y axis
+  bool grid_lines = true;          // false: none (a map, whose cells and markers they would cross)
 };
 
 // Tick spacing 1, 2 or 5 x 10^k for about `max_ticks` intervals over `span`:
@@ -419,8 +420,10 @@ double draw_frame(const Panel& p) {
     return log ? (span <= 6 ? "ls" : "l") : "s";
   };
   const std::string lx = minor(p.log_x, p.x_hi - p.x_lo), ly = minor(p.log_y, p.y_hi - p.y_lo);
-  pen(grid_grey, 1.0);
-  box(p.log_x ? "gl" : "g", p.log_y ? "gl" : "g", p.x_hi - p.x_lo, p.y_hi - p.y_lo, 1, x_tick, y_tick);
+  if (p.grid_lines) {
+    pen(grid_grey, 1.0);
+    box(p.log_x ? "gl" : "g", p.log_y ? "gl" : "g", p.x_hi - p.x_lo, p.y_hi - p.y_lo, 1, x_tick, y_tick);
+  }
   std::string xopt = "bct" + lx + (p.x_numbers ? "n" : "");
   std::string yopt = (p.right_axis_free ? "btv" : "bctv") + ly + (p.y_numbers ? "n" : "");
   pen(ink, 1.5);
@@ -1761,6 +1764,7 @@ std::vector<fs::path> plot_sweep_map(const fs::path& stem, const SweepMapFigure&
     figure_title(f.title);
     map_colours();
     Panel p{{0.1, 0.8, 0.12, 0.84}, xe.front(), xe.back(), ye.front(), ye.back()};
+    p.grid_lines = false;  // drawn last (the frame over the cells), they would cross cells and markers
     make_room_for_left_label(p);
     plvpor(p.viewport[0], p.viewport[1], p.viewport[2], p.viewport[3]);
     plwind(p.x_lo, p.x_hi, p.y_lo, p.y_hi);
