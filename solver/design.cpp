@@ -196,8 +196,15 @@ Protocol DesignFamily::protocol(const std::vector<double>& c) const {
       continue;
     }
     const std::size_t p = std::size_t(it - parameters_.begin());
-    const std::string expression =
-        "(" + exact(it->from) + ")+(" + exact(it->to - it->from) + ")*(" + shape_expression(p, c) + ")";
+    // appended piece by piece: g++ 12 warns (-Wrestrict, a known false positive) on
+    // "(" + std::string&& here
+    std::string expression = "(";
+    expression += exact(it->from);
+    expression += ")+(";
+    expression += exact(it->to - it->from);
+    expression += ")*(";
+    expression += shape_expression(p, c);
+    expression += ")";
     schedules.push_back(Schedule::formula(s.address(), expression));
   }
   return Protocol(protocol_.duration(), std::move(schedules));
