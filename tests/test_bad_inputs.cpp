@@ -442,7 +442,7 @@ const std::vector<BadCommand>& bad_commands() {
        {{"small.toml", ion + "[spectrum]\nlevels = 20\n[grid]\npoints = 8\nleft = \"-0.1 um\"\nright = \"0.1 um\"\n"}}, 2,
        {"trapwork: error: small.toml: ", "asked for 20 levels on a grid of 8"}},
       {"work without [protocol]", "work still.toml -o out", {{"still.toml", ion + "[initial]\nmean_phonons = 0.3\n"}}, 2,
-       {"trapwork: error: still.toml", "[protocol]"}},
+       {"trapwork: error: still.toml: protocol = missing", "[protocol]", "the spectrum of this trap alone needs none"}},
       {"sweep without [sweep]", "sweep move.toml -o out", {{"move.toml", moving}}, 2,
        {"trapwork: error: move.toml", "sweep", "a [sweep] table"}},
       {"a command-line value out of range", "sweep move.toml --jobs 0 -o out", {{"move.toml", moving}}, 2,

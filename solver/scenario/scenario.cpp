@@ -1712,8 +1712,10 @@ bool is_wall(const std::string& address) { return address == "box.left" || addre
 
 const ProtocolSpec& protocol_of(const Scenario& s) {
   if (!s.protocol)
-    throw InputError("protocol", "", "a [protocol] table with duration and [[protocol.change]] tables", "",
-                     s.file);
+    throw InputError("protocol", "missing",
+                     "work statistics need a [protocol] table with duration and [[protocol.change]] tables "
+                     "(as in examples/ion_translation.toml); the spectrum of this trap alone needs none",
+                     "", s.file);
   return *s.protocol;
 }
 
