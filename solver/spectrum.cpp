@@ -140,18 +140,24 @@ struct Scan {
   std::vector<double> x, v;
   double step = 0;
 };
-Scan scan_potential(const Potential& potential, double lo, double hi, double t, const MessageUnits& units = {},
+// Into s (its vectors reused when they have the size already).
+void scan_potential(Scan& s, const Potential& potential, double lo, double hi, double t, const MessageUnits& units = {},
                     std::size_t n = 200001) {
-  Scan s;
   s.step = (hi - lo) / double(n - 1);
   s.x.resize(n);
+  s.v.resize(n);
   for (std::size_t i = 0; i < n; ++i) s.x[i] = lo + double(i) * s.step;
-  s.v = potential.evaluate(s.x, t);
+  potential.evaluate(s.x.data(), s.v.data(), n, t);
   for (std::size_t i = 0; i < n; ++i)
     if (!std::isfinite(s.v[i]))
       throw PhysicsError("the potential is not finite at x = " + units(s.x[i], Dimension::length()) + " (value " +
                          fmt(s.v[i]) +
                          "): check formulas for division by zero or overflow");
+}
+Scan scan_potential(const Potential& potential, double lo, double hi, double t, const MessageUnits& units = {},
+                    std::size_t n = 200001) {
+  Scan s;
+  scan_potential(s, potential, lo, hi, t, units, n);
   return s;
 }
 
@@ -542,7 +548,7 @@ std::vector<double> wkb_level_energies(const Potential& potential, int count, do
 }
 
 namespace {
-// choose_grid on the potential's scan over the search window (compute_spectrum has it already).
+// choose_grids on the potential's scan over the search window (compute_spectrum has it already).
 Grid grid_from_scan(const Scan& s, double energy_max, const SpectrumRequest& request) {
   const MessageUnits& units = request.message_units;
   const double v_min = *std::min_element(s.v.begin(), s.v.end());
@@ -588,10 +594,16 @@ Grid grid_from_scan(const Scan& s, double energy_max, const SpectrumRequest& req
 }
 }  // namespace
 
-Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRequest& request) {
-  const double t = potential.time();  // formulas using t at the potential's own time
+std::vector<Grid> choose_grids(const std::vector<Potential>& potentials, double energy_max,
+                               const SpectrumRequest& request) {
   const auto [lo, hi] = search_window(request);
-  return grid_from_scan(scan_potential(potential, lo, hi, t, request.message_units), energy_max, request);
+  Scan scan;
+  std::vector<Grid> grids;
+  for (const Potential& p : potentials) {
+    scan_potential(scan, p, lo, hi, p.time(), request.message_units);  // formulas at the potential's own time
+    grids.push_back(grid_from_scan(scan, energy_max, request));
+  }
+  return grids;
 }
 
 std::vector<Level> analyse_levels(const Spectrum& s, const HarmonicApproximation& harmonic, double threshold) {

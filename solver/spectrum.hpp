@@ -205,7 +205,11 @@ void cap_potential(std::vector<double>& v, double v_min, double cutoff);
 // a WKB decay length (integral of sqrt(2 (V - E)) dx = decay beyond each), spacing from the
 // largest momentum sqrt(2 (energy_max - v_min)) plus a margin; n rounded to a fast FFT size.
 // Throws PhysicsError if V is nowhere below energy_max in the search window.
-Grid choose_grid(const Potential& potential, double energy_max, const SpectrumRequest& request);
+// One grid for each of several potentials (e.g. a protocol's instants), each at its own time,
+// their scans sharing one buffer: a scan is 200001 points, and fresh vectors for each cost more
+// in page faults and zeroing than the scan's own arithmetic (perf, a lab-frame run's 15 instants).
+std::vector<Grid> choose_grids(const std::vector<Potential>& potentials, double energy_max,
+                               const SpectrumRequest& request);
 
 // WKB estimates of the energies of levels 0 .. count - 1 (sum p dx = pi (K + 1/2)) from one
 // scan of V over [lo, hi], each capped at the threshold and found to 1e-12 (1 + |E|) (for

@@ -932,13 +932,15 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
     if (!co_moving) {
       left = std::min(left, rb.spectrum.grid.left());
       right = std::max(right, rb.spectrum.grid.right());
-      if (!fixed_grid && tau > 0)
-        for (int i = 1; i < 16; ++i) {
-          const Grid g = choose_grid(protocol.at(base, tau * i / 16), cutoff, sr);
+      if (!fixed_grid && tau > 0) {
+        std::vector<Potential> instants;
+        for (int i = 1; i < 16; ++i) instants.push_back(protocol.at(base, tau * i / 16));
+        for (const Grid& g : choose_grids(instants, cutoff, sr)) {
           left = std::min(left, g.left());
           right = std::max(right, g.right());
           dx = std::min(dx, g.spacing());
         }
+      }
     }
     if (request.spectrum.box)
       grid = ra.spectrum.grid;
