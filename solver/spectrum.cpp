@@ -397,6 +397,12 @@ void SpectrumMemo::keep_wkb(const std::vector<double>& scan, double lo, double s
     e = std::prev(wkb_.end());
   }
   e->energies.push_back({{count, only_highest}, energies});
+  wkb_levels_ += only_highest ? 1 : std::size_t(std::max(count, 0));
+}
+
+std::size_t SpectrumMemo::wkb_levels() const {
+  const std::lock_guard<std::mutex> lock(mutex_);
+  return wkb_levels_;
 }
 
 std::size_t SpectrumMemo::solved() const {

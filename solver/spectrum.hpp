@@ -102,6 +102,8 @@ class SpectrumMemo {
                                               bool only_highest) const;
   void keep_wkb(const std::vector<double>& scan, double lo, double step, int count, bool only_highest,
                 const std::vector<double>& energies);
+  // WKB levels solved through the memo (a request for only the highest counts one).
+  std::size_t wkb_levels() const;
 
  private:
   struct WkbEntry {
@@ -118,7 +120,7 @@ class SpectrumMemo {
   };
   std::size_t budget_, held_ = 0;
   mutable std::size_t reused_ = 0;
-  std::size_t solved_ = 0;
+  std::size_t solved_ = 0, wkb_levels_ = 0;
   std::vector<Entry> entries_;  // oldest first
   mutable std::mutex mutex_;
 };

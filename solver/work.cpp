@@ -448,6 +448,10 @@ int first_levels(const WorkRequest& request) {
 int predicted_levels(const Potential& va, const WorkRequest& request, int first, std::vector<double>& wkb) {
   if (!request.initial.is_gibbs() || request.spectrum.box) return 0;
   const int cap = request.max_initial_levels + request.final_margin;
+  // The loop below returns `first` at once when it holds the cap already (levels asked for in the
+  // scenario): no WKB pass. Those passes cost count x 10 sweeps of the scan (levels = 50000 took
+  // a minute before the memory check could refuse it).
+  if (first >= cap) return first;
   const double centre = request.spectrum.search_centre, half = request.spectrum.search_half_width;
   // WKB energies only as far as an attempt looks (the higher levels cost the longest passes)
   auto energies_of = [&](int count) {

@@ -119,8 +119,11 @@ TEST_CASE("issue 14: run_work refuses levels = 50000 before computing a spectrum
   Scenario s = read_scenario_text(enlarging_scenario + "[spectrum]\nlevels = 50000\n", "levels.toml");
   WorkRequest request = work_request(s);
   request.spectrum.options.memory_limit = 16e9;
+  request.spectrum.options.memo = std::make_shared<SpectrumMemo>();
   const std::string message = physics_error_of([&] { (void)run_work(s.potential, build_protocol(s), request); });
   INFO(message);
+  // refused after the top level's WKB estimate, not after 50000 WKB levels (a minute's work)
+  CHECK(request.spectrum.options.memo->wkb_levels() < 100);
   CHECK(contains(message, "50000 levels"));
   CHECK(contains(message, "more than the 16 GB available"));
   CHECK(contains(message, "[spectrum] levels"));
