@@ -141,8 +141,8 @@ struct Scan {
   double step = 0;
 };
 // Into s (its vectors reused when they have the size already).
-void scan_potential(Scan& s, const Potential& potential, double lo, double hi, double t, const MessageUnits& units = {},
-                    std::size_t n = 200001) {
+void scan_potential(Scan& s, const Potential& potential, double lo, double hi, double t,
+                    const MessageUnits& units = {}, std::size_t n = 200001) {
   s.step = (hi - lo) / double(n - 1);
   s.x.resize(n);
   s.v.resize(n);
@@ -154,8 +154,8 @@ void scan_potential(Scan& s, const Potential& potential, double lo, double hi, d
                          fmt(s.v[i]) +
                          "): check formulas for division by zero or overflow");
 }
-Scan scan_potential(const Potential& potential, double lo, double hi, double t, const MessageUnits& units = {},
-                    std::size_t n = 200001) {
+Scan scan_potential(const Potential& potential, double lo, double hi, double t,
+                    const MessageUnits& units = {}, std::size_t n = 200001) {
   Scan s;
   scan_potential(s, potential, lo, hi, t, units, n);
   return s;

@@ -76,25 +76,24 @@ struct ToleranceChoice {
   double chosen_cost = 0;
   double max_work_shift = 0;                 // of the last grid refinement (internal energy)
   std::vector<std::string> trail;            // one line per run: steps, points, difference
-  // Method: after the grid and step search, the eigenbasis ODE is tried on the chosen grid
-  // where it applies (tau > 0, walls standing): at ODE tolerances T/50 and, with twice the
-  // restart points and 2/3 the basis (ode_check_request), T/500; their distance is its own
-  // error (ode_part, NaN if not tried). Its operations are charged at 2.5 times a transform's (measured 2.2 to 4.2).
-  // Its two runs together may use what is left of 1.5 times chosen_cost (a third for the
-  // first, at most half the split-operator run's time so estimated; the rest, at most 6 times
-  // the first's, for the check); with less than a twentieth of the split-operator run's left it
-  // is not tried (said in the trail). It is chosen when it finished within its budget (so it
-  // takes at most about half the split-operator run's time), its estimate ode_part + grid_part
-  // is within T and it agrees with the split-operator run to T.
-  // ode_first: the ODE was tried before the search, where it applies (tau > 0, walls standing,
-  // a cost bound of at least 4) and won: at T/50 on the automatic grid, its estimated arithmetic per direction limited to
-  // a quarter of the coarse split-operator run's (read from run_work's estimate before that run
-  // propagates), charged at 2.5 times; checked by one run on 3/2 the points at T/500 with twice the restart
-  // points and 2/3 the basis, whose distance (ode_part) bounds the grid's, the ODE's and the
-  // basis's parts together (grid_part and time_step_part are then NaN), and chosen when that is within T. A
-  // slow move then costs its two ODE runs instead of the search (the built-in move at 25 us,
-  // T = 1e-8, measured). A try stopped by its budget costs the search most of a coarse run, and
-  // the ODE is then not tried again after the search (nor where it missed T on the same grid).
+  // Method: after the grid and step search, the eigenbasis ODE is tried on the chosen grid where it applies
+  // (tau > 0, walls standing): at ODE tolerances T/50 and, with twice the restart points and 2/3 the basis
+  // (ode_check_request), T/500; their distance is its own error (ode_part, NaN if not tried). Its operations
+  // are charged at 2.5 times a transform's (measured 2.2 to 4.2). Its two runs together may use what is left
+  // of 1.5 times chosen_cost (a third for the first, at most half the split-operator run's time so estimated;
+  // the rest, at most 6 times the first's, for the check); with less than a twentieth of the split-operator
+  // run's left it is not tried (said in the trail). It is chosen when it finished within its budget (so it
+  // takes at most about half the split-operator run's time), its estimate ode_part + grid_part is within T
+  // and it agrees with the split-operator run to T.
+  // ode_first: the ODE was tried before the search, where it applies (tau > 0, walls standing, a cost bound
+  // of at least 4) and won: at T/50 on the automatic grid, its estimated arithmetic per direction limited to
+  // a quarter of the coarse split-operator run's (read from run_work's estimate before that run propagates),
+  // charged at 2.5 times; checked by one run on 3/2 the points at T/500 with twice the restart points and 2/3
+  // the basis, whose distance (ode_part) bounds the grid's, the ODE's and the basis's parts together
+  // (grid_part and time_step_part are then NaN), and chosen when that is within T. A slow move then costs its
+  // two ODE runs instead of the search (the built-in move at 25 us, T = 1e-8, measured). A try stopped by its
+  // budget costs the search most of a coarse run, and the ODE is then not tried again after the search (nor
+  // where it missed T on the same grid).
   bool ode_first = false;
   std::string method;                        // of the returned run (WorkResult::method)
   double ode_part = std::numeric_limits<double>::quiet_NaN();

@@ -329,12 +329,12 @@ ScenarioWork fixed_work(Scenario s, WorkRequest q, std::size_t points, int steps
   return compute_work(s, q);
 }
 
-// Case (e) or (g) (`label`, for messages) at one tolerance: the whole
-// compute_work_to_tolerance call, its final choice alone, a reference (4x the chosen steps,
-// 9/4 the points, order 4) giving true errors, and the hand-tuned scan: for points 2/3, 1 and 3/2 of the chosen, order-4 split-operator runs at
-// chosen/8 .. chosen*2 steps and, where the ODE applies, eigenbasis runs at ODE tolerances
-// T/10 and T/100; each series in rising cost stops at its first run within T (the rest are
-// slower at the same points). The best hand-tuned choice is the fastest run within T.
+// Case (e) or (g) (`label`, for messages) at one tolerance: the whole compute_work_to_tolerance call, its
+// final choice alone, a reference (4x the chosen steps, 9/4 the points, order 4) giving true errors, and the
+// hand-tuned scan: for points 2/3, 1 and 3/2 of the chosen, order-4 split-operator runs at chosen/8 ..
+// chosen*2 steps and, where the ODE applies, eigenbasis runs at ODE tolerances T/10 and T/100; each series in
+// rising cost stops at its first run within T (the rest are slower at the same points). The best hand-tuned
+// choice is the fastest run within T.
 // `duration`: the built-in scenario's move duration, replaced when not empty (the slow move,
 // where the eigenbasis ODE wins).
 // `file`: a scenario file instead of the built-in one (case (g): the reference job of (f)).
