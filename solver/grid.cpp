@@ -31,6 +31,7 @@ Grid::Grid(Boundary b, double left, double right, std::size_t n)
       kinetic_[m] = 0.5 * k * k;
     }
   }
+  max_kinetic_ = *std::max_element(kinetic_.begin(), kinetic_.end());
 }
 
 Grid Grid::periodic(double x_min, double x_max, std::size_t n) { return Grid(Boundary::periodic, x_min, x_max, n); }
@@ -45,8 +46,6 @@ std::vector<double> Grid::points() const {
   for (std::size_t j = 0; j < n_; ++j) p[j] = x(j);
   return p;
 }
-
-double Grid::max_kinetic() const { return *std::max_element(kinetic_.begin(), kinetic_.end()); }
 
 std::vector<double> band_limited_values(const Grid& g, const std::vector<double>& samples, const std::vector<double>& x) {
   const std::size_t n = g.size();

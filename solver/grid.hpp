@@ -31,7 +31,7 @@ class Grid {
   std::vector<double> points() const;
   // Kinetic energy of each mode, in the order the transform produces them.
   const std::vector<double>& kinetic_modes() const { return kinetic_; }
-  double max_kinetic() const;  // (pi/dx)^2/2 periodic; (n pi/L)^2/2 box
+  double max_kinetic() const { return max_kinetic_; }  // (pi/dx)^2/2 periodic; (n pi/L)^2/2 box
 
  private:
   Grid(Boundary b, double left, double right, std::size_t n);
@@ -39,6 +39,7 @@ class Grid {
   double left_, right_, dx_;
   std::size_t n_;
   std::vector<double> kinetic_;
+  double max_kinetic_ = 0;  // kept: the propagators ask for it every step
 };
 
 // The band-limited function that real samples on `g` represent (the one its kinetic energy
