@@ -60,6 +60,11 @@ CostEstimate plan_cost(double largest_runs, double draws, std::size_t lines);
 //   "<context>: <what> needs about 40 GB of memory, more than the 21 GB available: <change>".
 void check_memory(const CostEstimate& estimate, double limit_bytes, const std::string& context);
 
+// The automatic step count of a split-operator run: ceil(duration x rate / phase per step), at
+// least 16. Throws PhysicsError when it is not finite or above 1e9 (days of arithmetic even on
+// the smallest grids, and beyond an int), saying what to change.
+int automatic_steps(double duration_times_rate, double phase_per_step);
+
 // "512 MB", "40 GB": bytes in decimal units with 2 significant digits.
 std::string bytes_text(double bytes);
 

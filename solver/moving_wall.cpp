@@ -641,7 +641,7 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
                           : request.order == SplitOrder::fourth ? 0.2
                                                                 : 0.02;
   const int steps = request.steps > 0 ? request.steps
-                                      : std::max(16, int(std::ceil(tau * splitting_rate(protocol, request.points, e_max) / per_step)));
+                                      : automatic_steps(tau * splitting_rate(protocol, request.points, e_max), per_step);
   result.grid = sa.grid;  // the lab box at t = 0 (the propagation runs on its dilation onto [0, 1])
   result.steps = steps;
   result.method = std::string("dilated box, DST-I split-operator ") +

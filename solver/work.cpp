@@ -790,6 +790,19 @@ std::optional<HarmonicModel> harmonic_model(const Potential& base, const Protoco
   const Term* carrier = nullptr;
   for (const auto& t : base.terms())
     if (t.harmonic_part()) carrier = carrier ? nullptr : &t;  // exactly one term with a harmonic part
+  // The reference ODEs follow every period of the motion (about 1 s per 1e5 periods here): a
+  // longer protocol gets no reference rather than minutes of it.
+  constexpr double most_periods = 1e6;
+  double fastest = h.w0;
+  if (protocol.schedules().size() == 1 && carrier &&
+      protocol.schedules().front().address() == carrier->name() + ".frequency")
+    for (int i = 0; i <= 64; ++i)
+      fastest = std::max(fastest, std::abs(protocol.schedules().front().evaluate(tau * i / 64, tau).value));
+  if (!(tau * fastest / (2 * M_PI) <= most_periods)) {
+    why_not = "the protocol lasts " + fmt(tau * fastest / (2 * M_PI)) + " periods of the harmonic part, more than the " +
+              fmt(most_periods) + " its reference ODE is run for";
+    return std::nullopt;
+  }
   if (protocol.translation(base)) {
     const Schedule& centre = protocol.schedules().front();
     const auto alpha = translation_alpha(h.w0, [&](double t) { return centre.evaluate(t, tau).value; }, tau);
@@ -990,7 +1003,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
                                                                            : 0.2;
   const int steps = request.steps > 0                           ? request.steps
                     : request.integrator == Integrator::eigenbasis ? 64
-                                                                   : std::max(16, int(std::ceil(tau * range / phase_per_step)));
+                                                                   : automatic_steps(tau * range, phase_per_step);
   result.steps = tau > 0 ? steps : 0;
   result.method = tau == 0 ? "sudden (U = 1)"
                   : request.integrator == Integrator::strang       ? "split-operator Strang"

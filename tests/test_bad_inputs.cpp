@@ -357,6 +357,9 @@ levels = 12
        Run::spectrum, true, {"method = \"hermite\"", "harmonic and polynomial"}},
       {"a time step too long for the energy range", moving + "[work]\nsteps = 16\n", Run::work, false,
        {"at half the time step: raise steps (now 16)"}, "line probabilities change by "},
+      {"a protocol far too long to step through (1e30 s: past an int of steps)",
+       with(moving, "\"1.5 us\"", "\"1e30 s\""), Run::work, true,
+       {"split-operator steps", "more than the 1e+09 a run may take", "shorten [protocol] duration"}},
       {"an initial level the grid does not hold",
        with(moving, "mean_phonons = 0.3", "level = 30") + "[grid]\npoints = 32\nleft = \"-0.1 um\"\nright = \"0.1 um\"\n",
        Run::work, true, {"levels on a grid of 32 points", "use more points"}},
@@ -478,4 +481,19 @@ TEST_CASE("bad command lines exit with their status, say why on stderr and write
     for (const auto& w : c.words) REQUIRE_THAT(err, Catch::Contains(w));
     REQUIRE_FALSE(fs::exists(dir / "out"));  // no output folder, no half-written file
   }
+}
+
+TEST_CASE("a protocol of 1e30 s with its steps set: the harmonic reference says why it is absent", "[bad-inputs]") {
+  // Its reference ODE followed every trap period (1e36 of them) and never returned.
+  const Scenario s = read_scenario_text(with(moving, "\"1.5 us\"", "\"1e30 s\"") + "[work]\nsteps = 16\n", "long.toml");
+  WorkRequest request = work_request(s);
+  request.threads = 1;
+  const WorkResult r = run_work(s.potential, build_protocol(s), request);
+  INFO(r.harmonic_absent);
+  CHECK_FALSE(r.harmonic);
+  CHECK_THAT(r.harmonic_absent, Catch::Contains("periods of the harmonic part, more than the 1e+06"));
+  std::string std_warnings;
+  for (const auto& w : r.diagnostics.warnings) std_warnings += w + "\n";
+  INFO(std_warnings);
+  CHECK_THAT(std_warnings, Catch::Contains("at half the time step: raise steps (now 16)"));
 }

@@ -99,6 +99,22 @@ TEST_CASE("check_memory refuses an estimate above the limit with the estimate an
   CHECK(bytes_text(40e9) == "40 GB");
 }
 
+TEST_CASE("automatic step counts: at least 16, refused past 1e9 or when not finite", "[cost]") {
+  CHECK(automatic_steps(100, 0.2) == 500);
+  CHECK(automatic_steps(100.01, 0.2) == 501);  // rounded up: the phase per step is a bound
+  CHECK(automatic_steps(1, 0.2) == 16);
+  CHECK(automatic_steps(2e8, 0.2) == 1000000000);
+  // a duration of 1e30 s gave int(ceil(...)) past an int (undefined; 16 steps here)
+  const std::string message = physics_error_of([] { (void)automatic_steps(1e40, 0.2); });
+  INFO(message);
+  CHECK(contains(message, "5e+40 split-operator steps"));
+  CHECK(contains(message, "more than the 1e+09"));
+  CHECK(contains(message, "[protocol] duration"));
+  CHECK(contains(message, "[work] steps"));
+  CHECK_THROWS_AS(automatic_steps(INFINITY, 0.2), PhysicsError);
+  CHECK_THROWS_AS(automatic_steps(NAN, 0.2), PhysicsError);
+}
+
 TEST_CASE("issue 14: a spectrum that cannot fit in the memory limit is refused before it is computed", "[cost]") {
   // 2^22 points, 100 levels: the Lanczos basis alone is about 10 GB. Without the check the solver
   // would start (and allocate, or run for hours); with a 1 GB limit it must refuse at once.
