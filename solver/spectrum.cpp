@@ -436,8 +436,9 @@ Spectrum solve_spectrum(const Grid& grid, const std::vector<double>& v, const Sp
     method = solves_dense(options, grid.size()) ? EigenMethod::dense : EigenMethod::lanczos;
   if (method == EigenMethod::hermite)
     throw ContractViolation("solve_spectrum: the Hermite basis is handled by compute_spectrum");
-  check_memory(spectrum_cost(grid.size(), k, method == EigenMethod::dense, options.fd_order), options.memory_limit,
-               "refused before computing");
+  const CostEstimate cost = spectrum_cost(grid.size(), k, method == EigenMethod::dense, options.fd_order);
+  check_memory(cost, options.memory_limit, "refused before computing");
+  if (options.on_estimate) options.on_estimate(cost);
 
   Spectrum s;
   s.grid = grid;

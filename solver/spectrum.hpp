@@ -31,6 +31,7 @@ namespace trapwork {
 enum class EigenMethod { automatic, dense, lanczos, finite_difference, hermite };
 
 class SpectrumMemo;
+struct CostEstimate;
 
 struct SpectrumOptions {
   int levels = 10;                  // K, the number of lowest eigenpairs wanted
@@ -60,6 +61,10 @@ struct SpectrumOptions {
   // it; the exception passes through unchanged. Not called by the dense solvers (at most
   // dense_limit points or a Hermite basis: seconds at most). Does not change any result.
   std::function<void()> interrupt;
+  // Optional: told the estimate (solver/cost.hpp) of each solve before it starts, after its
+  // memory check, so that a front end can say that a long one is coming. Not called for a
+  // spectrum served from the memo. Does not change any result.
+  std::function<void(const CostEstimate&)> on_estimate;
 };
 
 // Eigenpairs on one grid. Energies ascend; states are columns normalised on the grid.

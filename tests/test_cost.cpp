@@ -14,6 +14,7 @@
 #include "solver/errors.hpp"
 #include "solver/spectrum.hpp"
 #include "solver/tool/commands.hpp"
+#include "solver/scenario/machine.hpp"
 #include "solver/scenario/work_output.hpp"
 #include "solver/scenario/scenario.hpp"
 #include "solver/work.hpp"
@@ -99,6 +100,22 @@ TEST_CASE("check_memory refuses an estimate above the limit with the estimate an
   CHECK(bytes_text(40e9) == "40 GB");
 }
 
+TEST_CASE("long_run_notice says an estimate above long_run_seconds, and only that", "[cost]") {
+  std::vector<std::string> said;
+  const auto notice = long_run_notice([&](const std::string& text) { said.push_back(text); }, 2);
+  CostEstimate e;
+  e.bytes = 2e6;
+  e.what = "a spectrum of 1000 levels on 2048 points (Lanczos)";
+  e.operations = 5e9 * 2 * long_run_seconds * 0.9;  // 27 s on 2 threads at the assumed rate
+  notice(e);
+  CHECK(said.empty());
+  e.operations = 5e9 * 2 * 125;  // 125 s on 2 threads
+  notice(e);
+  REQUIRE(said.size() == 1);
+  CHECK(said[0] == "estimated 2.0 MB of memory, about 2m05s (a spectrum of 1000 levels on 2048 points (Lanczos))");
+  CHECK_FALSE(long_run_notice(nullptr));
+}
+
 TEST_CASE("automatic step counts: at least 16, refused past 1e9 or when not finite", "[cost]") {
   CHECK(automatic_steps(100, 0.2) == 500);
   CHECK(automatic_steps(100.01, 0.2) == 501);  // rounded up: the phase per step is a bound
@@ -152,7 +169,11 @@ TEST_CASE("issue 14: a run's cost estimate is made before its propagation and ke
   std::vector<CostEstimate> seen;
   request.on_estimate = [&](const CostEstimate& e) { seen.push_back(e); };
   const WorkResult r = run_work(s.potential, build_protocol(s), request);
-  REQUIRE(!seen.empty());
+  REQUIRE(seen.size() >= 3);
+  // the two spectra told theirs before they were solved, the run its own after them
+  CHECK_THAT(seen[0].what, Catch::StartsWith("a spectrum of "));
+  CHECK_THAT(seen[1].what, Catch::StartsWith("a spectrum of "));
+  CHECK_THAT(seen.back().what, Catch::Contains("propagated states"));
   CHECK(seen.back().bytes == r.diagnostics.estimated_bytes);
   CHECK(seen.back().operations == r.diagnostics.estimated_operations);
   // at least the forward propagation's transforms: steps x 3 substeps x states x 2 x 5 n log2 n

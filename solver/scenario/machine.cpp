@@ -71,16 +71,12 @@ std::string cost_text(const CostEstimate& estimate, int threads) {
          ProgressBar::duration_text(estimated_seconds(estimate.operations, threads));
 }
 
-void watch_work(WorkRequest& request, ProgressBar& bar, std::ostream* notes) {
-  if (!(request.spectrum.options.memory_limit > 0)) request.spectrum.options.memory_limit = available_memory_bytes();
-  request.progress = [&bar](double fraction) { bar.update(std::size_t(fraction * 1000)); };
-  request.stage = [&bar](const std::string& stage) { bar.restart(stage); };
-  const int threads = request.threads;
-  if (notes)
-    request.on_estimate = [notes, threads](const CostEstimate& e) {
-      if (estimated_seconds(e.operations, threads) > long_run_seconds)
-        *notes << "trapwork: " << cost_text(e, threads) << " (" << e.what << ")\n" << std::flush;
-    };
+std::function<void(const CostEstimate&)> long_run_notice(std::function<void(const std::string&)> notice,
+                                                        int threads) {
+  if (!notice) return nullptr;
+  return [notice = std::move(notice), threads](const CostEstimate& e) {
+    if (estimated_seconds(e.operations, threads) > long_run_seconds) notice(cost_text(e, threads) + " (" + e.what + ")");
+  };
 }
 
 }  // namespace trapwork

@@ -2,6 +2,7 @@
 // What the machine offers a run, read by the tool and passed to the library as limits
 // (the library reads nothing of its surroundings): memory available, and a rough time for an
 // operation count.
+#include <functional>
 #include <ostream>
 #include <string>
 
@@ -30,10 +31,10 @@ std::string cost_text(const CostEstimate& estimate, int threads = 1);
 // their report.
 constexpr double long_run_seconds = 30;
 
-// Connects a work request to a progress bar: fractions to update(), a new stage (the work
-// repeated with more levels) to restart(), and, when `notes` is not null, the estimate of a run
-// longer than long_run_seconds to `notes` before its propagation starts. Sets the memory limit
-// to available_memory_bytes() unless one is set.
-void watch_work(WorkRequest& request, ProgressBar& bar, std::ostream* notes);
+// A cost-estimate callback (WorkRequest::on_estimate, SpectrumOptions::on_estimate) that passes
+// the estimate of a computation longer than long_run_seconds on `threads` to `notice` as
+// "estimated 20 MB of memory, about 2m05s (what)"; null when `notice` is.
+std::function<void(const CostEstimate&)> long_run_notice(std::function<void(const std::string&)> notice,
+                                                        int threads = 1);
 
 }  // namespace trapwork

@@ -68,11 +68,7 @@ void watch_work(WorkRequest& request, const TaskHooks& hooks) {
   if (!(request.spectrum.options.memory_limit > 0)) request.spectrum.options.memory_limit = available_memory_bytes();
   request.progress = hooks.progress;
   request.stage = hooks.stage;
-  const int threads = request.threads;
-  if (hooks.notice)
-    request.on_estimate = [notice = hooks.notice, threads](const CostEstimate& e) {
-      if (estimated_seconds(e.operations, threads) > long_run_seconds) notice(cost_text(e, threads) + " (" + e.what + ")");
-    };
+  request.on_estimate = long_run_notice(hooks.notice, request.threads);
 }
 
 namespace {
@@ -95,6 +91,7 @@ void drop_hooks(WorkRequest& request) {
   request.progress = nullptr;
   request.stage = nullptr;
   request.on_estimate = nullptr;
+  request.spectrum.options.on_estimate = nullptr;
 }
 
 // [noise] is applied by `work` alone so far: another command would give the noiseless answer
@@ -131,6 +128,7 @@ SpectrumOutcome spectrum_task(Scenario scenario, std::optional<int> levels, cons
   if (levels) scenario.spectrum.options.levels = *levels;
   scenario.spectrum.options.memory_limit = available_memory_bytes();  // refused before it allocates
   scenario.spectrum.options.interrupt = hooks.interrupt;
+  scenario.spectrum.options.on_estimate = long_run_notice(hooks.notice);
   if (hooks.stage) hooks.stage("spectrum");
   SpectrumOutcome outcome{std::move(scenario), {}};
   try {
@@ -139,6 +137,7 @@ SpectrumOutcome spectrum_task(Scenario scenario, std::optional<int> levels, cons
     throw PhysicsError(outcome.scenario.file + ": " + e.what());  // say which scenario cannot be used
   }
   outcome.scenario.spectrum.options.interrupt = nullptr;  // the hooks end with the task
+  outcome.scenario.spectrum.options.on_estimate = nullptr;
   if (hooks.progress) hooks.progress(1.0);
   return outcome;
 }

@@ -106,7 +106,9 @@ void run_spectrum(const SpectrumCommand& command, std::ostream& out) {
   if (!command.output.empty()) scenario.output_folder = command.output;
   OutputRun output(scenario.output_folder, spectrum_output_names(), scenario_inputs(scenario),
                    "trapwork spectrum " + scenario.file);
-  const SpectrumOutcome outcome = spectrum_task(std::move(scenario), command.levels);
+  TaskHooks hooks;  // a long solve says so before it starts
+  if (!command.quiet) hooks.notice = notice_to(std::cerr);
+  const SpectrumOutcome outcome = spectrum_task(std::move(scenario), command.levels, hooks);
   commit_and_report(output, outcome, out, command.quiet);
 }
 
