@@ -931,11 +931,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
     SpectrumRequest sr = request.spectrum;
     sr.options.levels = levels;
     sr.options.memo_levels = solve_levels;
-    if (request.on_estimate)  // a long solve is said before it starts; each runs on one thread
-      sr.options.on_estimate = [&](CostEstimate e) {
-        e.operations *= std::max(1, request.threads);
-        request.on_estimate(e);
-      };
+    sr.options.on_estimate = request.on_spectrum_estimate;  // a long solve is said before it starts
     SpectrumRequest sr_b = sr;  // a fixed extent is the frame's: V_B sits displaced in the lab
     if (co_moving && sr_b.extent) sr_b.extent = std::make_pair(sr_b.extent->first + displacement, sr_b.extent->second + displacement);
     // H_A and H_B (each on its grid and its finer check grid) at once on the threads given

@@ -305,6 +305,10 @@ struct WorkRequest {
   // is request.spectrum.options.memory_limit: a run estimated above it throws PhysicsError
   // before its spectra on the common grid are computed.
   std::function<void(const CostEstimate&)> on_estimate;
+  // Optional: given to the spectra the run solves (SpectrumOptions::on_estimate): each solve's
+  // estimate before it starts, on one thread (the two spectra run side by side). Kept apart
+  // from on_estimate, which callers use to size the run itself.
+  std::function<void(const CostEstimate&)> on_spectrum_estimate;
 };
 
 // Harmonic reference prediction for the trap's harmonic part (omega_h = the summed harmonic

@@ -69,6 +69,7 @@ void watch_work(WorkRequest& request, const TaskHooks& hooks) {
   request.progress = hooks.progress;
   request.stage = hooks.stage;
   request.on_estimate = long_run_notice(hooks.notice, request.threads);
+  request.on_spectrum_estimate = long_run_notice(hooks.notice);  // one thread per spectrum
 }
 
 namespace {
@@ -91,7 +92,7 @@ void drop_hooks(WorkRequest& request) {
   request.progress = nullptr;
   request.stage = nullptr;
   request.on_estimate = nullptr;
-  request.spectrum.options.on_estimate = nullptr;
+  request.on_spectrum_estimate = nullptr;
 }
 
 // [noise] is applied by `work` alone so far: another command would give the noiseless answer
