@@ -69,11 +69,12 @@ int automatic_steps(double duration_times_rate, double phase_per_step) {
   const double wanted = std::ceil(duration_times_rate / phase_per_step);
   if (!(wanted <= most)) {
     char text[320];
-    std::snprintf(text, sizeof text,
-                  "the protocol needs about %.3g split-operator steps (its duration times the energy range in use, "
-                  "at %g rad of phase per step), more than the %.0e a run may take: shorten [protocol] duration, or "
-                  "set [work] steps (the half-step check then measures their error)",
-                  wanted, phase_per_step, most);
+    std::snprintf(
+        text, sizeof text,
+        "the protocol needs about %.3g split-operator steps (its duration times the energy range in "
+        "use, at %g rad of phase per step), more than the %.0e a run may take: shorten [protocol] "
+        "duration, or set [work] steps (the half-step check then measures their error)",
+        wanted, phase_per_step, most);
     throw PhysicsError(text);
   }
   return std::max(16, int(wanted));

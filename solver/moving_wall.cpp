@@ -640,8 +640,9 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
   const double per_step = request.phase_per_step > 0             ? request.phase_per_step
                           : request.order == SplitOrder::fourth ? 0.2
                                                                 : 0.02;
-  const int steps = request.steps > 0 ? request.steps
-                                      : automatic_steps(tau * splitting_rate(protocol, request.points, e_max), per_step);
+  const int steps = request.steps > 0
+                        ? request.steps
+                        : automatic_steps(tau * splitting_rate(protocol, request.points, e_max), per_step);
   result.grid = sa.grid;  // the lab box at t = 0 (the propagation runs on its dilation onto [0, 1])
   result.steps = steps;
   result.method = std::string("dilated box, DST-I split-operator ") +

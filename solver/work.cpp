@@ -799,8 +799,9 @@ std::optional<HarmonicModel> harmonic_model(const Potential& base, const Protoco
     for (int i = 0; i <= 64; ++i)
       fastest = std::max(fastest, std::abs(protocol.schedules().front().evaluate(tau * i / 64, tau).value));
   if (!(tau * fastest / (2 * M_PI) <= most_periods)) {
-    why_not = "the protocol lasts " + fmt(tau * fastest / (2 * M_PI)) + " periods of the harmonic part, more than the " +
-              fmt(most_periods) + " its reference ODE is run for";
+    why_not = "the protocol lasts " + fmt(tau * fastest / (2 * M_PI)) +
+              " periods of the harmonic part, more than the " + fmt(most_periods) +
+              " its reference ODE is run for";
     return std::nullopt;
   }
   if (protocol.translation(base)) {
@@ -1002,9 +1003,10 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   const double phase_per_step = request.phase_per_step > 0                  ? request.phase_per_step
                                 : request.integrator == Integrator::strang ? 0.02
                                                                            : 0.2;
-  const int steps = request.steps > 0                           ? request.steps
-                    : request.integrator == Integrator::eigenbasis ? 64
-                                                                   : automatic_steps(tau * range, phase_per_step);
+  const int steps = request.steps > 0 ? request.steps
+                    : request.integrator == Integrator::eigenbasis
+                        ? 64
+                        : automatic_steps(tau * range, phase_per_step);
   result.steps = tau > 0 ? steps : 0;
   result.method = tau == 0 ? "sudden (U = 1)"
                   : request.integrator == Integrator::strang       ? "split-operator Strang"

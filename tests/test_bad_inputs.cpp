@@ -483,9 +483,11 @@ TEST_CASE("bad command lines exit with their status, say why on stderr and write
   }
 }
 
-TEST_CASE("a protocol of 1e30 s with its steps set: the harmonic reference says why it is absent", "[bad-inputs]") {
+TEST_CASE("a protocol of 1e30 s with its steps set: the harmonic reference says why it is absent",
+          "[bad-inputs]") {
   // Its reference ODE followed every trap period (1e36 of them) and never returned.
-  const Scenario s = read_scenario_text(with(moving, "\"1.5 us\"", "\"1e30 s\"") + "[work]\nsteps = 16\n", "long.toml");
+  const std::string text = with(moving, "\"1.5 us\"", "\"1e30 s\"") + "[work]\nsteps = 16\n";
+  const Scenario s = read_scenario_text(text, "long.toml");
   WorkRequest request = work_request(s);
   request.threads = 1;
   const WorkResult r = run_work(s.potential, build_protocol(s), request);

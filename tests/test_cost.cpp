@@ -3,7 +3,6 @@
 // the key to change, the estimate is reported, and the progress of a run repeated with more
 // levels starts a new stage instead of sitting at 100 %.
 #include <catch2/catch.hpp>
-
 #include <cmath>
 #include <sstream>
 #include <string>
@@ -12,11 +11,11 @@
 #include "scratch_files.hpp"
 #include "solver/cost.hpp"
 #include "solver/errors.hpp"
+#include "solver/scenario/machine.hpp"
+#include "solver/scenario/scenario.hpp"
+#include "solver/scenario/work_output.hpp"
 #include "solver/spectrum.hpp"
 #include "solver/tool/commands.hpp"
-#include "solver/scenario/machine.hpp"
-#include "solver/scenario/work_output.hpp"
-#include "solver/scenario/scenario.hpp"
 #include "solver/work.hpp"
 
 using namespace trapwork;
@@ -112,7 +111,8 @@ TEST_CASE("long_run_notice says an estimate above long_run_seconds, and only tha
   e.operations = 5e9 * 2 * 125;  // 125 s on 2 threads
   notice(e);
   REQUIRE(said.size() == 1);
-  CHECK(said[0] == "estimated 2.0 MB of memory, about 2m05s (a spectrum of 1000 levels on 2048 points (Lanczos))");
+  CHECK(said[0] ==
+        "estimated 2.0 MB of memory, about 2m05s (a spectrum of 1000 levels on 2048 points (Lanczos))");
   CHECK_FALSE(long_run_notice(nullptr));
 }
 

@@ -28,7 +28,7 @@ TEST_CASE("box grids hold interior points and sine modes", "[grid]") {
   CHECK(b.kinetic_modes()[0] == Approx(M_PI * M_PI / 2));  // E_1 of the unit box
   CHECK(b.kinetic_modes()[2] == Approx(9 * M_PI * M_PI / 2));
   CHECK(b.max_kinetic() == Approx(81 * M_PI * M_PI / 2));  // the top mode m = 9: (n pi/L)^2/2
-  const Grid copy = b;  // the kept maximum travels with the grid
+  const Grid copy = b;                                     // the kept maximum travels with the grid
   CHECK(copy.max_kinetic() == b.kinetic_modes()[8]);
 }
 

@@ -72,10 +72,11 @@ std::string cost_text(const CostEstimate& estimate, int threads) {
 }
 
 std::function<void(const CostEstimate&)> long_run_notice(std::function<void(const std::string&)> notice,
-                                                        int threads) {
+                                                         int threads) {
   if (!notice) return nullptr;
   return [notice = std::move(notice), threads](const CostEstimate& e) {
-    if (estimated_seconds(e.operations, threads) > long_run_seconds) notice(cost_text(e, threads) + " (" + e.what + ")");
+    if (estimated_seconds(e.operations, threads) > long_run_seconds)
+      notice(cost_text(e, threads) + " (" + e.what + ")");
   };
 }
 

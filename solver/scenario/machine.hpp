@@ -35,6 +35,6 @@ constexpr double long_run_seconds = 30;
 // the estimate of a computation longer than long_run_seconds on `threads` to `notice` as
 // "estimated 20 MB of memory, about 2m05s (what)"; null when `notice` is.
 std::function<void(const CostEstimate&)> long_run_notice(std::function<void(const std::string&)> notice,
-                                                        int threads = 1);
+                                                         int threads = 1);
 
 }  // namespace trapwork

@@ -808,8 +808,8 @@ int main(int argc, char** argv) {
       };
       for (int round = 0; round < rounds && !failed; ++round) {
         const Measurement job = in_child([&] {
-          return run_process({tool, "work", TRAPWORK_BENCH_DIR "/quartic_translation.toml", "--quiet", "-o", out,
-                              "--set", "work.threads=" + std::to_string(threads)});
+          return run_process({tool, "work", TRAPWORK_BENCH_DIR "/quartic_translation.toml", "--quiet", "-o",
+                              out, "--set", "work.threads=" + std::to_string(threads)});
         });
         const double kept = json_number(out + "/summary.json", "initial_kept");
         const double points = json_number(out + "/summary.json", "points");
@@ -823,8 +823,9 @@ int main(int argc, char** argv) {
         const Measurement f =
             in_child([&] { return fft_floor(std::size_t(points), int(kept), long(steps), false, threads); });
         keep_least(floor, f);
-        keep_least(least,
-                   in_child([&] { return fft_floor(std::size_t(points), int(kept), long(steps), false, threads, true); }));
+        keep_least(least, in_child([&] {
+                     return fft_floor(std::size_t(points), int(kept), long(steps), false, threads, true);
+                   }));
         if (threads == 1) {
           // the floor as plain FFTW gives it without blocks: one in-place plan over all columns
           const Measurement b =
@@ -845,20 +846,23 @@ int main(int argc, char** argv) {
       }
       r.floor_s = floor.wall_s;
       const auto [lo, hi] = std::minmax_element(round_ratios.begin(), round_ratios.end());
-      r.note += text("; least of %.0f interleaved rounds each: job, floor", rounds) +
-                text(" (%.2f s)", floor.wall_s) +
-                text("; CPU time this/floor = %.2f", r.m.cpu_s / floor.cpu_s) +
-                text("; the same transforms with the two phase multiplications of every substep: %.2f s", least.wall_s) +
-                text(" = %.2f x floor, this / that = %.2f", least.wall_s / floor.wall_s, r.m.wall_s / least.wall_s);
+      r.note +=
+          text("; least of %.0f interleaved rounds each: job, floor", rounds) +
+          text(" (%.2f s)", floor.wall_s) + text("; CPU time this/floor = %.2f", r.m.cpu_s / floor.cpu_s) +
+          text("; the same transforms with the two phase multiplications of every substep: %.2f s",
+               least.wall_s) +
+          text(" = %.2f x floor, this / that = %.2f", least.wall_s / floor.wall_s, r.m.wall_s / least.wall_s);
       if (threads == 1) {
-        r.note += text("; one in-place plan over all columns (plain FFTW, no blocks): %.2f s, this / that = %.2f",
-                       batch.wall_s, r.m.wall_s / batch.wall_s) +
-                  text(" (round by round %.2f to %.2f)", *lo, *hi);
+        r.note +=
+            text("; one in-place plan over all columns (plain FFTW, no blocks): %.2f s, this / that = %.2f",
+                 batch.wall_s, r.m.wall_s / batch.wall_s) +
+            text(" (round by round %.2f to %.2f)", *lo, *hi);
         job_1 = r.m.wall_s, floor_1 = floor.wall_s;
       } else {
         r.note += text(" (round by round job / floor %.2f to %.2f)", *lo, *hi) +
                   text("; 1 thread / 2 threads = %.2f", job_1 / r.m.wall_s) +
-                  text(" (the FFT floor's own: %.2f, what this machine's second core gives)", floor_1 / floor.wall_s);
+                  text(" (the FFT floor's own: %.2f, what this machine's second core gives)",
+                       floor_1 / floor.wall_s);
       }
       if (tools.size() > 1) r.note += "; tool " + tool;
       print_row(r);
