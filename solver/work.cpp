@@ -790,18 +790,19 @@ std::optional<HarmonicModel> harmonic_model(const Potential& base, const Protoco
   const Term* carrier = nullptr;
   for (const auto& t : base.terms())
     if (t.harmonic_part()) carrier = carrier ? nullptr : &t;  // exactly one term with a harmonic part
+  const bool frequency_change = carrier && protocol.schedules().size() == 1 &&
+                                protocol.schedules().front().address() == carrier->name() + ".frequency";
   // The reference ODEs follow every period of the motion (about 1 s per 1e5 periods here): a
   // longer protocol gets no reference rather than minutes of it.
   constexpr double most_periods = 1e6;
   double fastest = h.w0;
-  if (protocol.schedules().size() == 1 && carrier &&
-      protocol.schedules().front().address() == carrier->name() + ".frequency")
+  if (frequency_change)
     for (int i = 0; i <= 64; ++i)
       fastest = std::max(fastest, std::abs(protocol.schedules().front().evaluate(tau * i / 64, tau).value));
-  if (!(tau * fastest / (2 * M_PI) <= most_periods)) {
-    why_not = "the protocol lasts " + fmt(tau * fastest / (2 * M_PI)) +
-              " periods of the harmonic part, more than the " + fmt(most_periods) +
-              " its reference ODE is run for";
+  const double periods = tau * fastest / (2 * std::numbers::pi);
+  if (!(periods <= most_periods)) {
+    why_not = "the protocol lasts " + fmt(periods) + " periods of the harmonic part, more than the " +
+              fmt(most_periods) + " its reference ODE is run for";
     return std::nullopt;
   }
   if (protocol.translation(base)) {
@@ -810,8 +811,7 @@ std::optional<HarmonicModel> harmonic_model(const Potential& base, const Protoco
     h.model = "displaced oscillator (Cahill & Glauber 1969)";
     h.displaced = true;
     h.parameter = std::norm(alpha);
-  } else if (carrier && protocol.schedules().size() == 1 &&
-             protocol.schedules().front().address() == carrier->name() + ".frequency") {
+  } else if (frequency_change) {
     if (carrier->shape() == Shape::polynomial && carrier->parameter("linear") != 0) {
       why_not = "the trap has a linear (force) term: changing the frequency moves its minimum, which the "
                 "parametric-oscillator model leaves out";

@@ -126,7 +126,8 @@ TaskHooks TaskBar::hooks(std::function<void(const std::string&)> notice) {
 }
 
 std::function<void(const std::string&)> notice_to(std::ostream& out) {
-  return [&out](const std::string& text) { out << "trapwork: " << text << "\n" << std::flush; };
+  // one insertion: notices may come from two threads at once (the spectra solved side by side)
+  return [&out](const std::string& text) { out << ("trapwork: " + text + "\n") << std::flush; };
 }
 
 }  // namespace trapwork
