@@ -676,6 +676,23 @@ EigenbasisPropagator::EigenbasisPropagator(PotentialPath path, Spectrum referenc
   shape_limit_ = tolerances_.absolute / (100 * std::max(path_.protocol().duration(), 1.0));
 }
 
+// Every 4096 evaluations: the evaluations so far over the time covered, projected to the
+// whole duration. A 1e30 s protocol otherwise ran on for ever (adaptive steps of the order of
+// the inverse energy range); at 6e9 evaluations (1e9 Dormand-Prince steps) a run takes days.
+void EigenbasisPropagator::check_pace(double t) {
+  constexpr double most = 6e9;
+  if (pace_calls_++ == 0) pace_start_ = t;
+  if (pace_calls_ % 4096 != 0) return;
+  const double tau = path_.protocol().duration(), covered = std::abs(t - pace_start_);
+  const double projected = covered > 0 ? double(pace_calls_) * (tau / covered) : HUGE_VAL;
+  if (projected > most)
+    throw PhysicsError("eigenbasis ODE: at its pace so far (" + std::to_string(pace_calls_) +
+                       " evaluations of the coupling over " + format_number(covered / tau) +
+                       " of the protocol's duration) the run would need about " + format_number(projected) +
+                       " evaluations, more than the " + format_number(most) +
+                       " a run may take: shorten [protocol] duration");
+}
+
 EigenbasisPropagator::State EigenbasisPropagator::coefficients(const Eigen::MatrixXcd& grid_states) const {
   return basis_.transpose().cast<std::complex<double>>() * grid_states * std::sqrt(path_.grid().spacing());
 }
@@ -689,6 +706,7 @@ Eigen::MatrixXcd EigenbasisPropagator::grid_states(const State& c) const {
 // directly.
 void EigenbasisPropagator::matrix_at(double t, Eigen::MatrixXd& m) {
   const Eigen::Index n = basis_.rows(), k = basis_.cols();
+  check_pace(t);
   path_.sample(t, v_);
   dv_.resize(n);
   for (Eigen::Index j = 0; j < n; ++j) dv_[j] = v_[std::size_t(j)] - v_reference_[std::size_t(j)];

@@ -524,7 +524,8 @@ class EigenbasisPropagator {
   // reference.grid must equal path.grid() in size; v_reference = V_ref on the grid.
   // arithmetic_limit > 0: throw ArithmeticLimitReached once arithmetic() passes it, or once,
   // from a tenth of the protocol's duration on (the run starting at t = 0), the arithmetic so
-  // far projected to the whole duration passes twice the limit.
+  // far projected to the whole duration passes twice the limit. Any run throws PhysicsError
+  // when its evaluations so far, projected to the whole duration, pass 6e9 (check_pace).
   EigenbasisPropagator(PotentialPath path, Spectrum reference, std::vector<double> v_reference,
                        OdeTolerances tolerances = {}, double arithmetic_limit = 0);
   void step(State& state, double t, double dt);
@@ -554,6 +555,7 @@ class EigenbasisPropagator {
 
  private:
   void matrix_at(double t, Eigen::MatrixXd& m);
+  void check_pace(double t);  // throws PhysicsError when the run projects past 6e9 evaluations
   PotentialPath path_;
   Eigen::MatrixXd basis_;  // n x K, phi_k(x_j) sqrt(dx): orthonormal columns
   Eigen::VectorXd energies_, density_;  // density_ = rho_j (row norms squared of basis_)
@@ -565,7 +567,8 @@ class EigenbasisPropagator {
   std::vector<double> v_;                      // scratch: the potential sample
   Eigen::VectorXd dv_, f_, rem_;
   double step_hint_ = 0, arithmetic_ = 0;
-  long evaluations_ = 0, direct_evaluations_ = 0;
+  long evaluations_ = 0, direct_evaluations_ = 0, pace_calls_ = 0;
+  double pace_start_ = 0;
 };
 
 // Advances y from t to t + dt (dt may be negative) with Boost.Odeint's controlled

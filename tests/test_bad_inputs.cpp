@@ -360,6 +360,12 @@ levels = 12
       {"a protocol far too long to step through (1e30 s: past an int of steps)",
        with(moving, "\"1.5 us\"", "\"1e30 s\""), Run::work, true,
        {"split-operator steps", "more than the 1e+09 a run may take", "shorten [protocol] duration"}},
+      {"a frequency ramp of 1e30 s through the eigenbasis ODE (it took adaptive steps for ever, silently)",
+       with(with(moving, "\"1.5 us\"", "\"1e30 s\""), "parameter = \"trap.centre\"\nto = \"30 nm\"",
+            "parameter = \"trap.frequency\"\nto = \"2 MHz\"") +
+           "[work]\nintegrator = \"eigenbasis\"\n",
+       Run::work, true,
+       {"eigenbasis ODE: at its pace so far", "more than the 6e+09 a run may take", "shorten [protocol] duration"}},
       {"an initial level the grid does not hold",
        with(moving, "mean_phonons = 0.3", "level = 30") + "[grid]\npoints = 32\nleft = \"-0.1 um\"\nright = \"0.1 um\"\n",
        Run::work, true, {"levels on a grid of 32 points", "use more points"}},
