@@ -505,3 +505,31 @@ TEST_CASE("a protocol of 1e30 s with its steps set: the harmonic reference says 
   INFO(std_warnings);
   CHECK_THAT(std_warnings, Catch::Contains("at half the time step: raise steps (now 16)"));
 }
+
+TEST_CASE("a shuttle faster than the co-moving grid holds: the automatic frame is the lab's", "[bad-inputs]") {
+  // 30 nm in 10 ns (a 40 u ion, 1 MHz): the frame's momentum m d/tau is about 1.8 times pi hbar/dx
+  // of the co-moving grid, whose states then wrapped around in momentum: <W> came out 6.9 h*kHz
+  // with every check passing, where the displaced oscillator gives 1780 h*kHz.
+  const std::string text = with(moving, "\"1.5 us\"", "\"10 ns\"");
+  const Scenario s = read_scenario_text(text, "fast.toml");
+  WorkRequest request = work_request(s);
+  request.threads = 1;
+  const WorkResult r = run_work(s.potential, build_protocol(s), request);
+  CHECK_FALSE(r.co_moving);
+  std::string notes;
+  for (const auto& n : r.diagnostics.notes) notes += n + "\n";
+  INFO(notes);
+  CHECK_THAT(notes, Catch::Contains("lab frame: the co-moving frame's momentum"));
+  // the displaced oscillator (Cahill & Glauber 1969), exact for this harmonic trap
+  REQUIRE(r.harmonic);
+  CHECK_THAT(r.distribution.mean, Catch::Matchers::WithinRel(r.harmonic->mean_work, 1e-6));
+
+  // asked for by name, the frame is kept and the result carries a warning with its value
+  request.co_moving = true;
+  const WorkResult c = run_work(s.potential, build_protocol(s), request);
+  CHECK(c.co_moving);
+  std::string warnings;
+  for (const auto& w : c.diagnostics.warnings) warnings += w + "\n";
+  INFO(warnings);
+  CHECK_THAT(warnings, Catch::Contains("of the grid's range pi hbar/dx, above 0.5"));
+}
