@@ -206,6 +206,10 @@ Eigen::MatrixXcd chirp_matrix(double theta, int modes, int rows = 0);
 // Exact solutions of Doescher & Rice, Am. J. Phys. 37, 1246 (1969) (from memory). Throws
 // PhysicsError unless L0, L1 > 0 and u has the sign of L1 - L0 (u = 0 only when L1 = L0).
 Eigen::MatrixXcd doescher_rice_amplitudes(double L0, double L1, double u, int K, int modes = 0, int initial = 0);
+// Estimated floating-point operations of doescher_rice_amplitudes with the same arguments: its
+// two chirp quadratures of pi modes + |u L|/2 + 40 nodes (Gauss-Legendre nodes by recurrence,
+// ~10 n^2) and their products.
+double doescher_rice_operations(double L0, double L1, double u, int K, int modes = 0, int initial = 0);
 
 // Sudden expansion [a0, b0] -> [a1, b1] with a1 <= a0, b0 <= b1 (flat box): overlaps
 // A(n, m) = <n_B|m_A> = int_{a0}^{b0} phi_n^B phi_m^A dx, n < final, m < initial, in closed form
@@ -279,6 +283,7 @@ struct SuddenJarzynski {
 struct WallWorkResult {
   WorkResult work;  // forward/reverse inputs, distributions, Crooks, diagnostics
   std::optional<DoescherRiceComparison> doescher_rice;
+  std::string doescher_rice_absent;  // why a constant-speed wall has no exact reference (else empty)
   std::optional<SuddenJarzynski> sudden;
   // max |dP(m -> n)| with twice the sine modes; NaN where not computed (grid_check off, or a
   // flat box whose walls stand still at both ends: the sine basis is then exact).

@@ -842,6 +842,9 @@ nlohmann::ordered_json walls_json(const WorkRun& run) {
   const Display d = display(run.scenario);
   nlohmann::ordered_json j = {{"grid_line_change", number_or_null(run.walls->grid_line_change)},
                               {"doescher_rice", nullptr},
+                              {"doescher_rice_absent", run.walls->doescher_rice_absent.empty()
+                                                           ? nlohmann::ordered_json(nullptr)
+                                                           : nlohmann::ordered_json(run.walls->doescher_rice_absent)},
                               {"sudden_expansion", nullptr}};
   if (const auto& c = run.walls->doescher_rice)
     j["doescher_rice"] = {{"wall_speed_m_per_s", wall_speed_si(run.scenario, c->speed)},
@@ -1521,6 +1524,9 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
       out << "\nsudden expansion: the Jarzynski equality fails (the Hilbert space changes at once)\n";
       row("<e^-bW>", short_number(w.sudden->average, 10) + " over all initial levels (closed form)");
       row("Z_B/Z_A", short_number(w.sudden->partition_ratio, 10) + ", ratio " + short_number(w.sudden->ratio, 6));
+    } else if (!w.doescher_rice_absent.empty()) {
+      out << "\nexact reference: a wall at constant speed in a flat box (Doescher & Rice 1969), "
+          << w.doescher_rice_absent << "\n";
     } else {
       out << "\nexact reference: none (the walls do not move at constant speed through a flat box)\n";
     }
