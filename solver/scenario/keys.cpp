@@ -274,7 +274,8 @@ const std::vector<TableSpec>& scenario_tables() {
                  "time integrator: fourth-order or Strang split operator, or the instantaneous eigenbasis ODE"),
           whole("steps", std::to_string(work.steps) + " (automatic)", "time steps (0: from the energy range)", "400"),
           choice("frame", {"auto", "lab", "co_moving"}, "auto",
-                 "co_moving: propagate in the frame moving with a rigidly translated trap (auto: when it is one)"),
+                 "co_moving: propagate in the frame moving with a rigidly translated trap (auto: when it is "
+                 "one, unless m times its top speed passes half the grid's momentum range pi hbar/dx)"),
           plain("thermal_tolerance", number_text(work.thermal_tolerance),
                 "thermal weight the kept initial levels may leave out (between 0 and 1)", "1e-8"),
           whole("max_initial_levels", std::to_string(work.max_initial_levels), "at most this many initial levels",
