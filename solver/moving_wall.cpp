@@ -667,7 +667,10 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
 
   const bool end_chirp = wa.rate() != 0 || wa.left.rate != 0 || wb.rate() != 0 || wb.left.rate != 0;
   // Progress in units of forward runs: forward 1, grid check 2, half step 2, reverse 1.
-  const bool grid_check = request.grid_check && (end_chirp || !protocol.flat());
+  // The grid check runs for a flat box with walls at rest at both ends too: its spectra are
+  // exact in the sine basis, but not the states in between (a 2 um expansion of a 10 um box in
+  // 40 us, smooth ramp, gave <W> = 61 +- 1.7 kB*nK on 255 points, -0.0073 on 1023).
+  const bool grid_check = request.grid_check;
   const double units = 1.0 + (grid_check ? 2.0 : 0.0) + (request.time_step_check ? 2.0 : 0.0) +
                        (request.reverse_run && beta ? 1.0 : 0.0);
   double done_units = 0;
@@ -715,7 +718,7 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
                               (end_chirp ? ": the walls move at the start or the end, use a smooth ramp or " : ": ") +
                               "raise the points");
   }
-  else if (end_chirp || !protocol.flat()) {  // the basis error of the direct moments is not known
+  else {  // the basis error of the direct moments is not known
     diag.moments.mean_basis = diag.moments.variance_basis = std::numeric_limits<double>::quiet_NaN();
     total_moment_errors(diag.moments);
   }

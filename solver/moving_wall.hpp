@@ -285,8 +285,7 @@ struct WallWorkResult {
   std::optional<DoescherRiceComparison> doescher_rice;
   std::string doescher_rice_absent;  // why a constant-speed wall has no exact reference (else empty)
   std::optional<SuddenJarzynski> sudden;
-  // max |dP(m -> n)| with twice the sine modes; NaN where not computed (grid_check off, or a
-  // flat box whose walls stand still at both ends: the sine basis is then exact).
+  // max |dP(m -> n)| with twice the sine modes; NaN where not computed (grid_check off).
   double grid_line_change = std::numeric_limits<double>::quiet_NaN();
 };
 

@@ -106,6 +106,13 @@ std::string with(std::string text, const std::string& from, const std::string& t
   return text.replace(at, from.size(), to);
 }
 
+// The lines of a result's warnings or notes, one per line, for Contains and INFO.
+std::string joined(const std::vector<std::string>& lines) {
+  std::string text;
+  for (const auto& line : lines) text += line + "\n";
+  return text;
+}
+
 // 1-based line and column of the first occurrence of `needle` in `text`.
 std::pair<int, int> position_of(const std::string& text, const std::string& needle) {
   const auto at = text.find(needle);
@@ -500,8 +507,7 @@ TEST_CASE("a protocol of 1e30 s with its steps set: the harmonic reference says 
   INFO(r.harmonic_absent);
   CHECK_FALSE(r.harmonic);
   CHECK_THAT(r.harmonic_absent, Catch::Contains("periods of the harmonic part, more than the 1e+06"));
-  std::string std_warnings;
-  for (const auto& w : r.diagnostics.warnings) std_warnings += w + "\n";
+  const std::string std_warnings = joined(r.diagnostics.warnings);
   INFO(std_warnings);
   CHECK_THAT(std_warnings, Catch::Contains("at half the time step: raise steps (now 16)"));
 }
@@ -516,8 +522,7 @@ TEST_CASE("a shuttle faster than the co-moving grid holds: the automatic frame i
   request.threads = 1;
   const WorkResult r = run_work(s.potential, build_protocol(s), request);
   CHECK_FALSE(r.co_moving);
-  std::string notes;
-  for (const auto& n : r.diagnostics.notes) notes += n + "\n";
+  const std::string notes = joined(r.diagnostics.notes);
   INFO(notes);
   CHECK_THAT(notes, Catch::Contains("lab frame: the co-moving frame's momentum"));
   // the displaced oscillator (Cahill & Glauber 1969), exact for this harmonic trap
@@ -528,8 +533,7 @@ TEST_CASE("a shuttle faster than the co-moving grid holds: the automatic frame i
   request.co_moving = true;
   const WorkResult c = run_work(s.potential, build_protocol(s), request);
   CHECK(c.co_moving);
-  std::string warnings;
-  for (const auto& w : c.diagnostics.warnings) warnings += w + "\n";
+  const std::string warnings = joined(c.diagnostics.warnings);
   INFO(warnings);
   CHECK_THAT(warnings, Catch::Contains("of the grid's range pi hbar/dx, above 0.5"));
 }
