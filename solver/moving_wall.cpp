@@ -339,11 +339,18 @@ void gauss_legendre(int n, Eigen::VectorXd& nodes, Eigen::VectorXd& weights) {
   }
 }
 
+namespace {
+// Gauss-Legendre nodes of chirp_matrix: the integrand's phase turns by up to pi modes + |theta|.
+double chirp_nodes(double theta, int modes) { return std::ceil(pi * modes + std::abs(theta)) + 40; }
+// The sine modes doescher_rice_amplitudes sums over: `modes`, or K + 100 when not given; at least K.
+int doescher_rice_modes(int K, int modes) { return std::max(modes <= 0 ? K + 100 : modes, K); }
+}  // namespace
+
 Eigen::MatrixXcd chirp_matrix(double theta, int modes, int rows) {
   TRAPWORK_EXPECT(modes >= 1, "chirp_matrix needs modes >= 1");
   if (rows <= 0 || rows > modes) rows = modes;
   Eigen::VectorXd y, w;
-  gauss_legendre(int(std::ceil(pi * modes + std::abs(theta))) + 40, y, w);
+  gauss_legendre(int(chirp_nodes(theta, modes)), y, w);
   Eigen::MatrixXd s(y.size(), modes);
   Eigen::VectorXd c(y.size()), sn(y.size());
   for (Eigen::Index q = 0; q < y.size(); ++q) {
@@ -368,8 +375,7 @@ Eigen::MatrixXcd doescher_rice_amplitudes(double L0, double L1, double u, int K,
   if (u == 0 || (L1 - L0) * u < 0)
     throw PhysicsError("Doescher-Rice: the wall speed u = " + fmt(u) + " does not take L from " + fmt(L0) +
                        " to " + fmt(L1));
-  if (modes <= 0) modes = K + 100;
-  modes = std::max(modes, K);
+  modes = doescher_rice_modes(K, modes);
   const double tau = (L1 - L0) / u;
   // G symmetric: G0's first K columns are the transpose of its first K rows
   const Eigen::MatrixXcd g1 = chirp_matrix(u * L1 / 2, modes, K), g0 = chirp_matrix(-u * L0 / 2, modes, columns).transpose();
@@ -379,12 +385,11 @@ Eigen::MatrixXcd doescher_rice_amplitudes(double L0, double L1, double u, int K,
 }
 
 double doescher_rice_operations(double L0, double L1, double u, int K, int modes, int initial) {
-  if (modes <= 0) modes = K + 100;
-  modes = std::max(modes, K);
+  modes = doescher_rice_modes(K, modes);
   const int columns = initial > 0 ? std::min(initial, K) : K;
   double total = 0;
   for (const auto& [theta, rows] : {std::pair{u * L1 / 2, K}, std::pair{u * L0 / 2, columns}}) {
-    const double n = std::ceil(pi * modes + std::abs(theta)) + 40;
+    const double n = chirp_nodes(theta, modes);
     total += 10 * n * n + 20 * n * modes + 4 * double(rows) * n * modes;
   }
   return total;

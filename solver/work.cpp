@@ -986,8 +986,8 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   }
   // The co-moving states carry the frame's momentum -d'(t) beside their own (lab momentum minus
   // the frame's): a frame faster than half the grid's range pi/dx aliases them (a 50 nm shuttle
-  // in 1e-30 s left 22 % of its weight unresolved there; in 10 ns every check passed on a <W> 250
-  // times too small; the lab frame is exact for both).
+  // in 1e-30 s left 22 % of its weight unresolved there; 30 nm in 10 ns passed every check on a
+  // <W> 250 times too small; the lab frame is exact for both).
   if (co_moving && tau > 0) {
     double speed = 0;
     for (int i = 0; i <= 4096; ++i)
