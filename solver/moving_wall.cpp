@@ -731,6 +731,9 @@ WallWorkResult run_wall_work_once(const WallProtocol& protocol, const WallWorkRe
     const WallRun half = run_walls(protocol, sa, sb, kept_a, finals, 2 * steps, request.order, request.threads, share(2));
     diag.time_step_error =
         (transition_matrix(half.amplitudes).probability - result.forward.transitions.probability).cwiseAbs().maxCoeff();
+    // twice the shift, as run_work's half-step run (see there)
+    set_discretisation(diag.moments, direct_moments(result.forward, half.energies), 2.0,
+                       "the half-step run: the time step only");
   }
 
   if (request.reverse_run && beta) {

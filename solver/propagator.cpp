@@ -381,6 +381,14 @@ struct BatchedSplitStep::Impl {
   // backward is forward, and spectral is scratch.
   fftw_plan forward[2] = {nullptr, nullptr}, backward[2] = {nullptr, nullptr};
   WorkerPool pool;
+  // momentum_edge(), position_edge(): one per column (each written by one worker per call)
+  std::vector<double> edge, position_edge, norms;
+  long calls = 0;  // apply_many calls with one substep (every 32nd is measured)
+  void reset_edges() {
+    edge.assign(std::size_t(columns), 0.0);
+    position_edge.assign(std::size_t(columns), 0.0);
+    norms.assign(std::size_t(pool.threads()) * std::size_t(block), 0.0);
+  }
 
   Impl(std::size_t n_, int columns_, bool sine_, int threads, FftPlanning planning)
       : n(n_), columns(columns_), block(block_columns_for(n_, columns_)),
@@ -459,6 +467,9 @@ int BatchedSplitStep::columns() const { return impl_->columns; }
 int BatchedSplitStep::threads() const { return impl_->pool.threads(); }
 const std::string& BatchedSplitStep::thread_refusal() const { return impl_->pool.refusal(); }
 int BatchedSplitStep::block_columns() const { return impl_->block; }
+const std::vector<double>& BatchedSplitStep::momentum_edge() const { return impl_->edge; }
+const std::vector<double>& BatchedSplitStep::position_edge() const { return impl_->position_edge; }
+void BatchedSplitStep::reset_edges() { impl_->reset_edges(); }
 
 void BatchedSplitStep::apply(Eigen::MatrixXcd& state, const complex* before, const complex* kinetic,
                              const complex* after) {
@@ -473,6 +484,13 @@ void BatchedSplitStep::apply_many(Eigen::MatrixXcd& state, int substeps, const c
                   "BatchedSplitStep::apply: state is not points x columns");
   TRAPWORK_EXPECT(substeps >= 1, "BatchedSplitStep::apply_many needs substeps >= 1");
   const std::size_t n = p.n;
+  if (p.edge.empty()) p.reset_edges();
+  std::vector<double>& norms = p.norms;  // per worker and block column, its norm at the measurement
+  const bool measure = substeps > 1 || p.calls++ % 32 == 0;
+  // the outer 2% of the modes: [n/2 - band, n/2 + band) in FFT order, the top 2 band sine modes
+  const std::size_t band = std::max<std::size_t>(1, n / 100);
+  const std::size_t edge_from = p.sine ? n - std::min(n, 2 * band) : n / 2 - std::min(n / 2, band);
+  const std::size_t edge_to = p.sine ? n : std::min(n, n / 2 + band);
   auto task = [&](int worker, int b, int next) {
     const int first = b * p.block, count = std::min(p.block, p.columns - first);
     const int shape = count == p.block ? 0 : 1;
@@ -484,7 +502,29 @@ void BatchedSplitStep::apply_many(Eigen::MatrixXcd& state, int substeps, const c
     auto mode = [&](int c) { return spectral + std::size_t(c) * n; };
     for (int c = 0; c < count; ++c) multiply(state.col(first + c).data(), kicks[0], column(c), n);
     for (int s = 0; s < substeps; ++s) {
+      // the norms and the outer points' share before the transform (which may destroy its input)
+      if (s == 0 && measure)
+        for (int c = 0; c < count; ++c) {
+          const complex* x = column(c);
+          double all = 0, outer = 0;
+          for (std::size_t j = 0; j < n; ++j) all += std::norm(x[j]);
+          for (std::size_t j = 0; j < band && !p.sine; ++j) outer += std::norm(x[j]) + std::norm(x[n - 1 - j]);
+          norms[std::size_t(c) + std::size_t(worker) * std::size_t(p.block)] = all;
+          double& e = p.position_edge[std::size_t(first + c)];
+          if (all > 0) e = std::max(e, outer / all);
+        }
       p.execute(p.forward[shape], buffer, spectral);
+      if (s == 0 && measure)
+        for (int c = 0; c < count; ++c) {
+          const complex* m = mode(c);
+          double outer = 0;
+          for (std::size_t j = edge_from; j < edge_to; ++j) outer += std::norm(m[j]);
+          // Parseval: the unnormalised transform's norm is n (FFT) or 2 (n + 1) (DST-I) times the samples'
+          const double all = norms[std::size_t(c) + std::size_t(worker) * std::size_t(p.block)] *
+                             (p.sine ? 2.0 * double(n + 1) : double(n));
+          double& e = p.edge[std::size_t(first + c)];
+          if (all > 0) e = std::max(e, outer / all);
+        }
       for (int c = 0; c < count; ++c) multiply(mode(c), kinetic[s], mode(c), n);
       p.execute(p.backward[shape], spectral, buffer);
       if (s + 1 < substeps)

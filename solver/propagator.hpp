@@ -360,6 +360,16 @@ class BatchedSplitStep {
   int threads() const;
   const std::string& thread_refusal() const;
   int block_columns() const;
+  // Per column, the largest share of its norm found in the outer 2% of the transform's modes
+  // (the Fourier modes nearest +-pi/dx, or the top sine modes), measured after the first forward
+  // transform of every apply_many call with several substeps and of every 32nd call with one:
+  // where a state's momentum reaches the grid's limit pi hbar/dx its motion aliases (wraps
+  // around), which no check of the final states need see. position_edge(): the same for the
+  // outer 2% of the grid points (a periodic grid's states wrap around there too; 0 for the sine
+  // transform, whose walls are the problem's own). Since construction or the last reset.
+  const std::vector<double>& momentum_edge() const;
+  const std::vector<double>& position_edge() const;
+  void reset_edges();
 
  private:
   struct Impl;
@@ -448,6 +458,10 @@ class SplitOperatorPropagator {
   // results do not depend on it) and the system's reason (empty: every thread started).
   int threads() const { return pass_.threads(); }
   const std::string& thread_refusal() const { return pass_.thread_refusal(); }
+  // Per column, the largest share of its norm in the outer 2% of the grid's momenta over the
+  // steps taken so far (BatchedSplitStep::momentum_edge).
+  const std::vector<double>& momentum_edge() const { return pass_.momentum_edge(); }
+  const std::vector<double>& position_edge() const { return pass_.position_edge(); }
   // Strang substeps per chunk of steps() (a whole number of steps; depends on the grid size).
   int chunk_substeps() const;
   // Largest potential phase spread (max V - min V) |h|/2 of a kick and T_max |dt| of a step

@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <numeric>
 #include <future>
 #include <limits>
 #include <map>
@@ -186,34 +187,66 @@ void total_moment_errors(MomentErrors& e) {
   e.variance_error = std::abs(e.variance_final) + e.variance_thermal + e.variance_basis;
 }
 
-MomentErrors moment_errors(const WorkInput& in, const WorkDistribution& d, const StateEnergies& direct,
-                           double left_out_thermal_weight, double tolerance) {
+double MomentErrors::reported_mean_error() const {
+  return mean_error + (std::isfinite(mean_discretisation) ? mean_discretisation : 0.0);
+}
+double MomentErrors::reported_variance_error() const {
+  return variance_error + (std::isfinite(variance_discretisation) ? variance_discretisation : 0.0);
+}
+
+namespace {
+// The rows' mean work w_m and <W^2> s_m, and the direct moments with them (see moment_errors).
+struct DirectRows {
+  Eigen::VectorXd w, s;
+  double total = 0, mean = 0, second = 0, variance = 0;
+};
+DirectRows direct_rows(const WorkInput& in, const StateEnergies& direct) {
   const int rows = in.transitions.initial_levels();
   TRAPWORK_EXPECT(direct.energy.size() == rows && direct.energy_variance.size() == rows,
                   "moment_errors: one direct energy per kept initial level");
-  MomentErrors e;
-  e.tolerance = tolerance;
-  double mean = 0, second = 0, total = 0;
-  Eigen::VectorXd w(rows), s(rows);
+  DirectRows r{Eigen::VectorXd(rows), Eigen::VectorXd(rows)};
   for (int m = 0; m < rows; ++m) {
-    w[m] = direct.energy[m] - in.initial_energies[m];  // the row's mean work
-    s[m] = direct.energy_variance[m] + w[m] * w[m];      // the row's <W^2>
+    r.w[m] = direct.energy[m] - in.initial_energies[m];  // the row's mean work
+    r.s[m] = direct.energy_variance[m] + r.w[m] * r.w[m];  // the row's <W^2>
     const double p = in.initial_weights[std::size_t(m)];
-    total += p;
-    mean += p * w[m];
+    r.total += p;
+    r.mean += p * r.w[m];
   }
-  mean /= total;
+  r.mean /= r.total;
   // var W = sum_m p_m (var_m + (w_m - <W>)^2): no difference of large second moments (a protocol
   // that shifts every level by much more than sd W would lose digits in <W^2> - <W>^2)
-  double variance = 0;
   for (int m = 0; m < rows; ++m) {
     const double p = in.initial_weights[std::size_t(m)];
-    second += p * s[m];
-    variance += p * (direct.energy_variance[m] + (w[m] - mean) * (w[m] - mean));
+    r.second += p * r.s[m];
+    r.variance += p * (direct.energy_variance[m] + (r.w[m] - r.mean) * (r.w[m] - r.mean));
   }
-  second /= total;
+  r.second /= r.total;
+  r.variance /= r.total;
+  return r;
+}
+}  // namespace
+
+DirectMoments direct_moments(const WorkInput& in, const StateEnergies& direct) {
+  const DirectRows r = direct_rows(in, direct);
+  return {r.mean, r.variance};
+}
+
+void set_discretisation(MomentErrors& e, const DirectMoments& check, double factor, const std::string& from) {
+  e.mean_discretisation = factor * std::abs(check.mean - e.mean_direct);
+  e.variance_discretisation = factor * std::abs(check.variance - e.variance_direct);
+  e.discretisation_from = from;
+}
+
+MomentErrors moment_errors(const WorkInput& in, const WorkDistribution& d, const StateEnergies& direct,
+                           double left_out_thermal_weight, double tolerance) {
+  const int rows = in.transitions.initial_levels();
+  const DirectRows r = direct_rows(in, direct);
+  const Eigen::VectorXd &w = r.w, &s = r.s;
+  const double mean = r.mean, second = r.second;
+  MomentErrors e;
+  e.tolerance = tolerance;
   e.mean_direct = mean;
-  e.variance_direct = variance / total;
+  e.variance_direct = r.variance;
   e.mean_final = d.mean - e.mean_direct;
   e.variance_final = d.variance - e.variance_direct;
   const double eps = std::max(0.0, left_out_thermal_weight);
@@ -491,6 +524,8 @@ Grid shifted(const Grid& g, double d) {
 // One direction of the protocol: propagate the kept initial states, project on the final ones.
 struct Run {
   Eigen::MatrixXcd amplitudes;  // A(n, m)
+  // per kept initial level: its momentum_edge and position_edge (columns; see Diagnostics; NaN: not measured)
+  Eigen::MatrixXd edges;
   StateEnergies energies;       // of the final states under H_B (v_final given)
   double norm_drift = 0, edge_amplitude = 0, max_phase = 0, arithmetic = 0;
   int carried = 0;  // states taken from an earlier attempt (Propagated), not propagated
@@ -614,6 +649,7 @@ struct Propagated {
   int steps = 0;
   Eigen::MatrixXd initial;  // one column per initial state propagated
   Eigen::MatrixXcd final;   // its state at tau, lab frame
+  Eigen::MatrixXd edges;    // as Run's
   double max_phase = 0;
   std::optional<TraceColumns> trace;  // the forward run's, when it recorded traces
 };
@@ -677,6 +713,7 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
   }
   Eigen::MatrixXcd psi(start.rows(), Eigen::Index(now.size()));
   for (std::size_t i = 0; i < now.size(); ++i) psi.col(Eigen::Index(i)) = start.col(now[i]).cast<std::complex<double>>();
+  Eigen::MatrixXd edges = Eigen::MatrixXd::Constant(Eigen::Index(now.size()), 2, std::numeric_limits<double>::quiet_NaN());
   if (tau > 0 && !now.empty()) {
     path.from_lab(psi, 0);
     auto observer = [&](const Eigen::MatrixXcd&, double t) {
@@ -716,14 +753,20 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
                                 if (trace && trace->due(t, tau)) trace->record(path, s, t);
                                 observer(s, t);
                               }));
+      for (Eigen::Index i = 0; i < edges.rows(); ++i)
+        edges.row(i) << prop.momentum_edge()[std::size_t(i)], prop.position_edge()[std::size_t(i)];
     }
     path.to_lab(psi, tau);
   }
+  run.edges = edges;
   if (earlier) {  // the carried states, in their places
     Eigen::MatrixXcd all(start.rows(), kept);
-    for (std::size_t m = 0, i = 0; m < sign.size(); ++m)
-      all.col(Eigen::Index(m)) = sign[m] != 0 ? (sign[m] * earlier->final.col(Eigen::Index(m))).eval()
-                                              : psi.col(Eigen::Index(i++));
+    run.edges.resize(kept, 2);
+    for (std::size_t m = 0, i = 0; m < sign.size(); ++m) {
+      const bool old = sign[m] != 0;
+      run.edges.row(Eigen::Index(m)) = old ? earlier->edges.row(Eigen::Index(m)).eval() : edges.row(Eigen::Index(i)).eval();
+      all.col(Eigen::Index(m)) = old ? (sign[m] * earlier->final.col(Eigen::Index(m))).eval() : psi.col(Eigen::Index(i++));
+    }
     psi = std::move(all);
     run.max_phase = std::max(run.max_phase, earlier->max_phase);
     if (trace) {
@@ -749,7 +792,7 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
   if (carry) carry->reset();
   if (carry && tau > 0 && request.integrator != Integrator::eigenbasis &&
       double(psi.size() + start.size()) * sizeof(std::complex<double>) <= carried_bytes)
-    *carry = Propagated{path.grid(), steps, start, psi, run.max_phase,
+    *carry = Propagated{path.grid(), steps, start, psi, run.edges, run.max_phase,
                         trace ? std::optional<TraceColumns>(trace->data) : std::nullopt};
   const Eigen::Index n = psi.rows(), edge = std::max<Eigen::Index>(1, n / 50);
   for (Eigen::Index c = 0; c < psi.cols(); ++c) {
@@ -762,6 +805,19 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
   run.amplitudes = project(final, psi);
   if (v_final) run.energies = state_energies(path.grid(), *v_final, psi);
   return run;
+}
+
+// Diagnostics::momentum_edge and position_edge of runs: their levels' shares summed with their
+// weights, the larger over the runs (NaN where none measured).
+void weighted_edges(Diagnostics& d, const Run& run, const std::vector<double>& weights) {
+  if (run.edges.rows() == 0 || run.edges.rows() != Eigen::Index(weights.size())) return;
+  const double total = std::accumulate(weights.begin(), weights.end(), 0.0);
+  for (int k = 0; k < 2; ++k) {
+    double sum = 0;
+    for (Eigen::Index m = 0; m < run.edges.rows(); ++m) sum += weights[std::size_t(m)] * run.edges(m, k);
+    double& e = k == 0 ? d.momentum_edge : d.position_edge;
+    if (total > 0 && (std::isnan(e) || sum / total > e)) e = sum / total;
+  }
 }
 
 // The harmonic model of a protocol (see harmonic_comparison): the displaced oscillator of a
@@ -961,12 +1017,18 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
         }
       }
     }
+    if (!fixed_grid && request.extent_factor != 1) {
+      const double centre = (left + right) / 2, half = request.extent_factor * (right - left) / 2;
+      left = centre - half;
+      right = centre + half;
+    }
     if (request.spectrum.box)
       grid = ra.spectrum.grid;
     else if (fixed_grid && request.spectrum.points)
       grid = Grid::periodic(left, right, *request.spectrum.points);
     else
-      grid = Grid::periodic(left, right, fast_fft_size(std::size_t(std::ceil((right - left) / dx))));
+      grid = Grid::periodic(left, right,
+                            fast_fft_size(std::size_t(std::ceil((right - left) / (dx * request.spacing_factor)))));
     check_memory(work_cost(run_sizes(grid, levels, 0)), request.spectrum.options.memory_limit,
                  "refused before computing");
     const auto x = grid.points();
@@ -1112,6 +1174,8 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   Diagnostics& diag = result.diagnostics;
   diag.norm_drift = fwd.norm_drift;
   diag.edge_amplitude = fwd.edge_amplitude;
+  weighted_edges(diag, fwd, wa.weights);
+  diag.grid_refinements = request.grid_refinements;
   diag.max_phase_per_step = fwd.max_phase;
   diag.ode_arithmetic = fwd.arithmetic;
   diag.ode_basis_levels = int(basis_a.energies.size());
@@ -1121,6 +1185,10 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   diag.jarzynski_residual = result.distribution.jarzynski_residual;
   diag.moments = moment_errors(result.forward, result.distribution, fwd.energies, wa.choice.left_out,
                                request.unresolved_tolerance);
+  if (tau == 0) {
+    diag.moments.mean_discretisation = diag.moments.variance_discretisation = 0;
+    diag.moments.discretisation_from = "nothing: a sudden switch has no time step";
+  }
   diag.truncation.thermal_tail = wa.choice.left_out;  // the reverse run adds its parts below
   diag.final_margin = request.final_margin;
   diag.thermal_tolerance = request.thermal_tolerance;
@@ -1128,9 +1196,16 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   if (request.time_step_check && tau > 0) {
     OdeTolerances tighter{request.ode.absolute / 100, request.ode.relative / 100};
     Run half = propagate_run(forward_path, sa, sb, &basis_a, v_a, kept_a, 2 * steps, request, tighter,
-                             progress(share, 3 * share), nullptr, nullptr, &carried.half);
+                             progress(share, 3 * share), &v_b, nullptr, &carried.half);
     diag.time_step_error =
         (transition_matrix(half.amplitudes).probability - result.forward.transitions.probability).cwiseAbs().maxCoeff();
+    // Twice the shift from the half-step run: Richardson's rule (common practice) puts an order-p
+    // run's error at 2^p / (2^p - 1) times it, at most 4/3, near the asymptotic range; the factor
+    // 2 also covers runs outside it (measured: Strang ramps of a harmonic trap at phases of 20 to
+    // 77 rad per step missed by 1.01 to 1.24 times 4/3 of the shift). The ODE's check runs at
+    // 1/100 its tolerances: its shift is its error.
+    set_discretisation(diag.moments, direct_moments(result.forward, half.energies), 2.0,
+                       "the half-step run: the time step only");
   }
 
   if (reverse) {
@@ -1160,6 +1235,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
     diag.truncation = truncation_residual_bound(wa.choice.left_out, kept_a, result.reverse->transitions.probability,
                                                 wb.weights, wb.choice.left_out);
     diag.norm_drift = std::max(diag.norm_drift, rev.norm_drift);
+    weighted_edges(diag, rev, wb.weights);
     if (std::abs(diag.jarzynski_residual) > diag.truncation.bound + 1e-9)
       diag.warnings.push_back("Jarzynski residual " + fmt(diag.jarzynski_residual) + " exceeds the truncation bound " +
                               fmt(diag.truncation.bound) + " (eps_K + p_R(>=K)): raise max_initial_levels or the grid");
@@ -1177,7 +1253,23 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
     diag.warnings.push_back(w);
   if (diag.edge_amplitude > 1e-8)
     diag.warnings.push_back("final states reach the grid edge (relative density " + fmt(diag.edge_amplitude) +
-                            " in the outer 2%): widen the grid" + (co_moving ? "" : " or use the co-moving frame"));
+                            " in the outer 2%): widen the grid" +
+                            (co_moving || !translation || !obstacle.empty() ? "" : " or use the co-moving frame"));
+  const std::string refined = fixed_grid ? std::string()
+                                          : " (the automatic grid was refined " + std::to_string(diag.grid_refinements) +
+                                                " time(s) already)";
+  if (diag.momentum_edge > momentum_edge_tolerance)
+    diag.warnings.push_back("the propagated states reach the grid's momentum limit pi hbar/dx (weight " +
+                            fmt(diag.momentum_edge) +
+                            " in the outer 2% of its momenta, the largest over the run): their motion aliases and "
+                            "the lines are not reliable; set a finer grid: [grid] points above " +
+                            std::to_string(2 * grid.size()) + " with left and right" + refined);
+  if (diag.position_edge > momentum_edge_tolerance)
+    diag.warnings.push_back("the propagated states reach the ends of the grid (weight " + fmt(diag.position_edge) +
+                            " in its outer 2%, the largest over the run): they wrap around and the lines are not "
+                            "reliable; widen the grid: [grid] left and right beyond " +
+                            request.spectrum.message_units(grid.left(), Dimension::length()) + " and " +
+                            request.spectrum.message_units(grid.right(), Dimension::length()) + refined);
   if (diag.time_step_error > 1e-6)
     diag.warnings.push_back("line probabilities change by " + fmt(diag.time_step_error) +
                             " at half the time step: raise steps (now " + std::to_string(steps) + ")");
@@ -1318,12 +1410,37 @@ WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkR
   // capped samples agree) are solved once; a caller's memo serves instead when it gives one.
   if (!r.spectrum.options.memo) r.spectrum.options.memo = std::make_shared<SpectrumMemo>();
   r.spectrum.options.memo_levels = std::max(r.spectrum.options.memo_levels, insured_levels(base, protocol, r, carried.wkb));
+  // A run whose states reach the grid's momentum limit or its ends is repeated on half the
+  // spacing or 3/2 the extent, at most twice, once no more levels are wanted (more levels raise
+  // the energy range the automatic grid is chosen for, which may be all it needed: a harmonic
+  // trap's centre swept 10 oscillator lengths and back in tau = 5.5/omega, lab frame,
+  // reached 0.057 of its momenta on the first attempt's grid, none on the enlarged run's).
+  const bool automatic_grid = !r.spectrum.extent && !r.spectrum.box && !r.spectrum.points;
+  std::string refined;
   for (int attempt = 0;; ++attempt) {
     WorkResult result = run_work_once(base, protocol, r, carried);
     const Diagnostics& d = result.diagnostics;
     const double escape = std::max(d.unresolved_weight, d.truncation.reverse_tail);
     const bool moments = d.moments.mean_met() && d.moments.variance_met();
-    if ((!(escape > r.unresolved_tolerance) && moments) || attempt == 2) {
+    const bool levels_done = (!(escape > r.unresolved_tolerance) && moments) || attempt == 2;
+    const bool fast = d.momentum_edge > momentum_edge_tolerance, far = d.position_edge > momentum_edge_tolerance;
+    if (levels_done && automatic_grid && (fast || far) && r.grid_refinements < 2) {
+      ++r.grid_refinements;
+      if (fast) r.spacing_factor /= 2;
+      if (far) r.extent_factor *= 1.5;
+      refined = "grid refined " + std::to_string(r.grid_refinements) + " time(s) (last from " +
+                std::to_string(result.grid.size()) + " points): the propagated states reached" +
+                (fast ? " its momentum limit pi hbar/dx (weight " + fmt(d.momentum_edge) + " in the outer 2% of its momenta" +
+                            (far ? "; spacing halved)" : ": spacing halved)")
+                      : "") +
+                (far ? std::string(fast ? " and" : "") + " its ends (weight " + fmt(d.position_edge) +
+                           " in its outer 2%: extent 3/2 as wide)"
+                     : "");
+      --attempt;  // the same levels on the finer grid
+      continue;
+    }
+    if (levels_done) {
+      if (!refined.empty()) result.diagnostics.notes.push_back(refined);
       if (attempt > 0)
         result.diagnostics.notes.push_back(
             enlargement_note(attempt, escape, d.moments, r.final_margin, r.thermal_tolerance) +

@@ -185,7 +185,27 @@ struct MomentErrors {
   double rounding_mean = 0, rounding_variance = 0;
   // The part that dominates the larger relative miss: "final", "thermal" or "basis" (empty: met).
   std::string dominant() const;
+  // The discretisation part: how far the moments move with the time step (and, in a --tolerance
+  // search, the grid), measured on the direct moments against a check run: the half-step run
+  // (twice the shift, which covers Richardson's 2^p / (2^p - 1) with room outside the asymptotic
+  // range: run_work) or the search's pairs (compute_work_to_tolerance). NaN where
+  // no check ran; discretisation_from says what measured it. It is kept out of the sums above:
+  // they steer the level enlargement, which cannot mend it, and mean_met() stays about
+  // truncation. The error printed beside a moment is the sum of both (reported_*_error).
+  double mean_discretisation = nan, variance_discretisation = nan;
+  std::string discretisation_from;
+  double reported_mean_error() const;      // mean_error + mean_discretisation where measured
+  double reported_variance_error() const;  // variance_error + variance_discretisation where measured
 };
+// The direct moments (<W>, var W) of the kept initial levels from their states' energies under
+// H_B (see StateEnergies), as moment_errors computes them.
+struct DirectMoments {
+  double mean = 0, variance = 0;
+};
+DirectMoments direct_moments(const WorkInput& input, const StateEnergies& direct);
+// Sets e's discretisation part from the direct moments of a check run: `factor` times the shift
+// of each, with what measured it.
+void set_discretisation(MomentErrors& e, const DirectMoments& check, double factor, const std::string& from);
 MomentErrors moment_errors(const WorkInput& input, const WorkDistribution& d, const StateEnergies& direct,
                            double left_out_thermal_weight, double tolerance);
 // Sets the error sums from the parts (after the caller set a basis part).
@@ -201,11 +221,25 @@ std::string moment_warning(const MomentErrors& e, int final_levels, const std::s
 std::string enlargement_note(int attempt, double escape, const MomentErrors& e, int final_margin,
                              double thermal_tolerance);
 
+// Above this thermal-weighted share of the norm in the outer 2% of the grid's momenta or points
+// (Diagnostics::momentum_edge, position_edge) run_work refines the automatic grid, and warns
+// where it cannot (the examples' runs show 1e-30 to 1e-28).
+inline constexpr double momentum_edge_tolerance = 1e-8;
+
 // Every result carries these (NaN where not computed).
 struct Diagnostics {
   double norm_drift = 0;          // max_m | ||psi_m(tau)||^2 - 1 |
   double unresolved_weight = 0;   // weighted probability not captured by the final levels kept
   double edge_amplitude = 0;      // max |psi|^2 in the outer 2% of the grid / max |psi|^2 (final states)
+  // The split-operator runs' states near the grid's momentum limit pi hbar/dx: per propagated
+  // initial level, the largest share of its norm in the outer 2% of the momenta over the run
+  // (BatchedSplitStep::momentum_edge), summed with the initial weights (the larger of the forward
+  // and reverse runs). Above momentum_edge_tolerance the motion aliases. NaN: not measured (the
+  // eigenbasis ODE, a sudden switch).
+  double momentum_edge = std::numeric_limits<double>::quiet_NaN();
+  // The same for the outer 2% of the grid points (a periodic grid wraps there too; 0 in a box).
+  double position_edge = std::numeric_limits<double>::quiet_NaN();
+  int grid_refinements = 0;       // times run_work refined the automatic grid for them
   double time_step_error = std::numeric_limits<double>::quiet_NaN();  // max |dP(m->n)| vs half step
   double max_phase_per_step = 0;  // radians, largest kinetic or potential phase in one step
   double grid_convergence = std::numeric_limits<double>::quiet_NaN(); // max |dE| of kept levels, finer grid
@@ -296,6 +330,11 @@ struct WorkRequest {
                                      // estimated arithmetic (cost.hpp) is kept within 5% of the
                                      // run's by taking fewer points (at least 9)
   int trace_levels = 5;              // instantaneous levels whose populations are traced
+  // run_work's refinements of the automatic grid (a fixed grid ignores them), at most two, where
+  // the propagated states reach the grid's momentum limit (the spacing halved) or its ends (the
+  // extent 3/2 as wide about its centre): Diagnostics::momentum_edge, position_edge.
+  double spacing_factor = 1, extent_factor = 1;
+  int grid_refinements = 0;
   std::function<void(double fraction)> progress;  // optional, called with 0..1
   // Optional: called with a new stage's name when the work restarts (run_work's enlargement of
   // the levels); the progress then runs from 0 to 1 again for that stage.

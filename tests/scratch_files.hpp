@@ -4,6 +4,7 @@
 #include <filesystem>
 #include <fstream>
 #include <sstream>
+#include <stdexcept>
 #include <cstdlib>
 #include <string>
 #include <vector>
@@ -79,6 +80,15 @@ inline std::vector<std::vector<double>> csv_rows(const std::string& csv) {
     rows.push_back(row);
   }
   return rows;
+}
+
+// The position of the column `name` in the names line of a CSV text written by trapwork.
+inline std::size_t csv_column_index(const std::string& csv, const std::string& name) {
+  std::istringstream names(csv.substr(0, csv.find('\n')));
+  std::size_t k = 0;
+  for (std::string f; std::getline(names, f, ','); ++k)
+    if (f == name) return k;
+  throw std::runtime_error("no column " + name);
 }
 
 }  // namespace trapwork_test

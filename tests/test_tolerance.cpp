@@ -64,6 +64,16 @@ TEST_CASE("--tolerance: the estimate bounds the true distance to the exact Husim
     // issue 21: the whole call within 1.5 times the chosen run alone with its usual half-step
     // check (estimated arithmetic: a deterministic count, not a timing)
     CHECK(c->cost_spent <= 1.5 * c->chosen_cost);
+    // The printed <W> error carries the search's own measure of the time step and the grid
+    // (its pairs' shift of the direct moments): without it the error was the level truncation's
+    // alone. Against Husimi's <W> (same source as above).
+    const WorkResult& r = c->work->result();
+    const MomentErrors& m = r.diagnostics.moments;
+    INFO("<W> - exact " << r.distribution.mean - r.harmonic->mean_work << " +- " << m.reported_mean_error()
+                        << " (truncation " << m.mean_error << ", discretisation " << m.mean_discretisation << ")");
+    CHECK(std::isfinite(m.mean_discretisation));
+    CHECK(m.discretisation_from.find("--tolerance search") != std::string::npos);
+    CHECK(std::abs(r.distribution.mean - r.harmonic->mean_work) <= m.reported_mean_error());
     // the scenario's 2000 steps are not the start: the search chooses the steps
     // (the first line may be the eigenbasis ODE's first try, stopped by its budget here)
     CHECK(std::any_of(c->trail.begin(), c->trail.end(), [](const std::string& line) {

@@ -1,6 +1,7 @@
 // Work distributions, fluctuation-relation checks, thermal weights and the truncation terms.
 #include <catch2/catch.hpp>
 
+#include <algorithm>
 #include <cmath>
 #include <iomanip>
 
@@ -298,6 +299,65 @@ TEST_CASE("issue 14: moments of a sudden 1 -> 2.2 switch carry an error estimate
 // 1/2 above the offset; a displaced one (a coherent state, x0 = 1) has energy 1/2 + x0^2/2 and
 // spread (hbar omega)^2 |alpha|^2 = x0^2 / 2, with |alpha|^2 = x0^2 / 2 (common practice, from
 // memory: the textbook coherent-state energy variance).
+TEST_CASE("the printed <W> error covers a coarse time step: the half-step run's shift is part of it",
+          "[work][moments]") {
+  // A harmonic ramp 1 -> 2 in tau = 2 on a deliberately coarse Strang step: the level truncation
+  // is tiny, the time step is not. Against Husimi's <W> (J. Phys. Soc. Jpn. 9, 381 (1953), from
+  // memory; the run's own harmonic reference, exact for one harmonic term).
+  const Potential base({Term("trap", Shape::harmonic, {{"frequency", 1.0}})});
+  const Protocol ramp(2, {Schedule::linear("trap.frequency", 1, 2)});
+  WorkRequest request;
+  request.initial = InitialState::thermal(0.5);
+  request.integrator = Integrator::strang;
+  request.steps = 12;
+  const WorkResult r = run_work(base, ramp, request);
+  REQUIRE(r.harmonic);
+  REQUIRE(r.harmonic->exact);
+  const MomentErrors& m = r.diagnostics.moments;
+  const double miss = std::abs(r.distribution.mean - r.harmonic->mean_work);
+  INFO("<W> - exact " << miss << ", truncation part " << m.mean_error << ", discretisation " << m.mean_discretisation);
+  CHECK(miss > 10 * m.mean_error);  // the truncation part alone would hide the miss
+  CHECK(miss <= m.reported_mean_error());
+  CHECK(m.reported_mean_error() < 3 * miss);  // and is not a blanket bound
+  CHECK(m.discretisation_from.find("half-step") != std::string::npos);
+  // without the half-step run the part is not measured, and says so by NaN
+  request.time_step_check = false;
+  CHECK(std::isnan(run_work(base, ramp, request).diagnostics.moments.mean_discretisation));
+}
+
+TEST_CASE("a run whose states reach the grid's momentum limit is repeated on a finer grid; a fixed grid is warned",
+          "[work][grid]") {
+  // A harmonic trap squeezed to 20 times its frequency and back (sin^2 in time) in tau = 1.257:
+  // the squeezed state's momenta pass the automatic grid's, chosen from the instantaneous spectra.
+  // Against Husimi's <W> (J. Phys. Soc. Jpn. 9, 381 (1953), from memory; the run's own reference).
+  const Potential base({Term("trap", Shape::harmonic, {{"frequency", 1.0}})});
+  const Protocol squeeze(1.257, {Schedule::formula("trap.frequency", "1 + 19*sin(3.141592653589793*t/tau)^2")});
+  WorkRequest request;
+  request.initial = InitialState::eigenstate(0);
+  request.reverse_run = false;
+  request.trace_points = 0;
+  const WorkResult r = run_work(base, squeeze, request);
+  REQUIRE(r.harmonic);
+  const Diagnostics& d = r.diagnostics;
+  INFO("grid " << r.grid.size() << " points, momentum edge " << d.momentum_edge << ", position edge "
+               << d.position_edge << ", <W> - exact " << r.distribution.mean - r.harmonic->mean_work << " +- "
+               << d.moments.reported_mean_error());
+  CHECK(d.grid_refinements >= 1);
+  CHECK(std::any_of(d.notes.begin(), d.notes.end(),
+                    [](const std::string& n) { return n.find("grid refined") != std::string::npos; }));
+  CHECK(d.momentum_edge <= momentum_edge_tolerance);
+  CHECK(d.position_edge <= momentum_edge_tolerance);
+  CHECK(std::abs(r.distribution.mean - r.harmonic->mean_work) <= d.moments.reported_mean_error());
+  // the same extent on half the points, fixed: not refined, warned with the value
+  request.spectrum.extent = std::make_pair(r.grid.left(), r.grid.right());
+  request.spectrum.points = r.grid.size() / 2;
+  const WorkResult coarse = run_work(base, squeeze, request);
+  INFO("fixed grid: momentum edge " << coarse.diagnostics.momentum_edge);
+  CHECK(coarse.diagnostics.grid_refinements == 0);
+  CHECK(coarse.diagnostics.momentum_edge > momentum_edge_tolerance);
+  CHECK(has_warning(coarse.diagnostics, "momentum limit pi hbar/dx"));
+}
+
 TEST_CASE("state_energies: the spread of H in a state is not lost under a large energy offset", "[work][moments]") {
   const Grid grid = Grid::periodic(-12, 12, 256);
   const double offset = -3568;

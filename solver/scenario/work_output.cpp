@@ -200,7 +200,7 @@ double sd_of(const WorkDistribution& d) {
 // Error of sd W from the error dv of var W: |sqrt(v + dv) - sqrt(v)| <= min(dv / sqrt(v), sqrt(dv)).
 // NaN where the variance error is not known.
 double sd_error_of(const WorkDistribution& d, const MomentErrors& m) {
-  const double sd = sd_of(d), dv = m.variance_error;
+  const double sd = sd_of(d), dv = m.reported_variance_error();
   if (!std::isfinite(dv)) return nan_value;
   return sd > 0 ? std::min(dv / sd, std::sqrt(dv)) : std::sqrt(dv);
 }
@@ -241,14 +241,23 @@ double run_arithmetic(const WorkResult& r) {
 }
 
 namespace {
-// The scenario on 3/2 the points of the grid g, over the same extent (a box keeps its walls).
-Scenario on_finer_grid(const Scenario& s, const Grid& g) {
+// The scenario on 3/2 the points of the run's grid, over the same extent (a box keeps its
+// walls); where the run's final states reach the grid's edge (the edge-amplitude warning's
+// threshold, 1e-8), over 5/4 the extent about its centre at 3/2 the density, so that the pair's
+// distance measures the extent too (a fast squeeze of a trap reaches beyond the instantaneous
+// eigenstates the grid was chosen for).
+Scenario on_finer_grid(const Scenario& s, const WorkResult& r) {
+  const Grid& g = r.grid;
   Scenario finer = s;
   if (g.boundary() == Boundary::hard_wall) {
     finer.spectrum.points = fast_fft_size(3 * (g.size() + 1) / 2) - 1;
+  } else if (!finer.spectrum.box) {
+    const bool widen = r.diagnostics.edge_amplitude > 1e-8;
+    const double centre = (g.left() + g.right()) / 2, half = (widen ? 1.25 : 1.0) * (g.right() - g.left()) / 2;
+    finer.spectrum.points = fast_fft_size(std::size_t(std::ceil((widen ? 1.25 : 1.0) * 3 * double(g.size()) / 2)));
+    finer.spectrum.extent = std::make_pair(centre - half, centre + half);
   } else {
     finer.spectrum.points = fast_fft_size(3 * g.size() / 2);
-    if (!finer.spectrum.box) finer.spectrum.extent = std::make_pair(g.left(), g.right());
   }
   return finer;
 }
@@ -279,6 +288,22 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
   c.cost_bound = cost_bound;
   request.time_step_check = false;  // the refinements below are the checks
   double last_seconds = 0;
+  // How far the direct moments moved within the pairs that verified the choice (see
+  // MomentErrors::mean_discretisation): the grid pair's, the step pair's (scaled as its line
+  // distance is) and the ODE's check pair's; NaN until measured.
+  DirectMoments grid_shift{nan_value, nan_value}, step_shift{nan_value, nan_value};
+  auto shift = [](const ScenarioWork& a, const ScenarioWork& b, double factor = 1.0) {
+    const MomentErrors &x = a.result().diagnostics.moments, &y = b.result().diagnostics.moments;
+    return DirectMoments{factor * std::abs(x.mean_direct - y.mean_direct),
+                         factor * std::abs(x.variance_direct - y.variance_direct)};
+  };
+  // The chosen run's discretisation part: the sum of the parts measured (NaN if one is not).
+  auto discretisation = [](ScenarioWork& w, DirectMoments a, DirectMoments b, const std::string& from) {
+    MomentErrors& m = w.result().diagnostics.moments;
+    m.mean_discretisation = a.mean + b.mean;
+    m.variance_discretisation = a.variance + b.variance;
+    m.discretisation_from = from;
+  };
   const auto memo = std::make_shared<SpectrumMemo>();  // runs on one grid share their spectra
   // Cost: every run's estimated arithmetic is added to c.cost_spent (in units of the first
   // run's); a run that would take the total past the bound is not started. request.progress
@@ -377,10 +402,11 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
         ScenarioWork basis = run(c.scenario, e);
         const double seconds = last_seconds;
         ode_first_points = basis.result().grid.size();
-        // The check (ode_check_request) on 3/2 the points over the same extent, so that its distance
-        // bounds the grid's, the ODE's and the basis's parts of the first run's error together.
+        // The check (ode_check_request) on 3/2 the points over the same extent (wider where the
+        // states reached its edge: on_finer_grid), so that its distance bounds the grid's, the
+        // ODE's and the basis's parts of the first run's error together.
         const Grid& g = basis.result().grid;
-        const Scenario finer = on_finer_grid(c.scenario, g);
+        const Scenario finer = on_finer_grid(c.scenario, basis.result());
         e = ode_check_request(e, basis.result(), tolerance);
         e.ode_arithmetic_limit = 6 * basis.result().diagnostics.ode_arithmetic;
         const ScenarioWork check = run(finer, e, false);
@@ -406,6 +432,8 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
           if (given_steps > 0)
             c.trail.front() += " (the scenario's " + std::to_string(given_steps) + " steps do not apply: the ODE "
                                "chooses its own)";
+          discretisation(basis, shift(basis, check), {0, 0},
+                         "the --tolerance search's check of the eigenbasis ODE on 3/2 the points");
           c.work = std::move(basis);
           c.work->request.spectrum.options.memo.reset();  // the returned request solves afresh
           c.scenario.spectrum.points = c.points;
@@ -438,13 +466,17 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
   // Measured at the coarse steps: the grid's part of the error hardly depends on the step.
   c.grid_part = nan_value;  // not verified until two grids were compared
   for (int k = 0; k < 3; ++k) {
-    Scenario finer = on_finer_grid(c.scenario, coarse.result().grid);
+    Scenario finer = on_finer_grid(c.scenario, coarse.result());
     if (!fits(coarse.result(), coarse.result().steps, *finer.spectrum.points)) break;
     ScenarioWork fine = run(finer, request, false);
     const LineDistance d = line_distance(coarse.result().forward, fine.result().forward);
     c.grid_part = d.distance;
+    grid_shift = shift(coarse, fine);
     c.max_work_shift = d.max_work_shift;
-    c.trail.back() += ": distance to the coarser grid " + short_number(c.grid_part, 3);
+    c.trail.back() += (coarse.result().diagnostics.edge_amplitude > 1e-8
+                           ? " over 5/4 the extent (the coarser run's states reached its edge)"
+                           : std::string()) +
+                      ": distance to the coarser grid " + short_number(c.grid_part, 3);
     if (c.grid_part <= tolerance / 2) break;
     c.scenario = std::move(finer);
     coarse = std::move(fine);
@@ -490,9 +522,11 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       const double richardson = d / (std::pow(ratio, order) - 1);
       const bool asymptotic = std::isfinite(predicted_distance) && d <= 2 * predicted_distance + 1e-14;
       c.trail.back() += ": distance to " + std::to_string(base) + " steps " + short_number(d, 3);
+      const DirectMoments moved = shift(coarse, fine);
       coarse = std::move(fine);
       coarse_seconds = last_seconds;
       last_distance = d;
+      step_shift = moved;  // the shift bounds the coarser run's error, whatever the order
       if (d <= tolerance / 2) {
         c.time_step_part = d;
         c.time_step_rule = "the distance to the coarser run";
@@ -502,6 +536,10 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       c.time_step_part = richardson;
       c.time_step_rule = "Richardson's rule, order " + std::to_string(int(order));
       if (asymptotic && richardson <= tolerance / 2) {
+        // Richardson's estimate, doubled as run_work doubles its half-step shift (the estimate
+        // alone was 0.30 h*kHz for a true 0.2987 on a fast harmonic squeeze: right, no room)
+        const double f = 2 / (std::pow(ratio, order) - 1);
+        step_shift = {f * moved.mean, f * moved.variance};
         verified = true;
         break;
       }
@@ -573,6 +611,7 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
       // faster: it finished within half the split-operator run's time (estimated, above)
       if (c.ode_part + c.grid_part <= tolerance && agreement <= tolerance) {
         c.method = basis.result().method;
+        step_shift = shift(basis, finer);
         coarse = std::move(basis);
       }
     } catch (const ArithmeticLimitReached& stop) {
@@ -586,6 +625,11 @@ ToleranceChoice compute_work_to_tolerance(const Scenario& s, WorkRequest request
                         " (" + short_number(std::chrono::duration<double>(std::chrono::steady_clock::now() - tried).count(), 2) + " s)");
     }
   }
+  if (coarse.result().steps == 0) step_shift = {0, 0};  // a sudden switch has no time step
+  discretisation(coarse, step_shift, grid_shift,
+                 c.method.rfind("eigenbasis", 0) == 0
+                     ? "the --tolerance search's pairs: the eigenbasis ODE's check and the grid's refinement"
+                     : "the --tolerance search's pairs: the time step's and the grid's refinement");
   c.work = std::move(coarse);
   c.work->request.spectrum.options.memo.reset();  // the returned request solves afresh
   c.scenario.spectrum.points = c.points;
@@ -633,6 +677,12 @@ std::vector<WorkCheck> work_checks(const WorkRun& run) {
                "WorkRequest.unresolved_tolerance: probability not captured by the final levels kept"});
   c.push_back({"edge amplitude", g.edge_amplitude, 1e-8,
                "relative |psi|^2 in the outer 2% of the grid; the library warns above 1e-8"});
+  c.push_back({"momentum edge", g.momentum_edge, momentum_edge_tolerance,
+               "weight of the propagated states in the outer 2% of the grid's momenta, largest over the run; the "
+               "library refines the automatic grid, and warns, above it"});
+  c.push_back({"position edge", g.position_edge, momentum_edge_tolerance,
+               "weight of the propagated states in the outer 2% of the grid's points, largest over the run; the "
+               "library widens the automatic grid, and warns, above it"});
   c.push_back({"time-step error", g.time_step_error, 1e-6,
                "max |dP(m->n)| against half the step; the library warns above 1e-6"});
   c.push_back({"grid convergence", g.grid_convergence / spacing, 1e-6,
@@ -903,7 +953,10 @@ json moments_json(const MomentErrors& m, const Energy& energy) {
           {"variance_final_levels_part_internal", number_or_null(m.variance_final)},
           {"variance_thermal_part_internal", number_or_null(m.variance_thermal)},
           {"variance_basis_part_internal", number_or_null(m.variance_basis)},
-          {"variance_error_internal", number_or_null(m.variance_error)},
+          {"mean_discretisation_part", energy(m.mean_discretisation)},
+          {"variance_discretisation_part_internal", number_or_null(m.variance_discretisation)},
+          {"discretisation_measured_by", m.discretisation_from.empty() ? json(nullptr) : json(m.discretisation_from)},
+          {"variance_error_internal", number_or_null(m.reported_variance_error())},
           {"mean_error_known", std::isfinite(m.mean_error)},
           {"variance_error_known", std::isfinite(m.variance_error)},
           {"relative_tolerance", number_or_null(m.tolerance)},
@@ -996,7 +1049,7 @@ json work_summary(const WorkRun& run) {
         {"final_margin_used", g.final_margin}}},
       {"work",
        {{"mean", energy(d.mean)},
-        {"mean_error", energy(g.moments.mean_error)},
+        {"mean_error", energy(g.moments.reported_mean_error())},
         {"sd", energy(sd_of(d))},
         {"sd_error", energy(sd_error_of(d, g.moments))},
         {"moments", moments_json(g.moments, energy)},
@@ -1027,6 +1080,9 @@ json work_summary(const WorkRun& run) {
        {{"norm_drift", g.norm_drift},
         {"unresolved_weight", g.unresolved_weight},
         {"edge_amplitude", g.edge_amplitude},
+        {"momentum_edge", number_or_null(g.momentum_edge)},
+        {"position_edge", number_or_null(g.position_edge)},
+        {"grid_refinements", g.grid_refinements},
         {"time_step_error", number_or_null(g.time_step_error)},
         {"max_phase_per_step", g.max_phase_per_step},
         {"grid_convergence", number_or_null(g.grid_convergence)},
@@ -1429,13 +1485,17 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
     if (!std::isfinite(error)) return std::string("  (error not known)");
     return "  +- " + e.text(error, 2) + (met ? "" : "  (above the tolerance " + short_number(mom.tolerance, 2) + ", relative)");
   };
-  row("<W>", e.text(d.mean) + error_text(mom.mean_error, mom.mean_met()));
+  row("<W>", e.text(d.mean) + error_text(mom.reported_mean_error(), mom.mean_met()));
   row("sd(W)", e.text(sd_of(d)) + error_text(sd_error_of(d, mom), mom.variance_met()));
   if (std::isfinite(mom.mean_direct))
     row("moments", "from the states directly: <W> = " + e.text(mom.mean_direct, 10) + ", sd(W) = " +
                        e.text(std::sqrt(std::max(0.0, mom.variance_direct)), 10) + "; <W> error parts: final levels " +
                        e.text(std::abs(mom.mean_final), 2) + ", thermal cut " + e.text(mom.mean_thermal, 2) +
-                       ", basis " + (std::isfinite(mom.mean_basis) ? e.text(mom.mean_basis, 2) : std::string("not known")));
+                       ", basis " + (std::isfinite(mom.mean_basis) ? e.text(mom.mean_basis, 2) : std::string("not known")) +
+                       ", discretisation " +
+                       (std::isfinite(mom.mean_discretisation)
+                            ? e.text(mom.mean_discretisation, 2) + " (from " + mom.discretisation_from + ")"
+                            : std::string("not measured (no half-step run: set [work] time_step_check = true)")));
   row("skewness", !std::isnan(defined_skewness(d)) ? short_number(d.skewness, 4) + "  (error not estimated: line sum only)"
                   : d.variance > 0
                       ? "not defined: var(W) is below " + short_number(probability_rounding_floor) +
@@ -1631,7 +1691,7 @@ SweepRow failed_sweep_row(const SweepSpec& sweep, std::size_t point, const std::
   SweepRow r;
   r.point = point;
   r.values = sweep.point_values(point);
-  for (double* x : {&r.mean, &r.sd, &r.skewness, &r.free_energy_change, &r.dissipated_work, &r.jarzynski_residual,
+  for (double* x : {&r.mean, &r.sd, &r.mean_error, &r.sd_error, &r.skewness, &r.free_energy_change, &r.dissipated_work, &r.jarzynski_residual,
                     &r.crooks_ratio_error, &r.harmonic_mean, &r.harmonic_sd, &r.time_step_error, &r.unresolved_weight,
                     &r.calibration_mean_sd, &r.calibration_sd_sd, &r.calibration_free_energy_sd, &r.calibration_check})
     *x = nan_value;
@@ -1649,6 +1709,8 @@ SweepRow sweep_row(const WorkRun& run, const SweepSpec& sweep, std::size_t point
   row.values = sweep.point_values(point);
   row.mean = d.mean;
   row.sd = sd_of(d);
+  row.mean_error = r.diagnostics.moments.reported_mean_error();
+  row.sd_error = sd_error_of(d, r.diagnostics.moments);
   row.skewness = defined_skewness(d);
   row.free_energy_change = d.free_energy_change;
   row.dissipated_work = d.dissipated_work;
@@ -1687,7 +1749,8 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
   if (several) t.columns.push_back({"point", {}});
   for (const auto& a : w.axes) t.columns.push_back({sweep_column(a), {}});
   const std::size_t first = t.columns.size();  // the first column after the swept values
-  const std::vector<std::string> names = {"mean_work" + ec, "sd_work" + ec, "skewness", "free_energy_change" + ec,
+  const std::vector<std::string> names = {"mean_work" + ec, "mean_work_error" + ec, "sd_work" + ec,
+      "sd_work_error" + ec, "skewness", "free_energy_change" + ec,
       "dissipated_work" + ec, "jarzynski_residual", "crooks_ratio_error", "harmonic_mean_work" + ec,
       "harmonic_sd_work" + ec, "time_step_error", "unresolved_weight", "warnings", "failed"};
   for (const auto& n : names) t.columns.push_back({n, {}});
@@ -1713,7 +1776,8 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
     if (several) v.push_back(double(r.point + 1));
     for (std::size_t k = 0; k < w.axes.size(); ++k)
       v.push_back(conversion_rounded(r.values[k] / w.axes[k].internal_per_unit));
-    for (double x : {d.energy(r.mean), d.energy(r.sd), r.skewness, d.energy(r.free_energy_change),
+    for (double x : {d.energy(r.mean), d.energy(r.mean_error), d.energy(r.sd), d.energy(r.sd_error), r.skewness,
+                     d.energy(r.free_energy_change),
                      d.energy(r.dissipated_work), r.jarzynski_residual, r.crooks_ratio_error,
                      d.energy(r.harmonic_mean), d.energy(r.harmonic_sd), r.time_step_error, r.unresolved_weight,
                      double(r.warnings), r.failure.empty() ? 0.0 : 1.0})
@@ -1729,9 +1793,9 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
   auto any = [&](double SweepRow::*member) {
     return std::any_of(rows.begin(), rows.end(), [&](const SweepRow& r) { return std::isfinite(r.*member); });
   };
-  t.columns[first + 6].applies = any(&SweepRow::crooks_ratio_error);
-  t.columns[first + 7].applies = any(&SweepRow::harmonic_mean);
-  t.columns[first + 8].applies = any(&SweepRow::harmonic_sd);
+  t.columns[first + 8].applies = any(&SweepRow::crooks_ratio_error);
+  t.columns[first + 9].applies = any(&SweepRow::harmonic_mean);
+  t.columns[first + 10].applies = any(&SweepRow::harmonic_sd);
   std::string swept;
   for (const auto& a : w.axes)
     swept += (swept.empty() ? "" : ", ") + a.parameter + " in " + (a.unit.empty() ? std::string("internal units") : a.unit);
@@ -1742,6 +1806,8 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
                                                           "number, 1-based)" : " (a list of points; point: its number, 1-based)")
                                     : std::string()) + "; energies in " + d.e + "; nan where a value does not exist at a point (no Gibbs state, no harmonic "
           "reference, a failed point); crooks_ratio_error, harmonic_*: empty when no point has them",
+      "mean_work_error, sd_work_error: the error estimates trapwork work prints beside <W> and sd(W) (the "
+      "level truncation, plus the time step where [work] time_step_check ran; nan: not known)",
       "warnings: number of warnings of that point's run (see trapwork work on the scenario at that value)",
       "failed: 1 where the point could not be computed (numbers nan; its message below; trapwork sweep --resume "
       "keeps it, --resume --retry-failed computes it again; give them with this run's other options, "

@@ -44,6 +44,7 @@ struct ScenarioWork {
   std::optional<SoftWallComparison> soft_walls;  // moving walls with [box.soft_walls]
   WorkResult plain;
   const WorkResult& result() const { return walls ? walls->work : plain; }
+  WorkResult& result() { return walls ? walls->work : plain; }
   WorkRun run(const Scenario& s) const {
     return {s, protocol, request, result(), walls ? &*walls : nullptr, nullptr, soft_walls ? &*soft_walls : nullptr};
   }
@@ -230,6 +231,7 @@ struct SweepRow {
   std::size_t point = 0;       // the point's number in [sweep] (0-based, SweepSpec)
   std::vector<double> values;  // its swept values, one per axis, internal
   double mean = 0, sd = 0, skewness = 0;
+  double mean_error = 0, sd_error = 0;  // as the report prints them (NaN: not known)
   double free_energy_change = 0, dissipated_work = 0, jarzynski_residual = 0, crooks_ratio_error = 0;
   double harmonic_mean = 0, harmonic_sd = 0;
   double time_step_error = 0, unresolved_weight = 0;

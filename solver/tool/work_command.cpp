@@ -1,10 +1,12 @@
 // `trapwork work`, `trapwork sweep` and `trapwork demo` (see commands.hpp).
 #include <algorithm>
+#include <limits>
 #include <cmath>
 #include <cstdint>
 #include <cstdlib>
 #include <fstream>
 #include <iostream>
+#include <limits>
 #include <memory>
 #include <sstream>
 #include <unistd.h>
@@ -84,7 +86,7 @@ std::string sweep_point_line(std::size_t i, const SweepRow& r) {
   if (!r.failure.empty()) return line + " failed " + r.failure;
   for (double v : {r.mean, r.sd, r.skewness, r.free_energy_change, r.dissipated_work, r.jarzynski_residual,
                    r.crooks_ratio_error, r.harmonic_mean, r.harmonic_sd, r.time_step_error, r.unresolved_weight,
-                   double(r.warnings)})
+                   double(r.warnings), r.mean_error, r.sd_error})
     line += ' ' + number_text(v);
   if (r.calibration_method != 0)  // the calibration's spread: 5 more numbers
     for (double v : {r.calibration_mean_sd, r.calibration_sd_sd, r.calibration_free_energy_sd,
@@ -119,19 +121,25 @@ std::optional<std::pair<std::size_t, SweepRow>> parse_sweep_point(const std::str
     row = failed_sweep_row(sweep, i, message);
     return std::pair{i, row};
   }
-  double x[17];
+  // 14 numbers, 19 with the calibration's spread; 12 and 17 from before the moments' errors were
+  // recorded (read with those errors NaN: not known)
+  double x[19];
   for (int k = 0; k < 12; ++k)
     if ((k > 0 && !(fields >> word)) || !number(word, x[k])) return std::nullopt;
-  int count = 12;  // 17 with the calibration's spread
+  int count = 12;
   while (fields >> word) {
-    if (count == 17 || !number(word, x[count])) return std::nullopt;  // more than the numbers of a point
+    if (count == 19 || !number(word, x[count])) return std::nullopt;  // more than the numbers of a point
     ++count;
   }
-  if (count != 12 && count != 17) return std::nullopt;
-  if (count == 17) {
-    if (!(x[15] == 1 || x[15] == 2)) return std::nullopt;
-    row.calibration_mean_sd = x[12], row.calibration_sd_sd = x[13], row.calibration_free_energy_sd = x[14];
-    row.calibration_method = int(x[15]), row.calibration_check = x[16];
+  if (count != 12 && count != 14 && count != 17 && count != 19) return std::nullopt;
+  const int errors = count == 14 || count == 19 ? 2 : 0, calibration = 12 + errors;
+  row.mean_error = errors ? x[12] : std::numeric_limits<double>::quiet_NaN();
+  row.sd_error = errors ? x[13] : std::numeric_limits<double>::quiet_NaN();
+  if (count - errors == 17) {
+    if (!(x[calibration + 3] == 1 || x[calibration + 3] == 2)) return std::nullopt;
+    row.calibration_mean_sd = x[calibration], row.calibration_sd_sd = x[calibration + 1];
+    row.calibration_free_energy_sd = x[calibration + 2];
+    row.calibration_method = int(x[calibration + 3]), row.calibration_check = x[calibration + 4];
   }
   // the warning count a whole number (converting nan or a huge double to int is undefined)
   if (!(x[11] >= 0 && x[11] <= 1e6 && x[11] == std::floor(x[11]))) return std::nullopt;
@@ -166,7 +174,7 @@ std::vector<std::pair<std::size_t, SweepRow>> read_sweep_points(const std::files
   for (int number = 2; std::getline(in, line); ++number) {
     const auto point = parse_sweep_point(line, sweep);
     if (!point || seen[point->first])
-      throw InputError("", line, "a finished sweep point (number, the swept values, and 12 numbers or \"failed\" and "
+      throw InputError("", line, "a finished sweep point (number, the swept values, and 14 numbers or \"failed\" and "
                        "a message) of this scenario, each once: remove the file, or run without --resume", "",
                        file.string(), number);
     seen[point->first] = true;
