@@ -908,8 +908,13 @@ std::optional<HarmonicComparison> harmonic_comparison(const Potential& base, con
   const double w0 = model->w0, w1 = model->w1;
   h.model = model->model;
   h.parameter = model->parameter;
-  h.reference = {model->displaced ? displaced_transition_matrix(rows, cols, h.parameter)
-                                  : husimi_transition_matrix(rows, cols, h.parameter)};
+  try {
+    h.reference = {model->displaced ? displaced_transition_matrix(rows, cols, h.parameter)
+                                    : husimi_transition_matrix(rows, cols, h.parameter)};
+  } catch (const PhysicsError& e) {  // the closed forms' digits run out: no reference rather than a wrong one
+    why_not = e.what();
+    return std::nullopt;
+  }
   h.exact = base.terms().size() == 1 && base.terms().front().shape() == Shape::harmonic;
   WorkInput ref;
   ref.transitions = h.reference;

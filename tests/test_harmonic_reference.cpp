@@ -110,6 +110,26 @@ TEST_CASE("Husimi matrix matches Husimi's generating function", "[harmonic]") {
   }
 }
 
+TEST_CASE("Husimi matrix keeps its digits for many levels at a strong squeeze", "[harmonic]") {
+  // In doubles the recurrence gave row sums of 1.4e10 for 130 initial and 210 final levels at
+  // Q* = 4.16 (a run's harmonic reference printed max |P - P_harm| = 1.39e+10). Checks: every row
+  // a probability distribution (sum <= 1, and 1 where the final levels hold the row), and the symmetry P(m->n) = P(n->m) of
+  // Husimi's probabilities (Husimi 1953, from memory), which the recurrence in m does not impose.
+  const double q = 4.1634368813908536;
+  const auto p = husimi_transition_matrix(130, 400, q);
+  for (Eigen::Index m = 0; m < p.rows(); ++m) {
+    INFO("row " << m << " sum " << p.row(m).sum());
+    CHECK(p.row(m).minCoeff() >= 0);
+    CHECK(p.row(m).sum() <= 1 + 1e-12);
+  }
+  CHECK(std::abs(p.row(0).sum() - 1) < 1e-12);
+  CHECK(std::abs(p.row(20).sum() - 1) < 1e-12);  // (row 40 spreads past 400 levels: 1 - 7.7e-5)
+  double asymmetry = 0;
+  for (int m = 0; m < 130; ++m)
+    for (int n = 0; n < 130; ++n) asymmetry = std::max(asymmetry, std::abs(p(m, n) - p(n, m)));
+  CHECK(asymmetry < 1e-14);
+}
+
 TEST_CASE("parametric Q* from the classical equation of motion", "[harmonic]") {
   // omega^2 linear from 1 to 4 over tau (Airy-function solutions; mpmath, CHECK to 1e-10)
   for (auto [tau, expect] : {std::pair{1.0, 1.1149494069249281487}, std::pair{5.0, 1.0111003637936734767}}) {
