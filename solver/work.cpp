@@ -1002,6 +1002,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
     const SpectrumResult& ra = spectra.first;
     const SpectrumResult& rb = spectra.second;
     cutoff = std::max(ra.energy_cutoff, rb.energy_cutoff);
+    result.diagnostics.finite_depth = ra.finite_depth || rb.finite_depth;
     result.diagnostics.grid_convergence =  // NaN: not checked ([grid] convergence_check = false)
         ra.convergence.done && rb.convergence.done
             ? std::max(ra.convergence.max_energy_change, rb.convergence.max_energy_change)
@@ -1270,11 +1271,14 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
                             "the lines are not reliable; set a finer grid: [grid] points above " +
                             std::to_string(2 * grid.size()) + " with left and right" + refined);
   if (diag.position_edge > momentum_edge_tolerance)
-    diag.warnings.push_back("the propagated states reach the ends of the grid (weight " + fmt(diag.position_edge) +
-                            " in its outer 2%, the largest over the run): they wrap around and the lines are not "
-                            "reliable; widen the grid: [grid] left and right beyond " +
-                            request.spectrum.message_units(grid.left(), Dimension::length()) + " and " +
-                            request.spectrum.message_units(grid.right(), Dimension::length()) + refined);
+    diag.warnings.push_back(
+        "the propagated states reach the ends of the grid (weight " + fmt(diag.position_edge) +
+        " in its outer 2%, the largest over the run): they wrap around and the lines are not reliable; " +
+        (diag.finite_depth ? std::string("the trap has a finite depth: what leaves it is lost wherever the grid "
+                                         "ends (see the unresolved weight)")
+                           : "widen the grid: [grid] left and right beyond " +
+                                 request.spectrum.message_units(grid.left(), Dimension::length()) + " and " +
+                                 request.spectrum.message_units(grid.right(), Dimension::length()) + refined));
   if (diag.time_step_error > 1e-6)
     diag.warnings.push_back("line probabilities change by " + fmt(diag.time_step_error) +
                             " at half the time step: raise steps (now " + std::to_string(steps) + ")");
@@ -1428,7 +1432,8 @@ WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkR
     const double escape = std::max(d.unresolved_weight, d.truncation.reverse_tail);
     const bool moments = d.moments.mean_met() && d.moments.variance_met();
     const bool levels_done = (!(escape > r.unresolved_tolerance) && moments) || attempt == 2;
-    const bool fast = d.momentum_edge > momentum_edge_tolerance, far = d.position_edge > momentum_edge_tolerance;
+    const bool fast = d.momentum_edge > momentum_edge_tolerance,
+               far = d.position_edge > momentum_edge_tolerance && !d.finite_depth;
     if (levels_done && automatic_grid && (fast || far) && r.grid_refinements < 2) {
       ++r.grid_refinements;
       if (fast) r.spacing_factor /= 2;

@@ -240,6 +240,9 @@ struct Diagnostics {
   // The same for the outer 2% of the grid points (a periodic grid wraps there too; 0 in a box).
   double position_edge = std::numeric_limits<double>::quiet_NaN();
   int grid_refinements = 0;       // times run_work refined the automatic grid for them
+  // H_A or H_B has a finite depth (a tweezer): what passes it leaves the trap wherever the grid
+  // ends, so run_work does not widen the grid for position_edge (the unresolved weight says it)
+  bool finite_depth = false;
   double time_step_error = std::numeric_limits<double>::quiet_NaN();  // max |dP(m->n)| vs half step
   double max_phase_per_step = 0;  // radians, largest kinetic or potential phase in one step
   double grid_convergence = std::numeric_limits<double>::quiet_NaN(); // max |dE| of kept levels, finer grid
