@@ -166,9 +166,9 @@ Eigen::MatrixXd husimi_transition_matrix(int initial_levels, int final_levels, d
   if (unitary_rows(p)) return p;
   p = husimi_probabilities<boost::multiprecision::cpp_bin_float_100>(final_levels, initial_levels, q);
   if (unitary_rows(p)) return p;
-  throw PhysicsError("Husimi's transition probabilities lose their digits for " + std::to_string(initial_levels) +
-                     " initial and " + std::to_string(final_levels) + " final levels at Q* = " + std::to_string(q) +
-                     " even with 100 decimal digits");
+  throw PhysicsError("Husimi's transition probabilities lose their digits for " +
+                     std::to_string(initial_levels) + " initial and " + std::to_string(final_levels) +
+                     " final levels at Q* = " + std::to_string(q) + " even with 100 decimal digits");
 }
 
 }  // namespace trapwork

@@ -467,9 +467,15 @@ int BatchedSplitStep::columns() const { return impl_->columns; }
 int BatchedSplitStep::threads() const { return impl_->pool.threads(); }
 const std::string& BatchedSplitStep::thread_refusal() const { return impl_->pool.refusal(); }
 int BatchedSplitStep::block_columns() const { return impl_->block; }
-const std::vector<double>& BatchedSplitStep::momentum_edge() const { return impl_->edge; }
-const std::vector<double>& BatchedSplitStep::position_edge() const { return impl_->position_edge; }
-void BatchedSplitStep::reset_edges() { impl_->reset_edges(); }
+const std::vector<double>& BatchedSplitStep::momentum_edge() const {
+  return impl_->edge;
+}
+const std::vector<double>& BatchedSplitStep::position_edge() const {
+  return impl_->position_edge;
+}
+void BatchedSplitStep::reset_edges() {
+  impl_->reset_edges();
+}
 
 void BatchedSplitStep::apply(Eigen::MatrixXcd& state, const complex* before, const complex* kinetic,
                              const complex* after) {
@@ -508,7 +514,8 @@ void BatchedSplitStep::apply_many(Eigen::MatrixXcd& state, int substeps, const c
           const complex* x = column(c);
           double all = 0, outer = 0;
           for (std::size_t j = 0; j < n; ++j) all += std::norm(x[j]);
-          for (std::size_t j = 0; j < band && !p.sine; ++j) outer += std::norm(x[j]) + std::norm(x[n - 1 - j]);
+          for (std::size_t j = 0; j < band && !p.sine; ++j)
+            outer += std::norm(x[j]) + std::norm(x[n - 1 - j]);
           norms[std::size_t(c) + std::size_t(worker) * std::size_t(p.block)] = all;
           double& e = p.position_edge[std::size_t(first + c)];
           if (all > 0) e = std::max(e, outer / all);

@@ -2,11 +2,11 @@
 
 #include <algorithm>
 #include <cmath>
-#include <numeric>
 #include <future>
 #include <limits>
 #include <map>
 #include <numbers>
+#include <numeric>
 #include <sstream>
 #include <system_error>
 #include <tuple>
@@ -206,7 +206,7 @@ DirectRows direct_rows(const WorkInput& in, const StateEnergies& direct) {
                   "moment_errors: one direct energy per kept initial level");
   DirectRows r{Eigen::VectorXd(rows), Eigen::VectorXd(rows)};
   for (int m = 0; m < rows; ++m) {
-    r.w[m] = direct.energy[m] - in.initial_energies[m];  // the row's mean work
+    r.w[m] = direct.energy[m] - in.initial_energies[m];    // the row's mean work
     r.s[m] = direct.energy_variance[m] + r.w[m] * r.w[m];  // the row's <W^2>
     const double p = in.initial_weights[std::size_t(m)];
     r.total += p;
@@ -713,7 +713,8 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
   }
   Eigen::MatrixXcd psi(start.rows(), Eigen::Index(now.size()));
   for (std::size_t i = 0; i < now.size(); ++i) psi.col(Eigen::Index(i)) = start.col(now[i]).cast<std::complex<double>>();
-  Eigen::MatrixXd edges = Eigen::MatrixXd::Constant(Eigen::Index(now.size()), 2, std::numeric_limits<double>::quiet_NaN());
+  Eigen::MatrixXd edges =
+      Eigen::MatrixXd::Constant(Eigen::Index(now.size()), 2, std::numeric_limits<double>::quiet_NaN());
   if (tau > 0 && !now.empty()) {
     path.from_lab(psi, 0);
     auto observer = [&](const Eigen::MatrixXcd&, double t) {
@@ -764,8 +765,10 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
     run.edges.resize(kept, 2);
     for (std::size_t m = 0, i = 0; m < sign.size(); ++m) {
       const bool old = sign[m] != 0;
-      run.edges.row(Eigen::Index(m)) = old ? earlier->edges.row(Eigen::Index(m)).eval() : edges.row(Eigen::Index(i)).eval();
-      all.col(Eigen::Index(m)) = old ? (sign[m] * earlier->final.col(Eigen::Index(m))).eval() : psi.col(Eigen::Index(i++));
+      run.edges.row(Eigen::Index(m)) =
+          old ? earlier->edges.row(Eigen::Index(m)).eval() : edges.row(Eigen::Index(i)).eval();
+      all.col(Eigen::Index(m)) =
+          old ? (sign[m] * earlier->final.col(Eigen::Index(m))).eval() : psi.col(Eigen::Index(i++));
     }
     psi = std::move(all);
     run.max_phase = std::max(run.max_phase, earlier->max_phase);
@@ -792,7 +795,12 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
   if (carry) carry->reset();
   if (carry && tau > 0 && request.integrator != Integrator::eigenbasis &&
       double(psi.size() + start.size()) * sizeof(std::complex<double>) <= carried_bytes)
-    *carry = Propagated{path.grid(), steps, start, psi, run.edges, run.max_phase,
+    *carry = Propagated{path.grid(),
+                        steps,
+                        start,
+                        psi,
+                        run.edges,
+                        run.max_phase,
                         trace ? std::optional<TraceColumns>(trace->data) : std::nullopt};
   const Eigen::Index n = psi.rows(), edge = std::max<Eigen::Index>(1, n / 50);
   for (Eigen::Index c = 0; c < psi.cols(); ++c) {
@@ -1033,8 +1041,8 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
     else if (fixed_grid && request.spectrum.points)
       grid = Grid::periodic(left, right, *request.spectrum.points);
     else
-      grid = Grid::periodic(left, right,
-                            fast_fft_size(std::size_t(std::ceil((right - left) / (dx * request.spacing_factor)))));
+      grid = Grid::periodic(
+          left, right, fast_fft_size(std::size_t(std::ceil((right - left) / (dx * request.spacing_factor)))));
     check_memory(work_cost(run_sizes(grid, levels, 0)), request.spectrum.options.memory_limit,
                  "refused before computing");
     const auto x = grid.points();
@@ -1258,27 +1266,30 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
       !w.empty())
     diag.warnings.push_back(w);
   if (diag.edge_amplitude > 1e-8)
-    diag.warnings.push_back("final states reach the grid edge (relative density " + fmt(diag.edge_amplitude) +
-                            " in the outer 2%): widen the grid" +
-                            (co_moving || !translation || !obstacle.empty() ? "" : " or use the co-moving frame"));
+    diag.warnings.push_back(
+        "final states reach the grid edge (relative density " + fmt(diag.edge_amplitude) +
+        " in the outer 2%): widen the grid" +
+        (co_moving || !translation || !obstacle.empty() ? "" : " or use the co-moving frame"));
   const std::string refined = fixed_grid ? std::string()
-                                          : " (the automatic grid was refined " + std::to_string(diag.grid_refinements) +
-                                                " time(s) already)";
+                                         : " (the automatic grid was refined " +
+                                               std::to_string(diag.grid_refinements) + " time(s) already)";
   if (diag.momentum_edge > momentum_edge_tolerance)
-    diag.warnings.push_back("the propagated states reach the grid's momentum limit pi hbar/dx (weight " +
-                            fmt(diag.momentum_edge) +
-                            " in the outer 2% of its momenta, the largest over the run): their motion aliases and "
-                            "the lines are not reliable; set a finer grid: [grid] points above " +
-                            std::to_string(2 * grid.size()) + " with left and right" + refined);
+    diag.warnings.push_back(
+        "the propagated states reach the grid's momentum limit pi hbar/dx (weight " +
+        fmt(diag.momentum_edge) +
+        " in the outer 2% of its momenta, the largest over the run): their motion aliases and "
+        "the lines are not reliable; set a finer grid: [grid] points above " +
+        std::to_string(2 * grid.size()) + " with left and right" + refined);
   if (diag.position_edge > momentum_edge_tolerance)
     diag.warnings.push_back(
         "the propagated states reach the ends of the grid (weight " + fmt(diag.position_edge) +
         " in its outer 2%, the largest over the run): they wrap around and the lines are not reliable; " +
-        (diag.finite_depth ? std::string("the trap has a finite depth: what leaves it is lost wherever the grid "
-                                         "ends (see the unresolved weight)")
-                           : "widen the grid: [grid] left and right beyond " +
-                                 request.spectrum.message_units(grid.left(), Dimension::length()) + " and " +
-                                 request.spectrum.message_units(grid.right(), Dimension::length()) + refined));
+        (diag.finite_depth
+             ? std::string("the trap has a finite depth: what leaves it is lost wherever the grid "
+                           "ends (see the unresolved weight)")
+             : "widen the grid: [grid] left and right beyond " +
+                   request.spectrum.message_units(grid.left(), Dimension::length()) + " and " +
+                   request.spectrum.message_units(grid.right(), Dimension::length()) + refined));
   if (diag.time_step_error > 1e-6)
     diag.warnings.push_back("line probabilities change by " + fmt(diag.time_step_error) +
                             " at half the time step: raise steps (now " + std::to_string(steps) + ")");
@@ -1438,14 +1449,15 @@ WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkR
       ++r.grid_refinements;
       if (fast) r.spacing_factor /= 2;
       if (far) r.extent_factor *= 1.5;
-      refined = "grid refined " + std::to_string(r.grid_refinements) + " time(s) (last from " +
-                std::to_string(result.grid.size()) + " points): the propagated states reached" +
-                (fast ? " its momentum limit pi hbar/dx (weight " + fmt(d.momentum_edge) + " in the outer 2% of its momenta" +
-                            (far ? "; spacing halved)" : ": spacing halved)")
-                      : "") +
-                (far ? std::string(fast ? " and" : "") + " its ends (weight " + fmt(d.position_edge) +
-                           " in its outer 2%: extent 3/2 as wide)"
-                     : "");
+      refined =
+          "grid refined " + std::to_string(r.grid_refinements) + " time(s) (last from " +
+          std::to_string(result.grid.size()) + " points): the propagated states reached" +
+          (fast ? " its momentum limit pi hbar/dx (weight " + fmt(d.momentum_edge) +
+                      " in the outer 2% of its momenta" + (far ? "; spacing halved)" : ": spacing halved)")
+                : "") +
+          (far ? std::string(fast ? " and" : "") + " its ends (weight " + fmt(d.position_edge) +
+                     " in its outer 2%: extent 3/2 as wide)"
+               : "");
       --attempt;  // the same levels on the finer grid
       continue;
     }

@@ -239,7 +239,7 @@ struct Diagnostics {
   double momentum_edge = std::numeric_limits<double>::quiet_NaN();
   // The same for the outer 2% of the grid points (a periodic grid wraps there too; 0 in a box).
   double position_edge = std::numeric_limits<double>::quiet_NaN();
-  int grid_refinements = 0;       // times run_work refined the automatic grid for them
+  int grid_refinements = 0;  // times run_work refined the automatic grid for them
   // H_A or H_B has a finite depth (a tweezer): what passes it leaves the trap wherever the grid
   // ends, so run_work does not widen the grid for position_edge (the unresolved weight says it)
   bool finite_depth = false;

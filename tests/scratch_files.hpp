@@ -1,11 +1,11 @@
 #pragma once
 // Helpers shared by the tests that write files: a fresh scratch folder, whole-file reads and
 // the numbers of a CSV file.
+#include <cstdlib>
 #include <filesystem>
 #include <fstream>
 #include <sstream>
 #include <stdexcept>
-#include <cstdlib>
 #include <string>
 #include <vector>
 

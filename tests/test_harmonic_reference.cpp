@@ -113,8 +113,9 @@ TEST_CASE("Husimi matrix matches Husimi's generating function", "[harmonic]") {
 TEST_CASE("Husimi matrix keeps its digits for many levels at a strong squeeze", "[harmonic]") {
   // In doubles the recurrence gave row sums of 1.4e10 for 130 initial and 210 final levels at
   // Q* = 4.16 (a run's harmonic reference printed max |P - P_harm| = 1.39e+10). Checks: every row
-  // a probability distribution (sum <= 1, and 1 where the final levels hold the row), and the symmetry P(m->n) = P(n->m) of
-  // Husimi's probabilities (Husimi 1953, from memory), which the recurrence in m does not impose.
+  // a probability distribution (sum <= 1, and 1 where the final levels hold the row), and the symmetry
+  // P(m->n) = P(n->m) of Husimi's probabilities (Husimi 1953, from memory), which the recurrence in m does
+  // not impose.
   const double q = 4.1634368813908536;
   const auto p = husimi_transition_matrix(130, 400, q);
   for (Eigen::Index m = 0; m < p.rows(); ++m) {

@@ -6,8 +6,6 @@
 // Points computed in different processes agree to rounding, not bit for bit: FFTW_MEASURE may
 // pick another transform algorithm in each process. They are compared to 1e-12 relative, the
 // rounding budget of tests/test_threads.cpp (steps * a few eps).
-#include "solver/scenario/output.hpp"
-
 #include <signal.h>
 #include <sys/wait.h>
 #include <unistd.h>
@@ -23,6 +21,7 @@
 #include <vector>
 
 #include "scratch_files.hpp"
+#include "solver/scenario/output.hpp"
 
 namespace fs = std::filesystem;
 using trapwork_test::read_all;
@@ -82,7 +81,8 @@ void check_same_sweep(const std::string& a, const std::string& b) {
     CHECK(x[r][0] == y[r][0]);
     for (std::size_t c = 1; c < x[r].size(); ++c) {
       INFO("row " << r << ", column " << c << ": " << x[r][c] << " vs " << y[r][c]);
-      if (c == crooks) {  // crooks_ratio_error: rounding of the smallest probabilities (tests/test_threads.cpp)
+      if (c ==
+          crooks) {  // crooks_ratio_error: rounding of the smallest probabilities (tests/test_threads.cpp)
         CHECK(std::abs(x[r][c]) < 1e-9);
         CHECK(std::abs(y[r][c]) < 1e-9);
       } else if (std::isnan(x[r][c]) || std::isnan(y[r][c]))

@@ -144,8 +144,8 @@ TEST_CASE("trapwork sweep with --jobs 1 and --jobs 2 writes the same numbers", "
     REQUIRE(WIFEXITED(status));
     REQUIRE(WEXITSTATUS(status) == 0);
   }
-  const std::size_t crooks_column =
-      trapwork_test::csv_column_index(trapwork_test::read_all(dir / "jobs1" / "sweep.csv"), "crooks_ratio_error");
+  const std::size_t crooks_column = trapwork_test::csv_column_index(
+      trapwork_test::read_all(dir / "jobs1" / "sweep.csv"), "crooks_ratio_error");
   const auto one = trapwork_test::csv_rows(trapwork_test::read_all(dir / "jobs1" / "sweep.csv"));
   const auto two = trapwork_test::csv_rows(trapwork_test::read_all(dir / "jobs2" / "sweep.csv"));
   REQUIRE(one.size() == 3);

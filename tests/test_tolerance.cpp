@@ -70,7 +70,8 @@ TEST_CASE("--tolerance: the estimate bounds the true distance to the exact Husim
     const WorkResult& r = c->work->result();
     const MomentErrors& m = r.diagnostics.moments;
     INFO("<W> - exact " << r.distribution.mean - r.harmonic->mean_work << " +- " << m.reported_mean_error()
-                        << " (truncation " << m.mean_error << ", discretisation " << m.mean_discretisation << ")");
+                        << " (truncation " << m.mean_error << ", discretisation " << m.mean_discretisation
+                        << ")");
     CHECK(std::isfinite(m.mean_discretisation));
     CHECK(m.discretisation_from.find("--tolerance search") != std::string::npos);
     CHECK(std::abs(r.distribution.mean - r.harmonic->mean_work) <= m.reported_mean_error());

@@ -1,7 +1,6 @@
 // Work distributions, fluctuation-relation checks, thermal weights and the truncation terms.
-#include <catch2/catch.hpp>
-
 #include <algorithm>
+#include <catch2/catch.hpp>
 #include <cmath>
 #include <iomanip>
 
@@ -315,7 +314,8 @@ TEST_CASE("the printed <W> error covers a coarse time step: the half-step run's 
   REQUIRE(r.harmonic->exact);
   const MomentErrors& m = r.diagnostics.moments;
   const double miss = std::abs(r.distribution.mean - r.harmonic->mean_work);
-  INFO("<W> - exact " << miss << ", truncation part " << m.mean_error << ", discretisation " << m.mean_discretisation);
+  INFO("<W> - exact " << miss << ", truncation part " << m.mean_error << ", discretisation "
+                      << m.mean_discretisation);
   CHECK(miss > 10 * m.mean_error);  // the truncation part alone would hide the miss
   CHECK(miss <= m.reported_mean_error());
   CHECK(m.reported_mean_error() < 3 * miss);  // and is not a blanket bound
@@ -325,13 +325,15 @@ TEST_CASE("the printed <W> error covers a coarse time step: the half-step run's 
   CHECK(std::isnan(run_work(base, ramp, request).diagnostics.moments.mean_discretisation));
 }
 
-TEST_CASE("a run whose states reach the grid's momentum limit is repeated on a finer grid; a fixed grid is warned",
-          "[work][grid]") {
+TEST_CASE(
+    "a run whose states reach the grid's momentum limit is repeated on a finer grid; a fixed grid is warned",
+    "[work][grid]") {
   // A harmonic trap squeezed to 20 times its frequency and back (sin^2 in time) in tau = 1.257:
   // the squeezed state's momenta pass the automatic grid's, chosen from the instantaneous spectra.
   // Against Husimi's <W> (J. Phys. Soc. Jpn. 9, 381 (1953), from memory; the run's own reference).
   const Potential base({Term("trap", Shape::harmonic, {{"frequency", 1.0}})});
-  const Protocol squeeze(1.257, {Schedule::formula("trap.frequency", "1 + 19*sin(3.141592653589793*t/tau)^2")});
+  const Protocol squeeze(1.257,
+                         {Schedule::formula("trap.frequency", "1 + 19*sin(3.141592653589793*t/tau)^2")});
   WorkRequest request;
   request.initial = InitialState::eigenstate(0);
   request.reverse_run = false;

@@ -513,8 +513,7 @@ void print_sweep_report(std::ostream& out, const SweepOutcome& run, std::vector<
   // With a calibration: its sd of <W> per point, the method, and the check where both ran.
   const bool calibrated = std::any_of(rows.begin(), rows.end(), [](const SweepRow& r) { return r.calibration_method != 0; });
   std::snprintf(line, sizeof line, " %14s %9s %14s %16s %14s %10s %8s%s\n", ("<W> " + e).c_str(), "+-",
-                ("sd " + e).c_str(),
-                ("harm. <W> " + e).c_str(), "<W> - harm.", "Jarzynski", "warnings",
+                ("sd " + e).c_str(), ("harm. <W> " + e).c_str(), "<W> - harm.", "Jarzynski", "warnings",
                 calibrated ? ("   calibration sd of <W> " + e).c_str() : "");
   out << line;
   int warned = 0;
@@ -531,7 +530,8 @@ void print_sweep_report(std::ostream& out, const SweepOutcome& run, std::vector<
                           (std::isfinite(r.calibration_check)
                                ? ", linear-sampled " + short_number(r.calibration_check, 2) + " se"
                                : std::string());
-    std::snprintf(line, sizeof line, " %14s %9s %14s %16s %14s %10s %8d%s\n", short_number(d.energy(r.mean), 7).c_str(),
+    std::snprintf(line, sizeof line, " %14s %9s %14s %16s %14s %10s %8d%s\n",
+                  short_number(d.energy(r.mean), 7).c_str(),
                   std::isfinite(r.mean_error) ? short_number(d.energy(r.mean_error), 2).c_str() : "?",
                   short_number(d.energy(r.sd), 5).c_str(), short_number(d.energy(r.harmonic_mean), 7).c_str(),
                   short_number(d.energy(r.mean - r.harmonic_mean), 4).c_str(),

@@ -253,8 +253,10 @@ Scenario on_finer_grid(const Scenario& s, const WorkResult& r) {
     finer.spectrum.points = fast_fft_size(3 * (g.size() + 1) / 2) - 1;
   } else if (!finer.spectrum.box) {
     const bool widen = r.diagnostics.edge_amplitude > 1e-8;
-    const double centre = (g.left() + g.right()) / 2, half = (widen ? 1.25 : 1.0) * (g.right() - g.left()) / 2;
-    finer.spectrum.points = fast_fft_size(std::size_t(std::ceil((widen ? 1.25 : 1.0) * 3 * double(g.size()) / 2)));
+    const double centre = (g.left() + g.right()) / 2,
+                 half = (widen ? 1.25 : 1.0) * (g.right() - g.left()) / 2;
+    finer.spectrum.points =
+        fast_fft_size(std::size_t(std::ceil((widen ? 1.25 : 1.0) * 3 * double(g.size()) / 2)));
     finer.spectrum.extent = std::make_pair(centre - half, centre + half);
   } else {
     finer.spectrum.points = fast_fft_size(3 * g.size() / 2);
@@ -677,12 +679,14 @@ std::vector<WorkCheck> work_checks(const WorkRun& run) {
                "WorkRequest.unresolved_tolerance: probability not captured by the final levels kept"});
   c.push_back({"edge amplitude", g.edge_amplitude, 1e-8,
                "relative |psi|^2 in the outer 2% of the grid; the library warns above 1e-8"});
-  c.push_back({"momentum edge", g.momentum_edge, momentum_edge_tolerance,
-               "weight of the propagated states in the outer 2% of the grid's momenta, largest over the run; the "
-               "library refines the automatic grid, and warns, above it"});
-  c.push_back({"position edge", g.position_edge, momentum_edge_tolerance,
-               "weight of the propagated states in the outer 2% of the grid's points, largest over the run; the "
-               "library widens the automatic grid, and warns, above it"});
+  c.push_back(
+      {"momentum edge", g.momentum_edge, momentum_edge_tolerance,
+       "weight of the propagated states in the outer 2% of the grid's momenta, largest over the run; the "
+       "library refines the automatic grid, and warns, above it"});
+  c.push_back(
+      {"position edge", g.position_edge, momentum_edge_tolerance,
+       "weight of the propagated states in the outer 2% of the grid's points, largest over the run; the "
+       "library widens the automatic grid, and warns, above it"});
   c.push_back({"time-step error", g.time_step_error, 1e-6,
                "max |dP(m->n)| against half the step; the library warns above 1e-6"});
   c.push_back({"grid convergence", g.grid_convergence / spacing, 1e-6,
@@ -955,7 +959,8 @@ json moments_json(const MomentErrors& m, const Energy& energy) {
           {"variance_basis_part_internal", number_or_null(m.variance_basis)},
           {"mean_discretisation_part", energy(m.mean_discretisation)},
           {"variance_discretisation_part_internal", number_or_null(m.variance_discretisation)},
-          {"discretisation_measured_by", m.discretisation_from.empty() ? json(nullptr) : json(m.discretisation_from)},
+          {"discretisation_measured_by",
+           m.discretisation_from.empty() ? json(nullptr) : json(m.discretisation_from)},
           {"variance_error_internal", number_or_null(m.reported_variance_error())},
           {"mean_error_known", std::isfinite(m.mean_error)},
           {"variance_error_known", std::isfinite(m.variance_error)},
@@ -1087,12 +1092,13 @@ json work_summary(const WorkRun& run) {
         {"max_phase_per_step", g.max_phase_per_step},
         {"grid_convergence", number_or_null(g.grid_convergence)},
         {"grid_convergence_unit", "internal energy (hbar^2/(m L0^2))"},
-        {"estimated_memory_bytes", g.estimated_bytes},        // before the propagation (solver/cost.hpp)
+        {"estimated_memory_bytes", g.estimated_bytes},  // before the propagation (solver/cost.hpp)
         {"estimated_operations", g.estimated_operations},
         {"checks", checks}}},
-      {"traces", {{"points", run.result.traces.time.size()},
-                  {"levels", run.result.traces.populations.cols()},
-                  {"note", traces_absent(run).empty() ? json(nullptr) : json(traces_absent(run))}}},
+      {"traces",
+       {{"points", run.result.traces.time.size()},
+        {"levels", run.result.traces.populations.cols()},
+        {"note", traces_absent(run).empty() ? json(nullptr) : json(traces_absent(run))}}},
       {"warnings", work_warnings(run)},
       {"notes", r.diagnostics.notes},
   };
@@ -1488,14 +1494,16 @@ void print_work_report(std::ostream& out, const WorkRun& run) {
   row("<W>", e.text(d.mean) + error_text(mom.reported_mean_error(), mom.mean_met()));
   row("sd(W)", e.text(sd_of(d)) + error_text(sd_error_of(d, mom), mom.variance_met()));
   if (std::isfinite(mom.mean_direct))
-    row("moments", "from the states directly: <W> = " + e.text(mom.mean_direct, 10) + ", sd(W) = " +
-                       e.text(std::sqrt(std::max(0.0, mom.variance_direct)), 10) + "; <W> error parts: final levels " +
-                       e.text(std::abs(mom.mean_final), 2) + ", thermal cut " + e.text(mom.mean_thermal, 2) +
-                       ", basis " + (std::isfinite(mom.mean_basis) ? e.text(mom.mean_basis, 2) : std::string("not known")) +
-                       ", discretisation " +
-                       (std::isfinite(mom.mean_discretisation)
-                            ? e.text(mom.mean_discretisation, 2) + " (from " + mom.discretisation_from + ")"
-                            : std::string("not measured (no half-step run: set [work] time_step_check = true)")));
+    row("moments",
+        "from the states directly: <W> = " + e.text(mom.mean_direct, 10) +
+            ", sd(W) = " + e.text(std::sqrt(std::max(0.0, mom.variance_direct)), 10) +
+            "; <W> error parts: final levels " + e.text(std::abs(mom.mean_final), 2) + ", thermal cut " +
+            e.text(mom.mean_thermal, 2) + ", basis " +
+            (std::isfinite(mom.mean_basis) ? e.text(mom.mean_basis, 2) : std::string("not known")) +
+            ", discretisation " +
+            (std::isfinite(mom.mean_discretisation)
+                 ? e.text(mom.mean_discretisation, 2) + " (from " + mom.discretisation_from + ")"
+                 : std::string("not measured (no half-step run: set [work] time_step_check = true)")));
   row("skewness", !std::isnan(defined_skewness(d)) ? short_number(d.skewness, 4) + "  (error not estimated: line sum only)"
                   : d.variance > 0
                       ? "not defined: var(W) is below " + short_number(probability_rounding_floor) +
@@ -1691,9 +1699,10 @@ SweepRow failed_sweep_row(const SweepSpec& sweep, std::size_t point, const std::
   SweepRow r;
   r.point = point;
   r.values = sweep.point_values(point);
-  for (double* x : {&r.mean, &r.sd, &r.mean_error, &r.sd_error, &r.skewness, &r.free_energy_change, &r.dissipated_work, &r.jarzynski_residual,
-                    &r.crooks_ratio_error, &r.harmonic_mean, &r.harmonic_sd, &r.time_step_error, &r.unresolved_weight,
-                    &r.calibration_mean_sd, &r.calibration_sd_sd, &r.calibration_free_energy_sd, &r.calibration_check})
+  for (double* x : {&r.mean, &r.sd, &r.mean_error, &r.sd_error, &r.skewness, &r.free_energy_change,
+                    &r.dissipated_work, &r.jarzynski_residual, &r.crooks_ratio_error, &r.harmonic_mean,
+                    &r.harmonic_sd, &r.time_step_error, &r.unresolved_weight, &r.calibration_mean_sd,
+                    &r.calibration_sd_sd, &r.calibration_free_energy_sd, &r.calibration_check})
     *x = nan_value;
   r.failure = message.empty() ? std::string("failed") : message;
   for (char& ch : r.failure)
@@ -1749,10 +1758,21 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
   if (several) t.columns.push_back({"point", {}});
   for (const auto& a : w.axes) t.columns.push_back({sweep_column(a), {}});
   const std::size_t first = t.columns.size();  // the first column after the swept values
-  const std::vector<std::string> names = {"mean_work" + ec, "mean_work_error" + ec, "sd_work" + ec,
-      "sd_work_error" + ec, "skewness", "free_energy_change" + ec,
-      "dissipated_work" + ec, "jarzynski_residual", "crooks_ratio_error", "harmonic_mean_work" + ec,
-      "harmonic_sd_work" + ec, "time_step_error", "unresolved_weight", "warnings", "failed"};
+  const std::vector<std::string> names = {"mean_work" + ec,
+                                          "mean_work_error" + ec,
+                                          "sd_work" + ec,
+                                          "sd_work_error" + ec,
+                                          "skewness",
+                                          "free_energy_change" + ec,
+                                          "dissipated_work" + ec,
+                                          "jarzynski_residual",
+                                          "crooks_ratio_error",
+                                          "harmonic_mean_work" + ec,
+                                          "harmonic_sd_work" + ec,
+                                          "time_step_error",
+                                          "unresolved_weight",
+                                          "warnings",
+                                          "failed"};
   for (const auto& n : names) t.columns.push_back({n, {}});
   // With a calibration: its spread of <W>, sd(W) and Delta F, the method and the check.
   const bool calibrated = std::any_of(rows.begin(), rows.end(), [](const SweepRow& r) { return r.calibration_method != 0; });
@@ -1776,11 +1796,11 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
     if (several) v.push_back(double(r.point + 1));
     for (std::size_t k = 0; k < w.axes.size(); ++k)
       v.push_back(conversion_rounded(r.values[k] / w.axes[k].internal_per_unit));
-    for (double x : {d.energy(r.mean), d.energy(r.mean_error), d.energy(r.sd), d.energy(r.sd_error), r.skewness,
-                     d.energy(r.free_energy_change),
-                     d.energy(r.dissipated_work), r.jarzynski_residual, r.crooks_ratio_error,
-                     d.energy(r.harmonic_mean), d.energy(r.harmonic_sd), r.time_step_error, r.unresolved_weight,
-                     double(r.warnings), r.failure.empty() ? 0.0 : 1.0})
+    for (double x :
+         {d.energy(r.mean), d.energy(r.mean_error), d.energy(r.sd), d.energy(r.sd_error), r.skewness,
+          d.energy(r.free_energy_change), d.energy(r.dissipated_work), r.jarzynski_residual,
+          r.crooks_ratio_error, d.energy(r.harmonic_mean), d.energy(r.harmonic_sd), r.time_step_error,
+          r.unresolved_weight, double(r.warnings), r.failure.empty() ? 0.0 : 1.0})
       v.push_back(x);
     if (calibrated)
       for (double x : {d.energy(r.calibration_mean_sd), d.energy(r.calibration_sd_sd),
@@ -1800,16 +1820,21 @@ CsvTable sweep_table(const Scenario& s, std::vector<SweepRow> rows, std::size_t 
   for (const auto& a : w.axes)
     swept += (swept.empty() ? "" : ", ") + a.parameter + " in " + (a.unit.empty() ? std::string("internal units") : a.unit);
   t.comments = {
-      "trapwork sweep: " + (s.title.empty() ? s.file : s.title) + "; " + std::to_string(rows.size()) + " of " +
-          std::to_string(points) + " points done",
-      "swept " + swept + (several ? (w.grid ? " (a grid, the first parameter varying slowest; point: the point's "
-                                                          "number, 1-based)" : " (a list of points; point: its number, 1-based)")
-                                    : std::string()) + "; energies in " + d.e + "; nan where a value does not exist at a point (no Gibbs state, no harmonic "
+      "trapwork sweep: " + (s.title.empty() ? s.file : s.title) + "; " + std::to_string(rows.size()) +
+          " of " + std::to_string(points) + " points done",
+      "swept " + swept +
+          (several ? (w.grid ? " (a grid, the first parameter varying slowest; point: the point's "
+                               "number, 1-based)"
+                             : " (a list of points; point: its number, 1-based)")
+                   : std::string()) +
+          "; energies in " + d.e +
+          "; nan where a value does not exist at a point (no Gibbs state, no harmonic "
           "reference, a failed point); crooks_ratio_error, harmonic_*: empty when no point has them",
       "mean_work_error, sd_work_error: the error estimates trapwork work prints beside <W> and sd(W) (the "
       "level truncation, plus the time step where [work] time_step_check ran; nan: not known)",
       "warnings: number of warnings of that point's run (see trapwork work on the scenario at that value)",
-      "failed: 1 where the point could not be computed (numbers nan; its message below; trapwork sweep --resume "
+      "failed: 1 where the point could not be computed (numbers nan; its message below; trapwork sweep "
+      "--resume "
       "keeps it, --resume --retry-failed computes it again; give them with this run's other options, "
       "--uncertainty FILE included)",
   };

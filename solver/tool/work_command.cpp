@@ -1,6 +1,7 @@
 // `trapwork work`, `trapwork sweep` and `trapwork demo` (see commands.hpp).
+#include <unistd.h>
+
 #include <algorithm>
-#include <limits>
 #include <cmath>
 #include <cstdint>
 #include <cstdlib>
@@ -9,13 +10,12 @@
 #include <limits>
 #include <memory>
 #include <sstream>
-#include <unistd.h>
 
 #include "solver/errors.hpp"
-#include "solver/tool/commands.hpp"
 #include "solver/scenario/machine.hpp"
 #include "solver/scenario/progress.hpp"
 #include "solver/scenario/work_output.hpp"
+#include "solver/tool/commands.hpp"
 #include "solver/tool/sweep_points.hpp"
 
 namespace trapwork {
@@ -85,8 +85,8 @@ std::string sweep_point_line(std::size_t i, const SweepRow& r) {
   for (double v : r.values) line += ' ' + number_text(v);
   if (!r.failure.empty()) return line + " failed " + r.failure;
   for (double v : {r.mean, r.sd, r.skewness, r.free_energy_change, r.dissipated_work, r.jarzynski_residual,
-                   r.crooks_ratio_error, r.harmonic_mean, r.harmonic_sd, r.time_step_error, r.unresolved_weight,
-                   double(r.warnings), r.mean_error, r.sd_error})
+                   r.crooks_ratio_error, r.harmonic_mean, r.harmonic_sd, r.time_step_error,
+                   r.unresolved_weight, double(r.warnings), r.mean_error, r.sd_error})
     line += ' ' + number_text(v);
   if (r.calibration_method != 0)  // the calibration's spread: 5 more numbers
     for (double v : {r.calibration_mean_sd, r.calibration_sd_sd, r.calibration_free_energy_sd,
@@ -174,9 +174,10 @@ std::vector<std::pair<std::size_t, SweepRow>> read_sweep_points(const std::files
   for (int number = 2; std::getline(in, line); ++number) {
     const auto point = parse_sweep_point(line, sweep);
     if (!point || seen[point->first])
-      throw InputError("", line, "a finished sweep point (number, the swept values, and 14 numbers or \"failed\" and "
-                       "a message) of this scenario, each once: remove the file, or run without --resume", "",
-                       file.string(), number);
+      throw InputError("", line,
+                       "a finished sweep point (number, the swept values, and 14 numbers or \"failed\" and "
+                       "a message) of this scenario, each once: remove the file, or run without --resume",
+                       "", file.string(), number);
     seen[point->first] = true;
     done.push_back(*point);
   }
