@@ -381,18 +381,16 @@ struct BatchedSplitStep::Impl {
   // backward is forward, and spectral is scratch.
   fftw_plan forward[2] = {nullptr, nullptr}, backward[2] = {nullptr, nullptr};
   WorkerPool pool;
-  // momentum_edge(), position_edge(): one per column (each written by one worker per call)
+  // momentum_edge(), position_edge(): one per column (each written by one worker per call);
+  // norms: per worker and block column, the column's norm at the measurement
   std::vector<double> edge, position_edge, norms;
   long calls = 0;  // apply_many calls with one substep (every 32nd is measured)
-  void reset_edges() {
-    edge.assign(std::size_t(columns), 0.0);
-    position_edge.assign(std::size_t(columns), 0.0);
-    norms.assign(std::size_t(pool.threads()) * std::size_t(block), 0.0);
-  }
 
   Impl(std::size_t n_, int columns_, bool sine_, int threads, FftPlanning planning)
       : n(n_), columns(columns_), block(block_columns_for(n_, columns_)),
-        blocks((columns_ + block - 1) / block), sine(sine_), pool(std::max(1, threads)) {
+        blocks((columns_ + block - 1) / block), sine(sine_), pool(std::max(1, threads)),
+        edge(std::size_t(columns_), 0.0), position_edge(std::size_t(columns_), 0.0),
+        norms(std::size_t(pool.threads()) * std::size_t(block), 0.0) {
     try {
       for (int w = 0; w < pool.threads(); ++w)
         for (auto* list : {&scratch, &spectral}) {
@@ -473,9 +471,6 @@ const std::vector<double>& BatchedSplitStep::momentum_edge() const {
 const std::vector<double>& BatchedSplitStep::position_edge() const {
   return impl_->position_edge;
 }
-void BatchedSplitStep::reset_edges() {
-  impl_->reset_edges();
-}
 
 void BatchedSplitStep::apply(Eigen::MatrixXcd& state, const complex* before, const complex* kinetic,
                              const complex* after) {
@@ -490,8 +485,7 @@ void BatchedSplitStep::apply_many(Eigen::MatrixXcd& state, int substeps, const c
                   "BatchedSplitStep::apply: state is not points x columns");
   TRAPWORK_EXPECT(substeps >= 1, "BatchedSplitStep::apply_many needs substeps >= 1");
   const std::size_t n = p.n;
-  if (p.edge.empty()) p.reset_edges();
-  std::vector<double>& norms = p.norms;  // per worker and block column, its norm at the measurement
+  std::vector<double>& norms = p.norms;
   const bool measure = substeps > 1 || p.calls++ % 32 == 0;
   // the outer 2% of the modes: [n/2 - band, n/2 + band) in FFT order, the top 2 band sine modes
   const std::size_t band = std::max<std::size_t>(1, n / 100);

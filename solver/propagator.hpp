@@ -366,10 +366,9 @@ class BatchedSplitStep {
   // where a state's momentum reaches the grid's limit pi hbar/dx its motion aliases (wraps
   // around), which no check of the final states need see. position_edge(): the same for the
   // outer 2% of the grid points (a periodic grid's states wrap around there too; 0 for the sine
-  // transform, whose walls are the problem's own). Since construction or the last reset.
+  // transform, whose walls are the problem's own). Since construction.
   const std::vector<double>& momentum_edge() const;
   const std::vector<double>& position_edge() const;
-  void reset_edges();
 
  private:
   struct Impl;

@@ -815,6 +815,10 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
   return run;
 }
 
+// The grid run_work may refine (WorkRequest::spacing_factor, extent_factor): neither its extent,
+// its walls nor its points are given.
+bool refinable_grid(const WorkRequest& r) { return !r.spectrum.extent && !r.spectrum.box && !r.spectrum.points; }
+
 // Diagnostics::momentum_edge and position_edge of runs: their levels' shares summed with their
 // weights, the larger over the runs (NaN where none measured).
 void weighted_edges(Diagnostics& d, const Run& run, const std::vector<double>& weights) {
@@ -1270,9 +1274,10 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
         "final states reach the grid edge (relative density " + fmt(diag.edge_amplitude) +
         " in the outer 2%): widen the grid" +
         (co_moving || !translation || !obstacle.empty() ? "" : " or use the co-moving frame"));
-  const std::string refined = fixed_grid ? std::string()
-                                         : " (the automatic grid was refined " +
-                                               std::to_string(diag.grid_refinements) + " time(s) already)";
+  const std::string refined = !refinable_grid(request) ? std::string()
+                                                        : " (the automatic grid was refined " +
+                                                              std::to_string(diag.grid_refinements) +
+                                                              " time(s) already)";
   if (diag.momentum_edge > momentum_edge_tolerance)
     diag.warnings.push_back(
         "the propagated states reach the grid's momentum limit pi hbar/dx (weight " +
@@ -1435,7 +1440,7 @@ WorkResult run_work(const Potential& base, const Protocol& protocol, const WorkR
   // the energy range the automatic grid is chosen for, which may be all it needed: a harmonic
   // trap's centre swept 10 oscillator lengths and back in tau = 5.5/omega, lab frame,
   // reached 0.057 of its momenta on the first attempt's grid, none on the enlarged run's).
-  const bool automatic_grid = !r.spectrum.extent && !r.spectrum.box && !r.spectrum.points;
+  const bool automatic_grid = refinable_grid(r);
   std::string refined;
   for (int attempt = 0;; ++attempt) {
     WorkResult result = run_work_once(base, protocol, r, carried);
