@@ -62,6 +62,14 @@ double cdf_at_most(const NormalisedModel& m, double sigma, double w) {
 }
 
 // Index of the line within tol of w, or -1.
+// The q-quantile of sorted values (linear interpolation between order statistics).
+double sorted_quantile(const std::vector<double>& sorted, double q) {
+  const double h = q * double(sorted.size() - 1);
+  const std::size_t lo = std::size_t(std::floor(h));
+  const std::size_t hi = std::min(lo + 1, sorted.size() - 1);
+  return sorted[lo] + (h - double(lo)) * (sorted[hi] - sorted[lo]);
+}
+
 int matching_line(const NormalisedModel& m, double w, double tol) {
   const auto it = std::lower_bound(m.work.begin(), m.work.end(), w - tol);
   if (it == m.work.end() || *it > w + tol) return -1;
@@ -149,6 +157,27 @@ void jarzynski_part(WorkComparison& r, const std::vector<double>& work, const st
       std::isfinite(o.model_free_energy) ? o.beta * o.model_free_energy : model_free_energy_kT(lines, o.beta);
   j.model_with_resolution_kT = j.model_kT - o.beta * o.beta * sigma * sigma / 2;
   j.difference_kT = j.estimate_kT - j.model_with_resolution_kT;
+  if (o.resamples > 0 && std::isfinite(j.estimate_kT)) {
+    // The model's estimate from N runs: at most 2e7 draws in all, at least 200 experiments.
+    const std::size_t n = work.size();
+    j.experiments = int(std::min<std::size_t>(std::size_t(o.resamples), std::max<std::size_t>(200, 20'000'000 / n)));
+    std::mt19937_64 engine(o.seed ^ 0x9e3779b97f4a7c15ULL);  // a stream apart from the bootstrap's
+    std::vector<double> estimates(std::size_t(j.experiments));
+    double sum = 0;
+    for (double& e : estimates) {
+      e = jarzynski_estimate_kT(sample_work(lines, int(n), sigma, engine), o.beta);
+      sum += e;
+    }
+    std::sort(estimates.begin(), estimates.end());
+    j.model_mean_estimate_kT = sum / double(j.experiments);
+    j.model_lower_kT = sorted_quantile(estimates, (1 - o.confidence) / 2);
+    j.model_upper_kT = sorted_quantile(estimates, (1 + o.confidence) / 2);
+    // two-sided, ties counted half (mid-rank): 2 min(F(x), 1 - F(x))
+    const double below = double(std::lower_bound(estimates.begin(), estimates.end(), j.estimate_kT) - estimates.begin());
+    const double at_most = double(std::upper_bound(estimates.begin(), estimates.end(), j.estimate_kT) - estimates.begin());
+    const double f = (below + at_most) / 2 / double(j.experiments);
+    j.model_p_value = std::min(1.0, 2 * std::min(f, 1 - f) + 1.0 / double(j.experiments));
+  }
   r.jarzynski = j;
 }
 
@@ -287,14 +316,8 @@ JarzynskiEstimate bootstrap_jarzynski(const std::vector<double>& work, double be
     e = beta * w_min - std::log(s / double(n));
   }
   std::sort(estimates.begin(), estimates.end());
-  auto quantile = [&](double q) {
-    const double h = q * double(resamples - 1);
-    const std::size_t lo = std::size_t(std::floor(h));
-    const std::size_t hi = std::min(lo + 1, estimates.size() - 1);
-    return estimates[lo] + (h - double(lo)) * (estimates[hi] - estimates[lo]);
-  };
-  j.lower_kT = quantile((1 - confidence) / 2);
-  j.upper_kT = quantile((1 + confidence) / 2);
+  j.lower_kT = sorted_quantile(estimates, (1 - confidence) / 2);
+  j.upper_kT = sorted_quantile(estimates, (1 + confidence) / 2);
   return j;
 }
 
@@ -306,6 +329,8 @@ WorkComparison compare_samples(const std::vector<WorkLine>& model, const std::ve
   for (std::size_t i = 0; i < work.size(); ++i)
     if (!std::isfinite(work[i]))
       throw InputError("work[" + std::to_string(i) + "]", std::to_string(work[i]), "a finite work value");
+  TRAPWORK_EXPECT(o.precision.empty() || o.precision.size() == work.size(),
+                  "compare_samples: one precision per sample or none");
   const NormalisedModel m = normalise(model);
   const double sigma = o.resolution;
   WorkComparison r;
@@ -313,8 +338,26 @@ WorkComparison compare_samples(const std::vector<WorkLine>& model, const std::ve
   r.model_weight = m.weight;
   const double n = double(work.size());
 
+  // Exact values (sigma = 0) that lie within their written precision of a line are taken at the
+  // nearest such line for the matching below: data rounded to their digits must not read as
+  // impossible runs. The moments and the Jarzynski estimate keep the values as given.
+  std::vector<double> matched = work;
+  if (sigma == 0)
+    for (std::size_t i = 0; i < work.size(); ++i) {
+      const double p = o.precision.empty() ? 0.0 : o.precision[i];
+      const double tol = std::isnan(p) ? o.match_tolerance : std::max(o.match_tolerance, p * (1 + 1e-12));
+      const auto lo = std::lower_bound(m.work.begin(), m.work.end(), work[i] - tol);
+      const auto hi = std::upper_bound(m.work.begin(), m.work.end(), work[i] + tol);
+      if (lo == hi) continue;
+      const auto nearest = std::min_element(lo, hi, [&](double a, double b) {
+        return std::abs(a - work[i]) < std::abs(b - work[i]);
+      });
+      matched[i] = *nearest;
+      if (hi - lo > 1) ++r.ambiguous_runs;
+    }
+
   // Log-likelihood: ln sum_l p_l N(w - W_l; sigma) by log-sum-exp, or ln p of the matching line.
-  for (double w : work) {
+  for (double w : matched) {
     double ll = -infinity;
     if (sigma > 0) {
       double top = -infinity;
@@ -346,7 +389,7 @@ WorkComparison compare_samples(const std::vector<WorkLine>& model, const std::ve
     throw InputError("bin_edges", std::to_string(edges.size()) + " edges", "strictly ascending bin edges");
   if (edges.empty() && sigma == 0) {
     observed.assign(m.work.size(), 0.0);
-    for (double w : work) {
+    for (double w : matched) {
       const int l = matching_line(m, w, o.match_tolerance);
       if (l >= 0) observed[std::size_t(l)] += 1;
     }
@@ -366,7 +409,7 @@ WorkComparison compare_samples(const std::vector<WorkLine>& model, const std::ve
     }
     // Samples off every line (sigma = 0) are impossible runs, kept out of the bins.
     std::vector<double> sorted;
-    for (double w : work)
+    for (double w : matched)
       if (sigma > 0 || matching_line(m, w, o.match_tolerance) >= 0) sorted.push_back(w);
     std::sort(sorted.begin(), sorted.end());
     double previous_count = 0, previous_cdf = 0;
@@ -382,7 +425,7 @@ WorkComparison compare_samples(const std::vector<WorkLine>& model, const std::ve
     }
   }
   categorical(r, observed, probability, o.min_expected);
-  r.ks_statistic = ks_statistic(m, sigma, work, o.match_tolerance);
+  r.ks_statistic = ks_statistic(m, sigma, matched, o.match_tolerance);
   if (sigma > 0) r.ks_p_value = kolmogorov_p_value(r.ks_statistic, int(r.runs));
   r.moments = sample_moments(work, m, sigma);
   jarzynski_part(r, work, model, sigma, o);

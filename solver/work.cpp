@@ -527,7 +527,9 @@ struct Run {
   // per kept initial level: its momentum_edge and position_edge (columns; see Diagnostics; NaN: not measured)
   Eigen::MatrixXd edges;
   StateEnergies energies;       // of the final states under H_B (v_final given)
-  double norm_drift = 0, edge_amplitude = 0, max_phase = 0, arithmetic = 0;
+  // per kept initial level: max |psi|^2 in the outer 2% of the grid / max |psi|^2 of its final state
+  Eigen::VectorXd edge_densities;
+  double norm_drift = 0, max_phase = 0, arithmetic = 0;
   int carried = 0;  // states taken from an earlier attempt (Propagated), not propagated
   std::string thread_shortfall;  // the threads the system refused to start, with its reason
 };
@@ -803,12 +805,13 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
                         run.max_phase,
                         trace ? std::optional<TraceColumns>(trace->data) : std::nullopt};
   const Eigen::Index n = psi.rows(), edge = std::max<Eigen::Index>(1, n / 50);
+  run.edge_densities = Eigen::VectorXd::Zero(psi.cols());
   for (Eigen::Index c = 0; c < psi.cols(); ++c) {
     run.norm_drift = std::max(run.norm_drift, std::abs(psi.col(c).squaredNorm() * dx - 1));
     const Eigen::VectorXd density = psi.col(c).cwiseAbs2();
     const double top = density.maxCoeff();
     const double outer = std::max(density.head(edge).maxCoeff(), density.tail(edge).maxCoeff());
-    if (top > 0) run.edge_amplitude = std::max(run.edge_amplitude, outer / top);
+    if (top > 0) run.edge_densities[c] = outer / top;
   }
   run.amplitudes = project(final, psi);
   if (v_final) run.energies = state_energies(path.grid(), *v_final, psi);
@@ -819,11 +822,18 @@ Run propagate_run(const PotentialPath& path, const Spectrum& initial, const Spec
 // its walls nor its points are given.
 bool refinable_grid(const WorkRequest& r) { return !r.spectrum.extent && !r.spectrum.box && !r.spectrum.points; }
 
-// Diagnostics::momentum_edge and position_edge of runs: their levels' shares summed with their
-// weights, the larger over the runs (NaN where none measured).
+// Diagnostics::edge_amplitude, momentum_edge and position_edge of runs: their levels' values
+// averaged with their weights, the larger over the runs (NaN where none measured). Weighted, so
+// that a high level of negligible population whose tail reaches the edge does not raise an alarm
+// that the work distribution it barely enters cannot justify.
 void weighted_edges(Diagnostics& d, const Run& run, const std::vector<double>& weights) {
-  if (run.edges.rows() == 0 || run.edges.rows() != Eigen::Index(weights.size())) return;
   const double total = std::accumulate(weights.begin(), weights.end(), 0.0);
+  if (run.edge_densities.size() == Eigen::Index(weights.size()) && total > 0) {
+    double sum = 0;
+    for (Eigen::Index m = 0; m < run.edge_densities.size(); ++m) sum += weights[std::size_t(m)] * run.edge_densities[m];
+    d.edge_amplitude = std::max(d.edge_amplitude, sum / total);
+  }
+  if (run.edges.rows() == 0 || run.edges.rows() != Eigen::Index(weights.size())) return;
   for (int k = 0; k < 2; ++k) {
     double sum = 0;
     for (Eigen::Index m = 0; m < run.edges.rows(); ++m) sum += weights[std::size_t(m)] * run.edges(m, k);
@@ -1191,7 +1201,6 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   result.distribution = work_distribution(result.forward, request.merge_tolerance);
   Diagnostics& diag = result.diagnostics;
   diag.norm_drift = fwd.norm_drift;
-  diag.edge_amplitude = fwd.edge_amplitude;
   weighted_edges(diag, fwd, wa.weights);
   diag.grid_refinements = request.grid_refinements;
   diag.max_phase_per_step = fwd.max_phase;
@@ -1272,7 +1281,7 @@ WorkResult run_work_once(const Potential& base, const Protocol& protocol, const 
   if (diag.edge_amplitude > 1e-8)
     diag.warnings.push_back(
         "final states reach the grid edge (relative density " + fmt(diag.edge_amplitude) +
-        " in the outer 2%): widen the grid" +
+        " in the outer 2%, averaged with the initial populations): widen the grid" +
         (co_moving || !translation || !obstacle.empty() ? "" : " or use the co-moving frame"));
   const std::string refined = !refinable_grid(request) ? std::string()
                                                         : " (the automatic grid was refined " +

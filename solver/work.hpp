@@ -230,7 +230,9 @@ inline constexpr double momentum_edge_tolerance = 1e-8;
 struct Diagnostics {
   double norm_drift = 0;          // max_m | ||psi_m(tau)||^2 - 1 |
   double unresolved_weight = 0;   // weighted probability not captured by the final levels kept
-  double edge_amplitude = 0;      // max |psi|^2 in the outer 2% of the grid / max |psi|^2 (final states)
+  // per final state max |psi|^2 in the outer 2% of the grid / max |psi|^2, averaged with the
+  // initial populations (the larger of the forward and reverse runs)
+  double edge_amplitude = 0;
   // The split-operator runs' states near the grid's momentum limit pi hbar/dx: per propagated
   // initial level, the largest share of its norm in the outer 2% of the momenta over the run
   // (BatchedSplitStep::momentum_edge), summed with the initial weights (the larger of the forward

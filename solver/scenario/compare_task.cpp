@@ -91,23 +91,31 @@ BinnedView bin_samples(const std::vector<double>& work, const std::vector<WorkLi
   return v;
 }
 
-std::string verdict_of(const WorkComparison& c) {
+// exact_samples: work samples with resolution 0 (whose impossible runs may be noisy values).
+std::string verdict_of(const WorkComparison& c, bool exact_samples) {
   // p-value thresholds 0.05 and 0.001: common practice for "marginal" and "strong" evidence.
   const double p = c.chi_square.p_value;
   std::string v;
   if (c.impossible_runs > 0)
-    v = "INCONSISTENT: " + std::to_string(c.impossible_runs) + " runs where the model has no probability";
+    v = "INCONSISTENT: " + std::to_string(c.impossible_runs) + " runs where the model has no probability" +
+        (exact_samples
+             ? " (exact work values lie within their written digits of a work line; noisy ones need the "
+               "measurement's resolution: --resolution or a '# resolution:' line)"
+             : "");
   else if (p < 1e-3)
     v = "INCONSISTENT: the data are very unlikely under the model (chi-square p = " + short_number(p, 2) + ")";
   else if (p < 0.05)
     v = "MARGINAL: chi-square p = " + short_number(p, 2) + " (below 0.05)";
   else
     v = "CONSISTENT: chi-square p = " + short_number(p, 2);
-  if (c.jarzynski && std::isfinite(c.jarzynski->lower_kT)) {
+  if (c.jarzynski && std::isfinite(c.jarzynski->model_lower_kT)) {
+    // The data's estimate against the model's own estimate from as many runs (calibrated at any N;
+    // the bootstrap interval is not: see JarzynskiEstimate).
     const auto& j = *c.jarzynski;
-    const bool inside = j.model_with_resolution_kT >= j.lower_kT && j.model_with_resolution_kT <= j.upper_kT;
-    v += std::string("; model Delta F ") + (inside ? "inside" : "OUTSIDE") + " the data's " +
-         short_number(100 * j.confidence, 3) + "% bootstrap interval";
+    const bool inside = j.estimate_kT >= j.model_lower_kT && j.estimate_kT <= j.model_upper_kT;
+    v += std::string("; data's Delta F estimate ") + (inside ? "inside" : "OUTSIDE") + " the model's " +
+         short_number(100 * j.confidence, 3) + "% range for " + std::to_string(c.runs) + " runs (p = " +
+         short_number(j.model_p_value, 2) + ")";
   }
   return v;
 }
@@ -122,6 +130,7 @@ nlohmann::ordered_json comparison_json(const WorkComparison& c, const Display& d
             {"log_likelihood_of", "work samples with resolution > 0: the density per internal energy unit E0; "
                                   "otherwise probabilities"},
             {"impossible_runs", c.impossible_runs},
+            {"ambiguous_runs", c.ambiguous_runs},
             {"chi_square",
              {{"statistic", num(c.chi_square.statistic)},
               {"degrees_of_freedom", c.chi_square.degrees_of_freedom},
@@ -156,6 +165,17 @@ nlohmann::ordered_json comparison_json(const WorkComparison& c, const Display& d
                       {"model_beta_delta_f", num(j.model_kT)},
                       {"model_with_resolution", num(j.model_with_resolution_kT)},
                       {"difference", num(j.difference_kT)},
+                      {"model_estimate_lower", num(j.model_lower_kT)},
+                      {"model_estimate_upper", num(j.model_upper_kT)},
+                      {"model_estimate_mean", num(j.model_mean_estimate_kT)},
+                      {"model_estimate_p_value", num(j.model_p_value)},
+                      {"model_experiments", j.experiments},
+                      {"model_estimate_of",
+                       "the Jarzynski estimate of synthetic data sets of as many runs drawn from the model with the "
+                       "resolution: its central range at the confidence level, its mean (mean - "
+                       "model_with_resolution is the estimator's bias at this N) and the two-sided p-value of the "
+                       "data's estimate; the verdict uses this range, the percentile bootstrap interval (lower, "
+                       "upper) covers less than its level at small N"},
                       {"kT", d.energy(1 / beta)},
                       {"unit", "kT (and kT in " + d.e + ")"}};
   }
@@ -215,12 +235,22 @@ void print_compare_report(std::ostream& out, const WorkRun& run, const WorkData&
                        "] kT (" + std::to_string(j.resamples) + " resamples, seed " + std::to_string(j.seed) + ")");
     row("", "model " + short_number(j.model_kT, 5) + " kT; with the resolution's -beta^2 sigma^2/2: " +
                 short_number(j.model_with_resolution_kT, 5) + " kT; kT = " + short_number(kT, 5) + " " + d.e);
+    if (std::isfinite(j.model_lower_kT))
+      row("", "the model's estimate from " + std::to_string(c.runs) + " runs: " + short_number(100 * j.confidence, 3) +
+                  "% range [" + short_number(j.model_lower_kT, 5) + ", " + short_number(j.model_upper_kT, 5) +
+                  "] kT, mean " + short_number(j.model_mean_estimate_kT, 5) + " kT (" +
+                  std::to_string(j.experiments) + " synthetic data sets); the data's estimate: p = " +
+                  short_number(j.model_p_value, 2));
   } else if (data.kind == WorkDataKind::histogram) {
     row("Delta F", "not estimated: a histogram does not fix <exp(-beta W)> inside a bin");
   } else {
     row("Delta F", "not estimated: the initial state is not thermal");
   }
   for (const auto& w : work_warnings(run)) out << "  warning: model: " << w << '\n';
+  if (c.ambiguous_runs > 0)
+    out << "  warning: data: " << c.ambiguous_runs
+        << " exact work values lie within their written digits of more than one work line; each was taken at the "
+           "nearest: write more digits\n";
   out << "\n  verdict     " << verdict << '\n';
 }
 
@@ -256,6 +286,7 @@ CompareTaskOutcome compare_task(const Scenario& scenario, const CompareSettings&
     switch (data.kind) {
       case WorkDataKind::samples:
         run_work = internal(data.samples.work_J, scenario);
+        options.precision = internal(data.samples.precision_J, scenario);
         comparison = compare_samples(lines, run_work, options);
         break;
       case WorkDataKind::level_pairs:
@@ -297,7 +328,7 @@ CompareTaskOutcome compare_task(const Scenario& scenario, const CompareSettings&
   }
   if (data.kind != WorkDataKind::histogram)
     view = bin_samples(run_work, lines, sigma, display_edges(run_work, lines, sigma, lowest_spacing(r)));
-  std::string verdict = verdict_of(comparison);
+  std::string verdict = verdict_of(comparison, data.kind == WorkDataKind::samples && !(sigma > 0));
   std::optional<ModelChoiceOutcome> choice;
   if (!settings.models.against.empty()) choice = choose_between(run, data, sigma, settings.models, hooks);
   std::optional<CalibratedLikelihood> calibrated;

@@ -351,29 +351,44 @@ int integer_field(const Table& t, const Row& r, const BoundColumn& c, const std:
   return v;
 }
 
-// The whole number a count field writes ("1200", "1.2e3", "+5"), exactly, from its decimal text:
-// nullopt when it is not a whole number >= 0 or does not fit in 63 bits.
-std::optional<std::int64_t> exact_count(std::string_view s) {
-  if (!s.empty() && s.front() == '+') s.remove_prefix(1);
-  std::string digits;  // mantissa digits, the decimal point removed
-  int exponent = 0;    // value = digits * 10^exponent
+// A decimal number's text ("1200", "-1.25e3", "+5") as its mantissa digits (the point removed,
+// the sign dropped) and the power of ten of the last digit: value = +-digits * 10^exponent.
+// nullopt when it is not such a number.
+struct DecimalText {
+  std::string digits;
+  int exponent = 0;
+};
+std::optional<DecimalText> decimal_text(std::string_view s) {
+  if (!s.empty() && (s.front() == '+' || s.front() == '-')) s.remove_prefix(1);
+  DecimalText d;
   std::size_t i = 0;
-  for (; i < s.size() && std::isdigit(static_cast<unsigned char>(s[i])); ++i) digits += s[i];
+  for (; i < s.size() && std::isdigit(static_cast<unsigned char>(s[i])); ++i) d.digits += s[i];
   if (i < s.size() && s[i] == '.')
-    for (++i; i < s.size() && std::isdigit(static_cast<unsigned char>(s[i])); ++i, --exponent) digits += s[i];
-  if (digits.empty()) return std::nullopt;
+    for (++i; i < s.size() && std::isdigit(static_cast<unsigned char>(s[i])); ++i, --d.exponent) d.digits += s[i];
+  if (d.digits.empty()) return std::nullopt;
   if (i < s.size() && (s[i] == 'e' || s[i] == 'E')) {
     int e = 0;
     const char* from = s.data() + i + 1;
     if (from < s.data() + s.size() && *from == '+') ++from;
     const auto [end, ec] = std::from_chars(from, s.data() + s.size(), e);
     if (ec != std::errc() || end != s.data() + s.size() || from == s.data() + s.size()) return std::nullopt;
-    if (e > 400 || e < -400)  // far beyond 2^63 or below 1: whole only when the digits are zeros
-      return digits.find_first_not_of('0') == std::string::npos ? std::optional<std::int64_t>(0) : std::nullopt;
-    exponent += e;
+    if (e > 400 || e < -400) e = e > 0 ? 400 : -400;  // far beyond any double's digits either way
+    d.exponent += e;
   } else if (i != s.size()) {
     return std::nullopt;
   }
+  return d;
+}
+
+// The whole number a count field writes ("1200", "1.2e3", "+5"), exactly, from its decimal text:
+// nullopt when it is not a whole number >= 0 or does not fit in 63 bits.
+std::optional<std::int64_t> exact_count(std::string_view s) {
+  if (!s.empty() && s.front() == '-') return std::nullopt;
+  auto parts = decimal_text(s);
+  if (!parts) return std::nullopt;
+  std::string& digits = parts->digits;
+  int exponent = parts->exponent;
+  if (digits.find_first_not_of('0') == std::string::npos) return 0;
   for (; exponent < 0; ++exponent) {  // the digits below the units must be zeros
     if (digits.back() != '0') return std::nullopt;
     digits.pop_back();
@@ -388,6 +403,13 @@ std::optional<std::int64_t> exact_count(std::string_view s) {
   const auto [end, ec] = std::from_chars(digits.data(), digits.data() + digits.size(), v);
   if (ec != std::errc() || end != digits.data() + digits.size()) return std::nullopt;
   return v;
+}
+
+// Half a unit of the last digit a number's text writes ("12.345" -> 0.0005, "1.2e3" -> 50,
+// "300" -> 0.5): the rounding its writer may have made. NaN when the text is not a decimal number.
+double half_last_digit(std::string_view s) {
+  const auto parts = decimal_text(s);
+  return parts ? 0.5 * std::pow(10.0, parts->exponent) : std::numeric_limits<double>::quiet_NaN();
 }
 
 // Whether the row is kept (no keep column: every row).
@@ -449,6 +471,7 @@ WorkSamplesData samples_from(const Table& t) {
     const double w = quantity_field(t, r, work);  // checked before keep: a rejected row must still be well formed
     if (!kept(t, r, columns, d.info)) continue;
     d.work_J.push_back(w);
+    d.precision_J.push_back(half_last_digit(r.fields[std::size_t(work.index)].text) * work.si_per_unit);
     d.lines.push_back(r.line);
   }
   d.info.rows = int(d.work_J.size());

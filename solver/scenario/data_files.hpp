@@ -111,6 +111,9 @@ struct DataFileInfo {
 struct WorkSamplesData {
   DataFileInfo info;
   std::vector<double> work_J;
+  // per value: half a unit of its last written digit (J), the rounding it may carry ("12.345"
+  // h*kHz: 0.0005 h*kHz); NaN where the text is not a plain decimal number
+  std::vector<double> precision_J;
   std::vector<int> lines;  // line number of each value
 };
 WorkSamplesData read_work_samples_text(std::string_view text, const std::string& file_name);

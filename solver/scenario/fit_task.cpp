@@ -87,12 +87,16 @@ std::string with_uncertainty(double v, double e) {
   return short_number(v, digits) + " +- " + short_number(e, 2);
 }
 
+// The lines in internal units; each line's linear term is the start trap's own `linear` (c1, a
+// static tilt the fit keeps fixed and fitted.toml keeps) plus the line's linear_coefficient.
 std::vector<TransitionDatum> internal_data(const TransitionLinesData& d, const Scenario& s) {
   const double force_si = s.units.to_si(1.0, Dimension::energy_per_length(1));  // N per internal force
+  const TermRecord& term = trap_term(s);
+  const double tilt = term.shape == "polynomial" ? s.potential.parameter(term.name + ".linear") : 0.0;
   std::vector<TransitionDatum> out;
   for (const auto& m : d.transitions)
     out.push_back({m.lower, m.upper, m.frequency_Hz * s.units.time_s(), m.uncertainty_Hz * s.units.time_s(),
-                   m.force_N / force_si});
+                   tilt + m.force_N / force_si});
   return out;
 }
 

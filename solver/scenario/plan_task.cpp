@@ -31,7 +31,8 @@ std::string synthetic_text(const Scenario& s, const std::vector<double>& work, d
     << "`: each work value is a line of the model drawn by its probability,\n"
     << "# plus Gaussian noise of standard deviation sigma (the resolution below).\n"
     << "# resolution: " << short_number(sigma / per_h_kHz, 12) << " h*kHz\n";
-  // 10 significant digits: far below any resolution worth stating
+  // 10 significant digits: far below any resolution worth stating; exact values (resolution 0) are
+  // matched to their lines within their written digits by `trapwork compare`
   for (double w : work) o << short_number(w / per_h_kHz, 10) << '\n';
   return o.str();
 }

@@ -678,7 +678,8 @@ std::vector<WorkCheck> work_checks(const WorkRun& run) {
   c.push_back({"unresolved weight", g.unresolved_weight, run.request.unresolved_tolerance,
                "WorkRequest.unresolved_tolerance: probability not captured by the final levels kept"});
   c.push_back({"edge amplitude", g.edge_amplitude, 1e-8,
-               "relative |psi|^2 in the outer 2% of the grid; the library warns above 1e-8"});
+               "relative |psi|^2 of the final states in the outer 2% of the grid, averaged with the initial "
+               "populations; the library warns above 1e-8"});
   c.push_back(
       {"momentum edge", g.momentum_edge, momentum_edge_tolerance,
        "weight of the propagated states in the outer 2% of the grid's momenta, largest over the run; the "
