@@ -198,6 +198,10 @@ const std::vector<UnitAtom>& unit_atoms() {
       {"J", 1, E},
       {"eV", electron_volt, E},
       {"meV", 1e-3 * electron_volt, E},
+      // the newton, for forces and force noise ("1e-21 N", "N^2/Hz"), and the femto- and attonewton
+      {"N", 1, Dimension{{1, 1, -2, 0}}},
+      {"fN", 1e-15, Dimension{{1, 1, -2, 0}}},
+      {"aN", 1e-18, Dimension{{1, 1, -2, 0}}},
       {"h", si::planck_h, action},
       {"hbar", si::hbar, action},
       {"kB", si::boltzmann, per_kelvin_energy},

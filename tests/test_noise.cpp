@@ -226,6 +226,27 @@ TEST_CASE("white position noise heats a harmonic trap at w^3 S_x / 4 quanta per 
   CHECK(big.distribution.unresolved_weight < 1e-6);
 }
 
+TEST_CASE("a noiseless step too coarse for the noise is refined for the realisations", "[noise][validation]") {
+  // A held trap needs almost no steps without noise; the noise drives it at f and 2 f. With 12
+  // order-4 steps in tau = 20 (w dt = 1.7) the realisations gave 70 % of the heating (a finding
+  // on 60 steps in 10 trap periods); they must now run at 10 steps per period of 2 f (64 here)
+  // and meet the published rate w^4 S_x tau / 4 (Turchette et al., derived at the top).
+  const double tau = 20, s_x = position_psd_from_heating_rate(0.025, 1.0);
+  const Protocol hold(tau, {Schedule::constant("trap.centre", 0)});
+  WorkRequest request = quick_request();
+  request.steps = 12;
+  const NoisyWorkResult r = run_noisy_work(harmonic_trap(), hold, request, white_noise("trap.centre", s_x, 400));
+  const double published = s_x * tau / 4;
+  INFO("steps " << r.steps << ", extra energy " << r.extra_energy.value << " +- " << r.extra_energy.error
+                << ", published " << published);
+  CHECK(r.noiseless.steps == 12);
+  CHECK(r.steps >= int(std::ceil(tau * 2 / (2 * si::pi) / 0.1)));
+  CHECK(std::abs(r.extra_energy.value - published) < 4 * r.extra_energy.error);
+  bool said = false;
+  for (const auto& note : r.notes) said = said || note.find("noise realisations run with") != std::string::npos;
+  CHECK(said);
+}
+
 TEST_CASE("white spring-constant noise heats exponentially at Gamma = pi^2 f^2 S_k(2f)", "[noise][validation]") {
   // Source: Savard, O'Hara and Thomas (1997), Gamma = pi^2 f^2 S_k(2 f) (from memory); exact
   // white-noise moments from the Lindblad equation (derived at the top): E' = S X with
@@ -396,6 +417,19 @@ psd_unit = "nm^2/Hz"
   CHECK(table.frequencies().back() == Approx(2e6 * t0).epsilon(1e-12));  // cycles per T0 (0.32 here)
   CHECK(table(0.4) == 0);                                                 // 0 beyond the table
   CHECK(table(0.1) == Approx(2e-6 * 1e-18 / (l0 * l0 * t0)).epsilon(1e-12));
+  // a table of one column (it crashed the reader) or of three is refused, naming file and line
+  for (const char* text : {"frequency\n0\n2000\n", "frequency, psd, extra\n0, 2e-6, 1\n2000, 2e-6, 1\n"}) {
+    std::ofstream(dir / "bad.csv") << text;
+    CHECK_THROWS_WITH(with_noise(R"(
+[noise]
+[[noise.source]]
+parameter = "trap.centre"
+psd_file = "bad.csv"
+psd_unit = "nm^2/Hz"
+)",
+                                 (dir / "noise_test.toml").string()),
+                      Catch::Contains("bad.csv:2:") && Catch::Contains("two numbers per row"));
+  }
   CHECK(t.noise->request.realisations == 100);  // the defaults
   CHECK(t.noise->request.seed == 1);
   CHECK(t.noise->request.route == NoiseRoute::automatic);
@@ -713,4 +747,53 @@ TEST_CASE("examples/tweezer_intensity_noise.toml: parametric heating against Gam
                        << " (internal), Gamma " << gamma << " /s, nu " << nu << " Hz");
   CHECK(std::abs(r.extra_energy.value - predicted) < 3 * r.extra_energy.error + 0.1 * predicted);
   CHECK(r.extra_energy.error < 0.5 * predicted);  // the statistics resolve the heating
+}
+
+TEST_CASE("a heating rate used away from its trap frequency is warned on with both scalings", "[noise][scenario]") {
+  // Position noise of the centre heats as f^3 (dn/dt = w^3 S_x / 4), a flat electric-field (force)
+  // noise as 1/f (S_F / (4 m hbar w)), both derived at the top. 500 quanta/s measured at 1 MHz,
+  // used in a 2 MHz trap: 4000 quanta/s as the model takes it, 250 as field noise.
+  const std::string text = R"(title = "held 2 MHz trap"
+[particle]
+mass = "40 u"
+[units]
+energy = "h*kHz"
+[[potential]]
+name = "trap"
+shape = "harmonic"
+frequency = "2 MHz"
+[protocol]
+duration = "2 us"
+[[protocol.change]]
+parameter = "trap.centre"
+ramp = "constant"
+to = "0 um"
+[initial]
+level = 0
+[work]
+max_initial_levels = 1
+final_margin = 8
+threads = 1
+[noise]
+[[noise.source]]
+parameter = "trap.centre"
+heating_rate = "500 quanta/s"
+at_frequency = "AT"
+)";
+  auto scenario = [&](const std::string& at) {
+    std::string t = text;
+    t.replace(t.find("AT"), 2, at);
+    return read_scenario_text(t, "held.toml");
+  };
+  const WorkOutcome away = work_task(scenario("1 MHz"), std::nullopt);
+  REQUIRE(away.noise);
+  CHECK(away.noise->heating_quanta_rate.value * 2 * si::pi * 2e6 ==
+        Approx(4000).epsilon(0.02));  // per internal time unit 1/(2 pi 2 MHz) -> per second
+  std::string warned;
+  for (const auto& w : away.noise->warnings)
+    if (w.find("heats as f^3") != std::string::npos) warned = w;
+  INFO(warned);
+  CHECK_THAT(warned, Catch::Contains("4000 quanta/s at the protocol's 2 MHz") && Catch::Contains("250 quanta/s"));
+  const WorkOutcome same = work_task(scenario("2 MHz"), std::nullopt);
+  for (const auto& w : same.noise->warnings) CHECK(w.find("heats as f^3") == std::string::npos);
 }

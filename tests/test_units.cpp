@@ -63,6 +63,9 @@ TEST_CASE("parse_quantity reads numbers with lab units into SI", "[units]") {
       {"3 J/m^4", 3.0, Dimension::energy_per_length(4)},
       {"1.5e3MHz", 1.5e9, Dimension::frequency()},
       {"  4 h * MHz / nm ^ 3 ", 4 * codata_h * 1e6 / 1e-27, Dimension::energy_per_length(3)},
+      {"2 N", 2.0, Dimension::energy_per_length(1)},  // the newton: a force is an energy per length
+      {"5 aN", 5e-18, Dimension::energy_per_length(1)},
+      {"3e-48 N^2/Hz", 3e-48, Dimension{{2, 2, -3, 0}}},
   };
   for (const auto& c : cases) {
     INFO(c.text);

@@ -350,7 +350,8 @@ const std::vector<TableSpec>& scenario_tables() {
           text("psd_unit", "required with psd_file", "unit of the PSD table's PSD column", "\"m^2/Hz\""),
           text("heating_rate", "one of white, psd_file, heating_rate",
                "measured heating rate of a centre, in quanta per time; taken as white position noise "
-               "S_x = 4 hbar (dn/dt) / (m omega^3)",
+               "S_x = 4 hbar (dn/dt) / (m omega^3), which heats as f^3 (warned where the trap's frequency "
+               "differs; electric-field noise heats as 1/f: give it as force noise on a linear term, in N^2/Hz)",
                "\"500 quanta/s\""),
           quantity("at_frequency", Dimension::frequency(), "required with heating_rate",
                    "trap frequency the heating rate was measured at", "\"1 MHz\""),

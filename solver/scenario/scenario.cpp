@@ -431,6 +431,10 @@ PotentialTable Reader::read_table_file(const toml::node& file_node, const std::s
       for (const auto& f : r.fields) row += (row.empty() ? "" : ", ") + f.text;
       throw InputError(dotted, row, expected, "", data_file, r.line, column);
     };
+    // exactly two columns: a one-column file with a header once crashed here, a third column was ignored
+    if (r.fields.size() != 2)
+      bad(r.fields.size() > 2 ? r.fields[2].column : r.fields.front().column,
+          "two numbers per row, " + pair + " (found " + std::to_string(r.fields.size()) + " columns)");
     double values[2];
     for (std::size_t i = 0; i < 2; ++i) {
       const std::string& f = r.fields[i].text;
@@ -1360,6 +1364,8 @@ void Reader::read_noise(const toml::table& root, Scenario& s) const {
       return relative ? q.value_si / t0 : q.value_si / (unit * unit * t0);
     };
     const bool white = src.get("white"), file = src.get("psd_file"), heating = src.get("heating_rate");
+    std::pair<double, double> heating_rate{std::numeric_limits<double>::quiet_NaN(),
+                                           std::numeric_limits<double>::quiet_NaN()};
     if (int(white) + int(file) + int(heating) != 1)
       fail(node, prefix, "exactly one of white, psd_file, heating_rate");
     if (relative && heating)
@@ -1424,6 +1430,7 @@ void Reader::read_noise(const toml::table& root, Scenario& s) const {
       if (!at) fail(n, prefix + ".at_frequency", "the trap frequency of the heating rate (at_frequency = \"1 MHz\")");
       if (!(at->value > 0)) fail(*at->node, prefix + ".at_frequency", "a frequency > 0");
       const double quanta_per_t0 = count / per.value_si * t0, omega = 2 * si::pi * at->value * t0;
+      heating_rate = {quanta_per_t0, omega};
       source.spectrum = NoiseSpectrum::white(position_psd_from_heating_rate(quanta_per_t0, omega));
       char psd[32];
       std::snprintf(psd, sizeof psd, "%.4g", source.spectrum.white_level() * unit * unit * t0);
@@ -1441,6 +1448,7 @@ void Reader::read_noise(const toml::table& root, Scenario& s) const {
            "route holds for white noise only");
     settings.request.sources.push_back(std::move(source));
     settings.given.push_back(given);
+    settings.heating_rate.push_back(heating_rate);
   }
   s.noise = std::move(settings);
 }

@@ -213,6 +213,32 @@ WorkOutcome work_task(const Scenario& scenario, std::optional<double> tolerance,
     outcome.noise = naming_scenario(scenario.file, scenario, [&] {
       return run_noisy_work(run.scenario.potential, run.protocol, run.request, noise, &run.result);
     });
+    // A heating rate is applied as white noise of the trap's centre, which heats as f^3; the
+    // electric-field noise that heats ions would heat as 1/f (flat spectrum). Where the trap's
+    // frequency in the protocol is not the one the rate was measured at, the two differ: say by how much.
+    auto frequency_text = [&](double omega) {
+      const double hz = omega / (2 * si::pi) / scenario.units.time_s();
+      return hz >= 1e6 ? short_number(hz / 1e6, 5) + " MHz" : short_number(hz / 1e3, 5) + " kHz";
+    };
+    for (std::size_t k = 0; k < scenario.noise->heating_rate.size(); ++k) {
+      const auto [rate, at] = scenario.noise->heating_rate[k];
+      if (!std::isfinite(rate)) continue;
+      double farthest = at;
+      const double tau = run.protocol.duration();
+      for (int i = 0; i <= 16; ++i)
+        if (const auto h = run.protocol.at(run.scenario.potential, tau * i / 16).harmonic_part())
+          if (std::abs(std::log(h->first / at)) > std::abs(std::log(farthest / at))) farthest = h->first;
+      if (std::abs(farthest / at - 1) <= 0.01) continue;
+      const double per_s = 1 / scenario.units.time_s();
+      outcome.noise->warnings.push_back(
+          "noise.source[" + std::to_string(k + 1) + "]: the heating rate " + short_number(rate * per_s, 4) +
+          " quanta/s measured at " + frequency_text(at) + " is applied as white noise of the centre, which heats as f^3: " +
+          short_number(rate * per_s * std::pow(farthest / at, 3), 4) + " quanta/s at the protocol's " +
+          frequency_text(farthest) + "; electric-field noise of flat spectrum (the usual source for ions) would give " +
+          short_number(rate * per_s * at / farthest, 4) +
+          " quanta/s (as 1/f): where that is the source, give its force spectrum (white or psd_file) on a linear "
+          "term, e.g. a polynomial term of frequency 0 and parameter = \"push.linear\"");
+    }
   }
   return outcome;
 }
