@@ -225,6 +225,9 @@ constexpr std::size_t derivative_table_limit = std::size_t(8) << 20;
 struct Realisation {
   Eigen::MatrixXd transitions;
   double direct_mean = 0;
+  // the largest weight of a kept state, times its initial weight, in the outer 2% of the grid's
+  // momenta or points over the run (BatchedSplitStep's measurement; momentum_edge_tolerance)
+  double edge = 0;
 };
 
 // Below this many substeps a run plans with FFTW_ESTIMATE, as run_work does (work.cpp).
@@ -248,8 +251,13 @@ Realisation propagate_realisation(const PotentialPath& path, const WorkResult& w
   const Eigen::MatrixXcd amplitudes = project(w.final_spectrum, psi);
   r.transitions = transition_matrix(amplitudes).probability;
   const StateEnergies e = state_energies(path.grid(), v_final, psi);
-  for (int m = 0; m < kept; ++m)
-    r.direct_mean += w.forward.initial_weights[std::size_t(m)] * (e.energy[m] - w.forward.initial_energies[m]);
+  for (int m = 0; m < kept; ++m) {
+    const double p = w.forward.initial_weights[std::size_t(m)];
+    r.direct_mean += p * (e.energy[m] - w.forward.initial_energies[m]);
+    for (const std::vector<double>* edge : {&propagator.momentum_edge(), &propagator.position_edge()})
+      if (std::size_t(m) < edge->size() && std::isfinite((*edge)[std::size_t(m)]))
+        r.edge = std::max(r.edge, p * (*edge)[std::size_t(m)]);
+  }
   return r;
 }
 
@@ -976,6 +984,18 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
   // Probability beyond the final levels matters only where the realisations resolve it: below a
   // tenth of their statistical line error it changes no line beyond that error (the extra energy
   // and the direct <W> count all levels anyway).
+  // Noise strong enough to drive the states to the grid's momentum or position limit heats
+  // beyond what the grid holds: the extra energy then saturates at a grid-made value (a finding:
+  // 3.1e6 quanta/s +- 1 % printed for 1 m^2/Hz of centre noise, whose rate is 3.9e28).
+  double edge = 0;
+  for (int r = 1; r <= R; ++r) edge = std::max(edge, runs[std::size_t(r)].edge);
+  out.noisy_edge = edge;
+  if (edge > momentum_edge_tolerance)
+    out.warnings.push_back("the noisy states reach the grid's momentum or position limit (weight " + text(edge) +
+                           " in its outer 2%, above " + text(momentum_edge_tolerance) +
+                           "): the extra energy and the lines are limited by the grid, not by the noise, and are "
+                           "not to be trusted; give the grid more points and extent ([grid] points, left, right) or "
+                           "check the noise level and its unit");
   const double resolved = std::max(request.unresolved_tolerance, 0.1 * out.line_error_total);
   if (out.distribution.unresolved_weight > resolved)
     out.warnings.push_back("with noise the unresolved final weight is " + text(out.distribution.unresolved_weight) +

@@ -29,6 +29,7 @@
 // propagator of the noiseless run, on its grid and frame; the TPM transition matrices are
 // averaged. Every trace is a closed (unitary) evolution.
 #include <cstdint>
+#include <limits>
 #include <optional>
 #include <string>
 #include <vector>
@@ -187,6 +188,10 @@ struct NoisyWorkResult {
   std::string realisation_choice;  // how R came about ("as given", "grown in 3 batches ...")
   std::uint64_t seed = 0;
   int steps = 0;                   // the protocol's time steps = trace intervals
+  // realisations: the largest weight (times its initial weight) of a noisy state in the outer 2%
+  // of the grid's momenta or points over the run; warned above momentum_edge_tolerance. NaN on
+  // the Lindblad route (its basis truncation is the unresolved weight instead)
+  double noisy_edge = std::numeric_limits<double>::quiet_NaN();
   std::string route;               // "realisations: ..." or "lindblad: ..." (what ran, in words)
   std::string route_name;          // "realisations" or "lindblad"
   std::string route_reason;        // why this route ran

@@ -247,6 +247,31 @@ TEST_CASE("a noiseless step too coarse for the noise is refined for the realisat
   CHECK(said);
 }
 
+TEST_CASE("noise that drives the states to the grid's limits is warned on, not reported as heating",
+          "[noise][validation]") {
+  // 1e6 times the rate of the tests above: the published extra energy w^4 S_x tau / 4 is far
+  // beyond any state the grid holds, and the realisations saturate at a grid-made value (a
+  // finding: 3.1e6 quanta/s printed for a rate of 3.9e28). The check must fire there and stay
+  // quiet at the ordinary rate.
+  const double tau = 20, s_x = position_psd_from_heating_rate(0.025, 1.0);
+  const Protocol hold(tau, {Schedule::constant("trap.centre", 0)});
+  const WorkRequest request = quick_request();
+  auto warned = [](const NoisyWorkResult& r) {
+    for (const auto& w : r.warnings)
+      if (w.find("grid's momentum or position limit") != std::string::npos) return true;
+    return false;
+  };
+  const NoisyWorkResult strong = run_noisy_work(harmonic_trap(), hold, request, white_noise("trap.centre", 1e6 * s_x, 8));
+  INFO("extra energy " << strong.extra_energy.value << " against " << 1e6 * s_x * tau / 4 << ", edge "
+                       << strong.noisy_edge);
+  CHECK(strong.extra_energy.value < 0.1 * 1e6 * s_x * tau / 4);  // the saturation the warning is for
+  CHECK(strong.noisy_edge > momentum_edge_tolerance);
+  CHECK(warned(strong));
+  const NoisyWorkResult ordinary = run_noisy_work(harmonic_trap(), hold, request, white_noise("trap.centre", s_x, 8));
+  CHECK(ordinary.noisy_edge < momentum_edge_tolerance);
+  CHECK_FALSE(warned(ordinary));
+}
+
 TEST_CASE("white spring-constant noise heats exponentially at Gamma = pi^2 f^2 S_k(2f)", "[noise][validation]") {
   // Source: Savard, O'Hara and Thomas (1997), Gamma = pi^2 f^2 S_k(2 f) (from memory); exact
   // white-noise moments from the Lindblad equation (derived at the top): E' = S X with
