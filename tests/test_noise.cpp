@@ -442,32 +442,22 @@ psd_unit = "nm^2/Hz"
   CHECK(table.frequencies().back() == Approx(2e6 * t0).epsilon(1e-12));  // cycles per T0 (0.32 here)
   CHECK(table(0.4) == 0);                                                 // 0 beyond the table
   CHECK(table(0.1) == Approx(2e-6 * 1e-18 / (l0 * l0 * t0)).epsilon(1e-12));
+  // [noise] with one PSD table source
+  auto table_noise = [&](const std::string& route, const std::string& file) {
+    return with_noise("[noise]\n" + route + "[[noise.source]]\nparameter = \"trap.centre\"\npsd_file = \"" + file +
+                          "\"\npsd_unit = \"nm^2/Hz\"\n",
+                      (dir / "noise_test.toml").string());
+  };
   // a table of one column (it crashed the reader) or of three is refused, naming file and line
   for (const char* text : {"frequency\n0\n2000\n", "frequency, psd, extra\n0, 2e-6, 1\n2000, 2e-6, 1\n"}) {
     std::ofstream(dir / "bad.csv") << text;
-    CHECK_THROWS_WITH(with_noise(R"(
-[noise]
-[[noise.source]]
-parameter = "trap.centre"
-psd_file = "bad.csv"
-psd_unit = "nm^2/Hz"
-)",
-                                 (dir / "noise_test.toml").string()),
-                      Catch::Contains("bad.csv:2:") && Catch::Contains("two numbers per row"));
+    CHECK_THROWS_WITH(table_noise("", "bad.csv"), Catch::Contains("bad.csv:2:") && Catch::Contains("two numbers per row"));
   }
   CHECK(t.noise->request.realisations == 100);  // the defaults
   CHECK(t.noise->request.seed == 1);
   CHECK(t.noise->request.route == NoiseRoute::automatic);
   // the Lindblad route with a PSD table: refused, naming the key and its line
-  CHECK_THROWS_WITH(with_noise(R"(
-[noise]
-route = "lindblad"
-[[noise.source]]
-parameter = "trap.centre"
-psd_file = "psd.csv"
-psd_unit = "nm^2/Hz"
-)",
-                               (dir / "noise_test.toml").string()),
+  CHECK_THROWS_WITH(table_noise("route = \"lindblad\"\n", "psd.csv"),
                     Catch::Contains("noise_test.toml:") && Catch::Contains("noise.route = \"lindblad\"") &&
                         Catch::Contains("white noise only"));
 
@@ -593,8 +583,10 @@ white = "1e6 Hz^2/Hz"
   REQUIRE(o.noise);
   CHECK(o.noise->route_name == "realisations");
   CHECK_THAT(o.noise->route_reason, Catch::Contains("Lindblad route is refused") && Catch::Contains("stiff"));
-  REQUIRE_FALSE(o.noise->warnings.empty());
-  CHECK_THAT(o.noise->warnings.front(), Catch::Contains("unresolved final weight"));
+  // (this noise also drives the states to the grid's limits, which the grid warning, placed first, says)
+  std::string all;
+  for (const auto& w : o.noise->warnings) all += w + "\n";
+  CHECK_THAT(all, Catch::Contains("unresolved final weight"));
 }
 
 TEST_CASE("realisations grow in batches to a requested statistical error, up to a cap that warns",
