@@ -61,7 +61,6 @@ double cdf_at_most(const NormalisedModel& m, double sigma, double w) {
   return s;
 }
 
-// Index of the line within tol of w, or -1.
 // The q-quantile of sorted values (linear interpolation between order statistics).
 double sorted_quantile(const std::vector<double>& sorted, double q) {
   const double h = q * double(sorted.size() - 1);
@@ -70,6 +69,7 @@ double sorted_quantile(const std::vector<double>& sorted, double q) {
   return sorted[lo] + (h - double(lo)) * (sorted[hi] - sorted[lo]);
 }
 
+// Index of the line within tol of w, or -1.
 int matching_line(const NormalisedModel& m, double w, double tol) {
   const auto it = std::lower_bound(m.work.begin(), m.work.end(), w - tol);
   if (it == m.work.end() || *it > w + tol) return -1;
@@ -172,7 +172,8 @@ void jarzynski_part(WorkComparison& r, const std::vector<double>& work, const st
     j.model_mean_estimate_kT = sum / double(j.experiments);
     j.model_lower_kT = sorted_quantile(estimates, (1 - o.confidence) / 2);
     j.model_upper_kT = sorted_quantile(estimates, (1 + o.confidence) / 2);
-    // two-sided, ties counted half (mid-rank): 2 min(F(x), 1 - F(x))
+    // two-sided, ties counted half (mid-rank): 2 min(F(x), 1 - F(x)), plus 1/K so that a finite
+    // number K of experiments never claims p = 0
     const double below = double(std::lower_bound(estimates.begin(), estimates.end(), j.estimate_kT) - estimates.begin());
     const double at_most = double(std::upper_bound(estimates.begin(), estimates.end(), j.estimate_kT) - estimates.begin());
     const double f = (below + at_most) / 2 / double(j.experiments);

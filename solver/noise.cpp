@@ -225,8 +225,9 @@ constexpr std::size_t derivative_table_limit = std::size_t(8) << 20;
 struct Realisation {
   Eigen::MatrixXd transitions;
   double direct_mean = 0;
-  // the largest weight of a kept state, times its initial weight, in the outer 2% of the grid's
-  // momenta or points over the run (BatchedSplitStep's measurement; momentum_edge_tolerance)
+  // the kept states' largest share of their norm in the outer 2% of the grid's momenta or points
+  // over the run (BatchedSplitStep's measurement), averaged with the initial weights, as the
+  // noiseless run's Diagnostics::momentum_edge and position_edge are (momentum_edge_tolerance)
   double edge = 0;
 };
 
@@ -251,13 +252,15 @@ Realisation propagate_realisation(const PotentialPath& path, const WorkResult& w
   const Eigen::MatrixXcd amplitudes = project(w.final_spectrum, psi);
   r.transitions = transition_matrix(amplitudes).probability;
   const StateEnergies e = state_energies(path.grid(), v_final, psi);
+  double weight = 0;
   for (int m = 0; m < kept; ++m) {
     const double p = w.forward.initial_weights[std::size_t(m)];
     r.direct_mean += p * (e.energy[m] - w.forward.initial_energies[m]);
-    for (const std::vector<double>* edge : {&propagator.momentum_edge(), &propagator.position_edge()})
-      if (std::size_t(m) < edge->size() && std::isfinite((*edge)[std::size_t(m)]))
-        r.edge = std::max(r.edge, p * (*edge)[std::size_t(m)]);
+    const auto j = std::size_t(m);
+    r.edge += p * std::max(propagator.momentum_edge()[j], propagator.position_edge()[j]);
+    weight += p;
   }
+  if (weight > 0) r.edge /= weight;
   return r;
 }
 
@@ -981,9 +984,6 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
   out.heating_quanta_rate = out.harmonic_omega > 0 ? Estimate{out.heating_rate.value / out.harmonic_omega,
                                                                out.heating_rate.error / out.harmonic_omega}
                                                    : Estimate{nan, nan};
-  // Probability beyond the final levels matters only where the realisations resolve it: below a
-  // tenth of their statistical line error it changes no line beyond that error (the extra energy
-  // and the direct <W> count all levels anyway).
   // Noise strong enough to drive the states to the grid's momentum or position limit heats
   // beyond what the grid holds: the extra energy then saturates at a grid-made value (a finding:
   // 3.1e6 quanta/s +- 1 % printed for 1 m^2/Hz of centre noise, whose rate is 3.9e28).
@@ -996,6 +996,9 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
                            "): the extra energy and the lines are limited by the grid, not by the noise, and are "
                            "not to be trusted; give the grid more points and extent ([grid] points, left, right) or "
                            "check the noise level and its unit");
+  // Probability beyond the final levels matters only where the realisations resolve it: below a
+  // tenth of their statistical line error it changes no line beyond that error (the extra energy
+  // and the direct <W> count all levels anyway).
   const double resolved = std::max(request.unresolved_tolerance, 0.1 * out.line_error_total);
   if (out.distribution.unresolved_weight > resolved)
     out.warnings.push_back("with noise the unresolved final weight is " + text(out.distribution.unresolved_weight) +

@@ -3,6 +3,7 @@
 // the nominal trap, and the runs that would tell them apart.
 #include <catch2/catch.hpp>
 #include <cmath>
+#include <cstdio>
 #include <fstream>
 #include <nlohmann/json.hpp>
 #include <sstream>
@@ -173,4 +174,43 @@ TEST_CASE("issue 19: compare --against on populations chooses by the level pairs
   CHECK(t.atypical);
   CHECK(t.p_a_beyond <= 0.05);
   CHECK_THAT(r.choice->verdicts.at(0), Contains("may fit neither model"));
+}
+
+TEST_CASE("compare --against matches exact work values within their written digits, as compare does",
+          "[model_choice_command]") {
+  // Exact values (no resolution) drawn by plan from the anharmonic model, then written to 2
+  // decimals (1e-2 h*kHz, far above the 1e-9 matching tolerance but far below the line spacing).
+  // Without the digits every rounded value would fall in no model's category (-inf likelihood).
+  const fs::path dir = scratch("exact-rounded");
+  std::ostringstream err;
+  REQUIRE(run_cli({"plan", anharmonic, "--resolution", "0 h*kHz", "--runs", "10", "--experiments", "10",
+                   "--synthetic-runs", "300", "--seed", "5", "-o", (dir / "plan").string(), "--quiet"},
+                  err) == 0);
+  std::istringstream synthetic(trapwork_test::read_all(dir / "plan" / "synthetic_work.csv"));
+  std::ofstream rounded(dir / "rounded.csv");
+  int values = 0;
+  for (std::string line; std::getline(synthetic, line);) {
+    if (!line.empty() && (std::isdigit(static_cast<unsigned char>(line[0])) || line[0] == '-')) {
+      char text[64];
+      std::snprintf(text, sizeof text, "%.2f", std::stod(line));
+      line = text;
+      ++values;
+    }
+    rounded << line << '\n';
+  }
+  rounded.close();
+  REQUIRE(values == 300);
+  CompareCommand c;
+  c.scenario = anharmonic;
+  c.data = (dir / "rounded.csv").string();
+  c.against = {harmonic};
+  c.calibration = 50;
+  c.resamples = 0;
+  c.output = (dir / "out").string();
+  std::ostringstream out, progress;
+  const CompareOutcome r = run_compare_command(c, out, progress);
+  REQUIRE(r.choice);
+  CHECK(r.comparison.impossible_runs == 0);
+  CHECK(std::isfinite(r.comparison.log_likelihood));
+  CHECK(r.choice->choice.log_likelihood[0] == Approx(r.comparison.log_likelihood).epsilon(1e-12));
 }

@@ -406,10 +406,12 @@ std::optional<std::int64_t> exact_count(std::string_view s) {
 }
 
 // Half a unit of the last digit a number's text writes ("12.345" -> 0.0005, "1.2e3" -> 50,
-// "300" -> 0.5): the rounding its writer may have made. NaN when the text is not a decimal number.
+// "300" -> 0.5): the rounding its writer may have made. NaN when the text is not a decimal number
+// or its last digit lies beyond a double's range ("0e400").
 double half_last_digit(std::string_view s) {
   const auto parts = decimal_text(s);
-  return parts ? 0.5 * std::pow(10.0, parts->exponent) : std::numeric_limits<double>::quiet_NaN();
+  const double half = parts ? 0.5 * std::pow(10.0, parts->exponent) : 0.0;
+  return half > 0 && std::isfinite(half) ? half : std::numeric_limits<double>::quiet_NaN();
 }
 
 // Whether the row is kept (no keep column: every row).

@@ -6,6 +6,7 @@
 #include <cmath>
 #include <cstdio>
 #include <filesystem>
+#include <limits>
 
 #include "solver/compare.hpp"
 #include "solver/errors.hpp"
@@ -53,8 +54,11 @@ std::vector<double> pair_probabilities(const WorkInput& in, const PairCells& c) 
 
 // Exact work values: categories are the lines of all models merged within `tolerance`, plus
 // one last category no model has (runs matching no line).
+// precision: per value, the rounding its written digits allow (as CompareOptions::precision:
+// a value within the larger of it and `tolerance` of a category falls in the nearest such one).
 void exact_value_categories(const std::vector<std::vector<WorkLine>>& models, const std::vector<double>& work,
-                            double tolerance, CandidateModels& m, MeasuredRuns& data) {
+                            const std::vector<double>& precision, double tolerance, CandidateModels& m,
+                            MeasuredRuns& data) {
   std::vector<double> all;
   for (const auto& lines : models)
     for (const auto& l : lines) all.push_back(l.work);
@@ -65,19 +69,31 @@ void exact_value_categories(const std::vector<std::vector<WorkLine>>& models, co
       groups.push_back({w, w});
     else
       groups.back().second = w;
-  auto category = [&](double w) {
-    const auto it = std::lower_bound(groups.begin(), groups.end(), w - tolerance,
-                                     [](const std::pair<double, double>& g, double x) { return g.second < x; });
-    if (it == groups.end() || it->first > w + tolerance) return groups.size();
-    return std::size_t(it - groups.begin());
+  // the nearest category within tol of w (its lines' span), or groups.size() for none
+  auto category = [&](double w, double tol) {
+    auto it = std::lower_bound(groups.begin(), groups.end(), w - tol,
+                               [](const std::pair<double, double>& g, double x) { return g.second < x; });
+    std::size_t best = groups.size();
+    double nearest = std::numeric_limits<double>::infinity();
+    for (; it != groups.end() && it->first <= w + tol; ++it) {
+      const double d = std::max({0.0, it->first - w, w - it->second});
+      if (d < nearest) {
+        nearest = d;
+        best = std::size_t(it - groups.begin());
+      }
+    }
+    return best;
   };
   for (const auto& lines : models) {
     std::vector<double> p(groups.size() + 1, 0.0);
-    for (const auto& l : lines) p[category(l.work)] += l.probability;
+    for (const auto& l : lines) p[category(l.work, tolerance)] += l.probability;
     m.categories.push_back(std::move(p));
   }
   data.counts.assign(groups.size() + 1, 0.0);
-  for (double w : work) data.counts[category(w)] += 1;
+  for (std::size_t i = 0; i < work.size(); ++i) {
+    const double digits = i < precision.size() ? precision[i] : std::numeric_limits<double>::quiet_NaN();
+    data.counts[category(work[i], std::isnan(digits) ? tolerance : std::max(tolerance, digits * (1 + 1e-12)))] += 1;
+  }
 }
 
 std::string percent(double share) {
@@ -180,7 +196,9 @@ ModelChoiceOutcome choose_between(const WorkRun& main_run, const WorkData& data,
         o.form = "work values with resolution " + short_number(d.energy(sigma), 4) + " " + d.e;
         o.display_shift = std::log(d.energy_per);
       } else {
-        exact_value_categories(lines, measured.work, CompareOptions{}.match_tolerance, models, measured);
+        std::vector<double> precision;
+        for (double p : data.samples.precision_J) precision.push_back(p / main.units.energy_J());
+        exact_value_categories(lines, measured.work, precision, CompareOptions{}.match_tolerance, models, measured);
         measured.work.clear();
         o.form = "exact work values (each line of the models a category)";
       }

@@ -1364,8 +1364,7 @@ void Reader::read_noise(const toml::table& root, Scenario& s) const {
       return relative ? q.value_si / t0 : q.value_si / (unit * unit * t0);
     };
     const bool white = src.get("white"), file = src.get("psd_file"), heating = src.get("heating_rate");
-    std::pair<double, double> heating_rate{std::numeric_limits<double>::quiet_NaN(),
-                                           std::numeric_limits<double>::quiet_NaN()};
+    std::optional<std::pair<double, double>> heating_rate;
     if (int(white) + int(file) + int(heating) != 1)
       fail(node, prefix, "exactly one of white, psd_file, heating_rate");
     if (relative && heating)
@@ -1430,7 +1429,7 @@ void Reader::read_noise(const toml::table& root, Scenario& s) const {
       if (!at) fail(n, prefix + ".at_frequency", "the trap frequency of the heating rate (at_frequency = \"1 MHz\")");
       if (!(at->value > 0)) fail(*at->node, prefix + ".at_frequency", "a frequency > 0");
       const double quanta_per_t0 = count / per.value_si * t0, omega = 2 * si::pi * at->value * t0;
-      heating_rate = {quanta_per_t0, omega};
+      heating_rate = std::make_pair(quanta_per_t0, omega);
       source.spectrum = NoiseSpectrum::white(position_psd_from_heating_rate(quanta_per_t0, omega));
       char psd[32];
       std::snprintf(psd, sizeof psd, "%.4g", source.spectrum.white_level() * unit * unit * t0);

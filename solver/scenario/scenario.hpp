@@ -159,8 +159,8 @@ struct NoiseSettings {
   NoiseRequest request;
   std::vector<std::string> given;  // one per source: "trap.centre: heating_rate = 500 quanta/s at 1 MHz"
   // one per source: a heating_rate's quanta per internal time unit and the angular frequency it
-  // was measured at (internal), NaN for the other kinds
-  std::vector<std::pair<double, double>> heating_rate;
+  // was measured at (internal); none for the other kinds
+  std::vector<std::optional<std::pair<double, double>>> heating_rate;
   std::string bath_given;          // [bath] as written ("" without): "temperature = 0.5 mK, rate = 200 /s"
   // The table a refusal names: "bath" for a [bath] without noise sources, else "noise".
   std::string table() const { return request.sources.empty() && !bath_given.empty() ? "bath" : "noise"; }

@@ -216,13 +216,13 @@ WorkOutcome work_task(const Scenario& scenario, std::optional<double> tolerance,
     // A heating rate is applied as white noise of the trap's centre, which heats as f^3; the
     // electric-field noise that heats ions would heat as 1/f (flat spectrum). Where the trap's
     // frequency in the protocol is not the one the rate was measured at, the two differ: say by how much.
-    auto frequency_text = [&](double omega) {
-      const double hz = omega / (2 * si::pi) / scenario.units.time_s();
-      return hz >= 1e6 ? short_number(hz / 1e6, 5) + " MHz" : short_number(hz / 1e3, 5) + " kHz";
+    auto frequency_text = [&](double omega) {  // an internal frequency value is angular (units.hpp)
+      const ShownUnit u = shown_unit(run, Dimension::frequency(), omega);
+      return short_number(omega / u.internal_per_unit, 5) + " " + u.name;
     };
     for (std::size_t k = 0; k < scenario.noise->heating_rate.size(); ++k) {
-      const auto [rate, at] = scenario.noise->heating_rate[k];
-      if (!std::isfinite(rate)) continue;
+      if (!scenario.noise->heating_rate[k]) continue;
+      const auto [rate, at] = *scenario.noise->heating_rate[k];
       double farthest = at;
       const double tau = run.protocol.duration();
       for (int i = 0; i <= 16; ++i)

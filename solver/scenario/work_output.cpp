@@ -1228,12 +1228,6 @@ LevelsFigure spectrum_figure(const Scenario& s, const SpectrumResult& result) {
   return f;
 }
 
-namespace {
-// A scheduled value's display unit: name and the internal value of one unit.
-struct ShownUnit {
-  std::string name;
-  double internal_per_unit = 1;
-};
 ShownUnit shown_unit(const WorkRun& run, const Dimension& dim, double largest) {
   const Scenario& s = run.scenario;
   if (dim == Dimension::none()) return {"", 1};
@@ -1246,11 +1240,13 @@ ShownUnit shown_unit(const WorkRun& run, const Dimension& dim, double largest) {
   if (dim == Dimension::time()) return {"us", 1e-6 / si_per_internal};
   if (dim == Dimension::frequency()) {  // ordinary frequency
     const double hz = std::abs(largest * si_per_internal);
-    return hz >= 1e6 ? ShownUnit{"MHz", 1e6 / si_per_internal} : ShownUnit{"kHz", 1e3 / si_per_internal};
+    // (1 MHz converted to internal units and back may land a rounding below 1e6 Hz)
+    return hz >= 1e6 * (1 - 1e-9) ? ShownUnit{"MHz", 1e6 / si_per_internal} : ShownUnit{"kHz", 1e3 / si_per_internal};
   }
   return {si_unit(dim), 1 / si_per_internal};
 }
 
+namespace {
 // The time axis of a run's pictures: the unit protocol.duration was written in (us by default).
 ShownUnit time_unit(const WorkRun& run) {
   const std::string u = duration_unit(run.scenario);

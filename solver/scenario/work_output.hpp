@@ -144,6 +144,14 @@ double lowest_spacing(const WorkResult& result);
 // so that a tunnelling doublet does not ask for 1e8 bins).
 double resolution_of(const WorkRun& run);
 double bin_width_of(const WorkRun& run);
+// A value's display unit for a run's report and pictures: name and the internal value of one
+// unit (energies in the display unit, lengths by the grid, time in us, ordinary frequencies in
+// MHz from `largest` = 1 MHz up, else kHz).
+struct ShownUnit {
+  std::string name;
+  double internal_per_unit = 1;
+};
+ShownUnit shown_unit(const WorkRun& run, const Dimension& dim, double largest);
 
 // Skewness of W, or NaN (not defined) when the variance is rounding noise: below what lines
 // of probability 1e-13 (about 500 times the rounding of a probability near 1) could give,
