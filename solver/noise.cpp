@@ -870,7 +870,8 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
   };
   // realisations first .. last - 1, spread over the threads (of this process: its share)
   const Eigen::Index rows = w.forward.transitions.initial_levels(), cols = w.forward.transitions.final_levels();
-  const std::size_t width = std::size_t(rows * cols) + 1;  // a realisation as a part: P(m, n), then the direct <W>
+  // a realisation as a part: P(m, n), then the direct <W> and the edge
+  const std::size_t width = std::size_t(rows * cols) + 2;
   auto run_batch = [&](int first, int last) {
     runs.resize(std::size_t(last));
     std::vector<std::vector<double>> parts(std::size_t(last - first));
@@ -883,6 +884,7 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
           std::vector<double>& part = parts[std::size_t(i - first)];
           part.assign(r.transitions.data(), r.transitions.data() + r.transitions.size());
           part.push_back(r.direct_mean);
+          part.push_back(r.edge);
         }
     });
     if (!noise.sharing.shared()) return;
@@ -890,7 +892,8 @@ NoisyWorkResult run_noisy_work(const Potential& base, const Protocol& protocol, 
       if (!noise.sharing.mine(std::size_t(i - 1))) {
         const std::vector<double>& part = parts[std::size_t(i - first)];
         runs[std::size_t(i)].transitions = Eigen::Map<const Eigen::MatrixXd>(part.data(), rows, cols);
-        runs[std::size_t(i)].direct_mean = part.back();
+        runs[std::size_t(i)].direct_mean = part[std::size_t(rows * cols)];
+        runs[std::size_t(i)].edge = part.back();
       }
   };
 
